@@ -1,0 +1,63 @@
+/*
+ * strayline: the DICOM input stage, a plain C API over DCMTK.
+ *
+ * The implementation (src/dicom/, C++17) is the only code that includes a
+ * DCMTK header. It reads an RT Plan or an RT Structure Set, from a file or a
+ * memory buffer, with or without the file meta header, in any transfer
+ * syntax DCMTK reads, checks every count and every number it copies, and
+ * returns the plain structs of plan.h and structures.h. Errors name the
+ * file, the element (keyword and tag) and what was wrong.
+ */
+#ifndef STRAYLINE_DICOM_H
+#define STRAYLINE_DICOM_H
+
+#include <stddef.h>
+
+#include "strayline/error.h"
+#include "strayline/plan.h"
+#include "strayline/structures.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* Largest input file accepted (bytes) and largest total number of contour
+ * points in one structure set: beyond these an input error, not a swap storm. */
+#define SL_DICOM_MAX_FILE_BYTES ((size_t)1 << 30)
+#define SL_DICOM_MAX_CONTOUR_POINTS ((size_t)20000000)
+
+typedef enum sl_dicom_kind {
+    SL_DICOM_RTPLAN,
+    SL_DICOM_RTSTRUCT
+} sl_dicom_kind;
+
+/* A DICOM object read from one file: exactly one of plan / structures is set. */
+typedef struct sl_dicom_object {
+    sl_dicom_kind kind;
+    sl_plan *plan;
+    sl_structure_set *structures;
+} sl_dicom_object;
+
+/* Read a file that must be an RT Plan or an RT Structure Set. Any other kind
+ * of DICOM object (an image, an RT Dose, an RT Ion Plan) is an input error
+ * naming its SOP Class. */
+sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err);
+
+/* The same from a memory buffer; `name` stands for the file in messages. */
+sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
+                               sl_dicom_object *out, sl_error *err);
+
+/* Read a file that must be an RT Plan (or an RT Structure Set). */
+sl_status sl_dicom_read_plan(const char *path, sl_plan **out, sl_error *err);
+sl_status sl_dicom_read_structures(const char *path, sl_structure_set **out, sl_error *err);
+
+void sl_dicom_object_free(sl_dicom_object *obj);
+
+/* DCMTK's version string, for reports. */
+const char *sl_dicom_toolkit_version(void);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif

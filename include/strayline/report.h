@@ -1,0 +1,34 @@
+/*
+ * strayline: the report stage, the last in the flow. Writers turn the data of
+ * earlier stages into text, JSON, CSV or HTML; they compute nothing new.
+ *
+ * Every number is written with its unit in the column heading or key name
+ * (cm, MeV, cGy, Gy, deg). A non-finite number reaching a writer is refused
+ * with SL_EINTERNAL naming the field: a report never shows NaN.
+ */
+#ifndef STRAYLINE_REPORT_H
+#define STRAYLINE_REPORT_H
+
+#include <stdio.h>
+
+#include "strayline/dicom.h"
+#include "strayline/error.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+typedef enum sl_format { SL_FORMAT_TEXT, SL_FORMAT_JSON, SL_FORMAT_CSV } sl_format;
+
+/* Parse "text", "json" or "csv". */
+bool sl_format_parse(const char *name, sl_format *out);
+
+/* `strayline inspect`: a summary of each object read. */
+sl_status sl_report_inspect(FILE *fp, sl_format fmt, const sl_dicom_object *objs, size_t n,
+                            sl_error *err);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif

@@ -1,0 +1,74 @@
+/*
+ * `strayline inspect FILE...`: read DICOM RT Plans and Structure Sets and
+ * print what strayline understood of them, so that a user can check an export
+ * before estimating anything.
+ */
+#include <getopt.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "cli.h"
+#include "strayline/dicom.h"
+
+static const char help[] =
+    "usage: strayline inspect [--format text|json] FILE...\n\n"
+    "Summarise each DICOM RT Plan or RT Structure Set: for a plan its electron\n"
+    "beams (energy MeV, applicator, cutout, SSD cm, angles deg, MU, fractions,\n"
+    "patient setup) and the beams skipped and why; for a structure set its ROIs\n"
+    "(name, type, contours, points, slice range cm).\n\n"
+    "  -f, --format FMT   text (default) or json\n"
+    "  -h, --help         this help\n";
+
+int sl_cmd_inspect(int argc, char **argv)
+{
+    static const struct option opts[] = {
+        {"format", required_argument, NULL, 'f'},
+        {"help", no_argument, NULL, 'h'},
+        {NULL, 0, NULL, 0},
+    };
+    sl_format fmt = SL_FORMAT_TEXT;
+    int c;
+    optind = 1;
+    while ((c = getopt_long(argc, argv, "f:h", opts, NULL)) != -1) {
+        switch (c) {
+        case 'f':
+            if (!sl_cli_format("inspect", optarg, &fmt))
+                return SL_EXIT_USAGE;
+            if (fmt == SL_FORMAT_CSV)
+                return sl_cli_usage("inspect", "--format csv is not offered by inspect");
+            break;
+        case 'h':
+            fputs(help, stdout);
+            return SL_EXIT_OK;
+        default:
+            return sl_cli_usage("inspect", "bad option");
+        }
+    }
+    int nfiles = argc - optind;
+    if (nfiles < 1)
+        return sl_cli_usage("inspect", "no file given");
+    sl_dicom_object *objs = calloc((size_t)nfiles, sizeof *objs);
+    if (!objs) {
+        fprintf(stderr, "strayline: out of memory\n");
+        return SL_EXIT_INTERNAL;
+    }
+    sl_error err = {0};
+    int rc = SL_EXIT_OK;
+    int nread = 0;
+    for (; nread < nfiles; nread++) {
+        if (sl_dicom_read(argv[optind + nread], &objs[nread], &err) != SL_OK) {
+            rc = sl_cli_fail(&err);
+            break;
+        }
+    }
+    if (rc == SL_EXIT_OK && sl_report_inspect(stdout, fmt, objs, (size_t)nread, &err) != SL_OK)
+        rc = sl_cli_fail(&err);
+    if (rc == SL_EXIT_OK && fflush(stdout) != 0) {
+        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        rc = SL_EXIT_INTERNAL;
+    }
+    for (int i = 0; i < nread; i++)
+        sl_dicom_object_free(&objs[i]);
+    free(objs);
+    return rc;
+}

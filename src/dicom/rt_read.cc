@@ -1,0 +1,857 @@
+/*
+ * The DICOM bridge: RT Plan and RT Structure Set reading through DCMTK's
+ * dcmdata, copied into the plain C structs of plan.h and structures.h.
+ *
+ * This is the only translation unit that includes DCMTK headers (DCMTK needs
+ * C++17). It uses dcmdata's generic item access rather than the dcmrt IOD
+ * classes so that every missing or malformed element can be reported with
+ * its keyword, tag and position in the sequence tree, instead of a generic
+ * "invalid object". Memory handed to C is allocated with malloc and freed by
+ * sl_plan_free / sl_structure_set_free; nothing thrown crosses the C API.
+ */
+#include "strayline/dicom.h"
+#include "strayline/util.h"
+
+#include <dcmtk/config/osconfig.h>
+#include <dcmtk/dcmdata/dcdeftag.h>
+#include <dcmtk/dcmdata/dcfilefo.h>
+#include <dcmtk/dcmdata/dcistrmb.h>
+#include <dcmtk/dcmdata/dcuid.h>
+#include <dcmtk/dcmdata/dcvrds.h>
+#include <dcmtk/dcmdata/dcvris.h>
+#include <dcmtk/dcmdata/dcxfer.h>
+#include <dcmtk/oflog/oflog.h>
+
+#include <cerrno>
+#include <cmath>
+#include <cstdlib>
+#include <cstring>
+#include <new>
+#include <string>
+#include <sys/stat.h>
+#include <vector>
+
+namespace {
+
+const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
+const char *const UID_RTSTRUCT = "1.2.840.10008.5.1.4.1.1.481.3";
+const char *const UID_RTIONPLAN = "1.2.840.10008.5.1.4.1.1.481.8";
+
+/* DCMTK logs through oflog; a library must not print, so silence it once. */
+void quiet_dcmtk()
+{
+    static bool done = false;
+    if (!done) {
+        OFLog::configure(OFLogger::FATAL_LOG_LEVEL);
+        done = true;
+    }
+}
+
+/* Error raised inside the reader; caught at the C boundary. */
+struct read_failure {
+    sl_status code;
+};
+
+class Reader {
+public:
+    Reader(const char *file, sl_error *err) : file_(file ? file : "(buffer)"), err_(err) {}
+
+    [[noreturn]] void fail(sl_status code, const std::string &where, const std::string &what)
+    {
+        if (where.empty())
+            sl_error_set(err_, code, "%s: %s", file_, what.c_str());
+        else
+            sl_error_set(err_, code, "%s: %s: %s", file_, where.c_str(), what.c_str());
+        throw read_failure{code};
+    }
+
+    static std::string tag_name(const DcmTagKey &key)
+    {
+        DcmTag tag(key);
+        char buf[32];
+        snprintf(buf, sizeof buf, "(%04X,%04X)", key.getGroup(), key.getElement());
+        return std::string(tag.getTagName()) + " " + buf;
+    }
+
+    static std::string at(const std::string &ctx, const DcmTagKey &key)
+    {
+        return ctx.empty() ? tag_name(key) : ctx + " > " + tag_name(key);
+    }
+
+    /* The element's value as one string (multiple values joined by '\'),
+     * or empty when the element is absent or empty. */
+    std::string str(DcmItem *item, const DcmTagKey &key)
+    {
+        OFString v;
+        if (item->findAndGetOFStringArray(key, v).bad())
+            return std::string();
+        std::string s(v.c_str());
+        size_t b = s.find_first_not_of(' ');
+        size_t e = s.find_last_not_of(' ');
+        if (b == std::string::npos)
+            return std::string();
+        return s.substr(b, e - b + 1);
+    }
+
+    std::string str_req(DcmItem *item, const DcmTagKey &key, const std::string &ctx)
+    {
+        std::string s = str(item, key);
+        if (s.empty())
+            fail(SL_EINPUT, at(ctx, key), "missing or empty");
+        return s;
+    }
+
+    /* A malloc'd copy for the C structs; NULL for an empty value. */
+    char *cstr(const std::string &s)
+    {
+        if (s.empty())
+            return nullptr;
+        char *d = static_cast<char *>(malloc(s.size() + 1));
+        if (!d)
+            fail(SL_ENOMEM, "", "out of memory");
+        memcpy(d, s.c_str(), s.size() + 1);
+        return d;
+    }
+
+    bool has(DcmItem *item, const DcmTagKey &key)
+    {
+        DcmElement *el = nullptr;
+        return item->findAndGetElement(key, el).good() && el && el->getLength() > 0;
+    }
+
+    /* All numeric values of an element (DS, IS, FD, FL, US, SS, UL, SL). */
+    std::vector<double> nums(DcmItem *item, const DcmTagKey &key, const std::string &ctx)
+    {
+        std::vector<double> out;
+        DcmElement *el = nullptr;
+        if (item->findAndGetElement(key, el).bad() || !el || el->getLength() == 0)
+            return out;
+        const std::string where = at(ctx, key);
+        DcmEVR vr = el->ident();
+        unsigned long vm = el->getVM();
+        if (vm > 100000000UL)
+            fail(SL_EINPUT, where, "too many values");
+        if (vr == EVR_DS) {
+            OFVector<Float64> v;
+            if (static_cast<DcmDecimalString *>(el)->getFloat64Vector(v).bad())
+                fail(SL_EINPUT, where, "not a valid decimal string");
+            out.assign(v.begin(), v.end());
+            /* getFloat64Vector skips nothing, but check the count anyway. */
+            if (out.size() != vm)
+                fail(SL_EINPUT, where, "could not read every value");
+        } else {
+            out.reserve(vm);
+            for (unsigned long i = 0; i < vm; i++) {
+                OFCondition c;
+                double d = 0;
+                switch (vr) {
+                case EVR_FD: {
+                    Float64 f;
+                    c = el->getFloat64(f, i);
+                    d = f;
+                    break;
+                }
+                case EVR_FL: {
+                    Float32 f;
+                    c = el->getFloat32(f, i);
+                    d = f;
+                    break;
+                }
+                case EVR_IS: {
+                    Sint32 s;
+                    c = el->getSint32(s, i);
+                    d = s;
+                    break;
+                }
+                case EVR_US: {
+                    Uint16 u;
+                    c = el->getUint16(u, i);
+                    d = u;
+                    break;
+                }
+                case EVR_SS: {
+                    Sint16 s;
+                    c = el->getSint16(s, i);
+                    d = s;
+                    break;
+                }
+                case EVR_UL: {
+                    Uint32 u;
+                    c = el->getUint32(u, i);
+                    d = u;
+                    break;
+                }
+                case EVR_SL: {
+                    Sint32 s;
+                    c = el->getSint32(s, i);
+                    d = s;
+                    break;
+                }
+                default:
+                    fail(SL_EINPUT, where, std::string("has value representation ") +
+                                               DcmVR(vr).getVRName() + ", expected a number");
+                }
+                if (c.bad())
+                    fail(SL_EINPUT, where, "not a valid number");
+                out.push_back(d);
+            }
+        }
+        for (double d : out) {
+            if (!std::isfinite(d))
+                fail(SL_EINPUT, where, "value is not a finite number");
+        }
+        return out;
+    }
+
+    /* One number. Absent: NAN when optional, an error when required. */
+    double num(DcmItem *item, const DcmTagKey &key, const std::string &ctx, bool required)
+    {
+        std::vector<double> v = nums(item, key, ctx);
+        if (v.empty()) {
+            if (required)
+                fail(SL_EINPUT, at(ctx, key), "missing or empty");
+            return NAN;
+        }
+        if (v.size() != 1)
+            fail(SL_EINPUT, at(ctx, key),
+                 "expected one value, found " + std::to_string(v.size()));
+        return v[0];
+    }
+
+    int integer(DcmItem *item, const DcmTagKey &key, const std::string &ctx, bool required,
+                int absent = -1)
+    {
+        double d = num(item, key, ctx, required);
+        if (std::isnan(d))
+            return absent;
+        if (d != std::floor(d) || d < -2147483648.0 || d > 2147483647.0)
+            fail(SL_EINPUT, at(ctx, key), "not an integer");
+        return static_cast<int>(d);
+    }
+
+    /* Items of a sequence; empty when absent (an error when required). */
+    std::vector<DcmItem *> seq(DcmItem *item, const DcmTagKey &key, const std::string &ctx,
+                               bool required)
+    {
+        std::vector<DcmItem *> out;
+        DcmSequenceOfItems *sq = nullptr;
+        if (item->findAndGetSequence(key, sq).good() && sq) {
+            unsigned long n = sq->card();
+            for (unsigned long i = 0; i < n; i++) {
+                DcmItem *it = sq->getItem(i);
+                if (it)
+                    out.push_back(it);
+            }
+        }
+        if (required && out.empty())
+            fail(SL_EINPUT, at(ctx, key), "missing or empty sequence");
+        return out;
+    }
+
+    const char *file() const { return file_; }
+
+private:
+    const char *file_;
+    sl_error *err_;
+};
+
+template <typename T> T *alloc_array(Reader &r, size_t n)
+{
+    if (n == 0)
+        return nullptr;
+    T *p = static_cast<T *>(calloc(n, sizeof(T)));
+    if (!p)
+        r.fail(SL_ENOMEM, "", "out of memory");
+    return p;
+}
+
+void check_angle(Reader &r, double v, const std::string &where)
+{
+    if (!(v >= 0.0 && v <= 360.0) && !(v > -360.0 && v < 0.0))
+        r.fail(SL_EINPUT, where, "angle " + std::to_string(v) + " deg is outside 0..360");
+    (void)r;
+}
+
+/* ---------------------------------------------------------------- plan -- */
+
+void read_block(Reader &r, DcmItem *it, const std::string &ctx, sl_block *b)
+{
+    b->number = r.integer(it, DCM_BlockNumber, ctx, false, 0);
+    b->name = r.cstr(r.str(it, DCM_BlockName));
+    b->tray_id = r.cstr(r.str(it, DCM_BlockTrayID));
+    std::string type = r.str_req(it, DCM_BlockType, ctx);
+    if (type == "APERTURE")
+        b->type = SL_BLOCK_APERTURE;
+    else if (type == "SHIELDING")
+        b->type = SL_BLOCK_SHIELDING;
+    else
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockType),
+               "unknown block type '" + type + "' (expected APERTURE or SHIELDING)");
+    std::string div = r.str(it, DCM_BlockDivergence);
+    b->divergent = div == "PRESENT" ? 1 : div == "ABSENT" ? 0 : -1;
+    b->source_to_tray_mm = r.num(it, DCM_SourceToBlockTrayDistance, ctx, false);
+    if (std::isfinite(b->source_to_tray_mm) && b->source_to_tray_mm <= 0)
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_SourceToBlockTrayDistance), "must be positive");
+    b->thickness_mm = r.num(it, DCM_BlockThickness, ctx, false);
+    if (std::isfinite(b->thickness_mm) && b->thickness_mm < 0)
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockThickness), "negative thickness");
+    b->transmission = r.num(it, DCM_BlockTransmission, ctx, false);
+    if (std::isfinite(b->transmission) && (b->transmission < 0 || b->transmission > 1))
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockTransmission), "must lie between 0 and 1");
+    b->material = r.cstr(r.str(it, DCM_MaterialID));
+    int npts = r.integer(it, DCM_BlockNumberOfPoints, ctx, true);
+    std::vector<double> data = r.nums(it, DCM_BlockData, ctx);
+    if (data.empty())
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockData), "missing or empty");
+    if (data.size() % 2 != 0)
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockData),
+               "has " + std::to_string(data.size()) + " values, not a whole number of (x,y) pairs");
+    if (npts < 0 || static_cast<size_t>(npts) * 2 != data.size())
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockNumberOfPoints),
+               "says " + std::to_string(npts) + " points but Block Data holds " +
+                   std::to_string(data.size() / 2));
+    if (npts < 3)
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockData),
+               "a block outline needs at least 3 points, found " + std::to_string(npts));
+    b->npoints = static_cast<size_t>(npts);
+    b->points = alloc_array<sl_vec2>(r, b->npoints);
+    for (size_t i = 0; i < b->npoints; i++) {
+        b->points[i].x = data[2 * i];
+        b->points[i].y = data[2 * i + 1];
+        if (std::fabs(data[2 * i]) > 1000.0 || std::fabs(data[2 * i + 1]) > 1000.0)
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_BlockData),
+                   "point " + std::to_string(i + 1) + " lies more than 1 m from the axis");
+    }
+}
+
+void read_applicator(Reader &r, DcmItem *beam, const std::string &bctx, sl_applicator *a)
+{
+    a->opening_mm = a->opening_x_mm = a->opening_y_mm = NAN;
+    a->source_to_applicator_mm = NAN;
+    std::vector<DcmItem *> apps = r.seq(beam, DCM_ApplicatorSequence, bctx, false);
+    if (apps.empty())
+        return;
+    if (apps.size() > 1)
+        r.fail(SL_EINPUT, Reader::at(bctx, DCM_ApplicatorSequence),
+               "holds " + std::to_string(apps.size()) + " applicators; one is expected");
+    DcmItem *it = apps[0];
+    std::string ctx = bctx + " > applicator";
+    a->present = true;
+    a->id = r.cstr(r.str_req(it, DCM_ApplicatorID, ctx));
+    a->type = r.cstr(r.str_req(it, DCM_ApplicatorType, ctx));
+    a->description = r.cstr(r.str(it, DCM_ApplicatorDescription));
+    std::vector<DcmItem *> geo = r.seq(it, DCM_ApplicatorGeometrySequence, ctx, false);
+    if (!geo.empty()) {
+        std::string gctx = ctx + " > geometry";
+        a->has_geometry = true;
+        a->aperture_shape = r.cstr(r.str_req(geo[0], DCM_ApplicatorApertureShape, gctx));
+        a->opening_mm = r.num(geo[0], DCM_ApplicatorOpening, gctx, false);
+        a->opening_x_mm = r.num(geo[0], DCM_ApplicatorOpeningX, gctx, false);
+        a->opening_y_mm = r.num(geo[0], DCM_ApplicatorOpeningY, gctx, false);
+        for (double v : {a->opening_mm, a->opening_x_mm, a->opening_y_mm}) {
+            if (std::isfinite(v) && (v <= 0 || v > 1000))
+                r.fail(SL_EINPUT, gctx, "applicator opening " + std::to_string(v) +
+                                            " mm is not a plausible size");
+        }
+    }
+    a->source_to_applicator_mm =
+        r.num(it, DCM_SourceToApplicatorMountingPositionDistance, ctx, false);
+    if (std::isfinite(a->source_to_applicator_mm) && a->source_to_applicator_mm <= 0)
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_SourceToApplicatorMountingPositionDistance),
+               "must be positive");
+}
+
+void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
+{
+    std::string ctx0 = "beam item " + std::to_string(index + 1);
+    b->number = r.integer(it, DCM_BeamNumber, ctx0, true);
+    std::string ctx = "beam " + std::to_string(b->number);
+    b->name = r.cstr(r.str(it, DCM_BeamName));
+    b->description = r.cstr(r.str(it, DCM_BeamDescription));
+    b->radiation_type = r.cstr(r.str_req(it, DCM_RadiationType, ctx));
+    std::string delivery = r.str(it, DCM_TreatmentDeliveryType);
+    b->delivery_type = r.cstr(delivery.empty() ? std::string("TREATMENT") : delivery);
+    const bool electron = strcmp(b->radiation_type, "ELECTRON") == 0;
+    /* Only electron beams are placed, so only they must carry full geometry;
+     * other beams are read for the listing and skipped. */
+    b->beam_type = r.cstr(electron ? r.str_req(it, DCM_BeamType, ctx) : r.str(it, DCM_BeamType));
+    b->machine = r.cstr(r.str(it, DCM_TreatmentMachineName));
+    b->setup_number = r.integer(it, DCM_ReferencedPatientSetupNumber, ctx, false, -1);
+    b->sad_mm = r.num(it, DCM_SourceAxisDistance, ctx, false);
+    if (std::isnan(b->sad_mm)) {
+        b->sad_mm = 1000.0;
+        b->sad_defaulted = true;
+        if (sl_notes_add(&plan->notes,
+                         "%s: %s: Source-Axis Distance (300A,00B4) absent: 1000 mm assumed",
+                         r.file(), ctx.c_str()) != SL_OK)
+            r.fail(SL_ENOMEM, "", "out of memory");
+    } else if (b->sad_mm < 500.0 || b->sad_mm > 2000.0) {
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_SourceAxisDistance),
+               std::to_string(b->sad_mm) + " mm is not a plausible source-axis distance");
+    }
+
+    std::vector<DcmItem *> cps = r.seq(it, DCM_ControlPointSequence, ctx, electron);
+    int ncp = r.integer(it, DCM_NumberOfControlPoints, ctx, electron, static_cast<int>(cps.size()));
+    if (ncp < 0 || static_cast<size_t>(ncp) != cps.size())
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_NumberOfControlPoints),
+               "says " + std::to_string(ncp) + " but the Control Point Sequence holds " +
+                   std::to_string(cps.size()));
+    b->ncontrol_points = cps.size();
+    b->energy_mev = b->gantry_deg = b->collimator_deg = b->couch_deg = NAN;
+    b->ssd_mm = NAN;
+    b->eccentric_deg = 0.0;
+    if (cps.empty())
+        return;
+    std::string cctx = ctx + " > control point 0";
+    DcmItem *cp = cps[0];
+    b->energy_mev = r.num(cp, DCM_NominalBeamEnergy, cctx, electron);
+    if (std::isfinite(b->energy_mev) && (b->energy_mev <= 0.0 || b->energy_mev > 100.0))
+        r.fail(SL_EINPUT, Reader::at(cctx, DCM_NominalBeamEnergy),
+               std::to_string(b->energy_mev) + " MeV is not a plausible beam energy");
+    b->gantry_deg = r.num(cp, DCM_GantryAngle, cctx, electron);
+    b->collimator_deg = r.num(cp, DCM_BeamLimitingDeviceAngle, cctx, electron);
+    b->couch_deg = r.num(cp, DCM_PatientSupportAngle, cctx, electron);
+    b->eccentric_deg = r.num(cp, DCM_TableTopEccentricAngle, cctx, false);
+    if (std::isnan(b->eccentric_deg))
+        b->eccentric_deg = 0.0;
+    const struct {
+        double v;
+        DcmTagKey k;
+    } angles[] = {{b->gantry_deg, DCM_GantryAngle},
+                  {b->collimator_deg, DCM_BeamLimitingDeviceAngle},
+                  {b->couch_deg, DCM_PatientSupportAngle},
+                  {b->eccentric_deg, DCM_TableTopEccentricAngle}};
+    for (const auto &a : angles) {
+        if (std::isfinite(a.v))
+            check_angle(r, a.v, Reader::at(cctx, a.k));
+    }
+    std::vector<double> iso = r.nums(cp, DCM_IsocenterPosition, cctx);
+    if (!iso.empty()) {
+        if (iso.size() != 3)
+            r.fail(SL_EINPUT, Reader::at(cctx, DCM_IsocenterPosition),
+                   "expected 3 values, found " + std::to_string(iso.size()));
+        for (double v : iso) {
+            if (std::fabs(v) > 1.0e5)
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_IsocenterPosition),
+                       "coordinate " + std::to_string(v) + " mm is absurd");
+        }
+        b->has_isocenter = true;
+        b->isocenter_mm = sl_vec3{iso[0], iso[1], iso[2]};
+    } else if (electron) {
+        r.fail(SL_EINPUT, Reader::at(cctx, DCM_IsocenterPosition), "missing or empty");
+    }
+    b->ssd_mm = r.num(cp, DCM_SourceToSurfaceDistance, cctx, false);
+    if (std::isfinite(b->ssd_mm) && (b->ssd_mm <= 0.0 || b->ssd_mm > 2000.0))
+        r.fail(SL_EINPUT, Reader::at(cctx, DCM_SourceToSurfaceDistance),
+               std::to_string(b->ssd_mm) + " mm is not a plausible source-surface distance");
+
+    read_applicator(r, it, ctx, &b->applicator);
+
+    std::vector<DcmItem *> blocks = r.seq(it, DCM_BlockSequence, ctx, false);
+    int nblocks = r.integer(it, DCM_NumberOfBlocks, ctx, false, 0);
+    if (nblocks < 0 || static_cast<size_t>(nblocks) != blocks.size())
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_NumberOfBlocks),
+               "says " + std::to_string(nblocks) + " but the Block Sequence holds " +
+                   std::to_string(blocks.size()));
+    b->blocks = alloc_array<sl_block>(r, blocks.size());
+    for (size_t i = 0; i < blocks.size(); i++) {
+        b->nblocks = i + 1;
+        read_block(r, blocks[i], ctx + " > block item " + std::to_string(i + 1), &b->blocks[i]);
+    }
+
+    std::vector<DcmItem *> boli = r.seq(it, DCM_ReferencedBolusSequence, ctx, false);
+    b->bolus_roi_numbers = alloc_array<int>(r, boli.size());
+    for (size_t i = 0; i < boli.size(); i++) {
+        b->bolus_roi_numbers[i] = r.integer(boli[i], DCM_ReferencedROINumber,
+                                            ctx + " > bolus item " + std::to_string(i + 1), true);
+        b->nboli = i + 1;
+    }
+}
+
+void read_plan_items(Reader &r, DcmDataset *ds, sl_plan *p)
+{
+    p->sop_instance_uid = r.cstr(r.str_req(ds, DCM_SOPInstanceUID, ""));
+    p->label = r.cstr(r.str(ds, DCM_RTPlanLabel));
+    p->name = r.cstr(r.str(ds, DCM_RTPlanName));
+    p->patient_id = r.cstr(r.str(ds, DCM_PatientID));
+    p->patient_name = r.cstr(r.str(ds, DCM_PatientName));
+    p->frame_uid = r.cstr(r.str(ds, DCM_FrameOfReferenceUID));
+    std::vector<DcmItem *> rss = r.seq(ds, DCM_ReferencedStructureSetSequence, "", false);
+    if (!rss.empty())
+        p->structure_set_uid = r.cstr(r.str(rss[0], DCM_ReferencedSOPInstanceUID));
+
+    std::vector<DcmItem *> setups = r.seq(ds, DCM_PatientSetupSequence, "", false);
+    p->setups = alloc_array<sl_setup>(r, setups.size());
+    for (size_t i = 0; i < setups.size(); i++) {
+        std::string ctx = "patient setup item " + std::to_string(i + 1);
+        sl_setup *s = &p->setups[i];
+        s->number = r.integer(setups[i], DCM_PatientSetupNumber, ctx, true);
+        std::string pos = r.str(setups[i], DCM_PatientPosition);
+        if (pos.empty())
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_PatientPosition),
+                   "missing (strayline needs the patient position to place the beams)");
+        if (!sl_position_parse(pos.c_str(), &s->position))
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_PatientPosition),
+                   "unsupported patient position '" + pos +
+                       "' (HFS, HFP, FFS, FFP, HFDR, HFDL, FFDR, FFDL are handled)");
+        p->nsetups = i + 1;
+    }
+
+    std::vector<DcmItem *> groups = r.seq(ds, DCM_FractionGroupSequence, "", true);
+    p->groups = alloc_array<sl_fraction_group>(r, groups.size());
+    for (size_t i = 0; i < groups.size(); i++) {
+        std::string ctx = "fraction group item " + std::to_string(i + 1);
+        sl_fraction_group *g = &p->groups[i];
+        p->ngroups = i + 1;
+        g->number = r.integer(groups[i], DCM_FractionGroupNumber, ctx, true);
+        ctx = "fraction group " + std::to_string(g->number);
+        g->fractions = r.integer(groups[i], DCM_NumberOfFractionsPlanned, ctx, false, -1);
+        if (g->fractions != -1 && (g->fractions < 1 || g->fractions > 1000))
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_NumberOfFractionsPlanned),
+                   std::to_string(g->fractions) + " is not a plausible number of fractions");
+        std::vector<DcmItem *> refs = r.seq(groups[i], DCM_ReferencedBeamSequence, ctx, false);
+        int nbeams = r.integer(groups[i], DCM_NumberOfBeams, ctx, false, -1);
+        if (nbeams != -1 && static_cast<size_t>(nbeams) != refs.size())
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_NumberOfBeams),
+                   "says " + std::to_string(nbeams) + " but the Referenced Beam Sequence holds " +
+                       std::to_string(refs.size()));
+        g->refs = alloc_array<sl_beam_ref>(r, refs.size());
+        for (size_t j = 0; j < refs.size(); j++) {
+            std::string rctx = ctx + " > referenced beam item " + std::to_string(j + 1);
+            sl_beam_ref *br = &g->refs[j];
+            g->nrefs = j + 1;
+            br->beam_number = r.integer(refs[j], DCM_ReferencedBeamNumber, rctx, true);
+            br->meterset_mu = r.num(refs[j], DCM_BeamMeterset, rctx, false);
+            if (std::isfinite(br->meterset_mu) && (br->meterset_mu < 0 || br->meterset_mu > 1e5))
+                r.fail(SL_EINPUT, Reader::at(rctx, DCM_BeamMeterset),
+                       std::to_string(br->meterset_mu) + " MU is not a plausible meterset");
+            br->beam_dose_gy = r.num(refs[j], DCM_BeamDose, rctx, false);
+            if (std::isfinite(br->beam_dose_gy) &&
+                (br->beam_dose_gy < 0 || br->beam_dose_gy > 100))
+                r.fail(SL_EINPUT, Reader::at(rctx, DCM_BeamDose),
+                       std::to_string(br->beam_dose_gy) + " Gy is not a plausible beam dose");
+        }
+    }
+
+    std::vector<DcmItem *> drs = r.seq(ds, DCM_DoseReferenceSequence, "", false);
+    p->dose_refs = alloc_array<sl_dose_ref>(r, drs.size());
+    for (size_t i = 0; i < drs.size(); i++) {
+        std::string ctx = "dose reference item " + std::to_string(i + 1);
+        sl_dose_ref *d = &p->dose_refs[i];
+        p->ndose_refs = i + 1;
+        d->number = r.integer(drs[i], DCM_DoseReferenceNumber, ctx, false, 0);
+        d->type = r.cstr(r.str(drs[i], DCM_DoseReferenceType));
+        d->description = r.cstr(r.str(drs[i], DCM_DoseReferenceDescription));
+        d->target_prescription_gy = r.num(drs[i], DCM_TargetPrescriptionDose, ctx, false);
+        if (std::isfinite(d->target_prescription_gy) &&
+            (d->target_prescription_gy < 0 || d->target_prescription_gy > 200))
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_TargetPrescriptionDose),
+                   std::to_string(d->target_prescription_gy) +
+                       " Gy is not a plausible prescription");
+    }
+
+    std::vector<DcmItem *> beams = r.seq(ds, DCM_BeamSequence, "", false);
+    if (beams.empty())
+        r.fail(SL_EINPUT, "",
+               "no electron beams: photon plans are not handled (the plan has no Beam Sequence)");
+    p->beams = alloc_array<sl_beam>(r, beams.size());
+    for (size_t i = 0; i < beams.size(); i++) {
+        p->nbeams = i + 1;
+        read_beam(r, beams[i], i, &p->beams[i], p);
+    }
+}
+
+/* ------------------------------------------------------- structure set -- */
+
+sl_roi *roi_by_number(sl_structure_set *ss, int number)
+{
+    for (size_t i = 0; i < ss->nrois; i++) {
+        if (ss->rois[i].number == number)
+            return &ss->rois[i];
+    }
+    return nullptr;
+}
+
+void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
+{
+    ss->sop_instance_uid = r.cstr(r.str_req(ds, DCM_SOPInstanceUID, ""));
+    ss->label = r.cstr(r.str(ds, DCM_StructureSetLabel));
+    ss->patient_id = r.cstr(r.str(ds, DCM_PatientID));
+    ss->patient_name = r.cstr(r.str(ds, DCM_PatientName));
+    std::vector<DcmItem *> frames = r.seq(ds, DCM_ReferencedFrameOfReferenceSequence, "", false);
+    if (!frames.empty())
+        ss->frame_uid = r.cstr(r.str(frames[0], DCM_FrameOfReferenceUID));
+
+    std::vector<DcmItem *> rois = r.seq(ds, DCM_StructureSetROISequence, "", true);
+    ss->rois = alloc_array<sl_roi>(r, rois.size());
+    for (size_t i = 0; i < rois.size(); i++) {
+        std::string ctx = "structure set ROI item " + std::to_string(i + 1);
+        sl_roi *roi = &ss->rois[i];
+        ss->nrois = i + 1;
+        roi->number = r.integer(rois[i], DCM_ROINumber, ctx, true);
+        for (size_t j = 0; j < i; j++) {
+            if (ss->rois[j].number == roi->number)
+                r.fail(SL_EINPUT, Reader::at(ctx, DCM_ROINumber),
+                       "duplicate ROI number " + std::to_string(roi->number));
+        }
+        std::string name = r.str(rois[i], DCM_ROIName);
+        if (name.empty())
+            r.fail(SL_EINPUT, Reader::at("ROI " + std::to_string(roi->number), DCM_ROIName),
+                   "missing or empty");
+        roi->name = r.cstr(name);
+        roi->frame_uid = r.cstr(r.str(rois[i], DCM_ReferencedFrameOfReferenceUID));
+    }
+
+    size_t total_points = 0;
+    std::vector<DcmItem *> rcs = r.seq(ds, DCM_ROIContourSequence, "", false);
+    for (size_t i = 0; i < rcs.size(); i++) {
+        std::string ctx0 = "ROI contour item " + std::to_string(i + 1);
+        int ref = r.integer(rcs[i], DCM_ReferencedROINumber, ctx0, true);
+        sl_roi *roi = roi_by_number(ss, ref);
+        if (!roi)
+            r.fail(SL_EINPUT, Reader::at(ctx0, DCM_ReferencedROINumber),
+                   "refers to ROI " + std::to_string(ref) +
+                       ", which the Structure Set ROI Sequence does not list");
+        std::string ctx = "ROI " + std::to_string(ref) + " (" + roi->name + ")";
+        if (roi->contours)
+            r.fail(SL_EINPUT, ctx, "has two ROI Contour Sequence items");
+        std::vector<double> color = r.nums(rcs[i], DCM_ROIDisplayColor, ctx);
+        if (!color.empty()) {
+            if (color.size() != 3)
+                r.fail(SL_EINPUT, Reader::at(ctx, DCM_ROIDisplayColor),
+                       "expected 3 values, found " + std::to_string(color.size()));
+            for (int k = 0; k < 3; k++) {
+                if (color[k] < 0 || color[k] > 255)
+                    r.fail(SL_EINPUT, Reader::at(ctx, DCM_ROIDisplayColor),
+                           "colour component outside 0..255");
+                roi->color[k] = static_cast<int>(color[k]);
+            }
+            roi->has_color = true;
+        }
+        std::vector<DcmItem *> cs = r.seq(rcs[i], DCM_ContourSequence, ctx, false);
+        roi->contours = alloc_array<sl_contour>(r, cs.size() ? cs.size() : 1);
+        for (size_t j = 0; j < cs.size(); j++) {
+            std::string cctx = ctx + " > contour item " + std::to_string(j + 1);
+            sl_contour *c = &roi->contours[j];
+            roi->ncontours = j + 1;
+            std::string type = r.str_req(cs[j], DCM_ContourGeometricType, cctx);
+            if (!sl_contour_type_parse(type.c_str(), &c->type))
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourGeometricType),
+                       "unknown contour type '" + type + "'");
+            int n = r.integer(cs[j], DCM_NumberOfContourPoints, cctx, true);
+            std::vector<double> data = r.nums(cs[j], DCM_ContourData, cctx);
+            if (data.empty())
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData), "missing or empty");
+            if (data.size() % 3 != 0)
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
+                       "has " + std::to_string(data.size()) +
+                           " values, not a whole number of (x,y,z) triples");
+            if (n < 1 || static_cast<size_t>(n) * 3 != data.size())
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_NumberOfContourPoints),
+                       "says " + std::to_string(n) + " points but Contour Data holds " +
+                           std::to_string(data.size() / 3));
+            total_points += static_cast<size_t>(n);
+            if (total_points > SL_DICOM_MAX_CONTOUR_POINTS)
+                r.fail(SL_EINPUT, cctx,
+                       "the structure set holds more than " +
+                           std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
+                           " contour points, more than strayline accepts");
+            for (double v : data) {
+                if (std::fabs(v) > 1.0e5)
+                    r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
+                           "coordinate " + std::to_string(v) + " mm is absurd");
+            }
+            c->npoints = static_cast<size_t>(n);
+            c->points = alloc_array<sl_vec3>(r, c->npoints);
+            for (size_t k = 0; k < c->npoints; k++)
+                c->points[k] = sl_vec3{data[3 * k], data[3 * k + 1], data[3 * k + 2]};
+        }
+    }
+
+    std::vector<DcmItem *> obs = r.seq(ds, DCM_RTROIObservationsSequence, "", false);
+    for (size_t i = 0; i < obs.size(); i++) {
+        std::string ctx = "RT ROI observation item " + std::to_string(i + 1);
+        int ref = r.integer(obs[i], DCM_ReferencedROINumber, ctx, true);
+        sl_roi *roi = roi_by_number(ss, ref);
+        if (!roi)
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_ReferencedROINumber),
+                   "refers to ROI " + std::to_string(ref) + ", which is not listed");
+        std::string type = r.str(obs[i], DCM_RTROIInterpretedType);
+        if (!type.empty() && !roi->type)
+            roi->type = r.cstr(type);
+    }
+}
+
+/* ------------------------------------------------------------- common -- */
+
+void read_object(Reader &r, DcmFileFormat &ff, sl_dicom_object *out)
+{
+    DcmDataset *ds = ff.getDataset();
+    if (!ds || ds->card() == 0)
+        r.fail(SL_EINPUT, "", "no DICOM data set in the file");
+    std::string cls = r.str(ds, DCM_SOPClassUID);
+    if (cls.empty())
+        r.fail(SL_EINPUT, Reader::tag_name(DCM_SOPClassUID),
+               "missing: not a DICOM composite object");
+    if (cls == UID_RTPLAN) {
+        out->kind = SL_DICOM_RTPLAN;
+        out->plan = static_cast<sl_plan *>(calloc(1, sizeof(sl_plan)));
+        if (!out->plan)
+            r.fail(SL_ENOMEM, "", "out of memory");
+        out->plan->source = r.cstr(r.file());
+        read_plan_items(r, ds, out->plan);
+    } else if (cls == UID_RTSTRUCT) {
+        out->kind = SL_DICOM_RTSTRUCT;
+        out->structures = static_cast<sl_structure_set *>(calloc(1, sizeof(sl_structure_set)));
+        if (!out->structures)
+            r.fail(SL_ENOMEM, "", "out of memory");
+        out->structures->source = r.cstr(r.file());
+        read_structure_items(r, ds, out->structures);
+    } else {
+        const char *name = dcmFindNameOfUID(cls.c_str(), nullptr);
+        std::string what = name ? std::string(name) + ", SOP Class " + cls : "SOP Class " + cls;
+        if (cls == UID_RTIONPLAN)
+            what += "; ion plans are not handled";
+        r.fail(SL_EINPUT, Reader::tag_name(DCM_SOPClassUID),
+               "a DICOM object of another kind (" + what +
+                   "), not an RT Plan or an RT Structure Set");
+    }
+}
+
+sl_status finish(Reader &r, DcmFileFormat &ff, OFCondition cond, sl_dicom_object *out,
+                 sl_error *err)
+{
+    memset(out, 0, sizeof *out);
+    if (cond.bad()) {
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: cannot read as DICOM (not a DICOM file, or truncated): %s",
+                            r.file(), cond.text());
+    }
+    try {
+        read_object(r, ff, out);
+    } catch (const read_failure &f) {
+        sl_dicom_object_free(out);
+        return f.code;
+    } catch (const std::bad_alloc &) {
+        sl_dicom_object_free(out);
+        return sl_error_set(err, SL_ENOMEM, "%s: out of memory", r.file());
+    } catch (...) {
+        sl_dicom_object_free(out);
+        return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in the DICOM reader",
+                            r.file());
+    }
+    sl_status st = SL_OK;
+    if (out->plan)
+        st = sl_plan_validate(out->plan, err);
+    else if (out->structures)
+        st = sl_structure_set_validate(out->structures, err);
+    if (st != SL_OK)
+        sl_dicom_object_free(out);
+    return st;
+}
+
+} // namespace
+
+extern "C" {
+
+sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
+{
+    quiet_dcmtk();
+    memset(out, 0, sizeof *out);
+    Reader r(path, err);
+    struct stat sb;
+    if (stat(path, &sb) != 0)
+        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
+    if (!S_ISREG(sb.st_mode))
+        return sl_error_set(err, SL_EINPUT, "%s: not a regular file", path);
+    if (sb.st_size == 0)
+        return sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", path);
+    if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
+        return sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
+                            static_cast<long long>(sb.st_size));
+    try {
+        DcmFileFormat ff;
+        OFCondition cond = ff.loadFile(path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
+                                       ERM_autoDetect);
+        return finish(r, ff, cond, out, err);
+    } catch (const std::bad_alloc &) {
+        return sl_error_set(err, SL_ENOMEM, "%s: out of memory", path);
+    } catch (...) {
+        return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", path);
+    }
+}
+
+sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
+                               sl_dicom_object *out, sl_error *err)
+{
+    quiet_dcmtk();
+    memset(out, 0, sizeof *out);
+    Reader r(name, err);
+    if (size == 0)
+        return sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", r.file());
+    if (size > SL_DICOM_MAX_FILE_BYTES)
+        return sl_error_set(err, SL_EINPUT, "%s: larger than strayline accepts", r.file());
+    try {
+        DcmInputBufferStream stream;
+        stream.setBuffer(data, static_cast<offile_off_t>(size));
+        stream.setEos();
+        DcmFileFormat ff;
+        ff.transferInit();
+        OFCondition cond = ff.read(stream, EXS_Unknown, EGL_noChange, DCM_MaxReadLength);
+        ff.transferEnd();
+        return finish(r, ff, cond, out, err);
+    } catch (const std::bad_alloc &) {
+        return sl_error_set(err, SL_ENOMEM, "%s: out of memory", r.file());
+    } catch (...) {
+        return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", r.file());
+    }
+}
+
+sl_status sl_dicom_read_plan(const char *path, sl_plan **out, sl_error *err)
+{
+    *out = nullptr;
+    sl_dicom_object obj;
+    sl_status st = sl_dicom_read(path, &obj, err);
+    if (st != SL_OK)
+        return st;
+    if (obj.kind != SL_DICOM_RTPLAN) {
+        sl_dicom_object_free(&obj);
+        return sl_error_set(err, SL_EINPUT, "%s: is an RT Structure Set, an RT Plan was expected",
+                            path);
+    }
+    *out = obj.plan;
+    return SL_OK;
+}
+
+sl_status sl_dicom_read_structures(const char *path, sl_structure_set **out, sl_error *err)
+{
+    *out = nullptr;
+    sl_dicom_object obj;
+    sl_status st = sl_dicom_read(path, &obj, err);
+    if (st != SL_OK)
+        return st;
+    if (obj.kind != SL_DICOM_RTSTRUCT) {
+        sl_dicom_object_free(&obj);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: is an RT Plan, an RT Structure Set was expected", path);
+    }
+    *out = obj.structures;
+    return SL_OK;
+}
+
+void sl_dicom_object_free(sl_dicom_object *obj)
+{
+    if (!obj)
+        return;
+    sl_plan_free(obj->plan);
+    sl_structure_set_free(obj->structures);
+    obj->plan = nullptr;
+    obj->structures = nullptr;
+}
+
+const char *sl_dicom_toolkit_version(void)
+{
+    return "DCMTK " OFFIS_DCMTK_VERSION_STRING;
+}
+
+} // extern "C"

@@ -1,0 +1,174 @@
+/*
+ * RT Structure Set data: freeing, lookups, set-level checks, and the check
+ * that a plan and a structure set describe the same patient geometry.
+ */
+#include "strayline/structures.h"
+#include "strayline/util.h"
+
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+static const char *const contour_codes[] = {
+    "POINT", "OPEN_PLANAR", "OPEN_NONPLANAR", "CLOSED_PLANAR", "CLOSEDPLANAR_XOR",
+};
+
+const char *sl_contour_type_code(sl_contour_type t)
+{
+    return (unsigned)t < sizeof contour_codes / sizeof *contour_codes ? contour_codes[t] : NULL;
+}
+
+bool sl_contour_type_parse(const char *code, sl_contour_type *out)
+{
+    for (size_t i = 0; i < sizeof contour_codes / sizeof *contour_codes; i++) {
+        if (code && strcmp(code, contour_codes[i]) == 0) {
+            *out = (sl_contour_type)i;
+            return true;
+        }
+    }
+    return false;
+}
+
+void sl_structure_set_free(sl_structure_set *ss)
+{
+    if (!ss)
+        return;
+    free(ss->source);
+    free(ss->sop_instance_uid);
+    free(ss->label);
+    free(ss->patient_id);
+    free(ss->patient_name);
+    free(ss->frame_uid);
+    for (size_t i = 0; i < ss->nrois; i++) {
+        sl_roi *r = &ss->rois[i];
+        free(r->name);
+        free(r->type);
+        free(r->frame_uid);
+        for (size_t j = 0; j < r->ncontours; j++)
+            free(r->contours[j].points);
+        free(r->contours);
+    }
+    free(ss->rois);
+    sl_notes_free(&ss->notes);
+    free(ss);
+}
+
+size_t sl_roi_point_count(const sl_roi *roi)
+{
+    size_t n = 0;
+    for (size_t i = 0; i < roi->ncontours; i++)
+        n += roi->contours[i].npoints;
+    return n;
+}
+
+bool sl_roi_z_range(const sl_roi *roi, double *zmin, double *zmax)
+{
+    bool any = false;
+    double lo = INFINITY, hi = -INFINITY;
+    for (size_t i = 0; i < roi->ncontours; i++) {
+        for (size_t k = 0; k < roi->contours[i].npoints; k++) {
+            double z = roi->contours[i].points[k].z;
+            lo = fmin(lo, z);
+            hi = fmax(hi, z);
+            any = true;
+        }
+    }
+    if (any) {
+        *zmin = lo;
+        *zmax = hi;
+    }
+    return any;
+}
+
+const sl_roi *sl_structures_find(const sl_structure_set *ss, const char *name)
+{
+    for (size_t i = 0; i < ss->nrois; i++) {
+        if (ss->rois[i].name && strcmp(ss->rois[i].name, name) == 0)
+            return &ss->rois[i];
+    }
+    return NULL;
+}
+
+sl_status sl_structures_external(const sl_structure_set *ss, const sl_roi **out, sl_error *err)
+{
+    *out = NULL;
+    for (size_t i = 0; i < ss->nrois; i++) {
+        const sl_roi *r = &ss->rois[i];
+        if (r->type && strcmp(r->type, "EXTERNAL") == 0) {
+            if (*out)
+                return sl_error_set(err, SL_EINPUT,
+                                    "%s: RTROIInterpretedType (3006,00A4): two ROIs are typed "
+                                    "EXTERNAL ('%s' and '%s'); the body must be one ROI",
+                                    ss->source, (*out)->name, r->name);
+            *out = r;
+        }
+    }
+    return SL_OK;
+}
+
+sl_status sl_structure_set_validate(sl_structure_set *ss, sl_error *err)
+{
+    const char *f = ss->source ? ss->source : "(structure set)";
+    for (size_t i = 0; i < ss->nrois; i++) {
+        for (size_t j = 0; j < i; j++) {
+            if (ss->rois[i].number == ss->rois[j].number)
+                return sl_error_set(err, SL_EINPUT,
+                                    "%s: ROINumber (3006,0022): duplicate ROI number %d", f,
+                                    ss->rois[i].number);
+            if (strcmp(ss->rois[i].name, ss->rois[j].name) == 0) {
+                sl_status st = sl_notes_add(&ss->notes,
+                                            "%s: two ROIs are named '%s' (numbers %d and %d)", f,
+                                            ss->rois[i].name, ss->rois[j].number,
+                                            ss->rois[i].number);
+                if (st != SL_OK)
+                    return sl_error_set(err, st, "%s: out of memory", f);
+            }
+        }
+    }
+    const sl_roi *ext;
+    return sl_structures_external(ss, &ext, err);
+}
+
+static bool same(const char *a, const char *b)
+{
+    return a && b && strcmp(a, b) == 0;
+}
+
+sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch, sl_error *err)
+{
+    char why[SL_ERROR_MSG_MAX] = "";
+    if (!plan->structure_set_uid)
+        snprintf(why, sizeof why,
+                 "%s: the plan names no structure set (ReferencedStructureSetSequence "
+                 "(300C,0060) absent); %s is %s",
+                 plan->source, ss->source, ss->sop_instance_uid);
+    else if (!same(plan->structure_set_uid, ss->sop_instance_uid))
+        snprintf(why, sizeof why,
+                 "%s: the plan refers to structure set %s but %s is %s: they do not belong "
+                 "together",
+                 plan->source, plan->structure_set_uid, ss->source, ss->sop_instance_uid);
+    else {
+        const char *ss_frame = ss->frame_uid;
+        if (!ss_frame && ss->nrois > 0)
+            ss_frame = ss->rois[0].frame_uid;
+        if (plan->frame_uid && ss_frame && !same(plan->frame_uid, ss_frame))
+            snprintf(why, sizeof why,
+                     "%s: frame of reference %s differs from %s's frame of reference %s",
+                     plan->source, plan->frame_uid, ss->source, ss_frame);
+        for (size_t i = 0; !why[0] && plan->frame_uid && i < ss->nrois; i++) {
+            const sl_roi *r = &ss->rois[i];
+            if (r->frame_uid && !same(r->frame_uid, plan->frame_uid))
+                snprintf(why, sizeof why,
+                         "%s: ROI '%s' lies in frame of reference %s, not the plan's %s",
+                         ss->source, r->name, r->frame_uid, plan->frame_uid);
+        }
+    }
+    if (!why[0])
+        return SL_OK;
+    if (!allow_mismatch)
+        return sl_error_set(err, SL_EINPUT, "%s", why);
+    if (sl_notes_add(&plan->notes, "MISMATCH ALLOWED BY OPTION: %s", why) != SL_OK ||
+        sl_notes_add(&ss->notes, "MISMATCH ALLOWED BY OPTION: %s", why) != SL_OK)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    return SL_OK;
+}
