@@ -650,6 +650,17 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_NumberOfContourPoints),
                        "says " + std::to_string(n) + " points but Contour Data holds " +
                            std::to_string(data.size() / 3));
+            size_t need = c->type == SL_CONTOUR_POINT ? 1
+                          : (c->type == SL_CONTOUR_OPEN_PLANAR || c->type == SL_CONTOUR_OPEN_NONPLANAR)
+                              ? 2
+                              : 3;
+            if (c->type == SL_CONTOUR_POINT && n != 1)
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_NumberOfContourPoints),
+                       "a POINT contour has exactly one point, found " + std::to_string(n));
+            if (static_cast<size_t>(n) < need)
+                r.fail(SL_EINPUT, Reader::at(cctx, DCM_NumberOfContourPoints),
+                       "a " + type + " contour needs at least " + std::to_string(need) +
+                           " points, found " + std::to_string(n));
             total_points += static_cast<size_t>(n);
             if (total_points > SL_DICOM_MAX_CONTOUR_POINTS)
                 r.fail(SL_EINPUT, cctx,
@@ -693,6 +704,12 @@ void read_object(Reader &r, DcmFileFormat &ff, sl_dicom_object *out)
     if (cls.empty())
         r.fail(SL_EINPUT, Reader::tag_name(DCM_SOPClassUID),
                "missing: not a DICOM composite object");
+    std::string modality = r.str(ds, DCM_Modality);
+    if ((cls == UID_RTPLAN && !modality.empty() && modality != "RTPLAN") ||
+        (cls == UID_RTSTRUCT && !modality.empty() && modality != "RTSTRUCT"))
+        r.fail(SL_EINPUT, Reader::tag_name(DCM_Modality),
+               "'" + modality + "' contradicts the SOP Class (" +
+                   (cls == UID_RTPLAN ? "RT Plan" : "RT Structure Set") + ")");
     if (cls == UID_RTPLAN) {
         out->kind = SL_DICOM_RTPLAN;
         out->plan = static_cast<sl_plan *>(calloc(1, sizeof(sl_plan)));

@@ -1,0 +1,61 @@
+"""The bad-input corpus: every file in tests/data/bad/cases.tsv must give its
+expected exit code and a one-line error that names the file and contains the
+expected fragment, never a crash, never output on stdout."""
+import os
+import unittest
+
+from common import SOURCE_ROOT, run
+
+BAD = os.path.join(SOURCE_ROOT, "tests", "data", "bad")
+
+
+def cases():
+    with open(os.path.join(BAD, "cases.tsv")) as f:
+        for line in f:
+            if line.startswith("#") or not line.strip():
+                continue
+            name, args, code, fragment = line.rstrip("\n").split("\t")
+            yield name, args, int(code), fragment
+
+
+def expand(args, name):
+    subst = {
+        "f": os.path.join(BAD, name),
+        "ss": os.path.join(BAD, "good_rtstruct.dcm"),
+        "plan": os.path.join(BAD, "good_rtplan.dcm"),
+        "model": os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml"),
+    }
+    return [a.format(**subst) for a in args.split(" ")]
+
+
+class BadInputs(unittest.TestCase):
+    def test_corpus_is_large_enough(self):
+        self.assertGreaterEqual(len(list(cases())), 40)
+
+    def test_the_good_pair_reads(self):
+        rc, out, err = run("inspect", os.path.join(BAD, "good_rtplan.dcm"),
+                           os.path.join(BAD, "good_rtstruct.dcm"))
+        self.assertEqual(rc, 0, err)
+
+    def check_case(self, name, args, code, fragment):
+        rc, out, err = run(*expand(args, name))
+        self.assertEqual(rc, code, "%s: exit %d, expected %d; stderr: %s" % (name, rc, code, err))
+        lines = [l for l in err.splitlines() if not l.startswith("strayline: warning:")]
+        self.assertEqual(len(lines), 1, "%s: not one line: %r" % (name, err))
+        self.assertIn(fragment, lines[0], name)
+        self.assertIn(name, lines[0], "%s: the message must name the file" % name)
+        self.assertEqual(out, "", name)
+
+
+def _add(case):
+    name = case[0]
+    method = "test_" + name.replace(".", "_").replace("-", "_")
+    setattr(BadInputs, method, lambda self: self.check_case(*case))
+
+
+for _case in cases():
+    _add(_case)
+
+
+if __name__ == "__main__":
+    unittest.main()
