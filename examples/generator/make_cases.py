@@ -42,6 +42,12 @@ def toward_source(gantry_deg):
     return (math.sin(g), -math.cos(g))
 
 
+def inward(iso, gantry, depth):
+    """A point `depth` mm below the skin along the central axis."""
+    u = toward_source(gantry)
+    return (iso[0] - depth * u[0], iso[1] - depth * u[1], iso[2])
+
+
 def surface_iso(gantry, inner_point, z, centre, ax, ay):
     """Isocentre on the skin where the central axis through inner_point
     leaves the body slice at z (an SSD = SAD setup)."""
@@ -90,15 +96,15 @@ def face_lens(outdir):
         {"number": 1, "name": "BODY", "type": "EXTERNAL", "color": (255, 200, 150),
          "contours": body_slices(zs, face_section)},
         {"number": 2, "name": "PTV_cheek", "type": "PTV", "color": (255, 0, 0),
-         "contours": rb.ellipsoid((iso[0] - 6.0, iso[1] + 6.0, z_lesion), (14.0, 6.0, 12.0), step)},
+         "contours": rb.ellipsoid(inward(iso, gantry, 14.0), (8.0, 5.0, 11.0), step)},
         {"number": 3, "name": "Lens_L", "type": "ORGAN", "color": (0, 255, 255),
-         "contours": rb.ellipsoid((32.0, -79.0, 25.0), (4.5, 2.0, 4.5), step, n=32)},
+         "contours": rb.ellipsoid((32.0, -76.0, 25.0), (4.5, 2.0, 4.5), step, n=32)},
         {"number": 4, "name": "Lens_R", "type": "ORGAN", "color": (0, 200, 255),
-         "contours": rb.ellipsoid((-32.0, -79.0, 25.0), (4.5, 2.0, 4.5), step, n=32)},
+         "contours": rb.ellipsoid((-32.0, -76.0, 25.0), (4.5, 2.0, 4.5), step, n=32)},
         {"number": 5, "name": "Eye_L", "type": "ORGAN", "color": (0, 128, 255),
-         "contours": rb.ellipsoid((32.0, -70.0, 25.0), (12.0, 12.0, 12.0), step)},
+         "contours": rb.ellipsoid((32.0, -67.0, 25.0), (11.5, 11.5, 11.5), step)},
         {"number": 6, "name": "Eye_R", "type": "ORGAN", "color": (0, 100, 255),
-         "contours": rb.ellipsoid((-32.0, -70.0, 25.0), (12.0, 12.0, 12.0), step)},
+         "contours": rb.ellipsoid((-32.0, -67.0, 25.0), (11.5, 11.5, 11.5), step)},
         {"number": 7, "name": "Parotid_L", "type": "ORGAN", "color": (255, 128, 0),
          "contours": rb.ellipsoid((50.0, 0.0, -35.0), (12.0, 18.0, 20.0), step)},
         {"number": 8, "name": "Parotid_R", "type": "ORGAN", "color": (255, 160, 0),
@@ -156,18 +162,18 @@ def chest_fetus(outdir):
         {"number": 1, "name": "External", "type": "EXTERNAL", "color": (255, 200, 150),
          "contours": body_slices(zs, trunk_section_pregnant)},
         {"number": 2, "name": "CTV_boost", "type": "CTV", "color": (255, 0, 0),
-         "contours": rb.ellipsoid((iso[0] - 10.0, iso[1] + 10.0, z_field), (30.0, 8.0, 30.0), step)},
+         "contours": rb.ellipsoid(inward(iso, gantry, 16.0), (20.0, 6.0, 25.0), step)},
         {"number": 3, "name": "Fetus", "type": "ORGAN", "color": (255, 0, 255),
          "contours": rb.ellipsoid((0.0, -40.0, -520.0), (40.0, 32.0, 45.0), step)},
         {"number": 4, "name": "Uterus", "type": "ORGAN", "color": (200, 0, 200),
          "contours": rb.ellipsoid((0.0, -35.0, -515.0), (70.0, 55.0, 75.0), step)},
         {"number": 5, "name": "Breast_R", "type": "ORGAN", "color": (255, 150, 200),
-         "contours": rb.ellipsoid((-85.0, -85.0, -40.0), (55.0, 22.0, 55.0), step)},
+         "contours": rb.ellipsoid((-70.0, -75.0, -40.0), (40.0, 15.0, 40.0), step)},
         {"number": 6, "name": "Thyroid", "type": "ORGAN", "color": (160, 0, 255),
          "contours": rb.ellipsoid((15.0, -60.0, 120.0), (8.0, 9.0, 20.0), step)
          + rb.ellipsoid((-15.0, -60.0, 120.0), (8.0, 9.0, 20.0), step)},
         {"number": 7, "name": "Heart", "type": "ORGAN", "color": (200, 0, 0),
-         "contours": rb.ellipsoid((20.0, -10.0, -130.0), (55.0, 45.0, 55.0), step)},
+         "contours": rb.ellipsoid((20.0, -10.0, -190.0), (55.0, 45.0, 55.0), step)},
         {"number": 8, "name": "Fetus_landmark", "type": "MARKER", "color": (255, 255, 0),
          "contours": rb.point(0.0, -45.0, -480.0)},
     ]
@@ -213,7 +219,7 @@ def neck_device(outdir):
         {"number": 1, "name": "BODY", "type": "EXTERNAL", "color": (255, 200, 150),
          "contours": body_slices(zs, trunk_section_device)},
         {"number": 2, "name": "PTV_SCV", "type": "PTV", "color": (255, 0, 0),
-         "contours": rb.ellipsoid((iso[0], iso[1] + 15.0, z_field), (25.0, 10.0, 20.0), step)},
+         "contours": rb.ellipsoid(inward(iso, gantry, 14.0), (25.0, 9.0, 20.0), step)},
         {"number": 3, "name": "Pacemaker", "type": "AVOIDANCE", "color": (255, 255, 0),
          "contours": device_box},
         {"number": 4, "name": "Thyroid", "type": "ORGAN", "color": (160, 0, 255),
@@ -222,7 +228,7 @@ def neck_device(outdir):
         {"number": 5, "name": "Heart", "type": "ORGAN", "color": (200, 0, 0),
          "contours": rb.ellipsoid((20.0, -10.0, -260.0), (55.0, 45.0, 55.0), step)},
         {"number": 6, "name": "Lung_L", "type": "ORGAN", "color": (0, 160, 255),
-         "contours": rb.ellipsoid((85.0, 0.0, -200.0), (55.0, 65.0, 110.0), step)},
+         "contours": rb.ellipsoid((85.0, 0.0, -240.0), (55.0, 65.0, 110.0), step)},
     ]
     ss = rb.structure_dataset(patient, label="NECK_DEVICE", rois=rois, frame_uid=frame,
                               seed="neck-device-ss")

@@ -13,6 +13,7 @@
 
 #include "strayline/dicom.h"
 #include "strayline/error.h"
+#include "strayline/locate.h"
 
 #ifdef __cplusplus
 extern "C" {
@@ -26,6 +27,10 @@ bool sl_format_parse(const char *name, sl_format *out);
 /* `strayline inspect`: a summary of each object read. */
 sl_status sl_report_inspect(FILE *fp, sl_format fmt, const sl_dicom_object *objs, size_t n,
                             sl_error *err);
+
+/* `strayline locate`: per beam, each organ's distances and depths. */
+sl_status sl_report_locate(FILE *fp, sl_format fmt, const sl_plan *plan,
+                           const sl_structure_set *ss, const sl_location *loc, sl_error *err);
 
 #ifdef __cplusplus
 }

@@ -1,15 +1,102 @@
 /*
- * `strayline locate`: placeholder until its stage exists; it says so and fails
- * with an internal error rather than pretending to work.
+ * `strayline locate PLAN STRUCTURES`: where each organ lies relative to each
+ * electron field (distance from the field edge, depth), per beam.
  */
-#include <stdio.h>
+#include <getopt.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
 
 #include "cli.h"
+#include "strayline/dicom.h"
+#include "strayline/locate.h"
+#include "strayline/util.h"
+
+static const char help[] =
+    "usage: strayline locate [OPTIONS] PLAN STRUCTURES\n\n"
+    "For every TREATMENT electron beam of the RT Plan and every ROI of the RT\n"
+    "Structure Set: volume (cm3), samples, signed distance from the field edge\n"
+    "(cm, positive outside; minimum, mean, maximum), depth below the body surface\n"
+    "along the ray from the source (cm), fraction of the volume inside the field,\n"
+    "distance from the applicator outline (cm); per beam the central-axis entry\n"
+    "point, the SSD found there against the plan's (cm) and the surface obliquity\n"
+    "(deg). Organs in or touching the field are marked: out-of-field models do not\n"
+    "apply there.\n\n"
+    "  -f, --format FMT        text (default) or json\n"
+    "  -d, --depth CM          use this depth for every organ (needed when the\n"
+    "                          structure set has no EXTERNAL ROI)\n"
+    "      --allow-mismatch    go on when the plan and the structure set do not\n"
+    "                          belong together (a warning is written in the output)\n"
+    "      --include-external  report the EXTERNAL ROI as an organ too\n"
+    "  -j, --threads N         threads to use (default: every core)\n"
+    "  -h, --help              this help\n";
 
 int sl_cmd_locate(int argc, char **argv)
 {
-    (void)argc;
-    (void)argv;
-    fprintf(stderr, "strayline locate: not implemented yet\n");
-    return SL_EXIT_INTERNAL;
+    enum { OPT_MISMATCH = 256, OPT_EXTERNAL };
+    static const struct option opts[] = {
+        {"format", required_argument, NULL, 'f'},
+        {"depth", required_argument, NULL, 'd'},
+        {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
+        {"include-external", no_argument, NULL, OPT_EXTERNAL},
+        {"threads", required_argument, NULL, 'j'},
+        {"help", no_argument, NULL, 'h'},
+        {NULL, 0, NULL, 0},
+    };
+    sl_format fmt = SL_FORMAT_TEXT;
+    sl_locate_options lopt;
+    sl_locate_default_options(&lopt);
+    bool allow_mismatch = false;
+    int c;
+    optind = 1;
+    while ((c = getopt_long(argc, argv, "f:d:j:h", opts, NULL)) != -1) {
+        switch (c) {
+        case 'f':
+            if (!sl_cli_format("locate", optarg, &fmt))
+                return SL_EXIT_USAGE;
+            if (fmt == SL_FORMAT_CSV)
+                return sl_cli_usage("locate", "--format csv is not offered by locate");
+            break;
+        case 'd':
+            if (!sl_parse_double(optarg, &lopt.depth_cm) || lopt.depth_cm < 0)
+                return sl_cli_usage("locate", "--depth needs a depth in cm, not '%s'", optarg);
+            break;
+        case 'j':
+            if (!sl_parse_int(optarg, &lopt.threads) || lopt.threads < 1 || lopt.threads > 64)
+                return sl_cli_usage("locate", "--threads needs a number from 1 to 64");
+            break;
+        case OPT_MISMATCH:
+            allow_mismatch = true;
+            break;
+        case OPT_EXTERNAL:
+            lopt.include_external = true;
+            break;
+        case 'h':
+            fputs(help, stdout);
+            return SL_EXIT_OK;
+        default:
+            return sl_cli_usage("locate", "bad option");
+        }
+    }
+    if (argc - optind != 2)
+        return sl_cli_usage("locate", "needs two files: PLAN STRUCTURES");
+    sl_error err = {0};
+    sl_plan *plan = NULL;
+    sl_structure_set *ss = NULL;
+    sl_location *loc = NULL;
+    int rc = SL_EXIT_OK;
+    if (sl_dicom_read_plan(argv[optind], &plan, &err) != SL_OK ||
+        sl_dicom_read_structures(argv[optind + 1], &ss, &err) != SL_OK ||
+        sl_pair_check(plan, ss, allow_mismatch, &err) != SL_OK ||
+        sl_locate(plan, ss, &lopt, &loc, &err) != SL_OK ||
+        sl_report_locate(stdout, fmt, plan, ss, loc, &err) != SL_OK)
+        rc = sl_cli_fail(&err);
+    else if (fflush(stdout) != 0) {
+        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        rc = SL_EXIT_INTERNAL;
+    }
+    sl_location_free(loc);
+    sl_structure_set_free(ss);
+    sl_plan_free(plan);
+    return rc;
 }

@@ -22,8 +22,9 @@ typedef struct jw {
     sl_status st; /* first failure; later calls do nothing */
 } jw;
 
-/* Significant digits of numbers in JSON output. */
-#define JW_DIGITS 6
+/* Significant digits of numbers in JSON output: enough that a machine
+ * reading the JSON can check geometry to micrometres; the text reports round. */
+#define JW_DIGITS 10
 
 void jw_num(jw *w, json_object *obj, const char *key, double v);
 void jw_num_opt(jw *w, json_object *obj, const char *key, double v);

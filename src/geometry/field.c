@@ -1,0 +1,164 @@
+/*
+ * Field and applicator outlines of a beam (see include/strayline/field.h).
+ */
+#include "strayline/field.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+const char *sl_field_source_name(sl_field_source s)
+{
+    switch (s) {
+    case SL_FIELD_CUTOUT: return "cutout (APERTURE blocks)";
+    case SL_FIELD_PLAN_APPLICATOR: return "applicator opening in the plan";
+    case SL_FIELD_CATALOGUE: return "applicator catalogue of the model file";
+    }
+    return "?";
+}
+
+void sl_field_free(sl_field *f)
+{
+    if (!f)
+        return;
+    sl_outline_free(f->edge);
+    sl_outline_free(f->applicator);
+    memset(f, 0, sizeof *f);
+}
+
+/* The applicator opening at the isocentric plane, from the plan or the
+ * catalogue; *out stays NULL when neither knows it. */
+static sl_status applicator_outline(const sl_plan *plan, const sl_beam *beam,
+                                    const sl_applicator_size *cat, size_t ncat, sl_outline **out,
+                                    sl_field_source *src, sl_error *err)
+{
+    *out = NULL;
+    const sl_applicator *a = &beam->applicator;
+    char what[128];
+    snprintf(what, sizeof what, "%s: beam %d applicator", plan->source, beam->number);
+    if (a->present && a->has_geometry && a->aperture_shape) {
+        *src = SL_FIELD_PLAN_APPLICATOR;
+        const char *shape = a->aperture_shape;
+        if (strcmp(shape, "SYM_CIRCULAR") == 0 && isfinite(a->opening_mm))
+            return sl_outline_circle(a->opening_mm * 0.1, what, out, err);
+        if (strcmp(shape, "SYM_SQUARE") == 0 && isfinite(a->opening_mm))
+            return sl_outline_rectangle(a->opening_mm * 0.1, a->opening_mm * 0.1, what, out, err);
+        if (strcmp(shape, "SYM_RECTANGLE") == 0 && isfinite(a->opening_x_mm) &&
+            isfinite(a->opening_y_mm))
+            return sl_outline_rectangle(a->opening_x_mm * 0.1, a->opening_y_mm * 0.1, what, out,
+                                        err);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d: ApplicatorApertureShape (300A,0432) %s without the "
+                            "opening it needs",
+                            plan->source, beam->number, shape);
+    }
+    if (!a->present || !a->id)
+        return SL_OK;
+    for (size_t i = 0; i < ncat; i++) {
+        if (cat[i].id && strcmp(cat[i].id, a->id) == 0) {
+            *src = SL_FIELD_CATALOGUE;
+            double s = (beam->sad_mm * 0.1) / cat[i].nominal_ssd_cm;
+            if (cat[i].circular)
+                return sl_outline_circle(cat[i].x_cm * s, what, out, err);
+            return sl_outline_rectangle(cat[i].x_cm * s, cat[i].y_cm * s, what, out, err);
+        }
+    }
+    return SL_OK;
+}
+
+sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
+                         const sl_applicator_size *catalogue, size_t ncatalogue, sl_field *out,
+                         sl_error *err)
+{
+    memset(out, 0, sizeof *out);
+    sl_field_source app_src = SL_FIELD_CATALOGUE;
+    sl_status st = applicator_outline(plan, beam, catalogue, ncatalogue, &out->applicator,
+                                      &app_src, err);
+    if (st != SL_OK)
+        return st;
+
+    size_t naper = 0, nshield = 0;
+    for (size_t i = 0; i < beam->nblocks; i++) {
+        if (beam->blocks[i].type == SL_BLOCK_APERTURE)
+            naper++;
+        else
+            nshield++;
+    }
+    if (naper == 0 && !out->applicator) {
+        const char *id = beam->applicator.present && beam->applicator.id ? beam->applicator.id
+                                                                          : "(none)";
+        sl_field_free(out);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d: the field size is unknown: no cutout (APERTURE block), "
+                            "no Applicator Geometry Sequence, and applicator '%s' is not in the "
+                            "applicator catalogue (give a model file that lists it)",
+                            plan->source, beam->number, id);
+    }
+
+    /* loops: the openings (cutout polygons, or the applicator), then shields */
+    size_t nloops = (naper ? naper : 1) + nshield;
+    sl_outline_loop *loops = calloc(nloops, sizeof *loops);
+    sl_vec2 **pts = calloc(nloops, sizeof *pts);
+    if (!loops || !pts) {
+        free(loops);
+        free(pts);
+        sl_field_free(out);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    size_t k = 0;
+    if (naper == 0) {
+        size_t n;
+        loops[k].points = sl_outline_loop_points(out->applicator, 0, &n);
+        loops[k++].n = n;
+    }
+    for (int pass = 0; pass < 2 && st == SL_OK; pass++) {
+        for (size_t i = 0; i < beam->nblocks; i++) {
+            const sl_block *b = &beam->blocks[i];
+            if ((pass == 0) != (b->type == SL_BLOCK_APERTURE))
+                continue;
+            pts[k] = malloc(b->npoints * sizeof **pts);
+            if (!pts[k]) {
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                break;
+            }
+            for (size_t j = 0; j < b->npoints; j++)
+                pts[k][j] = (sl_vec2){b->points[j].x * 0.1, b->points[j].y * 0.1};
+            loops[k].points = pts[k];
+            loops[k].n = b->npoints;
+            k++;
+        }
+    }
+    char what[128];
+    snprintf(what, sizeof what, "%s: beam %d %s", plan->source, beam->number,
+             naper ? "cutout" : "field");
+    if (st == SL_OK)
+        st = sl_outline_create(loops, k, what, &out->edge, err);
+    /* openings must not nest (one would turn into a hole), and a shielding
+     * block must be a hole in an opening, not an island */
+    for (size_t i = 0; st == SL_OK && i < naper; i++) {
+        if (sl_outline_loop_depth(out->edge, i) != 0)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: beam %d: one APERTURE block lies inside another",
+                              plan->source, beam->number);
+    }
+    for (size_t i = (naper ? naper : 1); st == SL_OK && i < k; i++) {
+        if (sl_outline_loop_depth(out->edge, i) % 2 == 0)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: beam %d: a SHIELDING block lies outside the field opening",
+                              plan->source, beam->number);
+    }
+    for (size_t i = 0; i < nloops; i++)
+        free(pts[i]);
+    free(pts);
+    free(loops);
+    if (st != SL_OK) {
+        sl_field_free(out);
+        return st;
+    }
+    out->has_cutout = naper > 0;
+    out->has_shielding = nshield > 0;
+    out->source = naper ? SL_FIELD_CUTOUT : app_src;
+    out->area_cm2 = sl_outline_area(out->edge);
+    return SL_OK;
+}

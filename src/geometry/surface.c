@@ -1,0 +1,441 @@
+/*
+ * The body solid and in-body path lengths (see include/strayline/surface.h).
+ *
+ * A 3-D segment is cut at the slab boundaries; inside one slab the body's
+ * cross-section does not change, so the in-body part of the segment there is
+ * the in-polygon part of its 2-D projection. That part is found by walking
+ * the projection through the slice's grid (a DDA walk) and toggling at each
+ * edge crossing; the parity where the walk starts comes from the parity of
+ * the cell centre plus the crossings between the centre and the start.
+ * Crossings are assigned to the cell whose stretch of the segment contains
+ * them, so an edge listed in several cells is never counted twice.
+ */
+#include "strayline/surface.h"
+#include "strayline/poly2d.h"
+
+#include <float.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#define GRID_MAX 64
+/* An odd margin around each slice, so that cell centres do not fall on
+ * the round coordinates that phantom edges like to sit on. */
+#define MARGIN_CM 1.0031416
+
+typedef struct bslice {
+    double z_lo, z_hi;
+    sl_vec2 lo, hi;
+    double cell;
+    int gx, gy;
+    size_t ne;
+    sl_vec2 *ea, *eb;
+    unsigned *cell_start;
+    unsigned *cell_edges;
+    unsigned char *center_in;
+} bslice;
+
+struct sl_body {
+    size_t n;
+    bslice *s;
+    sl_vec3 lo, hi;
+};
+
+static int cmp_double(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return x < y ? -1 : x > y;
+}
+
+static void slice_free(bslice *s)
+{
+    free(s->ea);
+    free(s->eb);
+    free(s->cell_start);
+    free(s->cell_edges);
+    free(s->center_in);
+}
+
+void sl_body_free(sl_body *b)
+{
+    if (!b)
+        return;
+    for (size_t i = 0; i < b->n; i++)
+        slice_free(&b->s[i]);
+    free(b->s);
+    free(b);
+}
+
+static int clampi(long v, int lo, int hi)
+{
+    return v < lo ? lo : v > hi ? hi : (int)v;
+}
+
+static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslice *s)
+{
+    s->z_lo = sl->z_lo_cm;
+    s->z_hi = sl->z_hi_cm;
+    size_t ne = 0;
+    for (size_t k = 0; k < sl->count; k++)
+        ne += st->loop_n[sl->first + k];
+    s->ne = ne;
+    s->ea = malloc(ne * sizeof *s->ea);
+    s->eb = malloc(ne * sizeof *s->eb);
+    if (!s->ea || !s->eb)
+        return SL_ENOMEM;
+    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
+    size_t e = 0;
+    for (size_t k = 0; k < sl->count; k++) {
+        const sl_vec2 *p = st->loops[sl->first + k];
+        size_t n = st->loop_n[sl->first + k];
+        for (size_t i = 0; i < n; i++) {
+            s->ea[e] = p[i];
+            s->eb[e] = p[(i + 1) % n];
+            e++;
+            lo.x = fmin(lo.x, p[i].x);
+            lo.y = fmin(lo.y, p[i].y);
+            hi.x = fmax(hi.x, p[i].x);
+            hi.y = fmax(hi.y, p[i].y);
+        }
+    }
+    lo.x -= MARGIN_CM;
+    lo.y -= MARGIN_CM;
+    hi.x += MARGIN_CM;
+    hi.y += MARGIN_CM;
+    s->lo = lo;
+    s->hi = hi;
+    double w = hi.x - lo.x, h = hi.y - lo.y;
+    double cells = fmin((double)GRID_MAX, fmax(4.0, 2.0 * sqrt((double)ne)));
+    s->cell = fmax(w, h) / cells;
+    s->gx = clampi((long)ceil(w / s->cell), 1, GRID_MAX);
+    s->gy = clampi((long)ceil(h / s->cell), 1, GRID_MAX);
+    size_t ncell = (size_t)s->gx * (size_t)s->gy;
+    s->cell_start = calloc(ncell + 1, sizeof *s->cell_start);
+    s->center_in = calloc(ncell, 1);
+    if (!s->cell_start || !s->center_in)
+        return SL_ENOMEM;
+
+    /* edges to cells (their bounding box, slightly widened so that a
+     * crossing on a cell boundary is listed on both sides) */
+    const double eps = 1e-6;
+    for (int pass = 0; pass < 2; pass++) {
+        if (pass == 1) {
+            size_t total = 0;
+            for (size_t c = 0; c < ncell; c++) {
+                size_t k = s->cell_start[c];
+                s->cell_start[c] = (unsigned)total;
+                total += k;
+            }
+            s->cell_start[ncell] = (unsigned)total;
+            s->cell_edges = malloc((total ? total : 1) * sizeof *s->cell_edges);
+            if (!s->cell_edges)
+                return SL_ENOMEM;
+        }
+        unsigned *fill = NULL;
+        if (pass == 1) {
+            fill = malloc(ncell * sizeof *fill);
+            if (!fill)
+                return SL_ENOMEM;
+            memcpy(fill, s->cell_start, ncell * sizeof *fill);
+        }
+        for (size_t i = 0; i < ne; i++) {
+            int x0 = clampi((long)floor((fmin(s->ea[i].x, s->eb[i].x) - eps - lo.x) / s->cell), 0,
+                            s->gx - 1);
+            int x1 = clampi((long)floor((fmax(s->ea[i].x, s->eb[i].x) + eps - lo.x) / s->cell), 0,
+                            s->gx - 1);
+            int y0 = clampi((long)floor((fmin(s->ea[i].y, s->eb[i].y) - eps - lo.y) / s->cell), 0,
+                            s->gy - 1);
+            int y1 = clampi((long)floor((fmax(s->ea[i].y, s->eb[i].y) + eps - lo.y) / s->cell), 0,
+                            s->gy - 1);
+            for (int cy = y0; cy <= y1; cy++)
+                for (int cx = x0; cx <= x1; cx++) {
+                    size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
+                    if (pass == 0)
+                        s->cell_start[c]++;
+                    else
+                        s->cell_edges[fill[c]++] = (unsigned)i;
+                }
+        }
+        free(fill);
+    }
+
+    /* parity of every cell centre: one horizontal scan a row */
+    double *xs = malloc((ne ? ne : 1) * sizeof *xs);
+    if (!xs)
+        return SL_ENOMEM;
+    for (int cy = 0; cy < s->gy; cy++) {
+        double y = lo.y + (cy + 0.5) * s->cell;
+        size_t nx = 0;
+        for (size_t i = 0; i < ne; i++) {
+            sl_vec2 a = s->ea[i], b = s->eb[i];
+            if ((a.y > y) != (b.y > y))
+                xs[nx++] = a.x + (y - a.y) * (b.x - a.x) / (b.y - a.y);
+        }
+        qsort(xs, nx, sizeof *xs, cmp_double);
+        size_t k = 0;
+        for (int cx = 0; cx < s->gx; cx++) {
+            double x = lo.x + (cx + 0.5) * s->cell;
+            while (k < nx && xs[k] < x)
+                k++;
+            s->center_in[(size_t)cy * (size_t)s->gx + (size_t)cx] = (unsigned char)(k & 1);
+        }
+    }
+    free(xs);
+    return SL_OK;
+}
+
+sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body **out,
+                         sl_error *err)
+{
+    *out = NULL;
+    if (stack->nslices == 0)
+        return sl_error_set(err, SL_EINPUT, "%s: the body has no closed contour", what);
+    sl_body *b = calloc(1, sizeof *b);
+    if (!b)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    b->s = calloc(stack->nslices, sizeof *b->s);
+    if (!b->s) {
+        free(b);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    b->n = stack->nslices;
+    b->lo = (sl_vec3){DBL_MAX, DBL_MAX, DBL_MAX};
+    b->hi = (sl_vec3){-DBL_MAX, -DBL_MAX, -DBL_MAX};
+    for (size_t i = 0; i < b->n; i++) {
+        if (slice_build(stack, &stack->slices[i], &b->s[i]) != SL_OK) {
+            sl_body_free(b);
+            return sl_error_set(err, SL_ENOMEM, "out of memory building the body model");
+        }
+        const bslice *s = &b->s[i];
+        b->lo.x = fmin(b->lo.x, s->lo.x);
+        b->lo.y = fmin(b->lo.y, s->lo.y);
+        b->hi.x = fmax(b->hi.x, s->hi.x);
+        b->hi.y = fmax(b->hi.y, s->hi.y);
+    }
+    b->lo.z = b->s[0].z_lo;
+    b->hi.z = b->s[b->n - 1].z_hi;
+    *out = b;
+    return SL_OK;
+}
+
+void sl_body_bounds(const sl_body *b, sl_vec3 *lo, sl_vec3 *hi)
+{
+    *lo = b->lo;
+    *hi = b->hi;
+}
+
+static bool cell_of(const bslice *s, sl_vec2 q, int *cx, int *cy)
+{
+    double fx = (q.x - s->lo.x) / s->cell, fy = (q.y - s->lo.y) / s->cell;
+    if (!(fx >= 0 && fy >= 0 && fx < s->gx && fy < s->gy))
+        return false;
+    *cx = (int)fx;
+    *cy = (int)fy;
+    return true;
+}
+
+static bool slice_inside(const bslice *s, sl_vec2 q)
+{
+    int cx, cy;
+    if (!cell_of(s, q, &cx, &cy))
+        return false;
+    size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
+    sl_vec2 centre = {s->lo.x + (cx + 0.5) * s->cell, s->lo.y + (cy + 0.5) * s->cell};
+    bool in = s->center_in[c];
+    for (unsigned k = s->cell_start[c]; k < s->cell_start[c + 1]; k++) {
+        unsigned i = s->cell_edges[k];
+        if (sl_p2_crosses(centre, q, s->ea[i], s->eb[i], NULL))
+            in = !in;
+    }
+    return in;
+}
+
+/* In-polygon part of the 2-D segment q0 -> q1 (parameter 0..1): its length
+ * as a fraction of the segment, and the first parameter where it is inside. */
+static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *first_in)
+{
+    *first_in = NAN;
+    double dx = q1.x - q0.x, dy = q1.y - q0.y;
+    /* clip to the slice's grid box (Liang-Barsky) */
+    double sa = 0, sb = 1;
+    const double p[4] = {-dx, dx, -dy, dy};
+    const double qq[4] = {q0.x - s->lo.x, s->hi.x - q0.x, q0.y - s->lo.y, s->hi.y - q0.y};
+    for (int i = 0; i < 4; i++) {
+        if (p[i] == 0) {
+            if (qq[i] < 0)
+                return 0;
+        } else {
+            double r = qq[i] / p[i];
+            if (p[i] < 0)
+                sa = fmax(sa, r);
+            else
+                sb = fmin(sb, r);
+        }
+    }
+    if (!(sa < sb))
+        return 0;
+    if (fabs(dx) + fabs(dy) < 1e-12) {
+        /* the ray runs along z through this slab: one parity throughout */
+        if (slice_inside(s, q0)) {
+            *first_in = 0;
+            return 1;
+        }
+        return 0;
+    }
+    sl_vec2 start = {q0.x + sa * dx, q0.y + sa * dy};
+    /* a clipped start lies on the margin, outside every edge */
+    bool in = sa > 0 ? false : slice_inside(s, start);
+    double total = 0, last = sa;
+    if (in)
+        *first_in = sa;
+
+    int cx = clampi((long)floor((start.x - s->lo.x) / s->cell), 0, s->gx - 1);
+    int cy = clampi((long)floor((start.y - s->lo.y) / s->cell), 0, s->gy - 1);
+    int stepx = dx > 0 ? 1 : dx < 0 ? -1 : 0;
+    int stepy = dy > 0 ? 1 : dy < 0 ? -1 : 0;
+    double tmx = stepx ? ((s->lo.x + (cx + (stepx > 0)) * s->cell) - q0.x) / dx : INFINITY;
+    double tmy = stepy ? ((s->lo.y + (cy + (stepy > 0)) * s->cell) - q0.y) / dy : INFINITY;
+    double tdx = stepx ? s->cell / fabs(dx) : INFINITY;
+    double tdy = stepy ? s->cell / fabs(dy) : INFINITY;
+    double enter = sa;
+    double local[64];
+    for (;;) {
+        double exit = fmin(fmin(tmx, tmy), sb);
+        size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
+        unsigned k0 = s->cell_start[c], k1 = s->cell_start[c + 1];
+        size_t nloc = 0;
+        double *buf = local;
+        if (k1 - k0 > 64) {
+            buf = malloc((k1 - k0) * sizeof *buf);
+            if (!buf)
+                buf = local, k1 = k0 + 64; /* cannot happen in practice; stay bounded */
+        }
+        for (unsigned k = k0; k < k1; k++) {
+            unsigned i = s->cell_edges[k];
+            double t;
+            if (sl_p2_crosses(q0, q1, s->ea[i], s->eb[i], &t) && t >= enter && t < exit)
+                buf[nloc++] = t;
+        }
+        if (nloc > 1)
+            qsort(buf, nloc, sizeof *buf, cmp_double);
+        for (size_t j = 0; j < nloc; j++) {
+            if (in)
+                total += buf[j] - last;
+            else if (isnan(*first_in))
+                *first_in = buf[j];
+            in = !in;
+            last = buf[j];
+        }
+        if (buf != local)
+            free(buf);
+        if (exit >= sb)
+            break;
+        enter = exit;
+        if (tmx < tmy) {
+            cx += stepx;
+            tmx += tdx;
+        } else {
+            cy += stepy;
+            tmy += tdy;
+        }
+        if (cx < 0 || cy < 0 || cx >= s->gx || cy >= s->gy)
+            break;
+    }
+    if (in)
+        total += sb - last;
+    return total;
+}
+
+static size_t slab_at(const sl_body *b, double z)
+{
+    size_t lo = 0, hi = b->n; /* first slab with z_hi > z */
+    while (lo < hi) {
+        size_t mid = (lo + hi) / 2;
+        if (b->s[mid].z_hi <= z)
+            lo = mid + 1;
+        else
+            hi = mid;
+    }
+    return lo;
+}
+
+double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
+{
+    if (entry_t)
+        *entry_t = NAN;
+    double d[3] = {c.x - a.x, c.y - a.y, c.z - a.z};
+    double len = sqrt(d[0] * d[0] + d[1] * d[1] + d[2] * d[2]);
+    if (len == 0)
+        return 0;
+    /* clip to the body's box */
+    double t0 = 0, t1 = 1;
+    const double o[3] = {a.x, a.y, a.z};
+    const double lo[3] = {b->lo.x, b->lo.y, b->lo.z}, hi[3] = {b->hi.x, b->hi.y, b->hi.z};
+    for (int k = 0; k < 3; k++) {
+        if (d[k] == 0) {
+            if (o[k] < lo[k] || o[k] > hi[k])
+                return 0;
+            continue;
+        }
+        double ta = (lo[k] - o[k]) / d[k], tb = (hi[k] - o[k]) / d[k];
+        if (ta > tb) {
+            double t = ta;
+            ta = tb;
+            tb = t;
+        }
+        t0 = fmax(t0, ta);
+        t1 = fmin(t1, tb);
+    }
+    if (!(t0 < t1))
+        return 0;
+    double total = 0;
+    if (d[2] == 0) {
+        size_t i = slab_at(b, a.z);
+        if (i >= b->n || a.z < b->s[i].z_lo)
+            return 0;
+        sl_vec2 q0 = {a.x + t0 * d[0], a.y + t0 * d[1]}, q1 = {a.x + t1 * d[0], a.y + t1 * d[1]};
+        double first;
+        double f = slice_segment(&b->s[i], q0, q1, &first);
+        if (entry_t && !isnan(first))
+            *entry_t = t0 + first * (t1 - t0);
+        return f * (t1 - t0) * len;
+    }
+    /* walk the slabs in the order the segment meets them */
+    double za = a.z + t0 * d[2], zb = a.z + t1 * d[2];
+    bool up = d[2] > 0;
+    size_t i = slab_at(b, up ? za : zb);
+    size_t iend = slab_at(b, up ? zb : za);
+    if (iend >= b->n)
+        iend = b->n - 1;
+    if (i >= b->n)
+        return 0;
+    for (size_t step = 0; step <= iend - i; step++) {
+        size_t k = up ? i + step : iend - step;
+        const bslice *s = &b->s[k];
+        double ta = (s->z_lo - a.z) / d[2], tb = (s->z_hi - a.z) / d[2];
+        if (ta > tb) {
+            double t = ta;
+            ta = tb;
+            tb = t;
+        }
+        ta = fmax(ta, t0);
+        tb = fmin(tb, t1);
+        if (!(ta < tb))
+            continue;
+        sl_vec2 q0 = {a.x + ta * d[0], a.y + ta * d[1]}, q1 = {a.x + tb * d[0], a.y + tb * d[1]};
+        double first;
+        double f = slice_segment(s, q0, q1, &first);
+        if (entry_t && isnan(*entry_t) && !isnan(first))
+            *entry_t = ta + first * (tb - ta);
+        total += f * (tb - ta) * len;
+    }
+    return total;
+}
+
+bool sl_body_contains(const sl_body *b, sl_vec3 p)
+{
+    size_t i = slab_at(b, p.z);
+    if (i >= b->n || p.z < b->s[i].z_lo)
+        return false;
+    return slice_inside(&b->s[i], (sl_vec2){p.x, p.y});
+}

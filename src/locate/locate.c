@@ -1,0 +1,451 @@
+/*
+ * The placement stage (see include/strayline/locate.h).
+ *
+ * Order of work: sample every organ once (beam-independent, in patient
+ * coordinates), then for each beam build its frame and field outline, project
+ * all samples to find the region the outline index must cover, index it, and
+ * place the samples in chunks spread over the cores. Summaries come last, on
+ * one thread, so they do not depend on how the chunks were scheduled.
+ */
+#include "strayline/locate.h"
+#include "strayline/parallel.h"
+#include "strayline/slices.h"
+#include "strayline/surface.h"
+
+#include <float.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#define CHUNK 2048
+#define OBLIQUITY_BASE_CM 1.0 /* half-width of the surface patch that gives the normal */
+
+void sl_locate_default_options(sl_locate_options *o)
+{
+    memset(o, 0, sizeof *o);
+    o->depth_cm = NAN;
+    sl_sampling_default_options(&o->sampling);
+}
+
+bool sl_organ_in_field(const sl_organ_place *p)
+{
+    return p->placed > 0 && (p->in_field_fraction > 0 || p->min_distance_cm < SL_IN_FIELD_MARGIN_CM);
+}
+
+static void organ_place_free(sl_organ_place *p)
+{
+    free(p->distance_cm);
+    free(p->app_distance_cm);
+    free(p->depth_cm);
+    free(p->flags);
+}
+
+void sl_location_free(sl_location *loc)
+{
+    if (!loc)
+        return;
+    for (size_t b = 0; b < loc->nbeams; b++) {
+        sl_beam_place *bp = &loc->beams[b];
+        for (size_t i = 0; bp->organs && i < loc->norgans; i++)
+            organ_place_free(&bp->organs[i]);
+        free(bp->organs);
+        sl_field_free(&bp->field);
+        sl_notes_free(&bp->notes);
+    }
+    free(loc->beams);
+    for (size_t i = 0; loc->samples && i < loc->norgans; i++)
+        sl_organ_samples_free(&loc->samples[i]);
+    free(loc->samples);
+    free(loc->rois);
+    free(loc->skipped);
+    sl_notes_free(&loc->notes);
+    free(loc);
+}
+
+/* ---------------------------------------------------------- sampling -- */
+
+typedef struct sample_job {
+    sl_location *loc;
+    const char *file;
+    const sl_sampling_options *opt;
+    sl_status *status;
+    sl_error *errors;
+} sample_job;
+
+static void sample_task(size_t i, void *ctx)
+{
+    sample_job *j = ctx;
+    j->status[i] = sl_sample_roi(j->loc->rois[i], j->file, j->opt, &j->loc->samples[i],
+                                 &j->errors[i]);
+}
+
+/* --------------------------------------------------------- placement -- */
+
+typedef struct place_job {
+    sl_location *loc;
+    sl_beam_place *bp;
+    const sl_body *body;
+    size_t ntasks;
+    size_t *task_organ;
+    size_t *task_first;
+} place_job;
+
+static void place_task(size_t t, void *ctx)
+{
+    place_job *j = ctx;
+    size_t o = j->task_organ[t], first = j->task_first[t];
+    const sl_organ_samples *s = &j->loc->samples[o];
+    sl_organ_place *p = &j->bp->organs[o];
+    size_t last = first + CHUNK < s->n ? first + CHUNK : s->n;
+    const sl_frame *f = &j->bp->frame;
+    sl_vec3 src = sl_frame_source(f);
+    for (size_t i = first; i < last; i++) {
+        sl_vec3 b = sl_frame_to_bld(f, s->points[i]);
+        sl_vec2 uv;
+        double scale;
+        unsigned char flags = 0;
+        if (!sl_frame_project(f, b, &uv, &scale)) {
+            p->flags[i] = SL_SAMPLE_BEHIND_SOURCE;
+            p->distance_cm[i] = p->app_distance_cm[i] = p->depth_cm[i] = NAN;
+            continue;
+        }
+        p->distance_cm[i] = scale * sl_outline_distance(j->bp->field.edge, uv);
+        p->app_distance_cm[i] = j->bp->field.applicator
+                                    ? scale * sl_outline_distance(j->bp->field.applicator, uv)
+                                    : NAN;
+        if (j->body) {
+            p->depth_cm[i] = sl_body_path(j->body, src, s->points[i], NULL);
+            if (!sl_body_contains(j->body, s->points[i]))
+                flags |= SL_SAMPLE_OUTSIDE_BODY;
+        } else {
+            p->depth_cm[i] = j->loc->depth_cm;
+        }
+        p->flags[i] = flags;
+    }
+}
+
+static void summarise(const sl_organ_samples *s, sl_organ_place *p)
+{
+    double vsum = 0, dsum = 0, vin = 0, vout = 0;
+    p->min_distance_cm = p->min_app_distance_cm = p->min_depth_cm = INFINITY;
+    p->max_distance_cm = p->max_depth_cm = -INFINITY;
+    p->placed = 0;
+    p->behind_source = 0;
+    for (size_t i = 0; i < s->n; i++) {
+        if (p->flags[i] & SL_SAMPLE_BEHIND_SOURCE) {
+            p->behind_source++;
+            continue;
+        }
+        /* points carry no volume: weigh them equally */
+        double w = s->is_point ? 1.0 : s->volume_cc[i];
+        double d = p->distance_cm[i];
+        if (p->placed == 0 || d < p->min_distance_cm) {
+            p->min_distance_cm = d;
+            p->nearest = i;
+        }
+        p->placed++;
+        p->max_distance_cm = fmax(p->max_distance_cm, d);
+        p->min_app_distance_cm = fmin(p->min_app_distance_cm, p->app_distance_cm[i]);
+        p->min_depth_cm = fmin(p->min_depth_cm, p->depth_cm[i]);
+        p->max_depth_cm = fmax(p->max_depth_cm, p->depth_cm[i]);
+        vsum += w;
+        dsum += w * d;
+        if (d < 0)
+            vin += w;
+        if (p->flags[i] & SL_SAMPLE_OUTSIDE_BODY)
+            vout += w;
+    }
+    if (p->placed == 0 || !(vsum > 0)) {
+        p->min_distance_cm = p->mean_distance_cm = p->max_distance_cm = NAN;
+        p->min_app_distance_cm = p->min_depth_cm = p->max_depth_cm = NAN;
+        p->in_field_fraction = p->outside_body_fraction = NAN;
+        return;
+    }
+    if (!isfinite(p->min_app_distance_cm))
+        p->min_app_distance_cm = NAN;
+    p->mean_distance_cm = dsum / vsum;
+    p->in_field_fraction = vin / vsum;
+    p->outside_body_fraction = vout / vsum;
+}
+
+/* Entry of the ray from the source through iso-plane point (u, v). */
+static bool ray_entry(const sl_frame *f, const sl_body *body, double u, double v, sl_vec3 *entry,
+                      double *dist)
+{
+    sl_vec3 src = sl_frame_source(f);
+    sl_vec3 iso_pt = sl_frame_iso_plane_point(f, u, v);
+    sl_vec3 far = {src.x + 3 * (iso_pt.x - src.x), src.y + 3 * (iso_pt.y - src.y),
+                   src.z + 3 * (iso_pt.z - src.z)};
+    double t;
+    sl_body_path(body, src, far, &t);
+    if (isnan(t))
+        return false;
+    *entry = (sl_vec3){src.x + t * (far.x - src.x), src.y + t * (far.y - src.y),
+                       src.z + t * (far.z - src.z)};
+    double dx = entry->x - src.x, dy = entry->y - src.y, dz = entry->z - src.z;
+    *dist = sqrt(dx * dx + dy * dy + dz * dz);
+    return true;
+}
+
+static void central_axis(sl_beam_place *bp, const sl_body *body, const char *file)
+{
+    bp->ssd_found_cm = NAN;
+    bp->obliquity_deg = NAN;
+    const sl_frame *f = &bp->frame;
+    double dist;
+    if (!ray_entry(f, body, 0, 0, &bp->entry_cm, &dist)) {
+        sl_notes_add(&bp->notes, "%s: beam %d: the central axis does not enter the body",
+                     file, bp->beam->number);
+        return;
+    }
+    bp->entry_found = true;
+    bp->ssd_found_cm = dist;
+    if (isfinite(bp->ssd_plan_cm) && fabs(dist - bp->ssd_plan_cm) > SL_SSD_WARN_CM)
+        sl_notes_add(&bp->notes,
+                     "%s: beam %d: the SSD found on the body contour is %.1f cm, the plan says "
+                     "%.1f cm (more than %.0f cm apart)",
+                     file, bp->beam->number, dist, bp->ssd_plan_cm, SL_SSD_WARN_CM);
+    sl_vec3 e[4];
+    const double h = OBLIQUITY_BASE_CM;
+    const double uv[4][2] = {{h, 0}, {-h, 0}, {0, h}, {0, -h}};
+    for (int k = 0; k < 4; k++) {
+        if (!ray_entry(f, body, uv[k][0], uv[k][1], &e[k], &dist)) {
+            sl_notes_add(&bp->notes,
+                         "%s: beam %d: the body surface near the central axis is too small to "
+                         "find its obliquity",
+                         file, bp->beam->number);
+            return;
+        }
+    }
+    double t1[3] = {e[0].x - e[1].x, e[0].y - e[1].y, e[0].z - e[1].z};
+    double t2[3] = {e[2].x - e[3].x, e[2].y - e[3].y, e[2].z - e[3].z};
+    double n[3] = {t1[1] * t2[2] - t1[2] * t2[1], t1[2] * t2[0] - t1[0] * t2[2],
+                   t1[0] * t2[1] - t1[1] * t2[0]};
+    double nn = sqrt(n[0] * n[0] + n[1] * n[1] + n[2] * n[2]);
+    if (!(nn > 0))
+        return;
+    sl_vec3 d = sl_frame_direction(f);
+    double c = fabs(n[0] * d.x + n[1] * d.y + n[2] * d.z) / nn;
+    bp->obliquity_deg = acos(fmin(1.0, c)) * 180.0 / M_PI;
+}
+
+static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam *beam,
+                            const sl_body *body, const sl_locate_options *opt, sl_beam_place *bp,
+                            sl_error *err)
+{
+    bp->beam = beam;
+    bp->ssd_plan_cm = isfinite(beam->ssd_mm) ? beam->ssd_mm * 0.1 : NAN;
+    sl_status st = sl_plan_beam_position(plan, beam, &bp->position, err);
+    if (st == SL_OK)
+        st = sl_frame_from_beam(&bp->frame, plan, beam, err);
+    if (st == SL_OK)
+        st = sl_field_build(plan, beam, opt->catalogue, opt->ncatalogue, &bp->field, err);
+    if (st != SL_OK)
+        return st;
+    if (!bp->field.applicator)
+        sl_notes_add(&bp->notes,
+                     "%s: beam %d: the applicator opening is unknown (no Applicator Geometry and "
+                     "no catalogue entry): distances from the applicator are not given",
+                     plan->source, beam->number);
+    bp->organs = calloc(loc->norgans ? loc->norgans : 1, sizeof *bp->organs);
+    if (!bp->organs)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+
+    /* where will the queries fall on the isocentric plane? */
+    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
+    size_t ntasks = 0;
+    for (size_t o = 0; o < loc->norgans; o++) {
+        const sl_organ_samples *s = &loc->samples[o];
+        sl_organ_place *p = &bp->organs[o];
+        size_t n = s->n ? s->n : 1;
+        p->distance_cm = malloc(n * sizeof *p->distance_cm);
+        p->app_distance_cm = malloc(n * sizeof *p->app_distance_cm);
+        p->depth_cm = malloc(n * sizeof *p->depth_cm);
+        p->flags = calloc(n, 1);
+        if (!p->distance_cm || !p->app_distance_cm || !p->depth_cm || !p->flags)
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+        for (size_t i = 0; i < s->n; i++) {
+            sl_vec2 uv;
+            double scale;
+            if (sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, s->points[i]), &uv,
+                                 &scale)) {
+                lo.x = fmin(lo.x, uv.x);
+                lo.y = fmin(lo.y, uv.y);
+                hi.x = fmax(hi.x, uv.x);
+                hi.y = fmax(hi.y, uv.y);
+            }
+        }
+        ntasks += (s->n + CHUNK - 1) / CHUNK;
+    }
+    if (lo.x > hi.x)
+        lo = hi = (sl_vec2){0, 0};
+    /* far-off samples (tens of cm) need no fine index: clamp the indexed
+     * region to 60 cm around the field; beyond it every edge is scanned */
+    const double reach = 60.0;
+    lo.x = fmax(lo.x, -reach);
+    lo.y = fmax(lo.y, -reach);
+    hi.x = fmin(hi.x, reach);
+    hi.y = fmin(hi.y, reach);
+    st = sl_outline_index(bp->field.edge, lo, hi, err);
+    if (st == SL_OK && bp->field.applicator)
+        st = sl_outline_index(bp->field.applicator, lo, hi, err);
+    if (st != SL_OK)
+        return st;
+
+    place_job job = {loc, bp, body, ntasks, malloc((ntasks ? ntasks : 1) * sizeof(size_t)),
+                     malloc((ntasks ? ntasks : 1) * sizeof(size_t))};
+    if (!job.task_organ || !job.task_first) {
+        free(job.task_organ);
+        free(job.task_first);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    size_t t = 0;
+    for (size_t o = 0; o < loc->norgans; o++) {
+        for (size_t first = 0; first < loc->samples[o].n; first += CHUNK) {
+            job.task_organ[t] = o;
+            job.task_first[t] = first;
+            t++;
+        }
+    }
+    sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
+    free(job.task_organ);
+    free(job.task_first);
+    for (size_t o = 0; o < loc->norgans; o++) {
+        summarise(&loc->samples[o], &bp->organs[o]);
+        if (bp->organs[o].behind_source)
+            sl_notes_add(&bp->notes,
+                         "%s: beam %d: ROI '%s': %zu samples lie at or behind the source plane "
+                         "and are not placed",
+                         plan->source, beam->number, loc->rois[o]->name,
+                         bp->organs[o].behind_source);
+        if (bp->organs[o].outside_body_fraction >= SL_OUTSIDE_BODY_NOTE)
+            sl_notes_add(&bp->notes,
+                         "ROI '%s': %.1f %% of its volume lies outside the body contour",
+                         loc->rois[o]->name, 100 * bp->organs[o].outside_body_fraction);
+    }
+    if (body)
+        central_axis(bp, body, plan->source);
+    return SL_OK;
+}
+
+sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
+                    const sl_locate_options *opt, sl_location **out, sl_error *err)
+{
+    *out = NULL;
+    sl_location *loc = calloc(1, sizeof *loc);
+    if (!loc)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    sl_status st = sl_structures_external(ss, &loc->external, err);
+    if (st != SL_OK) {
+        sl_location_free(loc);
+        return st;
+    }
+    loc->depth_cm = opt->depth_cm;
+    if (!isnan(opt->depth_cm)) {
+        if (!(opt->depth_cm >= 0 && opt->depth_cm < 50)) {
+            sl_location_free(loc);
+            return sl_error_set(err, SL_EUSAGE, "depth %g cm is not a plausible depth",
+                                opt->depth_cm);
+        }
+        loc->depth_from_body = false;
+        sl_notes_add(&loc->notes,
+                     "every depth is set by option to %.2f cm%s", opt->depth_cm,
+                     loc->external ? " (the body contour is not used)"
+                                   : " (the structure set has no EXTERNAL ROI)");
+    } else if (!loc->external) {
+        sl_location_free(loc);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: no ROI is typed EXTERNAL (the body): depths are unknown; give a "
+                            "depth for every organ with --depth CM",
+                            ss->source);
+    } else {
+        loc->depth_from_body = true;
+    }
+    loc->slice_spacing_cm = sl_slices_typical_spacing(ss, 0.3);
+    sl_sampling_options sopt = opt->sampling;
+    sopt.default_thickness_cm = loc->slice_spacing_cm;
+
+    /* organs: every ROI but the body */
+    loc->rois = calloc(ss->nrois ? ss->nrois : 1, sizeof *loc->rois);
+    loc->samples = calloc(ss->nrois ? ss->nrois : 1, sizeof *loc->samples);
+    if (!loc->rois || !loc->samples) {
+        sl_location_free(loc);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t i = 0; i < ss->nrois; i++) {
+        if (&ss->rois[i] == loc->external && !opt->include_external)
+            continue;
+        loc->rois[loc->norgans++] = &ss->rois[i];
+    }
+    int threads = sl_parallel_threads(opt->threads);
+    sl_status *sst = calloc(loc->norgans ? loc->norgans : 1, sizeof *sst);
+    sl_error *serr = calloc(loc->norgans ? loc->norgans : 1, sizeof *serr);
+    if (!sst || !serr) {
+        free(sst);
+        free(serr);
+        sl_location_free(loc);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    sample_job sj = {loc, ss->source, &sopt, sst, serr};
+    sl_parallel_for(loc->norgans, threads, sample_task, &sj);
+    for (size_t i = 0; i < loc->norgans && st == SL_OK; i++) {
+        if (sst[i] != SL_OK) {
+            st = sst[i];
+            if (err)
+                *err = serr[i];
+        } else {
+            sl_notes_extend(&loc->notes, &loc->samples[i].notes);
+        }
+    }
+    free(sst);
+    free(serr);
+    if (st != SL_OK) {
+        sl_location_free(loc);
+        return st;
+    }
+
+    sl_body *body = NULL;
+    if (loc->depth_from_body) {
+        sl_slice_stack stack;
+        st = sl_slices_build(loc->external, ss->source, loc->slice_spacing_cm, &stack, err);
+        if (st == SL_OK) {
+            char what[256];
+            snprintf(what, sizeof what, "%s: EXTERNAL ROI '%s'", ss->source,
+                     loc->external->name);
+            st = sl_body_create(&stack, what, &body, err);
+            sl_slices_free(&stack);
+        }
+        if (st != SL_OK) {
+            sl_location_free(loc);
+            return st;
+        }
+    }
+
+    loc->beams = calloc(plan->nbeams ? plan->nbeams : 1, sizeof *loc->beams);
+    loc->skipped = calloc(plan->nbeams ? plan->nbeams : 1, sizeof *loc->skipped);
+    if (!loc->beams || !loc->skipped) {
+        sl_body_free(body);
+        sl_location_free(loc);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t b = 0; b < plan->nbeams && st == SL_OK; b++) {
+        const sl_beam *beam = &plan->beams[b];
+        const char *why = sl_beam_skip_reason(beam);
+        if (why) {
+            loc->skipped[loc->nskipped++] = (sl_skipped_beam){beam->number, beam->name, why};
+            continue;
+        }
+        st = place_beam(loc, plan, beam, body, opt, &loc->beams[loc->nbeams++], err);
+    }
+    sl_body_free(body);
+    if (st == SL_OK && loc->nbeams == 0)
+        st = sl_error_set(err, SL_EINPUT, "%s: no TREATMENT electron beam to place",
+                          plan->source);
+    if (st != SL_OK) {
+        sl_location_free(loc);
+        return st;
+    }
+    *out = loc;
+    return SL_OK;
+}
