@@ -14,6 +14,8 @@
 #include "strayline/dicom.h"
 #include "strayline/error.h"
 #include "strayline/locate.h"
+#include "strayline/measure.h"
+#include "strayline/model.h"
 
 #ifdef __cplusplus
 extern "C" {
@@ -31,6 +33,19 @@ sl_status sl_report_inspect(FILE *fp, sl_format fmt, const sl_dicom_object *objs
 /* `strayline locate`: per beam, each organ's distances and depths. */
 sl_status sl_report_locate(FILE *fp, sl_format fmt, const sl_plan *plan,
                            const sl_structure_set *ss, const sl_location *loc, sl_error *err);
+
+/* `strayline fit --report`: the commissioning report (HTML with SVG). The
+ * measurement set (may be NULL) gives each point's uncertainty. */
+sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_model *m,
+                             sl_error *err);
+
+/* `strayline model show`: what a model file commissions. */
+sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *err);
+
+/* `strayline model eval`: one evaluation. */
+sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
+                                const char *applicator, const char *insert, double depth_cm,
+                                double distance_cm, const sl_model_value *v, sl_error *err);
 
 #ifdef __cplusplus
 }

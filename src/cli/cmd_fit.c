@@ -1,15 +1,148 @@
 /*
- * `strayline fit`: placeholder until its stage exists; it says so and fails
- * with an internal error rather than pretending to work.
+ * `strayline fit MEASUREMENTS.yaml -o MODEL.yaml`: commission a machine's
+ * peripheral-dose models from its measured profiles, write the model file
+ * and, if asked, an HTML fit report. Poor fits are listed at the end.
  */
+#include <getopt.h>
 #include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
 
 #include "cli.h"
+#include "strayline/commission.h"
+#include "strayline/measure.h"
+#include "strayline/model.h"
+#include "strayline/util.h"
+
+static const char help[] =
+    "usage: strayline fit MEASUREMENTS.yaml -o MODEL.yaml [OPTIONS]\n\n"
+    "Fit every out-of-field profile of a measurement set (dose in percent of\n"
+    "the central-axis maximum against distance from the field edge, cm) with\n"
+    "the smooth or the peaked form, chosen by AICc, and write the model file.\n\n"
+    "  -o, --output FILE          the model file to write (required)\n"
+    "  -r, --report FILE          also write an HTML fit report with a figure a profile\n"
+    "      --model-version TEXT   version label of the model (default: the date)\n"
+    "      --created TEXT         creation time to record (default: now, UTC)\n"
+    "  -j, --threads N            threads to use (default: every core)\n"
+    "  -q, --quiet                no progress on the terminal\n"
+    "  -h, --help                 this help\n";
+
+static void progress(size_t done, size_t total, const char *what, void *ctx)
+{
+    (void)ctx;
+    fprintf(stderr, "\rstrayline fit: %zu/%zu %-48.48s", done, total, what);
+    if (done == total)
+        fputc('\n', stderr);
+    fflush(stderr);
+}
 
 int sl_cmd_fit(int argc, char **argv)
 {
-    (void)argc;
-    (void)argv;
-    fprintf(stderr, "strayline fit: not implemented yet\n");
-    return SL_EXIT_INTERNAL;
+    enum { OPT_VERSION = 256, OPT_CREATED };
+    static const struct option opts[] = {
+        {"output", required_argument, NULL, 'o'},
+        {"report", required_argument, NULL, 'r'},
+        {"model-version", required_argument, NULL, OPT_VERSION},
+        {"created", required_argument, NULL, OPT_CREATED},
+        {"threads", required_argument, NULL, 'j'},
+        {"quiet", no_argument, NULL, 'q'},
+        {"help", no_argument, NULL, 'h'},
+        {NULL, 0, NULL, 0},
+    };
+    const char *output = NULL, *report = NULL, *version = NULL, *created = NULL;
+    int threads = 0;
+    bool quiet = false;
+    int c;
+    optind = 1;
+    while ((c = getopt_long(argc, argv, "o:r:j:qh", opts, NULL)) != -1) {
+        switch (c) {
+        case 'o': output = optarg; break;
+        case 'r': report = optarg; break;
+        case OPT_VERSION: version = optarg; break;
+        case OPT_CREATED: created = optarg; break;
+        case 'j':
+            if (!sl_parse_int(optarg, &threads) || threads < 1 || threads > 64)
+                return sl_cli_usage("fit", "--threads needs a number from 1 to 64");
+            break;
+        case 'q': quiet = true; break;
+        case 'h': fputs(help, stdout); return SL_EXIT_OK;
+        default: return sl_cli_usage("fit", "bad option");
+        }
+    }
+    if (argc - optind != 1)
+        return sl_cli_usage("fit", "needs one measurement set");
+    if (!output)
+        return sl_cli_usage("fit", "--output MODEL.yaml is required");
+    const char *input = argv[optind];
+    char now[32], today[16];
+    time_t t = time(NULL);
+    struct tm tm;
+    gmtime_r(&t, &tm);
+    strftime(now, sizeof now, "%Y-%m-%dT%H:%M:%SZ", &tm);
+    strftime(today, sizeof today, "%Y-%m-%d", &tm);
+
+    sl_error err = {0};
+    sl_measurement_set *ms = NULL;
+    sl_model *model = NULL;
+    sl_outfile out = {0}, rep = {0};
+    int rc = SL_EXIT_OK;
+    if (sl_measurements_load(input, &ms, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    sl_commission_options copt = {version ? version : today, created ? created : now,
+                                  ms->machine.invented
+                                      ? "INVENTED DEMO DATA - NOT A REAL MACHINE - NOT FOR "
+                                        "CLINICAL USE"
+                                      : NULL,
+                                  threads, quiet || !isatty(STDERR_FILENO) ? NULL : progress,
+                                  NULL};
+    const char *inputs[] = {input};
+    if (sl_commission(ms, &copt, &model, &err) != SL_OK ||
+        sl_outfile_open(&out, output, inputs, 1, &err) != SL_OK ||
+        sl_model_write(model, out.fp, &err) != SL_OK || sl_outfile_commit(&out, &err) != SL_OK) {
+        sl_outfile_abort(&out);
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    if (report) {
+        const char *ins[] = {input, output};
+        if (sl_outfile_open(&rep, report, ins, 2, &err) != SL_OK ||
+            sl_report_fit_html(rep.fp, ms, model, &err) != SL_OK ||
+            sl_outfile_commit(&rep, &err) != SL_OK) {
+            sl_outfile_abort(&rep);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+    }
+    size_t poor = 0, peaked = 0;
+    for (size_t i = 0; i < model->nprofiles; i++) {
+        poor += model->profiles[i].fit.poor;
+        peaked += model->profiles[i].fit.form == SL_FORM_PEAKED;
+    }
+    printf("%s: %zu profiles fitted (%zu with the peaked form, %zu smooth); model written to "
+           "%s%s%s\n",
+           input, model->nprofiles, peaked, model->nprofiles - peaked, output,
+           report ? ", report to " : "", report ? report : "");
+    sl_cli_warnings(&ms->notes);
+    if (poor) {
+        printf("poor fits (reduced chi-square above %.0f or a residual beyond %.0f sigma):\n",
+               SL_POOR_CHI2_RED, SL_POOR_RESIDUAL_SIGMA);
+        for (size_t i = 0; i < model->nprofiles; i++) {
+            const sl_model_profile *p = &model->profiles[i];
+            if (!p->fit.poor)
+                continue;
+            char label[160];
+            sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction,
+                             label, sizeof label);
+            printf("  %-40s reduced chi-square %.2f, largest residual %.1f sigma (%s)\n", label,
+                   p->fit.chi2_red, p->fit.max_residual_sigma, p->data_file);
+        }
+    }
+done:
+    sl_model_free(model);
+    sl_measurements_free(ms);
+    return rc;
 }

@@ -1,15 +1,112 @@
 /*
- * `strayline model`: placeholder until its stage exists; it says so and fails
- * with an internal error rather than pretending to work.
+ * `strayline model show MODEL.yaml` and `strayline model eval MODEL.yaml
+ * --energy E --applicator ID --depth CM --distance CM [--insert ID]`: what a
+ * model file commissions, and the model's value at one point.
  */
+#include <getopt.h>
+#include <math.h>
 #include <stdio.h>
+#include <string.h>
 
 #include "cli.h"
+#include "strayline/model.h"
+#include "strayline/util.h"
+
+static const char help[] =
+    "usage: strayline model show MODEL.yaml [--format text|json]\n"
+    "       strayline model eval MODEL.yaml --energy MEV --applicator ID --depth CM\n"
+    "                            --distance CM [--insert ID] [--points] [--format text|json]\n\n"
+    "show: the machine, its applicators and inserts, and for every energy x\n"
+    "applicator x insert the commissioned depths (cm), distance range (cm), output\n"
+    "(cGy/MU at the central-axis maximum), fit forms and quality.\n"
+    "eval: the dose in percent of the central-axis maximum at a depth below the\n"
+    "surface and a distance outward from the field edge, with its standard\n"
+    "uncertainty and flags.\n\n"
+    "  -e, --energy MEV        nominal energy (must be commissioned)\n"
+    "  -a, --applicator ID     applicator (must be commissioned)\n"
+    "  -i, --insert ID         insert (default: open)\n"
+    "  -d, --depth CM          depth below the surface\n"
+    "  -x, --distance CM       distance from the field edge, positive outside\n"
+    "  -p, --points            interpolate the measured points instead of the fitted form\n"
+    "  -f, --format FMT        text (default) or json\n"
+    "  -h, --help              this help\n";
 
 int sl_cmd_model(int argc, char **argv)
 {
-    (void)argc;
-    (void)argv;
-    fprintf(stderr, "strayline model: not implemented yet\n");
-    return SL_EXIT_INTERNAL;
+    if (argc >= 2 && (strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0)) {
+        fputs(help, stdout);
+        return SL_EXIT_OK;
+    }
+    if (argc < 2 || (strcmp(argv[1], "show") != 0 && strcmp(argv[1], "eval") != 0))
+        return sl_cli_usage("model", "needs 'show' or 'eval'");
+    bool eval = strcmp(argv[1], "eval") == 0;
+    static const struct option opts[] = {
+        {"energy", required_argument, NULL, 'e'},  {"applicator", required_argument, NULL, 'a'},
+        {"insert", required_argument, NULL, 'i'},  {"depth", required_argument, NULL, 'd'},
+        {"distance", required_argument, NULL, 'x'}, {"points", no_argument, NULL, 'p'},
+        {"format", required_argument, NULL, 'f'},  {"help", no_argument, NULL, 'h'},
+        {NULL, 0, NULL, 0},
+    };
+    double energy = NAN, depth = NAN, distance = NAN;
+    const char *applicator = NULL, *insert = NULL;
+    sl_format fmt = SL_FORMAT_TEXT;
+    sl_eval_mode mode = SL_EVAL_FIT;
+    int c;
+    optind = 1;
+    argc--;
+    argv++;
+    while ((c = getopt_long(argc, argv, "e:a:i:d:x:pf:h", opts, NULL)) != -1) {
+        switch (c) {
+        case 'e':
+            if (!sl_parse_double(optarg, &energy) || energy <= 0)
+                return sl_cli_usage("model", "--energy needs an energy in MeV, not '%s'", optarg);
+            break;
+        case 'a': applicator = optarg; break;
+        case 'i': insert = optarg; break;
+        case 'd':
+            if (!sl_parse_double(optarg, &depth) || depth < 0)
+                return sl_cli_usage("model", "--depth needs a depth in cm, not '%s'", optarg);
+            break;
+        case 'x':
+            if (!sl_parse_double(optarg, &distance))
+                return sl_cli_usage("model", "--distance needs a distance in cm, not '%s'",
+                                    optarg);
+            break;
+        case 'p': mode = SL_EVAL_POINTS; break;
+        case 'f':
+            if (!sl_cli_format("model", optarg, &fmt))
+                return SL_EXIT_USAGE;
+            break;
+        case 'h': fputs(help, stdout); return SL_EXIT_OK;
+        default: return sl_cli_usage("model", "bad option");
+        }
+    }
+    if (argc - optind != 1)
+        return sl_cli_usage("model", "needs one model file");
+    if (eval && (isnan(energy) || !applicator || isnan(depth) || isnan(distance)))
+        return sl_cli_usage("model", "eval needs --energy, --applicator, --depth and --distance");
+    if (!eval && (!isnan(energy) || applicator || insert || !isnan(depth) || !isnan(distance)))
+        return sl_cli_usage("model", "show takes no point options (did you mean eval?)");
+    sl_error err = {0};
+    sl_model *m = NULL;
+    int rc = SL_EXIT_OK;
+    if (sl_model_load(argv[optind], &m, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+    } else if (!eval) {
+        if (sl_report_model(stdout, fmt, m, &err) != SL_OK)
+            rc = sl_cli_fail(&err);
+    } else {
+        sl_model_value v;
+        if (sl_model_eval(m, energy, applicator, insert, depth, distance, mode, &v, &err) !=
+                SL_OK ||
+            sl_report_model_value(stdout, fmt, m, energy, applicator, insert, depth, distance, &v,
+                                  &err) != SL_OK)
+            rc = sl_cli_fail(&err);
+    }
+    if (rc == SL_EXIT_OK && fflush(stdout) != 0) {
+        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        rc = SL_EXIT_INTERNAL;
+    }
+    sl_model_free(m);
+    return rc;
 }

@@ -1,0 +1,94 @@
+/*
+ * strayline: the commissioning input, a measurement set.
+ *
+ * A measurement set (YAML, documented in models/README.md) names the machine,
+ * the nominal SSD, the detector, the date and who measured, what the doses
+ * are relative to, the applicator catalogue, the outputs, and for each
+ * out-of-field profile its energy (MeV), applicator, insert, depth (cm),
+ * direction, data file and uncertainty. Profile data are CSV files (libcsv)
+ * with a header naming the columns and their units: distance from the field
+ * edge (edge_distance_cm) or off-axis position through the field
+ * (off_axis_cm), and dose in percent of the central-axis maximum
+ * (dose_percent) or a raw reading (reading) with the central-axis reading
+ * stated in the measurement set.
+ *
+ * Through-field profiles are turned into distances from the edge: the 50 %
+ * point of each side (half the dose on the axis) is found by linear interpolation, the field width found
+ * is compared with the nominal size projected to the measurement depth (a
+ * note beyond 0.3 cm), and the points outside the field on both sides are
+ * merged by their distance from their own edge.
+ */
+#ifndef STRAYLINE_MEASURE_H
+#define STRAYLINE_MEASURE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "strayline/error.h"
+#include "strayline/machine.h"
+#include "strayline/util.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+#define SL_EDGE_WIDTH_WARN_CM 0.3
+#define SL_PROFILE_MIN_POINTS 6
+
+typedef struct sl_profile_data {
+    double energy_mev;
+    char *applicator;
+    char *insert;          /* SL_INSERT_OPEN or an insert id */
+    double depth_cm;
+    char *direction;       /* "crossplane", "inplane" or "diagonal" */
+    char *file;            /* as the measurement set names it */
+    char sha256[SL_SHA256_HEX_LEN];
+    double rel_uncertainty;      /* standard uncertainty, fraction of the dose */
+    double floor_percent;        /* absolute floor, percent of the central-axis maximum */
+    size_t n;
+    double *distance_cm;   /* from the field edge, increasing */
+    double *dose_percent;  /* of the central-axis maximum */
+    double *sigma_percent; /* standard uncertainty of each point */
+    bool from_positions;   /* the CSV gave off-axis positions */
+    double width_found_cm; /* 50 % width found (NAN unless from_positions) */
+    double width_nominal_cm;
+    size_t line;           /* of the profile's entry in the measurement set */
+} sl_profile_data;
+
+typedef struct sl_measurement_set {
+    char *source;
+    char sha256[SL_SHA256_HEX_LEN];
+    sl_machine machine;
+    char *date, *measured_by, *detector, *reference;
+    size_t nprofiles;
+    sl_profile_data *profiles;
+    sl_notes notes;
+} sl_measurement_set;
+
+/* Read a measurement set and every profile it names (paths relative to the
+ * measurement set's folder). */
+sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_error *err);
+void sl_measurements_free(sl_measurement_set *m);
+
+/* Read one profile CSV into a profile (its energy, applicator, insert,
+ * depth and uncertainty already set): exposed for the tests and fuzzers.
+ * `cax_reading` is NAN when the CSV gives dose_percent. */
+sl_status sl_profile_read_csv(const char *path, double cax_reading, double nominal_width_cm,
+                              sl_profile_data *p, sl_notes *notes, sl_error *err);
+sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
+                               double cax_reading, double nominal_width_cm, sl_profile_data *p,
+                               sl_notes *notes, sl_error *err);
+
+/* The 50 % points of a through-field profile (positions increasing): where
+ * the dose falls to half its value on the axis at that depth, by linear
+ * interpolation on each side. Input error when a side has no crossing. */
+sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *what,
+                        double *left, double *right, sl_error *err);
+
+void sl_profile_data_free(sl_profile_data *p);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif

@@ -1,0 +1,145 @@
+/*
+ * strayline: the model file of one treatment machine, and its evaluation.
+ *
+ * A model file (YAML, one per machine, under models/; its format is in
+ * models/README.md) holds the machine, its applicator catalogue and inserts,
+ * the outputs (dose per MU at the central-axis maximum, depth of that
+ * maximum, effective SSD) of each energy and applicator, provenance, and for
+ * each energy x applicator x insert x depth x direction the fitted profile
+ * (profile.h) with its covariance and statistics and the measured points.
+ *
+ * Evaluation (sl_model_select, then sl_curves_eval) gives the dose in percent
+ * of the central-axis maximum at a depth (cm) and a distance from the field
+ * edge (cm), with its standard uncertainty and flags:
+ *  - energy and applicator must be commissioned: no interpolation across
+ *    energies or applicators (an input error that lists what is);
+ *  - between measured depths, log dose is interpolated linearly in depth;
+ *    outside them the nearest depth is used and flagged;
+ *  - beyond the measured distances the fitted tail is extrapolated and
+ *    flagged; inside the field (distance < 0) nothing is given, only a flag;
+ *  - a cutout with no profiles of its own takes the open applicator's
+ *    profiles from the cutout edge, flagged as the conservative default;
+ *  - the uncertainty combines the fit's standard error (covariance), the
+ *    stated measurement uncertainty, the interpolation spread (between
+ *    depths, and between directions measured at one depth) and, beyond the
+ *    measured range, an extrapolation term of 10 % per 5 cm.
+ */
+#ifndef STRAYLINE_MODEL_H
+#define STRAYLINE_MODEL_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdio.h>
+
+#include "strayline/error.h"
+#include "strayline/machine.h"
+#include "strayline/profile.h"
+#include "strayline/util.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+#define SL_MODEL_FORMAT "strayline-model"
+#define SL_MODEL_FORMAT_VERSION 1
+/* Relative extrapolation uncertainty per cm beyond the measured range. */
+#define SL_EXTRAPOLATION_PER_CM 0.02
+
+typedef struct sl_model_profile {
+    double energy_mev;
+    char *applicator;
+    char *insert;
+    double depth_cm;
+    char *direction;
+    char *data_file;
+    char sha256[SL_SHA256_HEX_LEN];
+    double rel_uncertainty, floor_percent;
+    bool from_positions;
+    double width_found_cm, width_nominal_cm; /* NAN unless from positions */
+    sl_profile_fit fit;
+    size_t n;
+    double *distance_cm;
+    double *dose_percent;
+} sl_model_profile;
+
+typedef struct sl_provenance {
+    char *measurement_set;
+    char *measurement_set_sha256;
+    char *tool;
+    char *created;
+    char *measured_date, *measured_by, *detector, *reference;
+} sl_provenance;
+
+typedef struct sl_model {
+    char *source;            /* file it was read from (NULL when built in memory) */
+    char sha256[SL_SHA256_HEX_LEN];
+    char *model_version;
+    char *notice;            /* e.g. the invented-data notice */
+    sl_machine machine;
+    sl_provenance provenance;
+    size_t nprofiles;
+    sl_model_profile *profiles;
+} sl_model;
+
+sl_status sl_model_load(const char *path, sl_model **out, sl_error *err);
+sl_status sl_model_load_buffer(const char *data, size_t size, const char *name, sl_model **out,
+                               sl_error *err);
+/* Write a model file (the caller opens and commits the file). */
+sl_status sl_model_write(const sl_model *m, FILE *fp, sl_error *err);
+void sl_model_free(sl_model *m);
+
+/* ------------------------------------------------------ evaluation -- */
+
+enum {
+    SL_MF_IN_FIELD = 1,         /* in field: the model does not apply */
+    SL_MF_DEPTH_OUTSIDE = 2,    /* depth outside the commissioned depths: nearest used */
+    SL_MF_EXTRAPOLATED = 4,     /* distance beyond the measured range */
+    SL_MF_OPEN_FOR_CUTOUT = 8,  /* open-applicator profiles used for an uncommissioned cutout */
+    SL_MF_POINTS_MODE = 16      /* interpolated measured points rather than the fit */
+};
+
+/* A short text for each flag set, for reports. */
+const char *sl_model_flag_text(unsigned flag);
+
+typedef enum sl_eval_mode { SL_EVAL_FIT, SL_EVAL_POINTS } sl_eval_mode;
+
+typedef struct sl_curve_set sl_curve_set;
+
+/* The profiles of one energy (MeV), applicator and insert (NULL or
+ * SL_INSERT_OPEN for none). *flags receives SL_MF_OPEN_FOR_CUTOUT when the
+ * open profiles stand in for the insert. */
+sl_status sl_model_select(const sl_model *m, double energy_mev, const char *applicator,
+                          const char *insert, sl_curve_set **out, unsigned *flags,
+                          sl_error *err);
+void sl_curve_set_free(sl_curve_set *c);
+
+/* Commissioned depths (cm) and distance range of a curve set. */
+size_t sl_curves_depths(const sl_curve_set *c, const double **depths);
+void sl_curves_range(const sl_curve_set *c, double *lo_cm, double *hi_cm);
+
+typedef struct sl_model_value {
+    double percent;          /* of the central-axis maximum; NAN in field */
+    double u_percent;        /* combined standard uncertainty */
+    double u_fit, u_meas, u_interp, u_extrap;
+    double electron_percent; /* A and B terms (after any transmission) */
+    double photon_percent;   /* C term */
+    double depth_used_cm;
+    unsigned flags;
+} sl_model_value;
+
+/* Value at depth (cm) and distance from the field edge (cm). `electron_t`
+ * is a transmission (0..1) applied to the electron part only, for a what-if
+ * shield; 1 for none. Thread-safe. */
+void sl_curves_eval(const sl_curve_set *c, double depth_cm, double distance_cm,
+                    sl_eval_mode mode, double electron_t, sl_model_value *out);
+
+/* Convenience for one query (select, evaluate, free). */
+sl_status sl_model_eval(const sl_model *m, double energy_mev, const char *applicator,
+                        const char *insert, double depth_cm, double distance_cm,
+                        sl_eval_mode mode, sl_model_value *out, sl_error *err);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif

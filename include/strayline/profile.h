@@ -1,0 +1,104 @@
+/*
+ * strayline: the peripheral-dose profile model and its commissioning fit.
+ *
+ * Outside an electron field, the dose D (percent of the central-axis maximum)
+ * at a distance d (cm) outward from the field edge is modelled as
+ *
+ *   smooth:  D(d) = A exp(-d / l1) + C exp(-d / l2)
+ *   peaked:  D(d) = A exp(-d / l1) + C exp(-d / l2) + B exp(-(d - mu)^2 / (2 s^2))
+ *
+ * with l1 < l2: A, l1 the steep fall of electrons scattered in the patient
+ * near the edge; B, mu, s a local maximum a few cm out from electrons
+ * scattered by the applicator; C, l2 the slow tail of bremsstrahlung and
+ * leakage. All seven are kept positive by fitting their logarithms. The A
+ * and B terms are the "electron" part of the model (what a lead shield on
+ * the skin stops), the C term the "photon" part.
+ *
+ * The fit is a weighted least-squares fit (weights 1/sigma^2 from the
+ * stated measurement uncertainty) through the GSL engine of fit.h, with
+ * Levenberg-Marquardt and geodesic acceleration, the analytic Jacobian,
+ * several starting points derived from the data, and a choice between the
+ * two forms by the corrected Akaike information criterion,
+ *   AICc = chi^2 + 2k + 2k(k+1)/(n-k-1),
+ * the form with the lower AICc being kept. A peaked fit counts only when its
+ * bump is plausible: mu within the measured range, s below half of it and B
+ * below twice the largest measured dose. Parameters are reported in
+ * natural units with their covariance (propagated from the log-parameters),
+ * scaled by the reduced chi-square when that exceeds 1 (data scattering more
+ * than their stated uncertainty widen the parameter uncertainty; data that
+ * scatter less do not narrow it).
+ */
+#ifndef STRAYLINE_PROFILE_H
+#define STRAYLINE_PROFILE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "strayline/error.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+typedef enum sl_profile_form { SL_FORM_SMOOTH, SL_FORM_PEAKED } sl_profile_form;
+
+#define SL_PROFILE_MAX_PARAMS 7
+
+/* Parameter order: A (percent), l1 (cm), C (percent), l2 (cm), then for the
+ * peaked form B (percent), mu (cm), s (cm). */
+enum { SL_P_A, SL_P_L1, SL_P_C, SL_P_L2, SL_P_B, SL_P_MU, SL_P_S };
+
+/* A fit counts as poor above this reduced chi-square, or with a residual
+ * beyond this many standard uncertainties. */
+#define SL_POOR_CHI2_RED 3.0
+#define SL_POOR_RESIDUAL_SIGMA 3.0
+
+typedef struct sl_profile_fit {
+    sl_profile_form form;
+    size_t p;
+    double theta[SL_PROFILE_MAX_PARAMS];
+    double covar[SL_PROFILE_MAX_PARAMS * SL_PROFILE_MAX_PARAMS]; /* row-major p x p */
+    double cov_scale;        /* max(1, reduced chi-square), already applied to covar */
+    size_t n, dof;
+    double chi2, chi2_red;
+    double aicc;             /* of the form kept */
+    double aicc_other;       /* of the other form (NAN when it could not be fitted) */
+    double rms_residual_percent, max_residual_percent; /* in percent of the CAX maximum */
+    double rms_residual_relative, max_residual_relative; /* fractions of the measured dose */
+    double max_residual_sigma;
+    double range_lo_cm, range_hi_cm; /* distances measured: the range of validity */
+    bool poor;
+} sl_profile_fit;
+
+size_t sl_profile_nparams(sl_profile_form f);
+const char *sl_profile_form_name(sl_profile_form f);
+bool sl_profile_form_parse(const char *name, sl_profile_form *out);
+/* Key of parameter i in the model file ("a_percent", "lambda1_cm", ...). */
+const char *sl_profile_param_key(size_t i);
+
+/* Model value at d (cm) for natural parameters; with grad, the gradient in
+ * natural parameters. *electron and *photon (may be NULL) receive the A + B
+ * and the C parts. */
+double sl_profile_value(sl_profile_form f, const double *theta, double d, double *grad,
+                        double *electron, double *photon);
+
+/* Fit both forms to (d, D, sigma), n points with d increasing, and keep the
+ * better by AICc. `what` names the profile in messages. */
+sl_status sl_profile_fit_data(const double *d, const double *dose, const double *sigma, size_t n,
+                              const char *what, sl_profile_fit *out, sl_error *err);
+
+/* Fit one form only (the commissioning tests compare each form with an
+ * independent fitter). */
+sl_status sl_profile_fit_form(const double *d, const double *dose, const double *sigma, size_t n,
+                              sl_profile_form form, const char *what, sl_profile_fit *out,
+                              sl_error *err);
+
+/* The fitted value at d and its standard uncertainty from the covariance
+ * (delta method). */
+double sl_profile_fit_eval(const sl_profile_fit *f, double d, double *u);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif

@@ -1,0 +1,542 @@
+/*
+ * Measurement sets and profile CSV files (see include/strayline/measure.h).
+ *
+ * The CSV is parsed by libcsv; this file only decides what the fields mean.
+ * Every row must hold exactly the header's two columns, every value must be
+ * a finite number, positions must increase strictly: a profile that breaks
+ * any of these is refused with its file and row, never silently trimmed.
+ */
+#include "strayline/measure.h"
+#include "strayline/yamlio.h"
+
+#include <csv.h>
+#include <libgen.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#define MAX_CSV_BYTES ((size_t)16 << 20)
+#define MAX_ROWS 200000
+
+void sl_profile_data_free(sl_profile_data *p)
+{
+    free(p->applicator);
+    free(p->insert);
+    free(p->direction);
+    free(p->file);
+    free(p->distance_cm);
+    free(p->dose_percent);
+    free(p->sigma_percent);
+    memset(p, 0, sizeof *p);
+}
+
+void sl_measurements_free(sl_measurement_set *m)
+{
+    if (!m)
+        return;
+    free(m->source);
+    sl_machine_free(&m->machine);
+    free(m->date);
+    free(m->measured_by);
+    free(m->detector);
+    free(m->reference);
+    for (size_t i = 0; i < m->nprofiles; i++)
+        sl_profile_data_free(&m->profiles[i]);
+    free(m->profiles);
+    sl_notes_free(&m->notes);
+    free(m);
+}
+
+/* ------------------------------------------------------------ CSV -- */
+
+typedef struct csv_rows {
+    size_t nrows, cap;
+    size_t ncols_row;   /* fields seen in the current row */
+    char *head[2];      /* header names */
+    double *a, *b;      /* the two columns */
+    size_t header_cols;
+    bool failed;
+    sl_status st;
+    char msg[256];
+    size_t row;         /* 1-based row being read (header is row 1) */
+} csv_rows;
+
+static void fail_row(csv_rows *r, sl_status st, const char *fmt, const char *field)
+{
+    if (r->failed)
+        return;
+    r->failed = true;
+    r->st = st;
+    snprintf(r->msg, sizeof r->msg, fmt, r->row, field ? field : "");
+}
+
+static void on_field(void *s, size_t len, void *ctx)
+{
+    csv_rows *r = ctx;
+    if (r->failed)
+        return;
+    char buf[128];
+    if (len >= sizeof buf) {
+        fail_row(r, SL_EINPUT, "row %zu: a field is too long%s", NULL);
+        return;
+    }
+    if (s)
+        memcpy(buf, s, len);
+    buf[s ? len : 0] = '\0';
+    size_t col = r->ncols_row++;
+    if (r->row == 1) {
+        if (col >= 2) {
+            fail_row(r, SL_EINPUT, "row %zu: more than two columns in the header ('%s')", buf);
+            return;
+        }
+        r->head[col] = strdup(buf);
+        if (!r->head[col])
+            fail_row(r, SL_ENOMEM, "row %zu: out of memory%s", NULL);
+        return;
+    }
+    if (col >= 2) {
+        fail_row(r, SL_EINPUT, "row %zu: more than two values ('%s')", buf);
+        return;
+    }
+    double v;
+    if (!sl_parse_double(buf, &v)) {
+        fail_row(r, SL_EINPUT, "row %zu: '%s' is not a finite number", buf);
+        return;
+    }
+    if (col == 0) {
+        if (r->nrows == r->cap) {
+            if (r->cap >= MAX_ROWS) {
+                fail_row(r, SL_EINPUT, "row %zu: more rows than strayline accepts%s", NULL);
+                return;
+            }
+            size_t cap = r->cap ? r->cap * 2 : 64;
+            double *na = realloc(r->a, cap * sizeof *na);
+            if (na)
+                r->a = na;
+            double *nb = realloc(r->b, cap * sizeof *nb);
+            if (nb)
+                r->b = nb;
+            if (!na || !nb) {
+                fail_row(r, SL_ENOMEM, "row %zu: out of memory%s", NULL);
+                return;
+            }
+            r->cap = cap;
+        }
+        r->a[r->nrows] = v;
+    } else {
+        r->b[r->nrows] = v;
+    }
+}
+
+static void on_row(int c, void *ctx)
+{
+    (void)c;
+    csv_rows *r = ctx;
+    if (r->failed)
+        return;
+    if (r->row == 1) {
+        r->header_cols = r->ncols_row;
+        if (r->ncols_row != 2)
+            fail_row(r, SL_EINPUT,
+                     "row %zu: the header must name two columns: a distance and a dose%s", NULL);
+    } else if (r->ncols_row != 2) {
+        fail_row(r, SL_EINPUT, "row %zu: expected two values%s", NULL);
+    } else {
+        r->nrows++;
+    }
+    r->ncols_row = 0;
+    r->row++;
+}
+
+sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *what,
+                        double *left, double *right, sl_error *err)
+{
+    /* start from the point nearest the axis */
+    size_t c = 0;
+    for (size_t i = 1; i < n; i++) {
+        if (fabs(x[i]) < fabs(x[c]))
+            c = i;
+    }
+    if (!(fabs(x[c]) < 1.0))
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: no point within 1 cm of the axis: not a profile through the "
+                            "field",
+                            what);
+    /* the edge is where the dose falls to half its value on the axis at
+     * this depth (the axis value from the points either side of x = 0) */
+    double axis = d[c];
+    if (c + 1 < n && x[c] < 0 && x[c + 1] > 0)
+        axis = d[c] + (0 - x[c]) * (d[c + 1] - d[c]) / (x[c + 1] - x[c]);
+    else if (c > 0 && x[c] > 0 && x[c - 1] < 0)
+        axis = d[c - 1] + (0 - x[c - 1]) * (d[c] - d[c - 1]) / (x[c] - x[c - 1]);
+    double half = 0.5 * axis;
+    if (!(axis > 0))
+        return sl_error_set(err, SL_EINPUT, "%s: no dose on the axis", what);
+    *left = *right = NAN;
+    for (size_t i = c; i > 0; i--) {
+        if (d[i - 1] < half && d[i] >= half) {
+            *left = x[i - 1] + (half - d[i - 1]) * (x[i] - x[i - 1]) / (d[i] - d[i - 1]);
+            break;
+        }
+    }
+    for (size_t i = c; i + 1 < n; i++) {
+        if (d[i + 1] < half && d[i] >= half) {
+            *right = x[i] + (d[i] - half) * (x[i + 1] - x[i]) / (d[i] - d[i + 1]);
+            break;
+        }
+    }
+    if (isnan(*left))
+        return sl_error_set(err, SL_EINPUT, "%s: no 50 %% crossing on the negative side of the "
+                                            "axis",
+                            what);
+    if (isnan(*right))
+        return sl_error_set(err, SL_EINPUT, "%s: no 50 %% crossing on the positive side of the "
+                                            "axis",
+                            what);
+    return SL_OK;
+}
+
+typedef struct dpair {
+    double d, v;
+} dpair;
+
+static int cmp_dpair(const void *a, const void *b)
+{
+    double x = ((const dpair *)a)->d, y = ((const dpair *)b)->d;
+    return x < y ? -1 : x > y;
+}
+
+sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
+                               double cax_reading, double nominal_width_cm, sl_profile_data *p,
+                               sl_notes *notes, sl_error *err)
+{
+    struct csv_parser parser;
+    if (csv_init(&parser, CSV_STRICT | CSV_APPEND_NULL | CSV_EMPTY_IS_NULL) != 0)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    csv_rows r = {0};
+    r.row = 1;
+    size_t done = csv_parse(&parser, data, size, on_field, on_row, &r);
+    if (done != size && !r.failed) {
+        r.failed = true;
+        r.st = SL_EINPUT;
+        snprintf(r.msg, sizeof r.msg, "row %zu: CSV error: %s", r.row,
+                 csv_strerror(csv_error(&parser)));
+    }
+    if (!r.failed && csv_fini(&parser, on_field, on_row, &r) != 0) {
+        r.failed = true;
+        r.st = SL_EINPUT;
+        snprintf(r.msg, sizeof r.msg, "row %zu: CSV error: %s", r.row,
+                 csv_strerror(csv_error(&parser)));
+    }
+    csv_free(&parser);
+    sl_status st = SL_OK;
+    if (r.failed)
+        st = sl_error_set(err, r.st, "%s: %s", name, r.msg);
+    else if (r.row == 1)
+        st = sl_error_set(err, SL_EINPUT, "%s: empty file, no header", name);
+    bool positions = false, readings = false;
+    if (st == SL_OK) {
+        if (strcmp(r.head[0], "off_axis_cm") == 0)
+            positions = true;
+        else if (strcmp(r.head[0], "edge_distance_cm") != 0)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: row 1: first column '%s': expected edge_distance_cm or "
+                              "off_axis_cm",
+                              name, r.head[0]);
+    }
+    if (st == SL_OK) {
+        if (strcmp(r.head[1], "reading") == 0)
+            readings = true;
+        else if (strcmp(r.head[1], "dose_percent") != 0)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: row 1: second column '%s': expected dose_percent or reading",
+                              name, r.head[1]);
+    }
+    if (st == SL_OK && readings && isnan(cax_reading))
+        st = sl_error_set(err, SL_EINPUT,
+                          "%s: the CSV holds raw readings but the measurement set gives no "
+                          "cax_reading for this profile",
+                          name);
+    if (st == SL_OK && !readings && !isnan(cax_reading))
+        st = sl_error_set(err, SL_EINPUT,
+                          "%s: the CSV holds dose_percent, yet the measurement set gives a "
+                          "cax_reading: say which",
+                          name);
+    if (st == SL_OK && r.nrows < SL_PROFILE_MIN_POINTS)
+        st = sl_error_set(err, SL_EINPUT, "%s: %zu data rows; a profile needs at least %d", name,
+                          r.nrows, SL_PROFILE_MIN_POINTS);
+    for (size_t i = 1; st == SL_OK && i < r.nrows; i++) {
+        if (!(r.a[i] > r.a[i - 1]))
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: row %zu: %s %g does not increase on the row before (%g)",
+                              name, i + 2, r.head[0], r.a[i], r.a[i - 1]);
+    }
+    if (st == SL_OK && readings) {
+        for (size_t i = 0; i < r.nrows; i++)
+            r.b[i] *= 100.0 / cax_reading;
+    }
+    for (size_t i = 0; st == SL_OK && i < r.nrows; i++) {
+        if (r.b[i] < 0 || r.b[i] > 150)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: row %zu: dose %g %% of the central-axis maximum is not "
+                              "plausible",
+                              name, i + 2, r.b[i]);
+    }
+    double left = NAN, right = NAN;
+    if (st == SL_OK && positions)
+        st = sl_find_edges(r.a, r.b, r.nrows, name, &left, &right, err);
+    dpair *pts = NULL;
+    size_t np = 0;
+    if (st == SL_OK) {
+        pts = malloc(r.nrows * sizeof *pts);
+        if (!pts)
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    size_t dropped = 0;
+    for (size_t i = 0; st == SL_OK && i < r.nrows; i++) {
+        double d = positions ? (r.a[i] > right ? r.a[i] - right
+                                : r.a[i] < left ? left - r.a[i]
+                                                : -1)
+                             : r.a[i];
+        if (d < 0) {
+            dropped++;
+            continue;
+        }
+        if (!(r.b[i] > 0)) {
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: row %zu: a dose of 0 outside the field cannot be fitted; give "
+                              "the reading at the noise floor",
+                              name, i + 2);
+            break;
+        }
+        pts[np++] = (dpair){d, r.b[i]};
+    }
+    if (st == SL_OK && np < SL_PROFILE_MIN_POINTS)
+        st = sl_error_set(err, SL_EINPUT, "%s: %zu points lie outside the field; at least %d are "
+                                          "needed",
+                          name, np, SL_PROFILE_MIN_POINTS);
+    if (st == SL_OK) {
+        if (positions) {
+            /* both sides merged: sort by distance, and average points
+             * closer than 0.5 mm so that the distances increase strictly */
+            qsort(pts, np, sizeof *pts, cmp_dpair);
+            size_t m = 0;
+            for (size_t i = 0; i < np;) {
+                size_t j = i;
+                double sd = 0, sv = 0;
+                while (j < np && pts[j].d - pts[i].d < 0.05) {
+                    sd += pts[j].d;
+                    sv += pts[j].v;
+                    j++;
+                }
+                pts[m++] = (dpair){sd / (double)(j - i), sv / (double)(j - i)};
+                i = j;
+            }
+            np = m;
+            p->width_found_cm = right - left;
+            p->width_nominal_cm = nominal_width_cm;
+            if (isfinite(nominal_width_cm) &&
+                fabs(p->width_found_cm - nominal_width_cm) > SL_EDGE_WIDTH_WARN_CM && notes)
+                sl_notes_add(notes,
+                             "%s: the 50 %% width found is %.2f cm, the nominal field at this "
+                             "depth is %.2f cm (more than %.1f cm apart)",
+                             name, p->width_found_cm, nominal_width_cm, SL_EDGE_WIDTH_WARN_CM);
+        } else {
+            p->width_found_cm = p->width_nominal_cm = NAN;
+            if (dropped && notes)
+                sl_notes_add(notes, "%s: %zu rows inside the field (negative distance) ignored",
+                             name, dropped);
+        }
+        p->from_positions = positions;
+        p->n = np;
+        p->distance_cm = malloc(np * sizeof *p->distance_cm);
+        p->dose_percent = malloc(np * sizeof *p->dose_percent);
+        p->sigma_percent = malloc(np * sizeof *p->sigma_percent);
+        if (!p->distance_cm || !p->dose_percent || !p->sigma_percent)
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        for (size_t i = 0; st == SL_OK && i < np; i++) {
+            p->distance_cm[i] = pts[i].d;
+            p->dose_percent[i] = pts[i].v;
+            double rel = p->rel_uncertainty * pts[i].v;
+            p->sigma_percent[i] = sqrt(rel * rel + p->floor_percent * p->floor_percent);
+        }
+    }
+    free(pts);
+    free(r.a);
+    free(r.b);
+    free(r.head[0]);
+    free(r.head[1]);
+    return st;
+}
+
+sl_status sl_profile_read_csv(const char *path, double cax_reading, double nominal_width_cm,
+                              sl_profile_data *p, sl_notes *notes, sl_error *err)
+{
+    char *data;
+    size_t size;
+    sl_status st = sl_read_file(path, MAX_CSV_BYTES, &data, &size, err);
+    if (st != SL_OK)
+        return st;
+    sl_sha256_buffer(data, size, p->sha256);
+    st = sl_profile_parse_csv(data, size, path, cax_reading, nominal_width_cm, p, notes, err);
+    free(data);
+    return st;
+}
+
+/* ---------------------------------------------------- measurement set -- */
+
+static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, const char *dir,
+                              sl_measurement_set *m, sl_error *err)
+{
+    char what[64];
+    snprintf(what, sizeof what, "profile %zu", k + 1);
+    sl_profile_data *p = &m->profiles[k];
+    p->line = n ? n->start_mark.line + 1 : 0;
+    sl_yaml_field f[] = {{"energy_mev", true, NULL}, {"applicator", true, NULL},
+                         {"insert", true, NULL},     {"depth_cm", true, NULL},
+                         {"direction", true, NULL},  {"file", true, NULL},
+                         {"uncertainty", true, NULL}, {"cax_reading", false, NULL}};
+    sl_status st = sl_yaml_fields(y, n, what, f, 8, err);
+    if (st == SL_OK)
+        st = sl_yaml_number_in(y, f[0].node, "energy_mev", 1, 50, &p->energy_mev, err);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[1].node, what, &p->applicator, err);
+    const sl_applicator_spec *app = NULL;
+    if (st == SL_OK && !(app = sl_machine_applicator(&m->machine, p->applicator)))
+        st = sl_yaml_error(y, f[1].node, err, "%s: applicator '%s' is not in the list", what,
+                           p->applicator);
+    if (st == SL_OK && !sl_machine_output(&m->machine, p->energy_mev, p->applicator))
+        st = sl_yaml_error(y, n, err, "%s: no output is given for %g MeV, applicator '%s'", what,
+                           p->energy_mev, p->applicator);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[2].node, what, &p->insert, err);
+    const sl_insert_spec *ins = NULL;
+    if (st == SL_OK && strcmp(p->insert, SL_INSERT_OPEN) != 0 &&
+        !(ins = sl_machine_insert(&m->machine, p->applicator, p->insert)))
+        st = sl_yaml_error(y, f[2].node, err, "%s: insert '%s' is not listed for applicator '%s'",
+                           what, p->insert, p->applicator);
+    if (st == SL_OK)
+        st = sl_yaml_number_in(y, f[3].node, "depth_cm", 0, 10, &p->depth_cm, err);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[4].node, what, &p->direction, err);
+    if (st == SL_OK && strcmp(p->direction, "crossplane") && strcmp(p->direction, "inplane") &&
+        strcmp(p->direction, "diagonal"))
+        st = sl_yaml_error(y, f[4].node, err,
+                           "%s: direction '%s' (crossplane, inplane or diagonal)", what,
+                           p->direction);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[5].node, what, &p->file, err);
+    if (st == SL_OK) {
+        sl_yaml_field u[] = {{"relative", true, NULL}, {"floor_percent", true, NULL}};
+        st = sl_yaml_fields(y, f[6].node, "uncertainty", u, 2, err);
+        if (st == SL_OK)
+            st = sl_yaml_number_in(y, u[0].node, "uncertainty relative", 0.001, 1,
+                                   &p->rel_uncertainty, err);
+        if (st == SL_OK)
+            st = sl_yaml_number_in(y, u[1].node, "uncertainty floor_percent", 0, 10,
+                                   &p->floor_percent, err);
+    }
+    double cax = NAN;
+    if (st == SL_OK && f[7].node)
+        st = sl_yaml_number_in(y, f[7].node, "cax_reading", 1e-12, 1e12, &cax, err);
+    for (size_t j = 0; st == SL_OK && j < k; j++) {
+        const sl_profile_data *q = &m->profiles[j];
+        if (fabs(q->energy_mev - p->energy_mev) < 0.01 && strcmp(q->applicator, p->applicator) == 0 &&
+            strcmp(q->insert, p->insert) == 0 && fabs(q->depth_cm - p->depth_cm) < 1e-6 &&
+            strcmp(q->direction, p->direction) == 0)
+            st = sl_yaml_error(y, n, err, "%s: duplicate of profile %zu (same energy, "
+                                          "applicator, insert, depth and direction)",
+                               what, j + 1);
+    }
+    if (st != SL_OK)
+        return st;
+    /* the nominal width along the measured axis, at the measurement depth */
+    double w = strcmp(p->direction, "inplane") == 0 ? (ins ? ins->y_cm : app->y_cm)
+                                                    : (ins ? ins->x_cm : app->x_cm);
+    if (strcmp(p->direction, "diagonal") == 0)
+        w = NAN;
+    w *= (m->machine.nominal_ssd_cm + p->depth_cm) / m->machine.nominal_ssd_cm;
+    char path[4096];
+    if (p->file[0] == '/')
+        snprintf(path, sizeof path, "%s", p->file);
+    else
+        snprintf(path, sizeof path, "%s/%s", dir, p->file);
+    return sl_profile_read_csv(path, cax, w, p, &m->notes, err);
+}
+
+sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_error *err)
+{
+    *out = NULL;
+    sl_measurement_set *m = calloc(1, sizeof *m);
+    if (!m)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    bool ok = true;
+    m->source = sl_strdup(path, &ok);
+    sl_yaml y;
+    sl_status st = ok ? sl_sha256_file(path, m->sha256, err) : SL_ENOMEM;
+    if (st == SL_OK)
+        st = sl_yaml_load(&y, path, err);
+    if (st != SL_OK) {
+        sl_measurements_free(m);
+        return st;
+    }
+    sl_yaml_field f[] = {{"format", true, NULL},       {"format_version", true, NULL},
+                         {"notice", false, NULL},      {"machine", true, NULL},
+                         {"measured", true, NULL},     {"reference", true, NULL},
+                         {"applicators", true, NULL},  {"inserts", false, NULL},
+                         {"outputs", true, NULL},      {"profiles", true, NULL}};
+    st = sl_yaml_fields(&y, sl_yaml_root(&y), "measurement set", f, 10, err);
+    char *format = NULL;
+    if (st == SL_OK)
+        st = sl_yaml_string(&y, f[0].node, "format", &format, err);
+    if (st == SL_OK && strcmp(format, "strayline-measurements") != 0)
+        st = sl_yaml_error(&y, f[0].node, err,
+                           "format '%s': this is not a strayline measurement set", format);
+    free(format);
+    int version = 0;
+    if (st == SL_OK)
+        st = sl_yaml_int(&y, f[1].node, "format_version", &version, err);
+    if (st == SL_OK && version != 1)
+        st = sl_yaml_error(&y, f[1].node, err, "format_version %d: only version 1 is known",
+                           version);
+    if (st == SL_OK)
+        st = sl_machine_read(&y, f[3].node, f[6].node, f[7].node, f[8].node, &m->machine, err);
+    if (st == SL_OK) {
+        sl_yaml_field mf[] = {{"date", true, NULL}, {"by", true, NULL}, {"detector", true, NULL}};
+        st = sl_yaml_fields(&y, f[4].node, "measured", mf, 3, err);
+        if (st == SL_OK)
+            st = sl_yaml_string(&y, mf[0].node, "measured date", &m->date, err);
+        if (st == SL_OK)
+            st = sl_yaml_string(&y, mf[1].node, "measured by", &m->measured_by, err);
+        if (st == SL_OK)
+            st = sl_yaml_string(&y, mf[2].node, "detector", &m->detector, err);
+    }
+    if (st == SL_OK)
+        st = sl_yaml_string(&y, f[5].node, "reference", &m->reference, err);
+    yaml_node_item_t *items = NULL;
+    size_t n = 0;
+    if (st == SL_OK)
+        st = sl_yaml_seq(&y, f[9].node, "profiles", &items, &n, err);
+    if (st == SL_OK && n == 0)
+        st = sl_yaml_error(&y, f[9].node, err, "profiles: the list is empty");
+    if (st == SL_OK) {
+        m->profiles = calloc(n, sizeof *m->profiles);
+        if (!m->profiles)
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    char *copy = st == SL_OK ? sl_strdup(path, &ok) : NULL;
+    const char *dir = copy ? dirname(copy) : ".";
+    for (size_t i = 0; st == SL_OK && i < n; i++) {
+        m->nprofiles = i + 1;
+        st = read_profile(&y, sl_yaml_item(&y, items[i]), i, dir, m, err);
+    }
+    free(copy);
+    sl_yaml_free(&y);
+    if (st != SL_OK) {
+        sl_measurements_free(m);
+        return st;
+    }
+    *out = m;
+    return SL_OK;
+}

@@ -1,0 +1,298 @@
+/*
+ * `model show` and `model eval` output: what a model file commissions, and
+ * one evaluation with its uncertainty budget and flags.
+ */
+#include "strayline/commission.h"
+#include "strayline/report.h"
+#include "strayline/version.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "jsonw.h"
+
+/* The distinct (energy, applicator, insert) combinations, in file order. */
+typedef struct combo {
+    double energy;
+    const char *app, *insert;
+} combo;
+
+static size_t combos(const sl_model *m, combo *out)
+{
+    size_t n = 0;
+    for (size_t i = 0; i < m->nprofiles; i++) {
+        const sl_model_profile *p = &m->profiles[i];
+        size_t k = 0;
+        while (k < n && !(fabs(out[k].energy - p->energy_mev) < 0.01 &&
+                          strcmp(out[k].app, p->applicator) == 0 &&
+                          strcmp(out[k].insert, p->insert) == 0))
+            k++;
+        if (k == n)
+            out[n++] = (combo){p->energy_mev, p->applicator, p->insert};
+    }
+    return n;
+}
+
+static bool in_combo(const sl_model_profile *p, const combo *c)
+{
+    return fabs(c->energy - p->energy_mev) < 0.01 && strcmp(c->app, p->applicator) == 0 &&
+           strcmp(c->insert, p->insert) == 0;
+}
+
+static double cutout_factor(const sl_output_spec *o, const char *insert)
+{
+    for (size_t k = 0; o && k < o->nfactors; k++) {
+        if (strcmp(o->factors[k].insert, insert) == 0)
+            return o->factors[k].factor;
+    }
+    return NAN;
+}
+
+static void text_show(FILE *fp, const sl_model *m)
+{
+    const sl_machine *mc = &m->machine;
+    fprintf(fp, "model %s (SHA-256 %s)\n", m->source ? m->source : "-", m->sha256);
+    if (m->notice)
+        fprintf(fp, "  %s\n", m->notice);
+    fprintf(fp, "  machine %s%s%s, nominal SSD %.1f cm, SAD %.1f cm\n", mc->name,
+            mc->description ? ": " : "", mc->description ? mc->description : "",
+            mc->nominal_ssd_cm, mc->sad_cm);
+    fprintf(fp, "  model version %s, created %s by %s\n", m->model_version,
+            m->provenance.created, m->provenance.tool);
+    fprintf(fp, "  from %s (SHA-256 %s), measured %s by %s with %s\n",
+            m->provenance.measurement_set, m->provenance.measurement_set_sha256,
+            m->provenance.measured_date, m->provenance.measured_by, m->provenance.detector);
+    fprintf(fp, "  doses are %s\n", m->provenance.reference);
+    fprintf(fp, "  applicators:");
+    for (size_t i = 0; i < mc->napplicators; i++)
+        fprintf(fp, "%s %s (%s %g x %g cm)", i ? "," : "", mc->applicators[i].id,
+                mc->applicators[i].shape, mc->applicators[i].x_cm, mc->applicators[i].y_cm);
+    fputc('\n', fp);
+    if (mc->ninserts) {
+        fprintf(fp, "  inserts:");
+        for (size_t i = 0; i < mc->ninserts; i++)
+            fprintf(fp, "%s %s in %s (%s %g x %g cm)", i ? "," : "", mc->inserts[i].id,
+                    mc->inserts[i].applicator, mc->inserts[i].shape, mc->inserts[i].x_cm,
+                    mc->inserts[i].y_cm);
+        fputc('\n', fp);
+    }
+    combo *cs = malloc((m->nprofiles ? m->nprofiles : 1) * sizeof *cs);
+    if (!cs)
+        return;
+    size_t n = combos(m, cs);
+    fprintf(fp, "\n  %6s %-6s %-6s %-30s %-10s %8s %7s %8s %7s %-16s %s\n", "energy", "applic.",
+            "insert", "depths", "range", "dose/MU", "dmax", "SSD eff", "factor", "forms",
+            "worst reduced chi2");
+    fprintf(fp, "  %6s %-6s %-6s %-30s %-10s %8s %7s %8s %7s\n", "MeV", "", "", "cm", "cm", "cGy",
+            "cm", "cm", "");
+    for (size_t k = 0; k < n; k++) {
+        char depths[64] = "", range[32];
+        double lo = INFINITY, hi = -INFINITY, worst = 0;
+        size_t peaked = 0, count = 0, poor = 0;
+        for (size_t i = 0; i < m->nprofiles; i++) {
+            const sl_model_profile *p = &m->profiles[i];
+            if (!in_combo(p, &cs[k]))
+                continue;
+            count++;
+            peaked += p->fit.form == SL_FORM_PEAKED;
+            poor += p->fit.poor;
+            worst = fmax(worst, p->fit.chi2_red);
+            lo = fmin(lo, p->fit.range_lo_cm);
+            hi = fmax(hi, p->fit.range_hi_cm);
+        }
+        /* the depths, once each, in order (the evaluation's own grouping) */
+        sl_curve_set *cv = NULL;
+        unsigned fl;
+        if (sl_model_select(m, cs[k].energy, cs[k].app, cs[k].insert, &cv, &fl, NULL) == SL_OK) {
+            const double *dv;
+            size_t nd = sl_curves_depths(cv, &dv);
+            for (size_t i = 0; i < nd; i++) {
+                char d[16];
+                snprintf(d, sizeof d, "%s%g", i ? ", " : "", dv[i]);
+                strncat(depths, d, sizeof depths - strlen(depths) - 1);
+            }
+            sl_curve_set_free(cv);
+        }
+        snprintf(range, sizeof range, "%g-%g", lo, hi);
+        const sl_output_spec *o = sl_machine_output(&m->machine, cs[k].energy, cs[k].app);
+        double cf = strcmp(cs[k].insert, SL_INSERT_OPEN) == 0 ? 1.0 : cutout_factor(o, cs[k].insert);
+        char forms[32], factor[16];
+        snprintf(forms, sizeof forms, "%zu peaked/%zu", peaked, count);
+        if (isfinite(cf))
+            snprintf(factor, sizeof factor, "%.3f", cf);
+        else
+            snprintf(factor, sizeof factor, "-");
+        fprintf(fp, "  %6g %-7s %-6s %-30s %-10s %8.3f %7.2f %8.1f %7s %-16s %.2f%s\n",
+                cs[k].energy, cs[k].app, cs[k].insert, depths, range, o ? o->dose_per_mu_cgy : NAN,
+                o ? o->dmax_cm : NAN, o ? o->effective_ssd_cm : NAN, factor, forms, worst,
+                poor ? " (poor fits)" : "");
+    }
+    free(cs);
+}
+
+static json_object *json_show(jw *w, const sl_model *m)
+{
+    const sl_machine *mc = &m->machine;
+    json_object *root = json_object_new_object();
+    jw_str(w, root, "tool", "strayline");
+    jw_str(w, root, "version", sl_version());
+    jw_str(w, root, "model_file", m->source);
+    jw_str(w, root, "model_sha256", m->sha256);
+    jw_str(w, root, "model_version", m->model_version);
+    jw_str(w, root, "notice", m->notice);
+    json_object *mo = json_object_new_object();
+    jw_str(w, mo, "name", mc->name);
+    jw_str(w, mo, "description", mc->description);
+    jw_num(w, mo, "nominal_ssd_cm", mc->nominal_ssd_cm);
+    jw_num(w, mo, "sad_cm", mc->sad_cm);
+    jw_bool(w, mo, "invented", mc->invented);
+    jw_put(w, root, "machine", mo);
+    json_object *prov = json_object_new_object();
+    jw_str(w, prov, "measurement_set", m->provenance.measurement_set);
+    jw_str(w, prov, "measurement_set_sha256", m->provenance.measurement_set_sha256);
+    jw_str(w, prov, "tool", m->provenance.tool);
+    jw_str(w, prov, "created", m->provenance.created);
+    jw_str(w, prov, "measured_date", m->provenance.measured_date);
+    jw_str(w, prov, "measured_by", m->provenance.measured_by);
+    jw_str(w, prov, "detector", m->provenance.detector);
+    jw_str(w, prov, "reference", m->provenance.reference);
+    jw_put(w, root, "provenance", prov);
+    json_object *apps = json_object_new_array();
+    for (size_t i = 0; i < mc->napplicators; i++) {
+        json_object *a = json_object_new_object();
+        jw_str(w, a, "id", mc->applicators[i].id);
+        jw_str(w, a, "shape", mc->applicators[i].shape);
+        jw_num(w, a, "field_x_cm", mc->applicators[i].x_cm);
+        jw_num(w, a, "field_y_cm", mc->applicators[i].y_cm);
+        jw_append(w, apps, a);
+    }
+    jw_put(w, root, "applicators", apps);
+    combo *cs = malloc((m->nprofiles ? m->nprofiles : 1) * sizeof *cs);
+    if (!cs) {
+        json_object_put(root);
+        w->st = sl_error_set(w->err, SL_ENOMEM, "out of memory");
+        return NULL;
+    }
+    size_t n = combos(m, cs);
+    json_object *list = json_object_new_array();
+    for (size_t k = 0; k < n; k++) {
+        json_object *co = json_object_new_object();
+        jw_num(w, co, "energy_mev", cs[k].energy);
+        jw_str(w, co, "applicator", cs[k].app);
+        jw_str(w, co, "insert", cs[k].insert);
+        const sl_output_spec *o = sl_machine_output(&m->machine, cs[k].energy, cs[k].app);
+        jw_num(w, co, "dose_per_mu_cgy", o->dose_per_mu_cgy);
+        jw_num(w, co, "dmax_cm", o->dmax_cm);
+        jw_num(w, co, "effective_ssd_cm", o->effective_ssd_cm);
+        jw_num_opt(w, co, "cutout_factor", strcmp(cs[k].insert, SL_INSERT_OPEN) == 0
+                                               ? 1.0
+                                               : cutout_factor(o, cs[k].insert));
+        json_object *profs = json_object_new_array();
+        for (size_t i = 0; i < m->nprofiles; i++) {
+            const sl_model_profile *p = &m->profiles[i];
+            if (!in_combo(p, &cs[k]))
+                continue;
+            json_object *po = json_object_new_object();
+            jw_num(w, po, "depth_cm", p->depth_cm);
+            jw_str(w, po, "direction", p->direction);
+            jw_str(w, po, "form", sl_profile_form_name(p->fit.form));
+            json_object *par = json_object_new_object();
+            for (size_t j = 0; j < p->fit.p; j++)
+                jw_num(w, par, sl_profile_param_key(j), p->fit.theta[j]);
+            jw_put(w, po, "parameters", par);
+            jw_num(w, po, "chi2_reduced", p->fit.chi2_red);
+            jw_num(w, po, "max_residual_sigma", p->fit.max_residual_sigma);
+            jw_bool(w, po, "poor", p->fit.poor);
+            jw_num(w, po, "range_min_cm", p->fit.range_lo_cm);
+            jw_num(w, po, "range_max_cm", p->fit.range_hi_cm);
+            jw_int(w, po, "points", (long long)p->n);
+            jw_append(w, profs, po);
+        }
+        jw_put(w, co, "profiles", profs);
+        jw_append(w, list, co);
+    }
+    free(cs);
+    jw_put(w, root, "commissioned", list);
+    return root;
+}
+
+sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *err)
+{
+    if (fmt == SL_FORMAT_CSV)
+        return sl_error_set(err, SL_EUSAGE, "model show writes text or json, not csv");
+    if (fmt == SL_FORMAT_TEXT) {
+        text_show(fp, m);
+        return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the output") : SL_OK;
+    }
+    jw w = {err, SL_OK};
+    json_object *root = json_show(&w, m);
+    if (!root)
+        return w.st;
+    return jw_write(&w, root, fp);
+}
+
+static const unsigned all_flags[] = {SL_MF_IN_FIELD, SL_MF_DEPTH_OUTSIDE, SL_MF_EXTRAPOLATED,
+                                     SL_MF_OPEN_FOR_CUTOUT, SL_MF_POINTS_MODE};
+
+sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
+                                const char *applicator, const char *insert, double depth_cm,
+                                double distance_cm, const sl_model_value *v, sl_error *err)
+{
+    const char *ins = insert ? insert : SL_INSERT_OPEN;
+    if (fmt == SL_FORMAT_CSV)
+        return sl_error_set(err, SL_EUSAGE, "model eval writes text or json, not csv");
+    if (fmt == SL_FORMAT_TEXT) {
+        fprintf(fp, "%s: %g MeV, applicator %s, insert %s, depth %.2f cm, %.2f cm from the field "
+                    "edge\n",
+                m->source ? m->source : "model", energy_mev, applicator, ins, depth_cm,
+                distance_cm);
+        if (v->flags & SL_MF_IN_FIELD) {
+            fprintf(fp, "  in field: the out-of-field model does not apply (use the planning "
+                        "system's dose)\n");
+        } else {
+            fprintf(fp, "  dose %.4g %% of the central-axis maximum, standard uncertainty %.2g %% "
+                        "(k = 1)\n",
+                    v->percent, v->u_percent);
+            fprintf(fp, "  uncertainty parts (%%): fit %.2g, measurement %.2g, interpolation "
+                        "%.2g, extrapolation %.2g\n",
+                    v->u_fit, v->u_meas, v->u_interp, v->u_extrap);
+            fprintf(fp, "  electron part %.4g %%, photon part %.4g %%; depth used %.2f cm\n",
+                    v->electron_percent, v->photon_percent, v->depth_used_cm);
+        }
+        for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
+            if (v->flags & all_flags[i])
+                fprintf(fp, "  flag: %s\n", sl_model_flag_text(all_flags[i]));
+        }
+        return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the output") : SL_OK;
+    }
+    jw w = {err, SL_OK};
+    json_object *o = json_object_new_object();
+    jw_str(&w, o, "model_file", m->source);
+    jw_str(&w, o, "model_sha256", m->sha256);
+    jw_num(&w, o, "energy_mev", energy_mev);
+    jw_str(&w, o, "applicator", applicator);
+    jw_str(&w, o, "insert", ins);
+    jw_num(&w, o, "depth_cm", depth_cm);
+    jw_num(&w, o, "distance_cm", distance_cm);
+    bool in_field = v->flags & SL_MF_IN_FIELD;
+    jw_num_opt(&w, o, "dose_percent", in_field ? NAN : v->percent);
+    jw_num_opt(&w, o, "uncertainty_percent", in_field ? NAN : v->u_percent);
+    jw_num_opt(&w, o, "uncertainty_fit_percent", in_field ? NAN : v->u_fit);
+    jw_num_opt(&w, o, "uncertainty_measurement_percent", in_field ? NAN : v->u_meas);
+    jw_num_opt(&w, o, "uncertainty_interpolation_percent", in_field ? NAN : v->u_interp);
+    jw_num_opt(&w, o, "uncertainty_extrapolation_percent", in_field ? NAN : v->u_extrap);
+    jw_num_opt(&w, o, "electron_percent", in_field ? NAN : v->electron_percent);
+    jw_num_opt(&w, o, "photon_percent", in_field ? NAN : v->photon_percent);
+    jw_num(&w, o, "depth_used_cm", v->depth_used_cm);
+    json_object *flags = json_object_new_array();
+    static const char *const names[] = {"in_field", "depth_outside_commissioned_range",
+                                        "extrapolated", "open_insert_for_cutout", "points_mode"};
+    for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
+        if (v->flags & all_flags[i])
+            jw_append(&w, flags, json_object_new_string(names[i]));
+    }
+    jw_put(&w, o, "flags", flags);
+    return jw_write(&w, o, fp);
+}
