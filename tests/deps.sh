@@ -5,7 +5,7 @@
 BUILD_PACKAGES="meson ninja-build pkg-config gcc g++ libdcmtk-dev libgsl-dev libyaml-dev
   libjson-c-dev nettle-dev libxml2-dev libcsv-dev"
 TEST_PACKAGES="check libsubunit-dev python3-pydicom python3-numpy python3-scipy
-  python3-shapely python3-jsonschema dicom3tools dcmtk valgrind"
+  python3-shapely python3-jsonschema python3-yaml dicom3tools dcmtk valgrind"
 
 sl_install() {
     missing=""

@@ -639,6 +639,13 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourGeometricType),
                        "unknown contour type '" + type + "'");
             int n = r.integer(cs[j], DCM_NumberOfContourPoints, cctx, true);
+            /* refuse an oversized structure set on its declared counts,
+             * before its data are parsed into memory */
+            if (n > 0 && total_points + static_cast<size_t>(n) > SL_DICOM_MAX_CONTOUR_POINTS)
+                r.fail(SL_EINPUT, cctx,
+                       "the structure set holds more than " +
+                           std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
+                           " contour points, more than strayline accepts");
             std::vector<double> data = r.nums(cs[j], DCM_ContourData, cctx);
             if (data.empty())
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData), "missing or empty");
@@ -662,11 +669,6 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                        "a " + type + " contour needs at least " + std::to_string(need) +
                            " points, found " + std::to_string(n));
             total_points += static_cast<size_t>(n);
-            if (total_points > SL_DICOM_MAX_CONTOUR_POINTS)
-                r.fail(SL_EINPUT, cctx,
-                       "the structure set holds more than " +
-                           std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
-                           " contour points, more than strayline accepts");
             for (double v : data) {
                 if (std::fabs(v) > 1.0e5)
                     r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),

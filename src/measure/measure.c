@@ -212,7 +212,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                                sl_notes *notes, sl_error *err)
 {
     struct csv_parser parser;
-    if (csv_init(&parser, CSV_STRICT | CSV_APPEND_NULL | CSV_EMPTY_IS_NULL) != 0)
+    if (csv_init(&parser, CSV_STRICT | CSV_STRICT_FINI | CSV_APPEND_NULL | CSV_EMPTY_IS_NULL) != 0)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     csv_rows r = {0};
     r.row = 1;

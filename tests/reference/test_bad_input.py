@@ -4,7 +4,7 @@ expected fragment, never a crash, never output on stdout."""
 import os
 import unittest
 
-from common import SOURCE_ROOT, run
+from common import SOURCE_ROOT, run, tempdir
 
 BAD = os.path.join(SOURCE_ROOT, "tests", "data", "bad")
 
@@ -18,8 +18,9 @@ def cases():
             yield name, args, int(code), fragment
 
 
-def expand(args, name):
+def expand(args, name, tmp):
     subst = {
+        "tmp": tmp,
         "f": os.path.join(BAD, name),
         "ss": os.path.join(BAD, "good_rtstruct.dcm"),
         "plan": os.path.join(BAD, "good_rtplan.dcm"),
@@ -32,18 +33,40 @@ class BadInputs(unittest.TestCase):
     def test_corpus_is_large_enough(self):
         self.assertGreaterEqual(len(list(cases())), 40)
 
+    def test_the_good_model_and_measurements_read(self):
+        rc, out, err = run("model", "show", os.path.join(BAD, "good_model.yaml"))
+        self.assertEqual(rc, 0, err)
+        with tempdir() as tmp:
+            rc, out, err = run("fit", os.path.join(BAD, "good_measurements.yaml"), "-o",
+                               os.path.join(tmp, "m.yaml"), "-q")
+        self.assertEqual(rc, 0, err)
+
+    def test_huge_yaml_is_refused_without_reading_it(self):
+        """A model file of hundreds of MB: refused on its size (a sparse
+        file, so the test costs no disk)."""
+        with tempdir() as tmp:
+            path = os.path.join(tmp, "huge.yaml")
+            with open(path, "wb") as f:
+                f.truncate(300 << 20)
+            rc, out, err = run("model", "show", path)
+        self.assertEqual(rc, 3)
+        self.assertIn("more than the limit", err)
+
     def test_the_good_pair_reads(self):
         rc, out, err = run("inspect", os.path.join(BAD, "good_rtplan.dcm"),
                            os.path.join(BAD, "good_rtstruct.dcm"))
         self.assertEqual(rc, 0, err)
 
     def check_case(self, name, args, code, fragment):
-        rc, out, err = run(*expand(args, name))
+        with tempdir() as tmp:
+            rc, out, err = run(*expand(args, name, tmp))
         self.assertEqual(rc, code, "%s: exit %d, expected %d; stderr: %s" % (name, rc, code, err))
         lines = [l for l in err.splitlines() if not l.startswith("strayline: warning:")]
         self.assertEqual(len(lines), 1, "%s: not one line: %r" % (name, err))
         self.assertIn(fragment, lines[0], name)
-        self.assertIn(name, lines[0], "%s: the message must name the file" % name)
+        # a measurement set whose CSV is bad is reported with the CSV's name
+        named = ".csv:" if name.startswith("csv_") else name
+        self.assertIn(named, lines[0], "%s: the message must name the file" % name)
         self.assertEqual(out, "", name)
 
 

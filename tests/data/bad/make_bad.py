@@ -7,13 +7,17 @@ give for it. The table is read by tests/reference/test_bad_input.py; the
 files are committed so that the fuzzers can seed from them too.
 
 Columns of cases.tsv: file, arguments ({f} is the file, {ss} the good
-structure set, {plan} the good plan, {model} the demo model), exit code,
-message fragment.
+structure set, {plan} the good plan, {model} the demo model, {tmp} a
+scratch folder), exit code, message fragment.
 
 Run: /usr/bin/python3 tests/data/bad/make_bad.py   (rewrites this folder)
 """
+import copy
+import math
 import os
 import sys
+
+import yaml
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, os.path.join(HERE, "..", "..", "..", "examples", "generator"))
@@ -287,14 +291,238 @@ def main():
     def two_external(d):
         d.RTROIObservationsSequence[1].RTROIInterpretedType = "EXTERNAL"
     ss_case("ss_two_external.dcm", two_external, "two ROIs are typed EXTERNAL")
+    ss_case("ss_too_many_points.dcm",
+            lambda d: setattr(d.ROIContourSequence[0].ContourSequence[0], "NumberOfContourPoints",
+                              21000000),
+            "more than 20000000 contour points")
     ss_case("ss_wrong_modality.dcm", lambda d: setattr(d, "Modality", "RTPLAN"),
             "contradicts the SOP Class (RT Structure Set)")
+
+    yaml_cases()
 
     with open(os.path.join(HERE, "cases.tsv"), "w") as f:
         f.write("# file\targuments\texit\tmessage fragment\n")
         for r in rows:
             f.write("%s\t%s\t%d\t%s\n" % r)
     print("%d bad inputs written" % len(rows))
+
+
+# ------------------------------------------------------------ YAML / CSV --
+
+def good_model():
+    """A small, valid model file (hand-made, invented)."""
+    d = [float(x) for x in range(0, 16)]
+    def prof(depth, a, l1, c, l2):
+        return {"energy_mev": 9, "applicator": "A10", "insert": "open", "depth_cm": depth,
+                "direction": "crossplane", "data_file": "hand.csv", "data_sha256": "b" * 64,
+                "uncertainty": {"relative": 0.02, "floor_percent": 0.01}, "range_cm": [0.0, 15.0],
+                "fit": {"form": "smooth",
+                        "parameters": {"a_percent": a, "lambda1_cm": l1, "c_percent": c,
+                                       "lambda2_cm": l2},
+                        "covariance": [[1e-4 if i == j else 0.0 for j in range(4)]
+                                       for i in range(4)],
+                        "covariance_scale": 1.0, "n": 16, "dof": 12, "chi2": 12.0,
+                        "chi2_reduced": 1.0, "aicc": 23.6, "rms_residual_percent": 0.01,
+                        "max_residual_percent": 0.02, "rms_residual_relative": 0.01,
+                        "max_residual_relative": 0.02, "max_residual_sigma": 1.5, "poor": False},
+                "points": {"distance_cm": list(d),
+                           "dose_percent": [a * math.exp(-x / l1) + c * math.exp(-x / l2)
+                                            for x in d]}}
+    return {
+        "format": "strayline-model", "format_version": 1, "model_version": "bad-input base",
+        "notice": "INVENTED TEST DATA - NOT FOR CLINICAL USE",
+        "machine": {"name": "DEMO-BAD", "nominal_ssd_cm": 100.0, "sad_cm": 100.0, "invented": True},
+        "applicators": [{"id": "A10", "shape": "square", "field_x_cm": 10.0, "field_y_cm": 10.0}],
+        "inserts": [],
+        "outputs": [{"energy_mev": 9, "applicator": "A10", "dose_per_mu_cgy": 1.0,
+                     "dmax_cm": 2.0, "effective_ssd_cm": 95.0}],
+        "provenance": {"measurement_set": "none", "measurement_set_sha256": "0" * 64,
+                       "tool": "make_bad.py", "created": "2026-12-01", "measured_date": "2026-12-01",
+                       "measured_by": "nobody (invented)", "detector": "none",
+                       "reference": "percent of the central-axis maximum"},
+        "profiles": [prof(0.0, 40.0, 1.0, 2.0, 10.0), prof(2.0, 30.0, 1.5, 1.5, 12.0)],
+    }
+
+
+def write_yaml(name, doc, args, code, fragment):
+    with open(os.path.join(HERE, name), "w") as f:
+        yaml.safe_dump(doc, f, sort_keys=False)
+    rows.append((name, args, code, fragment))
+
+
+def write_text(name, text, args, code, fragment):
+    with open(os.path.join(HERE, name), "w") as f:
+        f.write(text)
+    rows.append((name, args, code, fragment))
+
+
+def good_measurements(csv_names=("ok1.csv", "ok2.csv")):
+    return {
+        "format": "strayline-measurements", "format_version": 1,
+        "notice": "INVENTED TEST DATA - NOT FOR CLINICAL USE",
+        "machine": {"name": "DEMO-BAD", "nominal_ssd_cm": 100.0, "sad_cm": 100.0, "invented": True},
+        "measured": {"date": "2026-12-01", "by": "nobody (invented)", "detector": "none"},
+        "reference": "percent of the central-axis maximum",
+        "applicators": [{"id": "A10", "shape": "square", "field_x_cm": 10.0, "field_y_cm": 10.0}],
+        "outputs": [{"energy_mev": 9, "applicator": "A10", "dose_per_mu_cgy": 1.0, "dmax_cm": 2.0,
+                     "effective_ssd_cm": 95.0}],
+        "profiles": [{"energy_mev": 9, "applicator": "A10", "insert": "open", "depth_cm": z,
+                      "direction": "crossplane", "file": "csv/" + n,
+                      "uncertainty": {"relative": 0.02, "floor_percent": 0.01}}
+                     for z, n in zip((0.0, 1.0), csv_names)],
+    }
+
+
+def yaml_cases():
+    os.makedirs(os.path.join(HERE, "csv"), exist_ok=True)
+    for f in os.listdir(os.path.join(HERE, "csv")):
+        os.remove(os.path.join(HERE, "csv", f))
+    show = "model show {f}"
+    fit = "fit {f} -o {tmp}/model.yaml -q"
+    base = good_model()
+    with open(os.path.join(HERE, "good_model.yaml"), "w") as f:
+        yaml.safe_dump(base, f, sort_keys=False)
+
+    def model_case(name, mutate, fragment):
+        doc = good_model()
+        mutate(doc)
+        write_yaml(name, doc, show, 3, fragment)
+
+    def fit0(doc):
+        return doc["profiles"][0]["fit"]
+
+    write_text("model_syntax_error.yaml", "format: strayline-model\nmachine: [unclosed\n", show, 3,
+               "YAML syntax error")
+    write_text("model_empty.yaml", "", show, 3, "empty file")
+    write_text("model_two_documents.yaml", yaml.safe_dump(base) + "---\nformat: x\n", show, 3,
+               "more than one YAML document")
+    model_case("model_wrong_format.yaml", lambda d: d.update(format="something-else"),
+               "this is not a strayline model file")
+    model_case("model_wrong_version.yaml", lambda d: d.update(format_version=7),
+               "format_version 7")
+    model_case("model_missing_key.yaml", lambda d: d["machine"].pop("sad_cm"),
+               "machine: missing key 'sad_cm'")
+    model_case("model_unknown_key.yaml", lambda d: d["machine"].update(colour="blue"),
+               "unknown key 'colour'")
+    model_case("model_wrong_type.yaml", lambda d: d["outputs"][0].update(dmax_cm="deep"),
+               "dmax_cm: 'deep' is not a finite number")
+    model_case("model_negative_length.yaml",
+               lambda d: fit0(d)["parameters"].update(lambda1_cm=-1.0),
+               "lambda1_cm: -1 lies outside")
+    model_case("model_nan.yaml", lambda d: fit0(d)["parameters"].update(c_percent=float("nan")),
+               "c_percent: '.nan' is not a finite number")
+    model_case("model_inf.yaml", lambda d: d["outputs"][0].update(dose_per_mu_cgy=float("inf")),
+               "dose_per_mu_cgy: '.inf' is not a finite number")
+    model_case("model_negative_output.yaml", lambda d: d["outputs"][0].update(dose_per_mu_cgy=-1),
+               "dose_per_mu_cgy: -1 lies outside")
+    def non_monotonic(d):
+        pts = d["profiles"][0]["points"]["distance_cm"]
+        pts[3], pts[4] = pts[4], pts[3]
+    model_case("model_non_monotonic_grid.yaml", non_monotonic, "distance_cm is not increasing")
+    model_case("model_duplicate_profile.yaml",
+               lambda d: d["profiles"].append(good_model()["profiles"][0]),
+               "duplicate of profile 1")
+    model_case("model_duplicate_applicator.yaml",
+               lambda d: d["applicators"].append(dict(d["applicators"][0])),
+               "duplicate applicator id 'A10'")
+    model_case("model_covariance_asymmetric.yaml",
+               lambda d: fit0(d)["covariance"][0].__setitem__(1, 0.5),
+               "the covariance is not symmetric")
+    model_case("model_covariance_size.yaml", lambda d: fit0(d)["covariance"].pop(),
+               "covariance has 3 rows")
+    model_case("model_dof_mismatch.yaml", lambda d: fit0(d).update(dof=5),
+               "dof 5 does not equal n 16 minus 4 parameters")
+    model_case("model_uncommissioned_output.yaml",
+               lambda d: d["profiles"][0].update(energy_mev=12),
+               "no output is given for 12 MeV")
+    model_case("model_unknown_insert.yaml", lambda d: d["profiles"][0].update(insert="C9"),
+               "insert 'C9' is not listed")
+    model_case("model_bad_form.yaml", lambda d: fit0(d).update(form="cubic"),
+               "form 'cubic' (smooth or peaked)")
+    model_case("model_bad_sha.yaml", lambda d: d["profiles"][0].update(data_sha256="xyz"),
+               "expected 64 lowercase hex digits")
+    # a text with a duplicate key (PyYAML would not write one)
+    text = yaml.safe_dump(base, sort_keys=False).replace("sad_cm: 100.0",
+                                                        "sad_cm: 100.0\n  sad_cm: 90.0", 1)
+    write_text("model_duplicate_key.yaml", text, show, 3, "duplicate key 'sad_cm'")
+    nested = "format: strayline-model\nx: " + "[" * 200 + "]" * 200 + "\n"
+    write_text("model_deeply_nested.yaml", nested, show, 3, "nested more than 32 levels deep")
+    laughs = ["format: strayline-model", "a: &a [\"lol\", \"lol\", \"lol\", \"lol\"]"]
+    prev = "a"
+    for k in "bcdefghij":
+        laughs.append("%s: &%s [*%s, *%s, *%s, *%s, *%s, *%s, *%s, *%s, *%s]" %
+                      ((k, k) + (prev,) * 9))
+        prev = k
+    write_text("model_billion_laughs.yaml", "\n".join(laughs) + "\n", show, 3,
+               "anchors and aliases are not accepted")
+    write_text("model_self_alias.yaml", "format: &x [*x]\n", show, 3,
+               "anchors and aliases are not accepted")
+    write_text("model_not_a_mapping.yaml", "- just\n- a list\n", show, 3,
+               "model file: expected a mapping of keys")
+
+    # measurement sets and their CSV files
+    def csv_text(rows, head="edge_distance_cm,dose_percent"):
+        return head + "\n" + "".join("%g,%g\n" % r for r in rows) + ""
+    good_rows = [(x, 40 * math.exp(-x) + 2 * math.exp(-x / 10)) for x in range(0, 16)]
+    for n in ("ok1.csv", "ok2.csv"):
+        with open(os.path.join(HERE, "csv", n), "w") as f:
+            f.write(csv_text(good_rows))
+    with open(os.path.join(HERE, "good_measurements.yaml"), "w") as f:
+        yaml.safe_dump(good_measurements(), f, sort_keys=False)
+
+    def ms_case(name, mutate, fragment, csv=None, csv_body=None):
+        doc = good_measurements()
+        if csv:
+            with open(os.path.join(HERE, "csv", csv), "w") as f:
+                f.write(csv_body)
+            doc["profiles"][1]["file"] = "csv/" + csv
+        if mutate:
+            mutate(doc)
+        write_yaml(name, doc, fit, 3, fragment)
+
+    write_text("ms_syntax_error.yaml", "format: strayline-measurements\nprofiles: {\n", fit, 3,
+               "YAML syntax error")
+    ms_case("ms_missing_key.yaml", lambda d: d.pop("reference"), "missing key 'reference'")
+    ms_case("ms_unknown_key.yaml", lambda d: d["profiles"][0].update(colour=1),
+            "profile 1: unknown key 'colour'")
+    ms_case("ms_negative_depth.yaml", lambda d: d["profiles"][0].update(depth_cm=-1),
+            "depth_cm: -1 lies outside")
+    ms_case("ms_nan_uncertainty.yaml",
+            lambda d: d["profiles"][0]["uncertainty"].update(relative=float("nan")),
+            "uncertainty relative: '.nan' is not a finite number")
+    ms_case("ms_wrong_type.yaml", lambda d: d["profiles"][0].update(energy_mev="nine"),
+            "energy_mev: 'nine' is not a finite number")
+    ms_case("ms_duplicate_profile.yaml",
+            lambda d: d["profiles"].append(copy.deepcopy(d["profiles"][0])),
+            "duplicate of profile 1")
+    ms_case("ms_unknown_applicator.yaml", lambda d: d["profiles"][0].update(applicator="A99"),
+            "applicator 'A99' is not in the list")
+    ms_case("csv_missing_file.yaml", lambda d: d["profiles"][0].update(file="csv/none.csv"),
+            "none.csv: cannot open")
+    ms_case("ms_bad_direction.yaml", lambda d: d["profiles"][0].update(direction="upward"),
+            "direction 'upward'")
+    ms_case("ms_empty_profiles.yaml", lambda d: d.update(profiles=[]),
+            "profiles: the list is empty")
+    ms_case("csv_missing_column.yaml", None, "the header must name two columns",
+            csv="missing_column.csv", csv_body="edge_distance_cm\n0\n1\n2\n")
+    ms_case("csv_text_in_numbers.yaml", None, "row 4: 'ten' is not a finite number",
+            csv="text.csv", csv_body=csv_text(good_rows[:2]) + "2,ten\n" +
+            "".join("%g,%g\n" % r for r in good_rows[3:]))
+    rows_nm = list(good_rows)
+    rows_nm[5], rows_nm[6] = rows_nm[6], rows_nm[5]
+    ms_case("csv_non_monotonic.yaml", None, "does not increase on the row before",
+            csv="non_monotonic.csv", csv_body=csv_text(rows_nm))
+    through = [(x * 0.5, 100.0 if abs(x * 0.5) < 30 else 1.0) for x in range(-20, 21)]
+    ms_case("csv_no_crossing.yaml", None, "no 50 % crossing",
+            csv="no_crossing.csv", csv_body=csv_text(through, "off_axis_cm,dose_percent"))
+    ms_case("csv_single_point.yaml", None, "1 data rows; a profile needs at least 6",
+            csv="single.csv", csv_body=csv_text(good_rows[:1]))
+    ms_case("csv_wrong_header.yaml", None, "first column 'x_mm'",
+            csv="wrong_header.csv", csv_body=csv_text(good_rows, "x_mm,dose_percent"))
+    ms_case("csv_reading_without_cax.yaml", None, "gives no cax_reading",
+            csv="reading.csv", csv_body=csv_text(good_rows, "edge_distance_cm,reading"))
+    ms_case("csv_unterminated_quote.yaml", None, "CSV error",
+            csv="quote.csv", csv_body='edge_distance_cm,dose_percent\n0,"50\n1,20\n')
 
 
 if __name__ == "__main__":

@@ -1,0 +1,285 @@
+"""Commissioning against outside references:
+
+- the profile fits of the demo model against scipy.optimize.curve_fit
+  (Debian python3-scipy), an independent least-squares fitter started away
+  from strayline's answer: the same parameters within 1e-4 relative;
+- `strayline fit` on the shipped measurements reproduces the shipped model;
+- `strayline model eval` on a hand-made two-depth model whose values are
+  worked out here from the documented formulas (models/README.md);
+- the fit report is one self-contained HTML file (Python's html.parser).
+"""
+import html.parser
+import math
+import os
+import unittest
+
+import numpy as np
+import yaml
+from scipy.optimize import curve_fit
+
+from common import SOURCE_ROOT, run, run_json, tempdir
+
+MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
+MEAS = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1", "measurements.yaml")
+KEYS = ["a_percent", "lambda1_cm", "c_percent", "lambda2_cm", "b_percent", "mu_cm", "sigma_cm"]
+
+
+def smooth(d, a, l1, c, l2):
+    return a * np.exp(-d / l1) + c * np.exp(-d / l2)
+
+
+def peaked(d, a, l1, c, l2, b, mu, s):
+    return smooth(d, a, l1, c, l2) + b * np.exp(-((d - mu) ** 2) / (2 * s * s))
+
+
+def load(path):
+    with open(path) as f:
+        return yaml.safe_load(f)
+
+
+class AgainstScipy(unittest.TestCase):
+    def test_profiles_refit_with_curve_fit(self):
+        model = load(MODEL)
+        checked = {"smooth": 0, "peaked": 0}
+        for p in model["profiles"][::7]:
+            pts = p["points"]
+            d = np.array(pts["distance_cm"], float)
+            y = np.array(pts["dose_percent"], float)
+            u = p["uncertainty"]
+            sigma = np.sqrt((u["relative"] * y) ** 2 + u["floor_percent"] ** 2)
+            form = p["fit"]["form"]
+            keys = KEYS[:4] if form == "smooth" else KEYS
+            mine = np.array([p["fit"]["parameters"][k] for k in keys])
+            f = smooth if form == "smooth" else peaked
+            start = mine * np.array([1.1, 0.9, 1.1, 0.9, 1.1, 0.95, 1.1][:len(keys)])
+            got, cov = curve_fit(f, d, y, p0=start, sigma=sigma, absolute_sigma=True,
+                                 bounds=(0, np.inf), method="trf", xtol=1e-15, ftol=1e-15,
+                                 gtol=1e-15, max_nfev=20000)
+            chi_mine = float(np.sum(((y - f(d, *mine)) / sigma) ** 2))
+            chi_scipy = float(np.sum(((y - f(d, *got)) / sigma) ** 2))
+            self.assertAlmostEqual(chi_mine, p["fit"]["chi2"], delta=1e-6 * chi_mine)
+            self.assertLessEqual(chi_mine, chi_scipy * (1 + 1e-9),
+                                 "%s: scipy found a lower minimum" % p["data_file"])
+            np.testing.assert_allclose(got, mine, rtol=1e-4,
+                                       err_msg="%s (%s)" % (p["data_file"], form))
+            checked[form] += 1
+        self.assertGreater(checked["smooth"] + checked["peaked"], 20)
+        self.assertGreater(checked["peaked"], 5)
+
+    def test_covariance_matches_scipy(self):
+        """With the stated sigmas trusted (absolute_sigma), curve_fit's
+        covariance at strayline's minimum is the inverse of J^T W J; strayline
+        scales it by max(1, reduced chi-square) (models/README.md)."""
+        model = load(MODEL)
+        p = model["profiles"][0]
+        pts = p["points"]
+        d = np.array(pts["distance_cm"], float)
+        y = np.array(pts["dose_percent"], float)
+        u = p["uncertainty"]
+        sigma = np.sqrt((u["relative"] * y) ** 2 + u["floor_percent"] ** 2)
+        form = p["fit"]["form"]
+        keys = KEYS[:4] if form == "smooth" else KEYS
+        f = smooth if form == "smooth" else peaked
+        mine = np.array([p["fit"]["parameters"][k] for k in keys])
+        _, cov = curve_fit(f, d, y, p0=mine, sigma=sigma, absolute_sigma=True, method="lm",
+                           xtol=1e-15, ftol=1e-15, gtol=1e-15)
+        scale = p["fit"]["covariance_scale"]
+        np.testing.assert_allclose(np.array(p["fit"]["covariance"]), cov * scale, rtol=1e-3)
+
+
+class ShippedModel(unittest.TestCase):
+    def test_fit_reproduces_the_shipped_model(self):
+        with tempdir() as t:
+            out = os.path.join(t, "model.yaml")
+            rep = os.path.join(t, "report.html")
+            rc, so, se = run("fit", MEAS, "-o", out, "-r", rep, "--model-version", "2026.12-demo",
+                             "--created", "2026-12-01T00:00:00Z", "-q")
+            self.assertEqual(rc, 0, se)
+            a, b = load(out), load(MODEL)
+            self.assertEqual(len(a["profiles"]), len(b["profiles"]))
+            for pa, pb in zip(a["profiles"], b["profiles"]):
+                self.assertEqual(pa["fit"]["form"], pb["fit"]["form"], pa["data_file"])
+                for k, v in pb["fit"]["parameters"].items():
+                    self.assertAlmostEqual(pa["fit"]["parameters"][k], v, delta=1e-6 * abs(v))
+                self.assertEqual(pa["data_sha256"], pb["data_sha256"])
+            self.check_report(rep)
+
+    def check_report(self, path):
+        class Scan(html.parser.HTMLParser):
+            def __init__(self):
+                super().__init__()
+                self.external, self.svgs, self.text = [], 0, []
+
+            def handle_starttag(self, tag, attrs):
+                a = dict(attrs)
+                if tag == "svg":
+                    self.svgs += 1
+                for k in ("src", "href"):
+                    v = a.get(k)
+                    if v and not v.startswith("#"):
+                        self.external.append(v)
+                if tag == "link":
+                    self.external.append(a.get("href"))
+
+            def handle_data(self, data):
+                self.text.append(data)
+
+        s = Scan()
+        with open(path) as f:
+            s.feed(f.read())
+        self.assertEqual(s.external, [])
+        self.assertGreaterEqual(s.svgs, 2 * 180)
+        text = "".join(s.text)
+        self.assertIn("INVENTED DEMO DATA", text)
+        self.assertIn("Poor fits", text)
+
+
+def write_model(path, profiles, inserts=()):
+    doc = {
+        "format": "strayline-model", "format_version": 1, "model_version": "hand-made",
+        "notice": "hand-made test model",
+        "machine": {"name": "HAND", "nominal_ssd_cm": 100, "sad_cm": 100},
+        "applicators": [{"id": "A10", "shape": "square", "field_x_cm": 10, "field_y_cm": 10}],
+        "inserts": [{"id": i, "applicator": "A10", "shape": "circle", "size_x_cm": 6,
+                     "size_y_cm": 6} for i in inserts],
+        "outputs": [{"energy_mev": 9, "applicator": "A10", "dose_per_mu_cgy": 1.0,
+                     "dmax_cm": 2.0, "effective_ssd_cm": 95.0}],
+        "provenance": {"measurement_set": "none", "measurement_set_sha256": "0" * 64,
+                       "tool": "test", "created": "2026-12-01", "measured_date": "2026-12-01",
+                       "measured_by": "test", "detector": "none", "reference": "test"},
+        "profiles": profiles,
+    }
+    with open(path, "w") as f:
+        yaml.safe_dump(doc, f, sort_keys=False)
+
+
+def smooth_profile(depth, a, l1, c, l2, var, rel=0.02, floor=0.01):
+    d = [float(x) for x in range(0, 21)]
+    y = [a * math.exp(-x / l1) + c * math.exp(-x / l2) for x in d]
+    cov = [[var if i == j else 0.0 for j in range(4)] for i in range(4)]
+    return {"energy_mev": 9, "applicator": "A10", "insert": "open", "depth_cm": depth,
+            "direction": "crossplane", "data_file": "hand.csv", "data_sha256": "a" * 64,
+            "uncertainty": {"relative": rel, "floor_percent": floor}, "range_cm": [0.0, 20.0],
+            "fit": {"form": "smooth",
+                    "parameters": {"a_percent": a, "lambda1_cm": l1, "c_percent": c,
+                                   "lambda2_cm": l2},
+                    "covariance": cov, "covariance_scale": 1.0, "n": 21, "dof": 17, "chi2": 17.0,
+                    "chi2_reduced": 1.0, "aicc": 27.5, "rms_residual_percent": 0.0,
+                    "max_residual_percent": 0.0, "rms_residual_relative": 0.0,
+                    "max_residual_relative": 0.0, "max_residual_sigma": 0.0, "poor": False},
+            "points": {"distance_cm": d, "dose_percent": y}}
+
+
+class HandMadeModel(unittest.TestCase):
+    """Two depths, 0 and 2 cm, smooth forms with a diagonal covariance; every
+    expected value below follows from the formulas of models/README.md."""
+    P0 = (40.0, 1.0, 2.0, 10.0)
+    P2 = (30.0, 1.5, 1.5, 12.0)
+    VAR = 1e-4
+
+    @classmethod
+    def setUpClass(cls):
+        cls.tmp = tempdir()
+        cls.path = os.path.join(cls.tmp.name, "hand.yaml")
+        write_model(cls.path, [smooth_profile(0.0, *cls.P0, cls.VAR),
+                               smooth_profile(2.0, *cls.P2, cls.VAR)], inserts=["C6"])
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmp.cleanup()
+
+    def value(self, p, d):
+        a, l1, c, l2 = p
+        return a * math.exp(-d / l1) + c * math.exp(-d / l2)
+
+    def ufit(self, p, d):
+        a, l1, c, l2 = p
+        g = [math.exp(-d / l1), a * math.exp(-d / l1) * d / l1 ** 2, math.exp(-d / l2),
+             c * math.exp(-d / l2) * d / l2 ** 2]
+        return math.sqrt(sum(x * x * self.VAR for x in g))
+
+    def umeas(self, v):
+        return math.sqrt((0.02 * v) ** 2 + 0.01 ** 2)
+
+    def ev(self, *args):
+        return run_json("model", "eval", self.path, "--format", "json", "-e", "9", "-a", "A10",
+                        *args)
+
+    def test_between_depths_log_linear(self):
+        d, w = 5.0, 0.5
+        v0, v2 = self.value(self.P0, d), self.value(self.P2, d)
+        want = math.exp((1 - w) * math.log(v0) + w * math.log(v2))
+        js = self.ev("-d", "1", "-x", "5")
+        self.assertAlmostEqual(js["dose_percent"], want, delta=1e-9 * want)
+        rf = (1 - w) * self.ufit(self.P0, d) / v0 + w * self.ufit(self.P2, d) / v2
+        rm = (1 - w) * self.umeas(v0) / v0 + w * self.umeas(v2) / v2
+        self.assertAlmostEqual(js["uncertainty_fit_percent"], rf * want, delta=1e-9)
+        self.assertAlmostEqual(js["uncertainty_measurement_percent"], rm * want, delta=1e-9)
+        interp = w * (1 - w) * abs(v2 - v0)
+        self.assertAlmostEqual(js["uncertainty_interpolation_percent"], interp, delta=1e-9)
+        total = math.sqrt((rf * want) ** 2 + (rm * want) ** 2 + interp ** 2)
+        self.assertAlmostEqual(js["uncertainty_percent"], total, delta=1e-9)
+        self.assertEqual(js["flags"], [])
+        # the electron part is the A term, the photon part the C term
+        e = (1 - w) * (self.P0[0] * math.exp(-d / self.P0[1]) / v0) + \
+            w * (self.P2[0] * math.exp(-d / self.P2[1]) / v2)
+        self.assertAlmostEqual(js["electron_percent"], e * want, delta=1e-9)
+
+    def test_at_a_measured_depth_no_interpolation(self):
+        js = self.ev("-d", "2", "-x", "3")
+        self.assertAlmostEqual(js["dose_percent"], self.value(self.P2, 3), delta=1e-9)
+        self.assertEqual(js["uncertainty_interpolation_percent"], 0)
+
+    def test_depth_outside_uses_the_nearest(self):
+        js = self.ev("-d", "3.5", "-x", "4")
+        self.assertAlmostEqual(js["dose_percent"], self.value(self.P2, 4), delta=1e-9)
+        self.assertIn("depth_outside_commissioned_range", js["flags"])
+        self.assertEqual(js["depth_used_cm"], 2)
+
+    def test_beyond_the_range_extrapolates_the_tail(self):
+        d = 26.0
+        js = self.ev("-d", "0", "-x", str(d))
+        v = self.value(self.P0, d)
+        self.assertAlmostEqual(js["dose_percent"], v, delta=1e-9)
+        self.assertIn("extrapolated", js["flags"])
+        # 10 % per 5 cm beyond the last measured point (20 cm)
+        self.assertAlmostEqual(js["uncertainty_extrapolation_percent"], 0.02 * 6 * v, delta=1e-9)
+
+    def test_inside_the_field_gives_no_number(self):
+        js = self.ev("-d", "1", "-x", "-0.5")
+        self.assertIsNone(js["dose_percent"])
+        self.assertIn("in_field", js["flags"])
+
+    def test_uncommissioned_cutout_takes_the_open_profiles(self):
+        js = self.ev("-d", "0", "-x", "2", "-i", "C6")
+        self.assertAlmostEqual(js["dose_percent"], self.value(self.P0, 2), delta=1e-9)
+        self.assertIn("open_insert_for_cutout", js["flags"])
+
+    def test_points_mode_hits_the_points(self):
+        js = self.ev("-d", "0", "-x", "7", "--points")
+        self.assertAlmostEqual(js["dose_percent"], self.value(self.P0, 7), delta=1e-9)
+        self.assertIn("points_mode", js["flags"])
+
+    def test_energy_not_commissioned(self):
+        rc, out, err = run("model", "eval", self.path, "-e", "12", "-a", "A10", "-d", "1",
+                           "-x", "2")
+        self.assertEqual(rc, 3)
+        self.assertIn("12 MeV with applicator 'A10' is not commissioned", err)
+        self.assertIn("9 MeV/A10", err)
+
+
+class ModelShow(unittest.TestCase):
+    def test_show_lists_every_combination(self):
+        js = run_json("model", "show", MODEL, "--format", "json")
+        combos = {(c["energy_mev"], c["applicator"], c["insert"]) for c in js["commissioned"]}
+        self.assertIn((9, "A10", "open"), combos)
+        self.assertIn((12, "A06", "C4"), combos)
+        self.assertEqual(len(combos), 5 * 5 + 2 * 5)
+        self.assertTrue(js["machine"]["invented"])
+        rc, out, err = run("model", "show", MODEL)
+        self.assertEqual(rc, 0)
+        self.assertIn("INVENTED DEMO DATA", out)
+
+
+if __name__ == "__main__":
+    unittest.main()

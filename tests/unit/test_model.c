@@ -1,0 +1,227 @@
+/*
+ * Unit tests of commissioning: profile CSV reading and edge finding, the
+ * profile fit on noise-free data of known parameters, the model file round
+ * trip (write, read, identical evaluation) and evaluation rules.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "check_main.h"
+#include "strayline/measure.h"
+#include "strayline/model.h"
+#include "strayline/profile.h"
+
+/* A through-field profile flat at 100 % inside |x| < 4 cm and falling
+ * linearly to 0 at |x| = 6 cm: its 50 % points are exactly -5 and +5, and
+ * linear interpolation between samples finds them exactly. */
+START_TEST(edges_of_an_analytic_profile)
+{
+    double x[200], d[200];
+    size_t n = 0;
+    for (double v = -9.1; v <= 9.1; v += 0.3) {
+        x[n] = v;
+        double a = fabs(v);
+        d[n] = a < 4 ? 100 : a < 6 ? 100 * (6 - a) / 2 : 0.5;
+        n++;
+    }
+    double l, r;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_find_edges(x, d, n, "analytic", &l, &r, &e), SL_OK);
+    ck_assert_double_eq_tol(l, -5, 1e-12);
+    ck_assert_double_eq_tol(r, 5, 1e-12);
+    /* the edge is half the axis dose at that depth, not 50 % of the maximum */
+    for (size_t i = 0; i < n; i++)
+        d[i] *= 0.8;
+    ck_assert_int_eq(sl_find_edges(x, d, n, "scaled", &l, &r, &e), SL_OK);
+    ck_assert_double_eq_tol(r - l, 10, 1e-12);
+    /* no crossing on one side */
+    for (size_t i = 0; i < n; i++)
+        if (x[i] > 0)
+            d[i] = 80;
+    ck_assert_int_eq(sl_find_edges(x, d, n, "one-sided", &l, &r, &e), SL_EINPUT);
+    ck_assert_ptr_nonnull(strstr(e.msg, "no 50 % crossing on the positive side"));
+}
+END_TEST
+
+static sl_status parse(const char *csv, double cax, sl_profile_data *p, sl_error *e)
+{
+    memset(p, 0, sizeof *p);
+    p->rel_uncertainty = 0.02;
+    p->floor_percent = 0.01;
+    return sl_profile_parse_csv(csv, strlen(csv), "p.csv", cax, 10.0, p, NULL, e);
+}
+
+START_TEST(csv_reading_and_its_errors)
+{
+    sl_profile_data p;
+    sl_error e = {0};
+    const char *good = "edge_distance_cm,dose_percent\n0,50\n1,20\n2,8\n4,3\n8,1.5\n12,1\n";
+    ck_assert_int_eq(parse(good, NAN, &p, &e), SL_OK);
+    ck_assert_uint_eq(p.n, 6);
+    ck_assert_double_eq(p.dose_percent[2], 8);
+    /* sigma = sqrt((0.02 D)^2 + 0.01^2) */
+    ck_assert_double_eq_tol(p.sigma_percent[0], sqrt(1.0 + 1e-4), 1e-12);
+    sl_profile_data_free(&p);
+    /* raw readings with a stated central-axis reading */
+    const char *raw = "edge_distance_cm,reading\n0,1.0\n1,0.4\n2,0.16\n4,0.06\n8,0.03\n12,0.02\n";
+    ck_assert_int_eq(parse(raw, 2.0, &p, &e), SL_OK);
+    ck_assert_double_eq_tol(p.dose_percent[0], 50, 1e-12);
+    sl_profile_data_free(&p);
+    struct {
+        const char *csv;
+        double cax;
+        const char *fragment;
+    } bad[] = {
+        {"edge_distance_cm\n0\n1\n", NAN, "the header must name two columns"},
+        {"distance,dose_percent\n0,1\n", NAN, "first column 'distance'"},
+        {"edge_distance_cm,dose\n0,1\n", NAN, "second column 'dose'"},
+        {"edge_distance_cm,dose_percent\n0,50\n1,abc\n2,8\n4,3\n8,1.5\n12,1\n", NAN,
+         "row 3: 'abc' is not a finite number"},
+        {"edge_distance_cm,dose_percent\n0,50\n2,20\n1,8\n4,3\n8,1.5\n12,1\n", NAN,
+         "row 4: edge_distance_cm 1 does not increase"},
+        {"edge_distance_cm,dose_percent\n0,50\n", NAN, "1 data rows; a profile needs at least"},
+        {"edge_distance_cm,dose_percent\n0,50\n1,20,7\n", NAN, "more than two values"},
+        {"edge_distance_cm,reading\n0,1\n1,1\n2,1\n3,1\n4,1\n5,1\n", NAN, "gives no cax_reading"},
+        {"edge_distance_cm,dose_percent\n0,50\n1,0\n2,8\n4,3\n8,1.5\n12,1\n", NAN,
+         "a dose of 0 outside the field"},
+        {"off_axis_cm,dose_percent\n-6,100\n-3,100\n0,100\n3,100\n6,100\n9,100\n", NAN,
+         "no 50 % crossing"},
+        {"", NAN, "empty file"},
+        {"edge_distance_cm,dose_percent\n0,nan\n", NAN, "'nan' is not a finite number"},
+    };
+    for (size_t i = 0; i < sizeof bad / sizeof *bad; i++) {
+        sl_status st = parse(bad[i].csv, bad[i].cax, &p, &e);
+        ck_assert_msg(st == SL_EINPUT, "case %zu accepted", i);
+        ck_assert_msg(strstr(e.msg, bad[i].fragment) != NULL, "case %zu: '%s' lacks '%s'", i,
+                      e.msg, bad[i].fragment);
+        ck_assert_msg(strncmp(e.msg, "p.csv", 5) == 0, "case %zu: message must name the file", i);
+        sl_profile_data_free(&p);
+    }
+}
+END_TEST
+
+/* Noise-free data of a known peaked profile, with 2 % uncertainties: the fit
+ * must return the parameters it was made from, and choose the peaked form. */
+START_TEST(fit_recovers_known_parameters)
+{
+    const double truth[7] = {40, 0.8, 1.8, 14, 2.5, 4.0, 1.5};
+    double d[60], y[60], s[60];
+    size_t n = 0;
+    for (double x = 0; x <= 25.001; x += (x < 6 ? 0.25 : 1.0)) {
+        d[n] = x;
+        y[n] = sl_profile_value(SL_FORM_PEAKED, truth, x, NULL, NULL, NULL);
+        s[n] = 0.02 * y[n];
+        n++;
+    }
+    sl_profile_fit f;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_profile_fit_data(d, y, s, n, "synthetic", &f, &e), SL_OK);
+    ck_assert_int_eq(f.form, SL_FORM_PEAKED);
+    for (int i = 0; i < 7; i++)
+        ck_assert_msg(fabs(f.theta[i] - truth[i]) < 1e-5 * truth[i], "parameter %d: %g vs %g", i,
+                      f.theta[i], truth[i]);
+    ck_assert(f.chi2 < 1e-8);
+    /* and a smooth profile stays smooth */
+    const double smooth[4] = {45, 0.6, 1.2, 11};
+    for (size_t i = 0; i < n; i++) {
+        y[i] = sl_profile_value(SL_FORM_SMOOTH, smooth, d[i], NULL, NULL, NULL);
+        s[i] = 0.02 * y[i];
+    }
+    ck_assert_int_eq(sl_profile_fit_data(d, y, s, n, "synthetic", &f, &e), SL_OK);
+    ck_assert_int_eq(f.form, SL_FORM_SMOOTH);
+    for (int i = 0; i < 4; i++)
+        ck_assert_double_eq_tol(f.theta[i], smooth[i], 1e-5 * smooth[i]);
+    /* electron and photon parts add up */
+    double el, ph;
+    double v = sl_profile_value(SL_FORM_SMOOTH, smooth, 3, NULL, &el, &ph);
+    ck_assert_double_eq_tol(el + ph, v, 1e-12);
+    ck_assert_double_eq_tol(ph, 1.2 * exp(-3 / 11.0), 1e-12);
+}
+END_TEST
+
+static const char *demo_model(void)
+{
+    static char path[1024];
+    snprintf(path, sizeof path, "%s/models/demo-e1.yaml", sl_test_source_root());
+    return path;
+}
+
+START_TEST(model_round_trip_is_exact)
+{
+    sl_model *a, *b;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_model_load(demo_model(), &a, &e), SL_OK);
+    char path[] = "/tmp/sl_model_XXXXXX";
+    int fd = mkstemp(path);
+    FILE *fp = fdopen(fd, "w");
+    ck_assert_int_eq(sl_model_write(a, fp, &e), SL_OK);
+    fclose(fp);
+    ck_assert_int_eq(sl_model_load(path, &b, &e), SL_OK);
+    unlink(path);
+    ck_assert_uint_eq(a->nprofiles, b->nprofiles);
+    for (size_t i = 0; i < a->nprofiles; i++) {
+        ck_assert_mem_eq(a->profiles[i].fit.theta, b->profiles[i].fit.theta,
+                         sizeof a->profiles[i].fit.theta);
+        ck_assert_mem_eq(a->profiles[i].fit.covar, b->profiles[i].fit.covar,
+                         sizeof a->profiles[i].fit.covar);
+    }
+    const double energies[] = {6, 9, 12, 16, 20};
+    const char *apps[] = {"A06", "A10", "A25"};
+    for (int k = 0; k < 5; k++)
+        for (int j = 0; j < 3; j++)
+            for (double depth = 0; depth <= 3; depth += 0.35)
+                for (double dist = 0; dist < 30; dist += 0.7) {
+                    sl_model_value va, vb;
+                    ck_assert_int_eq(sl_model_eval(a, energies[k], apps[j], NULL, depth, dist,
+                                                   SL_EVAL_FIT, &va, &e),
+                                     SL_OK);
+                    ck_assert_int_eq(sl_model_eval(b, energies[k], apps[j], NULL, depth, dist,
+                                                   SL_EVAL_FIT, &vb, &e),
+                                     SL_OK);
+                    ck_assert(va.percent == vb.percent && va.u_percent == vb.u_percent &&
+                              va.flags == vb.flags);
+                }
+    sl_model_free(a);
+    sl_model_free(b);
+}
+END_TEST
+
+START_TEST(evaluation_refuses_what_is_not_commissioned)
+{
+    sl_model *m;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_model_load(demo_model(), &m, &e), SL_OK);
+    sl_model_value v;
+    ck_assert_int_eq(sl_model_eval(m, 10, "A10", NULL, 1, 3, SL_EVAL_FIT, &v, &e), SL_EINPUT);
+    ck_assert_ptr_nonnull(strstr(e.msg, "not commissioned"));
+    ck_assert_ptr_nonnull(strstr(e.msg, "9 MeV/A10"));
+    ck_assert_int_eq(sl_model_eval(m, 9, "A12", NULL, 1, 3, SL_EVAL_FIT, &v, &e), SL_EINPUT);
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", NULL, 1, -0.5, SL_EVAL_FIT, &v, &e), SL_OK);
+    ck_assert(v.flags & SL_MF_IN_FIELD);
+    ck_assert(isnan(v.percent));
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", "C6", 1, 3, SL_EVAL_FIT, &v, &e), SL_OK);
+    ck_assert(!(v.flags & SL_MF_OPEN_FOR_CUTOUT)); /* C6 is commissioned in A10 */
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", "CUSTOM", 1, 3, SL_EVAL_FIT, &v, &e), SL_OK);
+    ck_assert(v.flags & SL_MF_OPEN_FOR_CUTOUT);
+    sl_model_free(m);
+}
+END_TEST
+
+static Suite *model_suite(void)
+{
+    Suite *s = suite_create("model");
+    TCase *tc = tcase_create("model");
+    tcase_set_timeout(tc, 120);
+    tcase_add_test(tc, edges_of_an_analytic_profile);
+    tcase_add_test(tc, csv_reading_and_its_errors);
+    tcase_add_test(tc, fit_recovers_known_parameters);
+    tcase_add_test(tc, model_round_trip_is_exact);
+    tcase_add_test(tc, evaluation_refuses_what_is_not_commissioned);
+    suite_add_tcase(s, tc);
+    return s;
+}
+
+SL_CHECK_MAIN(model_suite)
