@@ -102,7 +102,7 @@ def raw_ds(item, keyword, text):
 
 def main():
     for f in os.listdir(HERE):
-        if f.endswith(".dcm") or f.endswith(".txt") or f == "cases.tsv":
+        if f.endswith((".dcm", ".txt", ".yaml")) or f == "cases.tsv":
             os.remove(os.path.join(HERE, f))
     # the good pair the table refers to
     rb.save(SS, os.path.join(HERE, "good_rtstruct.dcm"))
