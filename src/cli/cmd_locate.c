@@ -10,6 +10,8 @@
 #include "cli.h"
 #include "strayline/dicom.h"
 #include "strayline/locate.h"
+#include "strayline/machine.h"
+#include "strayline/model.h"
 #include "strayline/util.h"
 
 static const char help[] =
@@ -23,6 +25,9 @@ static const char help[] =
     "(deg). Organs in or touching the field are marked: out-of-field models do not\n"
     "apply there.\n\n"
     "  -f, --format FMT        text (default) or json\n"
+    "  -m, --model FILE        model file whose applicator catalogue gives the field\n"
+    "                          size when the plan has no cutout and no applicator\n"
+    "                          geometry\n"
     "  -d, --depth CM          use this depth for every organ (needed when the\n"
     "                          structure set has no EXTERNAL ROI)\n"
     "      --allow-mismatch    go on when the plan and the structure set do not\n"
@@ -36,6 +41,7 @@ int sl_cmd_locate(int argc, char **argv)
     enum { OPT_MISMATCH = 256, OPT_EXTERNAL };
     static const struct option opts[] = {
         {"format", required_argument, NULL, 'f'},
+        {"model", required_argument, NULL, 'm'},
         {"depth", required_argument, NULL, 'd'},
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
         {"include-external", no_argument, NULL, OPT_EXTERNAL},
@@ -47,15 +53,19 @@ int sl_cmd_locate(int argc, char **argv)
     sl_locate_options lopt;
     sl_locate_default_options(&lopt);
     bool allow_mismatch = false;
+    const char *model_path = NULL;
     int c;
     optind = 1;
-    while ((c = getopt_long(argc, argv, "f:d:j:h", opts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, "f:m:d:j:h", opts, NULL)) != -1) {
         switch (c) {
         case 'f':
             if (!sl_cli_format("locate", optarg, &fmt))
                 return SL_EXIT_USAGE;
             if (fmt == SL_FORMAT_CSV)
                 return sl_cli_usage("locate", "--format csv is not offered by locate");
+            break;
+        case 'm':
+            model_path = optarg;
             break;
         case 'd':
             if (!sl_parse_double(optarg, &lopt.depth_cm) || lopt.depth_cm < 0)
@@ -84,7 +94,17 @@ int sl_cmd_locate(int argc, char **argv)
     sl_plan *plan = NULL;
     sl_structure_set *ss = NULL;
     sl_location *loc = NULL;
+    sl_model *model = NULL;
+    sl_applicator_size *catalogue = NULL;
     int rc = SL_EXIT_OK;
+    if (model_path && (sl_model_load(model_path, &model, &err) != SL_OK ||
+                       sl_machine_catalogue(&model->machine, &catalogue, &lopt.ncatalogue, &err) !=
+                           SL_OK)) {
+        rc = sl_cli_fail(&err);
+        sl_model_free(model);
+        return rc;
+    }
+    lopt.catalogue = catalogue;
     if (sl_dicom_read_plan(argv[optind], &plan, &err) != SL_OK ||
         sl_dicom_read_structures(argv[optind + 1], &ss, &err) != SL_OK ||
         sl_pair_check(plan, ss, allow_mismatch, &err) != SL_OK ||
@@ -98,5 +118,7 @@ int sl_cmd_locate(int argc, char **argv)
     sl_location_free(loc);
     sl_structure_set_free(ss);
     sl_plan_free(plan);
+    free(catalogue);
+    sl_model_free(model);
     return rc;
 }
