@@ -37,12 +37,19 @@ def dmax_cm(e):
 
 
 def pdd(e, z):
-    """Central-axis percent depth dose near the surface (invented)."""
+    """Central-axis percent depth dose (invented, plausible): a build-up from
+    the surface to dmax, 90 % at R90 = E/3.2 cm, falling to the bremsstrahlung
+    tail at Rp = E/2 cm."""
     surface = 74.0 + 1.0 * e
-    zm = dmax_cm(e)
-    if z >= zm:
-        return 100.0
-    return surface + (100.0 - surface) * z / zm
+    zm, r90, rp = dmax_cm(e), e / 3.2, e / 2.0
+    tail = 0.1 + 0.06 * e
+    if z <= zm:
+        return surface + (100.0 - surface) * z / zm
+    if z <= r90:
+        return 100.0 - 10.0 * (z - zm) / (r90 - zm)
+    if z <= rp:
+        return 90.0 - (90.0 - tail) * (z - r90) / (rp - r90)
+    return tail
 
 
 def components(e, size, z, insert_size=None):
@@ -56,7 +63,7 @@ def components(e, size, z, insert_size=None):
     s = 1.1 + 0.04 * size
     l1 = 0.32 + 0.035 * e + 0.12 * z
     edge = 0.5 * pdd(e, z)
-    a = edge - c - b * math.exp(-mu * mu / (2 * s * s))
+    a = max(edge - c - b * math.exp(-mu * mu / (2 * s * s)), 0.2 * edge)
     return a, l1, b, mu, s, c, l2
 
 
@@ -69,7 +76,7 @@ def distances(dmax):
     out, d = [], 0.0
     while d <= dmax + 1e-9:
         out.append(round(d, 3))
-        d += 0.25 if d < 5 else 0.5 if d < 10 else 1.0
+        d += 0.25 if d < 5 else 0.5 if d < 10 else 1.0 if d < 25 else 2.5
     return out
 
 
@@ -97,14 +104,16 @@ def main():
             if factors:
                 out["cutout_factors"] = factors
             outputs.append(out)
-    depths_of = {e: sorted({0.0, 0.5, 1.0, 2.0, dmax_cm(e)}) for e in ENERGIES}
+    # 0, 0.5, 1, 2 cm, dmax, and E/4 cm, beyond which out-of-field dose is
+    # nearly constant with depth (published measurements; see models/README.md)
+    depths_of = {e: sorted({0.0, 0.5, 1.0, 2.0, dmax_cm(e), e / 4.0}) for e in ENERGIES}
     # open applicators, every energy and depth, crossplane, distance from the edge
     for e in ENERGIES:
         for app, size in APPLICATORS:
             for z in depths_of[e]:
                 comp = components(e, size, z)
                 name = "e%02d_%s_open_d%.2f.csv" % (e, app.lower(), z)
-                rows = [(d, noisy(truth(d, comp), rnd)) for d in distances(25.0)]
+                rows = [(d, noisy(truth(d, comp), rnd)) for d in distances(40.0)]
                 write_csv(outdir, name, "edge_distance_cm", "dose_percent", rows)
                 profiles.append(profile(e, app, "open", z, "crossplane", name))
     # the two cutouts
