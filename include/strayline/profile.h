@@ -21,8 +21,9 @@
  * two forms by the corrected Akaike information criterion,
  *   AICc = chi^2 + 2k + 2k(k+1)/(n-k-1),
  * the form with the lower AICc being kept. A peaked fit counts only when its
- * bump is plausible: mu within the measured range, s below half of it and B
- * below twice the largest measured dose. Parameters are reported in
+ * bump is plausible and determined: mu within the measured range, s below
+ * half of it, B below twice the largest measured dose, and each of B, mu, s
+ * with a relative standard error below 50 %. Parameters are reported in
  * natural units with their covariance (propagated from the log-parameters),
  * scaled by the reduced chi-square when that exceeds 1 (data scattering more
  * than their stated uncertainty widen the parameter uncertainty; data that

@@ -256,6 +256,16 @@ sl_status sl_profile_fit_form(const double *d, const double *y, const double *si
     if (rc != SL_OK)
         return sl_error_set(err, rc, "%s: the %s form could not be fitted: %s", what,
                             sl_profile_form_name(form), ferr.msg);
+    if (opt.geodesic) {
+        /* geodesic acceleration's finite-difference second derivative turns
+         * to noise near the minimum and stops the solver a little short on
+         * weakly determined parameters: finish with plain steps */
+        sl_fit_result polish;
+        sl_fit_options popt = opt;
+        popt.geodesic = false;
+        if (sl_fit_run(&pb, res.theta, &popt, &polish, &ferr) == SL_OK && polish.chisq <= res.chisq)
+            res = polish;
+    }
     out->form = form;
     out->p = p;
     double jac[SL_PROFILE_MAX_PARAMS];
@@ -320,6 +330,13 @@ sl_status sl_profile_fit_data(const double *d, const double *y, const double *si
                         peaked.theta[SL_P_S] > 0.5 * (d[n - 1] - d[0]) ||
                         peaked.theta[SL_P_B] > 2 * ymax))
         s2 = SL_EINPUT;
+    /* nor is a bump that the data do not determine (a relative standard
+     * error of its height, position or width of 50 % or more): a bump merged
+     * into the edge's fall-off trades off against the near term */
+    for (size_t k = SL_P_B; s2 == SL_OK && k <= SL_P_S; k++) {
+        if (!(sqrt(peaked.covar[k * 7 + k]) < 0.5 * peaked.theta[k]))
+            s2 = SL_EINPUT;
+    }
     if (s2 == SL_OK && (s1 != SL_OK || peaked.aicc < smooth.aicc)) {
         *out = peaked;
         out->aicc_other = s1 == SL_OK ? smooth.aicc : NAN;
