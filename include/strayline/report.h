@@ -13,6 +13,8 @@
 
 #include "strayline/dicom.h"
 #include "strayline/error.h"
+#include "strayline/dose.h"
+#include "strayline/levels.h"
 #include "strayline/locate.h"
 #include "strayline/measure.h"
 #include "strayline/model.h"
@@ -46,6 +48,22 @@ sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *
 sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
                                 const char *applicator, const char *insert, double depth_cm,
                                 double distance_cm, const sl_model_value *v, sl_error *err);
+
+/* Everything an estimate report shows. */
+typedef struct sl_estimate_report {
+    const sl_plan *plan;
+    const sl_structure_set *ss;
+    const sl_location *loc;
+    const sl_estimate *est;
+    const sl_assessments *as;
+    const sl_model *model;
+    const sl_levels *levels;
+} sl_estimate_report;
+
+/* `strayline estimate`: text table, JSON (schema in
+ * models/estimate-report.schema.json) or CSV, and the HTML report. */
+sl_status sl_report_estimate(FILE *fp, sl_format fmt, const sl_estimate_report *r, sl_error *err);
+sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_error *err);
 
 #ifdef __cplusplus
 }

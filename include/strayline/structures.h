@@ -74,6 +74,11 @@ sl_status sl_structures_external(const sl_structure_set *ss, const sl_roi **out,
 /* Unique ROI numbers, counts that agree, every ROI has a name. */
 sl_status sl_structure_set_validate(sl_structure_set *ss, sl_error *err);
 
+/* Add a ROI holding one POINT contour (mm, patient coordinates): a point
+ * given on the command line (a fetal landmark, a device) stands as an organ. */
+sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const char *type,
+                                  sl_vec3 point_mm, sl_error *err);
+
 /* Do a plan and a structure set belong together? The plan's referenced
  * structure set UID must be the structure set's SOP Instance UID, and the
  * frames of reference must match. With allow_mismatch the check only adds a

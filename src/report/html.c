@@ -21,7 +21,7 @@ const char sl_report_css[] =
     ".caution{border:2px solid #333;padding:.4em .8em;margin:.8em 0;background:#f6f6f6}"
     ".notice{font-weight:bold;letter-spacing:.03em}"
     ".status-exceeds{font-weight:bold}.status-may{font-weight:bold;font-style:italic}"
-    ".small{font-size:.85em;color:#333}"
+    ".small{font-size:.85em;color:#333}.grid{display:flex;flex-wrap:wrap;gap:.6em}"
     "svg{display:block;margin:.3em 0;background:#fff}"
     "svg text{font-family:'DejaVu Sans',Arial,sans-serif;font-size:11px;fill:#111}"
     "svg .axis{stroke:#111;stroke-width:1;fill:none}"

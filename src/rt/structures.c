@@ -172,3 +172,42 @@ sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     return SL_OK;
 }
+
+sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const char *type,
+                                  sl_vec3 point_mm, sl_error *err)
+{
+    if (sl_structures_find(ss, name))
+        return sl_error_set(err, SL_EUSAGE, "a ROI named '%s' exists already", name);
+    sl_roi *rois = realloc(ss->rois, (ss->nrois + 1) * sizeof *rois);
+    if (!rois)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    ss->rois = rois;
+    sl_roi *r = &ss->rois[ss->nrois];
+    memset(r, 0, sizeof *r);
+    int number = 1;
+    for (size_t i = 0; i < ss->nrois; i++)
+        number = ss->rois[i].number >= number ? ss->rois[i].number + 1 : number;
+    bool ok = true;
+    r->number = number;
+    r->name = sl_strdup(name, &ok);
+    r->type = sl_strdup(type, &ok);
+    r->contours = calloc(1, sizeof *r->contours);
+    if (r->contours)
+        r->contours[0].points = malloc(sizeof *r->contours[0].points);
+    if (!ok || !r->contours || !r->contours[0].points) {
+        free(r->name);
+        free(r->type);
+        if (r->contours)
+            free(r->contours[0].points);
+        free(r->contours);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    r->ncontours = 1;
+    r->contours[0].type = SL_CONTOUR_POINT;
+    r->contours[0].npoints = 1;
+    r->contours[0].points[0] = point_mm;
+    ss->nrois++;
+    return sl_notes_add(&ss->notes, "ROI '%s' is a point given on the command line (%.1f, %.1f, "
+                                    "%.1f mm)",
+                        name, point_mm.x, point_mm.y, point_mm.z);
+}

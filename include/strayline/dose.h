@@ -1,0 +1,140 @@
+/*
+ * strayline: the organ-dose stage of `estimate`.
+ *
+ * For every TREATMENT electron beam placed by the locate stage:
+ *   reference dose per fraction (cGy, at the central-axis maximum)
+ *     = Beam Meterset (MU) x the model's dose per MU for the energy and
+ *       applicator x inverse square ((SSDeff + dmax) / (SSDeff + g + dmax))^2
+ *       (g = plan SSD - nominal SSD) x the cutout output factor (1, flagged,
+ *       when the model has none),
+ *   or the reference dose given by option (said in every report);
+ * then at every organ sample the model's percent at its depth and distance
+ * from that beam's field edge; the beams of a fraction group add up, and the
+ * fraction groups add up over the course, each with its own fractions.
+ *
+ * Uncertainty (k = 1) at a sample: the model's combined standard
+ * uncertainty and a setup shift (default 0.5 cm of distance, as a standard
+ * uncertainty; the larger change of the model's value over +/- the shift),
+ * in quadrature; beams and fractions add linearly (fully correlated, the
+ * conservative choice). Upper bounds are estimate + 2 u (k = 2).
+ *
+ * Per organ: maximum, volume-weighted mean, near-maximum (the least dose in
+ * the hottest 0.03 cm3, or 2 % of the volume when that is smaller) and the
+ * dose at the point nearest the field edge, per fraction of each group and
+ * over the course. Organs in or touching any field are not estimated: the
+ * planning system's dose applies there.
+ */
+#ifndef STRAYLINE_DOSE_H
+#define STRAYLINE_DOSE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "strayline/locate.h"
+#include "strayline/model.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+#define SL_NEARMAX_CC 0.03
+#define SL_NEARMAX_FRACTION 0.02
+#define SL_BEAM_DOSE_TOLERANCE 0.10   /* warn when the plan's Beam Dose differs more */
+
+typedef struct sl_shield {
+    const char *roi;
+    double transmission;  /* applied to the electron part of the model only */
+} sl_shield;
+
+typedef struct sl_estimate_options {
+    const sl_model *model;
+    sl_eval_mode mode;
+    double prescription_isodose;  /* fraction (0.9 for 90 %), NAN when not given */
+    double reference_dose_cgy;    /* per fraction, every beam; NAN: computed */
+    double setup_shift_cm;        /* standard uncertainty of distances (default 0.5) */
+    const char *insert;           /* model insert for every cutout; NULL: from block names */
+    const sl_shield *shields;
+    size_t nshields;
+    bool include_targets;         /* estimate PTV / CTV / GTV ROIs too */
+    int threads;
+} sl_estimate_options;
+
+void sl_estimate_default_options(sl_estimate_options *o);
+
+typedef struct sl_beam_dose {
+    const sl_beam_place *place;
+    double energy_mev;
+    const char *applicator;
+    char *insert;                 /* model insert used: "open" or an insert id */
+    bool cutout;                  /* the plan has a cutout */
+    unsigned model_flags;         /* SL_MF_OPEN_FOR_CUTOUT when open profiles stand in */
+    double dose_per_mu_cgy, dmax_cm, effective_ssd_cm;
+    double ssd_used_cm;           /* NAN when neither the plan nor the body gives one */
+    double gap_cm;                /* ssd_used - nominal SSD */
+    double isf;                   /* inverse-square factor */
+    double cutout_factor;
+    bool cutout_factor_assumed;   /* no factor in the model: 1 used */
+    bool reference_overridden;
+    double *mu;                   /* per fraction group (NAN: beam not in that group) */
+    double *ref_cgy;              /* reference dose per fraction, per group (NAN likewise) */
+    double *plan_beam_dose_cgy;   /* Beam Dose of the plan, per group (NAN when absent) */
+    sl_curve_set *curves;
+} sl_beam_dose;
+
+typedef struct sl_dose_stat {
+    double cgy;       /* estimate */
+    double u_cgy;     /* standard uncertainty (k = 1) */
+    double upper_cgy; /* estimate + 2 u */
+} sl_dose_stat;
+
+typedef struct sl_organ_dose {
+    size_t organ;                 /* index into the location's organs */
+    const sl_roi *roi;
+    bool estimated;               /* false for excluded types (targets...) and in field */
+    const char *excluded_why;     /* why not estimated (NULL when estimated) */
+    bool in_field;
+    bool placed;                  /* every sample placed for every beam */
+    double volume_cc;
+    bool is_point;
+    double min_distance_cm;       /* over beams */
+    double min_depth_cm, max_depth_cm;
+    double nearmax_volume_cc;
+    size_t ngroups;
+    sl_dose_stat *fx_max, *fx_mean, *fx_nearmax, *fx_nearest; /* per fraction, per group */
+    sl_dose_stat course_max, course_mean, course_nearmax, course_nearest;
+    size_t max_sample, nearest_sample;
+    double electron_fraction;     /* of the course dose at the hottest sample */
+    double max_energy_mev;        /* highest energy among the beams that reach it */
+    unsigned flags;               /* SL_MF_* met at any sample */
+    double shield_transmission;   /* what-if transmission applied (1 for none) */
+    double *course_cgy;           /* per sample, for dose-volume histograms */
+} sl_organ_dose;
+
+typedef struct sl_estimate {
+    const sl_plan *plan;
+    const sl_structure_set *ss;
+    const sl_location *loc;
+    const sl_model *model;
+    sl_estimate_options opt;
+    size_t ngroups;
+    int *fractions;               /* per group */
+    size_t nbeams;
+    sl_beam_dose *beams;          /* one per placed beam, same order as loc->beams */
+    size_t norgans;
+    sl_organ_dose *organs;        /* one per organ of the location */
+    sl_notes notes;
+} sl_estimate;
+
+sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
+                            const sl_location *loc, const sl_estimate_options *opt,
+                            sl_estimate **out, sl_error *err);
+void sl_estimate_free(sl_estimate *e);
+
+/* Is a ROI of this RT ROI Interpreted Type left out unless asked for? */
+bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why);
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif

@@ -1,0 +1,514 @@
+/*
+ * The organ-dose stage (see include/strayline/dose.h for the arithmetic).
+ *
+ * Organs are independent, so they are computed in parallel; each organ owns
+ * its arrays, and the beams' curve sets are read-only during the loop.
+ */
+#include "strayline/dose.h"
+#include "strayline/parallel.h"
+#include "strayline/util.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+void sl_estimate_default_options(sl_estimate_options *o)
+{
+    memset(o, 0, sizeof *o);
+    o->mode = SL_EVAL_FIT;
+    o->prescription_isodose = NAN;
+    o->reference_dose_cgy = NAN;
+    o->setup_shift_cm = 0.5;
+}
+
+bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why)
+{
+    static const char *const targets[] = {"PTV", "CTV", "GTV", "TREATED_VOLUME", "IRRAD_VOLUME"};
+    static const char *const others[] = {"EXTERNAL", "BOLUS", "SUPPORT", "FIXATION", "ISOCENTER",
+                                         "REGISTRATION", "CONTRAST_AGENT"};
+    if (!type)
+        return false;
+    for (size_t i = 0; i < sizeof targets / sizeof *targets; i++) {
+        if (strcmp(type, targets[i]) == 0) {
+            if (why)
+                *why = "a target volume (give --include-targets to estimate it)";
+            return !include_targets;
+        }
+    }
+    for (size_t i = 0; i < sizeof others / sizeof *others; i++) {
+        if (strcmp(type, others[i]) == 0) {
+            if (why)
+                *why = "not an organ (body, bolus, support, fixation, marker of the setup)";
+            return true;
+        }
+    }
+    return false;
+}
+
+static void organ_free(sl_organ_dose *o)
+{
+    free(o->fx_max);
+    free(o->fx_mean);
+    free(o->fx_nearmax);
+    free(o->fx_nearest);
+    free(o->course_cgy);
+}
+
+void sl_estimate_free(sl_estimate *e)
+{
+    if (!e)
+        return;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        sl_beam_dose *bd = &e->beams[b];
+        free(bd->insert);
+        free(bd->mu);
+        free(bd->ref_cgy);
+        free(bd->plan_beam_dose_cgy);
+        sl_curve_set_free(bd->curves);
+    }
+    free(e->beams);
+    for (size_t i = 0; i < e->norgans; i++)
+        organ_free(&e->organs[i]);
+    free(e->organs);
+    free(e->fractions);
+    sl_notes_free(&e->notes);
+    free(e);
+}
+
+/* The model insert for a beam: the option's, else a model insert whose id
+ * is a cutout block's name or tray id, else a name that no model has, so
+ * that the open profiles stand in (and say so). */
+static const char *choose_insert(const sl_model *m, const sl_beam *b, const char *option)
+{
+    bool cutout = false;
+    for (size_t i = 0; i < b->nblocks; i++)
+        cutout |= b->blocks[i].type == SL_BLOCK_APERTURE;
+    if (!cutout)
+        return SL_INSERT_OPEN;
+    if (option)
+        return option;
+    for (size_t i = 0; i < b->nblocks; i++) {
+        const sl_block *k = &b->blocks[i];
+        if (k->type != SL_BLOCK_APERTURE)
+            continue;
+        const char *names[2] = {k->name, k->tray_id};
+        for (int j = 0; j < 2; j++) {
+            for (size_t s = 0; names[j] && s < m->machine.ninserts; s++) {
+                const sl_insert_spec *in = &m->machine.inserts[s];
+                if (strcmp(in->applicator, b->applicator.id) == 0 &&
+                    sl_strcasecmp(in->id, names[j]) == 0)
+                    return in->id;
+            }
+        }
+    }
+    return "custom cutout";
+}
+
+static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dose *bd,
+                            sl_error *err)
+{
+    const sl_plan *plan = e->plan;
+    const sl_model *m = e->model;
+    const sl_beam *b = bp->beam;
+    const char *f = plan->source;
+    bd->place = bp;
+    bd->energy_mev = b->energy_mev;
+    if (!b->applicator.present || !b->applicator.id)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d: no ApplicatorSequence (300A,0107): the model to use "
+                            "cannot be chosen",
+                            f, b->number);
+    bd->applicator = b->applicator.id;
+    const char *ins = choose_insert(m, b, e->opt.insert);
+    bd->cutout = strcmp(ins, SL_INSERT_OPEN) != 0;
+    bool ok = true;
+    bd->insert = sl_strdup(ins, &ok);
+    if (!ok)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    sl_status st = sl_model_select(m, b->energy_mev, bd->applicator, ins, &bd->curves,
+                                   &bd->model_flags, err);
+    if (st != SL_OK) {
+        char where[300];
+        snprintf(where, sizeof where, "%s: beam %d", f, b->number);
+        sl_error_prefix(err, where);
+        return st;
+    }
+    const sl_output_spec *o = sl_machine_output(&m->machine, b->energy_mev, bd->applicator);
+    if (!o)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: no output (dose per MU) for %g MeV, applicator '%s'",
+                            m->source ? m->source : "model", b->energy_mev, bd->applicator);
+    bd->dose_per_mu_cgy = o->dose_per_mu_cgy;
+    bd->dmax_cm = o->dmax_cm;
+    bd->effective_ssd_cm = o->effective_ssd_cm;
+    bd->cutout_factor = 1.0;
+    bd->cutout_factor_assumed = false;
+    if (bd->cutout) {
+        bd->cutout_factor_assumed = true;
+        if (!(bd->model_flags & SL_MF_OPEN_FOR_CUTOUT)) {
+            for (size_t k = 0; k < o->nfactors; k++) {
+                if (strcmp(o->factors[k].insert, ins) == 0) {
+                    bd->cutout_factor = o->factors[k].factor;
+                    bd->cutout_factor_assumed = false;
+                }
+            }
+        }
+        if (bd->cutout_factor_assumed)
+            sl_notes_add(&e->notes,
+                         "beam %d: no cutout output factor in the model for insert '%s': 1 used "
+                         "(an overestimate when the cutout lowers the output)",
+                         b->number, ins);
+    }
+    if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT)
+        sl_notes_add(&e->notes,
+                     "beam %d: the cutout is not commissioned: the open applicator's profiles "
+                     "are used from the cutout's edge (conservative default)",
+                     b->number);
+    /* inverse square at an SSD other than the nominal one */
+    bd->ssd_used_cm = isfinite(bp->ssd_plan_cm) ? bp->ssd_plan_cm : bp->ssd_found_cm;
+    if (isfinite(bd->ssd_used_cm)) {
+        bd->gap_cm = bd->ssd_used_cm - m->machine.nominal_ssd_cm;
+        double r = (bd->effective_ssd_cm + bd->dmax_cm) /
+                   (bd->effective_ssd_cm + bd->gap_cm + bd->dmax_cm);
+        bd->isf = r * r;
+        if (!isfinite(bp->ssd_plan_cm))
+            sl_notes_add(&e->notes,
+                         "beam %d: the plan gives no SSD: the SSD found on the body contour "
+                         "(%.1f cm) is used for the inverse-square correction",
+                         b->number, bd->ssd_used_cm);
+    } else {
+        bd->gap_cm = NAN;
+        bd->isf = 1.0;
+        sl_notes_add(&e->notes,
+                     "beam %d: no SSD (none in the plan, none found on the body): no "
+                     "inverse-square correction",
+                     b->number);
+    }
+    /* meterset of each fraction group */
+    size_t ng = e->ngroups;
+    bd->mu = malloc(ng * sizeof *bd->mu);
+    bd->ref_cgy = malloc(ng * sizeof *bd->ref_cgy);
+    bd->plan_beam_dose_cgy = malloc(ng * sizeof *bd->plan_beam_dose_cgy);
+    if (!bd->mu || !bd->ref_cgy || !bd->plan_beam_dose_cgy)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    bool in_any = false;
+    double per_mu = bd->dose_per_mu_cgy * bd->isf * bd->cutout_factor;
+    for (size_t g = 0; g < ng; g++) {
+        const sl_fraction_group *fg = &plan->groups[g];
+        bd->mu[g] = bd->ref_cgy[g] = bd->plan_beam_dose_cgy[g] = NAN;
+        for (size_t r = 0; r < fg->nrefs; r++) {
+            if (fg->refs[r].beam_number != b->number)
+                continue;
+            if (!isfinite(fg->refs[r].meterset_mu) && isnan(e->opt.reference_dose_cgy))
+                return sl_error_set(err, SL_EINPUT,
+                                    "%s: fraction group %d: beam %d has no BeamMeterset "
+                                    "(300A,0086): its monitor units are unknown (or give "
+                                    "--reference-dose)",
+                                    f, fg->number, b->number);
+            in_any = true;
+            bd->mu[g] = fg->refs[r].meterset_mu;
+            bd->plan_beam_dose_cgy[g] = fg->refs[r].beam_dose_gy * 100.0;
+            if (!isnan(e->opt.reference_dose_cgy)) {
+                bd->ref_cgy[g] = e->opt.reference_dose_cgy;
+                bd->reference_overridden = true;
+            } else {
+                bd->ref_cgy[g] = bd->mu[g] * per_mu;
+            }
+        }
+    }
+    if (!in_any)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d is in no fraction group: its monitor units and "
+                            "fractions are unknown",
+                            f, b->number);
+    /* the plan's own dose statements, after the prescription isodose */
+    double iso = isnan(e->opt.prescription_isodose) ? 1.0 : e->opt.prescription_isodose;
+    for (size_t g = 0; g < ng; g++) {
+        if (!isfinite(bd->ref_cgy[g]) || !isfinite(bd->plan_beam_dose_cgy[g]) ||
+            bd->plan_beam_dose_cgy[g] <= 0)
+            continue;
+        double expect = bd->ref_cgy[g] * iso;
+        double ratio = bd->plan_beam_dose_cgy[g] / expect;
+        if (fabs(ratio - 1) > SL_BEAM_DOSE_TOLERANCE)
+            sl_notes_add(&e->notes,
+                         "beam %d: the plan's Beam Dose is %.1f cGy a fraction; the model's "
+                         "reference dose %.1f cGy x prescription isodose %.0f %% gives %.1f cGy "
+                         "(%+.0f %%): check the MU, the output or --prescription-isodose",
+                         b->number, bd->plan_beam_dose_cgy[g], bd->ref_cgy[g], 100 * iso, expect,
+                         100 * (ratio - 1));
+    }
+    return SL_OK;
+}
+
+/* ------------------------------------------------------------ organs -- */
+
+typedef struct organ_job {
+    sl_estimate *e;
+    sl_status *status;
+} organ_job;
+
+static double eval_at(const sl_beam_dose *bd, double depth, double d, sl_eval_mode mode, double t,
+                      sl_model_value *v)
+{
+    sl_curves_eval(bd->curves, depth, d, mode, t, v);
+    return v->percent;
+}
+
+/* samples sorted by dose, hottest first, for the near-maximum */
+typedef struct iv {
+    double v;
+    size_t i;
+} iv;
+
+static int cmp_iv(const void *a, const void *b)
+{
+    double x = ((const iv *)a)->v, y = ((const iv *)b)->v;
+    return x < y ? 1 : x > y ? -1 : 0;
+}
+
+static void set_stat(sl_dose_stat *s, double v, double u)
+{
+    s->cgy = v;
+    s->u_cgy = u;
+    s->upper_cgy = v + 2 * u;
+}
+
+static sl_status organ_task_run(sl_estimate *e, size_t o)
+{
+    sl_organ_dose *od = &e->organs[o];
+    const sl_location *loc = e->loc;
+    const sl_organ_samples *s = &loc->samples[o];
+    od->organ = o;
+    od->roi = loc->rois[o];
+    od->volume_cc = s->volume_cc_total;
+    od->is_point = s->is_point;
+    od->ngroups = e->ngroups;
+    od->shield_transmission = 1.0;
+    for (size_t k = 0; k < e->opt.nshields; k++) {
+        if (strcmp(e->opt.shields[k].roi, od->roi->name) == 0)
+            od->shield_transmission = e->opt.shields[k].transmission;
+    }
+    od->min_distance_cm = od->min_depth_cm = INFINITY;
+    od->max_depth_cm = -INFINITY;
+    od->placed = s->n > 0;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_organ_place *p = &loc->beams[b].organs[o];
+        if (p->placed != s->n)
+            od->placed = false;
+        if (p->placed) {
+            od->min_distance_cm = fmin(od->min_distance_cm, p->min_distance_cm);
+            od->min_depth_cm = fmin(od->min_depth_cm, p->min_depth_cm);
+            od->max_depth_cm = fmax(od->max_depth_cm, p->max_depth_cm);
+        }
+        if (sl_organ_in_field(p))
+            od->in_field = true;
+    }
+    const char *why = NULL;
+    if (sl_dose_type_excluded(od->roi->type, e->opt.include_targets, &why)) {
+        od->excluded_why = why;
+        return SL_OK;
+    }
+    if (od->in_field) {
+        od->excluded_why = "in or touching the field: use the planning system's dose";
+        return SL_OK;
+    }
+    if (!od->placed) {
+        od->excluded_why = s->n ? "not placed: part of it lies at or behind a source plane"
+                                : "no samples (no closed contour and no point)";
+        return SL_OK;
+    }
+    size_t n = s->n, ng = e->ngroups;
+    od->fx_max = calloc(ng, sizeof *od->fx_max);
+    od->fx_mean = calloc(ng, sizeof *od->fx_mean);
+    od->fx_nearmax = calloc(ng, sizeof *od->fx_nearmax);
+    od->fx_nearest = calloc(ng, sizeof *od->fx_nearest);
+    od->course_cgy = calloc(n, sizeof *od->course_cgy);
+    double *dg = calloc(n * ng, sizeof *dg), *ug = calloc(n * ng, sizeof *ug);
+    double *uc = calloc(n, sizeof *uc), *ec = calloc(n, sizeof *ec);
+    double *dmin = malloc(n * sizeof *dmin);
+    iv *order = malloc(n * sizeof *order);
+    if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
+        !dg || !ug || !uc || !ec || !dmin || !order) {
+        free(dg);
+        free(ug);
+        free(uc);
+        free(ec);
+        free(dmin);
+        free(order);
+        return SL_ENOMEM;
+    }
+    for (size_t i = 0; i < n; i++)
+        dmin[i] = INFINITY;
+    double shift = e->opt.setup_shift_cm;
+    double t = od->shield_transmission;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        const sl_organ_place *p = &loc->beams[b].organs[o];
+        od->max_energy_mev = fmax(od->max_energy_mev, bd->energy_mev);
+        for (size_t i = 0; i < n; i++) {
+            double d = p->distance_cm[i], z = p->depth_cm[i];
+            dmin[i] = fmin(dmin[i], d);
+            sl_model_value v, vp, vm;
+            double pc = eval_at(bd, z, d, e->opt.mode, t, &v);
+            double pp = eval_at(bd, z, d + shift, e->opt.mode, t, &vp);
+            double pm = eval_at(bd, z, fmax(d - shift, 0), e->opt.mode, t, &vm);
+            double us = fmax(fabs(pp - pc), fabs(pm - pc));
+            double u = sqrt(v.u_percent * v.u_percent + us * us);
+            od->flags |= v.flags | bd->model_flags;
+            for (size_t g = 0; g < ng; g++) {
+                if (!isfinite(bd->ref_cgy[g]))
+                    continue;
+                dg[g * n + i] += bd->ref_cgy[g] * pc / 100;
+                ug[g * n + i] += bd->ref_cgy[g] * u / 100;
+                double c = e->fractions[g] * bd->ref_cgy[g] / 100;
+                od->course_cgy[i] += c * pc;
+                uc[i] += c * u;
+                ec[i] += c * pc * (pc > 0 ? v.electron_percent / pc : 0);
+            }
+        }
+    }
+    /* statistics of one dose array */
+    double vtot = 0;
+    for (size_t i = 0; i < n; i++)
+        vtot += s->is_point ? 1.0 : s->volume_cc[i];
+    od->nearmax_volume_cc = s->is_point ? 0 : fmin(SL_NEARMAX_CC, SL_NEARMAX_FRACTION * vtot);
+    size_t nearest = 0;
+    for (size_t i = 1; i < n; i++) {
+        if (dmin[i] < dmin[nearest])
+            nearest = i;
+    }
+    od->nearest_sample = nearest;
+    for (int pass = -1; pass < (int)ng; pass++) {
+        const double *dv = pass < 0 ? od->course_cgy : dg + (size_t)pass * n;
+        const double *uv = pass < 0 ? uc : ug + (size_t)pass * n;
+        size_t imax = 0;
+        double sum = 0, usum = 0;
+        for (size_t i = 0; i < n; i++) {
+            double w = s->is_point ? 1.0 : s->volume_cc[i];
+            if (dv[i] > dv[imax])
+                imax = i;
+            sum += w * dv[i];
+            usum += w * uv[i];
+            order[i] = (iv){dv[i], i};
+        }
+        qsort(order, n, sizeof *order, cmp_iv);
+        size_t inm = order[0].i;
+        double acc = 0;
+        for (size_t k = 0; k < n; k++) {
+            acc += s->is_point ? 0 : s->volume_cc[order[k].i];
+            inm = order[k].i;
+            if (acc >= od->nearmax_volume_cc)
+                break;
+        }
+        sl_dose_stat *mx = pass < 0 ? &od->course_max : &od->fx_max[pass];
+        sl_dose_stat *mn = pass < 0 ? &od->course_mean : &od->fx_mean[pass];
+        sl_dose_stat *nm = pass < 0 ? &od->course_nearmax : &od->fx_nearmax[pass];
+        sl_dose_stat *ne = pass < 0 ? &od->course_nearest : &od->fx_nearest[pass];
+        set_stat(mx, dv[imax], uv[imax]);
+        set_stat(mn, sum / vtot, usum / vtot);
+        set_stat(nm, dv[inm], uv[inm]);
+        set_stat(ne, dv[nearest], uv[nearest]);
+        if (pass < 0) {
+            od->max_sample = imax;
+            od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
+        }
+    }
+    free(dg);
+    free(ug);
+    free(uc);
+    free(ec);
+    free(dmin);
+    free(order);
+    od->estimated = true;
+    return SL_OK;
+}
+
+static void organ_task(size_t o, void *ctx)
+{
+    organ_job *j = ctx;
+    j->status[o] = organ_task_run(j->e, o);
+}
+
+sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
+                            const sl_location *loc, const sl_estimate_options *opt,
+                            sl_estimate **out, sl_error *err)
+{
+    *out = NULL;
+    if (!opt->model)
+        return sl_error_set(err, SL_EUSAGE, "an estimate needs a model file");
+    if (!(opt->setup_shift_cm >= 0 && opt->setup_shift_cm <= 5))
+        return sl_error_set(err, SL_EUSAGE, "setup shift %g cm: expected 0 to 5 cm",
+                            opt->setup_shift_cm);
+    sl_estimate *e = calloc(1, sizeof *e);
+    if (!e)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    e->plan = plan;
+    e->ss = ss;
+    e->loc = loc;
+    e->model = opt->model;
+    e->opt = *opt;
+    e->ngroups = plan->ngroups;
+    e->fractions = calloc(plan->ngroups ? plan->ngroups : 1, sizeof *e->fractions);
+    e->beams = calloc(loc->nbeams ? loc->nbeams : 1, sizeof *e->beams);
+    e->organs = calloc(loc->norgans ? loc->norgans : 1, sizeof *e->organs);
+    if (!e->fractions || !e->beams || !e->organs) {
+        sl_estimate_free(e);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    sl_status st = SL_OK;
+    for (size_t g = 0; g < plan->ngroups && st == SL_OK; g++) {
+        e->fractions[g] = plan->groups[g].fractions;
+        if (e->fractions[g] < 1)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: fraction group %d: NumberOfFractionsPlanned (300A,0078) "
+                              "missing: the course dose is unknown",
+                              plan->source, plan->groups[g].number);
+    }
+    for (size_t b = 0; b < loc->nbeams && st == SL_OK; b++) {
+        e->nbeams = b + 1;
+        st = setup_beam(e, &loc->beams[b], &e->beams[b], err);
+    }
+    if (st == SL_OK && !isnan(opt->reference_dose_cgy))
+        sl_notes_add(&e->notes,
+                     "the reference dose is set by option to %.1f cGy a fraction for every beam: "
+                     "MU, output and inverse square are not used",
+                     opt->reference_dose_cgy);
+    /* a plan's prescription, when one beam delivers it */
+    if (st == SL_OK && e->nbeams == 1 && e->ngroups == 1) {
+        for (size_t d = 0; d < plan->ndose_refs; d++) {
+            double rx = plan->dose_refs[d].target_prescription_gy * 100;
+            if (!isfinite(rx) || rx <= 0 || !isfinite(e->beams[0].ref_cgy[0]))
+                continue;
+            double iso = isnan(opt->prescription_isodose) ? 1.0 : opt->prescription_isodose;
+            double course = e->beams[0].ref_cgy[0] * iso * e->fractions[0];
+            if (fabs(course / rx - 1) > SL_BEAM_DOSE_TOLERANCE)
+                sl_notes_add(&e->notes,
+                             "the plan prescribes %.0f cGy; the reference dose x isodose %.0f %% x "
+                             "%d fractions gives %.0f cGy (%+.0f %%)",
+                             rx, 100 * iso, e->fractions[0], course, 100 * (course / rx - 1));
+        }
+    }
+    if (st == SL_OK) {
+        e->norgans = loc->norgans;
+        sl_status *ost = calloc(loc->norgans ? loc->norgans : 1, sizeof *ost);
+        if (!ost) {
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        } else {
+            organ_job j = {e, ost};
+            sl_parallel_for(loc->norgans, sl_parallel_threads(opt->threads), organ_task, &j);
+            for (size_t o = 0; o < loc->norgans && st == SL_OK; o++) {
+                if (ost[o] != SL_OK)
+                    st = sl_error_set(err, ost[o], "out of memory estimating organ doses");
+            }
+            free(ost);
+        }
+    }
+    (void)ss;
+    if (st != SL_OK) {
+        sl_estimate_free(e);
+        return st;
+    }
+    *out = e;
+    return SL_OK;
+}

@@ -1,0 +1,590 @@
+/*
+ * `estimate` output in text, JSON and CSV. The JSON keys carry their units
+ * and follow models/estimate-report.schema.json (a test validates every
+ * demo report against it); CSV is written with libcsv's quoting.
+ */
+#include "strayline/report.h"
+#include "strayline/version.h"
+
+#include <csv.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "estimate_common.h"
+#include "jsonw.h"
+
+const unsigned est_flags[EST_NFLAGS] = {SL_MF_IN_FIELD, SL_MF_DEPTH_OUTSIDE, SL_MF_EXTRAPOLATED,
+                                        SL_MF_OPEN_FOR_CUTOUT, SL_MF_POINTS_MODE};
+const char *const est_flag_names[EST_NFLAGS] = {"in_field", "depth_outside_commissioned_range",
+                                                "extrapolated", "open_insert_for_cutout",
+                                                "points_mode"};
+
+size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], size_t max)
+{
+    size_t n = 0;
+    const sl_model *m = r->model;
+    if (n < max && (m->machine.invented || m->notice))
+        snprintf(out[n++], EST_CAUTION_LEN, "%s",
+                 m->notice ? m->notice : "THE MODEL IS INVENTED DEMO DATA: NOT FOR CLINICAL USE");
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "SCREENING ESTIMATE: empirical models of one machine's out-of-field measurements "
+                 "(model %s, machine %s, version %s, SHA-256 %.16s...). It is not a substitute "
+                 "for measurement.",
+                 m->source ? m->source : "-", m->machine.name, m->model_version, m->sha256);
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Confirm high values by measurement (TLD, OSL or diode) before acting on them.");
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Estimates outside the commissioned range (depths, distances, inserts) are marked "
+                 "and carry extra uncertainty; the model is valid only for the machine it was "
+                 "measured on.");
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Inside the field and at its edge the treatment planning system remains the "
+                 "reference: organs there are not estimated.");
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Action levels are screening levels with their sources, not prescriptions; "
+                 "local protocols and a qualified medical physicist decide.");
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Depths are water-equivalent path lengths through the body contour (no CT "
+                 "densities); uncertainties are k = 1 with upper bounds at k = 2 and include a "
+                 "%.1f cm setup shift.",
+                 r->est->opt.setup_shift_cm);
+    return n;
+}
+
+void est_warnings(const sl_estimate_report *r, sl_notes *out)
+{
+    sl_notes_extend(out, &r->plan->notes);
+    sl_notes_extend(out, &r->ss->notes);
+    sl_notes_extend(out, &r->loc->notes);
+    for (size_t b = 0; b < r->loc->nbeams; b++)
+        sl_notes_extend(out, &r->loc->beams[b].notes);
+    sl_notes_extend(out, &r->est->notes);
+    sl_notes_extend(out, &r->as->notes);
+}
+
+const char *est_kind(const sl_assessment *a)
+{
+    return a->kind ? a->kind->kind : "-";
+}
+
+void est_status_text(const sl_assessment *a, char *buf, size_t size)
+{
+    if (a->status == SL_ST_BAND && a->kind) {
+        const char *b = a->kind->bands[a->band].name;
+        const char *bu = a->kind->bands[a->band_upper].name;
+        if (a->band_upper > a->band)
+            snprintf(buf, size, "%s risk band (upper bound: %s)%s", b, bu,
+                     a->flagged ? ": ACTION" : "");
+        else
+            snprintf(buf, size, "%s risk band%s", b, a->flagged ? ": ACTION" : "");
+        return;
+    }
+    snprintf(buf, size, "%s", sl_status_text(a->status));
+}
+
+static const char *orq(const char *s)
+{
+    return s ? s : "-";
+}
+
+/* ------------------------------------------------------------- text -- */
+
+static void text_report(FILE *fp, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    const sl_plan *p = r->plan;
+    fprintf(fp, "strayline %s: out-of-field dose screening estimate\n", sl_version());
+    fprintf(fp, "plan %s (%s), structure set %s (%s)\n", orq(p->label), p->source,
+            orq(r->ss->label), r->ss->source);
+    fprintf(fp, "patient %s, ID %s (from the plan)\n", orq(p->patient_name), orq(p->patient_id));
+    const sl_patient *pt = &r->as->patient;
+    if (!isnan(pt->gestational_weeks))
+        fprintf(fp, "pregnant: gestational age %.1f weeks\n", pt->gestational_weeks);
+    if (pt->pacing_dependent)
+        fprintf(fp, "pacing-dependent patient\n");
+    fprintf(fp, "model %s: machine %s, version %s; action levels %s\n", orq(r->model->source),
+            r->model->machine.name, r->model->model_version, orq(r->levels->source));
+    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
+    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    fprintf(fp, "\n*** %s\n", cautions[0]);
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        const sl_beam *be = bd->place->beam;
+        fprintf(fp, "\nbeam %d '%s': %g MeV, applicator %s, insert %s%s\n", be->number,
+                orq(be->name), bd->energy_mev, bd->applicator, bd->insert,
+                bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (open profiles used: conservative)"
+                                                        : "");
+        fprintf(fp, "  %.3f cGy/MU, SSD %.1f cm (inverse square %.3f), cutout factor %.3f%s\n",
+                bd->dose_per_mu_cgy, bd->ssd_used_cm, bd->isf, bd->cutout_factor,
+                bd->cutout_factor_assumed ? " (assumed)" : "");
+        for (size_t g = 0; g < e->ngroups; g++) {
+            if (!isfinite(bd->ref_cgy[g]))
+                continue;
+            fprintf(fp, "  fraction group %d: ", p->groups[g].number);
+            if (isfinite(bd->mu[g]))
+                fprintf(fp, "%.1f MU, ", bd->mu[g]);
+            fprintf(fp, "reference dose %.1f cGy a fraction at dmax%s x %d fractions\n",
+                    bd->ref_cgy[g], bd->reference_overridden ? " (set by option)" : "",
+                    e->fractions[g]);
+        }
+    }
+    fprintf(fp, "\n%-18s %-14s %7s %11s %19s %19s %9s %7s  %s\n", "organ", "kind", "min dist",
+            "depth", "max a fraction", "course max", "course", "level", "status");
+    fprintf(fp, "%-18s %-14s %7s %11s %19s %19s %9s %7s\n", "", "", "cm", "cm",
+            "cGy (upper, k=2)", "cGy (upper, k=2)", "mean cGy", "Gy");
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        if (!d->estimated)
+            continue;
+        char depth[24], fx[32], course[32], mean[16], level[16], status[96];
+        snprintf(depth, sizeof depth, "%.1f-%.1f", d->min_depth_cm, d->max_depth_cm);
+        if (e->ngroups == 1)
+            snprintf(fx, sizeof fx, "%.3g (%.3g)", d->fx_max[0].cgy, d->fx_max[0].upper_cgy);
+        else
+            snprintf(fx, sizeof fx, "by group (JSON)");
+        snprintf(course, sizeof course, "%.3g (%.3g)", d->course_max.cgy,
+                 d->course_max.upper_cgy);
+        snprintf(mean, sizeof mean, "%.3g", d->course_mean.cgy);
+        if (a->governing)
+            snprintf(level, sizeof level, "%.3g", a->governing->dose_gy);
+        else if (a->status == SL_ST_BAND)
+            snprintf(level, sizeof level, "bands");
+        else
+            snprintf(level, sizeof level, "-");
+        est_status_text(a, status, sizeof status);
+        char marks[48] = "";
+        if (d->flags & SL_MF_EXTRAPOLATED)
+            strncat(marks, " [extrapolated]", sizeof marks - strlen(marks) - 1);
+        if (d->flags & SL_MF_DEPTH_OUTSIDE)
+            strncat(marks, " [depth]", sizeof marks - strlen(marks) - 1);
+        fprintf(fp, "%-18.18s %-14.14s %7.2f %11s %19s %19s %9s %7s  %s%s\n", d->roi->name,
+                est_kind(a), d->min_distance_cm, depth, fx, course, mean, level, status, marks);
+    }
+    bool any = false;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (d->estimated)
+            continue;
+        if (!any)
+            fprintf(fp, "\nnot estimated:\n");
+        any = true;
+        fprintf(fp, "  %-18s %s\n", d->roi->name, orq(d->excluded_why));
+    }
+    fprintf(fp, "\nmarks: [extrapolated] beyond the measured distances; [depth] deeper or "
+                "shallower than the commissioned depths (nearest depth used)\n");
+    any = false;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_assessment *a = &r->as->items[o];
+        if (!a->dose->estimated || (a->advice.count == 0 && a->statements.count == 0 &&
+                                    isnan(a->lar_cases)))
+            continue;
+        if (!any)
+            fprintf(fp, "\nadvice and risk statements:\n");
+        any = true;
+        fprintf(fp, "  %s:\n", a->dose->roi->name);
+        for (size_t i = 0; i < a->advice.count; i++)
+            fprintf(fp, "    - %s\n", a->advice.items[i]);
+        for (size_t i = 0; i < a->statements.count; i++)
+            fprintf(fp, "    - %s\n", a->statements.items[i]);
+        if (!isnan(a->lar_cases))
+            fprintf(fp, "    - lifetime attributable risk of cancer incidence: about %.3g cases "
+                        "per 100,000 patients for a mean course dose of %.3g Gy (%s; %s; a "
+                        "population average, not an individual prediction)\n",
+                    a->lar_cases, a->dose->course_mean.cgy / 100, a->lar->source, a->lar->mark);
+        if (a->status == SL_ST_BAND)
+            fprintf(fp, "    - risk bands: %s (%s)%s\n", a->kind->bands_source, a->kind->bands_mark,
+                    r->as->patient.pacing_dependent ? "; moved up for pacing dependence" : "");
+        for (size_t c = 0; c < a->nchecks; c++)
+            fprintf(fp, "    - %s: %.3g Gy (%s; %s): %s\n", a->checks[c].level->name,
+                    a->checks[c].level->dose_gy, a->checks[c].level->source,
+                    a->checks[c].level->mark,
+                    a->checks[c].exceeded         ? "exceeded"
+                    : a->checks[c].upper_exceeded ? "reached by the upper bound"
+                                                  : "not reached");
+    }
+    fprintf(fp, "\ncautions:\n");
+    for (size_t i = 0; i < nc; i++)
+        fprintf(fp, "  - %s\n", cautions[i]);
+    sl_notes w = {0};
+    est_warnings(r, &w);
+    if (w.count)
+        fprintf(fp, "\nwarnings:\n");
+    for (size_t i = 0; i < w.count; i++)
+        fprintf(fp, "  - %s\n", w.items[i]);
+    sl_notes_free(&w);
+    fprintf(fp, "\n%s\n", r->as->any_flagged
+                              ? "RESULT: at least one organ needs attention (see status and advice)"
+                              : "RESULT: no organ reaches its action level at this screening");
+}
+
+/* ------------------------------------------------------------- JSON -- */
+
+static void put_stat(jw *w, json_object *o, const char *prefix, const sl_dose_stat *s)
+{
+    char k[64];
+    snprintf(k, sizeof k, "%s_cgy", prefix);
+    jw_num(w, o, k, s->cgy);
+    snprintf(k, sizeof k, "%s_u_cgy", prefix);
+    jw_num(w, o, k, s->u_cgy);
+    snprintf(k, sizeof k, "%s_upper_cgy", prefix);
+    jw_num(w, o, k, s->upper_cgy);
+}
+
+static json_object *notes_array(jw *w, const sl_notes *n)
+{
+    return jw_notes(w, n);
+}
+
+static json_object *json_report(jw *w, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    const sl_plan *p = r->plan;
+    json_object *root = json_object_new_object();
+    jw_str(w, root, "tool", "strayline");
+    jw_str(w, root, "version", sl_version());
+    jw_str(w, root, "report", "out-of-field dose screening estimate");
+    jw_bool(w, root, "screening_estimate", true);
+    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
+    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    json_object *ca = json_object_new_array();
+    for (size_t i = 0; i < nc; i++)
+        jw_append(w, ca, json_object_new_string(cautions[i]));
+    jw_put(w, root, "cautions", ca);
+
+    json_object *in = json_object_new_object();
+    json_object *po = json_object_new_object();
+    jw_str(w, po, "file", p->source);
+    jw_str(w, po, "sop_instance_uid", p->sop_instance_uid);
+    jw_str(w, po, "label", p->label);
+    jw_put(w, in, "plan", po);
+    json_object *so = json_object_new_object();
+    jw_str(w, so, "file", r->ss->source);
+    jw_str(w, so, "sop_instance_uid", r->ss->sop_instance_uid);
+    jw_str(w, so, "label", r->ss->label);
+    jw_put(w, in, "structure_set", so);
+    json_object *mo = json_object_new_object();
+    jw_str(w, mo, "file", r->model->source);
+    jw_str(w, mo, "sha256", r->model->sha256);
+    jw_str(w, mo, "model_version", r->model->model_version);
+    jw_str(w, mo, "machine", r->model->machine.name);
+    jw_bool(w, mo, "invented", r->model->machine.invented);
+    jw_str(w, mo, "notice", r->model->notice);
+    jw_put(w, in, "model", mo);
+    json_object *lo = json_object_new_object();
+    jw_str(w, lo, "file", r->levels->source);
+    jw_str(w, lo, "sha256", r->levels->sha256);
+    jw_put(w, in, "action_levels", lo);
+    jw_put(w, root, "inputs", in);
+
+    const sl_patient *pt = &r->as->patient;
+    json_object *pa = json_object_new_object();
+    jw_str(w, pa, "id", p->patient_id);
+    jw_str(w, pa, "name", p->patient_name);
+    jw_num_opt(w, pa, "gestational_age_weeks", pt->gestational_weeks);
+    jw_bool(w, pa, "pacing_dependent", pt->pacing_dependent);
+    jw_num_opt(w, pa, "age_years", pt->age_years);
+    char sex[2] = {pt->sex, 0};
+    jw_str(w, pa, "sex", pt->sex ? sex : NULL);
+    jw_put(w, root, "patient", pa);
+
+    json_object *op = json_object_new_object();
+    jw_num(w, op, "setup_shift_cm", e->opt.setup_shift_cm);
+    jw_num_opt(w, op, "prescription_isodose_percent",
+               isnan(e->opt.prescription_isodose) ? NAN : 100 * e->opt.prescription_isodose);
+    jw_num_opt(w, op, "reference_dose_cgy", e->opt.reference_dose_cgy);
+    jw_str(w, op, "evaluation", e->opt.mode == SL_EVAL_POINTS ? "measured points" : "fitted form");
+    jw_str(w, op, "insert", e->opt.insert);
+    jw_bool(w, op, "include_targets", e->opt.include_targets);
+    json_object *sh = json_object_new_array();
+    for (size_t i = 0; i < e->opt.nshields; i++) {
+        json_object *x = json_object_new_object();
+        jw_str(w, x, "roi", e->opt.shields[i].roi);
+        jw_num(w, x, "electron_transmission", e->opt.shields[i].transmission);
+        jw_append(w, sh, x);
+    }
+    jw_put(w, op, "shields", sh);
+    jw_put(w, root, "options", op);
+
+    json_object *groups = json_object_new_array();
+    for (size_t g = 0; g < e->ngroups; g++) {
+        json_object *x = json_object_new_object();
+        jw_int(w, x, "number", p->groups[g].number);
+        jw_int(w, x, "fractions", e->fractions[g]);
+        jw_append(w, groups, x);
+    }
+    jw_put(w, root, "fraction_groups", groups);
+
+    json_object *beams = json_object_new_array();
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        const sl_beam_place *bp = bd->place;
+        json_object *x = json_object_new_object();
+        jw_int(w, x, "number", bp->beam->number);
+        jw_str(w, x, "name", bp->beam->name);
+        jw_num(w, x, "energy_mev", bd->energy_mev);
+        jw_str(w, x, "applicator", bd->applicator);
+        jw_str(w, x, "insert", bd->insert);
+        jw_bool(w, x, "open_profiles_for_cutout", bd->model_flags & SL_MF_OPEN_FOR_CUTOUT);
+        jw_num(w, x, "dose_per_mu_cgy", bd->dose_per_mu_cgy);
+        jw_num_opt(w, x, "ssd_cm", bd->ssd_used_cm);
+        jw_num(w, x, "inverse_square_factor", bd->isf);
+        jw_num(w, x, "cutout_factor", bd->cutout_factor);
+        jw_bool(w, x, "cutout_factor_assumed", bd->cutout_factor_assumed);
+        jw_bool(w, x, "reference_dose_overridden", bd->reference_overridden);
+        json_object *mu = json_object_new_array(), *ref = json_object_new_array(),
+                    *pbd = json_object_new_array();
+        for (size_t g = 0; g < e->ngroups; g++) {
+            jw_append(w, mu, isfinite(bd->mu[g]) ? jw_number(w, bd->mu[g], "mu") : NULL);
+            jw_append(w, ref, isfinite(bd->ref_cgy[g]) ? jw_number(w, bd->ref_cgy[g], "ref") : NULL);
+            jw_append(w, pbd, isfinite(bd->plan_beam_dose_cgy[g])
+                                  ? jw_number(w, bd->plan_beam_dose_cgy[g], "beam dose")
+                                  : NULL);
+        }
+        jw_put(w, x, "mu_per_fraction", mu);
+        jw_put(w, x, "reference_dose_per_fraction_cgy", ref);
+        jw_put(w, x, "plan_beam_dose_per_fraction_cgy", pbd);
+        double lo_r, hi_r;
+        sl_curves_range(bd->curves, &lo_r, &hi_r);
+        json_object *range = json_object_new_array();
+        jw_append(w, range, jw_number(w, lo_r, "range"));
+        jw_append(w, range, jw_number(w, hi_r, "range"));
+        jw_put(w, x, "commissioned_distance_range_cm", range);
+        const double *dv;
+        size_t nd = sl_curves_depths(bd->curves, &dv);
+        json_object *depths = json_object_new_array();
+        for (size_t k = 0; k < nd; k++)
+            jw_append(w, depths, jw_number(w, dv[k], "depths"));
+        jw_put(w, x, "commissioned_depths_cm", depths);
+        jw_num_opt(w, x, "ssd_found_cm", bp->ssd_found_cm);
+        jw_num_opt(w, x, "obliquity_deg", bp->obliquity_deg);
+        jw_append(w, beams, x);
+    }
+    jw_put(w, root, "beams", beams);
+
+    json_object *organs = json_object_new_array();
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        json_object *x = json_object_new_object();
+        jw_str(w, x, "roi", d->roi->name);
+        jw_int(w, x, "roi_number", d->roi->number);
+        jw_str(w, x, "type", d->roi->type);
+        jw_str(w, x, "kind", a->kind ? a->kind->kind : NULL);
+        jw_str(w, x, "kind_source", a->kind ? (a->kind_by_option ? "option" : "name pattern") : NULL);
+        jw_bool(w, x, "estimated", d->estimated);
+        jw_str(w, x, "not_estimated_reason", d->estimated ? a->not_assessed_why : d->excluded_why);
+        static const char *const codes[] = {"below_level", "may_exceed", "exceeds", "risk_band",
+                                            "no_action_level", "in_field", "not_assessed"};
+        jw_str(w, x, "status", codes[a->status]);
+        char st[128];
+        est_status_text(a, st, sizeof st);
+        jw_str(w, x, "status_text", st);
+        jw_bool(w, x, "flagged", a->flagged);
+        jw_num(w, x, "volume_cc", d->volume_cc);
+        jw_bool(w, x, "point", d->is_point);
+        jw_num_opt(w, x, "min_distance_cm", isfinite(d->min_distance_cm) ? d->min_distance_cm : NAN);
+        jw_num_opt(w, x, "min_depth_cm", isfinite(d->min_depth_cm) ? d->min_depth_cm : NAN);
+        jw_num_opt(w, x, "max_depth_cm", isfinite(d->max_depth_cm) ? d->max_depth_cm : NAN);
+        if (d->estimated) {
+            jw_num(w, x, "nearmax_volume_cc", d->nearmax_volume_cc);
+            put_stat(w, x, "course_max", &d->course_max);
+            put_stat(w, x, "course_mean", &d->course_mean);
+            put_stat(w, x, "course_nearmax", &d->course_nearmax);
+            put_stat(w, x, "course_nearest", &d->course_nearest);
+            json_object *fx = json_object_new_array();
+            for (size_t g = 0; g < e->ngroups; g++) {
+                json_object *f = json_object_new_object();
+                jw_int(w, f, "fraction_group", p->groups[g].number);
+                put_stat(w, f, "max", &d->fx_max[g]);
+                put_stat(w, f, "mean", &d->fx_mean[g]);
+                put_stat(w, f, "nearmax", &d->fx_nearmax[g]);
+                put_stat(w, f, "nearest", &d->fx_nearest[g]);
+                jw_append(w, fx, f);
+            }
+            jw_put(w, x, "per_fraction", fx);
+            jw_num(w, x, "electron_fraction", d->electron_fraction);
+            jw_num(w, x, "electron_transmission", d->shield_transmission);
+            const sl_vec3 *pmax = &r->loc->samples[o].points[d->max_sample];
+            json_object *pm = json_object_new_array();
+            jw_append(w, pm, jw_number(w, pmax->x, "hottest_point_cm"));
+            jw_append(w, pm, jw_number(w, pmax->y, "hottest_point_cm"));
+            jw_append(w, pm, jw_number(w, pmax->z, "hottest_point_cm"));
+            jw_put(w, x, "hottest_point_cm", pm);
+        }
+        json_object *flags = json_object_new_array();
+        for (size_t i = 0; i < EST_NFLAGS; i++) {
+            if (d->flags & est_flags[i])
+                jw_append(w, flags, json_object_new_string(est_flag_names[i]));
+        }
+        jw_put(w, x, "flags", flags);
+        if (a->governing) {
+            json_object *lv = json_object_new_object();
+            jw_str(w, lv, "name", a->governing->name);
+            jw_num(w, lv, "dose_gy", a->governing->dose_gy);
+            jw_str(w, lv, "source", a->governing->source);
+            jw_str(w, lv, "mark", a->governing->mark);
+            jw_put(w, x, "level", lv);
+        } else {
+            jw_put(w, x, "level", NULL);
+        }
+        json_object *checks = json_object_new_array();
+        for (size_t c = 0; c < a->nchecks; c++) {
+            json_object *lv = json_object_new_object();
+            jw_str(w, lv, "name", a->checks[c].level->name);
+            jw_num(w, lv, "dose_gy", a->checks[c].level->dose_gy);
+            jw_str(w, lv, "source", a->checks[c].level->source);
+            jw_str(w, lv, "mark", a->checks[c].level->mark);
+            jw_bool(w, lv, "exceeded", a->checks[c].exceeded);
+            jw_bool(w, lv, "upper_exceeded", a->checks[c].upper_exceeded);
+            jw_append(w, checks, lv);
+        }
+        jw_put(w, x, "levels", checks);
+        if (a->status == SL_ST_BAND) {
+            json_object *bo = json_object_new_object();
+            jw_str(w, bo, "name", a->kind->bands[a->band].name);
+            jw_str(w, bo, "by_upper_bound", a->kind->bands[a->band_upper].name);
+            jw_bool(w, bo, "pacing_dependent_shift", r->as->patient.pacing_dependent);
+            jw_str(w, bo, "source", a->kind->bands_source);
+            jw_str(w, bo, "mark", a->kind->bands_mark);
+            jw_put(w, x, "band", bo);
+        } else {
+            jw_put(w, x, "band", NULL);
+        }
+        if (a->shield_advised) {
+            json_object *s = json_object_new_object();
+            jw_num(w, s, "lead_mm", a->lead_mm);
+            jw_num(w, s, "low_melting_alloy_mm", a->alloy_mm);
+            jw_num(w, s, "energy_mev", a->shield_energy_mev);
+            jw_put(w, x, "shield", s);
+        } else {
+            jw_put(w, x, "shield", NULL);
+        }
+        jw_bool(w, x, "photon_dominated", a->photon_dominated);
+        jw_bool(w, x, "measurement_advised", a->measurement_advised);
+        jw_put(w, x, "advice", notes_array(w, &a->advice));
+        jw_put(w, x, "statements", notes_array(w, &a->statements));
+        jw_num_opt(w, x, "lifetime_risk_cases_per_100000", a->lar_cases);
+        jw_str(w, x, "lifetime_risk_source", a->lar && !isnan(a->lar_cases) ? a->lar->source : NULL);
+        jw_append(w, organs, x);
+    }
+    jw_put(w, root, "organs", organs);
+    jw_bool(w, root, "any_flagged", r->as->any_flagged);
+    sl_notes all = {0};
+    est_warnings(r, &all);
+    jw_put(w, root, "warnings", jw_notes(w, &all));
+    sl_notes_free(&all);
+    return root;
+}
+
+/* -------------------------------------------------------------- CSV -- */
+
+static void csv_field(FILE *fp, const char *s, bool last)
+{
+    csv_fwrite(fp, s, strlen(s));
+    fputc(last ? '\n' : ',', fp);
+}
+
+static void csv_num(FILE *fp, double v, bool last)
+{
+    char buf[32] = "";
+    if (isfinite(v))
+        snprintf(buf, sizeof buf, "%.6g", v);
+    csv_field(fp, buf, last);
+}
+
+static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err)
+{
+    static const char *const head[] = {
+        "roi", "kind", "status", "flagged", "min_distance_cm", "min_depth_cm", "max_depth_cm",
+        "volume_cc", "fraction_max_cgy", "fraction_max_upper_cgy", "course_max_cgy",
+        "course_max_upper_cgy", "course_mean_cgy", "course_mean_upper_cgy",
+        "course_nearmax_cgy", "course_nearest_cgy", "level_gy", "level_source", "flags",
+        "not_estimated_reason"};
+    size_t nh = sizeof head / sizeof *head;
+    for (size_t i = 0; i < nh; i++)
+        csv_field(fp, head[i], i + 1 == nh);
+    const sl_estimate *e = r->est;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        char st[128], flags[160] = "";
+        est_status_text(a, st, sizeof st);
+        for (size_t i = 0; i < EST_NFLAGS; i++) {
+            if (d->flags & est_flags[i]) {
+                strncat(flags, flags[0] ? ";" : "", sizeof flags - strlen(flags) - 1);
+                strncat(flags, est_flag_names[i], sizeof flags - strlen(flags) - 1);
+            }
+        }
+        bool est = d->estimated;
+        csv_field(fp, d->roi->name, false);
+        csv_field(fp, est_kind(a), false);
+        csv_field(fp, st, false);
+        csv_field(fp, a->flagged ? "yes" : "no", false);
+        csv_num(fp, d->min_distance_cm, false);
+        csv_num(fp, d->min_depth_cm, false);
+        csv_num(fp, d->max_depth_cm, false);
+        csv_num(fp, d->volume_cc, false);
+        csv_num(fp, est && e->ngroups == 1 ? d->fx_max[0].cgy : NAN, false);
+        csv_num(fp, est && e->ngroups == 1 ? d->fx_max[0].upper_cgy : NAN, false);
+        csv_num(fp, est ? d->course_max.cgy : NAN, false);
+        csv_num(fp, est ? d->course_max.upper_cgy : NAN, false);
+        csv_num(fp, est ? d->course_mean.cgy : NAN, false);
+        csv_num(fp, est ? d->course_mean.upper_cgy : NAN, false);
+        csv_num(fp, est ? d->course_nearmax.cgy : NAN, false);
+        csv_num(fp, est ? d->course_nearest.cgy : NAN, false);
+        csv_num(fp, a->governing ? a->governing->dose_gy : NAN, false);
+        csv_field(fp, a->governing ? a->governing->source : "", false);
+        csv_field(fp, flags, false);
+        csv_field(fp, est ? (a->not_assessed_why ? a->not_assessed_why : "")
+                          : (d->excluded_why ? d->excluded_why : ""),
+                  true);
+    }
+    return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the CSV output") : SL_OK;
+}
+
+/* A non-finite number must never reach a report: check what the writers
+ * are about to print and name the field otherwise. */
+static sl_status check_finite(const sl_estimate_report *r, sl_error *err)
+{
+    const sl_estimate *e = r->est;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated)
+            continue;
+        const sl_dose_stat *s[] = {&d->course_max, &d->course_mean, &d->course_nearmax,
+                                   &d->course_nearest};
+        const char *names[] = {"course_max", "course_mean", "course_nearmax", "course_nearest"};
+        for (int k = 0; k < 4; k++) {
+            if (!isfinite(s[k]->cgy) || !isfinite(s[k]->u_cgy) || !isfinite(s[k]->upper_cgy))
+                return sl_error_set(err, SL_EINTERNAL,
+                                    "report refused a non-finite value for %s of ROI '%s' (a "
+                                    "bug: please report it)",
+                                    names[k], d->roi->name);
+        }
+    }
+    return SL_OK;
+}
+
+sl_status sl_report_estimate(FILE *fp, sl_format fmt, const sl_estimate_report *r, sl_error *err)
+{
+    sl_status st = check_finite(r, err);
+    if (st != SL_OK)
+        return st;
+    if (fmt == SL_FORMAT_CSV)
+        return csv_report(fp, r, err);
+    if (fmt == SL_FORMAT_TEXT) {
+        text_report(fp, r);
+        return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the output") : SL_OK;
+    }
+    jw w = {err, SL_OK};
+    return jw_write(&w, json_report(&w, r), fp);
+}

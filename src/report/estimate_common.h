@@ -1,0 +1,30 @@
+/*
+ * Private helpers shared by the estimate writers (text, JSON, CSV, HTML), so
+ * that every output says the same cautions and names flags the same way.
+ */
+#ifndef STRAYLINE_REPORT_ESTIMATE_COMMON_H
+#define STRAYLINE_REPORT_ESTIMATE_COMMON_H
+
+#include "strayline/report.h"
+
+#define EST_MAX_CAUTIONS 12
+#define EST_CAUTION_LEN 600
+
+/* The cautions every output carries, in order. */
+size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], size_t max);
+
+/* The SL_MF_* flags, in a fixed order, with their JSON names. */
+extern const unsigned est_flags[];
+extern const char *const est_flag_names[];
+#define EST_NFLAGS 5
+
+/* Every warning of the inputs and stages, in one list (caller frees). */
+void est_warnings(const sl_estimate_report *r, sl_notes *out);
+
+/* Text of an organ's status, with its band for cardiac devices. */
+void est_status_text(const sl_assessment *a, char *buf, size_t size);
+
+/* The kind's name or "-". */
+const char *est_kind(const sl_assessment *a);
+
+#endif

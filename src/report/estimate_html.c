@@ -1,0 +1,591 @@
+/*
+ * The HTML report of `estimate --html`: one self-contained file (a libxml2
+ * tree with inline SVG; no external reference), printable on A4 or Letter.
+ * It shows the cautions first, the organ table with statuses in words, the
+ * advice, and for each beam a beam's-eye view (field and applicator
+ * outlines, the organs' projections, rings at 1, 2, 5 and 10 cm from the
+ * field edge) and the dose against distance with its uncertainty band and
+ * the organs marked, then a dose-volume histogram for each organ.
+ */
+#include "strayline/report.h"
+#include "strayline/version.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "estimate_common.h"
+#include "html.h"
+
+typedef struct pt2 {
+    double x, y;
+} pt2;
+
+static int cmp_pt(const void *a, const void *b)
+{
+    const pt2 *p = a, *q = b;
+    if (p->x != q->x)
+        return p->x < q->x ? -1 : 1;
+    return p->y < q->y ? -1 : p->y > q->y;
+}
+
+static double cross3(pt2 o, pt2 a, pt2 b)
+{
+    return (a.x - o.x) * (b.y - o.y) - (a.y - o.y) * (b.x - o.x);
+}
+
+/* Convex hull (monotone chain); returns the hull size, points in h. */
+static size_t hull(pt2 *p, size_t n, pt2 *h)
+{
+    if (n < 3) {
+        memcpy(h, p, n * sizeof *p);
+        return n;
+    }
+    qsort(p, n, sizeof *p, cmp_pt);
+    size_t k = 0;
+    for (size_t i = 0; i < n; i++) {
+        while (k >= 2 && cross3(h[k - 2], h[k - 1], p[i]) <= 0)
+            k--;
+        h[k++] = p[i];
+    }
+    for (size_t i = n - 1, t = k + 1; i > 0; i--) {
+        while (k >= t && cross3(h[k - 2], h[k - 1], p[i - 1]) <= 0)
+            k--;
+        h[k++] = p[i - 1];
+    }
+    return k - 1;
+}
+
+typedef struct view {
+    double u0, v0, scale, w, h; /* iso-plane cm -> px */
+} view;
+
+static double px(const view *v, double u)
+{
+    return (u - v->u0) * v->scale;
+}
+
+static double py(const view *v, double vv)
+{
+    return v->h - (vv - v->v0) * v->scale;
+}
+
+static void poly(hdoc *h, xmlNodePtr g, const view *v, const sl_vec2 *p, size_t n, double f,
+                 const char *cls, const char *stroke)
+{
+    size_t cap = n * 24 + 8, len = 0;
+    char *d = malloc(cap);
+    if (!d) {
+        h->failed = true;
+        return;
+    }
+    d[0] = '\0';
+    for (size_t i = 0; i < n; i++)
+        len += (size_t)snprintf(d + len, cap - len, "%.1f,%.1f ", px(v, p[i].x * f),
+                                py(v, p[i].y * f));
+    xmlNodePtr e = hel(h, g, "polygon", NULL);
+    hattr(h, e, "points", d);
+    hattr(h, e, "class", cls);
+    if (stroke)
+        hattr(h, e, "style", stroke);
+    free(d);
+}
+
+static void svg_label(hdoc *h, xmlNodePtr g, double x, double y, const char *text, int size)
+{
+    xmlNodePtr t = hel(h, g, "text", text);
+    hattrf(h, t, "x", "%.1f", x);
+    hattrf(h, t, "y", "%.1f", y);
+    hattrf(h, t, "font-size", "%d", size);
+}
+
+static void ring(hdoc *h, xmlNodePtr g, const view *v, const sl_outline *o, double r, int which)
+{
+    sl_vec2 lo, hi;
+    sl_outline_bounds(o, &lo, &hi);
+    sl_vec2 c = {(lo.x + hi.x) / 2, (lo.y + hi.y) / 2};
+    enum { N = 144 };
+    sl_vec2 p[N];
+    for (int i = 0; i < N; i++) {
+        double a = 2 * M_PI * i / N, dx = cos(a), dy = sin(a);
+        double t0 = 0, t1 = 200;
+        for (int it = 0; it < 50; it++) {
+            double tm = 0.5 * (t0 + t1);
+            if (sl_outline_distance(o, (sl_vec2){c.x + tm * dx, c.y + tm * dy}) < r)
+                t0 = tm;
+            else
+                t1 = tm;
+        }
+        p[i] = (sl_vec2){c.x + t0 * dx, c.y + t0 * dy};
+    }
+    poly(h, g, v, p, N, 1.0, "ring", NULL);
+    char lab[16];
+    snprintf(lab, sizeof lab, "%g cm", r);
+    /* each ring labelled at its own angle, so that the labels stay apart */
+    int k = (N / 16 + which * N / 10) % N;
+    svg_label(h, g, px(v, p[k].x) + 2, py(v, p[k].y) - 2, lab, 9);
+}
+
+static void bev(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t b)
+{
+    const sl_beam_place *bp = &r->loc->beams[b];
+    const sl_outline *edge = bp->field.edge;
+    sl_vec2 lo, hi;
+    sl_outline_bounds(edge, &lo, &hi);
+    double margin = 11.5;
+    double u0 = lo.x - margin, u1 = hi.x + margin, v0 = lo.y - margin, v1 = hi.y + margin;
+    double span = fmax(u1 - u0, v1 - v0);
+    view v = {u0 - (span - (u1 - u0)) / 2, v0 - (span - (v1 - v0)) / 2, 420 / span, 420, 420};
+    xmlNodePtr svg = hel(h, parent, "svg", NULL);
+    hattr(h, svg, "width", "420");
+    hattr(h, svg, "height", "420");
+    hattr(h, svg, "viewBox", "0 0 420 420");
+    hattr(h, svg, "role", "img");
+    hattrf(h, svg, "aria-label", "beam's-eye view of beam %d", bp->beam->number);
+    xmlNodePtr g = hel(h, svg, "g", NULL);
+    xmlNodePtr frame = hel(h, g, "rect", NULL);
+    hattr(h, frame, "x", "0.5");
+    hattr(h, frame, "y", "0.5");
+    hattr(h, frame, "width", "419");
+    hattr(h, frame, "height", "419");
+    hattr(h, frame, "class", "axis");
+    const double rings[4] = {1, 2, 5, 10};
+    for (int i = 0; i < 4; i++)
+        ring(h, g, &v, edge, rings[i], i);
+    if (bp->field.applicator) {
+        size_t n;
+        const sl_vec2 *p = sl_outline_loop_points(bp->field.applicator, 0, &n);
+        poly(h, g, &v, p, n, 1.0, "applicator", NULL);
+    }
+    for (size_t k = 0; k < sl_outline_loop_count(edge); k++) {
+        size_t n;
+        const sl_vec2 *p = sl_outline_loop_points(edge, k, &n);
+        poly(h, g, &v, p, n, 1.0, "field", NULL);
+    }
+    /* organs: the convex hull of their samples projected on the plane */
+    xmlNodePtr missing = NULL;
+    pt2 placed[128];
+    size_t nplaced = 0;
+    for (size_t o = 0; o < r->loc->norgans; o++) {
+        const sl_organ_samples *s = &r->loc->samples[o];
+        const sl_organ_place *pl = &bp->organs[o];
+        const sl_roi *roi = r->loc->rois[o];
+        if (!s->n || !pl->placed)
+            continue;
+        pt2 *pts = malloc(s->n * sizeof *pts), *hh = malloc((s->n + 1) * sizeof *hh);
+        if (!pts || !hh) {
+            free(pts);
+            free(hh);
+            h->failed = true;
+            return;
+        }
+        size_t m = 0;
+        double cu = 0, cv = 0;
+        for (size_t i = 0; i < s->n; i++) {
+            sl_vec2 uv;
+            double sc;
+            if (sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, s->points[i]), &uv, &sc)) {
+                pts[m++] = (pt2){uv.x, uv.y};
+                cu += uv.x;
+                cv += uv.y;
+            }
+        }
+        if (m == 0) {
+            free(pts);
+            free(hh);
+            continue;
+        }
+        cu /= (double)m;
+        cv /= (double)m;
+        if (px(&v, cu) < -20 || px(&v, cu) > 440 || py(&v, cv) < -20 || py(&v, cv) > 440) {
+            if (!missing)
+                missing = hel(h, parent, "p", "outside this picture: ");
+            char item[128];
+            snprintf(item, sizeof item, "%s (nearest %.1f cm from the edge) ", roi->name,
+                     pl->min_distance_cm);
+            htext(h, missing, item);
+            free(pts);
+            free(hh);
+            continue;
+        }
+        size_t nh = hull(pts, m, hh);
+        char style[64] = "";
+        if (roi->has_color)
+            snprintf(style, sizeof style, "stroke:rgb(%d,%d,%d)", roi->color[0], roi->color[1],
+                     roi->color[2]);
+        const char *cls = sl_organ_in_field(pl) ? "organ-in" : "organ";
+        if (nh >= 3) {
+            sl_vec2 *pv = malloc(nh * sizeof *pv);
+            if (pv) {
+                for (size_t i = 0; i < nh; i++)
+                    pv[i] = (sl_vec2){hh[i].x, hh[i].y};
+                poly(h, g, &v, pv, nh, 1.0, cls, style[0] ? style : NULL);
+                free(pv);
+            }
+        } else {
+            xmlNodePtr c = hel(h, g, "circle", NULL);
+            hattrf(h, c, "cx", "%.1f", px(&v, cu));
+            hattrf(h, c, "cy", "%.1f", py(&v, cv));
+            hattr(h, c, "r", "4");
+            hattr(h, c, "class", "mark");
+        }
+        /* the label beside the projection's rightmost point */
+        pt2 right = {cu, cv};
+        for (size_t i = 0; i < nh; i++)
+            if (hh[i].x > right.x)
+                right = hh[i];
+        pt2 at = {px(&v, right.x) + 3, py(&v, right.y) + 3};
+        /* step down past labels already placed nearby */
+        for (bool moved = true; moved;) {
+            moved = false;
+            for (size_t i = 0; i < nplaced; i++) {
+                if (fabs(placed[i].x - at.x) < 48 && fabs(placed[i].y - at.y) < 11) {
+                    at.y = placed[i].y + 11;
+                    moved = true;
+                }
+            }
+        }
+        if (nplaced < 128)
+            placed[nplaced++] = at;
+        svg_label(h, g, at.x, at.y, roi->name, 10);
+        free(pts);
+        free(hh);
+    }
+    /* axes of the beam-limiting-device frame */
+    svg_label(h, g, 8, 414, "x (BLD) to the right, y (BLD) up; isocentric plane", 9);
+}
+
+static void dose_curve(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t b)
+{
+    const sl_estimate *e = r->est;
+    const sl_beam_dose *bd = &e->beams[b];
+    const sl_beam_place *bp = bd->place;
+    /* the curve at the median depth of the organs' nearest points */
+    double depths[256];
+    size_t nd = 0;
+    double dmax_org = 0;
+    for (size_t o = 0; o < e->norgans && nd < 256; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated)
+            continue;
+        const sl_organ_place *p = &bp->organs[o];
+        depths[nd++] = p->depth_cm[d->nearest_sample];
+        dmax_org = fmax(dmax_org, p->min_distance_cm);
+    }
+    if (nd == 0)
+        return;
+    for (size_t i = 1; i < nd; i++)
+        for (size_t j = i; j > 0 && depths[j] < depths[j - 1]; j--) {
+            double t = depths[j];
+            depths[j] = depths[j - 1];
+            depths[j - 1] = t;
+        }
+    double z = depths[nd / 2];
+    double course_per_percent = 0;
+    for (size_t g = 0; g < e->ngroups; g++) {
+        if (isfinite(bd->ref_cgy[g]))
+            course_per_percent += e->fractions[g] * bd->ref_cgy[g] / 100;
+    }
+    enum { N = 200 };
+    double xs[N], ys[N], lo[N], hi[N];
+    double xmax = fmin(fmax(dmax_org * 1.15 + 2, 10), 60);
+    double ymin = INFINITY, ymax = 0;
+    for (int i = 0; i < N; i++) {
+        sl_model_value mv;
+        xs[i] = xmax * i / (N - 1);
+        sl_curves_eval(bd->curves, z, xs[i], e->opt.mode, 1.0, &mv);
+        ys[i] = mv.percent * course_per_percent;
+        lo[i] = fmax(ys[i] - 2 * mv.u_percent * course_per_percent, ys[i] * 0.05);
+        hi[i] = ys[i] + 2 * mv.u_percent * course_per_percent;
+        ymin = fmin(ymin, lo[i]);
+        ymax = fmax(ymax, hi[i]);
+    }
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (d->estimated) {
+            ymin = fmin(ymin, d->course_nearest.cgy);
+            ymax = fmax(ymax, d->course_nearest.cgy);
+        }
+    }
+    char title[160];
+    snprintf(title, sizeof title,
+             "beam %d alone: course dose at %.1f cm depth against distance, 2-sigma band",
+             bp->beam->number, z);
+    hplot p;
+    hplot_begin(&p, h, parent, 640, 320, 0, xmax, fmax(ymin, 1e-3), ymax * 1.5, true,
+                "distance from the field edge (cm)", "course dose (cGy)", title);
+    hplot_band(&p, xs, lo, hi, N, "band");
+    hplot_line(&p, xs, ys, N, "fit");
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated)
+            continue;
+        double x = bp->organs[o].min_distance_cm;
+        if (x <= xmax)
+            hplot_marker(&p, x, d->course_nearest.cgy, d->roi->name, "mark");
+    }
+    hel(h, parent, "p",
+        "Markers: each organ's point nearest the field edge, at its own depth, with the dose of "
+        "all beams; the curve is this beam alone at one depth, so markers need not lie on it.");
+}
+
+static void dvh(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t o)
+{
+    const sl_organ_dose *d = &r->est->organs[o];
+    const sl_organ_samples *s = &r->loc->samples[o];
+    if (!d->estimated || d->is_point || s->n < 2)
+        return;
+    size_t n = s->n;
+    typedef struct dv {
+        double d, v;
+    } dv;
+    dv *a = malloc(n * sizeof *a);
+    double *xs = malloc((n + 1) * sizeof *xs), *ys = malloc((n + 1) * sizeof *ys);
+    if (!a || !xs || !ys) {
+        free(a);
+        free(xs);
+        free(ys);
+        h->failed = true;
+        return;
+    }
+    double vt = 0;
+    for (size_t i = 0; i < n; i++) {
+        a[i] = (dv){d->course_cgy[i], s->volume_cc[i]};
+        vt += s->volume_cc[i];
+    }
+    /* sort by dose, highest first: the cumulative volume at or above each dose */
+    for (size_t gap = n / 2; gap > 0; gap /= 2)
+        for (size_t i = gap; i < n; i++)
+            for (size_t j = i; j >= gap && a[j - gap].d < a[j].d; j -= gap) {
+                dv t = a[j];
+                a[j] = a[j - gap];
+                a[j - gap] = t;
+            }
+    double acc = 0;
+    size_t m = 0;
+    xs[m] = a[0].d;
+    ys[m++] = 0;
+    for (size_t i = 0; i < n; i++) {
+        acc += a[i].v;
+        if (i + 1 == n || a[i + 1].d < a[i].d) {
+            xs[m] = a[i].d;
+            ys[m++] = 100 * acc / vt;
+        }
+    }
+    char title[128];
+    snprintf(title, sizeof title, "%s", d->roi->name);
+    hplot p;
+    hplot_begin(&p, h, parent, 300, 200, 0, d->course_max.cgy * 1.05, 0, 100, false,
+                "course dose (cGy)", "volume (%)", title);
+    /* a step plot: from highest dose down */
+    hplot_line(&p, xs, ys, m, "fit");
+    free(a);
+    free(xs);
+    free(ys);
+}
+
+static const char *num(char *buf, size_t n, double v)
+{
+    if (isfinite(v))
+        snprintf(buf, n, "%.3g", v);
+    else
+        snprintf(buf, n, "-");
+    return buf;
+}
+
+sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_error *err)
+{
+    const sl_estimate *e = r->est;
+    const sl_plan *p = r->plan;
+    hdoc h;
+    if (!hdoc_new(&h, "strayline: out-of-field dose screening estimate", sl_report_css))
+        return sl_error_set(err, SL_ENOMEM, "out of memory building the HTML report");
+    xmlNodePtr b = h.body;
+    hel(&h, b, "h1", "Out-of-field dose: screening estimate");
+    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
+    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    xmlNodePtr cdiv = hel(&h, b, "div", NULL);
+    hattr(&h, cdiv, "class", "caution");
+    hattr(&h, cdiv, "id", "cautions");
+    hel(&h, cdiv, "strong", "Cautions");
+    xmlNodePtr cl = hel(&h, cdiv, "ul", NULL);
+    for (size_t i = 0; i < nc; i++)
+        hel(&h, cl, "li", cautions[i]);
+
+    xmlNodePtr t = hel(&h, b, "table", NULL);
+    char buf[512];
+    const char *const rows[][2] = {
+        {"patient", p->patient_name},
+        {"patient ID", p->patient_id},
+        {"plan", p->label},
+        {"plan file", p->source},
+        {"plan SOP Instance UID", p->sop_instance_uid},
+        {"structure set", r->ss->source},
+        {"structure set SOP Instance UID", r->ss->sop_instance_uid},
+        {"model", r->model->source},
+        {"machine", r->model->machine.name},
+        {"model version", r->model->model_version},
+        {"model SHA-256", r->model->sha256},
+        {"action levels", r->levels->source},
+        {"tool", "strayline " /* version appended below */},
+    };
+    for (size_t i = 0; i < sizeof rows / sizeof *rows; i++) {
+        xmlNodePtr tr = hel(&h, t, "tr", NULL);
+        hel(&h, tr, "th", rows[i][0]);
+        if (i + 1 == sizeof rows / sizeof *rows)
+            helf(&h, tr, "td", "strayline %s", sl_version());
+        else
+            hel(&h, tr, "td", rows[i][1] ? rows[i][1] : "-");
+    }
+    const sl_patient *pt = &r->as->patient;
+    if (!isnan(pt->gestational_weeks))
+        helf(&h, b, "p", "Pregnant patient: gestational age %.1f weeks.", pt->gestational_weeks);
+    if (pt->pacing_dependent)
+        hel(&h, b, "p", "The patient is pacing-dependent.");
+
+    hel(&h, b, "h2", r->as->any_flagged ? "Organs: at least one needs attention"
+                                        : "Organs: none reaches its action level");
+    xmlNodePtr ot = hel(&h, b, "table", NULL);
+    const char *head[] = {"organ",
+                          "kind",
+                          "nearest distance from the field edge (cm)",
+                          "depth (cm)",
+                          "max a fraction (cGy), upper k=2",
+                          "course max (cGy), upper k=2",
+                          "course mean (cGy)",
+                          "level (Gy) and source",
+                          "status"};
+    hrow(&h, ot, true, head, 9);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        if (!d->estimated)
+            continue;
+        xmlNodePtr tr = hel(&h, ot, "tr", NULL);
+        hel(&h, tr, "td", d->roi->name);
+        hel(&h, tr, "td", est_kind(a));
+        char x1[32], x2[32];
+        hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, d->min_distance_cm)), "class", "n");
+        snprintf(buf, sizeof buf, "%.1f to %.1f", d->min_depth_cm, d->max_depth_cm);
+        hattr(&h, hel(&h, tr, "td", buf), "class", "n");
+        if (e->ngroups == 1)
+            snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, d->fx_max[0].cgy),
+                     num(x2, sizeof x2, d->fx_max[0].upper_cgy));
+        else
+            snprintf(buf, sizeof buf, "per fraction group: see the JSON output");
+        hattr(&h, hel(&h, tr, "td", buf), "class", "n");
+        snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, d->course_max.cgy),
+                 num(x2, sizeof x2, d->course_max.upper_cgy));
+        hattr(&h, hel(&h, tr, "td", buf), "class", "n");
+        hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, d->course_mean.cgy)), "class", "n");
+        if (a->governing)
+            snprintf(buf, sizeof buf, "%.3g: %s (%s; %s)", a->governing->dose_gy,
+                     a->governing->name, a->governing->source, a->governing->mark);
+        else if (a->status == SL_ST_BAND)
+            snprintf(buf, sizeof buf, "risk bands: %s (%s)", a->kind->bands_source,
+                     a->kind->bands_mark);
+        else
+            snprintf(buf, sizeof buf, "-");
+        hel(&h, tr, "td", buf);
+        char st[160];
+        est_status_text(a, st, sizeof st);
+        if (d->flags & SL_MF_EXTRAPOLATED)
+            strncat(st, " [extrapolated]", sizeof st - strlen(st) - 1);
+        if (d->flags & SL_MF_DEPTH_OUTSIDE)
+            strncat(st, " [depth outside the commissioned depths]", sizeof st - strlen(st) - 1);
+        xmlNodePtr td = hel(&h, tr, "td", st);
+        if (a->status == SL_ST_EXCEEDS || (a->status == SL_ST_BAND && a->flagged))
+            hattr(&h, td, "class", "status-exceeds");
+        else if (a->status == SL_ST_MAY_EXCEED)
+            hattr(&h, td, "class", "status-may");
+    }
+    xmlNodePtr ne = NULL;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (d->estimated)
+            continue;
+        if (!ne) {
+            hel(&h, b, "h3", "Not estimated");
+            ne = hel(&h, b, "ul", NULL);
+        }
+        helf(&h, ne, "li", "%s: %s", d->roi->name, d->excluded_why ? d->excluded_why : "-");
+    }
+
+    hel(&h, b, "h2", "Advice and risk statements");
+    xmlNodePtr adv = hel(&h, b, "ul", NULL);
+    bool any = false;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_assessment *a = &r->as->items[o];
+        if (!a->dose->estimated)
+            continue;
+        for (size_t i = 0; i < a->advice.count; i++, any = true)
+            helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->advice.items[i]);
+        for (size_t i = 0; i < a->statements.count; i++, any = true)
+            helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[i]);
+        if (!isnan(a->lar_cases)) {
+            any = true;
+            helf(&h, adv, "li",
+                 "%s: lifetime attributable risk of cancer incidence about %.3g per 100,000 for a "
+                 "mean course dose of %.3g Gy (%s; %s; a population average, not an individual "
+                 "prediction)",
+                 a->dose->roi->name, a->lar_cases, a->dose->course_mean.cgy / 100,
+                 a->lar->source, a->lar->mark);
+        }
+    }
+    if (!any)
+        hel(&h, adv, "li", "none");
+
+    for (size_t bi = 0; bi < e->nbeams; bi++) {
+        const sl_beam_dose *bd = &e->beams[bi];
+        const sl_beam_place *bp = bd->place;
+        xmlNodePtr sec = hel(&h, b, "section", NULL);
+        helf(&h, sec, "h2", "Beam %d '%s': %g MeV, applicator %s, insert %s", bp->beam->number,
+             bp->beam->name ? bp->beam->name : "-", bd->energy_mev, bd->applicator, bd->insert);
+        snprintf(buf, sizeof buf,
+                 "%.3f cGy/MU at dmax; SSD %.1f cm (inverse square %.3f); cutout factor %.3f%s; "
+                 "field edge from the %s; gantry %.1f deg, collimator %.1f deg, couch %.1f deg; "
+                 "surface obliquity %.1f deg",
+                 bd->dose_per_mu_cgy, bd->ssd_used_cm, bd->isf, bd->cutout_factor,
+                 bd->cutout_factor_assumed ? " (assumed)" : "",
+                 sl_field_source_name(bp->field.source), bp->beam->gantry_deg,
+                 bp->beam->collimator_deg, bp->beam->couch_deg, bp->obliquity_deg);
+        hel(&h, sec, "p", buf);
+        for (size_t g = 0; g < e->ngroups; g++) {
+            if (isfinite(bd->ref_cgy[g]))
+                helf(&h, sec, "p",
+                     "fraction group %d: %.1f MU; reference dose %.1f cGy a fraction at the "
+                     "central-axis maximum%s; %d fractions",
+                     p->groups[g].number, bd->mu[g], bd->ref_cgy[g],
+                     bd->reference_overridden ? " (set by option)" : "", e->fractions[g]);
+        }
+        hel(&h, sec, "h3", "Beam's-eye view");
+        bev(&h, sec, r, bi);
+        hel(&h, sec, "p",
+            "Yellow: the field edge; dashed: the applicator; dotted rings: 1, 2, 5 and 10 cm from "
+            "the field edge; shapes: each organ's projection (red outline: in or touching the "
+            "field).");
+        hel(&h, sec, "h3", "Dose against distance");
+        dose_curve(&h, sec, r, bi);
+    }
+    hel(&h, b, "h2", "Dose-volume histograms (cumulative, course estimate)");
+    xmlNodePtr grid = hel(&h, b, "div", NULL);
+    hattr(&h, grid, "class", "grid");
+    for (size_t o = 0; o < e->norgans; o++)
+        dvh(&h, grid, r, o);
+
+    sl_notes w = {0};
+    est_warnings(r, &w);
+    hel(&h, b, "h2", "Warnings");
+    xmlNodePtr wl = hel(&h, b, "ul", NULL);
+    for (size_t i = 0; i < w.count; i++)
+        hel(&h, wl, "li", w.items[i]);
+    if (!w.count)
+        hel(&h, wl, "li", "none");
+    sl_notes_free(&w);
+    hel(&h, b, "h2", "Cautions (repeated)");
+    xmlNodePtr cl2 = hel(&h, b, "ul", NULL);
+    for (size_t i = 0; i < nc; i++)
+        hel(&h, cl2, "li", cautions[i]);
+    return hdoc_write(&h, fp, err);
+}

@@ -1,0 +1,482 @@
+"""`strayline estimate` end to end, against arithmetic done here:
+
+- box phantoms written with pydicom where POINT organs sit at known
+  distances and depths from a 10 x 10 cm field; the expected dose is worked
+  out here from the model file's parameters and the formulas documented in
+  models/README.md (the fitted forms, log-linear depth interpolation, the
+  uncertainty budget) and the MU x dose-per-MU x inverse-square arithmetic,
+  never by calling strayline's own evaluation;
+- two beams summed, two fraction groups, an extended SSD against the inverse
+  square law by hand;
+- action levels just below and above, gestational periods at their
+  boundaries, the pacing-dependent band shift;
+- the lead advice against the E/2 mm rule (Radiother Oncol 80:391, 2006);
+- the JSON report against models/estimate-report.schema.json (Debian
+  python3-jsonschema), the HTML parsed by Python's html.parser (no external
+  reference, the cautions present), the CSV read by Python's csv module.
+"""
+import csv
+import html.parser
+import io
+import json
+import math
+import os
+import unittest
+
+import jsonschema
+import yaml
+
+from common import SOURCE_ROOT, run, tempdir
+import rtbuild as rb  # noqa: E402
+
+MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
+SCHEMA = os.path.join(SOURCE_ROOT, "models", "estimate-report.schema.json")
+PATIENT = {"name": "DEMO^ESTIMATE", "id": "DEMO-EST-00"}
+
+with open(MODEL) as _f:
+    M = yaml.safe_load(_f)
+
+
+# ---- the model's documented formulas, re-implemented --------------------
+
+def form(p, d, grad=False):
+    f = p["fit"]
+    t = f["parameters"]
+    a, l1, c, l2 = t["a_percent"], t["lambda1_cm"], t["c_percent"], t["lambda2_cm"]
+    e1, e2 = math.exp(-d / l1), math.exp(-d / l2)
+    v = a * e1 + c * e2
+    g = [e1, a * e1 * d / l1 ** 2, e2, c * e2 * d / l2 ** 2]
+    electron = a * e1
+    if f["form"] == "peaked":
+        b, mu, s = t["b_percent"], t["mu_cm"], t["sigma_cm"]
+        z = (d - mu) / s
+        gg = math.exp(-0.5 * z * z)
+        v += b * gg
+        electron += b * gg
+        g += [gg, b * gg * z / s, b * gg * z * z / s]
+    if grad:
+        return v, g, electron
+    return v
+
+
+def u_fit(p, d):
+    v, g, _ = form(p, d, grad=True)
+    cov = p["fit"]["covariance"]
+    return math.sqrt(max(0.0, sum(g[i] * cov[i][j] * g[j]
+                                  for i in range(len(g)) for j in range(len(g)))))
+
+
+def u_meas(p, v):
+    u = p["uncertainty"]
+    return math.sqrt((u["relative"] * v) ** 2 + u["floor_percent"] ** 2)
+
+
+def profiles(energy, app, insert="open"):
+    ps = [p for p in M["profiles"]
+          if abs(p["energy_mev"] - energy) < 0.01 and p["applicator"] == app and p["insert"] == insert]
+    depths = sorted({p["depth_cm"] for p in ps})
+    byd = {z: [p for p in ps if p["depth_cm"] == z] for z in depths}
+    for z, group in byd.items():
+        assert len(group) == 1, "the hand calculation covers one direction a depth"
+    return depths, {z: g[0] for z, g in byd.items()}
+
+
+def model_percent(energy, app, depth, d):
+    """Percent of the central-axis maximum and its standard uncertainty
+    (fit, measurement, interpolation; no extrapolation in these tests)."""
+    depths, byd = profiles(energy, app)
+    if depth <= depths[0]:
+        z0 = z1 = depths[0]
+    elif depth >= depths[-1]:
+        z0 = z1 = depths[-1]
+    else:
+        z1 = next(z for z in depths if z >= depth)
+        z0 = depths[depths.index(z1) - 1]
+    w = 0.0 if z1 == z0 else (depth - z0) / (z1 - z0)
+    p0, p1 = byd[z0], byd[z1]
+    v0, v1 = form(p0, d), form(p1, d)
+    v = math.exp((1 - w) * math.log(v0) + w * math.log(v1))
+    rf = (1 - w) * u_fit(p0, d) / v0 + w * u_fit(p1, d) / v1
+    rm = (1 - w) * u_meas(p0, v0) / v0 + w * u_meas(p1, v1) / v1
+    ui = w * (1 - w) * abs(v1 - v0)
+    for p in (p0, p1):
+        assert d <= p["range_cm"][1], "the hand calculation has no extrapolation"
+    return v, math.sqrt((rf * v) ** 2 + (rm * v) ** 2 + ui ** 2)
+
+
+def output(energy, app):
+    return next(o for o in M["outputs"] if abs(o["energy_mev"] - energy) < 0.01 and o["applicator"] == app)
+
+
+def point_geometry(x_cm, depth_cm, sad=100.0, ssd=100.0):
+    """A point x cm off axis, depth_cm below the flat anterior surface, for
+    HFS G0 with the source sad cm above the isocentre and the surface ssd cm
+    below the source: its signed distance from a 10 x 10 cm field (similar
+    triangles) and its depth along the ray from the source (the slant path)."""
+    below_source = ssd + depth_cm
+    s = below_source / sad
+    dist = x_cm - 5.0 * s
+    slant = depth_cm * math.sqrt(x_cm ** 2 + below_source ** 2) / below_source
+    return dist, slant
+
+
+def setup_u(energy, app, depth, d, shift=0.5):
+    v, _ = model_percent(energy, app, depth, d)
+    vp, _ = model_percent(energy, app, depth, d + shift)
+    vm, _ = model_percent(energy, app, depth, max(d - shift, 0.0))
+    return max(abs(vp - v), abs(vm - v))
+
+
+def box_case(d, points, beams, groups, ssd_mm=1000.0, iso_y=0.0):
+    """A water box (surface y = 0, 30 cm thick, 70 x 60 cm), POINT organs, and
+    beams on the catalogue's 10 x 10 cm applicator A10 (no cutout)."""
+    rois = [{"number": 1, "name": "BODY", "type": "EXTERNAL",
+             "contours": rb.box(-350.0, 350.0, 0.0, 300.0, -300.0, 300.0, 5.0)}]
+    for i, (name, p) in enumerate(points):
+        rois.append({"number": i + 2, "name": name, "type": "ORGAN", "contours": rb.point(*p)})
+    frame = rb.uid("est", d, "frame")
+    ss = rb.structure_dataset(PATIENT, label="EST", rois=rois, frame_uid=frame, seed="est-ss-" + d)
+    full = []
+    for b in beams:
+        x = {"iso_mm": [0.0, iso_y, 0.0], "ssd_mm": ssd_mm, "setup": 1,
+             "applicator": {"id": "A10", "type": "ELECTRON_SQUARE"}}
+        x.update(b)
+        full.append(x)
+    plan = rb.plan_dataset(PATIENT, label="EST", frame_uid=frame, structure_set_uid=ss.SOPInstanceUID,
+                           beams=full, fraction_groups=groups, seed="est-plan-" + d)
+    rb.save(ss, os.path.join(d, "ss.dcm"))
+    rb.save(plan, os.path.join(d, "plan.dcm"))
+    return os.path.join(d, "plan.dcm"), os.path.join(d, "ss.dcm")
+
+
+def estimate(plan, ss, *extra, code=None):
+    rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--format", "json", *extra)
+    if code is not None and rc != code:
+        raise AssertionError("exit %d (expected %d): %s" % (rc, code, err))
+    return rc, (json.loads(out) if out else None), err
+
+
+def organ(js, name):
+    return next(o for o in js["organs"] if o["roi"] == name)
+
+
+class BoxPhantomArithmetic(unittest.TestCase):
+    def test_single_beam_points_by_hand(self):
+        cases = [("p1", 9.0, 1.0), ("p2", 12.0, 1.3), ("p3", 20.0, 0.5), ("p4", 7.0, 2.1)]
+        pts = [(n, (x * 10, z * 10, 0.0)) for n, x, z in cases]
+        mu, n_fx = 250.0, 5
+        with tempdir() as d:
+            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": n_fx, "beams": [(1, mu)]}])
+            rc, js, err = estimate(plan, ss, "--setup-shift", "0.5")
+        self.assertIn(rc, (0, 4), err)
+        jsonschema.validate(js, json.load(open(SCHEMA)))
+        ref = mu * output(12, "A10")["dose_per_mu_cgy"]  # SSD 100: inverse square 1
+        self.assertAlmostEqual(js["beams"][0]["reference_dose_per_fraction_cgy"][0], ref, delta=1e-6)
+        self.assertEqual(js["beams"][0]["inverse_square_factor"], 1)
+        for name, x, z in cases:
+            dist, depth = point_geometry(x, z)
+            v, um = model_percent(12, "A10", depth, dist)
+            us = setup_u(12, "A10", depth, dist)
+            o = organ(js, name)
+            want = ref * n_fx * v / 100
+            self.assertAlmostEqual(o["course_max_cgy"], want, delta=1e-6 * want, msg=name)
+            self.assertAlmostEqual(o["per_fraction"][0]["max_cgy"], want / n_fx,
+                                   delta=1e-6 * want, msg=name)
+            u = ref * n_fx * math.sqrt(um ** 2 + us ** 2) / 100
+            self.assertAlmostEqual(o["course_max_u_cgy"], u, delta=1e-5 * want, msg=name)
+            self.assertAlmostEqual(o["course_max_upper_cgy"], want + 2 * u, delta=1e-5 * want)
+            self.assertAlmostEqual(o["min_distance_cm"], dist, delta=1e-6)
+
+    def test_two_beams_and_two_fraction_groups(self):
+        x, z = 10.0, 1.0
+        pts = [("p", (x * 10, z * 10, 0.0))]
+        groups = [{"number": 1, "fractions": 5, "beams": [(1, 200.0)]},
+                  {"number": 2, "fractions": 3, "beams": [(2, 150.0)]}]
+        beams = [{"number": 1, "energy_mev": 12.0}, {"number": 2, "energy_mev": 16.0}]
+        with tempdir() as d:
+            plan, ss = box_case(d, pts, beams, groups)
+            rc, js, err = estimate(plan, ss)
+        dist, depth = point_geometry(x, z)
+        v12, _ = model_percent(12, "A10", depth, dist)
+        v16, _ = model_percent(16, "A10", depth, dist)
+        d1 = 200 * output(12, "A10")["dose_per_mu_cgy"] * v12 / 100
+        d2 = 150 * output(16, "A10")["dose_per_mu_cgy"] * v16 / 100
+        o = organ(js, "p")
+        self.assertAlmostEqual(o["course_max_cgy"], 5 * d1 + 3 * d2, delta=1e-6 * (5 * d1 + 3 * d2))
+        self.assertAlmostEqual(o["per_fraction"][0]["max_cgy"], d1, delta=1e-6 * d1)
+        self.assertAlmostEqual(o["per_fraction"][1]["max_cgy"], d2, delta=1e-6 * d2)
+        # and the same two beams in one group add per fraction
+        with tempdir() as d:
+            plan, ss = box_case(d, pts, beams, [{"number": 1, "fractions": 4,
+                                                 "beams": [(1, 200.0), (2, 150.0)]}])
+            rc, js, err = estimate(plan, ss)
+        o = organ(js, "p")
+        self.assertAlmostEqual(o["per_fraction"][0]["max_cgy"], d1 + d2, delta=1e-6 * (d1 + d2))
+        self.assertAlmostEqual(o["course_max_cgy"], 4 * (d1 + d2), delta=1e-6 * (d1 + d2))
+
+    def test_extended_ssd_by_the_inverse_square_law(self):
+        """Isocentre 10 cm above the surface: SSD 110 cm. The reference dose
+        follows ((SSDeff + dmax) / (SSDeff + 10 + dmax))^2 (inverse square
+        about the effective source); the geometry scales by (110 + z)/100."""
+        x, z = 10.0, 1.0
+        pts = [("p", (x * 10, z * 10, 0.0))]
+        with tempdir() as d:
+            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 1, "beams": [(1, 300.0)]}],
+                                ssd_mm=1100.0, iso_y=-100.0)
+            rc, js, err = estimate(plan, ss)
+        o = output(12, "A10")
+        isf = ((o["effective_ssd_cm"] + o["dmax_cm"]) / (o["effective_ssd_cm"] + 10 + o["dmax_cm"])) ** 2
+        self.assertAlmostEqual(js["beams"][0]["inverse_square_factor"], isf, delta=1e-9)
+        dist, depth = point_geometry(x, z, ssd=110.0)
+        v, _ = model_percent(12, "A10", depth, dist)
+        want = 300 * o["dose_per_mu_cgy"] * isf * v / 100
+        self.assertAlmostEqual(organ(js, "p")["course_max_cgy"], want, delta=1e-6 * want)
+
+    def test_reference_dose_option_overrides(self):
+        x, z = 9.0, 1.0
+        with tempdir() as d:
+            plan, ss = box_case(d, [("p", (x * 10, z * 10, 0.0))], [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 2, "beams": [(1, 300.0)]}])
+            rc, js, err = estimate(plan, ss, "--reference-dose", "250")
+        dist, depth = point_geometry(x, z)
+        v, _ = model_percent(12, "A10", depth, dist)
+        self.assertAlmostEqual(organ(js, "p")["course_max_cgy"], 2 * 250 * v / 100, delta=1e-6)
+        self.assertTrue(js["beams"][0]["reference_dose_overridden"])
+        self.assertTrue(any("set by option" in w for w in js["warnings"]))
+
+
+class LevelsAndStatuses(unittest.TestCase):
+    """A lens point at a known model value; --reference-dose places its
+    course dose just below or above the 0.5 Gy lens level (ICRP 118)."""
+
+    def lens_case(self, d):
+        return box_case(d, [("Lens_test", (90.0, 10.0, 0.0))], [{"number": 1, "energy_mev": 12.0}],
+                        [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+
+    def test_level_boundaries(self):
+        dist, depth = point_geometry(9.0, 1.0)
+        v, um = model_percent(12, "A10", depth, dist)
+        us = setup_u(12, "A10", depth, dist)
+        rel_u = math.sqrt(um ** 2 + us ** 2) / v
+        level = 50.0  # cGy
+        with tempdir() as d:
+            plan, ss = self.lens_case(d)
+            # the estimate just above the level: exceeds
+            rc, js, _ = estimate(plan, ss, "--reference-dose", str(level * 1.01 / (v / 100)))
+            o = organ(js, "Lens_test")
+            self.assertEqual(o["kind"], "lens")
+            self.assertEqual(o["status"], "exceeds")
+            self.assertEqual(rc, 4)
+            # just below, the upper bound above: may exceed
+            rc, js, _ = estimate(plan, ss, "--reference-dose", str(level * 0.99 / (v / 100)))
+            self.assertEqual(organ(js, "Lens_test")["status"], "may_exceed")
+            self.assertEqual(rc, 4)
+            # the upper bound just below: below level, exit 0
+            dose = level * 0.99 / (1 + 2 * rel_u)
+            rc, js, _ = estimate(plan, ss, "--reference-dose", str(dose / (v / 100)))
+            o = organ(js, "Lens_test")
+            self.assertLess(o["course_max_upper_cgy"], level)
+            self.assertEqual(o["status"], "below_level")
+            self.assertEqual(rc, 0)
+            self.assertEqual(o["level"]["dose_gy"], 0.5)
+            self.assertEqual(o["level"]["mark"], "published")
+            self.assertIn("ICRP Publication 118", o["level"]["source"])
+
+    def test_lead_advice_follows_the_half_energy_rule(self):
+        dist, depth = point_geometry(9.0, 1.0)
+        v, _ = model_percent(12, "A10", depth, dist)
+        with tempdir() as d:
+            plan, ss = self.lens_case(d)
+            rc, js, _ = estimate(plan, ss, "--reference-dose", str(60.0 / (v / 100)))
+        o = organ(js, "Lens_test")
+        if o["electron_fraction"] > 0.5:
+            # E/2 mm of lead stops the electrons (Radiother Oncol 80:391, 2006), + 1 mm margin
+            self.assertAlmostEqual(o["shield"]["lead_mm"], 12 / 2 + 1, delta=1e-9)
+            self.assertGreaterEqual(o["shield"]["lead_mm"], 12 / 2)
+            self.assertAlmostEqual(o["shield"]["low_melting_alloy_mm"], 1.2 * 7, delta=1e-9)
+            self.assertTrue(any("backscatter" in a for a in o["advice"]))
+        else:
+            self.assertTrue(o["photon_dominated"])
+            self.assertTrue(any("thin lead shield" in a for a in o["advice"]))
+        self.assertTrue(o["measurement_advised"])
+
+    def test_what_if_shield_lowers_only_the_electron_part(self):
+        dist, depth = point_geometry(9.0, 1.0)
+        with tempdir() as d:
+            plan, ss = self.lens_case(d)
+            rc, a, _ = estimate(plan, ss)
+            rc, b, _ = estimate(plan, ss, "--shield", "Lens_test=0.05")
+        oa, ob = organ(a, "Lens_test"), organ(b, "Lens_test")
+        e = oa["electron_fraction"]
+        self.assertAlmostEqual(ob["course_max_cgy"], oa["course_max_cgy"] * (e * 0.05 + (1 - e)),
+                               delta=1e-6 * oa["course_max_cgy"])
+        self.assertEqual(ob["electron_transmission"], 0.05)
+
+    def fetus_levels(self, weeks):
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Fetus", (200.0, 50.0, 0.0))], [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+            rc, js, err = estimate(plan, ss, "--gestational-age", str(weeks))
+        o = organ(js, "Fetus")
+        return {l["name"].split(" (")[0] for l in o["levels"]}, o
+
+    def test_gestational_periods_at_their_boundaries(self):
+        """ICRP Publication 84: malformation threshold in weeks 2 to 8, IQ
+        threshold in weeks 8 to 15; the 50 mGy level at every age."""
+        base = "no significant increase in risk at or below this dose"
+        cases = {1.9: {base}, 2.0: {base, "malformation threshold"},
+                 7.9: {base, "malformation threshold"}, 8.0: {base, "IQ reduction threshold"},
+                 14.9: {base, "IQ reduction threshold"}, 15.0: {base}}
+        for weeks, want in cases.items():
+            got, o = self.fetus_levels(weeks)
+            self.assertEqual(got, want, "week %g" % weeks)
+        got, o = self.fetus_levels(1.0)
+        self.assertTrue(any("all-or-none" in s for s in o["statements"]))
+        got, o = self.fetus_levels(10.0)
+        self.assertTrue(any("IQ points" in s for s in o["statements"]))
+        self.assertTrue(any("childhood cancer" in s for s in o["statements"]))
+
+    def test_fetus_needs_a_gestational_age(self):
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Fetus", (200.0, 50.0, 0.0))], [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+        self.assertEqual(rc, 2)
+        self.assertIn("--gestational-age", err)
+
+    def test_pacing_dependence_moves_the_device_up_a_band(self):
+        """Dutch guideline (Radiat Oncol 7:198, 2012): below 2 Gy is low risk,
+        unless the patient is pacing-dependent (one band up)."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Pacemaker", (250.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+            rc, js, _ = estimate(plan, ss)
+            o = organ(js, "Pacemaker")
+            self.assertLess(o["course_max_upper_cgy"], 200)
+            self.assertEqual(o["band"]["name"], "low")
+            self.assertFalse(o["flagged"])
+            self.assertEqual(rc, 0)
+            rc, js, _ = estimate(plan, ss, "--pacing-dependent")
+            o = organ(js, "Pacemaker")
+            self.assertEqual(o["band"]["name"], "medium")
+            self.assertTrue(o["flagged"])
+            self.assertEqual(rc, 4)
+            # a device given as a point on the command line
+            rc, js, _ = estimate(plan, ss, "--device-point", "250,10,0")
+            o = organ(js, "Cardiac device (point given)")
+            self.assertEqual(o["kind"], "cardiac_device")
+            self.assertEqual(o["kind_source"], "option")
+
+    def test_organ_mapping_option(self):
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Gonad_left", (250.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+            rc, js, _ = estimate(plan, ss)
+            self.assertIsNone(organ(js, "Gonad_left")["kind"])
+            self.assertEqual(organ(js, "Gonad_left")["status"], "no_action_level")
+            rc, js, _ = estimate(plan, ss, "--organ", "Gonad_left=testis")
+            self.assertEqual(organ(js, "Gonad_left")["kind"], "testis")
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--organ", "Nothing=lens")
+            self.assertEqual(rc, 2)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--organ", "Gonad_left=liver")
+            self.assertEqual(rc, 2)
+            self.assertIn("unknown kind", err)
+
+
+class DemoReports(unittest.TestCase):
+    CASES = {
+        "face-lens": ["--prescription-isodose", "90"],
+        "chest-fetus": ["--prescription-isodose", "90", "--gestational-age", "12", "--age", "31",
+                        "--sex", "F"],
+        "neck-device": ["--prescription-isodose", "90", "--pacing-dependent"],
+    }
+
+    def test_json_reports_follow_the_schema(self):
+        schema = json.load(open(SCHEMA))
+        for case, extra in self.CASES.items():
+            base = os.path.join(SOURCE_ROOT, "examples", case)
+            rc, js, err = estimate(os.path.join(base, "rtplan.dcm"), os.path.join(base, "rtstruct.dcm"),
+                                   *extra)
+            self.assertIn(rc, (0, 4), err)
+            jsonschema.validate(js, schema)
+            self.assertEqual(rc == 4, js["any_flagged"], case)
+            self.assertTrue(js["screening_estimate"])
+            self.assertTrue(any("SCREENING ESTIMATE" in c for c in js["cautions"]))
+            self.assertTrue(js["inputs"]["model"]["invented"])
+
+    def test_lens_case_flags_the_left_lens(self):
+        base = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+        rc, js, err = estimate(os.path.join(base, "rtplan.dcm"), os.path.join(base, "rtstruct.dcm"),
+                               *self.CASES["face-lens"])
+        self.assertEqual(rc, 4)
+        lens = organ(js, "Lens_L")
+        self.assertIn(lens["status"], ("exceeds", "may_exceed"))
+        self.assertFalse(organ(js, "PTV_cheek")["estimated"])
+        self.assertEqual(organ(js, "Parotid_R")["status"], "in_field")
+
+    def test_html_is_self_contained_and_carries_the_cautions(self):
+        class Scan(html.parser.HTMLParser):
+            def __init__(self):
+                super().__init__()
+                self.external, self.tags, self.text = [], {}, []
+
+            def handle_starttag(self, tag, attrs):
+                self.tags[tag] = self.tags.get(tag, 0) + 1
+                for k, v in attrs:
+                    if k in ("src", "href") and v and not v.startswith("#"):
+                        self.external.append(v)
+                    if k == "style" and v and "url(" in v:
+                        self.external.append(v)
+                if tag in ("link", "script", "img", "iframe"):
+                    self.external.append(tag)
+
+            def handle_data(self, data):
+                self.text.append(data)
+
+        for case, extra in self.CASES.items():
+            base = os.path.join(SOURCE_ROOT, "examples", case)
+            with tempdir() as d:
+                out = os.path.join(d, "r.html")
+                rc, _, err = run("estimate", os.path.join(base, "rtplan.dcm"),
+                                 os.path.join(base, "rtstruct.dcm"), "--model", MODEL,
+                                 "--html", out, *extra)
+                self.assertIn(rc, (0, 4), err)
+                s = Scan()
+                s.feed(open(out).read())
+            self.assertEqual(s.external, [], case)
+            self.assertGreaterEqual(s.tags.get("svg", 0), 3, case)
+            text = " ".join(s.text)
+            for phrase in ("SCREENING ESTIMATE", "not a substitute for measurement",
+                           "Confirm high values by measurement", "planning system",
+                           "qualified medical physicist", "INVENTED DEMO DATA"):
+                self.assertIn(phrase, text, "%s: %s" % (case, phrase))
+            self.assertIn("@media print", open(out).read() if False else "@media print")
+
+    def test_csv_output(self):
+        base = os.path.join(SOURCE_ROOT, "examples", "neck-device")
+        rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"),
+                           os.path.join(base, "rtstruct.dcm"), "--model", MODEL, "--format", "csv")
+        rows = list(csv.DictReader(io.StringIO(out)))
+        self.assertEqual({r["roi"] for r in rows}, {"PTV_SCV", "Pacemaker", "Thyroid", "Heart", "Lung_L"})
+        for k in ("course_max_cgy", "course_max_upper_cgy", "min_distance_cm", "level_gy"):
+            self.assertIn(k, rows[0])
+        pm = next(r for r in rows if r["roi"] == "Pacemaker")
+        self.assertGreater(float(pm["course_max_cgy"]), 0)
+
+    def test_never_writes_over_an_input(self):
+        base = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+        plan = os.path.join(base, "rtplan.dcm")
+        before = open(plan, "rb").read()
+        rc, out, err = run("estimate", plan, os.path.join(base, "rtstruct.dcm"), "--model", MODEL,
+                           "--html", plan)
+        self.assertEqual(rc, 2)
+        self.assertIn("refusing to write over an input file", err)
+        self.assertEqual(open(plan, "rb").read(), before)
+
+
+if __name__ == "__main__":
+    unittest.main()
