@@ -548,6 +548,14 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
                           : (d->excluded_why ? d->excluded_why : ""),
                   true);
     }
+    /* the cautions travel with the table: rows whose first field starts
+     * with '#', the text in the second */
+    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
+    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    for (size_t i = 0; i < nc; i++) {
+        csv_field(fp, "# caution", false);
+        csv_field(fp, cautions[i], true);
+    }
     return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the CSV output") : SL_OK;
 }
 

@@ -523,6 +523,20 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->advice.items[i]);
         for (size_t i = 0; i < a->statements.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[i]);
+        for (size_t c = 0; c < a->nchecks; c++, any = true)
+            helf(&h, adv, "li", "%s: %s, %.3g Gy (%s; %s): %s", a->dose->roi->name,
+                 a->checks[c].level->name, a->checks[c].level->dose_gy,
+                 a->checks[c].level->source, a->checks[c].level->mark,
+                 a->checks[c].exceeded         ? "exceeded"
+                 : a->checks[c].upper_exceeded ? "reached by the upper bound"
+                                               : "not reached");
+        if (a->status == SL_ST_BAND) {
+            any = true;
+            helf(&h, adv, "li", "%s: risk bands of the %s (%s)%s", a->dose->roi->name,
+                 a->kind->bands_source, a->kind->bands_mark,
+                 r->as->patient.pacing_dependent ? "; moved up one band for pacing dependence"
+                                                 : "");
+        }
         if (!isnan(a->lar_cases)) {
             any = true;
             helf(&h, adv, "li",
