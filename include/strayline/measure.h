@@ -68,6 +68,10 @@ typedef struct sl_measurement_set {
 /* Read a measurement set and every profile it names (paths relative to the
  * measurement set's folder). */
 sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_error *err);
+/* The same from a buffer (`name` stands for the file; CSV paths are taken
+ * relative to `dir`). */
+sl_status sl_measurements_load_buffer(const char *data, size_t size, const char *name,
+                                      const char *dir, sl_measurement_set **out, sl_error *err);
 void sl_measurements_free(sl_measurement_set *m);
 
 /* Read one profile CSV into a profile (its energy, applicator, insert,

@@ -769,6 +769,24 @@ sl_status finish(Reader &r, DcmFileFormat &ff, OFCondition cond, sl_dicom_object
     return st;
 }
 
+/* A DICOM file has the "DICM" marker after its 128-byte preamble; a bare
+ * data set (no file meta header) starts with an element of group 0002 or
+ * 0008 in either byte order. Anything else is refused before DCMTK sees it:
+ * read as a data set, text would give element lengths of gigabytes. */
+bool looks_like_dicom(const unsigned char *p, size_t n)
+{
+    if (n >= 132 && memcmp(p + 128, "DICM", 4) == 0)
+        return true;
+    if (n < 8)
+        return false;
+    unsigned le = p[0] | (unsigned)p[1] << 8, be = (unsigned)p[0] << 8 | p[1];
+    return le == 0x0002 || le == 0x0008 || be == 0x0002 || be == 0x0008;
+}
+
+const char *const NOT_DICOM =
+    "not a DICOM file (no DICM marker after the preamble, and it does not begin with a DICOM "
+    "element)";
+
 } // namespace
 
 extern "C" {
@@ -788,6 +806,13 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
         return sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
                             static_cast<long long>(sb.st_size));
+    unsigned char head[132];
+    FILE *fp = fopen(path, "rb");
+    size_t got = fp ? fread(head, 1, sizeof head, fp) : 0;
+    if (fp)
+        fclose(fp);
+    if (!looks_like_dicom(head, got))
+        return sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
     try {
         DcmFileFormat ff;
         OFCondition cond = ff.loadFile(path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
@@ -810,6 +835,8 @@ sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
         return sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", r.file());
     if (size > SL_DICOM_MAX_FILE_BYTES)
         return sl_error_set(err, SL_EINPUT, "%s: larger than strayline accepts", r.file());
+    if (!looks_like_dicom(static_cast<const unsigned char *>(data), size))
+        return sl_error_set(err, SL_EINPUT, "%s: %s", r.file(), NOT_DICOM);
     try {
         DcmInputBufferStream stream;
         stream.setBuffer(data, static_cast<offile_off_t>(size));

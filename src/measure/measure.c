@@ -465,18 +465,18 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, const char *
     return sl_profile_read_csv(path, cax, w, p, &m->notes, err);
 }
 
-sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_error *err)
+sl_status sl_measurements_load_buffer(const char *data, size_t size, const char *name,
+                                      const char *dir, sl_measurement_set **out, sl_error *err)
 {
     *out = NULL;
     sl_measurement_set *m = calloc(1, sizeof *m);
     if (!m)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     bool ok = true;
-    m->source = sl_strdup(path, &ok);
+    m->source = sl_strdup(name, &ok);
+    sl_sha256_buffer(data, size, m->sha256);
     sl_yaml y;
-    sl_status st = ok ? sl_sha256_file(path, m->sha256, err) : SL_ENOMEM;
-    if (st == SL_OK)
-        st = sl_yaml_load(&y, path, err);
+    sl_status st = ok ? sl_yaml_load_buffer(&y, data, size, name, err) : SL_ENOMEM;
     if (st != SL_OK) {
         sl_measurements_free(m);
         return st;
@@ -525,13 +525,10 @@ sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_er
         if (!m->profiles)
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    char *copy = st == SL_OK ? sl_strdup(path, &ok) : NULL;
-    const char *dir = copy ? dirname(copy) : ".";
     for (size_t i = 0; st == SL_OK && i < n; i++) {
         m->nprofiles = i + 1;
         st = read_profile(&y, sl_yaml_item(&y, items[i]), i, dir, m, err);
     }
-    free(copy);
     sl_yaml_free(&y);
     if (st != SL_OK) {
         sl_measurements_free(m);
@@ -539,4 +536,24 @@ sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_er
     }
     *out = m;
     return SL_OK;
+}
+
+sl_status sl_measurements_load(const char *path, sl_measurement_set **out, sl_error *err)
+{
+    char *data;
+    size_t size;
+    *out = NULL;
+    sl_status st = sl_read_file(path, SL_YAML_MAX_BYTES, &data, &size, err);
+    if (st != SL_OK)
+        return st;
+    bool ok = true;
+    char *copy = sl_strdup(path, &ok);
+    if (!ok) {
+        free(data);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    st = sl_measurements_load_buffer(data, size, path, dirname(copy), out, err);
+    free(copy);
+    free(data);
+    return st;
 }

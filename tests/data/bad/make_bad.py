@@ -112,9 +112,9 @@ def main():
 
     # -- not DICOM, empty, truncated
     raw("not_dicom.txt", b"Patient: nobody\nThis is a text file, not DICOM.\n" * 20,
-        "inspect {f}", 3, "cannot read as DICOM")
+        "inspect {f}", 3, "not a DICOM file")
     raw("empty.dcm", b"", "inspect {f}", 3, "empty file")
-    raw("truncated_in_preamble.dcm", good_bytes[:100], "inspect {f}", 3, "cannot read as DICOM")
+    raw("truncated_in_preamble.dcm", good_bytes[:100], "inspect {f}", 3, "not a DICOM file")
     raw("truncated_in_meta.dcm", good_bytes[:200], "inspect {f}", 3, "cannot read as DICOM")
     raw("truncated_half.dcm", good_bytes[:len(good_bytes) // 2], "inspect {f}", 3,
         "cannot read as DICOM")
