@@ -15,7 +15,6 @@
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dcdeftag.h>
 #include <dcmtk/dcmdata/dcfilefo.h>
-#include <dcmtk/dcmdata/dcistrmb.h>
 #include <dcmtk/dcmdata/dcuid.h>
 #include <dcmtk/dcmdata/dcvrds.h>
 #include <dcmtk/dcmdata/dcvris.h>
@@ -28,7 +27,9 @@
 #include <cstring>
 #include <new>
 #include <string>
+#include <sys/mman.h>
 #include <sys/stat.h>
+#include <unistd.h>
 #include <vector>
 
 namespace {
@@ -837,20 +838,38 @@ sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
         return sl_error_set(err, SL_EINPUT, "%s: larger than strayline accepts", r.file());
     if (!looks_like_dicom(static_cast<const unsigned char *>(data), size))
         return sl_error_set(err, SL_EINPUT, "%s: %s", r.file(), NOT_DICOM);
-    try {
-        DcmInputBufferStream stream;
-        stream.setBuffer(data, static_cast<offile_off_t>(size));
-        stream.setEos();
-        DcmFileFormat ff;
-        ff.transferInit();
-        OFCondition cond = ff.read(stream, EXS_Unknown, EGL_noChange, DCM_MaxReadLength);
-        ff.transferEnd();
-        return finish(r, ff, cond, out, err);
-    } catch (const std::bad_alloc &) {
-        return sl_error_set(err, SL_ENOMEM, "%s: out of memory", r.file());
-    } catch (...) {
-        return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", r.file());
+    /* The buffer goes through the file reader, in an anonymous in-memory
+     * file: DCMTK checks declared element lengths against the size of a file,
+     * but allocates them before reading from a memory stream. */
+    int fd = memfd_create("strayline-dicom", MFD_CLOEXEC);
+    if (fd < 0)
+        return sl_error_set(err, SL_EINTERNAL, "%s: cannot make an in-memory file: %s",
+                            r.file(), strerror(errno));
+    const char *p = static_cast<const char *>(data);
+    for (size_t done = 0; done < size;) {
+        ssize_t n = write(fd, p + done, size - done);
+        if (n <= 0) {
+            close(fd);
+            return sl_error_set(err, SL_EINTERNAL, "%s: cannot fill an in-memory file",
+                                r.file());
+        }
+        done += static_cast<size_t>(n);
     }
+    char path[64];
+    snprintf(path, sizeof path, "/proc/self/fd/%d", fd);
+    sl_status st;
+    try {
+        DcmFileFormat ff;
+        OFCondition cond = ff.loadFile(path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
+                                       ERM_autoDetect);
+        st = finish(r, ff, cond, out, err);
+    } catch (const std::bad_alloc &) {
+        st = sl_error_set(err, SL_ENOMEM, "%s: out of memory", r.file());
+    } catch (...) {
+        st = sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", r.file());
+    }
+    close(fd);
+    return st;
 }
 
 sl_status sl_dicom_read_plan(const char *path, sl_plan **out, sl_error *err)

@@ -42,13 +42,19 @@ static int cmp_double(const void *a, const void *b)
 typedef struct growing {
     sl_organ_samples *s;
     size_t cap;
-    bool failed;
+    size_t limit;  /* samples allowed (0: no limit) */
+    bool failed;   /* out of memory */
+    bool overflow; /* the limit was reached */
 } growing;
 
 static void push(growing *g, sl_vec3 p, double v)
 {
-    if (g->failed)
+    if (g->failed || g->overflow)
         return;
+    if (g->limit && g->s->n >= g->limit) {
+        g->overflow = true;
+        return;
+    }
     if (g->s->n == g->cap) {
         size_t cap = g->cap ? g->cap * 2 : 1024;
         sl_vec3 *np = realloc(g->s->points, cap * sizeof *np);
@@ -221,7 +227,7 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
                         sl_organ_samples *out, sl_error *err)
 {
     memset(out, 0, sizeof *out);
-    growing g = {out, 0, false};
+    growing g = {out, 0, 0, false, false};
     sl_slice_stack st;
     sl_status rc = sl_slices_build(roi, file, opt->default_thickness_cm, &st, err);
     if (rc != SL_OK)
@@ -263,20 +269,32 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
     }
     double h = cbrt(v_est / (double)(opt->target_samples ? opt->target_samples : 1));
     h = fmax(opt->min_pitch_cm, fmin(opt->max_pitch_cm, h));
-    double h_cap = cbrt(v_est / MAX_SAMPLES);
-    if (h < h_cap) {
-        h = h_cap;
-        sl_notes_add(&out->notes,
-                     "ROI '%s' is very large (%.0f cm3): sampled at a %.2f cm pitch", roi->name,
-                     v_est, h);
-    }
-    out->pitch_cm = h;
-    out->nslices = st.nslices;
+    /* The shoelace areas understate what a self-crossing contour fills, so
+     * the sample count is also capped as the lattice is filled: past the cap
+     * the organ is sampled again at a coarser pitch. Memory stays bounded. */
     double *xs = NULL;
     size_t xcap = 0;
-    for (size_t i = 0; i < st.nslices && !g.failed; i++)
-        fill_slice(&st, &st.slices[i], h, &g, &xs, &xcap);
+    bool coarsened = false;
+    for (;;) {
+        g.limit = MAX_SAMPLES;
+        for (size_t i = 0; i < st.nslices && !g.failed && !g.overflow; i++)
+            fill_slice(&st, &st.slices[i], h, &g, &xs, &xcap);
+        if (!g.overflow)
+            break;
+        out->n = 0;
+        out->volume_cc_total = 0;
+        g.overflow = false;
+        h *= 1.5;
+        coarsened = true;
+    }
     free(xs);
+    if (coarsened)
+        sl_notes_add(&out->notes,
+                     "ROI '%s' is very large or its contours cross themselves: sampled at a "
+                     "%.2f cm pitch to stay within %d samples",
+                     roi->name, h, MAX_SAMPLES);
+    out->pitch_cm = h;
+    out->nslices = st.nslices;
     sl_slices_free(&st);
     if (g.failed) {
         sl_organ_samples_free(out);
