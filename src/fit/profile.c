@@ -104,17 +104,20 @@ static double model_phi(double d, const double *phi, double *grad, void *ctx)
 
 /* ------------------------------------------------ starting points -- */
 
+/* Starting points, packed row after row with p values a row, as the
+ * engine reads them. */
 typedef struct starts {
-    size_t n;
-    double v[16][SL_PROFILE_MAX_PARAMS];
+    size_t n, p;
+    double v[16 * SL_PROFILE_MAX_PARAMS];
 } starts;
 
 static void add_start(starts *s, const double *nat, size_t p)
 {
     if (s->n >= 16)
         return;
+    s->p = p;
     for (size_t i = 0; i < p; i++)
-        s->v[s->n][i] = log(nat[i]);
+        s->v[s->n * p + i] = log(nat[i]);
     s->n++;
 }
 
@@ -247,11 +250,11 @@ sl_status sl_profile_fit_form(const double *d, const double *y, const double *si
     opt.geodesic = true;
     sl_fit_result res;
     sl_error ferr = {0};
-    sl_status rc = sl_fit_multistart(&pb, &st.v[0][0], st.n, &opt, &res, &ferr);
+    sl_status rc = sl_fit_multistart(&pb, st.v, st.n, &opt, &res, &ferr);
     if (rc != SL_OK) {
         /* the plain Levenberg-Marquardt step from the same starts, before giving up */
         opt.geodesic = false;
-        rc = sl_fit_multistart(&pb, &st.v[0][0], st.n, &opt, &res, &ferr);
+        rc = sl_fit_multistart(&pb, st.v, st.n, &opt, &res, &ferr);
     }
     if (rc != SL_OK)
         return sl_error_set(err, rc, "%s: the %s form could not be fitted: %s", what,
