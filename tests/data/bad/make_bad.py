@@ -244,6 +244,18 @@ def main():
               lambda d: setattr(beam(d), "ReferencedPatientSetupNumber", 4),
               "ReferencedPatientSetupNumber (300C,006A) 4: no such patient setup")
 
+    # -- geometry that cannot be placed, a pair that does not belong together
+    plan_case("cutout_self_intersecting.dcm",
+              lambda d: setattr(beam(d).BlockSequence[0], "BlockData",
+                                rb.ds([-40, -40, 40, 40, 40, -40, -40, 30])),
+              "crosses itself", args="locate {f} {ss}")
+    other = base_structures()
+    other.SOPInstanceUID = rb.uid("bad", "other-ss")
+    save("ss_of_another_plan.dcm", other, "locate {plan} {f}", 3, "do not belong together")
+    plan_case("plan_frame_mismatch.dcm",
+              lambda d: setattr(d, "FrameOfReferenceUID", rb.uid("bad", "other-frame")),
+              "differs from", args="locate {f} {ss}")
+
     # -- structure sets
     ss_case("ss_missing_roi_sequence.dcm", lambda d: delete(d, "StructureSetROISequence"),
             "StructureSetROISequence (3006,0020): missing")
@@ -521,6 +533,21 @@ def yaml_cases():
             csv="wrong_header.csv", csv_body=csv_text(good_rows, "x_mm,dose_percent"))
     ms_case("csv_reading_without_cax.yaml", None, "gives no cax_reading",
             csv="reading.csv", csv_body=csv_text(good_rows, "edge_distance_cm,reading"))
+    # action-level tables, through the estimate
+    est = "estimate {plan} {ss} --model {model} --levels {f}"
+    lv = yaml.safe_load(open(os.path.join(HERE, "..", "..", "..", "models", "action-levels.yaml")))
+    def lv_case(name, mutate, fragment):
+        doc = copy.deepcopy(lv)
+        mutate(doc)
+        write_yaml(name, doc, est, 3, fragment)
+    lv_case("levels_unknown_mark.yaml", lambda d: d["kinds"][0]["levels"][0].update(mark="guess"),
+            "mark 'guess'")
+    lv_case("levels_negative_dose.yaml", lambda d: d["kinds"][0]["levels"][0].update(dose_gy=-0.5),
+            "dose_gy: -0.5")
+    lv_case("levels_missing_source.yaml", lambda d: d["kinds"][0]["levels"][0].pop("source"),
+            "missing key 'source'")
+    lv_case("levels_wrong_format.yaml", lambda d: d.update(format="levels"),
+            "not a strayline action-level table")
     ms_case("csv_unterminated_quote.yaml", None, "CSV error",
             csv="quote.csv", csv_body='edge_distance_cm,dose_percent\n0,"50\n1,20\n')
 
