@@ -31,6 +31,11 @@ extern "C" {
 
 typedef struct sl_outline sl_outline;
 
+/* Most vertices an outline may have, over all its loops. The check that it
+ * is a simple polygon compares edge pairs; cutouts and apertures have tens
+ * to a few thousand vertices. */
+#define SL_OUTLINE_MAX_VERTICES 20000
+
 typedef struct sl_outline_loop {
     const sl_vec2 *points; /* cm; closing point not repeated (a repeated one is dropped) */
     size_t n;

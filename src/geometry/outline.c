@@ -153,6 +153,12 @@ sl_status sl_outline_create(const sl_outline_loop *loops, size_t nloops, const c
     *out = NULL;
     if (nloops == 0)
         return sl_error_set(err, SL_EINPUT, "%s: no outline", what);
+    size_t nv = 0;
+    for (size_t k = 0; k < nloops; k++)
+        nv += loops[k].n;
+    if (nv > SL_OUTLINE_MAX_VERTICES)
+        return sl_error_set(err, SL_EINPUT, "%s: %zu vertices (at most %d are accepted)", what,
+                            nv, SL_OUTLINE_MAX_VERTICES);
     sl_outline *o = calloc(1, sizeof *o);
     if (!o)
         return sl_error_set(err, SL_ENOMEM, "out of memory");

@@ -2,6 +2,7 @@
  * Stacks of axial slabs from closed planar contours (see slices.h).
  */
 #include "strayline/slices.h"
+#include "strayline/poly2d.h"
 
 #include <math.h>
 #include <stdlib.h>
@@ -121,6 +122,20 @@ sl_status sl_slices_build(const sl_roi *roi, const char *file, double default_th
             free(p);
             out->ignored_small++;
             continue;
+        }
+        /* A closed contour that encloses nothing (collinear points, a wire
+         * drawn as a loop) has no volume to sample and no inside for the
+         * body's depths; its dose would be 0/0. */
+        if (!(fabs(sl_p2_area(p, n)) > 1e-8)) {
+            sl_status st = sl_error_set(err, SL_EINPUT,
+                                        "%s: ROI '%s': contour %zu (z = %.2f cm) is closed but "
+                                        "encloses no area (its points are collinear): redraw it, "
+                                        "or mark it OPEN_PLANAR or POINT",
+                                        file, roi->name, refs[r].contour + 1, refs[r].z);
+            free(p);
+            free(refs);
+            sl_slices_free(out);
+            return st;
         }
         double z = refs[r].z;
         if (out->nslices == 0 || z - out->slices[out->nslices - 1].z_cm > SAME_PLANE_CM) {

@@ -19,6 +19,10 @@
 #include <string.h>
 
 #define GRID_MAX 64
+/* Most edges one grid cell may list. A body contour denser than this in
+ * one cell is refused rather than traced with an unbounded scratch buffer;
+ * clinical body contours list tens of edges a cell. */
+#define MAX_CELL_EDGES 8192
 /* An odd margin around each slice, so that cell centres do not fall on
  * the round coordinates that phantom edges like to sit on. */
 #define MARGIN_CM 1.0031416
@@ -30,8 +34,8 @@ typedef struct bslice {
     int gx, gy;
     size_t ne;
     sl_vec2 *ea, *eb;
-    unsigned *cell_start;
-    unsigned *cell_edges;
+    size_t *cell_start;
+    size_t *cell_edges;
     unsigned char *center_in;
 } bslice;
 
@@ -123,15 +127,17 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
             size_t total = 0;
             for (size_t c = 0; c < ncell; c++) {
                 size_t k = s->cell_start[c];
-                s->cell_start[c] = (unsigned)total;
+                if (k > MAX_CELL_EDGES)
+                    return SL_EINPUT;
+                s->cell_start[c] = total;
                 total += k;
             }
-            s->cell_start[ncell] = (unsigned)total;
+            s->cell_start[ncell] = total;
             s->cell_edges = malloc((total ? total : 1) * sizeof *s->cell_edges);
             if (!s->cell_edges)
                 return SL_ENOMEM;
         }
-        unsigned *fill = NULL;
+        size_t *fill = NULL;
         if (pass == 1) {
             fill = malloc(ncell * sizeof *fill);
             if (!fill)
@@ -153,7 +159,7 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
                     if (pass == 0)
                         s->cell_start[c]++;
                     else
-                        s->cell_edges[fill[c]++] = (unsigned)i;
+                        s->cell_edges[fill[c]++] = i;
                 }
         }
         free(fill);
@@ -202,8 +208,15 @@ sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body 
     b->lo = (sl_vec3){DBL_MAX, DBL_MAX, DBL_MAX};
     b->hi = (sl_vec3){-DBL_MAX, -DBL_MAX, -DBL_MAX};
     for (size_t i = 0; i < b->n; i++) {
-        if (slice_build(stack, &stack->slices[i], &b->s[i]) != SL_OK) {
+        sl_status st = slice_build(stack, &stack->slices[i], &b->s[i]);
+        if (st != SL_OK) {
+            double z = stack->slices[i].z_cm;
             sl_body_free(b);
+            if (st == SL_EINPUT)
+                return sl_error_set(err, SL_EINPUT,
+                                    "%s: the contours at z = %.2f cm are too dense to trace (more "
+                                    "than %d edges in one grid cell)",
+                                    what, z, MAX_CELL_EDGES);
             return sl_error_set(err, SL_ENOMEM, "out of memory building the body model");
         }
         const bslice *s = &b->s[i];
@@ -242,8 +255,8 @@ static bool slice_inside(const bslice *s, sl_vec2 q)
     size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
     sl_vec2 centre = {s->lo.x + (cx + 0.5) * s->cell, s->lo.y + (cy + 0.5) * s->cell};
     bool in = s->center_in[c];
-    for (unsigned k = s->cell_start[c]; k < s->cell_start[c + 1]; k++) {
-        unsigned i = s->cell_edges[k];
+    for (size_t k = s->cell_start[c]; k < s->cell_start[c + 1]; k++) {
+        size_t i = s->cell_edges[k];
         if (sl_p2_crosses(centre, q, s->ea[i], s->eb[i], NULL))
             in = !in;
     }
@@ -298,20 +311,14 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
     double tdx = stepx ? s->cell / fabs(dx) : INFINITY;
     double tdy = stepy ? s->cell / fabs(dy) : INFINITY;
     double enter = sa;
-    double local[64];
+    double buf[MAX_CELL_EDGES];
     for (;;) {
         double exit = fmin(fmin(tmx, tmy), sb);
         size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
-        unsigned k0 = s->cell_start[c], k1 = s->cell_start[c + 1];
+        size_t k0 = s->cell_start[c], k1 = s->cell_start[c + 1];
         size_t nloc = 0;
-        double *buf = local;
-        if (k1 - k0 > 64) {
-            buf = malloc((k1 - k0) * sizeof *buf);
-            if (!buf)
-                buf = local, k1 = k0 + 64; /* cannot happen in practice; stay bounded */
-        }
-        for (unsigned k = k0; k < k1; k++) {
-            unsigned i = s->cell_edges[k];
+        for (size_t k = k0; k < k1; k++) {
+            size_t i = s->cell_edges[k];
             double t;
             if (sl_p2_crosses(q0, q1, s->ea[i], s->eb[i], &t) && t >= enter && t < exit)
                 buf[nloc++] = t;
@@ -326,8 +333,6 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
             in = !in;
             last = buf[j];
         }
-        if (buf != local)
-            free(buf);
         if (exit >= sb)
             break;
         enter = exit;

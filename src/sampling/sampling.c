@@ -14,6 +14,11 @@
 #include <string.h>
 
 #define MAX_SAMPLES 400000 /* per organ; the pitch grows rather than memory */
+/* Every closed contour gives at least one sample however coarse the pitch,
+ * so the number of contours must stay well under the sample cap for the
+ * coarsening below to end. Clinical ROIs have hundreds of contours. */
+#define MAX_LOOPS 100000
+#define MAX_COARSENINGS 40
 
 void sl_sampling_default_options(sl_sampling_options *o)
 {
@@ -243,9 +248,24 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
     if (st.repeated_points)
         sl_notes_add(&out->notes, "ROI '%s': %zu repeated contour points removed", roi->name,
                      st.repeated_points);
+    if (st.nloops > MAX_LOOPS) {
+        size_t n = st.nloops;
+        sl_slices_free(&st);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: ROI '%s' has %zu closed contours (at most %d are sampled): "
+                            "not a plausible organ",
+                            file, roi->name, n, MAX_LOOPS);
+    }
     if (st.nslices == 0) {
         sl_slices_free(&st);
+        g.limit = MAX_SAMPLES;
         rc = sample_points(roi, out, &g);
+        if (rc == SL_OK && g.overflow) {
+            sl_organ_samples_free(out);
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: ROI '%s' has more than %d points: not a plausible point ROI",
+                                file, roi->name, MAX_SAMPLES);
+        }
         if (rc != SL_OK) {
             sl_organ_samples_free(out);
             return sl_error_set(err, rc, "out of memory sampling ROI '%s'", roi->name);
@@ -275,7 +295,15 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
     double *xs = NULL;
     size_t xcap = 0;
     bool coarsened = false;
-    for (;;) {
+    for (int round = 0;; round++) {
+        if (round == MAX_COARSENINGS) {
+            free(xs);
+            sl_slices_free(&st);
+            sl_organ_samples_free(out);
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: ROI '%s' cannot be sampled within %d samples at any pitch",
+                                file, roi->name, MAX_SAMPLES);
+        }
         g.limit = MAX_SAMPLES;
         for (size_t i = 0; i < st.nslices && !g.failed && !g.overflow; i++)
             fill_slice(&st, &st.slices[i], h, &g, &xs, &xcap);

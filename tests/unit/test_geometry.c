@@ -223,6 +223,17 @@ START_TEST(outline_refuses_bad_polygons)
     sl_vec2 s1[4] = {{0, 0}, {4, 0}, {4, 4}, {0, 4}}, s2[4] = {{2, 2}, {6, 2}, {6, 6}, {2, 6}};
     sl_outline_loop two_loops[2] = {{s1, 4}, {s2, 4}};
     ck_assert_int_eq(sl_outline_create(two_loops, 2, "overlap", &o, &e), SL_EINPUT);
+    /* more vertices than the simple-polygon check is meant for: refused
+     * before the pairwise check starts */
+    size_t nbig = SL_OUTLINE_MAX_VERTICES + 1;
+    sl_vec2 *big = malloc(nbig * sizeof *big);
+    for (size_t i = 0; i < nbig; i++)
+        big[i] = (sl_vec2){5 * cos(2 * M_PI * (double)i / (double)nbig),
+                           5 * sin(2 * M_PI * (double)i / (double)nbig)};
+    l = (sl_outline_loop){big, nbig};
+    ck_assert_int_eq(sl_outline_create(&l, 1, "dense", &o, &e), SL_EINPUT);
+    ck_assert_ptr_nonnull(strstr(e.msg, "vertices (at most"));
+    free(big);
 }
 END_TEST
 
@@ -421,6 +432,37 @@ START_TEST(points_and_open_contours)
 }
 END_TEST
 
+START_TEST(degenerate_rois_are_refused)
+{
+    sl_sampling_options opt;
+    sl_sampling_default_options(&opt);
+    sl_organ_samples s;
+    sl_error e = {0};
+    /* a closed contour of collinear points has no inside: its dose would
+     * be 0/0, so it is an input error naming the ROI and contour */
+    roi_builder w = {0};
+    sl_vec3 wire[3] = {{0, 0, 0}, {10, 0, 0}, {20, 0, 0}};
+    rb_add(&w, SL_CONTOUR_CLOSED_PLANAR, wire, 3);
+    w.roi.name = "Wire";
+    ck_assert_int_eq(sl_sample_roi(&w.roi, "ss.dcm", &opt, &s, &e), SL_EINPUT);
+    ck_assert_ptr_nonnull(strstr(e.msg, "ss.dcm: ROI 'Wire': contour 1"));
+    ck_assert_ptr_nonnull(strstr(e.msg, "encloses no area"));
+    rb_free(&w);
+    /* more closed contours than can ever fit the sample cap (each gives at
+     * least one sample): refused, where the coarsening would never end */
+    roi_builder t = {0};
+    for (int i = 0; i < 100001; i++) {
+        double x = (i % 400) * 3.0, z = (i / 400) * 2.0;
+        sl_vec3 tri[3] = {{x, 0, z}, {x + 1, 0, z}, {x, 1, z}};
+        rb_add(&t, SL_CONTOUR_CLOSED_PLANAR, tri, 3);
+    }
+    t.roi.name = "Confetti";
+    ck_assert_int_eq(sl_sample_roi(&t.roi, "ss.dcm", &opt, &s, &e), SL_EINPUT);
+    ck_assert_ptr_nonnull(strstr(e.msg, "100001 closed contours"));
+    rb_free(&t);
+}
+END_TEST
+
 /* --------------------------------------------------------------- body -- */
 
 /* Box body: x -100..100, y -50..50 mm, slices z = -100..100 mm every 10 mm,
@@ -542,6 +584,7 @@ static Suite *geometry_suite(void)
     tcase_add_test(tc, slice_area_matches_shoelace);
     tcase_add_test(tc, resolution_adapts_to_size);
     tcase_add_test(tc, points_and_open_contours);
+    tcase_add_test(tc, degenerate_rois_are_refused);
     tcase_add_test(tc, body_path_lengths_in_a_box);
     tcase_add_test(tc, field_from_cutout_catalogue_and_geometry);
     suite_add_tcase(s, tc);
