@@ -40,6 +40,11 @@ extern "C" {
 #define SL_NEARMAX_CC 0.03
 #define SL_NEARMAX_FRACTION 0.02
 #define SL_BEAM_DOSE_TOLERANCE 0.10   /* warn when the plan's Beam Dose differs more */
+/* SSDs accepted around the model's nominal SSD, cm (common practice: the
+ * applicator ends about 5 cm above the nominal surface; extended SSDs for
+ * electrons rarely pass 120 cm) */
+#define SL_SSD_SHORT_MAX_CM 5.0
+#define SL_SSD_LONG_MAX_CM 30.0
 
 typedef struct sl_shield {
     const char *roi;

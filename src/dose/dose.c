@@ -145,13 +145,13 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     bd->cutout_factor = 1.0;
     bd->cutout_factor_assumed = false;
     if (bd->cutout) {
+        /* a measured factor stands even when the insert has no profiles of
+         * its own and the open ones stand in for them */
         bd->cutout_factor_assumed = true;
-        if (!(bd->model_flags & SL_MF_OPEN_FOR_CUTOUT)) {
-            for (size_t k = 0; k < o->nfactors; k++) {
-                if (strcmp(o->factors[k].insert, ins) == 0) {
-                    bd->cutout_factor = o->factors[k].factor;
-                    bd->cutout_factor_assumed = false;
-                }
+        for (size_t k = 0; k < o->nfactors; k++) {
+            if (strcmp(o->factors[k].insert, ins) == 0) {
+                bd->cutout_factor = o->factors[k].factor;
+                bd->cutout_factor_assumed = false;
             }
         }
         if (bd->cutout_factor_assumed)
@@ -165,25 +165,48 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                      "beam %d: the cutout is not commissioned: the open applicator's profiles "
                      "are used from the cutout's edge (conservative default)",
                      b->number);
-    /* inverse square at an SSD other than the nominal one */
-    bd->ssd_used_cm = isfinite(bp->ssd_plan_cm) ? bp->ssd_plan_cm : bp->ssd_found_cm;
+    /* Inverse square at an SSD other than the nominal one. An SSD short of
+     * the nominal one by more than the applicator's usual stand-off would put
+     * the skin inside the applicator, and one far beyond it is outside what
+     * the square law and the out-of-field profiles cover: both are refused
+     * (bounds are common practice, not a published limit). */
+    bool ssd_from_plan = isfinite(bp->ssd_plan_cm);
+    bd->ssd_used_cm = ssd_from_plan ? bp->ssd_plan_cm : bp->ssd_found_cm;
     if (isfinite(bd->ssd_used_cm)) {
+        double lo = m->machine.nominal_ssd_cm - SL_SSD_SHORT_MAX_CM;
+        double hi = m->machine.nominal_ssd_cm + SL_SSD_LONG_MAX_CM;
+        if (!(bd->ssd_used_cm >= lo && bd->ssd_used_cm <= hi))
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: beam %d: SSD %.1f cm (%s) is outside %.0f-%.0f cm, the "
+                                "plausible range for the model's nominal SSD of %.0f cm",
+                                f, b->number, bd->ssd_used_cm,
+                                ssd_from_plan ? "SourceToSurfaceDistance (300A,0130)"
+                                              : "found on the body contour",
+                                lo, hi, m->machine.nominal_ssd_cm);
         bd->gap_cm = bd->ssd_used_cm - m->machine.nominal_ssd_cm;
         double r = (bd->effective_ssd_cm + bd->dmax_cm) /
                    (bd->effective_ssd_cm + bd->gap_cm + bd->dmax_cm);
         bd->isf = r * r;
-        if (!isfinite(bp->ssd_plan_cm))
+        if (!ssd_from_plan)
             sl_notes_add(&e->notes,
                          "beam %d: the plan gives no SSD: the SSD found on the body contour "
                          "(%.1f cm) is used for the inverse-square correction",
                          b->number, bd->ssd_used_cm);
-    } else {
+    } else if (!isnan(e->opt.reference_dose_cgy)) {
         bd->gap_cm = NAN;
         bd->isf = 1.0;
         sl_notes_add(&e->notes,
-                     "beam %d: no SSD (none in the plan, none found on the body): no "
-                     "inverse-square correction",
+                     "beam %d: no SSD (none in the plan, none found on the body): the reference "
+                     "dose given by option is used as it stands",
                      b->number);
+    } else {
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d: no SSD (no SourceToSurfaceDistance (300A,0130) in the "
+                            "plan, and %s): the inverse-square correction is unknown; give "
+                            "--reference-dose",
+                            f, b->number,
+                            e->loc->depth_from_body ? "the central axis misses the body contour"
+                                                    : "the body contour is not used");
     }
     /* meterset of each fraction group */
     size_t ng = e->ngroups;

@@ -236,6 +236,9 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
 {
     bp->beam = beam;
     bp->ssd_plan_cm = isfinite(beam->ssd_mm) ? beam->ssd_mm * 0.1 : NAN;
+    /* unknown until the central axis is traced through a body */
+    bp->ssd_found_cm = NAN;
+    bp->obliquity_deg = NAN;
     sl_status st = sl_plan_beam_position(plan, beam, &bp->position, err);
     if (st == SL_OK)
         st = sl_frame_from_beam(&bp->frame, plan, beam, err);

@@ -297,6 +297,16 @@ def main():
     ss_case("ss_contour_two_points.dcm", contour_points(2),
             "a CLOSED_PLANAR contour needs at least 3 points, found 2")
     ss_case("ss_contour_zero_points.dcm", contour_points(0), "ContourData (3006,0050): missing")
+    ss_case("ss_contour_collinear.dcm", contour_points(3),
+            "ROI 'Lens_L': contour 1 (z = 6.00 cm) is closed but encloses no area",
+            args="locate {plan} {f}")
+    plan_case("plan_ssd_implausible.dcm",
+              lambda d: setattr(cp0(d), "SourceToSurfaceDistance", "10"),
+              "SSD 1.0 cm (SourceToSurfaceDistance (300A,0130)) is outside 95-130 cm",
+              args="estimate {f} {ss} --model {model}")
+    plan_case("plan_no_ssd_depth_option.dcm", lambda d: delete(cp0(d), "SourceToSurfaceDistance"),
+              "no SSD (no SourceToSurfaceDistance (300A,0130) in the plan, and the body contour "
+              "is not used)", args="estimate {f} {ss} --model {model} --depth 1")
     ss_case("ss_roi_contour_unknown_roi.dcm",
             lambda d: setattr(d.ROIContourSequence[1], "ReferencedROINumber", 99),
             "refers to ROI 99")
