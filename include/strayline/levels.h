@@ -175,6 +175,8 @@ typedef struct sl_assessments {
     size_t n;
     sl_assessment *items;     /* one per organ of the estimate */
     bool any_flagged;
+    size_t n_unjudged;        /* organs with levels that were not judged: in the field,
+                                 beyond the model's range or not placed */
     sl_notes notes;
 } sl_assessments;
 

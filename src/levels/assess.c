@@ -38,11 +38,35 @@ static int band_of(const sl_kind *k, double gy)
     return (int)k->nbands - 1;
 }
 
+/* An organ with action levels that this screening cannot judge (in the
+ * field, beyond the model's range, not placed) is counted so that no
+ * headline reads as all clear. A fetus or a cardiac device left unjudged
+ * needs attention in itself (common practice: their doses are documented). */
+static void unjudged(sl_assessments *as, sl_assessment *a)
+{
+    if (!a->kind || (a->kind->nlevels == 0 && a->kind->nbands == 0))
+        return;
+    as->n_unjudged++;
+    if (a->kind->nbands == 0 && strcmp(a->kind->kind, "fetus") != 0)
+        return;
+    a->flagged = true;
+    a->measurement_advised = true;
+    sl_notes_add(&a->advice,
+                 "not judged by this screening (%s): %s",
+                 a->status == SL_ST_IN_FIELD ? "in or touching the field"
+                                             : (a->not_assessed_why ? a->not_assessed_why
+                                                                    : "not assessed"),
+                 a->status == SL_ST_IN_FIELD
+                     ? "take its dose from the planning system and document it"
+                     : "estimate its dose by measurement (in-vivo or in a phantom) and document it");
+}
+
 static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
 {
     const sl_organ_dose *d = a->dose;
     double gy = d->course_max.cgy / 100, up = d->course_max.upper_cgy / 100;
-    if (a->flagged) {
+    /* an unjudged organ is flagged for measurement, not for a shield */
+    if (a->flagged && a->status != SL_ST_NOT_ASSESSED) {
         if (d->electron_fraction > 0.5) {
             a->shield_advised = true;
             a->shield_energy_mev = d->max_energy_mev;
@@ -162,6 +186,8 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         if (!d->estimated) {
             a->status = d->in_field ? SL_ST_IN_FIELD : SL_ST_NOT_ASSESSED;
             a->not_assessed_why = d->excluded_why;
+            unjudged(as, a);
+            as->any_flagged |= a->flagged;
             continue;
         }
         /* beyond the model's range, for the nearest beam */
@@ -181,7 +207,7 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         double level_gy = NAN;
         const sl_kind *k = a->kind;
         if (a->status == SL_ST_NOT_ASSESSED) {
-            /* nothing more */
+            unjudged(as, a);
         } else if (k && k->nbands) {
             a->band = band_of(k, gy);
             a->band_upper = band_of(k, up);

@@ -50,12 +50,18 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Action levels are screening levels with their sources, not prescriptions; "
                  "local protocols and a qualified medical physicist decide.");
-    if (n < max)
+    if (n < max && r->loc->depth_from_body)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Depths are water-equivalent path lengths through the body contour (no CT "
                  "densities); uncertainties are k = 1 with upper bounds at k = 2 and include a "
                  "%.1f cm setup shift.",
                  r->est->opt.setup_shift_cm);
+    else if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Every depth is set by option to %.2f cm (the body contour is not used); "
+                 "uncertainties are k = 1 with upper bounds at k = 2 and include a %.1f cm setup "
+                 "shift.",
+                 r->loc->depth_cm, r->est->opt.setup_shift_cm);
     return n;
 }
 
@@ -122,9 +128,12 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                 orq(be->name), bd->energy_mev, bd->applicator, bd->insert,
                 bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (open profiles used: conservative)"
                                                         : "");
-        fprintf(fp, "  %.3f cGy/MU, SSD %.1f cm (inverse square %.3f), cutout factor %.3f%s\n",
-                bd->dose_per_mu_cgy, bd->ssd_used_cm, bd->isf, bd->cutout_factor,
-                bd->cutout_factor_assumed ? " (assumed)" : "");
+        char ssd[96], lim[256];
+        est_ssd_text(bd, ssd, sizeof ssd);
+        est_limits_text(bd, lim, sizeof lim);
+        fprintf(fp, "  %.3f cGy/MU, %s, cutout factor %.3f%s\n", bd->dose_per_mu_cgy, ssd,
+                bd->cutout_factor, bd->cutout_factor_assumed ? " (assumed)" : "");
+        fprintf(fp, "  %s\n", lim);
         for (size_t g = 0; g < e->ngroups; g++) {
             if (!isfinite(bd->ref_cgy[g]))
                 continue;
@@ -184,8 +193,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
-        if (!a->dose->estimated || (a->advice.count == 0 && a->statements.count == 0 &&
-                                    isnan(a->lar_cases)))
+        if (a->advice.count == 0 && a->statements.count == 0 && isnan(a->lar_cases))
             continue;
         if (!any)
             fprintf(fp, "\nadvice and risk statements:\n");
@@ -201,8 +209,15 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                         "population average, not an individual prediction)\n",
                     a->lar_cases, a->dose->course_mean.cgy / 100, a->lar->source, a->lar->mark);
         if (a->status == SL_ST_BAND)
-            fprintf(fp, "    - risk bands: %s (%s)%s\n", a->kind->bands_source, a->kind->bands_mark,
-                    r->as->patient.pacing_dependent ? "; moved up for pacing dependence" : "");
+        {
+            if (r->as->patient.pacing_dependent)
+                fprintf(fp, "    - risk bands: %s (%s); moved up %d band%s for pacing dependence\n",
+                        a->kind->bands_source, a->kind->bands_mark, a->kind->pacing_shift,
+                        a->kind->pacing_shift == 1 ? "" : "s");
+            else
+                fprintf(fp, "    - risk bands: %s (%s)\n", a->kind->bands_source,
+                        a->kind->bands_mark);
+        }
         for (size_t c = 0; c < a->nchecks; c++)
             fprintf(fp, "    - %s: %.3g Gy (%s; %s): %s\n", a->checks[c].level->name,
                     a->checks[c].level->dose_gy, a->checks[c].level->source,
@@ -221,9 +236,16 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     for (size_t i = 0; i < w.count; i++)
         fprintf(fp, "  - %s\n", w.items[i]);
     sl_notes_free(&w);
-    fprintf(fp, "\n%s\n", r->as->any_flagged
-                              ? "RESULT: at least one organ needs attention (see status and advice)"
-                              : "RESULT: no organ reaches its action level at this screening");
+    if (r->as->any_flagged)
+        fprintf(fp, "\nRESULT: at least one organ needs attention (see status and advice)\n");
+    else if (r->as->n_unjudged)
+        fprintf(fp,
+                "\nRESULT: no judged organ reaches its action level; %zu organ%s with action "
+                "levels not judged (in the field, beyond the model's range or not placed): see "
+                "above\n",
+                r->as->n_unjudged, r->as->n_unjudged == 1 ? "" : "s");
+    else
+        fprintf(fp, "\nRESULT: no organ reaches its action level at this screening\n");
 }
 
 /* ------------------------------------------------------------- JSON -- */
@@ -478,6 +500,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
     }
     jw_put(w, root, "organs", organs);
     jw_bool(w, root, "any_flagged", r->as->any_flagged);
+    jw_int(w, root, "organs_not_judged", (long long)r->as->n_unjudged);
     sl_notes all = {0};
     est_warnings(r, &all);
     jw_put(w, root, "warnings", jw_notes(w, &all));
@@ -548,8 +571,15 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
                           : (d->excluded_why ? d->excluded_why : ""),
                   true);
     }
-    /* the cautions travel with the table: rows whose first field starts
-     * with '#', the text in the second */
+    /* the cautions and the model's limits travel with the table: rows
+     * whose first field starts with '#', the text in the second */
+    for (size_t b = 0; b < r->est->nbeams; b++) {
+        char lim[256], txt[300];
+        est_limits_text(&r->est->beams[b], lim, sizeof lim);
+        snprintf(txt, sizeof txt, "beam %d: %s", r->est->beams[b].place->beam->number, lim);
+        csv_field(fp, "# model limits", false);
+        csv_field(fp, txt, true);
+    }
     char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
     size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
     for (size_t i = 0; i < nc; i++) {
@@ -559,11 +589,58 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
     return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the CSV output") : SL_OK;
 }
 
+void est_ssd_text(const sl_beam_dose *bd, char *buf, size_t size)
+{
+    if (isfinite(bd->ssd_used_cm))
+        snprintf(buf, size, "SSD %.1f cm (inverse square %.3f)", bd->ssd_used_cm, bd->isf);
+    else
+        snprintf(buf, size, "SSD unknown (no inverse-square correction)");
+}
+
+void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
+{
+    double lo, hi;
+    sl_curves_range(bd->curves, &lo, &hi);
+    int len = snprintf(buf, size, "model limits: %.1f to %.1f cm from the field edge, depths ",
+                       lo, hi);
+    const double *dv;
+    size_t nd = sl_curves_depths(bd->curves, &dv);
+    for (size_t k = 0; k < nd && len > 0 && (size_t)len < size; k++)
+        len += snprintf(buf + len, size - (size_t)len, "%s%.2g", k ? ", " : "", dv[k]);
+    if (len > 0 && (size_t)len < size)
+        snprintf(buf + len, size - (size_t)len, " cm");
+    if (len < 0 || (size_t)len >= size - 3) {
+        if (size > 4)
+            memcpy(buf + size - 4, "...", 4);
+    }
+}
+
+void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size)
+{
+    if (isfinite(bd->place->obliquity_deg))
+        snprintf(buf, size, "%.1f deg", bd->place->obliquity_deg);
+    else
+        snprintf(buf, size, "unknown");
+}
+
 /* A non-finite number must never reach a report: check what the writers
- * are about to print and name the field otherwise. */
-static sl_status check_finite(const sl_estimate_report *r, sl_error *err)
+ * are about to print and name the field otherwise. Values that may be
+ * unknown (an SSD, an obliquity, a group's MU under --reference-dose) are
+ * written as unknown by the writers themselves. */
+sl_status est_check_finite(const sl_estimate_report *r, sl_error *err)
 {
     const sl_estimate *e = r->est;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        const double v[] = {bd->dose_per_mu_cgy, bd->isf, bd->cutout_factor};
+        const char *names[] = {"dose_per_mu_cgy", "inverse_square", "cutout_factor"};
+        for (int k = 0; k < 3; k++)
+            if (!isfinite(v[k]))
+                return sl_error_set(err, SL_EINTERNAL,
+                                    "report refused a non-finite value for %s of beam %d (a bug: "
+                                    "please report it)",
+                                    names[k], bd->place->beam->number);
+    }
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
         if (!d->estimated)
@@ -578,13 +655,19 @@ static sl_status check_finite(const sl_estimate_report *r, sl_error *err)
                                     "bug: please report it)",
                                     names[k], d->roi->name);
         }
+        if (!isfinite(d->min_distance_cm) || !isfinite(d->min_depth_cm) ||
+            !isfinite(d->max_depth_cm))
+            return sl_error_set(err, SL_EINTERNAL,
+                                "report refused a non-finite distance or depth for ROI '%s' (a "
+                                "bug: please report it)",
+                                d->roi->name);
     }
     return SL_OK;
 }
 
 sl_status sl_report_estimate(FILE *fp, sl_format fmt, const sl_estimate_report *r, sl_error *err)
 {
-    sl_status st = check_finite(r, err);
+    sl_status st = est_check_finite(r, err);
     if (st != SL_OK)
         return st;
     if (fmt == SL_FORMAT_CSV)

@@ -27,4 +27,18 @@ void est_status_text(const sl_assessment *a, char *buf, size_t size);
 /* The kind's name or "-". */
 const char *est_kind(const sl_assessment *a);
 
+/* The beam's SSD line, "SSD 105.0 cm (inverse square 0.912)" or "SSD
+ * unknown (no inverse-square correction)", and its surface obliquity,
+ * "12.0 deg" or "unknown". */
+void est_ssd_text(const sl_beam_dose *bd, char *buf, size_t size);
+void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size);
+
+/* The model's limits for a beam: "model limits: 0.5 to 40.0 cm from the
+ * field edge, depths 0.5, 1.0, 3.0 cm" (truncated with "..." if long). */
+void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size);
+
+/* Refuse a non-finite number that a writer is about to print: every
+ * writer calls it first. */
+sl_status est_check_finite(const sl_estimate_report *r, sl_error *err);
+
 #endif

@@ -398,6 +398,9 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
 {
     const sl_estimate *e = r->est;
     const sl_plan *p = r->plan;
+    sl_status st0 = est_check_finite(r, err);
+    if (st0 != SL_OK)
+        return st0;
     hdoc h;
     if (!hdoc_new(&h, "strayline: out-of-field dose screening estimate", sl_report_css))
         return sl_error_set(err, SL_ENOMEM, "out of memory building the HTML report");
@@ -444,8 +447,15 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     if (pt->pacing_dependent)
         hel(&h, b, "p", "The patient is pacing-dependent.");
 
-    hel(&h, b, "h2", r->as->any_flagged ? "Organs: at least one needs attention"
-                                        : "Organs: none reaches its action level");
+    if (r->as->any_flagged)
+        hel(&h, b, "h2", "Organs: at least one needs attention");
+    else if (r->as->n_unjudged)
+        helf(&h, b, "h2",
+             "Organs: no judged organ reaches its action level; %zu with action levels not "
+             "judged (see below)",
+             r->as->n_unjudged);
+    else
+        hel(&h, b, "h2", "Organs: none reaches its action level");
     xmlNodePtr ot = hel(&h, b, "table", NULL);
     const char *head[] = {"organ",
                           "kind",
@@ -517,8 +527,6 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     bool any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
-        if (!a->dose->estimated)
-            continue;
         for (size_t i = 0; i < a->advice.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->advice.items[i]);
         for (size_t i = 0; i < a->statements.count; i++, any = true)
@@ -532,10 +540,12 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
                                                : "not reached");
         if (a->status == SL_ST_BAND) {
             any = true;
+            char shift[64] = "";
+            if (r->as->patient.pacing_dependent)
+                snprintf(shift, sizeof shift, "; moved up %d band%s for pacing dependence",
+                         a->kind->pacing_shift, a->kind->pacing_shift == 1 ? "" : "s");
             helf(&h, adv, "li", "%s: risk bands of the %s (%s)%s", a->dose->roi->name,
-                 a->kind->bands_source, a->kind->bands_mark,
-                 r->as->patient.pacing_dependent ? "; moved up one band for pacing dependence"
-                                                 : "");
+                 a->kind->bands_source, a->kind->bands_mark, shift);
         }
         if (!isnan(a->lar_cases)) {
             any = true;
@@ -556,22 +566,33 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         xmlNodePtr sec = hel(&h, b, "section", NULL);
         helf(&h, sec, "h2", "Beam %d '%s': %g MeV, applicator %s, insert %s", bp->beam->number,
              bp->beam->name ? bp->beam->name : "-", bd->energy_mev, bd->applicator, bd->insert);
+        char ssd[96], obl[32];
+        est_ssd_text(bd, ssd, sizeof ssd);
+        est_obliquity_text(bd, obl, sizeof obl);
         snprintf(buf, sizeof buf,
-                 "%.3f cGy/MU at dmax; SSD %.1f cm (inverse square %.3f); cutout factor %.3f%s; "
+                 "%.3f cGy/MU at dmax; %s; cutout factor %.3f%s; "
                  "field edge from the %s; gantry %.1f deg, collimator %.1f deg, couch %.1f deg; "
-                 "surface obliquity %.1f deg",
-                 bd->dose_per_mu_cgy, bd->ssd_used_cm, bd->isf, bd->cutout_factor,
+                 "surface obliquity %s",
+                 bd->dose_per_mu_cgy, ssd, bd->cutout_factor,
                  bd->cutout_factor_assumed ? " (assumed)" : "",
                  sl_field_source_name(bp->field.source), bp->beam->gantry_deg,
-                 bp->beam->collimator_deg, bp->beam->couch_deg, bp->obliquity_deg);
+                 bp->beam->collimator_deg, bp->beam->couch_deg, obl);
+        hel(&h, sec, "p", buf);
+        est_limits_text(bd, buf, sizeof buf);
         hel(&h, sec, "p", buf);
         for (size_t g = 0; g < e->ngroups; g++) {
-            if (isfinite(bd->ref_cgy[g]))
+            if (isfinite(bd->ref_cgy[g])) {
+                char mu[32];
+                if (isfinite(bd->mu[g]))
+                    snprintf(mu, sizeof mu, "%.1f MU", bd->mu[g]);
+                else
+                    snprintf(mu, sizeof mu, "MU not in the plan");
                 helf(&h, sec, "p",
-                     "fraction group %d: %.1f MU; reference dose %.1f cGy a fraction at the "
+                     "fraction group %d: %s; reference dose %.1f cGy a fraction at the "
                      "central-axis maximum%s; %d fractions",
-                     p->groups[g].number, bd->mu[g], bd->ref_cgy[g],
+                     p->groups[g].number, mu, bd->ref_cgy[g],
                      bd->reference_overridden ? " (set by option)" : "", e->fractions[g]);
+            }
         }
         hel(&h, sec, "h3", "Beam's-eye view");
         bev(&h, sec, r, bi);

@@ -387,6 +387,125 @@ class LevelsAndStatuses(unittest.TestCase):
             self.assertIn("unknown kind", err)
 
 
+class UnknownsAreRefusedOrSaid(unittest.TestCase):
+    """Values the plan does not give are never replaced by a silent default:
+    an unknown SSD, an implausible one, missing monitor units; organs the
+    screening cannot judge are counted in the headline."""
+
+    ONE = [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}]
+
+    def test_no_ssd_without_a_body_needs_a_reference_dose(self):
+        with tempdir() as d:
+            plan, ss = box_case(d, [("p", (90.0, 10.0, 0.0))], [{"number": 1, "energy_mev": 12.0}],
+                                self.ONE, ssd_mm=None)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--depth", "1")
+            self.assertEqual(rc, 3, err)
+            self.assertIn("no SSD", err)
+            self.assertIn("--reference-dose", err)
+            rc, js, err = estimate(plan, ss, "--depth", "1", "--reference-dose", "200")
+            self.assertIn(rc, (0, 4), err)
+            b = js["beams"][0]
+            self.assertIsNone(b["ssd_cm"])
+            self.assertIsNone(b["ssd_found_cm"])
+            self.assertIsNone(b["obliquity_deg"])
+            self.assertEqual(b["inverse_square_factor"], 1)
+            jsonschema.validate(js, json.load(open(SCHEMA)))
+            rc, text, err = run("estimate", plan, ss, "--model", MODEL, "--depth", "1",
+                                "--reference-dose", "200")
+            self.assertIn("SSD unknown (no inverse-square correction)", text)
+            self.assertIn("Every depth is set by option to 1.00 cm", text)
+            self.assertNotIn("through the body contour", text)
+            self.assertNotIn("nan", text.lower())
+            out = os.path.join(d, "r.html")
+            rc, _, err = run("estimate", plan, ss, "--model", MODEL, "--depth", "1",
+                             "--reference-dose", "200", "--html", out)
+            with open(out) as f:
+                page = f.read()
+            self.assertIn("SSD unknown", page)
+            self.assertIn("surface obliquity unknown", page)
+            self.assertNotIn("nan", page.lower())
+
+    def test_implausible_ssd_is_refused(self):
+        """An SSD 90 cm short of the nominal one would put the skin inside
+        the applicator (about 5 cm of stand-off: common practice)."""
+        for ssd_mm in (10.0, 940.0, 1400.0):
+            with tempdir() as d:
+                plan, ss = box_case(d, [("p", (90.0, 10.0, 0.0))],
+                                    [{"number": 1, "energy_mev": 12.0}], self.ONE, ssd_mm=ssd_mm)
+                rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+            self.assertEqual(rc, 3, "SSD %g mm: %s" % (ssd_mm, err))
+            self.assertIn("SourceToSurfaceDistance (300A,0130)", err)
+            self.assertIn("plausible range", err)
+
+    def test_missing_monitor_units_are_said_not_printed_as_numbers(self):
+        groups = [{"number": 1, "fractions": 3, "beams": [(1, None)]}]
+        with tempdir() as d:
+            plan, ss = box_case(d, [("p", (90.0, 10.0, 0.0))], [{"number": 1, "energy_mev": 12.0}],
+                                groups)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+            self.assertEqual(rc, 3)
+            self.assertIn("BeamMeterset (300A,0086)", err)
+            out = os.path.join(d, "r.html")
+            rc, text, err = run("estimate", plan, ss, "--model", MODEL, "--reference-dose", "150",
+                                "--html", out)
+            self.assertIn(rc, (0, 4), err)
+            with open(out) as f:
+                page = f.read()
+            self.assertIn("MU not in the plan", page)
+            self.assertNotIn("nan", page.lower())
+
+    def test_measured_cutout_factor_applies_with_open_profiles(self):
+        """A cutout with an output factor but no profiles of its own: the open
+        profiles stand in, the measured factor still scales the output
+        (MU x dose per MU x factor, by hand)."""
+        with tempdir() as d:
+            with open(MODEL) as f:
+                m = yaml.safe_load(f)
+            m["profiles"] = [p for p in m["profiles"]
+                             if not (p["energy_mev"] == 9 and p["applicator"] == "A06"
+                                     and p["insert"] == "C4")]
+            model = os.path.join(d, "model.yaml")
+            with open(model, "w") as f:
+                yaml.safe_dump(m, f, sort_keys=False)
+            base = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+            rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"),
+                               os.path.join(base, "rtstruct.dcm"), "--model", model, "--levels",
+                               os.path.join(SOURCE_ROOT, "models", "action-levels.yaml"),
+                               "--insert", "C4", "--format", "json")
+        self.assertIn(rc, (0, 4), err)
+        b = json.loads(out)["beams"][0]
+        factor = next(f["factor"] for f in output(9, "A06")["cutout_factors"] if f["insert"] == "C4")
+        self.assertTrue(b["open_profiles_for_cutout"])
+        self.assertFalse(b["cutout_factor_assumed"])
+        self.assertEqual(b["cutout_factor"], factor)
+        want = b["mu_per_fraction"][0] * output(9, "A06")["dose_per_mu_cgy"] * factor
+        self.assertAlmostEqual(b["reference_dose_per_fraction_cgy"][0], want, delta=1e-9 * want)
+
+    def test_unjudged_organs_are_counted_and_a_fetus_is_flagged(self):
+        """A lens and a fetus inside the field: the screening does not judge
+        them; the lens is counted in the headline, the fetus needs attention
+        (its dose must be documented: common practice)."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_in", (0.0, 10.0, 0.0)), ("p", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}], self.ONE)
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1")
+            self.assertEqual(organ(js, "Lens_in")["status"], "in_field")
+            self.assertEqual(js["organs_not_judged"], 1)
+            self.assertFalse(js["any_flagged"])
+            self.assertEqual(rc, 0)
+            rc, text, err = run("estimate", plan, ss, "--model", MODEL, "--reference-dose", "1")
+            self.assertIn("1 organ with action levels not judged", text)
+            self.assertNotIn("no organ reaches its action level", text)
+            plan, ss = box_case(d, [("Fetus", (0.0, 50.0, 0.0)), ("p", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}], self.ONE)
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1", "--gestational-age", "10")
+            f = organ(js, "Fetus")
+            self.assertEqual(f["status"], "in_field")
+            self.assertTrue(f["flagged"])
+            self.assertTrue(any("not judged by this screening" in a for a in f["advice"]))
+            self.assertEqual(rc, 4)
+
+
 class DemoReports(unittest.TestCase):
     CASES = {
         "face-lens": ["--prescription-isodose", "90"],
