@@ -340,6 +340,8 @@ sl_status sl_profile_fit_data(const double *d, const double *y, const double *si
         if (!(sqrt(peaked.covar[k * 7 + k]) < 0.5 * peaked.theta[k]))
             s2 = SL_EINPUT;
     }
+    if (s1 != SL_OK && s2 != SL_OK)
+        return s1; /* the smooth fit failed and the peaked one does not count */
     if (s2 == SL_OK && (s1 != SL_OK || peaked.aicc < smooth.aicc)) {
         *out = peaked;
         out->aicc_other = s1 == SL_OK ? smooth.aicc : NAN;
