@@ -20,6 +20,12 @@
 extern "C" {
 #endif
 
+/* GSL reports errors through one process-wide handler whose default aborts.
+ * Every module that calls GSL calls this first: it turns the handler off
+ * once (so errors come back as codes), keeping a handler the host program
+ * installed itself. Thread-safe. */
+void sl_gsl_quiet(void);
+
 /* Parse a whole string as a finite double (leading/trailing blanks allowed).
  * Returns false for empty text, trailing garbage, overflow, NaN or infinity. */
 bool sl_parse_double(const char *text, double *out);

@@ -131,7 +131,7 @@ int sl_cmd_estimate(int argc, char **argv)
     bool allow_mismatch = false, fetus_point = false, device_point = false;
     sl_vec3 fetus_mm = {0, 0, 0}, device_mm = {0, 0, 0};
     sl_shield shields[MAX_ITEMS];
-    sl_organ_map map[MAX_ITEMS];
+    sl_organ_map map[MAX_ITEMS + 2]; /* room for the fetus and device points */
     size_t nshields = 0, nmap = 0;
     double v;
     int c;
@@ -264,9 +264,9 @@ int sl_cmd_estimate(int argc, char **argv)
         rc = sl_cli_fail(&err);
         goto done;
     }
-    if (device_point && nmap < MAX_ITEMS)
+    if (device_point)
         map[nmap++] = (sl_organ_map){"Cardiac device (point given)", "cardiac_device"};
-    if (fetus_point && nmap < MAX_ITEMS)
+    if (fetus_point)
         map[nmap++] = (sl_organ_map){"Fetus (point given)", "fetus"};
     for (size_t i = 0; i < nshields; i++) {
         if (!sl_structures_find(ss, shields[i].roi)) {

@@ -5,6 +5,9 @@
 #define _POSIX_C_SOURCE 200809L
 #include "strayline/util.h"
 
+#include <gsl/gsl_errno.h>
+#include <pthread.h>
+
 #include <ctype.h>
 #include <errno.h>
 #include <limits.h>
@@ -313,4 +316,18 @@ void sl_buf_free(sl_buf *b)
 {
     free(b->data);
     memset(b, 0, sizeof *b);
+}
+
+static pthread_once_t gsl_quiet_once = PTHREAD_ONCE_INIT;
+
+static void gsl_quiet_setup(void)
+{
+    gsl_error_handler_t *previous = gsl_set_error_handler_off();
+    if (previous != NULL)
+        gsl_set_error_handler(previous);
+}
+
+void sl_gsl_quiet(void)
+{
+    pthread_once(&gsl_quiet_once, gsl_quiet_setup);
 }

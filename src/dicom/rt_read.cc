@@ -25,6 +25,7 @@
 #include <cmath>
 #include <cstdlib>
 #include <cstring>
+#include <mutex>
 #include <new>
 #include <string>
 #include <sys/mman.h>
@@ -41,11 +42,8 @@ const char *const UID_RTIONPLAN = "1.2.840.10008.5.1.4.1.1.481.8";
 /* DCMTK logs through oflog; a library must not print, so silence it once. */
 void quiet_dcmtk()
 {
-    static bool done = false;
-    if (!done) {
-        OFLog::configure(OFLogger::FATAL_LOG_LEVEL);
-        done = true;
-    }
+    static std::once_flag once;
+    std::call_once(once, [] { OFLog::configure(OFLogger::FATAL_LOG_LEVEL); });
 }
 
 /* Error raised inside the reader; caught at the C boundary. */
@@ -373,6 +371,11 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
     std::string delivery = r.str(it, DCM_TreatmentDeliveryType);
     b->delivery_type = r.cstr(delivery.empty() ? std::string("TREATMENT") : delivery);
     const bool electron = strcmp(b->radiation_type, "ELECTRON") == 0;
+    if (delivery.empty() && electron &&
+        sl_notes_add(&plan->notes,
+                     "%s: %s: Treatment Delivery Type (300A,00CE) absent: taken as TREATMENT",
+                     r.file(), ctx.c_str()) != SL_OK)
+        r.fail(SL_ENOMEM, "", "out of memory");
     /* Only electron beams are placed, so only they must carry full geometry;
      * other beams are read for the listing and skipped. */
     b->beam_type = r.cstr(electron ? r.str_req(it, DCM_BeamType, ctx) : r.str(it, DCM_BeamType));
@@ -413,8 +416,14 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
     b->collimator_deg = r.num(cp, DCM_BeamLimitingDeviceAngle, cctx, electron);
     b->couch_deg = r.num(cp, DCM_PatientSupportAngle, cctx, electron);
     b->eccentric_deg = r.num(cp, DCM_TableTopEccentricAngle, cctx, false);
-    if (std::isnan(b->eccentric_deg))
+    if (std::isnan(b->eccentric_deg)) {
         b->eccentric_deg = 0.0;
+        if (electron &&
+            sl_notes_add(&plan->notes,
+                         "%s: %s: Table Top Eccentric Angle (300A,0125) absent: 0 deg assumed",
+                         r.file(), ctx.c_str()) != SL_OK)
+            r.fail(SL_ENOMEM, "", "out of memory");
+    }
     const struct {
         double v;
         DcmTagKey k;

@@ -15,9 +15,9 @@
  * it never depends on what state the solver happened to leave behind.
  */
 #include "strayline/fit.h"
+#include "strayline/util.h"
 
 #include <math.h>
-#include <pthread.h>
 #include <string.h>
 
 #include <gsl/gsl_blas.h>
@@ -25,18 +25,6 @@
 #include <gsl/gsl_matrix.h>
 #include <gsl/gsl_multifit_nlinear.h>
 #include <gsl/gsl_vector.h>
-
-/* GSL reports errors through one process-wide handler whose default aborts.
- * Replacing it once (not around each fit) keeps concurrent fits race-free;
- * putting back a handler the host installed respects the host's choice. */
-static pthread_once_t gsl_handler_once = PTHREAD_ONCE_INIT;
-
-static void gsl_handler_setup(void)
-{
-    gsl_error_handler_t *previous = gsl_set_error_handler_off();
-    if (previous != NULL)
-        gsl_set_error_handler(previous);
-}
 
 void sl_fit_default_options(sl_fit_options *o)
 {
@@ -412,7 +400,7 @@ sl_status sl_fit_multistart(const sl_fit_problem *pb, const double *starts, size
         if ((st = check_start(pb, starts + s * pb->p, s, err)) != SL_OK)
             return st;
 
-    pthread_once(&gsl_handler_once, gsl_handler_setup);
+    sl_gsl_quiet();
     const sl_fit_options o = effective_options(opt);
 
     sl_fit_result trial, first_failure;

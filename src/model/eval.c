@@ -8,6 +8,7 @@
  * monotone between points and never overshoots.
  */
 #include "strayline/model.h"
+#include "strayline/util.h"
 
 #include <gsl/gsl_interp.h>
 #include <math.h>
@@ -104,6 +105,7 @@ sl_status sl_model_select(const sl_model *m, double e, const char *app, const ch
 {
     *out = NULL;
     *flags = 0;
+    sl_gsl_quiet();
     if (!app)
         return not_commissioned(m, e, app, err);
     const char *ins = insert ? insert : SL_INSERT_OPEN;
@@ -261,6 +263,12 @@ void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode 
     out->depth_used_cm = depth;
     if (mode == SL_EVAL_POINTS)
         out->flags |= SL_MF_POINTS_MODE;
+    if (isnan(depth) || isnan(d)) {
+        /* no value for an unknown place; the callers check before asking */
+        out->percent = out->u_percent = out->u_fit = out->u_meas = out->u_interp = NAN;
+        out->u_extrap = out->electron_percent = out->photon_percent = NAN;
+        return;
+    }
     if (!(d >= 0)) {
         out->flags |= SL_MF_IN_FIELD;
         out->percent = out->u_percent = out->u_fit = out->u_meas = out->u_interp = NAN;

@@ -162,6 +162,12 @@ sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch
                          "%s: ROI '%s' lies in frame of reference %s, not the plan's %s",
                          ss->source, r->name, r->frame_uid, plan->frame_uid);
         }
+        if (!why[0] && (!plan->frame_uid || !ss_frame) &&
+            sl_notes_add(&plan->notes,
+                         "the frames of reference were not compared: %s gives no "
+                         "FrameOfReferenceUID (0020,0052)",
+                         !plan->frame_uid ? plan->source : ss->source) != SL_OK)
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     if (!why[0])
         return SL_OK;
@@ -207,7 +213,9 @@ sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const 
     r->contours[0].npoints = 1;
     r->contours[0].points[0] = point_mm;
     ss->nrois++;
-    return sl_notes_add(&ss->notes, "ROI '%s' is a point given on the command line (%.1f, %.1f, "
-                                    "%.1f mm)",
-                        name, point_mm.x, point_mm.y, point_mm.z);
+    if (sl_notes_add(&ss->notes, "ROI '%s' is a point given on the command line (%.1f, %.1f, "
+                                 "%.1f mm)",
+                     name, point_mm.x, point_mm.y, point_mm.z) != SL_OK)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    return SL_OK;
 }
