@@ -18,7 +18,7 @@
  *  - beyond the measured distances the fitted tail is extrapolated and
  *    flagged; inside the field (distance < 0) nothing is given, only a flag;
  *  - a cutout with no profiles of its own takes the open applicator's
- *    profiles from the cutout edge, flagged as the conservative default;
+ *    profiles from the cutout edge, flagged (not known to be conservative);
  *  - the uncertainty combines the fit's standard error (covariance), the
  *    stated measurement uncertainty, the interpolation spread (between
  *    depths, and between directions measured at one depth) and, beyond the

@@ -39,12 +39,15 @@ typedef struct sl_slice_stack {
     size_t ignored_open;   /* OPEN_* contours skipped */
     size_t ignored_points; /* POINT contours skipped */
     size_t ignored_small;  /* closed contours with fewer than 3 distinct points */
+    size_t ignored_flat;   /* closed contours that enclose no area (collinear
+                              points, or a figure eight whose halves cancel) */
     size_t repeated_points;/* consecutive duplicate points removed */
 } sl_slice_stack;
 
 /* Build the stack of a ROI's closed contours. `file` names the structure
  * set in messages. A ROI with no usable closed contour gives an empty stack
- * (nslices == 0), not an error. */
+ * (nslices == 0), not an error, unless every closed contour it has
+ * encloses no area: that is an input error naming the first of them. */
 sl_status sl_slices_build(const sl_roi *roi, const char *file, double default_thickness_cm,
                           sl_slice_stack *out, sl_error *err);
 

@@ -31,9 +31,10 @@ typedef struct sl_body sl_body;
 sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body **out,
                          sl_error *err);
 
-/* Length (cm) of segment a -> b (patient coordinates, cm) inside the body.
- * *entry_t (may be NULL) receives the segment parameter in [0, 1] where it
- * first enters the body, or NAN when it never does. */
+/* Length (cm) of segment a -> b (patient coordinates, cm) inside the body,
+ * or NAN when out of memory (a very dense body contour needs a scratch
+ * buffer). *entry_t (may be NULL) receives the segment parameter in [0, 1]
+ * where it first enters the body, or NAN when it never does. */
 double sl_body_path(const sl_body *body, sl_vec3 a, sl_vec3 b, double *entry_t);
 
 bool sl_body_contains(const sl_body *body, sl_vec3 p);

@@ -144,9 +144,31 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     bd->effective_ssd_cm = o->effective_ssd_cm;
     bd->cutout_factor = 1.0;
     bd->cutout_factor_assumed = false;
-    if (bd->cutout) {
-        /* a measured factor stands even when the insert has no profiles of
-         * its own and the open ones stand in for them */
+    if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT) {
+        /* The open profiles are percentages of the open field's central-axis
+         * dose, so they pair with the open output: a cutout factor would
+         * rescale the applicator scatter and the photon tail, which follow
+         * the monitor units, not the cutout's opening. */
+        const sl_cutout_factor *cf = NULL;
+        for (size_t k = 0; k < o->nfactors; k++)
+            if (strcmp(o->factors[k].insert, ins) == 0)
+                cf = &o->factors[k];
+        if (cf)
+            sl_notes_add(&e->notes,
+                         "beam %d: insert '%s' has no profiles of its own: the open applicator's "
+                         "profiles and open output are used from the cutout's edge; its cutout "
+                         "factor (%.3f) is not applied, as the open profiles are relative to the "
+                         "open output. Not known to be conservative: a cutout's own out-of-field "
+                         "share can be higher; measure its profiles",
+                         b->number, ins, cf->factor);
+        else
+            sl_notes_add(&e->notes,
+                         "beam %d: the cutout is not commissioned: the open applicator's profiles "
+                         "and open output are used from the cutout's edge. Not known to be "
+                         "conservative: a cutout's own out-of-field share can be higher; measure "
+                         "its profiles",
+                         b->number);
+    } else if (bd->cutout) {
         bd->cutout_factor_assumed = true;
         for (size_t k = 0; k < o->nfactors; k++) {
             if (strcmp(o->factors[k].insert, ins) == 0) {
@@ -160,11 +182,6 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                          "(an overestimate when the cutout lowers the output)",
                          b->number, ins);
     }
-    if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT)
-        sl_notes_add(&e->notes,
-                     "beam %d: the cutout is not commissioned: the open applicator's profiles "
-                     "are used from the cutout's edge (conservative default)",
-                     b->number);
     /* Inverse square at an SSD other than the nominal one. An SSD short of
      * the nominal one by more than the applicator's usual stand-off would put
      * the skin inside the applicator, and one far beyond it is outside what
@@ -178,7 +195,8 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
         if (!(bd->ssd_used_cm >= lo && bd->ssd_used_cm <= hi))
             return sl_error_set(err, SL_EINPUT,
                                 "%s: beam %d: SSD %.1f cm (%s) is outside %.0f-%.0f cm, the "
-                                "plausible range for the model's nominal SSD of %.0f cm",
+                                "plausible range for the model's nominal SSD of %.0f cm (the "
+                                "out-of-field profiles were measured there)",
                                 f, b->number, bd->ssd_used_cm,
                                 ssd_from_plan ? "SourceToSurfaceDistance (300A,0130)"
                                               : "found on the body contour",
@@ -196,9 +214,11 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
         bd->gap_cm = NAN;
         bd->isf = 1.0;
         sl_notes_add(&e->notes,
-                     "beam %d: no SSD (none in the plan, none found on the body): the reference "
-                     "dose given by option is used as it stands",
-                     b->number);
+                     "beam %d: no SSD (none in the plan, %s): the reference dose given by option "
+                     "is used as it stands",
+                     b->number,
+                     e->loc->depth_from_body ? "the central axis misses the body contour"
+                                             : "the body contour is not used");
     } else {
         return sl_error_set(err, SL_EINPUT,
                             "%s: beam %d: no SSD (no SourceToSurfaceDistance (300A,0130) in the "

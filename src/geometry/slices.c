@@ -58,7 +58,8 @@ sl_status sl_slices_build(const sl_roi *roi, const char *file, double default_th
     zref *refs = malloc((roi->ncontours ? roi->ncontours : 1) * sizeof *refs);
     if (!refs)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
-    size_t nref = 0;
+    size_t nref = 0, flat_contour = 0;
+    double flat_z = 0;
     for (size_t i = 0; i < roi->ncontours; i++) {
         const sl_contour *c = &roi->contours[i];
         if (c->type == SL_CONTOUR_POINT) {
@@ -127,15 +128,12 @@ sl_status sl_slices_build(const sl_roi *roi, const char *file, double default_th
          * drawn as a loop) has no volume to sample and no inside for the
          * body's depths; its dose would be 0/0. */
         if (!(fabs(sl_p2_area(p, n)) > 1e-8)) {
-            sl_status st = sl_error_set(err, SL_EINPUT,
-                                        "%s: ROI '%s': contour %zu (z = %.2f cm) is closed but "
-                                        "encloses no area (its points are collinear): redraw it, "
-                                        "or mark it OPEN_PLANAR or POINT",
-                                        file, roi->name, refs[r].contour + 1, refs[r].z);
+            if (out->ignored_flat++ == 0) {
+                flat_contour = refs[r].contour;
+                flat_z = refs[r].z;
+            }
             free(p);
-            free(refs);
-            sl_slices_free(out);
-            return st;
+            continue;
         }
         double z = refs[r].z;
         if (out->nslices == 0 || z - out->slices[out->nslices - 1].z_cm > SAME_PLANE_CM) {
@@ -147,6 +145,15 @@ sl_status sl_slices_build(const sl_roi *roi, const char *file, double default_th
         out->slices[out->nslices - 1].count++;
     }
     free(refs);
+    if (out->nloops == 0 && out->ignored_flat) {
+        sl_slices_free(out);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: ROI '%s': contour %zu (z = %.2f cm) is closed but encloses no "
+                            "area (collinear points, or a figure eight whose halves cancel), and "
+                            "so does every other closed contour of it: redraw it, or mark it "
+                            "OPEN_PLANAR or POINT",
+                            file, roi->name, flat_contour + 1, flat_z);
+    }
     for (size_t i = 0; i < out->nslices; i++) {
         sl_slice *s = &out->slices[i];
         double below = i > 0 ? s->z_cm - out->slices[i - 1].z_cm : NAN;

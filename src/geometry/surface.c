@@ -20,9 +20,11 @@
 
 #define GRID_MAX 64
 /* Most edges one grid cell may list. A body contour denser than this in
- * one cell is refused rather than traced with an unbounded scratch buffer;
- * clinical body contours list tens of edges a cell. */
+ * one cell is refused; clinical body contours list tens of edges a cell,
+ * which the walk keeps on the stack (LOCAL_EDGES), going to the heap only
+ * for denser bodies. */
 #define MAX_CELL_EDGES 8192
+#define LOCAL_EDGES 128
 /* An odd margin around each slice, so that cell centres do not fall on
  * the round coordinates that phantom edges like to sit on. */
 #define MARGIN_CM 1.0031416
@@ -36,6 +38,7 @@ typedef struct bslice {
     sl_vec2 *ea, *eb;
     size_t *cell_start;
     size_t *cell_edges;
+    size_t max_cell;       /* most edges listed by one cell */
     unsigned char *center_in;
 } bslice;
 
@@ -129,6 +132,8 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
                 size_t k = s->cell_start[c];
                 if (k > MAX_CELL_EDGES)
                     return SL_EINPUT;
+                if (k > s->max_cell)
+                    s->max_cell = k;
                 s->cell_start[c] = total;
                 total += k;
             }
@@ -311,7 +316,13 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
     double tdx = stepx ? s->cell / fabs(dx) : INFINITY;
     double tdy = stepy ? s->cell / fabs(dy) : INFINITY;
     double enter = sa;
-    double buf[MAX_CELL_EDGES];
+    double local[LOCAL_EDGES];
+    double *buf = local;
+    if (s->max_cell > LOCAL_EDGES) {
+        buf = malloc(s->max_cell * sizeof *buf);
+        if (!buf)
+            return NAN; /* out of memory: the caller's depth is NAN, never a guess */
+    }
     for (;;) {
         double exit = fmin(fmin(tmx, tmy), sb);
         size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
@@ -346,6 +357,8 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
         if (cx < 0 || cy < 0 || cx >= s->gx || cy >= s->gy)
             break;
     }
+    if (buf != local)
+        free(buf);
     if (in)
         total += sb - last;
     return total;

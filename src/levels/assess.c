@@ -47,18 +47,21 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
     if (!a->kind || (a->kind->nlevels == 0 && a->kind->nbands == 0))
         return;
     as->n_unjudged++;
-    if (a->kind->nbands == 0 && strcmp(a->kind->kind, "fetus") != 0)
-        return;
-    a->flagged = true;
-    a->measurement_advised = true;
-    sl_notes_add(&a->advice,
-                 "not judged by this screening (%s): %s",
+    bool critical = a->kind->nbands > 0 || strcmp(a->kind->kind, "fetus") == 0;
+    if (critical) {
+        a->flagged = true;
+        a->measurement_advised = true;
+    }
+    sl_notes_add(&a->advice, "not judged by this screening (%s): %s",
                  a->status == SL_ST_IN_FIELD ? "in or touching the field"
                                              : (a->not_assessed_why ? a->not_assessed_why
                                                                     : "not assessed"),
                  a->status == SL_ST_IN_FIELD
-                     ? "take its dose from the planning system and document it"
-                     : "estimate its dose by measurement (in-vivo or in a phantom) and document it");
+                     ? (critical ? "take its dose from the planning system and document it"
+                                 : "take its dose from the planning system")
+                     : (critical ? "estimate its dose by measurement (in-vivo or in a phantom) "
+                                   "and document it"
+                                 : "measure it if its dose matters"));
 }
 
 static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
@@ -104,8 +107,10 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
         why = buf;
     } else if (d->flags & SL_MF_EXTRAPOLATED) {
         why = "the value is extrapolated beyond the measured distances";
-    } else if (d->flags & SL_MF_OPEN_FOR_CUTOUT && a->flagged) {
-        why = "the cutout is not commissioned";
+    } else if (d->flags & SL_MF_OPEN_FOR_CUTOUT &&
+               (isfinite(level_gy) || (a->kind && a->kind->nbands))) {
+        why = "the cutout is not commissioned (the open profiles stand in, an approximation "
+              "the uncertainty does not cover)";
     }
     if (why) {
         a->measurement_advised = true;
@@ -186,7 +191,11 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         if (!d->estimated) {
             a->status = d->in_field ? SL_ST_IN_FIELD : SL_ST_NOT_ASSESSED;
             a->not_assessed_why = d->excluded_why;
-            unjudged(as, a);
+            const char *why;
+            /* a target volume (or other excluded type) is not an organ left
+             * unjudged, whatever its name matches */
+            if (!sl_dose_type_excluded(d->roi->type, e->opt.include_targets, &why))
+                unjudged(as, a);
             as->any_flagged |= a->flagged;
             continue;
         }
@@ -248,8 +257,9 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         } else {
             a->status = SL_ST_NO_LEVEL;
         }
-        advise(a, pt, level_gy);
-        if (k && k->lar_table) {
+        if (a->status != SL_ST_NOT_ASSESSED) /* no advice from a value not judged */
+            advise(a, pt, level_gy);
+        if (k && k->lar_table && a->status != SL_ST_NOT_ASSESSED) {
             a->lar = sl_levels_table(lv, k->lar_table);
             if (a->lar && !isnan(pt->age_years) && pt->sex)
                 a->lar_cases = sl_lar_cases(a->lar, pt->sex, pt->age_years, d->course_mean.cgy / 100);

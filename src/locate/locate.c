@@ -314,6 +314,12 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
     free(job.task_organ);
     free(job.task_first);
+    for (size_t o = 0; body && o < loc->norgans; o++)
+        for (size_t i = 0; i < loc->samples[o].n; i++)
+            if (isnan(bp->organs[o].depth_cm[i]) &&
+                !(bp->organs[o].flags[i] & SL_SAMPLE_BEHIND_SOURCE))
+                return sl_error_set(err, SL_ENOMEM, "out of memory tracing depths through the "
+                                                    "body contour");
     for (size_t o = 0; o < loc->norgans; o++) {
         summarise(&loc->samples[o], &bp->organs[o]);
         if (bp->organs[o].behind_source)

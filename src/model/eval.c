@@ -42,7 +42,8 @@ const char *sl_model_flag_text(unsigned flag)
     case SL_MF_DEPTH_OUTSIDE: return "depth outside the commissioned depths (nearest depth used)";
     case SL_MF_EXTRAPOLATED: return "beyond the measured distances (extrapolated)";
     case SL_MF_OPEN_FOR_CUTOUT:
-        return "cutout not commissioned: open-applicator profiles used (conservative default)";
+        return "cutout not commissioned: open-applicator profiles used (not known to be "
+               "conservative)";
     case SL_MF_POINTS_MODE: return "measured points interpolated (no fitted form)";
     }
     return "unknown flag";

@@ -126,7 +126,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         const sl_beam *be = bd->place->beam;
         fprintf(fp, "\nbeam %d '%s': %g MeV, applicator %s, insert %s%s\n", be->number,
                 orq(be->name), bd->energy_mev, bd->applicator, bd->insert,
-                bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (open profiles used: conservative)"
+                bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (open profiles stand in: measure the cutout)"
                                                         : "");
         char ssd[96], lim[256];
         est_ssd_text(bd, ssd, sizeof ssd);
@@ -140,6 +140,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
             fprintf(fp, "  fraction group %d: ", p->groups[g].number);
             if (isfinite(bd->mu[g]))
                 fprintf(fp, "%.1f MU, ", bd->mu[g]);
+            else
+                fprintf(fp, "MU not in the plan, ");
             fprintf(fp, "reference dose %.1f cGy a fraction at dmax%s x %d fractions\n",
                     bd->ref_cgy[g], bd->reference_overridden ? " (set by option)" : "",
                     e->fractions[g]);
@@ -210,7 +212,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                     a->lar_cases, a->dose->course_mean.cgy / 100, a->lar->source, a->lar->mark);
         if (a->status == SL_ST_BAND)
         {
-            if (r->as->patient.pacing_dependent)
+            if (r->as->patient.pacing_dependent && a->kind->pacing_shift > 0)
                 fprintf(fp, "    - risk bands: %s (%s); moved up %d band%s for pacing dependence\n",
                         a->kind->bands_source, a->kind->bands_mark, a->kind->pacing_shift,
                         a->kind->pacing_shift == 1 ? "" : "s");
@@ -606,7 +608,7 @@ void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
     const double *dv;
     size_t nd = sl_curves_depths(bd->curves, &dv);
     for (size_t k = 0; k < nd && len > 0 && (size_t)len < size; k++)
-        len += snprintf(buf + len, size - (size_t)len, "%s%.2g", k ? ", " : "", dv[k]);
+        len += snprintf(buf + len, size - (size_t)len, "%s%g", k ? ", " : "", dv[k]);
     if (len > 0 && (size_t)len < size)
         snprintf(buf + len, size - (size_t)len, " cm");
     if (len < 0 || (size_t)len >= size - 3) {

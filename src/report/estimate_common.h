@@ -33,8 +33,8 @@ const char *est_kind(const sl_assessment *a);
 void est_ssd_text(const sl_beam_dose *bd, char *buf, size_t size);
 void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size);
 
-/* The model's limits for a beam: "model limits: 0.5 to 40.0 cm from the
- * field edge, depths 0.5, 1.0, 3.0 cm" (truncated with "..." if long). */
+/* The model's limits for a beam: "model limits: 0.0 to 40.0 cm from the
+ * field edge, depths 0, 0.5, 1, 1.54 cm" (truncated with "..." if long). */
 void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size);
 
 /* Refuse a non-finite number that a writer is about to print: every

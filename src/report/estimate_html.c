@@ -541,7 +541,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         if (a->status == SL_ST_BAND) {
             any = true;
             char shift[64] = "";
-            if (r->as->patient.pacing_dependent)
+            if (r->as->patient.pacing_dependent && a->kind->pacing_shift > 0)
                 snprintf(shift, sizeof shift, "; moved up %d band%s for pacing dependence",
                          a->kind->pacing_shift, a->kind->pacing_shift == 1 ? "" : "s");
             helf(&h, adv, "li", "%s: risk bands of the %s (%s)%s", a->dose->roi->name,

@@ -248,9 +248,14 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
     if (st.repeated_points)
         sl_notes_add(&out->notes, "ROI '%s': %zu repeated contour points removed", roi->name,
                      st.repeated_points);
+    if (st.ignored_flat)
+        sl_notes_add(&out->notes,
+                     "ROI '%s': %zu closed contours that enclose no area ignored", roi->name,
+                     st.ignored_flat);
     if (st.nloops > MAX_LOOPS) {
         size_t n = st.nloops;
         sl_slices_free(&st);
+        sl_organ_samples_free(out);
         return sl_error_set(err, SL_EINPUT,
                             "%s: ROI '%s' has %zu closed contours (at most %d are sampled): "
                             "not a plausible organ",

@@ -132,8 +132,10 @@ def box_case(d, points, beams, groups, ssd_mm=1000.0, iso_y=0.0):
     beams on the catalogue's 10 x 10 cm applicator A10 (no cutout)."""
     rois = [{"number": 1, "name": "BODY", "type": "EXTERNAL",
              "contours": rb.box(-350.0, 350.0, 0.0, 300.0, -300.0, 300.0, 5.0)}]
-    for i, (name, p) in enumerate(points):
-        rois.append({"number": i + 2, "name": name, "type": "ORGAN", "contours": rb.point(*p)})
+    for i, pt in enumerate(points):
+        name, p = pt[0], pt[1]
+        rtype = pt[2] if len(pt) > 2 else "ORGAN"
+        rois.append({"number": i + 2, "name": name, "type": rtype, "contours": rb.point(*p)})
     frame = rb.uid("est", d, "frame")
     ss = rb.structure_dataset(PATIENT, label="EST", rois=rois, frame_uid=frame, seed="est-ss-" + d)
     full = []
@@ -454,10 +456,13 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
             self.assertIn("MU not in the plan", page)
             self.assertNotIn("nan", page.lower())
 
-    def test_measured_cutout_factor_applies_with_open_profiles(self):
+    def test_open_profiles_standing_in_pair_with_the_open_output(self):
         """A cutout with an output factor but no profiles of its own: the open
-        profiles stand in, the measured factor still scales the output
-        (MU x dose per MU x factor, by hand)."""
+        profiles (percent of the open field's central-axis dose) stand in and
+        pair with the open output, so the reference dose is MU x dose per MU
+        x inverse square, by hand, without the factor; the warning says the
+        factor was not applied and that the stand-in is not known to be
+        conservative."""
         with tempdir() as d:
             with open(MODEL) as f:
                 m = yaml.safe_load(f)
@@ -473,13 +478,38 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
                                os.path.join(SOURCE_ROOT, "models", "action-levels.yaml"),
                                "--insert", "C4", "--format", "json")
         self.assertIn(rc, (0, 4), err)
-        b = json.loads(out)["beams"][0]
-        factor = next(f["factor"] for f in output(9, "A06")["cutout_factors"] if f["insert"] == "C4")
+        js = json.loads(out)
+        b = js["beams"][0]
+        o = output(9, "A06")
+        factor = next(f["factor"] for f in o["cutout_factors"] if f["insert"] == "C4")
         self.assertTrue(b["open_profiles_for_cutout"])
+        self.assertEqual(b["cutout_factor"], 1)
         self.assertFalse(b["cutout_factor_assumed"])
-        self.assertEqual(b["cutout_factor"], factor)
-        want = b["mu_per_fraction"][0] * output(9, "A06")["dose_per_mu_cgy"] * factor
+        gap = b["ssd_cm"] - M["machine"]["nominal_ssd_cm"]
+        isf = ((o["effective_ssd_cm"] + o["dmax_cm"]) /
+               (o["effective_ssd_cm"] + gap + o["dmax_cm"])) ** 2
+        self.assertAlmostEqual(b["inverse_square_factor"], isf, delta=1e-12)
+        want = b["mu_per_fraction"][0] * o["dose_per_mu_cgy"] * isf
         self.assertAlmostEqual(b["reference_dose_per_fraction_cgy"][0], want, delta=1e-9 * want)
+        note = next(w for w in js["warnings"] if "has no profiles of its own" in w)
+        self.assertIn("(%.3f) is not applied" % factor, note)
+        self.assertIn("Not known to be conservative", note)
+        # the thyroid stays far below its level, yet beside an uncommissioned
+        # cutout a measurement is advised
+        thy = organ(js, "Thyroid")
+        self.assertEqual(thy["status"], "below_level")
+        self.assertTrue(thy["measurement_advised"])
+        self.assertTrue(any("cutout is not commissioned" in a for a in thy["advice"]))
+
+    def test_ssd_bounds_are_inclusive(self):
+        """Accepted from 5 cm short of the nominal SSD to 30 cm beyond it."""
+        for ssd_mm, ok in ((950.0, True), (949.0, False), (1300.0, True), (1301.0, False)):
+            with tempdir() as d:
+                plan, ss = box_case(d, [("p", (150.0, 10.0, 0.0))],
+                                    [{"number": 1, "energy_mev": 12.0}], self.ONE, ssd_mm=ssd_mm,
+                                    iso_y=1000.0 - ssd_mm)
+                rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+            self.assertEqual(rc in (0, 4), ok, "SSD %g mm: exit %d %s" % (ssd_mm, rc, err))
 
     def test_unjudged_organs_are_counted_and_a_fetus_is_flagged(self):
         """A lens and a fetus inside the field: the screening does not judge
@@ -504,6 +534,23 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
             self.assertTrue(f["flagged"])
             self.assertTrue(any("not judged by this screening" in a for a in f["advice"]))
             self.assertEqual(rc, 4)
+            # a cardiac device in the field likewise; a target volume whose
+            # name matches a kind is not an organ left unjudged
+            plan, ss = box_case(d, [("Pacemaker", (0.0, 10.0, 0.0)), ("p", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}], self.ONE)
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1")
+            self.assertTrue(organ(js, "Pacemaker")["flagged"])
+            self.assertEqual(js["organs_not_judged"], 1)
+            self.assertEqual(rc, 4)
+            plan, ss = box_case(d, [("PTV_device", (0.0, 10.0, 0.0), "PTV"),
+                                    ("p", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}], self.ONE)
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1", "--organ",
+                                   "PTV_device=cardiac_device")
+            self.assertFalse(organ(js, "PTV_device")["estimated"])
+            self.assertFalse(organ(js, "PTV_device")["flagged"])
+            self.assertEqual(js["organs_not_judged"], 0)
+            self.assertEqual(rc, 0)
 
 
 class DemoReports(unittest.TestCase):

@@ -447,6 +447,15 @@ START_TEST(degenerate_rois_are_refused)
     ck_assert_int_eq(sl_sample_roi(&w.roi, "ss.dcm", &opt, &s, &e), SL_EINPUT);
     ck_assert_ptr_nonnull(strstr(e.msg, "ss.dcm: ROI 'Wire': contour 1"));
     ck_assert_ptr_nonnull(strstr(e.msg, "encloses no area"));
+    /* beside a real contour, a flat one is dropped with a note */
+    rb_circle(&w, 0, 0, 10, 2.5, 32, false);
+    ck_assert_int_eq(sl_sample_roi(&w.roi, "ss.dcm", &opt, &s, &e), SL_OK);
+    ck_assert_uint_gt(s.n, 0);
+    bool noted = false;
+    for (size_t i = 0; i < s.notes.count; i++)
+        noted |= strstr(s.notes.items[i], "1 closed contours that enclose no area ignored") != NULL;
+    ck_assert(noted);
+    sl_organ_samples_free(&s);
     rb_free(&w);
     /* more closed contours than can ever fit the sample cap (each gives at
      * least one sample): refused, where the coarsening would never end */
@@ -518,6 +527,47 @@ START_TEST(body_path_lengths_in_a_box)
 }
 END_TEST
 
+/* A 20 x 20 cm square slice whose bottom edge is a zigzag of n teeth
+ * 0.01 mm high between x0 and x1 (mm). */
+static sl_status zigzag_body(int n, double x0, double x1, sl_body **body, sl_error *e)
+{
+    size_t np = (size_t)n + 5;
+    sl_vec3 *p = malloc(np * sizeof *p);
+    size_t k = 0;
+    p[k++] = (sl_vec3){-100, -100, 0};
+    for (int i = 0; i <= n; i++)
+        p[k++] = (sl_vec3){x0 + (x1 - x0) * i / n, -100 + (i % 2) * 0.01, 0};
+    p[k++] = (sl_vec3){100, -100, 0};
+    p[k++] = (sl_vec3){100, 100, 0};
+    p[k++] = (sl_vec3){-100, 100, 0};
+    roi_builder b = {0};
+    rb_add(&b, SL_CONTOUR_CLOSED_PLANAR, p, k);
+    free(p);
+    b.roi.name = "BODY";
+    sl_slice_stack st;
+    ck_assert_int_eq(sl_slices_build(&b.roi, "t", 0.3, &st, e), SL_OK);
+    sl_status rc = sl_body_create(&st, "dense body", body, e);
+    sl_slices_free(&st);
+    rb_free(&b);
+    return rc;
+}
+
+START_TEST(dense_body_contours)
+{
+    sl_body *body = NULL;
+    sl_error e = {0};
+    /* hundreds of edges a grid cell: the walk's scratch goes to the heap,
+     * the path is still the square's 20 cm */
+    ck_assert_int_eq(zigzag_body(40000, -99, 99, &body, &e), SL_OK);
+    double d = sl_body_path(body, (sl_vec3){0.0123, -15, 0}, (sl_vec3){0.0123, 15, 0}, NULL);
+    ck_assert_double_eq_tol(d, 20, 2e-3);
+    sl_body_free(body);
+    /* tens of thousands of edges in a few cells: refused, not traced */
+    ck_assert_int_eq(zigzag_body(30000, -99, -89, &body, &e), SL_EINPUT);
+    ck_assert_ptr_nonnull(strstr(e.msg, "dense body: the contours at z = 0.00 cm are too dense"));
+}
+END_TEST
+
 /* ------------------------------------------------------------ fields -- */
 
 START_TEST(field_from_cutout_catalogue_and_geometry)
@@ -586,6 +636,7 @@ static Suite *geometry_suite(void)
     tcase_add_test(tc, points_and_open_contours);
     tcase_add_test(tc, degenerate_rois_are_refused);
     tcase_add_test(tc, body_path_lengths_in_a_box);
+    tcase_add_test(tc, dense_body_contours);
     tcase_add_test(tc, field_from_cutout_catalogue_and_geometry);
     suite_add_tcase(s, tc);
     return s;

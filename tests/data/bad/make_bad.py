@@ -24,6 +24,7 @@ sys.path.insert(0, os.path.join(HERE, "..", "..", "..", "examples", "generator")
 import rtbuild as rb  # noqa: E402
 from pydicom.datadict import tag_for_keyword  # noqa: E402
 from pydicom.dataelem import RawDataElement  # noqa: E402
+from pydicom.sequence import Sequence  # noqa: E402
 
 PATIENT = {"name": "DEMO^BADINPUT", "id": "DEMO-BAD-00"}
 FRAME = rb.uid("bad", "frame")
@@ -297,7 +298,11 @@ def main():
     ss_case("ss_contour_two_points.dcm", contour_points(2),
             "a CLOSED_PLANAR contour needs at least 3 points, found 2")
     ss_case("ss_contour_zero_points.dcm", contour_points(0), "ContourData (3006,0050): missing")
-    ss_case("ss_contour_collinear.dcm", contour_points(3),
+    def only_collinear(d):
+        contour_points(3)(d)
+        seq = d.ROIContourSequence[1].ContourSequence
+        d.ROIContourSequence[1].ContourSequence = Sequence([seq[0]])
+    ss_case("ss_contour_collinear.dcm", only_collinear,
             "ROI 'Lens_L': contour 1 (z = 6.00 cm) is closed but encloses no area",
             args="locate {plan} {f}")
     plan_case("plan_ssd_implausible.dcm",
