@@ -69,6 +69,19 @@ static inline double sl_p2_area(const sl_vec2 *pts, size_t n)
     return 0.5 * a;
 }
 
+/* Whether q lies inside a closed polygon, by the even-odd rule (crossings
+ * of a ray towards +x); a point on an edge may fall either way. */
+static inline bool sl_p2_inside(sl_vec2 q, const sl_vec2 *p, size_t n)
+{
+    bool in = false;
+    for (size_t i = 0, j = n - 1; i < n; j = i++) {
+        if ((p[i].y > q.y) != (p[j].y > q.y) &&
+            q.x < (p[j].x - p[i].x) * (q.y - p[i].y) / (p[j].y - p[i].y) + p[i].x)
+            in = !in;
+    }
+    return in;
+}
+
 /* Proper or touching intersection of segments ab and cd (for validity checks). */
 static inline bool sl_p2_segments_meet(sl_vec2 a, sl_vec2 b, sl_vec2 c, sl_vec2 d)
 {

@@ -51,17 +51,6 @@ typedef struct node {
 #define MAX_DEPTH 6  /* 4^6 = 4096 leaves a side at most */
 #define LEAF_EDGES 12 /* a node with more candidates is split */
 
-static bool point_in_loop(sl_vec2 q, const sl_vec2 *p, size_t n)
-{
-    bool in = false;
-    for (size_t i = 0, j = n - 1; i < n; j = i++) {
-        if ((p[i].y > q.y) != (p[j].y > q.y) &&
-            q.x < (p[j].x - p[i].x) * (q.y - p[i].y) / (p[j].y - p[i].y) + p[i].x)
-            in = !in;
-    }
-    return in;
-}
-
 static sl_status clean_loop(const sl_outline_loop *in, size_t k, const char *what, sl_vec2 **out,
                             size_t *nout, sl_error *err)
 {
@@ -192,7 +181,7 @@ sl_status sl_outline_create(const sl_outline_loop *loops, size_t nloops, const c
     for (size_t k = 0; k < nloops; k++) {
         int depth = 0;
         for (size_t m = 0; m < nloops; m++) {
-            if (m != k && point_in_loop(o->loop_pts[k][0], o->loop_pts[m], o->loop_n[m]))
+            if (m != k && sl_p2_inside(o->loop_pts[k][0], o->loop_pts[m], o->loop_n[m]))
                 depth++;
         }
         o->loop_depth[k] = depth;

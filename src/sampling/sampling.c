@@ -96,17 +96,6 @@ static sl_status sample_points(const sl_roi *roi, sl_organ_samples *out, growing
     return g->failed ? SL_ENOMEM : SL_OK;
 }
 
-static bool point_in_loop(sl_vec2 q, const sl_vec2 *p, size_t n)
-{
-    bool in = false;
-    for (size_t i = 0, j = n - 1; i < n; j = i++) {
-        if ((p[i].y > q.y) != (p[j].y > q.y) &&
-            q.x < (p[j].x - p[i].x) * (q.y - p[i].y) / (p[j].y - p[i].y) + p[i].x)
-            in = !in;
-    }
-    return in;
-}
-
 /* The lattice rows integrate the area by the midpoint rule, which is off by
  * up to a row pitch at an edge parallel to the rows (a box). For loops that
  * nest without crossing, the even-odd area is exact from the shoelace
@@ -122,7 +111,7 @@ static void rescale_to_exact_area(const sl_slice_stack *st, const sl_slice *sl, 
         size_t n = st->loop_n[sl->first + k];
         int depth = 0;
         for (size_t m = 0; m < sl->count; m++) {
-            if (m != k && point_in_loop(p[0], st->loops[sl->first + m], st->loop_n[sl->first + m]))
+            if (m != k && sl_p2_inside(p[0], st->loops[sl->first + m], st->loop_n[sl->first + m]))
                 depth++;
         }
         exact += (depth % 2 ? -1.0 : 1.0) * fabs(sl_p2_area(p, n));
