@@ -19,6 +19,10 @@
  * coarsening below to end. Clinical ROIs have hundreds of contours. */
 #define MAX_LOOPS 100000
 #define MAX_COARSENINGS 40
+/* Rows of the lattice across a ROI's extent at most: a self-crossing or
+ * XOR contour can have a tiny net area and a huge extent, and the first
+ * pitch comes from the area. Organs span tens to a few hundred rows. */
+#define MAX_ROWS 4096
 
 void sl_sampling_default_options(sl_sampling_options *o)
 {
@@ -283,6 +287,15 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
     }
     double h = cbrt(v_est / (double)(opt->target_samples ? opt->target_samples : 1));
     h = fmax(opt->min_pitch_cm, fmin(opt->max_pitch_cm, h));
+    double ylo = INFINITY, yhi = -INFINITY;
+    for (size_t k = 0; k < st.nloops; k++)
+        for (size_t i = 0; i < st.loop_n[k]; i++) {
+            ylo = fmin(ylo, st.loops[k][i].y);
+            yhi = fmax(yhi, st.loops[k][i].y);
+        }
+    bool wide = (yhi - ylo) / h > MAX_ROWS;
+    if (wide)
+        h = (yhi - ylo) / MAX_ROWS;
     /* The shoelace areas understate what a self-crossing contour fills, so
      * the sample count is also capped as the lattice is filled: past the cap
      * the organ is sampled again at a coarser pitch. Memory stays bounded. */
@@ -310,7 +323,7 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
         coarsened = true;
     }
     free(xs);
-    if (coarsened)
+    if (coarsened || wide)
         sl_notes_add(&out->notes,
                      "ROI '%s' is very large or its contours cross themselves: sampled at a "
                      "%.2f cm pitch to stay within %d samples",
