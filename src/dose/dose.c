@@ -144,15 +144,15 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     bd->effective_ssd_cm = o->effective_ssd_cm;
     bd->cutout_factor = 1.0;
     bd->cutout_factor_assumed = false;
+    const sl_cutout_factor *cf = NULL;
+    for (size_t k = 0; bd->cutout && k < o->nfactors; k++)
+        if (strcmp(o->factors[k].insert, ins) == 0)
+            cf = &o->factors[k];
     if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT) {
         /* The open profiles are percentages of the open field's central-axis
          * dose, so they pair with the open output: a cutout factor would
          * rescale the applicator scatter and the photon tail, which follow
          * the monitor units, not the cutout's opening. */
-        const sl_cutout_factor *cf = NULL;
-        for (size_t k = 0; k < o->nfactors; k++)
-            if (strcmp(o->factors[k].insert, ins) == 0)
-                cf = &o->factors[k];
         if (cf)
             sl_notes_add(&e->notes,
                          "beam %d: insert '%s' has no profiles of its own: the open applicator's "
@@ -168,19 +168,14 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                          "conservative: a cutout's own out-of-field share can be higher; measure "
                          "its profiles",
                          b->number);
+    } else if (cf) {
+        bd->cutout_factor = cf->factor;
     } else if (bd->cutout) {
         bd->cutout_factor_assumed = true;
-        for (size_t k = 0; k < o->nfactors; k++) {
-            if (strcmp(o->factors[k].insert, ins) == 0) {
-                bd->cutout_factor = o->factors[k].factor;
-                bd->cutout_factor_assumed = false;
-            }
-        }
-        if (bd->cutout_factor_assumed)
-            sl_notes_add(&e->notes,
-                         "beam %d: no cutout output factor in the model for insert '%s': 1 used "
-                         "(an overestimate when the cutout lowers the output)",
-                         b->number, ins);
+        sl_notes_add(&e->notes,
+                     "beam %d: no cutout output factor in the model for insert '%s': 1 used "
+                     "(an overestimate when the cutout lowers the output)",
+                     b->number, ins);
     }
     /* Inverse square at an SSD other than the nominal one. An SSD short of
      * the nominal one by more than the applicator's usual stand-off would put
@@ -188,6 +183,8 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
      * the square law and the out-of-field profiles cover: both are refused
      * (bounds are common practice, not a published limit). */
     bool ssd_from_plan = isfinite(bp->ssd_plan_cm);
+    const char *why_no_ssd = e->loc->depth_from_body ? "the central axis misses the body contour"
+                                                     : "the body contour is not used";
     bd->ssd_used_cm = ssd_from_plan ? bp->ssd_plan_cm : bp->ssd_found_cm;
     if (isfinite(bd->ssd_used_cm)) {
         double lo = m->machine.nominal_ssd_cm - SL_SSD_SHORT_MAX_CM;
@@ -216,17 +213,13 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
         sl_notes_add(&e->notes,
                      "beam %d: no SSD (none in the plan, %s): the reference dose given by option "
                      "is used as it stands",
-                     b->number,
-                     e->loc->depth_from_body ? "the central axis misses the body contour"
-                                             : "the body contour is not used");
+                     b->number, why_no_ssd);
     } else {
         return sl_error_set(err, SL_EINPUT,
                             "%s: beam %d: no SSD (no SourceToSurfaceDistance (300A,0130) in the "
                             "plan, and %s): the inverse-square correction is unknown; give "
                             "--reference-dose",
-                            f, b->number,
-                            e->loc->depth_from_body ? "the central axis misses the body contour"
-                                                    : "the body contour is not used");
+                            f, b->number, why_no_ssd);
     }
     /* meterset of each fraction group */
     size_t ng = e->ngroups;

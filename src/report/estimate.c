@@ -210,15 +210,11 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                         "per 100,000 patients for a mean course dose of %.3g Gy (%s; %s; a "
                         "population average, not an individual prediction)\n",
                     a->lar_cases, a->dose->course_mean.cgy / 100, a->lar->source, a->lar->mark);
-        if (a->status == SL_ST_BAND)
-        {
-            if (r->as->patient.pacing_dependent && a->kind->pacing_shift > 0)
-                fprintf(fp, "    - risk bands: %s (%s); moved up %d band%s for pacing dependence\n",
-                        a->kind->bands_source, a->kind->bands_mark, a->kind->pacing_shift,
-                        a->kind->pacing_shift == 1 ? "" : "s");
-            else
-                fprintf(fp, "    - risk bands: %s (%s)\n", a->kind->bands_source,
-                        a->kind->bands_mark);
+        if (a->status == SL_ST_BAND) {
+            char shift[64];
+            est_pacing_text(r, a, shift, sizeof shift);
+            fprintf(fp, "    - risk bands: %s (%s)%s\n", a->kind->bands_source,
+                    a->kind->bands_mark, shift);
         }
         for (size_t c = 0; c < a->nchecks; c++)
             fprintf(fp, "    - %s: %.3g Gy (%s; %s): %s\n", a->checks[c].level->name,
@@ -603,18 +599,27 @@ void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
 {
     double lo, hi;
     sl_curves_range(bd->curves, &lo, &hi);
-    int len = snprintf(buf, size, "model limits: %.1f to %.1f cm from the field edge, depths ",
-                       lo, hi);
     const double *dv;
     size_t nd = sl_curves_depths(bd->curves, &dv);
-    for (size_t k = 0; k < nd && len > 0 && (size_t)len < size; k++)
-        len += snprintf(buf + len, size - (size_t)len, "%s%g", k ? ", " : "", dv[k]);
-    if (len > 0 && (size_t)len < size)
-        snprintf(buf + len, size - (size_t)len, " cm");
-    if (len < 0 || (size_t)len >= size - 3) {
-        if (size > 4)
-            memcpy(buf + size - 4, "...", 4);
-    }
+    sl_buf b = {0};
+    sl_buf_printf(&b, "model limits: %.1f to %.1f cm from the field edge, depths ", lo, hi);
+    for (size_t k = 0; k < nd; k++)
+        sl_buf_printf(&b, "%s%g", k ? ", " : "", dv[k]);
+    sl_buf_printf(&b, " cm");
+    int n = snprintf(buf, size, "%s",
+                     b.failed || !b.data ? "model limits: not printed (out of memory)" : b.data);
+    if (n < 0 || (size_t)n >= size)
+        memcpy(buf + size - 4, "...", 4); /* callers' buffers are far longer than 4 */
+    sl_buf_free(&b);
+}
+
+void est_pacing_text(const sl_estimate_report *r, const sl_assessment *a, char *buf, size_t size)
+{
+    if (r->as->patient.pacing_dependent && a->kind && a->kind->pacing_shift > 0)
+        snprintf(buf, size, "; moved up %d band%s for pacing dependence", a->kind->pacing_shift,
+                 a->kind->pacing_shift == 1 ? "" : "s");
+    else if (size)
+        buf[0] = '\0';
 }
 
 void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size)

@@ -37,6 +37,10 @@ void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size);
  * field edge, depths 0, 0.5, 1, 1.54 cm" (truncated with "..." if long). */
 void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size);
 
+/* "; moved up 1 band for pacing dependence" when the device bands were
+ * shifted, else "". */
+void est_pacing_text(const sl_estimate_report *r, const sl_assessment *a, char *buf, size_t size);
+
 /* Refuse a non-finite number that a writer is about to print: every
  * writer calls it first. */
 sl_status est_check_finite(const sl_estimate_report *r, sl_error *err);

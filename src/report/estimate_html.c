@@ -540,10 +540,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
                                                : "not reached");
         if (a->status == SL_ST_BAND) {
             any = true;
-            char shift[64] = "";
-            if (r->as->patient.pacing_dependent && a->kind->pacing_shift > 0)
-                snprintf(shift, sizeof shift, "; moved up %d band%s for pacing dependence",
-                         a->kind->pacing_shift, a->kind->pacing_shift == 1 ? "" : "s");
+            char shift[64];
+            est_pacing_text(r, a, shift, sizeof shift);
             helf(&h, adv, "li", "%s: risk bands of the %s (%s)%s", a->dose->roi->name,
                  a->kind->bands_source, a->kind->bands_mark, shift);
         }
