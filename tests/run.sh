@@ -6,8 +6,8 @@ set -u
 cd "$(dirname "$0")/.." || exit 1
 . tests/deps.sh
 sl_install $BUILD_PACKAGES $TEST_PACKAGES || exit 1
-sl_build build || exit 1
-sl_build build-sanitize -Db_sanitize=address,undefined -Db_lundef=false || exit 1
+sl_build build -Dtests=enabled || exit 1
+sl_build build-sanitize -Dtests=enabled -Db_sanitize=address,undefined -Db_lundef=false || exit 1
 
 export UBSAN_OPTIONS="halt_on_error=1:print_stacktrace=1"
 export ASAN_OPTIONS="detect_leaks=1"
