@@ -157,11 +157,13 @@ def main():
                     "nominal_ssd_cm": SSD, "sad_cm": 100.0, "invented": True},
         "measured": {"date": "2026-11-20", "by": "demo physicist (invented)",
                      "detector": "plane-parallel ion chamber in water (invented)"},
-        "reference": "percent of the central-axis maximum dose of the same energy and applicator, "
-                     "open insert, at the nominal SSD",
+        "reference": "percent of the central-axis maximum dose of the same energy, applicator and "
+                     "insert at the nominal SSD (open profiles: the open field's; each insert's "
+                     "profiles: that insert's own, as its profiles_relative_to says)",
         "applicators": [{"id": a, "shape": "square", "field_x_cm": s, "field_y_cm": s,
                          "source_to_end_cm": 95.0} for a, s in APPLICATORS],
-        "inserts": [{"id": i, "applicator": a, "shape": sh, "size_x_cm": sz, "size_y_cm": sz}
+        "inserts": [{"id": i, "applicator": a, "shape": sh, "size_x_cm": sz, "size_y_cm": sz,
+                     "profiles_relative_to": "insert_cax"}
                     for i, a, sh, sz in INSERTS],
         "outputs": outputs,
         "profiles": profiles,

@@ -13,10 +13,20 @@
  * fraction groups add up over the course, each with its own fractions.
  *
  * Uncertainty (k = 1) at a sample: the model's combined standard
- * uncertainty and a setup shift (default 0.5 cm of distance, as a standard
- * uncertainty; the larger change of the model's value over +/- the shift),
- * in quadrature; beams and fractions add linearly (fully correlated, the
- * conservative choice). Upper bounds are estimate + 2 u (k = 2).
+ * uncertainty (fit, measurement, interpolation, extrapolation, stand-in,
+ * transfer: model.h) and a setup shift (default 0.5 cm of distance, as a
+ * standard uncertainty; the larger change of the model's value over +/- the
+ * shift), in quadrature; beams and fractions add linearly (fully
+ * correlated, the conservative choice). Upper bounds are estimate + 2 u
+ * (k = 2).
+ *
+ * A cutout is matched to a model insert by name (block name or tray id) or
+ * by option; the match stands only when the insert fits the beam's
+ * applicator (else an input error) and its area and equivalent square are
+ * within SL_INSERT_MATCH_TOLERANCE of the plan's cutout (else a warning that
+ * names both, and the stand-in of model.h is used). The cutout factor is
+ * applied once: to an insert's profiles that are relative to its own
+ * central-axis maximum, never to profiles relative to the open field's.
  *
  * Per organ: maximum, volume-weighted mean, near-maximum (the least dose in
  * the hottest 0.03 cm3, or 2 % of the volume when that is smaller) and the
@@ -79,12 +89,32 @@ typedef struct sl_beam_dose {
     double isf;                   /* inverse-square factor */
     double cutout_factor;
     bool cutout_factor_assumed;   /* no factor in the model: 1 used */
+    double cutout_area_cm2;       /* the plan's cutout at the nominal SSD; NAN without one */
+    double cutout_eqsq_cm;        /* its equivalent square, 4 area / perimeter */
     bool reference_overridden;
     double *mu;                   /* per fraction group (NAN: beam not in that group) */
     double *ref_cgy;              /* reference dose per fraction, per group (NAN likewise) */
     double *plan_beam_dose_cgy;   /* Beam Dose of the plan, per group (NAN when absent) */
     sl_curve_set *curves;
 } sl_beam_dose;
+
+/* Organs closer than this to the field edge (cm) are estimated but marked
+ * SL_MF_NEAR_EDGE and not judged against action levels: within about a
+ * centimetre of the edge the penumbra and the patient's own scatter, which
+ * the planning system models, dominate (common practice). */
+#define SL_NEAR_EDGE_CM 1.0
+
+/* A plan's cutout matches a model insert when their areas and equivalent
+ * squares differ by no more than this fraction (common practice: output
+ * factors change by a few per cent for such a change of field size). */
+#define SL_INSERT_MATCH_TOLERANCE 0.15
+
+/* The uncertainty budget of one dose (cGy, standard uncertainties, k = 1). */
+typedef struct sl_budget {
+    double fit_cgy, measurement_cgy, interpolation_cgy, extrapolation_cgy;
+    double standin_cgy, transfer_cgy, setup_cgy;
+    double combined_cgy;          /* the components in quadrature (beams add linearly) */
+} sl_budget;
 
 typedef struct sl_dose_stat {
     double cgy;       /* estimate */
@@ -112,6 +142,8 @@ typedef struct sl_organ_dose {
     double max_energy_mev;        /* highest energy among the beams that reach it */
     unsigned flags;               /* SL_MF_* met at any sample */
     double shield_transmission;   /* what-if transmission applied (1 for none) */
+    bool near_edge;               /* min_distance_cm < SL_NEAR_EDGE_CM: marked, not judged */
+    sl_budget course_max_budget;  /* the budget at the hottest sample, over the course */
     double *course_cgy;           /* per sample, for dose-volume histograms */
 } sl_organ_dose;
 

@@ -29,12 +29,49 @@ typedef struct sl_applicator_spec {
     double source_to_end_cm;/* source to the applicator's end (NAN when not given) */
 } sl_applicator_spec;
 
+/* What an insert's profiles are percentages of. */
+typedef enum sl_relative_to {
+    SL_REL_UNSTATED,        /* an older file: taken as SL_REL_INSERT_CAX, with a note */
+    SL_REL_INSERT_CAX,      /* the insert's own central-axis maximum: the cutout factor applies */
+    SL_REL_OPEN_CAX         /* the open applicator's central-axis maximum: it does not */
+} sl_relative_to;
+
 typedef struct sl_insert_spec {
     char *id;
     char *applicator;       /* the applicator it fits */
     char *shape;            /* "square", "rectangle", "circle" or "irregular" */
     double x_cm, y_cm;      /* opening at the nominal SSD */
+    sl_relative_to relative_to; /* key profiles_relative_to: insert_cax | open_cax */
 } sl_insert_spec;
+
+/* Nominal area (cm2) and equivalent square (cm) of an insert's opening:
+ * x y (pi x y / 4 for a circle); 2xy/(x+y) for a rectangle, the side of the
+ * square of equal area for a circle. */
+double sl_insert_area_cm2(const sl_insert_spec *s);
+double sl_insert_equivalent_square_cm(const sl_insert_spec *s);
+
+/* The transfer uncertainty: what a water-tank profile does not know about a
+ * patient (body shape and scatter, beam direction, leakage asymmetry), as a
+ * relative standard uncertainty by distance band from the field edge. A
+ * model file states it under machine: transfer_uncertainty (a clinic puts
+ * in its own in-vivo results); without it the built-in defaults apply. */
+typedef struct sl_transfer_band {
+    double below_cm;        /* upper edge of the band; INFINITY for the last */
+    double relative;        /* relative standard uncertainty (k = 1) */
+} sl_transfer_band;
+
+typedef struct sl_transfer {
+    size_t nbands;
+    sl_transfer_band *bands;
+    char *source;
+    char *mark;
+    bool is_default;        /* the file gave none: the built-in defaults */
+} sl_transfer;
+
+/* Relative transfer uncertainty at a distance (cm) from the field edge. */
+double sl_transfer_relative(const sl_transfer *t, double distance_cm);
+/* Fill *t with the built-in defaults (is_default set). */
+sl_status sl_transfer_default(sl_transfer *t, sl_error *err);
 
 typedef struct sl_cutout_factor {
     char *insert;
@@ -57,6 +94,7 @@ typedef struct sl_machine {
     double nominal_ssd_cm;
     double sad_cm;
     bool invented;          /* demo data: every report says so */
+    sl_transfer transfer;   /* machine: transfer_uncertainty (or the defaults) */
     size_t napplicators;
     sl_applicator_spec *applicators;
     size_t ninserts;

@@ -8,21 +8,34 @@
  * each energy x applicator x insert x depth x direction the fitted profile
  * (profile.h) with its covariance and statistics and the measured points.
  *
- * Evaluation (sl_model_select, then sl_curves_eval) gives the dose in percent
- * of the central-axis maximum at a depth (cm) and a distance from the field
- * edge (cm), with its standard uncertainty and flags:
+ * Evaluation (sl_model_select, then sl_curves_eval_query) gives the dose in
+ * percent of the central-axis maximum at a depth (cm), a distance from the
+ * field edge (cm) and a direction from the central axis, with its standard
+ * uncertainty, its budget and flags:
  *  - energy and applicator must be commissioned: no interpolation across
  *    energies or applicators (an input error that lists what is);
  *  - between measured depths, log dose is interpolated linearly in depth;
  *    outside them the nearest depth is used and flagged;
- *  - beyond the measured distances the fitted tail is extrapolated and
- *    flagged; inside the field (distance < 0) nothing is given, only a flag;
- *  - a cutout with no profiles of its own takes the open applicator's
- *    profiles from the cutout edge, flagged (not known to be conservative);
+ *  - profiles measured in several directions at one depth are interpolated
+ *    in log dose by the point's direction from the central axis (crossplane
+ *    along IEC X at 0 deg, diagonal at 45, inplane along IEC Y at 90); each
+ *    keeps its own measured range; an unknown direction takes the highest;
+ *  - beyond a profile's measured distances the fitted tail is used but never
+ *    below the level of its farthest measured points (far from the field,
+ *    head leakage flattens the curve), flagged; inside the field (distance
+ *    < 0) nothing is given, only a flag;
+ *  - a cutout with no profiles of its own gets a conservative stand-in: the
+ *    largest of the open applicator's profiles from the cutout's edge, the
+ *    same from the applicator's edge, and every commissioned insert of that
+ *    energy and applicator from the cutout's edge (each on the open output),
+ *    flagged, with half the spread between them as an uncertainty;
+ *  - a profile whose fit is poor (profile.h) marks the value and widens its
+ *    fit uncertainty by its largest relative residual;
  *  - the uncertainty combines the fit's standard error (covariance), the
  *    stated measurement uncertainty, the interpolation spread (between
- *    depths, and between directions measured at one depth) and, beyond the
- *    measured range, an extrapolation term of 10 % per 5 cm.
+ *    depths and directions), beyond the measured range an extrapolation
+ *    term of 2 % per cm, the stand-in spread, and the machine's transfer
+ *    uncertainty by distance band (machine.h).
  */
 #ifndef STRAYLINE_MODEL_H
 #define STRAYLINE_MODEL_H
@@ -95,8 +108,11 @@ enum {
     SL_MF_DEPTH_OUTSIDE = 2,    /* depth outside the commissioned depths: nearest used */
     SL_MF_EXTRAPOLATED = 4,     /* distance beyond the measured range */
     SL_MF_OPEN_FOR_CUTOUT = 8,  /* open-applicator profiles used for an uncommissioned cutout */
-    SL_MF_POINTS_MODE = 16      /* interpolated measured points rather than the fit */
+    SL_MF_POINTS_MODE = 16,     /* interpolated measured points rather than the fit */
+    SL_MF_POOR_FIT = 32,        /* a profile used has a poor fit: uncertainty widened */
+    SL_MF_NEAR_EDGE = 64        /* (dose stage) closer to the field edge than SL_NEAR_EDGE_CM */
 };
+#define SL_MF_COUNT 7
 
 /* A short text for each flag set, for reports. */
 const char *sl_model_flag_text(unsigned flag);
@@ -113,7 +129,8 @@ sl_status sl_model_select(const sl_model *m, double energy_mev, const char *appl
                           sl_error *err);
 void sl_curve_set_free(sl_curve_set *c);
 
-/* Commissioned depths (cm) and distance range of a curve set. */
+/* Commissioned depths (cm) and distance range of a curve set: the nearest
+ * and the farthest distance measured in any direction. */
 size_t sl_curves_depths(const sl_curve_set *c, const double **depths);
 void sl_curves_range(const sl_curve_set *c, double *lo_cm, double *hi_cm);
 
@@ -121,19 +138,44 @@ typedef struct sl_model_value {
     double percent;          /* of the central-axis maximum; NAN in field */
     double u_percent;        /* combined standard uncertainty */
     double u_fit, u_meas, u_interp, u_extrap;
+    double u_standin;        /* half the spread of the stand-in's candidates */
+    double u_transfer;       /* water tank to patient, by distance band */
     double electron_percent; /* A and B terms (after any transmission) */
     double photon_percent;   /* C term */
     double depth_used_cm;
     unsigned flags;
 } sl_model_value;
 
-/* Value at depth (cm) and distance from the field edge (cm). `electron_t`
+/* Where and how to evaluate. */
+typedef struct sl_eval_query {
+    double depth_cm;
+    double distance_cm;      /* from the field edge (the cutout's, when there is one) */
+    double app_distance_cm;  /* from the applicator's opening; NAN when unknown */
+    double angle_deg;        /* direction from the central axis in the beam's eye view,
+                                folded into 0..90: 0 along IEC X, 90 along IEC Y; NAN:
+                                unknown (the highest direction is taken) */
+    sl_eval_mode mode;
+    double electron_t;       /* what-if transmission of the electron part (1: none) */
+} sl_eval_query;
+
+void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out);
+
+/* Is this curve set the stand-in for an uncommissioned cutout? */
+bool sl_curves_is_standin(const sl_curve_set *c);
+
+/* Value at depth (cm) and distance from the field edge (cm), direction
+ * unknown, applicator edge unknown (sl_curves_eval_query). `electron_t`
  * is a transmission (0..1) applied to the electron part only, for a what-if
  * shield; 1 for none. Thread-safe. */
 void sl_curves_eval(const sl_curve_set *c, double depth_cm, double distance_cm,
                     sl_eval_mode mode, double electron_t, sl_model_value *out);
 
-/* Convenience for one query (select, evaluate, free). */
+/* One query (select, evaluate, free); sl_model_eval with the direction and
+ * the applicator edge unknown. */
+sl_status sl_model_eval_query(const sl_model *m, double energy_mev, const char *applicator,
+                              const char *insert, const sl_eval_query *q, sl_model_value *out,
+                              sl_error *err);
+
 sl_status sl_model_eval(const sl_model *m, double energy_mev, const char *applicator,
                         const char *insert, double depth_cm, double distance_cm,
                         sl_eval_mode mode, sl_model_value *out, sl_error *err);

@@ -49,10 +49,18 @@ typedef enum sl_profile_form { SL_FORM_SMOOTH, SL_FORM_PEAKED } sl_profile_form;
  * peaked form B (percent), mu (cm), s (cm). */
 enum { SL_P_A, SL_P_L1, SL_P_C, SL_P_L2, SL_P_B, SL_P_MU, SL_P_S };
 
-/* A fit counts as poor above this reduced chi-square, or with a residual
- * beyond this many standard uncertainties. */
-#define SL_POOR_CHI2_RED 3.0
-#define SL_POOR_RESIDUAL_SIGMA 3.0
+/* A fit counts as poor when either of two tests fails at these false-alarm
+ * probabilities for a good profile (data scattering as stated about the true
+ * form): chi-square above its upper quantile for the fit's degrees of
+ * freedom, or the largest residual beyond the limit that n independent
+ * normal residuals pass with probability 1 - alpha (Sidak). Together about
+ * 1 % of good profiles are called poor, whatever their number of points. */
+#define SL_POOR_ALPHA_CHI2 0.005
+#define SL_POOR_ALPHA_RESIDUAL 0.005
+
+/* The two limits for n points and dof degrees of freedom. */
+double sl_profile_poor_chi2_limit(size_t dof);
+double sl_profile_poor_residual_limit(size_t n);
 
 typedef struct sl_profile_fit {
     sl_profile_form form;

@@ -128,8 +128,9 @@ int sl_cmd_fit(int argc, char **argv)
            report ? ", report to " : "", report ? report : "");
     sl_cli_warnings(&ms->notes);
     if (poor) {
-        printf("poor fits (reduced chi-square above %.0f or a residual beyond %.0f sigma):\n",
-               SL_POOR_CHI2_RED, SL_POOR_RESIDUAL_SIGMA);
+        printf("poor fits (chi-square or largest residual beyond what a good profile passes "
+               "with %.1f %% and %.1f %% false alarms):\n",
+               100 * SL_POOR_ALPHA_CHI2, 100 * SL_POOR_ALPHA_RESIDUAL);
         for (size_t i = 0; i < model->nprofiles; i++) {
             const sl_model_profile *p = &model->profiles[i];
             if (!p->fit.poor)

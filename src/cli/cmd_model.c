@@ -28,6 +28,11 @@ static const char help[] =
     "  -d, --depth CM          depth below the surface\n"
     "  -x, --distance CM       distance from the field edge, positive outside\n"
     "  -p, --points            interpolate the measured points instead of the fitted form\n"
+    "      --angle DEG         direction of the point from the central axis, 0 (IEC X,\n"
+    "                          crossplane) to 90 (IEC Y, inplane); default: the highest of\n"
+    "                          the directions measured\n"
+    "      --applicator-distance CM  distance from the applicator's opening, for the\n"
+    "                          stand-in of an uncommissioned cutout\n"
     "  -f, --format FMT        text (default) or json\n"
     "  -h, --help              this help\n";
 
@@ -45,9 +50,11 @@ int sl_cmd_model(int argc, char **argv)
         {"insert", required_argument, NULL, 'i'},  {"depth", required_argument, NULL, 'd'},
         {"distance", required_argument, NULL, 'x'}, {"points", no_argument, NULL, 'p'},
         {"format", required_argument, NULL, 'f'},  {"help", no_argument, NULL, 'h'},
+        {"angle", required_argument, NULL, 'A'},
+        {"applicator-distance", required_argument, NULL, 'X'},
         {NULL, 0, NULL, 0},
     };
-    double energy = NAN, depth = NAN, distance = NAN;
+    double energy = NAN, depth = NAN, distance = NAN, angle = NAN, app_distance = NAN;
     const char *applicator = NULL, *insert = NULL;
     sl_format fmt = SL_FORMAT_TEXT;
     sl_eval_mode mode = SL_EVAL_FIT;
@@ -55,7 +62,7 @@ int sl_cmd_model(int argc, char **argv)
     optind = 1;
     argc--;
     argv++;
-    while ((c = getopt_long(argc, argv, "e:a:i:d:x:pf:h", opts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, "e:a:i:d:x:pf:hA:X:", opts, NULL)) != -1) {
         switch (c) {
         case 'e':
             if (!sl_parse_double(optarg, &energy) || energy <= 0)
@@ -73,6 +80,19 @@ int sl_cmd_model(int argc, char **argv)
                                     optarg);
             break;
         case 'p': mode = SL_EVAL_POINTS; break;
+        case 'A':
+            if (!sl_parse_double(optarg, &angle) || angle < 0 || angle > 90)
+                return sl_cli_usage("model",
+                                    "--angle needs a direction from the central axis in degrees, "
+                                    "0 (IEC X, crossplane) to 90 (IEC Y, inplane), not '%s'",
+                                    optarg);
+            break;
+        case 'X':
+            if (!sl_parse_double(optarg, &app_distance))
+                return sl_cli_usage("model",
+                                    "--applicator-distance needs a distance in cm, not '%s'",
+                                    optarg);
+            break;
         case 'f':
             if (!sl_cli_format("model", optarg, &fmt))
                 return SL_EXIT_USAGE;
@@ -97,7 +117,8 @@ int sl_cmd_model(int argc, char **argv)
             rc = sl_cli_fail(&err);
     } else {
         sl_model_value v;
-        if (sl_model_eval(m, energy, applicator, insert, depth, distance, mode, &v, &err) !=
+        sl_eval_query q = {depth, distance, app_distance, angle, mode, 1.0};
+        if (sl_model_eval_query(m, energy, applicator, insert, &q, &v, &err) !=
                 SL_OK ||
             sl_report_model_value(stdout, fmt, m, energy, applicator, insert, depth, distance, &v,
                                   &err) != SL_OK)

@@ -105,6 +105,56 @@ static const char *choose_insert(const sl_model *m, const sl_beam *b, const char
     return "custom cutout";
 }
 
+/* The plan's cutout at the nominal SSD: area (cm2) and equivalent square
+ * (4 area / perimeter, cm). The outline is in the isocentric plane. */
+static void cutout_size(const sl_field *f, double nominal_ssd_cm, double sad_cm, double *area,
+                        double *eqsq)
+{
+    double k = nominal_ssd_cm / sad_cm, per = 0;
+    for (size_t i = 0; i < sl_outline_loop_count(f->edge); i++) {
+        size_t n;
+        const sl_vec2 *p = sl_outline_loop_points(f->edge, i, &n);
+        for (size_t j = 0; j < n; j++)
+            per += hypot(p[(j + 1) % n].x - p[j].x, p[(j + 1) % n].y - p[j].y);
+    }
+    *area = f->area_cm2 * k * k;
+    *eqsq = per > 0 ? 4 * f->area_cm2 / per * k : NAN;
+}
+
+/* Does the model insert chosen for a cutout fit it? An insert of another
+ * applicator is an input error; a size mismatch is a warning, and the
+ * caller then uses the stand-in. */
+static sl_status check_insert(sl_estimate *e, const sl_beam *b, sl_beam_dose *bd,
+                              const char **ins, sl_error *err)
+{
+    const sl_machine *mc = &e->model->machine;
+    if (strcmp(*ins, SL_INSERT_OPEN) == 0 || !bd->cutout)
+        return SL_OK;
+    const sl_insert_spec *spec = sl_machine_insert(mc, bd->applicator, *ins);
+    if (!spec) {
+        const sl_insert_spec *other = sl_machine_insert(mc, NULL, *ins);
+        if (other)
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: beam %d: insert '%s' fits applicator '%s', not the beam's "
+                                "applicator '%s'",
+                                e->plan->source, b->number, *ins, other->applicator,
+                                bd->applicator);
+        return SL_OK; /* not a model insert: the stand-in follows */
+    }
+    double a = sl_insert_area_cm2(spec), q = sl_insert_equivalent_square_cm(spec);
+    double da = fabs(bd->cutout_area_cm2 / a - 1), dq = fabs(bd->cutout_eqsq_cm / q - 1);
+    if (da <= SL_INSERT_MATCH_TOLERANCE && dq <= SL_INSERT_MATCH_TOLERANCE)
+        return SL_OK;
+    sl_notes_add(&e->notes,
+                 "beam %d: the plan's cutout (%.1f cm2, equivalent square %.1f cm at the nominal "
+                 "SSD) does not match model insert '%s' (%.1f cm2, %.1f cm; tolerance %.0f %%): "
+                 "the conservative stand-in for an uncommissioned cutout is used instead",
+                 b->number, bd->cutout_area_cm2, bd->cutout_eqsq_cm, spec->id, a, q,
+                 100 * SL_INSERT_MATCH_TOLERANCE);
+    *ins = "custom cutout";
+    return SL_OK;
+}
+
 static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dose *bd,
                             sl_error *err)
 {
@@ -122,6 +172,13 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     bd->applicator = b->applicator.id;
     const char *ins = choose_insert(m, b, e->opt.insert);
     bd->cutout = strcmp(ins, SL_INSERT_OPEN) != 0;
+    bd->cutout_area_cm2 = bd->cutout_eqsq_cm = NAN;
+    if (bd->cutout && bp->field.has_cutout)
+        cutout_size(&bp->field, m->machine.nominal_ssd_cm, m->machine.sad_cm,
+                    &bd->cutout_area_cm2, &bd->cutout_eqsq_cm);
+    sl_status cst = check_insert(e, b, bd, &ins, err);
+    if (cst != SL_OK)
+        return cst;
     bool ok = true;
     bd->insert = sl_strdup(ins, &ok);
     if (!ok)
@@ -149,33 +206,38 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
         if (strcmp(o->factors[k].insert, ins) == 0)
             cf = &o->factors[k];
     if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT) {
-        /* The open profiles are percentages of the open field's central-axis
-         * dose, so they pair with the open output: a cutout factor would
-         * rescale the applicator scatter and the photon tail, which follow
-         * the monitor units, not the cutout's opening. */
-        if (cf)
-            sl_notes_add(&e->notes,
-                         "beam %d: insert '%s' has no profiles of its own: the open applicator's "
-                         "profiles and open output are used from the cutout's edge; its cutout "
-                         "factor (%.3f) is not applied, as the open profiles are relative to the "
-                         "open output. Not known to be conservative: a cutout's own out-of-field "
-                         "share can be higher; measure its profiles",
-                         b->number, ins, cf->factor);
-        else
-            sl_notes_add(&e->notes,
-                         "beam %d: the cutout is not commissioned: the open applicator's profiles "
-                         "and open output are used from the cutout's edge. Not known to be "
-                         "conservative: a cutout's own out-of-field share can be higher; measure "
-                         "its profiles",
-                         b->number);
-    } else if (cf) {
-        bd->cutout_factor = cf->factor;
-    } else if (bd->cutout) {
-        bd->cutout_factor_assumed = true;
+        /* The stand-in is on the open output: open profiles are percentages
+         * of the open field's central-axis dose, and the commissioned
+         * inserts in it are scaled there by their own factors (model.h). */
         sl_notes_add(&e->notes,
-                     "beam %d: no cutout output factor in the model for insert '%s': 1 used "
-                     "(an overestimate when the cutout lowers the output)",
-                     b->number, ins);
+                     "beam %d: the cutout is not commissioned: the largest of the open "
+                     "applicator's profiles from the cutout's edge, the same from the "
+                     "applicator's edge%s and the applicator's commissioned inserts is used, on "
+                     "the open output%s; measure the cutout's profiles to replace this stand-in",
+                     b->number,
+                     bp->field.applicator ? "" : " (not available: the applicator's opening is "
+                                                 "unknown)",
+                     cf ? " (its cutout factor is not applied)" : "");
+    } else if (bd->cutout) {
+        const sl_insert_spec *spec = sl_machine_insert(&m->machine, bd->applicator, ins);
+        sl_relative_to rel = spec ? spec->relative_to : SL_REL_UNSTATED;
+        if (rel == SL_REL_UNSTATED)
+            sl_notes_add(&e->notes,
+                         "beam %d: the model does not say what insert '%s''s profiles are "
+                         "relative to (profiles_relative_to): taken as its own central-axis "
+                         "maximum, so its cutout factor is applied",
+                         b->number, ins);
+        if (rel == SL_REL_OPEN_CAX) {
+            /* the profiles carry the cutout's output already */
+        } else if (cf) {
+            bd->cutout_factor = cf->factor;
+        } else {
+            bd->cutout_factor_assumed = true;
+            sl_notes_add(&e->notes,
+                         "beam %d: no cutout output factor in the model for insert '%s': 1 used "
+                         "(an overestimate when the cutout lowers the output)",
+                         b->number, ins);
+        }
     }
     /* Inverse square at an SSD other than the nominal one. An SSD short of
      * the nominal one by more than the applicator's usual stand-off would put
@@ -284,11 +346,63 @@ typedef struct organ_job {
     sl_status *status;
 } organ_job;
 
-static double eval_at(const sl_beam_dose *bd, double depth, double d, sl_eval_mode mode, double t,
-                      sl_model_value *v)
+/* One sample of one beam: where it is for the model (depth, distances,
+ * direction in the beam's eye view). */
+static sl_eval_query sample_query(const sl_estimate *e, size_t b, size_t o, size_t i)
 {
-    sl_curves_eval(bd->curves, depth, d, mode, t, v);
-    return v->percent;
+    const sl_beam_place *bp = &e->loc->beams[b];
+    const sl_organ_place *p = &bp->organs[o];
+    sl_vec3 q = sl_frame_to_bld(&bp->frame, e->loc->samples[o].points[i]);
+    double ax = fabs(q.x), ay = fabs(q.y);
+    sl_eval_query r = {p->depth_cm[i], p->distance_cm[i], p->app_distance_cm[i],
+                       ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0, e->opt.mode,
+                       1.0};
+    return r;
+}
+
+/* The model's value at the query and at +/- the setup shift; *us receives
+ * the shift's uncertainty (percent). */
+static void eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift, double t,
+                         sl_model_value *v, double *us)
+{
+    q.electron_t = t;
+    sl_curves_eval_query(bd->curves, &q, v);
+    sl_eval_query qp = q, qm = q;
+    sl_model_value vp, vm;
+    qp.distance_cm += shift;
+    qp.app_distance_cm += shift;
+    qm.distance_cm = fmax(q.distance_cm - shift, 0);
+    qm.app_distance_cm -= shift;
+    sl_curves_eval_query(bd->curves, &qp, &vp);
+    sl_curves_eval_query(bd->curves, &qm, &vm);
+    *us = fmax(fabs(vp.percent - v->percent), fabs(vm.percent - v->percent));
+}
+
+/* The budget of the course dose at one sample: each component summed over
+ * beams and fraction groups like the uncertainty itself. */
+static void sample_budget(const sl_estimate *e, size_t o, size_t i, double t, sl_budget *bg)
+{
+    memset(bg, 0, sizeof *bg);
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        sl_model_value v;
+        double us;
+        eval_shifted(bd, sample_query(e, b, o, i), e->opt.setup_shift_cm, t, &v, &us);
+        double u = sqrt(v.u_percent * v.u_percent + us * us);
+        for (size_t g = 0; g < e->ngroups; g++) {
+            if (!isfinite(bd->ref_cgy[g]))
+                continue;
+            double c = e->fractions[g] * bd->ref_cgy[g] / 100;
+            bg->fit_cgy += c * v.u_fit;
+            bg->measurement_cgy += c * v.u_meas;
+            bg->interpolation_cgy += c * v.u_interp;
+            bg->extrapolation_cgy += c * v.u_extrap;
+            bg->standin_cgy += c * v.u_standin;
+            bg->transfer_cgy += c * v.u_transfer;
+            bg->setup_cgy += c * us;
+            bg->combined_cgy += c * u;
+        }
+    }
 }
 
 /* samples sorted by dose, hottest first, for the near-maximum */
@@ -378,18 +492,20 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         dmin[i] = INFINITY;
     double shift = e->opt.setup_shift_cm;
     double t = od->shield_transmission;
+    if (od->min_distance_cm < SL_NEAR_EDGE_CM) {
+        od->near_edge = true;
+        od->flags |= SL_MF_NEAR_EDGE;
+    }
     for (size_t b = 0; b < e->nbeams; b++) {
         const sl_beam_dose *bd = &e->beams[b];
         const sl_organ_place *p = &loc->beams[b].organs[o];
         od->max_energy_mev = fmax(od->max_energy_mev, bd->energy_mev);
         for (size_t i = 0; i < n; i++) {
-            double d = p->distance_cm[i], z = p->depth_cm[i];
-            dmin[i] = fmin(dmin[i], d);
-            sl_model_value v, vp, vm;
-            double pc = eval_at(bd, z, d, e->opt.mode, t, &v);
-            double pp = eval_at(bd, z, d + shift, e->opt.mode, t, &vp);
-            double pm = eval_at(bd, z, fmax(d - shift, 0), e->opt.mode, t, &vm);
-            double us = fmax(fabs(pp - pc), fabs(pm - pc));
+            dmin[i] = fmin(dmin[i], p->distance_cm[i]);
+            sl_model_value v;
+            double us;
+            eval_shifted(bd, sample_query(e, b, o, i), shift, t, &v, &us);
+            double pc = v.percent;
             double u = sqrt(v.u_percent * v.u_percent + us * us);
             od->flags |= v.flags | bd->model_flags;
             for (size_t g = 0; g < ng; g++) {
@@ -447,6 +563,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         set_stat(ne, dv[nearest], uv[nearest]);
         if (pass < 0) {
             od->max_sample = imax;
+            sample_budget(e, o, imax, t, &od->course_max_budget);
             od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
         }
     }

@@ -70,6 +70,15 @@ static bool copy_machine(const sl_machine *a, sl_machine *b)
     b->nominal_ssd_cm = a->nominal_ssd_cm;
     b->sad_cm = a->sad_cm;
     b->invented = a->invented;
+    b->transfer = a->transfer;
+    b->transfer.source = copy_str(a->transfer.source, &ok);
+    b->transfer.mark = copy_str(a->transfer.mark, &ok);
+    b->transfer.bands = malloc((a->transfer.nbands ? a->transfer.nbands : 1) *
+                               sizeof *b->transfer.bands);
+    if (!b->transfer.bands)
+        return false;
+    if (a->transfer.nbands)
+        memcpy(b->transfer.bands, a->transfer.bands, a->transfer.nbands * sizeof *a->transfer.bands);
     b->applicators = calloc(a->napplicators ? a->napplicators : 1, sizeof *b->applicators);
     b->inserts = calloc(a->ninserts ? a->ninserts : 1, sizeof *b->inserts);
     b->outputs = calloc(a->noutputs ? a->noutputs : 1, sizeof *b->outputs);

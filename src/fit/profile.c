@@ -9,6 +9,7 @@
 #include "strayline/profile.h"
 #include "strayline/fit.h"
 
+#include <gsl/gsl_cdf.h>
 #include <math.h>
 #include <stdio.h>
 #include <string.h>
@@ -222,7 +223,21 @@ static void statistics(const double *d, const double *y, const double *sigma, si
     }
     f->rms_residual_percent = sqrt(s2 / (double)n);
     f->rms_residual_relative = sqrt(r2 / (double)n);
-    f->poor = f->chi2_red > SL_POOR_CHI2_RED || f->max_residual_sigma > SL_POOR_RESIDUAL_SIGMA;
+    f->poor = f->chi2 > sl_profile_poor_chi2_limit(f->dof) ||
+              f->max_residual_sigma > sl_profile_poor_residual_limit(n);
+}
+
+double sl_profile_poor_chi2_limit(size_t dof)
+{
+    return dof ? gsl_cdf_chisq_Qinv(SL_POOR_ALPHA_CHI2, (double)dof) : INFINITY;
+}
+
+double sl_profile_poor_residual_limit(size_t n)
+{
+    /* P(max |z_i| <= t) = (1 - 2Q(t))^n = 1 - alpha  =>  Q(t) = (1 - (1 - alpha)^(1/n)) / 2;
+     * -expm1(log1p(-alpha)/n) keeps the tiny tail probability exact */
+    double q = -expm1(log1p(-SL_POOR_ALPHA_RESIDUAL) / (double)(n ? n : 1)) / 2;
+    return gsl_cdf_ugaussian_Qinv(q);
 }
 
 sl_status sl_profile_fit_form(const double *d, const double *y, const double *sigma, size_t n,

@@ -109,8 +109,8 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
         why = "the value is extrapolated beyond the measured distances";
     } else if (d->flags & SL_MF_OPEN_FOR_CUTOUT &&
                (isfinite(level_gy) || (a->kind && a->kind->nbands))) {
-        why = "the cutout is not commissioned (the open profiles stand in, an approximation "
-              "the uncertainty does not cover)";
+        why = "the cutout is not commissioned (a conservative stand-in is used: measure the "
+              "cutout's profiles)";
     }
     if (why) {
         a->measurement_advised = true;
@@ -211,6 +211,14 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
                                       "farthest measured distance): the extrapolated value is "
                                       "shown, not judged";
             }
+        }
+        /* near the edge the planning system's dose is the better number */
+        if (d->near_edge && a->status != SL_ST_NOT_ASSESSED && a->kind &&
+            (a->kind->nlevels || a->kind->nbands)) {
+            a->status = SL_ST_NOT_ASSESSED;
+            a->not_assessed_why = "near the field edge (closer than 1 cm): the planning system's "
+                                  "dose is the reference here; the model's value is shown, not "
+                                  "judged";
         }
         double gy = d->course_max.cgy / 100, up = d->course_max.upper_cgy / 100;
         double level_gy = NAN;

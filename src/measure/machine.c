@@ -10,6 +10,15 @@
 #include <stdlib.h>
 #include <string.h>
 
+static bool one_of(const char *s, const char *const *words)
+{
+    for (; *words; words++) {
+        if (strcmp(s, *words) == 0)
+            return true;
+    }
+    return false;
+}
+
 void sl_machine_free(sl_machine *m)
 {
     if (!m)
@@ -27,6 +36,9 @@ void sl_machine_free(sl_machine *m)
         free(m->inserts[i].shape);
     }
     free(m->inserts);
+    free(m->transfer.bands);
+    free(m->transfer.source);
+    free(m->transfer.mark);
     for (size_t i = 0; i < m->noutputs; i++) {
         free(m->outputs[i].applicator);
         for (size_t k = 0; k < m->outputs[i].nfactors; k++)
@@ -57,6 +69,131 @@ const sl_insert_spec *sl_machine_insert(const sl_machine *m, const char *applica
     return NULL;
 }
 
+double sl_insert_area_cm2(const sl_insert_spec *s)
+{
+    return strcmp(s->shape, "circle") == 0 ? M_PI * s->x_cm * s->y_cm / 4 : s->x_cm * s->y_cm;
+}
+
+double sl_insert_equivalent_square_cm(const sl_insert_spec *s)
+{
+    if (strcmp(s->shape, "circle") == 0 || strcmp(s->shape, "irregular") == 0)
+        return sqrt(sl_insert_area_cm2(s));
+    return 2 * s->x_cm * s->y_cm / (s->x_cm + s->y_cm);
+}
+
+/* The built-in transfer uncertainty. Far from the field, out-of-field
+ * estimates have been found between 0.34 and 2.93 times the dose measured
+ * in vivo or in a phantom (Kry et al., Med Phys 34:1193 (2007)): a relative
+ * standard uncertainty of 1.0 puts the k = 2 upper bound at 3 times the
+ * estimate, which covers it. Nearer the field the profile was measured
+ * closer to the patient's situation and the bands are smaller; their values
+ * are a choice (common practice), to be replaced by a clinic's own in-vivo
+ * comparisons. */
+static const sl_transfer_band default_bands[] = {
+    {5.0, 0.25}, {15.0, 0.40}, {30.0, 0.60}, {INFINITY, 1.00}};
+static const char default_source[] =
+    "strayline defaults: far band sized so that the k = 2 bound covers out-of-field estimates "
+    "found 0.34 to 2.93 times the measured dose (Kry et al., Med Phys 34:1193 (2007)); nearer "
+    "bands chosen smaller";
+static const char default_mark[] = "common practice";
+
+sl_status sl_transfer_default(sl_transfer *t, sl_error *err)
+{
+    size_t n = sizeof default_bands / sizeof *default_bands;
+    bool ok = true;
+    memset(t, 0, sizeof *t);
+    t->bands = malloc(sizeof default_bands);
+    t->source = sl_strdup(default_source, &ok);
+    t->mark = sl_strdup(default_mark, &ok);
+    if (!t->bands || !ok) {
+        free(t->bands);
+        free(t->source);
+        free(t->mark);
+        memset(t, 0, sizeof *t);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    memcpy(t->bands, default_bands, sizeof default_bands);
+    t->nbands = n;
+    t->is_default = true;
+    return SL_OK;
+}
+
+double sl_transfer_relative(const sl_transfer *t, double d)
+{
+    for (size_t i = 0; i < t->nbands; i++) {
+        if (d < t->bands[i].below_cm)
+            return t->bands[i].relative;
+    }
+    return t->nbands ? t->bands[t->nbands - 1].relative : 0;
+}
+
+static sl_status read_transfer(sl_yaml *y, yaml_node_t *n, sl_transfer *t, sl_error *err)
+{
+    memset(t, 0, sizeof *t);
+    sl_yaml_field f[] = {{"source", true, NULL}, {"mark", true, NULL}, {"bands", true, NULL}};
+    sl_status st = sl_yaml_fields(y, n, "transfer_uncertainty", f, 3, err);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[0].node, "transfer_uncertainty source", &t->source, err);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[1].node, "transfer_uncertainty mark", &t->mark, err);
+    static const char *const marks[] = {"published", "secondary", "from memory",
+                                        "common practice", "measured", NULL};
+    if (st == SL_OK && !one_of(t->mark, marks))
+        st = sl_yaml_error(y, f[1].node, err,
+                           "transfer_uncertainty: mark '%s' (published, secondary, from memory, "
+                           "common practice or measured)",
+                           t->mark);
+    yaml_node_item_t *items;
+    size_t nb = 0;
+    if (st == SL_OK)
+        st = sl_yaml_seq(y, f[2].node, "transfer_uncertainty bands", &items, &nb, err);
+    if (st == SL_OK && nb == 0)
+        st = sl_yaml_error(y, f[2].node, err, "transfer_uncertainty: bands: the list is empty");
+    if (st == SL_OK && !(t->bands = calloc(nb, sizeof *t->bands)))
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t i = 0; st == SL_OK && i < nb; i++) {
+        yaml_node_t *b = sl_yaml_item(y, items[i]);
+        sl_yaml_field g[] = {{"below_cm", false, NULL}, {"relative", true, NULL}};
+        t->nbands = i + 1;
+        st = sl_yaml_fields(y, b, "transfer_uncertainty band", g, 2, err);
+        bool last = i + 1 == nb;
+        if (st == SL_OK && (g[0].node != NULL) == last)
+            st = sl_yaml_error(y, b, err,
+                               "transfer_uncertainty band %zu: %s", i + 1,
+                               last ? "the last band has no below_cm (it runs to any distance)"
+                                    : "below_cm is required except in the last band");
+        t->bands[i].below_cm = INFINITY;
+        if (st == SL_OK && g[0].node)
+            st = sl_yaml_number_in(y, g[0].node, "below_cm", 0.1, 500, &t->bands[i].below_cm,
+                                   err);
+        if (st == SL_OK && i && !(t->bands[i].below_cm > t->bands[i - 1].below_cm))
+            st = sl_yaml_error(y, g[0].node, err,
+                               "transfer_uncertainty band %zu: below_cm must increase", i + 1);
+        if (st == SL_OK)
+            st = sl_yaml_number_in(y, g[1].node, "relative", 0, 5, &t->bands[i].relative, err);
+    }
+    return st;
+}
+
+static void write_transfer(sl_yaml_writer *w, const sl_transfer *t)
+{
+    sl_yaml_key(w, "transfer_uncertainty");
+    sl_yaml_map_begin(w, false);
+    sl_yaml_kv_string(w, "source", t->source);
+    sl_yaml_kv_string(w, "mark", t->mark);
+    sl_yaml_key(w, "bands");
+    sl_yaml_seq_begin(w, false);
+    for (size_t i = 0; i < t->nbands; i++) {
+        sl_yaml_map_begin(w, true);
+        if (isfinite(t->bands[i].below_cm))
+            sl_yaml_kv_number(w, "below_cm", t->bands[i].below_cm);
+        sl_yaml_kv_number(w, "relative", t->bands[i].relative);
+        sl_yaml_map_end(w);
+    }
+    sl_yaml_seq_end(w);
+    sl_yaml_map_end(w);
+}
+
 const sl_output_spec *sl_machine_output(const sl_machine *m, double energy_mev,
                                         const char *applicator)
 {
@@ -83,14 +220,6 @@ sl_status sl_machine_catalogue(const sl_machine *m, sl_applicator_size **out, si
     return SL_OK;
 }
 
-static bool one_of(const char *s, const char *const *words)
-{
-    for (; *words; words++) {
-        if (strcmp(s, *words) == 0)
-            return true;
-    }
-    return false;
-}
 
 static sl_status read_applicator(sl_yaml *y, yaml_node_t *n, size_t k, sl_machine *m,
                                  sl_error *err)
@@ -134,9 +263,9 @@ static sl_status read_insert(sl_yaml *y, yaml_node_t *n, size_t k, sl_machine *m
     snprintf(what, sizeof what, "insert %zu", k + 1);
     sl_yaml_field f[] = {{"id", true, NULL},        {"applicator", true, NULL},
                          {"shape", true, NULL},     {"size_x_cm", true, NULL},
-                         {"size_y_cm", true, NULL}};
+                         {"size_y_cm", true, NULL}, {"profiles_relative_to", false, NULL}};
     sl_insert_spec *s = &m->inserts[k];
-    sl_status st = sl_yaml_fields(y, n, what, f, 5, err);
+    sl_status st = sl_yaml_fields(y, n, what, f, 6, err);
     if (st == SL_OK)
         st = sl_yaml_string(y, f[0].node, what, &s->id, err);
     if (st == SL_OK && strcmp(s->id, SL_INSERT_OPEN) == 0)
@@ -158,6 +287,21 @@ static sl_status read_insert(sl_yaml *y, yaml_node_t *n, size_t k, sl_machine *m
         st = sl_yaml_number_in(y, f[3].node, "size_x_cm", 0.5, 60, &s->x_cm, err);
     if (st == SL_OK)
         st = sl_yaml_number_in(y, f[4].node, "size_y_cm", 0.5, 60, &s->y_cm, err);
+    s->relative_to = SL_REL_UNSTATED;
+    if (st == SL_OK && f[5].node) {
+        char *rel = NULL;
+        st = sl_yaml_string(y, f[5].node, "profiles_relative_to", &rel, err);
+        if (st == SL_OK && strcmp(rel, "insert_cax") == 0)
+            s->relative_to = SL_REL_INSERT_CAX;
+        else if (st == SL_OK && strcmp(rel, "open_cax") == 0)
+            s->relative_to = SL_REL_OPEN_CAX;
+        else if (st == SL_OK)
+            st = sl_yaml_error(y, f[5].node, err,
+                               "%s: profiles_relative_to '%s' (insert_cax: the insert's own "
+                               "central-axis maximum; open_cax: the open applicator's)",
+                               what, rel);
+        free(rel);
+    }
     for (size_t j = 0; st == SL_OK && j < k; j++) {
         if (strcmp(m->inserts[j].id, s->id) == 0 &&
             strcmp(m->inserts[j].applicator, s->applicator) == 0)
@@ -256,8 +400,8 @@ sl_status sl_machine_read(sl_yaml *y, yaml_node_t *machine, yaml_node_t *applica
     memset(m, 0, sizeof *m);
     sl_yaml_field f[] = {{"name", true, NULL},           {"description", false, NULL},
                          {"nominal_ssd_cm", true, NULL}, {"sad_cm", true, NULL},
-                         {"invented", false, NULL}};
-    sl_status st = sl_yaml_fields(y, machine, "machine", f, 5, err);
+                         {"invented", false, NULL},      {"transfer_uncertainty", false, NULL}};
+    sl_status st = sl_yaml_fields(y, machine, "machine", f, 6, err);
     if (st == SL_OK)
         st = sl_yaml_string(y, f[0].node, "machine name", &m->name, err);
     if (st == SL_OK && f[1].node)
@@ -268,6 +412,9 @@ sl_status sl_machine_read(sl_yaml *y, yaml_node_t *machine, yaml_node_t *applica
         st = sl_yaml_number_in(y, f[3].node, "sad_cm", 50, 200, &m->sad_cm, err);
     if (st == SL_OK && f[4].node)
         st = sl_yaml_bool(y, f[4].node, "invented", &m->invented, err);
+    if (st == SL_OK)
+        st = f[5].node ? read_transfer(y, f[5].node, &m->transfer, err)
+                       : sl_transfer_default(&m->transfer, err);
     if (st == SL_OK)
         st = read_list(y, applicators, "applicators", sizeof *m->applicators,
                        (void **)&m->applicators, &m->napplicators, read_applicator, m, err);
@@ -294,6 +441,7 @@ void sl_machine_write(sl_yaml_writer *w, const sl_machine *m)
     sl_yaml_kv_number(w, "nominal_ssd_cm", m->nominal_ssd_cm);
     sl_yaml_kv_number(w, "sad_cm", m->sad_cm);
     sl_yaml_kv_bool(w, "invented", m->invented);
+    write_transfer(w, &m->transfer);
     sl_yaml_map_end(w);
     sl_yaml_key(w, "applicators");
     sl_yaml_seq_begin(w, false);
@@ -319,6 +467,9 @@ void sl_machine_write(sl_yaml_writer *w, const sl_machine *m)
         sl_yaml_kv_string(w, "shape", s->shape);
         sl_yaml_kv_number(w, "size_x_cm", s->x_cm);
         sl_yaml_kv_number(w, "size_y_cm", s->y_cm);
+        if (s->relative_to != SL_REL_UNSTATED)
+            sl_yaml_kv_string(w, "profiles_relative_to",
+                              s->relative_to == SL_REL_OPEN_CAX ? "open_cax" : "insert_cax");
         sl_yaml_map_end(w);
     }
     sl_yaml_seq_end(w);

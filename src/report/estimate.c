@@ -15,11 +15,67 @@
 #include "estimate_common.h"
 #include "jsonw.h"
 
-const unsigned est_flags[EST_NFLAGS] = {SL_MF_IN_FIELD, SL_MF_DEPTH_OUTSIDE, SL_MF_EXTRAPOLATED,
-                                        SL_MF_OPEN_FOR_CUTOUT, SL_MF_POINTS_MODE};
-const char *const est_flag_names[EST_NFLAGS] = {"in_field", "depth_outside_commissioned_range",
-                                                "extrapolated", "open_insert_for_cutout",
-                                                "points_mode"};
+const unsigned est_flags[EST_NFLAGS] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
+                                        SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
+                                        SL_MF_POINTS_MODE,     SL_MF_POOR_FIT,
+                                        SL_MF_NEAR_EDGE};
+const char *const est_flag_names[EST_NFLAGS] = {"in_field",
+                                                "depth_outside_commissioned_range",
+                                                "extrapolated",
+                                                "standin_for_uncommissioned_cutout",
+                                                "points_mode",
+                                                "poor_fit",
+                                                "near_field_edge"};
+
+/* short marks for the text table; the long ones are the model's flag texts */
+static const char *const mark_short[EST_NFLAGS] = {NULL,         "[depth]",     "[extrapolated]",
+                                                   "[stand-in]", NULL,          "[poor fit]",
+                                                   "[near edge]"};
+
+void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size)
+{
+    sl_buf b = {0};
+    for (size_t i = 0; i < EST_NFLAGS; i++) {
+        if ((d->flags & est_flags[i]) && mark_short[i])
+            sl_buf_printf(&b, verbose ? " [%s]" : " %s",
+                          verbose ? sl_model_flag_text(est_flags[i]) : mark_short[i]);
+    }
+    snprintf(buf, size, "%s", b.data && !b.failed ? b.data : "");
+    sl_buf_free(&b);
+}
+
+const char *const est_budget_names[EST_NBUDGET] = {
+    "fit", "measurement", "interpolation", "extrapolation",
+    "standin", "transfer", "setup_shift", "combined"};
+
+void est_budget_values(const sl_budget *b, double out[EST_NBUDGET])
+{
+    double v[EST_NBUDGET] = {b->fit_cgy,         b->measurement_cgy, b->interpolation_cgy,
+                             b->extrapolation_cgy, b->standin_cgy,   b->transfer_cgy,
+                             b->setup_cgy,       b->combined_cgy};
+    memcpy(out, v, sizeof v);
+}
+
+typedef struct short_text {
+    char s[200];
+} short_text;
+
+/* "25 % below 5 cm, 40 % below 15 cm, ..., 100 % beyond" */
+static short_text transfer_text(const sl_transfer *t)
+{
+    short_text r;
+    sl_buf b = {0};
+    for (size_t i = 0; i < t->nbands; i++) {
+        if (isfinite(t->bands[i].below_cm))
+            sl_buf_printf(&b, "%s%.0f %% below %g cm", i ? ", " : "",
+                          100 * t->bands[i].relative, t->bands[i].below_cm);
+        else
+            sl_buf_printf(&b, "%s%.0f %% beyond", i ? ", " : "", 100 * t->bands[i].relative);
+    }
+    snprintf(r.s, sizeof r.s, "%s", b.data && !b.failed ? b.data : "");
+    sl_buf_free(&b);
+    return r;
+}
 
 size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], size_t max)
 {
@@ -50,6 +106,20 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Action levels are screening levels with their sources, not prescriptions; "
                  "local protocols and a qualified medical physicist decide.");
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Organs closer than %.0f cm to the field edge are marked [near edge] and not "
+                 "judged: the planning system's dose is the reference there. Beyond a profile's "
+                 "measured distances its value is held at least at the farthest measured level "
+                 "(marked [extrapolated]); organs more than %.1f times the farthest measured "
+                 "distance away are shown, not judged.",
+                 SL_NEAR_EDGE_CM, SL_BEYOND_RANGE_FACTOR);
+    if (n < max)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "The uncertainty includes a transfer component (water tank to patient, beam "
+                 "direction, leakage asymmetry) of %s; source: %s (%s).",
+                 transfer_text(&m->machine.transfer).s, m->machine.transfer.source,
+                 m->machine.transfer.mark);
     if (n < max && r->loc->depth_from_body)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Depths are water-equivalent path lengths through the body contour (no CT "
@@ -126,7 +196,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         const sl_beam *be = bd->place->beam;
         fprintf(fp, "\nbeam %d '%s': %g MeV, applicator %s, insert %s%s\n", be->number,
                 orq(be->name), bd->energy_mev, bd->applicator, bd->insert,
-                bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (open profiles stand in: measure the cutout)"
+                bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (not commissioned: conservative stand-in; measure the cutout)"
                                                         : "");
         char ssd[96], lim[256];
         est_ssd_text(bd, ssd, sizeof ssd);
@@ -172,11 +242,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         else
             snprintf(level, sizeof level, "-");
         est_status_text(a, status, sizeof status);
-        char marks[48] = "";
-        if (d->flags & SL_MF_EXTRAPOLATED)
-            strncat(marks, " [extrapolated]", sizeof marks - strlen(marks) - 1);
-        if (d->flags & SL_MF_DEPTH_OUTSIDE)
-            strncat(marks, " [depth]", sizeof marks - strlen(marks) - 1);
+        char marks[96];
+        est_marks(d, false, marks, sizeof marks);
         fprintf(fp, "%-18.18s %-14.14s %7.2f %11s %19s %19s %9s %7s  %s%s\n", d->roi->name,
                 est_kind(a), d->min_distance_cm, depth, fx, course, mean, level, status, marks);
     }
@@ -190,8 +257,14 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         any = true;
         fprintf(fp, "  %-18s %s\n", d->roi->name, orq(d->excluded_why));
     }
-    fprintf(fp, "\nmarks: [extrapolated] beyond the measured distances; [depth] deeper or "
-                "shallower than the commissioned depths (nearest depth used)\n");
+    fprintf(fp, "\nmarks: [extrapolated] beyond the measured distances (held at least at the "
+                "farthest measured level); [depth] deeper or shallower than the commissioned "
+                "depths (nearest depth used); [stand-in] cutout not commissioned (largest of the "
+                "open profiles from both edges and the commissioned inserts); [poor fit] a "
+                "profile used fits its points poorly (uncertainty widened); [near edge] closer "
+                "than %.0f cm to the field edge: the planning system's dose is the reference, "
+                "not judged\n",
+            SL_NEAR_EDGE_CM);
     any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
@@ -439,6 +512,17 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
             jw_append(w, pm, jw_number(w, pmax->y, "hottest_point_cm"));
             jw_append(w, pm, jw_number(w, pmax->z, "hottest_point_cm"));
             jw_put(w, x, "hottest_point_cm", pm);
+        }
+        if (d->estimated) {
+            json_object *bg = json_object_new_object();
+            double v[EST_NBUDGET];
+            est_budget_values(&d->course_max_budget, v);
+            for (size_t i = 0; i < EST_NBUDGET; i++) {
+                char key[64];
+                snprintf(key, sizeof key, "%s_cgy", est_budget_names[i]);
+                jw_num(w, bg, key, v[i]);
+            }
+            jw_put(w, x, "course_max_uncertainty_budget", bg);
         }
         json_object *flags = json_object_new_array();
         for (size_t i = 0; i < EST_NFLAGS; i++) {

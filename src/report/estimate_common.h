@@ -7,7 +7,7 @@
 
 #include "strayline/report.h"
 
-#define EST_MAX_CAUTIONS 12
+#define EST_MAX_CAUTIONS 14
 #define EST_CAUTION_LEN 600
 
 /* The cautions every output carries, in order. */
@@ -16,7 +16,15 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
 /* The SL_MF_* flags, in a fixed order, with their JSON names. */
 extern const unsigned est_flags[];
 extern const char *const est_flag_names[];
-#define EST_NFLAGS 5
+#define EST_NFLAGS 7
+
+/* An organ's marks, " [extrapolated] [depth] ...", short or spelled out. */
+void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size);
+
+/* The names and values of an uncertainty budget's components, in order. */
+#define EST_NBUDGET 8
+extern const char *const est_budget_names[EST_NBUDGET];
+void est_budget_values(const sl_budget *b, double out[EST_NBUDGET]);
 
 /* Every warning of the inputs and stages, in one list (caller frees). */
 void est_warnings(const sl_estimate_report *r, sl_notes *out);

@@ -498,18 +498,40 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         else
             snprintf(buf, sizeof buf, "-");
         hel(&h, tr, "td", buf);
-        char st[160];
+        char st[900], marks[700];
         est_status_text(a, st, sizeof st);
-        if (d->flags & SL_MF_EXTRAPOLATED)
-            strncat(st, " [extrapolated]", sizeof st - strlen(st) - 1);
-        if (d->flags & SL_MF_DEPTH_OUTSIDE)
-            strncat(st, " [depth outside the commissioned depths]", sizeof st - strlen(st) - 1);
+        est_marks(d, true, marks, sizeof marks);
+        strncat(st, marks, sizeof st - strlen(st) - 1);
         xmlNodePtr td = hel(&h, tr, "td", st);
         if (a->status == SL_ST_EXCEEDS || (a->status == SL_ST_BAND && a->flagged))
             hattr(&h, td, "class", "status-exceeds");
         else if (a->status == SL_ST_MAY_EXCEED)
             hattr(&h, td, "class", "status-may");
     }
+    /* the uncertainty budget of each organ's course maximum */
+    hel(&h, b, "h3", "Uncertainty budget of the course maximum (cGy, k = 1)");
+    xmlNodePtr ut = hel(&h, b, "table", NULL);
+    const char *uhead[] = {"organ", "fit", "measurement", "interpolation", "extrapolation",
+                           "stand-in", "transfer", "setup shift", "combined"};
+    hrow(&h, ut, true, uhead, 9);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated)
+            continue;
+        xmlNodePtr tr = hel(&h, ut, "tr", NULL);
+        hel(&h, tr, "td", d->roi->name);
+        double v[EST_NBUDGET];
+        est_budget_values(&d->course_max_budget, v);
+        for (size_t i = 0; i < EST_NBUDGET; i++) {
+            char x1[32];
+            hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, v[i])), "class", "n");
+        }
+    }
+    hel(&h, b, "p",
+        "Components add in quadrature at each beam and linearly over beams and fractions. "
+        "Transfer: water tank to patient, beam direction and leakage asymmetry, by distance "
+        "from the field edge (see the cautions for its source); stand-in: half the spread of "
+        "the candidates for an uncommissioned cutout.");
     xmlNodePtr ne = NULL;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];

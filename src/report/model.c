@@ -233,8 +233,9 @@ sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *
     return jw_write(&w, root, fp);
 }
 
-static const unsigned all_flags[] = {SL_MF_IN_FIELD, SL_MF_DEPTH_OUTSIDE, SL_MF_EXTRAPOLATED,
-                                     SL_MF_OPEN_FOR_CUTOUT, SL_MF_POINTS_MODE};
+static const unsigned all_flags[] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
+                                     SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
+                                     SL_MF_POINTS_MODE,     SL_MF_POOR_FIT};
 
 sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
                                 const char *applicator, const char *insert, double depth_cm,
@@ -256,8 +257,9 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
                         "(k = 1)\n",
                     v->percent, v->u_percent);
             fprintf(fp, "  uncertainty parts (%%): fit %.2g, measurement %.2g, interpolation "
-                        "%.2g, extrapolation %.2g\n",
-                    v->u_fit, v->u_meas, v->u_interp, v->u_extrap);
+                        "%.2g, extrapolation %.2g, stand-in %.2g, transfer %.2g\n",
+                    v->u_fit, v->u_meas, v->u_interp, v->u_extrap, v->u_standin,
+                    v->u_transfer);
             fprintf(fp, "  electron part %.4g %%, photon part %.4g %%; depth used %.2f cm\n",
                     v->electron_percent, v->photon_percent, v->depth_used_cm);
         }
@@ -283,12 +285,15 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
     jw_num_opt(&w, o, "uncertainty_measurement_percent", in_field ? NAN : v->u_meas);
     jw_num_opt(&w, o, "uncertainty_interpolation_percent", in_field ? NAN : v->u_interp);
     jw_num_opt(&w, o, "uncertainty_extrapolation_percent", in_field ? NAN : v->u_extrap);
+    jw_num_opt(&w, o, "uncertainty_standin_percent", in_field ? NAN : v->u_standin);
+    jw_num_opt(&w, o, "uncertainty_transfer_percent", in_field ? NAN : v->u_transfer);
     jw_num_opt(&w, o, "electron_percent", in_field ? NAN : v->electron_percent);
     jw_num_opt(&w, o, "photon_percent", in_field ? NAN : v->photon_percent);
     jw_num(&w, o, "depth_used_cm", v->depth_used_cm);
     json_object *flags = json_object_new_array();
     static const char *const names[] = {"in_field", "depth_outside_commissioned_range",
-                                        "extrapolated", "open_insert_for_cutout", "points_mode"};
+                                        "extrapolated", "standin_for_uncommissioned_cutout",
+                                        "points_mode", "poor_fit"};
     for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
         if (v->flags & all_flags[i])
             jw_append(&w, flags, json_object_new_string(names[i]));

@@ -96,12 +96,30 @@ def model_percent(energy, app, depth, d):
     p0, p1 = byd[z0], byd[z1]
     v0, v1 = form(p0, d), form(p1, d)
     v = math.exp((1 - w) * math.log(v0) + w * math.log(v1))
-    rf = (1 - w) * u_fit(p0, d) / v0 + w * u_fit(p1, d) / v1
+    rf = (1 - w) * u_fit_w(p0, d, v0) / v0 + w * u_fit_w(p1, d, v1) / v1
     rm = (1 - w) * u_meas(p0, v0) / v0 + w * u_meas(p1, v1) / v1
     ui = w * (1 - w) * abs(v1 - v0)
     for p in (p0, p1):
         assert d <= p["range_cm"][1], "the hand calculation has no extrapolation"
-    return v, math.sqrt((rf * v) ** 2 + (rm * v) ** 2 + ui ** 2)
+    ut = transfer_rel(d) * v
+    return v, math.sqrt((rf * v) ** 2 + (rm * v) ** 2 + ui ** 2 + ut ** 2)
+
+
+def u_fit_w(p, d, v):
+    """The fit uncertainty, widened by the largest relative residual when the
+    profile's fit is poor (models/README.md)."""
+    u = u_fit(p, d)
+    if p["fit"]["poor"]:
+        u = math.hypot(u, p["fit"]["max_residual_relative"] * v)
+    return u
+
+
+def transfer_rel(d):
+    """The model file's transfer uncertainty at d cm from the field edge."""
+    for b in M["machine"]["transfer_uncertainty"]["bands"]:
+        if "below_cm" not in b or d < b["below_cm"]:
+            return b["relative"]
+    raise AssertionError("no transfer band")
 
 
 def output(energy, app):
@@ -485,15 +503,15 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
         self.assertTrue(b["open_profiles_for_cutout"])
         self.assertEqual(b["cutout_factor"], 1)
         self.assertFalse(b["cutout_factor_assumed"])
+        self.assertIsNotNone(factor)
         gap = b["ssd_cm"] - M["machine"]["nominal_ssd_cm"]
         isf = ((o["effective_ssd_cm"] + o["dmax_cm"]) /
                (o["effective_ssd_cm"] + gap + o["dmax_cm"])) ** 2
         self.assertAlmostEqual(b["inverse_square_factor"], isf, delta=1e-12)
         want = b["mu_per_fraction"][0] * o["dose_per_mu_cgy"] * isf
         self.assertAlmostEqual(b["reference_dose_per_fraction_cgy"][0], want, delta=1e-9 * want)
-        note = next(w for w in js["warnings"] if "has no profiles of its own" in w)
-        self.assertIn("(%.3f) is not applied" % factor, note)
-        self.assertIn("Not known to be conservative", note)
+        note = next(w for w in js["warnings"] if "the cutout is not commissioned" in w)
+        self.assertIn("on the open output", note)
         # the thyroid stays far below its level, yet beside an uncommissioned
         # cutout a measurement is advised
         thy = organ(js, "Thyroid")
@@ -648,6 +666,127 @@ class DemoReports(unittest.TestCase):
         self.assertEqual(rc, 2)
         self.assertIn("refusing to write over an input file", err)
         self.assertEqual(open(plan, "rb").read(), before)
+
+
+def plan_with_circle_cutout(src, dst, diameter_cm, name, sides=72):
+    """The demo plan with its first beam's cutout replaced by a circle of the
+    given diameter (at the isocentre plane, SAD = nominal SSD = 100 cm),
+    centred where the old cutout was (or on the axis), named `name`
+    (pydicom)."""
+    import pydicom
+    from pydicom.dataset import Dataset
+    from pydicom.sequence import Sequence
+    ds = pydicom.dcmread(src)
+    beam = ds.BeamSequence[0]
+    cx = cy = 0.0
+    old = [b for b in getattr(beam, "BlockSequence", []) if b.BlockType == "APERTURE"]
+    if old:
+        pts = [float(v) for v in old[0].BlockData]
+        cx = sum(pts[0::2]) / (len(pts) // 2)
+        cy = sum(pts[1::2]) / (len(pts) // 2)
+        blk = old[0]
+    else:
+        blk = Dataset()
+        blk.BlockType = "APERTURE"
+        blk.BlockDivergence = "PRESENT"
+        blk.BlockNumber = 1
+        blk.MaterialID = "ALLOY"
+        blk.BlockThickness = "10"
+        blk.SourceToBlockTrayDistance = "950"
+        beam.BlockSequence = Sequence([blk])
+        beam.NumberOfBlocks = 1
+    r = diameter_cm * 10 / 2
+    data = []
+    for k in range(sides):
+        a = 2 * math.pi * k / sides
+        data += ["%.4f" % (cx + r * math.cos(a)), "%.4f" % (cy + r * math.sin(a))]
+    blk.BlockName = name
+    blk.BlockNumberOfPoints = sides
+    blk.BlockData = data
+    ds.save_as(dst)
+    return dst
+
+
+class StandInNeverBelowCommissioned(unittest.TestCase):
+    """The stand-in for an uncommissioned cutout must not read lower than the
+    commissioned insert that fits the cutout (C4 in A06, C6 in A10), for any
+    organ of the three demo cases: the same circular cutout, once named as the
+    model's insert and once not (models/README.md, the stand-in rule)."""
+    CASES = (("face-lens", 4.0, "C4"), ("neck-device", 6.0, "C6"), ("chest-fetus", 6.0, "C6"))
+
+    def run_case(self, d, case, name, diameter, label):
+        base = os.path.join(SOURCE_ROOT, "examples", case)
+        plan = plan_with_circle_cutout(os.path.join(base, "rtplan.dcm"),
+                                       os.path.join(d, "%s-%s.dcm" % (case, label)),
+                                       diameter, name)
+        extra = ["--gestational-age", "12"] if case == "chest-fetus" else []
+        rc, js, err = estimate(plan, os.path.join(base, "rtstruct.dcm"), *extra)
+        self.assertIn(rc, (0, 4), err)
+        return js
+
+    def test_demo_cases_both_inserts(self):
+        with tempdir() as d:
+            for case, diameter, insert in self.CASES:
+                com = self.run_case(d, case, insert, diameter, "commissioned")
+                sti = self.run_case(d, case, "CUSTOM", diameter, "standin")
+                self.assertEqual(com["beams"][0]["insert"], insert, case)
+                self.assertFalse(com["beams"][0]["open_profiles_for_cutout"], case)
+                self.assertTrue(sti["beams"][0]["open_profiles_for_cutout"], case)
+                n = 0
+                for oc in com["organs"]:
+                    if oc.get("course_max_cgy") is None:
+                        continue
+                    os_ = organ(sti, oc["roi"])
+                    msg = "%s %s: stand-in %.4g < %s %.4g" % (
+                        case, oc["roi"], os_["course_max_cgy"], insert, oc["course_max_cgy"])
+                    self.assertGreaterEqual(os_["course_max_cgy"],
+                                            oc["course_max_cgy"] * (1 - 1e-9), msg)
+                    self.assertGreaterEqual(os_["course_max_upper_cgy"],
+                                            oc["course_max_upper_cgy"] * (1 - 1e-9), msg)
+                    n += 1
+                self.assertGreaterEqual(n, 3, case)
+
+    def test_a_cutout_that_does_not_fit_the_insert_is_not_taken_for_it(self):
+        """The neck case's 41 cm2 cutout named C6 (28 cm2): a warning naming both,
+        and the stand-in (tolerance 15 %, models/README.md)."""
+        base = os.path.join(SOURCE_ROOT, "examples", "neck-device")
+        import pydicom
+        with tempdir() as d:
+            ds = pydicom.dcmread(os.path.join(base, "rtplan.dcm"))
+            ds.BeamSequence[0].BlockSequence[0].BlockName = "C6"
+            plan = os.path.join(d, "plan.dcm")
+            ds.save_as(plan)
+            rc, js, err = estimate(plan, os.path.join(base, "rtstruct.dcm"))
+        self.assertIn(rc, (0, 4), err)
+        self.assertTrue(js["beams"][0]["open_profiles_for_cutout"])
+        note = next(w for w in js["warnings"] if "does not match model insert 'C6'" in w)
+        self.assertIn("28.3 cm2", note)
+
+    def test_an_insert_of_another_applicator_is_an_input_error(self):
+        base = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+        rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"),
+                           os.path.join(base, "rtstruct.dcm"), "--model", MODEL,
+                           "--insert", "C6")
+        self.assertEqual(rc, 3, err)
+        self.assertIn("insert 'C6' fits applicator 'A10', not the beam's applicator 'A06'", err)
+        self.assertEqual(out, "")
+
+
+class NearTheFieldEdge(unittest.TestCase):
+    def test_an_organ_within_1_cm_is_marked_and_not_judged(self):
+        """A lens 0.5 cm outside a 10 x 10 cm field (box phantom): estimated,
+        marked near_field_edge, counted as not judged (common practice: the
+        planning system's dose is the reference near the edge)."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_near", (55.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 5, "beams": [(1, 200.0)]}])
+            rc, js, err = estimate(plan, ss)
+        o = organ(js, "Lens_near")
+        self.assertIn("near_field_edge", o["flags"])
+        self.assertEqual(o["status"], "not_assessed")
+        self.assertGreaterEqual(js["organs_not_judged"], 1)
+        self.assertIn("near the field edge", " ".join(o["advice"]))
 
 
 if __name__ == "__main__":

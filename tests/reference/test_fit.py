@@ -134,16 +134,22 @@ class ShippedModel(unittest.TestCase):
         self.assertIn("Poor fits", text)
 
 
-def write_model(path, profiles, inserts=()):
+def write_model(path, profiles, inserts=(), transfer=None, factors=None):
+    machine = {"name": "HAND", "nominal_ssd_cm": 100, "sad_cm": 100}
+    if transfer:
+        machine["transfer_uncertainty"] = transfer
+    output = {"energy_mev": 9, "applicator": "A10", "dose_per_mu_cgy": 1.0,
+              "dmax_cm": 2.0, "effective_ssd_cm": 95.0}
+    if factors:
+        output["cutout_factors"] = [{"insert": k, "factor": v} for k, v in factors.items()]
     doc = {
         "format": "strayline-model", "format_version": 1, "model_version": "hand-made",
         "notice": "hand-made test model",
-        "machine": {"name": "HAND", "nominal_ssd_cm": 100, "sad_cm": 100},
+        "machine": machine,
         "applicators": [{"id": "A10", "shape": "square", "field_x_cm": 10, "field_y_cm": 10}],
         "inserts": [{"id": i, "applicator": "A10", "shape": "circle", "size_x_cm": 6,
-                     "size_y_cm": 6} for i in inserts],
-        "outputs": [{"energy_mev": 9, "applicator": "A10", "dose_per_mu_cgy": 1.0,
-                     "dmax_cm": 2.0, "effective_ssd_cm": 95.0}],
+                     "size_y_cm": 6, "profiles_relative_to": "insert_cax"} for i in inserts],
+        "outputs": [output],
         "provenance": {"measurement_set": "none", "measurement_set_sha256": "0" * 64,
                        "tool": "test", "created": "2026-12-01", "measured_date": "2026-12-01",
                        "measured_by": "test", "detector": "none", "reference": "test"},
@@ -153,17 +159,20 @@ def write_model(path, profiles, inserts=()):
         yaml.safe_dump(doc, f, sort_keys=False)
 
 
-def smooth_profile(depth, a, l1, c, l2, var, rel=0.02, floor=0.01):
-    d = [float(x) for x in range(0, 21)]
+def smooth_profile(depth, a, l1, c, l2, var, rel=0.02, floor=0.01, direction="crossplane",
+                   last=20, insert="open"):
+    d = [float(x) for x in range(0, last + 1)]
     y = [a * math.exp(-x / l1) + c * math.exp(-x / l2) for x in d]
     cov = [[var if i == j else 0.0 for j in range(4)] for i in range(4)]
-    return {"energy_mev": 9, "applicator": "A10", "insert": "open", "depth_cm": depth,
-            "direction": "crossplane", "data_file": "hand.csv", "data_sha256": "a" * 64,
-            "uncertainty": {"relative": rel, "floor_percent": floor}, "range_cm": [0.0, 20.0],
+    return {"energy_mev": 9, "applicator": "A10", "insert": insert, "depth_cm": depth,
+            "direction": direction, "data_file": "hand.csv", "data_sha256": "a" * 64,
+            "uncertainty": {"relative": rel, "floor_percent": floor},
+            "range_cm": [0.0, float(last)],
             "fit": {"form": "smooth",
                     "parameters": {"a_percent": a, "lambda1_cm": l1, "c_percent": c,
                                    "lambda2_cm": l2},
-                    "covariance": cov, "covariance_scale": 1.0, "n": 21, "dof": 17, "chi2": 17.0,
+                    "covariance": cov, "covariance_scale": 1.0, "n": last + 1, "dof": last - 3,
+                    "chi2": float(last - 3),
                     "chi2_reduced": 1.0, "aicc": 27.5, "rms_residual_percent": 0.0,
                     "max_residual_percent": 0.0, "rms_residual_relative": 0.0,
                     "max_residual_relative": 0.0, "max_residual_sigma": 0.0, "poor": False},
@@ -217,7 +226,11 @@ class HandMadeModel(unittest.TestCase):
         self.assertAlmostEqual(js["uncertainty_measurement_percent"], rm * want, delta=1e-9)
         interp = w * (1 - w) * abs(v2 - v0)
         self.assertAlmostEqual(js["uncertainty_interpolation_percent"], interp, delta=1e-9)
-        total = math.sqrt((rf * want) ** 2 + (rm * want) ** 2 + interp ** 2)
+        # the transfer component: the built-in default band 5-15 cm, 40 % (the
+        # model gives none; models/README.md states the defaults)
+        self.assertAlmostEqual(js["uncertainty_transfer_percent"], 0.40 * want, delta=1e-9)
+        total = math.sqrt((rf * want) ** 2 + (rm * want) ** 2 + interp ** 2 +
+                          (0.40 * want) ** 2)
         self.assertAlmostEqual(js["uncertainty_percent"], total, delta=1e-9)
         self.assertEqual(js["flags"], [])
         # the electron part is the A term, the photon part the C term
@@ -236,14 +249,21 @@ class HandMadeModel(unittest.TestCase):
         self.assertIn("depth_outside_commissioned_range", js["flags"])
         self.assertEqual(js["depth_used_cm"], 2)
 
-    def test_beyond_the_range_extrapolates_the_tail(self):
+    def test_beyond_the_range_holds_the_measured_floor(self):
         d = 26.0
         js = self.ev("-d", "0", "-x", str(d))
-        v = self.value(self.P0, d)
+        # never below the farthest measured level: the mean of the last three
+        # points (18, 19, 20 cm) or the fit at 20 cm, whichever is higher
+        floor = max(sum(self.value(self.P0, x) for x in (18, 19, 20)) / 3,
+                    self.value(self.P0, 20))
+        v = max(self.value(self.P0, d), floor)
+        self.assertGreater(v, self.value(self.P0, d))
         self.assertAlmostEqual(js["dose_percent"], v, delta=1e-9)
         self.assertIn("extrapolated", js["flags"])
-        # 10 % per 5 cm beyond the last measured point (20 cm)
+        # 2 % per cm beyond the last measured point (20 cm)
         self.assertAlmostEqual(js["uncertainty_extrapolation_percent"], 0.02 * 6 * v, delta=1e-9)
+        # the default transfer uncertainty's band 15-30 cm: 60 %
+        self.assertAlmostEqual(js["uncertainty_transfer_percent"], 0.6 * v, delta=1e-9)
 
     def test_inside_the_field_gives_no_number(self):
         js = self.ev("-d", "1", "-x", "-0.5")
@@ -253,7 +273,7 @@ class HandMadeModel(unittest.TestCase):
     def test_uncommissioned_cutout_takes_the_open_profiles(self):
         js = self.ev("-d", "0", "-x", "2", "-i", "C6")
         self.assertAlmostEqual(js["dose_percent"], self.value(self.P0, 2), delta=1e-9)
-        self.assertIn("open_insert_for_cutout", js["flags"])
+        self.assertIn("standin_for_uncommissioned_cutout", js["flags"])
 
     def test_points_mode_hits_the_points(self):
         js = self.ev("-d", "0", "-x", "7", "--points")
@@ -266,6 +286,98 @@ class HandMadeModel(unittest.TestCase):
         self.assertEqual(rc, 3)
         self.assertIn("12 MeV with applicator 'A10' is not commissioned", err)
         self.assertIn("9 MeV/A10", err)
+
+
+class DirectionsStandInPoorFits(unittest.TestCase):
+    """Evaluation rules of models/README.md worked by hand: a crossplane
+    profile measured to 30 cm and a through-field inplane profile to 20 cm at
+    one depth; a poor fit; the stand-in for an uncommissioned cutout beside a
+    commissioned insert; a transfer uncertainty given in the file."""
+    X = (40.0, 1.0, 2.0, 10.0)
+    Y = (30.0, 1.5, 1.0, 8.0)
+    C6 = (50.0, 1.2, 2.5, 10.0)
+    TRANSFER = {"source": "hand-made", "mark": "common practice",
+                "bands": [{"below_cm": 10, "relative": 0.1}, {"relative": 0.5}]}
+
+    @classmethod
+    def setUpClass(cls):
+        cls.tmp = tempdir()
+        cls.path = os.path.join(cls.tmp.name, "dirs.yaml")
+        poor = smooth_profile(0.0, *cls.C6, 1e-4, insert="C6")
+        poor["fit"]["poor"] = True
+        poor["fit"]["max_residual_relative"] = 0.1
+        write_model(cls.path, [smooth_profile(0.0, *cls.X, 1e-4, last=30),
+                               smooth_profile(0.0, *cls.Y, 1e-4, direction="inplane"),
+                               poor],
+                    inserts=["C6", "C9"], transfer=cls.TRANSFER, factors={"C6": 0.9})
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmp.cleanup()
+
+    value = HandMadeModel.value
+
+    def ev(self, *args):
+        return run_json("model", "eval", self.path, "--format", "json", "-e", "9", "-a", "A10",
+                        "-d", "0", *args)
+
+    def test_along_x_uses_the_crossplane_profile_and_its_range(self):
+        js = self.ev("-x", "25", "--angle", "0")
+        self.assertAlmostEqual(js["dose_percent"], self.value(self.X, 25), delta=1e-9)
+        self.assertNotIn("extrapolated", js["flags"])
+        self.assertEqual(js["uncertainty_extrapolation_percent"], 0)
+
+    def test_along_y_uses_the_inplane_profile_and_its_range(self):
+        js = self.ev("-x", "25", "--angle", "90")
+        self.assertIn("extrapolated", js["flags"])
+        floor = max(sum(self.value(self.Y, x) for x in (18, 19, 20)) / 3,
+                    self.value(self.Y, 20))
+        self.assertAlmostEqual(js["dose_percent"], max(floor, self.value(self.Y, 25)),
+                               delta=1e-9)
+
+    def test_between_directions_log_linear_in_angle(self):
+        vx, vy = self.value(self.X, 6), self.value(self.Y, 6)
+        w = 30 / 90
+        want = math.exp((1 - w) * math.log(vx) + w * math.log(vy))
+        js = self.ev("-x", "6", "--angle", "30")
+        self.assertAlmostEqual(js["dose_percent"], want, delta=1e-9 * want)
+        self.assertAlmostEqual(js["uncertainty_interpolation_percent"],
+                               w * (1 - w) * abs(vy - vx), delta=1e-9)
+
+    def test_unknown_direction_takes_the_highest(self):
+        js = self.ev("-x", "6")
+        self.assertAlmostEqual(js["dose_percent"],
+                               max(self.value(self.X, 6), self.value(self.Y, 6)), delta=1e-9)
+
+    def test_transfer_bands_from_the_file(self):
+        for x, rel in ((5, 0.1), (12, 0.5)):
+            js = self.ev("-x", str(x), "--angle", "0")
+            self.assertAlmostEqual(js["uncertainty_transfer_percent"], rel * js["dose_percent"],
+                                   delta=1e-9)
+
+    def test_poor_fit_widens_and_marks(self):
+        js = self.ev("-x", "4", "-i", "C6")
+        v = self.value(self.C6, 4)
+        self.assertIn("poor_fit", js["flags"])
+        a, l1, c, l2 = self.C6
+        g = [math.exp(-4 / l1), a * math.exp(-4 / l1) * 4 / l1 ** 2, math.exp(-4 / l2),
+             c * math.exp(-4 / l2) * 4 / l2 ** 2]
+        ufit = math.sqrt(sum(x * x * 1e-4 for x in g))
+        self.assertAlmostEqual(js["uncertainty_fit_percent"], math.hypot(ufit, 0.1 * v),
+                               delta=1e-9)
+
+    def test_standin_takes_the_largest_candidate(self):
+        # C9 has no profiles: open from the cutout's edge (4 cm), open from the
+        # applicator's edge (2 cm), C6 from the cutout's edge x its factor 0.9
+        js = self.ev("-x", "4", "--applicator-distance", "2", "--angle", "0", "-i", "C9")
+        cands = [self.value(self.X, 4), self.value(self.X, 2), 0.9 * self.value(self.C6, 4)]
+        self.assertAlmostEqual(js["dose_percent"], max(cands), delta=1e-9)
+        self.assertAlmostEqual(js["uncertainty_standin_percent"],
+                               (max(cands) - min(cands)) / 2, delta=1e-9)
+        self.assertIn("standin_for_uncommissioned_cutout", js["flags"])
+        # without the applicator's edge, C6 (x 0.9) still bounds it from below
+        js = self.ev("-x", "4", "--angle", "0", "-i", "C9")
+        self.assertGreaterEqual(js["dose_percent"], 0.9 * self.value(self.C6, 4) - 1e-9)
 
 
 class ModelShow(unittest.TestCase):
