@@ -81,6 +81,26 @@ def profiles(energy, app, insert="open"):
     return depths, {z: g[0] for z, g in byd.items()}
 
 
+def model_parts(energy, app, depth, d):
+    """The value and each component of its uncertainty (percent), by the
+    formulas of models/README.md: fit (widened for a poor fit), measurement,
+    interpolation, transfer."""
+    depths, byd = profiles(energy, app)
+    z0 = z1 = depths[0] if depth <= depths[0] else depths[-1]
+    if depths[0] < depth < depths[-1]:
+        z1 = next(z for z in depths if z >= depth)
+        z0 = depths[depths.index(z1) - 1]
+    w = 0.0 if z1 == z0 else (depth - z0) / (z1 - z0)
+    p0, p1 = byd[z0], byd[z1]
+    v0, v1 = form(p0, d), form(p1, d)
+    v = math.exp((1 - w) * math.log(v0) + w * math.log(v1))
+    return {"v": v,
+            "fit": ((1 - w) * u_fit_w(p0, d, v0) / v0 + w * u_fit_w(p1, d, v1) / v1) * v,
+            "measurement": ((1 - w) * u_meas(p0, v0) / v0 + w * u_meas(p1, v1) / v1) * v,
+            "interpolation": w * (1 - w) * abs(v1 - v0),
+            "transfer": transfer_rel(d) * v}
+
+
 def model_percent(energy, app, depth, d):
     """Percent of the central-axis maximum and its standard uncertainty
     (fit, measurement, interpolation; no extrapolation in these tests)."""
@@ -207,6 +227,33 @@ class BoxPhantomArithmetic(unittest.TestCase):
             self.assertAlmostEqual(o["course_max_u_cgy"], u, delta=1e-5 * want, msg=name)
             self.assertAlmostEqual(o["course_max_upper_cgy"], want + 2 * u, delta=1e-5 * want)
             self.assertAlmostEqual(o["min_distance_cm"], dist, delta=1e-6)
+
+    def test_uncertainty_budget_by_hand(self):
+        """Each component of the course maximum's budget worked out from the
+        model file (models/README.md formulas), and their sum in quadrature."""
+        x, z, mu, n_fx = 12.0, 1.3, 250.0, 5
+        with tempdir() as d:
+            plan, ss = box_case(d, [("p", (x * 10, z * 10, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": n_fx, "beams": [(1, mu)]}])
+            rc, js, err = estimate(plan, ss, "--setup-shift", "0.5")
+        self.assertIn(rc, (0, 4), err)
+        ref = mu * output(12, "A10")["dose_per_mu_cgy"]
+        dist, depth = point_geometry(x, z)
+        parts = model_parts(12, "A10", depth, dist)
+        k = ref * n_fx / 100
+        b = organ(js, "p")["course_max_uncertainty_budget"]
+        for name in ("fit", "measurement", "interpolation", "transfer"):
+            self.assertAlmostEqual(b[name + "_cgy"], k * parts[name], delta=1e-6 * k, msg=name)
+        self.assertEqual(b["extrapolation_cgy"], 0)
+        self.assertEqual(b["standin_cgy"], 0)
+        setup = k * setup_u(12, "A10", depth, dist)
+        self.assertAlmostEqual(b["setup_shift_cgy"], setup, delta=1e-6 * k)
+        quad = math.sqrt(sum(b[n + "_cgy"] ** 2 for n in
+                             ("fit", "measurement", "interpolation", "extrapolation", "standin",
+                              "transfer", "setup_shift")))
+        self.assertAlmostEqual(b["combined_cgy"], quad, delta=1e-6 * k)
+        self.assertAlmostEqual(organ(js, "p")["course_max_u_cgy"], quad, delta=1e-6 * k)
 
     def test_two_beams_and_two_fraction_groups(self):
         x, z = 10.0, 1.0

@@ -6,7 +6,11 @@
 - `strayline fit` on the shipped measurements reproduces the shipped model;
 - `strayline model eval` on a hand-made two-depth model whose values are
   worked out here from the documented formulas (models/README.md);
-- the fit report is one self-contained HTML file (Python's html.parser).
+- the fit report is one self-contained HTML file (Python's html.parser);
+- the poor-fit test: on 1000 synthetic good profiles (numpy noise of the
+  stated size about a known form) its false-alarm rate lies in the binomial
+  band of its design rate (scipy.stats), and every profile's verdict agrees
+  with the two limits recomputed by scipy.stats (chi-square and normal).
 """
 import html.parser
 import math
@@ -15,6 +19,7 @@ import unittest
 
 import numpy as np
 import yaml
+from scipy import stats
 from scipy.optimize import curve_fit
 
 from common import SOURCE_ROOT, run, run_json, tempdir
@@ -378,6 +383,71 @@ class DirectionsStandInPoorFits(unittest.TestCase):
         # without the applicator's edge, C6 (x 0.9) still bounds it from below
         js = self.ev("-x", "4", "--angle", "0", "-i", "C9")
         self.assertGreaterEqual(js["dose_percent"], 0.9 * self.value(self.C6, 4) - 1e-9)
+
+
+def poor_by_scipy(fit):
+    """The documented poor-fit rule (models/README.md), by scipy: chi-square
+    beyond its 0.5 % upper quantile, or the largest residual beyond the limit
+    that n normal residuals pass together with probability 0.995 (Sidak)."""
+    n, dof = fit["n"], fit["dof"]
+    chi2_lim = stats.chi2.isf(0.005, dof)
+    q = -math.expm1(math.log1p(-0.005) / n) / 2
+    return fit["chi2"] > chi2_lim or fit["max_residual_sigma"] > stats.norm.isf(q)
+
+
+class PoorFitFalseAlarms(unittest.TestCase):
+    N = 1000
+    DESIGN_RATE = 0.01  # the two tests at 0.5 % each, less their overlap
+
+    def test_synthetic_good_profiles(self):
+        rng = np.random.default_rng(20261202)
+        d = np.round(np.arange(0.0, 30.01, 0.6), 4)
+        truth = smooth(d, 30.0, 1.2, 1.5, 12.0)
+        rel, floor = 0.03, 0.002
+        sigma = np.sqrt((rel * truth) ** 2 + floor ** 2)
+        with tempdir() as tmp:
+            os.mkdir(os.path.join(tmp, "p"))
+            profiles = []
+            for i in range(self.N):
+                y = truth + rng.normal(0.0, sigma)
+                name = "p/s%04d.csv" % i
+                with open(os.path.join(tmp, name), "w") as f:
+                    f.write("edge_distance_cm,dose_percent\n")
+                    for a, b in zip(d, y):
+                        f.write("%.4f,%.8g\n" % (a, b))
+                profiles.append({"energy_mev": 9, "applicator": "A10", "insert": "open",
+                                 "depth_cm": round(i * 0.01, 2), "direction": "crossplane",
+                                 "file": name,
+                                 "uncertainty": {"relative": rel, "floor_percent": floor}})
+            doc = {"format": "strayline-measurements", "format_version": 1,
+                   "notice": "synthetic test profiles",
+                   "machine": {"name": "SYNTH", "nominal_ssd_cm": 100, "sad_cm": 100},
+                   "measured": {"date": "2026-12-02", "by": "test", "detector": "none"},
+                   "reference": "percent of the open field's central-axis maximum",
+                   "applicators": [{"id": "A10", "shape": "square", "field_x_cm": 10,
+                                    "field_y_cm": 10}],
+                   "outputs": [{"energy_mev": 9, "applicator": "A10", "dose_per_mu_cgy": 1.0,
+                                "dmax_cm": 2.0, "effective_ssd_cm": 95.0}],
+                   "profiles": profiles}
+            meas = os.path.join(tmp, "m.yaml")
+            with open(meas, "w") as f:
+                yaml.safe_dump(doc, f, sort_keys=False)
+            out = os.path.join(tmp, "model.yaml")
+            rc, _, err = run("fit", meas, "-o", out)
+            self.assertEqual(rc, 0, err)
+            m = load(out)
+        fits = [p["fit"] for p in m["profiles"]]
+        self.assertEqual(len(fits), self.N)
+        for f in fits:
+            self.assertEqual(f["poor"], poor_by_scipy(f))
+        poor = sum(f["poor"] for f in fits)
+        lo, hi = stats.binom.interval(0.999, self.N, self.DESIGN_RATE)
+        self.assertTrue(lo <= poor <= hi, "%d of %d good profiles called poor (band %d-%d)"
+                        % (poor, self.N, lo, hi))
+
+    def test_shipped_model_verdicts_follow_the_rule(self):
+        for p in load(MODEL)["profiles"]:
+            self.assertEqual(p["fit"]["poor"], poor_by_scipy(p["fit"]), p["data_file"])
 
 
 class ModelShow(unittest.TestCase):
