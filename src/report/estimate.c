@@ -117,9 +117,12 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
     if (n < max)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "The uncertainty includes a transfer component (water tank to patient, beam "
-                 "direction, leakage asymmetry) of %s; source: %s (%s).",
+                 "direction, leakage asymmetry) of %s; source: %s (%s)%s.",
                  transfer_text(&m->machine.transfer).s, m->machine.transfer.source,
-                 m->machine.transfer.mark);
+                 m->machine.transfer.mark,
+                 m->machine.transfer.is_default
+                     ? "; the model file states none, so strayline's defaults apply"
+                     : "");
     if (n < max && r->loc->depth_from_body)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Depths are water-equivalent path lengths through the body contour (no CT "

@@ -464,6 +464,25 @@ def yaml_cases():
                "no output is given for 12 MeV")
     model_case("model_unknown_insert.yaml", lambda d: d["profiles"][0].update(insert="C9"),
                "insert 'C9' is not listed")
+    def bad_relative(d):
+        d["inserts"] = [{"id": "C6", "applicator": "A10", "shape": "circle", "size_x_cm": 6.0,
+                         "size_y_cm": 6.0, "profiles_relative_to": "somewhere"}]
+    model_case("model_bad_relative_to.yaml", bad_relative, "profiles_relative_to 'somewhere'")
+    def transfer(bands, mark="common practice"):
+        return lambda d: d["machine"].update(
+            transfer_uncertainty={"source": "test", "mark": mark, "bands": bands})
+    model_case("model_transfer_no_open_band.yaml",
+               transfer([{"below_cm": 5.0, "relative": 0.2}]),
+               "the last band has no below_cm")
+    model_case("model_transfer_not_increasing.yaml",
+               transfer([{"below_cm": 5.0, "relative": 0.2}, {"below_cm": 3.0, "relative": 0.3},
+                         {"relative": 1.0}]),
+               "below_cm must increase")
+    model_case("model_transfer_negative.yaml",
+               transfer([{"below_cm": 5.0, "relative": -0.2}, {"relative": 1.0}]),
+               "relative")
+    model_case("model_transfer_bad_mark.yaml", transfer([{"relative": 1.0}], mark="guess"),
+               "mark 'guess'")
     model_case("model_bad_form.yaml", lambda d: fit0(d).update(form="cubic"),
                "form 'cubic' (smooth or peaked)")
     model_case("model_bad_sha.yaml", lambda d: d["profiles"][0].update(data_sha256="xyz"),
