@@ -44,6 +44,16 @@ void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size)
     sl_buf_free(&b);
 }
 
+const char *est_marks_legend(void)
+{
+    return "[extrapolated] beyond the measured distances (held at least at the farthest "
+           "measured level); [depth] deeper or shallower than the commissioned depths (nearest "
+           "depth used); [stand-in] cutout not commissioned (largest of the open profiles from "
+           "both edges and the commissioned inserts); [poor fit] a profile used fits its points "
+           "poorly (uncertainty widened); [near edge] closer than 1 cm to the field edge: the "
+           "planning system's dose is the reference, not judged";
+}
+
 const char *const est_budget_names[EST_NBUDGET] = {
     "fit", "measurement", "interpolation", "extrapolation",
     "standin", "transfer", "setup_shift", "combined"};
@@ -260,14 +270,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         any = true;
         fprintf(fp, "  %-18s %s\n", d->roi->name, orq(d->excluded_why));
     }
-    fprintf(fp, "\nmarks: [extrapolated] beyond the measured distances (held at least at the "
-                "farthest measured level); [depth] deeper or shallower than the commissioned "
-                "depths (nearest depth used); [stand-in] cutout not commissioned (largest of the "
-                "open profiles from both edges and the commissioned inserts); [poor fit] a "
-                "profile used fits its points poorly (uncertainty widened); [near edge] closer "
-                "than %.0f cm to the field edge: the planning system's dose is the reference, "
-                "not judged\n",
-            SL_NEAR_EDGE_CM);
+    fprintf(fp, "\nmarks: %s\n", est_marks_legend());
     any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];

@@ -20,6 +20,8 @@ extern const char *const est_flag_names[];
 
 /* An organ's marks, " [extrapolated] [depth] ...", short or spelled out. */
 void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size);
+/* What every short mark means, in one line. */
+const char *est_marks_legend(void);
 
 /* The names and values of an uncertainty budget's components, in order. */
 #define EST_NBUDGET 8

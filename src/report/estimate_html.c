@@ -498,9 +498,9 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         else
             snprintf(buf, sizeof buf, "-");
         hel(&h, tr, "td", buf);
-        char st[900], marks[700];
+        char st[300], marks[120];
         est_status_text(a, st, sizeof st);
-        est_marks(d, true, marks, sizeof marks);
+        est_marks(d, false, marks, sizeof marks);
         strncat(st, marks, sizeof st - strlen(st) - 1);
         xmlNodePtr td = hel(&h, tr, "td", st);
         if (a->status == SL_ST_EXCEEDS || (a->status == SL_ST_BAND && a->flagged))
@@ -508,6 +508,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         else if (a->status == SL_ST_MAY_EXCEED)
             hattr(&h, td, "class", "status-may");
     }
+    helf(&h, b, "p", "Marks: %s.", est_marks_legend());
     /* the uncertainty budget of each organ's course maximum */
     hel(&h, b, "h3", "Uncertainty budget of the course maximum (cGy, k = 1)");
     xmlNodePtr ut = hel(&h, b, "table", NULL);
