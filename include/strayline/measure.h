@@ -42,6 +42,7 @@ typedef struct sl_profile_data {
     double depth_cm;
     char *direction;       /* "crossplane", "inplane" or "diagonal" */
     char *file;            /* as the measurement set names it */
+    char *path;            /* the file as read (relative to the set's folder resolved) */
     char sha256[SL_SHA256_HEX_LEN];
     double rel_uncertainty;      /* standard uncertainty, fraction of the dose */
     double floor_percent;        /* absolute floor, percent of the central-axis maximum */

@@ -57,6 +57,11 @@ extern "C" {
 #define SL_MODEL_FORMAT_VERSION 1
 /* Relative extrapolation uncertainty per cm beyond the measured range. */
 #define SL_EXTRAPOLATION_PER_CM 0.02
+/* The plausible range of an evaluation: distances from the field edge up
+ * to this (cm; nothing in a treatment room is farther) and depths up to
+ * SL_MAX_DEPTH_CM. Callers refuse anything beyond with an input error. */
+#define SL_MAX_DISTANCE_CM 500.0
+#define SL_MAX_DEPTH_CM 100.0
 
 typedef struct sl_model_profile {
     double energy_mev;

@@ -85,6 +85,7 @@ int sl_cmd_fit(int argc, char **argv)
 
     sl_error err = {0};
     sl_measurement_set *ms = NULL;
+    const char **inputs = NULL;
     sl_model *model = NULL;
     sl_outfile out = {0}, rep = {0};
     int rc = SL_EXIT_OK;
@@ -99,17 +100,26 @@ int sl_cmd_fit(int argc, char **argv)
                                       : NULL,
                                   threads, quiet || !isatty(STDERR_FILENO) ? NULL : progress,
                                   NULL};
-    const char *inputs[] = {input};
+    /* every file read: the measurement set and each profile CSV, then the model */
+    inputs = calloc(ms->nprofiles + 2, sizeof *inputs);
+    if (!inputs) {
+        fprintf(stderr, "strayline: out of memory\n");
+        rc = SL_EXIT_INTERNAL;
+        goto done;
+    }
+    inputs[0] = input;
+    for (size_t i = 0; i < ms->nprofiles; i++)
+        inputs[i + 1] = ms->profiles[i].path;
     if (sl_commission(ms, &copt, &model, &err) != SL_OK ||
-        sl_outfile_open(&out, output, inputs, 1, &err) != SL_OK ||
+        sl_outfile_open(&out, output, inputs, ms->nprofiles + 1, &err) != SL_OK ||
         sl_model_write(model, out.fp, &err) != SL_OK || sl_outfile_commit(&out, &err) != SL_OK) {
         sl_outfile_abort(&out);
         rc = sl_cli_fail(&err);
         goto done;
     }
     if (report) {
-        const char *ins[] = {input, output};
-        if (sl_outfile_open(&rep, report, ins, 2, &err) != SL_OK ||
+        inputs[ms->nprofiles + 1] = output;
+        if (sl_outfile_open(&rep, report, inputs, ms->nprofiles + 2, &err) != SL_OK ||
             sl_report_fit_html(rep.fp, ms, model, &err) != SL_OK ||
             sl_outfile_commit(&rep, &err) != SL_OK) {
             sl_outfile_abort(&rep);
@@ -142,7 +152,12 @@ int sl_cmd_fit(int argc, char **argv)
                    p->fit.chi2_red, p->fit.max_residual_sigma, p->data_file);
         }
     }
+    if (fflush(stdout) != 0 || ferror(stdout)) {
+        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        rc = SL_EXIT_INTERNAL;
+    }
 done:
+    free(inputs);
     sl_model_free(model);
     sl_measurements_free(ms);
     return rc;

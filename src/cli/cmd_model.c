@@ -105,6 +105,12 @@ int sl_cmd_model(int argc, char **argv)
         return sl_cli_usage("model", "needs one model file");
     if (eval && (isnan(energy) || !applicator || isnan(depth) || isnan(distance)))
         return sl_cli_usage("model", "eval needs --energy, --applicator, --depth and --distance");
+    if (eval && !(fabs(distance) <= SL_MAX_DISTANCE_CM && depth <= SL_MAX_DEPTH_CM &&
+                  (isnan(app_distance) || fabs(app_distance) <= SL_MAX_DISTANCE_CM)))
+        return sl_cli_usage("model",
+                            "distances must lie within +/-%.0f cm of the field edge and depths "
+                            "within 0 to %.0f cm",
+                            SL_MAX_DISTANCE_CM, SL_MAX_DEPTH_CM);
     if (!eval && (!isnan(energy) || applicator || insert || !isnan(depth) || !isnan(distance)))
         return sl_cli_usage("model", "show takes no point options (did you mean eval?)");
     sl_error err = {0};

@@ -190,7 +190,9 @@ sl_status sl_outfile_open(sl_outfile *out, const char *path, const char *const *
     }
     struct stat sb;
     if (stat(path, &sb) == 0 && !S_ISREG(sb.st_mode))
-        return sl_error_set(err, SL_EUSAGE, "%s: exists and is not a regular file", path);
+        return sl_error_set(err, SL_EIO, "%s: exists and is not a regular file: cannot write "
+                                         "the output there",
+                            path);
     bool ok = true;
     out->target = sl_strdup(path, &ok);
     size_t n = strlen(path) + 16;

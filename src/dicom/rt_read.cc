@@ -21,6 +21,7 @@
 #include <dcmtk/dcmdata/dcxfer.h>
 #include <dcmtk/oflog/oflog.h>
 
+#include <cctype>
 #include <cerrno>
 #include <cmath>
 #include <cstdlib>
@@ -28,6 +29,10 @@
 #include <mutex>
 #include <new>
 #include <string>
+#include <unordered_map>
+#include <algorithm>
+#include <fcntl.h>
+#include <pthread.h>
 #include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
@@ -43,7 +48,66 @@ const char *const UID_RTIONPLAN = "1.2.840.10008.5.1.4.1.1.481.8";
 void quiet_dcmtk()
 {
     static std::once_flag once;
-    std::call_once(once, [] { OFLog::configure(OFLogger::FATAL_LOG_LEVEL); });
+    std::call_once(once, [] {
+        OFLog::configure(OFLogger::FATAL_LOG_LEVEL);
+        /* Dense contours written in explicit VR arrive as UN (a value over
+         * 64 KiB cannot be OB-less DS there): read known tags with their
+         * dictionary VR, so that the result does not depend on the encoding. */
+        dcmEnableUnknownVRConversion.set(OFTrue);
+    });
+}
+
+/* The DICOM grammar of a Decimal String value (PS3.5 6.2): optional leading
+ * and trailing spaces, an optional sign, digits with an optional decimal
+ * point, an optional exponent. */
+bool ds_grammar(const std::string &v, std::string &core)
+{
+    size_t b = v.find_first_not_of(' '), e = v.find_last_not_of(' ');
+    if (b == std::string::npos)
+        return false;
+    core = v.substr(b, e - b + 1);
+    size_t i = 0, n = core.size(), digits = 0;
+    if (i < n && (core[i] == '+' || core[i] == '-'))
+        i++;
+    while (i < n && isdigit(static_cast<unsigned char>(core[i])))
+        i++, digits++;
+    if (i < n && core[i] == '.') {
+        i++;
+        while (i < n && isdigit(static_cast<unsigned char>(core[i])))
+            i++, digits++;
+    }
+    if (digits == 0)
+        return false;
+    if (i < n && (core[i] == 'e' || core[i] == 'E')) {
+        i++;
+        if (i < n && (core[i] == '+' || core[i] == '-'))
+            i++;
+        size_t ed = 0;
+        while (i < n && isdigit(static_cast<unsigned char>(core[i])))
+            i++, ed++;
+        if (ed == 0)
+            return false;
+    }
+    return i == n;
+}
+
+/* An Integer String value: optional spaces, an optional sign, digits; the
+ * value must fit a signed 32-bit integer (PS3.5 6.2). */
+bool is_grammar(const std::string &v, long long &out)
+{
+    size_t b = v.find_first_not_of(' '), e = v.find_last_not_of(' ');
+    if (b == std::string::npos)
+        return false;
+    std::string core = v.substr(b, e - b + 1);
+    size_t i = core[0] == '+' || core[0] == '-' ? 1 : 0;
+    if (i == core.size() || core.size() - i > 12)
+        return false;
+    for (size_t k = i; k < core.size(); k++) {
+        if (!isdigit(static_cast<unsigned char>(core[k])))
+            return false;
+    }
+    out = strtoll(core.c_str(), nullptr, 10);
+    return out >= -2147483648LL && out <= 2147483647LL;
 }
 
 /* Error raised inside the reader; caught at the C boundary. */
@@ -130,14 +194,35 @@ public:
         unsigned long vm = el->getVM();
         if (vm > 100000000UL)
             fail(SL_EINPUT, where, "too many values");
-        if (vr == EVR_DS) {
-            OFVector<Float64> v;
-            if (static_cast<DcmDecimalString *>(el)->getFloat64Vector(v).bad())
-                fail(SL_EINPUT, where, "not a valid decimal string");
-            out.assign(v.begin(), v.end());
-            /* getFloat64Vector skips nothing, but check the count anyway. */
-            if (out.size() != vm)
-                fail(SL_EINPUT, where, "could not read every value");
+        if (vr == EVR_DS || vr == EVR_IS) {
+            /* every value read whole and strictly: a value that merely starts
+             * like a number ("1e2" as an IS, "3 50", "45deg", "1,5") must not
+             * become one */
+            out.reserve(vm);
+            for (unsigned long i = 0; i < vm; i++) {
+                OFString raw;
+                if (el->getOFString(raw, i).bad())
+                    fail(SL_EINPUT, where, "cannot read value " + std::to_string(i + 1));
+                std::string v(raw.c_str(), raw.length()), core;
+                std::string shown = v.size() > 40 ? v.substr(0, 40) + "..." : v;
+                if (vr == EVR_DS) {
+                    double d;
+                    if (!ds_grammar(v, core) || !sl_parse_double(core.c_str(), &d))
+                        fail(SL_EINPUT, where,
+                             "value " + std::to_string(i + 1) + " '" + shown +
+                                 "' is not a decimal string (DS: optional sign, digits, "
+                                 "decimal point, exponent)");
+                    out.push_back(d);
+                } else {
+                    long long k;
+                    if (!is_grammar(v, k))
+                        fail(SL_EINPUT, where,
+                             "value " + std::to_string(i + 1) + " '" + shown +
+                                 "' is not an integer string (IS: optional sign and digits, "
+                                 "-2147483648 to 2147483647)");
+                    out.push_back(static_cast<double>(k));
+                }
+            }
         } else {
             out.reserve(vm);
             for (unsigned long i = 0; i < vm; i++) {
@@ -154,12 +239,6 @@ public:
                     Float32 f;
                     c = el->getFloat32(f, i);
                     d = f;
-                    break;
-                }
-                case EVR_IS: {
-                    Sint32 s;
-                    c = el->getSint32(s, i);
-                    d = s;
                     break;
                 }
                 case EVR_US: {
@@ -235,12 +314,11 @@ public:
         std::vector<DcmItem *> out;
         DcmSequenceOfItems *sq = nullptr;
         if (item->findAndGetSequence(key, sq).good() && sq) {
-            unsigned long n = sq->card();
-            for (unsigned long i = 0; i < n; i++) {
-                DcmItem *it = sq->getItem(i);
-                if (it)
-                    out.push_back(it);
-            }
+            /* walk the list: getItem(i) seeks from the start, which is
+             * quadratic over a sequence of tens of thousands of items */
+            out.reserve(sq->card());
+            for (DcmObject *o = sq->nextInContainer(nullptr); o; o = sq->nextInContainer(o))
+                out.push_back(static_cast<DcmItem *>(o));
         }
         if (required && out.empty())
             fail(SL_EINPUT, at(ctx, key), "missing or empty sequence");
@@ -573,13 +651,14 @@ void read_plan_items(Reader &r, DcmDataset *ds, sl_plan *p)
 
 /* ------------------------------------------------------- structure set -- */
 
-sl_roi *roi_by_number(sl_structure_set *ss, int number)
+/* ROI numbers to ROIs: a hash, so that structure sets of tens of
+ * thousands of ROIs read in linear time. */
+using roi_index = std::unordered_map<int, size_t>;
+
+sl_roi *roi_by_number(sl_structure_set *ss, const roi_index &idx, int number)
 {
-    for (size_t i = 0; i < ss->nrois; i++) {
-        if (ss->rois[i].number == number)
-            return &ss->rois[i];
-    }
-    return nullptr;
+    auto it = idx.find(number);
+    return it == idx.end() ? nullptr : &ss->rois[it->second];
 }
 
 void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
@@ -594,16 +673,16 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
 
     std::vector<DcmItem *> rois = r.seq(ds, DCM_StructureSetROISequence, "", true);
     ss->rois = alloc_array<sl_roi>(r, rois.size());
+    roi_index idx;
+    idx.reserve(rois.size());
     for (size_t i = 0; i < rois.size(); i++) {
         std::string ctx = "structure set ROI item " + std::to_string(i + 1);
         sl_roi *roi = &ss->rois[i];
         ss->nrois = i + 1;
         roi->number = r.integer(rois[i], DCM_ROINumber, ctx, true);
-        for (size_t j = 0; j < i; j++) {
-            if (ss->rois[j].number == roi->number)
-                r.fail(SL_EINPUT, Reader::at(ctx, DCM_ROINumber),
-                       "duplicate ROI number " + std::to_string(roi->number));
-        }
+        if (!idx.emplace(roi->number, i).second)
+            r.fail(SL_EINPUT, Reader::at(ctx, DCM_ROINumber),
+                   "duplicate ROI number " + std::to_string(roi->number));
         std::string name = r.str(rois[i], DCM_ROIName);
         if (name.empty())
             r.fail(SL_EINPUT, Reader::at("ROI " + std::to_string(roi->number), DCM_ROIName),
@@ -617,7 +696,7 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
     for (size_t i = 0; i < rcs.size(); i++) {
         std::string ctx0 = "ROI contour item " + std::to_string(i + 1);
         int ref = r.integer(rcs[i], DCM_ReferencedROINumber, ctx0, true);
-        sl_roi *roi = roi_by_number(ss, ref);
+        sl_roi *roi = roi_by_number(ss, idx, ref);
         if (!roi)
             r.fail(SL_EINPUT, Reader::at(ctx0, DCM_ReferencedROINumber),
                    "refers to ROI " + std::to_string(ref) +
@@ -695,7 +774,7 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
     for (size_t i = 0; i < obs.size(); i++) {
         std::string ctx = "RT ROI observation item " + std::to_string(i + 1);
         int ref = r.integer(obs[i], DCM_ReferencedROINumber, ctx, true);
-        sl_roi *roi = roi_by_number(ss, ref);
+        sl_roi *roi = roi_by_number(ss, idx, ref);
         if (!roi)
             r.fail(SL_EINPUT, Reader::at(ctx, DCM_ReferencedROINumber),
                    "refers to ROI " + std::to_string(ref) + ", which is not listed");
@@ -747,6 +826,53 @@ void read_object(Reader &r, DcmFileFormat &ff, sl_dicom_object *out)
     }
 }
 
+/* The deepest nesting of sequences in a data set, walked without recursion
+ * (the tree may be as deep as the file allows). */
+int nesting_depth(DcmItem *root)
+{
+    std::vector<std::pair<DcmItem *, int>> todo{{root, 0}};
+    int deepest = 0;
+    while (!todo.empty()) {
+        DcmItem *it = todo.back().first;
+        int d = todo.back().second;
+        todo.pop_back();
+        deepest = std::max(deepest, d);
+        if (deepest > SL_DICOM_MAX_NESTING)
+            break;
+        /* lists are walked, not indexed: getElement(i) and getItem(k) seek
+         * from the start */
+        for (DcmObject *e = it ? it->nextInContainer(nullptr) : nullptr; e;
+             e = it->nextInContainer(e)) {
+            if (e->ident() != EVR_SQ)
+                continue;
+            DcmSequenceOfItems *sq = static_cast<DcmSequenceOfItems *>(e);
+            for (DcmObject *k = sq->nextInContainer(nullptr); k; k = sq->nextInContainer(k))
+                todo.emplace_back(static_cast<DcmItem *>(k), d + 1);
+        }
+    }
+    return deepest;
+}
+
+/* Text values in UTF-8 whatever the file's Specific Character Set: the
+ * reports are UTF-8 (JSON must be). Characters that cannot be converted are
+ * dropped, and *note says so. */
+void to_utf8(DcmDataset *ds, std::string &note)
+{
+    OFString cs;
+    if (ds->findAndGetOFStringArray(DCM_SpecificCharacterSet, cs).bad() || cs.empty() ||
+        cs == "ISO_IR 192")
+        return;
+    if (ds->convertToUTF8().good())
+        return;
+    if (ds->convertCharacterSet("ISO_IR 192", DCMTypes::CF_discardIllegal).good())
+        note = "Specific Character Set '" + std::string(cs.c_str()) +
+               "': some characters could not be converted to UTF-8 and were left out";
+    else
+        note = "Specific Character Set '" + std::string(cs.c_str()) +
+               "' could not be converted to UTF-8: names that are not plain ASCII may show "
+               "wrongly";
+}
+
 sl_status finish(Reader &r, DcmFileFormat &ff, OFCondition cond, sl_dicom_object *out,
                  sl_error *err)
 {
@@ -756,8 +882,25 @@ sl_status finish(Reader &r, DcmFileFormat &ff, OFCondition cond, sl_dicom_object
                             "%s: cannot read as DICOM (not a DICOM file, or truncated): %s",
                             r.file(), cond.text());
     }
+    if (ff.getDataset()) {
+        int depth = nesting_depth(ff.getDataset());
+        if (depth > SL_DICOM_MAX_NESTING)
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: sequences nested more than %d levels deep (an RT Plan or "
+                                "Structure Set needs fewer than 10): refused",
+                                r.file(), SL_DICOM_MAX_NESTING);
+    }
+    std::string charset_note;
     try {
+        if (ff.getDataset())
+            to_utf8(ff.getDataset(), charset_note);
         read_object(r, ff, out);
+        if (!charset_note.empty()) {
+            sl_notes *notes = out->plan ? &out->plan->notes
+                                        : out->structures ? &out->structures->notes : nullptr;
+            if (notes)
+                sl_notes_add(notes, "%s", charset_note.c_str());
+        }
     } catch (const read_failure &f) {
         sl_dicom_object_free(out);
         return f.code;
@@ -797,6 +940,83 @@ const char *const NOT_DICOM =
     "not a DICOM file (no DICM marker after the preamble, and it does not begin with a DICOM "
     "element)";
 
+/* Item tags (FFFE,E000) in either byte order: every level of nesting needs
+ * one, so their count bounds the depth DCMTK's recursive reader can reach. */
+size_t count_item_tags(const unsigned char *p, size_t n)
+{
+    size_t k = 0;
+    for (size_t i = 0; i + 4 <= n; i++) {
+        if ((p[i] == 0xFE && p[i + 1] == 0xFF && p[i + 2] == 0x00 && p[i + 3] == 0xE0) ||
+            (p[i] == 0xFF && p[i + 1] == 0xFE && p[i + 2] == 0xE0 && p[i + 3] == 0x00))
+            k++;
+    }
+    return k;
+}
+
+/* Deflated data hides its item tags: such a file gets the largest stack. */
+bool is_deflated(const unsigned char *p, size_t n)
+{
+    static const char uid[] = "1.2.840.10008.1.2.1.99";
+    size_t m = n < 65536 ? n : 65536;
+    return memmem(p, m, uid, sizeof uid - 1) != nullptr;
+}
+
+struct load_job {
+    Reader *r;
+    const char *path;
+    sl_dicom_object *out;
+    sl_error *err;
+    sl_status st;
+};
+
+void *load_thread(void *arg)
+{
+    load_job *j = static_cast<load_job *>(arg);
+    try {
+        DcmFileFormat ff;
+        OFCondition cond = ff.loadFile(j->path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
+                                       ERM_autoDetect);
+        j->st = finish(*j->r, ff, cond, j->out, j->err);
+    } catch (const std::bad_alloc &) {
+        j->st = sl_error_set(j->err, SL_ENOMEM, "%s: out of memory", j->r->file());
+    } catch (...) {
+        j->st = sl_error_set(j->err, SL_EINTERNAL, "%s: unexpected failure in DCMTK",
+                             j->r->file());
+    }
+    return nullptr;
+}
+
+/* DCMTK reads (and frees) nested sequences recursively, so a file of
+ * thousands of nested sequences would overflow an ordinary stack. The read
+ * runs on a thread whose stack has room for every level the bytes allow
+ * (virtual memory, committed only as used); the depth is then refused. */
+sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
+               sl_dicom_object *out, sl_error *err)
+{
+    size_t items = is_deflated(raw, n) ? SL_DICOM_MAX_ITEMS : count_item_tags(raw, n);
+    if (items > SL_DICOM_MAX_ITEMS)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: more than %zu sequence items: larger than strayline accepts",
+                            r.file(), static_cast<size_t>(SL_DICOM_MAX_ITEMS));
+    size_t stack = (size_t)16 << 20;
+    stack += items * (size_t)SL_DICOM_STACK_PER_LEVEL;
+    pthread_attr_t attr;
+    pthread_t th;
+    load_job job = {&r, path, out, err, SL_OK};
+    if (pthread_attr_init(&attr) != 0)
+        return sl_error_set(err, SL_EINTERNAL, "%s: cannot start the reader", r.file());
+    int rc = pthread_attr_setstacksize(&attr, stack);
+    if (rc == 0)
+        rc = pthread_create(&th, &attr, load_thread, &job);
+    pthread_attr_destroy(&attr);
+    if (rc != 0)
+        return sl_error_set(err, rc == EAGAIN || rc == ENOMEM ? SL_ENOMEM : SL_EINTERNAL,
+                            "%s: cannot start the reader with a %zu MB stack: %s", r.file(),
+                            stack >> 20, strerror(rc));
+    pthread_join(th, nullptr);
+    return job.st;
+}
+
 } // namespace
 
 extern "C" {
@@ -816,23 +1036,20 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
         return sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
                             static_cast<long long>(sb.st_size));
-    unsigned char head[132];
-    FILE *fp = fopen(path, "rb");
-    size_t got = fp ? fread(head, 1, sizeof head, fp) : 0;
-    if (fp)
-        fclose(fp);
-    if (!looks_like_dicom(head, got))
-        return sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
-    try {
-        DcmFileFormat ff;
-        OFCondition cond = ff.loadFile(path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
-                                       ERM_autoDetect);
-        return finish(r, ff, cond, out, err);
-    } catch (const std::bad_alloc &) {
-        return sl_error_set(err, SL_ENOMEM, "%s: out of memory", path);
-    } catch (...) {
-        return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", path);
-    }
+    int fd = open(path, O_RDONLY | O_CLOEXEC);
+    if (fd < 0)
+        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
+    size_t n = static_cast<size_t>(sb.st_size);
+    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE, fd, 0);
+    close(fd);
+    if (map == MAP_FAILED)
+        return sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));
+    const unsigned char *raw = static_cast<const unsigned char *>(map);
+    sl_status st = looks_like_dicom(raw, n)
+                       ? load(r, path, raw, n, out, err)
+                       : sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
+    munmap(map, n);
+    return st;
 }
 
 sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
@@ -866,17 +1083,7 @@ sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
     }
     char path[64];
     snprintf(path, sizeof path, "/proc/self/fd/%d", fd);
-    sl_status st;
-    try {
-        DcmFileFormat ff;
-        OFCondition cond = ff.loadFile(path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
-                                       ERM_autoDetect);
-        st = finish(r, ff, cond, out, err);
-    } catch (const std::bad_alloc &) {
-        st = sl_error_set(err, SL_ENOMEM, "%s: out of memory", r.file());
-    } catch (...) {
-        st = sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", r.file());
-    }
+    sl_status st = load(r, path, static_cast<const unsigned char *>(data), size, out, err);
     close(fd);
     return st;
 }

@@ -446,6 +446,9 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         const sl_organ_place *p = &loc->beams[b].organs[o];
         if (p->placed != s->n)
             od->placed = false;
+        if (p->placed && !(p->max_distance_cm <= SL_MAX_DISTANCE_CM &&
+                           p->max_depth_cm <= SL_MAX_DEPTH_CM))
+            return SL_EINPUT; /* reported by the caller, which names the ROI */
         if (p->placed) {
             od->min_distance_cm = fmin(od->min_distance_cm, p->min_distance_cm);
             od->min_depth_cm = fmin(od->min_depth_cm, p->min_depth_cm);
@@ -651,13 +654,19 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
             organ_job j = {e, ost};
             sl_parallel_for(loc->norgans, sl_parallel_threads(opt->threads), organ_task, &j);
             for (size_t o = 0; o < loc->norgans && st == SL_OK; o++) {
-                if (ost[o] != SL_OK)
+                if (ost[o] == SL_EINPUT)
+                    st = sl_error_set(err, SL_EINPUT,
+                                      "%s: ROI '%s' lies more than %.0f cm from a field edge or "
+                                      "%.0f cm deep: its coordinates cannot be right for a "
+                                      "patient",
+                                      ss->source, loc->rois[o]->name, SL_MAX_DISTANCE_CM,
+                                      SL_MAX_DEPTH_CM);
+                else if (ost[o] != SL_OK)
                     st = sl_error_set(err, ost[o], "out of memory estimating organ doses");
             }
             free(ost);
         }
     }
-    (void)ss;
     if (st != SL_OK) {
         sl_estimate_free(e);
         return st;

@@ -25,6 +25,7 @@ void sl_profile_data_free(sl_profile_data *p)
     free(p->insert);
     free(p->direction);
     free(p->file);
+    free(p->path);
     free(p->distance_cm);
     free(p->dose_percent);
     free(p->sigma_percent);
@@ -462,6 +463,10 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, const char *
         snprintf(path, sizeof path, "%s", p->file);
     else
         snprintf(path, sizeof path, "%s/%s", dir, p->file);
+    bool ok = true;
+    p->path = sl_strdup(path, &ok);
+    if (!ok)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
     return sl_profile_read_csv(path, cax, w, p, &m->notes, err);
 }
 

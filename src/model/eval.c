@@ -328,9 +328,11 @@ static point_value curve_value(const curve *cv, double d, sl_eval_mode mode)
         /* far out, head leakage flattens the curve: an exponential tail
          * would under-read, so the measured floor holds (all photons) */
         double floor = measured_floor(p);
-        if (floor > r.v) {
-            r.u_fit *= floor / r.v;
-            r.e_frac *= r.v / floor;
+        if (!(r.v >= floor)) {
+            /* the fit's relative uncertainty where it was last measured */
+            double uhi, vhi = sl_profile_fit_eval(&p->fit, hi, &uhi);
+            r.u_fit = vhi > 0 ? uhi / vhi * floor : 0;
+            r.e_frac = r.v > 0 ? r.e_frac * r.v / floor : 0;
             r.v = floor;
         }
         r.u_extrap = SL_EXTRAPOLATION_PER_CM * (d - hi) * r.v;

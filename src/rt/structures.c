@@ -5,6 +5,7 @@
 #include "strayline/structures.h"
 #include "strayline/util.h"
 
+#include <limits.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -106,25 +107,46 @@ sl_status sl_structures_external(const sl_structure_set *ss, const sl_roi **out,
     return SL_OK;
 }
 
+static int cmp_roi_number(const void *a, const void *b)
+{
+    int x = (*(const sl_roi *const *)a)->number, y = (*(const sl_roi *const *)b)->number;
+    return (x > y) - (x < y);
+}
+
+static int cmp_roi_name(const void *a, const void *b)
+{
+    const sl_roi *x = *(const sl_roi *const *)a, *y = *(const sl_roi *const *)b;
+    int c = strcmp(x->name, y->name);
+    return c ? c : (x->number > y->number) - (x->number < y->number);
+}
+
+/* Duplicate numbers (an error) and names (a note), by sorting: a structure
+ * set of tens of thousands of ROIs must not take quadratic time. */
 sl_status sl_structure_set_validate(sl_structure_set *ss, sl_error *err)
 {
     const char *f = ss->source ? ss->source : "(structure set)";
-    for (size_t i = 0; i < ss->nrois; i++) {
-        for (size_t j = 0; j < i; j++) {
-            if (ss->rois[i].number == ss->rois[j].number)
-                return sl_error_set(err, SL_EINPUT,
-                                    "%s: ROINumber (3006,0022): duplicate ROI number %d", f,
-                                    ss->rois[i].number);
-            if (strcmp(ss->rois[i].name, ss->rois[j].name) == 0) {
-                sl_status st = sl_notes_add(&ss->notes,
-                                            "%s: two ROIs are named '%s' (numbers %d and %d)", f,
-                                            ss->rois[i].name, ss->rois[j].number,
-                                            ss->rois[i].number);
-                if (st != SL_OK)
-                    return sl_error_set(err, st, "%s: out of memory", f);
-            }
-        }
+    const sl_roi **v = malloc((ss->nrois ? ss->nrois : 1) * sizeof *v);
+    if (!v)
+        return sl_error_set(err, SL_ENOMEM, "%s: out of memory", f);
+    for (size_t i = 0; i < ss->nrois; i++)
+        v[i] = &ss->rois[i];
+    sl_status st = SL_OK;
+    qsort(v, ss->nrois, sizeof *v, cmp_roi_number);
+    for (size_t i = 1; i < ss->nrois && st == SL_OK; i++) {
+        if (v[i]->number == v[i - 1]->number)
+            st = sl_error_set(err, SL_EINPUT, "%s: ROINumber (3006,0022): duplicate ROI number %d",
+                              f, v[i]->number);
     }
+    qsort(v, ss->nrois, sizeof *v, cmp_roi_name);
+    for (size_t i = 1; i < ss->nrois && st == SL_OK; i++) {
+        if (strcmp(v[i]->name, v[i - 1]->name) == 0 &&
+            sl_notes_add(&ss->notes, "%s: two ROIs are named '%s' (numbers %d and %d)", f,
+                         v[i]->name, v[i - 1]->number, v[i]->number) != SL_OK)
+            st = sl_error_set(err, SL_ENOMEM, "%s: out of memory", f);
+    }
+    free(v);
+    if (st != SL_OK)
+        return st;
     const sl_roi *ext;
     return sl_structures_external(ss, &ext, err);
 }
@@ -190,9 +212,19 @@ sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const 
     ss->rois = rois;
     sl_roi *r = &ss->rois[ss->nrois];
     memset(r, 0, sizeof *r);
-    int number = 1;
+    /* one above the highest number, or, when that is INT_MAX, the lowest
+     * number not in use (one of 1 .. nrois + 1 is free) */
+    long long top = 0;
     for (size_t i = 0; i < ss->nrois; i++)
-        number = ss->rois[i].number >= number ? ss->rois[i].number + 1 : number;
+        top = ss->rois[i].number > top ? ss->rois[i].number : top;
+    int number = top < INT_MAX ? (int)top + 1 : 0;
+    for (int cand = 1; number == 0; cand++) {
+        bool used = false;
+        for (size_t i = 0; i < ss->nrois && !used; i++)
+            used = ss->rois[i].number == cand;
+        if (!used)
+            number = cand;
+    }
     bool ok = true;
     r->number = number;
     r->name = sl_strdup(name, &ok);

@@ -101,6 +101,31 @@ def raw_ds(item, keyword, text):
     item._dict[tag] = RawDataElement(tag, "DS", len(value), value, 0, False, True)
 
 
+def nested_sequences(depth, big_endian_items=False):
+    """A small file (explicit VR little endian) whose data set holds `depth`
+    nested undefined-length sequences: bytes written directly, as pydicom's
+    writer recurses per level. With big_endian_items the item tags are
+    written in the other byte order (DCMTK reads them as items too), so that
+    the reader's guard counts both byte orders."""
+    import struct
+
+    def el(g, e, vr, val):
+        if vr in (b"OB", b"SQ"):
+            return struct.pack("<HH2sHI", g, e, vr, 0, len(val)) + val
+        return struct.pack("<HH2sH", g, e, vr, len(val)) + val
+    meta_body = (el(2, 1, b"OB", b"\0\1") +
+                 el(2, 2, b"UI", b"1.2.840.10008.5.1.4.1.1.481.5\0") +
+                 el(2, 3, b"UI", b"1.2.826.0.1.3680043.2.1125.9\0") +
+                 el(2, 0x10, b"UI", b"1.2.840.10008.1.2.1\0"))
+    meta = el(2, 0, b"UL", struct.pack("<I", len(meta_body))) + meta_body
+    body = (el(8, 0x16, b"UI", b"1.2.840.10008.5.1.4.1.1.481.5\0") +
+            el(8, 0x18, b"UI", b"1.2.826.0.1.3680043.2.1125.9\0") + el(8, 0x60, b"CS", b"RTPLAN"))
+    item = struct.pack(">HHI" if big_endian_items else "<HHI", 0xFFFE, 0xE000, 0xFFFFFFFF)
+    opening = struct.pack("<HH2sHI", 0x300C, 0x0002, b"SQ", 0, 0xFFFFFFFF) + item
+    closing = struct.pack("<HHI", 0xFFFE, 0xE00D, 0) + struct.pack("<HHI", 0xFFFE, 0xE0DD, 0)
+    return b"\0" * 128 + b"DICM" + meta + body + opening * depth + closing * depth
+
+
 def main():
     for f in os.listdir(HERE):
         if f.endswith((".dcm", ".txt", ".yaml")) or f == "cases.tsv":
@@ -115,6 +140,15 @@ def main():
     raw("not_dicom.txt", b"Patient: nobody\nThis is a text file, not DICOM.\n" * 20,
         "inspect {f}", 3, "not a DICOM file")
     raw("empty.dcm", b"", "inspect {f}", 3, "empty file")
+    # -- pathological nesting: refused after a read on a stack sized for it
+    for depth, name in ((65, "nested_65.dcm"), (10000, "nested_10000.dcm"),
+                        (30000, "nested_30000.dcm")):
+        raw(name, nested_sequences(depth), "inspect {f}", 3,
+            "sequences nested more than 64 levels deep")
+    # item tags of the other byte order are counted too; DCMTK then refuses the
+    # stream cleanly
+    raw("nested_20000_big_endian_items.dcm", nested_sequences(20000, big_endian_items=True),
+        "inspect {f}", 3, "cannot read as DICOM")
     raw("truncated_in_preamble.dcm", good_bytes[:100], "inspect {f}", 3, "not a DICOM file")
     raw("truncated_in_meta.dcm", good_bytes[:200], "inspect {f}", 3, "cannot read as DICOM")
     raw("truncated_half.dcm", good_bytes[:len(good_bytes) // 2], "inspect {f}", 3,
@@ -198,13 +232,65 @@ def main():
     plan_case("negative_energy.dcm", lambda d: setattr(cp0(d), "NominalBeamEnergy", "-9"),
               "NominalBeamEnergy (300A,0114): -9.000000 MeV is not a plausible beam energy")
     plan_case("energy_not_a_number.dcm", lambda d: raw_ds(cp0(d), "NominalBeamEnergy", "nine"),
-              "NominalBeamEnergy (300A,0114): not a valid decimal string")
+              "NominalBeamEnergy (300A,0114): value 1 'nine' is not a decimal string")
+    # -- IS and DS read whole and strictly (PS3.5 6.2): a value that only
+    #    starts like a number is refused, never cut to its valid beginning
+    def raw_is(item, keyword, text):
+        tag = tag_for_keyword(keyword)
+        value = text.encode("ascii")
+        if len(value) % 2:
+            value += b" "
+        item._dict[tag] = RawDataElement(tag, "IS", len(value), value, 0, False, True)
+
+    def fg(d):
+        return d.FractionGroupSequence[0]
+
+    def rbeam(d):
+        return d.FractionGroupSequence[0].ReferencedBeamSequence[0]
+    strict_is = [
+        ("is_fractions_exponent.dcm", fg, "NumberOfFractionsPlanned", "1e2"),
+        ("is_fractions_decimal.dcm", fg, "NumberOfFractionsPlanned", "15.0"),
+        ("is_fractions_two_words.dcm", fg, "NumberOfFractionsPlanned", "1 5"),
+        ("is_fractions_trailing_text.dcm", fg, "NumberOfFractionsPlanned", "15x"),
+        ("is_fractions_sign_only.dcm", fg, "NumberOfFractionsPlanned", "+"),
+        ("is_beam_number_beyond_32_bits.dcm", rbeam, "ReferencedBeamNumber", "4294967297"),
+        ("is_beam_number_too_long.dcm", rbeam, "ReferencedBeamNumber", "1234567890123"),
+        ("is_beam_number_hex.dcm", beam, "BeamNumber", "0x1"),
+    ]
+    for name, where, kw, text in strict_is:
+        plan_case(name, lambda d, w=where, k=kw, t=text: raw_is(w(d), k, t),
+                  "value 1 '%s' is not an integer string" % text)
+    strict_ds = [
+        ("ds_meterset_two_words.dcm", rbeam, "BeamMeterset", "3 50"),
+        ("ds_energy_trailing_text.dcm", cp0, "NominalBeamEnergy", "15x"),
+        ("ds_gantry_unit.dcm", cp0, "GantryAngle", "45deg"),
+        ("ds_ssd_decimal_comma.dcm", cp0, "SourceToSurfaceDistance", "1000,5"),
+        ("ds_ssd_exponent_without_digits.dcm", cp0, "SourceToSurfaceDistance", "1e"),
+        ("ds_ssd_two_points.dcm", cp0, "SourceToSurfaceDistance", "10.0.5"),
+        ("ds_ssd_double_sign.dcm", cp0, "SourceToSurfaceDistance", "--1000"),
+        ("ds_ssd_point_only.dcm", cp0, "SourceToSurfaceDistance", "."),
+        ("ds_ssd_infinity.dcm", cp0, "SourceToSurfaceDistance", "inf"),
+        ("ds_ssd_hex.dcm", cp0, "SourceToSurfaceDistance", "0x3E8"),
+        ("ds_sad_inner_space.dcm", beam, "SourceAxisDistance", "10 00"),
+    ]
+    for name, where, kw, text in strict_ds:
+        plan_case(name, lambda d, w=where, k=kw, t=text: raw_ds(w(d), k, t),
+                  "value 1 '%s' is not a decimal string" % text)
+    plan_case("ds_meterset_second_value_bad.dcm",
+              lambda d: raw_ds(rbeam(d), "BeamMeterset", "200\\2x"),
+              "value 2 '2x' is not a decimal string")
+    ss_case("ds_contour_decimal_comma.dcm",
+            lambda d: raw_ds(d.ROIContourSequence[1].ContourSequence[0], "ContourData",
+                             "\\".join(["1,5"] + [str(v) for v in
+                                                  d.ROIContourSequence[1].ContourSequence[0].ContourData[1:]])),
+            "value 1 '1,5' is not a decimal string")
+
     plan_case("ssd_zero.dcm", lambda d: setattr(cp0(d), "SourceToSurfaceDistance", "0"),
               "SourceToSurfaceDistance (300A,0130): 0.000000 mm is not a plausible")
     plan_case("ssd_negative.dcm", lambda d: setattr(cp0(d), "SourceToSurfaceDistance", "-1000"),
               "is not a plausible source-surface distance")
     plan_case("ssd_nan.dcm", lambda d: raw_ds(cp0(d), "SourceToSurfaceDistance", "NaN"),
-              "SourceToSurfaceDistance (300A,0130): value is not a finite number")
+              "SourceToSurfaceDistance (300A,0130): value 1 'NaN' is not a decimal string")
     plan_case("gantry_400.dcm", lambda d: setattr(cp0(d), "GantryAngle", "400"),
               "GantryAngle (300A,011E): angle 400.000000 deg is outside 0..360")
     plan_case("sad_absurd.dcm", lambda d: setattr(beam(d), "SourceAxisDistance", "5"),
@@ -285,7 +371,7 @@ def main():
             lambda d: raw_ds(d.ROIContourSequence[1].ContourSequence[0], "ContourData",
                              "\\".join(["NaN"] + [str(v) for v in
                                                   d.ROIContourSequence[1].ContourSequence[0].ContourData[1:]])),
-            "ContourData (3006,0050): value is not a finite number")
+            "ContourData (3006,0050): value 1 'NaN' is not a decimal string")
 
     def contour_points(n):
         def mutate(d):
