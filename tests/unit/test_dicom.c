@@ -130,6 +130,28 @@ START_TEST(kind_mismatch_is_reported)
 }
 END_TEST
 
+START_TEST(a_point_beside_roi_number_int_max_gets_a_free_number)
+{
+    /* ROI numbers are signed 32-bit (IS, PS3.5 6.2): the next number after
+     * 2147483647 must not overflow (UBSan found it) */
+    sl_structure_set *ss = NULL;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_dicom_read_structures(demo("face-lens", "rtstruct.dcm"), &ss, &e),
+                     SL_OK);
+    ck_assert_uint_ge(ss->nrois, 2);
+    ss->rois[0].number = 2147483647;
+    ss->rois[1].number = 1;
+    sl_vec3 p = {0, 0, 0};
+    ck_assert_int_eq(sl_structures_add_point(ss, "probe", "MARKER", p, &e), SL_OK);
+    const sl_roi *r = sl_structures_find(ss, "probe");
+    ck_assert_ptr_nonnull(r);
+    ck_assert_int_gt(r->number, 0);
+    for (size_t i = 0; i + 1 < ss->nrois; i++)
+        ck_assert_int_ne(ss->rois[i].number, r->number);
+    sl_structure_set_free(ss);
+}
+END_TEST
+
 START_TEST(positions_round_trip)
 {
     for (int i = 0; i < SL_POS_COUNT; i++) {
@@ -154,6 +176,7 @@ static Suite *dicom_suite(void)
     tcase_add_test(tc, pairing_accepts_its_own_and_refuses_another);
     tcase_add_test(tc, kind_mismatch_is_reported);
     tcase_add_test(tc, positions_round_trip);
+    tcase_add_test(tc, a_point_beside_roi_number_int_max_gets_a_free_number);
     suite_add_tcase(s, tc);
     return s;
 }
