@@ -9,6 +9,7 @@
 #include "strayline/util.h"
 
 #include <math.h>
+#include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -546,5 +547,77 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
         return st;
     }
     *out = e;
+    return SL_OK;
+}
+
+/* A landmark is one sample at a measured distance and depth for every
+ * beam: the same arithmetic as a sample of organ_task_run. */
+sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double distance_cm,
+                                   double depth_cm, sl_error *err)
+{
+    if (!(distance_cm >= 0) || !(depth_cm >= 0) || !isfinite(distance_cm) || !isfinite(depth_cm))
+        return sl_error_set(err, SL_EUSAGE,
+                            "--landmark '%s': distance and depth must be 0 cm or more",
+                            roi->name);
+    sl_organ_dose *no = realloc(e->organs, (e->norgans + 1) * sizeof *no);
+    if (!no)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    e->organs = no;
+    sl_organ_dose *od = &e->organs[e->norgans];
+    memset(od, 0, sizeof *od);
+    od->organ = SIZE_MAX;
+    od->roi = roi;
+    od->landmark = true;
+    od->is_point = true;
+    od->placed = true;
+    od->ngroups = e->ngroups;
+    od->shield_transmission = 1.0;
+    od->min_distance_cm = distance_cm;
+    od->min_depth_cm = od->max_depth_cm = depth_cm;
+    size_t ng = e->ngroups;
+    od->fx_max = calloc(ng ? ng : 1, sizeof *od->fx_max);
+    od->fx_mean = calloc(ng ? ng : 1, sizeof *od->fx_mean);
+    od->fx_nearmax = calloc(ng ? ng : 1, sizeof *od->fx_nearmax);
+    od->fx_nearest = calloc(ng ? ng : 1, sizeof *od->fx_nearest);
+    od->course_cgy = calloc(1, sizeof *od->course_cgy);
+    double *ug = calloc(ng ? ng : 1, sizeof *ug);
+    if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
+        !ug) {
+        organ_free(od);
+        free(ug);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    e->norgans++;
+    double shift = e->opt.setup_shift_cm, uc = 0, ec = 0;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        od->max_energy_mev = fmax(od->max_energy_mev, bd->energy_mev);
+        sl_model_value v, vp, vm;
+        double pc = eval_at(bd, depth_cm, distance_cm, e->opt.mode, 1.0, &v);
+        double pp = eval_at(bd, depth_cm, distance_cm + shift, e->opt.mode, 1.0, &vp);
+        double pm = eval_at(bd, depth_cm, fmax(distance_cm - shift, 0), e->opt.mode, 1.0, &vm);
+        double u = sqrt(v.u_percent * v.u_percent +
+                        pow(fmax(fabs(pp - pc), fabs(pm - pc)), 2));
+        od->flags |= v.flags | bd->model_flags;
+        for (size_t g = 0; g < ng; g++) {
+            if (!isfinite(bd->ref_cgy[g]))
+                continue;
+            od->fx_max[g].cgy += bd->ref_cgy[g] * pc / 100;
+            ug[g] += bd->ref_cgy[g] * u / 100;
+            double c = e->fractions[g] * bd->ref_cgy[g] / 100;
+            od->course_cgy[0] += c * pc;
+            uc += c * u;
+            ec += c * pc * (pc > 0 ? v.electron_percent / pc : 0);
+        }
+    }
+    for (size_t g = 0; g < ng; g++) {
+        set_stat(&od->fx_max[g], od->fx_max[g].cgy, ug[g]);
+        od->fx_mean[g] = od->fx_nearmax[g] = od->fx_nearest[g] = od->fx_max[g];
+    }
+    free(ug);
+    set_stat(&od->course_max, od->course_cgy[0], uc);
+    od->course_mean = od->course_nearmax = od->course_nearest = od->course_max;
+    od->electron_fraction = od->course_cgy[0] > 0 ? ec / od->course_cgy[0] : 0;
+    od->estimated = true;
     return SL_OK;
 }
