@@ -321,6 +321,11 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                 a->kind_by_option = true;
             }
         }
+        /* a ROI named for the gonads takes the patient's sex's levels */
+        if (!a->kind_by_option && is_kind(a->kind, "gonads") && pt->sex) {
+            const sl_kind *g = sl_levels_kind(lv, pt->sex == 'M' ? "testis" : "ovary");
+            a->kind = g ? g : a->kind;
+        }
         for (size_t m = 0; m < nother; m++) {
             if (strcmp(other[m].roi, d->roi->name) == 0)
                 a->other_cgy += other[m].cgy;

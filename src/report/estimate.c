@@ -278,7 +278,9 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
-        if (a->advice.count == 0 && a->statements.count == 0 && isnan(a->lar_cases))
+        /* every level checked is listed with its source and mark */
+        if (a->advice.count == 0 && a->statements.count == 0 && isnan(a->lar_cases) &&
+            a->nchecks == 0 && a->status != SL_ST_BAND)
             continue;
         if (!any)
             fprintf(fp, "\nadvice and risk statements:\n");
