@@ -235,6 +235,7 @@ static void fetus_verdict(sl_assessment *a, double gy, double up)
     }
     if (!base)
         return;
+    a->verdict = true;
     double lv = 1000 * base->dose_gy;
     if (up < base->dose_gy)
         sl_notes_add(&a->statements,

@@ -286,9 +286,12 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
             fprintf(fp, "\nadvice and risk statements:\n");
         any = true;
         fprintf(fp, "  %s:\n", a->dose->roi->name);
+        size_t s0 = a->verdict ? 1 : 0; /* the verdict before everything else */
+        if (a->verdict)
+            fprintf(fp, "    - %s\n", a->statements.items[0]);
         for (size_t i = 0; i < a->advice.count; i++)
             fprintf(fp, "    - %s\n", a->advice.items[i]);
-        for (size_t i = 0; i < a->statements.count; i++)
+        for (size_t i = s0; i < a->statements.count; i++)
             fprintf(fp, "    - %s\n", a->statements.items[i]);
         if (!isnan(a->lar_cases))
             fprintf(fp, "    - lifetime attributable risk of cancer incidence: about %.3g cases "

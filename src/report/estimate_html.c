@@ -552,9 +552,12 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     bool any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
+        size_t s0 = a->verdict ? 1 : 0; /* the verdict before everything else */
+        if (a->verdict)
+            helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[0]);
         for (size_t i = 0; i < a->advice.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->advice.items[i]);
-        for (size_t i = 0; i < a->statements.count; i++, any = true)
+        for (size_t i = s0; i < a->statements.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[i]);
         bool mgy = a->kind && strcmp(a->kind->kind, "fetus") == 0;
         for (size_t c = 0; c < a->nchecks; c++, any = true)

@@ -184,6 +184,12 @@ class Pregnancy(unittest.TestCase):
         self.assertIn("is below 50 mGy", first)
         # Williams & Fletcher, Am Fam Physician 82:488 (2010): published
         self.assertIn("Am Fam Physician", first)
+        # and in the text report, before the advice
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Fetus", (200.0, 50.0, 0.0))], E12, ONE)
+            rc, text, err = text_of(plan, ss, "--reference-dose", "1", "--gestational-age", "9")
+        block = text.split("\n  Fetus:\n", 1)[1]
+        self.assertTrue(block.startswith("    - verdict:"), block[:200])
 
     def test_options_and_help(self):
         with tempdir() as d:
