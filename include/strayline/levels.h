@@ -218,6 +218,7 @@ typedef struct sl_assessment {
                                  estimate: "incomplete: other beams not included" */
     double other_cgy;         /* dose added by --other-dose (course), 0: none */
     bool neutron_band;        /* the band was raised for a possibly neutron-producing beam */
+    bool neutron_unrated;     /* such a beam exists and the table has no neutron rule */
     bool pacing_raised;       /* the band was raised for pacing dependence */
     bool verdict;             /* statements.items[0] is the verdict (fetus): printed first */
 } sl_assessment;

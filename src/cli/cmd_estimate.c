@@ -462,6 +462,12 @@ int sl_cmd_estimate(int argc, char **argv)
                               i < npts ? "--point" : "--landmark", name);
             goto done;
         }
+        for (size_t j = 0; j < i; j++) {
+            if (strcmp(j < npts ? pts[j].name : lms[j - npts].name, name) == 0) {
+                rc = sl_cli_usage("estimate", "'%s': two points or landmarks of that name", name);
+                goto done;
+            }
+        }
         if (kind && strcmp(kind, "cardiac_device") == 0)
             patient.device_asked = true;
     }

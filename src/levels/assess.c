@@ -177,9 +177,8 @@ static sl_status patient_from_plan(sl_assessments *as, const sl_plan *plan)
     return st;
 }
 
-/* The plan's treatment beams that this tool does not estimate. Photons of
- * 10 MV or more may produce neutrons (from memory: the usual threshold);
- * an unknown photon energy counts as neutron-producing, the cautious side. */
+/* The plan's treatment beams that this tool does not estimate, with their
+ * meterset summed over the fraction groups that hold them. */
 static sl_status other_beams(sl_assessments *as, const sl_plan *plan)
 {
     if (!plan)
@@ -212,12 +211,11 @@ static sl_status other_beams(sl_assessments *as, const sl_plan *plan)
                     x->fractions = (x->fractions < 0 ? 0 : x->fractions) + fg->fractions;
             }
         }
+        /* photons of 10 MV or more (TG-203 speaks of beams above 10 MV: from
+         * memory; 10 MV itself counts, the cautious side) or of unknown
+         * energy; protons, neutrons, ions and unknown kinds always */
         bool photon = be->radiation_type && strcmp(be->radiation_type, "PHOTON") == 0;
-        x->neutron_producing = !photon || !(be->energy_mev < 10);
-        if (!photon && be->radiation_type && strcmp(be->radiation_type, "ELECTRON") != 0 &&
-            strcmp(be->radiation_type, "PROTON") != 0 && strcmp(be->radiation_type, "NEUTRON") != 0 &&
-            strcmp(be->radiation_type, "ION") != 0)
-            x->neutron_producing = true;
+        x->neutron_producing = photon ? !(be->energy_mev < 10) : true;
         as->neutrons |= x->neutron_producing;
     }
     return SL_OK;
@@ -423,7 +421,11 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                 a->band_upper = a->band_upper < k->neutron_band ? k->neutron_band
                                                                 : a->band_upper;
             }
-            if (as->neutrons && k->neutron_band < 0)
+            /* no neutron rule in this table: the device still needs attention
+             * (the cautious side; TG-203 would rate it high) */
+            a->neutron_unrated = as->neutrons && k->neutron_band < 0;
+            a->flagged |= a->neutron_unrated;
+            if (a->neutron_unrated)
                 sl_notes_add(&a->advice,
                              "a treatment beam of this plan may produce neutrons (photons of 10 "
                              "MV or more, or of unknown energy): this table (%s) has no "

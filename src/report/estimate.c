@@ -87,6 +87,9 @@ void est_qualifiers(const sl_assessment *a, char *buf, size_t size)
     if (a->governing && a->governing->single_exposure)
         sl_buf_printf(&b, "; single-exposure threshold; a fractionated course may act at lower "
                           "doses");
+    if (a->neutron_unrated)
+        sl_buf_printf(&b, "; a treatment beam may produce neutrons, which this table does not "
+                          "rate: ACTION");
     if (a->incomplete)
         sl_buf_printf(&b, "; incomplete: other beams not included");
     if (a->other_cgy > 0)

@@ -271,6 +271,25 @@ class DeviceTables(unittest.TestCase):
         b = self.band(100, TG203, "--other-dose", "Pacemaker=1", photon=6.0)
         self.assertFalse(b["raised_for_neutrons"])
 
+    def test_dutch_table_with_neutrons_still_needs_attention(self):
+        """The Dutch table has no neutron rule: a device beside an 18 MV
+        photon beam stays flagged even with the photon dose added (the
+        cautious side; TG-203 rates such a treatment high, from memory)."""
+        x, z = 9.0, 1.0
+        with tempdir() as d:
+            beams = E12 + [{"number": 2, "radiation_type": "PHOTON", "energy_mev": 18.0,
+                            "applicator": None}]
+            plan, ss = box_case(d, [("Pacemaker", (x * 10, z * 10, 0.0))], beams,
+                                [{"number": 1, "fractions": 1, "beams": [(1, 100.0), (2, 100.0)]}])
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1", "--other-dose",
+                                   "Pacemaker=1")
+        o = organ(js, "Pacemaker")
+        self.assertEqual(o["band"]["name"], "low")
+        self.assertFalse(o["incomplete"])
+        self.assertTrue(o["flagged"])
+        self.assertTrue(any("may produce neutrons" in a for a in o["advice"]))
+        self.assertEqual(rc, 4)
+
     def test_tg203_file_differs_only_in_the_device(self):
         a, b = yaml.safe_load(open(LEVELS)), yaml.safe_load(open(TG203))
         ka = [k for k in a["kinds"] if k["kind"] != "cardiac_device"]
