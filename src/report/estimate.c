@@ -123,7 +123,7 @@ void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size)
     char en[32], mu[48], fx[32];
     if (isfinite(b->energy))
         snprintf(en, sizeof en, "%g %s", b->energy,
-                 strcmp(b->radiation_type, "PHOTON") == 0 ? "MV" : "(nominal energy)");
+                 strcmp(b->radiation_type, "PHOTON") == 0 ? "MV" : "MeV");
     else
         snprintf(en, sizeof en, "energy unknown");
     if (isfinite(b->mu))
@@ -604,7 +604,10 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_int(w, bo, "number", b->number);
         jw_str(w, bo, "name", b->name);
         jw_str(w, bo, "radiation_type", b->radiation_type);
-        jw_num_opt(w, bo, "nominal_energy", b->energy);
+        /* DICOM's Nominal Beam Energy: MV for photons, MeV otherwise */
+        bool photon = strcmp(b->radiation_type, "PHOTON") == 0;
+        jw_num_opt(w, bo, "nominal_energy_mv", photon ? b->energy : NAN);
+        jw_num_opt(w, bo, "nominal_energy_mev", photon ? NAN : b->energy);
         jw_num_opt(w, bo, "mu_per_fraction", b->mu);
         if (b->fractions >= 0)
             jw_int(w, bo, "fractions", b->fractions);

@@ -69,6 +69,8 @@ class OtherBeams(unittest.TestCase):
             self.assertEqual(ob[0]["number"], 2)
             self.assertEqual(ob[0]["radiation_type"], "PHOTON")
             self.assertEqual(ob[0]["mu_per_fraction"], 200.0)
+            self.assertEqual(ob[0]["nominal_energy_mv"], 6.0)
+            self.assertIsNone(ob[0]["nominal_energy_mev"])
             self.assertEqual(ob[0]["fractions"], 5)
             self.assertFalse(ob[0]["may_produce_neutrons"])
             lens = organ(js, "Lens_L")
