@@ -95,6 +95,34 @@ class OtherBeams(unittest.TestCase):
             self.assertIn("not estimated by this tool", html)
             self.assertIn("incomplete: other beams not included", html)
 
+    def test_face_lens_variant_with_a_photon_treatment_beam(self):
+        """The shipped face-lens case (invented) with its photon setup beam
+        made a 200 MU TREATMENT beam (pydicom, into a temporary folder)."""
+        import pydicom
+        base = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+        with tempdir() as d:
+            p = pydicom.dcmread(os.path.join(base, "rtplan.dcm"))
+            p.BeamSequence[1].TreatmentDeliveryType = "TREATMENT"
+            p.FractionGroupSequence[0].ReferencedBeamSequence[1].BeamMeterset = "200.0"
+            plan = os.path.join(d, "rtplan.dcm")
+            p.save_as(plan)
+            ss = os.path.join(base, "rtstruct.dcm")
+            rc, js, err = estimate(plan, ss, "--prescription-isodose", "90")
+            self.assertEqual(rc, 4, err)
+            self.assertEqual([b["number"] for b in js["other_treatment_beams"]], [2])
+            self.assertEqual(js["other_treatment_beams"][0]["mu_per_fraction"], 200.0)
+            self.assertTrue(organ(js, "Thyroid")["incomplete"])
+            page = os.path.join(d, "r.html")
+            rc, text, err = text_of(plan, ss, "--prescription-isodose", "90", "--html", page)
+            self.assertIn("beam 2 'SETUP AP': PHOTON, 6 MV, 200.0 MU a fraction", text)
+            with open(page) as f:
+                self.assertIn("PHOTON, 6 MV, 200.0 MU a fraction, 15 fractions: not estimated "
+                              "by this tool", f.read())
+            # the shipped case itself: a setup beam is not a treatment beam
+            rc, js, err = estimate(os.path.join(base, "rtplan.dcm"), ss, "--prescription-isodose", "90")
+            self.assertEqual(js["other_treatment_beams"], [])
+            self.assertEqual(js["organs_incomplete"], 0)
+
     def test_other_dose_is_added_and_shown(self):
         dist, depth = point_geometry(20.0, 1.0)
         with tempdir() as d:
