@@ -96,6 +96,11 @@ void est_qualifiers(const sl_assessment *a, char *buf, size_t size)
         sl_buf_printf(&b, "; includes %.4g cGy given by --other-dose", a->other_cgy);
     if (a->dose->landmark)
         sl_buf_printf(&b, "; geometry measured on the patient");
+    /* the pregnancy documents speak mGy */
+    if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->dose->estimated)
+        sl_buf_printf(&b, "; fetal dose %.3g mGy (upper bound %.3g mGy)",
+                      10 * (a->dose->course_max.cgy + a->other_cgy),
+                      10 * (a->dose->course_max.upper_cgy + a->other_cgy));
     snprintf(buf, size, "%s", b.failed || !b.data ? "" : b.data);
     sl_buf_free(&b);
 }

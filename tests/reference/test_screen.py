@@ -214,6 +214,8 @@ class Pregnancy(unittest.TestCase):
         self.assertIn("is below 50 mGy", first)
         # Williams & Fletcher, Am Fam Physician 82:488 (2010): published
         self.assertIn("Am Fam Physician", first)
+        # the status of every format gives the fetal dose in mGy (1 cGy = 10 mGy)
+        self.assertIn("fetal dose %.3g mGy" % (10 * o["course_max_cgy"]), o["status_text"])
         # and in the text report, before the advice
         with tempdir() as d:
             plan, ss = box_case(d, [("Fetus", (200.0, 50.0, 0.0))], E12, ONE)
