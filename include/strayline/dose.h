@@ -145,6 +145,8 @@ typedef struct sl_organ_dose {
     bool near_edge;               /* min_distance_cm < SL_NEAR_EDGE_CM: marked, not judged */
     sl_budget course_max_budget;  /* the budget at the hottest sample, over the course */
     double *course_cgy;           /* per sample, for dose-volume histograms */
+    bool landmark;                /* geometry measured on the patient (--landmark): not in
+                                     the location's organs (organ is SIZE_MAX) */
 } sl_organ_dose;
 
 typedef struct sl_estimate {
@@ -166,6 +168,15 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
                             const sl_location *loc, const sl_estimate_options *opt,
                             sl_estimate **out, sl_error *err);
 void sl_estimate_free(sl_estimate *e);
+
+/* An organ outside the scanned volume, measured on the patient: its
+ * distance from the nearest field edge along the body surface and its depth
+ * (cm). Every beam is evaluated at that distance and depth (the cautious
+ * reading: the nearest edge of each field), with the model's uncertainty and
+ * the setup shift as at a sample. The organ is appended to e->organs as a
+ * point (landmark true); roi must outlive the estimate. */
+sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double distance_cm,
+                                   double depth_cm, sl_error *err);
 
 /* Is a ROI of this RT ROI Interpreted Type left out unless asked for? */
 bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why);

@@ -27,7 +27,9 @@ extern "C" {
 typedef struct sl_level {
     char *name;           /* "threshold for vision-impairing cataract" */
     double dose_gy;       /* course dose at which the level applies */
-    double weeks_from, weeks_to; /* gestational weeks it applies to (fetus), NAN: always */
+    double weeks_from, weeks_to; /* weeks after conception it applies to (fetus), NAN: always */
+    bool single_exposure; /* a single-exposure threshold compared with a course (exposure: single) */
+    bool fractionated;    /* given for a fractionated course (exposure: fractionated) */
     char *source;
     char *mark;           /* published | secondary | from memory | common practice */
 } sl_level;
@@ -39,7 +41,8 @@ typedef struct sl_band {
 
 typedef struct sl_statement {
     char *text;           /* a risk statement or caution for this kind */
-    double weeks_from, weeks_to;
+    double weeks_from, weeks_to; /* weeks after conception, NAN: always */
+    double ages_from, ages_to;   /* patient's age in years [from, to), NAN: always */
     double per_gy;        /* a risk per Gy that the report multiplies by the dose, NAN: none */
     char *source;
     char *mark;
@@ -56,6 +59,8 @@ typedef struct sl_kind {
     sl_band *bands;
     char *bands_source, *bands_mark;
     int pacing_shift;     /* bands to move up for a pacing-dependent patient */
+    int pacing_min_band;  /* lowest band of a pacing-dependent patient, -1: none */
+    int neutron_band;     /* lowest band when a beam may produce neutrons, -1: none */
     size_t nstatements;
     sl_statement *statements;
     bool stochastic;      /* the report gives a stochastic-risk note (thyroid, breast) */
@@ -94,9 +99,21 @@ const sl_kind *sl_levels_match(const sl_levels *l, const char *roi_name);
 const sl_kind *sl_levels_kind(const sl_levels *l, const char *kind);
 const sl_lar_table *sl_levels_table(const sl_levels *l, const char *name);
 
-/* Does a level or statement apply at a gestational age (weeks; NAN for
- * none given)? One without a week range always applies. */
+/* Does a level or statement apply at a number of weeks after conception
+ * (NAN for none given)? One without a week range always applies. The
+ * range is half-open: [from, to). */
 bool sl_level_applies(double from, double to, double weeks);
+
+/* Gestational age (weeks since the last menstrual period, the clinical
+ * convention) to weeks after conception, the count of ICRP Publication 84:
+ * about 2 weeks less (obstetric convention, common practice); never below 0. */
+#define SL_LMP_TO_CONCEPTION_WEEKS 2.0
+double sl_weeks_after_conception(double gestational_weeks);
+
+/* Age in whole years on a date from a birth date, both DICOM DA strings
+ * (YYYYMMDD); false when either is absent or not a valid date, or the birth
+ * date is after the date. */
+bool sl_age_on(const char *birth_da, const char *date_da, double *years);
 
 /* Lifetime attributable risk (cases per 100,000) for a dose (Gy) at an age
  * (years), interpolating the table linearly in age; NAN when the sex has no
@@ -130,11 +147,41 @@ double sl_alloy_mm(double energy_mev);
 
 /* What the report needs to know of the patient. */
 typedef struct sl_patient {
-    double gestational_weeks; /* NAN when not pregnant / not given */
+    double gestational_weeks; /* since the last menstrual period; NAN when not given */
     bool pacing_dependent;
     double age_years;         /* NAN when not given */
     char sex;                 /* 'M', 'F' or 0 */
+    double conception_weeks;  /* weeks after conception (ICRP 84 windows); NAN when not
+                                 pregnant; from --weeks-after-conception or the
+                                 gestational age less 2 weeks */
+    bool conception_given;    /* given as weeks after conception, not converted */
+    const char *age_from;     /* "option", "DICOM (birth date and plan date)" or NULL */
+    const char *sex_from;     /* "option", "DICOM" or NULL */
+    bool device_asked;        /* a device option was given (--pacing-dependent ...) */
+    double fetus_rise_cm;     /* what-if rise of the fetus toward the diaphragm, 0: none */
 } sl_patient;
+
+/* A patient with nothing known. */
+void sl_patient_init(sl_patient *p);
+
+/* A treatment beam of the plan that this tool does not estimate (photons,
+ * protons, ...): listed in every report, its organs marked incomplete. */
+typedef struct sl_other_beam {
+    int number;
+    const char *name;
+    const char *radiation_type;
+    double energy;            /* nominal, MV or MeV as the plan gives it; NAN */
+    double mu;                /* Beam Meterset per fraction, summed over groups; NAN */
+    int fractions;            /* over the groups that hold it; -1 unknown */
+    bool neutron_producing;   /* photons of 10 MV or more, or energy unknown */
+} sl_other_beam;
+
+/* A dose from elsewhere (another beam, a previous course) given by option
+ * and added to an organ's course dose before it is judged. */
+typedef struct sl_other_dose {
+    const char *roi;
+    double cgy;
+} sl_other_dose;
 
 /* A ROI given a kind on the command line (--organ "ROI=KIND"). */
 typedef struct sl_organ_map {
@@ -167,6 +214,13 @@ typedef struct sl_assessment {
     const sl_lar_table *lar;
     sl_notes advice;          /* each line with its source */
     sl_notes statements;      /* the kind's statements that apply, with sources */
+    bool incomplete;          /* has levels, and the plan has beams this tool does not
+                                 estimate: "incomplete: other beams not included" */
+    double other_cgy;         /* dose added by --other-dose (course), 0: none */
+    bool neutron_band;        /* the band was raised for a possibly neutron-producing beam */
+    bool neutron_unrated;     /* such a beam exists and the table has no neutron rule */
+    bool pacing_raised;       /* the band was raised for pacing dependence */
+    bool verdict;             /* statements.items[0] is the verdict (fetus): printed first */
 } sl_assessment;
 
 typedef struct sl_assessments {
@@ -177,6 +231,12 @@ typedef struct sl_assessments {
     bool any_flagged;
     size_t n_unjudged;        /* organs with levels that were not judged: in the field,
                                  beyond the model's range or not placed */
+    size_t nother;
+    sl_other_beam *other;     /* treatment beams not estimated by this tool */
+    size_t n_incomplete;      /* organs with levels marked incomplete */
+    bool neutrons;            /* a beam of the plan may produce neutrons */
+    sl_notes missing;         /* asked-for organs that are absent ("not assessed: no fetus
+                                 found ...") */
     sl_notes notes;
 } sl_assessments;
 
@@ -184,6 +244,11 @@ typedef struct sl_assessments {
  * mapping that names no ROI or no kind, a fetus without a gestational age. */
 sl_status sl_assess(const sl_levels *levels, const sl_estimate *est, const sl_patient *patient,
                     const sl_organ_map *map, size_t nmap, sl_assessments **out, sl_error *err);
+/* The same with doses from elsewhere added to organs (--other-dose). */
+sl_status sl_assess_with(const sl_levels *levels, const sl_estimate *est,
+                         const sl_patient *patient, const sl_organ_map *map, size_t nmap,
+                         const sl_other_dose *other, size_t nother, sl_assessments **out,
+                         sl_error *err);
 void sl_assessments_free(sl_assessments *a);
 
 /* Beyond this multiple of the measured distance range an organ is "not

@@ -136,6 +136,9 @@ typedef struct sl_plan {
     char *name;              /* RT Plan Name, may be NULL */
     char *patient_id;        /* for report headers only */
     char *patient_name;
+    char *patient_sex;       /* Patient's Sex (M, F, O), may be NULL */
+    char *patient_birth_date;/* Patient's Birth Date (YYYYMMDD), may be NULL */
+    char *plan_date;         /* RT Plan Date (YYYYMMDD), may be NULL */
     char *frame_uid;         /* Frame of Reference UID, may be NULL */
     char *structure_set_uid; /* Referenced Structure Set SOP Instance UID, may be NULL */
     size_t nsetups;

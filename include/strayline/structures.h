@@ -76,6 +76,10 @@ sl_status sl_structure_set_validate(sl_structure_set *ss, sl_error *err);
 
 /* Add a ROI holding one POINT contour (mm, patient coordinates): a point
  * given on the command line (a fetal landmark, a device) stands as an organ. */
+/* A copy of ROI src named name, every point moved by shift_mm (a what-if
+ * position, e.g. a fetus risen toward the diaphragm); noted in ss->notes. */
+sl_status sl_structures_add_shifted(sl_structure_set *ss, const char *src, const char *name,
+                                    sl_vec3 shift_mm, sl_error *err);
 sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const char *type,
                                   sl_vec3 point_mm, sl_error *err);
 

@@ -26,11 +26,16 @@ static const char help[] =
     "TREATMENT electron beams, per fraction and per course (cGy), with its\n"
     "uncertainty (k = 1) and upper bound (k = 2), compared with action levels\n"
     "that carry their sources; shielding and measurement advice. Exit code 4\n"
-    "when an organ may exceed or exceeds its level (or a device is above the low\n"
-    "risk band).\n\n"
+    "when an organ may exceed or exceeds its level, a device is above the low\n"
+    "risk band, an organ is left incomplete or a fetus or device asked for is\n"
+    "not found.\n\n"
+    "Treatment beams of other kinds (photons ...) are listed as not estimated\n"
+    "and every organ with an action level is marked incomplete (exit code 4)\n"
+    "unless --other-dose gives its dose from them.\n\n"
     "  -m, --model FILE            the machine's model file (required)\n"
     "  -l, --levels FILE           action-level table (default: action-levels.yaml\n"
-    "                              beside the model file)\n"
+    "                              beside the model file; models/action-levels-tg203.yaml\n"
+    "                              judges cardiac devices by the AAPM TG-203 categories)\n"
     "  -f, --format FMT            standard output: text (default), json or csv\n"
     "  -o, --html FILE             also write the HTML report (self-contained)\n"
     "      --prescription-isodose PERCENT\n"
@@ -43,11 +48,30 @@ static const char help[] =
     "      --points                interpolate the measured points, not the fits\n"
     "      --shield ROI=T          what-if: electron transmission T (0..1) over ROI\n"
     "      --organ ROI=KIND        give a ROI an organ kind (lens, fetus, ...)\n"
-    "      --gestational-age WEEKS pregnant patient: gestational age\n"
-    "      --fetus-point X,Y,Z     fetal landmark (patient coordinates, mm)\n"
-    "      --device-point X,Y,Z    implanted cardiac device (patient coordinates, mm)\n"
+    "      --other-dose ROI=CGY    add a course dose from elsewhere (other beams, an\n"
+    "                              earlier course) to a ROI before it is judged\n"
+    "      --gestational-age WEEKS pregnant patient: gestational age in weeks since\n"
+    "                              the last menstrual period (the clinical convention);\n"
+    "                              the ICRP 84 periods count weeks after conception,\n"
+    "                              about 2 weeks less\n"
+    "      --weeks-after-conception WEEKS\n"
+    "                              the same, given as weeks after conception\n"
+    "      --fetus-rise CM         what-if: also estimate each fetus CM closer to the\n"
+    "                              head (it rises toward the diaphragm as pregnancy\n"
+    "                              advances, during a course of several weeks)\n"
+    "      --fetus-point X,Y,Z<mm|cm>  fetal position (patient coordinates), with its\n"
+    "                              unit: 0,-250,-480mm or 0,-25,-48cm\n"
+    "      --device-point X,Y,Z<mm|cm> implanted cardiac device (patient coordinates)\n"
+    "      --point NAME=KIND@X,Y,Z<mm|cm>\n"
+    "                              any organ or dosimeter position of a kind\n"
+    "      --landmark NAME=KIND:DISTANCE_CM:DEPTH_CM\n"
+    "                              an organ outside the scan, measured on the patient:\n"
+    "                              distance from the nearest field edge along the body\n"
+    "                              surface and depth below it (cm)\n"
     "      --pacing-dependent      the patient depends on the pacemaker\n"
-    "      --age YEARS --sex M|F   for lifetime cancer risks (thyroid, breast)\n"
+    "      --age YEARS --sex M|F   for age-dependent statements and lifetime cancer\n"
+    "                              risks (default: from the plan's Patient's Sex, Birth\n"
+    "                              Date and RT Plan Date)\n"
     "      --include-targets       estimate PTV / CTV / GTV ROIs too\n"
     "  -d, --depth CM              a depth for every organ (no body contour)\n"
     "      --allow-mismatch        go on when plan and structure set do not belong\n"
@@ -70,19 +94,53 @@ enum {
     OPT_AGE,
     OPT_SEX,
     OPT_TARGETS,
-    OPT_MISMATCH
+    OPT_MISMATCH,
+    OPT_CONCEPTION,
+    OPT_OTHER,
+    OPT_POINT,
+    OPT_LANDMARK,
+    OPT_RISE
 };
 
 #define MAX_ITEMS 64
 
+/* "X,Y,Z" with a unit, mm or cm, at the end: every report speaks cm and the
+ * DICOM files mm, so a point without its unit is refused rather than guessed
+ * (a point typed in cm and read as mm lands ten times too near). */
 static bool parse_point(const char *s, sl_vec3 *p)
 {
     char buf[128];
-    snprintf(buf, sizeof buf, "%s", s);
-    char *a = strtok(buf, ","), *b = strtok(NULL, ","), *c = strtok(NULL, ",");
-    return a && b && c && !strtok(NULL, ",") && sl_parse_double(a, &p->x) &&
-           sl_parse_double(b, &p->y) && sl_parse_double(c, &p->z);
+    size_t n = strlen(s);
+    if (n < 3 || n >= sizeof buf)
+        return false;
+    double scale;
+    if (strcmp(s + n - 2, "mm") == 0)
+        scale = 1;
+    else if (strcmp(s + n - 2, "cm") == 0)
+        scale = 10;
+    else
+        return false;
+    memcpy(buf, s, n - 2);
+    buf[n - 2] = '\0';
+    char *save = NULL;
+    char *a = strtok_r(buf, ",", &save), *b = strtok_r(NULL, ",", &save),
+         *c = strtok_r(NULL, ",", &save);
+    if (!(a && b && c && !strtok_r(NULL, ",", &save) && sl_parse_double(a, &p->x) &&
+          sl_parse_double(b, &p->y) && sl_parse_double(c, &p->z)))
+        return false;
+    p->x *= scale;
+    p->y *= scale;
+    p->z *= scale;
+    return true;
 }
+
+#define POINT_FORMS "X,Y,Z with its unit, in mm (0,-250,-480mm) or cm (0,-25,-48cm)"
+
+typedef struct given_point {
+    char name[160];
+    const char *kind;
+    sl_vec3 mm;
+} given_point;
 
 /* "NAME=VALUE": split at the last '=' (ROI names may hold '='). */
 static char *split_eq(char *s)
@@ -92,6 +150,47 @@ static char *split_eq(char *s)
         return NULL;
     *eq = '\0';
     return eq + 1;
+}
+
+typedef struct landmark {
+    char name[160];
+    const char *kind;
+    double distance_cm, depth_cm;
+} landmark;
+
+/* A point typed in the wrong unit lands somewhere plausible-looking: warn
+ * when it lies outside the body contour or far from every ROI of the scan. */
+#define POINT_FAR_MM 100.0
+static void point_sanity(sl_assessments *as, const sl_structure_set *ss, size_t nscan,
+                         const sl_location *loc, const given_point *pts, size_t npts)
+{
+    for (size_t i = 0; i < npts; i++) {
+        for (size_t o = 0; o < loc->norgans; o++) {
+            if (strcmp(loc->rois[o]->name, pts[i].name) != 0 || loc->nbeams == 0)
+                continue;
+            if (loc->external && loc->beams[0].organs[o].outside_body_fraction > 0)
+                sl_notes_add(&as->notes,
+                             "point '%s' (%.1f, %.1f, %.1f mm) lies outside the body contour: "
+                             "check its coordinates and unit",
+                             pts[i].name, pts[i].mm.x, pts[i].mm.y, pts[i].mm.z);
+        }
+        double best = INFINITY;
+        for (size_t r = 0; r < nscan; r++) {
+            const sl_roi *roi = &ss->rois[r];
+            for (size_t c = 0; c < roi->ncontours; c++)
+                for (size_t k = 0; k < roi->contours[c].npoints; k++) {
+                    sl_vec3 q = roi->contours[c].points[k];
+                    double dx = q.x - pts[i].mm.x, dy = q.y - pts[i].mm.y, dz = q.z - pts[i].mm.z;
+                    best = fmin(best, sqrt(dx * dx + dy * dy + dz * dz));
+                }
+        }
+        if (nscan && best > POINT_FAR_MM)
+            sl_notes_add(&as->notes,
+                         "point '%s' (%.1f, %.1f, %.1f mm) is %.1f cm from the nearest contour "
+                         "point of every ROI: check its coordinates and unit, or use --landmark "
+                         "for an organ outside the scan",
+                         pts[i].name, pts[i].mm.x, pts[i].mm.y, pts[i].mm.z, best / 10);
+    }
 }
 
 int sl_cmd_estimate(int argc, char **argv)
@@ -109,6 +208,11 @@ int sl_cmd_estimate(int argc, char **argv)
         {"shield", required_argument, NULL, OPT_SHIELD},
         {"organ", required_argument, NULL, OPT_ORGAN},
         {"gestational-age", required_argument, NULL, OPT_WEEKS},
+        {"weeks-after-conception", required_argument, NULL, OPT_CONCEPTION},
+        {"other-dose", required_argument, NULL, OPT_OTHER},
+        {"point", required_argument, NULL, OPT_POINT},
+        {"landmark", required_argument, NULL, OPT_LANDMARK},
+        {"fetus-rise", required_argument, NULL, OPT_RISE},
         {"fetus-point", required_argument, NULL, OPT_FETUS},
         {"device-point", required_argument, NULL, OPT_DEVICE},
         {"pacing-dependent", no_argument, NULL, OPT_PACING},
@@ -127,12 +231,17 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_estimate_default_options(&eopt);
     sl_locate_options lopt;
     sl_locate_default_options(&lopt);
-    sl_patient patient = {NAN, false, NAN, 0};
-    bool allow_mismatch = false, fetus_point = false, device_point = false;
-    sl_vec3 fetus_mm = {0, 0, 0}, device_mm = {0, 0, 0};
+    sl_patient patient;
+    sl_patient_init(&patient);
+    bool allow_mismatch = false;
     sl_shield shields[MAX_ITEMS];
-    sl_organ_map map[MAX_ITEMS + 2]; /* room for the fetus and device points */
-    size_t nshields = 0, nmap = 0;
+    sl_organ_map map[3 * MAX_ITEMS]; /* room for the points, landmarks and fetus copies */
+    sl_other_dose others[MAX_ITEMS];
+    given_point pts[MAX_ITEMS];
+    landmark lms[MAX_ITEMS];
+    sl_roi lm_rois[MAX_ITEMS];
+    char rise_names[MAX_ITEMS][200];
+    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0, nrise = 0;
     double v;
     int c;
     optind = 1;
@@ -179,32 +288,109 @@ int sl_cmd_estimate(int argc, char **argv)
             map[nmap++] = (sl_organ_map){optarg, k};
             break;
         }
+        case OPT_OTHER: {
+            char *t = split_eq(optarg);
+            if (!t || !sl_parse_double(t, &v) || v <= 0 || v > 1e5 || nothers == MAX_ITEMS)
+                return sl_cli_usage("estimate", "--other-dose needs ROI=CGY (a course dose in "
+                                                "cGy, more than 0)");
+            others[nothers++] = (sl_other_dose){optarg, v};
+            break;
+        }
         case OPT_WEEKS:
             if (!sl_parse_double(optarg, &v) || v < 0 || v > 44)
-                return sl_cli_usage("estimate", "--gestational-age needs 0 to 44 weeks, not '%s'",
+                return sl_cli_usage("estimate", "--gestational-age needs 0 to 44 weeks since the "
+                                                "last menstrual period, not '%s'",
                                     optarg);
             patient.gestational_weeks = v;
             break;
+        case OPT_CONCEPTION:
+            if (!sl_parse_double(optarg, &v) || v < 0 || v > 42)
+                return sl_cli_usage("estimate", "--weeks-after-conception needs 0 to 42 weeks, "
+                                                "not '%s'",
+                                    optarg);
+            patient.conception_weeks = v;
+            patient.conception_given = true;
+            break;
+        case OPT_RISE:
+            if (!sl_parse_double(optarg, &v) || v <= 0 || v > 30)
+                return sl_cli_usage("estimate", "--fetus-rise needs more than 0 and at most 30 "
+                                                "cm, not '%s'",
+                                    optarg);
+            patient.fetus_rise_cm = v;
+            break;
         case OPT_FETUS:
-            if (!parse_point(optarg, &fetus_mm))
-                return sl_cli_usage("estimate", "--fetus-point needs X,Y,Z in mm");
-            fetus_point = true;
+        case OPT_DEVICE: {
+            if (npts == MAX_ITEMS)
+                return sl_cli_usage("estimate", "too many points");
+            given_point *g = &pts[npts];
+            if (!parse_point(optarg, &g->mm))
+                return sl_cli_usage("estimate", "%s '%s': needs " POINT_FORMS,
+                                    c == OPT_FETUS ? "--fetus-point" : "--device-point", optarg);
+            snprintf(g->name, sizeof g->name, "%s",
+                     c == OPT_FETUS ? "Fetus (point given)" : "Cardiac device (point given)");
+            g->kind = c == OPT_FETUS ? "fetus" : "cardiac_device";
+            for (size_t i = 0; i < npts; i++)
+                if (strcmp(pts[i].name, g->name) == 0)
+                    return sl_cli_usage("estimate", "%s given twice",
+                                        c == OPT_FETUS ? "--fetus-point" : "--device-point");
+            npts++;
             break;
-        case OPT_DEVICE:
-            if (!parse_point(optarg, &device_mm))
-                return sl_cli_usage("estimate", "--device-point needs X,Y,Z in mm");
-            device_point = true;
+        }
+        case OPT_POINT: {
+            /* NAME=KIND@X,Y,Z<unit> */
+            char *at = strrchr(optarg, '@');
+            char *eq = at ? memchr(optarg, '=', (size_t)(at - optarg)) : NULL;
+            if (npts == MAX_ITEMS || !at || !eq || eq == optarg || eq + 1 == at)
+                return sl_cli_usage("estimate", "--point '%s': needs NAME=KIND@" POINT_FORMS,
+                                    optarg);
+            given_point *g = &pts[npts];
+            if (!parse_point(at + 1, &g->mm))
+                return sl_cli_usage("estimate", "--point '%s': needs NAME=KIND@" POINT_FORMS,
+                                    optarg);
+            *at = '\0';
+            *eq = '\0';
+            snprintf(g->name, sizeof g->name, "%s", optarg);
+            g->kind = eq + 1;
+            npts++;
             break;
-        case OPT_PACING: patient.pacing_dependent = true; break;
+        }
+        case OPT_LANDMARK: {
+            /* NAME=KIND:DISTANCE_CM:DEPTH_CM */
+            char *eq = strchr(optarg, '=');
+            char *c1 = eq ? strchr(eq + 1, ':') : NULL, *c2 = c1 ? strchr(c1 + 1, ':') : NULL;
+            landmark *l = &lms[nlms];
+            if (nlms == MAX_ITEMS || !eq || eq == optarg || !c1 || c1 == eq + 1 || !c2 ||
+                strchr(c2 + 1, ':'))
+                return sl_cli_usage("estimate", "--landmark '%s': needs "
+                                                "NAME=KIND:DISTANCE_CM:DEPTH_CM",
+                                    optarg);
+            *eq = *c1 = *c2 = '\0';
+            if (!sl_parse_double(c1 + 1, &l->distance_cm) || l->distance_cm < 0 ||
+                l->distance_cm > 200 || !sl_parse_double(c2 + 1, &l->depth_cm) ||
+                l->depth_cm < 0 || l->depth_cm > 50)
+                return sl_cli_usage("estimate", "--landmark '%s': distance (0 to 200 cm) and "
+                                                "depth (0 to 50 cm) must be numbers in cm",
+                                    optarg);
+            snprintf(l->name, sizeof l->name, "%s", optarg);
+            l->kind = eq + 1;
+            nlms++;
+            break;
+        }
+        case OPT_PACING:
+            patient.pacing_dependent = true;
+            patient.device_asked = true;
+            break;
         case OPT_AGE:
             if (!sl_parse_double(optarg, &v) || v < 0 || v > 120)
                 return sl_cli_usage("estimate", "--age needs years, not '%s'", optarg);
             patient.age_years = v;
+            patient.age_from = "option";
             break;
         case OPT_SEX:
             if (strcmp(optarg, "M") != 0 && strcmp(optarg, "F") != 0)
                 return sl_cli_usage("estimate", "--sex needs M or F");
             patient.sex = optarg[0];
+            patient.sex_from = "option";
             break;
         case OPT_TARGETS: eopt.include_targets = true; break;
         case 'd':
@@ -225,10 +411,13 @@ int sl_cmd_estimate(int argc, char **argv)
         return sl_cli_usage("estimate", "needs two files: PLAN STRUCTURES");
     if (!model_path)
         return sl_cli_usage("estimate", "--model MODEL.yaml is required");
-    if (fetus_point && isnan(patient.gestational_weeks))
-        return sl_cli_usage("estimate", "--fetus-point needs --gestational-age WEEKS");
-    if ((patient.sex && isnan(patient.age_years)) || (!patient.sex && !isnan(patient.age_years)))
-        return sl_cli_usage("estimate", "--age and --sex go together");
+    if (!isnan(patient.gestational_weeks) && patient.conception_given)
+        return sl_cli_usage("estimate", "give --gestational-age or --weeks-after-conception, "
+                                        "not both");
+    if (!isnan(patient.gestational_weeks))
+        patient.conception_weeks = sl_weeks_after_conception(patient.gestational_weeks);
+    if (patient.fetus_rise_cm > 0 && isnan(patient.conception_weeks))
+        return sl_cli_usage("estimate", "--fetus-rise needs --gestational-age WEEKS");
     const char *plan_path = argv[optind], *ss_path = argv[optind + 1];
     char default_levels[4096];
     if (!levels_path) {
@@ -256,18 +445,66 @@ int sl_cmd_estimate(int argc, char **argv)
         sl_machine_catalogue(&model->machine, &cat, &lopt.ncatalogue, &err) != SL_OK ||
         sl_dicom_read_plan(plan_path, &plan, &err) != SL_OK ||
         sl_dicom_read_structures(ss_path, &ss, &err) != SL_OK ||
-        sl_pair_check(plan, ss, allow_mismatch, &err) != SL_OK ||
-        (fetus_point && sl_structures_add_point(ss, "Fetus (point given)", "MARKER", fetus_mm,
-                                                &err) != SL_OK) ||
-        (device_point && sl_structures_add_point(ss, "Cardiac device (point given)", "MARKER",
-                                                 device_mm, &err) != SL_OK)) {
+        sl_pair_check(plan, ss, allow_mismatch, &err) != SL_OK) {
         rc = sl_cli_fail(&err);
         goto done;
     }
-    if (device_point)
-        map[nmap++] = (sl_organ_map){"Cardiac device (point given)", "cardiac_device"};
-    if (fetus_point)
-        map[nmap++] = (sl_organ_map){"Fetus (point given)", "fetus"};
+    size_t nrois_scan = ss->nrois;
+    for (size_t i = 0; i < npts + nlms; i++) {
+        const char *kind = i < npts ? pts[i].kind : lms[i - npts].kind;
+        const char *name = i < npts ? pts[i].name : lms[i - npts].name;
+        if (!sl_levels_kind(levels, kind)) {
+            rc = sl_cli_usage("estimate", "%s '%s': unknown kind '%s' (see %s)",
+                              i < npts ? "--point" : "--landmark", name, kind, levels_path);
+            goto done;
+        }
+        if (sl_structures_find(ss, name)) {
+            rc = sl_cli_usage("estimate", "%s '%s': a ROI of that name exists already",
+                              i < npts ? "--point" : "--landmark", name);
+            goto done;
+        }
+        for (size_t j = 0; j < i; j++) {
+            if (strcmp(j < npts ? pts[j].name : lms[j - npts].name, name) == 0) {
+                rc = sl_cli_usage("estimate", "'%s': two points or landmarks of that name", name);
+                goto done;
+            }
+        }
+        if (kind && strcmp(kind, "cardiac_device") == 0)
+            patient.device_asked = true;
+    }
+    for (size_t i = 0; i < npts; i++) {
+        if (sl_structures_add_point(ss, pts[i].name, "MARKER", pts[i].mm, &err) != SL_OK) {
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        map[nmap++] = (sl_organ_map){pts[i].name, pts[i].kind};
+    }
+    /* what-if: every fetus again, the given distance toward the head (+z in
+     * patient coordinates, whatever the patient position) */
+    if (patient.fetus_rise_cm > 0) {
+        size_t n0 = ss->nrois;
+        for (size_t r = 0; r < n0 && nrise < MAX_ITEMS; r++) {
+            const char *name = ss->rois[r].name;
+            const sl_kind *k = sl_levels_match(levels, name);
+            for (size_t m = 0; m < nmap; m++)
+                if (strcmp(map[m].roi, name) == 0)
+                    k = sl_levels_kind(levels, map[m].kind);
+            const char *why;
+            if (!k || strcmp(k->kind, "fetus") != 0 ||
+                sl_dose_type_excluded(ss->rois[r].type, eopt.include_targets, &why))
+                continue;
+            snprintf(rise_names[nrise], sizeof rise_names[nrise],
+                     "%s (what-if: %g cm toward the head)", name, patient.fetus_rise_cm);
+            if (sl_structures_add_shifted(ss, name, rise_names[nrise],
+                                          (sl_vec3){0, 0, 10 * patient.fetus_rise_cm},
+                                          &err) != SL_OK) {
+                rc = sl_cli_fail(&err);
+                goto done;
+            }
+            map[nmap++] = (sl_organ_map){rise_names[nrise], "fetus"};
+            nrise++;
+        }
+    }
     for (size_t i = 0; i < nshields; i++) {
         if (!sl_structures_find(ss, shields[i].roi)) {
             rc = sl_cli_usage("estimate", "--shield '%s': no ROI of that name", shields[i].roi);
@@ -277,11 +514,27 @@ int sl_cmd_estimate(int argc, char **argv)
     lopt.catalogue = cat;
     eopt.model = model;
     if (sl_locate(plan, ss, &lopt, &loc, &err) != SL_OK ||
-        sl_estimate_doses(plan, ss, loc, &eopt, &est, &err) != SL_OK ||
-        sl_assess(levels, est, &patient, map, nmap, &as, &err) != SL_OK) {
+        sl_estimate_doses(plan, ss, loc, &eopt, &est, &err) != SL_OK) {
         rc = sl_cli_fail(&err);
         goto done;
     }
+    for (size_t i = 0; i < nlms; i++) {
+        memset(&lm_rois[i], 0, sizeof lm_rois[i]);
+        lm_rois[i].number = -1;
+        lm_rois[i].name = lms[i].name;
+        lm_rois[i].type = "MARKER";
+        if (sl_estimate_add_landmark(est, &lm_rois[i], lms[i].distance_cm, lms[i].depth_cm,
+                                     &err) != SL_OK) {
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        map[nmap++] = (sl_organ_map){lms[i].name, lms[i].kind};
+    }
+    if (sl_assess_with(levels, est, &patient, map, nmap, others, nothers, &as, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    point_sanity(as, ss, nrois_scan, loc, pts, npts);
     sl_estimate_report rep = {plan, ss, loc, est, as, model, levels};
     if (html) {
         const char *inputs[] = {plan_path, ss_path, model_path, levels_path};

@@ -563,6 +563,11 @@ void read_plan_items(Reader &r, DcmDataset *ds, sl_plan *p)
     p->name = r.cstr(r.str(ds, DCM_RTPlanName));
     p->patient_id = r.cstr(r.str(ds, DCM_PatientID));
     p->patient_name = r.cstr(r.str(ds, DCM_PatientName));
+    /* for the patient's sex and age at the plan date (the assessment checks
+     * the strings; absent stays NULL) */
+    p->patient_sex = r.cstr(r.str(ds, DCM_PatientSex));
+    p->patient_birth_date = r.cstr(r.str(ds, DCM_PatientBirthDate));
+    p->plan_date = r.cstr(r.str(ds, DCM_RTPlanDate));
     p->frame_uid = r.cstr(r.str(ds, DCM_FrameOfReferenceUID));
     std::vector<DcmItem *> rss = r.seq(ds, DCM_ReferencedStructureSetSequence, "", false);
     if (!rss.empty())

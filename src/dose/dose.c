@@ -9,6 +9,7 @@
 #include "strayline/util.h"
 
 #include <math.h>
+#include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -672,5 +673,94 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
         return st;
     }
     *out = e;
+    return SL_OK;
+}
+
+/* A landmark is one sample at a measured distance and depth for every
+ * beam: the same arithmetic as a sample of organ_task_run. */
+sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double distance_cm,
+                                   double depth_cm, sl_error *err)
+{
+    if (!(distance_cm >= 0 && distance_cm <= SL_MAX_DISTANCE_CM) ||
+        !(depth_cm >= 0 && depth_cm <= SL_MAX_DEPTH_CM))
+        return sl_error_set(err, SL_EUSAGE,
+                            "--landmark '%s': distance must be 0 to %.0f cm and depth 0 to %.0f "
+                            "cm",
+                            roi->name, SL_MAX_DISTANCE_CM, SL_MAX_DEPTH_CM);
+    sl_organ_dose *no = realloc(e->organs, (e->norgans + 1) * sizeof *no);
+    if (!no)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    e->organs = no;
+    sl_organ_dose *od = &e->organs[e->norgans];
+    memset(od, 0, sizeof *od);
+    od->organ = SIZE_MAX;
+    od->roi = roi;
+    od->landmark = true;
+    od->is_point = true;
+    od->placed = true;
+    od->ngroups = e->ngroups;
+    od->shield_transmission = 1.0;
+    od->min_distance_cm = distance_cm;
+    od->min_depth_cm = od->max_depth_cm = depth_cm;
+    size_t ng = e->ngroups;
+    od->fx_max = calloc(ng ? ng : 1, sizeof *od->fx_max);
+    od->fx_mean = calloc(ng ? ng : 1, sizeof *od->fx_mean);
+    od->fx_nearmax = calloc(ng ? ng : 1, sizeof *od->fx_nearmax);
+    od->fx_nearest = calloc(ng ? ng : 1, sizeof *od->fx_nearest);
+    od->course_cgy = calloc(1, sizeof *od->course_cgy);
+    double *ug = calloc(ng ? ng : 1, sizeof *ug);
+    if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
+        !ug) {
+        organ_free(od);
+        free(ug);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    e->norgans++;
+    double shift = e->opt.setup_shift_cm, uc = 0, ec = 0;
+    if (distance_cm < SL_NEAR_EDGE_CM) {
+        od->near_edge = true;
+        od->flags |= SL_MF_NEAR_EDGE;
+    }
+    sl_budget *bg = &od->course_max_budget;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        od->max_energy_mev = fmax(od->max_energy_mev, bd->energy_mev);
+        /* measured on the patient: the direction and the applicator's edge
+         * are unknown (the highest direction is taken) */
+        sl_eval_query q = {depth_cm, distance_cm, NAN, NAN, e->opt.mode, 1.0};
+        sl_model_value v;
+        double us;
+        eval_shifted(bd, q, shift, 1.0, &v, &us);
+        double pc = v.percent;
+        double u = sqrt(v.u_percent * v.u_percent + us * us);
+        od->flags |= v.flags | bd->model_flags;
+        for (size_t g = 0; g < ng; g++) {
+            if (!isfinite(bd->ref_cgy[g]))
+                continue;
+            od->fx_max[g].cgy += bd->ref_cgy[g] * pc / 100;
+            ug[g] += bd->ref_cgy[g] * u / 100;
+            double c = e->fractions[g] * bd->ref_cgy[g] / 100;
+            od->course_cgy[0] += c * pc;
+            uc += c * u;
+            ec += c * pc * (pc > 0 ? v.electron_percent / pc : 0);
+            bg->fit_cgy += c * v.u_fit;
+            bg->measurement_cgy += c * v.u_meas;
+            bg->interpolation_cgy += c * v.u_interp;
+            bg->extrapolation_cgy += c * v.u_extrap;
+            bg->standin_cgy += c * v.u_standin;
+            bg->transfer_cgy += c * v.u_transfer;
+            bg->setup_cgy += c * us;
+            bg->combined_cgy += c * u;
+        }
+    }
+    for (size_t g = 0; g < ng; g++) {
+        set_stat(&od->fx_max[g], od->fx_max[g].cgy, ug[g]);
+        od->fx_mean[g] = od->fx_nearmax[g] = od->fx_nearest[g] = od->fx_max[g];
+    }
+    free(ug);
+    set_stat(&od->course_max, od->course_cgy[0], uc);
+    od->course_mean = od->course_nearmax = od->course_nearest = od->course_max;
+    od->electron_fraction = od->course_cgy[0] > 0 ? ec / od->course_cgy[0] : 0;
+    od->estimated = true;
     return SL_OK;
 }

@@ -25,6 +25,8 @@ void sl_assessments_free(sl_assessments *a)
         sl_notes_free(&a->items[i].statements);
     }
     free(a->items);
+    free(a->other);
+    sl_notes_free(&a->missing);
     sl_notes_free(&a->notes);
     free(a);
 }
@@ -67,9 +69,12 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
 static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
 {
     const sl_organ_dose *d = a->dose;
-    double gy = d->course_max.cgy / 100, up = d->course_max.upper_cgy / 100;
+    double gy = (d->course_max.cgy + a->other_cgy) / 100,
+           up = (d->course_max.upper_cgy + a->other_cgy) / 100;
     /* an unjudged organ is flagged for measurement, not for a shield */
-    if (a->flagged && a->status != SL_ST_NOT_ASSESSED) {
+    bool over = a->status == SL_ST_EXCEEDS || a->status == SL_ST_MAY_EXCEED ||
+                (a->status == SL_ST_BAND && (a->band >= 1 || a->band_upper >= 1));
+    if (over) {
         if (d->electron_fraction > 0.5) {
             a->shield_advised = true;
             a->shield_energy_mev = d->max_energy_mev;
@@ -124,7 +129,10 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
     const sl_kind *k = a->kind;
     for (size_t i = 0; k && i < k->nstatements; i++) {
         const sl_statement *s = &k->statements[i];
-        if (!sl_level_applies(s->weeks_from, s->weeks_to, pt->gestational_weeks))
+        if (!sl_level_applies(s->weeks_from, s->weeks_to, pt->conception_weeks))
+            continue;
+        /* an age-dependent statement needs the age (the report asks for it) */
+        if (!isnan(s->ages_from) && !(pt->age_years >= s->ages_from && pt->age_years < s->ages_to))
             continue;
         if (isfinite(s->per_gy))
             sl_notes_add(&a->statements, "%s: for %.3g Gy, about %.2g %% (%s; %s)", s->text, gy,
@@ -134,10 +142,137 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
     }
 }
 
+/* Patient's Sex and the age at the plan date from the plan, when the options
+ * do not give them; a disagreement keeps the option and warns. */
+static sl_status patient_from_plan(sl_assessments *as, const sl_plan *plan)
+{
+    sl_patient *pt = &as->patient;
+    sl_status st = SL_OK;
+    if (!plan)
+        return SL_OK;
+    const char *sx = plan->patient_sex;
+    char dsex = sx && (strcmp(sx, "M") == 0 || strcmp(sx, "F") == 0) ? sx[0] : 0;
+    if (pt->sex && dsex && dsex != pt->sex)
+        st = sl_notes_add(&as->notes,
+                          "--sex %c disagrees with the plan's Patient's Sex (0010,0040) '%c': "
+                          "the option is used",
+                          pt->sex, dsex);
+    else if (!pt->sex && dsex) {
+        pt->sex = dsex;
+        pt->sex_from = "DICOM Patient's Sex";
+    }
+    double age;
+    if (st == SL_OK && sl_age_on(plan->patient_birth_date, plan->plan_date, &age)) {
+        if (!isnan(pt->age_years) && fabs(pt->age_years - age) >= 1)
+            st = sl_notes_add(&as->notes,
+                              "--age %g disagrees with the age at the plan date from the plan's "
+                              "Patient's Birth Date (0010,0030) and RT Plan Date (300A,0006), "
+                              "%g years: the option is used",
+                              pt->age_years, age);
+        else if (isnan(pt->age_years)) {
+            pt->age_years = age;
+            pt->age_from = "DICOM Patient's Birth Date and RT Plan Date";
+        }
+    }
+    return st;
+}
+
+/* The plan's treatment beams that this tool does not estimate, with their
+ * meterset summed over the fraction groups that hold them. */
+static sl_status other_beams(sl_assessments *as, const sl_plan *plan)
+{
+    if (!plan)
+        return SL_OK;
+    for (size_t b = 0; b < plan->nbeams; b++) {
+        const sl_beam *be = &plan->beams[b];
+        bool treatment = !be->delivery_type || strcmp(be->delivery_type, "TREATMENT") == 0;
+        bool electron = be->radiation_type && strcmp(be->radiation_type, "ELECTRON") == 0;
+        if (!treatment || electron)
+            continue;
+        sl_other_beam *nb = realloc(as->other, (as->nother + 1) * sizeof *nb);
+        if (!nb)
+            return SL_ENOMEM;
+        as->other = nb;
+        sl_other_beam *x = &as->other[as->nother++];
+        x->number = be->number;
+        x->name = be->name;
+        x->radiation_type = be->radiation_type ? be->radiation_type : "unknown";
+        x->energy = be->energy_mev;
+        x->mu = NAN;
+        x->fractions = -1;
+        for (size_t g = 0; g < plan->ngroups; g++) {
+            const sl_fraction_group *fg = &plan->groups[g];
+            for (size_t r = 0; r < fg->nrefs; r++) {
+                if (fg->refs[r].beam_number != be->number)
+                    continue;
+                if (isfinite(fg->refs[r].meterset_mu))
+                    x->mu = (isnan(x->mu) ? 0 : x->mu) + fg->refs[r].meterset_mu;
+                if (fg->fractions >= 0)
+                    x->fractions = (x->fractions < 0 ? 0 : x->fractions) + fg->fractions;
+            }
+        }
+        /* photons of 10 MV or more (TG-203 speaks of beams above 10 MV: from
+         * memory; 10 MV itself counts, the cautious side) or of unknown
+         * energy; protons, neutrons, ions and unknown kinds always */
+        bool photon = be->radiation_type && strcmp(be->radiation_type, "PHOTON") == 0;
+        x->neutron_producing = photon ? !(be->energy_mev < 10) : true;
+        as->neutrons |= x->neutron_producing;
+    }
+    return SL_OK;
+}
+
+/* Fetal doses in mGy, the unit of the pregnancy documents: the verdict on
+ * the lowest level that applies at every age comes first. */
+static void fetus_verdict(sl_assessment *a, double gy, double up)
+{
+    const sl_level *base = NULL;
+    for (size_t i = 0; i < a->kind->nlevels; i++) {
+        const sl_level *v = &a->kind->levels[i];
+        if (isnan(v->weeks_from) && (!base || v->dose_gy < base->dose_gy))
+            base = v;
+    }
+    if (!base)
+        return;
+    a->verdict = true;
+    double lv = 1000 * base->dose_gy;
+    if (up < base->dose_gy)
+        sl_notes_add(&a->statements,
+                     "verdict: the fetal dose, %.3g mGy (upper bound %.3g mGy), is below %.3g "
+                     "mGy: %s (%s; %s)",
+                     1000 * gy, 1000 * up, lv, base->name, base->source, base->mark);
+    else
+        sl_notes_add(&a->statements,
+                     "verdict: the fetal dose, %.3g mGy (upper bound %.3g mGy), %s %.3g mGy, the "
+                     "level below which there is no significant increase in risk (%s; %s): see "
+                     "the period's thresholds",
+                     1000 * gy, 1000 * up, gy >= base->dose_gy ? "reaches" : "may reach", lv,
+                     base->source, base->mark);
+}
+
+static bool is_kind(const sl_kind *k, const char *name)
+{
+    return k && strcmp(k->kind, name) == 0;
+}
+
 sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient *pt,
                     const sl_organ_map *map, size_t nmap, sl_assessments **out, sl_error *err)
 {
+    return sl_assess_with(lv, e, pt, map, nmap, NULL, 0, out, err);
+}
+
+sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_patient *pt_in,
+                         const sl_organ_map *map, size_t nmap, const sl_other_dose *other,
+                         size_t nother, sl_assessments **out, sl_error *err)
+{
     *out = NULL;
+    for (size_t m = 0; m < nother; m++) {
+        bool found = false;
+        for (size_t o = 0; o < e->norgans; o++)
+            found |= strcmp(e->organs[o].roi->name, other[m].roi) == 0;
+        if (!found)
+            return sl_error_set(err, SL_EUSAGE, "--other-dose '%s=%g': no ROI is named '%s'",
+                                other[m].roi, other[m].cgy, other[m].roi);
+    }
     for (size_t m = 0; m < nmap; m++) {
         bool found = false;
         for (size_t o = 0; o < e->norgans; o++)
@@ -159,14 +294,19 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
     if (!as)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     as->levels = lv;
-    as->patient = *pt;
+    as->patient = *pt_in;
+    const sl_patient *pt = &as->patient;
+    if (patient_from_plan(as, e->plan) != SL_OK || other_beams(as, e->plan) != SL_OK) {
+        sl_assessments_free(as);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
     as->n = e->norgans;
     as->items = calloc(e->norgans ? e->norgans : 1, sizeof *as->items);
     if (!as->items) {
         sl_assessments_free(as);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    bool lar_note = false;
+    bool lar_note = false, age_note = false, fetus_found = false, device_found = false;
     for (size_t o = 0; o < e->norgans; o++) {
         sl_assessment *a = &as->items[o];
         const sl_organ_dose *d = &e->organs[o];
@@ -180,10 +320,46 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
                 a->kind_by_option = true;
             }
         }
-        if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && isnan(pt->gestational_weeks)) {
+        /* a ROI named for the gonads takes the patient's sex's levels */
+        if (!a->kind_by_option && is_kind(a->kind, "gonads") && pt->sex) {
+            const sl_kind *g = sl_levels_kind(lv, pt->sex == 'M' ? "testis" : "ovary");
+            a->kind = g ? g : a->kind;
+        }
+        for (size_t m = 0; m < nother; m++) {
+            if (strcmp(other[m].roi, d->roi->name) == 0)
+                a->other_cgy += other[m].cgy;
+        }
+        const char *xwhy;
+        bool excluded_type = sl_dose_type_excluded(d->roi->type, e->opt.include_targets, &xwhy);
+        fetus_found |= is_kind(a->kind, "fetus") && !excluded_type;
+        device_found |= a->kind && a->kind->nbands > 0 && !excluded_type;
+        /* beams this tool does not estimate leave every organ with levels
+         * incomplete, unless the user added their dose (--other-dose) */
+        a->incomplete = as->nother > 0 && d->estimated && a->kind &&
+                        (a->kind->nlevels || a->kind->nbands) && !excluded_type &&
+                        a->other_cgy == 0;
+        if (a->incomplete) {
+            as->n_incomplete++;
+            a->flagged = true;
+            sl_notes_add(&a->advice,
+                         "incomplete: other beams not included: the plan has %zu treatment "
+                         "beam%s this tool does not estimate; take their dose to this organ from "
+                         "the planning system or a measurement and add it with --other-dose "
+                         "'%s=CGY'",
+                         as->nother, as->nother == 1 ? "" : "s", d->roi->name);
+        }
+        if (a->other_cgy > 0)
+            sl_notes_add(&a->advice,
+                         "includes %.4g cGy given by --other-dose (a dose from elsewhere: other "
+                         "beams or an earlier course), added to the estimate and its upper bound",
+                         a->other_cgy);
+        for (size_t i = 0; a->kind && i < a->kind->nstatements; i++)
+            age_note |= !isnan(a->kind->statements[i].ages_from) && isnan(pt->age_years);
+        if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && isnan(pt->conception_weeks)) {
             sl_status st = sl_error_set(err, SL_EUSAGE,
                                         "ROI '%s' is a fetus: give its gestational age with "
-                                        "--gestational-age WEEKS",
+                                        "--gestational-age WEEKS (since the last menstrual "
+                                        "period) or --weeks-after-conception WEEKS",
                                         d->roi->name);
             sl_assessments_free(as);
             return st;
@@ -201,11 +377,12 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         }
         /* beyond the model's range, for the nearest beam */
         for (size_t b = 0; b < e->nbeams; b++) {
-            const sl_organ_place *p = &e->loc->beams[b].organs[o];
+            /* a landmark is at its measured distance from every beam */
+            double pd = d->landmark ? d->min_distance_cm
+                                    : e->loc->beams[b].organs[o].min_distance_cm;
             double lo, hi;
             sl_curves_range(e->beams[b].curves, &lo, &hi);
-            if (p->min_distance_cm <= d->min_distance_cm + 1e-9 &&
-                p->min_distance_cm > SL_BEYOND_RANGE_FACTOR * hi) {
+            if (pd <= d->min_distance_cm + 1e-9 && pd > SL_BEYOND_RANGE_FACTOR * hi) {
                 a->status = SL_ST_NOT_ASSESSED;
                 a->not_assessed_why = "beyond the model's range (more than 1.5 times the "
                                       "farthest measured distance): the extrapolated value is "
@@ -220,7 +397,9 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
                                   "dose is the reference here; the model's value is shown, not "
                                   "judged";
         }
-        double gy = d->course_max.cgy / 100, up = d->course_max.upper_cgy / 100;
+        /* a dose from elsewhere adds to the estimate and to its upper bound */
+        double gy = (d->course_max.cgy + a->other_cgy) / 100,
+               up = (d->course_max.upper_cgy + a->other_cgy) / 100;
         double level_gy = NAN;
         const sl_kind *k = a->kind;
         if (a->status == SL_ST_NOT_ASSESSED) {
@@ -228,16 +407,42 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         } else if (k && k->nbands) {
             a->band = band_of(k, gy);
             a->band_upper = band_of(k, up);
+            int top = (int)k->nbands - 1;
             if (pt->pacing_dependent) {
-                int top = (int)k->nbands - 1;
+                int b0 = a->band, b1 = a->band_upper;
                 a->band = a->band + k->pacing_shift > top ? top : a->band + k->pacing_shift;
                 a->band_upper = a->band_upper + k->pacing_shift > top
                                     ? top
                                     : a->band_upper + k->pacing_shift;
+                /* a table's floor for pacing-dependent patients (Hurkmans et
+                 * al. 2012, Table 2: below 2 Gy medium, not low) */
+                if (k->pacing_min_band >= 0) {
+                    a->band = a->band < k->pacing_min_band ? k->pacing_min_band : a->band;
+                    a->band_upper = a->band_upper < k->pacing_min_band ? k->pacing_min_band
+                                                                       : a->band_upper;
+                }
+                a->pacing_raised = a->band != b0 || a->band_upper != b1;
             }
+            if (as->neutrons && k->neutron_band >= 0) {
+                a->neutron_band = a->band < k->neutron_band;
+                a->band = a->band < k->neutron_band ? k->neutron_band : a->band;
+                a->band_upper = a->band_upper < k->neutron_band ? k->neutron_band
+                                                                : a->band_upper;
+            }
+            /* no neutron rule in this table: the device still needs attention
+             * (the cautious side; TG-203 would rate it high) */
+            a->neutron_unrated = as->neutrons && k->neutron_band < 0;
+            a->flagged |= a->neutron_unrated;
+            if (a->neutron_unrated)
+                sl_notes_add(&a->advice,
+                             "a treatment beam of this plan may produce neutrons (photons of 10 "
+                             "MV or more, or of unknown energy): this table (%s) has no "
+                             "neutron rule; the AAPM TG-203 categories (models/"
+                             "action-levels-tg203.yaml) rate such a treatment high risk",
+                             k->bands_source);
             a->status = SL_ST_BAND;
             level_gy = k->bands[0].below_gy;
-            a->flagged = a->band >= 1 || a->band_upper >= 1;
+            a->flagged |= a->band >= 1 || a->band_upper >= 1;
         } else if (k && k->nlevels) {
             a->checks = calloc(k->nlevels, sizeof *a->checks);
             if (!a->checks) {
@@ -246,7 +451,7 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
             }
             for (size_t i = 0; i < k->nlevels; i++) {
                 const sl_level *v = &k->levels[i];
-                if (!sl_level_applies(v->weeks_from, v->weeks_to, pt->gestational_weeks))
+                if (!sl_level_applies(v->weeks_from, v->weeks_to, pt->conception_weeks))
                     continue;
                 a->checks[a->nchecks++] =
                     (sl_level_check){v, gy >= v->dose_gy, up >= v->dose_gy};
@@ -258,7 +463,9 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
                 a->status = gy >= level_gy   ? SL_ST_EXCEEDS
                             : up >= level_gy ? SL_ST_MAY_EXCEED
                                              : SL_ST_BELOW;
-                a->flagged = a->status != SL_ST_BELOW;
+                a->flagged |= a->status != SL_ST_BELOW;
+                if (is_kind(k, "fetus"))
+                    fetus_verdict(a, gy, up);
             } else {
                 a->status = SL_ST_NO_LEVEL;
             }
@@ -277,8 +484,31 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
         as->any_flagged |= a->flagged;
     }
     if (lar_note)
-        sl_notes_add(&as->notes, "give --age and --sex for lifetime cancer risks of the thyroid "
-                                 "and breast (BEIR VII Phase 2 tables)");
+        sl_notes_add(&as->notes, "give --age and --sex (or a plan with Patient's Sex and Birth "
+                                 "Date) for lifetime cancer risks of the thyroid and breast "
+                                 "(BEIR VII Phase 2 tables)");
+    if (age_note)
+        sl_notes_add(&as->notes, "the patient's age is not known (--age, or Patient's Birth Date "
+                                 "and RT Plan Date in the plan): age-dependent statements (ovary) "
+                                 "are left out");
+    /* asked-for organs that are absent are never passed silently */
+    if (!isnan(pt->conception_weeks) && !fetus_found) {
+        sl_notes_add(&as->missing,
+                     "fetus: not assessed: no fetus found (no ROI matches the fetus patterns or "
+                     "--organ ROI=fetus, and no --fetus-point, --point or --landmark of kind "
+                     "fetus): give its position, or measure its dose");
+        as->any_flagged = true;
+    }
+    if ((pt->pacing_dependent || pt->device_asked) && !device_found) {
+        sl_notes_add(&as->missing,
+                     "cardiac_device: not assessed: no device found (no ROI matches the device "
+                     "patterns or --organ ROI=cardiac_device, and no --device-point, --point or "
+                     "--landmark of kind cardiac_device): give its position, or measure its "
+                     "dose");
+        as->any_flagged = true;
+    }
+    if (as->n_incomplete)
+        as->any_flagged = true;
     *out = as;
     return SL_OK;
 }

@@ -99,11 +99,69 @@ static sl_status read_weeks(sl_yaml *y, yaml_node_t *n, double *from, double *to
     return st;
 }
 
+/* exposure: single | fractionated | any. A single-exposure threshold
+ * compared with a fractionated course is said so in the status line. */
+static sl_status read_exposure(sl_yaml *y, yaml_node_t *n, sl_level *v, sl_error *err)
+{
+    char *e = NULL;
+    sl_status st = sl_yaml_string(y, n, "exposure", &e, err);
+    if (st != SL_OK)
+        return st;
+    if (strcmp(e, "single") == 0)
+        v->single_exposure = true;
+    else if (strcmp(e, "fractionated") == 0)
+        v->fractionated = true;
+    else if (strcmp(e, "any") != 0)
+        st = sl_yaml_error(y, n, err, "exposure '%s': expected single, fractionated or any", e);
+    free(e);
+    return st;
+}
+
+static sl_status read_ages(sl_yaml *y, yaml_node_t *n, double *from, double *to, sl_error *err)
+{
+    *from = *to = NAN;
+    if (!n)
+        return SL_OK;
+    double *w;
+    size_t k;
+    sl_status st = sl_yaml_numbers(y, n, "ages", &w, &k, err);
+    if (st != SL_OK)
+        return st;
+    if (k != 2 || !(w[0] >= 0 && w[1] > w[0] && w[1] <= 150))
+        st = sl_yaml_error(y, n, err, "ages: expected [from, to] years with 0 <= from < to <= 150");
+    else {
+        *from = w[0];
+        *to = w[1];
+    }
+    free(w);
+    return st;
+}
+
+/* A band named by a key (pacing_dependent_min_band, neutron_band): its index. */
+static sl_status band_index(sl_yaml *y, yaml_node_t *n, const char *key, const sl_kind *k,
+                            int *out, sl_error *err)
+{
+    char *name = NULL;
+    sl_status st = sl_yaml_string(y, n, key, &name, err);
+    if (st != SL_OK)
+        return st;
+    *out = -1;
+    for (size_t i = 0; i < k->nbands; i++) {
+        if (strcmp(k->bands[i].name, name) == 0)
+            *out = (int)i;
+    }
+    if (*out < 0)
+        st = sl_yaml_error(y, n, err, "%s '%s': no band of that name", key, name);
+    free(name);
+    return st;
+}
+
 static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l, sl_error *err)
 {
     char what[64];
     snprintf(what, sizeof what, "kind %zu", idx + 1);
     sl_kind *k = &l->kinds[idx];
+    k->pacing_min_band = k->neutron_band = -1;
     sl_yaml_field f[] = {{"kind", true, NULL},       {"description", false, NULL},
                          {"match", true, NULL},      {"levels", false, NULL},
                          {"bands", false, NULL},     {"statements", false, NULL},
@@ -142,9 +200,9 @@ static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l,
             k->nlevels = i + 1;
             sl_yaml_field g[] = {{"name", true, NULL},   {"dose_gy", true, NULL},
                                  {"weeks", false, NULL}, {"source", true, NULL},
-                                 {"mark", true, NULL}};
+                                 {"mark", true, NULL},   {"exposure", false, NULL}};
             yaml_node_t *ln = sl_yaml_item(y, items[i]);
-            st = sl_yaml_fields(y, ln, "level", g, 5, err);
+            st = sl_yaml_fields(y, ln, "level", g, 6, err);
             if (st == SL_OK)
                 st = sl_yaml_string(y, g[0].node, "level name", &v->name, err);
             if (st == SL_OK)
@@ -155,12 +213,16 @@ static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l,
                 st = sl_yaml_string(y, g[3].node, "source", &v->source, err);
             if (st == SL_OK)
                 st = read_mark(y, g[4].node, &v->mark, err);
+            if (st == SL_OK && g[5].node)
+                st = read_exposure(y, g[5].node, v, err);
         }
     }
     if (st == SL_OK && f[4].node) {
         sl_yaml_field g[] = {{"source", true, NULL}, {"mark", true, NULL},
-                             {"pacing_dependent_shift", false, NULL}, {"list", true, NULL}};
-        st = sl_yaml_fields(y, f[4].node, "bands", g, 4, err);
+                             {"pacing_dependent_shift", false, NULL}, {"list", true, NULL},
+                             {"pacing_dependent_min_band", false, NULL},
+                             {"neutron_band", false, NULL}};
+        st = sl_yaml_fields(y, f[4].node, "bands", g, 6, err);
         if (st == SL_OK)
             st = sl_yaml_string(y, g[0].node, "source", &k->bands_source, err);
         if (st == SL_OK)
@@ -191,6 +253,11 @@ static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l,
             if (st == SL_OK && i > 0 && !(b->below_gy > k->bands[i - 1].below_gy))
                 st = sl_yaml_error(y, bn, err, "bands: the upper edges must increase");
         }
+        if (st == SL_OK && g[4].node)
+            st = band_index(y, g[4].node, "pacing_dependent_min_band", k, &k->pacing_min_band,
+                            err);
+        if (st == SL_OK && g[5].node)
+            st = band_index(y, g[5].node, "neutron_band", k, &k->neutron_band, err);
     }
     if (st == SL_OK && f[5].node) {
         st = sl_yaml_seq(y, f[5].node, "statements", &items, &ni, err);
@@ -202,8 +269,8 @@ static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l,
             s->per_gy = NAN;
             sl_yaml_field g[] = {{"text", true, NULL},   {"weeks", false, NULL},
                                  {"per_gy", false, NULL}, {"source", true, NULL},
-                                 {"mark", true, NULL}};
-            st = sl_yaml_fields(y, sl_yaml_item(y, items[i]), "statement", g, 5, err);
+                                 {"mark", true, NULL},   {"ages", false, NULL}};
+            st = sl_yaml_fields(y, sl_yaml_item(y, items[i]), "statement", g, 6, err);
             if (st == SL_OK)
                 st = sl_yaml_string(y, g[0].node, "text", &s->text, err);
             if (st == SL_OK)
@@ -214,6 +281,8 @@ static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l,
                 st = sl_yaml_string(y, g[3].node, "source", &s->source, err);
             if (st == SL_OK)
                 st = read_mark(y, g[4].node, &s->mark, err);
+            if (st == SL_OK)
+                st = read_ages(y, g[5].node, &s->ages_from, &s->ages_to, err);
         }
     }
     if (st == SL_OK && f[6].node)
@@ -385,6 +454,44 @@ bool sl_level_applies(double from, double to, double weeks)
         return true;
     /* weeks w belongs to [from, to): week 8 is in 8-15, not 2-8 */
     return !isnan(weeks) && weeks >= from && weeks < to;
+}
+
+double sl_weeks_after_conception(double gestational_weeks)
+{
+    double w = gestational_weeks - SL_LMP_TO_CONCEPTION_WEEKS;
+    return w < 0 ? 0 : w;
+}
+
+static bool parse_da(const char *s, int *y, int *m, int *d)
+{
+    if (!s || strlen(s) != 8)
+        return false;
+    for (int i = 0; i < 8; i++)
+        if (!isdigit((unsigned char)s[i]))
+            return false;
+    *y = (s[0] - '0') * 1000 + (s[1] - '0') * 100 + (s[2] - '0') * 10 + (s[3] - '0');
+    *m = (s[4] - '0') * 10 + (s[5] - '0');
+    *d = (s[6] - '0') * 10 + (s[7] - '0');
+    static const int days[] = {31, 29, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+    return *y >= 1850 && *m >= 1 && *m <= 12 && *d >= 1 && *d <= days[*m - 1];
+}
+
+bool sl_age_on(const char *birth_da, const char *date_da, double *years)
+{
+    int by, bm, bd, y, m, d;
+    if (!parse_da(birth_da, &by, &bm, &bd) || !parse_da(date_da, &y, &m, &d))
+        return false;
+    int age = y - by - ((m < bm || (m == bm && d < bd)) ? 1 : 0);
+    if (age < 0)
+        return false;
+    *years = age;
+    return true;
+}
+
+void sl_patient_init(sl_patient *p)
+{
+    memset(p, 0, sizeof *p);
+    p->gestational_weeks = p->conception_weeks = p->age_years = NAN;
 }
 
 double sl_lar_cases(const sl_lar_table *t, char sex, double age, double dose_gy)

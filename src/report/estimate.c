@@ -164,19 +164,93 @@ const char *est_kind(const sl_assessment *a)
     return a->kind ? a->kind->kind : "-";
 }
 
+void est_qualifiers(const sl_assessment *a, char *buf, size_t size)
+{
+    sl_buf b = {0};
+    if (a->governing && a->governing->single_exposure)
+        sl_buf_printf(&b, "; single-exposure threshold; a fractionated course may act at lower "
+                          "doses");
+    if (a->neutron_unrated)
+        sl_buf_printf(&b, "; a treatment beam may produce neutrons, which this table does not "
+                          "rate: ACTION");
+    if (a->incomplete)
+        sl_buf_printf(&b, "; incomplete: other beams not included");
+    if (a->other_cgy > 0)
+        sl_buf_printf(&b, "; includes %.4g cGy given by --other-dose", a->other_cgy);
+    if (a->dose->landmark)
+        sl_buf_printf(&b, "; geometry measured on the patient");
+    /* the pregnancy documents speak mGy */
+    if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->dose->estimated)
+        sl_buf_printf(&b, "; fetal dose %.3g mGy (upper bound %.3g mGy)",
+                      10 * (a->dose->course_max.cgy + a->other_cgy),
+                      10 * (a->dose->course_max.upper_cgy + a->other_cgy));
+    snprintf(buf, size, "%s", b.failed || !b.data ? "" : b.data);
+    sl_buf_free(&b);
+}
+
 void est_status_text(const sl_assessment *a, char *buf, size_t size)
 {
+    char q[EST_STATUS_LEN];
+    est_qualifiers(a, q, sizeof q);
     if (a->status == SL_ST_BAND && a->kind) {
         const char *b = a->kind->bands[a->band].name;
         const char *bu = a->kind->bands[a->band_upper].name;
+        bool action = a->band >= 1 || a->band_upper >= 1;
         if (a->band_upper > a->band)
-            snprintf(buf, size, "%s risk band (upper bound: %s)%s", b, bu,
-                     a->flagged ? ": ACTION" : "");
+            snprintf(buf, size, "%s risk band (upper bound: %s)%s%s", b, bu,
+                     action ? ": ACTION" : "", q);
         else
-            snprintf(buf, size, "%s risk band%s", b, a->flagged ? ": ACTION" : "");
+            snprintf(buf, size, "%s risk band%s%s", b, action ? ": ACTION" : "", q);
         return;
     }
-    snprintf(buf, size, "%s", sl_status_text(a->status));
+    snprintf(buf, size, "%s%s", sl_status_text(a->status), q);
+}
+
+void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size)
+{
+    char en[32], mu[48], fx[32];
+    if (isfinite(b->energy))
+        snprintf(en, sizeof en, "%g %s", b->energy,
+                 strcmp(b->radiation_type, "PHOTON") == 0 ? "MV" : "MeV");
+    else
+        snprintf(en, sizeof en, "energy unknown");
+    if (isfinite(b->mu))
+        snprintf(mu, sizeof mu, "%.1f MU a fraction", b->mu);
+    else
+        snprintf(mu, sizeof mu, "meterset not in the plan");
+    if (b->fractions >= 0)
+        snprintf(fx, sizeof fx, "%d fractions", b->fractions);
+    else
+        snprintf(fx, sizeof fx, "fractions unknown");
+    snprintf(buf, size, "beam %d '%s': %s, %s, %s, %s: not estimated by this tool%s", b->number,
+             b->name ? b->name : "-", b->radiation_type, en, mu, fx,
+             b->neutron_producing ? " (may produce neutrons)" : "");
+}
+
+void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
+{
+    const sl_assessments *as = r->as;
+    sl_buf b = {0};
+    if (as->any_flagged)
+        sl_buf_printf(&b, "at least one organ needs attention (see status and advice)");
+    else if (as->n_unjudged)
+        sl_buf_printf(&b,
+                      "no judged organ reaches its action level; %zu organ%s with action levels "
+                      "not judged (in the field, beyond the model's range or not placed): see "
+                      "above",
+                      as->n_unjudged, as->n_unjudged == 1 ? "" : "s");
+    else
+        sl_buf_printf(&b, "no organ reaches its action level at this screening");
+    if (as->nother)
+        sl_buf_printf(&b, "; %zu treatment beam%s not estimated by this tool, %zu organ%s "
+                          "incomplete",
+                      as->nother, as->nother == 1 ? "" : "s", as->n_incomplete,
+                      as->n_incomplete == 1 ? "" : "s");
+    if (as->missing.count)
+        sl_buf_printf(&b, "; %zu asked-for organ%s not found", as->missing.count,
+                      as->missing.count == 1 ? "" : "s");
+    snprintf(buf, size, "%s", b.failed || !b.data ? "see the organ statuses" : b.data);
+    sl_buf_free(&b);
 }
 
 static const char *orq(const char *s)
@@ -196,9 +270,17 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     fprintf(fp, "patient %s, ID %s (from the plan)\n", orq(p->patient_name), orq(p->patient_id));
     const sl_patient *pt = &r->as->patient;
     if (!isnan(pt->gestational_weeks))
-        fprintf(fp, "pregnant: gestational age %.1f weeks\n", pt->gestational_weeks);
+        fprintf(fp, "pregnant: gestational age %.1f weeks (since the last menstrual period), "
+                    "about %.1f weeks after conception (the ICRP Publication 84 count)\n",
+                pt->gestational_weeks, pt->conception_weeks);
+    else if (!isnan(pt->conception_weeks))
+        fprintf(fp, "pregnant: %.1f weeks after conception (given)\n", pt->conception_weeks);
     if (pt->pacing_dependent)
         fprintf(fp, "pacing-dependent patient\n");
+    if (!isnan(pt->age_years))
+        fprintf(fp, "age %g years (%s)\n", pt->age_years, pt->age_from ? pt->age_from : "given");
+    if (pt->sex)
+        fprintf(fp, "sex %c (%s)\n", pt->sex, pt->sex_from ? pt->sex_from : "given");
     fprintf(fp, "model %s: machine %s, version %s; action levels %s\n", orq(r->model->source),
             r->model->machine.name, r->model->model_version, orq(r->levels->source));
     char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
@@ -230,6 +312,13 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                     e->fractions[g]);
         }
     }
+    for (size_t i = 0; i < r->as->nother; i++) {
+        char ob[400];
+        est_other_beam_text(&r->as->other[i], ob, sizeof ob);
+        fprintf(fp, "%s%s\n", i ? "  " : "\nother treatment beams (their dose is NOT in this "
+                                          "estimate):\n  ",
+                ob);
+    }
     fprintf(fp, "\n%-18s %-14s %7s %11s %19s %19s %9s %7s  %s\n", "organ", "kind", "min dist",
             "depth", "max a fraction", "course max", "course", "level", "status");
     fprintf(fp, "%-18s %-14s %7s %11s %19s %19s %9s %7s\n", "", "", "cm", "cm",
@@ -239,7 +328,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         const sl_assessment *a = &r->as->items[o];
         if (!d->estimated)
             continue;
-        char depth[24], fx[32], course[32], mean[16], level[16], status[96];
+        char depth[24], fx[32], course[32], mean[16], level[16], status[EST_STATUS_LEN];
         snprintf(depth, sizeof depth, "%.1f-%.1f", d->min_depth_cm, d->max_depth_cm);
         if (e->ngroups == 1)
             snprintf(fx, sizeof fx, "%.3g (%.3g)", d->fx_max[0].cgy, d->fx_max[0].upper_cgy);
@@ -270,19 +359,26 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         any = true;
         fprintf(fp, "  %-18s %s\n", d->roi->name, orq(d->excluded_why));
     }
+    for (size_t i = 0; i < r->as->missing.count; i++)
+        fprintf(fp, "%s%s\n", i ? "  " : "\nasked for, not found:\n  ", r->as->missing.items[i]);
     fprintf(fp, "\nmarks: %s\n", est_marks_legend());
     any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
-        if (a->advice.count == 0 && a->statements.count == 0 && isnan(a->lar_cases))
+        /* every level checked is listed with its source and mark */
+        if (a->advice.count == 0 && a->statements.count == 0 && isnan(a->lar_cases) &&
+            a->nchecks == 0 && a->status != SL_ST_BAND)
             continue;
         if (!any)
             fprintf(fp, "\nadvice and risk statements:\n");
         any = true;
         fprintf(fp, "  %s:\n", a->dose->roi->name);
+        size_t s0 = a->verdict ? 1 : 0; /* the verdict before everything else */
+        if (a->verdict)
+            fprintf(fp, "    - %s\n", a->statements.items[0]);
         for (size_t i = 0; i < a->advice.count; i++)
             fprintf(fp, "    - %s\n", a->advice.items[i]);
-        for (size_t i = 0; i < a->statements.count; i++)
+        for (size_t i = s0; i < a->statements.count; i++)
             fprintf(fp, "    - %s\n", a->statements.items[i]);
         if (!isnan(a->lar_cases))
             fprintf(fp, "    - lifetime attributable risk of cancer incidence: about %.3g cases "
@@ -290,14 +386,16 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                         "population average, not an individual prediction)\n",
                     a->lar_cases, a->dose->course_mean.cgy / 100, a->lar->source, a->lar->mark);
         if (a->status == SL_ST_BAND) {
-            char shift[64];
+            char shift[1200];
             est_pacing_text(r, a, shift, sizeof shift);
             fprintf(fp, "    - risk bands: %s (%s)%s\n", a->kind->bands_source,
                     a->kind->bands_mark, shift);
         }
+        bool mgy = a->kind && strcmp(a->kind->kind, "fetus") == 0;
         for (size_t c = 0; c < a->nchecks; c++)
-            fprintf(fp, "    - %s: %.3g Gy (%s; %s): %s\n", a->checks[c].level->name,
-                    a->checks[c].level->dose_gy, a->checks[c].level->source,
+            fprintf(fp, "    - %s: %.3g %s (%s; %s): %s\n", a->checks[c].level->name,
+                    (mgy ? 1000 : 1) * a->checks[c].level->dose_gy, mgy ? "mGy" : "Gy",
+                    a->checks[c].level->source,
                     a->checks[c].level->mark,
                     a->checks[c].exceeded         ? "exceeded"
                     : a->checks[c].upper_exceeded ? "reached by the upper bound"
@@ -313,16 +411,9 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     for (size_t i = 0; i < w.count; i++)
         fprintf(fp, "  - %s\n", w.items[i]);
     sl_notes_free(&w);
-    if (r->as->any_flagged)
-        fprintf(fp, "\nRESULT: at least one organ needs attention (see status and advice)\n");
-    else if (r->as->n_unjudged)
-        fprintf(fp,
-                "\nRESULT: no judged organ reaches its action level; %zu organ%s with action "
-                "levels not judged (in the field, beyond the model's range or not placed): see "
-                "above\n",
-                r->as->n_unjudged, r->as->n_unjudged == 1 ? "" : "s");
-    else
-        fprintf(fp, "\nRESULT: no organ reaches its action level at this screening\n");
+    char res[600];
+    est_result_text(r, res, sizeof res);
+    fprintf(fp, "\nRESULT: %s\n", res);
 }
 
 /* ------------------------------------------------------------- JSON -- */
@@ -389,6 +480,9 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
     jw_str(w, pa, "id", p->patient_id);
     jw_str(w, pa, "name", p->patient_name);
     jw_num_opt(w, pa, "gestational_age_weeks", pt->gestational_weeks);
+    jw_num_opt(w, pa, "weeks_after_conception", pt->conception_weeks);
+    jw_str(w, pa, "age_source", pt->age_from);
+    jw_str(w, pa, "sex_source", pt->sex_from);
     jw_bool(w, pa, "pacing_dependent", pt->pacing_dependent);
     jw_num_opt(w, pa, "age_years", pt->age_years);
     char sex[2] = {pt->sex, 0};
@@ -484,10 +578,13 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         static const char *const codes[] = {"below_level", "may_exceed", "exceeds", "risk_band",
                                             "no_action_level", "in_field", "not_assessed"};
         jw_str(w, x, "status", codes[a->status]);
-        char st[128];
+        char st[EST_STATUS_LEN];
         est_status_text(a, st, sizeof st);
         jw_str(w, x, "status_text", st);
         jw_bool(w, x, "flagged", a->flagged);
+        jw_bool(w, x, "incomplete", a->incomplete);
+        jw_num_opt(w, x, "other_dose_cgy", a->other_cgy > 0 ? a->other_cgy : NAN);
+        jw_bool(w, x, "geometry_measured_on_patient", d->landmark);
         jw_num(w, x, "volume_cc", d->volume_cc);
         jw_bool(w, x, "point", d->is_point);
         jw_num_opt(w, x, "min_distance_cm", isfinite(d->min_distance_cm) ? d->min_distance_cm : NAN);
@@ -512,12 +609,16 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
             jw_put(w, x, "per_fraction", fx);
             jw_num(w, x, "electron_fraction", d->electron_fraction);
             jw_num(w, x, "electron_transmission", d->shield_transmission);
-            const sl_vec3 *pmax = &r->loc->samples[o].points[d->max_sample];
-            json_object *pm = json_object_new_array();
-            jw_append(w, pm, jw_number(w, pmax->x, "hottest_point_cm"));
-            jw_append(w, pm, jw_number(w, pmax->y, "hottest_point_cm"));
-            jw_append(w, pm, jw_number(w, pmax->z, "hottest_point_cm"));
-            jw_put(w, x, "hottest_point_cm", pm);
+            if (d->landmark) { /* measured on the patient: no coordinates */
+                jw_put(w, x, "hottest_point_cm", NULL);
+            } else {
+                const sl_vec3 *pmax = &r->loc->samples[o].points[d->max_sample];
+                json_object *pm = json_object_new_array();
+                jw_append(w, pm, jw_number(w, pmax->x, "hottest_point_cm"));
+                jw_append(w, pm, jw_number(w, pmax->y, "hottest_point_cm"));
+                jw_append(w, pm, jw_number(w, pmax->z, "hottest_point_cm"));
+                jw_put(w, x, "hottest_point_cm", pm);
+            }
         }
         if (d->estimated) {
             json_object *bg = json_object_new_object();
@@ -562,9 +663,11 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
             json_object *bo = json_object_new_object();
             jw_str(w, bo, "name", a->kind->bands[a->band].name);
             jw_str(w, bo, "by_upper_bound", a->kind->bands[a->band_upper].name);
-            jw_bool(w, bo, "pacing_dependent_shift", r->as->patient.pacing_dependent);
+            jw_bool(w, bo, "pacing_dependent_shift", a->pacing_raised);
+            jw_bool(w, bo, "raised_for_neutrons", a->neutron_band);
             jw_str(w, bo, "source", a->kind->bands_source);
             jw_str(w, bo, "mark", a->kind->bands_mark);
+            jw_str(w, bo, "table_file", r->levels->source);
             jw_put(w, x, "band", bo);
         } else {
             jw_put(w, x, "band", NULL);
@@ -589,6 +692,29 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
     jw_put(w, root, "organs", organs);
     jw_bool(w, root, "any_flagged", r->as->any_flagged);
     jw_int(w, root, "organs_not_judged", (long long)r->as->n_unjudged);
+    json_object *ob = json_object_new_array();
+    for (size_t i = 0; i < r->as->nother; i++) {
+        const sl_other_beam *b = &r->as->other[i];
+        json_object *bo = json_object_new_object();
+        jw_int(w, bo, "number", b->number);
+        jw_str(w, bo, "name", b->name);
+        jw_str(w, bo, "radiation_type", b->radiation_type);
+        /* DICOM's Nominal Beam Energy: MV for photons, MeV otherwise */
+        bool photon = strcmp(b->radiation_type, "PHOTON") == 0;
+        jw_num_opt(w, bo, "nominal_energy_mv", photon ? b->energy : NAN);
+        jw_num_opt(w, bo, "nominal_energy_mev", photon ? NAN : b->energy);
+        jw_num_opt(w, bo, "mu_per_fraction", b->mu);
+        if (b->fractions >= 0)
+            jw_int(w, bo, "fractions", b->fractions);
+        else
+            jw_put(w, bo, "fractions", NULL);
+        jw_bool(w, bo, "may_produce_neutrons", b->neutron_producing);
+        jw_str(w, bo, "status", "not estimated by this tool");
+        jw_append(w, ob, bo);
+    }
+    jw_put(w, root, "other_treatment_beams", ob);
+    jw_int(w, root, "organs_incomplete", (long long)r->as->n_incomplete);
+    jw_put(w, root, "organs_not_found", jw_notes(w, &r->as->missing));
     sl_notes all = {0};
     est_warnings(r, &all);
     jw_put(w, root, "warnings", jw_notes(w, &all));
@@ -627,7 +753,7 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
         const sl_assessment *a = &r->as->items[o];
-        char st[128], flags[160] = "";
+        char st[EST_STATUS_LEN], flags[160] = "";
         est_status_text(a, st, sizeof st);
         for (size_t i = 0; i < EST_NFLAGS; i++) {
             if (d->flags & est_flags[i]) {
@@ -653,14 +779,28 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         csv_num(fp, est ? d->course_nearmax.cgy : NAN, false);
         csv_num(fp, est ? d->course_nearest.cgy : NAN, false);
         csv_num(fp, a->governing ? a->governing->dose_gy : NAN, false);
-        csv_field(fp, a->governing ? a->governing->source : "", false);
+        char lsrc[600] = "";
+        if (a->governing)
+            snprintf(lsrc, sizeof lsrc, "%s (%s)", a->governing->source, a->governing->mark);
+        csv_field(fp, lsrc, false);
         csv_field(fp, flags, false);
         csv_field(fp, est ? (a->not_assessed_why ? a->not_assessed_why : "")
                           : (d->excluded_why ? d->excluded_why : ""),
                   true);
     }
-    /* the cautions and the model's limits travel with the table: rows
-     * whose first field starts with '#', the text in the second */
+    /* the cautions, the model's limits, the beams not estimated and the
+     * organs not found travel with the table: rows whose first field starts
+     * with '#', the text in the second */
+    for (size_t i = 0; i < r->as->nother; i++) {
+        char ob[400];
+        est_other_beam_text(&r->as->other[i], ob, sizeof ob);
+        csv_field(fp, "# other treatment beam", false);
+        csv_field(fp, ob, true);
+    }
+    for (size_t i = 0; i < r->as->missing.count; i++) {
+        csv_field(fp, "# not found", false);
+        csv_field(fp, r->as->missing.items[i], true);
+    }
     for (size_t b = 0; b < r->est->nbeams; b++) {
         char lim[256], txt[300];
         est_limits_text(&r->est->beams[b], lim, sizeof lim);
@@ -705,11 +845,9 @@ void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
 
 void est_pacing_text(const sl_estimate_report *r, const sl_assessment *a, char *buf, size_t size)
 {
-    if (r->as->patient.pacing_dependent && a->kind && a->kind->pacing_shift > 0)
-        snprintf(buf, size, "; moved up %d band%s for pacing dependence", a->kind->pacing_shift,
-                 a->kind->pacing_shift == 1 ? "" : "s");
-    else if (size)
-        buf[0] = '\0';
+    snprintf(buf, size, "; judged by the table in %s%s%s", r->levels->source,
+             a->pacing_raised ? "; raised for pacing dependence" : "",
+             a->neutron_band ? "; raised for a treatment beam that may produce neutrons" : "");
 }
 
 void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size)

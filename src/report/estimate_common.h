@@ -34,6 +34,18 @@ void est_warnings(const sl_estimate_report *r, sl_notes *out);
 /* Text of an organ's status, with its band for cardiac devices. */
 void est_status_text(const sl_assessment *a, char *buf, size_t size);
 
+/* Status qualifiers every format shows: "; single-exposure threshold; ...",
+ * "; incomplete: other beams not included", "; includes N cGy from
+ * --other-dose", "; geometry measured on the patient"; "" when none. */
+void est_qualifiers(const sl_assessment *a, char *buf, size_t size);
+#define EST_STATUS_LEN 480
+
+/* One line for a treatment beam this tool does not estimate. */
+void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size);
+
+/* The result line, shared by text and HTML. */
+void est_result_text(const sl_estimate_report *r, char *buf, size_t size);
+
 /* The kind's name or "-". */
 const char *est_kind(const sl_assessment *a);
 

@@ -267,7 +267,7 @@ static void dose_curve(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, 
     double dmax_org = 0;
     for (size_t o = 0; o < e->norgans && nd < 256; o++) {
         const sl_organ_dose *d = &e->organs[o];
-        if (!d->estimated)
+        if (!d->estimated || d->landmark)
             continue;
         const sl_organ_place *p = &bp->organs[o];
         depths[nd++] = p->depth_cm[d->nearest_sample];
@@ -319,7 +319,7 @@ static void dose_curve(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, 
     hplot_line(&p, xs, ys, N, "fit");
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
-        if (!d->estimated)
+        if (!d->estimated || d->landmark)
             continue;
         double x = bp->organs[o].min_distance_cm;
         if (x <= xmax)
@@ -333,8 +333,10 @@ static void dose_curve(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, 
 static void dvh(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t o)
 {
     const sl_organ_dose *d = &r->est->organs[o];
+    if (!d->estimated || d->is_point || d->landmark || o >= r->loc->norgans)
+        return;
     const sl_organ_samples *s = &r->loc->samples[o];
-    if (!d->estimated || d->is_point || s->n < 2)
+    if (s->n < 2)
         return;
     size_t n = s->n;
     typedef struct dv {
@@ -443,19 +445,42 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     }
     const sl_patient *pt = &r->as->patient;
     if (!isnan(pt->gestational_weeks))
-        helf(&h, b, "p", "Pregnant patient: gestational age %.1f weeks.", pt->gestational_weeks);
+        helf(&h, b, "p",
+             "Pregnant patient: gestational age %.1f weeks (since the last menstrual period), "
+             "about %.1f weeks after conception (the ICRP Publication 84 count).",
+             pt->gestational_weeks, pt->conception_weeks);
+    else if (!isnan(pt->conception_weeks))
+        helf(&h, b, "p", "Pregnant patient: %.1f weeks after conception (given).",
+             pt->conception_weeks);
     if (pt->pacing_dependent)
         hel(&h, b, "p", "The patient is pacing-dependent.");
+    if (!isnan(pt->age_years))
+        helf(&h, b, "p", "Age %g years (%s).", pt->age_years, pt->age_from ? pt->age_from : "given");
+    if (pt->sex)
+        helf(&h, b, "p", "Sex %c (%s).", pt->sex, pt->sex_from ? pt->sex_from : "given");
 
-    if (r->as->any_flagged)
-        hel(&h, b, "h2", "Organs: at least one needs attention");
-    else if (r->as->n_unjudged)
-        helf(&h, b, "h2",
-             "Organs: no judged organ reaches its action level; %zu with action levels not "
-             "judged (see below)",
-             r->as->n_unjudged);
-    else
-        hel(&h, b, "h2", "Organs: none reaches its action level");
+    char res[600];
+    est_result_text(r, res, sizeof res);
+    helf(&h, b, "h2", "Organs: %s", res);
+    if (r->as->nother) {
+        xmlNodePtr od = hel(&h, b, "div", NULL);
+        hattr(&h, od, "class", "caution");
+        hel(&h, od, "strong", "Other treatment beams: their dose is NOT in this estimate");
+        xmlNodePtr ol = hel(&h, od, "ul", NULL);
+        for (size_t i = 0; i < r->as->nother; i++) {
+            char ob[400];
+            est_other_beam_text(&r->as->other[i], ob, sizeof ob);
+            hel(&h, ol, "li", ob);
+        }
+    }
+    if (r->as->missing.count) {
+        xmlNodePtr md = hel(&h, b, "div", NULL);
+        hattr(&h, md, "class", "caution");
+        hel(&h, md, "strong", "Asked for, not found");
+        xmlNodePtr ml = hel(&h, md, "ul", NULL);
+        for (size_t i = 0; i < r->as->missing.count; i++)
+            hel(&h, ml, "li", r->as->missing.items[i]);
+    }
     xmlNodePtr ot = hel(&h, b, "table", NULL);
     const char *head[] = {"organ",
                           "kind",
@@ -498,7 +523,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         else
             snprintf(buf, sizeof buf, "-");
         hel(&h, tr, "td", buf);
-        char st[300], marks[120];
+        char st[EST_STATUS_LEN + 64], marks[120];
         est_status_text(a, st, sizeof st);
         est_marks(d, false, marks, sizeof marks);
         strncat(st, marks, sizeof st - strlen(st) - 1);
@@ -550,20 +575,25 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     bool any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
+        size_t s0 = a->verdict ? 1 : 0; /* the verdict before everything else */
+        if (a->verdict)
+            helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[0]);
         for (size_t i = 0; i < a->advice.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->advice.items[i]);
-        for (size_t i = 0; i < a->statements.count; i++, any = true)
+        for (size_t i = s0; i < a->statements.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[i]);
+        bool mgy = a->kind && strcmp(a->kind->kind, "fetus") == 0;
         for (size_t c = 0; c < a->nchecks; c++, any = true)
-            helf(&h, adv, "li", "%s: %s, %.3g Gy (%s; %s): %s", a->dose->roi->name,
-                 a->checks[c].level->name, a->checks[c].level->dose_gy,
+            helf(&h, adv, "li", "%s: %s, %.3g %s (%s; %s): %s", a->dose->roi->name,
+                 a->checks[c].level->name, (mgy ? 1000 : 1) * a->checks[c].level->dose_gy,
+                 mgy ? "mGy" : "Gy",
                  a->checks[c].level->source, a->checks[c].level->mark,
                  a->checks[c].exceeded         ? "exceeded"
                  : a->checks[c].upper_exceeded ? "reached by the upper bound"
                                                : "not reached");
         if (a->status == SL_ST_BAND) {
             any = true;
-            char shift[64];
+            char shift[1200];
             est_pacing_text(r, a, shift, sizeof shift);
             helf(&h, adv, "li", "%s: risk bands of the %s (%s)%s", a->dose->roi->name,
                  a->kind->bands_source, a->kind->bands_mark, shift);

@@ -67,6 +67,9 @@ void sl_plan_free(sl_plan *plan)
     free(plan->name);
     free(plan->patient_id);
     free(plan->patient_name);
+    free(plan->patient_sex);
+    free(plan->patient_birth_date);
+    free(plan->plan_date);
     free(plan->frame_uid);
     free(plan->structure_set_uid);
     free(plan->setups);

@@ -251,3 +251,56 @@ sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const 
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     return SL_OK;
 }
+
+sl_status sl_structures_add_shifted(sl_structure_set *ss, const char *src, const char *name,
+                                    sl_vec3 shift_mm, sl_error *err)
+{
+    const sl_roi *from = sl_structures_find(ss, src);
+    if (!from)
+        return sl_error_set(err, SL_EUSAGE, "no ROI named '%s'", src);
+    if (sl_structures_find(ss, name))
+        return sl_error_set(err, SL_EUSAGE, "a ROI named '%s' exists already", name);
+    size_t idx = (size_t)(from - ss->rois);
+    sl_roi *rois = realloc(ss->rois, (ss->nrois + 1) * sizeof *rois);
+    if (!rois)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    ss->rois = rois;
+    from = &ss->rois[idx];
+    sl_roi *r = &ss->rois[ss->nrois];
+    memset(r, 0, sizeof *r);
+    int number = 1;
+    for (size_t i = 0; i < ss->nrois; i++)
+        number = ss->rois[i].number >= number ? ss->rois[i].number + 1 : number;
+    bool ok = true;
+    r->number = number;
+    r->name = sl_strdup(name, &ok);
+    r->type = from->type ? sl_strdup(from->type, &ok) : NULL;
+    r->frame_uid = from->frame_uid ? sl_strdup(from->frame_uid, &ok) : NULL;
+    r->has_color = from->has_color;
+    memcpy(r->color, from->color, sizeof r->color);
+    r->contours = from->ncontours ? calloc(from->ncontours, sizeof *r->contours) : NULL;
+    ok = ok && (r->contours || !from->ncontours);
+    for (size_t c = 0; ok && c < from->ncontours; c++) {
+        const sl_contour *fc = &from->contours[c];
+        sl_contour *tc = &r->contours[c];
+        tc->type = fc->type;
+        tc->points = malloc((fc->npoints ? fc->npoints : 1) * sizeof *tc->points);
+        if (!tc->points) {
+            ok = false;
+            break;
+        }
+        tc->npoints = fc->npoints;
+        r->ncontours = c + 1;
+        for (size_t k = 0; k < fc->npoints; k++)
+            tc->points[k] = (sl_vec3){fc->points[k].x + shift_mm.x, fc->points[k].y + shift_mm.y,
+                                      fc->points[k].z + shift_mm.z};
+    }
+    ss->nrois++;
+    if (!ok)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    if (sl_notes_add(&ss->notes, "ROI '%s' is a what-if copy of '%s' moved by (%.1f, %.1f, %.1f "
+                                 "mm)",
+                     name, src, shift_mm.x, shift_mm.y, shift_mm.z) != SL_OK)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    return SL_OK;
+}

@@ -44,9 +44,10 @@ START_TEST(roi_names_match_their_kinds)
     }
     const sl_kind *lens = sl_levels_kind(l, "lens");
     ck_assert_uint_eq(lens->nlevels, 1);
-    /* ICRP Publication 118: 0.5 Gy */
+    /* ICRP Publication 118: 0.5 Gy; the value read only in restatements
+     * (IAEA pages, J Radiol Prot 2012 abstract), hence "secondary" */
     ck_assert_double_eq(lens->levels[0].dose_gy, 0.5);
-    ck_assert_str_eq(lens->levels[0].mark, "published");
+    ck_assert_str_eq(lens->levels[0].mark, "secondary");
     sl_levels_free(l);
 }
 END_TEST
@@ -121,6 +122,14 @@ START_TEST(bad_tables_are_refused)
         {"format: strayline-action-levels\nformat_version: 1\nkinds:\n  - kind: t\n    match: "
          "[t]\n    lar_table: nothing\n",
          "lar_table 'nothing'"},
+        {"format: strayline-action-levels\nformat_version: 1\nkinds:\n  - kind: d\n    match: "
+         "[d]\n    bands: {source: s, mark: published, neutron_band: top, list: [{name: a, "
+         "below_gy: 2}, {name: b}]}\n",
+         "neutron_band 'top'"},
+        {"format: strayline-action-levels\nformat_version: 1\nkinds:\n  - kind: t\n    match: "
+         "[t]\n    levels:\n      - {name: x, dose_gy: 1, exposure: twice, source: s, mark: "
+         "published}\n",
+         "exposure 'twice'"},
     };
     for (size_t i = 0; i < sizeof bad / sizeof *bad; i++) {
         sl_levels *l;
@@ -129,6 +138,120 @@ START_TEST(bad_tables_are_refused)
                          SL_EINPUT);
         ck_assert_msg(strstr(e.msg, bad[i].fragment) != NULL, "case %zu: '%s'", i, e.msg);
     }
+}
+END_TEST
+
+/* ROI names from common naming conventions and the kind each must map to.
+ * The AAPM TG-263 standard names (Mayo et al., Med Phys 45:e1012 (2018),
+ * citation from memory) written as TG-263 writes them: Lens_L, Glnd_Thyroid,
+ * Breast_L (secondary: seen in public code that lists TG-263 names);
+ * Testis_L, Ovary_R, Bone_Marrow, Scrotum, Ovaries (from memory); the
+ * laterality variants (L_, _L, Lt, Left, Rt, Right, prefixes and suffixes)
+ * are common practice in clinics. NULL: no kind (an organ with no level). */
+START_TEST(naming_conventions_table)
+{
+    sl_levels *l = load();
+    const struct {
+        const char *name, *kind;
+    } cases[] = {
+        /* TG-263 standard names */
+        {"Lens_L", "lens"}, {"Lens_R", "lens"}, {"Glnd_Thyroid", "thyroid"},
+        {"Breast_L", "breast"}, {"Breast_R", "breast"}, {"Testis_L", "testis"},
+        {"Testis_R", "testis"}, {"Testis", "testis"}, {"Ovary_L", "ovary"},
+        {"Ovary_R", "ovary"}, {"Ovaries", "ovary"}, {"Bone_Marrow", "bone_marrow"},
+        {"Bone_Marrow_Thoracic", "bone_marrow"}, {"Scrotum", "testis"},
+        /* laterality spellings */
+        {"L_Lens", "lens"}, {"R_Lens", "lens"}, {"Lt Lens", "lens"}, {"Rt Lens", "lens"},
+        {"Left Lens", "lens"}, {"Right lens", "lens"}, {"Lens Lt", "lens"},
+        {"LENS_LEFT", "lens"}, {"lens-r", "lens"}, {"Lens L", "lens"},
+        {"Lt Ovary", "ovary"}, {"Ovary Lt", "ovary"}, {"L_Ovary", "ovary"},
+        {"Left Ovary", "ovary"}, {"OVARY_RIGHT", "ovary"}, {"Rt_Ovary", "ovary"},
+        {"L_Testis", "testis"}, {"Testes", "testis"}, {"Lt Testicle", "testis"},
+        {"testicles", "testis"}, {"Right Testis", "testis"}, {"scrotal_shield", "testis"},
+        {"Breast Lt", "breast"}, {"L_Breast", "breast"}, {"Left Breast", "breast"},
+        {"Thyroid", "thyroid"}, {"THYROID", "thyroid"}, {"thyroid gland", "thyroid"},
+        /* gonads without a sex in the name */
+        {"Gonads", "gonads"}, {"gonad_L", "gonads"}, {"Gonad", "gonads"},
+        /* fetus and devices */
+        {"Fetus", "fetus"}, {"Foetus", "fetus"}, {"Fetal_pole", "fetus"},
+        {"Uterus_Fetus", "fetus"}, {"Embryo", "fetus"}, {"Gest_Sac", "fetus"},
+        {"Pacemaker", "cardiac_device"}, {"PPM", "cardiac_device"}, {"ICD", "cardiac_device"},
+        {"CIED", "cardiac_device"}, {"AICD", "cardiac_device"}, {"Pacer", "cardiac_device"},
+        {"L_Pacemaker", "cardiac_device"}, {"Defibrillator", "cardiac_device"},
+        {"Cardiac_Device", "cardiac_device"}, {"BoneMarrow", "bone_marrow"},
+        /* organs with no kind: must not be caught by a wide pattern */
+        {"Eye_L", NULL}, {"Eye_R", NULL}, {"Glnd_Lacrimal_L", NULL}, {"OpticNrv_L", NULL},
+        {"Heart", NULL}, {"Lung_L", NULL}, {"Parotid_R", NULL}, {"SpinalCord", NULL},
+        {"Bladder", NULL}, {"Rectum", NULL}, {"Uterus", NULL}, {"Prostate", NULL},
+        {"Femur_Head_L", NULL}, {"Kidney_L", NULL}, {"Esophagus", NULL},
+    };
+    size_t n = sizeof cases / sizeof *cases;
+    ck_assert_uint_ge(n, 60);
+    for (size_t i = 0; i < n; i++) {
+        const sl_kind *k = sl_levels_match(l, cases[i].name);
+        if (!cases[i].kind)
+            ck_assert_msg(k == NULL, "%s matched %s", cases[i].name, k ? k->kind : "");
+        else
+            ck_assert_msg(k && strcmp(k->kind, cases[i].kind) == 0, "%s: expected %s, got %s",
+                          cases[i].name, cases[i].kind, k ? k->kind : "none");
+    }
+    sl_levels_free(l);
+}
+END_TEST
+
+/* Gestational age counts from the last menstrual period, about 2 weeks
+ * before conception (obstetric convention: common practice); ICRP
+ * Publication 84 counts weeks after conception. */
+START_TEST(weeks_after_conception)
+{
+    ck_assert_double_eq_tol(sl_weeks_after_conception(10), 8, 1e-12);
+    ck_assert_double_eq_tol(sl_weeks_after_conception(2), 0, 1e-12);
+    ck_assert_double_eq_tol(sl_weeks_after_conception(1), 0, 1e-12);
+    ck_assert(sl_level_applies(8, 16, sl_weeks_after_conception(17.9)));
+    ck_assert(!sl_level_applies(8, 16, sl_weeks_after_conception(18)));
+}
+END_TEST
+
+/* Age in whole years at a date (DICOM DA, PS3.5 Table 6.2-1: YYYYMMDD). */
+START_TEST(age_at_the_plan_date)
+{
+    double a = -1;
+    ck_assert(sl_age_on("19900615", "20261201", &a));
+    ck_assert_double_eq(a, 36);
+    ck_assert(sl_age_on("19900615", "20260615", &a));
+    ck_assert_double_eq(a, 36);
+    ck_assert(sl_age_on("19900615", "20260614", &a));
+    ck_assert_double_eq(a, 35);
+    ck_assert(!sl_age_on("1990-06-15", "20260614", &a));
+    ck_assert(!sl_age_on("19901315", "20260614", &a));
+    ck_assert(!sl_age_on("20300101", "20260614", &a));
+    ck_assert(!sl_age_on(NULL, "20260614", &a));
+    ck_assert(!sl_age_on("19900615", NULL, &a));
+}
+END_TEST
+
+/* The shipped device tables: the Dutch guideline's pacing floor (Hurkmans et
+ * al., Radiat Oncol 7:198 (2012), Table 2, published) and the TG-203 file's
+ * neutron band (from memory). */
+START_TEST(device_tables)
+{
+    sl_levels *l = load();
+    const sl_kind *d = sl_levels_kind(l, "cardiac_device");
+    ck_assert_int_eq(d->pacing_shift, 0);
+    ck_assert_str_eq(d->bands[d->pacing_min_band].name, "medium");
+    ck_assert_int_eq(d->neutron_band, -1);
+    ck_assert_double_eq(d->bands[1].below_gy, 10);
+    sl_levels_free(l);
+    char path[1024];
+    snprintf(path, sizeof path, "%s/models/action-levels-tg203.yaml", sl_test_source_root());
+    sl_error e = {0};
+    ck_assert_msg(sl_levels_load(path, &l, &e) == SL_OK, "%s", e.msg);
+    d = sl_levels_kind(l, "cardiac_device");
+    ck_assert_double_eq(d->bands[0].below_gy, 2);
+    ck_assert_double_eq(d->bands[1].below_gy, 5);
+    ck_assert_str_eq(d->bands[d->neutron_band].name, "high");
+    ck_assert_str_eq(d->bands_mark, "from memory");
+    sl_levels_free(l);
 }
 END_TEST
 
@@ -141,6 +264,10 @@ static Suite *levels_suite(void)
     tcase_add_test(tc, gestational_weeks_are_half_open);
     tcase_add_test(tc, lead_rule);
     tcase_add_test(tc, bad_tables_are_refused);
+    tcase_add_test(tc, naming_conventions_table);
+    tcase_add_test(tc, weeks_after_conception);
+    tcase_add_test(tc, age_at_the_plan_date);
+    tcase_add_test(tc, device_tables);
     suite_add_tcase(s, tc);
     return s;
 }

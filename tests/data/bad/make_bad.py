@@ -668,6 +668,14 @@ def yaml_cases():
             "missing key 'source'")
     lv_case("levels_wrong_format.yaml", lambda d: d.update(format="levels"),
             "not a strayline action-level table")
+    def device_kind(d):
+        return next(k for k in d["kinds"] if k["kind"] == "cardiac_device")
+    lv_case("levels_unknown_pacing_band.yaml",
+            lambda d: device_kind(d)["bands"].update(pacing_dependent_min_band="moderate"),
+            "pacing_dependent_min_band 'moderate': no band of that name")
+    lv_case("levels_bad_exposure.yaml",
+            lambda d: d["kinds"][0]["levels"][0].update(exposure="weekly"),
+            "exposure 'weekly': expected single, fractionated or any")
     ms_case("csv_unterminated_quote.yaml", None, "CSV error",
             csv="quote.csv", csv_body='edge_distance_cm,dose_percent\n0,"50\n1,20\n')
 
