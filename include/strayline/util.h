@@ -37,6 +37,10 @@ bool sl_parse_int(const char *text, int *out);
  * through *ok (set to false, never set to true). */
 char *sl_strdup(const char *s, bool *ok);
 
+/* A name for a terminal: control characters written as \xNN, so that a ROI
+ * name cannot move the cursor or hide text. Cut to `size`; returns out. */
+const char *sl_text_escape(const char *in, char *out, size_t size);
+
 /* Case-insensitive ASCII comparison, for DICOM code strings and ROI names. */
 int sl_strcasecmp(const char *a, const char *b);
 

@@ -333,3 +333,24 @@ void sl_gsl_quiet(void)
 {
     pthread_once(&gsl_quiet_once, gsl_quiet_setup);
 }
+
+const char *sl_text_escape(const char *in, char *out, size_t size)
+{
+    size_t k = 0;
+    if (size == 0)
+        return out;
+    for (const unsigned char *c = (const unsigned char *)(in ? in : ""); *c; c++) {
+        if (*c < 0x20 || *c == 0x7f) {
+            if (k + 5 > size - 1)
+                break;
+            snprintf(out + k, size - k, "\\x%02X", *c);
+            k += 4;
+        } else {
+            if (k + 1 > size - 1)
+                break;
+            out[k++] = (char)*c;
+        }
+    }
+    out[k] = '\0';
+    return out;
+}

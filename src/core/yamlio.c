@@ -111,6 +111,30 @@ sl_status sl_yaml_load_buffer(sl_yaml *y, const char *data, size_t size, const c
         sl_yaml_free(y);
         return sl_error_set(err, SL_EINPUT, "%s: empty file, no YAML document", name);
     }
+    /* Every node plain: a tag (!python/object, !!binary ...) would be ignored
+     * silently, and a NUL inside a string would cut it short. The nodes are
+     * one flat array, so this is a single pass. */
+    for (yaml_node_t *n = y->doc.nodes.start; n < y->doc.nodes.top; n++) {
+        const char *want = n->type == YAML_SCALAR_NODE     ? YAML_DEFAULT_SCALAR_TAG
+                           : n->type == YAML_SEQUENCE_NODE ? YAML_DEFAULT_SEQUENCE_TAG
+                                                           : YAML_DEFAULT_MAPPING_TAG;
+        const char *what = NULL, *shown = NULL;
+        if (n->tag && strcmp((const char *)n->tag, want) != 0) {
+            what = "a YAML tag";
+            shown = (const char *)n->tag;
+        } else if (n->type == YAML_SCALAR_NODE &&
+                   memchr(n->data.scalar.value, 0, n->data.scalar.length)) {
+            what = "a NUL character";
+            shown = "\\0";
+        }
+        if (what) {
+            st = sl_error_set(err, SL_EINPUT, "%s:%zu:%zu: %s ('%.60s') is not accepted here",
+                              name, n->start_mark.line + 1, n->start_mark.column + 1, what,
+                              shown);
+            sl_yaml_free(y);
+            return st;
+        }
+    }
     return SL_OK;
 }
 

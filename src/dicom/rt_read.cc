@@ -528,6 +528,38 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
     } else if (electron) {
         r.fail(SL_EINPUT, Reader::at(cctx, DCM_IsocenterPosition), "missing or empty");
     }
+    /* Later control points of a static electron beam repeat or omit these
+     * values; one that changes them describes a moving beam, which the first
+     * control point alone would misplace. (Photon beams, arcs among them, are
+     * only listed.) */
+    const struct {
+        double v;
+        DcmTagKey k;
+        const char *unit;
+    } fixed[] = {{b->energy_mev, DCM_NominalBeamEnergy, "MeV"},
+                 {b->gantry_deg, DCM_GantryAngle, "deg"},
+                 {b->collimator_deg, DCM_BeamLimitingDeviceAngle, "deg"},
+                 {b->couch_deg, DCM_PatientSupportAngle, "deg"},
+                 {b->eccentric_deg, DCM_TableTopEccentricAngle, "deg"}};
+    for (size_t k = 1; electron && k < cps.size(); k++) {
+        std::string kctx = ctx + " > control point " + std::to_string(k);
+        for (const auto &f : fixed) {
+            double v = r.num(cps[k], f.k, kctx, false);
+            if (!std::isnan(v) && !(std::fabs(v - f.v) <= 1e-6))
+                r.fail(SL_EINPUT, Reader::at(kctx, f.k),
+                       std::to_string(v) + " " + f.unit + " differs from control point 0 (" +
+                           std::to_string(f.v) + " " + f.unit +
+                           "): a beam that moves or changes during delivery is not handled");
+        }
+        std::vector<double> kiso = r.nums(cps[k], DCM_IsocenterPosition, kctx);
+        if (!kiso.empty() && (kiso.size() != 3 || !b->has_isocenter ||
+                              std::fabs(kiso[0] - b->isocenter_mm.x) > 1e-6 ||
+                              std::fabs(kiso[1] - b->isocenter_mm.y) > 1e-6 ||
+                              std::fabs(kiso[2] - b->isocenter_mm.z) > 1e-6))
+            r.fail(SL_EINPUT, Reader::at(kctx, DCM_IsocenterPosition),
+                   "differs from control point 0: a beam that moves during delivery is not "
+                   "handled");
+    }
     b->ssd_mm = r.num(cp, DCM_SourceToSurfaceDistance, cctx, false);
     if (std::isfinite(b->ssd_mm) && (b->ssd_mm <= 0.0 || b->ssd_mm > 2000.0))
         r.fail(SL_EINPUT, Reader::at(cctx, DCM_SourceToSurfaceDistance),

@@ -171,6 +171,11 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                             "cannot be chosen",
                             f, b->number);
     bd->applicator = b->applicator.id;
+    if (b->machine && m->machine.name && sl_strcasecmp(b->machine, m->machine.name) != 0)
+        sl_notes_add(&e->notes,
+                     "beam %d is planned for treatment machine '%s', the model is of machine "
+                     "'%s': a model is valid only for the machine it was measured on",
+                     b->number, b->machine, m->machine.name);
     const char *ins = choose_insert(m, b, e->opt.insert);
     bd->cutout = strcmp(ins, SL_INSERT_OPEN) != 0;
     bd->cutout_area_cm2 = bd->cutout_eqsq_cm = NAN;

@@ -156,6 +156,28 @@ static sl_status band_index(sl_yaml *y, yaml_node_t *n, const char *key, const s
     return st;
 }
 
+/* A shell pattern whose every '[' opens a bracket expression that closes:
+ * fnmatch takes an unclosed '[' literally, so the pattern would silently
+ * match nothing a clinic meant it to. */
+static bool pattern_ok(const char *p)
+{
+    for (; *p; p++) {
+        if (*p != '[')
+            continue;
+        const char *q = p + 1;
+        if (*q == '!' || *q == '^')
+            q++;
+        if (*q == ']')
+            q++; /* a ']' first in the set is a member */
+        while (*q && *q != ']')
+            q++;
+        if (!*q)
+            return false;
+        p = q;
+    }
+    return true;
+}
+
 static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l, sl_error *err)
 {
     char what[64];
@@ -189,6 +211,11 @@ static sl_status read_kind(sl_yaml *y, yaml_node_t *n, size_t idx, sl_levels *l,
             k->npatterns = i + 1;
             for (char *c = k->patterns[i]; *c; c++)
                 *c = (char)tolower((unsigned char)*c);
+            if (!pattern_ok(k->patterns[i]))
+                st = sl_yaml_error(y, sl_yaml_item(y, items[i]), err,
+                                   "%s: match pattern '%s': a '[' without its ']' (it would "
+                                   "match nothing, and the organ would pass unjudged)",
+                                   what, k->patterns[i]);
         }
     }
     if (st == SL_OK && f[3].node) {

@@ -212,6 +212,20 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                                double cax_reading, double nominal_width_cm, sl_profile_data *p,
                                sl_notes *notes, sl_error *err)
 {
+    /* a UTF-8 byte-order mark, as spreadsheets write one, is not data */
+    if (size >= 3 && memcmp(data, "\xEF\xBB\xBF", 3) == 0) {
+        data += 3;
+        size -= 3;
+    }
+    /* a NUL would end a field early inside the parser's callbacks */
+    const char *nul = memchr(data, 0, size);
+    if (nul) {
+        size_t line = 1;
+        for (const char *q = data; q < nul; q++)
+            line += *q == '\n';
+        return sl_error_set(err, SL_EINPUT, "%s: line %zu: a NUL byte: not a CSV text file", name,
+                            line);
+    }
     struct csv_parser parser;
     if (csv_init(&parser, CSV_STRICT | CSV_STRICT_FINI | CSV_APPEND_NULL | CSV_EMPTY_IS_NULL) != 0)
         return sl_error_set(err, SL_ENOMEM, "out of memory");

@@ -262,6 +262,7 @@ static const char *orq(const char *s)
 
 static void text_report(FILE *fp, const sl_estimate_report *r)
 {
+    char nm[160]; /* a ROI name, control characters escaped */
     const sl_estimate *e = r->est;
     const sl_plan *p = r->plan;
     fprintf(fp, "strayline %s: out-of-field dose screening estimate\n", sl_version());
@@ -346,7 +347,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         est_status_text(a, status, sizeof status);
         char marks[96];
         est_marks(d, false, marks, sizeof marks);
-        fprintf(fp, "%-18.18s %-14.14s %7.2f %11s %19s %19s %9s %7s  %s%s\n", d->roi->name,
+        fprintf(fp, "%-18.18s %-14.14s %7.2f %11s %19s %19s %9s %7s  %s%s\n", sl_text_escape(d->roi->name, nm, sizeof nm),
                 est_kind(a), d->min_distance_cm, depth, fx, course, mean, level, status, marks);
     }
     bool any = false;
@@ -357,7 +358,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         if (!any)
             fprintf(fp, "\nnot estimated:\n");
         any = true;
-        fprintf(fp, "  %-18s %s\n", d->roi->name, orq(d->excluded_why));
+        fprintf(fp, "  %-18s %s\n", sl_text_escape(d->roi->name, nm, sizeof nm),
+                orq(d->excluded_why));
     }
     for (size_t i = 0; i < r->as->missing.count; i++)
         fprintf(fp, "%s%s\n", i ? "  " : "\nasked for, not found:\n  ", r->as->missing.items[i]);
@@ -372,7 +374,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         if (!any)
             fprintf(fp, "\nadvice and risk statements:\n");
         any = true;
-        fprintf(fp, "  %s:\n", a->dose->roi->name);
+        fprintf(fp, "  %s:\n", sl_text_escape(a->dose->roi->name, nm, sizeof nm));
         size_t s0 = a->verdict ? 1 : 0; /* the verdict before everything else */
         if (a->verdict)
             fprintf(fp, "    - %s\n", a->statements.items[0]);

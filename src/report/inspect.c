@@ -163,8 +163,10 @@ static void text_structures(FILE *fp, const sl_structure_set *s)
     for (size_t i = 0; i < s->nrois; i++) {
         const sl_roi *r = &s->rois[i];
         double z0, z1;
-        fprintf(fp, "  %5d  %-24s %-16s %8zu %8zu  ", r->number, r->name, orq(r->type),
-                r->ncontours, sl_roi_point_count(r));
+        char nm[160];
+        fprintf(fp, "  %5d  %-24s %-16s %8zu %8zu  ", r->number,
+                sl_text_escape(r->name, nm, sizeof nm), orq(r->type), r->ncontours,
+                sl_roi_point_count(r));
         if (sl_roi_z_range(r, &z0, &z1))
             fprintf(fp, "%.2f to %.2f\n", cm(z0), cm(z1));
         else

@@ -72,7 +72,8 @@ static void text_report(FILE *fp, const sl_plan *plan, const sl_structure_set *s
             const sl_roi *r = loc->rois[o];
             const sl_organ_samples *s = &loc->samples[o];
             const sl_organ_place *p = &bp->organs[o];
-            fprintf(fp, "  %-20s %-10s", r->name, orq(r->type));
+        char nm[160];
+            fprintf(fp, "  %-20s %-10s", sl_text_escape(r->name, nm, sizeof nm), orq(r->type));
             if (s->is_point)
                 fprintf(fp, " %9s", "point");
             else

@@ -120,6 +120,57 @@ static int cmp_roi_name(const void *a, const void *b)
     return c ? c : (x->number > y->number) - (x->number < y->number);
 }
 
+static int cmp_contour(const void *a, const void *b)
+{
+    const sl_contour *x = *(const sl_contour *const *)a, *y = *(const sl_contour *const *)b;
+    if (x->npoints != y->npoints)
+        return x->npoints < y->npoints ? -1 : 1;
+    if (x->type != y->type)
+        return x->type < y->type ? -1 : 1;
+    return memcmp(x->points, y->points, x->npoints * sizeof *x->points);
+}
+
+/* Contours repeated exactly (same type and points) within a ROI would count
+ * their area twice: keep one of each, and say so. */
+static sl_status drop_repeated_contours(sl_structure_set *ss, sl_roi *r, const char *f)
+{
+    if (r->ncontours < 2)
+        return SL_OK;
+    sl_contour **v = malloc(r->ncontours * sizeof *v);
+    bool *gone = calloc(r->ncontours, sizeof *gone);
+    if (!v || !gone) {
+        free(v);
+        free(gone);
+        return SL_ENOMEM;
+    }
+    for (size_t i = 0; i < r->ncontours; i++)
+        v[i] = &r->contours[i];
+    qsort(v, r->ncontours, sizeof *v, cmp_contour);
+    size_t dropped = 0;
+    for (size_t i = 1; i < r->ncontours; i++) {
+        if (v[i]->npoints > 0 && cmp_contour(&v[i], &v[i - 1]) == 0) {
+            gone[v[i] - r->contours] = true;
+            dropped++;
+        }
+    }
+    free(v);
+    size_t k = 0;
+    for (size_t i = 0; dropped && i < r->ncontours; i++) {
+        if (gone[i])
+            free(r->contours[i].points);
+        else
+            r->contours[k++] = r->contours[i];
+    }
+    free(gone);
+    if (!dropped)
+        return SL_OK;
+    r->ncontours = k;
+    return sl_notes_add(&ss->notes,
+                        "%s: ROI '%s': %zu contour(s) repeat another exactly on the same slice: "
+                        "each is counted once",
+                        f, r->name, dropped);
+}
+
 /* Duplicate numbers (an error) and names (a note), by sorting: a structure
  * set of tens of thousands of ROIs must not take quadratic time. */
 sl_status sl_structure_set_validate(sl_structure_set *ss, sl_error *err)
@@ -145,6 +196,10 @@ sl_status sl_structure_set_validate(sl_structure_set *ss, sl_error *err)
             st = sl_error_set(err, SL_ENOMEM, "%s: out of memory", f);
     }
     free(v);
+    for (size_t i = 0; i < ss->nrois && st == SL_OK; i++) {
+        if (drop_repeated_contours(ss, &ss->rois[i], f) != SL_OK)
+            st = sl_error_set(err, SL_ENOMEM, "%s: out of memory", f);
+    }
     if (st != SL_OK)
         return st;
     const sl_roi *ext;
