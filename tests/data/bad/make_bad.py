@@ -217,6 +217,34 @@ def main():
     plan_case("block_data_odd_count.dcm", odd_block, "not a whole number of (x,y) pairs")
     plan_case("number_of_blocks_mismatch.dcm", lambda d: setattr(beam(d), "NumberOfBlocks", 2),
               "NumberOfBlocks (300A,00F0): says 2 but the Block Sequence holds 1")
+    # -- a static electron beam whose later control point moves or changes
+    def second_cp(d, **kw):
+        import copy as _copy
+        b = beam(d)
+        cp1 = _copy.deepcopy(b.ControlPointSequence[-1])
+        cp1.ControlPointIndex = len(b.ControlPointSequence)
+        for k, v in kw.items():
+            setattr(cp1, k, v)
+        b.ControlPointSequence.append(cp1)
+        b.NumberOfControlPoints = len(b.ControlPointSequence)
+    for name, kw, frag in (
+            ("cp_gantry_moves.dcm", {"GantryAngle": "60"}, "GantryAngle (300A,011E): 60"),
+            ("cp_energy_changes.dcm", {"NominalBeamEnergy": "12"},
+             "NominalBeamEnergy (300A,0114): 12"),
+            ("cp_collimator_turns.dcm", {"BeamLimitingDeviceAngle": "90"},
+             "BeamLimitingDeviceAngle (300A,0120): 90"),
+            ("cp_couch_turns.dcm", {"PatientSupportAngle": "10"},
+             "PatientSupportAngle (300A,0122): 10"),
+            ("cp_isocentre_moves.dcm", {"IsocenterPosition": ["0", "0", "50"]},
+             "IsocenterPosition (300A,012C): differs from control point 0")):
+        plan_case(name, lambda d, kw=kw: second_cp(d, **kw), frag)
+    # -- an organ whose coordinates put it kilometres away: no number for it
+    def far_away(d):
+        for c in d.ROIContourSequence[1].ContourSequence:
+            c.ContourData = [v + 4.0e4 if i % 3 == 0 else v for i, v in enumerate(c.ContourData)]
+    ss_case("ss_organ_far_away.dcm", far_away, "lies more than 500 cm from a field edge",
+            args="estimate {plan} {f} --model {model}")
+
     plan_case("control_point_count_mismatch.dcm",
               lambda d: setattr(beam(d), "NumberOfControlPoints", 3),
               "NumberOfControlPoints (300A,0110): says 3")
@@ -678,6 +706,40 @@ def yaml_cases():
             "exposure 'weekly': expected single, fractionated or any")
     ms_case("csv_unterminated_quote.yaml", None, "CSV error",
             csv="quote.csv", csv_body='edge_distance_cm,dose_percent\n0,"50\n1,20\n')
+    # -- a NUL inside a CSV field would end it early: refused with its line
+    ms_case("csv_nul_in_field.yaml", None, "line 4: a NUL byte",
+            csv="nul.csv", csv_body=csv_text(good_rows[:2]) + "2,1\x005\n" +
+            "".join("%g,%g\n" % r for r in good_rows[3:]))
+    ms_case("csv_nul_after_bom.yaml", None, "line 1: a NUL byte",
+            csv="nul_bom.csv", csv_body="\ufeffedge_distance_cm\x00,dose_percent\n0,1\n")
+    # -- YAML tags and NUL characters: never ignored, never cut short
+    def tagged(text, old, new, name, args, fragment):
+        assert old in text
+        write_text(name, text.replace(old, new, 1), args, 3, fragment)
+    model_text = yaml.safe_dump(good_model(), sort_keys=False)
+    tagged(model_text, "format: strayline-model", "format: !python/object strayline-model",
+           "model_tag_python_object.yaml", show, "a YAML tag ('!python/object')")
+    tagged(model_text, "model_version: bad-input base", "model_version: !!binary YmFk",
+           "model_tag_binary.yaml", show, "a YAML tag ('tag:yaml.org,2002:binary')")
+    tagged(model_text, "sad_cm: 100.0", "sad_cm: !custom 100.0",
+           "model_tag_custom_number.yaml", show, "a YAML tag ('!custom')")
+    tagged(model_text, "model_version: bad-input base", 'model_version: "bad\\0input"',
+           "model_nul_in_string.yaml", show, "a NUL character")
+    ms_text = yaml.safe_dump(good_measurements(), sort_keys=False)
+    tagged(ms_text, "format: strayline-measurements", "format: !x strayline-measurements",
+           "ms_tag.yaml", fit, "a YAML tag ('!x')")
+    lv_text = yaml.safe_dump(lv, sort_keys=False)
+    tagged(lv_text, "format: strayline-action-levels", "format: !!python/str strayline-action-levels",
+           "levels_tag.yaml", est, "a YAML tag")
+    # -- an unclosed bracket would match nothing: the lens would pass unjudged
+    def lens_kind(d):
+        return next(k for k in d["kinds"] if k["kind"] == "lens")
+    lv_case("levels_pattern_unclosed_bracket.yaml",
+            lambda d: lens_kind(d)["match"].insert(0, "lens_[lr"),
+            "match pattern 'lens_[lr': a '[' without its ']'")
+    lv_case("levels_pattern_unclosed_negated_bracket.yaml",
+            lambda d: lens_kind(d)["match"].append("*[!x"),
+            "a '[' without its ']'")
 
 
 if __name__ == "__main__":

@@ -1,0 +1,264 @@
+"""Hostile and unusual input, one class at a time, each against an outside
+reference: the DICOM grammar of IS and DS and the character sets of PS3.5
+(read with pydicom, which writes the files), the demo files read as they
+are shipped (the same numbers whatever the encoding), and Python's own
+csv, json and codecs modules for what the tool writes. The bad-input corpus
+(tests/data/bad) holds the refusals; this file holds what must be read
+right, and the behaviours that are not a plain refusal.
+"""
+import csv
+import io
+import json
+import os
+import shutil
+import unittest
+
+import pydicom
+from pydicom.dataelem import RawDataElement
+from pydicom.tag import Tag
+
+from common import SOURCE_ROOT, run, run_json, tempdir
+
+FACE = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+PLAN = os.path.join(FACE, "rtplan.dcm")
+SS = os.path.join(FACE, "rtstruct.dcm")
+MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
+
+
+def raw(item, keyword_tag, vr, text):
+    """Put an element with the exact bytes given (pydicom would tidy them)."""
+    tag = Tag(keyword_tag)
+    value = text.encode("latin-1")
+    if len(value) % 2:
+        value += b" "
+    item._dict[tag] = RawDataElement(tag, vr, len(value), value, 0, False, True)
+
+
+def estimate_json(plan, ss, *extra):
+    rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--format", "json", *extra)
+    if rc not in (0, 4):
+        raise AssertionError("exit %d: %s" % (rc, err))
+    return json.loads(out), err
+
+
+def organ_doses(js):
+    return {o["roi"]: o.get("course_max_cgy") for o in js["organs"]}
+
+
+class StrictNumbers(unittest.TestCase):
+    """PS3.5 6.2: DS is an optional sign, digits with an optional point and
+    an optional exponent, with leading and trailing spaces allowed; IS the
+    same without point or exponent, within a signed 32-bit integer."""
+
+    def test_legal_but_odd_values_read_right(self):
+        with tempdir() as d:
+            ds = pydicom.dcmread(PLAN)
+            cp = ds.BeamSequence[0].ControlPointSequence[0]
+            raw(cp, 0x300A011E, "DS", " +4.5E+01")      # GantryAngle, 45
+            raw(cp, 0x300A0114, "DS", "9.")             # NominalBeamEnergy, 9
+            raw(ds.FractionGroupSequence[0], 0x300A0078, "IS", " +15 ")  # fractions
+            raw(ds.FractionGroupSequence[0].ReferencedBeamSequence[0], 0x300A0086, "DS",
+                "3.5e2")                                # BeamMeterset, 350
+            odd = os.path.join(d, "odd.dcm")
+            ds.save_as(odd)
+            a, _ = estimate_json(PLAN, SS)
+            b, _ = estimate_json(odd, SS)
+        self.assertEqual(organ_doses(a), organ_doses(b))
+
+    def test_the_examples_of_the_report_are_refused_by_name(self):
+        cases = [(0x300A0078, "IS", "1e2", "NumberOfFractionsPlanned"),
+                 (0x300A0086, "DS", "3 50", "BeamMeterset")]
+        for tag, vr, text, keyword in cases:
+            with tempdir() as d:
+                ds = pydicom.dcmread(PLAN)
+                fg = ds.FractionGroupSequence[0]
+                raw(fg if vr == "IS" else fg.ReferencedBeamSequence[0], tag, vr, text)
+                bad = os.path.join(d, "bad.dcm")
+                ds.save_as(bad)
+                rc, out, err = run("estimate", bad, SS, "--model", MODEL)
+            self.assertEqual(rc, 3, err)
+            self.assertIn(keyword, err)
+            self.assertIn("'%s'" % text, err)
+            self.assertEqual(out, "")
+
+
+class FarAway(unittest.TestCase):
+    def test_model_eval_refuses_beyond_the_plausible_range(self):
+        rc, out, err = run("model", "eval", MODEL, "-e", "9", "-a", "A10", "-d", "1",
+                           "-x", "14000")
+        self.assertEqual(rc, 2)
+        self.assertIn("within +/-500 cm", err)
+
+    def test_far_but_plausible_is_finite_and_held_at_the_floor(self):
+        js = run_json("model", "eval", MODEL, "-e", "9", "-a", "A10", "-d", "1", "-x", "400",
+                      "--format", "json")
+        for k in ("dose_percent", "uncertainty_percent", "uncertainty_fit_percent"):
+            self.assertTrue(js[k] is not None and js[k] == js[k] and js[k] < 1e6, k)
+        self.assertIn("extrapolated", js["flags"])
+        self.assertGreater(js["dose_percent"], 0)
+
+
+class CharacterSets(unittest.TestCase):
+    """Specific Character Set ISO_IR 100 (Latin-1, PS3.5 6.1): names come out
+    as UTF-8 in JSON (Python's json and codecs), and control characters are
+    escaped in the text tables."""
+
+    def test_latin1_name_is_utf8_in_json(self):
+        with tempdir() as d:
+            ds = pydicom.dcmread(SS)
+            ds.SpecificCharacterSet = "ISO_IR 100"
+            ds.StructureSetROISequence[1].ROIName = "Linse_Ä"
+            path = os.path.join(d, "latin1.dcm")
+            ds.save_as(path)
+            p = run("inspect", path, "--format", "json")
+            self.assertEqual(p[0], 0, p[2])
+            names = [r["name"] for r in json.loads(p[1])["files"][0]["rois"]]
+        self.assertIn("Linse_Ä", names)
+
+    def test_control_characters_are_escaped_in_text(self):
+        with tempdir() as d:
+            ds = pydicom.dcmread(SS)
+            ds.StructureSetROISequence[1].ROIName = "Lens\x1b[2JL"
+            path = os.path.join(d, "ctl.dcm")
+            ds.save_as(path)
+            rc, out, err = run("inspect", path)
+        self.assertEqual(rc, 0, err)
+        self.assertNotIn("\x1b", out)
+        self.assertIn("Lens\\x1B[2JL", out)
+
+
+class UnknownVR(unittest.TestCase):
+    def test_contour_data_as_un_reads_like_ds(self):
+        """Explicit VR cannot hold a DS over 64 KiB, so dense contours arrive
+        as UN (PS3.5 6.2.2): read with the dictionary's VR, the numbers are
+        the same as from the shipped file."""
+        import struct
+        with tempdir() as d:
+            ds = pydicom.dcmread(SS)
+            path = os.path.join(d, "un.dcm")
+            # sequences and items of undefined length, so that headers may grow
+
+            def undefined(item):
+                for el in item:
+                    if el.VR == "SQ":
+                        el.is_undefined_length = True
+                        for sub in el.value:
+                            sub.is_undefined_length_sequence_item = True
+                            undefined(sub)
+            undefined(ds)
+            ds.save_as(path)
+            data = open(path, "rb").read()
+            head = b"\x06\x30\x50\x00DS"
+            out, i, n = bytearray(), 0, 0
+            while True:
+                j = data.find(head, i)
+                if j < 0:
+                    break
+                (length,) = struct.unpack("<H", data[j + 6:j + 8])
+                out += data[i:j] + b"\x06\x30\x50\x00UN\x00\x00" + struct.pack("<I", length)
+                out += data[j + 8:j + 8 + length]
+                i, n = j + 8 + length, n + 1
+            out += data[i:]
+            open(path, "wb").write(bytes(out))
+            self.assertGreater(n, 10)
+            self.assertEqual(bytes(out).count(head), 0)
+            a, _ = estimate_json(PLAN, SS)
+            b, _ = estimate_json(PLAN, path)
+        self.assertEqual(organ_doses(a), organ_doses(b))
+
+
+class NoSilentChange(unittest.TestCase):
+    def test_repeated_contours_are_counted_once_and_said(self):
+        with tempdir() as d:
+            ds = pydicom.dcmread(SS)
+            for rc_item in ds.ROIContourSequence:
+                seq = rc_item.ContourSequence
+                for c in list(seq):
+                    seq.append(pydicom.dataset.Dataset(c))
+            path = os.path.join(d, "twice.dcm")
+            ds.save_as(path)
+            a, _ = estimate_json(PLAN, SS)
+            b, _ = estimate_json(PLAN, path)
+        self.assertEqual(organ_doses(a), organ_doses(b))
+        self.assertTrue(any("repeat another exactly" in w for w in b["warnings"]))
+
+    def test_a_plan_for_another_machine_is_warned(self):
+        with tempdir() as d:
+            ds = pydicom.dcmread(PLAN)
+            for b in ds.BeamSequence:
+                b.TreatmentMachineName = "OTHER-LINAC"
+            path = os.path.join(d, "other.dcm")
+            ds.save_as(path)
+            js, _ = estimate_json(path, SS)
+        self.assertTrue(any("treatment machine 'OTHER-LINAC'" in w for w in js["warnings"]))
+
+
+class OutputsNeverOverInputs(unittest.TestCase):
+    def test_fit_refuses_to_write_over_a_profile_csv(self):
+        src = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1")
+        with tempdir() as d:
+            dst = os.path.join(d, "set")
+            shutil.copytree(src, dst)
+            target = os.path.join(dst, "profiles", "e09_a10_open_d1.00.csv")
+            before = open(target, "rb").read()
+            for args in (["-o", target], ["-o", os.path.join(d, "m.yaml"), "-r", target]):
+                rc, out, err = run("fit", os.path.join(dst, "measurements.yaml"), "-q", *args)
+                self.assertEqual(rc, 2, err)
+                self.assertIn("refusing to write over an input file", err)
+            self.assertEqual(open(target, "rb").read(), before)
+
+    def test_an_output_onto_a_directory_exits_1(self):
+        """README: exit code 1 when an output cannot be written."""
+        with tempdir() as d:
+            rc, out, err = run("estimate", PLAN, SS, "--model", MODEL, "--html", d)
+        self.assertEqual(rc, 1, err)
+        self.assertIn("is not a regular file", err)
+
+
+class SmallerOnes(unittest.TestCase):
+    def test_csv_with_a_byte_order_mark_reads_like_one_without(self):
+        src = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1")
+        with tempdir() as d:
+            dst = os.path.join(d, "set")
+            shutil.copytree(src, dst)
+            for name in os.listdir(os.path.join(dst, "profiles"))[:20]:
+                p = os.path.join(dst, "profiles", name)
+                data = open(p, "rb").read()
+                open(p, "wb").write(b"\xef\xbb\xbf" + data)
+            a = os.path.join(d, "a.yaml")
+            b = os.path.join(d, "b.yaml")
+            run("fit", os.path.join(src, "measurements.yaml"), "-o", a, "-q",
+                "--created", "2026-12-01T00:00:00Z", "--model-version", "x", check=0)
+            run("fit", os.path.join(dst, "measurements.yaml"), "-o", b, "-q",
+                "--created", "2026-12-01T00:00:00Z", "--model-version", "x", check=0)
+            ma = [p["fit"]["parameters"] for p in pydicom_free_yaml(a)["profiles"]]
+            mb = [p["fit"]["parameters"] for p in pydicom_free_yaml(b)["profiles"]]
+        self.assertEqual(ma, mb)
+
+    def test_fit_fails_when_its_standard_output_cannot_be_written(self):
+        with open("/dev/full", "w") as full, tempdir() as d:
+            import subprocess
+            from common import STRAYLINE
+            p = subprocess.run([STRAYLINE, "fit",
+                                os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1",
+                                             "measurements.yaml"),
+                                "-o", os.path.join(d, "m.yaml")],
+                               stdout=full, stderr=subprocess.PIPE, text=True, timeout=300)
+        self.assertEqual(p.returncode, 1, p.stderr)
+        self.assertIn("cannot write to standard output", p.stderr)
+
+    def test_csv_output_loads_in_python_csv(self):
+        rc, out, err = run("estimate", PLAN, SS, "--model", MODEL, "--format", "csv")
+        self.assertIn(rc, (0, 4), err)
+        rows = list(csv.reader(io.StringIO(out)))
+        self.assertGreater(len(rows), 3)
+
+
+def pydicom_free_yaml(path):
+    import yaml
+    with open(path) as f:
+        return yaml.safe_load(f)
+
+
+if __name__ == "__main__":
+    unittest.main()
