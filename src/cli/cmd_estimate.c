@@ -107,6 +107,8 @@ enum {
 /* "X,Y,Z" with a unit, mm or cm, at the end: every report speaks cm and the
  * DICOM files mm, so a point without its unit is refused rather than guessed
  * (a point typed in cm and read as mm lands ten times too near). */
+#define POINT_MAX_MM 5000.0
+
 static bool parse_point(const char *s, sl_vec3 *p)
 {
     char buf[128];
@@ -131,10 +133,13 @@ static bool parse_point(const char *s, sl_vec3 *p)
     p->x *= scale;
     p->y *= scale;
     p->z *= scale;
-    return true;
+    /* a patient lies within metres of the DICOM origin: 0,0,1e20cm is a typo */
+    return fabs(p->x) <= POINT_MAX_MM && fabs(p->y) <= POINT_MAX_MM && fabs(p->z) <= POINT_MAX_MM;
 }
 
-#define POINT_FORMS "X,Y,Z with its unit, in mm (0,-250,-480mm) or cm (0,-25,-48cm)"
+#define POINT_FORMS                                                                         \
+    "X,Y,Z with its unit, in mm (0,-250,-480mm) or cm (0,-25,-48cm), each within 5 m of the " \
+    "origin"
 
 typedef struct given_point {
     char name[160];

@@ -4,7 +4,7 @@
  * The CSV is parsed by libcsv; this file only decides what the fields mean.
  * Every row must hold exactly the header's two columns, every value must be
  * a finite number, positions must increase strictly: a profile that breaks
- * any of these is refused with its file and row, never silently trimmed.
+ * any of these is refused with its file and line, never silently trimmed.
  */
 #include "strayline/measure.h"
 #include "strayline/yamlio.h"
@@ -60,7 +60,9 @@ typedef struct csv_rows {
     bool failed;
     sl_status st;
     char msg[256];
-    size_t row;         /* 1-based row being read (header is row 1) */
+    size_t row;         /* 1-based record being read (the header is record 1) */
+    size_t line;        /* file line being read, for messages */
+    size_t *lines;      /* file line of each data row */
 } csv_rows;
 
 static void fail_row(csv_rows *r, sl_status st, const char *fmt, const char *field)
@@ -69,7 +71,7 @@ static void fail_row(csv_rows *r, sl_status st, const char *fmt, const char *fie
         return;
     r->failed = true;
     r->st = st;
-    snprintf(r->msg, sizeof r->msg, fmt, r->row, field ? field : "");
+    snprintf(r->msg, sizeof r->msg, fmt, r->line, field ? field : "");
 }
 
 static void on_field(void *s, size_t len, void *ctx)
@@ -79,7 +81,7 @@ static void on_field(void *s, size_t len, void *ctx)
         return;
     char buf[128];
     if (len >= sizeof buf) {
-        fail_row(r, SL_EINPUT, "row %zu: a field is too long%s", NULL);
+        fail_row(r, SL_EINPUT, "line %zu: a field is too long%s", NULL);
         return;
     }
     if (s)
@@ -88,27 +90,27 @@ static void on_field(void *s, size_t len, void *ctx)
     size_t col = r->ncols_row++;
     if (r->row == 1) {
         if (col >= 2) {
-            fail_row(r, SL_EINPUT, "row %zu: more than two columns in the header ('%s')", buf);
+            fail_row(r, SL_EINPUT, "line %zu: more than two columns in the header ('%s')", buf);
             return;
         }
         r->head[col] = strdup(buf);
         if (!r->head[col])
-            fail_row(r, SL_ENOMEM, "row %zu: out of memory%s", NULL);
+            fail_row(r, SL_ENOMEM, "line %zu: out of memory%s", NULL);
         return;
     }
     if (col >= 2) {
-        fail_row(r, SL_EINPUT, "row %zu: more than two values ('%s')", buf);
+        fail_row(r, SL_EINPUT, "line %zu: more than two values ('%s')", buf);
         return;
     }
     double v;
     if (!sl_parse_double(buf, &v)) {
-        fail_row(r, SL_EINPUT, "row %zu: '%s' is not a finite number", buf);
+        fail_row(r, SL_EINPUT, "line %zu: '%s' is not a finite number", buf);
         return;
     }
     if (col == 0) {
         if (r->nrows == r->cap) {
             if (r->cap >= MAX_ROWS) {
-                fail_row(r, SL_EINPUT, "row %zu: more rows than strayline accepts%s", NULL);
+                fail_row(r, SL_EINPUT, "line %zu: more rows than strayline accepts%s", NULL);
                 return;
             }
             size_t cap = r->cap ? r->cap * 2 : 64;
@@ -118,13 +120,17 @@ static void on_field(void *s, size_t len, void *ctx)
             double *nb = realloc(r->b, cap * sizeof *nb);
             if (nb)
                 r->b = nb;
-            if (!na || !nb) {
-                fail_row(r, SL_ENOMEM, "row %zu: out of memory%s", NULL);
+            size_t *nl = realloc(r->lines, cap * sizeof *nl);
+            if (nl)
+                r->lines = nl;
+            if (!na || !nb || !nl) {
+                fail_row(r, SL_ENOMEM, "line %zu: out of memory%s", NULL);
                 return;
             }
             r->cap = cap;
         }
         r->a[r->nrows] = v;
+        r->lines[r->nrows] = r->line;
     } else {
         r->b[r->nrows] = v;
     }
@@ -140,9 +146,9 @@ static void on_row(int c, void *ctx)
         r->header_cols = r->ncols_row;
         if (r->ncols_row != 2)
             fail_row(r, SL_EINPUT,
-                     "row %zu: the header must name two columns: a distance and a dose%s", NULL);
+                     "line %zu: the header must name two columns: a distance and a dose%s", NULL);
     } else if (r->ncols_row != 2) {
-        fail_row(r, SL_EINPUT, "row %zu: expected two values%s", NULL);
+        fail_row(r, SL_EINPUT, "line %zu: expected two values%s", NULL);
     } else {
         r->nrows++;
     }
@@ -231,17 +237,24 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     csv_rows r = {0};
     r.row = 1;
-    size_t done = csv_parse(&parser, data, size, on_field, on_row, &r);
-    if (done != size && !r.failed) {
-        r.failed = true;
-        r.st = SL_EINPUT;
-        snprintf(r.msg, sizeof r.msg, "row %zu: CSV error: %s", r.row,
-                 csv_strerror(csv_error(&parser)));
+    /* a line at a time, so that messages name the file's line (a record
+     * may span lines inside quotes, and blank lines hold no record) */
+    for (size_t at = 0; at < size && !r.failed;) {
+        const char *nl = memchr(data + at, '\n', size - at);
+        size_t len = nl ? (size_t)(nl - (data + at)) + 1 : size - at;
+        r.line++;
+        if (csv_parse(&parser, data + at, len, on_field, on_row, &r) != len && !r.failed) {
+            r.failed = true;
+            r.st = SL_EINPUT;
+            snprintf(r.msg, sizeof r.msg, "line %zu: CSV error: %s", r.line,
+                     csv_strerror(csv_error(&parser)));
+        }
+        at += len;
     }
     if (!r.failed && csv_fini(&parser, on_field, on_row, &r) != 0) {
         r.failed = true;
         r.st = SL_EINPUT;
-        snprintf(r.msg, sizeof r.msg, "row %zu: CSV error: %s", r.row,
+        snprintf(r.msg, sizeof r.msg, "line %zu: CSV error: %s", r.line,
                  csv_strerror(csv_error(&parser)));
     }
     csv_free(&parser);
@@ -284,8 +297,8 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
     for (size_t i = 1; st == SL_OK && i < r.nrows; i++) {
         if (!(r.a[i] > r.a[i - 1]))
             st = sl_error_set(err, SL_EINPUT,
-                              "%s: row %zu: %s %g does not increase on the row before (%g)",
-                              name, i + 2, r.head[0], r.a[i], r.a[i - 1]);
+                              "%s: line %zu: %s %g does not increase on the row before (%g)",
+                              name, r.lines[i], r.head[0], r.a[i], r.a[i - 1]);
     }
     if (st == SL_OK && readings) {
         for (size_t i = 0; i < r.nrows; i++)
@@ -294,9 +307,9 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
     for (size_t i = 0; st == SL_OK && i < r.nrows; i++) {
         if (r.b[i] < 0 || r.b[i] > 150)
             st = sl_error_set(err, SL_EINPUT,
-                              "%s: row %zu: dose %g %% of the central-axis maximum is not "
+                              "%s: line %zu: dose %g %% of the central-axis maximum is not "
                               "plausible",
-                              name, i + 2, r.b[i]);
+                              name, r.lines[i], r.b[i]);
     }
     double left = NAN, right = NAN;
     if (st == SL_OK && positions)
@@ -320,9 +333,9 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
         }
         if (!(r.b[i] > 0)) {
             st = sl_error_set(err, SL_EINPUT,
-                              "%s: row %zu: a dose of 0 outside the field cannot be fitted; give "
+                              "%s: line %zu: a dose of 0 outside the field cannot be fitted; give "
                               "the reading at the noise floor",
-                              name, i + 2);
+                              name, r.lines[i]);
             break;
         }
         pts[np++] = (dpair){d, r.b[i]};
@@ -380,6 +393,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
     free(pts);
     free(r.a);
     free(r.b);
+    free(r.lines);
     free(r.head[0]);
     free(r.head[1]);
     return st;

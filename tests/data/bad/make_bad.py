@@ -665,7 +665,7 @@ def yaml_cases():
             "profiles: the list is empty")
     ms_case("csv_missing_column.yaml", None, "the header must name two columns",
             csv="missing_column.csv", csv_body="edge_distance_cm\n0\n1\n2\n")
-    ms_case("csv_text_in_numbers.yaml", None, "row 4: 'ten' is not a finite number",
+    ms_case("csv_text_in_numbers.yaml", None, "line 4: 'ten' is not a finite number",
             csv="text.csv", csv_body=csv_text(good_rows[:2]) + "2,ten\n" +
             "".join("%g,%g\n" % r for r in good_rows[3:]))
     rows_nm = list(good_rows)
