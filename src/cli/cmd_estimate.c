@@ -240,7 +240,8 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_patient_init(&patient);
     bool allow_mismatch = false;
     sl_shield shields[MAX_ITEMS];
-    sl_organ_map map[3 * MAX_ITEMS]; /* room for the points, landmarks and fetus copies */
+    sl_organ_map map[4 * MAX_ITEMS]; /* --organ, points, fetus copies and landmarks, each at
+                                        most MAX_ITEMS */
     sl_other_dose others[MAX_ITEMS];
     given_point pts[MAX_ITEMS];
     landmark lms[MAX_ITEMS];

@@ -198,12 +198,25 @@ public:
             /* every value read whole and strictly: a value that merely starts
              * like a number ("1e2" as an IS, "3 50", "45deg", "1,5") must not
              * become one */
+            /* the whole value once, split here: getOFString(s, i) rescans
+             * the value for each i, quadratic over a dense contour */
+            char *chars = nullptr;
+            Uint32 nchars = 0;
+            if (el->getString(chars, nchars).bad() || (!chars && nchars))
+                fail(SL_EINPUT, where, "cannot read the values");
+            std::string all(chars ? chars : "", chars ? nchars : 0);
+            while (!all.empty() && (all.back() == ' ' || all.back() == '\0'))
+                all.pop_back(); /* the padding to an even length */
             out.reserve(vm);
+            size_t from = 0;
             for (unsigned long i = 0; i < vm; i++) {
-                OFString raw;
-                if (el->getOFString(raw, i).bad())
-                    fail(SL_EINPUT, where, "cannot read value " + std::to_string(i + 1));
-                std::string v(raw.c_str(), raw.length()), core;
+                size_t to = all.find('\\', from);
+                if (to == std::string::npos)
+                    to = all.length();
+                if (i + 1 < vm && to == all.length())
+                    fail(SL_EINPUT, where, "could not read every value");
+                std::string v(all.c_str() + from, to - from), core;
+                from = to + 1;
                 std::string shown = v.size() > 40 ? v.substr(0, 40) + "..." : v;
                 if (vr == EVR_DS) {
                     double d;

@@ -256,6 +256,25 @@ sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch
     return SL_OK;
 }
 
+/* A number for a ROI added by the tool: one above the highest in use, or,
+ * when that is INT_MAX, the lowest not in use (one of 1 .. nrois + 1 is
+ * free). The new ROI is not counted yet (ss->nrois excludes it). */
+static int free_roi_number(const sl_structure_set *ss)
+{
+    long long top = 0;
+    for (size_t i = 0; i < ss->nrois; i++)
+        top = ss->rois[i].number > top ? ss->rois[i].number : top;
+    if (top < INT_MAX)
+        return (int)top + 1;
+    for (int cand = 1;; cand++) {
+        bool used = false;
+        for (size_t i = 0; i < ss->nrois && !used; i++)
+            used = ss->rois[i].number == cand;
+        if (!used)
+            return cand;
+    }
+}
+
 sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const char *type,
                                   sl_vec3 point_mm, sl_error *err)
 {
@@ -267,21 +286,8 @@ sl_status sl_structures_add_point(sl_structure_set *ss, const char *name, const 
     ss->rois = rois;
     sl_roi *r = &ss->rois[ss->nrois];
     memset(r, 0, sizeof *r);
-    /* one above the highest number, or, when that is INT_MAX, the lowest
-     * number not in use (one of 1 .. nrois + 1 is free) */
-    long long top = 0;
-    for (size_t i = 0; i < ss->nrois; i++)
-        top = ss->rois[i].number > top ? ss->rois[i].number : top;
-    int number = top < INT_MAX ? (int)top + 1 : 0;
-    for (int cand = 1; number == 0; cand++) {
-        bool used = false;
-        for (size_t i = 0; i < ss->nrois && !used; i++)
-            used = ss->rois[i].number == cand;
-        if (!used)
-            number = cand;
-    }
     bool ok = true;
-    r->number = number;
+    r->number = free_roi_number(ss);
     r->name = sl_strdup(name, &ok);
     r->type = sl_strdup(type, &ok);
     r->contours = calloc(1, sizeof *r->contours);
@@ -323,11 +329,8 @@ sl_status sl_structures_add_shifted(sl_structure_set *ss, const char *src, const
     from = &ss->rois[idx];
     sl_roi *r = &ss->rois[ss->nrois];
     memset(r, 0, sizeof *r);
-    int number = 1;
-    for (size_t i = 0; i < ss->nrois; i++)
-        number = ss->rois[i].number >= number ? ss->rois[i].number + 1 : number;
     bool ok = true;
-    r->number = number;
+    r->number = free_roi_number(ss);
     r->name = sl_strdup(name, &ok);
     r->type = from->type ? sl_strdup(from->type, &ok) : NULL;
     r->frame_uid = from->frame_uid ? sl_strdup(from->frame_uid, &ok) : NULL;
