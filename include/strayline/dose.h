@@ -89,6 +89,8 @@ typedef struct sl_beam_dose {
     double isf;                   /* inverse-square factor */
     double cutout_factor;
     bool cutout_factor_assumed;   /* no factor in the model: 1 used */
+    double cutout_inset_cm;       /* deepest point of the cutout inside the applicator's
+                                     opening (isocentric plane); NAN when unknown */
     double cutout_area_cm2;       /* the plan's cutout at the nominal SSD; NAN without one */
     double cutout_eqsq_cm;        /* its equivalent square, 4 area / perimeter */
     bool reference_overridden;

@@ -45,8 +45,9 @@ typedef struct sl_insert_spec {
 } sl_insert_spec;
 
 /* Nominal area (cm2) and equivalent square (cm) of an insert's opening:
- * x y (pi x y / 4 for a circle); 2xy/(x+y) for a rectangle, the side of the
- * square of equal area for a circle. */
+ * x y (pi x y / 4 for a circle), and 4 x area / perimeter, the rule the
+ * estimate applies to a plan's cutout (a circle's diameter, 2xy/(x+y) for a
+ * rectangle). */
 double sl_insert_area_cm2(const sl_insert_spec *s);
 double sl_insert_equivalent_square_cm(const sl_insert_spec *s);
 

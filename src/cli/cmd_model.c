@@ -111,7 +111,8 @@ int sl_cmd_model(int argc, char **argv)
                             "distances must lie within +/-%.0f cm of the field edge and depths "
                             "within 0 to %.0f cm",
                             SL_MAX_DISTANCE_CM, SL_MAX_DEPTH_CM);
-    if (!eval && (!isnan(energy) || applicator || insert || !isnan(depth) || !isnan(distance)))
+    if (!eval && (!isnan(energy) || applicator || insert || !isnan(depth) || !isnan(distance) ||
+                  !isnan(angle) || !isnan(app_distance)))
         return sl_cli_usage("model", "show takes no point options (did you mean eval?)");
     sl_error err = {0};
     sl_model *m = NULL;

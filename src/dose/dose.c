@@ -107,7 +107,9 @@ static const char *choose_insert(const sl_model *m, const sl_beam *b, const char
 }
 
 /* The plan's cutout at the nominal SSD: area (cm2) and equivalent square
- * (4 area / perimeter, cm). The outline is in the isocentric plane. */
+ * (4 area / perimeter, cm, the rule applied to the model's inserts in
+ * machine.h, so that a cutout of exactly an insert's size matches it). The
+ * outline is in the isocentric plane. */
 static void cutout_size(const sl_field *f, double nominal_ssd_cm, double sad_cm, double *area,
                         double *eqsq)
 {
@@ -146,6 +148,14 @@ static sl_status check_insert(sl_estimate *e, const sl_beam *b, sl_beam_dose *bd
     double da = fabs(bd->cutout_area_cm2 / a - 1), dq = fabs(bd->cutout_eqsq_cm / q - 1);
     if (da <= SL_INSERT_MATCH_TOLERANCE && dq <= SL_INSERT_MATCH_TOLERANCE)
         return SL_OK;
+    if (!isfinite(bd->cutout_area_cm2)) {
+        sl_notes_add(&e->notes,
+                     "beam %d: the cutout's outline is not known, so its size cannot be compared "
+                     "with model insert '%s': the conservative stand-in is used instead",
+                     b->number, spec->id);
+        *ins = "custom cutout";
+        return SL_OK;
+    }
     sl_notes_add(&e->notes,
                  "beam %d: the plan's cutout (%.1f cm2, equivalent square %.1f cm at the nominal "
                  "SSD) does not match model insert '%s' (%.1f cm2, %.1f cm; tolerance %.0f %%): "
@@ -178,10 +188,30 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                      b->number, b->machine, m->machine.name);
     const char *ins = choose_insert(m, b, e->opt.insert);
     bd->cutout = strcmp(ins, SL_INSERT_OPEN) != 0;
-    bd->cutout_area_cm2 = bd->cutout_eqsq_cm = NAN;
+    if (!bd->cutout && bp->field.has_cutout)
+        /* the open profiles from the cutout's edge would under-read: only
+         * the stand-in (no --insert) or a matching insert may stand for it */
+        return sl_error_set(err, SL_EUSAGE,
+                            "--insert %s: beam %d has a cutout; name the model insert that fits "
+                            "it, or leave --insert out (the conservative stand-in is then used)",
+                            SL_INSERT_OPEN, b->number);
+    bd->cutout_area_cm2 = bd->cutout_eqsq_cm = bd->cutout_inset_cm = NAN;
     if (bd->cutout && bp->field.has_cutout)
         cutout_size(&bp->field, m->machine.nominal_ssd_cm, m->machine.sad_cm,
                     &bd->cutout_area_cm2, &bd->cutout_eqsq_cm);
+    if (bd->cutout && bp->field.has_cutout && bp->field.applicator) {
+        /* how far the cutout's edge lies inside the applicator's: a point
+         * known only by its distance from the cutout (a landmark) is at most
+         * this much nearer the applicator's edge */
+        bd->cutout_inset_cm = 0;
+        for (size_t i = 0; i < sl_outline_loop_count(bp->field.edge); i++) {
+            size_t n;
+            const sl_vec2 *p = sl_outline_loop_points(bp->field.edge, i, &n);
+            for (size_t j = 0; j < n; j++)
+                bd->cutout_inset_cm =
+                    fmax(bd->cutout_inset_cm, -sl_outline_distance(bp->field.applicator, p[j]));
+        }
+    }
     sl_status cst = check_insert(e, b, bd, &ins, err);
     if (cst != SL_OK)
         return cst;
@@ -384,6 +414,20 @@ static void eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift, 
     *us = fmax(fabs(vp.percent - v->percent), fabs(vm.percent - v->percent));
 }
 
+/* Add one beam's components (percent) at a coefficient c (cGy per percent
+ * over the course) to a budget. */
+static void add_budget(sl_budget *bg, double c, const sl_model_value *v, double us, double u)
+{
+    bg->fit_cgy += c * v->u_fit;
+    bg->measurement_cgy += c * v->u_meas;
+    bg->interpolation_cgy += c * v->u_interp;
+    bg->extrapolation_cgy += c * v->u_extrap;
+    bg->standin_cgy += c * v->u_standin;
+    bg->transfer_cgy += c * v->u_transfer;
+    bg->setup_cgy += c * us;
+    bg->combined_cgy += c * u;
+}
+
 /* The budget of the course dose at one sample: each component summed over
  * beams and fraction groups like the uncertainty itself. */
 static void sample_budget(const sl_estimate *e, size_t o, size_t i, double t, sl_budget *bg)
@@ -398,15 +442,7 @@ static void sample_budget(const sl_estimate *e, size_t o, size_t i, double t, sl
         for (size_t g = 0; g < e->ngroups; g++) {
             if (!isfinite(bd->ref_cgy[g]))
                 continue;
-            double c = e->fractions[g] * bd->ref_cgy[g] / 100;
-            bg->fit_cgy += c * v.u_fit;
-            bg->measurement_cgy += c * v.u_meas;
-            bg->interpolation_cgy += c * v.u_interp;
-            bg->extrapolation_cgy += c * v.u_extrap;
-            bg->standin_cgy += c * v.u_standin;
-            bg->transfer_cgy += c * v.u_transfer;
-            bg->setup_cgy += c * us;
-            bg->combined_cgy += c * u;
+            add_budget(bg, e->fractions[g] * bd->ref_cgy[g] / 100, &v, us, u);
         }
     }
 }
@@ -453,7 +489,8 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         if (p->placed != s->n)
             od->placed = false;
         if (p->placed && !(p->max_distance_cm <= SL_MAX_DISTANCE_CM &&
-                           p->max_depth_cm <= SL_MAX_DEPTH_CM))
+                           p->max_depth_cm <= SL_MAX_DEPTH_CM) &&
+            !sl_dose_type_excluded(od->roi->type, true, NULL))
             return SL_EINPUT; /* reported by the caller, which names the ROI */
         if (p->placed) {
             od->min_distance_cm = fmin(od->min_distance_cm, p->min_distance_cm);
@@ -730,9 +767,12 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
     for (size_t b = 0; b < e->nbeams; b++) {
         const sl_beam_dose *bd = &e->beams[b];
         od->max_energy_mev = fmax(od->max_energy_mev, bd->energy_mev);
-        /* measured on the patient: the direction and the applicator's edge
-         * are unknown (the highest direction is taken) */
-        sl_eval_query q = {depth_cm, distance_cm, NAN, NAN, e->opt.mode, 1.0};
+        /* measured on the patient: the direction is unknown (the highest is
+         * taken), and the applicator's edge is taken as near as the cutout
+         * allows (its deepest inset), the cautious reading */
+        double app = isfinite(bd->cutout_inset_cm) ? fmax(0, distance_cm - bd->cutout_inset_cm)
+                                                   : NAN;
+        sl_eval_query q = {depth_cm, distance_cm, app, NAN, e->opt.mode, 1.0};
         sl_model_value v;
         double us;
         eval_shifted(bd, q, shift, 1.0, &v, &us);
@@ -748,14 +788,7 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
             od->course_cgy[0] += c * pc;
             uc += c * u;
             ec += c * pc * (pc > 0 ? v.electron_percent / pc : 0);
-            bg->fit_cgy += c * v.u_fit;
-            bg->measurement_cgy += c * v.u_meas;
-            bg->interpolation_cgy += c * v.u_interp;
-            bg->extrapolation_cgy += c * v.u_extrap;
-            bg->standin_cgy += c * v.u_standin;
-            bg->transfer_cgy += c * v.u_transfer;
-            bg->setup_cgy += c * us;
-            bg->combined_cgy += c * u;
+            add_budget(bg, c, &v, us, u);
         }
     }
     for (size_t g = 0; g < ng; g++) {

@@ -404,6 +404,25 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         const sl_kind *k = a->kind;
         if (a->status == SL_ST_NOT_ASSESSED) {
             unjudged(as, a);
+            /* not judged is not cleared: a value shown that reaches a level
+             * needs attention even where the model is not the reference */
+            double lowest = INFINITY;
+            for (size_t i = 0; k && i < k->nlevels; i++) {
+                if (sl_level_applies(k->levels[i].weeks_from, k->levels[i].weeks_to,
+                                     pt->gestational_weeks))
+                    lowest = fmin(lowest, k->levels[i].dose_gy);
+            }
+            if (k && k->nbands)
+                lowest = fmin(lowest, k->bands[0].below_gy);
+            if (d->estimated && up >= lowest) {
+                a->flagged = true;
+                a->measurement_advised = true;
+                sl_notes_add(&a->advice,
+                             "the value shown (%.3g Gy, upper bound %.3g Gy) reaches the level "
+                             "of %.3g Gy: though not judged here, check this organ's dose (the "
+                             "planning system's, or a measurement)",
+                             gy, up, lowest);
+            }
         } else if (k && k->nbands) {
             a->band = band_of(k, gy);
             a->band_upper = band_of(k, up);

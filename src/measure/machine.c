@@ -76,8 +76,9 @@ double sl_insert_area_cm2(const sl_insert_spec *s)
 
 double sl_insert_equivalent_square_cm(const sl_insert_spec *s)
 {
-    if (strcmp(s->shape, "circle") == 0 || strcmp(s->shape, "irregular") == 0)
-        return sqrt(sl_insert_area_cm2(s));
+    /* 4 area / perimeter: the diameter of a circle, 2xy/(x+y) of a rectangle */
+    if (strcmp(s->shape, "circle") == 0)
+        return sqrt(s->x_cm * s->y_cm);
     return 2 * s->x_cm * s->y_cm / (s->x_cm + s->y_cm);
 }
 

@@ -236,8 +236,8 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
     else if (as->n_unjudged)
         sl_buf_printf(&b,
                       "no judged organ reaches its action level; %zu organ%s with action levels "
-                      "not judged (in the field, beyond the model's range or not placed): see "
-                      "above",
+                      "not judged (in the field, near its edge, beyond the model's range or not "
+                      "placed): see above",
                       as->n_unjudged, as->n_unjudged == 1 ? "" : "s");
     else
         sl_buf_printf(&b, "no organ reaches its action level at this screening");

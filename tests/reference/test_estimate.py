@@ -26,7 +26,7 @@ import unittest
 import jsonschema
 import yaml
 
-from common import SOURCE_ROOT, run, tempdir
+from common import SOURCE_ROOT, run, run_json, tempdir
 import rtbuild as rb  # noqa: E402
 
 MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
@@ -821,6 +821,50 @@ class StandInNeverBelowCommissioned(unittest.TestCase):
         self.assertEqual(rc, 3, err)
         self.assertIn("insert 'C6' fits applicator 'A10', not the beam's applicator 'A06'", err)
         self.assertEqual(out, "")
+
+
+class ReviewFindings(unittest.TestCase):
+    """Paths found by an independent review where a number could read low."""
+    FACE = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+
+    def test_insert_open_for_a_beam_with_a_cutout_is_refused(self):
+        rc, out, err = run("estimate", os.path.join(self.FACE, "rtplan.dcm"),
+                           os.path.join(self.FACE, "rtstruct.dcm"), "--model", MODEL,
+                           "--insert", "open")
+        self.assertEqual(rc, 2, err)
+        self.assertIn("beam 1 has a cutout", err)
+        self.assertEqual(out, "")
+
+    def test_a_landmark_beside_a_standin_takes_the_applicator_edge_into_account(self):
+        """A landmark at the contoured left lens's distance and depth: the
+        stand-in's applicator-edge candidate applies (the cutout's deepest
+        inset into the applicator), so it reads well above the open profile
+        from the cutout's edge alone (models/README.md, the stand-in rule)."""
+        rc, js, err = estimate(os.path.join(self.FACE, "rtplan.dcm"),
+                               os.path.join(self.FACE, "rtstruct.dcm"),
+                               "--landmark", "LensLM=lens:2.64:0.2")
+        self.assertIn(rc, (0, 4), err)
+        lm = organ(js, "LensLM")
+        ev = run_json("model", "eval", MODEL, "-e", "9", "-a", "A06", "-i", "CUSTOM", "-d",
+                      "0.2", "-x", "2.64", "--format", "json")
+        ref = js["beams"][0]["reference_dose_per_fraction_cgy"][0] * js["fraction_groups"][0][
+            "fractions"]
+        self.assertGreater(lm["course_max_cgy"], 1.5 * ref * ev["dose_percent"] / 100)
+        self.assertIn("standin_for_uncommissioned_cutout", lm["flags"])
+
+    def test_an_unjudged_organ_whose_value_reaches_its_level_is_flagged(self):
+        """A lens 0.5 cm from a 10 x 10 cm field edge (near edge: not
+        judged) with a dose far above 0.5 Gy: flagged, exit 4."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_near", (55.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 30, "beams": [(1, 400.0)]}])
+            rc, js, err = estimate(plan, ss)
+        o = organ(js, "Lens_near")
+        self.assertEqual(o["status"], "not_assessed")
+        self.assertGreater(o["course_max_cgy"], 50)
+        self.assertEqual(rc, 4, err)
+        self.assertTrue(any("reaches the level" in a for a in o["advice"]))
 
 
 class NearTheFieldEdge(unittest.TestCase):
