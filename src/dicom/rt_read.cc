@@ -37,6 +37,7 @@
 #include <sys/stat.h>
 #include <unistd.h>
 #include <vector>
+#include <zlib.h>
 
 namespace {
 
@@ -1003,12 +1004,55 @@ size_t count_item_tags(const unsigned char *p, size_t n)
     return k;
 }
 
-/* Deflated data hides its item tags: such a file gets the largest stack. */
+/* Deflated data hides its item tags: they are counted in the inflated
+ * stream (zlib), which starts after the file meta group. The meta group is
+ * explicit VR little endian and opens with its own length, (0002,0000) UL,
+ * so its end is found without parsing it. Returns SIZE_MAX when the stream
+ * cannot be found or inflated (DCMTK then reports the file). */
 bool is_deflated(const unsigned char *p, size_t n)
 {
     static const char uid[] = "1.2.840.10008.1.2.1.99";
     size_t m = n < 65536 ? n : 65536;
     return memmem(p, m, uid, sizeof uid - 1) != nullptr;
+}
+
+size_t count_item_tags_deflated(const unsigned char *p, size_t n)
+{
+    static const unsigned char head[] = {0x02, 0x00, 0x00, 0x00, 'U', 'L', 0x04, 0x00};
+    if (n < 144 || memcmp(p + 128, "DICM", 4) != 0 || memcmp(p + 132, head, 8) != 0)
+        return SIZE_MAX;
+    size_t meta = p[140] | (size_t)p[141] << 8 | (size_t)p[142] << 16 | (size_t)p[143] << 24;
+    if (meta > n - 144)
+        return SIZE_MAX;
+    z_stream z;
+    memset(&z, 0, sizeof z);
+    if (inflateInit2(&z, -MAX_WBITS) != Z_OK)
+        return SIZE_MAX;
+    z.next_in = const_cast<unsigned char *>(p + 144 + meta);
+    z.avail_in = static_cast<uInt>(std::min(n - 144 - meta, (size_t)UINT32_MAX));
+    std::vector<unsigned char> buf(3 + 65536);
+    size_t keep = 0, items = 0, total = 0;
+    int rc = Z_OK;
+    while (rc == Z_OK && items <= SL_DICOM_MAX_ITEMS) {
+        z.next_out = buf.data() + keep;
+        z.avail_out = 65536;
+        rc = inflate(&z, Z_NO_FLUSH);
+        size_t got = 65536 - z.avail_out;
+        total += got;
+        /* the tags that straddle two chunks are kept in the 3 bytes carried */
+        items += count_item_tags(buf.data(), keep + got);
+        size_t len = keep + got;
+        keep = len < 3 ? len : 3;
+        memmove(buf.data(), buf.data() + len - keep, keep);
+        if (got == 0 && rc == Z_OK)
+            break;
+        if (total > (size_t)4 * SL_DICOM_MAX_FILE_BYTES) {
+            items = SL_DICOM_MAX_ITEMS + 1;
+            break;
+        }
+    }
+    inflateEnd(&z);
+    return rc == Z_OK || rc == Z_STREAM_END || items > SL_DICOM_MAX_ITEMS ? items : SIZE_MAX;
 }
 
 struct load_job {
@@ -1043,7 +1087,12 @@ void *load_thread(void *arg)
 sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
                sl_dicom_object *out, sl_error *err)
 {
-    size_t items = is_deflated(raw, n) ? SL_DICOM_MAX_ITEMS : count_item_tags(raw, n);
+    size_t items = count_item_tags(raw, n);
+    if (is_deflated(raw, n)) {
+        size_t inflated = count_item_tags_deflated(raw, n);
+        /* not inflatable: DCMTK will refuse it; give it the stack of the raw count */
+        items = inflated == SIZE_MAX ? items : inflated;
+    }
     if (items > SL_DICOM_MAX_ITEMS)
         return sl_error_set(err, SL_EINPUT,
                             "%s: more than %zu sequence items: larger than strayline accepts",

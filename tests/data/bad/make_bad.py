@@ -101,7 +101,7 @@ def raw_ds(item, keyword, text):
     item._dict[tag] = RawDataElement(tag, "DS", len(value), value, 0, False, True)
 
 
-def nested_sequences(depth, big_endian_items=False):
+def nested_sequences(depth, big_endian_items=False, deflated=False):
     """A small file (explicit VR little endian) whose data set holds `depth`
     nested undefined-length sequences: bytes written directly, as pydicom's
     writer recurses per level. With big_endian_items the item tags are
@@ -116,14 +116,22 @@ def nested_sequences(depth, big_endian_items=False):
     meta_body = (el(2, 1, b"OB", b"\0\1") +
                  el(2, 2, b"UI", b"1.2.840.10008.5.1.4.1.1.481.5\0") +
                  el(2, 3, b"UI", b"1.2.826.0.1.3680043.2.1125.9\0") +
-                 el(2, 0x10, b"UI", b"1.2.840.10008.1.2.1\0"))
+                 el(2, 0x10, b"UI", b"1.2.840.10008.1.2.1.99" if deflated
+                    else b"1.2.840.10008.1.2.1\0"))
     meta = el(2, 0, b"UL", struct.pack("<I", len(meta_body))) + meta_body
     body = (el(8, 0x16, b"UI", b"1.2.840.10008.5.1.4.1.1.481.5\0") +
             el(8, 0x18, b"UI", b"1.2.826.0.1.3680043.2.1125.9\0") + el(8, 0x60, b"CS", b"RTPLAN"))
     item = struct.pack(">HHI" if big_endian_items else "<HHI", 0xFFFE, 0xE000, 0xFFFFFFFF)
     opening = struct.pack("<HH2sHI", 0x300C, 0x0002, b"SQ", 0, 0xFFFFFFFF) + item
     closing = struct.pack("<HHI", 0xFFFE, 0xE00D, 0) + struct.pack("<HHI", 0xFFFE, 0xE0DD, 0)
-    return b"\0" * 128 + b"DICM" + meta + body + opening * depth + closing * depth
+    data = body + opening * depth + closing * depth
+    if deflated:
+        import zlib
+        c = zlib.compressobj(9, zlib.DEFLATED, -15)
+        data = c.compress(data) + c.flush()
+        if len(data) % 2:
+            data += b"\0"
+    return b"\0" * 128 + b"DICM" + meta + data
 
 
 def main():
@@ -145,6 +153,9 @@ def main():
                         (30000, "nested_30000.dcm")):
         raw(name, nested_sequences(depth), "inspect {f}", 3,
             "sequences nested more than 64 levels deep")
+    # deflated: the item tags are counted in the inflated stream (zlib)
+    raw("nested_30000_deflated.dcm", nested_sequences(30000, deflated=True), "inspect {f}", 3,
+        "sequences nested more than 64 levels deep")
     # item tags of the other byte order are counted too; DCMTK then refuses the
     # stream cleanly
     raw("nested_20000_big_endian_items.dcm", nested_sequences(20000, big_endian_items=True),
