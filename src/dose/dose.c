@@ -397,9 +397,10 @@ static sl_eval_query sample_query(const sl_estimate *e, size_t b, size_t o, size
 }
 
 /* The model's value at the query and at +/- the setup shift; *us receives
- * the shift's uncertainty (percent). */
-static void eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift, double t,
-                         sl_model_value *v, double *us)
+ * the shift's uncertainty, and the result is the combined standard
+ * uncertainty with it (percent). */
+static double eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift, double t,
+                           sl_model_value *v, double *us)
 {
     q.electron_t = t;
     sl_curves_eval_query(bd->curves, &q, v);
@@ -412,6 +413,7 @@ static void eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift, 
     sl_curves_eval_query(bd->curves, &qp, &vp);
     sl_curves_eval_query(bd->curves, &qm, &vm);
     *us = fmax(fabs(vp.percent - v->percent), fabs(vm.percent - v->percent));
+    return sqrt(v->u_percent * v->u_percent + *us * *us);
 }
 
 /* Add one beam's components (percent) at a coefficient c (cGy per percent
@@ -437,8 +439,7 @@ static void sample_budget(const sl_estimate *e, size_t o, size_t i, double t, sl
         const sl_beam_dose *bd = &e->beams[b];
         sl_model_value v;
         double us;
-        eval_shifted(bd, sample_query(e, b, o, i), e->opt.setup_shift_cm, t, &v, &us);
-        double u = sqrt(v.u_percent * v.u_percent + us * us);
+        double u = eval_shifted(bd, sample_query(e, b, o, i), e->opt.setup_shift_cm, t, &v, &us);
         for (size_t g = 0; g < e->ngroups; g++) {
             if (!isfinite(bd->ref_cgy[g]))
                 continue;
@@ -550,9 +551,8 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             dmin[i] = fmin(dmin[i], p->distance_cm[i]);
             sl_model_value v;
             double us;
-            eval_shifted(bd, sample_query(e, b, o, i), shift, t, &v, &us);
+            double u = eval_shifted(bd, sample_query(e, b, o, i), shift, t, &v, &us);
             double pc = v.percent;
-            double u = sqrt(v.u_percent * v.u_percent + us * us);
             od->flags |= v.flags | bd->model_flags;
             for (size_t g = 0; g < ng; g++) {
                 if (!isfinite(bd->ref_cgy[g]))
@@ -775,9 +775,8 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
         sl_eval_query q = {depth_cm, distance_cm, app, NAN, e->opt.mode, 1.0};
         sl_model_value v;
         double us;
-        eval_shifted(bd, q, shift, 1.0, &v, &us);
+        double u = eval_shifted(bd, q, shift, 1.0, &v, &us);
         double pc = v.percent;
-        double u = sqrt(v.u_percent * v.u_percent + us * us);
         od->flags |= v.flags | bd->model_flags;
         for (size_t g = 0; g < ng; g++) {
             if (!isfinite(bd->ref_cgy[g]))

@@ -103,26 +103,14 @@ def model_parts(energy, app, depth, d):
 
 def model_percent(energy, app, depth, d):
     """Percent of the central-axis maximum and its standard uncertainty
-    (fit, measurement, interpolation; no extrapolation in these tests)."""
+    (fit, measurement, interpolation, transfer; no extrapolation in these
+    tests)."""
     depths, byd = profiles(energy, app)
-    if depth <= depths[0]:
-        z0 = z1 = depths[0]
-    elif depth >= depths[-1]:
-        z0 = z1 = depths[-1]
-    else:
-        z1 = next(z for z in depths if z >= depth)
-        z0 = depths[depths.index(z1) - 1]
-    w = 0.0 if z1 == z0 else (depth - z0) / (z1 - z0)
-    p0, p1 = byd[z0], byd[z1]
-    v0, v1 = form(p0, d), form(p1, d)
-    v = math.exp((1 - w) * math.log(v0) + w * math.log(v1))
-    rf = (1 - w) * u_fit_w(p0, d, v0) / v0 + w * u_fit_w(p1, d, v1) / v1
-    rm = (1 - w) * u_meas(p0, v0) / v0 + w * u_meas(p1, v1) / v1
-    ui = w * (1 - w) * abs(v1 - v0)
-    for p in (p0, p1):
+    for p in byd.values():
         assert d <= p["range_cm"][1], "the hand calculation has no extrapolation"
-    ut = transfer_rel(d) * v
-    return v, math.sqrt((rf * v) ** 2 + (rm * v) ** 2 + ui ** 2 + ut ** 2)
+    parts = model_parts(energy, app, depth, d)
+    return parts["v"], math.sqrt(sum(parts[k] ** 2 for k in
+                                     ("fit", "measurement", "interpolation", "transfer")))
 
 
 def u_fit_w(p, d, v):
