@@ -1004,60 +1004,71 @@ size_t count_item_tags(const unsigned char *p, size_t n)
     return k;
 }
 
-/* Deflated data hides its item tags: they are counted in the inflated
- * stream (zlib), which starts after the file meta group. The meta group is
- * explicit VR little endian and opens with its own length, (0002,0000) UL,
- * so its end is found without parsing it. Returns SIZE_MAX when the stream
- * cannot be found or inflated (DCMTK then reports the file). */
-bool is_deflated(const unsigned char *p, size_t n)
+/* Is the data set deflated? With a well-formed file meta group (after the
+ * preamble, (0002,0000) UL giving its length) the transfer syntax is looked
+ * for in that group; without one, anywhere in the file, so that DCMTK is
+ * never left to inflate a stream whose nesting was not counted. */
+static const unsigned char META_HEAD[] = {0x02, 0x00, 0x00, 0x00, 'U', 'L', 0x04, 0x00};
+const char DEFLATED_UID[] = "1.2.840.10008.1.2.1.99";
+
+bool meta_length(const unsigned char *p, size_t n, size_t *meta)
 {
-    static const char uid[] = "1.2.840.10008.1.2.1.99";
-    size_t m = n < 65536 ? n : 65536;
-    return memmem(p, m, uid, sizeof uid - 1) != nullptr;
+    if (n < 144 || memcmp(p + 128, "DICM", 4) != 0 || memcmp(p + 132, META_HEAD, 8) != 0)
+        return false;
+    *meta = p[140] | (size_t)p[141] << 8 | (size_t)p[142] << 16 | (size_t)p[143] << 24;
+    return *meta <= n - 144;
 }
 
-size_t count_item_tags_deflated(const unsigned char *p, size_t n)
+bool is_deflated(const unsigned char *p, size_t n)
 {
-    static const unsigned char head[] = {0x02, 0x00, 0x00, 0x00, 'U', 'L', 0x04, 0x00};
-    if (n < 144 || memcmp(p + 128, "DICM", 4) != 0 || memcmp(p + 132, head, 8) != 0)
-        return SIZE_MAX;
-    size_t meta = p[140] | (size_t)p[141] << 8 | (size_t)p[142] << 16 | (size_t)p[143] << 24;
-    if (meta > n - 144)
-        return SIZE_MAX;
+    size_t meta;
+    if (meta_length(p, n, &meta))
+        return memmem(p + 144, meta, DEFLATED_UID, sizeof DEFLATED_UID - 1) != nullptr;
+    return memmem(p, n, DEFLATED_UID, sizeof DEFLATED_UID - 1) != nullptr;
+}
+
+/* The data set of a deflated file, inflated (zlib, raw deflate) into *out.
+ * It starts after the file meta group, which is explicit VR little endian
+ * and opens with its own length, (0002,0000) UL, so its end is found without
+ * parsing it. False when the stream cannot be found or inflated (DCMTK then
+ * reports the file), or *too_big when it inflates past the file limit. */
+bool inflate_dataset(const unsigned char *p, size_t n, std::vector<unsigned char> &out,
+                     bool *too_big)
+{
+    size_t meta;
+    *too_big = false;
+    if (!meta_length(p, n, &meta))
+        return false;
     z_stream z;
     memset(&z, 0, sizeof z);
     if (inflateInit2(&z, -MAX_WBITS) != Z_OK)
-        return SIZE_MAX;
+        return false;
     z.next_in = const_cast<unsigned char *>(p + 144 + meta);
     z.avail_in = static_cast<uInt>(std::min(n - 144 - meta, (size_t)UINT32_MAX));
-    std::vector<unsigned char> buf(3 + 65536);
-    size_t keep = 0, items = 0, total = 0;
     int rc = Z_OK;
-    while (rc == Z_OK && items <= SL_DICOM_MAX_ITEMS) {
-        z.next_out = buf.data() + keep;
-        z.avail_out = 65536;
-        rc = inflate(&z, Z_NO_FLUSH);
-        size_t got = 65536 - z.avail_out;
-        total += got;
-        /* the tags that straddle two chunks are kept in the 3 bytes carried */
-        items += count_item_tags(buf.data(), keep + got);
-        size_t len = keep + got;
-        keep = len < 3 ? len : 3;
-        memmove(buf.data(), buf.data() + len - keep, keep);
-        if (got == 0 && rc == Z_OK)
-            break;
-        if (total > (size_t)4 * SL_DICOM_MAX_FILE_BYTES) {
-            items = SL_DICOM_MAX_ITEMS + 1;
+    out.clear();
+    while (rc == Z_OK) {
+        size_t at = out.size();
+        if (at + 65536 > SL_DICOM_MAX_FILE_BYTES) {
+            *too_big = true;
             break;
         }
+        out.resize(at + 65536);
+        z.next_out = out.data() + at;
+        z.avail_out = 65536;
+        rc = inflate(&z, Z_NO_FLUSH);
+        out.resize(at + 65536 - z.avail_out);
+        if (z.avail_out == 65536 && rc == Z_OK)
+            break; /* no progress: a truncated stream */
     }
     inflateEnd(&z);
-    return rc == Z_OK || rc == Z_STREAM_END || items > SL_DICOM_MAX_ITEMS ? items : SIZE_MAX;
+    return !*too_big && (rc == Z_OK || rc == Z_STREAM_END);
 }
 
 struct load_job {
     Reader *r;
     const char *path;
+    bool dataset_only;  /* a bare explicit little-endian data set (an inflated one) */
     sl_dicom_object *out;
     sl_error *err;
     sl_status st;
@@ -1068,8 +1079,12 @@ void *load_thread(void *arg)
     load_job *j = static_cast<load_job *>(arg);
     try {
         DcmFileFormat ff;
-        OFCondition cond = ff.loadFile(j->path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
-                                       ERM_autoDetect);
+        OFCondition cond =
+            j->dataset_only
+                ? ff.loadFile(j->path, EXS_LittleEndianExplicit, EGL_noChange, DCM_MaxReadLength,
+                              ERM_dataset)
+                : ff.loadFile(j->path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
+                              ERM_autoDetect);
         j->st = finish(*j->r, ff, cond, j->out, j->err);
     } catch (const std::bad_alloc &) {
         j->st = sl_error_set(j->err, SL_ENOMEM, "%s: out of memory", j->r->file());
@@ -1080,39 +1095,88 @@ void *load_thread(void *arg)
     return nullptr;
 }
 
+/* A path DCMTK can read (and check declared lengths against) for bytes in
+ * memory: an anonymous in-memory file. *fd receives it (close it after). */
+sl_status memfile(Reader &r, const unsigned char *data, size_t size, int *fd, char *path,
+                  size_t pathsize, sl_error *err)
+{
+    *fd = memfd_create("strayline-dicom", MFD_CLOEXEC);
+    if (*fd < 0)
+        return sl_error_set(err, SL_EINTERNAL, "%s: cannot make an in-memory file: %s",
+                            r.file(), strerror(errno));
+    for (size_t done = 0; done < size;) {
+        ssize_t k = write(*fd, data + done, size - done);
+        if (k <= 0) {
+            close(*fd);
+            *fd = -1;
+            return sl_error_set(err, SL_EINTERNAL, "%s: cannot fill an in-memory file",
+                                r.file());
+        }
+        done += static_cast<size_t>(k);
+    }
+    snprintf(path, pathsize, "/proc/self/fd/%d", *fd);
+    return SL_OK;
+}
+
 /* DCMTK reads (and frees) nested sequences recursively, so a file of
  * thousands of nested sequences would overflow an ordinary stack. The read
  * runs on a thread whose stack has room for every level the bytes allow
- * (virtual memory, committed only as used); the depth is then refused. */
+ * (virtual memory, committed only as used); the depth is then refused. A
+ * deflated file is inflated here first and DCMTK reads the inflated data
+ * set from a file: from a compressed stream it would allocate whatever an
+ * element declares (4 GB for a 5 KB file, found by fuzzing), from a file it
+ * checks the length against the file's size. */
 sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
                sl_dicom_object *out, sl_error *err)
 {
-    size_t items = count_item_tags(raw, n);
+    std::vector<unsigned char> inflated;
+    bool too_big = false, dataset_only = false;
     if (is_deflated(raw, n)) {
-        size_t inflated = count_item_tags_deflated(raw, n);
-        /* not inflatable: DCMTK will refuse it; give it the stack of the raw count */
-        items = inflated == SIZE_MAX ? items : inflated;
+        if (!inflate_dataset(raw, n, inflated, &too_big))
+            return sl_error_set(err, SL_EINPUT,
+                                too_big ? "%s: its deflated data set inflates to more than "
+                                          "strayline accepts"
+                                        : "%s: a deflated data set that cannot be inflated "
+                                          "(the file meta group must open with its group "
+                                          "length, (0002,0000), and the stream be whole)",
+                                r.file());
+        raw = inflated.data();
+        n = inflated.size();
+        dataset_only = true;
     }
+    size_t items = count_item_tags(raw, n);
     if (items > SL_DICOM_MAX_ITEMS)
         return sl_error_set(err, SL_EINPUT,
                             "%s: more than %zu sequence items: larger than strayline accepts",
                             r.file(), static_cast<size_t>(SL_DICOM_MAX_ITEMS));
+    int fd = -1;
+    char mpath[64];
+    if (dataset_only) {
+        sl_status st = memfile(r, raw, n, &fd, mpath, sizeof mpath, err);
+        if (st != SL_OK)
+            return st;
+        path = mpath;
+    }
     size_t stack = (size_t)16 << 20;
     stack += items * (size_t)SL_DICOM_STACK_PER_LEVEL;
     pthread_attr_t attr;
     pthread_t th;
-    load_job job = {&r, path, out, err, SL_OK};
-    if (pthread_attr_init(&attr) != 0)
-        return sl_error_set(err, SL_EINTERNAL, "%s: cannot start the reader", r.file());
-    int rc = pthread_attr_setstacksize(&attr, stack);
+    load_job job = {&r, path, dataset_only, out, err, SL_OK};
+    int rc = pthread_attr_init(&attr);
+    if (rc == 0) {
+        rc = pthread_attr_setstacksize(&attr, stack);
+        if (rc == 0)
+            rc = pthread_create(&th, &attr, load_thread, &job);
+        pthread_attr_destroy(&attr);
+    }
     if (rc == 0)
-        rc = pthread_create(&th, &attr, load_thread, &job);
-    pthread_attr_destroy(&attr);
+        pthread_join(th, nullptr);
+    if (fd >= 0)
+        close(fd);
     if (rc != 0)
         return sl_error_set(err, rc == EAGAIN || rc == ENOMEM ? SL_ENOMEM : SL_EINTERNAL,
                             "%s: cannot start the reader with a %zu MB stack: %s", r.file(),
                             stack >> 20, strerror(rc));
-    pthread_join(th, nullptr);
     return job.st;
 }
 
@@ -1166,23 +1230,13 @@ sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
     /* The buffer goes through the file reader, in an anonymous in-memory
      * file: DCMTK checks declared element lengths against the size of a file,
      * but allocates them before reading from a memory stream. */
-    int fd = memfd_create("strayline-dicom", MFD_CLOEXEC);
-    if (fd < 0)
-        return sl_error_set(err, SL_EINTERNAL, "%s: cannot make an in-memory file: %s",
-                            r.file(), strerror(errno));
-    const char *p = static_cast<const char *>(data);
-    for (size_t done = 0; done < size;) {
-        ssize_t n = write(fd, p + done, size - done);
-        if (n <= 0) {
-            close(fd);
-            return sl_error_set(err, SL_EINTERNAL, "%s: cannot fill an in-memory file",
-                                r.file());
-        }
-        done += static_cast<size_t>(n);
-    }
+    int fd;
     char path[64];
-    snprintf(path, sizeof path, "/proc/self/fd/%d", fd);
-    sl_status st = load(r, path, static_cast<const unsigned char *>(data), size, out, err);
+    const unsigned char *bytes = static_cast<const unsigned char *>(data);
+    sl_status st = memfile(r, bytes, size, &fd, path, sizeof path, err);
+    if (st != SL_OK)
+        return st;
+    st = load(r, path, bytes, size, out, err);
     close(fd);
     return st;
 }
