@@ -117,7 +117,6 @@ enum {
     SL_MF_POOR_FIT = 32,        /* a profile used has a poor fit: uncertainty widened */
     SL_MF_NEAR_EDGE = 64        /* (dose stage) closer to the field edge than SL_NEAR_EDGE_CM */
 };
-#define SL_MF_COUNT 7
 
 /* A short text for each flag set, for reports. */
 const char *sl_model_flag_text(unsigned flag);
@@ -164,9 +163,6 @@ typedef struct sl_eval_query {
 } sl_eval_query;
 
 void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out);
-
-/* Is this curve set the stand-in for an uncommissioned cutout? */
-bool sl_curves_is_standin(const sl_curve_set *c);
 
 /* Value at depth (cm) and distance from the field edge (cm), direction
  * unknown, applicator edge unknown (sl_curves_eval_query). `electron_t`

@@ -88,11 +88,6 @@ void sl_curve_set_free(sl_curve_set *c)
     free(c);
 }
 
-bool sl_curves_is_standin(const sl_curve_set *c)
-{
-    return c->standin;
-}
-
 static double direction_angle(const char *dir)
 {
     return strcmp(dir, "inplane") == 0 ? 90.0 : strcmp(dir, "diagonal") == 0 ? 45.0 : 0.0;

@@ -34,6 +34,13 @@ def raw(item, keyword_tag, vr, text):
     item._dict[tag] = RawDataElement(tag, vr, len(value), value, 0, False, True)
 
 
+def copy_demo_set(d):
+    """A writable copy of the demo measurement set in d; its folder."""
+    dst = os.path.join(d, "set")
+    shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"), dst)
+    return dst
+
+
 def estimate_json(plan, ss, *extra):
     rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--format", "json", *extra)
     if rc not in (0, 4):
@@ -195,10 +202,8 @@ class NoSilentChange(unittest.TestCase):
 
 class OutputsNeverOverInputs(unittest.TestCase):
     def test_fit_refuses_to_write_over_a_profile_csv(self):
-        src = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1")
         with tempdir() as d:
-            dst = os.path.join(d, "set")
-            shutil.copytree(src, dst)
+            dst = copy_demo_set(d)
             target = os.path.join(dst, "profiles", "e09_a10_open_d1.00.csv")
             before = open(target, "rb").read()
             for args in (["-o", target], ["-o", os.path.join(d, "m.yaml"), "-r", target]):
@@ -219,8 +224,7 @@ class SmallerOnes(unittest.TestCase):
     def test_csv_with_a_byte_order_mark_reads_like_one_without(self):
         src = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1")
         with tempdir() as d:
-            dst = os.path.join(d, "set")
-            shutil.copytree(src, dst)
+            dst = copy_demo_set(d)
             for name in os.listdir(os.path.join(dst, "profiles"))[:20]:
                 p = os.path.join(dst, "profiles", name)
                 data = open(p, "rb").read()
@@ -231,8 +235,8 @@ class SmallerOnes(unittest.TestCase):
                 "--created", "2026-12-01T00:00:00Z", "--model-version", "x", check=0)
             run("fit", os.path.join(dst, "measurements.yaml"), "-o", b, "-q",
                 "--created", "2026-12-01T00:00:00Z", "--model-version", "x", check=0)
-            ma = [p["fit"]["parameters"] for p in pydicom_free_yaml(a)["profiles"]]
-            mb = [p["fit"]["parameters"] for p in pydicom_free_yaml(b)["profiles"]]
+            ma = [p["fit"]["parameters"] for p in load_yaml(a)["profiles"]]
+            mb = [p["fit"]["parameters"] for p in load_yaml(b)["profiles"]]
         self.assertEqual(ma, mb)
 
     def test_fit_fails_when_its_standard_output_cannot_be_written(self):
@@ -254,7 +258,7 @@ class SmallerOnes(unittest.TestCase):
         self.assertGreater(len(rows), 3)
 
 
-def pydicom_free_yaml(path):
+def load_yaml(path):
     import yaml
     with open(path) as f:
         return yaml.safe_load(f)

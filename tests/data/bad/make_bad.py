@@ -91,14 +91,14 @@ def delete(item, keyword):
     delattr(item, keyword)
 
 
-def raw_ds(item, keyword, text):
-    """Put a DS element with arbitrary text: pydicom validates what is
+def raw_ds(item, keyword, text, vr="DS"):
+    """Put a DS (or IS) element with arbitrary text: pydicom validates what is
     assigned normally, and these files must carry values it would refuse."""
     tag = tag_for_keyword(keyword)
     value = text.encode("ascii")
     if len(value) % 2:
         value += b" "
-    item._dict[tag] = RawDataElement(tag, "DS", len(value), value, 0, False, True)
+    item._dict[tag] = RawDataElement(tag, vr, len(value), value, 0, False, True)
 
 
 def nested_sequences(depth, big_endian_items=False, deflated=False):
@@ -274,13 +274,6 @@ def main():
               "NominalBeamEnergy (300A,0114): value 1 'nine' is not a decimal string")
     # -- IS and DS read whole and strictly (PS3.5 6.2): a value that only
     #    starts like a number is refused, never cut to its valid beginning
-    def raw_is(item, keyword, text):
-        tag = tag_for_keyword(keyword)
-        value = text.encode("ascii")
-        if len(value) % 2:
-            value += b" "
-        item._dict[tag] = RawDataElement(tag, "IS", len(value), value, 0, False, True)
-
     def fg(d):
         return d.FractionGroupSequence[0]
 
@@ -297,7 +290,7 @@ def main():
         ("is_beam_number_hex.dcm", beam, "BeamNumber", "0x1"),
     ]
     for name, where, kw, text in strict_is:
-        plan_case(name, lambda d, w=where, k=kw, t=text: raw_is(w(d), k, t),
+        plan_case(name, lambda d, w=where, k=kw, t=text: raw_ds(w(d), k, t, vr="IS"),
                   "value 1 '%s' is not an integer string" % text)
     strict_ds = [
         ("ds_meterset_two_words.dcm", rbeam, "BeamMeterset", "3 50"),
