@@ -624,8 +624,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         else
             hel(&h, tr, "td", rows[i][1] ? rows[i][1] : "-");
     }
-    helf(&h, b, "p", "Marks: %s; [what-if] a what-if option changed this number.",
-         est_marks_legend());
+    helf(&h, b, "p", "Marks: %s%s.", est_marks_legend(),
+         r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
     /* the uncertainty budget of each organ's course maximum */
     hel(&h, b, "h3", "Uncertainty budget of the course maximum (cGy, k = 1)");
     xmlNodePtr ut = hel(&h, b, "table", NULL);
