@@ -361,7 +361,7 @@ int sl_cmd_estimate(int argc, char **argv)
             eopt.threads = lopt.threads;
             break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("estimate", "bad option");
+        default: return sl_cli_bad_option(argv, opts, "m:l:f:o:d:j:h");
         }
     }
     if (argc - optind != 2)
@@ -444,7 +444,7 @@ int sl_cmd_estimate(int argc, char **argv)
         goto done;
     }
     if (fflush(stdout) != 0) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        sl_cli_error("output error: cannot write to standard output");
         rc = SL_EXIT_INTERNAL;
         goto done;
     }
