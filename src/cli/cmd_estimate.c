@@ -44,6 +44,9 @@ static const char help[] =
     "      --pdf FILE              also write the printable PDF report (- for standard\n"
     "                              output)\n"
     "      --paper a4|letter       the PDF's paper (default a4)\n"
+    "      --pdf-dicom FILE        also write that PDF as a DICOM Encapsulated PDF in the\n"
+    "                              plan's patient and study (a new series), for the\n"
+    "                              archive or the record-and-verify system\n"
     ;
 static const char help2[] =
     "      --prescription-isodose PERCENT\n"
@@ -110,7 +113,8 @@ enum {
     OPT_RISE,
     OPT_HTML,
     OPT_PDF,
-    OPT_PAPER
+    OPT_PAPER,
+    OPT_PDF_DICOM
 };
 
 #define MAX_ITEMS 64
@@ -202,7 +206,7 @@ static int write_report(const char *path, const char **inputs, const void *ctx, 
         if (fn(stdout, ctx, err) != SL_OK)
             return sl_cli_fail(err);
         if (fflush(stdout) != 0) {
-            fprintf(stderr, "strayline estimate: output error: cannot write to standard output\n");
+            sl_cli_error("output error: cannot write to standard output");
             return SL_EXIT_INTERNAL;
         }
         return SL_EXIT_OK;
@@ -226,6 +230,7 @@ int sl_cmd_estimate(int argc, char **argv)
         {"html", required_argument, NULL, OPT_HTML},
         {"pdf", required_argument, NULL, OPT_PDF},
         {"paper", required_argument, NULL, OPT_PAPER},
+        {"pdf-dicom", required_argument, NULL, OPT_PDF_DICOM},
         {"prescription-isodose", required_argument, NULL, OPT_ISODOSE},
         {"reference-dose", required_argument, NULL, OPT_REFDOSE},
         {"setup-shift", required_argument, NULL, OPT_SHIFT},
@@ -252,7 +257,7 @@ int sl_cmd_estimate(int argc, char **argv)
         {NULL, 0, NULL, 0},
     };
     const char *model_path = NULL, *levels_path = NULL, *html = NULL, *output = NULL,
-               *pdf_path = NULL, *paper = "a4";
+               *pdf_path = NULL, *paper = "a4", *pdf_dicom = NULL;
     sl_format fmt = SL_FORMAT_TEXT;
     sl_estimate_options eopt;
     sl_estimate_default_options(&eopt);
@@ -282,6 +287,12 @@ int sl_cmd_estimate(int argc, char **argv)
         case 'o': output = optarg; break;
         case OPT_HTML: html = optarg; break;
         case OPT_PDF: pdf_path = optarg; break;
+        case OPT_PDF_DICOM:
+            if (strcmp(optarg, "-") == 0)
+                return sl_cli_usage("estimate", "--pdf-dicom needs a file name (a DICOM object "
+                                                "does not go to standard output)");
+            pdf_dicom = optarg;
+            break;
         case OPT_PAPER:
             if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
                 return sl_cli_usage("estimate", "--paper needs a4 or letter, not '%s'", optarg);
@@ -439,7 +450,7 @@ int sl_cmd_estimate(int argc, char **argv)
             fputs(help, stdout);
             fputs(help2, stdout);
             return SL_EXIT_OK;
-        default: return sl_cli_usage("estimate", "bad option");
+        default: return sl_cli_bad_option(argv, opts, "m:l:f:o:d:j:h");
         }
     }
     if (argc - optind != 2)
@@ -517,7 +528,8 @@ int sl_cmd_estimate(int argc, char **argv)
     }
     if (html && (rc = write_report(html, inputs, &rep, write_html, &err)) != SL_EXIT_OK)
         goto done;
-    if (pdf_path) {
+    if (pdf_path || pdf_dicom) {
+        /* one PDF: the file and the DICOM object carry the same bytes */
         unsigned char *pdf = NULL;
         size_t npdf = 0;
         if (sl_report_estimate_pdf(&rep, paper, &pdf, &npdf, &err) != SL_OK) {
@@ -525,7 +537,20 @@ int sl_cmd_estimate(int argc, char **argv)
             goto done;
         }
         pdf_bytes pb = {pdf, npdf};
-        rc = write_report(pdf_path, inputs, &pb, write_pdf, &err);
+        if (pdf_path)
+            rc = write_report(pdf_path, inputs, &pb, write_pdf, &err);
+        if (rc == SL_EXIT_OK && pdf_dicom) {
+            bool over = false;
+            for (size_t i = 0; i < 4; i++)
+                over |= sl_same_file(pdf_dicom, inputs[i]);
+            if (over)
+                rc = sl_cli_usage("estimate", "--pdf-dicom %s: refusing to write over an input "
+                                              "file",
+                                  pdf_dicom);
+            else if (sl_dicom_write_pdf(pdf_dicom, plan_path, pdf, npdf,
+                                        "Out-of-field dose screening estimate", &err) != SL_OK)
+                rc = sl_cli_fail(&err);
+        }
         free(pdf);
         if (rc != SL_EXIT_OK)
             goto done;
@@ -540,7 +565,7 @@ int sl_cmd_estimate(int argc, char **argv)
             goto done;
         }
         if (fflush(stdout) != 0) {
-            fprintf(stderr, "strayline estimate: output error: cannot write to standard output\n");
+            sl_cli_error("output error: cannot write to standard output");
             rc = SL_EXIT_INTERNAL;
             goto done;
         }

@@ -26,8 +26,16 @@ static const char *orq(const char *s)
 /* The plan's approval, as the planning system exported it. */
 static void approval_text(const sl_plan *p, char *buf, size_t n)
 {
-    (void)p;
-    snprintf(buf, n, "Plan approval status: not read by this version.");
+    char date[16] = "";
+    if (p->review_date && strlen(p->review_date) == 8)
+        snprintf(date, sizeof date, "%.4s-%.2s-%.2s", p->review_date, p->review_date + 4,
+                 p->review_date + 6);
+    if (!p->approval_status)
+        snprintf(buf, n, "Plan approval status: not in the plan (RT Approval Status absent).");
+    else
+        snprintf(buf, n, "Plan approval status: %s%s%s%s%s (from the plan).", p->approval_status,
+                 date[0] ? ", reviewed " : "", date, p->reviewer_name ? " by " : "",
+                 p->reviewer_name ? p->reviewer_name : "");
 }
 
 /* The beam's figures (beam's-eye view, dose against distance). */

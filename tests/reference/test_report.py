@@ -208,6 +208,37 @@ class Pdf(unittest.TestCase):
         self.assertTrue(p.stdout.startswith(b"%PDF-"))
 
 
+@unittest.skipUnless(shutil.which("dciodvfy") and shutil.which("dcmdump"),
+                     "dicom3tools or dcmtk not installed")
+class PdfDicom(unittest.TestCase):
+    def test_encapsulated_pdf_of_the_demo(self):
+        """--pdf-dicom: checked by dciodvfy (Debian dicom3tools) against the
+        Encapsulated PDF IOD (PS3.3 A.45), read back by dcmdump (DCMTK) and
+        pydicom; the PDF inside is --pdf's, byte for byte."""
+        import pydicom
+        base = os.path.join(EX, "face-lens")
+        plan = pydicom.dcmread(os.path.join(base, "rtplan.dcm"))
+        with tempdir() as d:
+            pdf, dcm = os.path.join(d, "r.pdf"), os.path.join(d, "r.dcm")
+            rc, out, err = run(*case_args("face-lens"), "--pdf", pdf, "--pdf-dicom", dcm)
+            self.assertIn(rc, (0, 4), err)
+            v = subprocess.run(["dciodvfy", dcm], capture_output=True, text=True)
+            errors = [l for l in (v.stdout + v.stderr).splitlines() if l.startswith("Error")]
+            self.assertEqual(errors, [])
+            dump = subprocess.run(["dcmdump", dcm], capture_output=True, text=True).stdout
+            self.assertIn(plan.PatientID, dump)
+            self.assertIn(plan.StudyInstanceUID, dump)
+            self.assertIn("=EncapsulatedPDFStorage", dump)
+            obj = pydicom.dcmread(dcm)
+            inside = bytes(obj.EncapsulatedDocument)[:int(obj.EncapsulatedDocumentLength)]
+            self.assertEqual(inside, open(pdf, "rb").read())
+            self.assertNotEqual(obj.SeriesInstanceUID, plan.SeriesInstanceUID)
+            rc, out, err = run(*case_args("face-lens"), "--pdf-dicom",
+                               os.path.join(base, "rtplan.dcm"))
+            self.assertEqual(rc, 2)
+            self.assertIn("refusing to write over an input file", err)
+
+
 class OutputFiles(unittest.TestCase):
     def test_dash_and_output(self):
         with tempdir() as d:
