@@ -653,6 +653,7 @@ void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
 
     cairo_set_source_rgb(cr, 1, 1, 1);
     cairo_paint(cr);
+    fig_count(cr, "beam", "%d", bp->beam->number);
 
     /* the organs, projected */
     bev_organ *gs = calloc(no ? no : 1, sizeof *gs);

@@ -158,6 +158,8 @@ void fig_dose_distance(cairo_t *cr, double w, double h, const void *vctx)
     double fs = font_for(w, h);
     fig_font f = {fs, false, false}, fb = {fs * 1.1, true, false};
     char buf[600], v1[32], v2[32];
+    fig_count(cr, "beam", "%d", bp->beam->number);
+    fig_count(cr, "organ", "%zu", ctx->organ);
 
     cairo_set_source_rgb(cr, 1, 1, 1);
     cairo_paint(cr);
@@ -416,6 +418,7 @@ void fig_dvh(cairo_t *cr, double w, double h, const void *vctx)
     }
     const sl_organ_samples *s = &r->loc->samples[d->organ];
     size_t n = s->n;
+    fig_count(cr, "organ", "%zu", ctx->organ);
     dv *arr = malloc(n * sizeof *arr);
     double *xs = malloc((2 * n + 2) * sizeof *xs), *ys = malloc((2 * n + 2) * sizeof *ys);
     if (!arr || !xs || !ys) {
