@@ -39,7 +39,8 @@ xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fi
 /* The beam's-eye view of one beam: the field and applicator outlines, rings
  * at 1, 2, 5 and 10 cm from the field edge, each organ's projected contours
  * coloured by its status, labels, patient directions on the edges, arrows
- * with the distance to organs outside the picture, a legend. */
+ * with the distance to organs outside the picture, a legend (to the right
+ * when w >= 1.25 h, else below). Reads best at 480 x 360 pt or larger. */
 typedef struct fig_bev_ctx {
     const sl_estimate_report *r;
     size_t beam;

@@ -639,7 +639,7 @@ static double legend(cairo_t *cr, bool draw, double x, double y, double w, fig_f
     return y - y0;
 }
 
-void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
+static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
 {
     const fig_bev_ctx *ctx = vctx;
     const sl_estimate_report *r = ctx->r;
@@ -651,8 +651,6 @@ void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
     double fs = fmin(fmax(fmin(w, h) / 48, 6.5), 9);
     fig_font f = {fs, false, false}, fb = {fs * 1.1, true, false};
 
-    cairo_set_source_rgb(cr, 1, 1, 1);
-    cairo_paint(cr);
     fig_count(cr, "beam", "%d", bp->beam->number);
 
     /* the organs, projected */
@@ -669,6 +667,8 @@ void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
     for (size_t o = 0; o < no; o++) {
         organ_project(r, bp, o, &gs[o]);
         gs[o].status = o < r->as->n ? r->as->items[o].status : SL_ST_NOT_ASSESSED;
+        if (gs[o].any || gs[o].has_at) /* drawn or pointed at: in the legend */
+            present[gs[o].status] = true;
     }
 
     /* the picture: the field and 11.5 cm around it, so the 10 cm ring shows */
@@ -727,7 +727,6 @@ void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
             g->at = (sl_vec2){(g->lo.x + g->hi.x) / 2, (g->lo.y + g->hi.y) / 2};
             g->has_at = true;
         }
-        present[g->status] = true;
         if (g->outside)
             nout++;
         else
@@ -917,6 +916,13 @@ void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
         rect lr;
         rect tail = {hx - 1, hy - 1, hx + 1, hy + 1};
         if (place_label(&pl, tail, tw + 2 + sw, th, avoid, nshow, &lr)) {
+            double lcx = fmin(fmax(hx, lr.x0), lr.x1), lcy = fmin(fmax(hy, lr.y0), lr.y1);
+            if (hypot(lcx - hx, lcy - hy) > fs * 1.2) { /* moved away: a leader to its arrow */
+                cairo_set_line_width(cr, 0.6);
+                cairo_move_to(cr, lcx, lcy);
+                cairo_line_to(cr, hx, hy);
+                cairo_stroke(cr);
+            }
             draw_label(cr, lr, g, text, f, fs * 0.7);
             placer_add(&pl, lr);
         }
@@ -998,4 +1004,18 @@ void fig_bev(cairo_t *cr, double w, double h, const void *vctx)
     free(gs);
     free(order);
     free(jobs);
+}
+
+/* The public entry: the figure's own state and clip, so that a caller's
+ * page (PDF) is left as it was and nothing is drawn outside the box. */
+void fig_bev(cairo_t *cr, double w, double h, const void *ctx)
+{
+    cairo_save(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_clip(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_set_source_rgb(cr, 1, 1, 1);
+    cairo_fill(cr);
+    draw_bev(cr, w, h, ctx);
+    cairo_restore(cr);
 }

@@ -141,7 +141,7 @@ static void list_depths(const double *dp, size_t n, char *buf, size_t size)
     }
 }
 
-void fig_dose_distance(cairo_t *cr, double w, double h, const void *vctx)
+static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx)
 {
     const fig_dd_ctx *ctx = vctx;
     const sl_estimate_report *r = ctx->r;
@@ -161,8 +161,6 @@ void fig_dose_distance(cairo_t *cr, double w, double h, const void *vctx)
     fig_count(cr, "beam", "%d", bp->beam->number);
     fig_count(cr, "organ", "%zu", ctx->organ);
 
-    cairo_set_source_rgb(cr, 1, 1, 1);
-    cairo_paint(cr);
     dd_geom g;
     if (!d->estimated || !bd->curves || !dd_geometry(r, bp, d, &g)) {
         cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
@@ -334,12 +332,12 @@ void fig_dose_distance(cairo_t *cr, double w, double h, const void *vctx)
         if (fabs(ly - last_label_y) < th) /* too close to the one before: below its line */
             ly = py + 1;
         cairo_set_source_rgba(cr, 1, 1, 1, 0.8);
-        double bw = fmin(tw, ax.w - 6);
-        cairo_rectangle(cr, ax.x + ax.w - 3 - bw, ly, bw, th);
+        /* a long name is cut with an ellipsis; the value comes first and stays */
+        fig_text_size(cr, buf, fl, -(ax.w - 6), &tw, &th);
+        cairo_rectangle(cr, ax.x + ax.w - 3 - tw, ly, tw, th);
         cairo_fill(cr);
         set_rgb(cr, level_rgb);
-        /* a long name is cut by the plot's clip at the left, the value stays */
-        fig_text(cr, ax.x + ax.w - 3, ly, 1, 0, buf, fl, 0);
+        fig_text(cr, ax.x + ax.w - 3, ly, 1, 0, buf, fl, -(ax.w - 6));
         last_label_y = ly;
         nlevels++;
     }
@@ -391,13 +389,11 @@ static int cmp_dv_desc(const void *a, const void *b)
     return x->d > y->d ? -1 : x->d < y->d;
 }
 
-void fig_dvh(cairo_t *cr, double w, double h, const void *vctx)
+static void draw_dvh(cairo_t *cr, double w, double h, const void *vctx)
 {
     const fig_dvh_ctx *ctx = vctx;
     const sl_estimate_report *r = ctx->r;
     const sl_estimate *e = r->est;
-    cairo_set_source_rgb(cr, 1, 1, 1);
-    cairo_paint(cr);
     if (ctx->organ >= e->norgans)
         return;
     const sl_organ_dose *d = &e->organs[ctx->organ];
@@ -576,12 +572,10 @@ static const sl_profile_data *data_for(const sl_measurement_set *ms, size_t i,
     return NULL;
 }
 
-void fig_profiles(cairo_t *cr, double w, double h, const void *vctx)
+static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
 {
     const fig_profiles_ctx *ctx = vctx;
     const sl_model *m = ctx->m;
-    cairo_set_source_rgb(cr, 1, 1, 1);
-    cairo_paint(cr);
     size_t *idx = malloc((m->nprofiles + 1) * sizeof *idx);
     if (!idx)
         return;
@@ -747,4 +741,46 @@ void fig_profiles(cairo_t *cr, double w, double h, const void *vctx)
     (void)f;
     free(counts);
     free(idx);
+}
+
+/* The public entry: the figure's own state and clip, so that a caller's
+ * page (PDF) is left as it was and nothing is drawn outside the box. */
+void fig_dose_distance(cairo_t *cr, double w, double h, const void *ctx)
+{
+    cairo_save(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_clip(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_set_source_rgb(cr, 1, 1, 1);
+    cairo_fill(cr);
+    draw_dose_distance(cr, w, h, ctx);
+    cairo_restore(cr);
+}
+
+/* The public entry: the figure's own state and clip, so that a caller's
+ * page (PDF) is left as it was and nothing is drawn outside the box. */
+void fig_dvh(cairo_t *cr, double w, double h, const void *ctx)
+{
+    cairo_save(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_clip(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_set_source_rgb(cr, 1, 1, 1);
+    cairo_fill(cr);
+    draw_dvh(cr, w, h, ctx);
+    cairo_restore(cr);
+}
+
+/* The public entry: the figure's own state and clip, so that a caller's
+ * page (PDF) is left as it was and nothing is drawn outside the box. */
+void fig_profiles(cairo_t *cr, double w, double h, const void *ctx)
+{
+    cairo_save(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_clip(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_set_source_rgb(cr, 1, 1, 1);
+    cairo_fill(cr);
+    draw_profiles(cr, w, h, ctx);
+    cairo_restore(cr);
 }

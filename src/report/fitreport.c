@@ -1,9 +1,11 @@
 /*
  * The commissioning report of `strayline fit --report`: one self-contained
- * HTML page with, for every profile, the measured points with their error
- * bars and the fitted curve with its 2-sigma band on a log dose axis, the
- * normalised residuals, the parameters with their standard errors and the
- * fit statistics; poor fits are listed first, not hidden.
+ * HTML page with, for every energy and applicator, one figure of its
+ * profiles as small multiples on shared axes (figure.h: the measured points
+ * with their 2-sigma bars and the fitted curve with its 2-sigma band on a
+ * log dose axis, the normalised residuals below), then each profile's
+ * parameters with their standard errors and the fit statistics; poor fits
+ * are listed first, not hidden.
  */
 #include "strayline/commission.h"
 #include "strayline/report.h"
