@@ -68,6 +68,12 @@ typedef struct sl_estimate_report {
 sl_status sl_report_estimate(FILE *fp, sl_format fmt, const sl_estimate_report *r, sl_error *err);
 sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_error *err);
 
+/* Release the process-wide caches of the figure libraries (Pango's font
+ * map, fontconfig's configuration, cairo's static data), so that a leak
+ * checker sees only what is really lost. Call once, when no report is being
+ * written any more and none will be: at the end of the program. */
+void sl_report_release_caches(void);
+
 #ifdef __cplusplus
 }
 #endif

@@ -8,6 +8,7 @@
 
 #include "cli.h"
 #include "strayline/dicom.h"
+#include "strayline/report.h"
 #include "strayline/version.h"
 
 static const sl_command commands[] = {
@@ -94,8 +95,11 @@ int main(int argc, char **argv)
         return SL_EXIT_OK;
     }
     for (size_t i = 0; i < sizeof commands / sizeof *commands; i++) {
-        if (strcmp(name, commands[i].name) == 0)
-            return commands[i].run(argc - 1, argv + 1);
+        if (strcmp(name, commands[i].name) == 0) {
+            int rc = commands[i].run(argc - 1, argv + 1);
+            sl_report_release_caches();
+            return rc;
+        }
     }
     fprintf(stderr, "strayline: unknown command '%s'\n", name);
     usage(stderr);

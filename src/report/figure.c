@@ -18,6 +18,7 @@
 #include <string.h>
 
 #include <cairo-svg.h>
+#include <fontconfig/fontconfig.h>
 #include <libxml/parser.h>
 #include <pango/pangocairo.h>
 
@@ -466,6 +467,13 @@ xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fi
     return copy;
 }
 
+void sl_report_release_caches(void)
+{
+    pango_cairo_font_map_set_default(NULL);
+    cairo_debug_reset_static_data();
+    FcFini();
+}
+
 /* -------------------------------------------------------------- text -- */
 
 static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double max_w)
@@ -493,7 +501,15 @@ static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double
         pango_layout_set_width(l, (int)(-max_w * PANGO_SCALE));
         pango_layout_set_ellipsize(l, PANGO_ELLIPSIZE_END);
     }
-    pango_layout_set_text(l, text, -1);
+    /* names come from DICOM files: a byte that is not UTF-8 becomes a
+     * replacement character rather than a warning printed by Pango */
+    if (g_utf8_validate(text, -1, NULL)) {
+        pango_layout_set_text(l, text, -1);
+    } else {
+        gchar *valid = g_utf8_make_valid(text, -1);
+        pango_layout_set_text(l, valid, -1);
+        g_free(valid);
+    }
     return l;
 }
 

@@ -29,6 +29,9 @@
 /* Most vertices a contour keeps in the picture: finer detail is below a
  * point at any size a report uses. */
 #define BEV_MAX_CONTOUR_VERTICES 64
+/* Labels already placed beyond which a label that finds no room beside its
+ * organ is left out (and counted in the legend) rather than searched for. */
+#define BEV_MAX_SCANNED_LABELS 150
 
 void fig_bev_directions(const sl_frame *f, char right[4], char left[4], char up[4], char down[4])
 {
@@ -391,8 +394,11 @@ static bool place_label(const placer *p, rect b, double w, double h, const rect 
         *out = best;
         return true;
     }
-    /* anywhere: a scan of the picture, nearest first */
+    /* anywhere: a scan of the picture, nearest first (not when the picture
+     * is crowded: the scan's cost grows with every label placed) */
     double bestd = INFINITY;
+    if (p->n > BEV_MAX_SCANNED_LABELS)
+        return false;
     for (double y = p->box.y0; y + h <= p->box.y1; y += h / 2)
         for (double x = p->box.x0; x + w <= p->box.x1; x += w / 4) {
             rect c = {x, y, x + w, y + h};
@@ -849,7 +855,7 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
     /* arrows toward organs outside the picture, at its edge */
     double cx = (box.x0 + box.x1) / 2, cy = (box.y0 + box.y1) / 2;
     rect *avoid = calloc(nshow ? nshow : 1, sizeof *avoid);
-    size_t nj = 0, narrows = 0;
+    size_t nj = 0, narrows = 0, nunlabelled = 0;
     for (size_t o = 0; o < no; o++)
         if ((gs[o].any || gs[o].has_at))
             jobs[nj++] = (label_job){&gs[o], status_rank(gs[o].status)};
@@ -925,6 +931,8 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
             }
             draw_label(cr, lr, g, text, f, fs * 0.7);
             placer_add(&pl, lr);
+        } else {
+            nunlabelled++;
         }
     }
     fig_count(cr, "arrows", "%zu", narrows);
@@ -959,8 +967,10 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
         bool ok = place_label(&pl, b, tw + 2 + sw, th, avoid, nshow, &lr);
         if (self < nshow && avoid)
             avoid[self] = saved;
-        if (!ok)
+        if (!ok) {
+            nunlabelled++;
             continue;
+        }
         /* a leader line when the label had to move away from its organ */
         double lcx = fmin(fmax((b.x0 + b.x1) / 2, lr.x0), lr.x1),
                lcy = fmin(fmax((b.y0 + b.y1) / 2, lr.y0), lr.y1);
@@ -979,6 +989,7 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
         nlabels++;
     }
     fig_count(cr, "labels", "%zu", nlabels);
+    fig_count(cr, "unlabelled", "%zu", nunlabelled);
 
     /* what the picture cannot show */
     char note[1200] = "";
@@ -988,6 +999,11 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
                                 "%zu organ%s not drawn: nothing of %s lies in front of the "
                                 "source. ",
                                 nunseen, nunseen == 1 ? "" : "s", nunseen == 1 ? "it" : "them");
+    if (nunlabelled && len < sizeof note)
+        len += (size_t)snprintf(note + len, sizeof note - len,
+                                "%zu organ%s left unlabelled for want of room "
+                                "(see the tables). ",
+                                nunlabelled, nunlabelled == 1 ? "" : "s");
     for (size_t o = no; o < r->est->norgans && len < sizeof note; o++) {
         const sl_organ_dose *d = &r->est->organs[o];
         if (d->landmark)

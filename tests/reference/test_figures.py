@@ -233,6 +233,7 @@ class Figures(unittest.TestCase):
         self.assertEqual(drawn + arrows, len(in_images),
                          "%s: every organ drawn or pointed at" % case)
         self.assertEqual(int(c["labels"]), drawn, "%s: every organ drawn is labelled" % case)
+        self.assertEqual(int(c["unlabelled"]), 0, case)
         # 25 cm from the field edge lies outside a picture of the field and
         # 11.5 cm around it, whatever the divergence of a body's depth
         far = [o for o in in_images if o["min_distance_cm"] > 25]

@@ -187,6 +187,15 @@ START_TEST(two_figures_get_their_own_ids)
 }
 END_TEST
 
+/* Last: the font libraries' caches released, as the tool does at its end,
+ * so that the leak checkers of the sanitizer build see only real leaks. */
+START_TEST(caches_released)
+{
+    sl_report_release_caches();
+    ck_assert(true);
+}
+END_TEST
+
 static Suite *figure_suite(void)
 {
     Suite *s = suite_create("figure");
@@ -197,6 +206,7 @@ static Suite *figure_suite(void)
     tcase_add_test(tc, numbers_have_no_exponent);
     tcase_add_test(tc, svg_string_parses);
     tcase_add_test(tc, two_figures_get_their_own_ids);
+    tcase_add_test(tc, caches_released);
     suite_add_tcase(s, tc);
     return s;
 }
