@@ -599,7 +599,8 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
     fig_format_number(ctx->energy_mev, e1, sizeof e1);
     snprintf(buf, sizeof buf,
              "%s MeV, applicator %s: %zu profile%s. Points: measured, bars 2 sigma; line: fit, "
-             "band 2 sigma; below each: residual / sigma (dashed at 0 and \u00B13)",
+             "band 2 sigma; below each: residual / sigma (dashed at 0 and \u00B13); red frame: "
+             "a poor fit",
              e1, ctx->applicator, n, n == 1 ? "" : "s");
     double tw, th;
     cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
@@ -644,8 +645,8 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
                         (ph - gapy - fs * 1.4) * 0.28 - fs * 0.9, 0, xmax, -4.5, 4.5, false};
         char dep[32];
         fig_format_number(p->depth_cm, dep, sizeof dep);
-        snprintf(buf, sizeof buf, "%zu. %s%s, %s cm, %s", idx[k] + 1,
-                 p->fit.poor ? "POOR FIT: " : "", p->insert, dep, p->direction);
+        snprintf(buf, sizeof buf, "%zu. %s, %s cm, %s%s", idx[k] + 1, p->insert, dep,
+                 p->direction, p->fit.poor ? ": POOR" : "");
         if (p->fit.poor)
             set_rgb(cr, data_rgb);
         else
@@ -662,6 +663,12 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
             fig_text(cr, res.x - 2, fig_ax_y(&res, 3), 1, 0.5, "+3\u03C3", ft, 0);
             fig_text(cr, res.x - 2, fig_ax_y(&res, 0), 1, 0.5, "0", ft, 0);
             fig_text(cr, res.x - 2, fig_ax_y(&res, -3), 1, 0.5, "\u22123\u03C3", ft, 0);
+        }
+        if (p->fit.poor) { /* a poor fit: a red frame as well as the word */
+            set_rgb(cr, data_rgb);
+            cairo_set_line_width(cr, 1.6);
+            cairo_rectangle(cr, main.x, main.y, main.w, main.h);
+            cairo_stroke(cr);
         }
         cairo_save(cr);
         cairo_rectangle(cr, main.x, main.y, main.w, main.h);
