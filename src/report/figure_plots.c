@@ -215,6 +215,12 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
         ymin = fmin(ymin, L);
         ymax = fmax(ymax, L);
     }
+    for (size_t k = 0; a && a->kind && k < a->kind->nbands; k++)
+        if (isfinite(a->kind->bands[k].below_gy)) {
+            double L = a->kind->bands[k].below_gy * 100 * unit;
+            ymin = fmin(ymin, L);
+            ymax = fmax(ymax, L);
+        }
     if (!(ymin > 0) || !isfinite(ymin))
         ymin = ymax > 0 ? ymax * 1e-3 : 1e-3;
     if (!(ymax > 0))
@@ -262,7 +268,8 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
     snprintf(m2, sizeof m2,
              "%s %s course maximum, all beams: %s %s (upper bound k = 2: %s %s, the bar)",
              fig_status_symbol(st), d->roi->name, v1, un, v2, un);
-    snprintf(m3, sizeof m3, "band: 2 standard uncertainties; dashed: action levels (%s)", un);
+    snprintf(m3, sizeof m3, "band: 2 standard uncertainties; dashed: action levels; dotted: tops of "
+             "risk bands (%s)", un);
     double h1, h2, h3;
     fig_text_size(cr, m1, f, w, &tw, &h1);
     fig_text_size(cr, m2, f, w, &tw, &h2);
@@ -342,6 +349,37 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
         nlevels++;
     }
     fig_count(cr, "levels", "%zu", nlevels);
+    /* a device's risk bands: their upper edges, dotted, named by band */
+    size_t nedges = 0;
+    for (size_t k = 0; a && a->kind && k < a->kind->nbands; k++) {
+        const sl_band *bd_ = &a->kind->bands[k];
+        if (!isfinite(bd_->below_gy))
+            continue;
+        double lv = bd_->below_gy * 100 * unit, py = fig_ax_y(&ax, lv);
+        double dsh[2] = {1.5, 2.5};
+        cairo_set_dash(cr, dsh, 2, 0);
+        set_rgb(cr, level_rgb);
+        cairo_set_line_width(cr, 1.1);
+        cairo_move_to(cr, ax.x, py);
+        cairo_line_to(cr, ax.x + ax.w, py);
+        cairo_stroke(cr);
+        cairo_set_dash(cr, NULL, 0, 0);
+        fig_format_number(lv, v1, sizeof v1);
+        snprintf(buf, sizeof buf, "%s %s: top of risk band '%s'", v1, un, bd_->name);
+        fig_font fl = {fs * 0.9, false, false};
+        fig_text_size(cr, buf, fl, -(ax.w - 6), &tw, &th);
+        double ly = py - th - 1;
+        if (fabs(ly - last_label_y) < th)
+            ly = py + 1;
+        cairo_set_source_rgba(cr, 1, 1, 1, 0.8);
+        cairo_rectangle(cr, ax.x + ax.w - 3 - tw, ly, tw, th);
+        cairo_fill(cr);
+        set_rgb(cr, level_rgb);
+        fig_text(cr, ax.x + ax.w - 3, ly, 1, 0, buf, fl, -(ax.w - 6));
+        last_label_y = ly;
+        nedges++;
+    }
+    fig_count(cr, "band-edges", "%zu", nedges);
     /* the organ: this beam at its nearest point, and its course maximum */
     double srgb[3];
     fig_status_rgb(st, srgb);
