@@ -72,6 +72,12 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
 sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
                                  unsigned char **pdf, size_t *len, sl_error *err);
 
+/* Release the process-wide caches of the figure libraries (Pango's font
+ * map, fontconfig's configuration, cairo's static data), so that a leak
+ * checker sees only what is really lost. Call once, when no report is being
+ * written any more and none will be: at the end of the program. */
+void sl_report_release_caches(void);
+
 #ifdef __cplusplus
 }
 #endif
