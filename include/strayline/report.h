@@ -42,6 +42,11 @@ sl_status sl_report_locate(FILE *fp, sl_format fmt, const sl_plan *plan,
 sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_model *m,
                              sl_error *err);
 
+/* The fit report as a PDF (paper "a4" or "letter"): an energy and
+ * applicator a page, its profiles as small multiples (caller frees *pdf). */
+sl_status sl_report_fit_pdf(const sl_measurement_set *ms, const sl_model *m, const char *paper,
+                            unsigned char **pdf, size_t *len, sl_error *err);
+
 /* `strayline model show`: what a model file commissions. */
 sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *err);
 
