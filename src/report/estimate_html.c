@@ -93,9 +93,8 @@ static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool
         hattr(h, hel(h, tr, "td", num(x1, sizeof x1, s * d->course_mean.cgy)), "class", "n");
         /* the level and its name here; its source with the advice below */
         if (a->governing)
-            snprintf(buf, sizeof buf, "%s (%s; %s)",
-                     num(x1, sizeof x1, s * 100 * a->governing->dose_gy), a->governing->name,
-                     a->governing->mark);
+            snprintf(buf, sizeof buf, "%s (%s)",
+                     num(x1, sizeof x1, s * 100 * a->governing->dose_gy), a->governing->mark);
         else if (a->status == SL_ST_BAND)
             snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_mark);
         else
