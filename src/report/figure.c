@@ -476,16 +476,28 @@ void sl_report_release_caches(void)
 
 /* -------------------------------------------------------------- text -- */
 
+static const cairo_user_data_key_t layout_key;
+
+/* One layout per cairo context, kept on the context and set afresh for each
+ * text: making a layout (and its font options) for every tick label costs
+ * more than drawing it. Borrowed: the context owns it. */
 static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double max_w)
 {
-    PangoLayout *l = pango_cairo_create_layout(cr);
-    /* the same glyph positions on every surface: no hinting of metrics */
-    cairo_font_options_t *fo = cairo_font_options_create();
-    cairo_font_options_set_hint_metrics(fo, CAIRO_HINT_METRICS_OFF);
-    cairo_font_options_set_hint_style(fo, CAIRO_HINT_STYLE_NONE);
-    pango_cairo_context_set_font_options(pango_layout_get_context(l), fo);
-    cairo_font_options_destroy(fo);
-    pango_layout_context_changed(l);
+    PangoLayout *l = cairo_get_user_data(cr, &layout_key);
+    if (!l) {
+        l = pango_cairo_create_layout(cr);
+        /* the same glyph positions on every surface: no hinting of metrics */
+        cairo_font_options_t *fo = cairo_font_options_create();
+        cairo_font_options_set_hint_metrics(fo, CAIRO_HINT_METRICS_OFF);
+        cairo_font_options_set_hint_style(fo, CAIRO_HINT_STYLE_NONE);
+        pango_cairo_context_set_font_options(pango_layout_get_context(l), fo);
+        cairo_font_options_destroy(fo);
+        if (cairo_set_user_data(cr, &layout_key, l, g_object_unref) != CAIRO_STATUS_SUCCESS) {
+            g_object_unref(l);
+            return NULL;
+        }
+    }
+    pango_cairo_update_layout(cr, l); /* the context's transformation may have changed */
     PangoFontDescription *d = pango_font_description_from_string("DejaVu Sans");
     pango_font_description_set_absolute_size(d, f.size_pt * PANGO_SCALE);
     if (f.bold)
@@ -494,12 +506,15 @@ static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double
         pango_font_description_set_style(d, PANGO_STYLE_ITALIC);
     pango_layout_set_font_description(l, d);
     pango_font_description_free(d);
+    pango_layout_set_ellipsize(l, PANGO_ELLIPSIZE_NONE);
     if (max_w > 0) {
         pango_layout_set_width(l, (int)(max_w * PANGO_SCALE));
         pango_layout_set_wrap(l, PANGO_WRAP_WORD_CHAR);
     } else if (max_w < 0) { /* one line, cut with an ellipsis */
         pango_layout_set_width(l, (int)(-max_w * PANGO_SCALE));
         pango_layout_set_ellipsize(l, PANGO_ELLIPSIZE_END);
+    } else {
+        pango_layout_set_width(l, -1);
     }
     /* names come from DICOM files: a byte that is not UTF-8 becomes a
      * replacement character rather than a warning printed by Pango */
@@ -516,23 +531,24 @@ static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double
 void fig_text_size(cairo_t *cr, const char *text, fig_font f, double max_w, double *w, double *h)
 {
     PangoLayout *l = layout_for(cr, text, f, max_w);
-    int iw, ih;
-    pango_layout_get_size(l, &iw, &ih);
+    int iw = 0, ih = 0;
+    if (l)
+        pango_layout_get_size(l, &iw, &ih);
     *w = (double)iw / PANGO_SCALE;
     *h = (double)ih / PANGO_SCALE;
-    g_object_unref(l);
 }
 
 void fig_text(cairo_t *cr, double x, double y, double ax, double ay, const char *text, fig_font f,
               double max_w)
 {
     PangoLayout *l = layout_for(cr, text, f, max_w);
+    if (!l)
+        return;
     int iw, ih;
     pango_layout_get_size(l, &iw, &ih);
     cairo_move_to(cr, x - ax * iw / PANGO_SCALE, y - ay * ih / PANGO_SCALE);
     pango_cairo_show_layout(cr, l);
     cairo_new_path(cr);
-    g_object_unref(l);
 }
 
 /* -------------------------------------------------------------- axes -- */

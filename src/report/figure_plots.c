@@ -666,7 +666,7 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
     }
     size_t rows = (n + cols - 1) / cols;
     double pw = aw / (double)cols, ph = ah / (double)rows;
-    double gapx = fs * 1.2, gapy = fs * 3.2;
+    double gapx = fs * 1.2, gapy = fs * 1.8;
     size_t total_pts = 0;
     char *counts = malloc(n * 24 + 1);
     size_t clen = 0;
@@ -693,8 +693,9 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
         bool last_row = row == rows - 1 || k + cols >= n;
         fig_axes_draw(cr, &main, NULL, col == 0 ? "dose (% of CAX max)" : NULL, false, col == 0,
                       fs);
+        /* shared axes: distances are numbered under the lowest panel of each column */
         fig_axes_draw(cr, &res, last_row ? "distance from the field edge (cm)" : NULL, NULL,
-                      true, false, fs);
+                      last_row, false, fs);
         if (col == 0) { /* the residual strip's scale: its 0 and 3 sigma lines */
             cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
             fig_font ft = {fs * 0.85, false, false};
