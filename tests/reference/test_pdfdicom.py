@@ -21,11 +21,12 @@ import unittest
 
 import pydicom
 
-from common import SOURCE_ROOT, tempdir
+from common import SOURCE_ROOT, run, tempdir
 
 HELPER = os.environ.get("SL_PDF_DICOM",
                         os.path.join(SOURCE_ROOT, "build", "tests", "pdf_dicom"))
 SAMPLE = os.path.join(SOURCE_ROOT, "tests", "data", "pdf", "sample.pdf")
+MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
 CASES = ["face-lens", "chest-fetus", "neck-device"]
 PDF_SOP_CLASS = "1.2.840.10008.5.1.4.1.1.104.1"  # PS3.4 B.5, Encapsulated PDF Storage
 RTPLAN_SOP_CLASS = "1.2.840.10008.5.1.4.1.1.481.5"  # PS3.4 B.5, RT Plan Storage
@@ -143,6 +144,24 @@ class EncapsulatedPdf(unittest.TestCase):
                     self.assertEqual(got[-1:], b"\x00")
                 errors, _ = dciodvfy(out)
                 self.assertEqual(errors, [])
+
+    def test_the_estimate_pdf(self):
+        """The report `estimate --pdf` writes (cairo), wrapped: dciodvfy clean,
+        and pydicom gives the same bytes back."""
+        with tempdir() as d:
+            pdf = os.path.join(d, "report.pdf")
+            rc, out, err = run("estimate", "--model", MODEL, plan("face-lens"),
+                               os.path.join(SOURCE_ROOT, "examples", "face-lens", "rtstruct.dcm"),
+                               "--pdf", pdf, "-o", os.path.join(d, "report.txt"))
+            self.assertIn(rc, (0, 4), err)
+            out = os.path.join(d, "report.dcm")
+            doc = self.write_ok(out, plan("face-lens"), pdf)
+            errors, warnings = dciodvfy(out)
+            self.assertEqual(errors, [])
+            self.assertEqual(warnings, [])
+            with open(pdf, "rb") as f:
+                self.assertEqual(bytes(doc.EncapsulatedDocument[:doc.EncapsulatedDocumentLength]),
+                                 f.read())
 
     def test_plan_without_type2_values(self):
         """A plan without Study Date, Study Time, Referring Physician, Accession
