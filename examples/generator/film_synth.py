@@ -96,9 +96,12 @@ def field_dose(xx, yy, axis_cgy, field_cm, **shape):
 
 
 def measurement_scan(path, axis_cgy, field_cm, width_cm, height_cm, dpi=100, centre=None,
-                     angle_deg=0.0, seed=2, noise=0.004, write_dpi=True, shape=None):
+                     angle_deg=0.0, seed=2, noise=0.004, write_dpi=True, shape=None,
+                     control_cm=None):
     """A film of one field: the field centre at `centre` (cm from the top left corner;
-    default the middle), its crossplane axis along the image's x turned by angle_deg."""
+    default the middle), its crossplane axis along the image's x turned by angle_deg.
+    control_cm = [x, y, width, height]: an unexposed control piece lying on the scanner
+    beside the film (dose 0 there)."""
     rng = np.random.default_rng(seed)
     px = 2.54 / dpi
     W, H = int(round(width_cm / px)), int(round(height_cm / px))
@@ -110,6 +113,10 @@ def measurement_scan(path, axis_cgy, field_cm, width_cm, height_cm, dpi=100, cen
     u = X * math.cos(a) + Y * math.sin(a)
     v = -X * math.sin(a) + Y * math.cos(a)
     dose = field_dose(u, v, axis_cgy, field_cm, **(shape or {}))
+    if control_cm:
+        x0, y0, w, h = control_cm
+        dose[int(round(y0 / px)):int(round((y0 + h) / px)),
+             int(round(x0 / px)):int(round((x0 + w) / px))] = 0.0
     write_tiff(path, pixel_values(dose, rng, noise), dpi=dpi if write_dpi else None)
     return dose
 

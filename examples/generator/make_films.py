@@ -1,7 +1,7 @@
 #!/usr/bin/python3
 """Write the invented film campaign examples/commissioning/film-demo/: a calibration
 scan and its calibration set, measurement films of one open 6 x 6 cm applicator at
-two depths (a short and a long exposure each, merged by MU), and the film set.
+1 cm depth (a short and a long exposure, merged by MU), and the film set.
 INVENTED DEMO DATA - NOT A REAL FILM, SCANNER OR MACHINE - NOT FOR CLINICAL USE.
 
     /usr/bin/python3 examples/generator/make_films.py [OUT_DIR]
@@ -23,6 +23,9 @@ FIELD_CM = 6.0
 # Dose on the axis at each depth as a fraction of the central-axis maximum (invented).
 DEPTHS = {1.0: 0.97, 2.0: 0.80}
 DOSE_PER_MU = 1.0  # cGy a MU at the central-axis maximum (invented)
+# An unexposed control piece scanned beside each film (AAPM TG-235), and its region read.
+CONTROL_CM = [0.1, 0.1, 1.2, 1.2]
+CONTROL_REGION_CM = [0.3, 0.3, 0.8, 0.8]
 
 
 def measurement_block():
@@ -47,10 +50,17 @@ def dump(path, header, data):
         yaml.safe_dump(data, f, sort_keys=False, default_flow_style=None, width=100)
 
 
-def build_campaign(out, cal_dpi=100, film_dpi=50, width_cm=16.0, height_cm=8.0,
+# The shipped demo is small (about 0.4 MB of scans): coarse scans, one depth. The tests
+# make the finer campaign of TEST_CAMPAIGN.
+DEMO_DEPTHS = {1.0: 0.97}
+TEST_CAMPAIGN = {"cal_dpi": 100, "film_dpi": 50, "width_cm": 16.0, "height_cm": 8.0,
+                 "depths": DEPTHS}
+
+
+def build_campaign(out, cal_dpi=60, film_dpi=40, width_cm=14.0, height_cm=7.5,
                    exposures=((100, 1), (1000, 2)), depths=None, angle_deg=0.0, seed=11):
     """Write scans/, calibration.yaml and films.yaml under `out`; return a description."""
-    depths = DEPTHS if depths is None else depths
+    depths = DEMO_DEPTHS if depths is None else depths
     os.makedirs(os.path.join(out, "scans"), exist_ok=True)
     regions = film_synth.calibration_scan(os.path.join(out, "scans", "calibration.tif"),
                                           CAL_DOSES, dpi=cal_dpi, seed=seed)
@@ -78,12 +88,14 @@ def build_campaign(out, cal_dpi=100, film_dpi=50, width_cm=16.0, height_cm=8.0,
             name = "e09_a06_d%.1f_%dmu.tif" % (depth, mu)
             film_synth.measurement_scan(os.path.join(out, "scans", name),
                                         frac * mu * DOSE_PER_MU, FIELD_CM, width_cm, height_cm,
-                                        dpi=film_dpi, angle_deg=angle_deg, seed=seed + 10 * k)
+                                        dpi=film_dpi, angle_deg=angle_deg, seed=seed + 10 * k,
+                                        control_cm=CONTROL_CM)
             films.append({"id": "e09-a06-d%.1f-%dmu" % (depth, mu), "scan": "scans/" + name,
                           "energy_mev": 9, "applicator": "A06", "insert": "open",
                           "depth_cm": depth, "ssd_cm": 100.0, "tilt_deg": 0,
                           "image_x": "crossplane", "directions": ["crossplane"],
-                          "monitor_units": mu, "cax_reference_cgy": mu * DOSE_PER_MU})
+                          "monitor_units": mu, "cax_reference_cgy": mu * DOSE_PER_MU,
+                          "unexposed_region_cm": list(CONTROL_REGION_CM)})
     dump(os.path.join(out, "films.yaml"),
          "# strayline film set. %s\n# Made by examples/generator/make_films.py; see "
          "models/README.md (film).\n" % NOTICE,

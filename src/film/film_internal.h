@@ -34,6 +34,7 @@ typedef struct film_result {
     bool cax_saturated;
     double band_cm, step_cm;
     double cax_reference_cgy, monitor_units;
+    double control_pv;      /* the unexposed control piece's pixel value, NAN without one */
     double energy_mev, depth_cm;
     const char *applicator, *insert;
     size_t nlines;

@@ -45,6 +45,8 @@ typedef struct film_spec {
     char *id, *scan, *path, *applicator, *insert;
     double energy_mev, depth_cm, ssd_cm, tilt_deg, mu, cax_ref;
     int image_x; /* SL_DIR_CROSSPLANE or SL_DIR_INPLANE */
+    bool has_control;
+    double control[4]; /* unexposed control piece on the same scan: x, y, width, height (cm) */
     int ndirs;
     int dirs[3];
     size_t line;
@@ -99,10 +101,10 @@ static sl_status read_film(sl_yaml *y, yaml_node_t *n, size_t i, const char *bas
         {"applicator", true, NULL},  {"insert", true, NULL},        {"depth_cm", true, NULL},
         {"ssd_cm", true, NULL},      {"tilt_deg", true, NULL},      {"image_x", true, NULL},
         {"directions", true, NULL},  {"monitor_units", true, NULL},
-        {"cax_reference_cgy", true, NULL},
+        {"cax_reference_cgy", true, NULL}, {"unexposed_region_cm", false, NULL},
     };
     char *ix = NULL;
-    sl_status st = sl_yaml_fields(y, n, what, k, 12, err);
+    sl_status st = sl_yaml_fields(y, n, what, k, 13, err);
     if (st == SL_OK)
         st = sl_yaml_string(y, k[0].node, "id", &f->id, err);
     if (st == SL_OK)
@@ -162,6 +164,20 @@ static sl_status read_film(sl_yaml *y, yaml_node_t *n, size_t i, const char *bas
         st = sl_yaml_number_in(y, k[10].node, "monitor_units", 1e-3, 1e6, &f->mu, err);
     if (st == SL_OK)
         st = sl_yaml_number_in(y, k[11].node, "cax_reference_cgy", 1e-3, 1e6, &f->cax_ref, err);
+    if (st == SL_OK && k[12].node) {
+        double *v = NULL;
+        size_t nv = 0;
+        st = sl_yaml_numbers(y, k[12].node, "unexposed_region_cm", &v, &nv, err);
+        if (st == SL_OK && (nv != 4 || !(v[2] > 0) || !(v[3] > 0) || v[0] < 0 || v[1] < 0))
+            st = sl_yaml_error(y, k[12].node, err,
+                               "unexposed_region_cm: needs [x, y, width, height] with positive "
+                               "size");
+        if (st == SL_OK) {
+            memcpy(f->control, v, sizeof f->control);
+            f->has_control = true;
+        }
+        free(v);
+    }
     if (st == SL_OK && !(f->path = sl_film_join_dir_of(base, f->scan)))
         st = sl_error_set(err, SL_ENOMEM, "out of memory");
     return st;
@@ -463,8 +479,9 @@ typedef struct merged {
     size_t npoints;
     char file[256];
     double left, right;
-    double overlap_ratio, overlap_sd; /* the longer exposure over the shorter where both read */
+    double overlap_ratio, overlap_sem; /* the longer exposures over the shortest where both read */
     size_t overlap_n;
+    double stat_rel;  /* median relative standard uncertainty of the points outside the field */
 } merged;
 
 static bool same_profile(const film_spec *a, const film_spec *b)
@@ -611,6 +628,32 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             (st = sl_notes_add(&sum->notes, "%s: %d bits a channel, the calibration %d", where,
                                s->bits, curve->bits)) != SL_OK)
             goto done;
+        /* The film's own unexposed level, from a control piece scanned with it (AAPM TG-235),
+           so that the scanner's drift between sessions cancels; else the calibration's. */
+        sl_film_channel chf = *ch;
+        if (fp->has_control) {
+            sl_film_stats cs;
+            long r4[4] = {lround(fp->control[0] / s->pixel_cm), lround(fp->control[1] / s->pixel_cm),
+                          lround((fp->control[0] + fp->control[2]) / s->pixel_cm),
+                          lround((fp->control[1] + fp->control[3]) / s->pixel_cm)};
+            if ((st = sl_film_region_stats(s, curve->channel, r4[0], r4[1], r4[2], r4[3], &cs,
+                                           err)) != SL_OK) {
+                char pre[600];
+                snprintf(pre, sizeof pre, "%s: unexposed_region_cm", where);
+                sl_error_prefix(err, pre);
+                goto done;
+            }
+            chf.pv0 = cs.mean;
+            chf.pv0_sem = cs.sem;
+            r->control_pv = cs.mean;
+        } else {
+            r->control_pv = NAN;
+            if ((st = sl_notes_add(&sum->notes,
+                                   "%s: no unexposed_region_cm: net optical density against the "
+                                   "calibration's unexposed pieces (scanner drift not cancelled)",
+                                   where)) != SL_OK)
+                goto done;
+        }
         float *pv = pixel_values(s, curve->channel, fs.median_px, err);
         if (!pv) {
             st = SL_ENOMEM;
@@ -636,8 +679,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 above[k] = plane[k] == 0;
                 continue;
             }
-            double x = log10(ch->pv0 / pv[k]);
-            double d = sl_film_dose(ch, x, 0, NULL);
+            double x = log10(chf.pv0 / pv[k]);
+            double d = sl_film_dose(&chf, x, 0, NULL);
             if (isfinite(d)) {
                 dose[k] = (float)d;
                 nvalid++;
@@ -758,7 +801,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             double uy = fp->dirs[d] == SL_DIR_CROSSPLANE ? ey
                         : fp->dirs[d] == SL_DIR_INPLANE  ? iy
                                                          : (ey + iy) / sqrt(2);
-            if ((st = sample_line(s, pv, ch, cx, cy, ux, uy, fs.band_cm, fs.step_cm, lowest, L,
+            if ((st = sample_line(s, pv, &chf, cx, cy, ux, uy, fs.band_cm, fs.step_cm, lowest, L,
                                   err)) != SL_OK) {
                 free(pv);
                 free(above);
@@ -810,7 +853,16 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         st = sl_error_set(err, SL_ENOMEM, "out of memory");
         goto done;
     }
-    if ((st = make_dir(opt->out_dir, err)) != SL_OK || (st = make_dir(prof_dir, err)) != SL_OK ||
+    char *pts_dir = path_join(opt->out_dir, "points");
+    if (!pts_dir) {
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        goto done;
+    }
+    st = make_dir(opt->out_dir, err);
+    if (st == SL_OK)
+        st = make_dir(pts_dir, err);
+    free(pts_dir);
+    if (st != SL_OK || (st = make_dir(prof_dir, err)) != SL_OK ||
         (st = make_dir(qa_dir, err)) != SL_OK)
         goto done;
     for (size_t g = 0; g < nmp; g++) {
@@ -830,7 +882,9 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 M->films[b] = M->films[b - 1];
                 M->films[b - 1] = t;
             }
-        double rs = 0, rs2 = 0;
+        /* the overlap: ratio of the sums of the longer exposures and of the shortest one
+           where both read (a ratio of point pairs would be biased by the shorter's noise) */
+        double sum_l = 0, sum_s = 0, var_l = 0, var_s = 0;
         for (long k = M->kmin; k <= M->kmax; k++) {
             double sw = 0, swp = 0, first = NAN, first_s = NAN;
             for (size_t q = 0; q < M->nfilms; q++) {
@@ -848,9 +902,10 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 if (!(sp > 0))
                     sp = 1e-6 * p;
                 if (isfinite(first) && q > 0) {
-                    double ratio = p / first;
-                    rs += ratio;
-                    rs2 += ratio * ratio;
+                    sum_l += p;
+                    var_l += sp * sp;
+                    sum_s += first;
+                    var_s += first_s * first_s;
                     M->overlap_n++;
                 } else if (!isfinite(first)) {
                     first = p;
@@ -859,18 +914,16 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 sw += 1 / (sp * sp);
                 swp += p / (sp * sp);
             }
-            (void)first_s;
             size_t i = (size_t)(k - M->kmin);
             M->pct[i] = sw > 0 ? swp / sw : NAN;
             M->sig[i] = sw > 0 ? 1 / sqrt(sw) : NAN;
         }
-        M->overlap_ratio = M->overlap_n ? rs / (double)M->overlap_n : NAN;
-        M->overlap_sd = M->overlap_n > 1
-                            ? sqrt(fmax(0, rs2 / (double)M->overlap_n -
-                                               M->overlap_ratio * M->overlap_ratio))
-                            : NAN;
+        M->overlap_ratio = M->overlap_n ? sum_l / sum_s : NAN;
+        M->overlap_sem = M->overlap_n ? M->overlap_ratio * sqrt(var_l / (sum_l * sum_l) +
+                                                                var_s / (sum_s * sum_s))
+                                      : NAN;
         if (M->overlap_n > 2 && fabs(M->overlap_ratio - 1) > 0.03 &&
-            fabs(M->overlap_ratio - 1) > 3 * M->overlap_sd / sqrt((double)M->overlap_n) &&
+            fabs(M->overlap_ratio - 1) > 3 * M->overlap_sem &&
             (st = sl_notes_add(&sum->notes,
                                "%s: %g MeV %s %s %g cm %s: where the films overlap, the longer "
                                "exposure reads %.3f times the shorter (check the MU and the "
@@ -916,6 +969,54 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         }
         snprintf(M->file, sizeof M->file, "profiles/e%02g_%s_%s_d%.2f_%s.csv", f0->energy_mev,
                  f0->applicator, f0->insert, f0->depth_cm, dir_names[M->direction]);
+        /* each point's own uncertainty, beside: the fit's CSV has two columns */
+        {
+            double *rel = malloc(len * sizeof *rel);
+            size_t nr = 0;
+            char pname[300];
+            snprintf(pname, sizeof pname, "points/e%02g_%s_%s_d%.2f_%s.csv", f0->energy_mev,
+                     f0->applicator, f0->insert, f0->depth_cm, dir_names[M->direction]);
+            char *pp = path_join(opt->out_dir, pname);
+            sl_outfile pf = {0};
+            if (!rel || !pp) {
+                free(rel);
+                free(pp);
+                free(xs);
+                free(ps);
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                goto done;
+            }
+            st = sl_outfile_open(&pf, pp, NULL, 0, err);
+            free(pp);
+            if (st == SL_OK) {
+                static const char *const head[] = {"off_axis_cm", "dose_percent", "sigma_percent"};
+                for (int c = 0; c < 3; c++) {
+                    csv_fwrite(pf.fp, head[c], strlen(head[c]));
+                    fputc(c < 2 ? ',' : '\n', pf.fp);
+                }
+                for (long k = M->kmin; k <= M->kmax; k++) {
+                    size_t i = (size_t)(k - M->kmin);
+                    if (!isfinite(M->pct[i]))
+                        continue;
+                    double x = (double)k * step;
+                    fprintf(pf.fp, "%.4f,%.6g,%.4g\n", x, M->pct[i], M->sig[i]);
+                    if (x < M->left || x > M->right)
+                        rel[nr++] = M->sig[i] / M->pct[i];
+                }
+                st = sl_outfile_commit(&pf, err);
+            }
+            if (st != SL_OK) {
+                sl_outfile_abort(&pf);
+                free(rel);
+                free(xs);
+                free(ps);
+                goto done;
+            }
+            sl_film_stats rs;
+            sl_film_robust(rel, nr, &rs);
+            M->stat_rel = nr ? rs.median : 0;
+            free(rel);
+        }
         char *cp = path_join(opt->out_dir, M->file);
         sl_outfile of = {0};
         if (!cp) {
@@ -986,7 +1087,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             sl_yaml_kv_string(&w, "file", mp[g].file);
             sl_yaml_key(&w, "uncertainty");
             sl_yaml_map_begin(&w, true);
-            sl_yaml_kv_number(&w, "relative", fs.rel_unc);
+            sl_yaml_kv_number(&w, "relative",
+                              sqrt(fs.rel_unc * fs.rel_unc + mp[g].stat_rel * mp[g].stat_rel));
             sl_yaml_kv_number(&w, "floor_percent", fs.floor_pct);
             sl_yaml_map_end(&w);
             sl_yaml_map_end(&w);
@@ -1111,9 +1213,11 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             sl_yaml_kv_number(&w, "edge_left_cm", M->left);
             sl_yaml_kv_number(&w, "edge_right_cm", M->right);
             sl_yaml_kv_number(&w, "width_cm", M->right - M->left);
+            sl_yaml_kv_number(&w, "statistical_relative_uncertainty", M->stat_rel);
             if (M->overlap_n) {
                 sl_yaml_kv_int(&w, "overlap_points", (long long)M->overlap_n);
                 sl_yaml_kv_number(&w, "overlap_ratio", M->overlap_ratio);
+                sl_yaml_kv_number(&w, "overlap_ratio_sem", M->overlap_sem);
             }
             sl_yaml_map_end(&w);
         }

@@ -494,7 +494,20 @@ static cairo_surface_t *film_picture(const film_result *r, const sl_film_curve *
                 *px = (v << 16) | (v << 8) | v;
                 continue;
             }
-            float d = r->dose[sy * s->width + sx];
+            /* the mean of the block of scan pixels behind this one (NAN when most are NAN) */
+            double sum = 0;
+            size_t nn = 0, nall = 0;
+            size_t bx1 = (size_t)((x + 1) / scale), by1 = (size_t)((y + 1) / scale);
+            for (size_t yy = (size_t)(y / scale); yy < by1 && yy < s->height; yy++)
+                for (size_t xx = (size_t)(x / scale); xx < bx1 && xx < s->width; xx++) {
+                    float v = r->dose[yy * s->width + xx];
+                    nall++;
+                    if (!isnan(v)) {
+                        sum += v;
+                        nn++;
+                    }
+                }
+            float d = nn && 2 * nn >= nall ? (float)(sum / (double)nn) : r->dose[sy * s->width + sx];
             int b = 9;
             if (isnan(d))
                 b = 0;
