@@ -167,7 +167,7 @@ typedef struct sl_film_cal_options {
     const char *channel;      /* NULL: the set's, or red */
 } sl_film_cal_options;
 
-#define SL_FILM_READING_AREA_CM2 0.05
+#define SL_FILM_READING_AREA_CM2 0.04 /* SL_FILM_BAND_CM x SL_FILM_STEP_CM */
 
 /* Read a calibration set, measure its pieces and fit its curve. */
 sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,

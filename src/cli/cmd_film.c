@@ -29,7 +29,7 @@ static const char help[] =
     "      --channel NAME         red (default), green, blue or grey\n"
     "      --resolve-fraction F   the lowest resolvable dose is where its standard\n"
     "                             uncertainty is F times the dose (default 1)\n"
-    "      --reading-area CM2     the area a reading averages, for that dose (default 0.05)\n\n"
+    "      --reading-area CM2     the area a reading averages, for that dose (default 0.04)\n\n"
     "profile: turn each measurement film of a film set into a dose map, find its\n"
     "field, extract and merge its profiles, write DIR/profiles/*.csv,\n"
     "DIR/measurements.yaml (for strayline fit), DIR/films.yaml and DIR/qa/*.html.\n"
