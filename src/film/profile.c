@@ -481,7 +481,10 @@ typedef struct merged {
     double left, right;
     double overlap_ratio, overlap_sem; /* the longer exposures over the shortest where both read */
     size_t overlap_n;
-    double stat_rel;  /* median relative standard uncertainty of the points outside the field */
+    /* the points' own uncertainty outside the field, as the measurement set's two numbers:
+       the median relative one of the nearer half (higher doses), the median absolute one
+       (percent) of the farther half */
+    double stat_rel, stat_floor;
 } merged;
 
 static bool same_profile(const film_spec *a, const film_spec *b)
@@ -971,7 +974,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                  f0->applicator, f0->insert, f0->depth_cm, dir_names[M->direction]);
         /* each point's own uncertainty, beside: the fit's CSV has two columns */
         {
-            double *rel = malloc(len * sizeof *rel);
+            double *rel = malloc(2 * len * sizeof *rel);
             size_t nr = 0;
             char pname[300];
             snprintf(pname, sizeof pname, "points/e%02g_%s_%s_d%.2f_%s.csv", f0->energy_mev,
@@ -1000,8 +1003,11 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                         continue;
                     double x = (double)k * step;
                     fprintf(pf.fp, "%.4f,%.6g,%.4g\n", x, M->pct[i], M->sig[i]);
-                    if (x < M->left || x > M->right)
-                        rel[nr++] = M->sig[i] / M->pct[i];
+                    if (x < M->left || x > M->right) {
+                        rel[2 * nr] = M->pct[i];
+                        rel[2 * nr + 1] = M->sig[i];
+                        nr++;
+                    }
                 }
                 st = sl_outfile_commit(&pf, err);
             }
@@ -1012,9 +1018,30 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 free(ps);
                 goto done;
             }
-            sl_film_stats rs;
-            sl_film_robust(rel, nr, &rs);
-            M->stat_rel = nr ? rs.median : 0;
+            M->stat_rel = M->stat_floor = 0;
+            if (nr) {
+                double *v = malloc(nr * sizeof *v), *a = malloc(nr * sizeof *a),
+                       *b = malloc(nr * sizeof *b);
+                if (v && a && b) {
+                    sl_film_stats rs;
+                    for (size_t q = 0; q < nr; q++)
+                        v[q] = rel[2 * q];
+                    sl_film_robust(v, nr, &rs);
+                    size_t na = 0, nb = 0;
+                    for (size_t q = 0; q < nr; q++)
+                        if (rel[2 * q] >= rs.median)
+                            a[na++] = rel[2 * q + 1] / rel[2 * q];
+                        else
+                            b[nb++] = rel[2 * q + 1];
+                    sl_film_robust(a, na, &rs);
+                    M->stat_rel = na ? rs.median : 0;
+                    sl_film_robust(b, nb, &rs);
+                    M->stat_floor = nb ? rs.median : 0;
+                }
+                free(v);
+                free(a);
+                free(b);
+            }
             free(rel);
         }
         char *cp = path_join(opt->out_dir, M->file);
@@ -1089,7 +1116,9 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             sl_yaml_map_begin(&w, true);
             sl_yaml_kv_number(&w, "relative",
                               sqrt(fs.rel_unc * fs.rel_unc + mp[g].stat_rel * mp[g].stat_rel));
-            sl_yaml_kv_number(&w, "floor_percent", fs.floor_pct);
+            sl_yaml_kv_number(&w, "floor_percent",
+                              sqrt(fs.floor_pct * fs.floor_pct +
+                                   mp[g].stat_floor * mp[g].stat_floor));
             sl_yaml_map_end(&w);
             sl_yaml_map_end(&w);
         }
@@ -1214,6 +1243,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             sl_yaml_kv_number(&w, "edge_right_cm", M->right);
             sl_yaml_kv_number(&w, "width_cm", M->right - M->left);
             sl_yaml_kv_number(&w, "statistical_relative_uncertainty", M->stat_rel);
+            sl_yaml_kv_number(&w, "statistical_floor_percent", M->stat_floor);
             if (M->overlap_n) {
                 sl_yaml_kv_int(&w, "overlap_points", (long long)M->overlap_n);
                 sl_yaml_kv_number(&w, "overlap_ratio", M->overlap_ratio);

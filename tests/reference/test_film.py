@@ -311,6 +311,9 @@ class Profiles(unittest.TestCase):
             # the declared 3 % and the points' own median relative uncertainty, in quadrature
             stat = res[p["file"]]["statistical_relative_uncertainty"]
             self.assertAlmostEqual(p["uncertainty"]["relative"], math.hypot(0.03, stat))
+            floor = res[p["file"]]["statistical_floor_percent"]
+            self.assertAlmostEqual(p["uncertainty"]["floor_percent"], math.hypot(0.01, floor))
+            self.assertGreater(floor, 0)
 
     def test_end_to_end_fit_and_model_eval(self):
         """films -> profile -> fit -> model eval: the known curve (film_synth's shape at
