@@ -46,7 +46,7 @@ extern "C" {
  * (1.4826 x the median absolute deviation) from the median are rejected. */
 #define SL_FILM_CLIP_SIGMAS 3.5
 /* Largest scan read (pixels), so that a hostile header cannot exhaust memory. */
-#define SL_FILM_MAX_PIXELS ((size_t)1 << 27)
+#define SL_FILM_MAX_PIXELS ((size_t)1 << 25) /* 33.5 million: 25 x 20 cm at 600 dpi */
 
 /* ---------------------------------------------------------- scans -- */
 

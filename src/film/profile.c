@@ -341,11 +341,13 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
     double px = s->pixel_cm;
     double half_band = band_cm / 2 / px, half_step = step_cm / 2 / px, step = step_cm / px;
     double vx = -uy, vy = ux;
-    /* the farthest k whose cell stays inside the image on both sides */
-    long kmax = 0;
-    for (long k = 1;; k++) {
-        bool inside = true;
-        for (int sgn = -1; sgn <= 1 && inside; sgn += 2)
+    /* on each side, the farthest k whose cell stays inside the image (a film may hold a
+       longer tail on one side) */
+    long kend[2] = {0, 0};
+    for (int side = 0; side < 2; side++) {
+        int sgn = side ? 1 : -1;
+        for (long k = 0;; k++) {
+            bool inside = true;
             for (int a = -1; a <= 1 && inside; a += 2)
                 for (int b = -1; b <= 1 && inside; b += 2) {
                     double t = sgn * k * step + a * half_step;
@@ -353,15 +355,17 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
                     if (x < 0 || y < 0 || x > (double)s->width - 1 || y > (double)s->height - 1)
                         inside = false;
                 }
-        if (!inside)
-            break;
-        kmax = k;
+            if (!inside)
+                break;
+            kend[side] = k;
+        }
     }
     L->ux = ux;
     L->uy = uy;
-    L->kmin = -kmax;
-    L->kmax = kmax;
-    size_t n = (size_t)(2 * kmax + 1);
+    L->kmin = -kend[0];
+    L->kmax = kend[1];
+    long kmin = L->kmin, kmax = L->kmax;
+    size_t n = (size_t)(kmax - kmin + 1);
     L->dose_cgy = malloc(n * sizeof *L->dose_cgy);
     L->sigma_cgy = malloc(n * sizeof *L->sigma_cgy);
     size_t cap = (size_t)((2 * half_step + 2 * half_band + 4) * (2 * half_step + 2 * half_band + 4));
@@ -370,7 +374,7 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
         free(v);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    for (long k = -kmax; k <= kmax; k++) {
+    for (long k = kmin; k <= kmax; k++) {
         double tx = cx + k * step * ux, ty = cy + k * step * uy;
         double r = half_step + half_band + 1;
         size_t m = 0, bad = 0, all = 0;
@@ -389,7 +393,7 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
                 else
                     v[m++] = p;
             }
-        size_t i = (size_t)(k + kmax);
+        size_t i = (size_t)(k - kmin);
         L->dose_cgy[i] = L->sigma_cgy[i] = NAN;
         if (m < 3 || (double)bad > SL_FILM_MAX_SATURATED_SHARE * (double)all) {
             L->dropped_high++;

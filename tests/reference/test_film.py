@@ -360,10 +360,10 @@ class FilmGeometry(unittest.TestCase):
         cls.tmpctx.cleanup()
 
     def one_film(self, name, dpi=50, angle=0.0, write_dpi=True, extra=(), directions=None,
-                 width=16.0, height=8.0, axis=97.0, image_x="crossplane"):
+                 width=16.0, height=8.0, axis=97.0, image_x="crossplane", centre=None):
         scan = os.path.join(self.c.dir, "scans", name + ".tif")
         film_synth.measurement_scan(scan, axis, make_films.FIELD_CM, width, height, dpi=dpi,
-                                    angle_deg=angle, write_dpi=write_dpi, seed=3,
+                                    angle_deg=angle, write_dpi=write_dpi, seed=3, centre=centre,
                                     control_cm=make_films.CONTROL_CM)
         doc = dict(self.base)
         f = dict(doc["films"][0])
@@ -439,6 +439,20 @@ class FilmGeometry(unittest.TestCase):
             else:
                 hi = m
         self.assertLess(abs(byfile["diagonal.csv"]["edge_right_cm"] - lo), 0.05)
+
+    def test_field_off_centre_keeps_the_longer_tail(self):
+        """The field 5 cm from the film's left end: the profile runs to the right end
+        (about 10.9 cm out) and stops at the left end; both edges still true."""
+        rc, out, err, d = self.one_film("offcentre", width=16.0, centre=(5.0, 4.0))
+        self.assertEqual(rc, 0, err)
+        p = self.edges(d)["profiles"][0]
+        x = np.genfromtxt(os.path.join(d, p["file"]), delimiter=",", skip_header=1)[:, 0]
+        self.assertGreater(x.max(), 10.5)
+        self.assertGreater(x.min(), -5.0)
+        self.assertLess(x.min(), -4.5)
+        e = film_synth.truth_edge(0.97, make_films.FIELD_CM)
+        self.assertLess(abs(p["edge_right_cm"] - e), 0.05)
+        self.assertLess(abs(p["edge_left_cm"] + e), 0.05)
 
     def test_field_not_found(self):
         """A film whose field runs off the scan: refused, naming the film."""
