@@ -215,6 +215,11 @@ void sl_film_run_summary_free(sl_film_run_summary *s);
  * the QA pages. */
 char *sl_film_png_uri(const unsigned char *png, size_t n);
 
+/* Release the process-wide font caches of Pango, cairo and fontconfig; for the
+ * command-line layer at exit, after every figure is drawn (never while another thread
+ * draws). */
+void sl_film_release_fonts(void);
+
 #ifdef __cplusplus
 }
 #endif

@@ -227,9 +227,10 @@ int sl_cmd_film(int argc, char **argv)
         fputs(help, stdout);
         return SL_EXIT_OK;
     }
-    if (strcmp(argv[1], "calibrate") == 0)
-        return calibrate(argc - 1, argv + 1);
-    if (strcmp(argv[1], "profile") == 0)
-        return profile(argc - 1, argv + 1);
+    if (strcmp(argv[1], "calibrate") == 0 || strcmp(argv[1], "profile") == 0) {
+        int rc = argv[1][0] == 'c' ? calibrate(argc - 1, argv + 1) : profile(argc - 1, argv + 1);
+        sl_film_release_fonts();
+        return rc;
+    }
     return sl_cli_usage("film", "'%s' is not calibrate or profile", argv[1]);
 }

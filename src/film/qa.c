@@ -17,6 +17,7 @@
 #include <string.h>
 
 #include <cairo.h>
+#include <fontconfig/fontconfig.h>
 #include <nettle/base64.h>
 #include <pango/pangocairo.h>
 
@@ -33,6 +34,15 @@ char *sl_film_png_uri(const unsigned char *png, size_t n)
     base64_encode_raw(s + sizeof head - 1, n, png);
     s[sizeof head - 1 + len] = '\0';
     return s;
+}
+
+void sl_film_release_fonts(void)
+{
+    /* Pango and fontconfig keep process-wide font caches; dropping them at exit lets a
+       memory checker see the program's own allocations only. */
+    pango_cairo_font_map_set_default(NULL);
+    cairo_debug_reset_static_data();
+    FcFini();
 }
 
 static cairo_status_t png_write(void *closure, const unsigned char *data, unsigned int length)
