@@ -184,6 +184,8 @@ double sl_film_dose(const sl_film_channel *c, double netod, double netod_sd, dou
 
 /* The calibration report (HTML with figures drawn by cairo). */
 sl_status sl_film_curve_report(const sl_film_curve *c, FILE *fp, sl_error *err);
+/* The same as a PDF (A4, cairo and Pango). */
+sl_status sl_film_curve_report_pdf(const sl_film_curve *c, FILE *fp, sl_error *err);
 
 /* ------------------------------------------------------ profiles -- */
 

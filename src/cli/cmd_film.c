@@ -18,7 +18,8 @@
 #include "strayline/util.h"
 
 static const char help[] =
-    "usage: strayline film calibrate CALIBRATION.yaml -o CURVE.yaml [OPTIONS]\n"
+    "usage: strayline film calibrate CALIBRATION.yaml -o CURVE.yaml [-r REPORT.html] [--pdf "
+    "REPORT.pdf] [OPTIONS]\n"
     "       strayline film profile FILMS.yaml --curve CURVE.yaml --out DIR [OPTIONS]\n\n"
     "calibrate: measure the pieces of a film calibration set (TIFF scans, 16 bits a\n"
     "channel), fit dose (cGy) against net optical density in the power and the\n"
@@ -26,6 +27,7 @@ static const char help[] =
     "covariance, provenance and the lowest dose it resolves.\n"
     "  -o, --output FILE          the curve file to write (required)\n"
     "  -r, --report FILE          also write an HTML report with the curves\n"
+    "      --pdf FILE             also write the report as a PDF (A4)\n"
     "      --channel NAME         red (default), green, blue or grey\n"
     "      --resolve-fraction F   the lowest resolvable dose is where its standard\n"
     "                             uncertainty is F times the dose (default 1)\n"
@@ -42,10 +44,11 @@ static const char help[] =
 
 static int calibrate(int argc, char **argv)
 {
-    enum { OPT_CHANNEL = 256, OPT_FRACTION, OPT_AREA, OPT_DPI, OPT_CREATED };
+    enum { OPT_CHANNEL = 256, OPT_FRACTION, OPT_AREA, OPT_DPI, OPT_CREATED, OPT_PDF };
     static const struct option opts[] = {
         {"output", required_argument, NULL, 'o'},
         {"report", required_argument, NULL, 'r'},
+        {"pdf", required_argument, NULL, OPT_PDF},
         {"channel", required_argument, NULL, OPT_CHANNEL},
         {"resolve-fraction", required_argument, NULL, OPT_FRACTION},
         {"reading-area", required_argument, NULL, OPT_AREA},
@@ -54,7 +57,7 @@ static int calibrate(int argc, char **argv)
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
     };
-    const char *output = NULL, *report = NULL;
+    const char *output = NULL, *report = NULL, *pdf = NULL;
     char now[32];
     time_t t = time(NULL);
     struct tm tm;
@@ -67,6 +70,7 @@ static int calibrate(int argc, char **argv)
         switch (c) {
         case 'o': output = optarg; break;
         case 'r': report = optarg; break;
+        case OPT_PDF: pdf = optarg; break;
         case OPT_CHANNEL:
             if (strcmp(optarg, "red") && strcmp(optarg, "green") && strcmp(optarg, "blue") &&
                 strcmp(optarg, "grey"))
@@ -106,7 +110,7 @@ static int calibrate(int argc, char **argv)
         goto done;
     }
     /* The scans are inputs too: never written over. */
-    const char **inputs = calloc(curve->npieces + 2, sizeof *inputs);
+    const char **inputs = calloc(curve->npieces + 3, sizeof *inputs);
     if (!inputs) {
         fprintf(stderr, "strayline: out of memory\n");
         rc = SL_EXIT_INTERNAL;
@@ -134,6 +138,19 @@ static int calibrate(int argc, char **argv)
             goto done;
         }
     }
+    if (pdf) {
+        inputs[curve->npieces + 1] = output;
+        inputs[curve->npieces + 2] = report;
+        sl_outfile pf = {0};
+        if (sl_outfile_open(&pf, pdf, inputs, curve->npieces + (report ? 3 : 2), &err) != SL_OK ||
+            sl_film_curve_report_pdf(curve, pf.fp, &err) != SL_OK ||
+            sl_outfile_commit(&pf, &err) != SL_OK) {
+            sl_outfile_abort(&pf);
+            free(inputs);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+    }
     free(inputs);
     for (int i = 0; i < curve->nchannels; i++) {
         const sl_film_channel *ch = &curve->ch[i];
@@ -149,8 +166,9 @@ static int calibrate(int argc, char **argv)
                ch->max_dose_cgy, isfinite(ch->lowest_dose_cgy) ? "" : "(none) ",
                ch->lowest_dose_cgy, ch->channel == curve->channel ? " (used)" : "");
     }
-    printf("%s: %zu pieces; curve written to %s%s%s\n", input, curve->npieces, output,
-           report ? ", report to " : "", report ? report : "");
+    printf("%s: %zu pieces; curve written to %s%s%s%s%s\n", input, curve->npieces, output,
+           report ? ", report to " : "", report ? report : "", pdf ? ", PDF to " : "",
+           pdf ? pdf : "");
     sl_cli_warnings(&curve->notes);
     if (fflush(stdout) != 0 || ferror(stdout)) {
         fprintf(stderr, "strayline: output error: cannot write to standard output\n");

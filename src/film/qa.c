@@ -16,6 +16,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <cairo-pdf.h>
 #include <cairo.h>
 #include <fontconfig/fontconfig.h>
 #include <nettle/base64.h>
@@ -90,12 +91,18 @@ static void text(cairo_t *cr, double x, double y, const char *s, double ax, doub
 }
 
 typedef struct cplot {
-    cairo_surface_t *sf;
+    cairo_surface_t *sf; /* NULL when drawing on a page (canvas) */
     cairo_t *cr;
     double w, h, l, r, t, b;
     double x0, x1, y0, y1;
     bool logy;
 } cplot;
+
+/* Where a plot goes when not to its own PNG: a place on a PDF page. */
+typedef struct canvas {
+    cairo_t *cr;
+    double x, y, scale;
+} canvas;
 
 static double X(const cplot *p, double x)
 {
@@ -119,8 +126,9 @@ static double nice_step(double span)
     return s;
 }
 
-static bool plot_begin(cplot *p, double w, double h, double x0, double x1, double y0, double y1,
-                       bool logy, const char *xl, const char *yl, const char *title)
+static bool plot_begin(cplot *p, const canvas *cv, double w, double h, double x0, double x1,
+                       double y0, double y1, bool logy, const char *xl, const char *yl,
+                       const char *title)
 {
     memset(p, 0, sizeof *p);
     if (!(x1 > x0)) {
@@ -135,13 +143,21 @@ static bool plot_begin(cplot *p, double w, double h, double x0, double x1, doubl
         y1 += 1;
     }
     *p = (cplot){NULL, NULL, w, h, 58, 14, 24, 40, x0, x1, y0, y1, logy};
-    p->sf = cairo_image_surface_create(CAIRO_FORMAT_RGB24, (int)w, (int)h);
-    p->cr = cairo_create(p->sf);
-    if (cairo_status(p->cr) != CAIRO_STATUS_SUCCESS)
-        return false;
+    if (cv) {
+        p->cr = cv->cr;
+        cairo_save(p->cr);
+        cairo_translate(p->cr, cv->x, cv->y);
+        cairo_scale(p->cr, cv->scale, cv->scale);
+    } else {
+        p->sf = cairo_image_surface_create(CAIRO_FORMAT_RGB24, (int)w, (int)h);
+        p->cr = cairo_create(p->sf);
+        if (cairo_status(p->cr) != CAIRO_STATUS_SUCCESS)
+            return false;
+    }
     cairo_t *cr = p->cr;
     cairo_set_source_rgb(cr, 1, 1, 1);
-    cairo_paint(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_fill(cr);
     cairo_set_line_width(cr, 1);
     /* grid and ticks */
     char buf[32];
@@ -190,7 +206,9 @@ static bool plot_begin(cplot *p, double w, double h, double x0, double x1, doubl
 
 static void plot_end(cplot *p)
 {
-    if (p->cr)
+    if (p->cr && !p->sf)
+        cairo_restore(p->cr);
+    else if (p->cr)
         cairo_destroy(p->cr);
     if (p->sf)
         cairo_surface_destroy(p->sf);
@@ -279,6 +297,109 @@ static void ncell(hdoc *h, xmlNodePtr tr, const char *fmt, double v)
 
 /* ------------------------------------------------ calibration report -- */
 
+/* The three figures of a channel: into the page's grid as PNG, or onto a PDF page from
+ * `top` down. */
+static bool channel_figures(const sl_film_curve *c, const sl_film_channel *ch, hdoc *h,
+                        xmlNodePtr grid, cairo_t *pdf, double top)
+{
+    bool ok = true;
+    /* the curve with its points */
+    double xs[201], yc[2][201];
+    double xlo = 0;
+    for (size_t k = 0; k < ch->npoints; k++)
+        xlo = fmin(xlo, ch->points[k].netod);
+    for (int k = 0; k <= 200; k++) {
+        xs[k] = xlo + (ch->max_netod * 1.02 - xlo) * k / 200.0;
+        for (int f = 0; f < 2; f++)
+            yc[f][k] = ch->forms[f].ok ? sl_film_form_eval((sl_film_form)f, ch->forms[f].theta,
+                                                           xs[k], NULL)
+                                       : NAN;
+    }
+    size_t np = ch->npoints;
+    double *px = malloc(np * sizeof *px), *py = malloc(np * sizeof *py),
+           *pe = malloc(np * sizeof *pe), *pr = malloc(np * sizeof *pr);
+    if (!px || !py || !pe || !pr) {
+        free(px);
+        free(py);
+        free(pe);
+        free(pr);
+        return false;
+    }
+    double rmax = 1;
+    for (size_t k = 0; k < np; k++) {
+        px[k] = ch->points[k].netod;
+        py[k] = ch->points[k].dose_cgy;
+        pe[k] = ch->points[k].dose_sigma_cgy;
+        double fv = sl_film_form_eval((sl_film_form)ch->chosen, ch->forms[ch->chosen].theta,
+                                      px[k], NULL);
+        pr[k] = py[k] - fv;
+        rmax = fmax(rmax, fabs(pr[k]) * 1.2);
+    }
+    cplot p = {0};
+    char title[128];
+    snprintf(title, sizeof title, "%s: dose against netOD (solid: chosen, dashed: other)",
+             sl_film_channel_name(ch->channel));
+    if (plot_begin(&p, pdf ? &(canvas){pdf, 90, top, 0.75} : NULL, 420, 300, xlo, ch->max_netod * 1.05, 0, ch->max_dose_cgy * 1.08,
+                   false, "net optical density", "dose (cGy)", title)) {
+        for (int f = 0; f < 2; f++)
+            if (ch->forms[f].ok)
+                plot_curve(&p, xs, yc[f], 201, 0.1, 0.37, 0.62, f != ch->chosen);
+        plot_points(&p, px, py, NULL, np, 0.7, 0.15, 0.12);
+        if (!pdf) {
+            cairo_surface_flush(p.sf);
+            ok = ok && put_image(h, grid, p.sf, title);
+        }
+    }
+    plot_end(&p);
+    snprintf(title, sizeof title, "%s: residuals of the chosen form (bars: 1 sigma)",
+             sl_film_channel_name(ch->channel));
+    if (plot_begin(&p, pdf ? &(canvas){pdf, 90, top + 235, 0.75} : NULL, 420, 300, 0, ch->max_dose_cgy * 1.05, -rmax, rmax, false,
+                   "dose given (cGy)", "given - curve (cGy)", title)) {
+        plot_hline(&p, 0, 0.3, 0.3, 0.3);
+        plot_points(&p, py, pr, pe, np, 0.7, 0.15, 0.12);
+        if (!pdf) {
+            cairo_surface_flush(p.sf);
+            ok = ok && put_image(h, grid, p.sf, title);
+        }
+    }
+    plot_end(&p);
+    /* dose uncertainty against dose, for a reading of the stated area */
+    double m = c->reading_area_cm2 / (c->pixel_cm * c->pixel_cm);
+    double sd = ch->pixel_rel_sd / LN10 / sqrt(m);
+    double ud[200], ur[200];
+    size_t nu = 0;
+    for (int k = 1; k <= 200; k++) {
+        double x = ch->max_netod * k / 200.0, sg;
+        double d = sl_film_dose(ch, x, sd, &sg);
+        if (isfinite(d) && d > 0) {
+            ud[nu] = d;
+            ur[nu++] = 100 * sg / d;
+        }
+    }
+    snprintf(title, sizeof title, "%s: relative standard uncertainty of a %g cm2 reading",
+             sl_film_channel_name(ch->channel), c->reading_area_cm2);
+    double umax = 1, dmin = ch->max_dose_cgy;
+    for (size_t k = 0; k < nu; k++) {
+        umax = fmax(umax, ur[k]);
+        dmin = fmin(dmin, ud[k]);
+    }
+    if (nu && plot_begin(&p, pdf ? &(canvas){pdf, 90, top + 470, 0.75} : NULL, 420, 300, 0, ch->max_dose_cgy, 0.1, umax, true, "dose (cGy)",
+                         "uncertainty (% of the dose)", title)) {
+        plot_curve(&p, ud, ur, nu, 0.1, 0.37, 0.62, false);
+        plot_hline(&p, 100 * c->resolve_fraction, 0.7, 0.15, 0.12);
+        if (!pdf) {
+            cairo_surface_flush(p.sf);
+            ok = ok && put_image(h, grid, p.sf, title);
+        }
+    }
+    plot_end(&p);
+    free(px);
+    free(py);
+    free(pe);
+    free(pr);
+    return ok;
+}
+
 sl_status sl_film_curve_report(const sl_film_curve *c, FILE *fp, sl_error *err)
 {
     hdoc h;
@@ -345,93 +466,13 @@ sl_status sl_film_curve_report(const sl_film_curve *c, FILE *fp, sl_error *err)
             ncell(&h, tr, "%.4g", ff->aicc);
             hel(&h, tr, "td", f == ch->chosen ? "yes" : "");
         }
-        /* the curve with its points */
-        double xs[201], yc[2][201];
-        double xlo = 0;
-        for (size_t k = 0; k < ch->npoints; k++)
-            xlo = fmin(xlo, ch->points[k].netod);
-        for (int k = 0; k <= 200; k++) {
-            xs[k] = xlo + (ch->max_netod * 1.02 - xlo) * k / 200.0;
-            for (int f = 0; f < 2; f++)
-                yc[f][k] = ch->forms[f].ok ? sl_film_form_eval((sl_film_form)f, ch->forms[f].theta,
-                                                               xs[k], NULL)
-                                           : NAN;
-        }
-        size_t np = ch->npoints;
-        double *px = malloc(np * sizeof *px), *py = malloc(np * sizeof *py),
-               *pe = malloc(np * sizeof *pe), *pr = malloc(np * sizeof *pr);
-        if (!px || !py || !pe || !pr) {
-            free(px);
-            free(py);
-            free(pe);
-            free(pr);
+        xmlNodePtr grid = hel(&h, h.body, "div", NULL);
+        hattr(&h, grid, "class", "grid");
+        if (!channel_figures(c, ch, &h, grid, NULL, 0)) {
             hdoc_free(&h);
             return sl_error_set(err, SL_ENOMEM, "out of memory");
         }
-        double rmax = 1;
-        for (size_t k = 0; k < np; k++) {
-            px[k] = ch->points[k].netod;
-            py[k] = ch->points[k].dose_cgy;
-            pe[k] = ch->points[k].dose_sigma_cgy;
-            double fv = sl_film_form_eval((sl_film_form)ch->chosen, ch->forms[ch->chosen].theta,
-                                          px[k], NULL);
-            pr[k] = py[k] - fv;
-            rmax = fmax(rmax, fabs(pr[k]) * 1.2);
-        }
-        xmlNodePtr grid = hel(&h, h.body, "div", NULL);
-        hattr(&h, grid, "class", "grid");
-        cplot p = {0};
-        char title[128];
-        snprintf(title, sizeof title, "%s: dose against netOD (solid: chosen, dashed: other)",
-                 sl_film_channel_name(ch->channel));
-        if (plot_begin(&p, 420, 300, xlo, ch->max_netod * 1.05, 0, ch->max_dose_cgy * 1.08,
-                       false, "net optical density", "dose (cGy)", title)) {
-            for (int f = 0; f < 2; f++)
-                if (ch->forms[f].ok)
-                    plot_curve(&p, xs, yc[f], 201, 0.1, 0.37, 0.62, f != ch->chosen);
-            plot_points(&p, px, py, NULL, np, 0.7, 0.15, 0.12);
-            cairo_surface_flush(p.sf);
-            put_image(&h, grid, p.sf, title);
-        }
-        plot_end(&p);
-        snprintf(title, sizeof title, "%s: residuals of the chosen form (bars: 1 sigma)",
-                 sl_film_channel_name(ch->channel));
-        if (plot_begin(&p, 420, 300, 0, ch->max_dose_cgy * 1.05, -rmax, rmax, false,
-                       "dose given (cGy)", "given - curve (cGy)", title)) {
-            plot_hline(&p, 0, 0.3, 0.3, 0.3);
-            plot_points(&p, py, pr, pe, np, 0.7, 0.15, 0.12);
-            cairo_surface_flush(p.sf);
-            put_image(&h, grid, p.sf, title);
-        }
-        plot_end(&p);
-        /* dose uncertainty against dose, for a reading of the stated area */
-        double m = c->reading_area_cm2 / (c->pixel_cm * c->pixel_cm);
-        double sd = ch->pixel_rel_sd / LN10 / sqrt(m);
-        double ud[200], ur[200];
-        size_t nu = 0;
-        for (int k = 1; k <= 200; k++) {
-            double x = ch->max_netod * k / 200.0, sg;
-            double d = sl_film_dose(ch, x, sd, &sg);
-            if (isfinite(d) && d > 0) {
-                ud[nu] = d;
-                ur[nu++] = 100 * sg / d;
-            }
-        }
-        snprintf(title, sizeof title, "%s: relative standard uncertainty of a %g cm2 reading",
-                 sl_film_channel_name(ch->channel), c->reading_area_cm2);
-        double umax = 1, dmin = ch->max_dose_cgy;
-        for (size_t k = 0; k < nu; k++) {
-            umax = fmax(umax, ur[k]);
-            dmin = fmin(dmin, ud[k]);
-        }
-        if (nu && plot_begin(&p, 420, 300, 0, ch->max_dose_cgy, 0.1, umax, true, "dose (cGy)",
-                             "uncertainty (% of the dose)", title)) {
-            plot_curve(&p, ud, ur, nu, 0.1, 0.37, 0.62, false);
-            plot_hline(&p, 100 * c->resolve_fraction, 0.7, 0.15, 0.12);
-            cairo_surface_flush(p.sf);
-            put_image(&h, grid, p.sf, title);
-        }
-        plot_end(&p);
+        size_t np = ch->npoints;
         xmlNodePtr pt = hel(&h, h.body, "table", NULL);
         const char *ph[] = {"piece", "dose (cGy)", "pixel value", "netOD", "netOD sigma",
                             "weight sigma (cGy)", "curve (cGy)", "check"};
@@ -452,12 +493,110 @@ sl_status sl_film_curve_report(const sl_film_curve *c, FILE *fp, sl_error *err)
                 hel(&h, tr, "td", "beyond the range");
             hel(&h, tr, "td", q->held_out ? "held out" : "");
         }
-        free(px);
-        free(py);
-        free(pe);
-        free(pr);
     }
     return hdoc_write(&h, fp, err);
+}
+
+static cairo_status_t file_write(void *closure, const unsigned char *data, unsigned int n)
+{
+    return fwrite(data, 1, n, closure) == n ? CAIRO_STATUS_SUCCESS : CAIRO_STATUS_WRITE_ERROR;
+}
+
+/* A paragraph wrapped to width w from (x, y); returns the y below it. */
+static double para(cairo_t *cr, double x, double y, double w, const char *text, const char *font)
+{
+    PangoLayout *lay = pango_cairo_create_layout(cr);
+    PangoFontDescription *fd = pango_font_description_from_string(font);
+    pango_layout_set_font_description(lay, fd);
+    pango_font_description_free(fd);
+    pango_layout_set_width(lay, (int)(w * PANGO_SCALE));
+    pango_layout_set_wrap(lay, PANGO_WRAP_WORD_CHAR);
+    pango_layout_set_text(lay, text, -1);
+    cairo_set_source_rgb(cr, 0, 0, 0);
+    cairo_move_to(cr, x, y);
+    pango_cairo_show_layout(cr, lay);
+    int pw, ph;
+    pango_layout_get_pixel_size(lay, &pw, &ph);
+    g_object_unref(lay);
+    return y + ph + 4;
+}
+
+sl_status sl_film_curve_report_pdf(const sl_film_curve *c, FILE *fp, sl_error *err)
+{
+    /* A4 in points */
+    cairo_surface_t *sf = cairo_pdf_surface_create_for_stream(file_write, fp, 595.276, 841.89);
+    cairo_t *cr = cairo_create(sf);
+    const double x = 50, w = 495;
+    char line[1024];
+    double y = para(cr, x, 40, w, "Film calibration", "DejaVu Sans Bold 15");
+    if (c->notice)
+        y = para(cr, x, y, w, c->notice, "DejaVu Sans Bold 9");
+    y = para(cr, x, y + 4, w,
+             "Film dosimetry for commissioning measurements. The numbers are only as good as the "
+             "scans, the calibration doses and the handling of the film: check them against an "
+             "independent measurement, follow local protocols and have a qualified medical "
+             "physicist review them before any model built from them is used.",
+             "DejaVu Sans 9");
+    const char *rows[][2] = {
+        {"calibration set", c->source}, {"SHA-256", c->sha256},
+        {"film lot", c->lot},           {"film", c->film ? c->film : "-"},
+        {"scanner", c->scanner},        {"scan settings", c->scan_settings ? c->scan_settings : "-"},
+        {"exposed", c->exposed ? c->exposed : "-"}, {"scanned", c->scanned},
+        {"created", c->created},        {"strayline", c->tool_version},
+        {"channel used", sl_film_channel_name(c->channel)},
+    };
+    y += 6;
+    for (size_t i = 0; i < sizeof rows / sizeof rows[0]; i++) {
+        snprintf(line, sizeof line, "%s: %s", rows[i][0], rows[i][1]);
+        y = para(cr, x, y, w, line, "DejaVu Sans 9");
+    }
+    snprintf(line, sizeof line,
+             "Net optical density netOD = log10(PV0 / PV), PV0 the robust mean pixel value of the "
+             "unexposed pieces (AAPM TG-235). Forms: power D = a netOD + b netOD^n (Devic et al. "
+             "2004); rational D = c + b / (10^-netOD - a) (the scanner response of Lewis et al. "
+             "2012). The lower AICc wins. Lowest resolvable dose: where the standard uncertainty "
+             "of a reading of %g cm2 is %g times the dose.",
+             c->reading_area_cm2, c->resolve_fraction);
+    y = para(cr, x, y + 6, w, line, "DejaVu Sans 9");
+    for (size_t i = 0; i < c->notes.count && y < 780; i++) {
+        snprintf(line, sizeof line, "Warning: %s", c->notes.items[i]);
+        y = para(cr, x, y, w, line, "DejaVu Sans 9");
+    }
+    bool ok = true;
+    for (int i = 0; i < c->nchannels; i++) {
+        const sl_film_channel *ch = &c->ch[i];
+        cairo_show_page(cr);
+        snprintf(line, sizeof line, "The %s channel%s", sl_film_channel_name(ch->channel),
+                 ch->channel == c->channel ? " (used)" : "");
+        y = para(cr, x, 40, w, line, "DejaVu Sans Bold 12");
+        if (ch->chosen < 0) {
+            para(cr, x, y, w, "Not fitted (see the warnings).", "DejaVu Sans 9");
+            continue;
+        }
+        const sl_film_formfit *ff = &ch->forms[ch->chosen];
+        snprintf(line, sizeof line,
+                 "%s form (AICc %.4g; the other form %s%.4g): parameters %.5g, %.5g, %.5g. "
+                 "Lowest resolvable dose %.3g cGy; calibrated to %g cGy.",
+                 sl_film_form_name((sl_film_form)ch->chosen), ff->aicc,
+                 ch->forms[1 - ch->chosen].ok ? "" : "not fitted, ",
+                 ch->forms[1 - ch->chosen].aicc, ff->theta[0], ff->theta[1], ff->theta[2],
+                 ch->lowest_dose_cgy, ch->max_dose_cgy);
+        y = para(cr, x, y, w, line, "DejaVu Sans 9");
+        ok = ok && channel_figures(c, ch, NULL, NULL, cr, y + 4);
+    }
+    cairo_show_page(cr);
+    cairo_status_t cs = cairo_status(cr);
+    cairo_destroy(cr);
+    cairo_surface_finish(sf);
+    if (cs == CAIRO_STATUS_SUCCESS)
+        cs = cairo_surface_status(sf);
+    cairo_surface_destroy(sf);
+    if (!ok)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    if (cs != CAIRO_STATUS_SUCCESS)
+        return sl_error_set(err, SL_EIO, "the PDF report could not be written: %s",
+                            cairo_status_to_string(cs));
+    return SL_OK;
 }
 
 /* ------------------------------------------------------ QA page -- */
@@ -465,15 +604,73 @@ sl_status sl_film_curve_report(const sl_film_curve *c, FILE *fp, sl_error *err)
 /* Scan (grey levels of the channel) or dose map (isodose bands with their
  * boundaries drawn) at most `maxw` pixels wide, with the field centre and
  * the bands sampled drawn over it. */
+/* A box mean of half-width hw pixels over the finite values (two running-sum passes, so
+ * the cost does not grow with hw); NAN stays NAN. For the picture only: isodose lines of
+ * single noisy pixels would hide the field. */
+static float *smooth_dose(const float *d, size_t w, size_t h, size_t hw)
+{
+    float *tmp = malloc(w * h * sizeof *tmp), *out = malloc(w * h * sizeof *out);
+    float *cnt = malloc(w * h * sizeof *cnt);
+    if (!tmp || !out || !cnt) {
+        free(tmp);
+        free(out);
+        free(cnt);
+        return NULL;
+    }
+    for (size_t y = 0; y < h; y++) {
+        double s = 0, n = 0;
+        const float *row = d + y * w;
+        for (size_t x = 0; x < w + hw; x++) {
+            if (x < w && !isnan(row[x])) {
+                s += row[x];
+                n++;
+            }
+            if (x >= 2 * hw + 1 && !isnan(row[x - 2 * hw - 1])) {
+                s -= row[x - 2 * hw - 1];
+                n--;
+            }
+            if (x >= hw) {
+                tmp[y * w + x - hw] = (float)s;
+                cnt[y * w + x - hw] = (float)n;
+            }
+        }
+    }
+    for (size_t x = 0; x < w; x++) {
+        double s = 0, n = 0;
+        for (size_t y = 0; y < h + hw; y++) {
+            if (y < h) {
+                s += tmp[y * w + x];
+                n += cnt[y * w + x];
+            }
+            if (y >= 2 * hw + 1) {
+                s -= tmp[(y - 2 * hw - 1) * w + x];
+                n -= cnt[(y - 2 * hw - 1) * w + x];
+            }
+            if (y >= hw) {
+                size_t i = (y - hw) * w + x;
+                out[i] = isnan(d[i]) || n < 0.5 ? NAN : (float)(s / n);
+            }
+        }
+    }
+    free(tmp);
+    free(cnt);
+    return out;
+}
+
 static cairo_surface_t *film_picture(const film_result *r, const sl_film_curve *c, bool dose,
                                      double *scale_out)
 {
     const sl_film_scan *s = r->scan;
-    double scale = fmin(1.0, 460.0 / (double)(s->width > s->height ? s->width : s->height));
+    double scale = 460.0 / (double)(s->width > s->height ? s->width : s->height);
+    size_t hw = (size_t)fmax(1, lround(0.1 / s->pixel_cm));
+    float *sm = dose ? smooth_dose(r->dose, s->width, s->height, hw) : NULL;
+    const float *dm = sm ? sm : r->dose;
     int W = (int)fmax(1, floor(s->width * scale)), H = (int)fmax(1, floor(s->height * scale));
     cairo_surface_t *sf = cairo_image_surface_create(CAIRO_FORMAT_RGB24, W, H);
-    if (cairo_surface_status(sf) != CAIRO_STATUS_SUCCESS)
+    if (cairo_surface_status(sf) != CAIRO_STATUS_SUCCESS) {
+        free(sm);
         return sf;
+    }
     cairo_surface_flush(sf);
     unsigned char *data = cairo_image_surface_get_data(sf);
     int stride = cairo_image_surface_get_stride(sf);
@@ -510,14 +707,14 @@ static cairo_surface_t *film_picture(const film_result *r, const sl_film_curve *
             size_t bx1 = (size_t)((x + 1) / scale), by1 = (size_t)((y + 1) / scale);
             for (size_t yy = (size_t)(y / scale); yy < by1 && yy < s->height; yy++)
                 for (size_t xx = (size_t)(x / scale); xx < bx1 && xx < s->width; xx++) {
-                    float v = r->dose[yy * s->width + xx];
+                    float v = dm[yy * s->width + xx];
                     nall++;
                     if (!isnan(v)) {
                         sum += v;
                         nn++;
                     }
                 }
-            float d = nn && 2 * nn >= nall ? (float)(sum / (double)nn) : r->dose[sy * s->width + sx];
+            float d = nn && 2 * nn >= nall ? (float)(sum / (double)nn) : dm[sy * s->width + sx];
             int b = 9;
             if (isnan(d))
                 b = 0;
@@ -538,6 +735,7 @@ static cairo_surface_t *film_picture(const film_result *r, const sl_film_curve *
                 if (band[y * W + x] != band[y * W + x + 1] || band[y * W + x] != band[(y + 1) * W + x])
                     *((uint32_t *)(data + (size_t)y * stride) + x) = 0x202020;
     free(band);
+    free(sm);
     cairo_surface_mark_dirty(sf);
     cairo_t *cr = cairo_create(sf);
     /* centre and sampled bands */
@@ -619,7 +817,8 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
         "Left: the scan (the calibrated channel), the field centre (cross) and the bands "
         "sampled. Right: the dose map in isodose bands of 90, 50, 20, 10, 5, 2, 1, 0.5 and "
         "0.2 % of the dose on the axis (of the central-axis maximum when the axis is above the "
-        "calibrated range; darkest red: above the range), with the band boundaries drawn.");
+        "calibrated range; darkest red: above the range), with the band boundaries drawn; for "
+        "the picture only, the map is averaged over 0.2 cm squares.");
     for (size_t i = 0; i < r->nlines; i++) {
         const film_line *L = &r->lines[i];
         size_t n = (size_t)(L->kmax - L->kmin + 1);
@@ -646,7 +845,7 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
         snprintf(pt, sizeof pt, "%s profile: %zu points below the lowest dose, %zu above the range",
                  dnames[L->direction], L->dropped_low, L->dropped_high);
         if (isfinite(ymin) &&
-            plot_begin(&p, 620, 320, x[0], x[n - 1], ymin, ymax, true, "off-axis position (cm)",
+            plot_begin(&p, NULL, 620, 320, x[0], x[n - 1], ymin, ymax, true, "off-axis position (cm)",
                        "dose (% of the central-axis maximum)", pt)) {
             plot_points(&p, x, y, e, n, 0.7, 0.15, 0.12);
             plot_hline(&p, 50 * (isfinite(r->cax_dose_cgy) ? r->cax_dose_cgy : NAN) /

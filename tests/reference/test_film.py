@@ -26,6 +26,7 @@ known response (the rational scanner response of Lewis et al., Med Phys 39:6339
 import html.parser
 import math
 import os
+import re
 import shutil
 import unittest
 
@@ -222,6 +223,19 @@ class Calibration(unittest.TestCase):
         self.assertIn("qualified medical physicist", text)
         self.assertIn("INVENTED", text)
         self.assertNotIn("<path", text)  # figures are cairo's PNGs, not hand-made SVG
+
+    def test_pdf_report(self):
+        """--pdf: a PDF (its header) of one page of summary and one a channel, drawn by
+        cairo (its producer string)."""
+        pdf = os.path.join(self.c.dir, "calibration.pdf")
+        rc, out, err = run("film", "calibrate", self.c.cal, "-o",
+                           os.path.join(self.c.dir, "curve2.yaml"), "--pdf", pdf)
+        self.assertEqual(rc, 0, err)
+        with open(pdf, "rb") as f:
+            data = f.read()
+        self.assertTrue(data.startswith(b"%PDF-"))
+        self.assertIn(b"cairo", data)
+        self.assertEqual(len(re.findall(rb"/Type\s*/Page\b", data)), 4)
 
     def test_summary_line(self):
         self.assertIn("red   channel: rational form", self.c.calib_out)
