@@ -491,6 +491,20 @@ typedef struct merged {
     double stat_rel, stat_floor;
 } merged;
 
+/* A file name made of the profile's names: anything but letters, digits, '-', '_' and
+ * '.' becomes '_', so that an applicator called "../x" cannot leave the output folder. */
+static void profile_name(const film_spec *f, int direction, char *buf, size_t size)
+{
+    snprintf(buf, size, "e%02g_%s_%s_d%.2f_%s.csv", f->energy_mev, f->applicator, f->insert,
+             f->depth_cm, dir_names[direction]);
+    for (char *c = buf; *c; c++)
+        if (!((*c >= 'a' && *c <= 'z') || (*c >= 'A' && *c <= 'Z') || (*c >= '0' && *c <= '9') ||
+              *c == '-' || *c == '_' || *c == '.'))
+            *c = '_';
+    if (buf[0] == '.')
+        buf[0] = '_';
+}
+
 static bool same_profile(const film_spec *a, const film_spec *b)
 {
     return a->energy_mev == b->energy_mev && strcmp(a->applicator, b->applicator) == 0 &&
@@ -974,15 +988,15 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             free(ps);
             goto done;
         }
-        snprintf(M->file, sizeof M->file, "profiles/e%02g_%s_%s_d%.2f_%s.csv", f0->energy_mev,
-                 f0->applicator, f0->insert, f0->depth_cm, dir_names[M->direction]);
+        char base[200];
+        profile_name(f0, M->direction, base, sizeof base);
+        snprintf(M->file, sizeof M->file, "profiles/%s", base);
         /* each point's own uncertainty, beside: the fit's CSV has two columns */
         {
             double *rel = malloc(2 * len * sizeof *rel);
             size_t nr = 0;
             char pname[300];
-            snprintf(pname, sizeof pname, "points/e%02g_%s_%s_d%.2f_%s.csv", f0->energy_mev,
-                     f0->applicator, f0->insert, f0->depth_cm, dir_names[M->direction]);
+            snprintf(pname, sizeof pname, "points/%s", base);
             char *pp = path_join(opt->out_dir, pname);
             sl_outfile pf = {0};
             if (!rel || !pp) {
