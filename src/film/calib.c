@@ -21,7 +21,7 @@
  * max(1, chi2/dof). A form whose curve is not increasing over the
  * calibrated range is refused.
  */
-#include "strayline/film.h"
+#include "film_internal.h"
 #include "strayline/fit.h"
 #include "strayline/version.h"
 #include "strayline/yamlio.h"
@@ -284,7 +284,6 @@ static char *join_dir(const char *dir, const char *file)
     return p;
 }
 
-char *sl_film_join_dir_of(const char *base, const char *file);
 char *sl_film_join_dir_of(const char *base, const char *file)
 {
     char *copy = strdup(base);
@@ -333,10 +332,30 @@ static int parse_channel(const char *s)
     return -1;
 }
 
-int sl_film_parse_channel(const char *s);
 int sl_film_parse_channel(const char *s)
 {
     return parse_channel(s);
+}
+
+sl_status sl_film_check_format(sl_yaml *y, const char *want, sl_error *err)
+{
+    /* The format first, so that a file of another kind is named as such rather than by the
+       first key it lacks. */
+    yaml_node_t *root = sl_yaml_root(y);
+    if (!root || root->type != YAML_MAPPING_NODE)
+        return SL_OK; /* sl_yaml_fields says what is wrong */
+    for (yaml_node_pair_t *p = root->data.mapping.pairs.start; p < root->data.mapping.pairs.top;
+         p++) {
+        yaml_node_t *k = yaml_document_get_node(&y->doc, p->key);
+        yaml_node_t *v = yaml_document_get_node(&y->doc, p->value);
+        if (k && k->type == YAML_SCALAR_NODE && strcmp((const char *)k->data.scalar.value,
+                                                       "format") == 0 &&
+            v && v->type == YAML_SCALAR_NODE &&
+            strcmp((const char *)v->data.scalar.value, want) != 0)
+            return sl_yaml_error(y, v, err, "format: '%s' is not %s", v->data.scalar.value,
+                                 want);
+    }
+    return SL_OK;
 }
 
 static sl_status opt_string(sl_yaml *y, yaml_node_t *n, const char *what, char **out,
@@ -632,7 +651,8 @@ sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,
         {"exposed", false, NULL}, {"scanned", true, NULL},        {"channel", false, NULL},
         {"pieces", true, NULL},
     };
-    if ((st = sl_yaml_fields(&y, sl_yaml_root(&y), "calibration set", f, 10, err)) != SL_OK)
+    if ((st = sl_film_check_format(&y, "strayline-film-calibration", err)) != SL_OK ||
+        (st = sl_yaml_fields(&y, sl_yaml_root(&y), "calibration set", f, 10, err)) != SL_OK)
         goto done;
     int ver = 0;
     if ((st = sl_yaml_string(&y, f[0].node, "format", &fmt, err)) != SL_OK)
@@ -1061,7 +1081,8 @@ sl_status sl_film_curve_load(const char *path, sl_film_curve **out, sl_error *er
         {"channels", true, NULL},   {"pieces", true, NULL},
         {"warnings", true, NULL},
     };
-    if ((st = sl_yaml_fields(&y, sl_yaml_root(&y), "curve", f, 17, err)) != SL_OK ||
+    if ((st = sl_film_check_format(&y, "strayline-film-curve", err)) != SL_OK ||
+        (st = sl_yaml_fields(&y, sl_yaml_root(&y), "curve", f, 17, err)) != SL_OK ||
         (st = sl_yaml_string(&y, f[0].node, "format", &fmt, err)) != SL_OK)
         goto done;
     if (strcmp(fmt, "strayline-film-curve") != 0) {

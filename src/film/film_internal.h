@@ -6,9 +6,12 @@
 #define STRAYLINE_FILM_INTERNAL_H
 
 #include "strayline/film.h"
+#include "strayline/yamlio.h"
 
 char *sl_film_join_dir_of(const char *base, const char *file);
 int sl_film_parse_channel(const char *s);
+/* A YAML file whose `format` is another kind's: an error naming it. */
+sl_status sl_film_check_format(sl_yaml *y, const char *want, sl_error *err);
 
 enum { SL_DIR_CROSSPLANE = 0, SL_DIR_INPLANE = 1, SL_DIR_DIAGONAL = 2 };
 

@@ -539,7 +539,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         {"measurement_set", true, NULL}, {"films", true, NULL},
     };
     char *fmt = NULL;
-    if ((st = sl_yaml_fields(&y, sl_yaml_root(&y), "film set", f, 10, err)) != SL_OK ||
+    if ((st = sl_film_check_format(&y, "strayline-films", err)) != SL_OK ||
+        (st = sl_yaml_fields(&y, sl_yaml_root(&y), "film set", f, 10, err)) != SL_OK ||
         (st = sl_yaml_string(&y, f[0].node, "format", &fmt, err)) != SL_OK)
         goto done;
     if (strcmp(fmt, "strayline-films") != 0) {

@@ -570,7 +570,7 @@ class BadFilmInput(unittest.TestCase):
     def test_curve_not_a_curve(self):
         rc, out, err = run("film", "profile", self.c.films, "--curve", self.c.cal, "--out",
                            os.path.join(self.c.dir, "x"))
-        self.refused((rc, out, err), "calibration.yaml", "curve")
+        self.refused((rc, out, err), "calibration.yaml", "is not strayline-film-curve")
 
     def test_usage(self):
         rc, out, err = run("film", "calibrate", self.c.cal)
