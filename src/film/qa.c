@@ -732,8 +732,14 @@ static cairo_surface_t *film_picture(const film_result *r, const sl_film_curve *
     if (dose && band)
         for (int y = 0; y + 1 < H; y++)
             for (int x = 0; x + 1 < W; x++)
-                if (band[y * W + x] != band[y * W + x + 1] || band[y * W + x] != band[(y + 1) * W + x])
-                    *((uint32_t *)(data + (size_t)y * stride) + x) = 0x202020;
+                if (band[y * W + x] != band[y * W + x + 1] ||
+                    band[y * W + x] != band[(y + 1) * W + x]) {
+                    /* the 50 % line (the field found) in blue, the others dark */
+                    bool in = band[y * W + x] <= 1, r = band[y * W + x + 1] <= 1,
+                         d = band[(y + 1) * W + x] <= 1;
+                    *((uint32_t *)(data + (size_t)y * stride) + x) =
+                        in != r || in != d ? 0x1b5ee0 : 0x202020;
+                }
     free(band);
     free(sm);
     cairo_surface_mark_dirty(sf);
@@ -817,8 +823,9 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
         "Left: the scan (the calibrated channel), the field centre (cross) and the bands "
         "sampled. Right: the dose map in isodose bands of 90, 50, 20, 10, 5, 2, 1, 0.5 and "
         "0.2 % of the dose on the axis (of the central-axis maximum when the axis is above the "
-        "calibrated range; darkest red: above the range), with the band boundaries drawn; for "
-        "the picture only, the map is averaged over 0.2 cm squares.");
+        "calibrated range; darkest red: above the range), with the band boundaries drawn (the "
+        "50 % line, the field found, in blue); for the picture only, the map is averaged over "
+        "0.2 cm squares.");
     for (size_t i = 0; i < r->nlines; i++) {
         const film_line *L = &r->lines[i];
         size_t n = (size_t)(L->kmax - L->kmin + 1);
