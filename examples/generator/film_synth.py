@@ -55,9 +55,12 @@ def write_tiff(path, pixels, dpi=None, compression="zlib"):
 
 
 def calibration_scan(path, doses, dpi=150, piece_cm=1.2, pitch_cm=1.6, columns=4, seed=1,
-                     noise=0.004, uniformity=0.001):
+                     noise=0.004, uniformity=0.001, noise_seed=None, gain=1.0):
     """One scan holding a grid of calibration pieces on unexposed film. Returns the regions
-    [x, y, width, height] in cm (the inner 70 % of each piece) in the order of `doses`."""
+    [x, y, width, height] in cm (the inner 70 % of each piece) in the order of `doses`.
+    Each piece's own factor (the film's non-uniformity, `uniformity`) comes from `seed`, so
+    a scan of the same pieces before exposure (doses all 0, another `noise_seed`) has the
+    same factors; `gain` scales the whole scan (a scanner's drift between sessions)."""
     rng = np.random.default_rng(seed)
     rows = (len(doses) + columns - 1) // columns
     px = 2.54 / dpi
@@ -77,7 +80,9 @@ def calibration_scan(path, doses, dpi=150, piece_cm=1.2, pitch_cm=1.6, columns=4
         m = 0.15 * piece_cm
         regions.append([round(x0 + m, 4), round(y0 + m, 4), round(piece_cm - 2 * m, 4),
                         round(piece_cm - 2 * m, 4)])
-    write_tiff(path, pixel_values(dose, rng, noise, factor), dpi=dpi)
+    if noise_seed is not None:
+        rng = np.random.default_rng(noise_seed)
+    write_tiff(path, pixel_values(dose, rng, noise, factor * gain), dpi=dpi)
     return regions
 
 

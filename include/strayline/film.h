@@ -138,6 +138,10 @@ typedef struct sl_film_piece {
     bool held_out;
     long x0, y0, x1, y1;  /* region, pixels (half-open) */
     sl_film_stats stats[3];
+    char *scan_before;    /* the piece scanned before exposure (NULL: none) */
+    char *path_before;
+    char sha256_before[SL_SHA256_HEX_LEN];
+    sl_film_stats before[3];
     size_t line;
 } sl_film_piece;
 
@@ -156,6 +160,7 @@ typedef struct sl_film_curve {
     int bits;
     size_t npieces;
     sl_film_piece *pieces;
+    bool pre_scans;       /* every piece has a scan before exposure: netOD per piece */
     sl_notes notes;
 } sl_film_curve;
 

@@ -110,16 +110,21 @@ static int calibrate(int argc, char **argv)
         goto done;
     }
     /* The scans are inputs too: never written over. */
-    const char **inputs = calloc(curve->npieces + 3, sizeof *inputs);
+    /* inputs: the set, each piece's scan (and its scan before exposure), then the outputs */
+    size_t ni = 1 + curve->npieces * (curve->pre_scans ? 2 : 1);
+    const char **inputs = calloc(ni + 2, sizeof *inputs);
     if (!inputs) {
         fprintf(stderr, "strayline: out of memory\n");
         rc = SL_EXIT_INTERNAL;
         goto done;
     }
     inputs[0] = input;
-    for (size_t i = 0; i < curve->npieces; i++)
+    for (size_t i = 0; i < curve->npieces; i++) {
         inputs[i + 1] = curve->pieces[i].path;
-    if (sl_outfile_open(&out, output, inputs, curve->npieces + 1, &err) != SL_OK ||
+        if (curve->pre_scans)
+            inputs[curve->npieces + i + 1] = curve->pieces[i].path_before;
+    }
+    if (sl_outfile_open(&out, output, inputs, ni, &err) != SL_OK ||
         sl_film_curve_write(curve, out.fp, &err) != SL_OK ||
         sl_outfile_commit(&out, &err) != SL_OK) {
         sl_outfile_abort(&out);
@@ -128,8 +133,8 @@ static int calibrate(int argc, char **argv)
         goto done;
     }
     if (report) {
-        inputs[curve->npieces + 1] = output;
-        if (sl_outfile_open(&rep, report, inputs, curve->npieces + 2, &err) != SL_OK ||
+        inputs[ni] = output;
+        if (sl_outfile_open(&rep, report, inputs, ni + 1, &err) != SL_OK ||
             sl_film_curve_report(curve, rep.fp, &err) != SL_OK ||
             sl_outfile_commit(&rep, &err) != SL_OK) {
             sl_outfile_abort(&rep);
@@ -139,10 +144,10 @@ static int calibrate(int argc, char **argv)
         }
     }
     if (pdf) {
-        inputs[curve->npieces + 1] = output;
-        inputs[curve->npieces + 2] = report;
+        inputs[ni] = output;
+        inputs[ni + 1] = report;
         sl_outfile pf = {0};
-        if (sl_outfile_open(&pf, pdf, inputs, curve->npieces + (report ? 3 : 2), &err) != SL_OK ||
+        if (sl_outfile_open(&pf, pdf, inputs, ni + (report ? 2 : 1), &err) != SL_OK ||
             sl_film_curve_report_pdf(curve, pf.fp, &err) != SL_OK ||
             sl_outfile_commit(&pf, &err) != SL_OK) {
             sl_outfile_abort(&pf);

@@ -313,6 +313,8 @@ void sl_film_curve_free(sl_film_curve *c)
     for (size_t i = 0; i < c->npieces; i++) {
         free(c->pieces[i].scan);
         free(c->pieces[i].path);
+        free(c->pieces[i].scan_before);
+        free(c->pieces[i].path_before);
     }
     free(c->pieces);
     sl_notes_free(&c->notes);
@@ -473,6 +475,23 @@ static sl_status fit_channel(sl_film_curve *c, int chi, int channel, bool strict
     ch->points = calloc(c->npieces, sizeof *ch->points);
     if (!ch->points)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
+    /* With scans before exposure, each piece's netOD is against its own unexposed reading,
+       less the change the unexposed pieces show between the two sessions (the scanner's
+       drift), so that piece-to-piece differences of the film cancel. */
+    double drift = 0, drift_var = 0;
+    if (c->pre_scans) {
+        double d1 = 0, d2 = 0;
+        for (size_t i = 0; i < c->npieces; i++) {
+            const sl_film_piece *p = &c->pieces[i];
+            if (p->dose_cgy == 0 && !p->held_out) {
+                double v = log10(p->before[si].mean / p->stats[si].mean);
+                d1 += v;
+                d2 += v * v;
+            }
+        }
+        drift = d1 / (double)k0;
+        drift_var = k0 >= 2 ? fmax(0, (d2 - k0 * drift * drift) / (double)(k0 - 1)) / k0 : 0;
+    }
     for (size_t i = 0; i < c->npieces; i++) {
         const sl_film_piece *p = &c->pieces[i];
         const sl_film_stats *s = &p->stats[si];
@@ -480,8 +499,16 @@ static sl_status fit_channel(sl_film_curve *c, int chi, int channel, bool strict
         q->piece = i;
         q->dose_cgy = p->dose_cgy;
         q->held_out = p->held_out;
-        q->netod = log10(ch->pv0 / s->mean);
-        q->netod_sigma = sqrt(pow(s->sem / s->mean, 2) + pow(ch->pv0_sem / ch->pv0, 2)) / LN10;
+        if (c->pre_scans) {
+            const sl_film_stats *b = &p->before[si];
+            q->netod = log10(b->mean / s->mean) - drift;
+            q->netod_sigma = sqrt((pow(s->sem / s->mean, 2) + pow(b->sem / b->mean, 2)) /
+                                      (LN10 * LN10) +
+                                  drift_var);
+        } else {
+            q->netod = log10(ch->pv0 / s->mean);
+            q->netod_sigma = sqrt(pow(s->sem / s->mean, 2) + pow(ch->pv0_sem / ch->pv0, 2)) / LN10;
+        }
     }
     ch->npoints = c->npieces;
     qsort(ch->points, ch->npoints, sizeof *ch->points, cmp_point);
@@ -723,8 +750,10 @@ sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,
         p->line = pn ? pn->start_mark.line + 1 : 0;
         sl_yaml_field pf[] = {{"scan", true, NULL},      {"dose_cgy", true, NULL},
                               {"region_cm", false, NULL}, {"region_px", false, NULL},
-                              {"check", false, NULL}};
-        if ((st = sl_yaml_fields(&y, pn, what, pf, 5, err)) != SL_OK ||
+                              {"check", false, NULL},    {"scan_before", false, NULL},
+                              {"region_before_cm", false, NULL},
+                              {"region_before_px", false, NULL}};
+        if ((st = sl_yaml_fields(&y, pn, what, pf, 8, err)) != SL_OK ||
             (st = sl_yaml_string(&y, pf[0].node, "scan", &p->scan, err)) != SL_OK ||
             (st = sl_yaml_number_in(&y, pf[1].node, "dose_cgy", 0, 1e5, &p->dose_cgy, err)) !=
                 SL_OK ||
@@ -774,6 +803,69 @@ sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,
                 sl_error_prefix(err, pre);
                 goto done;
             }
+        }
+        /* the piece before exposure: all pieces or none */
+        if (i == 0)
+            c->pre_scans = pf[5].node != NULL;
+        else if (c->pre_scans != (pf[5].node != NULL)) {
+            st = sl_yaml_error(&y, pn, err,
+                               "%s: scan_before: every piece or none must have a scan before "
+                               "exposure",
+                               what);
+            goto done;
+        }
+        if (!pf[5].node && (pf[6].node || pf[7].node)) {
+            st = sl_yaml_error(&y, pn, err, "%s: a region before exposure without scan_before",
+                               what);
+            goto done;
+        }
+        if (pf[5].node) {
+            if (pf[6].node && pf[7].node) {
+                st = sl_yaml_error(&y, pn, err,
+                                   "%s: region_before_cm and region_before_px: one of them", what);
+                goto done;
+            }
+            if ((st = sl_yaml_string(&y, pf[5].node, "scan_before", &p->scan_before, err)) !=
+                SL_OK)
+                goto done;
+            if (!(p->path_before = sl_film_join_dir_of(path, p->scan_before))) {
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                goto done;
+            }
+            sl_film_scan *sb;
+            if ((st = cache_get(&cache, p->path_before, opt ? opt->dpi : 0, &sb, err)) != SL_OK) {
+                sl_error_prefix(err, path);
+                goto done;
+            }
+            memcpy(p->sha256_before, sb->sha256, sizeof p->sha256_before);
+            if (sb->channels != channels || sb->bits != c->bits) {
+                st = sl_yaml_error(&y, pf[5].node, err,
+                                   "scan_before: %s has %d channels of %d bits, the first scan %d "
+                                   "of %d",
+                                   sb->path, sb->channels, sb->bits, channels, c->bits);
+                goto done;
+            }
+            long rb[4] = {r[0], r[1], r[2], r[3]};
+            yaml_node_t *rn = pf[6].node ? pf[6].node : pf[7].node;
+            if (rn && (st = read_region(&y, rn, pf[6].node != NULL, sb->pixel_cm, sb, rb, err)) !=
+                          SL_OK)
+                goto done;
+            if (!rn && (rb[2] > (long)sb->width || rb[3] > (long)sb->height)) {
+                st = sl_yaml_error(&y, pf[5].node, err,
+                                   "scan_before: the piece's region lies outside %s (give "
+                                   "region_before_cm)",
+                                   sb->path);
+                goto done;
+            }
+            for (int ch = 0; ch < channels; ch++)
+                if ((st = sl_film_region_stats(sb, channels == 1 ? SL_FILM_GREY : ch, rb[0], rb[1],
+                                               rb[2], rb[3], &p->before[ch], err)) != SL_OK) {
+                    char pre[512];
+                    snprintf(pre, sizeof pre, "%s:%zu: %s (%s, before exposure)", path, p->line,
+                             what, p->scan_before);
+                    sl_error_prefix(err, pre);
+                    goto done;
+                }
         }
     }
     if (channels == 1 && c->channel != SL_FILM_GREY) {
@@ -900,6 +992,19 @@ sl_status sl_film_curve_write(const sl_film_curve *c, FILE *fp, sl_error *err)
         sl_yaml_kv_string(&w, "sha256", c->pieces[i].sha256);
         sl_yaml_map_end(&w);
     }
+    for (size_t i = 0; c->pre_scans && i < c->npieces; i++) {
+        bool seen = false;
+        for (size_t j = 0; j < i; j++)
+            seen |= strcmp(c->pieces[j].path_before, c->pieces[i].path_before) == 0;
+        for (size_t j = 0; j < c->npieces; j++)
+            seen |= strcmp(c->pieces[j].path, c->pieces[i].path_before) == 0;
+        if (seen)
+            continue;
+        sl_yaml_map_begin(&w, true);
+        sl_yaml_kv_string(&w, "file", c->pieces[i].scan_before);
+        sl_yaml_kv_string(&w, "sha256", c->pieces[i].sha256_before);
+        sl_yaml_map_end(&w);
+    }
     sl_yaml_seq_end(&w);
     sl_yaml_map_end(&w);
     sl_yaml_key(&w, "film");
@@ -917,7 +1022,10 @@ sl_status sl_film_curve_write(const sl_film_curve *c, FILE *fp, sl_error *err)
     sl_yaml_kv_int(&w, "bits", c->bits);
     sl_yaml_kv_number(&w, "pixel_cm", c->pixel_cm);
     sl_yaml_kv_string(&w, "channel", sl_film_channel_name(c->channel));
-    sl_yaml_kv_string(&w, "net_optical_density", "log10(PV_unexposed / PV)");
+    sl_yaml_kv_string(&w, "net_optical_density",
+                      c->pre_scans ? "log10(PV_before / PV) of each piece, less that of the "
+                                     "unexposed pieces"
+                                   : "log10(PV_unexposed / PV)");
     sl_yaml_key(&w, "lowest_dose_rule");
     sl_yaml_map_begin(&w, false);
     sl_yaml_kv_number(&w, "uncertainty_fraction", c->resolve_fraction);

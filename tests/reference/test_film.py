@@ -242,6 +242,83 @@ class Calibration(unittest.TestCase):
         self.assertIn("(used)", self.c.calib_out)
 
 
+class PreExposureScans(unittest.TestCase):
+    """Pieces that differ by 0.5 % in their unexposed pixel value (the film
+    non-uniformity) and a scanner 0.5 % brighter in the second session: with a scan of
+    each piece before exposure, netOD = log10(PV_before/PV) less the unexposed pieces'
+    change (recomputed here with numpy) cancels both, and the pieces scatter less about
+    the curve than when read against the unexposed pieces alone."""
+
+    @classmethod
+    def setUpClass(cls):
+        cls.tmpctx = tempdir()
+        d = cls.tmpctx.name
+        os.makedirs(os.path.join(d, "scans"))
+        doses = make_films.CAL_DOSES[:13]
+        kw = dict(dpi=100, seed=21, uniformity=0.005)
+        regions = film_synth.calibration_scan(os.path.join(d, "scans", "after.tif"), doses,
+                                              noise_seed=22, gain=1.005, **kw)
+        film_synth.calibration_scan(os.path.join(d, "scans", "before.tif"), [0] * len(doses),
+                                    noise_seed=23, **kw)
+        cal = load(os.path.join(SOURCE_ROOT, "examples", "commissioning", "film-demo",
+                                "calibration.yaml"))
+        cal["pieces"] = [{"scan": "scans/after.tif", "dose_cgy": dd, "region_cm": r,
+                          "scan_before": "scans/before.tif"} for dd, r in zip(doses, regions)]
+        cls.cal = cal
+        for name, c in (("with", cal), ("without", dict(cal, pieces=[
+                {k: v for k, v in p.items() if k != "scan_before"} for p in cal["pieces"]]))):
+            path = os.path.join(d, name + ".yaml")
+            with open(path, "w") as f:
+                yaml.safe_dump(c, f)
+            rc, out, err = run("film", "calibrate", path, "-o", os.path.join(d, name + ".curve"))
+            if rc != 0:
+                raise AssertionError(err)
+        cls.with_ = load(os.path.join(d, "with.curve"))
+        cls.without = load(os.path.join(d, "without.curve"))
+        cls.dir = d
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmpctx.cleanup()
+
+    def red(self, curve):
+        return [ch for ch in curve["channels"] if ch["channel"] == "red"][0]
+
+    def test_netod_by_numpy(self):
+        after = tifffile.imread(os.path.join(self.dir, "scans", "after.tif"))[:, :, 0]
+        before = tifffile.imread(os.path.join(self.dir, "scans", "before.tif"))[:, :, 0]
+        px = 2.54 / 100
+        od = []
+        for p in self.cal["pieces"]:
+            x, y, w, h = p["region_cm"]
+            sl = (slice(rint(y / px), rint((y + h) / px)), slice(rint(x / px), rint((x + w) / px)))
+            od.append(math.log10(robust(before[sl])[0] / robust(after[sl])[0]))
+        drift = np.mean([o for o, p in zip(od, self.cal["pieces"]) if p["dose_cgy"] == 0])
+        for q in self.red(self.with_)["points"]:
+            self.assertAlmostEqual(q["netod"], od[q["piece"] - 1] - drift, delta=1e-9)
+        self.assertIn("PV_before", self.with_["net_optical_density"])
+        files = [s["file"] for s in self.with_["provenance"]["scans"]]
+        self.assertEqual(files, ["scans/after.tif", "scans/before.tif"])
+
+    def test_scatter_cancels(self):
+        a, b = self.red(self.with_), self.red(self.without)
+        self.assertLess(a["netod_scatter"], 0.5 * b["netod_scatter"])
+        fa = [f for f in a["forms"] if f["chosen"]][0]
+        fb = [f for f in b["forms"] if f["chosen"]][0]
+        self.assertLess(fa["chisq"], fb["chisq"])
+
+    def test_all_or_none(self):
+        cal = dict(self.cal, pieces=[dict(p) for p in self.cal["pieces"]])
+        del cal["pieces"][4]["scan_before"]
+        path = os.path.join(self.dir, "mixed.yaml")
+        with open(path, "w") as f:
+            yaml.safe_dump(cal, f)
+        rc, out, err = run("film", "calibrate", path, "-o", os.path.join(self.dir, "m.curve"))
+        self.assertEqual(rc, 3)
+        self.assertIn("mixed.yaml", err)
+        self.assertIn("every piece or none", err)
+
+
 class Profiles(unittest.TestCase):
     @classmethod
     def setUpClass(cls):
