@@ -8,7 +8,8 @@
  *   calibration: pieces of one film lot given known doses are scanned; per
  *   colour channel the robust mean pixel value of a region of each piece
  *   gives the net optical density netOD = log10(PV_unexposed / PV) (AAPM
- *   TG-235), and a curve dose = f(netOD) is fitted with GSL in two published
+ *   TG-235; against each piece's own scan before exposure when there is
+ *   one), and a curve dose = f(netOD) is fitted with GSL in two published
  *   forms (the power form of Devic et al. 2004 and the rational scanner
  *   response of Lewis et al. 2012), the lower AICc winning, with the
  *   parameter covariance and the lowest dose the calibration resolves;
@@ -212,8 +213,10 @@ typedef struct sl_film_run_summary {
     sl_notes notes;
 } sl_film_run_summary;
 
-/* Read a film set and a curve, write the profile CSV files under DIR/profiles, DIR/measurements.yaml,
- * DIR/films.yaml (what was found) and DIR/qa/<film>.html. */
+/* Read a film set and a curve, write the profile CSV files under DIR/profiles (the same
+ * points with their uncertainty under DIR/points), DIR/measurements.yaml, DIR/films.yaml
+ * (what was found) and DIR/qa/<film>.html. Output files are written atomically; the
+ * measurement set is read back as `strayline fit` reads it before it is written. */
 sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options *opt,
                            sl_film_run_summary *sum, sl_error *err);
 void sl_film_run_summary_free(sl_film_run_summary *s);
