@@ -37,6 +37,7 @@ int sl_cmd_locate(int argc, char **argv);
 int sl_cmd_fit(int argc, char **argv);
 int sl_cmd_model(int argc, char **argv);
 int sl_cmd_estimate(int argc, char **argv);
+int sl_cmd_film(int argc, char **argv);
 
 /* The command being run (set once by main before dispatch): every message
  * starts "strayline COMMAND: ". */

@@ -30,6 +30,7 @@ static const sl_command commands[] = {
     {"model", "show or evaluate a model file", sl_cmd_model},
     {"estimate", "estimate organ out-of-field doses and compare with action levels",
      sl_cmd_estimate},
+    {"film", "film dosimetry: calibrate film scans, turn film scans into profiles", sl_cmd_film},
 };
 
 static void usage(FILE *fp)

@@ -1,0 +1,51 @@
+/*
+ * Private declarations shared by the film module's files: what the profile
+ * stage found on one film, handed to the QA page writer (qa.c).
+ */
+#ifndef STRAYLINE_FILM_INTERNAL_H
+#define STRAYLINE_FILM_INTERNAL_H
+
+#include "strayline/film.h"
+#include "strayline/yamlio.h"
+
+char *sl_film_join_dir_of(const char *base, const char *file);
+int sl_film_parse_channel(const char *s);
+/* A YAML file whose `format` is another kind's: an error naming it. */
+sl_status sl_film_check_format(sl_yaml *y, const char *want, sl_error *err);
+
+enum { SL_DIR_CROSSPLANE = 0, SL_DIR_INPLANE = 1, SL_DIR_DIAGONAL = 2 };
+
+/* One profile sampled on one film: off-axis positions k * step (cm). */
+typedef struct film_line {
+    int direction;
+    double ux, uy;        /* unit vector of the line in image pixels (x right, y down) */
+    long kmin, kmax;      /* grid indices sampled */
+    double *dose_cgy;     /* per index (kmax - kmin + 1), NAN where not resolved */
+    double *sigma_cgy;
+    size_t dropped_low, dropped_high;
+} film_line;
+
+typedef struct film_result {
+    const char *id, *scan_name;
+    const sl_film_scan *scan;
+    const float *dose;      /* dose map, cGy, NAN where not resolved */
+    double max_dose_cgy;    /* the curve's calibrated top */
+    double cx, cy;          /* field centre, pixels */
+    double angle_deg;       /* crossplane axis from the image axis it was declared along */
+    double cax_dose_cgy;    /* NAN when above the calibrated range */
+    double threshold_cgy;   /* the isodose level the field was found at */
+    bool cax_saturated;
+    double band_cm, step_cm;
+    double cax_reference_cgy, monitor_units;
+    double control_pv;      /* the unexposed control piece's pixel value, NAN without one */
+    double energy_mev, depth_cm;
+    const char *applicator, *insert;
+    size_t nlines;
+    film_line lines[3];
+} film_result;
+
+/* Write the QA page of one film. */
+sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *curve, FILE *fp,
+                          sl_error *err);
+
+#endif
