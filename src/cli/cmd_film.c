@@ -94,7 +94,7 @@ static int calibrate(int argc, char **argv)
             break;
         case OPT_CREATED: o.created = optarg; break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("film calibrate", "bad option");
+        default: return sl_cli_bad_option(argv, opts, "o:r:h");
         }
     }
     if (argc - optind != 1)
@@ -214,7 +214,7 @@ static int profile(int argc, char **argv)
             break;
         case OPT_CREATED: o.created = optarg; break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("film profile", "bad option");
+        default: return sl_cli_bad_option(argv, opts, "h");
         }
     }
     if (argc - optind != 1)
