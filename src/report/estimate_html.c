@@ -1,11 +1,12 @@
 /*
  * The HTML report of `estimate --html`: one self-contained file (a libxml2
- * tree with inline SVG; no external reference), printable on A4 or Letter.
- * It shows the cautions first, the organ table with statuses in words, the
- * advice, and for each beam a beam's-eye view (field and applicator
- * outlines, the organs' projections, rings at 1, 2, 5 and 10 cm from the
- * field edge) and the dose against distance with its uncertainty band and
- * the organs marked, then a dose-volume histogram for each organ.
+ * tree with inline SVG drawn by the figure code; no external reference).
+ * It opens with the verdict box (each organ that needs attention, a
+ * measurement, or was not judged or found, with a shape cue beside the
+ * colour) and every what-if banner, then the organ tables (cGy; a fetus in
+ * mGy), the generic cautions and inputs, the advice with sources, and for
+ * each beam its beam's-eye view and the dose against distance at each
+ * judged organ's own depth, then a dose-volume histogram for each organ.
  */
 #include "strayline/report.h"
 #include "strayline/version.h"
