@@ -127,6 +127,29 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     if (!hdoc_new(&h, "strayline: out-of-field dose screening estimate", sl_report_css))
         return sl_error_set(err, SL_ENOMEM, "out of memory building the HTML report");
     xmlNodePtr b = h.body;
+    {
+        /* printed pages name the patient and count themselves (CSS paged
+         * media margin boxes); the names go in as CSS strings, escaped */
+        char pid[400], esc[900], css[1400];
+        snprintf(pid, sizeof pid, "Patient %s, ID %s; plan %s",
+                 p->patient_name ? p->patient_name : "-", p->patient_id ? p->patient_id : "-",
+                 p->label ? p->label : "-");
+        size_t k = 0;
+        for (const char *c = pid; *c && k + 8 < sizeof esc; c++) {
+            if (*c == '"' || *c == '\\' || (unsigned char)*c < 0x20)
+                k += (size_t)snprintf(esc + k, sizeof esc - k, "\\%02x ", (unsigned char)*c);
+            else
+                esc[k++] = *c;
+        }
+        esc[k] = '\0';
+        snprintf(css, sizeof css,
+                 "@page{@top-left{content:\"strayline screening estimate\";font-size:8pt}"
+                 "@top-right{content:\"%s\";font-size:8pt}"
+                 "@bottom-right{content:\"page \" counter(page) \" of \" counter(pages);"
+                 "font-size:8pt}}",
+                 esc);
+        hel(&h, h.head, "style", css);
+    }
     hel(&h, b, "h1", "Out-of-field dose: screening estimate");
     helf(&h, b, "p", "Patient %s, ID %s; plan %s; model %s (version %s).",
          p->patient_name ? p->patient_name : "-", p->patient_id ? p->patient_id : "-",

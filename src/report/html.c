@@ -32,7 +32,7 @@ const char sl_report_css[] =
     "svg{display:block;margin:.3em 0;background:#fff}"
     "svg text{font-family:'DejaVu Sans',Arial,sans-serif;font-size:11px;fill:#111}"
     "@media print{body{max-width:none;margin:0;font-size:9.5pt}"
-    "h2{break-after:avoid}section,figure,table,svg{break-inside:avoid}"
+    "h2,h3{break-after:avoid}section,figure,table,svg{break-inside:avoid}"
     ".noprint{display:none}a{color:#111;text-decoration:none}}"
     "@page{size:A4;margin:14mm}";
 

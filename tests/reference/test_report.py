@@ -127,6 +127,19 @@ class WhatIfs(unittest.TestCase):
         self.assertNotIn("[what-if]", out)
 
 
+class HtmlPrint(unittest.TestCase):
+    def test_printed_pages_name_the_patient(self):
+        """CSS paged media (W3C css-page-3 margin boxes): every printed page of
+        the HTML names the patient and counts itself."""
+        with tempdir() as d:
+            html = os.path.join(d, "r.html")
+            run(*case_args("face-lens"), "--html", html)
+            page = open(html, encoding="utf-8").read()
+            self.assertIn('@top-right{content:"Patient DEMO^LENS, ID DEMO-LENS-01', page)
+            self.assertIn('counter(page) " of " counter(pages)', page)
+            self.assertLess(page.index('id="verdict"'), page.index('id="cautions"'))
+
+
 class UnitsAndNumbers(unittest.TestCase):
     def test_no_exponent_and_one_unit_a_table(self):
         for case in CASES:
