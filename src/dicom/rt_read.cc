@@ -22,6 +22,8 @@
 #include <dcmtk/oflog/oflog.h>
 
 #include <cctype>
+#include <cfloat>
+#include <charconv>
 #include <cerrno>
 #include <cmath>
 #include <cstdlib>
@@ -58,38 +60,53 @@ void quiet_dcmtk()
     });
 }
 
-/* The DICOM grammar of a Decimal String value (PS3.5 6.2): optional leading
- * and trailing spaces, an optional sign, digits with an optional decimal
- * point, an optional exponent. */
-bool ds_grammar(const std::string &v, std::string &core)
+/* One Decimal String value [b, e), checked against the DICOM grammar
+ * (PS3.5 6.2: optional leading and trailing spaces, an optional sign, digits
+ * with an optional decimal point, an optional exponent) and converted in
+ * place. std::from_chars is exact (correctly rounded, as strtod) and
+ * needs no locale, copy or allocation. Out of range (overflow, or underflow
+ * to zero or a subnormal) is refused as sl_parse_double refuses it. */
+bool ds_convert(const char *b, const char *e, double &out)
 {
-    size_t b = v.find_first_not_of(' '), e = v.find_last_not_of(' ');
-    if (b == std::string::npos)
+    while (b < e && *b == ' ')
+        b++;
+    while (e > b && e[-1] == ' ')
+        e--;
+    if (b == e)
         return false;
-    core = v.substr(b, e - b + 1);
-    size_t i = 0, n = core.size(), digits = 0;
-    if (i < n && (core[i] == '+' || core[i] == '-'))
-        i++;
-    while (i < n && isdigit(static_cast<unsigned char>(core[i])))
-        i++, digits++;
-    if (i < n && core[i] == '.') {
-        i++;
-        while (i < n && isdigit(static_cast<unsigned char>(core[i])))
-            i++, digits++;
+    const char *p = b;
+    size_t digits = 0;
+    if (*p == '+' || *p == '-')
+        p++;
+    while (p < e && *p >= '0' && *p <= '9')
+        p++, digits++;
+    if (p < e && *p == '.') {
+        p++;
+        while (p < e && *p >= '0' && *p <= '9')
+            p++, digits++;
     }
     if (digits == 0)
         return false;
-    if (i < n && (core[i] == 'e' || core[i] == 'E')) {
-        i++;
-        if (i < n && (core[i] == '+' || core[i] == '-'))
-            i++;
+    if (p < e && (*p == 'e' || *p == 'E')) {
+        p++;
+        if (p < e && (*p == '+' || *p == '-'))
+            p++;
         size_t ed = 0;
-        while (i < n && isdigit(static_cast<unsigned char>(core[i])))
-            i++, ed++;
+        while (p < e && *p >= '0' && *p <= '9')
+            p++, ed++;
         if (ed == 0)
             return false;
     }
-    return i == n;
+    if (p != e)
+        return false;
+    double d = 0;
+    std::from_chars_result r = std::from_chars(*b == '+' ? b + 1 : b, e, d);
+    if (r.ec != std::errc() || r.ptr != e || !std::isfinite(d))
+        return false;
+    if (d != 0 && std::fabs(d) < DBL_MIN)
+        return false; /* subnormal: strtod says ERANGE */
+    out = d;
+    return true;
 }
 
 /* An Integer String value: optional spaces, an optional sign, digits; the
@@ -183,6 +200,48 @@ public:
         return item->findAndGetElement(key, el).good() && el && el->getLength() > 0;
     }
 
+    /* Every value of a DS element, from its raw characters read once: each
+     * value checked against the DS grammar and converted where it lies, with
+     * no copy and no allocation per number (a structure set holds millions).
+     * The count of values is DCMTK's (delimiters + 1 over the raw value), so
+     * that a value lost to stray padding is still an error. */
+    template <typename Where>
+    void ds_values(DcmElement *el, Where where, std::vector<double> &out)
+    {
+        char *chars = nullptr;
+        Uint32 nchars = 0;
+        if (el->getString(chars, nchars).bad() || (!chars && nchars))
+            fail(SL_EINPUT, where(), "cannot read the values");
+        if (!chars || nchars == 0)
+            return;
+        const char *s = chars, *end = chars + nchars;
+        size_t vm = 1 + static_cast<size_t>(std::count(s, end, '\\'));
+        if (vm > 100000000UL)
+            fail(SL_EINPUT, where(), "too many values");
+        while (end > s && (end[-1] == ' ' || end[-1] == '\0'))
+            end--; /* the padding to an even length */
+        out.reserve(vm);
+        const char *b = s;
+        for (size_t i = 0; i < vm; i++) {
+            const char *q = static_cast<const char *>(memchr(b, '\\', static_cast<size_t>(end - b)));
+            if (!q)
+                q = end;
+            if (i + 1 < vm && q == end)
+                fail(SL_EINPUT, where(), "could not read every value");
+            double d;
+            if (!ds_convert(b, q, d)) {
+                std::string v(b, static_cast<size_t>(q - b));
+                std::string shown = v.size() > 40 ? v.substr(0, 40) + "..." : v;
+                fail(SL_EINPUT, where(),
+                     "value " + std::to_string(i + 1) + " '" + shown +
+                         "' is not a decimal string (DS: optional sign, digits, decimal point, "
+                         "exponent)");
+            }
+            out.push_back(d);
+            b = q < end ? q + 1 : end;
+        }
+    }
+
     /* All numeric values of an element (DS, IS, FD, FL, US, SS, UL, SL). */
     std::vector<double> nums(DcmItem *item, const DcmTagKey &key, const std::string &ctx)
     {
@@ -190,12 +249,18 @@ public:
         DcmElement *el = nullptr;
         if (item->findAndGetElement(key, el).bad() || !el || el->getLength() == 0)
             return out;
-        const std::string where = at(ctx, key);
+        /* the element's place in messages, built only for a message: the
+         * dictionary lookup behind it would otherwise run for every contour */
+        auto where = [&]() { return at(ctx, key); };
         DcmEVR vr = el->ident();
+        if (vr == EVR_DS) {
+            ds_values(el, where, out);
+            return out;
+        }
         unsigned long vm = el->getVM();
         if (vm > 100000000UL)
-            fail(SL_EINPUT, where, "too many values");
-        if (vr == EVR_DS || vr == EVR_IS) {
+            fail(SL_EINPUT, where(), "too many values");
+        if (vr == EVR_IS) {
             /* every value read whole and strictly: a value that merely starts
              * like a number ("1e2" as an IS, "3 50", "45deg", "1,5") must not
              * become one */
@@ -204,7 +269,7 @@ public:
             char *chars = nullptr;
             Uint32 nchars = 0;
             if (el->getString(chars, nchars).bad() || (!chars && nchars))
-                fail(SL_EINPUT, where, "cannot read the values");
+                fail(SL_EINPUT, where(), "cannot read the values");
             std::string all(chars ? chars : "", chars ? nchars : 0);
             while (!all.empty() && (all.back() == ' ' || all.back() == '\0'))
                 all.pop_back(); /* the padding to an even length */
@@ -215,27 +280,17 @@ public:
                 if (to == std::string::npos)
                     to = all.length();
                 if (i + 1 < vm && to == all.length())
-                    fail(SL_EINPUT, where, "could not read every value");
-                std::string v(all.c_str() + from, to - from), core;
+                    fail(SL_EINPUT, where(), "could not read every value");
+                std::string v(all.c_str() + from, to - from);
                 from = to + 1;
                 std::string shown = v.size() > 40 ? v.substr(0, 40) + "..." : v;
-                if (vr == EVR_DS) {
-                    double d;
-                    if (!ds_grammar(v, core) || !sl_parse_double(core.c_str(), &d))
-                        fail(SL_EINPUT, where,
-                             "value " + std::to_string(i + 1) + " '" + shown +
-                                 "' is not a decimal string (DS: optional sign, digits, "
-                                 "decimal point, exponent)");
-                    out.push_back(d);
-                } else {
-                    long long k;
-                    if (!is_grammar(v, k))
-                        fail(SL_EINPUT, where,
-                             "value " + std::to_string(i + 1) + " '" + shown +
-                                 "' is not an integer string (IS: optional sign and digits, "
-                                 "-2147483648 to 2147483647)");
-                    out.push_back(static_cast<double>(k));
-                }
+                long long k;
+                if (!is_grammar(v, k))
+                    fail(SL_EINPUT, where(),
+                         "value " + std::to_string(i + 1) + " '" + shown +
+                             "' is not an integer string (IS: optional sign and digits, "
+                             "-2147483648 to 2147483647)");
+                out.push_back(static_cast<double>(k));
             }
         } else {
             out.reserve(vm);
@@ -280,17 +335,17 @@ public:
                     break;
                 }
                 default:
-                    fail(SL_EINPUT, where, std::string("has value representation ") +
+                    fail(SL_EINPUT, where(), std::string("has value representation ") +
                                                DcmVR(vr).getVRName() + ", expected a number");
                 }
                 if (c.bad())
-                    fail(SL_EINPUT, where, "not a valid number");
+                    fail(SL_EINPUT, where(), "not a valid number");
                 out.push_back(d);
             }
         }
         for (double d : out) {
             if (!std::isfinite(d))
-                fail(SL_EINPUT, where, "value is not a finite number");
+                fail(SL_EINPUT, where(), "value is not a finite number");
         }
         return out;
     }
