@@ -204,23 +204,26 @@ public:
      * value checked against the DS grammar and converted where it lies, with
      * no copy and no allocation per number (a structure set holds millions).
      * The count of values is DCMTK's (delimiters + 1 over the raw value), so
-     * that a value lost to stray padding is still an error. */
-    template <typename Where>
-    void ds_values(DcmElement *el, Where where, std::vector<double> &out)
+     * that a value lost to stray padding is still an error. begin(count) is
+     * called once before put(i, value) for each value. */
+    template <typename Where, typename Begin, typename Put>
+    void ds_each(DcmElement *el, Where where, Begin begin, Put put)
     {
         char *chars = nullptr;
         Uint32 nchars = 0;
         if (el->getString(chars, nchars).bad() || (!chars && nchars))
             fail(SL_EINPUT, where(), "cannot read the values");
-        if (!chars || nchars == 0)
+        if (!chars || nchars == 0) {
+            begin(static_cast<size_t>(0));
             return;
+        }
         const char *s = chars, *end = chars + nchars;
         size_t vm = 1 + static_cast<size_t>(std::count(s, end, '\\'));
         if (vm > 100000000UL)
             fail(SL_EINPUT, where(), "too many values");
         while (end > s && (end[-1] == ' ' || end[-1] == '\0'))
             end--; /* the padding to an even length */
-        out.reserve(vm);
+        begin(vm);
         const char *b = s;
         for (size_t i = 0; i < vm; i++) {
             const char *q = static_cast<const char *>(memchr(b, '\\', static_cast<size_t>(end - b)));
@@ -237,8 +240,51 @@ public:
                          "' is not a decimal string (DS: optional sign, digits, decimal point, "
                          "exponent)");
             }
-            out.push_back(d);
+            put(i, d);
             b = q < end ? q + 1 : end;
+        }
+    }
+
+    /* Contour Data straight into (x, y, z) points: no vector of doubles in
+     * between, whose pages would be touched twice. *count receives the
+     * number of values; the points (count / 3 rounded up, malloc'd, NULL for
+     * none) are owned by the caller as soon as they are handed over through
+     * `own`, so that they are freed whatever fails next. Another VR than DS
+     * goes through nums(). */
+    template <typename Own>
+    void contour_data(DcmItem *item, const std::string &ctx, size_t *count, Own own)
+    {
+        DcmElement *el = nullptr;
+        *count = 0;
+        if (item->findAndGetElement(DCM_ContourData, el).bad() || !el || el->getLength() == 0)
+            return;
+        auto where = [&]() { return at(ctx, DCM_ContourData); };
+        sl_vec3 *pts = nullptr;
+        auto begin = [&](size_t vm) {
+            *count = vm;
+            if (vm == 0)
+                return;
+            pts = static_cast<sl_vec3 *>(malloc((vm + 2) / 3 * sizeof(sl_vec3)));
+            if (!pts)
+                fail(SL_ENOMEM, "", "out of memory");
+            own(pts);
+        };
+        if (el->ident() == EVR_DS) {
+            ds_each(el, where, begin, [&](size_t i, double d) {
+                sl_vec3 &p = pts[i / 3];
+                switch (i % 3) {
+                case 0: p.x = d; break;
+                case 1: p.y = d; break;
+                default: p.z = d; break;
+                }
+            });
+            return;
+        }
+        std::vector<double> v = nums(item, DCM_ContourData, ctx);
+        begin(v.size());
+        for (size_t i = 0; i < v.size(); i++) {
+            sl_vec3 &p = pts[i / 3];
+            (i % 3 == 0 ? p.x : i % 3 == 1 ? p.y : p.z) = v[i];
         }
     }
 
@@ -254,7 +300,9 @@ public:
         auto where = [&]() { return at(ctx, key); };
         DcmEVR vr = el->ident();
         if (vr == EVR_DS) {
-            ds_values(el, where, out);
+            ds_each(
+                el, where, [&](size_t vm) { out.reserve(vm); },
+                [&](size_t, double d) { out.push_back(d); });
             return out;
         }
         unsigned long vm = el->getVM();
@@ -841,17 +889,18 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                        "the structure set holds more than " +
                            std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
                            " contour points, more than strayline accepts");
-            std::vector<double> data = r.nums(cs[j], DCM_ContourData, cctx);
-            if (data.empty())
+            size_t nvalues = 0;
+            r.contour_data(cs[j], cctx, &nvalues, [&](sl_vec3 *p) { c->points = p; });
+            if (nvalues == 0)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData), "missing or empty");
-            if (data.size() % 3 != 0)
+            if (nvalues % 3 != 0)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
-                       "has " + std::to_string(data.size()) +
+                       "has " + std::to_string(nvalues) +
                            " values, not a whole number of (x,y,z) triples");
-            if (n < 1 || static_cast<size_t>(n) * 3 != data.size())
+            if (n < 1 || static_cast<size_t>(n) * 3 != nvalues)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_NumberOfContourPoints),
                        "says " + std::to_string(n) + " points but Contour Data holds " +
-                           std::to_string(data.size() / 3));
+                           std::to_string(nvalues / 3));
             size_t need = c->type == SL_CONTOUR_POINT ? 1
                           : (c->type == SL_CONTOUR_OPEN_PLANAR || c->type == SL_CONTOUR_OPEN_NONPLANAR)
                               ? 2
@@ -864,15 +913,15 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                        "a " + type + " contour needs at least " + std::to_string(need) +
                            " points, found " + std::to_string(n));
             total_points += static_cast<size_t>(n);
-            for (double v : data) {
-                if (std::fabs(v) > 1.0e5)
-                    r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
-                           "coordinate " + std::to_string(v) + " mm is absurd");
+            for (size_t k = 0; k < static_cast<size_t>(n); k++) {
+                const double xyz[3] = {c->points[k].x, c->points[k].y, c->points[k].z};
+                for (double v : xyz) {
+                    if (std::fabs(v) > 1.0e5)
+                        r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
+                               "coordinate " + std::to_string(v) + " mm is absurd");
+                }
             }
             c->npoints = static_cast<size_t>(n);
-            c->points = alloc_array<sl_vec3>(r, c->npoints);
-            for (size_t k = 0; k < c->npoints; k++)
-                c->points[k] = sl_vec3{data[3 * k], data[3 * k + 1], data[3 * k + 2]};
         }
     }
 
@@ -1134,12 +1183,14 @@ void *load_thread(void *arg)
     load_job *j = static_cast<load_job *>(arg);
     try {
         DcmFileFormat ff;
+        /* every value read in the one pass over the file: with DCMTK's
+         * default, each value over 4 KiB (every dense contour) is read
+         * later by opening the file again and seeking to it */
+        const Uint32 whole = OFstatic_cast(Uint32, -1);
         OFCondition cond =
             j->dataset_only
-                ? ff.loadFile(j->path, EXS_LittleEndianExplicit, EGL_noChange, DCM_MaxReadLength,
-                              ERM_dataset)
-                : ff.loadFile(j->path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
-                              ERM_autoDetect);
+                ? ff.loadFile(j->path, EXS_LittleEndianExplicit, EGL_noChange, whole, ERM_dataset)
+                : ff.loadFile(j->path, EXS_Unknown, EGL_noChange, whole, ERM_autoDetect);
         j->st = finish(*j->r, ff, cond, j->out, j->err);
     } catch (const std::bad_alloc &) {
         j->st = sl_error_set(j->err, SL_ENOMEM, "%s: out of memory", j->r->file());
@@ -1258,7 +1309,7 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     if (fd < 0)
         return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
     size_t n = static_cast<size_t>(sb.st_size);
-    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE, fd, 0);
+    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE | MAP_POPULATE, fd, 0);
     close(fd);
     if (map == MAP_FAILED)
         return sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));
