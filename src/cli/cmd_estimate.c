@@ -18,6 +18,7 @@
 #include "strayline/locate.h"
 #include "strayline/machine.h"
 #include "strayline/model.h"
+#include "strayline/rtdose.h"
 #include "strayline/screen.h"
 #include "strayline/util.h"
 
@@ -74,6 +75,16 @@ static const char help[] =
     "                              risks (default: from the plan's Patient's Sex, Birth\n"
     "                              Date and RT Plan Date)\n"
     "      --include-targets       estimate PTV / CTV / GTV ROIs too\n"
+    ;
+
+/* the help in two pieces: ISO C limits one string to 4095 characters */
+static const char help_more[] =
+    "      --tps-dose RTDOSE.dcm   the planning system's dose of this plan (DICOM RT\n"
+    "                              Dose, PLAN summation, or BEAM doses, each beam in\n"
+    "                              one): used within the zone near the fields, the\n"
+    "                              model beyond; the two compared (repeatable)\n"
+    "      --tps-zone CM           the zone of the planning system's dose beyond the\n"
+    "                              field edges (default 3)\n"
     "  -d, --depth CM              a depth for every organ (no body contour)\n"
     "      --allow-mismatch        go on when plan and structure set do not belong\n"
     "                              together (every output says so)\n"
@@ -96,6 +107,8 @@ enum {
     OPT_SEX,
     OPT_TARGETS,
     OPT_MISMATCH,
+    OPT_TPS,
+    OPT_TPS_ZONE,
     OPT_CONCEPTION,
     OPT_OTHER,
     OPT_POINT,
@@ -180,6 +193,8 @@ int sl_cmd_estimate(int argc, char **argv)
         {"include-targets", no_argument, NULL, OPT_TARGETS},
         {"depth", required_argument, NULL, 'd'},
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
+        {"tps-dose", required_argument, NULL, OPT_TPS},
+        {"tps-zone", required_argument, NULL, OPT_TPS_ZONE},
         {"threads", required_argument, NULL, 'j'},
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
@@ -199,7 +214,8 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_other_dose others[MAX_ITEMS];
     sl_screen_point pts[MAX_ITEMS];
     sl_screen_landmark lms[MAX_ITEMS];
-    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0;
+    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0, ntps = 0;
+    const char *tps_paths[MAX_ITEMS];
     double v;
     int c;
     optind = 1;
@@ -355,12 +371,27 @@ int sl_cmd_estimate(int argc, char **argv)
                 return sl_cli_usage("estimate", "--depth needs a depth in cm, not '%s'", optarg);
             break;
         case OPT_MISMATCH: allow_mismatch = true; break;
+        case OPT_TPS:
+            if (ntps == MAX_ITEMS)
+                return sl_cli_usage("estimate", "too many --tps-dose files");
+            tps_paths[ntps++] = optarg;
+            break;
+        case OPT_TPS_ZONE:
+            if (!sl_parse_double(optarg, &v) || v <= 0 || v > 10)
+                return sl_cli_usage("estimate", "--tps-zone needs more than 0 and at most 10 cm, "
+                                                "not '%s'",
+                                    optarg);
+            eopt.tps_zone_cm = v;
+            break;
         case 'j':
             if (!sl_parse_int(optarg, &lopt.threads) || lopt.threads < 1 || lopt.threads > 64)
                 return sl_cli_usage("estimate", "--threads needs a number from 1 to 64");
             eopt.threads = lopt.threads;
             break;
-        case 'h': fputs(help, stdout); return SL_EXIT_OK;
+        case 'h':
+            fputs(help, stdout);
+            fputs(help_more, stdout);
+            return SL_EXIT_OK;
         default: return sl_cli_usage("estimate", "bad option");
         }
     }
@@ -393,6 +424,7 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_structure_set *ss = NULL;
     sl_screen *scr = NULL;
     sl_outfile out = {0};
+    sl_rtdose *tps[MAX_ITEMS] = {0};
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
@@ -402,6 +434,15 @@ int sl_cmd_estimate(int argc, char **argv)
         rc = sl_cli_fail(&err);
         goto done;
     }
+    for (size_t i = 0; i < ntps; i++) {
+        if (sl_rtdose_read(tps_paths[i], &tps[i], &err) != SL_OK) {
+            sl_plan_free(plan);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+    }
+    eopt.tps = (const sl_rtdose *const *)tps;
+    eopt.ntps = ntps;
     sl_screen_request req;
     sl_screen_request_init(&req);
     req.model = model;
@@ -450,6 +491,8 @@ int sl_cmd_estimate(int argc, char **argv)
     }
     rc = scr->as->any_flagged ? SL_EXIT_FLAGGED : SL_EXIT_OK;
 done:
+    for (size_t i = 0; i < ntps; i++)
+        sl_rtdose_free(tps[i]);
     sl_screen_free(scr);
     sl_structure_set_free(ss);
     sl_levels_free(levels);

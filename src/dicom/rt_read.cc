@@ -11,6 +11,7 @@
  */
 #include "strayline/dicom.h"
 #include "strayline/util.h"
+#include "ds_value.h"
 
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dcdeftag.h>
@@ -43,6 +44,8 @@
 
 namespace {
 
+using sl_dicom_internal::ds_convert;
+
 const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
 const char *const UID_RTSTRUCT = "1.2.840.10008.5.1.4.1.1.481.3";
 const char *const UID_RTIONPLAN = "1.2.840.10008.5.1.4.1.1.481.8";
@@ -58,55 +61,6 @@ void quiet_dcmtk()
          * dictionary VR, so that the result does not depend on the encoding. */
         dcmEnableUnknownVRConversion.set(OFTrue);
     });
-}
-
-/* One Decimal String value [b, e), checked against the DICOM grammar
- * (PS3.5 6.2: optional leading and trailing spaces, an optional sign, digits
- * with an optional decimal point, an optional exponent) and converted in
- * place. std::from_chars is exact (correctly rounded, as strtod) and
- * needs no locale, copy or allocation. Out of range (overflow, or underflow
- * to zero or a subnormal) is refused as sl_parse_double refuses it. */
-bool ds_convert(const char *b, const char *e, double &out)
-{
-    while (b < e && *b == ' ')
-        b++;
-    while (e > b && e[-1] == ' ')
-        e--;
-    if (b == e)
-        return false;
-    const char *p = b;
-    size_t digits = 0;
-    if (*p == '+' || *p == '-')
-        p++;
-    while (p < e && *p >= '0' && *p <= '9')
-        p++, digits++;
-    if (p < e && *p == '.') {
-        p++;
-        while (p < e && *p >= '0' && *p <= '9')
-            p++, digits++;
-    }
-    if (digits == 0)
-        return false;
-    if (p < e && (*p == 'e' || *p == 'E')) {
-        p++;
-        if (p < e && (*p == '+' || *p == '-'))
-            p++;
-        size_t ed = 0;
-        while (p < e && *p >= '0' && *p <= '9')
-            p++, ed++;
-        if (ed == 0)
-            return false;
-    }
-    if (p != e)
-        return false;
-    double d = 0;
-    std::from_chars_result r = std::from_chars(*b == '+' ? b + 1 : b, e, d);
-    if (r.ec != std::errc() || r.ptr != e || !std::isfinite(d))
-        return false;
-    if (d != 0 && std::fabs(d) < DBL_MIN)
-        return false; /* subnormal: strtod says ERANGE */
-    out = d;
-    return true;
 }
 
 /* An Integer String value: optional spaces, an optional sign, digits; the
