@@ -229,6 +229,17 @@ void sl_estimate_free(sl_estimate *e);
 sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double distance_cm,
                                    double depth_cm, sl_error *err);
 
+/* The estimate on an axial grid over the body contour (its EXTERNAL ROI):
+ * voxel centres at whole multiples of step_cm, inside the body only (0
+ * outside). Each voxel gets the course dose of every placed beam as an organ
+ * sample there would (the model at its depth and distances, without the
+ * setup shift or what-if shields), or within the zone the planning
+ * system's dose when one is given; a voxel inside a field without it is 0
+ * and counted. Input errors: no EXTERNAL ROI, a grid of more than
+ * SL_RTDOSE_MAX_VOXELS. */
+sl_status sl_estimate_grid(const sl_estimate *e, double step_cm, sl_dose_grid **out,
+                           sl_error *err);
+
 /* Is a ROI of this RT ROI Interpreted Type left out unless asked for? */
 bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why);
 

@@ -66,6 +66,26 @@ sl_status sl_rtdose_check_plan(const sl_rtdose *d, const sl_plan *plan, sl_error
  * centres; NAN outside the grid. */
 double sl_rtdose_at(const sl_rtdose *d, double x_mm, double y_mm, double z_mm);
 
+/* A dose grid to write as RT Dose: axial, even spacing, course dose (Gy)
+ * at voxel centres x0 + i step, y0 + j step, z0 + k step (mm), voxel
+ * (i, j, k) at gy[(k * ny + j) * nx + i]. */
+typedef struct sl_dose_grid {
+    size_t nx, ny, nz;
+    double x0_mm, y0_mm, z0_mm, step_mm;
+    float *gy;
+    size_t in_field_unestimated; /* voxels inside a field with no dose (0 written) */
+    size_t from_tps;             /* voxels whose dose is the planning system's */
+} sl_dose_grid;
+
+void sl_dose_grid_free(sl_dose_grid *g);
+
+/* Write the grid as an RT Dose file at `path` (DCMTK): the patient, study and
+ * Frame of Reference of the plan file `plan_path` (read again for them),
+ * Dose Summation Type PLAN, the plan referenced, Dose Comment "screening
+ * estimate, not a planning dose" and `comment` as its Image Comments. */
+sl_status sl_rtdose_write(const char *path, const char *plan_path, const sl_dose_grid *g,
+                          const char *comment, sl_error *err);
+
 #ifdef __cplusplus
 }
 #endif

@@ -21,6 +21,7 @@
 #include "strayline/rtdose.h"
 #include "strayline/screen.h"
 #include "strayline/util.h"
+#include "strayline/version.h"
 
 static const char help[] =
     "usage: strayline estimate PLAN STRUCTURES --model MODEL.yaml [OPTIONS]\n\n"
@@ -85,6 +86,9 @@ static const char help_more[] =
     "                              model beyond; the two compared (repeatable)\n"
     "      --tps-zone CM           the zone of the planning system's dose beyond the\n"
     "                              field edges (default 3)\n"
+    "      --rtdose-out FILE.dcm   also write the estimate as a DICOM RT Dose over the\n"
+    "                              body contour, in the plan's frame and study\n"
+    "      --rtdose-spacing CM     its grid spacing (default 0.4)\n"
     "  -d, --depth CM              a depth for every organ (no body contour)\n"
     "      --allow-mismatch        go on when plan and structure set do not belong\n"
     "                              together (every output says so)\n"
@@ -109,6 +113,8 @@ enum {
     OPT_MISMATCH,
     OPT_TPS,
     OPT_TPS_ZONE,
+    OPT_RTDOSE_OUT,
+    OPT_RTDOSE_STEP,
     OPT_CONCEPTION,
     OPT_OTHER,
     OPT_POINT,
@@ -195,6 +201,8 @@ int sl_cmd_estimate(int argc, char **argv)
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
         {"tps-dose", required_argument, NULL, OPT_TPS},
         {"tps-zone", required_argument, NULL, OPT_TPS_ZONE},
+        {"rtdose-out", required_argument, NULL, OPT_RTDOSE_OUT},
+        {"rtdose-spacing", required_argument, NULL, OPT_RTDOSE_STEP},
         {"threads", required_argument, NULL, 'j'},
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
@@ -216,6 +224,8 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_screen_landmark lms[MAX_ITEMS];
     size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0, ntps = 0;
     const char *tps_paths[MAX_ITEMS];
+    const char *rtdose_out = NULL;
+    double rtdose_step_cm = 0.4;
     double v;
     int c;
     optind = 1;
@@ -376,6 +386,13 @@ int sl_cmd_estimate(int argc, char **argv)
                 return sl_cli_usage("estimate", "too many --tps-dose files");
             tps_paths[ntps++] = optarg;
             break;
+        case OPT_RTDOSE_OUT: rtdose_out = optarg; break;
+        case OPT_RTDOSE_STEP:
+            if (!sl_parse_double(optarg, &rtdose_step_cm) || rtdose_step_cm < 0.1 ||
+                rtdose_step_cm > 2)
+                return sl_cli_usage("estimate", "--rtdose-spacing needs 0.1 to 2 cm, not '%s'",
+                                    optarg);
+            break;
         case OPT_TPS_ZONE:
             if (!sl_parse_double(optarg, &v) || v <= 0 || v > 10)
                 return sl_cli_usage("estimate", "--tps-zone needs more than 0 and at most 10 cm, "
@@ -470,6 +487,31 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_estimate_report rep = {scr->plan, scr->ss,       scr->loc,      scr->est,
                               scr->as,   model,         levels,        scr->whatifs,
                               scr->nwhatifs};
+    if (rtdose_out) {
+        const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
+        sl_dose_grid *grid = NULL;
+        char comment[1024];
+        snprintf(comment, sizeof comment,
+                 "SCREENING ESTIMATE by strayline %s of the out-of-field dose of the plan's "
+                 "electron beams over the course (Gy), from the model %s; %s. Confirm high "
+                 "values by measurement; local protocols and a qualified medical physicist "
+                 "decide. Each value is rounded up to a multiple of Dose Grid Scaling.",
+                 sl_version(), model_path,
+                 scr->est->tps_used ? "within the zone of the field edges the planning "
+                                      "system's own dose"
+                                    : "voxels inside a field are 0: not estimated");
+        if (sl_estimate_grid(scr->est, rtdose_step_cm, &grid, &err) != SL_OK ||
+            sl_outfile_open(&out, rtdose_out, inputs, 4, &err) != SL_OK ||
+            sl_rtdose_write(out.tmp, plan_path, grid, comment, &err) != SL_OK ||
+            sl_outfile_commit(&out, &err) != SL_OK) {
+            sl_outfile_abort(&out);
+            sl_dose_grid_free(grid);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        sl_dose_grid_free(grid);
+        memset(&out, 0, sizeof out);
+    }
     if (html) {
         const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
         if (sl_outfile_open(&out, html, inputs, 4, &err) != SL_OK ||

@@ -8,6 +8,12 @@
  * the C API. The pixel data are unsigned or signed 16- or 32-bit integers
  * (PS3.3 C.8.8.3.4.1: RT Dose Bits Allocated 16 or 32), scaled by Dose Grid
  * Scaling into Gy.
+ *
+ * It also writes an estimate's dose grid as an RT Dose (PS3.3 A.18: the
+ * Patient, General Study, RT Series, Frame of Reference, General Equipment,
+ * General Image, Image Plane, Image Pixel, Multi-frame, RT Dose and SOP
+ * Common modules), copying the patient, study and frame from the plan file,
+ * so that a viewer shows it over the plan's CT.
  */
 #include "strayline/rtdose.h"
 #include "ds_value.h"
@@ -17,6 +23,7 @@
 #include <dcmtk/dcmdata/dcfilefo.h>
 #include <dcmtk/dcmdata/dcuid.h>
 #include <dcmtk/dcmdata/dcxfer.h>
+#include <dcmtk/dcmdata/dcdatset.h>
 #include <dcmtk/oflog/oflog.h>
 
 #include <cerrno>
@@ -376,6 +383,132 @@ sl_status sl_rtdose_read(const char *path, sl_rtdose **out, sl_error *err)
         return st;
     }
     *out = d;
+    return SL_OK;
+}
+
+static void put(DcmDataset *ds, const DcmTagKey &key, const std::string &v)
+{
+    if (ds->putAndInsertString(key, v.c_str()).bad())
+        throw failure{SL_EINTERNAL};
+}
+
+static std::string fmt(double v)
+{
+    char b[32];
+    snprintf(b, sizeof b, "%.6g", v); /* at most 16 characters for a DS */
+    return b;
+}
+
+sl_status sl_rtdose_write(const char *path, const char *plan_path, const sl_dose_grid *g,
+                          const char *comment, sl_error *err)
+{
+    quiet();
+    try {
+        DcmFileFormat pf;
+        if (pf.loadFile(plan_path).bad())
+            return sl_error_set(err, SL_EINPUT, "%s: cannot be read again for its patient and "
+                                                "study",
+                                plan_path);
+        DcmDataset *plan = pf.getDataset();
+        auto copy = [&](const DcmTagKey &k) {
+            OFString v;
+            plan->findAndGetOFStringArray(k, v);
+            return std::string(v.c_str());
+        };
+        std::string frame = copy(DCM_FrameOfReferenceUID), study = copy(DCM_StudyInstanceUID),
+                    plan_uid = copy(DCM_SOPInstanceUID);
+        if (frame.empty() || study.empty() || plan_uid.empty())
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: the plan has no Frame of Reference, Study Instance or SOP "
+                                "Instance UID to give the dose",
+                                plan_path);
+        DcmFileFormat ff;
+        DcmDataset *ds = ff.getDataset();
+        char uid[100];
+        std::string sop = dcmGenerateUniqueIdentifier(uid, SITE_INSTANCE_UID_ROOT);
+        std::string series = dcmGenerateUniqueIdentifier(uid, SITE_SERIES_UID_ROOT);
+        put(ds, DCM_SpecificCharacterSet, "ISO_IR 192");
+        put(ds, DCM_SOPClassUID, UID_RTDOSE_STORAGE);
+        put(ds, DCM_SOPInstanceUID, sop);
+        /* Patient and General Study: the plan's */
+        const DcmTagKey same[] = {DCM_PatientName,   DCM_PatientID,     DCM_PatientBirthDate,
+                                  DCM_PatientSex,    DCM_StudyInstanceUID, DCM_StudyDate,
+                                  DCM_StudyTime,     DCM_ReferringPhysicianName, DCM_StudyID,
+                                  DCM_AccessionNumber};
+        for (const DcmTagKey &k : same)
+            put(ds, k, copy(k));
+        put(ds, DCM_Modality, "RTDOSE");
+        put(ds, DCM_SeriesInstanceUID, series);
+        put(ds, DCM_SeriesNumber, "1");
+        put(ds, DCM_OperatorsName, "");
+        put(ds, DCM_SeriesDescription, "strayline screening estimate");
+        put(ds, DCM_FrameOfReferenceUID, frame);
+        put(ds, DCM_PositionReferenceIndicator, copy(DCM_PositionReferenceIndicator));
+        put(ds, DCM_Manufacturer, "strayline");
+        put(ds, DCM_InstanceNumber, "1");
+        put(ds, DCM_ImagePositionPatient,
+            fmt(g->x0_mm) + "\\" + fmt(g->y0_mm) + "\\" + fmt(g->z0_mm));
+        put(ds, DCM_ImageOrientationPatient, "1\\0\\0\\0\\1\\0");
+        put(ds, DCM_PixelSpacing, fmt(g->step_mm) + "\\" + fmt(g->step_mm));
+        put(ds, DCM_SliceThickness, fmt(g->step_mm));
+        put(ds, DCM_SamplesPerPixel, "1");
+        put(ds, DCM_PhotometricInterpretation, "MONOCHROME2");
+        put(ds, DCM_Rows, std::to_string(g->ny));
+        put(ds, DCM_Columns, std::to_string(g->nx));
+        put(ds, DCM_BitsAllocated, "16");
+        put(ds, DCM_BitsStored, "16");
+        put(ds, DCM_HighBit, "15");
+        put(ds, DCM_PixelRepresentation, "0");
+        put(ds, DCM_NumberOfFrames, std::to_string(g->nz));
+        if (ds->putAndInsertTagKey(DCM_FrameIncrementPointer, DCM_GridFrameOffsetVector).bad())
+            throw failure{SL_EINTERNAL};
+        put(ds, DCM_DoseUnits, "GY");
+        put(ds, DCM_DoseType, "PHYSICAL");
+        /* Dose Comment is LO (64 characters): the fixed words; the rest in
+         * the General Image module's Image Comments (LT) */
+        put(ds, DCM_DoseComment, "screening estimate, not a planning dose");
+        put(ds, DCM_ImageComments, comment);
+        put(ds, DCM_DoseSummationType, "PLAN");
+        std::string offsets;
+        for (size_t k = 0; k < g->nz; k++)
+            offsets += (k ? "\\" : "") + fmt((double)k * g->step_mm);
+        put(ds, DCM_GridFrameOffsetVector, offsets);
+        size_t n = g->nx * g->ny * g->nz;
+        double mx = 0;
+        for (size_t i = 0; i < n; i++)
+            mx = g->gy[i] > mx ? g->gy[i] : mx;
+        /* 16-bit values (PS3.3 allows 16 or 32; the 32-bit form is not
+         * checked by dicom3tools' dciodvfy, which this file must pass): the
+         * largest dose at the top of the range, and every value rounded UP
+         * to a step, so that the file never shows less than the estimate.
+         * Dose Grid Scaling is a DS of at most 16 characters: it is rounded
+         * up to 6 significant digits first and the values scaled by that. */
+        double scale = mx > 0 ? mx / 65000.0 : 1e-9;
+        scale = std::stod(fmt(scale * 1.000001));
+        put(ds, DCM_DoseGridScaling, fmt(scale));
+        DcmItem *ref = nullptr;
+        if (ds->findOrCreateSequenceItem(DCM_ReferencedRTPlanSequence, ref, 0).bad() || !ref ||
+            ref->putAndInsertString(DCM_ReferencedSOPClassUID, UID_RTPlanStorage).bad() ||
+            ref->putAndInsertString(DCM_ReferencedSOPInstanceUID, plan_uid.c_str()).bad())
+            throw failure{SL_EINTERNAL};
+        std::vector<Uint16> words(n);
+        for (size_t i = 0; i < n; i++) {
+            double q = std::ceil(g->gy[i] / scale - 1e-9);
+            words[i] = static_cast<Uint16>(q < 0 ? 0 : q > 65535 ? 65535 : q);
+        }
+        if (ds->putAndInsertUint16Array(DCM_PixelData, words.data(), n).bad())
+            throw failure{SL_EINTERNAL};
+        OFCondition c = ff.saveFile(path, EXS_LittleEndianExplicit);
+        if (c.bad())
+            return sl_error_set(err, SL_EINPUT, "%s: cannot write: %s", path, c.text());
+    } catch (const failure &) {
+        return sl_error_set(err, SL_EINTERNAL, "%s: DCMTK refused an element of the RT Dose",
+                            path);
+    } catch (const std::bad_alloc &) {
+        return sl_error_set(err, SL_ENOMEM, "out of memory writing %s", path);
+    } catch (...) {
+        return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", path);
+    }
     return SL_OK;
 }
 

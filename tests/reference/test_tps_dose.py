@@ -20,6 +20,7 @@ the model beyond, against references outside the tool:
 import json
 import math
 import os
+import subprocess
 import unittest
 
 import jsonschema
@@ -199,6 +200,89 @@ class FromTheGrid(unittest.TestCase):
         for k, r in beam1.items():
             self.assertEqual(r["samples"], every[k]["samples"])
             self.assertAlmostEqual(r["ratio_mean"], every[k]["ratio_mean"], delta=1e-9)
+
+
+class EstimateAsRtDose(unittest.TestCase):
+    """--rtdose-out read back with pydicom: the plan's frame, study and SOP
+    Instance UID (PS3.3 C.8.8.3 RT Dose Module: Referenced RT Plan
+    Sequence), PLAN summation, the screening-estimate comment, and at organ
+    points that sit on voxel centres the estimate itself, rounded up to one
+    Dose Grid Scaling step; dicom3tools' dciodvfy (Debian) finds no error."""
+
+    PTS = [("p1", 120.0, 10.0), ("p2", 200.0, 20.0), ("p3", 70.0, 10.0)]
+
+    def run_case(self, d, *extra):
+        pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
+        plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                            [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
+        out = os.path.join(d, "estimate-dose.dcm")
+        rc, js, err = estimate(plan, ss, "--rtdose-out", out, "--rtdose-spacing", "1", *extra)
+        self.assertIn(rc, (0, 4), err)
+        return plan, js, out
+
+    def voxel(self, ds, grid, x, y, z):
+        x0, y0, z0 = (float(v) for v in ds.ImagePositionPatient)
+        step = float(ds.PixelSpacing[1])
+        i, j, k = (round((x - x0) / step), round((y - y0) / step), round((z - z0) / step))
+        self.assertAlmostEqual(x0 + i * step, x)  # a voxel centre
+        return grid[k, j, i]
+
+    def test_read_back(self):
+        with tempdir() as d:
+            plan_path, js, out = self.run_case(d)
+            plan = pydicom.dcmread(plan_path)
+            ds = pydicom.dcmread(out)
+            v = subprocess.run(["dciodvfy", out], capture_output=True, text=True)
+        self.assertEqual(ds.SOPClassUID, RT_DOSE)
+        self.assertEqual(ds.FrameOfReferenceUID, plan.FrameOfReferenceUID)
+        self.assertEqual(ds.StudyInstanceUID, plan.StudyInstanceUID)
+        self.assertEqual(ds.PatientID, plan.PatientID)
+        self.assertEqual(ds.ReferencedRTPlanSequence[0].ReferencedSOPInstanceUID,
+                         plan.SOPInstanceUID)
+        self.assertEqual(ds.DoseSummationType, "PLAN")
+        self.assertEqual(ds.DoseUnits, "GY")
+        self.assertIn("screening estimate", ds.DoseComment)
+        self.assertIn("SCREENING ESTIMATE", ds.ImageComments)
+        self.assertEqual([float(a) for a in ds.ImageOrientationPatient], [1, 0, 0, 0, 1, 0])
+        self.assertEqual(len(ds.GridFrameOffsetVector), ds.NumberOfFrames)
+        scale = float(ds.DoseGridScaling)
+        grid = ds.pixel_array.astype(float) * scale
+        self.assertEqual(grid.shape, (ds.NumberOfFrames, ds.Rows, ds.Columns))
+        for name, x, y in self.PTS:
+            want = organ(js, name)["course_max_cgy"] / 100  # Gy
+            got = self.voxel(ds, grid, x, y, 0.0)
+            self.assertGreaterEqual(got, want - 1e-9 * want, name)  # never below
+            self.assertLessEqual(got, want + scale * 1.0001, name)
+        # inside the field nothing is estimated: 0, as the comment says
+        self.assertEqual(self.voxel(ds, grid, 0.0, 10.0, 0.0), 0)
+        self.assertIn("inside a field are 0", ds.ImageComments)
+        # outside the body: 0
+        self.assertEqual(self.voxel(ds, grid, 120.0, -10.0, 0.0), 0)
+        errors = [l for l in (v.stdout + v.stderr).splitlines() if l.startswith("Error")]
+        self.assertEqual(errors, [], v.stdout + v.stderr)
+        self.assertEqual(v.returncode, 0, v.stderr)
+
+    def test_with_the_planning_system_dose(self):
+        """In the field and within the zone the file holds the planning
+        system's (analytic) dose; beyond, the model's as before."""
+        with tempdir() as d:
+            pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
+            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
+            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan)
+            out = os.path.join(d, "estimate-dose.dcm")
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--rtdose-out", out,
+                                   "--rtdose-spacing", "1")
+            self.assertIn(rc, (0, 4), err)
+            ds = pydicom.dcmread(out)
+        scale = float(ds.DoseGridScaling)
+        grid = ds.pixel_array.astype(float) * scale
+        self.assertAlmostEqual(self.voxel(ds, grid, 0.0, 10.0, 0.0), analytic_gy(0, 10, 0),
+                               delta=scale * 1.0001)
+        self.assertAlmostEqual(self.voxel(ds, grid, 70.0, 10.0, 0.0), analytic_gy(70, 10, 0),
+                               delta=scale * 1.0001)
+        want = organ(js, "p1")["course_max_cgy"] / 100
+        self.assertAlmostEqual(self.voxel(ds, grid, 120.0, 10.0, 0.0), want, delta=scale * 1.0001)
 
 
 class Refused(unittest.TestCase):
