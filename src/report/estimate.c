@@ -447,8 +447,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     }
     for (size_t i = 0; i < r->as->missing.count; i++)
         fprintf(fp, "%s%s\n", i ? "  " : "\nasked for, not found:\n  ", r->as->missing.items[i]);
-    fprintf(fp, "\nmarks: %s; [what-if] a what-if option changed this number\n",
-            est_marks_legend());
+    fprintf(fp, "\nmarks: %s%s\n", est_marks_legend(),
+            r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
 
     for (size_t b = 0; b < e->nbeams; b++) {
         const sl_beam_dose *bd = &e->beams[b];
