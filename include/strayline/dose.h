@@ -33,6 +33,19 @@
  * dose at the point nearest the field edge, per fraction of each group and
  * over the course. Organs in or touching any field are not estimated: the
  * planning system's dose applies there.
+ *
+ * With the planning system's dose (RT Dose: one PLAN dose, or BEAM doses
+ * that cover every placed beam once) the two meet at a seam: a sample
+ * nearer than tps_zone_cm to any field edge takes the planning system's
+ * course dose (trilinear in its grid), a sample beyond takes the model's.
+ * In-field organs are then estimated too. A sample in the zone but outside
+ * the grid keeps the model's dose (counted, said); an in-field one leaves
+ * its organ unestimated. Each organ says how much of its volume, and
+ * whether its maximum and nearest point, came from the planning system. In
+ * the band from 0 to SL_TPS_BAND_CM beyond the edges, where both exist, the
+ * ratio model / planning system of the course dose is gathered per beam
+ * (a BEAM dose of one beam) or for all beams together, in 1 cm bins of the
+ * distance from the nearest edge.
  */
 #ifndef STRAYLINE_DOSE_H
 #define STRAYLINE_DOSE_H
@@ -42,6 +55,7 @@
 
 #include "strayline/locate.h"
 #include "strayline/model.h"
+#include "strayline/rtdose.h"
 
 #ifdef __cplusplus
 extern "C" {
@@ -72,7 +86,32 @@ typedef struct sl_estimate_options {
     size_t nshields;
     bool include_targets;         /* estimate PTV / CTV / GTV ROIs too */
     int threads;
+    const sl_rtdose *const *tps;  /* the planning system's doses (borrowed); NULL: none */
+    size_t ntps;
+    double tps_zone_cm;           /* the seam (default SL_TPS_ZONE_CM) */
 } sl_estimate_options;
+
+/* The planning system's dose is used within this distance of a field edge
+ * (cm): electron dose algorithms are commissioned in and near the field and
+ * underestimate farther out (common practice; the ratio table of each
+ * estimate shows it for the clinic's own system). */
+#define SL_TPS_ZONE_CM 3.0
+/* Standard uncertainty (k = 1) given to a planning-system dose, as a
+ * fraction of it (from memory: a few per cent near the field edge is the
+ * usual tolerance of electron dose calculation; a stated value, not a
+ * measured one). */
+#define SL_TPS_U_FRACTION 0.05
+/* The comparison band beyond the field edges (cm), in 1 cm bins. */
+#define SL_TPS_BAND_CM 5.0
+#define SL_TPS_BINS 5
+
+/* One bin of the comparison: model / planning system over the course. */
+typedef struct sl_tps_ratio {
+    int beam_number;              /* 0: every beam together */
+    double lo_cm, hi_cm;          /* distance from the nearest field edge */
+    size_t n;                     /* samples with both doses */
+    double mean, min, max;        /* of the ratio model / planning system */
+} sl_tps_ratio;
 
 void sl_estimate_default_options(sl_estimate_options *o);
 
@@ -149,6 +188,12 @@ typedef struct sl_organ_dose {
     double *course_cgy;           /* per sample, for dose-volume histograms */
     bool landmark;                /* geometry measured on the patient (--landmark): not in
                                      the location's organs (organ is SIZE_MAX) */
+    /* with the planning system's dose (all 0 without) */
+    size_t tps_samples;           /* samples whose dose is the planning system's */
+    size_t tps_outside_grid;      /* samples in the zone outside its grid: the model's dose */
+    double tps_volume_fraction;   /* of the volume (of the samples, for points) */
+    bool max_from_tps, nearest_from_tps;
+    double *tps_acc;              /* private: the organ's share of the ratio table */
 } sl_organ_dose;
 
 typedef struct sl_estimate {
@@ -163,6 +208,10 @@ typedef struct sl_estimate {
     sl_beam_dose *beams;          /* one per placed beam, same order as loc->beams */
     size_t norgans;
     sl_organ_dose *organs;        /* one per organ of the location */
+    bool tps_used;                /* the planning system's dose was combined */
+    double tps_zone_cm;
+    size_t nratios;
+    sl_tps_ratio *ratios;         /* rows with samples only */
     sl_notes notes;
 } sl_estimate;
 
@@ -179,6 +228,17 @@ void sl_estimate_free(sl_estimate *e);
  * point (landmark true); roi must outlive the estimate. */
 sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double distance_cm,
                                    double depth_cm, sl_error *err);
+
+/* The estimate on an axial grid over the body contour (its EXTERNAL ROI):
+ * voxel centres at whole multiples of step_cm, inside the body only (0
+ * outside). Each voxel gets the course dose of every placed beam as an organ
+ * sample there would (the model at its depth and distances, without the
+ * setup shift or what-if shields), or within the zone the planning
+ * system's dose when one is given; a voxel inside a field without it is 0
+ * and counted. Input errors: no EXTERNAL ROI, a grid of more than
+ * SL_RTDOSE_MAX_VOXELS. */
+sl_status sl_estimate_grid(const sl_estimate *e, double step_cm, sl_dose_grid **out,
+                           sl_error *err);
 
 /* Is a ROI of this RT ROI Interpreted Type left out unless asked for? */
 bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why);

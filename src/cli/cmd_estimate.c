@@ -18,8 +18,10 @@
 #include "strayline/locate.h"
 #include "strayline/machine.h"
 #include "strayline/model.h"
+#include "strayline/rtdose.h"
 #include "strayline/screen.h"
 #include "strayline/util.h"
+#include "strayline/version.h"
 
 static const char help[] =
     "usage: strayline estimate PLAN STRUCTURES --model MODEL.yaml [OPTIONS]\n\n"
@@ -84,6 +86,19 @@ static const char help2[] =
     "                              risks (default: from the plan's Patient's Sex, Birth\n"
     "                              Date and RT Plan Date)\n"
     "      --include-targets       estimate PTV / CTV / GTV ROIs too\n"
+    ;
+
+/* the help in three pieces: ISO C limits one string to 4095 characters */
+static const char help_more[] =
+    "      --tps-dose RTDOSE.dcm   the planning system's dose of this plan (DICOM RT\n"
+    "                              Dose, PLAN summation, or BEAM doses, each beam in\n"
+    "                              one): used within the zone near the fields, the\n"
+    "                              model beyond; the two compared (repeatable)\n"
+    "      --tps-zone CM           the zone of the planning system's dose beyond the\n"
+    "                              field edges (default 3)\n"
+    "      --rtdose-out FILE.dcm   also write the estimate as a DICOM RT Dose over the\n"
+    "                              body contour, in the plan's frame and study\n"
+    "      --rtdose-spacing CM     its grid spacing (default 0.4)\n"
     "  -d, --depth CM              a depth for every organ (no body contour)\n"
     "      --allow-mismatch        go on when plan and structure set do not belong\n"
     "                              together (every output says so)\n"
@@ -106,6 +121,10 @@ enum {
     OPT_SEX,
     OPT_TARGETS,
     OPT_MISMATCH,
+    OPT_TPS,
+    OPT_TPS_ZONE,
+    OPT_RTDOSE_OUT,
+    OPT_RTDOSE_STEP,
     OPT_CONCEPTION,
     OPT_OTHER,
     OPT_POINT,
@@ -252,6 +271,10 @@ int sl_cmd_estimate(int argc, char **argv)
         {"include-targets", no_argument, NULL, OPT_TARGETS},
         {"depth", required_argument, NULL, 'd'},
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
+        {"tps-dose", required_argument, NULL, OPT_TPS},
+        {"tps-zone", required_argument, NULL, OPT_TPS_ZONE},
+        {"rtdose-out", required_argument, NULL, OPT_RTDOSE_OUT},
+        {"rtdose-spacing", required_argument, NULL, OPT_RTDOSE_STEP},
         {"threads", required_argument, NULL, 'j'},
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
@@ -272,7 +295,10 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_other_dose others[MAX_ITEMS];
     sl_screen_point pts[MAX_ITEMS];
     sl_screen_landmark lms[MAX_ITEMS];
-    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0;
+    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0, ntps = 0;
+    const char *tps_paths[MAX_ITEMS];
+    const char *rtdose_out = NULL;
+    double rtdose_step_cm = 0.4;
     double v;
     int c;
     optind = 1;
@@ -441,6 +467,25 @@ int sl_cmd_estimate(int argc, char **argv)
                 return sl_cli_usage("estimate", "--depth needs a depth in cm, not '%s'", optarg);
             break;
         case OPT_MISMATCH: allow_mismatch = true; break;
+        case OPT_TPS:
+            if (ntps == MAX_ITEMS)
+                return sl_cli_usage("estimate", "too many --tps-dose files");
+            tps_paths[ntps++] = optarg;
+            break;
+        case OPT_RTDOSE_OUT: rtdose_out = optarg; break;
+        case OPT_RTDOSE_STEP:
+            if (!sl_parse_double(optarg, &rtdose_step_cm) || rtdose_step_cm < 0.1 ||
+                rtdose_step_cm > 2)
+                return sl_cli_usage("estimate", "--rtdose-spacing needs 0.1 to 2 cm, not '%s'",
+                                    optarg);
+            break;
+        case OPT_TPS_ZONE:
+            if (!sl_parse_double(optarg, &v) || v <= 0 || v > 10)
+                return sl_cli_usage("estimate", "--tps-zone needs more than 0 and at most 10 cm, "
+                                                "not '%s'",
+                                    optarg);
+            eopt.tps_zone_cm = v;
+            break;
         case 'j':
             if (!sl_parse_int(optarg, &lopt.threads) || lopt.threads < 1 || lopt.threads > 64)
                 return sl_cli_usage("estimate", "--threads needs a number from 1 to 64");
@@ -449,6 +494,7 @@ int sl_cmd_estimate(int argc, char **argv)
         case 'h':
             fputs(help, stdout);
             fputs(help2, stdout);
+            fputs(help_more, stdout);
             return SL_EXIT_OK;
         default: return sl_cli_bad_option(argv, opts, "m:l:f:o:d:j:h");
         }
@@ -481,6 +527,8 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_plan *plan = NULL;
     sl_structure_set *ss = NULL;
     sl_screen *scr = NULL;
+    sl_outfile out = {0};
+    sl_rtdose *tps[MAX_ITEMS] = {0};
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
@@ -490,6 +538,15 @@ int sl_cmd_estimate(int argc, char **argv)
         rc = sl_cli_fail(&err);
         goto done;
     }
+    for (size_t i = 0; i < ntps; i++) {
+        if (sl_rtdose_read(tps_paths[i], &tps[i], &err) != SL_OK) {
+            sl_plan_free(plan);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+    }
+    eopt.tps = (const sl_rtdose *const *)tps;
+    eopt.ntps = ntps;
     sl_screen_request req;
     sl_screen_request_init(&req);
     req.model = model;
@@ -517,6 +574,31 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_estimate_report rep = {scr->plan, scr->ss,       scr->loc,      scr->est,
                               scr->as,   model,         levels,        scr->whatifs,
                               scr->nwhatifs};
+    if (rtdose_out) {
+        const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
+        sl_dose_grid *grid = NULL;
+        char comment[1024];
+        snprintf(comment, sizeof comment,
+                 "SCREENING ESTIMATE by strayline %s of the out-of-field dose of the plan's "
+                 "electron beams over the course (Gy), from the model %s; %s. Confirm high "
+                 "values by measurement; local protocols and a qualified medical physicist "
+                 "decide. Each value is rounded up to a multiple of Dose Grid Scaling.",
+                 sl_version(), model_path,
+                 scr->est->tps_used ? "within the zone of the field edges the planning "
+                                      "system's own dose"
+                                    : "voxels inside a field are 0: not estimated");
+        if (sl_estimate_grid(scr->est, rtdose_step_cm, &grid, &err) != SL_OK ||
+            sl_outfile_open(&out, rtdose_out, inputs, 4, &err) != SL_OK ||
+            sl_rtdose_write(out.tmp, plan_path, grid, comment, &err) != SL_OK ||
+            sl_outfile_commit(&out, &err) != SL_OK) {
+            sl_outfile_abort(&out);
+            sl_dose_grid_free(grid);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        sl_dose_grid_free(grid);
+        memset(&out, 0, sizeof out);
+    }
     const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
     int to_stdout = (!output || strcmp(output, "-") == 0) + (html && strcmp(html, "-") == 0) +
                     (pdf_path && strcmp(pdf_path, "-") == 0);
@@ -572,6 +654,8 @@ int sl_cmd_estimate(int argc, char **argv)
     }
     rc = scr->as->any_flagged ? SL_EXIT_FLAGGED : SL_EXIT_OK;
 done:
+    for (size_t i = 0; i < ntps; i++)
+        sl_rtdose_free(tps[i]);
     sl_screen_free(scr);
     sl_structure_set_free(ss);
     sl_levels_free(levels);

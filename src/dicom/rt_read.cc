@@ -11,6 +11,7 @@
  */
 #include "strayline/dicom.h"
 #include "strayline/util.h"
+#include "ds_value.h"
 
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dcdeftag.h>
@@ -22,6 +23,8 @@
 #include <dcmtk/oflog/oflog.h>
 
 #include <cctype>
+#include <cfloat>
+#include <charconv>
 #include <cerrno>
 #include <cmath>
 #include <cstdlib>
@@ -41,6 +44,8 @@
 
 namespace {
 
+using sl_dicom_internal::ds_convert;
+
 const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
 const char *const UID_RTSTRUCT = "1.2.840.10008.5.1.4.1.1.481.3";
 const char *const UID_RTIONPLAN = "1.2.840.10008.5.1.4.1.1.481.8";
@@ -56,40 +61,6 @@ void quiet_dcmtk()
          * dictionary VR, so that the result does not depend on the encoding. */
         dcmEnableUnknownVRConversion.set(OFTrue);
     });
-}
-
-/* The DICOM grammar of a Decimal String value (PS3.5 6.2): optional leading
- * and trailing spaces, an optional sign, digits with an optional decimal
- * point, an optional exponent. */
-bool ds_grammar(const std::string &v, std::string &core)
-{
-    size_t b = v.find_first_not_of(' '), e = v.find_last_not_of(' ');
-    if (b == std::string::npos)
-        return false;
-    core = v.substr(b, e - b + 1);
-    size_t i = 0, n = core.size(), digits = 0;
-    if (i < n && (core[i] == '+' || core[i] == '-'))
-        i++;
-    while (i < n && isdigit(static_cast<unsigned char>(core[i])))
-        i++, digits++;
-    if (i < n && core[i] == '.') {
-        i++;
-        while (i < n && isdigit(static_cast<unsigned char>(core[i])))
-            i++, digits++;
-    }
-    if (digits == 0)
-        return false;
-    if (i < n && (core[i] == 'e' || core[i] == 'E')) {
-        i++;
-        if (i < n && (core[i] == '+' || core[i] == '-'))
-            i++;
-        size_t ed = 0;
-        while (i < n && isdigit(static_cast<unsigned char>(core[i])))
-            i++, ed++;
-        if (ed == 0)
-            return false;
-    }
-    return i == n;
 }
 
 /* An Integer String value: optional spaces, an optional sign, digits; the
@@ -183,6 +154,94 @@ public:
         return item->findAndGetElement(key, el).good() && el && el->getLength() > 0;
     }
 
+    /* Every value of a DS element, from its raw characters read once: each
+     * value checked against the DS grammar and converted where it lies, with
+     * no copy and no allocation per number (a structure set holds millions).
+     * The count of values is DCMTK's (delimiters + 1 over the raw value), so
+     * that a value lost to stray padding is still an error. begin(count) is
+     * called once before put(i, value) for each value. */
+    template <typename Where, typename Begin, typename Put>
+    void ds_each(DcmElement *el, Where where, Begin begin, Put put)
+    {
+        char *chars = nullptr;
+        Uint32 nchars = 0;
+        if (el->getString(chars, nchars).bad() || (!chars && nchars))
+            fail(SL_EINPUT, where(), "cannot read the values");
+        if (!chars || nchars == 0) {
+            begin(static_cast<size_t>(0));
+            return;
+        }
+        const char *s = chars, *end = chars + nchars;
+        size_t vm = 1 + static_cast<size_t>(std::count(s, end, '\\'));
+        if (vm > 100000000UL)
+            fail(SL_EINPUT, where(), "too many values");
+        while (end > s && (end[-1] == ' ' || end[-1] == '\0'))
+            end--; /* the padding to an even length */
+        begin(vm);
+        const char *b = s;
+        for (size_t i = 0; i < vm; i++) {
+            const char *q = static_cast<const char *>(memchr(b, '\\', static_cast<size_t>(end - b)));
+            if (!q)
+                q = end;
+            if (i + 1 < vm && q == end)
+                fail(SL_EINPUT, where(), "could not read every value");
+            double d;
+            if (!ds_convert(b, q, d)) {
+                std::string v(b, static_cast<size_t>(q - b));
+                std::string shown = v.size() > 40 ? v.substr(0, 40) + "..." : v;
+                fail(SL_EINPUT, where(),
+                     "value " + std::to_string(i + 1) + " '" + shown +
+                         "' is not a decimal string (DS: optional sign, digits, decimal point, "
+                         "exponent)");
+            }
+            put(i, d);
+            b = q < end ? q + 1 : end;
+        }
+    }
+
+    /* Contour Data straight into (x, y, z) points: no vector of doubles in
+     * between, whose pages would be touched twice. *count receives the
+     * number of values; the points (count / 3 rounded up, malloc'd, NULL for
+     * none) are owned by the caller as soon as they are handed over through
+     * `own`, so that they are freed whatever fails next. Another VR than DS
+     * goes through nums(). */
+    template <typename Own>
+    void contour_data(DcmItem *item, const std::string &ctx, size_t *count, Own own)
+    {
+        DcmElement *el = nullptr;
+        *count = 0;
+        if (item->findAndGetElement(DCM_ContourData, el).bad() || !el || el->getLength() == 0)
+            return;
+        auto where = [&]() { return at(ctx, DCM_ContourData); };
+        sl_vec3 *pts = nullptr;
+        auto begin = [&](size_t vm) {
+            *count = vm;
+            if (vm == 0)
+                return;
+            pts = static_cast<sl_vec3 *>(malloc((vm + 2) / 3 * sizeof(sl_vec3)));
+            if (!pts)
+                fail(SL_ENOMEM, "", "out of memory");
+            own(pts);
+        };
+        if (el->ident() == EVR_DS) {
+            ds_each(el, where, begin, [&](size_t i, double d) {
+                sl_vec3 &p = pts[i / 3];
+                switch (i % 3) {
+                case 0: p.x = d; break;
+                case 1: p.y = d; break;
+                default: p.z = d; break;
+                }
+            });
+            return;
+        }
+        std::vector<double> v = nums(item, DCM_ContourData, ctx);
+        begin(v.size());
+        for (size_t i = 0; i < v.size(); i++) {
+            sl_vec3 &p = pts[i / 3];
+            (i % 3 == 0 ? p.x : i % 3 == 1 ? p.y : p.z) = v[i];
+        }
+    }
+
     /* All numeric values of an element (DS, IS, FD, FL, US, SS, UL, SL). */
     std::vector<double> nums(DcmItem *item, const DcmTagKey &key, const std::string &ctx)
     {
@@ -190,12 +249,20 @@ public:
         DcmElement *el = nullptr;
         if (item->findAndGetElement(key, el).bad() || !el || el->getLength() == 0)
             return out;
-        const std::string where = at(ctx, key);
+        /* the element's place in messages, built only for a message: the
+         * dictionary lookup behind it would otherwise run for every contour */
+        auto where = [&]() { return at(ctx, key); };
         DcmEVR vr = el->ident();
+        if (vr == EVR_DS) {
+            ds_each(
+                el, where, [&](size_t vm) { out.reserve(vm); },
+                [&](size_t, double d) { out.push_back(d); });
+            return out;
+        }
         unsigned long vm = el->getVM();
         if (vm > 100000000UL)
-            fail(SL_EINPUT, where, "too many values");
-        if (vr == EVR_DS || vr == EVR_IS) {
+            fail(SL_EINPUT, where(), "too many values");
+        if (vr == EVR_IS) {
             /* every value read whole and strictly: a value that merely starts
              * like a number ("1e2" as an IS, "3 50", "45deg", "1,5") must not
              * become one */
@@ -204,7 +271,7 @@ public:
             char *chars = nullptr;
             Uint32 nchars = 0;
             if (el->getString(chars, nchars).bad() || (!chars && nchars))
-                fail(SL_EINPUT, where, "cannot read the values");
+                fail(SL_EINPUT, where(), "cannot read the values");
             std::string all(chars ? chars : "", chars ? nchars : 0);
             while (!all.empty() && (all.back() == ' ' || all.back() == '\0'))
                 all.pop_back(); /* the padding to an even length */
@@ -215,27 +282,17 @@ public:
                 if (to == std::string::npos)
                     to = all.length();
                 if (i + 1 < vm && to == all.length())
-                    fail(SL_EINPUT, where, "could not read every value");
-                std::string v(all.c_str() + from, to - from), core;
+                    fail(SL_EINPUT, where(), "could not read every value");
+                std::string v(all.c_str() + from, to - from);
                 from = to + 1;
                 std::string shown = v.size() > 40 ? v.substr(0, 40) + "..." : v;
-                if (vr == EVR_DS) {
-                    double d;
-                    if (!ds_grammar(v, core) || !sl_parse_double(core.c_str(), &d))
-                        fail(SL_EINPUT, where,
-                             "value " + std::to_string(i + 1) + " '" + shown +
-                                 "' is not a decimal string (DS: optional sign, digits, "
-                                 "decimal point, exponent)");
-                    out.push_back(d);
-                } else {
-                    long long k;
-                    if (!is_grammar(v, k))
-                        fail(SL_EINPUT, where,
-                             "value " + std::to_string(i + 1) + " '" + shown +
-                                 "' is not an integer string (IS: optional sign and digits, "
-                                 "-2147483648 to 2147483647)");
-                    out.push_back(static_cast<double>(k));
-                }
+                long long k;
+                if (!is_grammar(v, k))
+                    fail(SL_EINPUT, where(),
+                         "value " + std::to_string(i + 1) + " '" + shown +
+                             "' is not an integer string (IS: optional sign and digits, "
+                             "-2147483648 to 2147483647)");
+                out.push_back(static_cast<double>(k));
             }
         } else {
             out.reserve(vm);
@@ -280,17 +337,17 @@ public:
                     break;
                 }
                 default:
-                    fail(SL_EINPUT, where, std::string("has value representation ") +
+                    fail(SL_EINPUT, where(), std::string("has value representation ") +
                                                DcmVR(vr).getVRName() + ", expected a number");
                 }
                 if (c.bad())
-                    fail(SL_EINPUT, where, "not a valid number");
+                    fail(SL_EINPUT, where(), "not a valid number");
                 out.push_back(d);
             }
         }
         for (double d : out) {
             if (!std::isfinite(d))
-                fail(SL_EINPUT, where, "value is not a finite number");
+                fail(SL_EINPUT, where(), "value is not a finite number");
         }
         return out;
     }
@@ -792,17 +849,18 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                        "the structure set holds more than " +
                            std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
                            " contour points, more than strayline accepts");
-            std::vector<double> data = r.nums(cs[j], DCM_ContourData, cctx);
-            if (data.empty())
+            size_t nvalues = 0;
+            r.contour_data(cs[j], cctx, &nvalues, [&](sl_vec3 *p) { c->points = p; });
+            if (nvalues == 0)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData), "missing or empty");
-            if (data.size() % 3 != 0)
+            if (nvalues % 3 != 0)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
-                       "has " + std::to_string(data.size()) +
+                       "has " + std::to_string(nvalues) +
                            " values, not a whole number of (x,y,z) triples");
-            if (n < 1 || static_cast<size_t>(n) * 3 != data.size())
+            if (n < 1 || static_cast<size_t>(n) * 3 != nvalues)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_NumberOfContourPoints),
                        "says " + std::to_string(n) + " points but Contour Data holds " +
-                           std::to_string(data.size() / 3));
+                           std::to_string(nvalues / 3));
             size_t need = c->type == SL_CONTOUR_POINT ? 1
                           : (c->type == SL_CONTOUR_OPEN_PLANAR || c->type == SL_CONTOUR_OPEN_NONPLANAR)
                               ? 2
@@ -815,15 +873,15 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                        "a " + type + " contour needs at least " + std::to_string(need) +
                            " points, found " + std::to_string(n));
             total_points += static_cast<size_t>(n);
-            for (double v : data) {
-                if (std::fabs(v) > 1.0e5)
-                    r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
-                           "coordinate " + std::to_string(v) + " mm is absurd");
+            for (size_t k = 0; k < static_cast<size_t>(n); k++) {
+                const double xyz[3] = {c->points[k].x, c->points[k].y, c->points[k].z};
+                for (double v : xyz) {
+                    if (std::fabs(v) > 1.0e5)
+                        r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData),
+                               "coordinate " + std::to_string(v) + " mm is absurd");
+                }
             }
             c->npoints = static_cast<size_t>(n);
-            c->points = alloc_array<sl_vec3>(r, c->npoints);
-            for (size_t k = 0; k < c->npoints; k++)
-                c->points[k] = sl_vec3{data[3 * k], data[3 * k + 1], data[3 * k + 2]};
         }
     }
 
@@ -1085,12 +1143,14 @@ void *load_thread(void *arg)
     load_job *j = static_cast<load_job *>(arg);
     try {
         DcmFileFormat ff;
+        /* every value read in the one pass over the file: with DCMTK's
+         * default, each value over 4 KiB (every dense contour) is read
+         * later by opening the file again and seeking to it */
+        const Uint32 whole = OFstatic_cast(Uint32, -1);
         OFCondition cond =
             j->dataset_only
-                ? ff.loadFile(j->path, EXS_LittleEndianExplicit, EGL_noChange, DCM_MaxReadLength,
-                              ERM_dataset)
-                : ff.loadFile(j->path, EXS_Unknown, EGL_noChange, DCM_MaxReadLength,
-                              ERM_autoDetect);
+                ? ff.loadFile(j->path, EXS_LittleEndianExplicit, EGL_noChange, whole, ERM_dataset)
+                : ff.loadFile(j->path, EXS_Unknown, EGL_noChange, whole, ERM_autoDetect);
         j->st = finish(*j->r, ff, cond, j->out, j->err);
     } catch (const std::bad_alloc &) {
         j->st = sl_error_set(j->err, SL_ENOMEM, "%s: out of memory", j->r->file());
@@ -1209,7 +1269,7 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     if (fd < 0)
         return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
     size_t n = static_cast<size_t>(sb.st_size);
-    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE, fd, 0);
+    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE | MAP_POPULATE, fd, 0);
     close(fd);
     if (map == MAP_FAILED)
         return sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));

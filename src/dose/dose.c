@@ -21,6 +21,7 @@ void sl_estimate_default_options(sl_estimate_options *o)
     o->prescription_isodose = NAN;
     o->reference_dose_cgy = NAN;
     o->setup_shift_cm = 0.5;
+    o->tps_zone_cm = SL_TPS_ZONE_CM;
 }
 
 bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why)
@@ -54,6 +55,7 @@ static void organ_free(sl_organ_dose *o)
     free(o->fx_nearmax);
     free(o->fx_nearest);
     free(o->course_cgy);
+    free(o->tps_acc);
 }
 
 void sl_estimate_free(sl_estimate *e)
@@ -73,6 +75,7 @@ void sl_estimate_free(sl_estimate *e)
         organ_free(&e->organs[i]);
     free(e->organs);
     free(e->fractions);
+    free(e->ratios);
     sl_notes_free(&e->notes);
     free(e);
 }
@@ -506,7 +509,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         od->excluded_why = why;
         return SL_OK;
     }
-    if (od->in_field) {
+    if (od->in_field && !e->tps_used) {
         od->excluded_why = "in or touching the field: use the planning system's dose";
         return SL_OK;
     }
@@ -525,8 +528,19 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     double *uc = calloc(n, sizeof *uc), *ec = calloc(n, sizeof *ec);
     double *dmin = malloc(n * sizeof *dmin);
     iv *order = malloc(n * sizeof *order);
+    /* the planning system's course dose (cGy) at each sample, and whether
+     * the sample takes it; the ratio accumulators: row 0 every beam, row
+     * 1 + b beam b, SL_TPS_BINS bins of (n, sum, min, max) */
+    const size_t nrow = 1 + e->nbeams;
+    double *tv = e->tps_used ? malloc(n * sizeof *tv) : NULL;
+    unsigned char *use = calloc(n, 1);
+    if (e->tps_used)
+        od->tps_acc = calloc(nrow * SL_TPS_BINS * 4, sizeof *od->tps_acc);
     if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
-        !dg || !ug || !uc || !ec || !dmin || !order) {
+        !dg || !ug || !uc || !ec || !dmin || !order || !use ||
+        (e->tps_used && (!tv || !od->tps_acc))) {
+        free(tv);
+        free(use);
         free(dg);
         free(ug);
         free(uc);
@@ -537,9 +551,44 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     }
     for (size_t i = 0; i < n; i++)
         dmin[i] = INFINITY;
+    for (size_t b = 0; b < e->nbeams; b++)
+        for (size_t i = 0; i < n; i++)
+            dmin[i] = fmin(dmin[i], loc->beams[b].organs[o].distance_cm[i]);
+    bool near_by_model = false;
+    for (size_t i = 0; i < n; i++) {
+        if (e->tps_used) {
+            const sl_vec3 q = s->points[i];
+            double sum = 0;
+            for (size_t f = 0; f < e->opt.ntps && !isnan(sum); f++)
+                sum += sl_rtdose_at(e->opt.tps[f], q.x * 10, q.y * 10, q.z * 10);
+            tv[i] = sum * 100; /* Gy over the course to cGy */
+            if (dmin[i] < e->tps_zone_cm) {
+                if (!isnan(tv[i])) {
+                    use[i] = 1;
+                } else {
+                    od->tps_outside_grid++;
+                    if (dmin[i] < SL_IN_FIELD_MARGIN_CM) {
+                        free(tv);
+                        free(use);
+                        free(dg);
+                        free(ug);
+                        free(uc);
+                        free(ec);
+                        free(dmin);
+                        free(order);
+                        od->excluded_why = "in or touching the field and partly outside the "
+                                           "planning system's dose grid";
+                        return SL_OK;
+                    }
+                }
+            }
+        }
+        if (dmin[i] < SL_NEAR_EDGE_CM && !use[i])
+            near_by_model = true;
+    }
     double shift = e->opt.setup_shift_cm;
     double t = od->shield_transmission;
-    if (od->min_distance_cm < SL_NEAR_EDGE_CM) {
+    if (near_by_model) {
         od->near_edge = true;
         od->flags |= SL_MF_NEAR_EDGE;
     }
@@ -547,13 +596,25 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         const sl_beam_dose *bd = &e->beams[b];
         const sl_organ_place *p = &loc->beams[b].organs[o];
         od->max_energy_mev = fmax(od->max_energy_mev, bd->energy_mev);
+        /* a BEAM dose of this beam alone, for its row of the comparison */
+        const sl_rtdose *own = NULL;
+        for (size_t f = 0; e->tps_used && f < e->opt.ntps; f++) {
+            const sl_rtdose *d = e->opt.tps[f];
+            if (d->summation == SL_RTDOSE_BEAM && d->nbeams == 1 &&
+                d->beams[0] == bd->place->beam->number)
+                own = d;
+        }
         for (size_t i = 0; i < n; i++) {
-            dmin[i] = fmin(dmin[i], p->distance_cm[i]);
+            /* inside a field only the planning system's dose exists */
+            if (use[i] && dmin[i] < 0)
+                continue;
             sl_model_value v;
             double us;
             double u = eval_shifted(bd, sample_query(e, b, o, i), shift, t, &v, &us);
             double pc = v.percent;
-            od->flags |= v.flags | bd->model_flags;
+            if (!use[i])
+                od->flags |= v.flags | bd->model_flags;
+            double course_b = 0;
             for (size_t g = 0; g < ng; g++) {
                 if (!isfinite(bd->ref_cgy[g]))
                     continue;
@@ -561,9 +622,45 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                 ug[g * n + i] += bd->ref_cgy[g] * u / 100;
                 double c = e->fractions[g] * bd->ref_cgy[g] / 100;
                 od->course_cgy[i] += c * pc;
+                course_b += c * pc;
                 uc[i] += c * u;
                 ec[i] += c * pc * (pc > 0 ? v.electron_percent / pc : 0);
             }
+            double di = p->distance_cm[i];
+            if (own && di >= 0 && di < SL_TPS_BAND_CM) {
+                const sl_vec3 q = s->points[i];
+                double tb = sl_rtdose_at(own, q.x * 10, q.y * 10, q.z * 10) * 100;
+                if (tb > 0) {
+                    double *a = od->tps_acc + ((1 + b) * SL_TPS_BINS + (size_t)di) * 4;
+                    double r = course_b / tb;
+                    a[1] += r;
+                    a[2] = a[0] > 0 ? fmin(a[2], r) : r;
+                    a[3] = a[0] > 0 ? fmax(a[3], r) : r;
+                    a[0] += 1;
+                }
+            }
+        }
+    }
+    /* the seam: the planning system's dose within the zone, after the
+     * comparison of the two over the band */
+    for (size_t i = 0; e->tps_used && i < n; i++) {
+        if (dmin[i] >= 0 && dmin[i] < SL_TPS_BAND_CM && tv[i] > 0) {
+            double *a = od->tps_acc + (size_t)dmin[i] * 4;
+            double r = od->course_cgy[i] / tv[i];
+            a[1] += r;
+            a[2] = a[0] > 0 ? fmin(a[2], r) : r;
+            a[3] = a[0] > 0 ? fmax(a[3], r) : r;
+            a[0] += 1;
+        }
+        if (!use[i])
+            continue;
+        od->tps_samples++;
+        od->course_cgy[i] = tv[i];
+        uc[i] = SL_TPS_U_FRACTION * tv[i];
+        ec[i] = tv[i]; /* an electron field's own dose near its edge: all electrons */
+        for (size_t g = 0; g < ng; g++) {
+            dg[g * n + i] = tv[i] / e->fractions[g]; /* one fraction group (checked) */
+            ug[g * n + i] = SL_TPS_U_FRACTION * dg[g * n + i];
         }
     }
     /* statistics of one dose array */
@@ -607,7 +704,14 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         set_stat(mn, sum / vtot, usum / vtot);
         set_stat(nm, dv[inm], uv[inm]);
         set_stat(ne, dv[nearest], uv[nearest]);
-        if (pass < 0) {
+        if (pass < 0 && use[imax]) {
+            /* a planning-system dose carries its stated uncertainty only */
+            od->max_sample = imax;
+            memset(&od->course_max_budget, 0, sizeof od->course_max_budget);
+            od->course_max_budget.combined_cgy = uc[imax];
+            od->electron_fraction = 1;
+            od->max_from_tps = true;
+        } else if (pass < 0) {
             od->max_sample = imax;
             sample_budget(e, o, imax, t, &od->course_max_budget);
             od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
@@ -617,8 +721,17 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     free(ug);
     free(uc);
     free(ec);
+    if (e->tps_used) {
+        double vt = 0;
+        for (size_t i = 0; i < n; i++)
+            vt += use[i] ? (s->is_point ? 1.0 : s->volume_cc[i]) : 0;
+        od->tps_volume_fraction = vtot > 0 ? vt / vtot : 0;
+        od->nearest_from_tps = use[nearest];
+    }
     free(dmin);
     free(order);
+    free(tv);
+    free(use);
     od->estimated = true;
     return SL_OK;
 }
@@ -627,6 +740,98 @@ static void organ_task(size_t o, void *ctx)
 {
     organ_job *j = ctx;
     j->status[o] = organ_task_run(j->e, o);
+}
+
+/* The planning system's doses must belong to the plan and cover each
+ * placed beam exactly once (one PLAN dose, or BEAM doses), and the plan
+ * have one fraction group, so that its course dose divides into fractions. */
+static sl_status check_tps(sl_estimate *e, const sl_plan *plan, const sl_location *loc,
+                           sl_error *err)
+{
+    const sl_estimate_options *opt = &e->opt;
+    if (!(opt->tps_zone_cm > 0 && opt->tps_zone_cm <= 10))
+        return sl_error_set(err, SL_EUSAGE, "planning-system zone %g cm: expected 0 to 10 cm",
+                            opt->tps_zone_cm);
+    if (plan->ngroups != 1)
+        return sl_error_set(err, SL_EUSAGE,
+                            "%s: %zu fraction groups: the planning system's dose can be combined "
+                            "with a plan of one fraction group only",
+                            plan->source, plan->ngroups);
+    for (size_t f = 0; f < opt->ntps; f++) {
+        const sl_rtdose *d = opt->tps[f];
+        sl_status st = sl_rtdose_check_plan(d, plan, err);
+        if (st != SL_OK)
+            return st;
+        if (d->summation == SL_RTDOSE_PLAN && opt->ntps > 1)
+            return sl_error_set(err, SL_EUSAGE,
+                                "%s: a PLAN dose holds every beam: give it alone, not with "
+                                "other doses",
+                                d->source);
+    }
+    if (opt->tps[0]->summation == SL_RTDOSE_BEAM) {
+        for (size_t b = 0; b < loc->nbeams; b++) {
+            int num = loc->beams[b].beam->number, times = 0;
+            for (size_t f = 0; f < opt->ntps; f++)
+                for (size_t k = 0; k < opt->tps[f]->nbeams; k++)
+                    times += opt->tps[f]->beams[k] == num;
+            if (times != 1)
+                return sl_error_set(err, SL_EUSAGE,
+                                    "beam %d of %s is in %d of the BEAM doses given: each "
+                                    "treatment beam must be in exactly one",
+                                    num, plan->source, times);
+        }
+    }
+    e->tps_used = true;
+    e->tps_zone_cm = opt->tps_zone_cm;
+    if (opt->tps[0]->summation == SL_RTDOSE_PLAN && plan->nbeams > loc->nbeams)
+        sl_notes_add(&e->notes,
+                     "the planning system's PLAN dose includes beams not estimated here; within "
+                     "%.1f cm of an estimated field it is used as it is",
+                     e->tps_zone_cm);
+    sl_notes_add(&e->notes,
+                 "the planning system's dose (%s%s) is used within %.1f cm of any field edge, "
+                 "the model beyond: the seam",
+                 opt->tps[0]->source, opt->ntps > 1 ? " and others" : "", e->tps_zone_cm);
+    return SL_OK;
+}
+
+/* The organs' shares of the comparison, added up into the table. */
+static sl_status gather_ratios(sl_estimate *e, sl_error *err)
+{
+    const size_t nrow = 1 + e->nbeams;
+    e->ratios = calloc(nrow * SL_TPS_BINS, sizeof *e->ratios);
+    if (!e->ratios)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t r = 0; r < nrow; r++) {
+        for (size_t k = 0; k < SL_TPS_BINS; k++) {
+            double n = 0, sum = 0, lo = INFINITY, hi = -INFINITY;
+            for (size_t o = 0; o < e->norgans; o++) {
+                const double *a = e->organs[o].tps_acc;
+                if (!a || a[(r * SL_TPS_BINS + k) * 4] == 0)
+                    continue;
+                a += (r * SL_TPS_BINS + k) * 4;
+                n += a[0];
+                sum += a[1];
+                lo = fmin(lo, a[2]);
+                hi = fmax(hi, a[3]);
+            }
+            if (n == 0)
+                continue;
+            sl_tps_ratio *t = &e->ratios[e->nratios++];
+            t->beam_number = r == 0 ? 0 : e->beams[r - 1].place->beam->number;
+            t->lo_cm = (double)k * SL_TPS_BAND_CM / SL_TPS_BINS;
+            t->hi_cm = (double)(k + 1) * SL_TPS_BAND_CM / SL_TPS_BINS;
+            t->n = (size_t)n;
+            t->mean = sum / n;
+            t->min = lo;
+            t->max = hi;
+        }
+    }
+    for (size_t o = 0; o < e->norgans; o++) {
+        free(e->organs[o].tps_acc);
+        e->organs[o].tps_acc = NULL;
+    }
+    return SL_OK;
 }
 
 sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
@@ -688,6 +893,8 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
                              rx, 100 * iso, e->fractions[0], course, 100 * (course / rx - 1));
         }
     }
+    if (st == SL_OK && opt->ntps > 0)
+        st = check_tps(e, plan, loc, err);
     if (st == SL_OK) {
         e->norgans = loc->norgans;
         sl_status *ost = calloc(loc->norgans ? loc->norgans : 1, sizeof *ost);
@@ -710,6 +917,8 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
             free(ost);
         }
     }
+    if (st == SL_OK && e->tps_used)
+        st = gather_ratios(e, err);
     if (st != SL_OK) {
         sl_estimate_free(e);
         return st;

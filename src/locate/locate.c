@@ -4,8 +4,10 @@
  * Order of work: sample every organ once (beam-independent, in patient
  * coordinates), then for each beam build its frame and field outline, project
  * all samples to find the region the outline index must cover, index it, and
- * place the samples in chunks spread over the cores. Summaries come last, on
- * one thread, so they do not depend on how the chunks were scheduled.
+ * place the samples in chunks spread over the cores. Then each organ's
+ * outline is searched between its outline samples near the field (below).
+ * Summaries come last, on one thread, so they do not depend on how the
+ * chunks were scheduled.
  */
 #include "strayline/locate.h"
 #include "strayline/parallel.h"
@@ -123,6 +125,133 @@ static void place_task(size_t t, void *ctx)
         }
         p->flags[i] = flags;
     }
+}
+
+/* ----------------------------------------------- outline refinement -- */
+
+/* The outline samples lie on the contours, but the outline's point nearest
+ * the field edge can fall between two of them (a field corner facing the
+ * middle of a chord). Every outline chord that could hold a point nearer
+ * than the nearest sample found is searched: a scan of OUTLINE_SCAN points,
+ * then a golden-section search around the best of them. The least distance
+ * found on any of them goes to its chord's end nearer that point (when it
+ * is less than that end's own), so the organ's minimum
+ * distance, and the dose of its nearest sample, are those of the outline.
+ * A chord end moves the signed distance by at most its offset times the
+ * divergence factor, a little over 1: the 0.6 below keeps a margin. */
+#define OUTLINE_SCAN 16
+#define OUTLINE_GOLDEN 40
+
+static double field_distance(const sl_beam_place *bp, sl_vec3 q, bool *ok)
+{
+    sl_vec2 uv;
+    double scale;
+    *ok = sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, q), &uv, &scale);
+    return *ok ? scale * sl_outline_distance(bp->field.edge, uv) : INFINITY;
+}
+
+static sl_vec3 lerp3(sl_vec3 a, sl_vec3 b, double t)
+{
+    return (sl_vec3){a.x + t * (b.x - a.x), a.y + t * (b.y - a.y), a.z + t * (b.z - a.z)};
+}
+
+/* Least distance along chord ab (ends excluded) and its parameter. */
+static double chord_minimum(const sl_beam_place *bp, sl_vec3 a, sl_vec3 b, double *t_out)
+{
+    *t_out = 0;
+    double best = INFINITY, tb = 0;
+    int ib = 0;
+    for (int i = 1; i < OUTLINE_SCAN; i++) {
+        bool ok;
+        double t = (double)i / OUTLINE_SCAN;
+        double d = field_distance(bp, lerp3(a, b, t), &ok);
+        if (d < best) {
+            best = d;
+            tb = t;
+            ib = i;
+        }
+    }
+    if (!isfinite(best))
+        return INFINITY;
+    const double gr = 0.5 * (sqrt(5.0) - 1);
+    double lo = (double)(ib - 1) / OUTLINE_SCAN, hi = (double)(ib + 1) / OUTLINE_SCAN;
+    double x1 = hi - gr * (hi - lo), x2 = lo + gr * (hi - lo);
+    bool ok1, ok2;
+    double f1 = field_distance(bp, lerp3(a, b, x1), &ok1);
+    double f2 = field_distance(bp, lerp3(a, b, x2), &ok2);
+    for (int k = 0; k < OUTLINE_GOLDEN; k++) {
+        if (f1 < f2) {
+            hi = x2;
+            x2 = x1;
+            f2 = f1;
+            x1 = hi - gr * (hi - lo);
+            f1 = field_distance(bp, lerp3(a, b, x1), &ok1);
+        } else {
+            lo = x1;
+            x1 = x2;
+            f1 = f2;
+            x2 = lo + gr * (hi - lo);
+            f2 = field_distance(bp, lerp3(a, b, x2), &ok2);
+        }
+    }
+    if (f1 < best) {
+        best = f1;
+        tb = x1;
+    }
+    if (f2 < best) {
+        best = f2;
+        tb = x2;
+    }
+    *t_out = tb;
+    return best;
+}
+
+typedef struct refine_job {
+    sl_location *loc;
+    sl_beam_place *bp;
+} refine_job;
+
+static void refine_task(size_t o, void *ctx)
+{
+    refine_job *j = ctx;
+    const sl_organ_samples *s = &j->loc->samples[o];
+    sl_organ_place *p = &j->bp->organs[o];
+    if (!s->n_outline)
+        return;
+    double m = INFINITY;
+    for (size_t i = 0; i < s->n; i++)
+        if (!(p->flags[i] & SL_SAMPLE_BEHIND_SOURCE))
+            m = fmin(m, p->distance_cm[i]);
+    if (!isfinite(m))
+        return;
+    size_t base = s->n - s->n_outline;
+    /* each chord's least distance is written after all are searched, so
+     * that the candidates do not depend on the order of the search */
+    double best = INFINITY;
+    size_t best_i = 0;
+    for (size_t l = 0; l < s->noutline_loops; l++) {
+        size_t first = s->outline_loop_first[l], end = s->outline_loop_first[l + 1];
+        if (end - first < 2)
+            continue;
+        for (size_t k = first; k < end; k++) {
+            size_t ia = base + k, ib = base + (k + 1 < end ? k + 1 : first);
+            if ((p->flags[ia] | p->flags[ib]) & SL_SAMPLE_BEHIND_SOURCE)
+                continue;
+            sl_vec3 a = s->points[ia], b = s->points[ib];
+            double len = sqrt((b.x - a.x) * (b.x - a.x) + (b.y - a.y) * (b.y - a.y) +
+                              (b.z - a.z) * (b.z - a.z));
+            if (!(fmin(p->distance_cm[ia], p->distance_cm[ib]) <= m + 0.6 * len))
+                continue;
+            double t = 0;
+            double d = chord_minimum(j->bp, a, b, &t);
+            if (d < best) {
+                best = d;
+                best_i = t < 0.5 ? ia : ib;
+            }
+        }
+    }
+    if (best < p->distance_cm[best_i])
+        p->distance_cm[best_i] = best;
 }
 
 static void summarise(const sl_organ_samples *s, sl_organ_place *p)
@@ -314,6 +443,8 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
     free(job.task_organ);
     free(job.task_first);
+    refine_job rj = {loc, bp};
+    sl_parallel_for(loc->norgans, sl_parallel_threads(opt->threads), refine_task, &rj);
     for (size_t o = 0; body && o < loc->norgans; o++)
         for (size_t i = 0; i < loc->samples[o].n; i++)
             if (isnan(bp->organs[o].depth_cm[i]) &&

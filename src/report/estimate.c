@@ -340,6 +340,44 @@ static void text_table(FILE *fp, const sl_estimate_report *r, bool fetus)
     }
 }
 
+/* --tps-dose: where each organ's dose came from, and the two compared. */
+static void text_tps(FILE *fp, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    fprintf(fp, "\nplanning system's dose: within %.1f cm of any field edge (the seam); the model "
+                "beyond\n",
+            e->tps_zone_cm);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated)
+            continue;
+        char nm[160];
+        fprintf(fp, "  %-20s %5.1f %% of the volume from the planning system; maximum from the "
+                    "%s, nearest point from the %s",
+                sl_text_escape(d->roi->name, nm, sizeof nm), 100 * d->tps_volume_fraction,
+                d->max_from_tps ? "planning system" : "model",
+                d->nearest_from_tps ? "planning system" : "model");
+        if (d->tps_outside_grid)
+            fprintf(fp, "; %zu samples in the zone outside its grid (model)", d->tps_outside_grid);
+        fputc('\n', fp);
+    }
+    if (!e->nratios)
+        return;
+    fprintf(fp, "  model / planning system, course dose, by distance from the nearest field "
+                "edge:\n  %-10s %-12s %8s %8s %8s %8s\n",
+            "beam", "distance cm", "samples", "mean", "min", "max");
+    for (size_t k = 0; k < e->nratios; k++) {
+        const sl_tps_ratio *t = &e->ratios[k];
+        char b[16];
+        if (t->beam_number)
+            snprintf(b, sizeof b, "%d", t->beam_number);
+        else
+            snprintf(b, sizeof b, "all");
+        fprintf(fp, "  %-10s %4.1f - %-5.1f %8zu %8.3f %8.3f %8.3f\n", b, t->lo_cm, t->hi_cm, t->n,
+                t->mean, t->min, t->max);
+    }
+}
+
 static void text_report(FILE *fp, const sl_estimate_report *r)
 {
     char nm[160]; /* a ROI name, control characters escaped */
@@ -485,6 +523,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                                                   : "not reached");
         }
     }
+    if (r->est->tps_used)
+        text_tps(fp, r);
     fprintf(fp, "\ncautions:\n");
     for (size_t i = 0; i < nc; i++)
         fprintf(fp, "  - %s\n", cautions[i]);
@@ -709,6 +749,16 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_bool(w, x, "incomplete", a->incomplete);
         jw_num_opt(w, x, "other_dose_cgy", a->other_cgy > 0 ? a->other_cgy : NAN);
         jw_bool(w, x, "geometry_measured_on_patient", d->landmark);
+        if (e->tps_used && d->estimated) { /* where its dose came from (--tps-dose) */
+            jw_str(w, x, "dose_source",
+                   d->tps_samples == 0              ? "model"
+                   : d->tps_volume_fraction >= 1.0 ? "planning system"
+                                                    : "planning system and model");
+            jw_num(w, x, "planning_system_volume_fraction", d->tps_volume_fraction);
+            jw_bool(w, x, "max_from_planning_system", d->max_from_tps);
+            jw_bool(w, x, "nearest_from_planning_system", d->nearest_from_tps);
+            jw_int(w, x, "zone_samples_outside_planning_grid", (long long)d->tps_outside_grid);
+        }
         jw_num(w, x, "volume_cc", d->volume_cc);
         jw_bool(w, x, "point", d->is_point);
         jw_num_opt(w, x, "min_distance_cm", isfinite(d->min_distance_cm) ? d->min_distance_cm : NAN);
@@ -838,6 +888,32 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_append(w, ob, bo);
     }
     jw_put(w, root, "other_treatment_beams", ob);
+    if (e->tps_used) {
+        json_object *tp = json_object_new_object();
+        json_object *files = json_object_new_array();
+        for (size_t f = 0; f < e->opt.ntps; f++)
+            jw_append(w, files, json_object_new_string(e->opt.tps[f]->source));
+        jw_put(w, tp, "files", files);
+        jw_num(w, tp, "zone_cm", e->tps_zone_cm);
+        json_object *rows = json_object_new_array();
+        for (size_t k = 0; k < e->nratios; k++) {
+            const sl_tps_ratio *t = &e->ratios[k];
+            json_object *ro = json_object_new_object();
+            if (t->beam_number)
+                jw_int(w, ro, "beam_number", t->beam_number);
+            else
+                jw_put(w, ro, "beam_number", NULL); /* every beam together */
+            jw_num(w, ro, "from_cm", t->lo_cm);
+            jw_num(w, ro, "to_cm", t->hi_cm);
+            jw_int(w, ro, "samples", (long long)t->n);
+            jw_num(w, ro, "ratio_mean", t->mean);
+            jw_num(w, ro, "ratio_min", t->min);
+            jw_num(w, ro, "ratio_max", t->max);
+            jw_append(w, rows, ro);
+        }
+        jw_put(w, tp, "model_to_planning_system", rows);
+        jw_put(w, root, "planning_system_dose", tp);
+    }
     jw_int(w, root, "organs_incomplete", (long long)r->as->n_incomplete);
     jw_put(w, root, "organs_not_found", jw_notes(w, &r->as->missing));
     sl_notes all = {0};

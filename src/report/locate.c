@@ -157,6 +157,7 @@ static json_object *json_report(jw *w, const sl_plan *plan, const sl_structure_s
             jw_bool(w, oo, "point", s->is_point);
             jw_num(w, oo, "volume_cc", s->volume_cc_total);
             jw_int(w, oo, "samples", (long long)s->n);
+            jw_int(w, oo, "outline_samples", (long long)s->n_outline);
             jw_num(w, oo, "pitch_cm", s->pitch_cm);
             jw_num_opt(w, oo, "min_distance_cm", p->min_distance_cm);
             jw_num_opt(w, oo, "mean_distance_cm", p->mean_distance_cm);

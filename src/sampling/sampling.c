@@ -38,6 +38,7 @@ void sl_organ_samples_free(sl_organ_samples *s)
         return;
     free(s->points);
     free(s->volume_cc);
+    free(s->outline_loop_first);
     sl_notes_free(&s->notes);
     memset(s, 0, sizeof *s);
 }
@@ -221,6 +222,102 @@ static void fill_slice(const sl_slice_stack *st, const sl_slice *sl, double h, g
     }
 }
 
+/* Consecutive contour vertices one outline chord may replace at most, so
+ * that thinning a contour of a million vertices stays linear. */
+#define OUTLINE_RUN 64
+
+static bool run_is_straight(const sl_vec2 *p, size_t n, size_t a, size_t e, double tol)
+{
+    sl_vec2 pa = p[a % n], pe = p[e % n];
+    for (size_t k = a + 1; k < e; k++)
+        if (sl_p2_seg_dist2(p[k % n], pa, pe, NULL) > tol * tol)
+            return false;
+    return true;
+}
+
+/* One closed loop's outline samples: every vertex where the outline bends by
+ * more than `tol` from the chord of the kept run, so that the chords between
+ * kept points never stray more than `tol` from the outline, and edges longer
+ * than `spacing` cut into equal pieces. Points lie on the contour itself. */
+static void outline_loop(const sl_vec2 *p, size_t n, double z, double spacing, double tol,
+                         growing *g)
+{
+    push(g, (sl_vec3){p[0].x, p[0].y, z}, 0.0);
+    size_t a = 0;
+    while (a < n) {
+        sl_vec2 pa = p[a], pb = p[(a + 1) % n];
+        double arc = hypot(pb.x - pa.x, pb.y - pa.y);
+        if (arc > spacing) {
+            size_t m = (size_t)ceil(arc / spacing);
+            for (size_t i = 1; i < m; i++) {
+                double t = (double)i / (double)m;
+                push(g, (sl_vec3){pa.x + t * (pb.x - pa.x), pa.y + t * (pb.y - pa.y), z}, 0.0);
+            }
+            if (a + 1 < n)
+                push(g, (sl_vec3){pb.x, pb.y, z}, 0.0);
+            a++;
+            continue;
+        }
+        size_t e = a + 1;
+        while (e + 1 <= n && e + 1 - a <= OUTLINE_RUN) {
+            sl_vec2 q0 = p[e % n], q1 = p[(e + 1) % n];
+            double more = arc + hypot(q1.x - q0.x, q1.y - q0.y);
+            if (more > spacing || !run_is_straight(p, n, a, e + 1, tol))
+                break;
+            arc = more;
+            e++;
+        }
+        if (e < n)
+            push(g, (sl_vec3){p[e].x, p[e].y, z}, 0.0);
+        a = e;
+    }
+}
+
+/* Append the outline samples of every closed loop (see sampling.h). A ROI
+ * whose outline would pass the sample cap gets a coarser spacing, noted. */
+static sl_status sample_outline(const sl_roi *roi, const sl_slice_stack *st, double pitch,
+                                sl_organ_samples *out, growing *g)
+{
+    size_t base = out->n;
+    double vol = out->volume_cc_total;
+    out->outline_loop_first = malloc((st->nloops + 1) * sizeof *out->outline_loop_first);
+    if (!out->outline_loop_first)
+        return SL_ENOMEM;
+    double spacing = pitch;
+    for (int round = 0;; round++) {
+        g->limit = base + MAX_SAMPLES;
+        size_t k = 0;
+        for (size_t i = 0; i < st->nslices && !g->failed && !g->overflow; i++) {
+            const sl_slice *sl = &st->slices[i];
+            for (size_t j = 0; j < sl->count && !g->overflow; j++) {
+                out->outline_loop_first[k++] = out->n - base;
+                outline_loop(st->loops[sl->first + j], st->loop_n[sl->first + j], sl->z_cm,
+                             spacing, SL_OUTLINE_TOL_CM * (round + 1), g);
+            }
+        }
+        if (g->failed)
+            return SL_ENOMEM;
+        if (!g->overflow) {
+            out->outline_loop_first[k] = out->n - base;
+            out->noutline_loops = k;
+            break;
+        }
+        if (round == MAX_COARSENINGS)
+            return SL_EINPUT;
+        out->n = base;
+        out->volume_cc_total = vol;
+        g->overflow = false;
+        spacing *= 2;
+    }
+    out->n_outline = out->n - base;
+    if (spacing > pitch)
+        sl_notes_add(&out->notes,
+                     "ROI '%s': its outline is sampled every %.2f cm at most (coarser than the "
+                     "lattice) to stay within %d outline samples",
+                     roi->name, spacing, MAX_SAMPLES);
+    return SL_OK;
+}
+
 sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_options *opt,
                         sl_organ_samples *out, sl_error *err)
 {
@@ -330,8 +427,18 @@ sl_status sl_sample_roi(const sl_roi *roi, const char *file, const sl_sampling_o
                      roi->name, h, MAX_SAMPLES);
     out->pitch_cm = h;
     out->nslices = st.nslices;
+    if (!g.failed) {
+        rc = sample_outline(roi, &st, h, out, &g);
+        if (rc == SL_EINPUT) {
+            sl_slices_free(&st);
+            sl_organ_samples_free(out);
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: ROI '%s': its outline cannot be sampled within %d samples",
+                                file, roi->name, MAX_SAMPLES);
+        }
+    }
     sl_slices_free(&st);
-    if (g.failed) {
+    if (g.failed || rc != SL_OK) {
         sl_organ_samples_free(out);
         return sl_error_set(err, SL_ENOMEM, "out of memory sampling ROI '%s'", roi->name);
     }

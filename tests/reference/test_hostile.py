@@ -72,6 +72,53 @@ class StrictNumbers(unittest.TestCase):
             b, _ = estimate_json(odd, SS)
         self.assertEqual(organ_doses(a), organ_doses(b))
 
+    def test_contour_data_in_every_legal_form_reads_the_same(self):
+        """Every Contour Data value of the structure set rewritten in a legal
+        DS form (sign, exponent, spaces, a bare point) that Python's float()
+        reads as exactly the same number: the estimate is unchanged. A
+        subnormal coordinate (1e-310, which C's strtod refuses with ERANGE)
+        is refused by name."""
+        forms = ["%+.6E", " %.6e", "%.6f ", "%.3f", "%r"]
+
+        def rewrite(ds, pick):
+            for rc_item in ds.ROIContourSequence:
+                for k, c in enumerate(rc_item.ContourSequence):
+                    vals = [float(v) for v in c.ContourData]
+                    text = "\\".join(pick(v, k + i) for i, v in enumerate(vals))
+                    raw(c, 0x30060050, "DS", text)
+
+        def legal(v, i):
+            for f in forms[i % len(forms):] + forms:
+                t = f % v
+                if float(t) == v:  # Python's float(), correctly rounded
+                    if t.startswith("0.") and len(t) > 2:
+                        t = t[1:]  # ".5"
+                    elif t.endswith(".0"):
+                        t = t[:-1]  # "12."
+                    return t
+            return repr(v)
+
+        with tempdir() as d:
+            ds = pydicom.dcmread(SS)
+            rewrite(ds, legal)
+            odd = os.path.join(d, "odd.dcm")
+            ds.save_as(odd)
+            a, _ = estimate_json(PLAN, SS)
+            b, _ = estimate_json(PLAN, odd)
+            self.assertEqual(organ_doses(a), organ_doses(b))
+            ds = pydicom.dcmread(SS)
+            c = ds.ROIContourSequence[2].ContourSequence[1]
+            vals = ["%r" % float(v) for v in c.ContourData]
+            vals[4] = "1e-310"
+            raw(c, 0x30060050, "DS", "\\".join(vals))
+            bad = os.path.join(d, "sub.dcm")
+            ds.save_as(bad)
+            rc, out, err = run("estimate", PLAN, bad, "--model", MODEL)
+        self.assertEqual(rc, 3, err)
+        self.assertIn("ContourData", err)
+        self.assertIn("value 5 '1e-310'", err)
+        self.assertEqual(out, "")
+
     def test_the_examples_of_the_report_are_refused_by_name(self):
         cases = [(0x300A0078, "IS", "1e2", "NumberOfFractionsPlanned"),
                  (0x300A0086, "DS", "3 50", "BeamMeterset")]

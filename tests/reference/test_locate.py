@@ -277,6 +277,82 @@ class BoxPhantom(unittest.TestCase):
                         beam["warnings"])
 
 
+class OutlineDistance(unittest.TestCase):
+    """The minimum distance of a large organ, sampled on a coarse lattice
+    (0.5 cm), is that of its contoured outline, not of the lattice point
+    nearest the field. HFS G0, SAD = SSD = 100 cm, a 10 x 10 cm field at the
+    surface (the box phantom); contours of 600 points every 5 mm."""
+
+    def outline_reference(self, contours, refine=1):
+        """Least divergence-scaled distance from the field edge over the
+        written contours' vertices (and, with refine > 1, points between
+        them): the point (x, y, z) cm lies in the plane where the field edge
+        is at 5 s, s = (100 + y) / 100 (similar triangles); its distance
+        there is s times the distance of (x / s, z / s) from the 10 cm square
+        on the isocentric plane, taken from shapely (GEOS)."""
+        square = Polygon([(-5, -5), (5, -5), (5, 5), (-5, 5)])
+        best = math.inf
+        for _, pts in contours:
+            p = np.asarray(pts, float) / 10
+            q = np.roll(p, -1, axis=0)
+            for f in np.arange(refine) / refine:
+                for x, y, z in p + f * (q - p):
+                    s = (100 + y) / 100
+                    pt = Point(x / s, z / s)
+                    d = s * square.exterior.distance(pt) * (-1 if square.contains(pt) else 1)
+                    best = min(best, d)
+        return best
+
+    def test_ellipsoid_five_cm_from_the_edge(self):
+        """Semi-axes a = 5 cm (x), b = 6 cm (depth y), c = 4.5 cm (z),
+        centred at depth 8 cm. Every point has |z| < 5 s, so its distance
+        is x - 5 s = x - 5 - 0.05 y, a linear function whose least value on
+        the ellipse of the central plane is cx - 5 - 0.05 cy - sqrt(a^2 +
+        0.05^2 b^2) (the support function of an ellipse): cx is chosen so
+        that this is 5 cm. The 600-point contours lie within 0.001 mm of the
+        ellipse there (sagitta of a 0.6 mm chord on a 7 cm radius)."""
+        a, b, c, cy = 5.0, 6.0, 4.5, 8.0
+        want = 5.0
+        cx = want + 5 + 0.05 * cy + math.sqrt(a * a + 0.0025 * b * b)
+        contours = rb.ellipsoid((cx * 10, cy * 10, 0.0), (a * 10, b * 10, c * 10), 5.0, n=600)
+        roi = {"name": "Ellipsoid", "type": "ORGAN", "contours": contours}
+        with tempdir() as d:
+            plan, ss = box_phantom(d, points=[], extra_rois=[roi])
+            js = locate_json(plan, ss)
+        o = organs_by_name(js["beams"][0])["Ellipsoid"]
+        self.assertGreaterEqual(o["pitch_cm"], 0.45)  # the lattice is coarse
+        self.assertGreater(o["outline_samples"], 0)
+        ref = self.outline_reference(contours)
+        self.assertAlmostEqual(ref, want, delta=0.001)
+        self.assertAlmostEqual(o["min_distance_cm"], want, delta=0.01)  # 0.1 mm
+        self.assertAlmostEqual(o["min_distance_cm"], ref, delta=0.01)
+        # the nearest point is on the contoured outline (shapely)
+        nx, ny, nz = o["nearest_point_cm"]
+        plane = [pts for _, pts in contours if abs(pts[0][2] / 10 - nz) < 1e-9]
+        self.assertEqual(len(plane), 1)
+        ring = Polygon(np.asarray(plane[0])[:, :2] / 10).exterior
+        self.assertLess(ring.distance(Point(nx, ny)), 1e-6)
+        # the outline carries no volume: 4/3 pi a b c by the lattice
+        self.assertAlmostEqual(o["volume_cc"], 4 / 3 * math.pi * a * b * c, delta=0.02 * 565)
+        self.assertEqual(o["in_field_fraction"], 0.0)
+
+    def test_ellipsoid_facing_a_field_corner(self):
+        """Beyond the field's corner the nearest point of the outline can
+        lie between contour vertices: the reference takes 20 points along
+        every edge of the written contours that face the corner."""
+        contours = rb.ellipsoid((120.0, 60.0, 110.0), (40.0, 30.0, 40.0), 5.0, n=600)
+        roi = {"name": "Corner", "type": "ORGAN", "contours": contours}
+        with tempdir() as d:
+            plan, ss = box_phantom(d, points=[], extra_rois=[roi])
+            js = locate_json(plan, ss)
+        o = organs_by_name(js["beams"][0])["Corner"]
+        # the contours nearest the corner: the ones below the centre, their
+        # outer quarter (x < 120 mm or z < 110 mm would face away)
+        near = [(None, pts) for _, pts in contours if pts[0][2] < 110.0]
+        ref = self.outline_reference(near, refine=20)
+        self.assertAlmostEqual(o["min_distance_cm"], ref, delta=0.01)
+
+
 class BadGeometry(unittest.TestCase):
     def test_self_intersecting_cutout_is_an_error(self):
         with tempdir() as d:

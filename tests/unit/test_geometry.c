@@ -399,6 +399,55 @@ START_TEST(resolution_adapts_to_size)
 }
 END_TEST
 
+/* Outline samples: on the contours (here a square of 4 vertices, 6 cm a
+ * side, whose edges are cut to the lattice pitch, and a 400-point circle),
+ * in contour order, no chord longer than the pitch, volume 0; the volume
+ * is the lattice's alone (the exact 6 x 6 x 1 cm and the 400-gon's
+ * n/2 r^2 sin(2 pi / n) x 1 cm, each twice). */
+START_TEST(outline_samples)
+{
+    roi_builder b = {0};
+    for (int k = 0; k < 2; k++) {
+        double z = 5.0 + 10.0 * k;
+        sl_vec3 sq[4] = {{-30, -30, z}, {30, -30, z}, {30, 30, z}, {-30, 30, z}};
+        rb_add(&b, SL_CONTOUR_CLOSED_PLANAR, sq, 4);
+        rb_circle(&b, 100, 0, 20, z, 400, false);
+    }
+    sl_sampling_options opt;
+    sl_sampling_default_options(&opt);
+    sl_organ_samples s;
+    sl_error e = {0};
+    b.roi.name = "outline";
+    ck_assert_int_eq(sl_sample_roi(&b.roi, "t", &opt, &s, &e), SL_OK);
+    ck_assert_uint_eq(s.noutline_loops, 4);
+    ck_assert_uint_gt(s.n_outline, 0);
+    size_t base = s.n - s.n_outline;
+    double vlat = 0;
+    for (size_t i = 0; i < base; i++)
+        vlat += s.volume_cc[i];
+    ck_assert_double_eq_tol(vlat, s.volume_cc_total, 1e-9);
+    ck_assert_double_eq_tol(s.volume_cc_total, 36 * 2 + 200 * 4 * sin(2 * M_PI / 400) * 2, 1e-6);
+    for (size_t l = 0; l < s.noutline_loops; l++) {
+        size_t f = s.outline_loop_first[l], end = s.outline_loop_first[l + 1];
+        ck_assert_uint_gt(end - f, 3);
+        for (size_t k = f; k < end; k++) {
+            sl_vec3 p = s.points[base + k], q = s.points[base + (k + 1 < end ? k + 1 : f)];
+            ck_assert_double_eq(s.volume_cc[base + k], 0);
+            ck_assert(hypot(q.x - p.x, q.y - p.y) <= s.pitch_cm + 1e-12);
+            bool square = fabs(p.x) < 3.5;
+            double off = square ? fmin(fabs(fabs(p.x) - 3), fabs(fabs(p.y) - 3))
+                                : fabs(hypot(p.x - 10, p.y) - 2);
+            /* the circle's own vertices lie on it; the square's pieces on its sides */
+            ck_assert_msg(off < 1e-9, "outline sample %zu off its contour by %g cm", k, off);
+            if (square)
+                ck_assert(fabs(p.x) <= 3 + 1e-12 && fabs(p.y) <= 3 + 1e-12);
+        }
+    }
+    sl_organ_samples_free(&s);
+    rb_free(&b);
+}
+END_TEST
+
 START_TEST(points_and_open_contours)
 {
     roi_builder b = {0};
@@ -633,6 +682,7 @@ static Suite *geometry_suite(void)
     tcase_add_test(tc, shell_volume);
     tcase_add_test(tc, slice_area_matches_shoelace);
     tcase_add_test(tc, resolution_adapts_to_size);
+    tcase_add_test(tc, outline_samples);
     tcase_add_test(tc, points_and_open_contours);
     tcase_add_test(tc, degenerate_rois_are_refused);
     tcase_add_test(tc, body_path_lengths_in_a_box);

@@ -1,0 +1,313 @@
+"""`strayline estimate --tps-dose`: the planning system's dose near the field,
+the model beyond, against references outside the tool:
+
+- an RT Dose written here with pydicom (DICOM PS3.3 A.18 RT Dose IOD, C.8.8.3
+  RT Dose Module: Dose Grid Scaling, Grid Frame Offset Vector relative to
+  Image Position (Patient), Pixel Spacing as row spacing then column spacing)
+  holding an analytic dose that is linear in x, y and z: trilinear
+  interpolation reproduces a linear function exactly, so the organ doses
+  taken from the grid must equal the formula at the organ's points (to the
+  grid's 1e-6 Gy quantisation);
+- beyond the zone the model's arithmetic by hand, as in test_estimate
+  (models/README.md formulas);
+- the ratio model / planning system in the comparison band worked out from
+  those two;
+- a dose grid of another Frame of Reference, or computed for another plan,
+  refused by name (DICOM PS3.3 C.7.4.1: the Frame of Reference UID is what
+  ties a dose grid to the patient's coordinates);
+- the JSON report against models/estimate-report.schema.json (jsonschema).
+"""
+import json
+import math
+import os
+import subprocess
+import unittest
+
+import jsonschema
+import numpy as np
+import pydicom
+from pydicom.dataset import Dataset, FileMetaDataset
+from pydicom.sequence import Sequence
+from pydicom.uid import ExplicitVRLittleEndian
+
+from common import run, tempdir
+import rtbuild as rb  # noqa: E402
+from test_estimate import (SCHEMA, box_case, estimate, model_percent, organ, output,
+                           point_geometry)
+
+RT_DOSE = "1.2.840.10008.5.1.4.1.1.481.2"
+
+# the analytic dose (Gy over the course), x, y, z in mm; positive over the grid
+A, BX, BY, BZ = 2.0, 0.004, 0.005, -0.002
+
+
+def analytic_gy(x, y, z):
+    return A + BX * x + BY * y + BZ * z
+
+
+def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN", beams=(),
+                 bits=32):
+    """An axial RT Dose grid: x -150..150 mm, y -10..100 mm, z -50..50 mm,
+    every 2.5 mm, of the analytic dose, stored as integers times Dose Grid
+    Scaling."""
+    plan = pydicom.dcmread(plan_path)
+    xs = np.arange(-150.0, 150.0 + 1e-9, 2.5)
+    ys = np.arange(-10.0, 100.0 + 1e-9, 2.5)
+    zs = np.arange(-50.0, 50.0 + 1e-9, 2.5)
+    zz, yy, xx = np.meshgrid(zs, ys, xs, indexing="ij")
+    gy = analytic_gy(xx, yy, zz)
+    scale = 1e-6 if bits == 32 else 1e-4
+    raw = np.rint(gy / scale).astype("<u4" if bits == 32 else "<u2")
+    ds = Dataset()
+    ds.file_meta = FileMetaDataset()
+    ds.file_meta.MediaStorageSOPClassUID = RT_DOSE
+    ds.file_meta.MediaStorageSOPInstanceUID = rb.uid(path, "dose")
+    ds.file_meta.TransferSyntaxUID = ExplicitVRLittleEndian
+    ds.SOPClassUID = RT_DOSE
+    ds.SOPInstanceUID = ds.file_meta.MediaStorageSOPInstanceUID
+    ds.StudyInstanceUID = plan.StudyInstanceUID
+    ds.SeriesInstanceUID = rb.uid(path, "series")
+    ds.Modality = "RTDOSE"
+    ds.PatientName = plan.PatientName
+    ds.PatientID = plan.PatientID
+    ds.FrameOfReferenceUID = frame or plan.FrameOfReferenceUID
+    ds.ImagePositionPatient = [float(xs[0]), float(ys[0]), float(zs[0])]
+    ds.ImageOrientationPatient = [1, 0, 0, 0, 1, 0]
+    ds.SamplesPerPixel = 1
+    ds.PhotometricInterpretation = "MONOCHROME2"
+    ds.NumberOfFrames = len(zs)
+    ds.FrameIncrementPointer = 0x3004000C
+    ds.Rows = len(ys)
+    ds.Columns = len(xs)
+    ds.PixelSpacing = [2.5, 2.5]
+    ds.BitsAllocated = bits
+    ds.BitsStored = bits
+    ds.HighBit = bits - 1
+    ds.PixelRepresentation = 0
+    ds.DoseUnits = "GY"
+    ds.DoseType = "PHYSICAL"
+    ds.DoseSummationType = summation
+    ds.GridFrameOffsetVector = [float(z - zs[0]) for z in zs]
+    ds.DoseGridScaling = scale
+    ref = Dataset()
+    ref.ReferencedSOPClassUID = rb.RT_PLAN
+    ref.ReferencedSOPInstanceUID = plan_uid or plan.SOPInstanceUID
+    if summation == "BEAM":
+        fg = Dataset()
+        fg.ReferencedFractionGroupNumber = 1
+        items = []
+        for b in beams:
+            it = Dataset()
+            it.ReferencedBeamNumber = b
+            items.append(it)
+        fg.ReferencedBeamSequence = Sequence(items)
+        ref.ReferencedFractionGroupSequence = Sequence([fg])
+    ds.ReferencedRTPlanSequence = Sequence([ref])
+    ds.PixelData = raw.tobytes()
+    ds.is_little_endian = True
+    ds.is_implicit_VR = False
+    ds.preamble = b"\0" * 128
+    pydicom.dcmwrite(path, ds, write_like_original=False)
+    return path
+
+
+# Organs of the box phantom (x, depth) in cm: one in the field, one 1.5 cm
+# beyond its edge (inside the 3 cm zone), one 6.9 cm beyond (the model's).
+POINTS = [("in", 2.0, 1.0), ("near", 6.5, 1.0), ("far", 12.0, 1.3)]
+MU, N_FX = 250.0, 5
+
+
+def case(d, **dose):
+    pts = [(n, (x * 10, z * 10, 0.0)) for n, x, z in POINTS]
+    # a small box organ across the seam: 7..9.5 cm off axis, 0.5..1.5 cm deep
+    extra = [{"number": 10, "name": "across", "type": "ORGAN",
+              "contours": rb.box(70.0, 95.0, 5.0, 15.0, -10.0, 10.0, 2.5)}]
+    plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                        [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
+    # box_case has no volume organs: add the box to its structure set
+    s = pydicom.dcmread(ss)
+    more = rb.structure_dataset({"name": str(s.PatientName), "id": s.PatientID}, label="EST",
+                                rois=extra, frame_uid=s.FrameOfReferenceUID, seed="x")
+    s.StructureSetROISequence.append(more.StructureSetROISequence[0])
+    s.ROIContourSequence.append(more.ROIContourSequence[0])
+    s.RTROIObservationsSequence.append(more.RTROIObservationsSequence[0])
+    s.save_as(ss)
+    rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan, **dose)
+    return plan, ss, rtd
+
+
+class FromTheGrid(unittest.TestCase):
+    def test_zone_from_grid_beyond_from_model(self):
+        with tempdir() as d:
+            plan, ss, rtd = case(d)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+            rc_t, text, _ = run("estimate", plan, ss, "--model",
+                                os.path.join(os.path.dirname(SCHEMA), "demo-e1.yaml"),
+                                "--tps-dose", rtd)
+        self.assertIn(rc, (0, 4), err)
+        jsonschema.validate(js, json.load(open(SCHEMA)))
+        ref = MU * output(12, "A10")["dose_per_mu_cgy"]  # SSD 100: inverse square 1
+        for name, x, z in POINTS:
+            o = organ(js, name)
+            dist, depth = point_geometry(x, z)
+            self.assertTrue(o["estimated"], name)
+            if dist < 3.0:
+                want = 100 * analytic_gy(x * 10, z * 10, 0.0)  # cGy over the course
+                self.assertEqual(o["dose_source"], "planning system", name)
+                self.assertTrue(o["max_from_planning_system"])
+                self.assertAlmostEqual(o["course_max_cgy"], want, delta=1e-3, msg=name)
+                self.assertAlmostEqual(o["per_fraction"][0]["max_cgy"], want / N_FX,
+                                       delta=1e-3, msg=name)
+                # the stated 5 % (k = 1) of a planning-system dose
+                self.assertAlmostEqual(o["course_max_u_cgy"], 0.05 * want, delta=1e-3)
+            else:
+                v, _ = model_percent(12, "A10", depth, dist)
+                want = ref * N_FX * v / 100
+                self.assertEqual(o["dose_source"], "model", name)
+                self.assertAlmostEqual(o["course_max_cgy"], want, delta=1e-6 * want, msg=name)
+        across = organ(js, "across")
+        self.assertEqual(across["dose_source"], "planning system and model")
+        self.assertGreater(across["planning_system_volume_fraction"], 0.2)
+        self.assertLess(across["planning_system_volume_fraction"], 0.8)
+        # the comparison: the 1-2 cm bin holds 'near' (and part of 'across');
+        # 'near' alone gives a known ratio, so the bin's extremes bracket it
+        tp = js["planning_system_dose"]
+        self.assertEqual(tp["zone_cm"], 3.0)
+        dist, depth = point_geometry(6.5, 1.0)
+        v, _ = model_percent(12, "A10", depth, dist)
+        ratio = (ref * N_FX * v / 100) / (100 * analytic_gy(65.0, 10.0, 0.0))
+        row = next(r for r in tp["model_to_planning_system"]
+                   if r["beam_number"] is None and r["from_cm"] == 1.0)
+        self.assertLessEqual(row["ratio_min"], ratio + 1e-6)
+        self.assertGreaterEqual(row["ratio_max"], ratio - 1e-6)
+        self.assertIn(rc_t, (0, 4))
+        self.assertIn("planning system's dose: within 3.0 cm", text)
+
+    def test_beam_dose_gives_the_beam_its_row(self):
+        """A BEAM dose of the plan's one beam: the same organ doses, and the
+        comparison per beam equals the comparison of every beam together."""
+        with tempdir() as d:
+            plan, ss, rtd = case(d, summation="BEAM", beams=(1,), bits=16)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        self.assertIn(rc, (0, 4), err)
+        want = 100 * analytic_gy(65.0, 10.0, 0.0)
+        # 16-bit storage: 1e-4 Gy steps
+        self.assertAlmostEqual(organ(js, "near")["course_max_cgy"], want, delta=0.02)
+        rows = js["planning_system_dose"]["model_to_planning_system"]
+        every = {r["from_cm"]: r for r in rows if r["beam_number"] is None}
+        beam1 = {r["from_cm"]: r for r in rows if r["beam_number"] == 1}
+        self.assertTrue(beam1)
+        for k, r in beam1.items():
+            self.assertEqual(r["samples"], every[k]["samples"])
+            self.assertAlmostEqual(r["ratio_mean"], every[k]["ratio_mean"], delta=1e-9)
+
+
+class EstimateAsRtDose(unittest.TestCase):
+    """--rtdose-out read back with pydicom: the plan's frame, study and SOP
+    Instance UID (PS3.3 C.8.8.3 RT Dose Module: Referenced RT Plan
+    Sequence), PLAN summation, the screening-estimate comment, and at organ
+    points that sit on voxel centres the estimate itself, rounded up to one
+    Dose Grid Scaling step; dicom3tools' dciodvfy (Debian) finds no error."""
+
+    PTS = [("p1", 120.0, 10.0), ("p2", 200.0, 20.0), ("p3", 70.0, 10.0)]
+
+    def run_case(self, d, *extra):
+        pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
+        plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                            [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
+        out = os.path.join(d, "estimate-dose.dcm")
+        rc, js, err = estimate(plan, ss, "--rtdose-out", out, "--rtdose-spacing", "1", *extra)
+        self.assertIn(rc, (0, 4), err)
+        return plan, js, out
+
+    def voxel(self, ds, grid, x, y, z):
+        x0, y0, z0 = (float(v) for v in ds.ImagePositionPatient)
+        step = float(ds.PixelSpacing[1])
+        i, j, k = (round((x - x0) / step), round((y - y0) / step), round((z - z0) / step))
+        self.assertAlmostEqual(x0 + i * step, x)  # a voxel centre
+        return grid[k, j, i]
+
+    def test_read_back(self):
+        with tempdir() as d:
+            plan_path, js, out = self.run_case(d)
+            plan = pydicom.dcmread(plan_path)
+            ds = pydicom.dcmread(out)
+            v = subprocess.run(["dciodvfy", out], capture_output=True, text=True)
+        self.assertEqual(ds.SOPClassUID, RT_DOSE)
+        self.assertEqual(ds.FrameOfReferenceUID, plan.FrameOfReferenceUID)
+        self.assertEqual(ds.StudyInstanceUID, plan.StudyInstanceUID)
+        self.assertEqual(ds.PatientID, plan.PatientID)
+        self.assertEqual(ds.ReferencedRTPlanSequence[0].ReferencedSOPInstanceUID,
+                         plan.SOPInstanceUID)
+        self.assertEqual(ds.DoseSummationType, "PLAN")
+        self.assertEqual(ds.DoseUnits, "GY")
+        self.assertIn("screening estimate", ds.DoseComment)
+        self.assertIn("SCREENING ESTIMATE", ds.ImageComments)
+        self.assertEqual([float(a) for a in ds.ImageOrientationPatient], [1, 0, 0, 0, 1, 0])
+        self.assertEqual(len(ds.GridFrameOffsetVector), ds.NumberOfFrames)
+        scale = float(ds.DoseGridScaling)
+        grid = ds.pixel_array.astype(float) * scale
+        self.assertEqual(grid.shape, (ds.NumberOfFrames, ds.Rows, ds.Columns))
+        for name, x, y in self.PTS:
+            want = organ(js, name)["course_max_cgy"] / 100  # Gy
+            got = self.voxel(ds, grid, x, y, 0.0)
+            self.assertGreaterEqual(got, want - 1e-9 * want, name)  # never below
+            self.assertLessEqual(got, want + scale * 1.0001, name)
+        # inside the field nothing is estimated: 0, as the comment says
+        self.assertEqual(self.voxel(ds, grid, 0.0, 10.0, 0.0), 0)
+        self.assertIn("inside a field are 0", ds.ImageComments)
+        # outside the body: 0
+        self.assertEqual(self.voxel(ds, grid, 120.0, -10.0, 0.0), 0)
+        errors = [l for l in (v.stdout + v.stderr).splitlines() if l.startswith("Error")]
+        self.assertEqual(errors, [], v.stdout + v.stderr)
+        self.assertEqual(v.returncode, 0, v.stderr)
+
+    def test_with_the_planning_system_dose(self):
+        """In the field and within the zone the file holds the planning
+        system's (analytic) dose; beyond, the model's as before."""
+        with tempdir() as d:
+            pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
+            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
+            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan)
+            out = os.path.join(d, "estimate-dose.dcm")
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--rtdose-out", out,
+                                   "--rtdose-spacing", "1")
+            self.assertIn(rc, (0, 4), err)
+            ds = pydicom.dcmread(out)
+        scale = float(ds.DoseGridScaling)
+        grid = ds.pixel_array.astype(float) * scale
+        self.assertAlmostEqual(self.voxel(ds, grid, 0.0, 10.0, 0.0), analytic_gy(0, 10, 0),
+                               delta=scale * 1.0001)
+        self.assertAlmostEqual(self.voxel(ds, grid, 70.0, 10.0, 0.0), analytic_gy(70, 10, 0),
+                               delta=scale * 1.0001)
+        want = organ(js, "p1")["course_max_cgy"] / 100
+        self.assertAlmostEqual(self.voxel(ds, grid, 120.0, 10.0, 0.0), want, delta=scale * 1.0001)
+
+
+class Refused(unittest.TestCase):
+    def check(self, expect, **dose):
+        with tempdir() as d:
+            plan, ss, rtd = case(d, **dose)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        self.assertEqual(rc, 3, err)
+        self.assertIsNone(js)
+        self.assertIn("rtdose.dcm", err)
+        for e in expect:
+            self.assertIn(e, err)
+        self.assertEqual(len(err.strip().splitlines()), 1)
+
+    def test_another_frame_of_reference(self):
+        self.check(["FrameOfReferenceUID", "another patient frame"],
+                   frame=rb.uid("some", "other", "frame"))
+
+    def test_another_plan(self):
+        self.check(["ReferencedRTPlanSequence", "another plan"],
+                   plan_uid=rb.uid("some", "other", "plan"))
+
+    def test_a_beam_the_plan_does_not_have(self):
+        self.check(["ReferencedBeamNumber", "is not a beam of"], summation="BEAM", beams=(7,))
+
+
+if __name__ == "__main__":
+    unittest.main()
