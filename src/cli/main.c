@@ -18,6 +18,8 @@ static const sl_command commands[] = {
     {"model", "show or evaluate a model file", sl_cmd_model},
     {"estimate", "estimate organ out-of-field doses and compare with action levels",
      sl_cmd_estimate},
+    {"scan", "screen every electron plan of a folder; reports, summary and log", sl_cmd_scan},
+    {"history", "list the screenings recorded in the screening log", sl_cmd_history},
 };
 
 static void usage(FILE *fp)
