@@ -18,6 +18,7 @@
 #include "strayline/locate.h"
 #include "strayline/measure.h"
 #include "strayline/model.h"
+#include "strayline/screen.h"
 
 #ifdef __cplusplus
 extern "C" {
@@ -58,6 +59,8 @@ typedef struct sl_estimate_report {
     const sl_assessments *as;
     const sl_model *model;
     const sl_levels *levels;
+    const sl_whatif *whatifs;  /* what the user changed away from the plan as delivered */
+    size_t nwhatifs;
 } sl_estimate_report;
 
 /* `strayline estimate`: text table, JSON (schema in

@@ -18,6 +18,7 @@
 #include "strayline/locate.h"
 #include "strayline/machine.h"
 #include "strayline/model.h"
+#include "strayline/screen.h"
 #include "strayline/util.h"
 
 static const char help[] =
@@ -141,12 +142,6 @@ static bool parse_point(const char *s, sl_vec3 *p)
     "X,Y,Z with its unit, in mm (0,-250,-480mm) or cm (0,-25,-48cm), each within 5 m of the " \
     "origin"
 
-typedef struct given_point {
-    char name[160];
-    const char *kind;
-    sl_vec3 mm;
-} given_point;
-
 /* "NAME=VALUE": split at the last '=' (ROI names may hold '='). */
 static char *split_eq(char *s)
 {
@@ -155,47 +150,6 @@ static char *split_eq(char *s)
         return NULL;
     *eq = '\0';
     return eq + 1;
-}
-
-typedef struct landmark {
-    char name[160];
-    const char *kind;
-    double distance_cm, depth_cm;
-} landmark;
-
-/* A point typed in the wrong unit lands somewhere plausible-looking: warn
- * when it lies outside the body contour or far from every ROI of the scan. */
-#define POINT_FAR_MM 100.0
-static void point_sanity(sl_assessments *as, const sl_structure_set *ss, size_t nscan,
-                         const sl_location *loc, const given_point *pts, size_t npts)
-{
-    for (size_t i = 0; i < npts; i++) {
-        for (size_t o = 0; o < loc->norgans; o++) {
-            if (strcmp(loc->rois[o]->name, pts[i].name) != 0 || loc->nbeams == 0)
-                continue;
-            if (loc->external && loc->beams[0].organs[o].outside_body_fraction > 0)
-                sl_notes_add(&as->notes,
-                             "point '%s' (%.1f, %.1f, %.1f mm) lies outside the body contour: "
-                             "check its coordinates and unit",
-                             pts[i].name, pts[i].mm.x, pts[i].mm.y, pts[i].mm.z);
-        }
-        double best = INFINITY;
-        for (size_t r = 0; r < nscan; r++) {
-            const sl_roi *roi = &ss->rois[r];
-            for (size_t c = 0; c < roi->ncontours; c++)
-                for (size_t k = 0; k < roi->contours[c].npoints; k++) {
-                    sl_vec3 q = roi->contours[c].points[k];
-                    double dx = q.x - pts[i].mm.x, dy = q.y - pts[i].mm.y, dz = q.z - pts[i].mm.z;
-                    best = fmin(best, sqrt(dx * dx + dy * dy + dz * dz));
-                }
-        }
-        if (nscan && best > POINT_FAR_MM)
-            sl_notes_add(&as->notes,
-                         "point '%s' (%.1f, %.1f, %.1f mm) is %.1f cm from the nearest contour "
-                         "point of every ROI: check its coordinates and unit, or use --landmark "
-                         "for an organ outside the scan",
-                         pts[i].name, pts[i].mm.x, pts[i].mm.y, pts[i].mm.z, best / 10);
-    }
 }
 
 int sl_cmd_estimate(int argc, char **argv)
@@ -243,11 +197,9 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_organ_map map[4 * MAX_ITEMS]; /* --organ, points, fetus copies and landmarks, each at
                                         most MAX_ITEMS */
     sl_other_dose others[MAX_ITEMS];
-    given_point pts[MAX_ITEMS];
-    landmark lms[MAX_ITEMS];
-    sl_roi lm_rois[MAX_ITEMS];
-    char rise_names[MAX_ITEMS][200];
-    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0, nrise = 0;
+    sl_screen_point pts[MAX_ITEMS];
+    sl_screen_landmark lms[MAX_ITEMS];
+    size_t nshields = 0, nmap = 0, nothers = 0, npts = 0, nlms = 0;
     double v;
     int c;
     optind = 1;
@@ -328,12 +280,11 @@ int sl_cmd_estimate(int argc, char **argv)
         case OPT_DEVICE: {
             if (npts == MAX_ITEMS)
                 return sl_cli_usage("estimate", "too many points");
-            given_point *g = &pts[npts];
+            sl_screen_point *g = &pts[npts];
             if (!parse_point(optarg, &g->mm))
                 return sl_cli_usage("estimate", "%s '%s': needs " POINT_FORMS,
                                     c == OPT_FETUS ? "--fetus-point" : "--device-point", optarg);
-            snprintf(g->name, sizeof g->name, "%s",
-                     c == OPT_FETUS ? "Fetus (point given)" : "Cardiac device (point given)");
+            g->name = c == OPT_FETUS ? "Fetus (point given)" : "Cardiac device (point given)";
             g->kind = c == OPT_FETUS ? "fetus" : "cardiac_device";
             for (size_t i = 0; i < npts; i++)
                 if (strcmp(pts[i].name, g->name) == 0)
@@ -349,13 +300,13 @@ int sl_cmd_estimate(int argc, char **argv)
             if (npts == MAX_ITEMS || !at || !eq || eq == optarg || eq + 1 == at)
                 return sl_cli_usage("estimate", "--point '%s': needs NAME=KIND@" POINT_FORMS,
                                     optarg);
-            given_point *g = &pts[npts];
+            sl_screen_point *g = &pts[npts];
             if (!parse_point(at + 1, &g->mm))
                 return sl_cli_usage("estimate", "--point '%s': needs NAME=KIND@" POINT_FORMS,
                                     optarg);
             *at = '\0';
             *eq = '\0';
-            snprintf(g->name, sizeof g->name, "%s", optarg);
+            g->name = optarg;
             g->kind = eq + 1;
             npts++;
             break;
@@ -364,7 +315,7 @@ int sl_cmd_estimate(int argc, char **argv)
             /* NAME=KIND:DISTANCE_CM:DEPTH_CM */
             char *eq = strchr(optarg, '=');
             char *c1 = eq ? strchr(eq + 1, ':') : NULL, *c2 = c1 ? strchr(c1 + 1, ':') : NULL;
-            landmark *l = &lms[nlms];
+            sl_screen_landmark *l = &lms[nlms];
             if (nlms == MAX_ITEMS || !eq || eq == optarg || !c1 || c1 == eq + 1 || !c2 ||
                 strchr(c2 + 1, ':'))
                 return sl_cli_usage("estimate", "--landmark '%s': needs "
@@ -377,7 +328,7 @@ int sl_cmd_estimate(int argc, char **argv)
                 return sl_cli_usage("estimate", "--landmark '%s': distance (0 to 200 cm) and "
                                                 "depth (0 to 50 cm) must be numbers in cm",
                                     optarg);
-            snprintf(l->name, sizeof l->name, "%s", optarg);
+            l->name = optarg;
             l->kind = eq + 1;
             nlms++;
             break;
@@ -440,108 +391,44 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_levels *levels = NULL;
     sl_plan *plan = NULL;
     sl_structure_set *ss = NULL;
-    sl_location *loc = NULL;
-    sl_estimate *est = NULL;
-    sl_assessments *as = NULL;
-    sl_applicator_size *cat = NULL;
+    sl_screen *scr = NULL;
     sl_outfile out = {0};
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
-        sl_machine_catalogue(&model->machine, &cat, &lopt.ncatalogue, &err) != SL_OK ||
         sl_dicom_read_plan(plan_path, &plan, &err) != SL_OK ||
-        sl_dicom_read_structures(ss_path, &ss, &err) != SL_OK ||
-        sl_pair_check(plan, ss, allow_mismatch, &err) != SL_OK) {
+        sl_dicom_read_structures(ss_path, &ss, &err) != SL_OK) {
+        sl_plan_free(plan);
         rc = sl_cli_fail(&err);
         goto done;
     }
-    size_t nrois_scan = ss->nrois;
-    for (size_t i = 0; i < npts + nlms; i++) {
-        const char *kind = i < npts ? pts[i].kind : lms[i - npts].kind;
-        const char *name = i < npts ? pts[i].name : lms[i - npts].name;
-        if (!sl_levels_kind(levels, kind)) {
-            rc = sl_cli_usage("estimate", "%s '%s': unknown kind '%s' (see %s)",
-                              i < npts ? "--point" : "--landmark", name, kind, levels_path);
-            goto done;
-        }
-        if (sl_structures_find(ss, name)) {
-            rc = sl_cli_usage("estimate", "%s '%s': a ROI of that name exists already",
-                              i < npts ? "--point" : "--landmark", name);
-            goto done;
-        }
-        for (size_t j = 0; j < i; j++) {
-            if (strcmp(j < npts ? pts[j].name : lms[j - npts].name, name) == 0) {
-                rc = sl_cli_usage("estimate", "'%s': two points or landmarks of that name", name);
-                goto done;
-            }
-        }
-        if (kind && strcmp(kind, "cardiac_device") == 0)
-            patient.device_asked = true;
-    }
-    for (size_t i = 0; i < npts; i++) {
-        if (sl_structures_add_point(ss, pts[i].name, "MARKER", pts[i].mm, &err) != SL_OK) {
-            rc = sl_cli_fail(&err);
-            goto done;
-        }
-        map[nmap++] = (sl_organ_map){pts[i].name, pts[i].kind};
-    }
-    /* what-if: every fetus again, the given distance toward the head (+z in
-     * patient coordinates, whatever the patient position) */
-    if (patient.fetus_rise_cm > 0) {
-        size_t n0 = ss->nrois;
-        for (size_t r = 0; r < n0 && nrise < MAX_ITEMS; r++) {
-            const char *name = ss->rois[r].name;
-            const sl_kind *k = sl_levels_match(levels, name);
-            for (size_t m = 0; m < nmap; m++)
-                if (strcmp(map[m].roi, name) == 0)
-                    k = sl_levels_kind(levels, map[m].kind);
-            const char *why;
-            if (!k || strcmp(k->kind, "fetus") != 0 ||
-                sl_dose_type_excluded(ss->rois[r].type, eopt.include_targets, &why))
-                continue;
-            snprintf(rise_names[nrise], sizeof rise_names[nrise],
-                     "%s (what-if: %g cm toward the head)", name, patient.fetus_rise_cm);
-            if (sl_structures_add_shifted(ss, name, rise_names[nrise],
-                                          (sl_vec3){0, 0, 10 * patient.fetus_rise_cm},
-                                          &err) != SL_OK) {
-                rc = sl_cli_fail(&err);
-                goto done;
-            }
-            map[nmap++] = (sl_organ_map){rise_names[nrise], "fetus"};
-            nrise++;
-        }
-    }
-    for (size_t i = 0; i < nshields; i++) {
-        if (!sl_structures_find(ss, shields[i].roi)) {
-            rc = sl_cli_usage("estimate", "--shield '%s': no ROI of that name", shields[i].roi);
-            goto done;
-        }
-    }
-    lopt.catalogue = cat;
-    eopt.model = model;
-    if (sl_locate(plan, ss, &lopt, &loc, &err) != SL_OK ||
-        sl_estimate_doses(plan, ss, loc, &eopt, &est, &err) != SL_OK) {
-        rc = sl_cli_fail(&err);
+    sl_screen_request req;
+    sl_screen_request_init(&req);
+    req.model = model;
+    req.levels = levels;
+    req.levels_path = levels_path;
+    req.estimate = eopt;
+    req.locate = lopt;
+    req.patient = patient;
+    req.allow_mismatch = allow_mismatch;
+    req.map = map;
+    req.nmap = nmap;
+    req.others = others;
+    req.nothers = nothers;
+    req.points = pts;
+    req.npoints = npts;
+    req.landmarks = lms;
+    req.nlandmarks = nlms;
+    sl_status st = sl_screen_run(plan, ss, &req, &scr, &err);
+    plan = NULL;
+    ss = NULL;
+    if (st != SL_OK) {
+        rc = st == SL_EUSAGE ? sl_cli_usage("estimate", "%s", err.msg) : sl_cli_fail(&err);
         goto done;
     }
-    for (size_t i = 0; i < nlms; i++) {
-        memset(&lm_rois[i], 0, sizeof lm_rois[i]);
-        lm_rois[i].number = -1;
-        lm_rois[i].name = lms[i].name;
-        lm_rois[i].type = "MARKER";
-        if (sl_estimate_add_landmark(est, &lm_rois[i], lms[i].distance_cm, lms[i].depth_cm,
-                                     &err) != SL_OK) {
-            rc = sl_cli_fail(&err);
-            goto done;
-        }
-        map[nmap++] = (sl_organ_map){lms[i].name, lms[i].kind};
-    }
-    if (sl_assess_with(levels, est, &patient, map, nmap, others, nothers, &as, &err) != SL_OK) {
-        rc = sl_cli_fail(&err);
-        goto done;
-    }
-    point_sanity(as, ss, nrois_scan, loc, pts, npts);
-    sl_estimate_report rep = {plan, ss, loc, est, as, model, levels};
+    sl_estimate_report rep = {scr->plan, scr->ss,       scr->loc,      scr->est,
+                              scr->as,   model,         levels,        scr->whatifs,
+                              scr->nwhatifs};
     if (html) {
         const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
         if (sl_outfile_open(&out, html, inputs, 4, &err) != SL_OK ||
@@ -561,14 +448,10 @@ int sl_cmd_estimate(int argc, char **argv)
         rc = SL_EXIT_INTERNAL;
         goto done;
     }
-    rc = as->any_flagged ? SL_EXIT_FLAGGED : SL_EXIT_OK;
+    rc = scr->as->any_flagged ? SL_EXIT_FLAGGED : SL_EXIT_OK;
 done:
-    sl_assessments_free(as);
-    sl_estimate_free(est);
-    sl_location_free(loc);
+    sl_screen_free(scr);
     sl_structure_set_free(ss);
-    sl_plan_free(plan);
-    free(cat);
     sl_levels_free(levels);
     sl_model_free(model);
     return rc;

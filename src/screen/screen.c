@@ -1,0 +1,281 @@
+/*
+ * One screening as a library call (see screen.h): the stages of the data
+ * flow run in order on one plan, and the request's what-ifs are recorded so
+ * that no report can show a what-if number as if it were the plan's.
+ *
+ * Points and landmarks are checked against the action-level table and the
+ * structure set before anything is computed, because a typo in a kind or a
+ * name would otherwise give an organ no level and so no judgement at all.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "strayline/machine.h"
+#include "strayline/screen.h"
+#include "strayline/util.h"
+
+void sl_screen_request_init(sl_screen_request *r)
+{
+    memset(r, 0, sizeof *r);
+    sl_estimate_default_options(&r->estimate);
+    sl_locate_default_options(&r->locate);
+    sl_patient_init(&r->patient);
+}
+
+void sl_screen_free(sl_screen *s)
+{
+    if (!s)
+        return;
+    sl_assessments_free(s->as);
+    sl_estimate_free(s->est);
+    sl_location_free(s->loc);
+    sl_structure_set_free(s->ss);
+    sl_plan_free(s->plan);
+    free(s->catalogue);
+    free(s->map);
+    for (size_t i = 0; i < s->nnames; i++)
+        free(s->names[i]);
+    free(s->names);
+    free(s->landmark_rois);
+    free(s->whatifs);
+    free(s);
+}
+
+static char *keep_name(sl_screen *s, const char *name)
+{
+    char *copy = strdup(name);
+    if (!copy)
+        return NULL;
+    s->names[s->nnames++] = copy;
+    return copy;
+}
+
+static sl_whatif *add_whatif(sl_screen *s, sl_whatif_kind kind, const char *roi)
+{
+    sl_whatif *w = &s->whatifs[s->nwhatifs++];
+    w->kind = kind;
+    w->roi = roi;
+    w->text[0] = '\0';
+    return w;
+}
+
+/* The what-ifs of a request, in the order the banner lists them. */
+static void record_whatifs(sl_screen *s, const sl_screen_request *req)
+{
+    const sl_estimate_options *e = &req->estimate;
+    for (size_t i = 0; i < e->nshields; i++) {
+        sl_whatif *w = add_whatif(s, SL_WHATIF_SHIELD, e->shields[i].roi);
+        snprintf(w->text, sizeof w->text,
+                 "what-if shield over %s: electron transmission %.2f (%.0f %% of the electron "
+                 "dose kept); the plan as delivered has no such shield",
+                 e->shields[i].roi, e->shields[i].transmission,
+                 100 * e->shields[i].transmission);
+    }
+    if (e->mode == SL_EVAL_POINTS)
+        snprintf(add_whatif(s, SL_WHATIF_POINTS, NULL)->text, sizeof s->whatifs[0].text,
+                 "measured-points mode: the commissioning points are interpolated instead of "
+                 "the fitted curves, for every organ");
+    if (!isnan(e->reference_dose_cgy))
+        snprintf(add_whatif(s, SL_WHATIF_REFDOSE, NULL)->text, sizeof s->whatifs[0].text,
+                 "reference dose given by hand: %.1f cGy per fraction at the central-axis "
+                 "maximum for every beam, not monitor units x output",
+                 e->reference_dose_cgy);
+    if (!isnan(req->locate.depth_cm))
+        snprintf(add_whatif(s, SL_WHATIF_DEPTH, NULL)->text, sizeof s->whatifs[0].text,
+                 "one depth given by hand for every organ: %.1f cm, not the depths through "
+                 "the body contour",
+                 req->locate.depth_cm);
+}
+
+/* A point typed in the wrong unit lands somewhere plausible-looking: warn
+ * when it lies outside the body contour or far from every ROI of the scan. */
+#define POINT_FAR_MM 100.0
+static void point_sanity(sl_screen *s, size_t nscan, const sl_screen_request *req)
+{
+    const sl_location *loc = s->loc;
+    for (size_t i = 0; i < req->npoints; i++) {
+        const sl_screen_point *p = &req->points[i];
+        for (size_t o = 0; o < loc->norgans; o++) {
+            if (strcmp(loc->rois[o]->name, p->name) != 0 || loc->nbeams == 0)
+                continue;
+            if (loc->external && loc->beams[0].organs[o].outside_body_fraction > 0)
+                sl_notes_add(&s->as->notes,
+                             "point '%s' (%.1f, %.1f, %.1f mm) lies outside the body contour: "
+                             "check its coordinates and unit",
+                             p->name, p->mm.x, p->mm.y, p->mm.z);
+        }
+        double best = INFINITY;
+        for (size_t r = 0; r < nscan; r++) {
+            const sl_roi *roi = &s->ss->rois[r];
+            for (size_t c = 0; c < roi->ncontours; c++)
+                for (size_t k = 0; k < roi->contours[c].npoints; k++) {
+                    sl_vec3 q = roi->contours[c].points[k];
+                    double dx = q.x - p->mm.x, dy = q.y - p->mm.y, dz = q.z - p->mm.z;
+                    best = fmin(best, sqrt(dx * dx + dy * dy + dz * dz));
+                }
+        }
+        if (nscan && best > POINT_FAR_MM)
+            sl_notes_add(&s->as->notes,
+                         "point '%s' (%.1f, %.1f, %.1f mm) is %.1f cm from the nearest contour "
+                         "point of every ROI: check its coordinates and unit, or use --landmark "
+                         "for an organ outside the scan",
+                         p->name, p->mm.x, p->mm.y, p->mm.z, best / 10);
+    }
+}
+
+static sl_status check_given(const sl_screen_request *req, const sl_structure_set *ss,
+                             sl_error *err)
+{
+    const char *lv = req->levels_path ? req->levels_path : "the action-level table";
+    size_t n = req->npoints + req->nlandmarks;
+    for (size_t i = 0; i < n; i++) {
+        bool pt = i < req->npoints;
+        const char *kind = pt ? req->points[i].kind : req->landmarks[i - req->npoints].kind;
+        const char *name = pt ? req->points[i].name : req->landmarks[i - req->npoints].name;
+        const char *what = pt ? "--point" : "--landmark";
+        if (!sl_levels_kind(req->levels, kind))
+            return sl_error_set(err, SL_EUSAGE, "%s '%s': unknown kind '%s' (see %s)", what,
+                                name, kind, lv);
+        if (sl_structures_find(ss, name))
+            return sl_error_set(err, SL_EUSAGE, "%s '%s': a ROI of that name exists already",
+                                what, name);
+        for (size_t j = 0; j < i; j++) {
+            const char *other =
+                j < req->npoints ? req->points[j].name : req->landmarks[j - req->npoints].name;
+            if (strcmp(other, name) == 0)
+                return sl_error_set(err, SL_EUSAGE,
+                                    "'%s': two points or landmarks of that name", name);
+        }
+    }
+    for (size_t i = 0; i < req->estimate.nshields; i++)
+        if (!sl_structures_find(ss, req->estimate.shields[i].roi))
+            return sl_error_set(err, SL_EUSAGE, "--shield '%s': no ROI of that name",
+                                req->estimate.shields[i].roi);
+    return SL_OK;
+}
+
+/* What-if: every fetus again, the given distance toward the head (+z in
+ * patient coordinates, whatever the patient position). */
+static sl_status add_fetus_copies(sl_screen *s, const sl_screen_request *req, sl_error *err)
+{
+    double rise = req->patient.fetus_rise_cm;
+    size_t n0 = s->ss->nrois;
+    for (size_t r = 0; r < n0; r++) {
+        const char *name = s->ss->rois[r].name;
+        const sl_kind *k = sl_levels_match(req->levels, name);
+        for (size_t m = 0; m < s->nmap; m++)
+            if (strcmp(s->map[m].roi, name) == 0)
+                k = sl_levels_kind(req->levels, s->map[m].kind);
+        const char *why;
+        if (!k || strcmp(k->kind, "fetus") != 0 ||
+            sl_dose_type_excluded(s->ss->rois[r].type, req->estimate.include_targets, &why))
+            continue;
+        char buf[400];
+        snprintf(buf, sizeof buf, "%s (what-if: %g cm toward the head)", name, rise);
+        char *copy = keep_name(s, buf);
+        if (!copy)
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+        sl_status st = sl_structures_add_shifted(s->ss, name, copy,
+                                                 (sl_vec3){0, 0, 10 * rise}, err);
+        if (st != SL_OK)
+            return st;
+        s->map[s->nmap++] = (sl_organ_map){copy, "fetus"};
+        sl_whatif *w = add_whatif(s, SL_WHATIF_FETUS_RISE, copy);
+        snprintf(w->text, sizeof w->text,
+                 "what-if fetus position: '%s' is a copy of '%s' moved %.1f cm toward the head",
+                 copy, name, rise);
+    }
+    return SL_OK;
+}
+
+sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_request *req,
+                        sl_screen **out, sl_error *err)
+{
+    *out = NULL;
+    sl_screen *s = calloc(1, sizeof *s);
+    if (!s) {
+        sl_plan_free(plan);
+        sl_structure_set_free(ss);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    s->plan = plan;
+    s->ss = ss;
+    if (!req->model || !req->levels) {
+        sl_screen_free(s);
+        return sl_error_set(err, SL_EINTERNAL, "screen: no model or action levels");
+    }
+    /* fetus copies: at most one per ROI of the scan */
+    size_t maxmap = req->nmap + req->npoints + req->nlandmarks + ss->nrois;
+    size_t maxwhat = req->estimate.nshields + 4 + ss->nrois;
+    s->map = calloc(maxmap ? maxmap : 1, sizeof *s->map);
+    s->names = calloc(ss->nrois ? ss->nrois : 1, sizeof *s->names);
+    s->whatifs = calloc(maxwhat, sizeof *s->whatifs);
+    s->landmark_rois = calloc(req->nlandmarks ? req->nlandmarks : 1, sizeof *s->landmark_rois);
+    sl_status st = SL_OK;
+    if (!s->map || !s->names || !s->whatifs || !s->landmark_rois) {
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        goto fail;
+    }
+    for (size_t i = 0; i < req->nmap; i++)
+        s->map[s->nmap++] = req->map[i];
+    record_whatifs(s, req);
+
+    sl_locate_options lopt = req->locate;
+    sl_estimate_options eopt = req->estimate;
+    if ((st = sl_machine_catalogue(&req->model->machine, &s->catalogue, &lopt.ncatalogue,
+                                   err)) != SL_OK ||
+        (st = sl_pair_check(plan, ss, req->allow_mismatch, err)) != SL_OK ||
+        (st = check_given(req, ss, err)) != SL_OK)
+        goto fail;
+    size_t nscan = ss->nrois;
+    for (size_t i = 0; i < req->npoints; i++) {
+        const sl_screen_point *p = &req->points[i];
+        if ((st = sl_structures_add_point(ss, p->name, "MARKER", p->mm, err)) != SL_OK)
+            goto fail;
+        s->map[s->nmap++] = (sl_organ_map){p->name, p->kind};
+    }
+    if (req->patient.fetus_rise_cm > 0 && (st = add_fetus_copies(s, req, err)) != SL_OK)
+        goto fail;
+    lopt.catalogue = s->catalogue;
+    eopt.model = req->model;
+    if ((st = sl_locate(plan, ss, &lopt, &s->loc, err)) != SL_OK ||
+        (st = sl_estimate_doses(plan, ss, s->loc, &eopt, &s->est, err)) != SL_OK)
+        goto fail;
+    for (size_t i = 0; i < req->nlandmarks; i++) {
+        const sl_screen_landmark *l = &req->landmarks[i];
+        sl_roi *roi = &s->landmark_rois[i];
+        roi->number = -1;
+        roi->name = (char *)l->name;
+        roi->type = "MARKER";
+        if ((st = sl_estimate_add_landmark(s->est, roi, l->distance_cm, l->depth_cm, err)) !=
+            SL_OK)
+            goto fail;
+        s->map[s->nmap++] = (sl_organ_map){l->name, l->kind};
+    }
+    sl_patient patient = req->patient;
+    for (size_t i = 0; i < req->npoints; i++)
+        if (strcmp(req->points[i].kind, "cardiac_device") == 0)
+            patient.device_asked = true;
+    for (size_t i = 0; i < req->nlandmarks; i++)
+        if (strcmp(req->landmarks[i].kind, "cardiac_device") == 0)
+            patient.device_asked = true;
+    if ((st = sl_assess_with(req->levels, s->est, &patient, s->map, s->nmap, req->others,
+                             req->nothers, &s->as, err)) != SL_OK)
+        goto fail;
+    point_sanity(s, nscan, req);
+    *out = s;
+    return SL_OK;
+fail:
+    sl_screen_free(s);
+    return st;
+}
+
+const sl_whatif *sl_screen_whatif_for(const sl_screen *s, const char *roi)
+{
+    for (size_t i = 0; i < s->nwhatifs; i++)
+        if (!s->whatifs[i].roi || (roi && strcmp(s->whatifs[i].roi, roi) == 0))
+            return &s->whatifs[i];
+    return NULL;
+}
