@@ -83,8 +83,9 @@ typedef struct sl_batch_entry {
 void sl_batch_entry_clear(sl_batch_entry *e);
 
 /* Sort the folder's files into entries: one per plan (to screen, skipped,
- * incomplete), per bad or foreign file, per duplicate. *pairs receives, for
- * each entry to screen, its index (the rest are final). */
+ * incomplete), per bad or foreign file, per duplicate. Entries whose
+ * outcome is SL_OUT_SCREENED are still to be screened (sl_batch_screen);
+ * the rest are final. */
 sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t *n,
                        sl_error *err);
 
@@ -122,8 +123,6 @@ const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
 typedef struct sl_batch_config {
     const sl_model *model;
     const sl_levels *levels;
-    const sl_applicator_size *catalogue; /* from sl_machine_catalogue */
-    size_t ncatalogue;
     const char *model_path, *levels_path;
     const char *outdir;
     const sl_facts *facts;       /* may be NULL */

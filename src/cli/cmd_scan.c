@@ -176,8 +176,6 @@ int sl_cmd_scan(int argc, char **argv)
     sl_error err = {0};
     sl_model *model = NULL;
     sl_levels *levels = NULL;
-    sl_applicator_size *cat = NULL;
-    size_t ncat = 0;
     sl_facts *facts = NULL;
     sl_screenlog *log = NULL;
     sl_scan_files *files = NULL;
@@ -187,7 +185,6 @@ int sl_cmd_scan(int argc, char **argv)
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
-        sl_machine_catalogue(&model->machine, &cat, &ncat, &err) != SL_OK ||
         (facts_path && sl_facts_load(facts_path, &facts, &err) != SL_OK) ||
         sl_screenlog_open(log_path, true, &log, &err) != SL_OK ||
         sl_scan_walk(dir, threads, &files, &err) != SL_OK ||
@@ -226,8 +223,6 @@ int sl_cmd_scan(int argc, char **argv)
     sl_batch_config cfg = {
         .model = model,
         .levels = levels,
-        .catalogue = cat,
-        .ncatalogue = ncat,
         .model_path = model_path,
         .levels_path = levels_path,
         .outdir = outdir,
@@ -282,7 +277,6 @@ done:
     sl_scan_files_free(files);
     sl_screenlog_close(log);
     sl_facts_free(facts);
-    free(cat);
     sl_levels_free(levels);
     sl_model_free(model);
     return rc;

@@ -18,6 +18,7 @@
 #include "strayline/dicom.h"
 #include "strayline/report.h"
 #include "strayline/scan.h"
+#include "strayline/screen.h"
 #include "strayline/util.h"
 #include "strayline/version.h"
 
@@ -214,87 +215,83 @@ static sl_status log_entry(const sl_batch_config *cfg, sl_batch_entry *e, const 
     return st;
 }
 
-/* The screening itself: the estimate pipeline on one pair, with the
+/* The screening itself (sl_screen_run, as `estimate` does) with the
  * patient's facts. Takes ownership of plan and ss. */
 static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structure_set *ss,
                           const sl_facts_entry *facts, sl_batch_entry *e, sl_error *err)
 {
-    sl_locate_options lopt;
-    sl_locate_default_options(&lopt);
-    lopt.catalogue = cfg->catalogue;
-    lopt.ncatalogue = cfg->ncatalogue;
-    lopt.threads = cfg->threads_per_plan;
-    sl_estimate_options eopt;
-    sl_estimate_default_options(&eopt);
-    eopt.model = cfg->model;
-    eopt.threads = cfg->threads_per_plan;
-    sl_patient patient;
-    sl_patient_init(&patient);
-    const sl_organ_map *map = NULL;
-    const sl_other_dose *other = NULL;
-    size_t nmap = 0, nother = 0;
+    sl_screen_request req;
+    sl_screen_request_init(&req);
+    req.model = cfg->model;
+    req.levels = cfg->levels;
+    req.levels_path = cfg->levels_path;
+    req.locate.threads = cfg->threads_per_plan;
+    req.estimate.threads = cfg->threads_per_plan;
     if (facts) {
+        sl_patient *pt = &req.patient;
         if (!isnan(facts->gestational_weeks)) {
-            patient.gestational_weeks = facts->gestational_weeks;
-            patient.conception_weeks = sl_weeks_after_conception(facts->gestational_weeks);
+            pt->gestational_weeks = facts->gestational_weeks;
+            pt->conception_weeks = sl_weeks_after_conception(facts->gestational_weeks);
         }
         if (!isnan(facts->conception_weeks)) {
-            patient.conception_weeks = facts->conception_weeks;
-            patient.conception_given = true;
+            pt->conception_weeks = facts->conception_weeks;
+            pt->conception_given = true;
         }
         if (facts->pacing_dependent) {
-            patient.pacing_dependent = true;
-            patient.device_asked = true;
+            pt->pacing_dependent = true;
+            pt->device_asked = true;
         }
         if (!isnan(facts->age_years)) {
-            patient.age_years = facts->age_years;
-            patient.age_from = "facts file";
+            pt->age_years = facts->age_years;
+            pt->age_from = "facts file";
         }
         if (facts->sex) {
-            patient.sex = facts->sex;
-            patient.sex_from = "facts file";
+            pt->sex = facts->sex;
+            pt->sex_from = "facts file";
         }
-        map = facts->map;
-        nmap = facts->nmap;
-        other = facts->other;
-        nother = facts->nother;
+        req.map = facts->map;
+        req.nmap = facts->nmap;
+        req.others = facts->other;
+        req.nothers = facts->nother;
     }
-    sl_location *loc = NULL;
-    sl_estimate *est = NULL;
-    sl_assessments *as = NULL;
-    sl_status st = sl_locate(plan, ss, &lopt, &loc, err);
+    const char *plan_src = plan->source, *ss_src = ss->source;
+    char *plan_path = strdup(plan_src ? plan_src : ""), *ss_path = strdup(ss_src ? ss_src : "");
+    sl_screen *scr = NULL;
+    sl_status st = !plan_path || !ss_path ? sl_error_set(err, SL_ENOMEM, "out of memory")
+                                          : SL_OK;
     if (st == SL_OK)
-        st = sl_estimate_doses(plan, ss, loc, &eopt, &est, err);
-    if (st == SL_OK)
-        st = sl_assess_with(cfg->levels, est, &patient, map, nmap, other, nother, &as, err);
+        st = sl_screen_run(plan, ss, &req, &scr, err);
+    else {
+        sl_plan_free(plan);
+        sl_structure_set_free(ss);
+    }
     if (st == SL_OK) {
-        sl_estimate_report rep = {plan, ss, loc, est, as, cfg->model, cfg->levels};
+        sl_estimate_report rep = {scr->plan, scr->ss, scr->loc, scr->est, scr->as,
+                                  cfg->model, cfg->levels, scr->whatifs, scr->nwhatifs};
         char pid[48], label[48], name[256];
         sl_sanitise_name(e->patient_id ? e->patient_id : "no-id", pid, sizeof pid);
         sl_sanitise_name(e->plan_label ? e->plan_label : "plan", label, sizeof label);
         snprintf(name, sizeof name, "%s_%s_%s.json", pid[0] ? pid : "no-id",
                  label[0] ? label : "plan", e->plan_uid);
-        st = write_report(cfg, name, false, &rep, plan->source, ss->source, err);
+        st = write_report(cfg, name, false, &rep, plan_path, ss_path, err);
         bool ok = true;
         if (st == SL_OK) {
             e->report_json = xstrdup(name, &ok);
             memcpy(name + strlen(name) - 5, ".html", 6);
-            st = write_report(cfg, name, true, &rep, plan->source, ss->source, err);
+            st = write_report(cfg, name, true, &rep, plan_path, ss_path, err);
         }
         if (st == SL_OK) {
             e->report_html = xstrdup(name, &ok);
-            for (size_t b = 0; b < plan->nbeams; b++)
-                e->nbeams += sl_beam_skip_reason(&plan->beams[b]) == NULL;
-            ok = ok && collect(as, e);
+            for (size_t b = 0; b < scr->plan->nbeams; b++)
+                e->nbeams += sl_beam_skip_reason(&scr->plan->beams[b]) == NULL;
+            ok = ok && collect(scr->as, e);
             if (!ok)
                 st = sl_error_set(err, SL_ENOMEM, "out of memory");
         }
     }
-    sl_assessments_free(as);
-    sl_estimate_free(est);
-    sl_location_free(loc);
-    sl_structure_set_free(ss);
-    sl_plan_free(plan);
+    sl_screen_free(scr);
+    free(plan_path);
+    free(ss_path);
     return st;
 }
 
@@ -307,8 +304,6 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
     sl_status st = sl_dicom_read_plan(e->plan_path, &plan, &perr);
     if (st == SL_OK)
         st = sl_dicom_read_structures(e->ss_path, &ss, &perr);
-    if (st == SL_OK)
-        st = sl_pair_check(plan, ss, false, &perr);
     const sl_facts_entry *facts = NULL;
     if (st == SL_OK) {
         /* identities from the full reader (UTF-8, whole), not the header pass */
