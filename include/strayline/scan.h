@@ -148,6 +148,28 @@ void sl_batch_sort(sl_batch_entry *e, size_t n);
 sl_status sl_batch_write_summary(const sl_batch_config *cfg, const sl_batch_entry *e, size_t n,
                                  sl_error *err);
 
+/* ---------------------------------------------- a receiving node -- */
+
+/* The pairing side of `listen`: objects arrive one by one, in any order and
+ * over several associations; a plan is screened once its structure set is
+ * in the store folder, and reported incomplete once it has waited longer
+ * than a limit (it is still screened if the structure set comes later). */
+typedef struct sl_node sl_node;
+
+sl_status sl_node_create(const sl_batch_config *cfg, const char *store_dir,
+                         double incomplete_after_s, sl_node **out, sl_error *err);
+/* An object was stored at path (thread-safe: called from the DICOM node's
+ * threads; the work is done in sl_node_step). */
+sl_status sl_node_received(sl_node *n, const char *path);
+/* On one thread: pair what arrived, screen the complete pairs, report plans
+ * waiting longer than the limit; report() gets each entry that is final or
+ * newly incomplete; the summary is rewritten when anything changed. now_s
+ * is a monotonic clock in seconds. */
+sl_status sl_node_step(sl_node *n, double now_s,
+                       void (*report)(const sl_batch_entry *e, void *ctx), void *ctx,
+                       sl_error *err);
+void sl_node_free(sl_node *n);
+
 #ifdef __cplusplus
 }
 #endif

@@ -34,6 +34,7 @@ int sl_cmd_model(int argc, char **argv);
 int sl_cmd_estimate(int argc, char **argv);
 int sl_cmd_scan(int argc, char **argv);
 int sl_cmd_history(int argc, char **argv);
+int sl_cmd_listen(int argc, char **argv);
 
 /* Print the error as one line on stderr; return the matching exit code. */
 int sl_cli_fail(const sl_error *err);
