@@ -69,6 +69,8 @@ static void status_of(const sl_assessment *a, char *buf, size_t size)
         else
             snprintf(buf, size, "%s risk band", a->kind->bands[a->band].name);
     }
+    else if (a->status == SL_ST_NOT_ASSESSED && a->not_assessed_why)
+        snprintf(buf, size, "%s: %s", sl_status_text(a->status), a->not_assessed_why);
     else if (a->incomplete)
         snprintf(buf, size, "%s (incomplete: other beams not included)",
                  sl_status_text(a->status));
@@ -84,7 +86,7 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
     if (!e->organs)
         return false;
     int worst = -1;
-    char buf[256];
+    char buf[768];
     for (size_t i = 0; i < as->n; i++) {
         const sl_assessment *a = &as->items[i];
         int r = organ_rank(a);
@@ -111,6 +113,19 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
         } else if (a->status == SL_ST_BAND && a->kind && a->band >= 0) {
             snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_source ? a->kind->bands_source : "");
             o->level = xstrdup(buf, &ok);
+        }
+    }
+    for (size_t i = 0; i < as->n && !e->message; i++) {
+        const sl_assessment *a = &as->items[i];
+        if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->status == SL_ST_NOT_ASSESSED &&
+            a->not_assessed_why && strncmp(a->not_assessed_why, "no gestational age", 18) == 0) {
+            /* the batch was not given a fact it needs: say what to supply */
+            snprintf(buf, sizeof buf,
+                     "ROI '%s' is a fetus and no gestational age was given: it is not judged; "
+                     "supply gestational_age_weeks for patient ID '%s' (or plan UID %s) in the "
+                     "facts file (--facts)",
+                     a->dose->roi->name, e->patient_id ? e->patient_id : "", e->plan_uid);
+            e->message = xstrdup(buf, &ok);
         }
     }
     if (as->any_flagged && e->nflagged == 0) {
@@ -227,6 +242,8 @@ static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structur
     req.levels_path = cfg->levels_path;
     req.locate.threads = cfg->threads_per_plan;
     req.estimate.threads = cfg->threads_per_plan;
+    /* a batch screens a plan it lacks a fact for, leaving that organ unjudged */
+    req.patient.age_unknown_unjudged = true;
     if (facts) {
         sl_patient *pt = &req.patient;
         if (!isnan(facts->gestational_weeks)) {
@@ -338,18 +355,6 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
         e->rank = RANK_ERROR;
         free(e->message);
         e->message = xstrdup(perr.msg[0] ? perr.msg : sl_status_name(st), &ok);
-        if (strstr(perr.msg, "is a fetus: give its gestational age")) {
-            /* the batch was not given a fact it needs: say what to supply */
-            size_t n = strlen(perr.msg) + 256;
-            char *m = malloc(n);
-            if (m) {
-                snprintf(m, n, "%s; in a batch, supply gestational_age_weeks for patient ID "
-                               "'%s' (or plan UID %s) in the facts file (--facts)",
-                         perr.msg, e->patient_id ? e->patient_id : "", e->plan_uid);
-                free(e->message);
-                e->message = m;
-            }
-        }
     } else {
         e->outcome = SL_OUT_SCREENED;
     }

@@ -240,9 +240,21 @@ class MissingFact(unittest.TestCase):
             with open(os.path.join(d, "out", "summary.json")) as f:
                 plans = json.load(f)["plans"]
             self.assertEqual(len(plans), 1)
+            # still screened: the fetus not judged, the plan flagged, the
+            # summary saying what to supply for whom
+            self.assertEqual(plans[0]["outcome"], "screened")
             self.assertTrue(plans[0]["flagged"])
             self.assertIn("gestational_age_weeks", plans[0]["message"])
             self.assertIn("DEMO-FETUS-02", plans[0]["message"])
+            fetus = [o for o in plans[0]["flagged_organs"] if o["roi"] == "Fetus"]
+            self.assertEqual(len(fetus), 1)
+            self.assertTrue(fetus[0]["status"].startswith("not assessed: no gestational age"))
+            # the other organs were judged: the report holds every organ
+            with open(os.path.join(d, "out", plans[0]["report_json"])) as f:
+                self.assertIn("Fetus", f.read())
+            rc, out, err = run("history", "--log", os.path.join(d, "out", "screening.sqlite"),
+                               "--format", "json", check=0)
+            self.assertTrue(json.loads(out)["screenings"][0]["flagged"])
 
 
 class History(unittest.TestCase):
