@@ -42,8 +42,10 @@ typedef struct sl_scan_files {
 
 /* Walk dir recursively (symbolic links are not followed, so a link cannot
  * lead the walk in a circle or out of the folder) and read the header of
- * every regular file on `threads` threads. */
-sl_status sl_scan_walk(const char *dir, int threads, sl_scan_files **out, sl_error *err);
+ * every regular file on `threads` threads. A folder that is `skip` (the
+ * output folder, when it lies inside dir; may be NULL) is not entered. */
+sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_files **out,
+                       sl_error *err);
 void sl_scan_files_free(sl_scan_files *f);
 
 /* What became of one object of the folder (or one received pair). */

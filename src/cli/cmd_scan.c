@@ -187,7 +187,7 @@ int sl_cmd_scan(int argc, char **argv)
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
         (facts_path && sl_facts_load(facts_path, &facts, &err) != SL_OK) ||
         sl_screenlog_open(log_path, true, &log, &err) != SL_OK ||
-        sl_scan_walk(dir, threads, &files, &err) != SL_OK ||
+        sl_scan_walk(dir, threads, outdir, &files, &err) != SL_OK ||
         sl_scan_pair(files, &entries, &n, &err) != SL_OK) {
         rc = sl_cli_fail(&err);
         goto done;

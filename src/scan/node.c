@@ -11,6 +11,8 @@
  * covers a structure set that arrived in an earlier run of the node.
  */
 #include <math.h>
+#include <stdint.h>
+#include <stdio.h>
 #include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
@@ -23,6 +25,7 @@ typedef struct pending {
     sl_dicom_head head;
     double since_s;
     bool reported;
+    size_t done_index; /* its incomplete entry in done, SIZE_MAX: none */
 } pending;
 
 struct sl_node {
@@ -190,7 +193,7 @@ static sl_status take_queue(sl_node *n, double now_s,
             n->wait = g;
             n->capwait = cap;
         }
-        n->wait[n->nwait++] = (pending){q[i], h, now_s, false};
+        n->wait[n->nwait++] = (pending){q[i], h, now_s, false, SIZE_MAX};
     }
     free(q);
     return st;
@@ -218,26 +221,33 @@ sl_status sl_node_step(sl_node *n, double now_s,
         }
         if (!ss) {
             if (!p->reported && now_s - p->since_s >= n->limit_s) {
-                /* reported, and kept waiting: the structure set may still come */
+                /* reported, listed, and kept waiting: the structure set may still come */
                 p->reported = true;
-                sl_batch_entry e = {0};
-                if (fill_from_head(&e, p->path, &p->head) != SL_OK)
+                sl_batch_entry *e = new_entry(n);
+                if (!e || fill_from_head(e, p->path, &p->head) != SL_OK)
                     return sl_error_set(err, SL_ENOMEM, "out of memory");
-                e.outcome = SL_OUT_INCOMPLETE;
-                e.flagged = true;
+                p->done_index = n->ndone - 1;
+                e->outcome = SL_OUT_INCOMPLETE;
+                e->flagged = true;
                 char msg[256];
                 snprintf(msg, sizeof msg,
                          "its structure set (SOP Instance UID %s) has not arrived after %g s",
                          p->head.structure_set_uid[0] ? p->head.structure_set_uid : "none given",
                          n->limit_s);
-                e.message = strdup(msg);
-                report(&e, ctx);
-                sl_batch_entry_clear(&e);
+                e->message = strdup(msg);
+                report(e, ctx);
+                changed = true;
             }
             i++;
             continue;
         }
-        sl_batch_entry *e = new_entry(n);
+        sl_batch_entry *e;
+        if (p->done_index != SIZE_MAX) {
+            e = &n->done[p->done_index]; /* incomplete no more */
+            sl_batch_entry_clear(e);
+        } else {
+            e = new_entry(n);
+        }
         if (!e || fill_from_head(e, p->path, &p->head) != SL_OK) {
             free(ss);
             return sl_error_set(err, SL_ENOMEM, "out of memory");

@@ -80,10 +80,12 @@ void sl_scan_files_free(sl_scan_files *f)
     free(f);
 }
 
-sl_status sl_scan_walk(const char *dir, int threads, sl_scan_files **out, sl_error *err)
+sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_files **out,
+                       sl_error *err)
 {
     *out = NULL;
-    struct stat sb;
+    struct stat sb, skip_sb;
+    bool have_skip = skip && stat(skip, &skip_sb) == 0;
     if (stat(dir, &sb) != 0)
         return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", dir, strerror(errno));
     if (!S_ISDIR(sb.st_mode))
@@ -121,7 +123,9 @@ sl_status sl_scan_walk(const char *dir, int threads, sl_scan_files **out, sl_err
                 sl_notes_add(&f->notes, "%s: cannot read: %s", p, strerror(errno));
                 free(p);
             } else if (S_ISDIR(es.st_mode)) {
-                if (!strvec_push(&todo, p)) {
+                if (have_skip && es.st_dev == skip_sb.st_dev && es.st_ino == skip_sb.st_ino) {
+                    free(p); /* our own output: reports and the log are not inputs */
+                } else if (!strvec_push(&todo, p)) {
                     free(p);
                     st = sl_error_set(err, SL_ENOMEM, "out of memory");
                     break;

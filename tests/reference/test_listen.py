@@ -18,6 +18,7 @@ import subprocess
 import threading
 import time
 import unittest
+import warnings
 
 import pydicom
 
@@ -174,8 +175,34 @@ class Listen(unittest.TestCase):
         face = os.path.join(EXAMPLES, "face-lens")
         self.assertEqual(store(node.port, os.path.join(face, "rtplan.dcm")).returncode, 0)
         self.assertTrue(node.wait_for(lambda: "incomplete" in node.log(), 15), node.log())
+        self.assertTrue(node.wait_for(lambda: self.outcomes() == ["incomplete"], 15))
         self.assertEqual(store(node.port, os.path.join(face, "rtstruct.dcm")).returncode, 0)
         self.assertTrue(self.screened(1), node.log())
+        self.assertTrue(node.wait_for(lambda: self.outcomes() == ["screened"], 15))
+
+    def outcomes(self):
+        try:
+            with open(os.path.join(self.out, "summary.json")) as f:
+                return [p["outcome"] for p in json.load(f)["plans"]]
+        except (OSError, ValueError):
+            return None
+
+    def test_bad_data_set_answered_with_failure(self):
+        """A data set whose SOP Instance UID breaks the UID grammar (PS3.5
+        9.1) is refused, logged, not stored, and the node keeps answering."""
+        node = self.start()
+        bad = os.path.join(self.tmp.name, "bad.dcm")
+        ds = pydicom.dcmread(os.path.join(EXAMPLES, "face-lens", "rtplan.dcm"))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # pydicom rightly warns of the bad UID
+            ds.SOPInstanceUID = "1.2.03.x"
+            ds.file_meta.MediaStorageSOPInstanceUID = "1.2.03.x"
+            ds.save_as(bad, write_like_original=True)
+        p = store(node.port, bad)
+        self.assertTrue(node.wait_for(lambda: "refused" in node.log(), 15), node.log())
+        self.assertIn("not a valid UID", node.log())
+        self.assertEqual([f for f in os.listdir(os.path.join(self.out, "received"))], [])
+        self.assertEqual(echo(node.port), 0)
 
     def test_unknown_caller_refused(self):
         node = self.start()
@@ -214,6 +241,20 @@ class Listen(unittest.TestCase):
             results[k] = store(node.port, *files, calling=CALLER if k % 2 else "TPS2")
 
         threads = [threading.Thread(target=send, args=(k,)) for k in range(20)]
+        readers = []
+        reading = [True]
+
+        def read_history():
+            # the log read by `history` while the node writes it (WAL mode)
+            while reading[0] and len(readers) < 200:
+                p = subprocess.run([STRAYLINE, "history", "--log",
+                                    os.path.join(self.out, "screening.sqlite"), "--format",
+                                    "json"], capture_output=True, text=True, timeout=60)
+                readers.append((p.returncode, p.stdout, p.stderr))
+                time.sleep(0.05)
+
+        reader = threading.Thread(target=read_history)
+        reader.start()
         for t in threads:
             t.start()
         for t in threads:
@@ -224,6 +265,12 @@ class Listen(unittest.TestCase):
         self.assertTrue(node.wait_for(lambda: len(report_names(self.out)) >= 10, 120),
                         node.log())
         self.assertTrue(node.wait_for(lambda: len(log_plan_uids(self.out)) >= 10, 60))
+        reading[0] = False
+        reader.join(timeout=120)
+        self.assertTrue(readers)
+        for rc, out, err in readers:
+            self.assertEqual(rc, 0, err)
+            json.loads(out)
         self.assertEqual(node.stop(), 0)
         stored = sorted(os.listdir(os.path.join(self.out, "received")))
         expect = sorted([u + ".dcm" for _, u, _ in pairs] + [s + ".dcm" for _, _, s in pairs])

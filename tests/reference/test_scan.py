@@ -366,6 +366,18 @@ class BadInput(unittest.TestCase):
             self.assertEqual(rc, 3)
             self.assertIn("facts.yaml:4:", err)
 
+    def test_output_folder_inside_the_export_is_not_read(self):
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            shutil.copytree(os.path.join(EXAMPLES, "face-lens"), src)
+            out = os.path.join(src, "screening")
+            scan(src, out, check=4)
+            scan(src, out, check=4)  # a second run sees its own reports: not as inputs
+            with open(os.path.join(out, "summary.json")) as f:
+                counts = json.load(f)["counts"]
+            self.assertEqual(counts["bad"], 0)
+            self.assertEqual(counts["screened"], 1)
+
     def test_no_model(self):
         rc, out, err = run("scan", EXAMPLES, "--out", "/nonexistent")
         self.assertEqual(rc, 2)
