@@ -133,6 +133,10 @@ typedef struct sl_batch_config {
     int threads_per_plan;        /* threads inside one screening (1 in a pool) */
 } sl_batch_config;
 
+/* Call once, on one thread, before screening on several: libxml2 (the
+ * HTML writers) must be initialised before threads use it. */
+void sl_batch_prepare(void);
+
 /* Screen one pair: read both files, screen, write OUTDIR/NAME.json and
  * NAME.html (NAME from the sanitised patient ID, plan label and plan UID),
  * log it, and fill e (outcome SL_OUT_SCREENED or SL_OUT_ERROR with the

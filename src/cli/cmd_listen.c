@@ -320,6 +320,7 @@ int sl_cmd_listen(int argc, char **argv)
         .callback = on_event,
         .ctx = node,
     };
+    sl_batch_prepare();
     if (sl_scp_start(&scfg, &scp, &err) != SL_OK) {
         rc = sl_cli_fail(&err);
         goto done;

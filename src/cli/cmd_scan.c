@@ -237,6 +237,7 @@ int sl_cmd_scan(int argc, char **argv)
     if (!quiet)
         fprintf(stderr, "strayline scan: %zu files, %zu plan%s to screen\n", files->n, ntodo,
                 ntodo == 1 ? "" : "s");
+    sl_batch_prepare();
     sl_parallel_for(ntodo, sl_parallel_threads(threads), screen_task, &p);
     pthread_mutex_destroy(&p.lock);
     if (p.fatal != SL_OK) {

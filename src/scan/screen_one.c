@@ -15,12 +15,19 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <libxml/parser.h>
+
 #include "strayline/dicom.h"
 #include "strayline/report.h"
 #include "strayline/scan.h"
 #include "strayline/screen.h"
 #include "strayline/util.h"
 #include "strayline/version.h"
+
+void sl_batch_prepare(void)
+{
+    xmlInitParser();
+}
 
 void sl_sanitise_name(const char *in, char *out, size_t max)
 {
