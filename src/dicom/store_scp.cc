@@ -32,6 +32,8 @@
 #include <cstdio>
 #include <cstring>
 #include <dirent.h>
+#include <netinet/in.h>
+#include <sys/socket.h>
 #include <mutex>
 #include <new>
 #include <pthread.h>
@@ -334,6 +336,24 @@ sl_status sl_scp_start(const sl_scp_config *cfg, sl_scp **out, sl_error *err)
             return sl_error_set(err, SL_EUSAGE, "allowed AE title '%s': needs 1 to 16 printable "
                                                 "characters, no backslash",
                                 cfg->allowed[i]);
+    /* the pool opens its port on its own thread: try the port here first,
+     * so that a port in use is an error of the start, not of the run */
+    int probe = socket(AF_INET, SOCK_STREAM | SOCK_CLOEXEC, 0);
+    if (probe >= 0) {
+        int one = 1;
+        setsockopt(probe, SOL_SOCKET, SO_REUSEADDR, &one, sizeof one);
+        struct sockaddr_in a = {};
+        a.sin_family = AF_INET;
+        a.sin_port = htons(static_cast<uint16_t>(cfg->port));
+        a.sin_addr.s_addr = htonl(INADDR_ANY);
+        int rc = bind(probe, reinterpret_cast<struct sockaddr *>(&a), sizeof a);
+        int e = errno;
+        close(probe);
+        if (rc != 0)
+            return sl_error_set(err, SL_EUSAGE, "port %d: cannot listen: %s (choose another "
+                                                "--port)",
+                                cfg->port, strerror(e));
+    }
     sl_scp *s = new (std::nothrow) sl_scp;
     if (!s)
         return sl_error_set(err, SL_ENOMEM, "out of memory");

@@ -158,6 +158,16 @@ class Listen(unittest.TestCase):
         self.assertEqual(stored, sorted([uid + ".dcm", ss_uid + ".dcm"]))
         self.assertEqual(plan_uid(os.path.join(self.out, "received", uid + ".dcm")), uid)
 
+    def test_port_in_use(self):
+        node = self.start()
+        p = subprocess.run([STRAYLINE, "listen", "--port", str(node.port), "--ae-title", AET,
+                            "--allow-aet", CALLER, "--model", MODEL, "--out",
+                            os.path.join(self.tmp.name, "out2")], capture_output=True,
+                           text=True, timeout=30)
+        self.assertEqual(p.returncode, 2)
+        self.assertIn("port %d: cannot listen" % node.port, p.stderr)
+        self.assertEqual(echo(node.port), 0)  # the first node is untouched
+
     def test_two_associations_structures_first(self):
         node = self.start()
         neck = os.path.join(EXAMPLES, "neck-device")
