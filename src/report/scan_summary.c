@@ -34,7 +34,7 @@ static void organs_text(const sl_batch_entry *e, char *buf, size_t size)
     for (size_t i = 0; i < e->nflagged && k + 1 < size; i++) {
         const sl_flagged_organ *o = &e->organs[i];
         int n = isfinite(o->course_cgy)
-                    ? snprintf(buf + k, size - k, "%s%s: %s (course %.3g cGy, upper %.3g cGy)",
+                    ? snprintf(buf + k, size - k, "%s%s: %s (course %.4g cGy, upper %.4g cGy)",
                                i ? "; " : "", o->roi, o->status, o->course_cgy, o->upper_cgy)
                     : snprintf(buf + k, size - k, "%s%s: %s", i ? "; " : "", o->roi, o->status);
         if (n < 0)
