@@ -64,6 +64,19 @@ void sl_dicom_object_free(sl_dicom_object *obj);
 /* DCMTK's version string, for reports. */
 const char *sl_dicom_toolkit_version(void);
 
+/* Write `pdf` (pdf_len bytes, a PDF) to out_path as a DICOM Encapsulated PDF
+ * object (PS3.3 A.45.1) in the patient and study of the RT Plan at plan_path:
+ * the plan's Patient, Patient Study and General Study attributes, a new
+ * series (Modality DOC), a new SOP Instance UID, Document Title = title
+ * (UTF-8, one line, at most 1024 characters; NULL for none), Burned In Annotation YES.
+ * Explicit VR Little Endian with a file meta header, written atomically and
+ * never over the plan. SL_EINPUT names the plan and the element (unreadable,
+ * not an RT Plan, no Study Instance UID); SL_EUSAGE a title that a DICOM ST
+ * value cannot hold; SL_EIO an output that cannot be written. */
+sl_status sl_dicom_write_pdf(const char *out_path, const char *plan_path,
+                             const unsigned char *pdf, size_t pdf_len, const char *title,
+                             sl_error *err);
+
 #ifdef __cplusplus
 }
 #endif

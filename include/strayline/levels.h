@@ -237,6 +237,8 @@ typedef struct sl_assessments {
     sl_other_beam *other;     /* treatment beams not estimated by this tool */
     size_t n_incomplete;      /* organs with levels marked incomplete */
     bool neutrons;            /* a beam of the plan may produce neutrons */
+    size_t n_measure;         /* organs for which in-vivo measurement is advised (these
+                                 set any_flagged too: the screening cannot settle them) */
     sl_notes missing;         /* asked-for organs that are absent ("not assessed: no fetus
                                  found ...") */
     sl_notes notes;

@@ -141,6 +141,13 @@ typedef struct sl_plan {
     char *plan_date;         /* RT Plan Date (YYYYMMDD), may be NULL */
     char *frame_uid;         /* Frame of Reference UID, may be NULL */
     char *structure_set_uid; /* Referenced Structure Set SOP Instance UID, may be NULL */
+    char *study_uid;         /* Study Instance UID, may be NULL */
+    /* RT Approval module: Approval Status (APPROVED, UNAPPROVED, REJECTED),
+     * Review Date (YYYYMMDD), Review Time, Reviewer Name; NULL when absent */
+    char *approval_status;
+    char *review_date;
+    char *review_time;
+    char *reviewer_name;
     size_t nsetups;
     sl_setup *setups;
     size_t ngroups;

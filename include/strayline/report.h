@@ -67,6 +67,10 @@ typedef struct sl_estimate_report {
  * models/estimate-report.schema.json) or CSV, and the HTML report. */
 sl_status sl_report_estimate(FILE *fp, sl_format fmt, const sl_estimate_report *r, sl_error *err);
 sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_error *err);
+/* The printable report (cairo + Pango), paper "a4" or "letter": the PDF
+ * bytes in *pdf (caller frees), the same for --pdf and --pdf-dicom. */
+sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
+                                 unsigned char **pdf, size_t *len, sl_error *err);
 
 #ifdef __cplusplus
 }

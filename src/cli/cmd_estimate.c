@@ -37,8 +37,18 @@ static const char help[] =
     "  -l, --levels FILE           action-level table (default: action-levels.yaml\n"
     "                              beside the model file; models/action-levels-tg203.yaml\n"
     "                              judges cardiac devices by the AAPM TG-203 categories)\n"
-    "  -f, --format FMT            standard output: text (default), json or csv\n"
-    "  -o, --html FILE             also write the HTML report (self-contained)\n"
+    "  -f, --format FMT            the report's format: text (default), json or csv\n"
+    "  -o, --output FILE           write that report to FILE, not standard output\n"
+    "      --html FILE             also write the HTML report (self-contained; - for\n"
+    "                              standard output)\n"
+    "      --pdf FILE              also write the printable PDF report (- for standard\n"
+    "                              output)\n"
+    "      --paper a4|letter       the PDF's paper (default a4)\n"
+    "      --pdf-dicom FILE        also write that PDF as a DICOM Encapsulated PDF in the\n"
+    "                              plan's patient and study (a new series), for the\n"
+    "                              archive or the record-and-verify system\n"
+    ;
+static const char help2[] =
     "      --prescription-isodose PERCENT\n"
     "                              isodose the dose is prescribed to (e.g. 90), for\n"
     "                              the check against the plan's Beam Dose\n"
@@ -100,7 +110,11 @@ enum {
     OPT_OTHER,
     OPT_POINT,
     OPT_LANDMARK,
-    OPT_RISE
+    OPT_RISE,
+    OPT_HTML,
+    OPT_PDF,
+    OPT_PAPER,
+    OPT_PDF_DICOM
 };
 
 #define MAX_ITEMS 64
@@ -152,13 +166,71 @@ static char *split_eq(char *s)
     return eq + 1;
 }
 
+/* Each output file is written atomically beside its target; "-" is
+ * standard output. */
+typedef sl_status (*writer_fn)(FILE *fp, const void *ctx, sl_error *err);
+
+typedef struct pdf_bytes {
+    const unsigned char *data;
+    size_t len;
+} pdf_bytes;
+
+typedef struct report_args {
+    const sl_estimate_report *rep;
+    sl_format fmt;
+} report_args;
+
+static sl_status write_html(FILE *fp, const void *ctx, sl_error *err)
+{
+    return sl_report_estimate_html(fp, ctx, err);
+}
+
+static sl_status write_pdf(FILE *fp, const void *ctx, sl_error *err)
+{
+    const pdf_bytes *b = ctx;
+    if (fwrite(b->data, 1, b->len, fp) != b->len)
+        return sl_error_set(err, SL_EIO, "cannot write the PDF");
+    return SL_OK;
+}
+
+static sl_status write_main(FILE *fp, const void *ctx, sl_error *err)
+{
+    const report_args *a = ctx;
+    return sl_report_estimate(fp, a->fmt, a->rep, err);
+}
+
+static int write_report(const char *path, const char **inputs, const void *ctx, writer_fn fn,
+                        sl_error *err)
+{
+    if (strcmp(path, "-") == 0) {
+        if (fn(stdout, ctx, err) != SL_OK)
+            return sl_cli_fail(err);
+        if (fflush(stdout) != 0) {
+            sl_cli_error("output error: cannot write to standard output");
+            return SL_EXIT_INTERNAL;
+        }
+        return SL_EXIT_OK;
+    }
+    sl_outfile out = {0};
+    if (sl_outfile_open(&out, path, inputs, 4, err) != SL_OK || fn(out.fp, ctx, err) != SL_OK ||
+        sl_outfile_commit(&out, err) != SL_OK) {
+        sl_outfile_abort(&out);
+        return sl_cli_fail(err);
+    }
+    return SL_EXIT_OK;
+}
+
 int sl_cmd_estimate(int argc, char **argv)
 {
     static const struct option opts[] = {
         {"model", required_argument, NULL, 'm'},
         {"levels", required_argument, NULL, 'l'},
         {"format", required_argument, NULL, 'f'},
-        {"html", required_argument, NULL, 'o'},
+        {"output", required_argument, NULL, 'o'},
+        {"html", required_argument, NULL, OPT_HTML},
+        {"pdf", required_argument, NULL, OPT_PDF},
+        {"paper", required_argument, NULL, OPT_PAPER},
+        {"pdf-dicom", required_argument, NULL, OPT_PDF_DICOM},
         {"prescription-isodose", required_argument, NULL, OPT_ISODOSE},
         {"reference-dose", required_argument, NULL, OPT_REFDOSE},
         {"setup-shift", required_argument, NULL, OPT_SHIFT},
@@ -184,7 +256,8 @@ int sl_cmd_estimate(int argc, char **argv)
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
     };
-    const char *model_path = NULL, *levels_path = NULL, *html = NULL;
+    const char *model_path = NULL, *levels_path = NULL, *html = NULL, *output = NULL,
+               *pdf_path = NULL, *paper = "a4", *pdf_dicom = NULL;
     sl_format fmt = SL_FORMAT_TEXT;
     sl_estimate_options eopt;
     sl_estimate_default_options(&eopt);
@@ -211,7 +284,20 @@ int sl_cmd_estimate(int argc, char **argv)
             if (!sl_cli_format("estimate", optarg, &fmt))
                 return SL_EXIT_USAGE;
             break;
-        case 'o': html = optarg; break;
+        case 'o': output = optarg; break;
+        case OPT_HTML: html = optarg; break;
+        case OPT_PDF: pdf_path = optarg; break;
+        case OPT_PDF_DICOM:
+            if (strcmp(optarg, "-") == 0)
+                return sl_cli_usage("estimate", "--pdf-dicom needs a file name (a DICOM object "
+                                                "does not go to standard output)");
+            pdf_dicom = optarg;
+            break;
+        case OPT_PAPER:
+            if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
+                return sl_cli_usage("estimate", "--paper needs a4 or letter, not '%s'", optarg);
+            paper = optarg;
+            break;
         case OPT_ISODOSE:
             if (!sl_parse_double(optarg, &v) || v <= 10 || v > 100)
                 return sl_cli_usage("estimate", "--prescription-isodose needs a percentage "
@@ -360,8 +446,11 @@ int sl_cmd_estimate(int argc, char **argv)
                 return sl_cli_usage("estimate", "--threads needs a number from 1 to 64");
             eopt.threads = lopt.threads;
             break;
-        case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("estimate", "bad option");
+        case 'h':
+            fputs(help, stdout);
+            fputs(help2, stdout);
+            return SL_EXIT_OK;
+        default: return sl_cli_bad_option(argv, opts, "m:l:f:o:d:j:h");
         }
     }
     if (argc - optind != 2)
@@ -392,7 +481,6 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_plan *plan = NULL;
     sl_structure_set *ss = NULL;
     sl_screen *scr = NULL;
-    sl_outfile out = {0};
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
@@ -429,24 +517,58 @@ int sl_cmd_estimate(int argc, char **argv)
     sl_estimate_report rep = {scr->plan, scr->ss,       scr->loc,      scr->est,
                               scr->as,   model,         levels,        scr->whatifs,
                               scr->nwhatifs};
-    if (html) {
-        const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
-        if (sl_outfile_open(&out, html, inputs, 4, &err) != SL_OK ||
-            sl_report_estimate_html(out.fp, &rep, &err) != SL_OK ||
-            sl_outfile_commit(&out, &err) != SL_OK) {
-            sl_outfile_abort(&out);
+    const char *inputs[] = {plan_path, ss_path, model_path, levels_path};
+    int to_stdout = (!output || strcmp(output, "-") == 0) + (html && strcmp(html, "-") == 0) +
+                    (pdf_path && strcmp(pdf_path, "-") == 0);
+    if (to_stdout > 1) {
+        rc = sl_cli_usage("estimate", "only one report can go to standard output: give -o FILE "
+                                      "for the %s report",
+                          fmt == SL_FORMAT_JSON ? "JSON" : fmt == SL_FORMAT_CSV ? "CSV" : "text");
+        goto done;
+    }
+    if (html && (rc = write_report(html, inputs, &rep, write_html, &err)) != SL_EXIT_OK)
+        goto done;
+    if (pdf_path || pdf_dicom) {
+        /* one PDF: the file and the DICOM object carry the same bytes */
+        unsigned char *pdf = NULL;
+        size_t npdf = 0;
+        if (sl_report_estimate_pdf(&rep, paper, &pdf, &npdf, &err) != SL_OK) {
             rc = sl_cli_fail(&err);
             goto done;
         }
+        pdf_bytes pb = {pdf, npdf};
+        if (pdf_path)
+            rc = write_report(pdf_path, inputs, &pb, write_pdf, &err);
+        if (rc == SL_EXIT_OK && pdf_dicom) {
+            bool over = false;
+            for (size_t i = 0; i < 4; i++)
+                over |= sl_same_file(pdf_dicom, inputs[i]);
+            if (over)
+                rc = sl_cli_usage("estimate", "--pdf-dicom %s: refusing to write over an input "
+                                              "file",
+                                  pdf_dicom);
+            else if (sl_dicom_write_pdf(pdf_dicom, plan_path, pdf, npdf,
+                                        "Out-of-field dose screening estimate", &err) != SL_OK)
+                rc = sl_cli_fail(&err);
+        }
+        free(pdf);
+        if (rc != SL_EXIT_OK)
+            goto done;
     }
-    if (sl_report_estimate(stdout, fmt, &rep, &err) != SL_OK) {
-        rc = sl_cli_fail(&err);
-        goto done;
-    }
-    if (fflush(stdout) != 0) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
-        rc = SL_EXIT_INTERNAL;
-        goto done;
+    report_args ra = {&rep, fmt};
+    if (output && strcmp(output, "-") != 0) {
+        if ((rc = write_report(output, inputs, &ra, write_main, &err)) != SL_EXIT_OK)
+            goto done;
+    } else {
+        if (sl_report_estimate(stdout, fmt, &rep, &err) != SL_OK) {
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        if (fflush(stdout) != 0) {
+            sl_cli_error("output error: cannot write to standard output");
+            rc = SL_EXIT_INTERNAL;
+            goto done;
+        }
     }
     rc = scr->as->any_flagged ? SL_EXIT_FLAGGED : SL_EXIT_OK;
 done:

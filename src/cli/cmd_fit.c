@@ -21,8 +21,10 @@ static const char help[] =
     "Fit every out-of-field profile of a measurement set (dose in percent of\n"
     "the central-axis maximum against distance from the field edge, cm) with\n"
     "the smooth or the peaked form, chosen by AICc, and write the model file.\n\n"
-    "  -o, --output FILE          the model file to write (required)\n"
+    "  -o, --output FILE          the model file to write (required; '-': standard\n"
+    "                             output, and the summary goes to standard error)\n"
     "  -r, --report FILE          also write an HTML fit report with a figure a profile\n"
+    "                             ('-': standard output)\n"
     "      --model-version TEXT   version label of the model (default: the date)\n"
     "      --created TEXT         creation time to record (default: now, UTC)\n"
     "  -j, --threads N            threads to use (default: every core)\n"
@@ -54,9 +56,10 @@ int sl_cmd_fit(int argc, char **argv)
     const char *output = NULL, *report = NULL, *version = NULL, *created = NULL;
     int threads = 0;
     bool quiet = false;
+    static const char shortopts[] = "o:r:j:qh";
     int c;
     optind = 1;
-    while ((c = getopt_long(argc, argv, "o:r:j:qh", opts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
         switch (c) {
         case 'o': output = optarg; break;
         case 'r': report = optarg; break;
@@ -68,7 +71,7 @@ int sl_cmd_fit(int argc, char **argv)
             break;
         case 'q': quiet = true; break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("fit", "bad option");
+        default: return sl_cli_bad_option(argv, opts, shortopts);
         }
     }
     if (argc - optind != 1)
@@ -76,6 +79,14 @@ int sl_cmd_fit(int argc, char **argv)
     if (!output)
         return sl_cli_usage("fit", "--output MODEL.yaml is required");
     const char *input = argv[optind];
+    if (sl_cli_is_stdio(input))
+        return sl_cli_usage("fit", "the measurement set cannot be read from standard input: it "
+                                   "names its profile CSV files relative to its own folder, so "
+                                   "give its file name");
+    if (sl_cli_is_stdio(output) && sl_cli_is_stdio(report))
+        return sl_cli_usage("fit", "--output and --report cannot both go to standard output");
+    /* the summary must not mix with a file written to standard output */
+    FILE *summary = sl_cli_is_stdio(output) || sl_cli_is_stdio(report) ? stderr : stdout;
     char now[32], today[16];
     time_t t = time(NULL);
     struct tm tm;
@@ -103,7 +114,7 @@ int sl_cmd_fit(int argc, char **argv)
     /* every file read: the measurement set and each profile CSV, then the model */
     inputs = calloc(ms->nprofiles + 2, sizeof *inputs);
     if (!inputs) {
-        fprintf(stderr, "strayline: out of memory\n");
+        sl_cli_error("out of memory");
         rc = SL_EXIT_INTERNAL;
         goto done;
     }
@@ -111,18 +122,19 @@ int sl_cmd_fit(int argc, char **argv)
     for (size_t i = 0; i < ms->nprofiles; i++)
         inputs[i + 1] = ms->profiles[i].path;
     if (sl_commission(ms, &copt, &model, &err) != SL_OK ||
-        sl_outfile_open(&out, output, inputs, ms->nprofiles + 1, &err) != SL_OK ||
-        sl_model_write(model, out.fp, &err) != SL_OK || sl_outfile_commit(&out, &err) != SL_OK) {
-        sl_outfile_abort(&out);
+        sl_cli_output_open(&out, output, inputs, ms->nprofiles + 1, &err) != SL_OK ||
+        sl_model_write(model, out.fp, &err) != SL_OK ||
+        sl_cli_output_commit(&out, &err) != SL_OK) {
+        sl_cli_output_abort(&out);
         rc = sl_cli_fail(&err);
         goto done;
     }
     if (report) {
         inputs[ms->nprofiles + 1] = output;
-        if (sl_outfile_open(&rep, report, inputs, ms->nprofiles + 2, &err) != SL_OK ||
+        if (sl_cli_output_open(&rep, report, inputs, ms->nprofiles + 2, &err) != SL_OK ||
             sl_report_fit_html(rep.fp, ms, model, &err) != SL_OK ||
-            sl_outfile_commit(&rep, &err) != SL_OK) {
-            sl_outfile_abort(&rep);
+            sl_cli_output_commit(&rep, &err) != SL_OK) {
+            sl_cli_output_abort(&rep);
             rc = sl_cli_fail(&err);
             goto done;
         }
@@ -132,15 +144,18 @@ int sl_cmd_fit(int argc, char **argv)
         poor += model->profiles[i].fit.poor;
         peaked += model->profiles[i].fit.form == SL_FORM_PEAKED;
     }
-    printf("%s: %zu profiles fitted (%zu with the peaked form, %zu smooth); model written to "
-           "%s%s%s\n",
-           input, model->nprofiles, peaked, model->nprofiles - peaked, output,
-           report ? ", report to " : "", report ? report : "");
+    fprintf(summary,
+            "%s: %zu profiles fitted (%zu with the peaked form, %zu smooth); model written to "
+            "%s%s%s\n",
+            input, model->nprofiles, peaked, model->nprofiles - peaked,
+            sl_cli_is_stdio(output) ? "standard output" : output, report ? ", report to " : "",
+            !report ? "" : sl_cli_is_stdio(report) ? "standard output" : report);
     sl_cli_warnings(&ms->notes);
     if (poor) {
-        printf("poor fits (chi-square or largest residual beyond what a good profile passes "
-               "with %.1f %% and %.1f %% false alarms):\n",
-               100 * SL_POOR_ALPHA_CHI2, 100 * SL_POOR_ALPHA_RESIDUAL);
+        fprintf(summary,
+                "poor fits (chi-square or largest residual beyond what a good profile passes "
+                "with %.1f %% and %.1f %% false alarms):\n",
+                100 * SL_POOR_ALPHA_CHI2, 100 * SL_POOR_ALPHA_RESIDUAL);
         for (size_t i = 0; i < model->nprofiles; i++) {
             const sl_model_profile *p = &model->profiles[i];
             if (!p->fit.poor)
@@ -148,12 +163,13 @@ int sl_cmd_fit(int argc, char **argv)
             char label[160];
             sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction,
                              label, sizeof label);
-            printf("  %-40s reduced chi-square %.2f, largest residual %.1f sigma (%s)\n", label,
-                   p->fit.chi2_red, p->fit.max_residual_sigma, p->data_file);
+            fprintf(summary,
+                    "  %-40s reduced chi-square %.2f, largest residual %.1f sigma (%s)\n", label,
+                    p->fit.chi2_red, p->fit.max_residual_sigma, p->data_file);
         }
     }
     if (fflush(stdout) != 0 || ferror(stdout)) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        sl_cli_error("output error: cannot write to standard output");
         rc = SL_EXIT_INTERNAL;
     }
 done:

@@ -63,7 +63,8 @@ int sl_cmd_history(int argc, char **argv)
     sl_format fmt = SL_FORMAT_TEXT;
     int c;
     optind = 1;
-    while ((c = getopt_long(argc, argv, "L:f:h", opts, NULL)) != -1) {
+    static const char shortopts[] = "L:f:h";
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
         switch (c) {
         case 'L': log_path = optarg; break;
         case OPT_FLAGGED: q.flagged_only = true; break;
@@ -80,7 +81,7 @@ int sl_cmd_history(int argc, char **argv)
                 return SL_EXIT_USAGE;
             break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("history", "bad option");
+        default: return sl_cli_bad_option(argv, opts, shortopts);
         }
     }
     if (optind != argc)
@@ -105,7 +106,7 @@ int sl_cmd_history(int argc, char **argv)
         goto done;
     }
     if (fflush(stdout) != 0) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        sl_cli_error("output error: cannot write to standard output");
         rc = SL_EXIT_INTERNAL;
     }
 done:

@@ -65,7 +65,7 @@ static void on_signal(int sig)
 
 static pthread_mutex_t print_lock = PTHREAD_MUTEX_INITIALIZER;
 
-/* One log line: UTC timestamp, command, text (already free of names). */
+/* One log line: command, UTC timestamp, text (already free of names). */
 static void logline(const char *fmt, ...)
 #if defined(__GNUC__)
     __attribute__((format(printf, 1, 2)))
@@ -81,7 +81,7 @@ static void logline(const char *fmt, ...)
     va_list ap;
     va_start(ap, fmt);
     pthread_mutex_lock(&print_lock);
-    fprintf(stderr, "%s strayline listen: ", when);
+    fprintf(stderr, "strayline listen: %s ", when);
     vfprintf(stderr, fmt, ap);
     fputc('\n', stderr);
     fflush(stderr);
@@ -125,7 +125,7 @@ static int read_allow_file(const char *path, char **allowed, size_t *n)
 {
     FILE *fp = fopen(path, "r");
     if (!fp) {
-        fprintf(stderr, "strayline: %s: cannot open: %s\n", path, strerror(errno));
+        sl_cli_error("%s: cannot open: %s", path, strerror(errno));
         return SL_EXIT_INPUT;
     }
     char line[256];
@@ -134,7 +134,7 @@ static int read_allow_file(const char *path, char **allowed, size_t *n)
         lineno++;
         size_t len = strcspn(line, "\r\n");
         if (line[len] == '\0' && !feof(fp)) {
-            fprintf(stderr, "strayline: %s: line %d: longer than an AE title can be\n", path,
+            sl_cli_error("%s: line %d: longer than an AE title can be", path,
                     lineno);
             fclose(fp);
             return SL_EXIT_INPUT;
@@ -149,8 +149,8 @@ static int read_allow_file(const char *path, char **allowed, size_t *n)
         if (!*s || *s == '#')
             continue;
         if (!sl_ae_title_valid(s) || *n == MAX_ALLOWED) {
-            fprintf(stderr, "strayline: %s: line %d: '%s' is not an AE title (1 to 16 printable "
-                            "characters, no backslash)\n",
+            sl_cli_error("%s: line %d: '%s' is not an AE title (1 to 16 printable "
+                         "characters, no backslash)",
                     path, lineno, s);
             fclose(fp);
             return SL_EXIT_INPUT;
@@ -189,7 +189,8 @@ int sl_cmd_listen(int argc, char **argv)
     int port = 0, maxassoc = 32, timeout = 60, c, rc = SL_EXIT_OK;
     double incomplete_s = 600;
     optind = 1;
-    while ((c = getopt_long(argc, argv, "p:a:A:m:o:l:L:h", opts, NULL)) != -1) {
+    static const char shortopts[] = "p:a:A:m:o:l:L:h";
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
         switch (c) {
         case 'p':
             if (!sl_parse_int(optarg, &port) || port < 1 || port > 65535)
@@ -232,7 +233,7 @@ int sl_cmd_listen(int argc, char **argv)
         case 'h':
             fputs(help, stdout);
             goto free_allowed;
-        default: rc = sl_cli_usage("listen", "bad option"); break;
+        default: rc = sl_cli_bad_option(argv, opts, shortopts); break;
         }
         if (rc != SL_EXIT_OK)
             goto free_allowed;
@@ -266,7 +267,7 @@ int sl_cmd_listen(int argc, char **argv)
     snprintf(store, sizeof store, "%s/received", outdir);
     if ((mkdir(outdir, 0777) != 0 && errno != EEXIST) ||
         (mkdir(store, 0700) != 0 && errno != EEXIST)) {
-        fprintf(stderr, "strayline: %s: cannot create the output folder: %s\n", outdir,
+        sl_cli_error("%s: cannot create the output folder: %s", outdir,
                 strerror(errno));
         rc = SL_EXIT_INTERNAL;
         goto free_allowed;

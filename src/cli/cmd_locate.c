@@ -23,8 +23,9 @@ static const char help[] =
     "distance from the applicator outline (cm); per beam the central-axis entry\n"
     "point, the SSD found there against the plan's (cm) and the surface obliquity\n"
     "(deg). Organs in or touching the field are marked: out-of-field models do not\n"
-    "apply there.\n\n"
+    "apply there. PLAN or STRUCTURES may be '-': standard input.\n\n"
     "  -f, --format FMT        text (default) or json\n"
+    "  -o, --output FILE       write the table to FILE (default, or '-': standard output)\n"
     "  -m, --model FILE        model file whose applicator catalogue gives the field\n"
     "                          size when the plan has no cutout and no applicator\n"
     "                          geometry\n"
@@ -41,6 +42,7 @@ int sl_cmd_locate(int argc, char **argv)
     enum { OPT_MISMATCH = 256, OPT_EXTERNAL };
     static const struct option opts[] = {
         {"format", required_argument, NULL, 'f'},
+        {"output", required_argument, NULL, 'o'},
         {"model", required_argument, NULL, 'm'},
         {"depth", required_argument, NULL, 'd'},
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
@@ -53,10 +55,11 @@ int sl_cmd_locate(int argc, char **argv)
     sl_locate_options lopt;
     sl_locate_default_options(&lopt);
     bool allow_mismatch = false;
-    const char *model_path = NULL;
+    const char *model_path = NULL, *output = NULL;
+    static const char shortopts[] = "f:o:m:d:j:h";
     int c;
     optind = 1;
-    while ((c = getopt_long(argc, argv, "f:m:d:j:h", opts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
         switch (c) {
         case 'f':
             if (!sl_cli_format("locate", optarg, &fmt))
@@ -66,6 +69,9 @@ int sl_cmd_locate(int argc, char **argv)
             break;
         case 'm':
             model_path = optarg;
+            break;
+        case 'o':
+            output = optarg;
             break;
         case 'd':
             if (!sl_parse_double(optarg, &lopt.depth_cm) || lopt.depth_cm < 0)
@@ -85,11 +91,14 @@ int sl_cmd_locate(int argc, char **argv)
             fputs(help, stdout);
             return SL_EXIT_OK;
         default:
-            return sl_cli_usage("locate", "bad option");
+            return sl_cli_bad_option(argv, opts, shortopts);
         }
     }
     if (argc - optind != 2)
         return sl_cli_usage("locate", "needs two files: PLAN STRUCTURES");
+    if (sl_cli_is_stdio(argv[optind]) + sl_cli_is_stdio(argv[optind + 1]) +
+            sl_cli_is_stdio(model_path) > 1)
+        return sl_cli_usage("locate", "only one file can be read from standard input ('-')");
     sl_error err = {0};
     sl_plan *plan = NULL;
     sl_structure_set *ss = NULL;
@@ -97,7 +106,7 @@ int sl_cmd_locate(int argc, char **argv)
     sl_model *model = NULL;
     sl_applicator_size *catalogue = NULL;
     int rc = SL_EXIT_OK;
-    if (model_path && (sl_model_load(model_path, &model, &err) != SL_OK ||
+    if (model_path && (sl_cli_read_model(model_path, &model, &err) != SL_OK ||
                        sl_machine_catalogue(&model->machine, &catalogue, &lopt.ncatalogue, &err) !=
                            SL_OK)) {
         rc = sl_cli_fail(&err);
@@ -105,15 +114,17 @@ int sl_cmd_locate(int argc, char **argv)
         return rc;
     }
     lopt.catalogue = catalogue;
-    if (sl_dicom_read_plan(argv[optind], &plan, &err) != SL_OK ||
-        sl_dicom_read_structures(argv[optind + 1], &ss, &err) != SL_OK ||
+    const char *inputs[] = {argv[optind], argv[optind + 1], model_path};
+    sl_outfile out = {0};
+    if (sl_cli_read_plan(argv[optind], &plan, &err) != SL_OK ||
+        sl_cli_read_structures(argv[optind + 1], &ss, &err) != SL_OK ||
         sl_pair_check(plan, ss, allow_mismatch, &err) != SL_OK ||
         sl_locate(plan, ss, &lopt, &loc, &err) != SL_OK ||
-        sl_report_locate(stdout, fmt, plan, ss, loc, &err) != SL_OK)
+        sl_cli_output_open(&out, output ? output : "-", inputs, 3, &err) != SL_OK ||
+        sl_report_locate(out.fp, fmt, plan, ss, loc, &err) != SL_OK ||
+        sl_cli_output_commit(&out, &err) != SL_OK) {
+        sl_cli_output_abort(&out);
         rc = sl_cli_fail(&err);
-    else if (fflush(stdout) != 0) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
-        rc = SL_EXIT_INTERNAL;
     }
     sl_location_free(loc);
     sl_structure_set_free(ss);

@@ -13,15 +13,16 @@
 #include "strayline/util.h"
 
 static const char help[] =
-    "usage: strayline model show MODEL.yaml [--format text|json]\n"
+    "usage: strayline model show MODEL.yaml [--format text|json] [-o FILE]\n"
     "       strayline model eval MODEL.yaml --energy MEV --applicator ID --depth CM\n"
-    "                            --distance CM [--insert ID] [--points] [--format text|json]\n\n"
+    "                            --distance CM [--insert ID] [--points] [--format text|json]\n"
+    "                            [-o FILE]\n\n"
     "show: the machine, its applicators and inserts, and for every energy x\n"
     "applicator x insert the commissioned depths (cm), distance range (cm), output\n"
     "(cGy/MU at the central-axis maximum), fit forms and quality.\n"
     "eval: the dose in percent of the central-axis maximum at a depth below the\n"
     "surface and a distance outward from the field edge, with its standard\n"
-    "uncertainty and flags.\n\n"
+    "uncertainty and flags. MODEL.yaml '-' is standard input.\n\n"
     "  -e, --energy MEV        nominal energy (must be commissioned)\n"
     "  -a, --applicator ID     applicator (must be commissioned)\n"
     "  -i, --insert ID         insert (default: open)\n"
@@ -34,6 +35,7 @@ static const char help[] =
     "      --applicator-distance CM  distance from the applicator's opening, for the\n"
     "                          stand-in of an uncommissioned cutout\n"
     "  -f, --format FMT        text (default) or json\n"
+    "  -o, --output FILE       write to FILE (default, or '-': standard output)\n"
     "  -h, --help              this help\n";
 
 int sl_cmd_model(int argc, char **argv)
@@ -42,8 +44,16 @@ int sl_cmd_model(int argc, char **argv)
         fputs(help, stdout);
         return SL_EXIT_OK;
     }
-    if (argc < 2 || (strcmp(argv[1], "show") != 0 && strcmp(argv[1], "eval") != 0))
+    if (argc < 2)
         return sl_cli_usage("model", "needs 'show' or 'eval'");
+    if (strcmp(argv[1], "show") != 0 && strcmp(argv[1], "eval") != 0) {
+        static const char *const subs[] = {"show", "eval"};
+        const char *near = sl_cli_closest(argv[1], subs, 2);
+        if (near)
+            return sl_cli_usage("model", "needs 'show' or 'eval', not '%s': did you mean %s?",
+                                argv[1], near);
+        return sl_cli_usage("model", "needs 'show' or 'eval', not '%s'", argv[1]);
+    }
     bool eval = strcmp(argv[1], "eval") == 0;
     static const struct option opts[] = {
         {"energy", required_argument, NULL, 'e'},  {"applicator", required_argument, NULL, 'a'},
@@ -52,17 +62,19 @@ int sl_cmd_model(int argc, char **argv)
         {"format", required_argument, NULL, 'f'},  {"help", no_argument, NULL, 'h'},
         {"angle", required_argument, NULL, 'A'},
         {"applicator-distance", required_argument, NULL, 'X'},
+        {"output", required_argument, NULL, 'o'},
         {NULL, 0, NULL, 0},
     };
     double energy = NAN, depth = NAN, distance = NAN, angle = NAN, app_distance = NAN;
-    const char *applicator = NULL, *insert = NULL;
+    const char *applicator = NULL, *insert = NULL, *output = NULL;
+    static const char shortopts[] = "e:a:i:d:x:pf:hA:X:o:";
     sl_format fmt = SL_FORMAT_TEXT;
     sl_eval_mode mode = SL_EVAL_FIT;
     int c;
     optind = 1;
     argc--;
     argv++;
-    while ((c = getopt_long(argc, argv, "e:a:i:d:x:pf:hA:X:", opts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
         switch (c) {
         case 'e':
             if (!sl_parse_double(optarg, &energy) || energy <= 0)
@@ -97,8 +109,9 @@ int sl_cmd_model(int argc, char **argv)
             if (!sl_cli_format("model", optarg, &fmt))
                 return SL_EXIT_USAGE;
             break;
+        case 'o': output = optarg; break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("model", "bad option");
+        default: return sl_cli_bad_option(argv, opts, shortopts);
         }
     }
     if (argc - optind != 1)
@@ -117,23 +130,19 @@ int sl_cmd_model(int argc, char **argv)
     sl_error err = {0};
     sl_model *m = NULL;
     int rc = SL_EXIT_OK;
-    if (sl_model_load(argv[optind], &m, &err) != SL_OK) {
+    const char *inputs[] = {argv[optind]};
+    sl_outfile out = {0};
+    sl_model_value v;
+    sl_eval_query q = {depth, distance, app_distance, angle, mode, 1.0};
+    if (sl_cli_read_model(argv[optind], &m, &err) != SL_OK ||
+        (eval && sl_model_eval_query(m, energy, applicator, insert, &q, &v, &err) != SL_OK) ||
+        sl_cli_output_open(&out, output ? output : "-", inputs, 1, &err) != SL_OK ||
+        (eval ? sl_report_model_value(out.fp, fmt, m, energy, applicator, insert, depth,
+                                      distance, &v, &err)
+              : sl_report_model(out.fp, fmt, m, &err)) != SL_OK ||
+        sl_cli_output_commit(&out, &err) != SL_OK) {
+        sl_cli_output_abort(&out);
         rc = sl_cli_fail(&err);
-    } else if (!eval) {
-        if (sl_report_model(stdout, fmt, m, &err) != SL_OK)
-            rc = sl_cli_fail(&err);
-    } else {
-        sl_model_value v;
-        sl_eval_query q = {depth, distance, app_distance, angle, mode, 1.0};
-        if (sl_model_eval_query(m, energy, applicator, insert, &q, &v, &err) !=
-                SL_OK ||
-            sl_report_model_value(stdout, fmt, m, energy, applicator, insert, depth, distance, &v,
-                                  &err) != SL_OK)
-            rc = sl_cli_fail(&err);
-    }
-    if (rc == SL_EXIT_OK && fflush(stdout) != 0) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
-        rc = SL_EXIT_INTERNAL;
     }
     sl_model_free(m);
     return rc;

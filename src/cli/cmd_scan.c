@@ -129,7 +129,8 @@ int sl_cmd_scan(int argc, char **argv)
     bool rescreen = false, quiet = false;
     int threads = 0, c;
     optind = 1;
-    while ((c = getopt_long(argc, argv, "m:o:l:L:j:qh", opts, NULL)) != -1) {
+    static const char shortopts[] = "m:o:l:L:j:qh";
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
         switch (c) {
         case 'm': model_path = optarg; break;
         case 'o': outdir = optarg; break;
@@ -143,7 +144,7 @@ int sl_cmd_scan(int argc, char **argv)
             break;
         case 'q': quiet = true; break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
-        default: return sl_cli_usage("scan", "bad option");
+        default: return sl_cli_bad_option(argv, opts, shortopts);
         }
     }
     if (argc - optind != 1)
@@ -165,7 +166,7 @@ int sl_cmd_scan(int argc, char **argv)
         log_path = default_log;
     }
     if (mkdir(outdir, 0777) != 0 && errno != EEXIST) {
-        fprintf(stderr, "strayline: %s: cannot create the output folder: %s\n", outdir,
+        sl_cli_error("%s: cannot create the output folder: %s", outdir,
                 strerror(errno));
         return SL_EXIT_INTERNAL;
     }
@@ -203,7 +204,7 @@ int sl_cmd_scan(int argc, char **argv)
     }
     todo = calloc(n ? n : 1, sizeof *todo);
     if (!todo) {
-        fprintf(stderr, "strayline: out of memory\n");
+        sl_cli_error("out of memory");
         rc = SL_EXIT_INTERNAL;
         goto done;
     }
@@ -264,7 +265,7 @@ int sl_cmd_scan(int argc, char **argv)
     printf("summary: %s/index.html, %s/summary.csv, %s/summary.json\nlog: %s\n", outdir, outdir,
            outdir, log_path);
     if (fflush(stdout) != 0) {
-        fprintf(stderr, "strayline: output error: cannot write to standard output\n");
+        sl_cli_error("output error: cannot write to standard output");
         rc = SL_EXIT_INTERNAL;
         goto done;
     }

@@ -193,6 +193,22 @@ sl_status sl_outfile_open(sl_outfile *out, const char *path, const char *const *
         return sl_error_set(err, SL_EIO, "%s: exists and is not a regular file: cannot write "
                                          "the output there",
                             path);
+    /* A missing folder is the usual mistake: say so, not what mkstemp says. */
+    const char *slash = strrchr(path, '/');
+    if (slash && slash != path) {
+        size_t dn = (size_t)(slash - path);
+        char *dir = malloc(dn + 1);
+        if (!dir)
+            return sl_error_set(err, SL_ENOMEM, "%s: out of memory", path);
+        memcpy(dir, path, dn);
+        dir[dn] = '\0';
+        bool missing = stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode);
+        if (missing)
+            sl_error_set(err, SL_EIO, "%s: no such directory: %s", path, dir);
+        free(dir);
+        if (missing)
+            return SL_EIO;
+    }
     bool ok = true;
     out->target = sl_strdup(path, &ok);
     size_t n = strlen(path) + 16;

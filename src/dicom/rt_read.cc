@@ -615,6 +615,12 @@ void read_plan_items(Reader &r, DcmDataset *ds, sl_plan *p)
     p->patient_birth_date = r.cstr(r.str(ds, DCM_PatientBirthDate));
     p->plan_date = r.cstr(r.str(ds, DCM_RTPlanDate));
     p->frame_uid = r.cstr(r.str(ds, DCM_FrameOfReferenceUID));
+    /* RT General Plan and RT Approval modules, for the report's header */
+    p->study_uid = r.cstr(r.str(ds, DCM_StudyInstanceUID));
+    p->approval_status = r.cstr(r.str(ds, DCM_ApprovalStatus));
+    p->review_date = r.cstr(r.str(ds, DCM_ReviewDate));
+    p->review_time = r.cstr(r.str(ds, DCM_ReviewTime));
+    p->reviewer_name = r.cstr(r.str(ds, DCM_ReviewerName));
     std::vector<DcmItem *> rss = r.seq(ds, DCM_ReferencedStructureSetSequence, "", false);
     if (!rss.empty())
         p->structure_set_uid = r.cstr(r.str(rss[0], DCM_ReferencedSOPInstanceUID));

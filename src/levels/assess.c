@@ -107,8 +107,11 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
     const char *why = NULL;
     char buf[160];
     if (isfinite(level_gy) && up >= 0.5 * level_gy) {
-        snprintf(buf, sizeof buf, "the upper bound (%.3g Gy) is at least half the level (%.3g Gy)",
-                 up, level_gy);
+        /* in the unit of the doses beside it: mGy for a fetus, else cGy */
+        bool fetus = a->kind && strcmp(a->kind->kind, "fetus") == 0;
+        double f = fetus ? 1000 : 100;
+        snprintf(buf, sizeof buf, "the upper bound (%.1f %s) is at least half the level (%.1f %s)",
+                 f * up, fetus ? "mGy" : "cGy", f * level_gy, fetus ? "mGy" : "cGy");
         why = buf;
     } else if (d->flags & SL_MF_EXTRAPOLATED) {
         why = "the value is extrapolated beyond the measured distances";
@@ -135,8 +138,8 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
         if (!isnan(s->ages_from) && !(pt->age_years >= s->ages_from && pt->age_years < s->ages_to))
             continue;
         if (isfinite(s->per_gy))
-            sl_notes_add(&a->statements, "%s: for %.3g Gy, about %.2g %% (%s; %s)", s->text, gy,
-                         100 * s->per_gy * gy, s->source, s->mark);
+            sl_notes_add(&a->statements, "%s: for %.1f mGy, about %.3f %% (%s; %s)", s->text,
+                         1000 * gy, 100 * s->per_gy * gy, s->source, s->mark);
         else
             sl_notes_add(&a->statements, "%s (%s; %s)", s->text, s->source, s->mark);
     }
@@ -237,12 +240,12 @@ static void fetus_verdict(sl_assessment *a, double gy, double up)
     double lv = 1000 * base->dose_gy;
     if (up < base->dose_gy)
         sl_notes_add(&a->statements,
-                     "verdict: the fetal dose, %.3g mGy (upper bound %.3g mGy), is below %.3g "
+                     "verdict: the fetal dose, %.1f mGy (upper bound %.1f mGy), is below %.1f "
                      "mGy: %s (%s; %s)",
                      1000 * gy, 1000 * up, lv, base->name, base->source, base->mark);
     else
         sl_notes_add(&a->statements,
-                     "verdict: the fetal dose, %.3g mGy (upper bound %.3g mGy), %s %.3g mGy, the "
+                     "verdict: the fetal dose, %.1f mGy (upper bound %.1f mGy), %s %.1f mGy, the "
                      "level below which there is no significant increase in risk (%s; %s): see "
                      "the period's thresholds",
                      1000 * gy, 1000 * up, gy >= base->dose_gy ? "reaches" : "may reach", lv,
@@ -350,7 +353,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         }
         if (a->other_cgy > 0)
             sl_notes_add(&a->advice,
-                         "includes %.4g cGy given by --other-dose (a dose from elsewhere: other "
+                         "includes %.1f cGy given by --other-dose (a dose from elsewhere: other "
                          "beams or an earlier course), added to the estimate and its upper bound",
                          a->other_cgy);
         for (size_t i = 0; a->kind && i < a->kind->nstatements; i++)
@@ -429,10 +432,10 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                 a->flagged = true;
                 a->measurement_advised = true;
                 sl_notes_add(&a->advice,
-                             "the value shown (%.3g Gy, upper bound %.3g Gy) reaches the level "
-                             "of %.3g Gy: though not judged here, check this organ's dose (the "
-                             "planning system's, or a measurement)",
-                             gy, up, lowest);
+                             "the value shown (%.1f cGy, upper bound %.1f cGy) reaches the "
+                             "level of %.1f cGy: though not judged here, check this organ's dose "
+                             "(the planning system's, or a measurement)",
+                             100 * gy, 100 * up, 100 * lowest);
             }
         } else if (k && k->nbands) {
             a->band = band_of(k, gy);
@@ -539,6 +542,14 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
     }
     if (as->n_incomplete)
         as->any_flagged = true;
+    /* an advised measurement is attention too: the screening cannot settle
+     * that organ by itself, so the exit code and the verdict must not read
+     * as all clear */
+    for (size_t i = 0; i < as->n; i++)
+        if (as->items[i].measurement_advised) {
+            as->n_measure++;
+            as->any_flagged = true;
+        }
     *out = as;
     return SL_OK;
 }

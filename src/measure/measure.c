@@ -519,6 +519,27 @@ sl_status sl_measurements_load_buffer(const char *data, size_t size, const char 
                          {"measured", true, NULL},     {"reference", true, NULL},
                          {"applicators", true, NULL},  {"inserts", false, NULL},
                          {"outputs", true, NULL},      {"profiles", true, NULL}};
+    /* the other way round: a model file (SL_MODEL_FORMAT of model.h, a later
+     * stage) handed to fit */
+    yaml_node_t *root = sl_yaml_root(&y);
+    for (yaml_node_pair_t *p = root && root->type == YAML_MAPPING_NODE
+                                   ? root->data.mapping.pairs.start
+                                   : NULL;
+         p && p < root->data.mapping.pairs.top; p++) {
+        yaml_node_t *k = yaml_document_get_node(&y.doc, p->key);
+        yaml_node_t *v = yaml_document_get_node(&y.doc, p->value);
+        if (k && v && k->type == YAML_SCALAR_NODE && v->type == YAML_SCALAR_NODE &&
+            strcmp((const char *)k->data.scalar.value, "format") == 0 &&
+            strcmp((const char *)v->data.scalar.value, "strayline-model") == 0) {
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: format: this is a model file, not a measurement set: give it "
+                              "to `strayline estimate --model` or `strayline model show`",
+                              name);
+            sl_yaml_free(&y);
+            sl_measurements_free(m);
+            return st;
+        }
+    }
     st = sl_yaml_fields(&y, sl_yaml_root(&y), "measurement set", f, 10, err);
     char *format = NULL;
     if (st == SL_OK)

@@ -286,8 +286,33 @@ static sl_status read_provenance(sl_yaml *y, yaml_node_t *n, sl_provenance *p, s
     return st;
 }
 
+/* The root mapping's `format` value, or NULL: looked at before the keys are
+ * checked, so that a measurement set handed over as a model file is named as
+ * such rather than as a model with unknown keys. */
+static const char *root_format(sl_yaml *y)
+{
+    yaml_node_t *root = sl_yaml_root(y);
+    if (!root || root->type != YAML_MAPPING_NODE)
+        return NULL;
+    for (yaml_node_pair_t *p = root->data.mapping.pairs.start; p < root->data.mapping.pairs.top;
+         p++) {
+        yaml_node_t *k = yaml_document_get_node(&y->doc, p->key);
+        yaml_node_t *v = yaml_document_get_node(&y->doc, p->value);
+        if (k && v && k->type == YAML_SCALAR_NODE && v->type == YAML_SCALAR_NODE &&
+            strcmp((const char *)k->data.scalar.value, "format") == 0)
+            return (const char *)v->data.scalar.value;
+    }
+    return NULL;
+}
+
 static sl_status read_model(sl_yaml *y, sl_model *m, sl_error *err)
 {
+    const char *fmt = root_format(y);
+    if (fmt && strcmp(fmt, "strayline-measurements") == 0)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: format: this is a measurement set, not a model file: run "
+                            "`strayline fit %s -o MODEL.yaml` to make the model from it",
+                            y->file, y->file);
     sl_yaml_field k[] = {{"format", true, NULL},      {"format_version", true, NULL},
                          {"model_version", true, NULL}, {"notice", false, NULL},
                          {"machine", true, NULL},     {"applicators", true, NULL},

@@ -176,12 +176,12 @@ void est_qualifiers(const sl_assessment *a, char *buf, size_t size)
     if (a->incomplete)
         sl_buf_printf(&b, "; incomplete: other beams not included");
     if (a->other_cgy > 0)
-        sl_buf_printf(&b, "; includes %.4g cGy given by --other-dose", a->other_cgy);
+        sl_buf_printf(&b, "; includes %.1f cGy given by --other-dose", a->other_cgy);
     if (a->dose->landmark)
         sl_buf_printf(&b, "; geometry measured on the patient");
     /* the pregnancy documents speak mGy */
     if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->dose->estimated)
-        sl_buf_printf(&b, "; fetal dose %.3g mGy (upper bound %.3g mGy)",
+        sl_buf_printf(&b, "; fetal dose %.1f mGy (upper bound %.1f mGy)",
                       10 * (a->dose->course_max.cgy + a->other_cgy),
                       10 * (a->dose->course_max.upper_cgy + a->other_cgy));
     snprintf(buf, size, "%s", b.failed || !b.data ? "" : b.data);
@@ -230,27 +230,51 @@ void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size)
 void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
 {
     const sl_assessments *as = r->as;
+    est_ventry *v = NULL;
+    size_t n = est_verdict(r, &v);
     sl_buf b = {0};
-    if (as->any_flagged)
-        sl_buf_printf(&b, "at least one organ needs attention (see status and advice)");
-    else if (as->n_unjudged)
-        sl_buf_printf(&b,
-                      "no judged organ reaches its action level; %zu organ%s with action levels "
-                      "not judged (in the field, near its edge, beyond the model's range or not "
-                      "placed): see above",
-                      as->n_unjudged, as->n_unjudged == 1 ? "" : "s");
-    else
+    static const est_vkind order[] = {EST_V_ATTENTION, EST_V_MEASURE, EST_V_NOT_JUDGED,
+                                      EST_V_NOT_FOUND};
+    for (size_t k = 0; k < 4; k++) {
+        size_t m = 0;
+        for (size_t i = 0; i < n; i++)
+            m += v[i].kind == order[k];
+        if (!m)
+            continue;
+        if (order[k] == EST_V_ATTENTION)
+            sl_buf_printf(&b, "%s%zu organ%s need%s attention: ", b.len ? "; " : "", m,
+                          m == 1 ? "" : "s", m == 1 ? "s" : "");
+        else
+            sl_buf_printf(&b, "%s%s: ", b.len ? "; " : "", est_vkind_text(order[k]));
+        size_t c = 0;
+        for (size_t i = 0; i < n; i++) {
+            if (v[i].kind != order[k])
+                continue;
+            if (order[k] == EST_V_ATTENTION)
+                sl_buf_printf(&b, "%s%s (%s)", c++ ? ", " : "", v[i].organ, v[i].status);
+            else
+                sl_buf_printf(&b, "%s%s", c++ ? ", " : "", v[i].organ);
+        }
+    }
+    size_t natt = 0;
+    for (size_t i = 0; i < n; i++)
+        natt += v[i].kind == EST_V_ATTENTION;
+    if (!b.len)
         sl_buf_printf(&b, "no organ reaches its action level at this screening");
+    else if (!natt)
+        sl_buf_printf(&b, " (no judged organ reaches its action level)");
     if (as->nother)
         sl_buf_printf(&b, "; %zu treatment beam%s not estimated by this tool, %zu organ%s "
                           "incomplete",
                       as->nother, as->nother == 1 ? "" : "s", as->n_incomplete,
                       as->n_incomplete == 1 ? "" : "s");
-    if (as->missing.count)
-        sl_buf_printf(&b, "; %zu asked-for organ%s not found", as->missing.count,
-                      as->missing.count == 1 ? "" : "s");
+    if (r->nwhatifs)
+        sl_buf_printf(&b, "; WHAT-IF: %zu option%s change%s numbers away from the plan as "
+                          "delivered",
+                      r->nwhatifs, r->nwhatifs == 1 ? "" : "s", r->nwhatifs == 1 ? "s" : "");
     snprintf(buf, size, "%s", b.failed || !b.data ? "see the organ statuses" : b.data);
     sl_buf_free(&b);
+    free(v);
 }
 
 static const char *orq(const char *s)
@@ -260,15 +284,71 @@ static const char *orq(const char *s)
 
 /* ------------------------------------------------------------- text -- */
 
+/* One organ table in one unit: organs in cGy, or every fetus in mGy. */
+static void text_table(FILE *fp, const sl_estimate_report *r, bool fetus)
+{
+    const sl_estimate *e = r->est;
+    char nm[160];
+    size_t shown = 0;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        if (!d->estimated || est_is_fetus(a) != fetus)
+            continue;
+        const char *u = fetus ? "mGy" : "cGy";
+        double s = fetus ? 10 : 1;
+        if (!shown++) {
+            fprintf(fp, "\n%s\n", fetus ? "fetus (mGy, the unit of its guidance documents):"
+                                        : "organs (cGy):");
+            fprintf(fp, "%-18s %-14s %8s %9s %19s %19s %9s %8s  %s\n", "organ", "kind",
+                    "min dist", "depth", "max a fraction", "course max", "course", "level",
+                    "status");
+            char h1[32], h2[32], h3[32];
+            snprintf(h1, sizeof h1, "%s (upper, k=2)", u);
+            snprintf(h2, sizeof h2, "mean %s", u);
+            snprintf(h3, sizeof h3, "%s", u);
+            fprintf(fp, "%-18s %-14s %8s %9s %19s %19s %9s %8s\n", "", "", "cm", "cm", h1, h1,
+                    h2, h3);
+        }
+        char depth[24], fx[48], course[48], mean[16], level[24], status[EST_STATUS_LEN];
+        snprintf(depth, sizeof depth, "%.1f-%.1f", d->min_depth_cm, d->max_depth_cm);
+        char x[24], y[24];
+        if (e->ngroups == 1) {
+            est_num(s * d->fx_max[0].cgy, x, sizeof x);
+            est_num(s * d->fx_max[0].upper_cgy, y, sizeof y);
+            snprintf(fx, sizeof fx, "%s (%s)", x, y);
+        } else {
+            snprintf(fx, sizeof fx, "by group (JSON)");
+        }
+        est_num(s * d->course_max.cgy, x, sizeof x);
+        est_num(s * d->course_max.upper_cgy, y, sizeof y);
+        snprintf(course, sizeof course, "%s (%s)", x, y);
+        est_num(s * d->course_mean.cgy, mean, sizeof mean);
+        if (a->governing)
+            est_num(s * 100 * a->governing->dose_gy, level, sizeof level);
+        else if (a->status == SL_ST_BAND)
+            snprintf(level, sizeof level, "bands");
+        else
+            snprintf(level, sizeof level, "-");
+        est_status_text(a, status, sizeof status);
+        char marks[96];
+        est_marks(d, false, marks, sizeof marks);
+        fprintf(fp, "%-18.18s %-14.14s %8.2f %9s %19s %19s %9s %8s  %s%s%s\n",
+                sl_text_escape(d->roi->name, nm, sizeof nm), est_kind(a), d->min_distance_cm,
+                depth, fx, course, mean, level, status, marks,
+                est_whatif_mark(r, d->roi->name));
+    }
+}
+
 static void text_report(FILE *fp, const sl_estimate_report *r)
 {
     char nm[160]; /* a ROI name, control characters escaped */
     const sl_estimate *e = r->est;
     const sl_plan *p = r->plan;
     fprintf(fp, "strayline %s: out-of-field dose screening estimate\n", sl_version());
+    fprintf(fp, "patient %s, ID %s (from the plan)\n", orq(p->patient_name), orq(p->patient_id));
     fprintf(fp, "plan %s (%s), structure set %s (%s)\n", orq(p->label), p->source,
             orq(r->ss->label), r->ss->source);
-    fprintf(fp, "patient %s, ID %s (from the plan)\n", orq(p->patient_name), orq(p->patient_id));
     const sl_patient *pt = &r->as->patient;
     if (!isnan(pt->gestational_weeks))
         fprintf(fp, "pregnant: gestational age %.1f weeks (since the last menstrual period), "
@@ -279,7 +359,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     if (pt->pacing_dependent)
         fprintf(fp, "pacing-dependent patient\n");
     if (!isnan(pt->age_years))
-        fprintf(fp, "age %g years (%s)\n", pt->age_years, pt->age_from ? pt->age_from : "given");
+        fprintf(fp, "age %.0f years (%s)\n", pt->age_years, pt->age_from ? pt->age_from : "given");
     if (pt->sex)
         fprintf(fp, "sex %c (%s)\n", pt->sex, pt->sex_from ? pt->sex_from : "given");
     fprintf(fp, "model %s: machine %s, version %s; action levels %s\n", orq(r->model->source),
@@ -287,10 +367,55 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
     size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
     fprintf(fp, "\n*** %s\n", cautions[0]);
+    for (size_t i = 0; i < r->nwhatifs; i++)
+        fprintf(fp, "*** WHAT-IF, NOT THE PLAN AS DELIVERED: %s\n", r->whatifs[i].text);
+
+    /* the verdict first: every organ that needs attention, by name */
+    char res[1200];
+    est_result_text(r, res, sizeof res);
+    fprintf(fp, "\nRESULT: %s\n", res);
+    est_ventry *v = NULL;
+    size_t nv = est_verdict(r, &v);
+    for (size_t i = 0; i < nv; i++) {
+        fprintf(fp, "  %-2s %-18s %s", v[i].cue, v[i].organ, v[i].status);
+        if (v[i].dose[0])
+            fprintf(fp, "; %s", v[i].dose);
+        if (v[i].level[0])
+            fprintf(fp, "; level %s", v[i].level);
+        fprintf(fp, "%s\n     -> %s\n", v[i].whatif ? " [what-if]" : "", v[i].advice);
+    }
+    if (nv)
+        fprintf(fp, "  (!! exceeds  ! may exceed or needs attention  M measure  ? not judged or "
+                    "not found)\n");
+    free(v);
+    sl_notes cc = {0};
+    est_case_cautions(r, &cc);
+    for (size_t i = 0; i < cc.count; i++)
+        fprintf(fp, "%s%s\n", i ? "  - " : "this case:\n  - ", cc.items[i]);
+    sl_notes_free(&cc);
+
+    text_table(fp, r, false);
+    text_table(fp, r, true);
+    bool any = false;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (d->estimated)
+            continue;
+        if (!any)
+            fprintf(fp, "\nnot estimated:\n");
+        any = true;
+        fprintf(fp, "  %-18s %s\n", sl_text_escape(d->roi->name, nm, sizeof nm),
+                orq(d->excluded_why));
+    }
+    for (size_t i = 0; i < r->as->missing.count; i++)
+        fprintf(fp, "%s%s\n", i ? "  " : "\nasked for, not found:\n  ", r->as->missing.items[i]);
+    fprintf(fp, "\nmarks: %s%s\n", est_marks_legend(),
+            r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
+
     for (size_t b = 0; b < e->nbeams; b++) {
         const sl_beam_dose *bd = &e->beams[b];
         const sl_beam *be = bd->place->beam;
-        fprintf(fp, "\nbeam %d '%s': %g MeV, applicator %s, insert %s%s\n", be->number,
+        fprintf(fp, "\nbeam %d '%s': %.0f MeV, applicator %s, insert %s%s\n", be->number,
                 orq(be->name), bd->energy_mev, bd->applicator, bd->insert,
                 bd->model_flags & SL_MF_OPEN_FOR_CUTOUT ? " (not commissioned: conservative stand-in; measure the cutout)"
                                                         : "");
@@ -309,7 +434,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
             else
                 fprintf(fp, "MU not in the plan, ");
             fprintf(fp, "reference dose %.1f cGy a fraction at dmax%s x %d fractions\n",
-                    bd->ref_cgy[g], bd->reference_overridden ? " (set by option)" : "",
+                    bd->ref_cgy[g], bd->reference_overridden ? " (set by option: what-if)" : "",
                     e->fractions[g]);
         }
     }
@@ -320,50 +445,6 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                                           "estimate):\n  ",
                 ob);
     }
-    fprintf(fp, "\n%-18s %-14s %7s %11s %19s %19s %9s %7s  %s\n", "organ", "kind", "min dist",
-            "depth", "max a fraction", "course max", "course", "level", "status");
-    fprintf(fp, "%-18s %-14s %7s %11s %19s %19s %9s %7s\n", "", "", "cm", "cm",
-            "cGy (upper, k=2)", "cGy (upper, k=2)", "mean cGy", "Gy");
-    for (size_t o = 0; o < e->norgans; o++) {
-        const sl_organ_dose *d = &e->organs[o];
-        const sl_assessment *a = &r->as->items[o];
-        if (!d->estimated)
-            continue;
-        char depth[24], fx[32], course[32], mean[16], level[16], status[EST_STATUS_LEN];
-        snprintf(depth, sizeof depth, "%.1f-%.1f", d->min_depth_cm, d->max_depth_cm);
-        if (e->ngroups == 1)
-            snprintf(fx, sizeof fx, "%.3g (%.3g)", d->fx_max[0].cgy, d->fx_max[0].upper_cgy);
-        else
-            snprintf(fx, sizeof fx, "by group (JSON)");
-        snprintf(course, sizeof course, "%.3g (%.3g)", d->course_max.cgy,
-                 d->course_max.upper_cgy);
-        snprintf(mean, sizeof mean, "%.3g", d->course_mean.cgy);
-        if (a->governing)
-            snprintf(level, sizeof level, "%.3g", a->governing->dose_gy);
-        else if (a->status == SL_ST_BAND)
-            snprintf(level, sizeof level, "bands");
-        else
-            snprintf(level, sizeof level, "-");
-        est_status_text(a, status, sizeof status);
-        char marks[96];
-        est_marks(d, false, marks, sizeof marks);
-        fprintf(fp, "%-18.18s %-14.14s %7.2f %11s %19s %19s %9s %7s  %s%s\n", sl_text_escape(d->roi->name, nm, sizeof nm),
-                est_kind(a), d->min_distance_cm, depth, fx, course, mean, level, status, marks);
-    }
-    bool any = false;
-    for (size_t o = 0; o < e->norgans; o++) {
-        const sl_organ_dose *d = &e->organs[o];
-        if (d->estimated)
-            continue;
-        if (!any)
-            fprintf(fp, "\nnot estimated:\n");
-        any = true;
-        fprintf(fp, "  %-18s %s\n", sl_text_escape(d->roi->name, nm, sizeof nm),
-                orq(d->excluded_why));
-    }
-    for (size_t i = 0; i < r->as->missing.count; i++)
-        fprintf(fp, "%s%s\n", i ? "  " : "\nasked for, not found:\n  ", r->as->missing.items[i]);
-    fprintf(fp, "\nmarks: %s\n", est_marks_legend());
     any = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_assessment *a = &r->as->items[o];
@@ -383,25 +464,26 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         for (size_t i = s0; i < a->statements.count; i++)
             fprintf(fp, "    - %s\n", a->statements.items[i]);
         if (!isnan(a->lar_cases))
-            fprintf(fp, "    - lifetime attributable risk of cancer incidence: about %.3g cases "
-                        "per 100,000 patients for a mean course dose of %.3g Gy (%s; %s; a "
+            fprintf(fp, "    - lifetime attributable risk of cancer incidence: about %.2f cases "
+                        "per 100,000 patients for a mean course dose of %.1f cGy (%s; %s; a "
                         "population average, not an individual prediction)\n",
-                    a->lar_cases, a->dose->course_mean.cgy / 100, a->lar->source, a->lar->mark);
+                    a->lar_cases, a->dose->course_mean.cgy, a->lar->source, a->lar->mark);
         if (a->status == SL_ST_BAND) {
             char shift[1200];
             est_pacing_text(r, a, shift, sizeof shift);
             fprintf(fp, "    - risk bands: %s (%s)%s\n", a->kind->bands_source,
                     a->kind->bands_mark, shift);
         }
-        bool mgy = a->kind && strcmp(a->kind->kind, "fetus") == 0;
-        for (size_t c = 0; c < a->nchecks; c++)
-            fprintf(fp, "    - %s: %.3g %s (%s; %s): %s\n", a->checks[c].level->name,
-                    (mgy ? 1000 : 1) * a->checks[c].level->dose_gy, mgy ? "mGy" : "Gy",
-                    a->checks[c].level->source,
-                    a->checks[c].level->mark,
+        double sc = est_unit_scale(a);
+        for (size_t c = 0; c < a->nchecks; c++) {
+            char lv[24];
+            est_num(sc * 100 * a->checks[c].level->dose_gy, lv, sizeof lv);
+            fprintf(fp, "    - %s: %s %s (%s; %s): %s\n", a->checks[c].level->name, lv,
+                    est_unit(a), a->checks[c].level->source, a->checks[c].level->mark,
                     a->checks[c].exceeded         ? "exceeded"
                     : a->checks[c].upper_exceeded ? "reached by the upper bound"
                                                   : "not reached");
+        }
     }
     fprintf(fp, "\ncautions:\n");
     for (size_t i = 0; i < nc; i++)
@@ -413,8 +495,6 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     for (size_t i = 0; i < w.count; i++)
         fprintf(fp, "  - %s\n", w.items[i]);
     sl_notes_free(&w);
-    char res[600];
-    est_result_text(r, res, sizeof res);
     fprintf(fp, "\nRESULT: %s\n", res);
 }
 
@@ -451,6 +531,48 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
     for (size_t i = 0; i < nc; i++)
         jw_append(w, ca, json_object_new_string(cautions[i]));
     jw_put(w, root, "cautions", ca);
+
+    /* the verdict first, as in every format: who needs attention, what-ifs */
+    json_object *res = json_object_new_object();
+    char rtext[1200];
+    est_result_text(r, rtext, sizeof rtext);
+    jw_str(w, res, "text", rtext);
+    jw_bool(w, res, "needs_attention", r->as->any_flagged);
+    json_object *vl = json_object_new_array();
+    est_ventry *ve = NULL;
+    size_t nve = est_verdict(r, &ve);
+    static const char *const vk[] = {"needs_attention", "measurement_advised", "not_judged",
+                                     "not_found"};
+    for (size_t i = 0; i < nve; i++) {
+        json_object *x = json_object_new_object();
+        jw_str(w, x, "organ", ve[i].a ? ve[i].a->dose->roi->name : ve[i].organ);
+        jw_str(w, x, "verdict", vk[ve[i].kind]);
+        jw_str(w, x, "status_text", ve[i].status);
+        jw_str(w, x, "dose_text", ve[i].dose[0] ? ve[i].dose : NULL);
+        jw_str(w, x, "level_text", ve[i].level[0] ? ve[i].level : NULL);
+        jw_str(w, x, "advice", ve[i].advice);
+        jw_bool(w, x, "what_if", ve[i].whatif != NULL);
+        jw_append(w, vl, x);
+    }
+    free(ve);
+    jw_put(w, res, "organs", vl);
+    json_object *wl = json_object_new_array();
+    static const char *const wk[] = {"shield", "measured_points", "reference_dose_by_hand",
+                                     "depth_by_hand", "fetus_shift"};
+    for (size_t i = 0; i < r->nwhatifs; i++) {
+        json_object *x = json_object_new_object();
+        jw_str(w, x, "kind", wk[r->whatifs[i].kind]);
+        jw_str(w, x, "roi", r->whatifs[i].roi);
+        jw_str(w, x, "text", r->whatifs[i].text);
+        jw_append(w, wl, x);
+    }
+    jw_put(w, res, "what_ifs", wl);
+    jw_bool(w, res, "plan_as_delivered", r->nwhatifs == 0);
+    sl_notes cc = {0};
+    est_case_cautions(r, &cc);
+    jw_put(w, res, "case_cautions", notes_array(w, &cc));
+    sl_notes_free(&cc);
+    jw_put(w, root, "result", res);
 
     json_object *in = json_object_new_object();
     json_object *po = json_object_new_object();
@@ -639,6 +761,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
                 jw_append(w, flags, json_object_new_string(est_flag_names[i]));
         }
         jw_put(w, x, "flags", flags);
+        jw_bool(w, x, "what_if", est_whatif_mark(r, d->roi->name)[0] != '\0');
         if (a->governing) {
             json_object *lv = json_object_new_object();
             jw_str(w, lv, "name", a->governing->name);
@@ -736,23 +859,98 @@ static void csv_num(FILE *fp, double v, bool last)
 {
     char buf[32] = "";
     if (isfinite(v))
-        snprintf(buf, sizeof buf, "%.6g", v);
+        snprintf(buf, sizeof buf, "%.4f", v);
     csv_field(fp, buf, last);
 }
 
+/* One tidy table: a row an organ (those asked for and not found too), the
+ * same columns in every row, the patient, plan and model in columns, and
+ * the cautions and warnings in a column of their own, so that Python's csv,
+ * R's read.csv and a spreadsheet load it as it is. */
 static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err)
 {
     static const char *const head[] = {
-        "roi", "kind", "status", "flagged", "min_distance_cm", "min_depth_cm", "max_depth_cm",
+        "patient_id", "plan_label", "plan_uid", "structure_set_uid", "model_file",
+        "model_version", "model_sha256", "roi", "kind", "verdict", "status", "flagged",
+        "measurement_advised", "what_if", "min_distance_cm", "min_depth_cm", "max_depth_cm",
         "volume_cc", "fraction_max_cgy", "fraction_max_upper_cgy", "course_max_cgy",
         "course_max_upper_cgy", "course_mean_cgy", "course_mean_upper_cgy",
-        "course_nearmax_cgy", "course_nearest_cgy", "level_gy", "level_source", "flags",
-        "not_estimated_reason"};
+        "course_nearmax_cgy", "course_nearest_cgy", "level_cgy", "level_source", "flags",
+        "not_estimated_reason", "advice", "cautions"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
     const sl_estimate *e = r->est;
-    for (size_t o = 0; o < e->norgans; o++) {
+    const sl_plan *p = r->plan;
+
+    /* the report's cautions, warnings, what-ifs and limits, one cell */
+    sl_buf cb = {0};
+    char res[1200];
+    est_result_text(r, res, sizeof res);
+    sl_buf_printf(&cb, "RESULT: %s", res);
+    for (size_t i = 0; i < r->nwhatifs; i++)
+        sl_buf_printf(&cb, " | WHAT-IF: %s", r->whatifs[i].text);
+    sl_notes cc = {0};
+    est_case_cautions(r, &cc);
+    for (size_t i = 0; i < cc.count; i++)
+        sl_buf_printf(&cb, " | %s", cc.items[i]);
+    sl_notes_free(&cc);
+    for (size_t i = 0; i < r->as->nother; i++) {
+        char ob[400];
+        est_other_beam_text(&r->as->other[i], ob, sizeof ob);
+        sl_buf_printf(&cb, " | %s", ob);
+    }
+    for (size_t b = 0; b < e->nbeams; b++) {
+        char lim[256];
+        est_limits_text(&e->beams[b], lim, sizeof lim);
+        sl_buf_printf(&cb, " | beam %d: %s", e->beams[b].place->beam->number, lim);
+    }
+    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
+    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    for (size_t i = 0; i < nc; i++)
+        sl_buf_printf(&cb, " | %s", cautions[i]);
+    sl_notes w = {0};
+    est_warnings(r, &w);
+    for (size_t i = 0; i < w.count; i++)
+        sl_buf_printf(&cb, " | warning: %s", w.items[i]);
+    sl_notes_free(&w);
+    if (cb.failed || !cb.data) {
+        sl_buf_free(&cb);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    est_ventry *ve = NULL;
+    size_t nve = est_verdict(r, &ve);
+
+    for (size_t o = 0; o < e->norgans + r->as->missing.count; o++) {
+        csv_field(fp, orq(p->patient_id), false);
+        csv_field(fp, orq(p->label), false);
+        csv_field(fp, p->sop_instance_uid, false);
+        csv_field(fp, r->ss->sop_instance_uid, false);
+        csv_field(fp, orq(r->model->source), false);
+        csv_field(fp, r->model->model_version, false);
+        csv_field(fp, r->model->sha256, false);
+        if (o >= e->norgans) { /* asked for and not found: a row with empty numbers */
+            const est_ventry *v = NULL;
+            size_t k = o - e->norgans, seen = 0;
+            for (size_t i = 0; i < nve; i++)
+                if (ve[i].kind == EST_V_NOT_FOUND && seen++ == k)
+                    v = &ve[i];
+            csv_field(fp, v ? v->organ : "-", false);
+            csv_field(fp, v ? v->organ : "-", false);
+            csv_field(fp, "not_found", false);
+            csv_field(fp, "not found", false);
+            csv_field(fp, "yes", false);
+            csv_field(fp, "yes", false);
+            csv_field(fp, "no", false);
+            for (size_t c = 0; c < 12; c++)
+                csv_num(fp, NAN, false);
+            csv_field(fp, "", false);
+            csv_field(fp, "", false);
+            csv_field(fp, r->as->missing.items[k], false);
+            csv_field(fp, v ? v->advice : "", false);
+            csv_field(fp, cb.data, true);
+            continue;
+        }
         const sl_organ_dose *d = &e->organs[o];
         const sl_assessment *a = &r->as->items[o];
         char st[EST_STATUS_LEN], flags[160] = "";
@@ -763,11 +961,25 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
                 strncat(flags, est_flag_names[i], sizeof flags - strlen(flags) - 1);
             }
         }
+        const char *verdict = "ok";
+        const char *advice = "";
+        static const char *const vk[] = {"needs_attention", "measurement_advised",
+                                         "not_judged", "not_found"};
+        for (size_t i = 0; i < nve; i++)
+            if (ve[i].a == a) {
+                verdict = vk[ve[i].kind];
+                advice = ve[i].advice;
+            }
+        if (!d->estimated && strcmp(verdict, "ok") == 0)
+            verdict = "not_estimated";
         bool est = d->estimated;
         csv_field(fp, d->roi->name, false);
         csv_field(fp, est_kind(a), false);
+        csv_field(fp, verdict, false);
         csv_field(fp, st, false);
         csv_field(fp, a->flagged ? "yes" : "no", false);
+        csv_field(fp, a->measurement_advised ? "yes" : "no", false);
+        csv_field(fp, est_whatif_mark(r, d->roi->name)[0] ? "yes" : "no", false);
         csv_num(fp, d->min_distance_cm, false);
         csv_num(fp, d->min_depth_cm, false);
         csv_num(fp, d->max_depth_cm, false);
@@ -780,7 +992,7 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         csv_num(fp, est ? d->course_mean.upper_cgy : NAN, false);
         csv_num(fp, est ? d->course_nearmax.cgy : NAN, false);
         csv_num(fp, est ? d->course_nearest.cgy : NAN, false);
-        csv_num(fp, a->governing ? a->governing->dose_gy : NAN, false);
+        csv_num(fp, a->governing ? 100 * a->governing->dose_gy : NAN, false);
         char lsrc[600] = "";
         if (a->governing)
             snprintf(lsrc, sizeof lsrc, "%s (%s)", a->governing->source, a->governing->mark);
@@ -788,34 +1000,12 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         csv_field(fp, flags, false);
         csv_field(fp, est ? (a->not_assessed_why ? a->not_assessed_why : "")
                           : (d->excluded_why ? d->excluded_why : ""),
-                  true);
+                  false);
+        csv_field(fp, advice, false);
+        csv_field(fp, cb.data, true);
     }
-    /* the cautions, the model's limits, the beams not estimated and the
-     * organs not found travel with the table: rows whose first field starts
-     * with '#', the text in the second */
-    for (size_t i = 0; i < r->as->nother; i++) {
-        char ob[400];
-        est_other_beam_text(&r->as->other[i], ob, sizeof ob);
-        csv_field(fp, "# other treatment beam", false);
-        csv_field(fp, ob, true);
-    }
-    for (size_t i = 0; i < r->as->missing.count; i++) {
-        csv_field(fp, "# not found", false);
-        csv_field(fp, r->as->missing.items[i], true);
-    }
-    for (size_t b = 0; b < r->est->nbeams; b++) {
-        char lim[256], txt[300];
-        est_limits_text(&r->est->beams[b], lim, sizeof lim);
-        snprintf(txt, sizeof txt, "beam %d: %s", r->est->beams[b].place->beam->number, lim);
-        csv_field(fp, "# model limits", false);
-        csv_field(fp, txt, true);
-    }
-    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
-    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
-    for (size_t i = 0; i < nc; i++) {
-        csv_field(fp, "# caution", false);
-        csv_field(fp, cautions[i], true);
-    }
+    free(ve);
+    sl_buf_free(&cb);
     return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the CSV output") : SL_OK;
 }
 

@@ -67,4 +67,49 @@ void est_pacing_text(const sl_estimate_report *r, const sl_assessment *a, char *
  * writer calls it first. */
 sl_status est_check_finite(const sl_estimate_report *r, sl_error *err);
 
+/* ---------------------------------------------------------- verdict -- */
+
+/* Units: one a table. Organs are shown in cGy; a fetus in mGy, the unit of
+ * its guidance documents. Levels are shown in the unit of the doses beside
+ * them. Numbers a person reads have fixed decimals and no exponent. */
+bool est_is_fetus(const sl_assessment *a);
+/* cGy -> the display unit of this organ (1 or 10), and its name. */
+double est_unit_scale(const sl_assessment *a);
+const char *est_unit(const sl_assessment *a);
+/* A dose already in its display unit: "%.1f", "<0.1" for a positive value
+ * that rounds to zero, "-" when not finite. */
+void est_num(double v, char *buf, size_t size);
+
+typedef enum est_vkind {
+    EST_V_ATTENTION,  /* exceeds, may exceed, a device band, incomplete */
+    EST_V_MEASURE,    /* below its level, but a measurement is advised */
+    EST_V_NOT_JUDGED, /* has action levels, not judged (in field, near edge, beyond range) */
+    EST_V_NOT_FOUND   /* asked for (fetus, device) and not found */
+} est_vkind;
+
+/* One line of the verdict box. */
+typedef struct est_ventry {
+    est_vkind kind;
+    const sl_assessment *a;   /* NULL for EST_V_NOT_FOUND */
+    const char *cue;          /* a text cue that does not rely on colour: "!!", "!", "M", "?" */
+    char organ[160];          /* escaped ROI name, or what was not found */
+    char status[160];
+    char dose[96];            /* "course 94.3 cGy (upper bound 172.0 cGy)" or "" */
+    char level[64];           /* "50.0 cGy" or "" */
+    char advice[400];         /* one line */
+    const sl_whatif *whatif;  /* a what-if that touches this organ, or NULL */
+} est_ventry;
+
+/* The verdict box's lines, attention first (caller frees *out). */
+size_t est_verdict(const sl_estimate_report *r, est_ventry **out);
+const char *est_vkind_text(est_vkind k);
+
+/* Cautions that belong to this case (a stand-in cutout, extrapolated or
+ * out-of-range organs, a poor fit): shown beside the result, before the
+ * generic ones. Caller frees the notes. */
+void est_case_cautions(const sl_estimate_report *r, sl_notes *out);
+
+/* The what-if mark for an organ, "" or " [what-if]". */
+const char *est_whatif_mark(const sl_estimate_report *r, const char *roi);
+
 #endif

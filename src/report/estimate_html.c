@@ -389,11 +389,99 @@ static void dvh(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t 
 
 static const char *num(char *buf, size_t n, double v)
 {
-    if (isfinite(v))
-        snprintf(buf, n, "%.3g", v);
-    else
-        snprintf(buf, n, "-");
+    est_num(v, buf, n);
     return buf;
+}
+
+/* The shape cue beside each verdict line: status never by colour alone. */
+static const char *vcue(const est_ventry *v)
+{
+    switch (v->kind) {
+    case EST_V_ATTENTION: return v->a && v->a->status == SL_ST_EXCEEDS ? "\u25B2" : "\u25C6";
+    case EST_V_MEASURE: return "\u25CF";
+    case EST_V_NOT_JUDGED:
+    case EST_V_NOT_FOUND: return "?";
+    }
+    return "";
+}
+
+static const char *vclass(const est_ventry *v)
+{
+    switch (v->kind) {
+    case EST_V_ATTENTION: return "v-att";
+    case EST_V_MEASURE: return "v-meas";
+    default: return "v-nj";
+    }
+}
+
+/* One organ table in one unit (cGy for organs, mGy for a fetus). */
+static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool fetus)
+{
+    const sl_estimate *e = r->est;
+    double s = fetus ? 10 : 1;
+    const char *u = fetus ? "mGy" : "cGy";
+    xmlNodePtr ot = NULL;
+    char buf[700];
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        if (!d->estimated || est_is_fetus(a) != fetus)
+            continue;
+        if (!ot) {
+            hel(h, b, "h3", fetus ? "Fetus (mGy, the unit of its guidance documents)"
+                                  : "Organs (cGy)");
+            ot = hel(h, b, "table", NULL);
+            hattr(h, ot, "class", "organs");
+            char c4[64], c5[64], c6[64], c7[64];
+            snprintf(c4, sizeof c4, "max a fraction (%s), upper k=2", u);
+            snprintf(c5, sizeof c5, "course max (%s), upper k=2", u);
+            snprintf(c6, sizeof c6, "course mean (%s)", u);
+            snprintf(c7, sizeof c7, "level (%s)", u);
+            const char *head[] = {"organ", "kind", "nearest distance from the field edge (cm)",
+                                  "depth (cm)", c4, c5, c6, c7, "status"};
+            hrow(h, ot, true, head, 9);
+        }
+        xmlNodePtr tr = hel(h, ot, "tr", NULL);
+        hel(h, tr, "td", d->roi->name);
+        hel(h, tr, "td", est_kind(a));
+        char x1[32], x2[32];
+        snprintf(buf, sizeof buf, "%.2f", d->min_distance_cm);
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        snprintf(buf, sizeof buf, "%.1f to %.1f", d->min_depth_cm, d->max_depth_cm);
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        if (e->ngroups == 1)
+            snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, s * d->fx_max[0].cgy),
+                     num(x2, sizeof x2, s * d->fx_max[0].upper_cgy));
+        else
+            snprintf(buf, sizeof buf, "per fraction group: see the JSON output");
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, s * d->course_max.cgy),
+                 num(x2, sizeof x2, s * d->course_max.upper_cgy));
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        hattr(h, hel(h, tr, "td", num(x1, sizeof x1, s * d->course_mean.cgy)), "class", "n");
+        /* the level and its name here; its source with the advice below */
+        if (a->governing)
+            snprintf(buf, sizeof buf, "%s (%s; %s)",
+                     num(x1, sizeof x1, s * 100 * a->governing->dose_gy), a->governing->name,
+                     a->governing->mark);
+        else if (a->status == SL_ST_BAND)
+            snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_mark);
+        else
+            snprintf(buf, sizeof buf, "-");
+        xmlNodePtr lt = hel(h, tr, "td", buf);
+        if (a->governing)
+            hattr(h, lt, "title", a->governing->source);
+        char st[EST_STATUS_LEN + 160], marks[120];
+        est_status_text(a, st, sizeof st);
+        est_marks(d, false, marks, sizeof marks);
+        strncat(st, marks, sizeof st - strlen(st) - 1);
+        strncat(st, est_whatif_mark(r, d->roi->name), sizeof st - strlen(st) - 1);
+        xmlNodePtr td = hel(h, tr, "td", st);
+        if (a->status == SL_ST_EXCEEDS || (a->status == SL_ST_BAND && a->flagged))
+            hattr(h, td, "class", "status-exceeds");
+        else if (a->status == SL_ST_MAY_EXCEED)
+            hattr(h, td, "class", "status-may");
+    }
 }
 
 sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_error *err)
@@ -408,8 +496,101 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         return sl_error_set(err, SL_ENOMEM, "out of memory building the HTML report");
     xmlNodePtr b = h.body;
     hel(&h, b, "h1", "Out-of-field dose: screening estimate");
+    helf(&h, b, "p", "Patient %s, ID %s; plan %s; model %s (version %s).",
+         p->patient_name ? p->patient_name : "-", p->patient_id ? p->patient_id : "-",
+         p->label ? p->label : "-", r->model->source ? r->model->source : "-",
+         r->model->model_version);
     char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
     size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    char buf[512];
+    if (r->model->machine.invented || r->model->notice) {
+        xmlNodePtr inv = hel(&h, b, "div", cautions[0]);
+        hattr(&h, inv, "class", "banner");
+    }
+    /* what-ifs: at the top, before any number */
+    for (size_t i = 0; i < r->nwhatifs; i++) {
+        xmlNodePtr wd = hel(&h, b, "div", NULL);
+        hattr(&h, wd, "class", "whatif");
+        hel(&h, wd, "strong", "WHAT-IF, NOT THE PLAN AS DELIVERED: ");
+        htext(&h, wd, r->whatifs[i].text);
+    }
+
+    /* the verdict box */
+    char res[1200];
+    est_result_text(r, res, sizeof res);
+    xmlNodePtr vb = hel(&h, b, "div", NULL);
+    hattr(&h, vb, "class", r->as->any_flagged ? "verdict attention" : "verdict");
+    hattr(&h, vb, "id", "verdict");
+    helf(&h, vb, "h2", "Result: %s", res);
+    est_ventry *ve = NULL;
+    size_t nve = est_verdict(r, &ve);
+    if (nve) {
+        xmlNodePtr vt = hel(&h, vb, "table", NULL);
+        const char *vh[] = {"", "organ", "status", "dose", "level", "what to do"};
+        hrow(&h, vt, true, vh, 6);
+        for (size_t i = 0; i < nve; i++) {
+            xmlNodePtr tr = hel(&h, vt, "tr", NULL);
+            hattr(&h, tr, "class", vclass(&ve[i]));
+            hattr(&h, hel(&h, tr, "td", vcue(&ve[i])), "class", "cue");
+            hel(&h, tr, "td", ve[i].organ);
+            snprintf(buf, sizeof buf, "%s%s", ve[i].status, ve[i].whatif ? " [what-if]" : "");
+            hel(&h, tr, "td", buf);
+            hel(&h, tr, "td", ve[i].dose[0] ? ve[i].dose : "-");
+            hel(&h, tr, "td", ve[i].level[0] ? ve[i].level : "-");
+            hel(&h, tr, "td", ve[i].advice);
+        }
+        hel(&h, vb, "p",
+            "\u25B2 exceeds its level; \u25C6 may exceed (upper bound) or needs attention; "
+            "\u25CF measurement advised; ? not judged or not found.");
+    }
+    free(ve);
+    sl_notes cc = {0};
+    est_case_cautions(r, &cc);
+    if (cc.count) {
+        hel(&h, vb, "strong", "This case:");
+        xmlNodePtr cl = hel(&h, vb, "ul", NULL);
+        for (size_t i = 0; i < cc.count; i++)
+            hel(&h, cl, "li", cc.items[i]);
+    }
+    sl_notes_free(&cc);
+    if (r->as->nother) {
+        xmlNodePtr od = hel(&h, vb, "div", NULL);
+        hattr(&h, od, "class", "caution");
+        hel(&h, od, "strong", "Other treatment beams: their dose is NOT in this estimate");
+        xmlNodePtr ol = hel(&h, od, "ul", NULL);
+        for (size_t i = 0; i < r->as->nother; i++) {
+            char ob[400];
+            est_other_beam_text(&r->as->other[i], ob, sizeof ob);
+            hel(&h, ol, "li", ob);
+        }
+    }
+    if (r->as->missing.count) {
+        xmlNodePtr md = hel(&h, vb, "div", NULL);
+        hattr(&h, md, "class", "caution");
+        hel(&h, md, "strong", "Asked for, not found");
+        xmlNodePtr ml = hel(&h, md, "ul", NULL);
+        for (size_t i = 0; i < r->as->missing.count; i++)
+            hel(&h, ml, "li", r->as->missing.items[i]);
+    }
+
+    organ_table(&h, b, r, false);
+    organ_table(&h, b, r, true);
+    const sl_patient *pt = &r->as->patient;
+    if (!isnan(pt->gestational_weeks))
+        helf(&h, b, "p",
+             "Pregnant patient: gestational age %.1f weeks (since the last menstrual period), "
+             "about %.1f weeks after conception (the ICRP Publication 84 count).",
+             pt->gestational_weeks, pt->conception_weeks);
+    else if (!isnan(pt->conception_weeks))
+        helf(&h, b, "p", "Pregnant patient: %.1f weeks after conception (given).",
+             pt->conception_weeks);
+    if (pt->pacing_dependent)
+        hel(&h, b, "p", "The patient is pacing-dependent.");
+    if (!isnan(pt->age_years))
+        helf(&h, b, "p", "Age %.0f years (%s).", pt->age_years,
+             pt->age_from ? pt->age_from : "given");
+    if (pt->sex)
+        helf(&h, b, "p", "Sex %c (%s).", pt->sex, pt->sex_from ? pt->sex_from : "given");
     xmlNodePtr cdiv = hel(&h, b, "div", NULL);
     hattr(&h, cdiv, "class", "caution");
     hattr(&h, cdiv, "id", "cautions");
@@ -418,8 +599,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     for (size_t i = 0; i < nc; i++)
         hel(&h, cl, "li", cautions[i]);
 
+    hel(&h, b, "h2", "Inputs");
     xmlNodePtr t = hel(&h, b, "table", NULL);
-    char buf[512];
     const char *const rows[][2] = {
         {"patient", p->patient_name},
         {"patient ID", p->patient_id},
@@ -443,97 +624,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         else
             hel(&h, tr, "td", rows[i][1] ? rows[i][1] : "-");
     }
-    const sl_patient *pt = &r->as->patient;
-    if (!isnan(pt->gestational_weeks))
-        helf(&h, b, "p",
-             "Pregnant patient: gestational age %.1f weeks (since the last menstrual period), "
-             "about %.1f weeks after conception (the ICRP Publication 84 count).",
-             pt->gestational_weeks, pt->conception_weeks);
-    else if (!isnan(pt->conception_weeks))
-        helf(&h, b, "p", "Pregnant patient: %.1f weeks after conception (given).",
-             pt->conception_weeks);
-    if (pt->pacing_dependent)
-        hel(&h, b, "p", "The patient is pacing-dependent.");
-    if (!isnan(pt->age_years))
-        helf(&h, b, "p", "Age %g years (%s).", pt->age_years, pt->age_from ? pt->age_from : "given");
-    if (pt->sex)
-        helf(&h, b, "p", "Sex %c (%s).", pt->sex, pt->sex_from ? pt->sex_from : "given");
-
-    char res[600];
-    est_result_text(r, res, sizeof res);
-    helf(&h, b, "h2", "Organs: %s", res);
-    if (r->as->nother) {
-        xmlNodePtr od = hel(&h, b, "div", NULL);
-        hattr(&h, od, "class", "caution");
-        hel(&h, od, "strong", "Other treatment beams: their dose is NOT in this estimate");
-        xmlNodePtr ol = hel(&h, od, "ul", NULL);
-        for (size_t i = 0; i < r->as->nother; i++) {
-            char ob[400];
-            est_other_beam_text(&r->as->other[i], ob, sizeof ob);
-            hel(&h, ol, "li", ob);
-        }
-    }
-    if (r->as->missing.count) {
-        xmlNodePtr md = hel(&h, b, "div", NULL);
-        hattr(&h, md, "class", "caution");
-        hel(&h, md, "strong", "Asked for, not found");
-        xmlNodePtr ml = hel(&h, md, "ul", NULL);
-        for (size_t i = 0; i < r->as->missing.count; i++)
-            hel(&h, ml, "li", r->as->missing.items[i]);
-    }
-    xmlNodePtr ot = hel(&h, b, "table", NULL);
-    const char *head[] = {"organ",
-                          "kind",
-                          "nearest distance from the field edge (cm)",
-                          "depth (cm)",
-                          "max a fraction (cGy), upper k=2",
-                          "course max (cGy), upper k=2",
-                          "course mean (cGy)",
-                          "level (Gy) and source",
-                          "status"};
-    hrow(&h, ot, true, head, 9);
-    for (size_t o = 0; o < e->norgans; o++) {
-        const sl_organ_dose *d = &e->organs[o];
-        const sl_assessment *a = &r->as->items[o];
-        if (!d->estimated)
-            continue;
-        xmlNodePtr tr = hel(&h, ot, "tr", NULL);
-        hel(&h, tr, "td", d->roi->name);
-        hel(&h, tr, "td", est_kind(a));
-        char x1[32], x2[32];
-        hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, d->min_distance_cm)), "class", "n");
-        snprintf(buf, sizeof buf, "%.1f to %.1f", d->min_depth_cm, d->max_depth_cm);
-        hattr(&h, hel(&h, tr, "td", buf), "class", "n");
-        if (e->ngroups == 1)
-            snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, d->fx_max[0].cgy),
-                     num(x2, sizeof x2, d->fx_max[0].upper_cgy));
-        else
-            snprintf(buf, sizeof buf, "per fraction group: see the JSON output");
-        hattr(&h, hel(&h, tr, "td", buf), "class", "n");
-        snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, d->course_max.cgy),
-                 num(x2, sizeof x2, d->course_max.upper_cgy));
-        hattr(&h, hel(&h, tr, "td", buf), "class", "n");
-        hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, d->course_mean.cgy)), "class", "n");
-        if (a->governing)
-            snprintf(buf, sizeof buf, "%.3g: %s (%s; %s)", a->governing->dose_gy,
-                     a->governing->name, a->governing->source, a->governing->mark);
-        else if (a->status == SL_ST_BAND)
-            snprintf(buf, sizeof buf, "risk bands: %s (%s)", a->kind->bands_source,
-                     a->kind->bands_mark);
-        else
-            snprintf(buf, sizeof buf, "-");
-        hel(&h, tr, "td", buf);
-        char st[EST_STATUS_LEN + 64], marks[120];
-        est_status_text(a, st, sizeof st);
-        est_marks(d, false, marks, sizeof marks);
-        strncat(st, marks, sizeof st - strlen(st) - 1);
-        xmlNodePtr td = hel(&h, tr, "td", st);
-        if (a->status == SL_ST_EXCEEDS || (a->status == SL_ST_BAND && a->flagged))
-            hattr(&h, td, "class", "status-exceeds");
-        else if (a->status == SL_ST_MAY_EXCEED)
-            hattr(&h, td, "class", "status-may");
-    }
-    helf(&h, b, "p", "Marks: %s.", est_marks_legend());
+    helf(&h, b, "p", "Marks: %s%s.", est_marks_legend(),
+         r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
     /* the uncertainty budget of each organ's course maximum */
     hel(&h, b, "h3", "Uncertainty budget of the course maximum (cGy, k = 1)");
     xmlNodePtr ut = hel(&h, b, "table", NULL);
@@ -582,11 +674,10 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->advice.items[i]);
         for (size_t i = s0; i < a->statements.count; i++, any = true)
             helf(&h, adv, "li", "%s: %s", a->dose->roi->name, a->statements.items[i]);
-        bool mgy = a->kind && strcmp(a->kind->kind, "fetus") == 0;
         for (size_t c = 0; c < a->nchecks; c++, any = true)
-            helf(&h, adv, "li", "%s: %s, %.3g %s (%s; %s): %s", a->dose->roi->name,
-                 a->checks[c].level->name, (mgy ? 1000 : 1) * a->checks[c].level->dose_gy,
-                 mgy ? "mGy" : "Gy",
+            helf(&h, adv, "li", "%s: %s, %.1f %s (%s; %s): %s", a->dose->roi->name,
+                 a->checks[c].level->name,
+                 est_unit_scale(a) * 100 * a->checks[c].level->dose_gy, est_unit(a),
                  a->checks[c].level->source, a->checks[c].level->mark,
                  a->checks[c].exceeded         ? "exceeded"
                  : a->checks[c].upper_exceeded ? "reached by the upper bound"
@@ -601,10 +692,10 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         if (!isnan(a->lar_cases)) {
             any = true;
             helf(&h, adv, "li",
-                 "%s: lifetime attributable risk of cancer incidence about %.3g per 100,000 for a "
-                 "mean course dose of %.3g Gy (%s; %s; a population average, not an individual "
+                 "%s: lifetime attributable risk of cancer incidence about %.2f per 100,000 for a "
+                 "mean course dose of %.1f cGy (%s; %s; a population average, not an individual "
                  "prediction)",
-                 a->dose->roi->name, a->lar_cases, a->dose->course_mean.cgy / 100,
+                 a->dose->roi->name, a->lar_cases, a->dose->course_mean.cgy,
                  a->lar->source, a->lar->mark);
         }
     }
@@ -615,7 +706,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         const sl_beam_dose *bd = &e->beams[bi];
         const sl_beam_place *bp = bd->place;
         xmlNodePtr sec = hel(&h, b, "section", NULL);
-        helf(&h, sec, "h2", "Beam %d '%s': %g MeV, applicator %s, insert %s", bp->beam->number,
+        helf(&h, sec, "h2", "Beam %d '%s': %.0f MeV, applicator %s, insert %s", bp->beam->number,
              bp->beam->name ? bp->beam->name : "-", bd->energy_mev, bd->applicator, bd->insert);
         char ssd[96], obl[32];
         est_ssd_text(bd, ssd, sizeof ssd);
@@ -642,7 +733,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
                      "fraction group %d: %s; reference dose %.1f cGy a fraction at the "
                      "central-axis maximum%s; %d fractions",
                      p->groups[g].number, mu, bd->ref_cgy[g],
-                     bd->reference_overridden ? " (set by option)" : "", e->fractions[g]);
+                     bd->reference_overridden ? " (set by option: what-if)" : "",
+                     e->fractions[g]);
             }
         }
         hel(&h, sec, "h3", "Beam's-eye view");
@@ -669,9 +761,5 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     if (!w.count)
         hel(&h, wl, "li", "none");
     sl_notes_free(&w);
-    hel(&h, b, "h2", "Cautions (repeated)");
-    xmlNodePtr cl2 = hel(&h, b, "ul", NULL);
-    for (size_t i = 0; i < nc; i++)
-        hel(&h, cl2, "li", cautions[i]);
     return hdoc_write(&h, fp, err);
 }

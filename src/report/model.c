@@ -253,14 +253,14 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
             fprintf(fp, "  in field: the out-of-field model does not apply (use the planning "
                         "system's dose)\n");
         } else {
-            fprintf(fp, "  dose %.4g %% of the central-axis maximum, standard uncertainty %.2g %% "
+            fprintf(fp, "  dose %.4f %% of the central-axis maximum, standard uncertainty %.4f %% "
                         "(k = 1)\n",
                     v->percent, v->u_percent);
-            fprintf(fp, "  uncertainty parts (%%): fit %.2g, measurement %.2g, interpolation "
-                        "%.2g, extrapolation %.2g, stand-in %.2g, transfer %.2g\n",
+            fprintf(fp, "  uncertainty parts (%%): fit %.4f, measurement %.4f, interpolation "
+                        "%.4f, extrapolation %.4f, stand-in %.4f, transfer %.4f\n",
                     v->u_fit, v->u_meas, v->u_interp, v->u_extrap, v->u_standin,
                     v->u_transfer);
-            fprintf(fp, "  electron part %.4g %%, photon part %.4g %%; depth used %.2f cm\n",
+            fprintf(fp, "  electron part %.4f %%, photon part %.4f %%; depth used %.2f cm\n",
                     v->electron_percent, v->photon_percent, v->depth_used_cm);
         }
         for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {

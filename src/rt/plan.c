@@ -72,6 +72,11 @@ void sl_plan_free(sl_plan *plan)
     free(plan->plan_date);
     free(plan->frame_uid);
     free(plan->structure_set_uid);
+    free(plan->study_uid);
+    free(plan->approval_status);
+    free(plan->review_date);
+    free(plan->review_time);
+    free(plan->reviewer_name);
     free(plan->setups);
     for (size_t i = 0; i < plan->ngroups; i++)
         free(plan->groups[i].refs);

@@ -248,8 +248,13 @@ sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch
     }
     if (!why[0])
         return SL_OK;
+    /* the message names the way on, for the case where the user knows better
+     * (a structure set re-exported under a new UID) */
     if (!allow_mismatch)
-        return sl_error_set(err, SL_EINPUT, "%s", why);
+        return sl_error_set(err, SL_EINPUT,
+                            "%s (if they do belong together, --allow-mismatch goes on and every "
+                            "report says so)",
+                            why);
     if (sl_notes_add(&plan->notes, "MISMATCH ALLOWED BY OPTION: %s", why) != SL_OK ||
         sl_notes_add(&ss->notes, "MISMATCH ALLOWED BY OPTION: %s", why) != SL_OK)
         return sl_error_set(err, SL_ENOMEM, "out of memory");

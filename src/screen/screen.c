@@ -84,8 +84,8 @@ static void record_whatifs(sl_screen *s, const sl_screen_request *req)
                  e->reference_dose_cgy);
     if (!isnan(req->locate.depth_cm))
         snprintf(add_whatif(s, SL_WHATIF_DEPTH, NULL)->text, sizeof s->whatifs[0].text,
-                 "one depth given by hand for every organ: %.1f cm, not the depths through "
-                 "the body contour",
+                 "one depth given by hand for every organ: %.1f cm (the body contour is not "
+                 "used for depths)",
                  req->locate.depth_cm);
 }
 

@@ -61,8 +61,11 @@ class BadInputs(unittest.TestCase):
         with tempdir() as tmp:
             rc, out, err = run(*expand(args, name, tmp))
         self.assertEqual(rc, code, "%s: exit %d, expected %d; stderr: %s" % (name, rc, code, err))
-        lines = [l for l in err.splitlines() if not l.startswith("strayline: warning:")]
+        prefix = "strayline %s: " % args.split()[0]
+        lines = [l for l in err.splitlines() if not l.startswith(prefix + "warning:")]
         self.assertEqual(len(lines), 1, "%s: not one line: %r" % (name, err))
+        # one error prefix, naming the command (clig.dev, "errors": common practice)
+        self.assertTrue(lines[0].startswith(prefix), "%s: %r lacks %r" % (name, lines[0], prefix))
         self.assertIn(fragment, lines[0], name)
         # a measurement set whose CSV is bad is reported with the CSV's name
         named = ".csv:" if name.startswith("csv_") else name

@@ -334,6 +334,14 @@ class LevelsAndStatuses(unittest.TestCase):
             o = organ(js, "Lens_test")
             self.assertLess(o["course_max_upper_cgy"], level)
             self.assertEqual(o["status"], "below_level")
+            # an upper bound at least half the level asks for a measurement, and an
+            # advised measurement is attention (exit 4) until it is made
+            self.assertTrue(o["measurement_advised"])
+            self.assertEqual(rc, 4)
+            # far below (upper bound under half the level): nothing to do, exit 0
+            rc, js, _ = estimate(plan, ss, "--reference-dose", str(0.4 * dose / (v / 100)))
+            self.assertEqual(organ(js, "Lens_test")["status"], "below_level")
+            self.assertFalse(organ(js, "Lens_test")["measurement_advised"])
             self.assertEqual(rc, 0)
             self.assertEqual(o["level"]["dose_gy"], 0.5)
             # the value is read only in restatements of ICRP 118 (secondary)
@@ -581,7 +589,7 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
             self.assertFalse(js["any_flagged"])
             self.assertEqual(rc, 0)
             rc, text, err = run("estimate", plan, ss, "--model", MODEL, "--reference-dose", "1")
-            self.assertIn("1 organ with action levels not judged", text)
+            self.assertIn("RESULT: not judged: Lens_in", text)
             self.assertNotIn("no organ reaches its action level", text)
             plan, ss = box_case(d, [("Fetus", (0.0, 50.0, 0.0)), ("p", (90.0, 10.0, 0.0))],
                                 [{"number": 1, "energy_mev": 12.0}], self.ONE)
@@ -683,18 +691,28 @@ class DemoReports(unittest.TestCase):
 
 
     def test_csv_output(self):
+        """One tidy table (Python's csv.DictReader, the standard library, as the
+        reader): a row an organ, the same keys in every row, no caution rows;
+        patient, plan and model in columns, the cautions in a column."""
         base = os.path.join(SOURCE_ROOT, "examples", "neck-device")
         rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"),
                            os.path.join(base, "rtstruct.dcm"), "--model", MODEL, "--format", "csv")
-        rows = list(csv.DictReader(io.StringIO(out)))
-        cautions = [r for r in rows if r["roi"].startswith("#")]
-        rows = [r for r in rows if not r["roi"].startswith("#")]
-        self.assertTrue(any("SCREENING ESTIMATE" in r["kind"] for r in cautions))
+        reader = csv.DictReader(io.StringIO(out))
+        rows = list(reader)
+        self.assertTrue(all(set(r) == set(reader.fieldnames) for r in rows))
+        self.assertTrue(all(None not in r and None not in r.values() for r in rows))
+        self.assertFalse(any(r["roi"].startswith("#") for r in rows))
         self.assertEqual({r["roi"] for r in rows}, {"PTV_SCV", "Pacemaker", "Thyroid", "Heart", "Lung_L"})
-        for k in ("course_max_cgy", "course_max_upper_cgy", "min_distance_cm", "level_gy"):
+        for k in ("course_max_cgy", "course_max_upper_cgy", "min_distance_cm", "level_cgy",
+                  "patient_id", "plan_label", "plan_uid", "model_version", "verdict", "cautions"):
             self.assertIn(k, rows[0])
+        self.assertEqual({r["patient_id"] for r in rows}, {"DEMO-DEVICE-03"})
+        self.assertTrue(all("SCREENING ESTIMATE" in r["cautions"] for r in rows))
         pm = next(r for r in rows if r["roi"] == "Pacemaker")
         self.assertGreater(float(pm["course_max_cgy"]), 0)
+        # fixed decimals, never an exponent (a person reads these in a spreadsheet)
+        self.assertFalse(any("e-" in v or "e+" in v for r in rows for k, v in r.items()
+                             if k.endswith(("_cgy", "_cm", "_cc"))))
 
     def test_never_writes_over_an_input(self):
         base = os.path.join(SOURCE_ROOT, "examples", "face-lens")

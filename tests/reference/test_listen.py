@@ -392,7 +392,7 @@ class Listen(unittest.TestCase):
         self.assertNotIn("Qzinvented", log)
         self.assertNotIn("Vxname", log)
         for line in log.splitlines():
-            self.assertRegex(line, r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ strayline listen: ")
+            self.assertRegex(line, r"^strayline listen: \d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ ")
 
 
 if __name__ == "__main__":

@@ -378,6 +378,23 @@ class BadInput(unittest.TestCase):
             self.assertEqual(counts["bad"], 0)
             self.assertEqual(counts["screened"], 1)
 
+    def test_command_line_rules(self):
+        """The rules every command keeps (README): one line naming the
+        command, and the nearest option for a mistyped one."""
+        for command, args, want in [("scan", ["--modle", MODEL, EXAMPLES], "--model"),
+                                    ("history", ["--fromat", "json"], "--format"),
+                                    ("listen", ["--prot", "104"], "--port")]:
+            rc, out, err = run(command, *args)
+            self.assertEqual(rc, 2)
+            self.assertEqual(out, "")
+            lines = err.strip().splitlines()
+            self.assertEqual(len(lines), 1, err)
+            self.assertTrue(lines[0].startswith("strayline %s: " % command), lines[0])
+            self.assertIn("did you mean %s?" % want, lines[0])
+            rc1, out1, _ = run("help", command)
+            rc2, out2, _ = run(command, "--help")
+            self.assertEqual((rc1, rc2, out1), (0, 0, out2))
+
     def test_no_model(self):
         rc, out, err = run("scan", EXAMPLES, "--out", "/nonexistent")
         self.assertEqual(rc, 2)

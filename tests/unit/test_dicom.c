@@ -27,6 +27,13 @@ START_TEST(reads_the_face_lens_plan)
     sl_error e = {0};
     ck_assert_int_eq(sl_dicom_read_plan(demo("face-lens", "rtplan.dcm"), &p, &e), SL_OK);
     ck_assert_str_eq(p->label, "FACE_E09");
+    /* RT Approval and General Study values as pydicom reads them from the
+     * demo file (written by examples/generator/rtbuild.py); absent ones NULL */
+    ck_assert_str_eq(p->approval_status, "UNAPPROVED");
+    ck_assert_ptr_null(p->review_date);
+    ck_assert_ptr_null(p->review_time);
+    ck_assert_ptr_null(p->reviewer_name);
+    ck_assert_str_eq(p->study_uid, "2.25.322474563938497795561754309957590049564");
     ck_assert_uint_eq(p->nbeams, 2);
     const sl_beam *b = sl_plan_find_beam(p, 1);
     ck_assert_ptr_nonnull(b);

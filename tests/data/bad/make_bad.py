@@ -624,6 +624,11 @@ def yaml_cases():
                "anchors and aliases are not accepted")
     write_text("model_not_a_mapping.yaml", "- just\n- a list\n", show, 3,
                "model file: expected a mapping of keys")
+    # each kind of YAML file handed where the other is expected says what it is
+    write_yaml("model_is_a_measurement_set.yaml", good_measurements(), show, 3,
+               "this is a measurement set, not a model file: run `strayline fit")
+    write_yaml("ms_is_a_model.yaml", good_model(), fit, 3,
+               "this is a model file, not a measurement set")
 
     # measurement sets and their CSV files
     def csv_text(rows, head="edge_distance_cm,dose_percent"):

@@ -1,0 +1,456 @@
+/*
+ * The printable report of `estimate --pdf`: the page a clinician signs.
+ * Page 1 carries the verdict (each organ that needs attention, with its
+ * dose, level and what to do), every what-if banner and the sign-off
+ * block; the organ tables, advice with sources, beams, figures and the
+ * generic cautions follow. Every page names the patient and the plan and
+ * says "page n of m". The same PDF bytes go into --pdf-dicom's object.
+ */
+#include "strayline/report.h"
+#include "strayline/version.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include "estimate_common.h"
+#include "pdf.h"
+
+static const char *orq(const char *s)
+{
+    return s && *s ? s : "-";
+}
+
+/* The plan's approval, as the planning system exported it. */
+static void approval_text(const sl_plan *p, char *buf, size_t n)
+{
+    char date[16] = "";
+    if (p->review_date && strlen(p->review_date) == 8)
+        snprintf(date, sizeof date, "%.4s-%.2s-%.2s", p->review_date, p->review_date + 4,
+                 p->review_date + 6);
+    if (!p->approval_status)
+        snprintf(buf, n, "Plan approval status: not in the plan (RT Approval Status absent).");
+    else
+        snprintf(buf, n, "Plan approval status: %s%s%s%s%s (from the plan).", p->approval_status,
+                 date[0] ? ", reviewed " : "", date, p->reviewer_name ? " by " : "",
+                 p->reviewer_name ? p->reviewer_name : "");
+}
+
+/* The beam's figures (beam's-eye view, dose against distance). */
+static void beam_figures(pdoc *d, const sl_estimate_report *r, size_t b)
+{
+    (void)d;
+    (void)r;
+    (void)b;
+}
+
+static const double fill_att[3] = {0.97, 0.86, 0.86}, fill_meas[3] = {0.99, 0.94, 0.80},
+                    fill_nj[3] = {0.90, 0.90, 0.94};
+
+static const char *pdf_cue(const est_ventry *v)
+{
+    switch (v->kind) {
+    case EST_V_ATTENTION:
+        return v->a && v->a->status == SL_ST_EXCEEDS ? "\u25B2 !!" : "\u25C6 !";
+    case EST_V_MEASURE: return "\u25CF M";
+    default: return "?";
+    }
+}
+
+static void verdict(pdoc *d, const sl_estimate_report *r)
+{
+    char res[1200], line[1400];
+    est_result_text(r, res, sizeof res);
+    snprintf(line, sizeof line, "RESULT: %s", res);
+    if (r->as->any_flagged)
+        pdoc_banner(d, line, 11, 2.5, 0.55, 0.1, 0.1, false);
+    else
+        pdoc_banner(d, line, 11, 1.2, 0.2, 0.2, 0.2, false);
+    est_ventry *v = NULL;
+    size_t n = est_verdict(r, &v);
+    if (n) {
+        static const double w[] = {0.07, 0.15, 0.16, 0.2, 0.1, 0.32};
+        static const char *const head[] = {"", "organ", "status", "dose", "level",
+                                           "what to do"};
+        ptable t = {6, w, head, 8};
+        pdoc_table_head(d, &t);
+        for (size_t i = 0; i < n; i++) {
+            char st[200];
+            snprintf(st, sizeof st, "%s%s", v[i].status, v[i].whatif ? " [what-if]" : "");
+            const char *cells[] = {pdf_cue(&v[i]), v[i].organ, st,
+                                   v[i].dose[0] ? v[i].dose : "-",
+                                   v[i].level[0] ? v[i].level : "-", v[i].advice};
+            pdoc_table_row(d, &t, cells,
+                           v[i].kind == EST_V_ATTENTION ? fill_att
+                           : v[i].kind == EST_V_MEASURE ? fill_meas
+                                                        : fill_nj,
+                           false);
+        }
+        pdoc_para(d,
+                  "\u25B2 !! exceeds its level; \u25C6 ! may exceed (upper bound, k = 2) or "
+                  "needs attention; \u25CF M measurement advised; ? not judged or not found.",
+                  7.5, false);
+    }
+    free(v);
+    sl_notes cc = {0};
+    est_case_cautions(r, &cc);
+    if (cc.count)
+        pdoc_para(d, "This case:", 9, true);
+    for (size_t i = 0; i < cc.count; i++) {
+        snprintf(line, sizeof line, "\u2022 %s", cc.items[i]);
+        pdoc_para(d, line, 8.5, false);
+    }
+    sl_notes_free(&cc);
+    for (size_t i = 0; i < r->as->nother; i++) {
+        char ob[400];
+        est_other_beam_text(&r->as->other[i], ob, sizeof ob);
+        snprintf(line, sizeof line, "\u2022 %s: its dose is NOT in this estimate", ob);
+        pdoc_para(d, line, 8.5, false);
+    }
+    for (size_t i = 0; i < r->as->missing.count; i++) {
+        snprintf(line, sizeof line, "\u2022 asked for, not found: %s", r->as->missing.items[i]);
+        pdoc_para(d, line, 8.5, false);
+    }
+}
+
+static void signoff(pdoc *d)
+{
+    pdoc_skip(d, 4);
+    pdoc_need(d, 70);
+    static const double w[] = {0.36, 0.40, 0.24};
+    static const char *const head[] = {"prepared by (name, signature)",
+                                       "reviewed by (qualified medical physicist)", "date"};
+    ptable t = {3, w, head, 8.5};
+    pdoc_table_head(d, &t);
+    const char *cells[] = {"\n\n\n", "\n\n\n", "\n\n\n"};
+    pdoc_table_row(d, &t, cells, NULL, false);
+}
+
+static void organ_table(pdoc *d, const sl_estimate_report *r, bool fetus)
+{
+    const sl_estimate *e = r->est;
+    double s = fetus ? 10 : 1;
+    const char *u = fetus ? "mGy" : "cGy";
+    bool started = false;
+    char h4[48], h5[48], h6[48], h7[48];
+    snprintf(h4, sizeof h4, "max a fraction (%s), upper k=2", u);
+    snprintf(h5, sizeof h5, "course max (%s), upper k=2", u);
+    snprintf(h6, sizeof h6, "course mean (%s)", u);
+    snprintf(h7, sizeof h7, "level (%s)", u);
+    static const double w[] = {0.14, 0.09, 0.08, 0.09, 0.12, 0.13, 0.08, 0.08, 0.19};
+    const char *head[] = {"organ", "kind", "distance (cm)", "depth (cm)", h4, h5, h6, h7,
+                          "status"};
+    ptable t = {9, w, head, 7.5};
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *dd = &e->organs[o];
+        const sl_assessment *a = &r->as->items[o];
+        if (!dd->estimated || est_is_fetus(a) != fetus)
+            continue;
+        if (!started) {
+            pdoc_heading(d, fetus ? "Fetus (mGy, the unit of its guidance documents)"
+                                  : "Organs (cGy)",
+                         11);
+            pdoc_table_head(d, &t);
+            started = true;
+        }
+        char nm[160], dist[24], depth[32], fx[48], course[48], mean[24], level[24],
+            st[EST_STATUS_LEN + 200], x[24], y[24], marks[120];
+        sl_text_escape(dd->roi->name, nm, sizeof nm);
+        snprintf(dist, sizeof dist, "%.2f", dd->min_distance_cm);
+        snprintf(depth, sizeof depth, "%.1f to %.1f", dd->min_depth_cm, dd->max_depth_cm);
+        if (e->ngroups == 1) {
+            est_num(s * dd->fx_max[0].cgy, x, sizeof x);
+            est_num(s * dd->fx_max[0].upper_cgy, y, sizeof y);
+            snprintf(fx, sizeof fx, "%s (%s)", x, y);
+        } else {
+            snprintf(fx, sizeof fx, "by group (JSON)");
+        }
+        est_num(s * dd->course_max.cgy, x, sizeof x);
+        est_num(s * dd->course_max.upper_cgy, y, sizeof y);
+        snprintf(course, sizeof course, "%s (%s)", x, y);
+        est_num(s * dd->course_mean.cgy, mean, sizeof mean);
+        if (a->governing)
+            est_num(s * 100 * a->governing->dose_gy, level, sizeof level);
+        else
+            snprintf(level, sizeof level, a->status == SL_ST_BAND ? "bands" : "-");
+        est_status_text(a, st, sizeof st);
+        est_marks(dd, false, marks, sizeof marks);
+        strncat(st, marks, sizeof st - strlen(st) - 1);
+        strncat(st, est_whatif_mark(r, dd->roi->name), sizeof st - strlen(st) - 1);
+        const char *cells[] = {nm, est_kind(a), dist, depth, fx, course, mean, level, st};
+        pdoc_table_row(d, &t, cells,
+                       a->flagged ? fill_att : a->measurement_advised ? fill_meas : NULL, true);
+    }
+}
+
+static void advice(pdoc *d, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    bool any = false;
+    char line[2000], nm[160];
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_assessment *a = &r->as->items[o];
+        if (a->advice.count == 0 && a->statements.count == 0 && a->nchecks == 0 &&
+            isnan(a->lar_cases))
+            continue;
+        if (!any)
+            pdoc_heading(d, "Advice and risk statements, with their sources", 11);
+        any = true;
+        pdoc_para(d, sl_text_escape(a->dose->roi->name, nm, sizeof nm), 9, true);
+        size_t s0 = a->verdict ? 1 : 0;
+        if (a->verdict) {
+            snprintf(line, sizeof line, "\u2022 %s", a->statements.items[0]);
+            pdoc_para(d, line, 8, false);
+        }
+        for (size_t i = 0; i < a->advice.count; i++) {
+            snprintf(line, sizeof line, "\u2022 %s", a->advice.items[i]);
+            pdoc_para(d, line, 8, false);
+        }
+        for (size_t i = s0; i < a->statements.count; i++) {
+            snprintf(line, sizeof line, "\u2022 %s", a->statements.items[i]);
+            pdoc_para(d, line, 8, false);
+        }
+        for (size_t c = 0; c < a->nchecks; c++) {
+            snprintf(line, sizeof line, "\u2022 %s: %.1f %s (%s; %s): %s",
+                     a->checks[c].level->name,
+                     est_unit_scale(a) * 100 * a->checks[c].level->dose_gy, est_unit(a),
+                     a->checks[c].level->source, a->checks[c].level->mark,
+                     a->checks[c].exceeded         ? "exceeded"
+                     : a->checks[c].upper_exceeded ? "reached by the upper bound"
+                                                   : "not reached");
+            pdoc_para(d, line, 8, false);
+        }
+        if (!isnan(a->lar_cases)) {
+            snprintf(line, sizeof line,
+                     "\u2022 lifetime attributable risk of cancer incidence: about %.2f cases per "
+                     "100,000 patients for a mean course dose of %.1f cGy (%s; %s; a population "
+                     "average, not an individual prediction)",
+                     a->lar_cases, a->dose->course_mean.cgy, a->lar->source, a->lar->mark);
+            pdoc_para(d, line, 8, false);
+        }
+    }
+}
+
+static void beams(pdoc *d, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    const sl_plan *p = r->plan;
+    char line[800];
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        const sl_beam *be = bd->place->beam;
+        snprintf(line, sizeof line, "Beam %d '%s': %.0f MeV, applicator %s, insert %s",
+                 be->number, orq(be->name), bd->energy_mev, bd->applicator, bd->insert);
+        pdoc_heading(d, line, 10.5);
+        char ssd[96], obl[32], lim[256];
+        est_ssd_text(bd, ssd, sizeof ssd);
+        est_obliquity_text(bd, obl, sizeof obl);
+        est_limits_text(bd, lim, sizeof lim);
+        snprintf(line, sizeof line,
+                 "%.3f cGy/MU at dmax; %s; cutout factor %.3f%s; gantry %.1f deg, collimator "
+                 "%.1f deg, couch %.1f deg; surface obliquity %s. %s.",
+                 bd->dose_per_mu_cgy, ssd, bd->cutout_factor,
+                 bd->cutout_factor_assumed ? " (assumed)" : "", be->gantry_deg,
+                 be->collimator_deg, be->couch_deg, obl, lim);
+        pdoc_para(d, line, 8.5, false);
+        if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT)
+            pdoc_para(d,
+                      "The cutout is not commissioned: a conservative stand-in is used; "
+                      "measure the cutout's profiles.",
+                      8.5, true);
+        for (size_t g = 0; g < e->ngroups; g++) {
+            if (!isfinite(bd->ref_cgy[g]))
+                continue;
+            char mu[40];
+            if (isfinite(bd->mu[g]))
+                snprintf(mu, sizeof mu, "%.1f MU", bd->mu[g]);
+            else
+                snprintf(mu, sizeof mu, "MU not in the plan");
+            snprintf(line, sizeof line,
+                     "fraction group %d: %s; reference dose %.1f cGy a fraction at the "
+                     "central-axis maximum%s; %d fractions",
+                     p->groups[g].number, mu, bd->ref_cgy[g],
+                     bd->reference_overridden ? " (set by option: what-if)" : "",
+                     e->fractions[g]);
+            pdoc_para(d, line, 8.5, false);
+        }
+        beam_figures(d, r, b);
+    }
+}
+
+static void budget(pdoc *d, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    pdoc_heading(d, "Uncertainty budget of the course maximum (cGy, k = 1)", 11);
+    static const double w[] = {0.16, 0.105, 0.105, 0.105, 0.105, 0.105, 0.105, 0.105, 0.105};
+    static const char *const head[] = {"organ", "fit", "measurement", "interpolation",
+                                       "extrapolation", "stand-in", "transfer", "setup shift",
+                                       "combined"};
+    ptable t = {9, w, head, 7.5};
+    pdoc_table_head(d, &t);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *dd = &e->organs[o];
+        if (!dd->estimated)
+            continue;
+        double v[EST_NBUDGET];
+        est_budget_values(&dd->course_max_budget, v);
+        char nm[160], c[EST_NBUDGET][24];
+        const char *cells[9] = {sl_text_escape(dd->roi->name, nm, sizeof nm)};
+        for (size_t i = 0; i < EST_NBUDGET; i++) {
+            est_num(v[i], c[i], sizeof c[i]);
+            cells[i + 1] = c[i];
+        }
+        pdoc_table_row(d, &t, cells, NULL, true);
+    }
+}
+
+static void inputs(pdoc *d, const sl_estimate_report *r)
+{
+    const sl_plan *p = r->plan;
+    pdoc_heading(d, "Inputs", 11);
+    static const double w[] = {0.3, 0.7};
+    static const char *const head[] = {"", ""};
+    ptable t = {2, w, head, 7.5};
+    char tool[64];
+    snprintf(tool, sizeof tool, "strayline %s", sl_version());
+    const char *const rows[][2] = {
+        {"patient", orq(p->patient_name)},
+        {"patient ID", orq(p->patient_id)},
+        {"plan", orq(p->label)},
+        {"plan file", orq(p->source)},
+        {"plan SOP Instance UID", orq(p->sop_instance_uid)},
+        {"structure set", orq(r->ss->source)},
+        {"structure set SOP Instance UID", orq(r->ss->sop_instance_uid)},
+        {"model", orq(r->model->source)},
+        {"machine", orq(r->model->machine.name)},
+        {"model version", orq(r->model->model_version)},
+        {"model SHA-256", orq(r->model->sha256)},
+        {"action levels", orq(r->levels->source)},
+        {"action levels SHA-256", orq(r->levels->sha256)},
+        {"tool", tool},
+    };
+    for (size_t i = 0; i < sizeof rows / sizeof *rows; i++) {
+        const char *cells[] = {rows[i][0], rows[i][1]};
+        pdoc_table_row(d, &t, cells, NULL, true);
+    }
+}
+
+static void compose(pdoc *d, const sl_estimate_report *r, const char *date)
+{
+    const sl_plan *p = r->plan;
+    char line[1600];
+    pdoc_heading(d, "Out-of-field dose: screening estimate", 16);
+    char pd[16] = "";
+    if (p->plan_date && strlen(p->plan_date) == 8)
+        snprintf(pd, sizeof pd, "%.4s-%.2s-%.2s", p->plan_date, p->plan_date + 4,
+                 p->plan_date + 6);
+    snprintf(line, sizeof line, "Patient %s, ID %s. Plan %s%s%s. Structure set %s.",
+             orq(p->patient_name), orq(p->patient_id), orq(p->label), pd[0] ? ", dated " : "",
+             pd, orq(r->ss->label));
+    pdoc_para(d, line, 9.5, false);
+    approval_text(p, line, sizeof line);
+    pdoc_para(d, line, 9.5, false);
+    snprintf(line, sizeof line, "Model %s (machine %s, version %s); action levels %s. Report %s, "
+                                "strayline %s.",
+             orq(r->model->source), r->model->machine.name, r->model->model_version,
+             orq(r->levels->source), date, sl_version());
+    pdoc_para(d, line, 8.5, false);
+    char cautions[EST_MAX_CAUTIONS][EST_CAUTION_LEN];
+    size_t nc = est_cautions(r, cautions, EST_MAX_CAUTIONS);
+    if (r->model->machine.invented || r->model->notice)
+        pdoc_banner(d, cautions[0], 10, 2.5, 0, 0, 0, false);
+    for (size_t i = 0; i < r->nwhatifs; i++) {
+        snprintf(line, sizeof line, "WHAT-IF, NOT THE PLAN AS DELIVERED: %s", r->whatifs[i].text);
+        pdoc_banner(d, line, 9, 2, 0.55, 0.3, 0, true);
+    }
+    verdict(d, r);
+    pdoc_para(d,
+              "A screening estimate from measured out-of-field profiles of one machine, not a "
+              "measurement: confirm high values by in-vivo measurement; local protocols and a "
+              "qualified medical physicist decide.",
+              8, true);
+    signoff(d);
+
+    organ_table(d, r, false);
+    organ_table(d, r, true);
+    bool any = false;
+    char nm[160];
+    for (size_t o = 0; o < r->est->norgans; o++) {
+        const sl_organ_dose *dd = &r->est->organs[o];
+        if (dd->estimated)
+            continue;
+        if (!any)
+            pdoc_heading(d, "Not estimated", 10);
+        any = true;
+        snprintf(line, sizeof line, "\u2022 %s: %s", sl_text_escape(dd->roi->name, nm, sizeof nm),
+                 orq(dd->excluded_why));
+        pdoc_para(d, line, 8.5, false);
+    }
+    snprintf(line, sizeof line, "Marks: %s%s.", est_marks_legend(),
+             r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
+    pdoc_para(d, line, 7.5, false);
+    advice(d, r);
+    beams(d, r);
+    budget(d, r);
+    inputs(d, r);
+    pdoc_heading(d, "Cautions", 11);
+    for (size_t i = 0; i < nc; i++) {
+        snprintf(line, sizeof line, "\u2022 %s", cautions[i]);
+        pdoc_para(d, line, 8, false);
+    }
+    sl_notes w = {0};
+    est_warnings(r, &w);
+    if (w.count)
+        pdoc_heading(d, "Warnings", 11);
+    for (size_t i = 0; i < w.count; i++) {
+        snprintf(line, sizeof line, "\u2022 %s", w.items[i]);
+        pdoc_para(d, line, 8, false);
+    }
+    sl_notes_free(&w);
+}
+
+sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
+                                 unsigned char **pdf, size_t *len, sl_error *err)
+{
+    *pdf = NULL;
+    *len = 0;
+    sl_status st = est_check_finite(r, err);
+    if (st != SL_OK)
+        return st;
+    char date[32];
+    time_t now = time(NULL);
+    struct tm tmv;
+    if (!localtime_r(&now, &tmv) || !strftime(date, sizeof date, "%Y-%m-%d %H:%M", &tmv))
+        snprintf(date, sizeof date, "-");
+    const sl_plan *p = r->plan;
+    pdoc d;
+    memset(&d, 0, sizeof d);
+    snprintf(d.head_left, sizeof d.head_left,
+             "strayline out-of-field dose: SCREENING ESTIMATE%s",
+             r->nwhatifs ? " with WHAT-IF options" : "");
+    snprintf(d.head_right, sizeof d.head_right, "Patient %s, ID %s", orq(p->patient_name),
+             orq(p->patient_id));
+    snprintf(d.foot_left, sizeof d.foot_left, "plan %s (%s); report %s", orq(p->label),
+             orq(p->sop_instance_uid), date);
+    double w, h;
+    pdoc_paper(paper, &w, &h);
+    int total = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        if (!pdoc_begin(&d, w, h, total)) {
+            pdoc_free(&d);
+            return sl_error_set(err, SL_EINTERNAL, "cannot start the PDF (cairo)");
+        }
+        compose(&d, r, date);
+        total = d.page;
+        pdoc_end(&d);
+    }
+    if (d.failed || d.out.failed || !d.out.len) {
+        pdoc_free(&d);
+        return sl_error_set(err, SL_ENOMEM, "cannot write the PDF (cairo)");
+    }
+    *pdf = (unsigned char *)d.out.data;
+    *len = d.out.len;
+    return SL_OK;
+}

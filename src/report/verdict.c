@@ -1,0 +1,255 @@
+/*
+ * The verdict every estimate report opens with: which organs need attention
+ * and why, which could not be judged, what was asked for and not found, and
+ * the cautions that belong to this case. Text, JSON, CSV, HTML and PDF all
+ * take these lines from here, so that every format says the same thing in
+ * the same order; the generic cautions follow the result, never before it.
+ *
+ * Units are chosen here too: one unit a table (cGy for organs, mGy for a
+ * fetus, as its guidance documents use), levels in the unit of the doses
+ * beside them, fixed decimals and no exponent anywhere a person reads.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "estimate_common.h"
+
+bool est_is_fetus(const sl_assessment *a)
+{
+    return a && a->kind && strcmp(a->kind->kind, "fetus") == 0;
+}
+
+double est_unit_scale(const sl_assessment *a)
+{
+    return est_is_fetus(a) ? 10.0 : 1.0;
+}
+
+const char *est_unit(const sl_assessment *a)
+{
+    return est_is_fetus(a) ? "mGy" : "cGy";
+}
+
+void est_num(double v, char *buf, size_t size)
+{
+    if (!isfinite(v))
+        snprintf(buf, size, "-");
+    else if (v > 0 && v < 0.05)
+        snprintf(buf, size, "<0.1");
+    else
+        snprintf(buf, size, "%.1f", v);
+}
+
+const char *est_vkind_text(est_vkind k)
+{
+    switch (k) {
+    case EST_V_ATTENTION: return "needs attention";
+    case EST_V_MEASURE: return "measurement advised";
+    case EST_V_NOT_JUDGED: return "not judged";
+    case EST_V_NOT_FOUND: return "not found";
+    }
+    return "?";
+}
+
+const char *est_whatif_mark(const sl_estimate_report *r, const char *roi)
+{
+    for (size_t i = 0; i < r->nwhatifs; i++)
+        if (!r->whatifs[i].roi || (roi && strcmp(r->whatifs[i].roi, roi) == 0))
+            return " [what-if]";
+    return "";
+}
+
+static const sl_whatif *whatif_for(const sl_estimate_report *r, const char *roi)
+{
+    for (size_t i = 0; i < r->nwhatifs; i++)
+        if (!r->whatifs[i].roi || (roi && strcmp(r->whatifs[i].roi, roi) == 0))
+            return &r->whatifs[i];
+    return NULL;
+}
+
+static bool has_levels(const sl_assessment *a)
+{
+    return a->kind && (a->kind->nlevels > 0 || a->kind->nbands > 0);
+}
+
+/* The advice in one line, from the assessment's own fields (the full advice,
+ * with its sources, is in the details). */
+static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size_t size)
+{
+    sl_buf b = {0};
+    const sl_organ_dose *d = a->dose;
+    if (k == EST_V_NOT_JUDGED) {
+        if (a->status == SL_ST_IN_FIELD)
+            sl_buf_printf(&b, "in or touching the field: use the planning system's dose");
+        else if (d->flags & SL_MF_NEAR_EDGE)
+            sl_buf_printf(&b, "within 1 cm of the field edge: use the planning system's dose");
+        else
+            sl_buf_printf(&b, "%s: measure, or use the planning system's dose",
+                          a->not_assessed_why ? a->not_assessed_why : "not assessed");
+    } else {
+        if (a->shield_advised)
+            sl_buf_printf(&b, "shield: at least %.1f mm lead (or %.1f mm low-melting-point "
+                              "alloy) over the organ for %.0f MeV",
+                          a->lead_mm, a->alloy_mm, a->shield_energy_mev);
+        else if (a->photon_dominated && a->flagged)
+            sl_buf_printf(&b, "mostly photons (bremsstrahlung, leakage): a skin shield removes "
+                              "little");
+        if (a->status == SL_ST_BAND && a->band >= 1)
+            sl_buf_printf(&b, "%sfollow the device protocol for band %d", b.len ? "; " : "",
+                          a->band + 1);
+        if (a->incomplete)
+            sl_buf_printf(&b, "%sincomplete: other treatment beams not included (add their "
+                              "dose with --other-dose)",
+                          b.len ? "; " : "");
+        if (a->measurement_advised)
+            sl_buf_printf(&b, "%sconfirm by in-vivo measurement (TLD, OSL or diode)",
+                          b.len ? "; " : "");
+        if (!b.len)
+            sl_buf_printf(&b, "review with a qualified medical physicist");
+    }
+    snprintf(buf, size, "%s", b.data && !b.failed ? b.data : "see the advice below");
+    sl_buf_free(&b);
+}
+
+static const char *status_word(const sl_assessment *a, est_vkind k)
+{
+    if (k == EST_V_NOT_JUDGED)
+        return "NOT JUDGED";
+    switch (a->status) {
+    case SL_ST_EXCEEDS: return "EXCEEDS level";
+    case SL_ST_MAY_EXCEED: return "MAY EXCEED level (upper bound)";
+    case SL_ST_BAND: return "device risk band";
+    default: break;
+    }
+    if (a->incomplete)
+        return "INCOMPLETE";
+    if (k == EST_V_MEASURE)
+        return "below level, MEASURE";
+    return sl_status_text(a->status);
+}
+
+static void fill_entry(const sl_estimate_report *r, const sl_assessment *a, est_vkind k,
+                       est_ventry *v)
+{
+    memset(v, 0, sizeof *v);
+    v->kind = k;
+    v->a = a;
+    v->cue = k == EST_V_ATTENTION ? (a->status == SL_ST_EXCEEDS ? "!!" : "!")
+             : k == EST_V_MEASURE ? "M"
+                                  : "?";
+    sl_text_escape(a->dose->roi->name, v->organ, sizeof v->organ);
+    char st[EST_STATUS_LEN];
+    est_status_text(a, st, sizeof st);
+    snprintf(v->status, sizeof v->status, "%s", status_word(a, k));
+    if (a->status == SL_ST_BAND)
+        snprintf(v->status, sizeof v->status, "%s", st);
+    const sl_organ_dose *d = a->dose;
+    double s = est_unit_scale(a);
+    const char *u = est_unit(a);
+    if (d->estimated && isfinite(d->course_max.cgy)) {
+        char x[32], y[32];
+        est_num(s * d->course_max.cgy, x, sizeof x);
+        est_num(s * d->course_max.upper_cgy, y, sizeof y);
+        snprintf(v->dose, sizeof v->dose, "course %s %s (upper bound %s %s)", x, u, y, u);
+    }
+    if (a->governing) {
+        char x[32];
+        est_num(s * 100 * a->governing->dose_gy, x, sizeof x);
+        snprintf(v->level, sizeof v->level, "%s %s", x, u);
+    }
+    v->whatif = whatif_for(r, a->dose->roi->name);
+    char adv[sizeof v->advice];
+    one_line_advice(a, k, adv, sizeof adv);
+    if (v->whatif && v->whatif->roi)
+        snprintf(v->advice, sizeof v->advice, "WITH THE WHAT-IF ABOVE: %s", adv);
+    else
+        snprintf(v->advice, sizeof v->advice, "%s", adv);
+}
+
+size_t est_verdict(const sl_estimate_report *r, est_ventry **out)
+{
+    const sl_assessments *as = r->as;
+    size_t cap = as->n + as->missing.count + 1, n = 0;
+    est_ventry *v = calloc(cap, sizeof *v);
+    *out = v;
+    if (!v)
+        return 0;
+    for (int pass = 0; pass < 3; pass++) {
+        for (size_t i = 0; i < as->n; i++) {
+            const sl_assessment *a = &as->items[i];
+            bool notj = has_levels(a) && !a->incomplete &&
+                        (a->status == SL_ST_IN_FIELD || a->status == SL_ST_NOT_ASSESSED);
+            est_vkind k;
+            if (a->flagged && !notj)
+                k = EST_V_ATTENTION;
+            else if (notj)
+                k = EST_V_NOT_JUDGED;
+            else if (a->measurement_advised)
+                k = EST_V_MEASURE;
+            else
+                continue;
+            /* attention first, then measurement, then not judged */
+            int order = k == EST_V_ATTENTION ? 0 : k == EST_V_MEASURE ? 1 : 2;
+            if (order != pass)
+                continue;
+            fill_entry(r, a, k, &v[n++]);
+        }
+    }
+    for (size_t i = 0; i < as->missing.count; i++) {
+        est_ventry *e = &v[n++];
+        memset(e, 0, sizeof *e);
+        e->kind = EST_V_NOT_FOUND;
+        e->cue = "?";
+        const char *m = as->missing.items[i];
+        const char *colon = strchr(m, ':');
+        size_t len = colon ? (size_t)(colon - m) : strlen(m);
+        snprintf(e->organ, sizeof e->organ, "%.*s", (int)len, m);
+        snprintf(e->status, sizeof e->status, "NOT FOUND");
+        snprintf(e->advice, sizeof e->advice, "%s", colon ? colon + 2 : m);
+    }
+    return n;
+}
+
+void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
+{
+    const sl_estimate *e = r->est;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        if (bd->model_flags & SL_MF_OPEN_FOR_CUTOUT)
+            sl_notes_add(out, "beam %d: the cutout is not commissioned: a conservative "
+                              "stand-in is used (it errs high); measure the cutout's profiles",
+                         bd->place->beam->number);
+    }
+    static const struct {
+        unsigned flag;
+        const char *text;
+    } kinds[] = {
+        {SL_MF_EXTRAPOLATED, "beyond the measured distances (held at least at the farthest "
+                             "measured level)"},
+        {SL_MF_DEPTH_OUTSIDE, "deeper or shallower than the commissioned depths (the nearest "
+                              "commissioned depth is used)"},
+        {SL_MF_POOR_FIT, "a profile used fits its points poorly (uncertainty widened)"},
+    };
+    for (size_t k = 0; k < sizeof kinds / sizeof kinds[0]; k++) {
+        sl_buf b = {0};
+        size_t n = 0;
+        for (size_t o = 0; o < e->norgans; o++) {
+            const sl_organ_dose *d = &e->organs[o];
+            if (!d->estimated || !(d->flags & kinds[k].flag))
+                continue;
+            char nm[160];
+            sl_buf_printf(&b, "%s%s", n++ ? ", " : "",
+                          sl_text_escape(d->roi->name, nm, sizeof nm));
+        }
+        if (n && b.data && !b.failed)
+            sl_notes_add(out, "%s: %s", kinds[k].text, b.data);
+        sl_buf_free(&b);
+    }
+    if (r->plan && r->ss && r->ss->notes.count) {
+        /* a mismatch allowed by option is said beside the result */
+        for (size_t i = 0; i < r->ss->notes.count; i++)
+            if (strstr(r->ss->notes.items[i], "allow-mismatch"))
+                sl_notes_add(out, "%s", r->ss->notes.items[i]);
+    }
+}
