@@ -76,7 +76,7 @@ typedef struct sl_batch_entry {
     int rank;                    /* sort key: higher needs attention sooner */
     char *worst_status;          /* text, NULL when not screened */
     char *message;               /* why not screened, or what to supply */
-    char *report_json, *report_html; /* names inside the output folder, or NULL */
+    char *report_json, *report_html, *report_pdf; /* names inside the output folder, or NULL */
     size_t nflagged;
     sl_flagged_organ *organs;
     long long log_id;            /* row id in the log, 0 when not logged */
@@ -131,6 +131,7 @@ typedef struct sl_batch_config {
     sl_screenlog *log;           /* may be NULL: nothing logged */
     const char *command;         /* "scan" or "listen", for the log */
     int threads_per_plan;        /* threads inside one screening (1 in a pool) */
+    const char *pdf_paper;       /* "a4" or "letter": also the PDF report; NULL: none */
 } sl_batch_config;
 
 /* Call once, on one thread, before screening on several: libxml2 (the
@@ -139,7 +140,7 @@ void sl_batch_prepare(void);
 
 /* Screen one pair: read both files, screen, write OUTDIR/NAME.json and
  * NAME.html (NAME from the sanitised patient ID, plan label and plan UID),
- * log it, and fill e (outcome SL_OUT_SCREENED or SL_OUT_ERROR with the
+ * (and NAME.pdf with pdf_paper), log it, and fill e (outcome SL_OUT_SCREENED or SL_OUT_ERROR with the
  * reason). Returns a status only for a failure that concerns every plan
  * (the log cannot be written, memory); input errors go into e. */
 sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_error *err);

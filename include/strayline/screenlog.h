@@ -59,7 +59,7 @@ typedef struct sl_log_entry {
     const char *worst_status; /* worst organ status, or NULL */
     bool flagged;
     const char *message;      /* why not screened / what to supply; may be NULL */
-    const char *report_json, *report_html;
+    const char *report_json, *report_html, *report_pdf;
     size_t norgans;
     const sl_log_organ *organs;
 } sl_log_entry;
@@ -90,7 +90,7 @@ typedef struct sl_history_row {
     char *screened_at, *command, *plan_uid, *structure_set_uid, *patient_id, *plan_label;
     char *tool_version, *model_file, *model_machine, *model_version, *model_sha256;
     char *levels_file, *levels_sha256, *options, *outcome, *worst_status, *message;
-    char *report_json, *report_html;
+    char *report_json, *report_html, *report_pdf;
     bool flagged;
     size_t norgans;
     sl_history_organ *organs;

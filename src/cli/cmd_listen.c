@@ -45,13 +45,16 @@ static const char help[] =
     "                          beside the model file)\n"
     "  -L, --log FILE          screening log (default: OUTDIR/screening.sqlite)\n"
     "      --facts FILE        per-patient facts (YAML), as for 'scan'\n"
+    "      --pdf               also the printable PDF report of each plan\n"
+    "      --paper SIZE        a4 (default) or letter, for --pdf\n"
     "      --incomplete-after S  report a plan whose structure set has not\n"
     "                          arrived after S seconds (default 600)\n"
     "      --max-associations N  associations at once (default 32)\n"
     "      --timeout S         network timeout of a silent peer (default 60 s)\n"
     "  -h, --help              this help\n";
 
-enum { OPT_ALLOW_FILE = 256, OPT_FACTS, OPT_INCOMPLETE, OPT_MAXASSOC, OPT_TIMEOUT };
+enum { OPT_ALLOW_FILE = 256, OPT_FACTS, OPT_INCOMPLETE, OPT_MAXASSOC, OPT_TIMEOUT, OPT_PDF,
+       OPT_PAPER };
 
 #define MAX_ALLOWED 256
 
@@ -179,6 +182,8 @@ int sl_cmd_listen(int argc, char **argv)
         {"incomplete-after", required_argument, NULL, OPT_INCOMPLETE},
         {"max-associations", required_argument, NULL, OPT_MAXASSOC},
         {"timeout", required_argument, NULL, OPT_TIMEOUT},
+        {"pdf", no_argument, NULL, OPT_PDF},
+        {"paper", required_argument, NULL, OPT_PAPER},
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
     };
@@ -188,6 +193,8 @@ int sl_cmd_listen(int argc, char **argv)
     size_t nallowed = 0;
     int port = 0, maxassoc = 32, timeout = 60, c, rc = SL_EXIT_OK;
     double incomplete_s = 600;
+    bool pdf = false;
+    const char *paper = "a4";
     optind = 1;
     static const char shortopts[] = "p:a:A:m:o:l:L:h";
     while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
@@ -229,6 +236,12 @@ int sl_cmd_listen(int argc, char **argv)
         case OPT_TIMEOUT:
             if (!sl_parse_int(optarg, &timeout) || timeout < 1 || timeout > 3600)
                 rc = sl_cli_usage("listen", "--timeout needs 1 to 3600 seconds");
+            break;
+        case OPT_PDF: pdf = true; break;
+        case OPT_PAPER:
+            if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
+                rc = sl_cli_usage("listen", "--paper needs a4 or letter, not '%s'", optarg);
+            paper = optarg;
             break;
         case 'h':
             fputs(help, stdout);
@@ -297,6 +310,7 @@ int sl_cmd_listen(int argc, char **argv)
         .log = log,
         .command = "listen",
         .threads_per_plan = 0,
+        .pdf_paper = pdf ? paper : NULL,
     };
     if (sl_node_create(&cfg, store, incomplete_s, &node, &err) != SL_OK) {
         rc = sl_cli_fail(&err);

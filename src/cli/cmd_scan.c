@@ -43,13 +43,15 @@ static const char help[] =
     "      --facts FILE      per-patient facts (YAML, keyed by patient ID or plan\n"
     "                        UID): gestational age, pacing dependence, organ kinds,\n"
     "                        doses from elsewhere, age, sex\n"
+    "      --pdf             also the printable PDF report of each plan\n"
+    "      --paper SIZE      a4 (default) or letter, for --pdf\n"
     "      --rescreen-stale  screen only the plans whose latest screening in the\n"
     "                        log used another version of this machine's model\n"
     "  -j, --threads N       plans screened at once (default: every core)\n"
     "  -q, --quiet           no progress output\n"
     "  -h, --help            this help\n";
 
-enum { OPT_FACTS = 256, OPT_STALE };
+enum { OPT_FACTS = 256, OPT_STALE, OPT_PDF, OPT_PAPER };
 
 typedef struct pool_ctx {
     const sl_batch_config *cfg;
@@ -119,6 +121,8 @@ int sl_cmd_scan(int argc, char **argv)
         {"log", required_argument, NULL, 'L'},
         {"facts", required_argument, NULL, OPT_FACTS},
         {"rescreen-stale", no_argument, NULL, OPT_STALE},
+        {"pdf", no_argument, NULL, OPT_PDF},
+        {"paper", required_argument, NULL, OPT_PAPER},
         {"threads", required_argument, NULL, 'j'},
         {"quiet", no_argument, NULL, 'q'},
         {"help", no_argument, NULL, 'h'},
@@ -126,7 +130,8 @@ int sl_cmd_scan(int argc, char **argv)
     };
     const char *model_path = NULL, *outdir = NULL, *levels_path = NULL, *log_path = NULL,
                *facts_path = NULL;
-    bool rescreen = false, quiet = false;
+    bool rescreen = false, quiet = false, pdf = false;
+    const char *paper = "a4";
     int threads = 0, c;
     optind = 1;
     static const char shortopts[] = "m:o:l:L:j:qh";
@@ -138,6 +143,12 @@ int sl_cmd_scan(int argc, char **argv)
         case 'L': log_path = optarg; break;
         case OPT_FACTS: facts_path = optarg; break;
         case OPT_STALE: rescreen = true; break;
+        case OPT_PDF: pdf = true; break;
+        case OPT_PAPER:
+            if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
+                return sl_cli_usage("scan", "--paper needs a4 or letter, not '%s'", optarg);
+            paper = optarg;
+            break;
         case 'j':
             if (!sl_parse_int(optarg, &threads) || threads < 1 || threads > 64)
                 return sl_cli_usage("scan", "--threads needs a number from 1 to 64");
@@ -231,6 +242,7 @@ int sl_cmd_scan(int argc, char **argv)
         .log = log,
         .command = "scan",
         .threads_per_plan = 1,
+        .pdf_paper = pdf ? paper : NULL,
     };
     pool_ctx p = {.cfg = &cfg, .entries = entries, .todo = todo, .ntodo = ntodo,
                   .tty = isatty(STDERR_FILENO) == 1, .quiet = quiet};

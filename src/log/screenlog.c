@@ -45,7 +45,7 @@ static const char schema_sql[] =
     " worst_status TEXT,"
     " flagged INTEGER NOT NULL,"
     " message TEXT,"
-    " report_json TEXT, report_html TEXT);"
+    " report_json TEXT, report_html TEXT, report_pdf TEXT);"
     "CREATE INDEX screening_plan ON screening(plan_uid);"
     "CREATE INDEX screening_patient ON screening(patient_id);"
     "CREATE TABLE flagged_organ ("
@@ -193,8 +193,8 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
         "INSERT INTO screening (screened_at, command, plan_uid, structure_set_uid, patient_id,"
         " plan_label, tool_version, model_file, model_machine, model_version, model_sha256,"
         " levels_file, levels_sha256, options, outcome, worst_status, flagged, message,"
-        " report_json, report_html) VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
-        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
+        " report_json, report_html, report_pdf) VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
+        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
     static const char ins_organ[] =
         "INSERT INTO flagged_organ (screening_id, roi, kind, status, course_cgy, upper_cgy,"
         " level, level_gy) VALUES (?,?,?,?,?,?,?,?)";
@@ -222,6 +222,7 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
     bind_text(s, k++, e->message);
     bind_text(s, k++, e->report_json);
     bind_text(s, k++, e->report_html);
+    bind_text(s, k++, e->report_pdf);
     if (sqlite3_step(s) != SQLITE_DONE) {
         st = db_fail(log, err, "cannot record the screening");
         goto rollback;
@@ -283,7 +284,7 @@ static void row_free(sl_history_row *r)
                   &r->patient_id,   &r->plan_label,    &r->tool_version, &r->model_file,
                   &r->model_machine, &r->model_version, &r->model_sha256, &r->levels_file,
                   &r->levels_sha256, &r->options,      &r->outcome,      &r->worst_status,
-                  &r->message,      &r->report_json,   &r->report_html};
+                  &r->message,      &r->report_json,   &r->report_html, &r->report_pdf};
     for (size_t i = 0; i < sizeof f / sizeof *f; i++)
         free(*f[i]);
     for (size_t i = 0; i < r->norgans; i++) {
@@ -309,7 +310,7 @@ void sl_history_free(sl_history *h)
     "s.id, s.screened_at, s.command, s.plan_uid, s.structure_set_uid, s.patient_id,"           \
     " s.plan_label, s.tool_version, s.model_file, s.model_machine, s.model_version,"           \
     " s.model_sha256, s.levels_file, s.levels_sha256, s.options, s.outcome, s.worst_status,"   \
-    " s.message, s.report_json, s.report_html, s.flagged"
+    " s.message, s.report_json, s.report_html, s.report_pdf, s.flagged"
 
 static sl_status load_organs(sl_screenlog *log, sqlite3_stmt *so, sl_history_row *r, sl_error *err)
 {
@@ -400,10 +401,10 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
                       &r->patient_id,   &r->plan_label,    &r->tool_version, &r->model_file,
                       &r->model_machine, &r->model_version, &r->model_sha256, &r->levels_file,
                       &r->levels_sha256, &r->options,      &r->outcome,      &r->worst_status,
-                      &r->message,      &r->report_json,   &r->report_html};
+                      &r->message,      &r->report_json,   &r->report_html, &r->report_pdf};
         for (size_t i = 0; i < sizeof f / sizeof *f; i++)
             *f[i] = col_text(s, (int)i + 1, &ok);
-        r->flagged = sqlite3_column_int(s, 20) != 0;
+        r->flagged = sqlite3_column_int(s, 21) != 0;
         if (!ok) {
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
             goto done;

@@ -73,7 +73,7 @@ static sl_status csv(FILE *fp, const sl_history *h)
         "plan_label", "plan_uid", "structure_set_uid", "model_file", "model_version",
         "model_sha256", "levels_file", "levels_sha256", "tool_version", "options", "roi",
         "organ_status", "course_max_cgy", "course_max_upper_cgy", "level", "level_gy",
-        "report_json", "report_html", "message"};
+        "report_json", "report_html", "report_pdf", "message"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
@@ -97,6 +97,7 @@ static sl_status csv(FILE *fp, const sl_history *h)
             csv_num(fp, o ? o->level_gy : NAN, false);
             csv_field(fp, r->report_json, false);
             csv_field(fp, r->report_html, false);
+            csv_field(fp, r->report_pdf, false);
             csv_field(fp, r->message, true);
         }
     }
@@ -138,6 +139,7 @@ static sl_status json(FILE *fp, const sl_history *h, sl_error *err)
         jw_str(&w, o, "message", r->message);
         jw_str(&w, o, "report_json", r->report_json);
         jw_str(&w, o, "report_html", r->report_html);
+        jw_str(&w, o, "report_pdf", r->report_pdf);
         json_object *orgs = json_object_new_array();
         jw_put(&w, o, "flagged_organs", orgs);
         for (size_t k = 0; k < r->norgans && orgs; k++) {

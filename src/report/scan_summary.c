@@ -56,7 +56,7 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
     static const char *const head[] = {"outcome", "flagged", "worst_status", "patient_id",
                                        "plan_label", "plan_uid", "structure_set_uid",
                                        "electron_beams", "organs_flagged", "flagged_organs",
-                                       "report_json", "report_html", "plan_file",
+                                       "report_json", "report_html", "report_pdf", "plan_file",
                                        "structure_set_file", "message"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
@@ -80,6 +80,7 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
         csv_field(fp, organs, false);
         csv_field(fp, x->report_json, false);
         csv_field(fp, x->report_html, false);
+        csv_field(fp, x->report_pdf, false);
         csv_field(fp, x->plan_path, false);
         csv_field(fp, x->ss_path, false);
         csv_field(fp, x->message, true);
@@ -149,6 +150,7 @@ static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch
         }
         jw_str(&w, p, "report_json", x->report_json);
         jw_str(&w, p, "report_html", x->report_html);
+        jw_str(&w, p, "report_pdf", x->report_pdf);
         jw_str(&w, p, "message", x->message);
     }
     return jw_write(&w, root, fp);
@@ -205,6 +207,11 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
         if (x->report_html) {
             xmlNodePtr a = hel(&h, rc, "a", "HTML");
             hattr(&h, a, "href", x->report_html);
+            htext(&h, rc, " ");
+        }
+        if (x->report_pdf) {
+            xmlNodePtr a = hel(&h, rc, "a", "PDF");
+            hattr(&h, a, "href", x->report_pdf);
             htext(&h, rc, " ");
         }
         if (x->report_json) {

@@ -148,8 +148,10 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
     return ok;
 }
 
+enum { REP_JSON, REP_HTML, REP_PDF };
+
 /* Write one report atomically into the output folder. */
-static sl_status write_report(const sl_batch_config *cfg, const char *name, bool html,
+static sl_status write_report(const sl_batch_config *cfg, const char *name, int kind,
                               const sl_estimate_report *rep, const char *plan_path,
                               const char *ss_path, sl_error *err)
 {
@@ -161,9 +163,17 @@ static sl_status write_report(const sl_batch_config *cfg, const char *name, bool
     const char *inputs[] = {plan_path, ss_path, cfg->model_path, cfg->levels_path};
     sl_outfile out = {0};
     sl_status st = sl_outfile_open(&out, path, inputs, 4, err);
-    if (st == SL_OK)
-        st = html ? sl_report_estimate_html(out.fp, rep, err)
-                  : sl_report_estimate(out.fp, SL_FORMAT_JSON, rep, err);
+    if (st == SL_OK && kind == REP_PDF) {
+        unsigned char *pdf = NULL;
+        size_t len = 0;
+        st = sl_report_estimate_pdf(rep, cfg->pdf_paper, &pdf, &len, err);
+        if (st == SL_OK && fwrite(pdf, 1, len, out.fp) != len)
+            st = sl_error_set(err, SL_EIO, "%s: cannot write", path);
+        free(pdf);
+    } else if (st == SL_OK) {
+        st = kind == REP_HTML ? sl_report_estimate_html(out.fp, rep, err)
+                              : sl_report_estimate(out.fp, SL_FORMAT_JSON, rep, err);
+    }
     if (st == SL_OK)
         st = sl_outfile_commit(&out, err);
     else
@@ -229,6 +239,7 @@ static sl_status log_entry(const sl_batch_config *cfg, sl_batch_entry *e, const 
         .message = e->message,
         .report_json = e->report_json,
         .report_html = e->report_html,
+        .report_pdf = e->report_pdf,
         .norgans = e->nflagged,
         .organs = lo,
     };
@@ -297,15 +308,22 @@ static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structur
         sl_sanitise_name(e->plan_label ? e->plan_label : "plan", label, sizeof label);
         snprintf(name, sizeof name, "%s_%s_%s.json", pid[0] ? pid : "no-id",
                  label[0] ? label : "plan", e->plan_uid);
-        st = write_report(cfg, name, false, &rep, plan_path, ss_path, err);
+        st = write_report(cfg, name, REP_JSON, &rep, plan_path, ss_path, err);
         bool ok = true;
         if (st == SL_OK) {
             e->report_json = xstrdup(name, &ok);
             memcpy(name + strlen(name) - 5, ".html", 6);
-            st = write_report(cfg, name, true, &rep, plan_path, ss_path, err);
+            st = write_report(cfg, name, REP_HTML, &rep, plan_path, ss_path, err);
+        }
+        if (st == SL_OK)
+            e->report_html = xstrdup(name, &ok);
+        if (st == SL_OK && cfg->pdf_paper) {
+            memcpy(name + strlen(name) - 5, ".pdf", 5);
+            st = write_report(cfg, name, REP_PDF, &rep, plan_path, ss_path, err);
+            if (st == SL_OK)
+                e->report_pdf = xstrdup(name, &ok);
         }
         if (st == SL_OK) {
-            e->report_html = xstrdup(name, &ok);
             for (size_t b = 0; b < scr->plan->nbeams; b++)
                 e->nbeams += sl_beam_skip_reason(&scr->plan->beams[b]) == NULL;
             ok = ok && collect(scr->as, e);

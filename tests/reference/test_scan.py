@@ -15,6 +15,7 @@ import json
 import os
 import shutil
 import sqlite3
+import subprocess
 import unittest
 
 import pydicom
@@ -255,6 +256,35 @@ class MissingFact(unittest.TestCase):
             rc, out, err = run("history", "--log", os.path.join(d, "out", "screening.sqlite"),
                                "--format", "json", check=0)
             self.assertTrue(json.loads(out)["screenings"][0]["flagged"])
+
+
+class Pdf(unittest.TestCase):
+    def test_pdf_reports(self):
+        """--pdf: each plan's PDF report beside the others, read by poppler's
+        pdfinfo (Debian poppler-utils), named in the summary and the log."""
+        pdfinfo = shutil.which("pdfinfo")
+        if not pdfinfo:
+            self.skipTest("pdfinfo (Debian poppler-utils)")
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            for case in ("face-lens", "neck-device"):
+                shutil.copytree(os.path.join(EXAMPLES, case), os.path.join(src, case))
+            out = os.path.join(d, "out")
+            scan(src, out, "--pdf", "--paper", "letter", check=4)
+            with open(os.path.join(out, "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertEqual(len(plans), 2)
+            for p in plans:
+                self.assertTrue(p["report_pdf"].endswith(".pdf"))
+                info = subprocess.run([pdfinfo, os.path.join(out, p["report_pdf"])],
+                                      capture_output=True, text=True, timeout=60)
+                self.assertEqual(info.returncode, 0, info.stderr)
+                pages = [l for l in info.stdout.splitlines() if l.startswith("Pages:")]
+                self.assertGreaterEqual(int(pages[0].split()[1]), 1)
+                # US Letter is 612 x 792 pt (ANSI/ASME Y14.1)
+                self.assertIn("612 x 792 pts", info.stdout)
+            self.assertEqual(sorted(r["report_pdf"] for r in log_rows(
+                os.path.join(out, "screening.sqlite"))), sorted(p["report_pdf"] for p in plans))
 
 
 class History(unittest.TestCase):
