@@ -131,7 +131,10 @@ typedef struct sl_batch_config {
     sl_screenlog *log;           /* may be NULL: nothing logged */
     const char *command;         /* "scan" or "listen", for the log */
     int threads_per_plan;        /* threads inside one screening (1 in a pool) */
-    const char *pdf_paper;       /* "a4" or "letter": also the PDF report; NULL: none */
+    const char *pdf_paper;       /* "a4" or "letter": also the PDF report; NULL: none.
+                                    Typeset on one thread only: Pango keeps a font map per
+                                    thread, and a pool thread's leaves fontconfig data
+                                    unreleased when it ends (LeakSanitizer shows it) */
 } sl_batch_config;
 
 /* Call once, on one thread, before screening on several: libxml2 (the

@@ -43,7 +43,8 @@ static const char help[] =
     "      --facts FILE      per-patient facts (YAML, keyed by patient ID or plan\n"
     "                        UID): gestational age, pacing dependence, organ kinds,\n"
     "                        doses from elsewhere, age, sex\n"
-    "      --pdf             also the printable PDF report of each plan\n"
+    "      --pdf             also the printable PDF report of each plan (plans are\n"
+    "                        then screened one at a time)\n"
     "      --paper SIZE      a4 (default) or letter, for --pdf\n"
     "      --rescreen-stale  screen only the plans whose latest screening in the\n"
     "                        log used another version of this machine's model\n"
@@ -251,7 +252,8 @@ int sl_cmd_scan(int argc, char **argv)
         fprintf(stderr, "strayline scan: %zu files, %zu plan%s to screen\n", files->n, ntodo,
                 ntodo == 1 ? "" : "s");
     sl_batch_prepare();
-    sl_parallel_for(ntodo, sl_parallel_threads(threads), screen_task, &p);
+    /* PDFs are typeset on this thread alone (see sl_batch_config.pdf_paper) */
+    sl_parallel_for(ntodo, pdf ? 1 : sl_parallel_threads(threads), screen_task, &p);
     pthread_mutex_destroy(&p.lock);
     if (p.fatal != SL_OK) {
         rc = sl_cli_fail(&p.fatal_err);
