@@ -42,6 +42,11 @@ sl_status sl_report_locate(FILE *fp, sl_format fmt, const sl_plan *plan,
 sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_model *m,
                              sl_error *err);
 
+/* The fit report as a PDF (paper "a4" or "letter"): an energy and
+ * applicator a page, its profiles as small multiples (caller frees *pdf). */
+sl_status sl_report_fit_pdf(const sl_measurement_set *ms, const sl_model *m, const char *paper,
+                            unsigned char **pdf, size_t *len, sl_error *err);
+
 /* `strayline model show`: what a model file commissions. */
 sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *err);
 
@@ -71,6 +76,12 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
  * bytes in *pdf (caller frees), the same for --pdf and --pdf-dicom. */
 sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
                                  unsigned char **pdf, size_t *len, sl_error *err);
+
+/* Release the process-wide caches of the figure libraries (Pango's font
+ * map, fontconfig's configuration, cairo's static data), so that a leak
+ * checker sees only what is really lost. Call once, when no report is being
+ * written any more and none will be: at the end of the program. */
+void sl_report_release_caches(void);
 
 #ifdef __cplusplus
 }

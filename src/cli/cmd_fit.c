@@ -25,6 +25,9 @@ static const char help[] =
     "                             output, and the summary goes to standard error)\n"
     "  -r, --report FILE          also write an HTML fit report with a figure a profile\n"
     "                             ('-': standard output)\n"
+    "      --report-pdf FILE      also write the fit report as a PDF, an energy and\n"
+    "                             applicator a page ('-': standard output)\n"
+    "      --paper a4|letter      that PDF's paper (default a4)\n"
     "      --model-version TEXT   version label of the model (default: the date)\n"
     "      --created TEXT         creation time to record (default: now, UTC)\n"
     "  -j, --threads N            threads to use (default: every core)\n"
@@ -42,10 +45,12 @@ static void progress(size_t done, size_t total, const char *what, void *ctx)
 
 int sl_cmd_fit(int argc, char **argv)
 {
-    enum { OPT_VERSION = 256, OPT_CREATED };
+    enum { OPT_VERSION = 256, OPT_CREATED, OPT_REPORT_PDF, OPT_PAPER };
     static const struct option opts[] = {
         {"output", required_argument, NULL, 'o'},
         {"report", required_argument, NULL, 'r'},
+        {"report-pdf", required_argument, NULL, OPT_REPORT_PDF},
+        {"paper", required_argument, NULL, OPT_PAPER},
         {"model-version", required_argument, NULL, OPT_VERSION},
         {"created", required_argument, NULL, OPT_CREATED},
         {"threads", required_argument, NULL, 'j'},
@@ -53,7 +58,8 @@ int sl_cmd_fit(int argc, char **argv)
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
     };
-    const char *output = NULL, *report = NULL, *version = NULL, *created = NULL;
+    const char *output = NULL, *report = NULL, *version = NULL, *created = NULL,
+               *report_pdf = NULL, *paper = "a4";
     int threads = 0;
     bool quiet = false;
     static const char shortopts[] = "o:r:j:qh";
@@ -63,6 +69,12 @@ int sl_cmd_fit(int argc, char **argv)
         switch (c) {
         case 'o': output = optarg; break;
         case 'r': report = optarg; break;
+        case OPT_REPORT_PDF: report_pdf = optarg; break;
+        case OPT_PAPER:
+            if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
+                return sl_cli_usage("fit", "--paper needs a4 or letter, not '%s'", optarg);
+            paper = optarg;
+            break;
         case OPT_VERSION: version = optarg; break;
         case OPT_CREATED: created = optarg; break;
         case 'j':
@@ -83,10 +95,14 @@ int sl_cmd_fit(int argc, char **argv)
         return sl_cli_usage("fit", "the measurement set cannot be read from standard input: it "
                                    "names its profile CSV files relative to its own folder, so "
                                    "give its file name");
-    if (sl_cli_is_stdio(output) && sl_cli_is_stdio(report))
-        return sl_cli_usage("fit", "--output and --report cannot both go to standard output");
+    if (sl_cli_is_stdio(output) + sl_cli_is_stdio(report) + sl_cli_is_stdio(report_pdf) > 1)
+        return sl_cli_usage("fit", "only one of --output, --report and --report-pdf can go to "
+                                   "standard output");
     /* the summary must not mix with a file written to standard output */
-    FILE *summary = sl_cli_is_stdio(output) || sl_cli_is_stdio(report) ? stderr : stdout;
+    FILE *summary = sl_cli_is_stdio(output) || sl_cli_is_stdio(report) ||
+                            sl_cli_is_stdio(report_pdf)
+                        ? stderr
+                        : stdout;
     char now[32], today[16];
     time_t t = time(NULL);
     struct tm tm;
@@ -138,6 +154,23 @@ int sl_cmd_fit(int argc, char **argv)
             rc = sl_cli_fail(&err);
             goto done;
         }
+    }
+    if (report_pdf) {
+        inputs[ms->nprofiles + 1] = output;
+        unsigned char *pdf = NULL;
+        size_t npdf = 0;
+        sl_outfile rp = {0};
+        if (sl_report_fit_pdf(ms, model, paper, &pdf, &npdf, &err) != SL_OK ||
+            sl_cli_output_open(&rp, report_pdf, inputs, ms->nprofiles + 2, &err) != SL_OK ||
+            (fwrite(pdf, 1, npdf, rp.fp) != npdf &&
+             sl_error_set(&err, SL_EIO, "%s: cannot write the PDF", report_pdf) != SL_OK) ||
+            sl_cli_output_commit(&rp, &err) != SL_OK) {
+            sl_cli_output_abort(&rp);
+            free(pdf);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        free(pdf);
     }
     size_t poor = 0, peaked = 0;
     for (size_t i = 0; i < model->nprofiles; i++) {

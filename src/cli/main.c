@@ -18,6 +18,7 @@
 #include "cli.h"
 #include "strayline/dicom.h"
 #include "strayline/model.h"
+#include "strayline/report.h"
 #include "strayline/util.h"
 #include "strayline/version.h"
 
@@ -432,5 +433,7 @@ int main(int argc, char **argv)
     if (!cmd)
         return unknown_command(name);
     sl_cli_set_command(cmd->name);
-    return cmd->run(argc - 1, argv + 1);
+    int rc = cmd->run(argc - 1, argv + 1);
+    sl_report_release_caches();
+    return rc;
 }

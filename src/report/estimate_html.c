@@ -16,376 +16,8 @@
 #include <string.h>
 
 #include "estimate_common.h"
+#include "figure.h"
 #include "html.h"
-
-typedef struct pt2 {
-    double x, y;
-} pt2;
-
-static int cmp_pt(const void *a, const void *b)
-{
-    const pt2 *p = a, *q = b;
-    if (p->x != q->x)
-        return p->x < q->x ? -1 : 1;
-    return p->y < q->y ? -1 : p->y > q->y;
-}
-
-static double cross3(pt2 o, pt2 a, pt2 b)
-{
-    return (a.x - o.x) * (b.y - o.y) - (a.y - o.y) * (b.x - o.x);
-}
-
-/* Convex hull (monotone chain); returns the hull size, points in h. */
-static size_t hull(pt2 *p, size_t n, pt2 *h)
-{
-    if (n < 3) {
-        memcpy(h, p, n * sizeof *p);
-        return n;
-    }
-    qsort(p, n, sizeof *p, cmp_pt);
-    size_t k = 0;
-    for (size_t i = 0; i < n; i++) {
-        while (k >= 2 && cross3(h[k - 2], h[k - 1], p[i]) <= 0)
-            k--;
-        h[k++] = p[i];
-    }
-    for (size_t i = n - 1, t = k + 1; i > 0; i--) {
-        while (k >= t && cross3(h[k - 2], h[k - 1], p[i - 1]) <= 0)
-            k--;
-        h[k++] = p[i - 1];
-    }
-    return k - 1;
-}
-
-typedef struct view {
-    double u0, v0, scale, w, h; /* iso-plane cm -> px */
-} view;
-
-static double px(const view *v, double u)
-{
-    return (u - v->u0) * v->scale;
-}
-
-static double py(const view *v, double vv)
-{
-    return v->h - (vv - v->v0) * v->scale;
-}
-
-static void poly(hdoc *h, xmlNodePtr g, const view *v, const sl_vec2 *p, size_t n, double f,
-                 const char *cls, const char *stroke)
-{
-    size_t cap = n * 24 + 8, len = 0;
-    char *d = malloc(cap);
-    if (!d) {
-        h->failed = true;
-        return;
-    }
-    d[0] = '\0';
-    for (size_t i = 0; i < n; i++)
-        len += (size_t)snprintf(d + len, cap - len, "%.1f,%.1f ", px(v, p[i].x * f),
-                                py(v, p[i].y * f));
-    xmlNodePtr e = hel(h, g, "polygon", NULL);
-    hattr(h, e, "points", d);
-    hattr(h, e, "class", cls);
-    if (stroke)
-        hattr(h, e, "style", stroke);
-    free(d);
-}
-
-static void svg_label(hdoc *h, xmlNodePtr g, double x, double y, const char *text, int size)
-{
-    xmlNodePtr t = hel(h, g, "text", text);
-    hattrf(h, t, "x", "%.1f", x);
-    hattrf(h, t, "y", "%.1f", y);
-    hattrf(h, t, "font-size", "%d", size);
-}
-
-static void ring(hdoc *h, xmlNodePtr g, const view *v, const sl_outline *o, double r, int which)
-{
-    sl_vec2 lo, hi;
-    sl_outline_bounds(o, &lo, &hi);
-    sl_vec2 c = {(lo.x + hi.x) / 2, (lo.y + hi.y) / 2};
-    enum { N = 144 };
-    sl_vec2 p[N];
-    for (int i = 0; i < N; i++) {
-        double a = 2 * M_PI * i / N, dx = cos(a), dy = sin(a);
-        double t0 = 0, t1 = 200;
-        for (int it = 0; it < 50; it++) {
-            double tm = 0.5 * (t0 + t1);
-            if (sl_outline_distance(o, (sl_vec2){c.x + tm * dx, c.y + tm * dy}) < r)
-                t0 = tm;
-            else
-                t1 = tm;
-        }
-        p[i] = (sl_vec2){c.x + t0 * dx, c.y + t0 * dy};
-    }
-    poly(h, g, v, p, N, 1.0, "ring", NULL);
-    char lab[16];
-    snprintf(lab, sizeof lab, "%g cm", r);
-    /* each ring labelled at its own angle, so that the labels stay apart */
-    int k = (N / 16 + which * N / 10) % N;
-    svg_label(h, g, px(v, p[k].x) + 2, py(v, p[k].y) - 2, lab, 9);
-}
-
-static void bev(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t b)
-{
-    const sl_beam_place *bp = &r->loc->beams[b];
-    const sl_outline *edge = bp->field.edge;
-    sl_vec2 lo, hi;
-    sl_outline_bounds(edge, &lo, &hi);
-    double margin = 11.5;
-    double u0 = lo.x - margin, u1 = hi.x + margin, v0 = lo.y - margin, v1 = hi.y + margin;
-    double span = fmax(u1 - u0, v1 - v0);
-    view v = {u0 - (span - (u1 - u0)) / 2, v0 - (span - (v1 - v0)) / 2, 420 / span, 420, 420};
-    xmlNodePtr svg = hel(h, parent, "svg", NULL);
-    hattr(h, svg, "width", "420");
-    hattr(h, svg, "height", "420");
-    hattr(h, svg, "viewBox", "0 0 420 420");
-    hattr(h, svg, "role", "img");
-    hattrf(h, svg, "aria-label", "beam's-eye view of beam %d", bp->beam->number);
-    xmlNodePtr g = hel(h, svg, "g", NULL);
-    xmlNodePtr frame = hel(h, g, "rect", NULL);
-    hattr(h, frame, "x", "0.5");
-    hattr(h, frame, "y", "0.5");
-    hattr(h, frame, "width", "419");
-    hattr(h, frame, "height", "419");
-    hattr(h, frame, "class", "axis");
-    const double rings[4] = {1, 2, 5, 10};
-    for (int i = 0; i < 4; i++)
-        ring(h, g, &v, edge, rings[i], i);
-    if (bp->field.applicator) {
-        size_t n;
-        const sl_vec2 *p = sl_outline_loop_points(bp->field.applicator, 0, &n);
-        poly(h, g, &v, p, n, 1.0, "applicator", NULL);
-    }
-    for (size_t k = 0; k < sl_outline_loop_count(edge); k++) {
-        size_t n;
-        const sl_vec2 *p = sl_outline_loop_points(edge, k, &n);
-        poly(h, g, &v, p, n, 1.0, "field", NULL);
-    }
-    /* organs: the convex hull of their samples projected on the plane */
-    xmlNodePtr missing = NULL;
-    pt2 placed[128];
-    size_t nplaced = 0;
-    for (size_t o = 0; o < r->loc->norgans; o++) {
-        const sl_organ_samples *s = &r->loc->samples[o];
-        const sl_organ_place *pl = &bp->organs[o];
-        const sl_roi *roi = r->loc->rois[o];
-        if (!s->n || !pl->placed)
-            continue;
-        pt2 *pts = malloc(s->n * sizeof *pts), *hh = malloc((s->n + 1) * sizeof *hh);
-        if (!pts || !hh) {
-            free(pts);
-            free(hh);
-            h->failed = true;
-            return;
-        }
-        size_t m = 0;
-        double cu = 0, cv = 0;
-        for (size_t i = 0; i < s->n; i++) {
-            sl_vec2 uv;
-            double sc;
-            if (sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, s->points[i]), &uv, &sc)) {
-                pts[m++] = (pt2){uv.x, uv.y};
-                cu += uv.x;
-                cv += uv.y;
-            }
-        }
-        if (m == 0) {
-            free(pts);
-            free(hh);
-            continue;
-        }
-        cu /= (double)m;
-        cv /= (double)m;
-        if (px(&v, cu) < -20 || px(&v, cu) > 440 || py(&v, cv) < -20 || py(&v, cv) > 440) {
-            if (!missing)
-                missing = hel(h, parent, "p", "outside this picture: ");
-            char item[128];
-            snprintf(item, sizeof item, "%s (nearest %.1f cm from the edge) ", roi->name,
-                     pl->min_distance_cm);
-            htext(h, missing, item);
-            free(pts);
-            free(hh);
-            continue;
-        }
-        size_t nh = hull(pts, m, hh);
-        char style[64] = "";
-        if (roi->has_color)
-            snprintf(style, sizeof style, "stroke:rgb(%d,%d,%d)", roi->color[0], roi->color[1],
-                     roi->color[2]);
-        const char *cls = sl_organ_in_field(pl) ? "organ-in" : "organ";
-        if (nh >= 3) {
-            sl_vec2 *pv = malloc(nh * sizeof *pv);
-            if (pv) {
-                for (size_t i = 0; i < nh; i++)
-                    pv[i] = (sl_vec2){hh[i].x, hh[i].y};
-                poly(h, g, &v, pv, nh, 1.0, cls, style[0] ? style : NULL);
-                free(pv);
-            }
-        } else {
-            xmlNodePtr c = hel(h, g, "circle", NULL);
-            hattrf(h, c, "cx", "%.1f", px(&v, cu));
-            hattrf(h, c, "cy", "%.1f", py(&v, cv));
-            hattr(h, c, "r", "4");
-            hattr(h, c, "class", "mark");
-        }
-        /* the label beside the projection's rightmost point */
-        pt2 right = {cu, cv};
-        for (size_t i = 0; i < nh; i++)
-            if (hh[i].x > right.x)
-                right = hh[i];
-        pt2 at = {px(&v, right.x) + 3, py(&v, right.y) + 3};
-        /* step down past labels already placed nearby */
-        for (bool moved = true; moved;) {
-            moved = false;
-            for (size_t i = 0; i < nplaced; i++) {
-                if (fabs(placed[i].x - at.x) < 48 && fabs(placed[i].y - at.y) < 11) {
-                    at.y = placed[i].y + 11;
-                    moved = true;
-                }
-            }
-        }
-        if (nplaced < 128)
-            placed[nplaced++] = at;
-        svg_label(h, g, at.x, at.y, roi->name, 10);
-        free(pts);
-        free(hh);
-    }
-    /* axes of the beam-limiting-device frame */
-    svg_label(h, g, 8, 414, "x (BLD) to the right, y (BLD) up; isocentric plane", 9);
-}
-
-static void dose_curve(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t b)
-{
-    const sl_estimate *e = r->est;
-    const sl_beam_dose *bd = &e->beams[b];
-    const sl_beam_place *bp = bd->place;
-    /* the curve at the median depth of the organs' nearest points */
-    double depths[256];
-    size_t nd = 0;
-    double dmax_org = 0;
-    for (size_t o = 0; o < e->norgans && nd < 256; o++) {
-        const sl_organ_dose *d = &e->organs[o];
-        if (!d->estimated || d->landmark)
-            continue;
-        const sl_organ_place *p = &bp->organs[o];
-        depths[nd++] = p->depth_cm[d->nearest_sample];
-        dmax_org = fmax(dmax_org, p->min_distance_cm);
-    }
-    if (nd == 0)
-        return;
-    for (size_t i = 1; i < nd; i++)
-        for (size_t j = i; j > 0 && depths[j] < depths[j - 1]; j--) {
-            double t = depths[j];
-            depths[j] = depths[j - 1];
-            depths[j - 1] = t;
-        }
-    double z = depths[nd / 2];
-    double course_per_percent = 0;
-    for (size_t g = 0; g < e->ngroups; g++) {
-        if (isfinite(bd->ref_cgy[g]))
-            course_per_percent += e->fractions[g] * bd->ref_cgy[g] / 100;
-    }
-    enum { N = 200 };
-    double xs[N], ys[N], lo[N], hi[N];
-    double xmax = fmin(fmax(dmax_org * 1.15 + 2, 10), 60);
-    double ymin = INFINITY, ymax = 0;
-    for (int i = 0; i < N; i++) {
-        sl_model_value mv;
-        xs[i] = xmax * i / (N - 1);
-        sl_curves_eval(bd->curves, z, xs[i], e->opt.mode, 1.0, &mv);
-        ys[i] = mv.percent * course_per_percent;
-        lo[i] = fmax(ys[i] - 2 * mv.u_percent * course_per_percent, ys[i] * 0.05);
-        hi[i] = ys[i] + 2 * mv.u_percent * course_per_percent;
-        ymin = fmin(ymin, lo[i]);
-        ymax = fmax(ymax, hi[i]);
-    }
-    for (size_t o = 0; o < e->norgans; o++) {
-        const sl_organ_dose *d = &e->organs[o];
-        if (d->estimated) {
-            ymin = fmin(ymin, d->course_nearest.cgy);
-            ymax = fmax(ymax, d->course_nearest.cgy);
-        }
-    }
-    char title[160];
-    snprintf(title, sizeof title,
-             "beam %d alone: course dose at %.1f cm depth against distance, 2-sigma band",
-             bp->beam->number, z);
-    hplot p;
-    hplot_begin(&p, h, parent, 640, 320, 0, xmax, fmax(ymin, 1e-3), ymax * 1.5, true,
-                "distance from the field edge (cm)", "course dose (cGy)", title);
-    hplot_band(&p, xs, lo, hi, N, "band");
-    hplot_line(&p, xs, ys, N, "fit");
-    for (size_t o = 0; o < e->norgans; o++) {
-        const sl_organ_dose *d = &e->organs[o];
-        if (!d->estimated || d->landmark)
-            continue;
-        double x = bp->organs[o].min_distance_cm;
-        if (x <= xmax)
-            hplot_marker(&p, x, d->course_nearest.cgy, d->roi->name, "mark");
-    }
-    hel(h, parent, "p",
-        "Markers: each organ's point nearest the field edge, at its own depth, with the dose of "
-        "all beams; the curve is this beam alone at one depth, so markers need not lie on it.");
-}
-
-static void dvh(hdoc *h, xmlNodePtr parent, const sl_estimate_report *r, size_t o)
-{
-    const sl_organ_dose *d = &r->est->organs[o];
-    if (!d->estimated || d->is_point || d->landmark || o >= r->loc->norgans)
-        return;
-    const sl_organ_samples *s = &r->loc->samples[o];
-    if (s->n < 2)
-        return;
-    size_t n = s->n;
-    typedef struct dv {
-        double d, v;
-    } dv;
-    dv *a = malloc(n * sizeof *a);
-    double *xs = malloc((n + 1) * sizeof *xs), *ys = malloc((n + 1) * sizeof *ys);
-    if (!a || !xs || !ys) {
-        free(a);
-        free(xs);
-        free(ys);
-        h->failed = true;
-        return;
-    }
-    double vt = 0;
-    for (size_t i = 0; i < n; i++) {
-        a[i] = (dv){d->course_cgy[i], s->volume_cc[i]};
-        vt += s->volume_cc[i];
-    }
-    /* sort by dose, highest first: the cumulative volume at or above each dose */
-    for (size_t gap = n / 2; gap > 0; gap /= 2)
-        for (size_t i = gap; i < n; i++)
-            for (size_t j = i; j >= gap && a[j - gap].d < a[j].d; j -= gap) {
-                dv t = a[j];
-                a[j] = a[j - gap];
-                a[j - gap] = t;
-            }
-    double acc = 0;
-    size_t m = 0;
-    xs[m] = a[0].d;
-    ys[m++] = 0;
-    for (size_t i = 0; i < n; i++) {
-        acc += a[i].v;
-        if (i + 1 == n || a[i + 1].d < a[i].d) {
-            xs[m] = a[i].d;
-            ys[m++] = 100 * acc / vt;
-        }
-    }
-    char title[128];
-    snprintf(title, sizeof title, "%s", d->roi->name);
-    hplot p;
-    hplot_begin(&p, h, parent, 300, 200, 0, d->course_max.cgy * 1.05, 0, 100, false,
-                "course dose (cGy)", "volume (%)", title);
-    /* a step plot: from highest dose down */
-    hplot_line(&p, xs, ys, m, "fit");
-    free(a);
-    free(xs);
-    free(ys);
-}
 
 static const char *num(char *buf, size_t n, double v)
 {
@@ -461,9 +93,8 @@ static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool
         hattr(h, hel(h, tr, "td", num(x1, sizeof x1, s * d->course_mean.cgy)), "class", "n");
         /* the level and its name here; its source with the advice below */
         if (a->governing)
-            snprintf(buf, sizeof buf, "%s (%s; %s)",
-                     num(x1, sizeof x1, s * 100 * a->governing->dose_gy), a->governing->name,
-                     a->governing->mark);
+            snprintf(buf, sizeof buf, "%s (%s)",
+                     num(x1, sizeof x1, s * 100 * a->governing->dose_gy), a->governing->mark);
         else if (a->status == SL_ST_BAND)
             snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_mark);
         else
@@ -738,19 +369,27 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
             }
         }
         hel(&h, sec, "h3", "Beam's-eye view");
-        bev(&h, sec, r, bi);
-        hel(&h, sec, "p",
-            "Yellow: the field edge; dashed: the applicator; dotted rings: 1, 2, 5 and 10 cm from "
-            "the field edge; shapes: each organ's projection (red outline: in or touching the "
-            "field).");
-        hel(&h, sec, "h3", "Dose against distance");
-        dose_curve(&h, sec, r, bi);
+        fig_bev_ctx bctx = {r, bi};
+        fig_svg_into(&h, sec, 600, 420, fig_bev, &bctx);
+        hel(&h, sec, "h3", "Dose against distance, at each judged organ's own depth");
+        for (size_t o = 0; o < e->norgans; o++) {
+            const sl_assessment *a = &r->as->items[o];
+            if (!e->organs[o].estimated || !(a->flagged || a->nchecks))
+                continue;
+            fig_dd_ctx dctx = {r, bi, o};
+            fig_svg_into(&h, sec, 560, 330, fig_dose_distance, &dctx);
+        }
     }
     hel(&h, b, "h2", "Dose-volume histograms (cumulative, course estimate)");
     xmlNodePtr grid = hel(&h, b, "div", NULL);
     hattr(&h, grid, "class", "grid");
-    for (size_t o = 0; o < e->norgans; o++)
-        dvh(&h, grid, r, o);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated || d->is_point || d->landmark || o >= r->loc->norgans)
+            continue;
+        fig_dvh_ctx vctx = {r, o};
+        fig_svg_into(&h, grid, 270, 190, fig_dvh, &vctx);
+    }
 
     sl_notes w = {0};
     est_warnings(r, &w);

@@ -16,6 +16,7 @@
 #include <time.h>
 
 #include "estimate_common.h"
+#include "figure.h"
 #include "pdf.h"
 
 static const char *orq(const char *s)
@@ -38,12 +39,22 @@ static void approval_text(const sl_plan *p, char *buf, size_t n)
                  p->reviewer_name ? p->reviewer_name : "");
 }
 
-/* The beam's figures (beam's-eye view, dose against distance). */
+/* The beam's figures, drawn by the same code as the HTML's: the
+ * beam's-eye view, then the dose against distance at each judged organ's
+ * own depth. */
 static void beam_figures(pdoc *d, const sl_estimate_report *r, size_t b)
 {
-    (void)d;
-    (void)r;
-    (void)b;
+    double tw = d->w - d->left - d->right;
+    fig_bev_ctx bctx = {r, b};
+    pdoc_figure(d, tw, tw * 0.68, fig_bev, &bctx);
+    const sl_estimate *e = r->est;
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_assessment *a = &r->as->items[o];
+        if (!e->organs[o].estimated || !(a->flagged || a->nchecks))
+            continue;
+        fig_dd_ctx dctx = {r, b, o};
+        pdoc_figure(d, tw, tw * 0.55, fig_dose_distance, &dctx);
+    }
 }
 
 static const double fill_att[3] = {0.97, 0.86, 0.86}, fill_meas[3] = {0.99, 0.94, 0.80},

@@ -1,9 +1,11 @@
 /*
  * The commissioning report of `strayline fit --report`: one self-contained
- * HTML page with, for every profile, the measured points with their error
- * bars and the fitted curve with its 2-sigma band on a log dose axis, the
- * normalised residuals, the parameters with their standard errors and the
- * fit statistics; poor fits are listed first, not hidden.
+ * HTML page with, for every energy and applicator, one figure of its
+ * profiles as small multiples on shared axes (figure.h: the measured points
+ * with their 2-sigma bars and the fitted curve with its 2-sigma band on a
+ * log dose axis, the normalised residuals below), then each profile's
+ * parameters with their standard errors and the fit statistics; poor fits
+ * are listed first, not hidden.
  */
 #include "strayline/commission.h"
 #include "strayline/report.h"
@@ -14,6 +16,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "figure.h"
 #include "html.h"
 
 static const char *const param_label[SL_PROFILE_MAX_PARAMS] = {
@@ -33,8 +36,7 @@ static void kv_table(hdoc *h, xmlNodePtr parent, const char *const (*rows)[2], s
     }
 }
 
-static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p, size_t idx,
-                            const sl_profile_data *d)
+static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p, size_t idx)
 {
     char label[160], buf[256];
     sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction, label,
@@ -45,57 +47,6 @@ static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p,
     helf(h, sec, "p", "data %s (SHA-256 %.16s...), %zu points from %.2f to %.2f cm; form %s",
          p->data_file, p->sha256, p->n, p->fit.range_lo_cm, p->fit.range_hi_cm,
          sl_profile_form_name(p->fit.form));
-    /* the curve and its band */
-    enum { NC = 160 };
-    double xs[NC], ys[NC], lo[NC], hi[NC];
-    double xmax = p->fit.range_hi_cm * 1.02;
-    double ymin = INFINITY, ymax = -INFINITY;
-    for (int i = 0; i < NC; i++) {
-        double u;
-        xs[i] = xmax * i / (NC - 1);
-        ys[i] = sl_profile_fit_eval(&p->fit, xs[i], &u);
-        lo[i] = fmax(ys[i] - 2 * u, ys[i] * 0.02);
-        hi[i] = ys[i] + 2 * u;
-    }
-    for (size_t i = 0; i < p->n; i++) {
-        ymin = fmin(ymin, p->dose_percent[i]);
-        ymax = fmax(ymax, p->dose_percent[i]);
-    }
-    hplot pl;
-    hplot_begin(&pl, h, sec, 620, 300, 0, xmax, ymin * 0.8, ymax * 1.2, true,
-                "distance from the field edge (cm)", "dose (% of CAX max)",
-                "measured points (2 sigma bars), fit and its 2-sigma band");
-    hplot_band(&pl, xs, lo, hi, NC, "band");
-    hplot_line(&pl, xs, ys, NC, "fit");
-    double *err2 = NULL, *res = NULL;
-    if (d && d->n == p->n) {
-        err2 = malloc(p->n * sizeof *err2);
-        if (err2)
-            for (size_t i = 0; i < p->n; i++)
-                err2[i] = 2 * d->sigma_percent[i];
-    }
-    hplot_points(&pl, p->distance_cm, p->dose_percent, err2, p->n, "data");
-    /* normalised residuals */
-    res = malloc(p->n * sizeof *res);
-    if (res && d && d->n == p->n) {
-        double rmax = 3.5;
-        for (size_t i = 0; i < p->n; i++) {
-            double f = sl_profile_value(p->fit.form, p->fit.theta, p->distance_cm[i], NULL, NULL,
-                                        NULL);
-            res[i] = (p->dose_percent[i] - f) / d->sigma_percent[i];
-            rmax = fmax(rmax, fabs(res[i]) * 1.1);
-        }
-        hplot rp;
-        hplot_begin(&rp, h, sec, 620, 170, 0, xmax, -rmax, rmax, false,
-                    "distance from the field edge (cm)", "residual / sigma",
-                    "normalised residuals (dashed: 0 and 3 sigma)");
-        hplot_hline(&rp, 0, "zero");
-        hplot_hline(&rp, 3, "zero");
-        hplot_hline(&rp, -3, "zero");
-        hplot_points(&rp, p->distance_cm, res, NULL, p->n, "data");
-    }
-    free(err2);
-    free(res);
     xmlNodePtr t = hel(h, sec, "table", NULL);
     const char *head[] = {"parameter", "value", "standard error", "unit"};
     hrow(h, t, true, head, 4);
@@ -221,11 +172,35 @@ sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_mo
             }
         }
     }
-    hel(&h, b, "h2", "Profiles");
+    /* the figures: one for each energy and applicator, its profiles as
+     * small multiples on shared axes */
+    hel(&h, b, "h2", "Profiles by energy and applicator");
     for (size_t i = 0; i < m->nprofiles; i++) {
-        const sl_profile_data *d = ms && i < ms->nprofiles ? &ms->profiles[i] : NULL;
-        profile_section(&h, b, &m->profiles[i], i, d);
+        const sl_model_profile *p = &m->profiles[i];
+        bool seen = false, any = false;
+        size_t n = 0;
+        for (size_t k = 0; k < m->nprofiles && !seen; k++) {
+            const sl_model_profile *q = &m->profiles[k];
+            if (q->energy_mev == p->energy_mev && strcmp(q->applicator, p->applicator) == 0) {
+                if (k < i)
+                    seen = true;
+                any = true;
+            }
+        }
+        if (seen || !any)
+            continue;
+        for (size_t k = 0; k < m->nprofiles; k++)
+            n += m->profiles[k].energy_mev == p->energy_mev &&
+                 strcmp(m->profiles[k].applicator, p->applicator) == 0;
+        xmlNodePtr sec = hel(&h, b, "section", NULL);
+        helf(&h, sec, "h3", "%g MeV, applicator %s", p->energy_mev, p->applicator);
+        size_t cols = n < 4 ? n : 4, rows = (n + cols - 1) / cols;
+        fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator};
+        fig_svg_into(&h, sec, 640, 40 + 150 * (double)rows, fig_profiles, &fctx);
     }
+    hel(&h, b, "h2", "Profiles: fitted parameters");
+    for (size_t i = 0; i < m->nprofiles; i++)
+        profile_section(&h, b, &m->profiles[i], i);
     helf(&h, b, "p", "written by strayline %s", sl_version());
     return hdoc_write(&h, fp, err);
 }

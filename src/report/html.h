@@ -1,8 +1,9 @@
 /*
  * Private helpers of the HTML writers: documents are built as a libxml2 HTML
  * tree, so that escaping and serialisation are the library's, never ours;
- * pictures are inline SVG elements of the same tree, so a report is one
- * self-contained file with no external reference.
+ * pictures are inline SVG elements of the same tree (drawn by cairo, see
+ * figure.h), so a report is one self-contained file with no external
+ * reference.
  */
 #ifndef STRAYLINE_REPORT_HTML_H
 #define STRAYLINE_REPORT_HTML_H
@@ -19,6 +20,7 @@ typedef struct hdoc {
     htmlDocPtr doc;
     xmlNodePtr head, body;
     bool failed;
+    unsigned nfig; /* figures so far: each gets its own id prefix */
 } hdoc;
 
 /* A document with a title and a style sheet (screen and print rules). */
@@ -44,32 +46,6 @@ void htext(hdoc *h, xmlNodePtr n, const char *text);
 
 /* A table row of cells (th when header). */
 xmlNodePtr hrow(hdoc *h, xmlNodePtr table, bool header, const char *const *cells, size_t n);
-
-/* ---------------------------------------------------------------- SVG -- */
-
-typedef struct hplot {
-    hdoc *h;
-    xmlNodePtr svg, g;
-    double w, hgt;        /* px */
-    double left, right, top, bottom; /* margins, px */
-    double x0, x1, y0, y1;           /* data ranges */
-    bool logy;
-} hplot;
-
-/* A plot with axes, ticks and labels. y range is taken in data units; with
- * logy the ticks are decades. */
-void hplot_begin(hplot *p, hdoc *h, xmlNodePtr parent, double w, double hgt, double x0,
-                 double x1, double y0, double y1, bool logy, const char *xlabel,
-                 const char *ylabel, const char *title);
-double hplot_x(const hplot *p, double x);
-double hplot_y(const hplot *p, double y);
-void hplot_line(hplot *p, const double *x, const double *y, size_t n, const char *cls);
-void hplot_band(hplot *p, const double *x, const double *lo, const double *hi, size_t n,
-                const char *cls);
-void hplot_points(hplot *p, const double *x, const double *y, const double *err, size_t n,
-                  const char *cls);
-void hplot_hline(hplot *p, double y, const char *cls);
-void hplot_marker(hplot *p, double x, double y, const char *label, const char *cls);
 
 /* The shared style sheet of strayline's reports. */
 extern const char sl_report_css[];

@@ -125,7 +125,7 @@ static const char *status_word(const sl_assessment *a, est_vkind k)
     if (a->incomplete)
         return "INCOMPLETE";
     if (k == EST_V_MEASURE)
-        return "below level, MEASURE";
+        return a->status == SL_ST_BELOW ? "below level, MEASURE" : "no action level, MEASURE";
     return sl_status_text(a->status);
 }
 

@@ -133,7 +133,10 @@ class ShippedModel(unittest.TestCase):
         with open(path) as f:
             s.feed(f.read())
         self.assertEqual(s.external, [])
-        self.assertGreaterEqual(s.svgs, 2 * 180)
+        # one figure (small multiples) for each energy and applicator
+        with open(MODEL) as f:
+            groups = {(p["energy_mev"], p["applicator"]) for p in yaml.safe_load(f)["profiles"]}
+        self.assertEqual(s.svgs, len(groups))
         text = "".join(s.text)
         self.assertIn("INVENTED DEMO DATA", text)
         self.assertIn("Poor fits", text)

@@ -239,6 +239,28 @@ class PdfDicom(unittest.TestCase):
             self.assertIn("refusing to write over an input file", err)
 
 
+@unittest.skipUnless(shutil.which("pdfinfo"), "poppler-utils not installed")
+class FitPdf(unittest.TestCase):
+    def test_fit_report_pdf_is_small_multiples(self):
+        """An energy and applicator a page (pdfinfo, poppler-utils): the demo's
+        profiles print on a page for each
+        group plus the title page, not one a profile."""
+        import yaml
+        ms = os.path.join(EX, "commissioning", "demo-e1", "measurements.yaml")
+        with tempdir() as d:
+            pdf = os.path.join(d, "fit.pdf")
+            rc, out, err = run("fit", ms, "-o", os.path.join(d, "m.yaml"), "--report-pdf", pdf,
+                               "--paper", "letter", "-q")
+            self.assertEqual(rc, 0, err)
+            info = pdfinfo(pdf)
+            model = yaml.safe_load(open(os.path.join(d, "m.yaml")))
+            groups = {(p["energy_mev"], p["applicator"]) for p in model["profiles"]}
+            self.assertGreater(len(model["profiles"]), 3 * len(groups))
+            self.assertEqual(int(info["Pages"]), len(groups) + 1)
+            w, h = re.findall(r"[\d.]+", info["Page size"])[:2]
+            self.assertEqual((round(float(w)), round(float(h))), (612, 792))
+
+
 class OutputFiles(unittest.TestCase):
     def test_dash_and_output(self):
         with tempdir() as d:

@@ -1,0 +1,665 @@
+/*
+ * The figure machinery shared by every figure (see figure.h): rendering a
+ * drawing function to SVG with cairo's SVG surface and taking the result
+ * into the HTML tree with libxml2, text with Pango, plot axes, numbers
+ * without exponents, and the status colours.
+ *
+ * cairo names its SVG definitions glyph0-1, clip1, surface5 and so on, the
+ * same in every document it writes; an HTML page with several figures would
+ * then resolve a reference of one figure to another's definition. The ids
+ * of each figure are therefore prefixed with the figure's number in the page
+ * and every reference rewritten to match.
+ */
+#include "figure.h"
+
+#include <math.h>
+#include <stdarg.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <cairo-svg.h>
+#include <fontconfig/fontconfig.h>
+#include <libxml/parser.h>
+#include <pango/pangocairo.h>
+
+/* ------------------------------------------------------------ status -- */
+
+void fig_status_rgb(sl_status_kind s, double rgb[3])
+{
+    /* dark, well-separated hues that stay apart for the common colour
+     * vision deficiencies, paired with a shape (fig_status_symbol) */
+    static const double c[][3] = {
+        [SL_ST_BELOW] = {0.00, 0.55, 0.40},        /* green */
+        [SL_ST_MAY_EXCEED] = {0.85, 0.50, 0.00},   /* orange */
+        [SL_ST_EXCEEDS] = {0.78, 0.08, 0.10},      /* red */
+        [SL_ST_BAND] = {0.60, 0.25, 0.60},         /* purple */
+        [SL_ST_NO_LEVEL] = {0.10, 0.40, 0.70},     /* blue */
+        [SL_ST_IN_FIELD] = {0.25, 0.25, 0.25},     /* near black */
+        [SL_ST_NOT_ASSESSED] = {0.55, 0.55, 0.55}, /* grey */
+    };
+    size_t i = (size_t)s < sizeof c / sizeof *c ? (size_t)s : SL_ST_NOT_ASSESSED;
+    memcpy(rgb, c[i], sizeof c[i]);
+}
+
+const char *fig_status_symbol(sl_status_kind s)
+{
+    switch (s) {
+    case SL_ST_EXCEEDS: return "\u25B2";      /* black up-pointing triangle */
+    case SL_ST_MAY_EXCEED: return "\u25C6";   /* black diamond */
+    case SL_ST_BELOW: return "\u25CF";        /* black circle */
+    case SL_ST_BAND: return "\u25A0";         /* black square */
+    case SL_ST_NO_LEVEL: return "\u25CB";     /* white circle */
+    case SL_ST_IN_FIELD: return "\u25A3";     /* square in square */
+    case SL_ST_NOT_ASSESSED: return "\u25A1"; /* white square */
+    }
+    return "\u25A1";
+}
+
+/* ----------------------------------------------------------- numbers -- */
+
+void fig_format_number(double v, char *buf, size_t size)
+{
+    if (!isfinite(v)) {
+        snprintf(buf, size, "-");
+        return;
+    }
+    double a = fabs(v);
+    int dec;
+    if (a == 0 || a >= 100)
+        dec = 0;
+    else
+        dec = (int)fmax(0, 1 - floor(log10(a))); /* two significant figures at least */
+    if (dec > 9)
+        dec = 9;
+    snprintf(buf, size, "%.*f", dec, v);
+    /* drop trailing zeros after a decimal point: 0.50 -> 0.5, 10.0 -> 10 */
+    char *dot = strchr(buf, '.');
+    if (dot) {
+        char *e = buf + strlen(buf) - 1;
+        while (e > dot && *e == '0')
+            *e-- = '\0';
+        if (e == dot)
+            *e = '\0';
+    }
+    if (strcmp(buf, "-0") == 0)
+        snprintf(buf, size, "0");
+}
+
+/* ------------------------------------------------------------ counts -- */
+
+typedef struct fig_counts {
+    char *s;
+    size_t len, cap;
+    bool failed;
+} fig_counts;
+
+static const cairo_user_data_key_t counts_key;
+
+static void counts_free(void *p)
+{
+    fig_counts *c = p;
+    if (c)
+        free(c->s);
+    free(c);
+}
+
+void fig_count(cairo_t *cr, const char *key, const char *fmt, ...)
+{
+    fig_counts *c = cairo_surface_get_user_data(cairo_get_target(cr), &counts_key);
+    if (!c || c->failed)
+        return; /* not rendering for a test-visible SVG: nothing to record */
+    char val[1024];
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(val, sizeof val, fmt, ap);
+    va_end(ap);
+    size_t need = c->len + strlen(key) + strlen(val) + 3;
+    if (need > c->cap) {
+        size_t cap = need * 2;
+        char *s = realloc(c->s, cap);
+        if (!s) {
+            c->failed = true;
+            return;
+        }
+        c->s = s;
+        c->cap = cap;
+    }
+    c->len += (size_t)snprintf(c->s + c->len, c->cap - c->len, "%s%s=%s", c->len ? " " : "",
+                               key, val);
+}
+
+/* --------------------------------------------------------------- SVG -- */
+
+typedef struct membuf {
+    char *p;
+    size_t len, cap;
+} membuf;
+
+static cairo_status_t membuf_write(void *closure, const unsigned char *data, unsigned int n)
+{
+    membuf *b = closure;
+    if (b->len + n + 1 > b->cap) {
+        size_t cap = (b->len + n + 1) * 2;
+        char *p = realloc(b->p, cap);
+        if (!p)
+            return CAIRO_STATUS_WRITE_ERROR;
+        b->p = p;
+        b->cap = cap;
+    }
+    memcpy(b->p + b->len, data, n);
+    b->len += n;
+    b->p[b->len] = '\0';
+    return CAIRO_STATUS_SUCCESS;
+}
+
+static sl_status render_svg(double w, double h, fig_draw_fn draw, const void *ctx, char **svg,
+                            size_t *len, char **counts, sl_error *err)
+{
+    membuf b = {0};
+    *svg = NULL;
+    *len = 0;
+    if (counts)
+        *counts = NULL;
+    cairo_surface_t *s = cairo_svg_surface_create_for_stream(membuf_write, &b, w, h);
+    fig_counts *c = calloc(1, sizeof *c);
+    if (!c || cairo_surface_status(s) != CAIRO_STATUS_SUCCESS ||
+        cairo_surface_set_user_data(s, &counts_key, c, counts_free) != CAIRO_STATUS_SUCCESS) {
+        if (cairo_surface_status(s) == CAIRO_STATUS_SUCCESS && c)
+            free(c);
+        cairo_surface_destroy(s);
+        free(b.p);
+        return sl_error_set(err, SL_ENOMEM, "out of memory drawing a figure");
+    }
+    cairo_svg_surface_restrict_to_version(s, CAIRO_SVG_VERSION_1_1);
+    cairo_t *cr = cairo_create(s);
+    cairo_save(cr);
+    draw(cr, w, h, ctx);
+    cairo_restore(cr);
+    cairo_status_t cst = cairo_status(cr);
+    cairo_destroy(cr);
+    cairo_surface_finish(s);
+    if (cst == CAIRO_STATUS_SUCCESS)
+        cst = cairo_surface_status(s);
+    bool cfail = c->failed;
+    if (counts && c->s && !cfail) {
+        *counts = c->s;
+        c->s = NULL;
+    }
+    cairo_surface_destroy(s); /* frees c */
+    if (cst != CAIRO_STATUS_SUCCESS || cfail || !b.p) {
+        free(b.p);
+        if (counts) {
+            free(*counts);
+            *counts = NULL;
+        }
+        return sl_error_set(err, cst == CAIRO_STATUS_NO_MEMORY || cfail ? SL_ENOMEM : SL_EINTERNAL,
+                            "cannot draw a figure: %s", cairo_status_to_string(cst));
+    }
+    *svg = b.p;
+    *len = b.len;
+    return SL_OK;
+}
+
+sl_status fig_svg_string(double w_pt, double h_pt, fig_draw_fn draw, const void *ctx, char **svg,
+                         size_t *len, sl_error *err)
+{
+    return render_svg(w_pt, h_pt, draw, ctx, svg, len, NULL, err);
+}
+
+typedef struct idset {
+    char **v;
+    size_t n, cap;
+} idset;
+
+static bool idset_has(const idset *s, const char *id, size_t n)
+{
+    for (size_t i = 0; i < s->n; i++)
+        if (strlen(s->v[i]) == n && memcmp(s->v[i], id, n) == 0)
+            return true;
+    return false;
+}
+
+/* Give every id a prefix; collect the old ids. */
+static bool prefix_ids(xmlNodePtr n, const char *prefix, idset *ids)
+{
+    for (; n; n = n->next) {
+        if (n->type != XML_ELEMENT_NODE)
+            continue;
+        xmlChar *id = xmlGetProp(n, BAD_CAST "id");
+        if (id) {
+            if (ids->n == ids->cap) {
+                size_t cap = ids->cap ? ids->cap * 2 : 64;
+                char **v = realloc(ids->v, cap * sizeof *v);
+                if (!v) {
+                    xmlFree(id);
+                    return false;
+                }
+                ids->v = v;
+                ids->cap = cap;
+            }
+            ids->v[ids->n] = strdup((const char *)id);
+            if (!ids->v[ids->n]) {
+                xmlFree(id);
+                return false;
+            }
+            ids->n++;
+            size_t l = strlen(prefix) + strlen((const char *)id) + 1;
+            char *nid = malloc(l);
+            if (!nid) {
+                xmlFree(id);
+                return false;
+            }
+            snprintf(nid, l, "%s%s", prefix, (const char *)id);
+            xmlSetProp(n, BAD_CAST "id", BAD_CAST nid);
+            free(nid);
+            xmlFree(id);
+        }
+        if (!prefix_ids(n->children, prefix, ids))
+            return false;
+    }
+    return true;
+}
+
+static bool idchar(char c)
+{
+    return (c >= 'a' && c <= 'z') || (c >= 'A' && c <= 'Z') || (c >= '0' && c <= '9') ||
+           c == '-' || c == '_' || c == '.';
+}
+
+/* Rewrite "#id" references to ids of the set in every attribute. */
+static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
+{
+    size_t pl = strlen(prefix);
+    for (; n; n = n->next) {
+        if (n->type != XML_ELEMENT_NODE)
+            continue;
+        for (xmlAttrPtr a = n->properties; a; a = a->next) {
+            xmlChar *v = xmlNodeListGetString(n->doc, a->children, 1);
+            if (!v)
+                continue;
+            const char *s = (const char *)v;
+            if (!strchr(s, '#')) {
+                xmlFree(v);
+                continue;
+            }
+            size_t cap = strlen(s) * 2 + 16 + pl * 8, len = 0;
+            char *out = malloc(cap);
+            if (!out) {
+                xmlFree(v);
+                return false;
+            }
+            for (size_t i = 0; s[i];) {
+                if (s[i] == '#') {
+                    size_t j = i + 1;
+                    while (idchar(s[j]))
+                        j++;
+                    if (j > i + 1 && idset_has(ids, s + i + 1, j - i - 1)) {
+                        if (len + pl + (j - i) + 1 > cap) {
+                            cap = (len + pl + (j - i) + 1) * 2;
+                            char *o2 = realloc(out, cap);
+                            if (!o2) {
+                                free(out);
+                                xmlFree(v);
+                                return false;
+                            }
+                            out = o2;
+                        }
+                        out[len++] = '#';
+                        memcpy(out + len, prefix, pl);
+                        len += pl;
+                        memcpy(out + len, s + i + 1, j - i - 1);
+                        len += j - i - 1;
+                        i = j;
+                        continue;
+                    }
+                }
+                if (len + 2 > cap) {
+                    cap *= 2;
+                    char *o2 = realloc(out, cap);
+                    if (!o2) {
+                        free(out);
+                        xmlFree(v);
+                        return false;
+                    }
+                    out = o2;
+                }
+                out[len++] = s[i++];
+            }
+            out[len] = '\0';
+            if (strcmp(out, s) != 0)
+                xmlSetNsProp(n, a->ns, a->name, BAD_CAST out);
+            free(out);
+            xmlFree(v);
+        }
+        if (!rewrite_refs(n->children, prefix, ids))
+            return false;
+    }
+    return true;
+}
+
+/* Write the numbers of a path's data with two decimals (a hundredth of a
+ * point; cairo writes six), which halves a figure's size and changes no
+ * pixel. Returns a new string or NULL. */
+static char *round_path_data(const char *d)
+{
+    size_t n = strlen(d);
+    char *out = malloc(n + 1);
+    if (!out)
+        return NULL;
+    size_t k = 0;
+    for (size_t i = 0; i < n;) {
+        char c = d[i];
+        bool num = (c >= '0' && c <= '9') || c == '.' ||
+                   ((c == '-' || c == '+') && i + 1 < n &&
+                    ((d[i + 1] >= '0' && d[i + 1] <= '9') || d[i + 1] == '.'));
+        if (!num) {
+            out[k++] = d[i++];
+            continue;
+        }
+        char *end;
+        double v = strtod(d + i, &end);
+        size_t used = (size_t)(end - (d + i));
+        if (used == 0) {
+            out[k++] = d[i++];
+            continue;
+        }
+        char buf[64];
+        int w = snprintf(buf, sizeof buf, "%.2f", v);
+        if (w < 0 || (size_t)w >= sizeof buf) { /* cannot happen for a coordinate: keep it */
+            memcpy(out + k, d + i, used);
+            k += used;
+            i += used;
+            continue;
+        }
+        char *dot = strchr(buf, '.');
+        if (dot) {
+            char *e = buf + w - 1;
+            while (e > dot && *e == '0')
+                *e-- = '\0';
+            if (e == dot)
+                *e = '\0';
+        }
+        if (strcmp(buf, "-0") == 0)
+            strcpy(buf, "0");
+        size_t bl = strlen(buf);
+        if (bl > used) { /* never longer than what it replaces */
+            memcpy(out + k, d + i, used);
+            k += used;
+        } else {
+            memcpy(out + k, buf, bl);
+            k += bl;
+        }
+        i += used;
+    }
+    out[k] = '\0';
+    return out;
+}
+
+static bool round_paths(xmlNodePtr n)
+{
+    for (; n; n = n->next) {
+        if (n->type != XML_ELEMENT_NODE)
+            continue;
+        if (xmlStrcmp(n->name, BAD_CAST "path") == 0) {
+            xmlChar *d = xmlGetProp(n, BAD_CAST "d");
+            if (d) {
+                char *r = round_path_data((const char *)d);
+                xmlFree(d);
+                if (!r)
+                    return false;
+                xmlSetProp(n, BAD_CAST "d", BAD_CAST r);
+                free(r);
+            }
+        }
+        if (!round_paths(n->children))
+            return false;
+    }
+    return true;
+}
+
+xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fig_draw_fn draw,
+                        const void *ctx)
+{
+    if (h->failed || !parent)
+        return NULL;
+    char *svg = NULL, *counts = NULL;
+    size_t len = 0;
+    sl_error err;
+    if (render_svg(w_pt, h_pt, draw, ctx, &svg, &len, &counts, &err) != SL_OK || len > INT32_MAX) {
+        free(svg);
+        free(counts);
+        h->failed = true;
+        return NULL;
+    }
+    xmlDocPtr sd = xmlReadMemory(svg, (int)len, "figure.svg", NULL,
+                                 XML_PARSE_NONET | XML_PARSE_NOBLANKS | XML_PARSE_HUGE);
+    free(svg);
+    xmlNodePtr root = sd ? xmlDocGetRootElement(sd) : NULL;
+    if (!root) {
+        if (sd)
+            xmlFreeDoc(sd);
+        free(counts);
+        h->failed = true;
+        return NULL;
+    }
+    char prefix[32];
+    snprintf(prefix, sizeof prefix, "fig%u-", ++h->nfig);
+    idset ids = {0};
+    bool ok = prefix_ids(root, prefix, &ids) && rewrite_refs(root, prefix, &ids) &&
+              round_paths(root);
+    for (size_t i = 0; i < ids.n; i++)
+        free(ids.v[i]);
+    free(ids.v);
+    xmlNodePtr copy = ok ? xmlDocCopyNode(root, h->doc, 1) : NULL;
+    xmlFreeDoc(sd);
+    if (!copy) {
+        free(counts);
+        h->failed = true;
+        return NULL;
+    }
+    xmlAddChild(parent, copy);
+    hattr(h, copy, "role", "img");
+    hattr(h, copy, "class", "figure");
+    hattr(h, copy, "style", "max-width:100%;height:auto");
+    if (counts)
+        hattr(h, copy, "data-counts", counts);
+    free(counts);
+    return copy;
+}
+
+void sl_report_release_caches(void)
+{
+    pango_cairo_font_map_set_default(NULL);
+    cairo_debug_reset_static_data();
+    FcFini();
+}
+
+/* -------------------------------------------------------------- text -- */
+
+static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double max_w)
+{
+    PangoLayout *l = pango_cairo_create_layout(cr);
+    /* the same glyph positions on every surface: no hinting of metrics */
+    cairo_font_options_t *fo = cairo_font_options_create();
+    cairo_font_options_set_hint_metrics(fo, CAIRO_HINT_METRICS_OFF);
+    cairo_font_options_set_hint_style(fo, CAIRO_HINT_STYLE_NONE);
+    pango_cairo_context_set_font_options(pango_layout_get_context(l), fo);
+    cairo_font_options_destroy(fo);
+    pango_layout_context_changed(l);
+    PangoFontDescription *d = pango_font_description_from_string("DejaVu Sans");
+    pango_font_description_set_absolute_size(d, f.size_pt * PANGO_SCALE);
+    if (f.bold)
+        pango_font_description_set_weight(d, PANGO_WEIGHT_BOLD);
+    if (f.italic)
+        pango_font_description_set_style(d, PANGO_STYLE_ITALIC);
+    pango_layout_set_font_description(l, d);
+    pango_font_description_free(d);
+    if (max_w > 0) {
+        pango_layout_set_width(l, (int)(max_w * PANGO_SCALE));
+        pango_layout_set_wrap(l, PANGO_WRAP_WORD_CHAR);
+    } else if (max_w < 0) { /* one line, cut with an ellipsis */
+        pango_layout_set_width(l, (int)(-max_w * PANGO_SCALE));
+        pango_layout_set_ellipsize(l, PANGO_ELLIPSIZE_END);
+    }
+    /* names come from DICOM files: a byte that is not UTF-8 becomes a
+     * replacement character rather than a warning printed by Pango */
+    if (g_utf8_validate(text, -1, NULL)) {
+        pango_layout_set_text(l, text, -1);
+    } else {
+        gchar *valid = g_utf8_make_valid(text, -1);
+        pango_layout_set_text(l, valid, -1);
+        g_free(valid);
+    }
+    return l;
+}
+
+void fig_text_size(cairo_t *cr, const char *text, fig_font f, double max_w, double *w, double *h)
+{
+    PangoLayout *l = layout_for(cr, text, f, max_w);
+    int iw, ih;
+    pango_layout_get_size(l, &iw, &ih);
+    *w = (double)iw / PANGO_SCALE;
+    *h = (double)ih / PANGO_SCALE;
+    g_object_unref(l);
+}
+
+void fig_text(cairo_t *cr, double x, double y, double ax, double ay, const char *text, fig_font f,
+              double max_w)
+{
+    PangoLayout *l = layout_for(cr, text, f, max_w);
+    int iw, ih;
+    pango_layout_get_size(l, &iw, &ih);
+    cairo_move_to(cr, x - ax * iw / PANGO_SCALE, y - ay * ih / PANGO_SCALE);
+    pango_cairo_show_layout(cr, l);
+    cairo_new_path(cr);
+    g_object_unref(l);
+}
+
+/* -------------------------------------------------------------- axes -- */
+
+void fig_log_range(double lo, double hi, double *y0, double *y1)
+{
+    lo = fmax(lo, 1e-6);
+    hi = fmax(hi, lo);
+    *y0 = pow(10, floor(log10(lo) + 1e-9));
+    *y1 = pow(10, ceil(log10(hi) - 1e-9));
+    if (*y1 <= *y0)
+        *y1 = *y0 * 10;
+}
+
+double fig_ax_x(const fig_axes *a, double x)
+{
+    return a->x + (x - a->x0) / (a->x1 - a->x0) * a->w;
+}
+
+double fig_ax_y(const fig_axes *a, double y)
+{
+    double f;
+    if (a->logy)
+        f = (log10(fmax(y, 1e-300)) - log10(a->y0)) / (log10(a->y1) - log10(a->y0));
+    else
+        f = (y - a->y0) / (a->y1 - a->y0);
+    return a->y + a->h - f * a->h;
+}
+
+static double nice_step(double span, double n)
+{
+    double raw = span / n, mag = pow(10, floor(log10(raw)));
+    double f = raw / mag;
+    return (f < 1.5 ? 1 : f < 3.5 ? 2 : f < 7.5 ? 5 : 10) * mag;
+}
+
+void fig_axes_draw(cairo_t *cr, const fig_axes *a, const char *xlabel, const char *ylabel,
+                   bool xticks, bool yticks, double font_pt)
+{
+    fig_font tf = {font_pt, false, false};
+    char buf[48];
+    cairo_save(cr);
+    cairo_set_line_width(cr, 0.4);
+    /* x grid (one path), then the tick labels */
+    double xs = nice_step(a->x1 - a->x0, fmax(2, a->w / (font_pt * 6)));
+    cairo_set_source_rgb(cr, 0.85, 0.85, 0.85);
+    for (double x = ceil(a->x0 / xs - 1e-9) * xs; x <= a->x1 + xs * 1e-6; x += xs) {
+        cairo_move_to(cr, fig_ax_x(a, x), a->y);
+        cairo_line_to(cr, fig_ax_x(a, x), a->y + a->h);
+    }
+    cairo_stroke(cr);
+    for (double x = ceil(a->x0 / xs - 1e-9) * xs; x <= a->x1 + xs * 1e-6; x += xs) {
+        double px = fig_ax_x(a, x);
+        if (xticks) {
+            cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
+            fig_format_number(fabs(x) < xs * 1e-6 ? 0 : x, buf, sizeof buf);
+            fig_text(cr, px, a->y + a->h + 2, 0.5, 0, buf, tf, 0);
+        }
+    }
+    /* y grid and ticks; the axis label goes left of the widest tick label */
+    double ywide = 0;
+    if (a->logy) {
+        double decades = log10(a->y1 / a->y0);
+        int every = decades > 8 ? 2 : 1;
+        int k = 0;
+        if (decades <= 3) { /* minor lines at 2 and 5 */
+            cairo_set_source_rgb(cr, 0.92, 0.92, 0.92);
+            for (double y = a->y0; y < a->y1; y *= 10)
+                for (int m = 2; m <= 5; m += 3) {
+                    cairo_move_to(cr, a->x, fig_ax_y(a, y * m));
+                    cairo_line_to(cr, a->x + a->w, fig_ax_y(a, y * m));
+                }
+            cairo_stroke(cr);
+        }
+        cairo_set_source_rgb(cr, 0.8, 0.8, 0.8);
+        for (double y = a->y0; y <= a->y1 * 1.0001; y *= 10) {
+            cairo_move_to(cr, a->x, fig_ax_y(a, y));
+            cairo_line_to(cr, a->x + a->w, fig_ax_y(a, y));
+        }
+        cairo_stroke(cr);
+        for (double y = a->y0; y <= a->y1 * 1.0001; y *= 10, k++) {
+            double py = fig_ax_y(a, y);
+            if (yticks && k % every == 0) {
+                cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
+                fig_format_number(y, buf, sizeof buf);
+                fig_text(cr, a->x - 3, py, 1, 0.5, buf, tf, 0);
+                double tw, th;
+                fig_text_size(cr, buf, tf, 0, &tw, &th);
+                ywide = fmax(ywide, tw);
+            }
+        }
+    } else {
+        double ys = nice_step(a->y1 - a->y0, fmax(2, a->h / (font_pt * 3)));
+        cairo_set_source_rgb(cr, 0.85, 0.85, 0.85);
+        for (double y = ceil(a->y0 / ys - 1e-9) * ys; y <= a->y1 + ys * 1e-6; y += ys) {
+            cairo_move_to(cr, a->x, fig_ax_y(a, y));
+            cairo_line_to(cr, a->x + a->w, fig_ax_y(a, y));
+        }
+        cairo_stroke(cr);
+        for (double y = ceil(a->y0 / ys - 1e-9) * ys; y <= a->y1 + ys * 1e-6; y += ys) {
+            double py = fig_ax_y(a, y);
+            if (yticks) {
+                cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
+                fig_format_number(fabs(y) < ys * 1e-6 ? 0 : y, buf, sizeof buf);
+                fig_text(cr, a->x - 3, py, 1, 0.5, buf, tf, 0);
+                double tw, th;
+                fig_text_size(cr, buf, tf, 0, &tw, &th);
+                ywide = fmax(ywide, tw);
+            }
+        }
+    }
+    cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
+    cairo_set_line_width(cr, 0.8);
+    cairo_rectangle(cr, a->x, a->y, a->w, a->h);
+    cairo_stroke(cr);
+    if (xlabel) {
+        double tw, th;
+        fig_text_size(cr, "0", tf, 0, &tw, &th);
+        fig_text(cr, a->x + a->w / 2, a->y + a->h + 3 + th, 0.5, 0, xlabel, tf, 0);
+    }
+    if (ylabel) {
+        cairo_save(cr);
+        /* left of the tick labels, reading upward */
+        cairo_translate(cr, a->x - 5 - ywide, a->y + a->h / 2);
+        cairo_rotate(cr, -M_PI / 2);
+        fig_text(cr, 0, 0, 0.5, 1, ylabel, tf, 0);
+        cairo_restore(cr);
+    }
+    cairo_restore(cr);
+}

@@ -1,0 +1,133 @@
+/*
+ * Private to the report module: the figures of strayline's reports, drawn
+ * once with cairo (text with Pango) and rendered either to an SVG element
+ * of an HTML report (fig_svg_into) or onto a PDF page (call the drawing
+ * function on the page's cairo context, translated to where the figure
+ * goes). One drawing code for both, so the HTML and the PDF show the same
+ * picture; no SVG is assembled by hand anywhere.
+ *
+ * A drawing function draws into the box (0, 0)-(w_pt, h_pt) in points
+ * (1/72 inch) and never outside it. It may record how many data items it
+ * drew (fig_count), which fig_svg_into writes as the svg element's
+ * data-counts attribute, so that tests can check that no figure's data were
+ * cut.
+ */
+#ifndef STRAYLINE_REPORT_FIGURE_H
+#define STRAYLINE_REPORT_FIGURE_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include <cairo.h>
+
+#include "html.h"
+#include "strayline/report.h"
+
+typedef void (*fig_draw_fn)(cairo_t *cr, double w_pt, double h_pt, const void *ctx);
+
+/* Render a figure to an SVG document in memory (caller frees *svg). */
+sl_status fig_svg_string(double w_pt, double h_pt, fig_draw_fn draw, const void *ctx, char **svg,
+                         size_t *len, sl_error *err);
+
+/* Render a figure and insert its <svg> element under parent. The ids cairo
+ * gives its definitions (glyphs, clip paths) are prefixed per figure, so
+ * that several figures in one page do not clash. Returns the element, or
+ * NULL with h->failed set. */
+xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fig_draw_fn draw,
+                        const void *ctx);
+
+/* The beam's-eye view of one beam: the field and applicator outlines, rings
+ * at 1, 2, 5 and 10 cm from the field edge, each organ's projected contours
+ * coloured by its status, labels, patient directions on the edges, arrows
+ * with the distance to organs outside the picture, a legend (to the right
+ * when w >= 1.25 h, else below). Reads best at 480 x 360 pt or larger. */
+typedef struct fig_bev_ctx {
+    const sl_estimate_report *r;
+    size_t beam;
+} fig_bev_ctx;
+void fig_bev(cairo_t *cr, double w, double h, const void *ctx);
+
+/* The dose of one beam against the distance from its field edge, at the
+ * depth of one organ's point nearest that edge, with its 2-sigma band, the
+ * organ marked and its action levels as lines (cGy; mGy for a fetus).
+ * organ indexes r->est->organs and r->as->items. */
+typedef struct fig_dd_ctx {
+    const sl_estimate_report *r;
+    size_t beam;
+    size_t organ;
+} fig_dd_ctx;
+void fig_dose_distance(cairo_t *cr, double w, double h, const void *ctx);
+
+/* The cumulative dose-volume histogram of one organ's course dose, with its
+ * action levels as lines. */
+typedef struct fig_dvh_ctx {
+    const sl_estimate_report *r;
+    size_t organ;
+} fig_dvh_ctx;
+void fig_dvh(cairo_t *cr, double w, double h, const void *ctx);
+
+/* The fit report's small multiples: one panel for each profile (insert,
+ * depth, direction) of one energy and applicator: the measured points with
+ * 2-sigma bars, the fit and its 2-sigma band, and the normalised residuals.
+ * ms may be NULL (no error bars, no residuals). */
+typedef struct fig_profiles_ctx {
+    const sl_measurement_set *ms;
+    const sl_model *m;
+    double energy_mev;
+    const char *applicator;
+} fig_profiles_ctx;
+void fig_profiles(cairo_t *cr, double w, double h, const void *ctx);
+
+/* The colour of a status (figures and tables alike), and its shape cue as
+ * one UTF-8 character, so that no status is told by colour alone. */
+void fig_status_rgb(sl_status_kind s, double rgb[3]);
+const char *fig_status_symbol(sl_status_kind s);
+
+/* ------------------------------------------------ drawing helpers -- */
+
+/* The patient directions (DICOM letters L R A P H F, most weighty first,
+ * up to three) toward the right and the top of a beam's-eye view of a beam
+ * frame. */
+void fig_bev_directions(const sl_frame *f, char right[4], char left[4], char up[4],
+                        char down[4]);
+
+/* A number for a person to read: fixed decimals, never an exponent. */
+void fig_format_number(double v, char *buf, size_t size);
+
+/* Record a count of drawn data items under a key ("curve", "points"). */
+void fig_count(cairo_t *cr, const char *key, const char *fmt, ...)
+#if defined(__GNUC__)
+    __attribute__((format(printf, 3, 4)))
+#endif
+    ;
+
+/* Text with Pango at (x, y), placed by the anchor fractions (ax, ay) of its
+ * box (0, 0: top left; 0.5, 0.5: centred); max_w > 0 wraps at that width,
+ * max_w < 0 keeps one line of at most -max_w, cut with an ellipsis.
+ * fig_text_size measures the same text. */
+typedef struct fig_font {
+    double size_pt;
+    bool bold, italic;
+} fig_font;
+void fig_text_size(cairo_t *cr, const char *text, fig_font f, double max_w, double *w,
+                   double *h);
+void fig_text(cairo_t *cr, double x, double y, double ax, double ay, const char *text, fig_font f,
+              double max_w);
+
+/* A plot frame: the data ranges mapped into a rectangle (points). */
+typedef struct fig_axes {
+    double x, y, w, h;       /* plot rectangle */
+    double x0, x1, y0, y1;   /* data ranges */
+    bool logy;
+} fig_axes;
+
+/* Decades around [lo, hi] for a log axis (lo > 0). */
+void fig_log_range(double lo, double hi, double *y0, double *y1);
+double fig_ax_x(const fig_axes *a, double x);
+double fig_ax_y(const fig_axes *a, double y);
+/* Grid, ticks with labels, frame and axis labels (either may be NULL;
+ * tick labels are left out when ticks is false for that axis). */
+void fig_axes_draw(cairo_t *cr, const fig_axes *a, const char *xlabel, const char *ylabel,
+                   bool xticks, bool yticks, double font_pt);
+
+#endif
