@@ -4,7 +4,7 @@
 
 BUILD_PACKAGES="meson ninja-build pkg-config gcc g++ libdcmtk-dev libgsl-dev libyaml-dev
   libjson-c-dev nettle-dev libxml2-dev libcsv-dev zlib1g-dev libcairo2-dev libpango1.0-dev
-  libfontconfig-dev fonts-dejavu-core libtiff-dev"
+  libfontconfig-dev fonts-dejavu-core libtiff-dev libsqlite3-dev"
 TEST_PACKAGES="check libsubunit-dev python3-pydicom python3-numpy python3-scipy
   python3-shapely python3-jsonschema python3-yaml dicom3tools dcmtk valgrind poppler-utils
   python3-tifffile"

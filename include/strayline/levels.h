@@ -159,6 +159,8 @@ typedef struct sl_patient {
     const char *sex_from;     /* "option", "DICOM" or NULL */
     bool device_asked;        /* a device option was given (--pacing-dependent ...) */
     double fetus_rise_cm;     /* what-if rise of the fetus toward the diaphragm, 0: none */
+    bool age_unknown_unjudged;/* a batch (scan, listen): a fetus without a gestational age
+                                 is left not judged and flagged, not refused */
 } sl_patient;
 
 /* A patient with nothing known. */

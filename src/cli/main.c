@@ -31,6 +31,9 @@ static const sl_command commands[] = {
     {"estimate", "estimate organ out-of-field doses and compare with action levels",
      sl_cmd_estimate},
     {"film", "film dosimetry: calibrate film scans, turn film scans into profiles", sl_cmd_film},
+    {"scan", "screen every electron plan of a folder; reports, summary and log", sl_cmd_scan},
+    {"listen", "a DICOM node that screens the plans it receives", sl_cmd_listen},
+    {"history", "list the screenings recorded in the screening log", sl_cmd_history},
 };
 
 static void usage(FILE *fp)

@@ -358,6 +358,17 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                          a->other_cgy);
         for (size_t i = 0; a->kind && i < a->kind->nstatements; i++)
             age_note |= !isnan(a->kind->statements[i].ages_from) && isnan(pt->age_years);
+        if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && isnan(pt->conception_weeks) &&
+            pt->age_unknown_unjudged) {
+            /* a batch goes on: the levels depend on the weeks, so the fetus is
+             * shown, not judged, and flagged (unjudged() flags a fetus) */
+            a->status = SL_ST_NOT_ASSESSED;
+            a->not_assessed_why = "no gestational age given: its levels depend on the weeks "
+                                  "after conception; supply the gestational age to judge it";
+            unjudged(as, a);
+            as->any_flagged |= a->flagged;
+            continue;
+        }
         if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && isnan(pt->conception_weeks)) {
             sl_status st = sl_error_set(err, SL_EUSAGE,
                                         "ROI '%s' is a fetus: give its gestational age with "

@@ -444,6 +444,7 @@ def main():
             "contradicts the SOP Class (RT Structure Set)")
 
     yaml_cases()
+    facts_cases()
 
     with open(os.path.join(HERE, "cases.tsv"), "w") as f:
         f.write("# file\targuments\texit\tmessage fragment\n")
@@ -749,6 +750,29 @@ def yaml_cases():
     lv_case("levels_pattern_unclosed_negated_bracket.yaml",
             lambda d: lens_kind(d)["match"].append("*[!x"),
             "a '[' without its ']'")
+
+
+def facts_cases():
+    """The per-patient facts file of scan and listen (README.md), and a
+    screening log that is not one."""
+    scan = "scan {tmp} --model {model} --out {tmp}/out --facts {f}"
+    head = "format: strayline-patient-facts\npatients:\n"
+    write_text("facts_wrong_format.yaml", "format: facts\npatients: []\n", scan, 3,
+               "format: 'facts': expected 'strayline-patient-facts'")
+    write_text("facts_weeks_out_of_range.yaml", head + "  - key: P1\n    gestational_age_weeks: 60\n",
+               scan, 3, "gestational_age_weeks")
+    write_text("facts_both_ages.yaml", head + "  - key: P1\n    gestational_age_weeks: 12\n"
+               "    weeks_after_conception: 10\n", scan, 3, "not both")
+    write_text("facts_duplicate_key.yaml", head + "  - key: P1\n  - key: P1\n", scan, 3,
+               "key 'P1' given twice")
+    write_text("facts_unknown_key.yaml", head + "  - key: P1\n    pregnant: yes\n", scan, 3,
+               "unknown key 'pregnant'")
+    write_text("facts_bad_sex.yaml", head + "  - key: P1\n    sex: X\n", scan, 3,
+               "sex: 'X': M or F")
+    write_text("facts_organ_without_kind.yaml", head + "  - key: P1\n    organs: [{roi: Baby}]\n",
+               scan, 3, "missing key 'kind'")
+    raw("log_not_sqlite.txt", b"screening log? no, plain text.\n" * 40,
+        "history --log {f}", 3, "not a screening log")
 
 
 if __name__ == "__main__":

@@ -1,0 +1,299 @@
+/*
+ * `strayline scan DIR --model MODEL.yaml --out OUTDIR`: screen every
+ * electron plan of an export folder. Files are sorted by their DICOM
+ * headers, plans paired with their structure sets, the pairs screened on a
+ * pool of threads (one plan a thread: plans are independent, and a plan on
+ * one thread keeps memory flat), each plan's reports written, every
+ * screening logged, and a summary written. A progress bar on a terminal,
+ * plain lines otherwise; exit 4 when a plan is flagged or an electron plan
+ * could not be screened.
+ */
+#include <errno.h>
+#include <getopt.h>
+#include <libgen.h>
+#include <pthread.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include "cli.h"
+#include "strayline/machine.h"
+#include "strayline/parallel.h"
+#include "strayline/scan.h"
+#include "strayline/util.h"
+
+static const char help[] =
+    "usage: strayline scan DIR --model MODEL.yaml --out OUTDIR [OPTIONS]\n\n"
+    "Screen every electron plan found in DIR (searched recursively; files are\n"
+    "recognised by their DICOM headers, not their names). Each RT Plan is\n"
+    "paired with the RT Structure Set it references; each pair is screened as\n"
+    "'estimate' does, and its JSON and HTML reports are written to OUTDIR with\n"
+    "summary.csv, summary.json and index.html (attention first). Plans without\n"
+    "electron beams are skipped, plans whose structure set is missing are\n"
+    "incomplete, unreadable files are listed with the reason. Every screening\n"
+    "is recorded in the screening log (SQLite). Exit code 4 when a plan is\n"
+    "flagged or an electron plan could not be screened.\n\n"
+    "  -m, --model FILE      the machine's model file (required)\n"
+    "  -o, --out DIR         output folder (required; created if absent)\n"
+    "  -l, --levels FILE     action-level table (default: action-levels.yaml\n"
+    "                        beside the model file)\n"
+    "  -L, --log FILE        screening log (default: OUTDIR/screening.sqlite)\n"
+    "      --facts FILE      per-patient facts (YAML, keyed by patient ID or plan\n"
+    "                        UID): gestational age, pacing dependence, organ kinds,\n"
+    "                        doses from elsewhere, age, sex\n"
+    "      --pdf             also the printable PDF report of each plan (plans are\n"
+    "                        then screened one at a time)\n"
+    "      --paper SIZE      a4 (default) or letter, for --pdf\n"
+    "      --rescreen-stale  screen only the plans whose latest screening in the\n"
+    "                        log used another version of this machine's model\n"
+    "  -j, --threads N       plans screened at once (default: every core)\n"
+    "  -q, --quiet           no progress output\n"
+    "  -h, --help            this help\n";
+
+enum { OPT_FACTS = 256, OPT_STALE, OPT_PDF, OPT_PAPER };
+
+typedef struct pool_ctx {
+    const sl_batch_config *cfg;
+    sl_batch_entry *entries;
+    size_t *todo;
+    size_t ntodo;
+    pthread_mutex_t lock;
+    size_t done;
+    bool tty, quiet;
+    sl_status fatal;
+    sl_error fatal_err;
+} pool_ctx;
+
+static void progress(pool_ctx *p, const sl_batch_entry *e)
+{
+    if (p->quiet)
+        return;
+    if (p->tty) {
+        int width = 40, filled = (int)(width * p->done / (p->ntodo ? p->ntodo : 1));
+        fprintf(stderr, "\r[");
+        for (int i = 0; i < width; i++)
+            fputc(i < filled ? '#' : '.', stderr);
+        fprintf(stderr, "] %zu/%zu plans", p->done, p->ntodo);
+        if (p->done == p->ntodo)
+            fputc('\n', stderr);
+    } else {
+        char a[80], b[80];
+        fprintf(stderr, "strayline scan: %zu/%zu %s %s: %s%s\n", p->done, p->ntodo,
+                sl_text_escape(e->patient_id ? e->patient_id : "-", a, sizeof a),
+                sl_text_escape(e->plan_label ? e->plan_label : "-", b, sizeof b),
+                sl_outcome_name(e->outcome), e->flagged ? ", flagged" : "");
+    }
+    fflush(stderr);
+}
+
+static void screen_task(size_t i, void *ctx)
+{
+    pool_ctx *p = ctx;
+    sl_batch_entry *e = &p->entries[p->todo[i]];
+    sl_error err = {0};
+    sl_status st = sl_batch_screen(p->cfg, e, &err);
+    pthread_mutex_lock(&p->lock);
+    if (st != SL_OK && p->fatal == SL_OK) {
+        p->fatal = st;
+        p->fatal_err = err;
+    }
+    p->done++;
+    progress(p, e);
+    pthread_mutex_unlock(&p->lock);
+}
+
+/* Is plan_uid among the stale plans of the log? */
+static bool in_history(const sl_history *h, const char *uid)
+{
+    for (size_t i = 0; uid && i < h->n; i++)
+        if (h->rows[i].plan_uid && strcmp(h->rows[i].plan_uid, uid) == 0)
+            return true;
+    return false;
+}
+
+int sl_cmd_scan(int argc, char **argv)
+{
+    static const struct option opts[] = {
+        {"model", required_argument, NULL, 'm'},
+        {"out", required_argument, NULL, 'o'},
+        {"levels", required_argument, NULL, 'l'},
+        {"log", required_argument, NULL, 'L'},
+        {"facts", required_argument, NULL, OPT_FACTS},
+        {"rescreen-stale", no_argument, NULL, OPT_STALE},
+        {"pdf", no_argument, NULL, OPT_PDF},
+        {"paper", required_argument, NULL, OPT_PAPER},
+        {"threads", required_argument, NULL, 'j'},
+        {"quiet", no_argument, NULL, 'q'},
+        {"help", no_argument, NULL, 'h'},
+        {NULL, 0, NULL, 0},
+    };
+    const char *model_path = NULL, *outdir = NULL, *levels_path = NULL, *log_path = NULL,
+               *facts_path = NULL;
+    bool rescreen = false, quiet = false, pdf = false;
+    const char *paper = "a4";
+    int threads = 0, c;
+    optind = 1;
+    static const char shortopts[] = "m:o:l:L:j:qh";
+    while ((c = getopt_long(argc, argv, shortopts, opts, NULL)) != -1) {
+        switch (c) {
+        case 'm': model_path = optarg; break;
+        case 'o': outdir = optarg; break;
+        case 'l': levels_path = optarg; break;
+        case 'L': log_path = optarg; break;
+        case OPT_FACTS: facts_path = optarg; break;
+        case OPT_STALE: rescreen = true; break;
+        case OPT_PDF: pdf = true; break;
+        case OPT_PAPER:
+            if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
+                return sl_cli_usage("scan", "--paper needs a4 or letter, not '%s'", optarg);
+            paper = optarg;
+            break;
+        case 'j':
+            if (!sl_parse_int(optarg, &threads) || threads < 1 || threads > 64)
+                return sl_cli_usage("scan", "--threads needs a number from 1 to 64");
+            break;
+        case 'q': quiet = true; break;
+        case 'h': fputs(help, stdout); return SL_EXIT_OK;
+        default: return sl_cli_bad_option(argv, opts, shortopts);
+        }
+    }
+    if (argc - optind != 1)
+        return sl_cli_usage("scan", "needs one folder: DIR");
+    if (!model_path)
+        return sl_cli_usage("scan", "--model MODEL.yaml is required");
+    if (!outdir)
+        return sl_cli_usage("scan", "--out OUTDIR is required");
+    const char *dir = argv[optind];
+    char default_levels[4096], default_log[4096];
+    if (!levels_path) {
+        char copy[4096];
+        snprintf(copy, sizeof copy, "%s", model_path);
+        snprintf(default_levels, sizeof default_levels, "%s/action-levels.yaml", dirname(copy));
+        levels_path = default_levels;
+    }
+    if (!log_path) {
+        snprintf(default_log, sizeof default_log, "%s/screening.sqlite", outdir);
+        log_path = default_log;
+    }
+    if (mkdir(outdir, 0777) != 0 && errno != EEXIST) {
+        sl_cli_error("%s: cannot create the output folder: %s", outdir,
+                strerror(errno));
+        return SL_EXIT_INTERNAL;
+    }
+    struct stat sb;
+    if (stat(outdir, &sb) != 0 || !S_ISDIR(sb.st_mode))
+        return sl_cli_usage("scan", "--out %s: not a folder", outdir);
+
+    sl_error err = {0};
+    sl_model *model = NULL;
+    sl_levels *levels = NULL;
+    sl_facts *facts = NULL;
+    sl_screenlog *log = NULL;
+    sl_scan_files *files = NULL;
+    sl_batch_entry *entries = NULL;
+    sl_history *stale = NULL;
+    size_t n = 0, *todo = NULL;
+    int rc = SL_EXIT_OK;
+    if (sl_model_load(model_path, &model, &err) != SL_OK ||
+        sl_levels_load(levels_path, &levels, &err) != SL_OK ||
+        (facts_path && sl_facts_load(facts_path, &facts, &err) != SL_OK) ||
+        sl_screenlog_open(log_path, true, &log, &err) != SL_OK ||
+        sl_scan_walk(dir, threads, outdir, &files, &err) != SL_OK ||
+        sl_scan_pair(files, &entries, &n, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    sl_cli_warnings(&files->notes);
+    if (rescreen) {
+        sl_history_query q = {.stale_machine = model->machine.name,
+                              .stale_sha256 = model->sha256};
+        if (sl_screenlog_query(log, &q, &stale, &err) != SL_OK) {
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+    }
+    todo = calloc(n ? n : 1, sizeof *todo);
+    if (!todo) {
+        sl_cli_error("out of memory");
+        rc = SL_EXIT_INTERNAL;
+        goto done;
+    }
+    size_t ntodo = 0;
+    for (size_t i = 0; i < n; i++) {
+        if (entries[i].outcome != SL_OUT_SCREENED)
+            continue;
+        if (stale && !in_history(stale, entries[i].plan_uid)) {
+            entries[i].outcome = SL_OUT_SKIPPED;
+            free(entries[i].message);
+            entries[i].message = strdup("--rescreen-stale: not screened with an older version "
+                                        "of this model");
+            continue;
+        }
+        todo[ntodo++] = i;
+    }
+    sl_batch_config cfg = {
+        .model = model,
+        .levels = levels,
+        .model_path = model_path,
+        .levels_path = levels_path,
+        .outdir = outdir,
+        .facts = facts,
+        .log = log,
+        .command = "scan",
+        .threads_per_plan = 1,
+        .pdf_paper = pdf ? paper : NULL,
+    };
+    pool_ctx p = {.cfg = &cfg, .entries = entries, .todo = todo, .ntodo = ntodo,
+                  .tty = isatty(STDERR_FILENO) == 1, .quiet = quiet};
+    pthread_mutex_init(&p.lock, NULL);
+    if (!quiet)
+        fprintf(stderr, "strayline scan: %zu files, %zu plan%s to screen\n", files->n, ntodo,
+                ntodo == 1 ? "" : "s");
+    sl_batch_prepare();
+    /* PDFs are typeset on this thread alone (see sl_batch_config.pdf_paper) */
+    sl_parallel_for(ntodo, pdf ? 1 : sl_parallel_threads(threads), screen_task, &p);
+    pthread_mutex_destroy(&p.lock);
+    if (p.fatal != SL_OK) {
+        rc = sl_cli_fail(&p.fatal_err);
+        goto done;
+    }
+    sl_batch_sort(entries, n);
+    if (sl_batch_write_summary(&cfg, entries, n, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    size_t counts[SL_OUT_BAD + 1] = {0}, flagged = 0;
+    bool attention = false;
+    for (size_t i = 0; i < n; i++) {
+        counts[entries[i].outcome]++;
+        flagged += entries[i].outcome == SL_OUT_SCREENED && entries[i].flagged;
+        attention |= entries[i].flagged || entries[i].outcome == SL_OUT_INCOMPLETE;
+    }
+    printf("screened %zu (flagged %zu), errors %zu, incomplete %zu, skipped %zu, duplicates "
+           "%zu, other objects %zu, unreadable files %zu\n",
+           counts[SL_OUT_SCREENED], flagged, counts[SL_OUT_ERROR], counts[SL_OUT_INCOMPLETE],
+           counts[SL_OUT_SKIPPED], counts[SL_OUT_DUPLICATE], counts[SL_OUT_IGNORED],
+           counts[SL_OUT_BAD]);
+    printf("summary: %s/index.html, %s/summary.csv, %s/summary.json\nlog: %s\n", outdir, outdir,
+           outdir, log_path);
+    if (fflush(stdout) != 0) {
+        sl_cli_error("output error: cannot write to standard output");
+        rc = SL_EXIT_INTERNAL;
+        goto done;
+    }
+    rc = attention ? SL_EXIT_FLAGGED : SL_EXIT_OK;
+done:
+    for (size_t i = 0; i < n; i++)
+        sl_batch_entry_clear(&entries[i]);
+    free(entries);
+    free(todo);
+    sl_history_free(stale);
+    sl_scan_files_free(files);
+    sl_screenlog_close(log);
+    sl_facts_free(facts);
+    sl_levels_free(levels);
+    sl_model_free(model);
+    return rc;
+}

@@ -1,0 +1,255 @@
+/*
+ * The summary of a batch (`scan`, `listen`): summary.csv (libcsv),
+ * summary.json (json-c) and index.html (libxml2), one row per plan or file,
+ * attention first. Like every writer it computes nothing: the entries come
+ * sorted and judged from the scan module. All three name the model and the
+ * action levels and carry the screening caution, as every report does.
+ */
+#include <csv.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "html.h"
+#include "jsonw.h"
+#include "strayline/scan.h"
+#include "strayline/util.h"
+#include "strayline/version.h"
+
+static const char caution[] =
+    "Screening estimates only: each value comes from a peripheral-dose model of limited "
+    "range (see each report for its limits). Confirm high values by measurement, follow "
+    "local protocols and consult a qualified medical physicist.";
+
+static const char *s_or(const char *s, const char *dflt)
+{
+    return s ? s : dflt;
+}
+
+static void organs_text(const sl_batch_entry *e, char *buf, size_t size)
+{
+    size_t k = 0;
+    buf[0] = '\0';
+    for (size_t i = 0; i < e->nflagged && k + 1 < size; i++) {
+        const sl_flagged_organ *o = &e->organs[i];
+        int n = isfinite(o->course_cgy)
+                    ? snprintf(buf + k, size - k, "%s%s: %s (course %.4g cGy, upper %.4g cGy)",
+                               i ? "; " : "", o->roi, o->status, o->course_cgy, o->upper_cgy)
+                    : snprintf(buf + k, size - k, "%s%s: %s", i ? "; " : "", o->roi, o->status);
+        if (n < 0)
+            break;
+        k += (size_t)n;
+    }
+    if (k >= size)
+        buf[size - 1] = '\0';
+}
+
+static void csv_field(FILE *fp, const char *s, bool last)
+{
+    csv_fwrite(fp, s ? s : "", s ? strlen(s) : 0);
+    fputc(last ? '\n' : ',', fp);
+}
+
+static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
+{
+    static const char *const head[] = {"outcome", "flagged", "worst_status", "patient_id",
+                                       "plan_label", "plan_uid", "structure_set_uid",
+                                       "electron_beams", "organs_flagged", "flagged_organs",
+                                       "report_json", "report_html", "report_pdf", "plan_file",
+                                       "structure_set_file", "message"};
+    size_t nh = sizeof head / sizeof *head;
+    for (size_t i = 0; i < nh; i++)
+        csv_field(fp, head[i], i + 1 == nh);
+    char beams[32], nf[32], organs[4096];
+    for (size_t i = 0; i < n; i++) {
+        const sl_batch_entry *x = &e[i];
+        bool screened = x->outcome == SL_OUT_SCREENED;
+        snprintf(beams, sizeof beams, "%zu", x->nbeams);
+        snprintf(nf, sizeof nf, "%zu", x->nflagged);
+        organs_text(x, organs, sizeof organs);
+        csv_field(fp, sl_outcome_name(x->outcome), false);
+        csv_field(fp, x->flagged ? "yes" : "no", false);
+        csv_field(fp, x->worst_status, false);
+        csv_field(fp, x->patient_id, false);
+        csv_field(fp, x->plan_label, false);
+        csv_field(fp, x->plan_uid, false);
+        csv_field(fp, x->ss_uid, false);
+        csv_field(fp, screened ? beams : "", false);
+        csv_field(fp, screened ? nf : "", false);
+        csv_field(fp, organs, false);
+        csv_field(fp, x->report_json, false);
+        csv_field(fp, x->report_html, false);
+        csv_field(fp, x->report_pdf, false);
+        csv_field(fp, x->plan_path, false);
+        csv_field(fp, x->ss_path, false);
+        csv_field(fp, x->message, true);
+    }
+    return ferror(fp) ? SL_EIO : SL_OK;
+}
+
+static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch_entry *e,
+                            size_t n, sl_error *err)
+{
+    jw w = {err, SL_OK};
+    json_object *root = json_object_new_object();
+    if (!root)
+        return sl_error_set(err, SL_ENOMEM, "out of memory writing JSON");
+    jw_str(&w, root, "tool", "strayline");
+    jw_str(&w, root, "tool_version", sl_version());
+    jw_str(&w, root, "caution", caution);
+    jw_str(&w, root, "model_file", cfg->model_path);
+    jw_str(&w, root, "model_version", cfg->model->model_version);
+    jw_str(&w, root, "model_sha256", cfg->model->sha256);
+    jw_str(&w, root, "action_levels_file", cfg->levels_path);
+    jw_str(&w, root, "action_levels_sha256", cfg->levels->sha256);
+    size_t counts[SL_OUT_BAD + 1] = {0}, flagged = 0;
+    for (size_t i = 0; i < n; i++) {
+        counts[e[i].outcome]++;
+        flagged += e[i].flagged;
+    }
+    json_object *c = json_object_new_object();
+    jw_put(&w, root, "counts", c);
+    for (int o = 0; o <= SL_OUT_BAD; o++)
+        jw_int(&w, c, sl_outcome_name((sl_outcome)o), (long long)counts[o]);
+    jw_int(&w, c, "flagged", (long long)flagged);
+    json_object *arr = json_object_new_array();
+    jw_put(&w, root, "plans", arr);
+    for (size_t i = 0; i < n; i++) {
+        const sl_batch_entry *x = &e[i];
+        json_object *p = json_object_new_object();
+        jw_append(&w, arr, p);
+        if (!p)
+            break;
+        jw_str(&w, p, "outcome", sl_outcome_name(x->outcome));
+        jw_bool(&w, p, "flagged", x->flagged);
+        jw_str(&w, p, "worst_status", x->worst_status);
+        jw_str(&w, p, "patient_id", x->patient_id);
+        jw_str(&w, p, "plan_label", x->plan_label);
+        jw_str(&w, p, "plan_uid", x->plan_uid);
+        jw_str(&w, p, "structure_set_uid", x->ss_uid);
+        jw_str(&w, p, "plan_file", x->plan_path);
+        jw_str(&w, p, "structure_set_file", x->ss_path);
+        if (x->outcome == SL_OUT_SCREENED)
+            jw_int(&w, p, "electron_beams", (long long)x->nbeams);
+        json_object *orgs = json_object_new_array();
+        jw_put(&w, p, "flagged_organs", orgs);
+        for (size_t k = 0; k < x->nflagged; k++) {
+            const sl_flagged_organ *o = &x->organs[k];
+            json_object *g = json_object_new_object();
+            jw_append(&w, orgs, g);
+            if (!g)
+                break;
+            jw_str(&w, g, "roi", o->roi);
+            jw_str(&w, g, "kind", o->kind);
+            jw_str(&w, g, "status", o->status);
+            jw_num_opt(&w, g, "course_max_cgy", o->course_cgy);
+            jw_num_opt(&w, g, "course_max_upper_cgy", o->upper_cgy);
+            jw_str(&w, g, "level", o->level);
+            jw_num_opt(&w, g, "level_gy", o->level_gy);
+        }
+        jw_str(&w, p, "report_json", x->report_json);
+        jw_str(&w, p, "report_html", x->report_html);
+        jw_str(&w, p, "report_pdf", x->report_pdf);
+        jw_str(&w, p, "message", x->message);
+    }
+    return jw_write(&w, root, fp);
+}
+
+static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch_entry *e,
+                            size_t n, sl_error *err)
+{
+    hdoc h;
+    if (!hdoc_new(&h, "strayline: screening summary", sl_report_css))
+        return sl_error_set(err, SL_ENOMEM, "out of memory building the HTML summary");
+    xmlNodePtr b = h.body;
+    hel(&h, b, "h1", "Out-of-field dose screening: summary");
+    xmlNodePtr cd = hel(&h, b, "div", NULL);
+    hattr(&h, cd, "class", "caution");
+    hel(&h, cd, "p", caution);
+    if (cfg->model->machine.invented)
+        hel(&h, cd, "p", "The model is invented demo data, not for clinical use.");
+    xmlNodePtr meta = hel(&h, b, "table", NULL);
+    const char *const rows[][2] = {{"model", cfg->model_path},
+                                   {"model version", cfg->model->model_version},
+                                   {"model SHA-256", cfg->model->sha256},
+                                   {"action levels", cfg->levels_path},
+                                   {"action levels SHA-256", cfg->levels->sha256},
+                                   {"tool", sl_version()}};
+    for (size_t i = 0; i < sizeof rows / sizeof *rows; i++) {
+        const char *cells[] = {rows[i][0], s_or(rows[i][1], "unknown")};
+        xmlNodePtr tr = hel(&h, meta, "tr", NULL);
+        hel(&h, tr, "th", cells[0]);
+        hel(&h, tr, "td", cells[1]);
+    }
+    xmlNodePtr t = hel(&h, b, "table", NULL);
+    static const char *const head[] = {"verdict", "worst status", "patient ID", "plan",
+                                       "electron beams", "flagged organs", "reports", "note"};
+    hrow(&h, t, true, head, sizeof head / sizeof *head);
+    char organs[4096], beams[32];
+    for (size_t i = 0; i < n; i++) {
+        const sl_batch_entry *x = &e[i];
+        xmlNodePtr tr = hel(&h, t, "tr", NULL);
+        const char *verdict = x->outcome == SL_OUT_SCREENED
+                                  ? (x->flagged ? "FLAGGED" : "no organ flagged")
+                                  : sl_outcome_name(x->outcome);
+        xmlNodePtr v = hel(&h, tr, "td", verdict);
+        if (x->flagged)
+            hattr(&h, v, "class", "status-exceeds");
+        hel(&h, tr, "td", s_or(x->worst_status, ""));
+        hel(&h, tr, "td", s_or(x->patient_id, ""));
+        hel(&h, tr, "td", s_or(x->plan_label, s_or(x->plan_path, "")));
+        snprintf(beams, sizeof beams, "%zu", x->nbeams);
+        hattr(&h, hel(&h, tr, "td", x->outcome == SL_OUT_SCREENED ? beams : ""), "class", "n");
+        organs_text(x, organs, sizeof organs);
+        hel(&h, tr, "td", organs);
+        xmlNodePtr rc = hel(&h, tr, "td", NULL);
+        if (x->report_html) {
+            xmlNodePtr a = hel(&h, rc, "a", "HTML");
+            hattr(&h, a, "href", x->report_html);
+            htext(&h, rc, " ");
+        }
+        if (x->report_pdf) {
+            xmlNodePtr a = hel(&h, rc, "a", "PDF");
+            hattr(&h, a, "href", x->report_pdf);
+            htext(&h, rc, " ");
+        }
+        if (x->report_json) {
+            xmlNodePtr a = hel(&h, rc, "a", "JSON");
+            hattr(&h, a, "href", x->report_json);
+        }
+        hel(&h, tr, "td", s_or(x->message, ""));
+    }
+    return hdoc_write(&h, fp, err);
+}
+
+sl_status sl_batch_write_summary(const sl_batch_config *cfg, const sl_batch_entry *e, size_t n,
+                                 sl_error *err)
+{
+    static const char *const names[] = {"summary.csv", "summary.json", "index.html"};
+    for (int k = 0; k < 3; k++) {
+        size_t len = strlen(cfg->outdir) + strlen(names[k]) + 2;
+        char *path = malloc(len);
+        if (!path)
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+        snprintf(path, len, "%s/%s", cfg->outdir, names[k]);
+        const char *inputs[] = {cfg->model_path, cfg->levels_path};
+        sl_outfile out = {0};
+        sl_status st = sl_outfile_open(&out, path, inputs, 2, err);
+        if (st == SL_OK) {
+            st = k == 0   ? write_csv(out.fp, e, n)
+                 : k == 1 ? write_json(out.fp, cfg, e, n, err)
+                          : write_html(out.fp, cfg, e, n, err);
+            if (st == SL_EIO && k == 0)
+                sl_error_set(err, SL_EIO, "%s: cannot write", path);
+        }
+        if (st == SL_OK)
+            st = sl_outfile_commit(&out, err);
+        else
+            sl_outfile_abort(&out);
+        free(path);
+        if (st != SL_OK)
+            return st;
+    }
+    return SL_OK;
+}

@@ -1,0 +1,181 @@
+/*
+ * Per-patient facts for a batch: what `estimate` takes as options for one
+ * patient (gestational age, pacing dependence, organ kinds, doses from
+ * elsewhere, age and sex) given in a YAML file keyed by patient ID or plan
+ * SOP Instance UID, so that `scan` and `listen` can screen many plans at
+ * once. Read strictly with the shared YAML helpers; the format is in
+ * README.md.
+ */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "strayline/scan.h"
+#include "strayline/yamlio.h"
+
+#define FACTS_FORMAT "strayline-patient-facts"
+
+static void entry_free(sl_facts_entry *e)
+{
+    free(e->key);
+    for (size_t i = 0; i < e->nmap; i++) {
+        free((char *)e->map[i].roi);
+        free((char *)e->map[i].kind);
+    }
+    free(e->map);
+    for (size_t i = 0; i < e->nother; i++)
+        free((char *)e->other[i].roi);
+    free(e->other);
+}
+
+void sl_facts_free(sl_facts *f)
+{
+    if (!f)
+        return;
+    for (size_t i = 0; i < f->n; i++)
+        entry_free(&f->items[i]);
+    free(f->items);
+    free(f->source);
+    free(f);
+}
+
+const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
+                                    const char *patient_id)
+{
+    for (size_t i = 0; plan_uid && i < f->n; i++)
+        if (strcmp(f->items[i].key, plan_uid) == 0)
+            return &f->items[i];
+    for (size_t i = 0; patient_id && i < f->n; i++)
+        if (strcmp(f->items[i].key, patient_id) == 0)
+            return &f->items[i];
+    return NULL;
+}
+
+static sl_status read_pairs(sl_yaml *y, yaml_node_t *n, const char *what, bool dose,
+                            sl_facts_entry *e, sl_error *err)
+{
+    yaml_node_item_t *items;
+    size_t ni;
+    sl_status st = sl_yaml_seq(y, n, what, &items, &ni, err);
+    if (st != SL_OK)
+        return st;
+    if (dose)
+        e->other = calloc(ni ? ni : 1, sizeof *e->other);
+    else
+        e->map = calloc(ni ? ni : 1, sizeof *e->map);
+    if (dose ? !e->other : !e->map)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t i = 0; i < ni && st == SL_OK; i++) {
+        yaml_node_t *it = sl_yaml_item(y, items[i]);
+        sl_yaml_field g[] = {{"roi", true, NULL}, {dose ? "cgy" : "kind", true, NULL}};
+        st = sl_yaml_fields(y, it, what, g, 2, err);
+        char *roi = NULL, *kind = NULL;
+        double cgy = NAN;
+        if (st == SL_OK)
+            st = sl_yaml_string(y, g[0].node, "roi", &roi, err);
+        if (st == SL_OK)
+            st = dose ? sl_yaml_number_in(y, g[1].node, "cgy", 1e-9, 1e5, &cgy, err)
+                      : sl_yaml_string(y, g[1].node, "kind", &kind, err);
+        if (st != SL_OK) {
+            free(roi);
+            free(kind);
+            break;
+        }
+        if (dose)
+            e->other[e->nother++] = (sl_other_dose){roi, cgy};
+        else
+            e->map[e->nmap++] = (sl_organ_map){roi, kind};
+    }
+    return st;
+}
+
+static sl_status read_entry(sl_yaml *y, yaml_node_t *n, sl_facts_entry *e, sl_error *err)
+{
+    e->gestational_weeks = e->conception_weeks = e->age_years = NAN;
+    sl_yaml_field f[] = {{"key", true, NULL},
+                         {"gestational_age_weeks", false, NULL},
+                         {"weeks_after_conception", false, NULL},
+                         {"pacing_dependent", false, NULL},
+                         {"age_years", false, NULL},
+                         {"sex", false, NULL},
+                         {"organs", false, NULL},
+                         {"other_dose", false, NULL}};
+    sl_status st = sl_yaml_fields(y, n, "patient", f, 8, err);
+    if (st == SL_OK)
+        st = sl_yaml_string(y, f[0].node, "key", &e->key, err);
+    if (st == SL_OK && !e->key[0])
+        st = sl_yaml_error(y, f[0].node, err, "key: empty (a patient ID or a plan UID)");
+    if (st == SL_OK && f[1].node)
+        st = sl_yaml_number_in(y, f[1].node, "gestational_age_weeks", 0, 44,
+                               &e->gestational_weeks, err);
+    if (st == SL_OK && f[2].node)
+        st = sl_yaml_number_in(y, f[2].node, "weeks_after_conception", 0, 42,
+                               &e->conception_weeks, err);
+    if (st == SL_OK && f[1].node && f[2].node)
+        st = sl_yaml_error(y, f[2].node, err, "give gestational_age_weeks or "
+                                              "weeks_after_conception, not both");
+    if (st == SL_OK && f[3].node)
+        st = sl_yaml_bool(y, f[3].node, "pacing_dependent", &e->pacing_dependent, err);
+    if (st == SL_OK && f[4].node)
+        st = sl_yaml_number_in(y, f[4].node, "age_years", 0, 120, &e->age_years, err);
+    if (st == SL_OK && f[5].node) {
+        char *s = NULL;
+        st = sl_yaml_string(y, f[5].node, "sex", &s, err);
+        if (st == SL_OK && strcmp(s, "M") != 0 && strcmp(s, "F") != 0)
+            st = sl_yaml_error(y, f[5].node, err, "sex: '%s': M or F", s);
+        if (st == SL_OK)
+            e->sex = s[0];
+        free(s);
+    }
+    if (st == SL_OK && f[6].node)
+        st = read_pairs(y, f[6].node, "organs", false, e, err);
+    if (st == SL_OK && f[7].node)
+        st = read_pairs(y, f[7].node, "other_dose", true, e, err);
+    return st;
+}
+
+sl_status sl_facts_load(const char *path, sl_facts **out, sl_error *err)
+{
+    *out = NULL;
+    sl_yaml y = {0};
+    sl_status st = sl_yaml_load(&y, path, err);
+    if (st != SL_OK)
+        return st;
+    sl_facts *f = calloc(1, sizeof *f);
+    if (!f || !(f->source = strdup(path))) {
+        sl_yaml_free(&y);
+        sl_facts_free(f);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    sl_yaml_field top[] = {{"format", true, NULL}, {"notice", false, NULL},
+                           {"patients", true, NULL}};
+    st = sl_yaml_fields(&y, sl_yaml_root(&y), "patient facts", top, 3, err);
+    char *format = NULL;
+    if (st == SL_OK)
+        st = sl_yaml_string(&y, top[0].node, "format", &format, err);
+    if (st == SL_OK && strcmp(format, FACTS_FORMAT) != 0)
+        st = sl_yaml_error(&y, top[0].node, err, "format: '%s': expected '%s'", format,
+                           FACTS_FORMAT);
+    free(format);
+    yaml_node_item_t *items = NULL;
+    size_t ni = 0;
+    if (st == SL_OK)
+        st = sl_yaml_seq(&y, top[2].node, "patients", &items, &ni, err);
+    if (st == SL_OK && !(f->items = calloc(ni ? ni : 1, sizeof *f->items)))
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t i = 0; st == SL_OK && i < ni; i++) {
+        yaml_node_t *n = sl_yaml_item(&y, items[i]);
+        f->n = i + 1;
+        st = read_entry(&y, n, &f->items[i], err);
+        for (size_t j = 0; st == SL_OK && j < i; j++)
+            if (strcmp(f->items[j].key, f->items[i].key) == 0)
+                st = sl_yaml_error(&y, n, err, "key '%s' given twice", f->items[i].key);
+    }
+    sl_yaml_free(&y);
+    if (st != SL_OK) {
+        sl_facts_free(f);
+        return st;
+    }
+    *out = f;
+    return SL_OK;
+}

@@ -1,0 +1,433 @@
+/*
+ * One screening of a batch (`scan` or `listen`): read the pair, screen it,
+ * write its JSON and HTML reports into the output folder, log it, and keep
+ * what the summary needs (worst status, flagged organs, report names).
+ *
+ * A bad plan must never stop a batch, so an input error becomes the entry's
+ * outcome and message; only what concerns every plan (the log cannot be
+ * written, memory) comes back as a status. Report names are built from
+ * sanitised identifiers and always end in the plan's SOP Instance UID,
+ * checked against the UID grammar, so two plans never share a name and no
+ * identifier from a file can reach outside the output folder.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <libxml/parser.h>
+
+#include "strayline/dicom.h"
+#include "strayline/report.h"
+#include "strayline/scan.h"
+#include "strayline/screen.h"
+#include "strayline/util.h"
+#include "strayline/version.h"
+
+void sl_batch_prepare(void)
+{
+    xmlInitParser();
+}
+
+void sl_sanitise_name(const char *in, char *out, size_t max)
+{
+    size_t k = 0;
+    for (size_t i = 0; in && in[i] && k + 1 < max; i++) {
+        unsigned char c = (unsigned char)in[i];
+        bool keep = (c >= 'A' && c <= 'Z') || (c >= 'a' && c <= 'z') || (c >= '0' && c <= '9') ||
+                    c == '-' || c == '_' || (c == '.' && k > 0);
+        out[k++] = keep ? (char)c : '_';
+    }
+    out[k] = '\0';
+}
+
+/* Sort key of a screened plan's organ: the worse, the higher. */
+static int organ_rank(const sl_assessment *a)
+{
+    if (!a->flagged)
+        return 0;
+    switch (a->status) {
+    case SL_ST_EXCEEDS: return 10;
+    case SL_ST_MAY_EXCEED: return 9;
+    case SL_ST_BAND: return 8;
+    default: return 7;
+    }
+}
+
+enum { RANK_ERROR = 6, RANK_INCOMPLETE = 5, RANK_BAD = 4, RANK_CLEAR = 3, RANK_SKIPPED = 2,
+       RANK_OTHER = 1 };
+
+static char *xstrdup(const char *s, bool *ok)
+{
+    if (!s)
+        return NULL;
+    char *c = strdup(s);
+    if (!c)
+        *ok = false;
+    return c;
+}
+
+static void status_of(const sl_assessment *a, char *buf, size_t size)
+{
+    if (a->status == SL_ST_BAND && a->kind && a->band >= 0 && (size_t)a->band < a->kind->nbands) {
+        if (a->band_upper > a->band && (size_t)a->band_upper < a->kind->nbands)
+            snprintf(buf, size, "%s risk band (upper bound: %s)", a->kind->bands[a->band].name,
+                     a->kind->bands[a->band_upper].name);
+        else
+            snprintf(buf, size, "%s risk band", a->kind->bands[a->band].name);
+    }
+    else if (a->status == SL_ST_NOT_ASSESSED && a->not_assessed_why)
+        snprintf(buf, size, "%s: %s", sl_status_text(a->status), a->not_assessed_why);
+    else if (a->incomplete)
+        snprintf(buf, size, "%s (incomplete: other beams not included)",
+                 sl_status_text(a->status));
+    else
+        snprintf(buf, size, "%s", sl_status_text(a->status));
+}
+
+/* The flagged organs and the plan's worst status, for summary and log. */
+static bool collect(const sl_assessments *as, sl_batch_entry *e)
+{
+    bool ok = true;
+    e->organs = calloc(as->n ? as->n : 1, sizeof *e->organs);
+    if (!e->organs)
+        return false;
+    int worst = -1;
+    char buf[768];
+    for (size_t i = 0; i < as->n; i++) {
+        const sl_assessment *a = &as->items[i];
+        int r = organ_rank(a);
+        if (r > worst) {
+            worst = r;
+            status_of(a, buf, sizeof buf);
+            free(e->worst_status);
+            e->worst_status = xstrdup(buf, &ok);
+        }
+        if (!a->flagged)
+            continue;
+        sl_flagged_organ *o = &e->organs[e->nflagged++];
+        const sl_organ_dose *d = a->dose;
+        o->roi = xstrdup(d->roi->name, &ok);
+        o->kind = xstrdup(a->kind ? a->kind->kind : NULL, &ok);
+        status_of(a, buf, sizeof buf);
+        o->status = xstrdup(buf, &ok);
+        o->course_cgy = d->estimated ? d->course_max.cgy + a->other_cgy : NAN;
+        o->upper_cgy = d->estimated ? d->course_max.upper_cgy + a->other_cgy : NAN;
+        o->level_gy = NAN;
+        if (a->governing) {
+            o->level = xstrdup(a->governing->name, &ok);
+            o->level_gy = a->governing->dose_gy;
+        } else if (a->status == SL_ST_BAND && a->kind && a->band >= 0) {
+            snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_source ? a->kind->bands_source : "");
+            o->level = xstrdup(buf, &ok);
+        }
+    }
+    for (size_t i = 0; i < as->n && !e->message; i++) {
+        const sl_assessment *a = &as->items[i];
+        if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->status == SL_ST_NOT_ASSESSED &&
+            a->not_assessed_why && strncmp(a->not_assessed_why, "no gestational age", 18) == 0) {
+            /* the batch was not given a fact it needs: say what to supply */
+            snprintf(buf, sizeof buf,
+                     "ROI '%s' is a fetus and no gestational age was given: it is not judged; "
+                     "supply gestational_age_weeks for patient ID '%s' (or plan UID %s) in the "
+                     "facts file (--facts)",
+                     a->dose->roi->name, e->patient_id ? e->patient_id : "", e->plan_uid);
+            e->message = xstrdup(buf, &ok);
+        }
+    }
+    if (as->any_flagged && e->nflagged == 0) {
+        /* flagged for something asked for and absent (a fetus, a device) */
+        free(e->worst_status);
+        e->worst_status = xstrdup(as->missing.count ? as->missing.items[0] : "flagged", &ok);
+        worst = 7;
+    }
+    if (!e->worst_status)
+        e->worst_status = xstrdup("no organ estimated", &ok);
+    e->flagged = as->any_flagged;
+    e->rank = as->any_flagged ? (worst > RANK_ERROR ? worst : 7) : RANK_CLEAR;
+    return ok;
+}
+
+enum { REP_JSON, REP_HTML, REP_PDF };
+
+/* Write one report atomically into the output folder. */
+static sl_status write_report(const sl_batch_config *cfg, const char *name, int kind,
+                              const sl_estimate_report *rep, const char *plan_path,
+                              const char *ss_path, sl_error *err)
+{
+    size_t n = strlen(cfg->outdir) + strlen(name) + 2;
+    char *path = malloc(n);
+    if (!path)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    snprintf(path, n, "%s/%s", cfg->outdir, name);
+    const char *inputs[] = {plan_path, ss_path, cfg->model_path, cfg->levels_path};
+    sl_outfile out = {0};
+    sl_status st = sl_outfile_open(&out, path, inputs, 4, err);
+    if (st == SL_OK && kind == REP_PDF) {
+        unsigned char *pdf = NULL;
+        size_t len = 0;
+        st = sl_report_estimate_pdf(rep, cfg->pdf_paper, &pdf, &len, err);
+        if (st == SL_OK && fwrite(pdf, 1, len, out.fp) != len)
+            st = sl_error_set(err, SL_EIO, "%s: cannot write", path);
+        free(pdf);
+    } else if (st == SL_OK) {
+        st = kind == REP_HTML ? sl_report_estimate_html(out.fp, rep, err)
+                              : sl_report_estimate(out.fp, SL_FORMAT_JSON, rep, err);
+    }
+    if (st == SL_OK)
+        st = sl_outfile_commit(&out, err);
+    else
+        sl_outfile_abort(&out);
+    free(path);
+    return st;
+}
+
+/* The facts used, as one line for the log. */
+static void facts_text(const sl_facts_entry *f, sl_buf *b)
+{
+    if (!f) {
+        sl_buf_printf(b, "facts: none");
+        return;
+    }
+    sl_buf_printf(b, "facts: %s", f->key);
+    if (!isnan(f->gestational_weeks))
+        sl_buf_printf(b, "; gestational_age_weeks=%g", f->gestational_weeks);
+    if (!isnan(f->conception_weeks))
+        sl_buf_printf(b, "; weeks_after_conception=%g", f->conception_weeks);
+    if (f->pacing_dependent)
+        sl_buf_printf(b, "; pacing_dependent");
+    if (!isnan(f->age_years))
+        sl_buf_printf(b, "; age_years=%g", f->age_years);
+    if (f->sex)
+        sl_buf_printf(b, "; sex=%c", f->sex);
+    for (size_t i = 0; i < f->nmap; i++)
+        sl_buf_printf(b, "; organ %s=%s", f->map[i].roi, f->map[i].kind);
+    for (size_t i = 0; i < f->nother; i++)
+        sl_buf_printf(b, "; other_dose %s=%g cGy", f->other[i].roi, f->other[i].cgy);
+}
+
+static sl_status log_entry(const sl_batch_config *cfg, sl_batch_entry *e, const char *options,
+                           sl_error *err)
+{
+    if (!cfg->log)
+        return SL_OK;
+    sl_log_organ *lo = calloc(e->nflagged ? e->nflagged : 1, sizeof *lo);
+    if (!lo)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t i = 0; i < e->nflagged; i++) {
+        const sl_flagged_organ *o = &e->organs[i];
+        lo[i] = (sl_log_organ){o->roi, o->kind, o->status, o->course_cgy, o->upper_cgy, o->level,
+                               o->level_gy};
+    }
+    sl_log_entry le = {
+        .command = cfg->command,
+        .plan_uid = e->plan_uid ? e->plan_uid : "",
+        .structure_set_uid = e->ss_uid,
+        .patient_id = e->patient_id,
+        .plan_label = e->plan_label,
+        .tool_version = sl_version(),
+        .model_file = cfg->model_path,
+        .model_machine = cfg->model->machine.name,
+        .model_version = cfg->model->model_version,
+        .model_sha256 = cfg->model->sha256,
+        .levels_file = cfg->levels_path,
+        .levels_sha256 = cfg->levels->sha256,
+        .options = options,
+        .outcome = sl_outcome_name(e->outcome),
+        .worst_status = e->worst_status,
+        .flagged = e->flagged,
+        .message = e->message,
+        .report_json = e->report_json,
+        .report_html = e->report_html,
+        .report_pdf = e->report_pdf,
+        .norgans = e->nflagged,
+        .organs = lo,
+    };
+    sl_status st = sl_screenlog_add(cfg->log, &le, &e->log_id, err);
+    free(lo);
+    return st;
+}
+
+/* The screening itself (sl_screen_run, as `estimate` does) with the
+ * patient's facts. Takes ownership of plan and ss. */
+static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structure_set *ss,
+                          const sl_facts_entry *facts, sl_batch_entry *e, sl_error *err)
+{
+    sl_screen_request req;
+    sl_screen_request_init(&req);
+    req.model = cfg->model;
+    req.levels = cfg->levels;
+    req.levels_path = cfg->levels_path;
+    req.locate.threads = cfg->threads_per_plan;
+    req.estimate.threads = cfg->threads_per_plan;
+    /* a batch screens a plan it lacks a fact for, leaving that organ unjudged */
+    req.patient.age_unknown_unjudged = true;
+    if (facts) {
+        sl_patient *pt = &req.patient;
+        if (!isnan(facts->gestational_weeks)) {
+            pt->gestational_weeks = facts->gestational_weeks;
+            pt->conception_weeks = sl_weeks_after_conception(facts->gestational_weeks);
+        }
+        if (!isnan(facts->conception_weeks)) {
+            pt->conception_weeks = facts->conception_weeks;
+            pt->conception_given = true;
+        }
+        if (facts->pacing_dependent) {
+            pt->pacing_dependent = true;
+            pt->device_asked = true;
+        }
+        if (!isnan(facts->age_years)) {
+            pt->age_years = facts->age_years;
+            pt->age_from = "facts file";
+        }
+        if (facts->sex) {
+            pt->sex = facts->sex;
+            pt->sex_from = "facts file";
+        }
+        req.map = facts->map;
+        req.nmap = facts->nmap;
+        req.others = facts->other;
+        req.nothers = facts->nother;
+    }
+    const char *plan_src = plan->source, *ss_src = ss->source;
+    char *plan_path = strdup(plan_src ? plan_src : ""), *ss_path = strdup(ss_src ? ss_src : "");
+    sl_screen *scr = NULL;
+    sl_status st = !plan_path || !ss_path ? sl_error_set(err, SL_ENOMEM, "out of memory")
+                                          : SL_OK;
+    if (st == SL_OK)
+        st = sl_screen_run(plan, ss, &req, &scr, err);
+    else {
+        sl_plan_free(plan);
+        sl_structure_set_free(ss);
+    }
+    if (st == SL_OK) {
+        sl_estimate_report rep = {scr->plan, scr->ss, scr->loc, scr->est, scr->as,
+                                  cfg->model, cfg->levels, scr->whatifs, scr->nwhatifs};
+        char pid[48], label[48], name[256];
+        sl_sanitise_name(e->patient_id ? e->patient_id : "no-id", pid, sizeof pid);
+        sl_sanitise_name(e->plan_label ? e->plan_label : "plan", label, sizeof label);
+        snprintf(name, sizeof name, "%s_%s_%s.json", pid[0] ? pid : "no-id",
+                 label[0] ? label : "plan", e->plan_uid);
+        st = write_report(cfg, name, REP_JSON, &rep, plan_path, ss_path, err);
+        bool ok = true;
+        if (st == SL_OK) {
+            e->report_json = xstrdup(name, &ok);
+            memcpy(name + strlen(name) - 5, ".html", 6);
+            st = write_report(cfg, name, REP_HTML, &rep, plan_path, ss_path, err);
+        }
+        if (st == SL_OK)
+            e->report_html = xstrdup(name, &ok);
+        if (st == SL_OK && cfg->pdf_paper) {
+            memcpy(name + strlen(name) - 5, ".pdf", 5);
+            st = write_report(cfg, name, REP_PDF, &rep, plan_path, ss_path, err);
+            if (st == SL_OK)
+                e->report_pdf = xstrdup(name, &ok);
+        }
+        if (st == SL_OK) {
+            for (size_t b = 0; b < scr->plan->nbeams; b++)
+                e->nbeams += sl_beam_skip_reason(&scr->plan->beams[b]) == NULL;
+            ok = ok && collect(scr->as, e);
+            if (!ok)
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        }
+    }
+    sl_screen_free(scr);
+    free(plan_path);
+    free(ss_path);
+    return st;
+}
+
+sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_error *err)
+{
+    sl_error perr = {0};
+    sl_plan *plan = NULL;
+    sl_structure_set *ss = NULL;
+    bool ok = true;
+    sl_status st = sl_dicom_read_plan(e->plan_path, &plan, &perr);
+    if (st == SL_OK)
+        st = sl_dicom_read_structures(e->ss_path, &ss, &perr);
+    const sl_facts_entry *facts = NULL;
+    if (st == SL_OK) {
+        /* identities from the full reader (UTF-8, whole), not the header pass */
+        free(e->patient_id);
+        free(e->plan_label);
+        free(e->plan_uid);
+        free(e->ss_uid);
+        e->patient_id = xstrdup(plan->patient_id, &ok);
+        e->plan_label = xstrdup(plan->label, &ok);
+        e->plan_uid = xstrdup(plan->sop_instance_uid, &ok);
+        e->ss_uid = xstrdup(ss->sop_instance_uid, &ok);
+        if (!ok || !e->plan_uid || !sl_dicom_uid_valid(e->plan_uid)) {
+            st = ok ? sl_error_set(&perr, SL_EINPUT, "%s: SOPInstanceUID (0008,0018): not a "
+                                                     "valid UID",
+                                   e->plan_path)
+                    : sl_error_set(&perr, SL_ENOMEM, "out of memory");
+        }
+        facts = cfg->facts ? sl_facts_find(cfg->facts, e->plan_uid, e->patient_id) : NULL;
+    }
+    if (st == SL_OK) {
+        st = pipeline(cfg, plan, ss, facts, e, &perr);
+        plan = NULL;
+        ss = NULL;
+    }
+    sl_plan_free(plan);
+    sl_structure_set_free(ss);
+    if (st == SL_ENOMEM)
+        return sl_error_set(err, SL_ENOMEM, "%s", perr.msg);
+    if (st != SL_OK) {
+        e->outcome = SL_OUT_ERROR;
+        e->flagged = true; /* a plan that could not be screened needs a person */
+        e->rank = RANK_ERROR;
+        free(e->message);
+        e->message = xstrdup(perr.msg[0] ? perr.msg : sl_status_name(st), &ok);
+    } else {
+        e->outcome = SL_OUT_SCREENED;
+    }
+    sl_buf opts = {0};
+    facts_text(facts, &opts);
+    st = opts.failed ? sl_error_set(err, SL_ENOMEM, "out of memory")
+                     : log_entry(cfg, e, opts.data, err);
+    sl_buf_free(&opts);
+    if (st == SL_OK && !ok)
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+    return st;
+}
+
+static int rank_of(const sl_batch_entry *e)
+{
+    switch (e->outcome) {
+    case SL_OUT_SCREENED: return e->rank;
+    case SL_OUT_ERROR: return RANK_ERROR;
+    case SL_OUT_INCOMPLETE: return RANK_INCOMPLETE;
+    case SL_OUT_BAD: return RANK_BAD;
+    case SL_OUT_SKIPPED: return RANK_SKIPPED;
+    default: return RANK_OTHER;
+    }
+}
+
+static int cmp_opt(const char *a, const char *b)
+{
+    return strcmp(a ? a : "", b ? b : "");
+}
+
+static int cmp_entry(const void *pa, const void *pb)
+{
+    const sl_batch_entry *a = pa, *b = pb;
+    int ra = rank_of(a), rb = rank_of(b);
+    if (ra != rb)
+        return rb - ra;
+    int c = cmp_opt(a->patient_id, b->patient_id);
+    if (c == 0)
+        c = cmp_opt(a->plan_label, b->plan_label);
+    if (c == 0)
+        c = cmp_opt(a->plan_path, b->plan_path);
+    return c;
+}
+
+void sl_batch_sort(sl_batch_entry *e, size_t n)
+{
+    for (size_t i = 0; i < n; i++)
+        e[i].rank = rank_of(&e[i]);
+    if (n > 1)
+        qsort(e, n, sizeof *e, cmp_entry);
+}

@@ -1,0 +1,360 @@
+/*
+ * The folder side of `scan`: walk an export folder, read every file's DICOM
+ * header, and sort what was found into plans to screen (with their structure
+ * sets), plans to skip, plans left incomplete, duplicates and bad files.
+ *
+ * Files are classified by their SOP Class, never by name or extension.
+ * Plans pair with structure sets through the plan's Referenced Structure Set
+ * Sequence (the SOP Instance UID); the frames of reference are checked again
+ * by sl_pair_check() when the pair is screened. The walk keeps its own stack
+ * of directories (no recursion, no global callback state as nftw() needs)
+ * and does not follow symbolic links.
+ */
+#include <dirent.h>
+#include <errno.h>
+#include <stdint.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+
+#include "strayline/parallel.h"
+#include "strayline/scan.h"
+
+typedef struct strvec {
+    char **v;
+    size_t n, cap;
+} strvec;
+
+static bool strvec_push(strvec *s, char *p)
+{
+    if (s->n == s->cap) {
+        size_t cap = s->cap ? 2 * s->cap : 64;
+        char **g = realloc(s->v, cap * sizeof *g);
+        if (!g)
+            return false;
+        s->v = g;
+        s->cap = cap;
+    }
+    s->v[s->n++] = p;
+    return true;
+}
+
+static char *join(const char *a, const char *b)
+{
+    size_t na = strlen(a), nb = strlen(b);
+    char *p = malloc(na + nb + 2);
+    if (!p)
+        return NULL;
+    memcpy(p, a, na);
+    size_t k = na;
+    if (na == 0 || a[na - 1] != '/')
+        p[k++] = '/';
+    memcpy(p + k, b, nb + 1);
+    return p;
+}
+
+static int cmp_str(const void *a, const void *b)
+{
+    return strcmp(*(char *const *)a, *(char *const *)b);
+}
+
+static void read_one(size_t i, void *ctx)
+{
+    sl_scan_file *f = &((sl_scan_files *)ctx)->files[i];
+    sl_error err = {0};
+    f->ok = sl_dicom_read_head(f->path, &f->head, &err) == SL_OK;
+    if (!f->ok)
+        f->why = strdup(err.msg[0] ? err.msg : "unreadable");
+}
+
+void sl_scan_files_free(sl_scan_files *f)
+{
+    if (!f)
+        return;
+    for (size_t i = 0; i < f->n; i++) {
+        free(f->files[i].path);
+        free(f->files[i].why);
+    }
+    free(f->files);
+    sl_notes_free(&f->notes);
+    free(f);
+}
+
+sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_files **out,
+                       sl_error *err)
+{
+    *out = NULL;
+    struct stat sb, skip_sb;
+    bool have_skip = skip && stat(skip, &skip_sb) == 0;
+    if (stat(dir, &sb) != 0)
+        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", dir, strerror(errno));
+    if (!S_ISDIR(sb.st_mode))
+        return sl_error_set(err, SL_EINPUT, "%s: not a folder", dir);
+    sl_scan_files *f = calloc(1, sizeof *f);
+    strvec todo = {0}, found = {0};
+    sl_status st = SL_OK;
+    char *root = f ? strdup(dir) : NULL;
+    if (!root || !strvec_push(&todo, root)) {
+        free(root);
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        goto done;
+    }
+    while (todo.n) {
+        char *d = todo.v[--todo.n];
+        DIR *dp = opendir(d);
+        if (!dp) {
+            f->nunreadable++;
+            sl_notes_add(&f->notes, "%s: cannot list: %s", d, strerror(errno));
+            free(d);
+            continue;
+        }
+        struct dirent *de;
+        while ((de = readdir(dp))) {
+            if (strcmp(de->d_name, ".") == 0 || strcmp(de->d_name, "..") == 0)
+                continue;
+            char *p = join(d, de->d_name);
+            struct stat es;
+            if (!p) {
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                break;
+            }
+            if (lstat(p, &es) != 0) {
+                f->nunreadable++;
+                sl_notes_add(&f->notes, "%s: cannot read: %s", p, strerror(errno));
+                free(p);
+            } else if (S_ISDIR(es.st_mode)) {
+                if (have_skip && es.st_dev == skip_sb.st_dev && es.st_ino == skip_sb.st_ino) {
+                    free(p); /* our own output: reports and the log are not inputs */
+                } else if (!strvec_push(&todo, p)) {
+                    free(p);
+                    st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                    break;
+                }
+            } else if (S_ISREG(es.st_mode)) {
+                if (!strvec_push(&found, p)) {
+                    free(p);
+                    st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                    break;
+                }
+            } else {
+                free(p); /* links, devices, sockets: not files of an export */
+            }
+        }
+        closedir(dp);
+        free(d);
+        if (st != SL_OK)
+            goto done;
+    }
+    if (found.n)
+        qsort(found.v, found.n, sizeof *found.v, cmp_str);
+    f->files = calloc(found.n ? found.n : 1, sizeof *f->files);
+    if (!f->files) {
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        goto done;
+    }
+    f->n = found.n;
+    for (size_t i = 0; i < found.n; i++)
+        f->files[i].path = found.v[i];
+    found.n = 0;
+    sl_parallel_for(f->n, sl_parallel_threads(threads), read_one, f);
+    for (size_t i = 0; i < f->n; i++)
+        if (!f->files[i].ok && !f->files[i].why) {
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+            goto done;
+        }
+done:
+    for (size_t i = 0; i < todo.n; i++)
+        free(todo.v[i]);
+    for (size_t i = 0; i < found.n; i++)
+        free(found.v[i]);
+    free(todo.v);
+    free(found.v);
+    if (st != SL_OK) {
+        sl_scan_files_free(f);
+        return st;
+    }
+    *out = f;
+    return SL_OK;
+}
+
+const char *sl_outcome_name(sl_outcome o)
+{
+    switch (o) {
+    case SL_OUT_SCREENED: return "screened";
+    case SL_OUT_ERROR: return "error";
+    case SL_OUT_INCOMPLETE: return "incomplete";
+    case SL_OUT_SKIPPED: return "skipped";
+    case SL_OUT_DUPLICATE: return "duplicate";
+    case SL_OUT_IGNORED: return "ignored";
+    case SL_OUT_BAD: return "bad";
+    }
+    return "?";
+}
+
+void sl_batch_entry_clear(sl_batch_entry *e)
+{
+    char **s[] = {&e->plan_path,  &e->ss_path,      &e->patient_id, &e->plan_label,
+                  &e->plan_uid,   &e->ss_uid,       &e->worst_status, &e->message,
+                  &e->report_json, &e->report_html, &e->report_pdf};
+    for (size_t i = 0; i < sizeof s / sizeof *s; i++)
+        free(*s[i]);
+    for (size_t i = 0; i < e->nflagged; i++) {
+        free(e->organs[i].roi);
+        free(e->organs[i].kind);
+        free(e->organs[i].status);
+        free(e->organs[i].level);
+    }
+    free(e->organs);
+    memset(e, 0, sizeof *e);
+}
+
+/* Index of UIDs: an open-addressing hash over the files, so pairing 10,000
+ * files stays linear. */
+typedef struct uid_index {
+    size_t cap;
+    size_t *slot; /* file index + 1; 0 empty */
+} uid_index;
+
+static uint64_t hash_str(const char *s)
+{
+    uint64_t h = 1469598103934665603ull; /* FNV-1a */
+    for (; *s; s++)
+        h = (h ^ (unsigned char)*s) * 1099511628211ull;
+    return h;
+}
+
+/* The first file with this SOP Instance UID, or SIZE_MAX; inserts i when
+ * absent (i SIZE_MAX: look up only). */
+static size_t uid_find_or_add(uid_index *x, const sl_scan_file *files, const char *uid, size_t i)
+{
+    size_t k = (size_t)(hash_str(uid) & (x->cap - 1));
+    while (x->slot[k]) {
+        const sl_scan_file *g = &files[x->slot[k] - 1];
+        if (strcmp(g->head.sop_instance_uid, uid) == 0)
+            return x->slot[k] - 1;
+        k = (k + 1) & (x->cap - 1);
+    }
+    if (i != SIZE_MAX)
+        x->slot[k] = i + 1;
+    return SIZE_MAX;
+}
+
+static char *dup_or_null(const char *s, bool *ok)
+{
+    if (!s || !*s)
+        return NULL;
+    char *c = strdup(s);
+    if (!c)
+        *ok = false;
+    return c;
+}
+
+static char *fmt_msg(bool *ok, const char *fmt, const char *a, const char *b)
+{
+    size_t n = strlen(fmt) + strlen(a) + (b ? strlen(b) : 0) + 1;
+    char *m = malloc(n);
+    if (!m) {
+        *ok = false;
+        return NULL;
+    }
+    snprintf(m, n, fmt, a, b ? b : "");
+    return m;
+}
+
+sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t *n,
+                       sl_error *err)
+{
+    *entries = NULL;
+    *n = 0;
+    uid_index x = {0};
+    x.cap = 16;
+    while (x.cap < 2 * f->n + 2)
+        x.cap *= 2;
+    x.slot = calloc(x.cap, sizeof *x.slot);
+    sl_batch_entry *e = calloc(f->n ? f->n : 1, sizeof *e);
+    bool *dup = calloc(f->n ? f->n : 1, sizeof *dup);
+    if (!x.slot || !e || !dup) {
+        free(x.slot);
+        free(e);
+        free(dup);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t i = 0; i < f->n; i++) {
+        if (!f->files[i].ok)
+            continue;
+        size_t first = uid_find_or_add(&x, f->files, f->files[i].head.sop_instance_uid, i);
+        dup[i] = first != SIZE_MAX;
+    }
+    size_t k = 0;
+    bool ok = true;
+    for (size_t i = 0; i < f->n && ok; i++) {
+        const sl_scan_file *g = &f->files[i];
+        const sl_dicom_head *h = &g->head;
+        sl_batch_entry *o = &e[k];
+        if (!g->ok) {
+            o->outcome = SL_OUT_BAD;
+            o->plan_path = dup_or_null(g->path, &ok);
+            o->message = dup_or_null(g->why, &ok);
+            k++;
+            continue;
+        }
+        if (h->kind == SL_HEAD_RTSTRUCT && !dup[i])
+            continue; /* listed with the plan that uses it */
+        o->plan_path = dup_or_null(g->path, &ok);
+        o->patient_id = dup_or_null(h->patient_id, &ok);
+        o->plan_label = dup_or_null(h->label, &ok);
+        o->plan_uid = dup_or_null(h->sop_instance_uid, &ok);
+        k++;
+        if (dup[i]) {
+            size_t first = uid_find_or_add(&x, f->files, h->sop_instance_uid, SIZE_MAX);
+            o->outcome = SL_OUT_DUPLICATE;
+            o->message = fmt_msg(&ok, "the same object (SOP Instance UID) as %s: screened once%s",
+                                 f->files[first].path, NULL);
+            continue;
+        }
+        if (h->kind == SL_HEAD_OTHER) {
+            o->outcome = SL_OUT_IGNORED;
+            o->message = fmt_msg(&ok, "a DICOM object of another kind (SOP Class %s), not an RT "
+                                      "Plan or an RT Structure Set%s",
+                                 h->sop_class_uid, NULL);
+            continue;
+        }
+        o->ss_uid = dup_or_null(h->structure_set_uid, &ok);
+        if (h->electron_beams == 0) {
+            o->outcome = SL_OUT_SKIPPED;
+            o->message = fmt_msg(&ok, "no electron beams (%s beam%s): only electron plans are "
+                                      "screened",
+                                 h->nbeams == 0 ? "no" : h->nbeams == 1 ? "one other" : "other",
+                                 h->nbeams == 1 ? "" : "s");
+            continue;
+        }
+        size_t s = h->structure_set_uid[0]
+                       ? uid_find_or_add(&x, f->files, h->structure_set_uid, SIZE_MAX)
+                       : SIZE_MAX;
+        if (s == SIZE_MAX || f->files[s].head.kind != SL_HEAD_RTSTRUCT) {
+            o->outcome = SL_OUT_INCOMPLETE;
+            o->message =
+                h->structure_set_uid[0]
+                    ? fmt_msg(&ok, "its structure set (SOP Instance UID %s) is not in the "
+                                   "folder%s",
+                              h->structure_set_uid, NULL)
+                    : fmt_msg(&ok, "the plan names no structure set (ReferencedStructureSetSequence "
+                                   "(300C,0060))%s%s",
+                              "", NULL);
+            continue;
+        }
+        o->outcome = SL_OUT_SCREENED; /* to screen */
+        o->ss_path = dup_or_null(f->files[s].path, &ok);
+    }
+    free(x.slot);
+    free(dup);
+    if (!ok) {
+        for (size_t i = 0; i < f->n; i++)
+            sl_batch_entry_clear(&e[i]);
+        free(e);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    *entries = e;
+    *n = k;
+    return SL_OK;
+}

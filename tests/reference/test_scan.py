@@ -1,0 +1,434 @@
+"""`strayline scan` and `strayline history`, run as a user would, checked
+against outside readers: pydicom reads the inputs (which objects and UIDs a
+folder holds), Python's own sqlite3 module reads the screening log, json,
+csv and html.parser read the summary files.
+
+The inputs are the invented demo cases of examples/ (not real patients, not
+for clinical use), copies of them given new UIDs with pydicom, and two real
+sample files that Debian's python3-pydicom ships (a 6 MV photon RT Plan and
+a CT slice).
+"""
+import csv
+import html.parser
+import io
+import json
+import os
+import shutil
+import sqlite3
+import subprocess
+import unittest
+
+import pydicom
+from pydicom.uid import generate_uid
+
+from common import PYDICOM_TEST_FILES, SOURCE_ROOT, run, tempdir
+
+MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
+EXAMPLES = os.path.join(SOURCE_ROOT, "examples")
+CASES = ["face-lens", "neck-device", "chest-fetus"]
+
+
+def copy_pair(case, dest_dir, tag, plan_name="rtplan.dcm", ss_name="rtstruct.dcm",
+              ss_uid=None):
+    """Write a copy of a demo pair with fresh UIDs (pydicom), the plan
+    referencing the copy's structure set (or ss_uid when given). Returns
+    (plan UID, structure set UID, patient ID)."""
+    os.makedirs(dest_dir, exist_ok=True)
+    plan = pydicom.dcmread(os.path.join(EXAMPLES, case, "rtplan.dcm"))
+    ss = pydicom.dcmread(os.path.join(EXAMPLES, case, "rtstruct.dcm"))
+    new_ss = generate_uid()
+    new_plan = generate_uid()
+    pid = "%s-%s" % (plan.PatientID, tag)
+    ss.SOPInstanceUID = new_ss
+    ss.file_meta.MediaStorageSOPInstanceUID = new_ss
+    ss.PatientID = pid
+    plan.SOPInstanceUID = new_plan
+    plan.file_meta.MediaStorageSOPInstanceUID = new_plan
+    plan.PatientID = pid
+    plan.ReferencedStructureSetSequence[0].ReferencedSOPInstanceUID = ss_uid or new_ss
+    plan.save_as(os.path.join(dest_dir, plan_name), write_like_original=True)
+    if ss_uid is None:
+        ss.save_as(os.path.join(dest_dir, ss_name), write_like_original=True)
+    return new_plan, new_ss, pid
+
+
+def scan(folder, out, *extra, check=None):
+    return run("scan", folder, "--model", MODEL, "--out", out, "--quiet", *extra, check=check)
+
+
+def log_rows(path):
+    """The screening log read with Python's sqlite3 (an independent reader)."""
+    con = sqlite3.connect(path)
+    try:
+        con.row_factory = sqlite3.Row
+        return [dict(r) for r in con.execute("SELECT * FROM screening ORDER BY id")]
+    finally:
+        con.close()
+
+
+FACTS = """\
+format: strayline-patient-facts
+notice: invented demo facts, not for clinical use
+patients:
+  - key: DEMO-FETUS-02
+    gestational_age_weeks: 14
+"""
+
+
+class LinkParser(html.parser.HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.links = []
+
+    def handle_starttag(self, tag, attrs):
+        if tag == "a":
+            self.links.extend(v for k, v in attrs if k == "href")
+
+
+class MixedFolder(unittest.TestCase):
+    """The folder of the issue: plans, structure sets, a photon plan, a CT
+    slice, a text file, a truncated file, a plan in two copies, nested
+    folders, and a plan whose structure set is missing."""
+
+    @classmethod
+    def setUpClass(cls):
+        cls.tmp = tempdir()
+        d = cls.tmp.name
+        cls.src = os.path.join(d, "export")
+        cls.out = os.path.join(d, "out")
+        for case in CASES:
+            shutil.copytree(os.path.join(EXAMPLES, case), os.path.join(cls.src, "p", case))
+        # the same plan again, deeper and under another name (no extension)
+        os.makedirs(os.path.join(cls.src, "q", "r", "s"))
+        shutil.copy(os.path.join(EXAMPLES, "face-lens", "rtplan.dcm"),
+                    os.path.join(cls.src, "q", "r", "s", "PLANCOPY"))
+        # a real photon RT Plan and a CT slice (pydicom's sample files)
+        shutil.copy(os.path.join(PYDICOM_TEST_FILES, "rtplan.dcm"),
+                    os.path.join(cls.src, "q", "photon_plan.dcm"))
+        shutil.copy(os.path.join(PYDICOM_TEST_FILES, "CT_small.dcm"),
+                    os.path.join(cls.src, "q", "ct.dcm"))
+        with open(os.path.join(cls.src, "notes.txt"), "w") as f:
+            f.write("export log: three cases\n")
+        with open(os.path.join(EXAMPLES, "neck-device", "rtstruct.dcm"), "rb") as f:
+            data = f.read()
+        with open(os.path.join(cls.src, "q", "truncated.dcm"), "wb") as f:
+            f.write(data[: len(data) // 2])
+        # an electron plan whose structure set is not in the folder
+        cls.orphan_uid, cls.orphan_ss, _ = copy_pair("face-lens", os.path.join(cls.src, "o"),
+                                                     "ORPHAN", ss_uid=generate_uid())
+        with open(os.path.join(d, "facts.yaml"), "w") as f:
+            f.write(FACTS)
+        cls.rc, cls.stdout, cls.stderr = scan(cls.src, cls.out, "--facts",
+                                              os.path.join(d, "facts.yaml"))
+        with open(os.path.join(cls.out, "summary.json")) as f:
+            cls.summary = json.load(f)
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmp.cleanup()
+
+    def by_outcome(self, outcome):
+        return [p for p in self.summary["plans"] if p["outcome"] == outcome]
+
+    def test_exit_code_flags(self):
+        # the demo cases flag organs (examples/README.md), so exit code 4
+        self.assertEqual(self.rc, 4, self.stderr)
+
+    def test_pairs_match_pydicom(self):
+        """Each screened plan is paired with the structure set its
+        ReferencedStructureSetSequence names, as pydicom reads it."""
+        screened = self.by_outcome("screened")
+        self.assertEqual(len(screened), 3)
+        for case in CASES:
+            plan = pydicom.dcmread(os.path.join(EXAMPLES, case, "rtplan.dcm"))
+            ss = pydicom.dcmread(os.path.join(EXAMPLES, case, "rtstruct.dcm"))
+            row = [p for p in screened if p["plan_uid"] == plan.SOPInstanceUID]
+            self.assertEqual(len(row), 1, case)
+            self.assertEqual(row[0]["structure_set_uid"], ss.SOPInstanceUID)
+            self.assertEqual(row[0]["structure_set_uid"],
+                             plan.ReferencedStructureSetSequence[0].ReferencedSOPInstanceUID)
+            self.assertEqual(row[0]["patient_id"], plan.PatientID)
+
+    def test_skips_and_bad_files(self):
+        skipped = self.by_outcome("skipped")
+        photon = pydicom.dcmread(os.path.join(PYDICOM_TEST_FILES, "rtplan.dcm"))
+        self.assertEqual([p["plan_uid"] for p in skipped], [photon.SOPInstanceUID])
+        self.assertIn("no electron beams", skipped[0]["message"])
+        ignored = self.by_outcome("ignored")
+        self.assertEqual(len(ignored), 1)
+        self.assertIn(pydicom.dcmread(os.path.join(PYDICOM_TEST_FILES, "CT_small.dcm")).SOPClassUID,
+                      ignored[0]["message"])
+        bad = sorted(os.path.basename(p["plan_file"]) for p in self.by_outcome("bad"))
+        self.assertEqual(bad, ["notes.txt", "truncated.dcm"])
+        for p in self.by_outcome("bad"):
+            self.assertTrue(p["message"].startswith(p["plan_file"] + ": "), p["message"])
+
+    def test_duplicate_screened_once(self):
+        dup = self.by_outcome("duplicate")
+        self.assertEqual(len(dup), 1)
+        plan = pydicom.dcmread(os.path.join(EXAMPLES, "face-lens", "rtplan.dcm"))
+        self.assertEqual(dup[0]["plan_uid"], plan.SOPInstanceUID)
+
+    def test_incomplete(self):
+        inc = self.by_outcome("incomplete")
+        self.assertEqual([p["plan_uid"] for p in inc], [self.orphan_uid])
+        self.assertIn("not in the folder", inc[0]["message"])
+
+    def test_one_log_row_per_screening(self):
+        rows = log_rows(os.path.join(self.out, "screening.sqlite"))
+        self.assertEqual(len(rows), 3)
+        uids = sorted(r["plan_uid"] for r in rows)
+        self.assertEqual(uids, sorted(p["plan_uid"] for p in self.by_outcome("screened")))
+        con = sqlite3.connect(os.path.join(self.out, "screening.sqlite"))
+        try:
+            # the schema version and WAL mode the README documents
+            self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 1)
+            self.assertEqual(con.execute("PRAGMA journal_mode").fetchone()[0], "wal")
+            organs = con.execute("SELECT count(*) FROM flagged_organ").fetchone()[0]
+        finally:
+            con.close()
+        self.assertEqual(organs, sum(len(p["flagged_organs"]) for p in self.summary["plans"]))
+        for r in rows:
+            self.assertEqual(r["model_file"], MODEL)
+            self.assertEqual(len(r["model_sha256"]), 64)
+            self.assertEqual(r["outcome"], "screened")
+
+    def test_reports_written_and_linked(self):
+        index = os.path.join(self.out, "index.html")
+        p = LinkParser()
+        with open(index) as f:
+            p.feed(f.read())
+        for row in self.by_outcome("screened"):
+            for key in ("report_json", "report_html"):
+                self.assertIn(row[key], p.links)
+                self.assertTrue(os.path.isfile(os.path.join(self.out, row[key])))
+                # names made of sanitised identifiers only: no path separators
+                self.assertNotIn("/", row[key])
+            with open(os.path.join(self.out, row["report_json"])) as f:
+                rep = json.load(f)
+            self.assertIn(row["plan_uid"], json.dumps(rep))
+
+    def test_sorted_attention_first(self):
+        plans = self.summary["plans"]
+        flagged = [i for i, p in enumerate(plans) if p["flagged"]]
+        unflagged = [i for i, p in enumerate(plans) if not p["flagged"]]
+        self.assertTrue(flagged and max(flagged) < min(unflagged or [len(plans)]))
+
+    def test_csv_matches_json(self):
+        with open(os.path.join(self.out, "summary.csv"), newline="") as f:
+            rows = list(csv.DictReader(f))
+        self.assertEqual([r["plan_uid"] for r in rows],
+                         [p["plan_uid"] or "" for p in self.summary["plans"]])
+        self.assertEqual(self.summary["counts"]["screened"], 3)
+        self.assertEqual(self.summary["counts"]["duplicate"], 1)
+        self.assertEqual(self.summary["counts"]["bad"], 2)
+
+    def test_fetus_facts_used(self):
+        fetus = [p for p in self.by_outcome("screened") if p["patient_id"] == "DEMO-FETUS-02"]
+        self.assertEqual(len(fetus), 1)
+        rows = [r for r in log_rows(os.path.join(self.out, "screening.sqlite"))
+                if r["patient_id"] == "DEMO-FETUS-02"]
+        self.assertIn("gestational_age_weeks=14", rows[0]["options"])
+
+
+class MissingFact(unittest.TestCase):
+    def test_fetus_without_age_says_what_to_supply(self):
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            shutil.copytree(os.path.join(EXAMPLES, "chest-fetus"), src)
+            rc, out, err = scan(src, os.path.join(d, "out"))
+            self.assertEqual(rc, 4, err)
+            with open(os.path.join(d, "out", "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertEqual(len(plans), 1)
+            # still screened: the fetus not judged, the plan flagged, the
+            # summary saying what to supply for whom
+            self.assertEqual(plans[0]["outcome"], "screened")
+            self.assertTrue(plans[0]["flagged"])
+            self.assertIn("gestational_age_weeks", plans[0]["message"])
+            self.assertIn("DEMO-FETUS-02", plans[0]["message"])
+            fetus = [o for o in plans[0]["flagged_organs"] if o["roi"] == "Fetus"]
+            self.assertEqual(len(fetus), 1)
+            self.assertTrue(fetus[0]["status"].startswith("not assessed: no gestational age"))
+            # the other organs were judged: the report holds every organ
+            with open(os.path.join(d, "out", plans[0]["report_json"])) as f:
+                self.assertIn("Fetus", f.read())
+            rc, out, err = run("history", "--log", os.path.join(d, "out", "screening.sqlite"),
+                               "--format", "json", check=0)
+            self.assertTrue(json.loads(out)["screenings"][0]["flagged"])
+
+
+class Pdf(unittest.TestCase):
+    def test_pdf_reports(self):
+        """--pdf: each plan's PDF report beside the others, read by poppler's
+        pdfinfo (Debian poppler-utils), named in the summary and the log."""
+        pdfinfo = shutil.which("pdfinfo")
+        if not pdfinfo:
+            self.skipTest("pdfinfo (Debian poppler-utils)")
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            for case in ("face-lens", "neck-device"):
+                shutil.copytree(os.path.join(EXAMPLES, case), os.path.join(src, case))
+            out = os.path.join(d, "out")
+            scan(src, out, "--pdf", "--paper", "letter", check=4)
+            with open(os.path.join(out, "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertEqual(len(plans), 2)
+            for p in plans:
+                self.assertTrue(p["report_pdf"].endswith(".pdf"))
+                info = subprocess.run([pdfinfo, os.path.join(out, p["report_pdf"])],
+                                      capture_output=True, text=True, timeout=60)
+                self.assertEqual(info.returncode, 0, info.stderr)
+                pages = [l for l in info.stdout.splitlines() if l.startswith("Pages:")]
+                self.assertGreaterEqual(int(pages[0].split()[1]), 1)
+                # US Letter is 612 x 792 pt (ANSI/ASME Y14.1)
+                self.assertIn("612 x 792 pts", info.stdout)
+            self.assertEqual(sorted(r["report_pdf"] for r in log_rows(
+                os.path.join(out, "screening.sqlite"))), sorted(p["report_pdf"] for p in plans))
+
+
+class History(unittest.TestCase):
+    @classmethod
+    def setUpClass(cls):
+        cls.tmp = tempdir()
+        d = cls.tmp.name
+        src = os.path.join(d, "in")
+        for case in ("face-lens", "neck-device"):
+            shutil.copytree(os.path.join(EXAMPLES, case), os.path.join(src, case))
+        cls.out = os.path.join(d, "out")
+        cls.log = os.path.join(cls.out, "screening.sqlite")
+        scan(src, cls.out, check=4)
+        # a recommissioned model: the same machine, another version
+        cls.model2 = os.path.join(d, "demo-e1-v2.yaml")
+        with open(MODEL) as f:
+            text = f.read()
+        lines = text.splitlines(True)
+        idx = [i for i, l in enumerate(lines) if l.startswith("model_version:")]
+        assert len(idx) == 1
+        lines[idx[0]] = "model_version: 2026.12-demo-recommissioned\n"
+        with open(cls.model2, "w") as f:
+            f.writelines(lines)
+        shutil.copy(os.path.join(SOURCE_ROOT, "models", "action-levels.yaml"), d)
+        cls.src = src
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmp.cleanup()
+
+    def hist(self, *args, check=0):
+        rc, out, err = run("history", "--log", self.log, "--format", "json", *args, check=check)
+        return json.loads(out)["screenings"]
+
+    def test_filters(self):
+        self.assertEqual(len(self.hist()), 2)
+        self.assertEqual(len(self.hist("--flagged")), 2)
+        self.assertEqual([s["patient_id"] for s in self.hist("--patient", "DEMO-LENS-01")],
+                         ["DEMO-LENS-01"])
+        self.assertEqual(self.hist("--patient", "NOBODY"), [])
+        self.assertEqual(self.hist("--since", "2999-01-01"), [])
+        self.assertEqual(len(self.hist("--since", "2000-01-01")), 2)
+
+    def test_csv_and_text(self):
+        rc, out, err = run("history", "--log", self.log, "--format", "csv", check=0)
+        rows = list(csv.DictReader(io.StringIO(out)))
+        con = sqlite3.connect(self.log)
+        try:
+            n = con.execute("SELECT count(*) FROM flagged_organ").fetchone()[0]
+        finally:
+            con.close()
+        self.assertEqual(len(rows), n)  # one line per flagged organ
+        for r in rows:
+            float(r["course_max_cgy"])
+            float(r["course_max_upper_cgy"])
+        rc, out, err = run("history", "--log", self.log, check=0)
+        self.assertIn("DEMO-DEVICE-03", out)
+        self.assertIn("2 screenings", out)
+
+    def test_bad_usage(self):
+        rc, out, err = run("history", "--log", self.log, "--since", "2024-02-30")
+        self.assertEqual(rc, 2)
+        self.assertEqual(out, "")
+        rc, out, err = run("history", "--log", os.path.join(EXAMPLES, "README.md"))
+        self.assertEqual(rc, 3)
+        self.assertIn("README.md", err)
+        rc, out, err = run("history", "--log", os.path.join(self.tmp.name, "absent.sqlite"))
+        self.assertEqual(rc, 3)
+
+    def test_stale_then_rescreen(self):
+        """history --stale lists exactly the plans last screened with the old
+        model; scan --rescreen-stale screens those and nothing else."""
+        self.assertEqual(self.hist("--stale", MODEL), [])
+        stale = self.hist("--stale", self.model2)
+        self.assertEqual(sorted(s["patient_id"] for s in stale),
+                         ["DEMO-DEVICE-03", "DEMO-LENS-01"])
+        extra = os.path.join(self.tmp.name, "in2")
+        shutil.copytree(self.src, extra)
+        copy_pair("face-lens", os.path.join(extra, "new"), "NEW")  # never screened
+        rc, out, err = run("scan", extra, "--model", self.model2, "--out", self.out,
+                           "--rescreen-stale", "--quiet")
+        self.assertEqual(rc, 4, err)
+        rows = log_rows(self.log)
+        self.assertEqual(len(rows), 4)
+        self.assertEqual(sorted(r["patient_id"] for r in rows[2:]),
+                         ["DEMO-DEVICE-03", "DEMO-LENS-01"])
+        self.assertTrue(all(r["model_version"] == "2026.12-demo-recommissioned"
+                            for r in rows[2:]))
+        self.assertEqual(self.hist("--stale", self.model2), [])
+        self.assertEqual(len(self.hist("--stale", MODEL)), 2)
+
+
+class BadInput(unittest.TestCase):
+    def test_not_a_folder(self):
+        with tempdir() as d:
+            rc, out, err = scan(os.path.join(d, "absent"), os.path.join(d, "out"))
+            self.assertEqual(rc, 3)
+            self.assertIn("absent", err)
+            self.assertEqual(out, "")
+
+    def test_facts_file_errors_name_the_line(self):
+        with tempdir() as d:
+            facts = os.path.join(d, "facts.yaml")
+            with open(facts, "w") as f:
+                f.write("format: strayline-patient-facts\npatients:\n  - key: A\n"
+                        "    gestational_age_weeks: 99\n")
+            rc, out, err = scan(os.path.join(EXAMPLES, "face-lens"), os.path.join(d, "out"),
+                                "--facts", facts)
+            self.assertEqual(rc, 3)
+            self.assertIn("facts.yaml:4:", err)
+
+    def test_output_folder_inside_the_export_is_not_read(self):
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            shutil.copytree(os.path.join(EXAMPLES, "face-lens"), src)
+            out = os.path.join(src, "screening")
+            scan(src, out, check=4)
+            scan(src, out, check=4)  # a second run sees its own reports: not as inputs
+            with open(os.path.join(out, "summary.json")) as f:
+                counts = json.load(f)["counts"]
+            self.assertEqual(counts["bad"], 0)
+            self.assertEqual(counts["screened"], 1)
+
+    def test_command_line_rules(self):
+        """The rules every command keeps (README): one line naming the
+        command, and the nearest option for a mistyped one."""
+        for command, args, want in [("scan", ["--modle", MODEL, EXAMPLES], "--model"),
+                                    ("history", ["--fromat", "json"], "--format"),
+                                    ("listen", ["--prot", "104"], "--port")]:
+            rc, out, err = run(command, *args)
+            self.assertEqual(rc, 2)
+            self.assertEqual(out, "")
+            lines = err.strip().splitlines()
+            self.assertEqual(len(lines), 1, err)
+            self.assertTrue(lines[0].startswith("strayline %s: " % command), lines[0])
+            self.assertIn("did you mean %s?" % want, lines[0])
+            rc1, out1, _ = run("help", command)
+            rc2, out2, _ = run(command, "--help")
+            self.assertEqual((rc1, rc2, out1), (0, 0, out2))
+
+    def test_no_model(self):
+        rc, out, err = run("scan", EXAMPLES, "--out", "/nonexistent")
+        self.assertEqual(rc, 2)
+
+
+if __name__ == "__main__":
+    unittest.main()
