@@ -108,7 +108,13 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
                  "Estimates outside the commissioned range (depths, distances, inserts) are marked "
                  "and carry extra uncertainty; the model is valid only for the machine it was "
                  "measured on.");
-    if (n < max)
+    if (n < max && r->est->opt.ntps)
+        snprintf(out[n++], EST_CAUTION_LEN,
+                 "Within %.1f cm of a field edge (in the field too) each sample's dose is the "
+                 "planning system's (its RT Dose given by --tps-dose); beyond, the model's: each "
+                 "organ says which.",
+                 r->est->opt.tps_zone_cm);
+    else if (n < max)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Inside the field and at its edge the treatment planning system remains the "
                  "reference: organs there are not estimated.");

@@ -103,6 +103,9 @@ typedef struct est_ventry {
 /* The verdict box's lines, attention first (caller frees *out). */
 size_t est_verdict(const sl_estimate_report *r, est_ventry **out);
 const char *est_vkind_text(est_vkind k);
+/* The shape cue of a verdict line (HTML and PDF): a triangle for exceeds, a
+ * diamond for may exceed or attention, a disc for measure, "?" otherwise. */
+const char *est_vshape(const est_ventry *v);
 
 /* Cautions that belong to this case (a stand-in cutout, extrapolated or
  * out-of-range organs, a poor fit): shown beside the result, before the

@@ -26,18 +26,6 @@ static const char *num(char *buf, size_t n, double v)
     return buf;
 }
 
-/* The shape cue beside each verdict line: status never by colour alone. */
-static const char *vcue(const est_ventry *v)
-{
-    switch (v->kind) {
-    case EST_V_ATTENTION: return v->a && v->a->status == SL_ST_EXCEEDS ? "\u25B2" : "\u25C6";
-    case EST_V_MEASURE: return "\u25CF";
-    case EST_V_NOT_JUDGED:
-    case EST_V_NOT_FOUND: return "?";
-    }
-    return "";
-}
-
 static const char *vclass(const est_ventry *v)
 {
     switch (v->kind) {
@@ -186,7 +174,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         for (size_t i = 0; i < nve; i++) {
             xmlNodePtr tr = hel(&h, vt, "tr", NULL);
             hattr(&h, tr, "class", vclass(&ve[i]));
-            hattr(&h, hel(&h, tr, "td", vcue(&ve[i])), "class", "cue");
+            hattr(&h, hel(&h, tr, "td", est_vshape(&ve[i])), "class", "cue");
             hel(&h, tr, "td", ve[i].organ);
             snprintf(buf, sizeof buf, "%s%s", ve[i].status, ve[i].whatif ? " [what-if]" : "");
             hel(&h, tr, "td", buf);

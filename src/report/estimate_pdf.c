@@ -60,16 +60,6 @@ static void beam_figures(pdoc *d, const sl_estimate_report *r, size_t b)
 static const double fill_att[3] = {0.97, 0.86, 0.86}, fill_meas[3] = {0.99, 0.94, 0.80},
                     fill_nj[3] = {0.90, 0.90, 0.94};
 
-static const char *pdf_cue(const est_ventry *v)
-{
-    switch (v->kind) {
-    case EST_V_ATTENTION:
-        return v->a && v->a->status == SL_ST_EXCEEDS ? "\u25B2 !!" : "\u25C6 !";
-    case EST_V_MEASURE: return "\u25CF M";
-    default: return "?";
-    }
-}
-
 static void verdict(pdoc *d, const sl_estimate_report *r)
 {
     char res[1200], line[1400];
@@ -90,7 +80,9 @@ static void verdict(pdoc *d, const sl_estimate_report *r)
         for (size_t i = 0; i < n; i++) {
             char st[200];
             snprintf(st, sizeof st, "%s%s", v[i].status, v[i].whatif ? " [what-if]" : "");
-            const char *cells[] = {pdf_cue(&v[i]), v[i].organ, st,
+            char cue[16];
+            snprintf(cue, sizeof cue, "%s %s", est_vshape(&v[i]), v[i].cue);
+            const char *cells[] = {cue, v[i].organ, st,
                                    v[i].dose[0] ? v[i].dose : "-",
                                    v[i].level[0] ? v[i].level : "-", v[i].advice};
             pdoc_table_row(d, &t, cells,

@@ -41,6 +41,15 @@ void est_num(double v, char *buf, size_t size)
         snprintf(buf, size, "%.1f", v);
 }
 
+const char *est_vshape(const est_ventry *v)
+{
+    switch (v->kind) {
+    case EST_V_ATTENTION: return v->a && v->a->status == SL_ST_EXCEEDS ? "\u25B2" : "\u25C6";
+    case EST_V_MEASURE: return "\u25CF";
+    default: return "?";
+    }
+}
+
 const char *est_vkind_text(est_vkind k)
 {
     switch (k) {
