@@ -679,3 +679,15 @@ void fig_axes_draw(cairo_t *cr, const fig_axes *a, const char *xlabel, const cha
     }
     cairo_restore(cr);
 }
+
+void fig_boxed(cairo_t *cr, double w, double h, fig_draw_fn draw, const void *ctx)
+{
+    cairo_save(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_clip(cr);
+    cairo_rectangle(cr, 0, 0, w, h);
+    cairo_set_source_rgb(cr, 1, 1, 1);
+    cairo_fill(cr);
+    draw(cr, w, h, ctx);
+    cairo_restore(cr);
+}

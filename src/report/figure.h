@@ -25,6 +25,11 @@
 
 typedef void (*fig_draw_fn)(cairo_t *cr, double w_pt, double h_pt, const void *ctx);
 
+/* Draw a figure in its own cairo state, clipped to (0, 0)-(w, h) on a white
+ * box, so that a caller's page (PDF) is left as it was and nothing is drawn
+ * outside the box: every public figure entry goes through it. */
+void fig_boxed(cairo_t *cr, double w, double h, fig_draw_fn draw, const void *ctx);
+
 /* Render a figure to an SVG document in memory (caller frees *svg). */
 sl_status fig_svg_string(double w_pt, double h_pt, fig_draw_fn draw, const void *ctx, char **svg,
                          size_t *len, sl_error *err);

@@ -1022,16 +1022,8 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
     free(jobs);
 }
 
-/* The public entry: the figure's own state and clip, so that a caller's
- * page (PDF) is left as it was and nothing is drawn outside the box. */
+/* The public entry (fig_boxed: the caller's page is left as it was). */
 void fig_bev(cairo_t *cr, double w, double h, const void *ctx)
 {
-    cairo_save(cr);
-    cairo_rectangle(cr, 0, 0, w, h);
-    cairo_clip(cr);
-    cairo_rectangle(cr, 0, 0, w, h);
-    cairo_set_source_rgb(cr, 1, 1, 1);
-    cairo_fill(cr);
-    draw_bev(cr, w, h, ctx);
-    cairo_restore(cr);
+    fig_boxed(cr, w, h, draw_bev, ctx);
 }
