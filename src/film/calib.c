@@ -339,7 +339,7 @@ int sl_film_parse_channel(const char *s)
     return parse_channel(s);
 }
 
-sl_status sl_film_check_format(sl_yaml *y, const char *want, sl_error *err)
+static sl_status check_format(sl_yaml *y, const char *want, sl_error *err)
 {
     /* The format first, so that a file of another kind is named as such rather than by the
        first key it lacks. */
@@ -357,6 +357,24 @@ sl_status sl_film_check_format(sl_yaml *y, const char *want, sl_error *err)
             return sl_yaml_error(y, v, err, "format: '%s' is not %s", v->data.scalar.value,
                                  want);
     }
+    return SL_OK;
+}
+
+sl_status sl_film_read_head(sl_yaml *y, const char *want, const char *what, sl_yaml_field *f,
+                            size_t nf, sl_error *err)
+{
+    char *fmt = NULL;
+    int ver = 0;
+    sl_status st;
+    if ((st = check_format(y, want, err)) != SL_OK ||
+        (st = sl_yaml_fields(y, sl_yaml_root(y), what, f, nf, err)) != SL_OK ||
+        (st = sl_yaml_string(y, f[0].node, "format", &fmt, err)) != SL_OK)
+        return st;
+    free(fmt); /* check_format compared it: a scalar that is not `want` never gets here */
+    if ((st = sl_yaml_int(y, f[1].node, "format_version", &ver, err)) != SL_OK)
+        return st;
+    if (ver != 1)
+        return sl_yaml_error(y, f[1].node, err, "format_version: %d is not supported (1 is)", ver);
     return SL_OK;
 }
 
@@ -649,23 +667,30 @@ static sl_status fit_channel(sl_film_curve *c, int chi, int channel, bool strict
     return SL_OK;
 }
 
+/* Loads the YAML at path and starts a curve that records the file and its
+   SHA-256: the calibration set for a new curve, the curve file for a loaded one. */
+static sl_status curve_open(const char *path, sl_yaml *y, sl_film_curve **c, sl_error *err)
+{
+    sl_status st = sl_yaml_load(y, path, err);
+    if (st != SL_OK)
+        return st;
+    bool ok = true;
+    if (!(*c = calloc(1, sizeof **c)) || !((*c)->source = sl_strdup(path, &ok)))
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    return sl_sha256_file(path, (*c)->sha256, err);
+}
+
 sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,
                             sl_film_curve **out, sl_error *err)
 {
     *out = NULL;
     sl_yaml y = {0};
     scan_cache cache = {0};
-    sl_status st = sl_yaml_load(&y, path, err);
-    if (st != SL_OK)
-        return st;
-    sl_film_curve *c = calloc(1, sizeof *c);
+    sl_film_curve *c = NULL;
     bool ok = true;
-    char *fmt = NULL, *chname = NULL;
-    if (!c || !(c->source = sl_strdup(path, &ok))) {
-        st = sl_error_set(err, SL_ENOMEM, "out of memory");
-        goto done;
-    }
-    if ((st = sl_sha256_file(path, c->sha256, err)) != SL_OK)
+    char *chname = NULL;
+    sl_status st = curve_open(path, &y, &c, err);
+    if (st != SL_OK)
         goto done;
     c->resolve_fraction = opt && opt->resolve_fraction > 0 ? opt->resolve_fraction : 1.0;
     c->reading_area_cm2 = opt && opt->reading_area_cm2 > 0 ? opt->reading_area_cm2
@@ -678,23 +703,9 @@ sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,
         {"exposed", false, NULL}, {"scanned", true, NULL},        {"channel", false, NULL},
         {"pieces", true, NULL},
     };
-    if ((st = sl_film_check_format(&y, "strayline-film-calibration", err)) != SL_OK ||
-        (st = sl_yaml_fields(&y, sl_yaml_root(&y), "calibration set", f, 10, err)) != SL_OK)
+    if ((st = sl_film_read_head(&y, "strayline-film-calibration", "calibration set", f, 10,
+                                err)) != SL_OK)
         goto done;
-    int ver = 0;
-    if ((st = sl_yaml_string(&y, f[0].node, "format", &fmt, err)) != SL_OK)
-        goto done;
-    if (strcmp(fmt, "strayline-film-calibration") != 0) {
-        st = sl_yaml_error(&y, f[0].node, err, "format: '%s' is not strayline-film-calibration",
-                           fmt);
-        goto done;
-    }
-    if ((st = sl_yaml_int(&y, f[1].node, "format_version", &ver, err)) != SL_OK)
-        goto done;
-    if (ver != 1) {
-        st = sl_yaml_error(&y, f[1].node, err, "format_version: %d is not supported (1 is)", ver);
-        goto done;
-    }
     if ((st = opt_string(&y, f[2].node, "notice", &c->notice, err)) != SL_OK ||
         (f[3].node && (st = sl_yaml_bool(&y, f[3].node, "invented", &c->invented, err)) != SL_OK))
         goto done;
@@ -921,7 +932,6 @@ sl_status sl_film_calibrate(const char *path, const sl_film_cal_options *opt,
     if (!ok)
         st = sl_error_set(err, SL_ENOMEM, "out of memory");
 done:
-    free(fmt);
     free(chname);
     cache_free(&cache);
     sl_yaml_free(&y);
@@ -1166,17 +1176,11 @@ sl_status sl_film_curve_load(const char *path, sl_film_curve **out, sl_error *er
 {
     *out = NULL;
     sl_yaml y = {0};
-    sl_status st = sl_yaml_load(&y, path, err);
-    if (st != SL_OK)
-        return st;
-    sl_film_curve *c = calloc(1, sizeof *c);
+    sl_film_curve *c = NULL;
     bool ok = true;
-    char *fmt = NULL, *chname = NULL;
-    if (!c || !(c->source = sl_strdup(path, &ok))) {
-        st = sl_error_set(err, SL_ENOMEM, "out of memory");
-        goto done;
-    }
-    if ((st = sl_sha256_file(path, c->sha256, err)) != SL_OK)
+    char *chname = NULL;
+    sl_status st = curve_open(path, &y, &c, err);
+    if (st != SL_OK)
         goto done;
     sl_yaml_field f[] = {
         {"format", true, NULL},     {"format_version", true, NULL},
@@ -1189,21 +1193,8 @@ sl_status sl_film_curve_load(const char *path, sl_film_curve **out, sl_error *er
         {"channels", true, NULL},   {"pieces", true, NULL},
         {"warnings", true, NULL},
     };
-    if ((st = sl_film_check_format(&y, "strayline-film-curve", err)) != SL_OK ||
-        (st = sl_yaml_fields(&y, sl_yaml_root(&y), "curve", f, 17, err)) != SL_OK ||
-        (st = sl_yaml_string(&y, f[0].node, "format", &fmt, err)) != SL_OK)
+    if ((st = sl_film_read_head(&y, "strayline-film-curve", "curve", f, 17, err)) != SL_OK)
         goto done;
-    if (strcmp(fmt, "strayline-film-curve") != 0) {
-        st = sl_yaml_error(&y, f[0].node, err, "format: '%s' is not strayline-film-curve", fmt);
-        goto done;
-    }
-    int ver;
-    if ((st = sl_yaml_int(&y, f[1].node, "format_version", &ver, err)) != SL_OK)
-        goto done;
-    if (ver != 1) {
-        st = sl_yaml_error(&y, f[1].node, err, "format_version: %d is not supported (1 is)", ver);
-        goto done;
-    }
     if ((st = opt_string(&y, f[2].node, "notice", &c->notice, err)) != SL_OK ||
         (f[3].node && (st = sl_yaml_bool(&y, f[3].node, "invented", &c->invented, err)) != SL_OK) ||
         (st = sl_yaml_int(&y, f[9].node, "bits", &c->bits, err)) != SL_OK ||
@@ -1329,7 +1320,6 @@ sl_status sl_film_curve_load(const char *path, sl_film_curve **out, sl_error *er
     if (!ok)
         st = sl_error_set(err, SL_ENOMEM, "out of memory");
 done:
-    free(fmt);
     free(chname);
     sl_yaml_free(&y);
     if (st != SL_OK) {

@@ -10,8 +10,12 @@
 
 char *sl_film_join_dir_of(const char *base, const char *file);
 int sl_film_parse_channel(const char *s);
-/* A YAML file whose `format` is another kind's: an error naming it. */
-sl_status sl_film_check_format(sl_yaml *y, const char *want, sl_error *err);
+/* The head every film file kind shares: checks that `format` is `want` (named
+   before any missing key, so a file of another kind is called that), reads the
+   root's fields into f (f[0] must be "format", f[1] "format_version") and
+   accepts format_version 1 only.  `what` names the file kind in errors. */
+sl_status sl_film_read_head(sl_yaml *y, const char *want, const char *what, sl_yaml_field *f,
+                            size_t nf, sl_error *err);
 
 enum { SL_DIR_CROSSPLANE = 0, SL_DIR_INPLANE = 1, SL_DIR_DIAGONAL = 2 };
 

@@ -538,24 +538,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         {"median_filter_px", false, NULL}, {"uncertainty", true, NULL},
         {"measurement_set", true, NULL}, {"films", true, NULL},
     };
-    char *fmt = NULL;
-    if ((st = sl_film_check_format(&y, "strayline-films", err)) != SL_OK ||
-        (st = sl_yaml_fields(&y, sl_yaml_root(&y), "film set", f, 10, err)) != SL_OK ||
-        (st = sl_yaml_string(&y, f[0].node, "format", &fmt, err)) != SL_OK)
+    if ((st = sl_film_read_head(&y, "strayline-films", "film set", f, 10, err)) != SL_OK)
         goto done;
-    if (strcmp(fmt, "strayline-films") != 0) {
-        free(fmt);
-        st = sl_yaml_error(&y, f[0].node, err, "format: this is not strayline-films");
-        goto done;
-    }
-    free(fmt);
-    int ver;
-    if ((st = sl_yaml_int(&y, f[1].node, "format_version", &ver, err)) != SL_OK)
-        goto done;
-    if (ver != 1) {
-        st = sl_yaml_error(&y, f[1].node, err, "format_version: %d is not supported (1 is)", ver);
-        goto done;
-    }
     fs.band_cm = SL_FILM_BAND_CM;
     fs.step_cm = SL_FILM_STEP_CM;
     if ((f[2].node && (st = sl_yaml_string(&y, f[2].node, "notice", &fs.notice, err)) != SL_OK) ||
