@@ -8,6 +8,10 @@
  * surface along the ray; where a ray leaves and re-enters the body (over a
  * chin, a shoulder) only the tissue counts.
  *
+ * A bolus (a ROI typed BOLUS) is a solid of its own, built the same way;
+ * sl_bodies_path counts the path through the union of a body and its
+ * bolus, so that a bolus drawn overlapping the skin is counted once.
+ *
  * Each slice has a uniform grid listing the edges that pass through each
  * cell and the parity (inside or not) of each cell centre, so a segment is
  * followed cell by cell and only nearby edges are tested. Exact, no voxels.
@@ -36,6 +40,29 @@ sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body 
  * buffer). *entry_t (may be NULL) receives the segment parameter in [0, 1]
  * where it first enters the body, or NAN when it never does. */
 double sl_body_path(const sl_body *body, sl_vec3 a, sl_vec3 b, double *entry_t);
+
+/* Stretches of a segment inside a solid: pairs (start, end) of segment
+ * parameters in t[0..n). A caller may start it on a local buffer
+ * (heap = false); it moves to the heap when it grows. */
+typedef struct sl_spans {
+    double *t;
+    size_t n, cap;
+    bool heap;
+} sl_spans;
+
+sl_status sl_spans_add(sl_spans *s, double t0, double t1);
+void sl_spans_free(sl_spans *s);
+
+/* Append the stretches of segment a -> b inside the body, in order along
+ * the segment (stretches in neighbouring slabs may touch). SL_ENOMEM leaves
+ * the list as it was. */
+sl_status sl_body_spans(const sl_body *body, sl_vec3 a, sl_vec3 b, sl_spans *spans);
+
+/* Length (cm) of segment a -> b inside the union of several solids (a body
+ * and the bolus on it), each part counted once; *entry_t (may be NULL) as
+ * for sl_body_path. NAN when out of memory. */
+double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, sl_vec3 b,
+                      double *entry_t);
 
 bool sl_body_contains(const sl_body *body, sl_vec3 p);
 

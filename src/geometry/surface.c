@@ -287,9 +287,27 @@ static bool slice_inside(const bslice *s, sl_vec2 q)
     return in;
 }
 
+/* Where the stretches inside go when they are wanted one by one (for the
+ * union with a bolus): the slice's parameter f maps to base + f * scale. */
+typedef struct span_sink {
+    sl_spans *spans;
+    double base, scale;
+    bool failed;
+} span_sink;
+
+static void sink_put(span_sink *k, double f0, double f1)
+{
+    if (!k || k->failed || !(f1 > f0))
+        return;
+    if (sl_spans_add(k->spans, k->base + f0 * k->scale, k->base + f1 * k->scale) != SL_OK)
+        k->failed = true;
+}
+
 /* In-polygon part of the 2-D segment q0 -> q1 (parameter 0..1): its length
- * as a fraction of the segment, and the first parameter where it is inside. */
-static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *first_in)
+ * as a fraction of the segment, and the first parameter where it is inside.
+ * With a sink, each inside stretch is also handed to it. */
+static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *first_in,
+                            span_sink *sink)
 {
     *first_in = NAN;
     double dx = q1.x - q0.x, dy = q1.y - q0.y;
@@ -323,6 +341,7 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
             if (!s->center_in[c])
                 return 0;
             *first_in = sa;
+            sink_put(sink, sa, sb);
             return sb - sa;
         }
     }
@@ -330,6 +349,7 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
         /* the ray runs along z through this slab: one parity throughout */
         if (slice_inside(s, q0)) {
             *first_in = 0;
+            sink_put(sink, 0, 1);
             return 1;
         }
         return 0;
@@ -371,10 +391,12 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
         if (nloc > 1)
             qsort(buf, nloc, sizeof *buf, cmp_double);
         for (size_t j = 0; j < nloc; j++) {
-            if (in)
+            if (in) {
                 total += buf[j] - last;
-            else if (isnan(*first_in))
+                sink_put(sink, last, buf[j]);
+            } else if (isnan(*first_in)) {
                 *first_in = buf[j];
+            }
             in = !in;
             last = buf[j];
         }
@@ -393,8 +415,10 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
     }
     if (buf != local)
         free(buf);
-    if (in)
+    if (in) {
         total += sb - last;
+        sink_put(sink, last, sb);
+    }
     return total;
 }
 
@@ -411,7 +435,9 @@ static size_t slab_at(const sl_body *b, double z)
     return lo;
 }
 
-double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
+/* The path of a -> c inside the body; with spans, each inside stretch is
+ * appended too (segment parameters). */
+static double body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t, sl_spans *spans)
 {
     if (entry_t)
         *entry_t = NAN;
@@ -447,10 +473,11 @@ double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
             return 0;
         sl_vec2 q0 = {a.x + t0 * d[0], a.y + t0 * d[1]}, q1 = {a.x + t1 * d[0], a.y + t1 * d[1]};
         double first;
-        double f = slice_segment(&b->s[i], q0, q1, &first);
+        span_sink sink = {spans, t0, t1 - t0, false};
+        double f = slice_segment(&b->s[i], q0, q1, &first, spans ? &sink : NULL);
         if (entry_t && !isnan(first))
             *entry_t = t0 + first * (t1 - t0);
-        return f * (t1 - t0) * len;
+        return sink.failed ? NAN : f * (t1 - t0) * len;
     }
     /* walk the slabs in the order the segment meets them */
     double za = a.z + t0 * d[2], zb = a.z + t1 * d[2];
@@ -476,12 +503,108 @@ double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
             continue;
         sl_vec2 q0 = {a.x + ta * d[0], a.y + ta * d[1]}, q1 = {a.x + tb * d[0], a.y + tb * d[1]};
         double first;
-        double f = slice_segment(s, q0, q1, &first);
+        span_sink sink = {spans, ta, tb - ta, false};
+        double f = slice_segment(s, q0, q1, &first, spans ? &sink : NULL);
+        if (sink.failed)
+            return NAN;
         if (entry_t && isnan(*entry_t) && !isnan(first))
             *entry_t = ta + first * (tb - ta);
         total += f * (tb - ta) * len;
     }
     return total;
+}
+
+double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
+{
+    return body_path(b, a, c, entry_t, NULL);
+}
+
+sl_status sl_spans_add(sl_spans *s, double t0, double t1)
+{
+    if (s->n + 2 > s->cap) {
+        size_t cap = s->cap ? 2 * s->cap : 32;
+        double *t = s->heap ? realloc(s->t, cap * sizeof *t) : malloc(cap * sizeof *t);
+        if (!t)
+            return SL_ENOMEM;
+        if (!s->heap && s->n)
+            memcpy(t, s->t, s->n * sizeof *t);
+        s->t = t;
+        s->cap = cap;
+        s->heap = true;
+    }
+    s->t[s->n++] = t0;
+    s->t[s->n++] = t1;
+    return SL_OK;
+}
+
+void sl_spans_free(sl_spans *s)
+{
+    if (s->heap)
+        free(s->t);
+    s->t = NULL;
+    s->n = s->cap = 0;
+    s->heap = false;
+}
+
+sl_status sl_body_spans(const sl_body *b, sl_vec3 a, sl_vec3 c, sl_spans *spans)
+{
+    size_t n0 = spans->n;
+    double len = body_path(b, a, c, NULL, spans);
+    if (isnan(len)) {
+        spans->n = n0;
+        return SL_ENOMEM;
+    }
+    return SL_OK;
+}
+
+double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, sl_vec3 c,
+                      double *entry_t)
+{
+    if (nbodies == 1)
+        return sl_body_path(bodies[0], a, c, entry_t);
+    if (entry_t)
+        *entry_t = NAN;
+    double local[64];
+    sl_spans sp = {local, 0, sizeof local / sizeof *local, false};
+    for (size_t i = 0; i < nbodies; i++) {
+        if (sl_body_spans(bodies[i], a, c, &sp) != SL_OK) {
+            sl_spans_free(&sp);
+            return NAN;
+        }
+    }
+    /* each body's stretches come in order; together they are sorted by
+     * start (few: insertion sort) and overlaps counted once */
+    size_t np = sp.n / 2;
+    for (size_t i = 1; i < np; i++) {
+        double s0 = sp.t[2 * i], s1 = sp.t[2 * i + 1];
+        size_t j = i;
+        while (j > 0 && sp.t[2 * (j - 1)] > s0) {
+            sp.t[2 * j] = sp.t[2 * (j - 1)];
+            sp.t[2 * j + 1] = sp.t[2 * (j - 1) + 1];
+            j--;
+        }
+        sp.t[2 * j] = s0;
+        sp.t[2 * j + 1] = s1;
+    }
+    double total = 0, cur0 = 0, cur1 = -1;
+    for (size_t i = 0; i < np; i++) {
+        double s0 = sp.t[2 * i], s1 = sp.t[2 * i + 1];
+        if (s0 > cur1) {
+            if (cur1 > cur0)
+                total += cur1 - cur0;
+            cur0 = s0;
+            cur1 = s1;
+        } else if (s1 > cur1) {
+            cur1 = s1;
+        }
+    }
+    if (cur1 > cur0)
+        total += cur1 - cur0;
+    if (entry_t && np)
+        *entry_t = sp.t[0];
+    sl_spans_free(&sp);
+    double dx = c.x - a.x, dy = c.y - a.y, dz = c.z - a.z;
+    return total * sqrt(dx * dx + dy * dy + dz * dz);
 }
 
 bool sl_body_contains(const sl_body *b, sl_vec3 p)

@@ -525,12 +525,12 @@ END_TEST
 
 /* Box body: x -100..100, y -50..50 mm, slices z = -100..100 mm every 10 mm,
  * so the slabs reach z = -105..105 mm. */
-static sl_body *box_body(void)
+static sl_body *box_body_xy(double x0, double x1, double y0, double y1)
 {
     roi_builder b = {0};
     for (int k = -10; k <= 10; k++) {
         double z = k * 10.0;
-        sl_vec3 p[4] = {{-100, -50, z}, {100, -50, z}, {100, 50, z}, {-100, 50, z}};
+        sl_vec3 p[4] = {{x0, y0, z}, {x1, y0, z}, {x1, y1, z}, {x0, y1, z}};
         rb_add(&b, SL_CONTOUR_CLOSED_PLANAR, p, 4);
     }
     b.roi.name = "BODY";
@@ -544,6 +544,11 @@ static sl_body *box_body(void)
     sl_slices_free(&st);
     rb_free(&b);
     return body;
+}
+
+static sl_body *box_body(void)
+{
+    return box_body_xy(-100, 100, -50, 50);
 }
 
 START_TEST(body_path_lengths_in_a_box)
@@ -572,6 +577,43 @@ START_TEST(body_path_lengths_in_a_box)
     ck_assert(sl_body_contains(body, (sl_vec3){9.9, 4.9, 10.4}));
     ck_assert(!sl_body_contains(body, (sl_vec3){10.1, 0, 0}));
     ck_assert(!sl_body_contains(body, (sl_vec3){0, 0, 10.6}));
+    sl_body_free(body);
+}
+END_TEST
+
+/* A bolus 1.5 cm thick on the anterior surface of the box, drawn 5 mm into
+ * it: the union counts the overlap once (hand geometry). */
+START_TEST(body_and_bolus_union)
+{
+    sl_body *body = box_body();
+    sl_body *bolus = box_body_xy(-30, 30, -60, -45);
+    const sl_body *parts[2] = {body, bolus};
+    double t;
+    /* vertical ray stopping 3 cm below the skin: 1 cm of bolus above it */
+    double d = sl_bodies_path(parts, 2, (sl_vec3){0, -100, 0}, (sl_vec3){0, -2, 0}, &t);
+    ck_assert_double_eq_tol(d, 4, 1e-9);
+    ck_assert_double_eq_tol(t, 94.0 / 98.0, 1e-9);
+    /* one part alone is sl_body_path */
+    ck_assert_double_eq_tol(sl_bodies_path(parts, 1, (sl_vec3){0, -100, 0}, (sl_vec3){0, -2, 0},
+                                           NULL),
+                            3, 1e-9);
+    /* through several slabs: (0,-10,3) to (0,-2,-3) is 10 cm long, y = -10 + 8 t;
+     * the union holds y in [-6, -2] (t in [0.5, 1]), the body y in [-5, -2] */
+    ck_assert_double_eq_tol(
+        sl_bodies_path(parts, 2, (sl_vec3){0, -10, 3}, (sl_vec3){0, -2, -3}, NULL), 5, 1e-9);
+    ck_assert_double_eq_tol(sl_body_path(body, (sl_vec3){0, -10, 3}, (sl_vec3){0, -2, -3}, NULL),
+                            3.75, 1e-9);
+    /* beside the bolus only the body counts */
+    ck_assert_double_eq_tol(
+        sl_bodies_path(parts, 2, (sl_vec3){5, -100, 0}, (sl_vec3){5, -2, 0}, NULL), 3, 1e-9);
+    /* the stretches themselves, in order along the segment */
+    sl_spans sp = {0};
+    ck_assert_int_eq(sl_body_spans(bolus, (sl_vec3){0, -100, 0}, (sl_vec3){0, -2, 0}, &sp), SL_OK);
+    ck_assert_uint_eq(sp.n, 2);
+    ck_assert_double_eq_tol(sp.t[0], 94.0 / 98.0, 1e-9);
+    ck_assert_double_eq_tol(sp.t[1], 95.5 / 98.0, 1e-9);
+    sl_spans_free(&sp);
+    sl_body_free(bolus);
     sl_body_free(body);
 }
 END_TEST
@@ -686,6 +728,7 @@ static Suite *geometry_suite(void)
     tcase_add_test(tc, points_and_open_contours);
     tcase_add_test(tc, degenerate_rois_are_refused);
     tcase_add_test(tc, body_path_lengths_in_a_box);
+    tcase_add_test(tc, body_and_bolus_union);
     tcase_add_test(tc, dense_body_contours);
     tcase_add_test(tc, field_from_cutout_catalogue_and_geometry);
     suite_add_tcase(s, tc);
