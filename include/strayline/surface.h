@@ -66,6 +66,29 @@ double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, s
 
 bool sl_body_contains(const sl_body *body, sl_vec3 p);
 
+/* The body indexed for rays from one source (a beam's): per slab, its
+ * edges by the direction they subtend from the source and, along each
+ * direction, the stretches free of edges with their parity, so that most
+ * of a ray's slab pieces need no edge test at all. Exact: the same lengths
+ * as sl_body_path (to rounding). *out is NULL, with SL_OK, when the source
+ * lies over the body's box as seen along z, or so near it that the box
+ * spans more than about 150 degrees from it (a beam nearly along the
+ * patient's axis): use sl_body_path then. The fan borrows the body. */
+typedef struct sl_body_fan sl_body_fan;
+
+sl_status sl_body_fan_create(const sl_body *body, sl_vec3 source, sl_body_fan **out,
+                             sl_error *err);
+
+/* Length (cm) inside the body of the segment from the fan's source to p;
+ * *entry_t as for sl_body_path. NAN when out of memory. */
+double sl_body_fan_path(const sl_body_fan *fan, sl_vec3 p, double *entry_t);
+
+/* The same through the union of several solids' fans of one source (a body
+ * and its bolus), each part counted once. */
+double sl_fans_path(const sl_body_fan *const *fans, size_t nfans, sl_vec3 p, double *entry_t);
+
+void sl_body_fan_free(sl_body_fan *fan);
+
 /* Bounding box of the body (cm). */
 void sl_body_bounds(const sl_body *body, sl_vec3 *lo, sl_vec3 *hi);
 

@@ -15,6 +15,7 @@
 
 #include <float.h>
 #include <math.h>
+#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -557,21 +558,11 @@ sl_status sl_body_spans(const sl_body *b, sl_vec3 a, sl_vec3 c, sl_spans *spans)
     return SL_OK;
 }
 
-double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, sl_vec3 c,
-                      double *entry_t)
+/* Total length (in segment parameter) of the union of the stretches, and
+ * where the first begins (NAN when none). Sorts them in place. */
+static double spans_union(sl_spans *spp, double *first)
 {
-    if (nbodies == 1)
-        return sl_body_path(bodies[0], a, c, entry_t);
-    if (entry_t)
-        *entry_t = NAN;
-    double local[64];
-    sl_spans sp = {local, 0, sizeof local / sizeof *local, false};
-    for (size_t i = 0; i < nbodies; i++) {
-        if (sl_body_spans(bodies[i], a, c, &sp) != SL_OK) {
-            sl_spans_free(&sp);
-            return NAN;
-        }
-    }
+    sl_spans sp = *spp;
     /* each body's stretches come in order; together they are sorted by
      * start (few: insertion sort) and overlaps counted once */
     size_t np = sp.n / 2;
@@ -600,8 +591,29 @@ double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, s
     }
     if (cur1 > cur0)
         total += cur1 - cur0;
-    if (entry_t && np)
-        *entry_t = sp.t[0];
+    *first = np ? sp.t[0] : NAN;
+    return total;
+}
+
+double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, sl_vec3 c,
+                      double *entry_t)
+{
+    if (nbodies == 1)
+        return sl_body_path(bodies[0], a, c, entry_t);
+    if (entry_t)
+        *entry_t = NAN;
+    double local[64];
+    sl_spans sp = {local, 0, sizeof local / sizeof *local, false};
+    for (size_t i = 0; i < nbodies; i++) {
+        if (sl_body_spans(bodies[i], a, c, &sp) != SL_OK) {
+            sl_spans_free(&sp);
+            return NAN;
+        }
+    }
+    double first;
+    double total = spans_union(&sp, &first);
+    if (entry_t)
+        *entry_t = first;
     sl_spans_free(&sp);
     double dx = c.x - a.x, dy = c.y - a.y, dz = c.z - a.z;
     return total * sqrt(dx * dx + dy * dy + dz * dz);
@@ -613,4 +625,411 @@ bool sl_body_contains(const sl_body *b, sl_vec3 p)
     if (i >= b->n || p.z < b->s[i].z_lo)
         return false;
     return slice_inside(&b->s[i], (sl_vec2){p.x, p.y});
+}
+
+/* ------------------------------------------------------------- fans -- */
+
+/* The body seen from one source (one beam): every ray from the source
+ * projects onto the axial plane as a ray from the source's projection S2,
+ * the same point for every slab. So each slab's edges are indexed once per
+ * beam by the direction they subtend from S2 (bins uniform in tan of the
+ * angle from a reference direction toward the body), and along one bin the
+ * edges' extents in X (distance along the reference direction, which grows
+ * along every ray of the bin) merge into clusters. Between two clusters no
+ * edge touches the bin's wedge, so the parity there is the same for every
+ * ray of the bin: it is found once, on the bin's centre ray. A query then
+ * walks the slabs as sl_body_path does, and a ray's piece in a slab that
+ * lies between clusters is all in or all out at the cost of a comparison;
+ * only a piece that overlaps a cluster (where the ray crosses the skin)
+ * tests the few edges of its bin, with the same crossing rule as the
+ * grid walk. Exact, like the grid walk: no interpolation. */
+
+#define FAN_TAN_MAX 4.0 /* the body must lie within about 76 degrees of the reference */
+
+typedef struct fan_slice {
+    uint32_t *bin_start; /* nb + 1 */
+    uint32_t *edges;
+    uint32_t *cl_start;  /* nb + 1 */
+    double *cl_lo, *cl_hi;
+    unsigned char *cl_par; /* parity just beyond each cluster */
+} fan_slice;
+
+struct sl_body_fan {
+    const sl_body *body;
+    sl_vec3 src;
+    sl_vec2 s2, dir, nrm;
+    double tau0, dtau;
+    int nb;
+    double xlo, xfar;
+    fan_slice *fs;
+};
+
+void sl_body_fan_free(sl_body_fan *f)
+{
+    if (!f)
+        return;
+    for (size_t k = 0; f->fs && k < f->body->n; k++) {
+        fan_slice *s = &f->fs[k];
+        free(s->bin_start);
+        free(s->edges);
+        free(s->cl_start);
+        free(s->cl_lo);
+        free(s->cl_hi);
+        free(s->cl_par);
+    }
+    free(f->fs);
+    free(f);
+}
+
+static inline void fan_xy(const sl_body_fan *f, sl_vec2 q, double *x, double *y)
+{
+    double dx = q.x - f->s2.x, dy = q.y - f->s2.y;
+    *x = dx * f->dir.x + dy * f->dir.y;
+    *y = dx * f->nrm.x + dy * f->nrm.y;
+}
+
+typedef struct xr {
+    double lo, hi;
+    uint32_t e;
+} xr;
+
+static int cmp_xr(const void *a, const void *b)
+{
+    double x = ((const xr *)a)->lo, y = ((const xr *)b)->lo;
+    return x < y ? -1 : x > y;
+}
+
+static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs, xr **tmp,
+                                 size_t *tmpcap)
+{
+    int nb = f->nb;
+    fs->bin_start = calloc((size_t)nb + 1, sizeof *fs->bin_start);
+    fs->cl_start = calloc((size_t)nb + 1, sizeof *fs->cl_start);
+    if (!fs->bin_start || !fs->cl_start)
+        return SL_ENOMEM;
+    const double eps = 1e-9;
+    uint32_t *fill = NULL;
+    for (int pass = 0; pass < 2; pass++) {
+        if (pass == 1) {
+            uint32_t total = 0;
+            for (int j = 0; j < nb; j++) {
+                uint32_t k = fs->bin_start[j];
+                fs->bin_start[j] = total;
+                total += k;
+            }
+            fs->bin_start[nb] = total;
+            fs->edges = malloc((total ? total : 1) * sizeof *fs->edges);
+            fill = malloc((size_t)nb * sizeof *fill);
+            if (!fs->edges || !fill) {
+                free(fill);
+                return SL_ENOMEM;
+            }
+            memcpy(fill, fs->bin_start, (size_t)nb * sizeof *fill);
+        }
+        for (size_t i = 0; i < s->ne; i++) {
+            double xa, ya, xb, yb;
+            fan_xy(f, s->ea[i], &xa, &ya);
+            fan_xy(f, s->eb[i], &xb, &yb);
+            double ta = ya / xa, tb = yb / xb;
+            int j0 = cell_index((dmin(ta, tb) - eps - f->tau0) / f->dtau, nb);
+            int j1 = cell_index((dmax(ta, tb) + eps - f->tau0) / f->dtau, nb);
+            for (int j = j0; j <= j1; j++) {
+                if (pass == 0)
+                    fs->bin_start[j]++;
+                else
+                    fs->edges[fill[j]++] = (uint32_t)i;
+            }
+        }
+    }
+    free(fill);
+
+    /* clusters, bin by bin; counted first, then filled */
+    size_t ncl = 0, cap = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        if (pass == 1) {
+            cap = ncl;
+            fs->cl_lo = malloc((cap ? cap : 1) * sizeof *fs->cl_lo);
+            fs->cl_hi = malloc((cap ? cap : 1) * sizeof *fs->cl_hi);
+            fs->cl_par = malloc(cap ? cap : 1);
+            if (!fs->cl_lo || !fs->cl_hi || !fs->cl_par)
+                return SL_ENOMEM;
+        }
+        ncl = 0;
+        for (int j = 0; j < nb; j++) {
+            fs->cl_start[j] = (uint32_t)ncl;
+            uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
+            size_t n = e1 - e0;
+            if (n == 0)
+                continue;
+            if (n > *tmpcap) {
+                xr *t = realloc(*tmp, n * sizeof *t);
+                if (!t)
+                    return SL_ENOMEM;
+                *tmp = t;
+                *tmpcap = n;
+            }
+            xr *r = *tmp;
+            for (size_t k = 0; k < n; k++) {
+                uint32_t e = fs->edges[e0 + k];
+                double xa, ya, xb, yb;
+                fan_xy(f, s->ea[e], &xa, &ya);
+                fan_xy(f, s->eb[e], &xb, &yb);
+                r[k] = (xr){dmin(xa, xb) - eps, dmax(xa, xb) + eps, e};
+            }
+            if (n > 1)
+                qsort(r, n, sizeof *r, cmp_xr);
+            /* the bin's centre ray, for the parity beyond each cluster */
+            double tc = f->tau0 + (j + 0.5) * f->dtau;
+            sl_vec2 far = {f->s2.x + f->xfar * (f->dir.x + tc * f->nrm.x),
+                           f->s2.y + f->xfar * (f->dir.y + tc * f->nrm.y)};
+            unsigned char par = 0;
+            size_t k = 0;
+            while (k < n) {
+                double lo = r[k].lo, hi = r[k].hi;
+                size_t k1 = k;
+                while (k1 < n && r[k1].lo <= hi) {
+                    hi = dmax(hi, r[k1].hi);
+                    if (sl_p2_crosses(f->s2, far, s->ea[r[k1].e], s->eb[r[k1].e], NULL))
+                        par ^= 1;
+                    k1++;
+                }
+                if (pass == 1) {
+                    fs->cl_lo[ncl] = lo;
+                    fs->cl_hi[ncl] = hi;
+                    fs->cl_par[ncl] = par;
+                }
+                ncl++;
+                k = k1;
+            }
+        }
+        fs->cl_start[nb] = (uint32_t)ncl;
+        if (ncl > UINT32_MAX)
+            return SL_ENOMEM;
+    }
+    return SL_OK;
+}
+
+sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, sl_body_fan **out, sl_error *err)
+{
+    *out = NULL;
+    sl_vec2 s2 = {source.x, source.y};
+    double cx = 0.5 * (b->lo.x + b->hi.x) - s2.x, cy = 0.5 * (b->lo.y + b->hi.y) - s2.y;
+    double cn = sqrt(cx * cx + cy * cy);
+    if (!(cn > 0))
+        return SL_OK; /* a source above the body's middle (a beam along z): no fan */
+    sl_body_fan *f = calloc(1, sizeof *f);
+    if (!f)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    f->body = b;
+    f->src = source;
+    f->s2 = s2;
+    f->dir = (sl_vec2){cx / cn, cy / cn};
+    f->nrm = (sl_vec2){-f->dir.y, f->dir.x};
+    /* every slab lies in the body's box: its corners bound X and tan */
+    double tlo = INFINITY, thi = -INFINITY, xlo = INFINITY, xhi = -INFINITY;
+    const sl_vec2 corners[4] = {{b->lo.x, b->lo.y}, {b->hi.x, b->lo.y}, {b->hi.x, b->hi.y},
+                                {b->lo.x, b->hi.y}};
+    for (int k = 0; k < 4; k++) {
+        double x, y;
+        fan_xy(f, corners[k], &x, &y);
+        if (!(x > 0) || fabs(y / x) > FAN_TAN_MAX) {
+            free(f);
+            return SL_OK; /* the source is too close to the body, or beside it: no fan */
+        }
+        tlo = dmin(tlo, y / x);
+        thi = dmax(thi, y / x);
+        xlo = dmin(xlo, x);
+        xhi = dmax(xhi, x);
+    }
+    size_t maxe = 0;
+    for (size_t k = 0; k < b->n; k++)
+        maxe = b->s[k].ne > maxe ? b->s[k].ne : maxe;
+    /* about one bin an edge: few edges a bin, few bins an edge */
+    f->nb = (int)(maxe < 64 ? 64 : maxe > 16384 ? 16384 : maxe);
+    double pad = 1e-6 * (thi - tlo) + 1e-12;
+    f->tau0 = tlo - pad;
+    f->dtau = (thi - tlo + 2 * pad) / f->nb;
+    f->xlo = xlo;
+    f->xfar = xhi + 1;
+    f->fs = calloc(b->n, sizeof *f->fs);
+    if (!f->fs) {
+        free(f);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    xr *tmp = NULL;
+    size_t tmpcap = 0;
+    for (size_t k = 0; k < b->n; k++) {
+        if (fan_slice_build(f, &b->s[k], &f->fs[k], &tmp, &tmpcap) != SL_OK) {
+            free(tmp);
+            sl_body_fan_free(f);
+            return sl_error_set(err, SL_ENOMEM, "out of memory indexing the body for a beam");
+        }
+    }
+    free(tmp);
+    *out = f;
+    return SL_OK;
+}
+
+/* The in-body part (as a fraction of t) of the piece [ta, tb] of the ray
+ * S -> p in slab k; xp is p's X, far the end of the bin's crossing segment
+ * (X = xfar) on the ray's own direction. */
+static double fan_piece(const sl_body_fan *f, size_t k, int j, double ta, double tb, double xp,
+                        sl_vec2 far, double *first_in, span_sink *sink)
+{
+    const fan_slice *fs = &f->fs[k];
+    double xa = ta * xp, xb = tb * xp;
+    unsigned char par = 0;
+    for (uint32_t c = fs->cl_start[j]; c < fs->cl_start[j + 1]; c++) {
+        if (xb <= fs->cl_lo[c])
+            break;
+        if (xa >= fs->cl_hi[c]) {
+            par = fs->cl_par[c];
+            continue;
+        }
+        /* the piece meets the edges: cross them, as the grid walk does */
+        const bslice *s = &f->body->s[k];
+        double local[LOCAL_EDGES];
+        uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
+        double *buf = local;
+        if (e1 - e0 > LOCAL_EDGES) {
+            buf = malloc((e1 - e0) * sizeof *buf);
+            if (!buf)
+                return NAN;
+        }
+        size_t n = 0;
+        double scale = f->xfar / xp; /* segment parameter to t */
+        for (uint32_t q = e0; q < e1; q++) {
+            uint32_t e = fs->edges[q];
+            double sp;
+            if (sl_p2_crosses(f->s2, far, s->ea[e], s->eb[e], &sp))
+                buf[n++] = sp * scale;
+        }
+        if (n > 1)
+            qsort(buf, n, sizeof *buf, cmp_double);
+        bool in = false;
+        size_t i = 0;
+        for (; i < n && buf[i] < ta; i++)
+            in = !in;
+        double total = 0, last = ta;
+        if (in && isnan(*first_in))
+            *first_in = ta;
+        for (; i < n && buf[i] < tb; i++) {
+            if (in) {
+                total += buf[i] - last;
+                sink_put(sink, last, buf[i]);
+            } else if (isnan(*first_in)) {
+                *first_in = buf[i];
+            }
+            in = !in;
+            last = buf[i];
+        }
+        if (in) {
+            total += tb - last;
+            sink_put(sink, last, tb);
+        }
+        if (buf != local)
+            free(buf);
+        return total;
+    }
+    if (!par)
+        return 0;
+    if (isnan(*first_in))
+        *first_in = ta;
+    sink_put(sink, ta, tb);
+    return tb - ta;
+}
+
+/* As body_path, through the fan. */
+static double fan_path(const sl_body_fan *f, sl_vec3 p, double *entry_t, sl_spans *spans)
+{
+    if (entry_t)
+        *entry_t = NAN;
+    const sl_body *b = f->body;
+    sl_vec3 a = f->src;
+    double d[3] = {p.x - a.x, p.y - a.y, p.z - a.z};
+    double len = sqrt(d[0] * d[0] + d[1] * d[1] + d[2] * d[2]);
+    double xp, yp;
+    fan_xy(f, (sl_vec2){p.x, p.y}, &xp, &yp);
+    if (!(xp > f->xlo) || len == 0)
+        return 0; /* the ray ends before the body's box */
+    double tau = yp / xp;
+    double fj = (tau - f->tau0) / f->dtau;
+    if (!(fj >= 0 && fj < f->nb))
+        return 0; /* it passes beside the body */
+    int j = (int)fj;
+    sl_vec2 far = {f->s2.x + (f->xfar / xp) * d[0], f->s2.y + (f->xfar / xp) * d[1]};
+    double t0 = f->xlo / xp, t1 = 1;
+    /* sink in t directly: base 0, scale 1 */
+    span_sink sink = {spans, 0, 1, false};
+    span_sink *sk = spans ? &sink : NULL;
+    double first = NAN, total = 0;
+    if (d[2] == 0) {
+        size_t i = slab_at(b, a.z);
+        if (i >= b->n || a.z < b->s[i].z_lo)
+            return 0;
+        total = fan_piece(f, i, j, t0, t1, xp, far, &first, sk);
+    } else {
+        double z0 = a.z + t0 * d[2], z1 = p.z;
+        bool up = d[2] > 0;
+        double zlo = up ? z0 : z1, zhi = up ? z1 : z0;
+        if (zhi <= b->lo.z || zlo >= b->hi.z)
+            return 0;
+        size_t i = slab_at(b, zlo);
+        size_t iend = slab_at(b, zhi);
+        if (iend >= b->n)
+            iend = b->n - 1;
+        if (i >= b->n)
+            return 0;
+        for (size_t step = 0; step <= iend - i; step++) {
+            size_t k = up ? i + step : iend - step;
+            const bslice *s = &b->s[k];
+            double ta = (s->z_lo - a.z) / d[2], tb = (s->z_hi - a.z) / d[2];
+            if (ta > tb) {
+                double t = ta;
+                ta = tb;
+                tb = t;
+            }
+            ta = dmax(ta, t0);
+            tb = dmin(tb, t1);
+            if (!(ta < tb))
+                continue;
+            double piece = fan_piece(f, k, j, ta, tb, xp, far, &first, sk);
+            if (isnan(piece))
+                return NAN;
+            total += piece;
+        }
+    }
+    if (isnan(total) || sink.failed)
+        return NAN;
+    if (entry_t)
+        *entry_t = first;
+    return total * len;
+}
+
+double sl_body_fan_path(const sl_body_fan *f, sl_vec3 p, double *entry_t)
+{
+    return fan_path(f, p, entry_t, NULL);
+}
+
+double sl_fans_path(const sl_body_fan *const *fans, size_t nfans, sl_vec3 p, double *entry_t)
+{
+    if (nfans == 1)
+        return fan_path(fans[0], p, entry_t, NULL);
+    if (entry_t)
+        *entry_t = NAN;
+    double local[64];
+    sl_spans sp = {local, 0, sizeof local / sizeof *local, false};
+    for (size_t i = 0; i < nfans; i++) {
+        if (isnan(fan_path(fans[i], p, NULL, &sp))) {
+            sl_spans_free(&sp);
+            return NAN;
+        }
+    }
+    double first;
+    double total = spans_union(&sp, &first);
+    if (entry_t)
+        *entry_t = first;
+    sl_spans_free(&sp);
+    double dx = p.x - fans[0]->src.x, dy = p.y - fans[0]->src.y, dz = p.z - fans[0]->src.z;
+    return total * sqrt(dx * dx + dy * dy + dz * dz);
 }
