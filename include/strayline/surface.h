@@ -73,11 +73,12 @@ bool sl_body_contains(const sl_body *body, sl_vec3 p);
  * as sl_body_path (to rounding). *out is NULL, with SL_OK, when the source
  * lies over the body's box as seen along z, or so near it that the box
  * spans more than about 150 degrees from it (a beam nearly along the
- * patient's axis): use sl_body_path then. The fan borrows the body. */
+ * patient's axis): use sl_body_path then. The fan borrows the body; it is
+ * built on `threads` threads (0: every core) and is read-only after. */
 typedef struct sl_body_fan sl_body_fan;
 
-sl_status sl_body_fan_create(const sl_body *body, sl_vec3 source, sl_body_fan **out,
-                             sl_error *err);
+sl_status sl_body_fan_create(const sl_body *body, sl_vec3 source, int threads,
+                             sl_body_fan **out, sl_error *err);
 
 /* Length (cm) inside the body of the segment from the fan's source to p;
  * *entry_t as for sl_body_path. NAN when out of memory. */

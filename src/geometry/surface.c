@@ -11,6 +11,7 @@
  * them, so an edge listed in several cells is never counted twice.
  */
 #include "strayline/surface.h"
+#include "strayline/parallel.h"
 #include "strayline/poly2d.h"
 
 #include <float.h>
@@ -53,6 +54,24 @@ static int cmp_double(const void *a, const void *b)
 {
     double x = *(const double *)a, y = *(const double *)b;
     return x < y ? -1 : x > y;
+}
+
+/* Crossings along one piece are few: insertion sort beats a qsort call. */
+static void sort_small(double *v, size_t n)
+{
+    if (n > 16) {
+        qsort(v, n, sizeof *v, cmp_double);
+        return;
+    }
+    for (size_t k = 1; k < n; k++) {
+        double x = v[k];
+        size_t m = k;
+        while (m > 0 && v[m - 1] > x) {
+            v[m] = v[m - 1];
+            m--;
+        }
+        v[m] = x;
+    }
 }
 
 static void slice_free(bslice *s)
@@ -390,7 +409,7 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
                 buf[nloc++] = t;
         }
         if (nloc > 1)
-            qsort(buf, nloc, sizeof *buf, cmp_double);
+            sort_small(buf, nloc);
         for (size_t j = 0; j < nloc; j++) {
             if (in) {
                 total += buf[j] - last;
@@ -650,7 +669,8 @@ typedef struct fan_slice {
     uint32_t *bin_start; /* nb + 1 */
     uint32_t *edges;
     uint32_t *cl_start;  /* nb + 1 */
-    double *cl_lo, *cl_hi;
+    float *cl_lo, *cl_hi;  /* rounded outward: a piece is judged clear of a
+                              cluster only when it is */
     unsigned char *cl_par; /* parity just beyond each cluster */
 } fan_slice;
 
@@ -699,117 +719,190 @@ static int cmp_xr(const void *a, const void *b)
     return x < y ? -1 : x > y;
 }
 
-static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs, xr **tmp,
-                                 size_t *tmpcap)
+/* Scratch space of fan building, reused slab after slab. */
+typedef struct fan_scratch {
+    double *xa, *xb, *ta, *tb; /* per edge */
+    int *j0, *j1;              /* per edge: its first and last bin */
+    size_t ecap;
+    xr *r;                     /* one bin's edges */
+    size_t rcap;
+    uint32_t *fill;            /* nb */
+} fan_scratch;
+
+static sl_status grow(void **p, size_t *cap, size_t n, size_t size)
+{
+    if (n <= *cap)
+        return SL_OK;
+    void *q = realloc(*p, n * size);
+    if (!q)
+        return SL_ENOMEM;
+    *p = q;
+    *cap = n;
+    return SL_OK;
+}
+
+static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs, fan_scratch *w)
 {
     int nb = f->nb;
+    const double eps = 1e-9;
+    size_t ne = s->ne, ecap = w->ecap;
+    if (ne > ecap) {
+        size_t c = ecap;
+        if (grow((void **)&w->xa, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->xb, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->ta, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->tb, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->j0, &c, ne, sizeof(int)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->j1, &c, ne, sizeof(int)) != SL_OK)
+            return SL_ENOMEM;
+        w->ecap = ne;
+    }
     fs->bin_start = calloc((size_t)nb + 1, sizeof *fs->bin_start);
     fs->cl_start = calloc((size_t)nb + 1, sizeof *fs->cl_start);
     if (!fs->bin_start || !fs->cl_start)
         return SL_ENOMEM;
-    const double eps = 1e-9;
-    uint32_t *fill = NULL;
-    for (int pass = 0; pass < 2; pass++) {
-        if (pass == 1) {
-            uint32_t total = 0;
-            for (int j = 0; j < nb; j++) {
-                uint32_t k = fs->bin_start[j];
-                fs->bin_start[j] = total;
-                total += k;
-            }
-            fs->bin_start[nb] = total;
-            fs->edges = malloc((total ? total : 1) * sizeof *fs->edges);
-            fill = malloc((size_t)nb * sizeof *fill);
-            if (!fs->edges || !fill) {
-                free(fill);
-                return SL_ENOMEM;
-            }
-            memcpy(fill, fs->bin_start, (size_t)nb * sizeof *fill);
-        }
-        for (size_t i = 0; i < s->ne; i++) {
-            double xa, ya, xb, yb;
-            fan_xy(f, s->ea[i], &xa, &ya);
-            fan_xy(f, s->eb[i], &xb, &yb);
-            double ta = ya / xa, tb = yb / xb;
-            int j0 = cell_index((dmin(ta, tb) - eps - f->tau0) / f->dtau, nb);
-            int j1 = cell_index((dmax(ta, tb) + eps - f->tau0) / f->dtau, nb);
-            for (int j = j0; j <= j1; j++) {
-                if (pass == 0)
-                    fs->bin_start[j]++;
-                else
-                    fs->edges[fill[j]++] = (uint32_t)i;
-            }
-        }
+    for (size_t i = 0; i < ne; i++) {
+        double ya, yb;
+        fan_xy(f, s->ea[i], &w->xa[i], &ya);
+        fan_xy(f, s->eb[i], &w->xb[i], &yb);
+        w->ta[i] = ya / w->xa[i];
+        w->tb[i] = yb / w->xb[i];
+        int j0 = cell_index((dmin(w->ta[i], w->tb[i]) - eps - f->tau0) / f->dtau, nb);
+        int j1 = cell_index((dmax(w->ta[i], w->tb[i]) + eps - f->tau0) / f->dtau, nb);
+        w->j0[i] = j0;
+        w->j1[i] = j1;
+        for (int j = j0; j <= j1; j++)
+            fs->bin_start[j]++;
     }
-    free(fill);
+    size_t total = 0;
+    for (int j = 0; j < nb; j++) {
+        size_t k = fs->bin_start[j];
+        fs->bin_start[j] = (uint32_t)total;
+        w->fill[j] = (uint32_t)total;
+        total += k;
+    }
+    if (total > UINT32_MAX)
+        return SL_ENOMEM;
+    fs->bin_start[nb] = (uint32_t)total;
+    fs->edges = malloc((total ? total : 1) * sizeof *fs->edges);
+    /* at most one cluster an entry */
+    fs->cl_lo = malloc((total ? total : 1) * sizeof *fs->cl_lo);
+    fs->cl_hi = malloc((total ? total : 1) * sizeof *fs->cl_hi);
+    fs->cl_par = malloc(total ? total : 1);
+    if (!fs->edges || !fs->cl_lo || !fs->cl_hi || !fs->cl_par)
+        return SL_ENOMEM;
+    for (size_t i = 0; i < ne; i++)
+        for (int j = w->j0[i]; j <= w->j1[i]; j++)
+            fs->edges[w->fill[j]++] = (uint32_t)i;
 
-    /* clusters, bin by bin; counted first, then filled */
-    size_t ncl = 0, cap = 0;
-    for (int pass = 0; pass < 2; pass++) {
-        if (pass == 1) {
-            cap = ncl;
-            fs->cl_lo = malloc((cap ? cap : 1) * sizeof *fs->cl_lo);
-            fs->cl_hi = malloc((cap ? cap : 1) * sizeof *fs->cl_hi);
-            fs->cl_par = malloc(cap ? cap : 1);
-            if (!fs->cl_lo || !fs->cl_hi || !fs->cl_par)
-                return SL_ENOMEM;
-        }
-        ncl = 0;
-        for (int j = 0; j < nb; j++) {
-            fs->cl_start[j] = (uint32_t)ncl;
-            uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
-            size_t n = e1 - e0;
-            if (n == 0)
-                continue;
-            if (n > *tmpcap) {
-                xr *t = realloc(*tmp, n * sizeof *t);
-                if (!t)
-                    return SL_ENOMEM;
-                *tmp = t;
-                *tmpcap = n;
-            }
-            xr *r = *tmp;
-            for (size_t k = 0; k < n; k++) {
-                uint32_t e = fs->edges[e0 + k];
-                double xa, ya, xb, yb;
-                fan_xy(f, s->ea[e], &xa, &ya);
-                fan_xy(f, s->eb[e], &xb, &yb);
-                r[k] = (xr){dmin(xa, xb) - eps, dmax(xa, xb) + eps, e};
-            }
-            if (n > 1)
-                qsort(r, n, sizeof *r, cmp_xr);
-            /* the bin's centre ray, for the parity beyond each cluster */
-            double tc = f->tau0 + (j + 0.5) * f->dtau;
-            sl_vec2 far = {f->s2.x + f->xfar * (f->dir.x + tc * f->nrm.x),
-                           f->s2.y + f->xfar * (f->dir.y + tc * f->nrm.y)};
-            unsigned char par = 0;
-            size_t k = 0;
-            while (k < n) {
-                double lo = r[k].lo, hi = r[k].hi;
-                size_t k1 = k;
-                while (k1 < n && r[k1].lo <= hi) {
-                    hi = dmax(hi, r[k1].hi);
-                    if (sl_p2_crosses(f->s2, far, s->ea[r[k1].e], s->eb[r[k1].e], NULL))
-                        par ^= 1;
-                    k1++;
-                }
-                if (pass == 1) {
-                    fs->cl_lo[ncl] = lo;
-                    fs->cl_hi[ncl] = hi;
-                    fs->cl_par[ncl] = par;
-                }
-                ncl++;
-                k = k1;
-            }
-        }
-        fs->cl_start[nb] = (uint32_t)ncl;
-        if (ncl > UINT32_MAX)
+    size_t ncl = 0;
+    for (int j = 0; j < nb; j++) {
+        fs->cl_start[j] = (uint32_t)ncl;
+        uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
+        size_t n = e1 - e0;
+        if (n == 0)
+            continue;
+        if (grow((void **)&w->r, &w->rcap, n, sizeof *w->r) != SL_OK)
             return SL_ENOMEM;
+        xr *r = w->r;
+        for (size_t k = 0; k < n; k++) {
+            uint32_t e = fs->edges[e0 + k];
+            r[k] = (xr){dmin(w->xa[e], w->xb[e]) - eps, dmax(w->xa[e], w->xb[e]) + eps, e};
+        }
+        if (n > 24) {
+            qsort(r, n, sizeof *r, cmp_xr);
+        } else {
+            for (size_t k = 1; k < n; k++) {
+                xr v = r[k];
+                size_t m = k;
+                while (m > 0 && r[m - 1].lo > v.lo) {
+                    r[m] = r[m - 1];
+                    m--;
+                }
+                r[m] = v;
+            }
+        }
+        /* the bin's centre ray, for the parity beyond each cluster */
+        double tc = f->tau0 + (j + 0.5) * f->dtau;
+        unsigned char par = 0;
+        size_t k = 0;
+        while (k < n) {
+            double lo = r[k].lo, hi = r[k].hi;
+            size_t k1 = k;
+            while (k1 < n && r[k1].lo <= hi) {
+                hi = dmax(hi, r[k1].hi);
+                /* the edge crosses the centre ray where its ends lie on
+                 * either side of it (half-open, so a vertex counts once):
+                 * all that the parity in the next gap needs */
+                uint32_t e = r[k1].e;
+                if ((w->ta[e] > tc) != (w->tb[e] > tc))
+                    par ^= 1;
+                k1++;
+            }
+            float flo = (float)lo, fhi = (float)hi;
+            fs->cl_lo[ncl] = (double)flo > lo ? nextafterf(flo, -INFINITY) : flo;
+            fs->cl_hi[ncl] = (double)fhi < hi ? nextafterf(fhi, INFINITY) : fhi;
+            fs->cl_par[ncl] = par;
+            ncl++;
+            k = k1;
+        }
     }
+    fs->cl_start[nb] = (uint32_t)ncl;
+    /* fewer clusters than entries, usually by far: give the rest back */
+    float *lo = realloc(fs->cl_lo, (ncl ? ncl : 1) * sizeof *lo);
+    if (lo)
+        fs->cl_lo = lo;
+    float *hi = realloc(fs->cl_hi, (ncl ? ncl : 1) * sizeof *hi);
+    if (hi)
+        fs->cl_hi = hi;
+    unsigned char *par = realloc(fs->cl_par, ncl ? ncl : 1);
+    if (par)
+        fs->cl_par = par;
     return SL_OK;
 }
 
-sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, sl_body_fan **out, sl_error *err)
+/* Slabs are indexed independently: a task a run of slabs, each task with
+ * its own scratch space. */
+#define FAN_TASK_SLABS 16
+
+typedef struct fan_job {
+    sl_body_fan *f;
+    sl_status *st;
+} fan_job;
+
+static void fan_task(size_t t, void *ctx)
+{
+    fan_job *j = ctx;
+    const sl_body *b = j->f->body;
+    fan_scratch w = {0};
+    w.fill = malloc((size_t)j->f->nb * sizeof *w.fill);
+    sl_status st = w.fill ? SL_OK : SL_ENOMEM;
+    size_t end = (t + 1) * FAN_TASK_SLABS < b->n ? (t + 1) * FAN_TASK_SLABS : b->n;
+    for (size_t k = t * FAN_TASK_SLABS; k < end && st == SL_OK; k++)
+        st = fan_slice_build(j->f, &b->s[k], &j->f->fs[k], &w);
+    free(w.xa);
+    free(w.xb);
+    free(w.ta);
+    free(w.tb);
+    free(w.j0);
+    free(w.j1);
+    free(w.r);
+    free(w.fill);
+    j->st[t] = st;
+}
+
+sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, int threads, sl_body_fan **out,
+                             sl_error *err)
 {
     *out = NULL;
     sl_vec2 s2 = {source.x, source.y};
@@ -845,7 +938,7 @@ sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, sl_body_fan **out
     for (size_t k = 0; k < b->n; k++)
         maxe = b->s[k].ne > maxe ? b->s[k].ne : maxe;
     /* about one bin an edge: few edges a bin, few bins an edge */
-    f->nb = (int)(maxe < 64 ? 64 : maxe > 16384 ? 16384 : maxe);
+    f->nb = (int)(maxe / 2 < 64 ? 64 : maxe / 2 > 16384 ? 16384 : maxe / 2);
     double pad = 1e-6 * (thi - tlo) + 1e-12;
     f->tau0 = tlo - pad;
     f->dtau = (thi - tlo + 2 * pad) / f->nb;
@@ -856,16 +949,21 @@ sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, sl_body_fan **out
         free(f);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    xr *tmp = NULL;
-    size_t tmpcap = 0;
-    for (size_t k = 0; k < b->n; k++) {
-        if (fan_slice_build(f, &b->s[k], &f->fs[k], &tmp, &tmpcap) != SL_OK) {
-            free(tmp);
-            sl_body_fan_free(f);
-            return sl_error_set(err, SL_ENOMEM, "out of memory indexing the body for a beam");
-        }
+    size_t ntasks = (b->n + FAN_TASK_SLABS - 1) / FAN_TASK_SLABS;
+    sl_status *tst = calloc(ntasks, sizeof *tst);
+    sl_status st = tst ? SL_OK : SL_ENOMEM;
+    if (tst) {
+        fan_job job = {f, tst};
+        sl_parallel_for(ntasks, sl_parallel_threads(threads), fan_task, &job);
+        for (size_t t = 0; t < ntasks; t++)
+            if (tst[t] != SL_OK)
+                st = tst[t];
+        free(tst);
     }
-    free(tmp);
+    if (st != SL_OK) {
+        sl_body_fan_free(f);
+        return sl_error_set(err, SL_ENOMEM, "out of memory indexing the body for a beam");
+    }
     *out = f;
     return SL_OK;
 }
@@ -905,7 +1003,7 @@ static double fan_piece(const sl_body_fan *f, size_t k, int j, double ta, double
                 buf[n++] = sp * scale;
         }
         if (n > 1)
-            qsort(buf, n, sizeof *buf, cmp_double);
+            sort_small(buf, n);
         bool in = false;
         size_t i = 0;
         for (; i < n && buf[i] < ta; i++)

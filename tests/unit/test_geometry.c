@@ -655,8 +655,8 @@ START_TEST(fan_matches_the_grid_walk)
         double ga = gantry[g] * M_PI / 180;
         sl_vec3 src = {100 * sin(ga), -100 * cos(ga), (g % 3) * 7.0 - 5};
         sl_body_fan *f = NULL, *fb = NULL;
-        ck_assert_int_eq(sl_body_fan_create(body, src, &f, &e), SL_OK);
-        ck_assert_int_eq(sl_body_fan_create(bolus, src, &fb, &e), SL_OK);
+        ck_assert_int_eq(sl_body_fan_create(body, src, 0, &f, &e), SL_OK);
+        ck_assert_int_eq(sl_body_fan_create(bolus, src, 1, &fb, &e), SL_OK);
         ck_assert_ptr_nonnull(f);
         ck_assert_ptr_nonnull(fb);
         fans++;
@@ -687,7 +687,7 @@ START_TEST(fan_matches_the_grid_walk)
     ck_assert(worst < 1e-9);
     /* a source over the body (a beam along z): no fan, the caller traces */
     sl_body_fan *none = (sl_body_fan *)1;
-    ck_assert_int_eq(sl_body_fan_create(body, (sl_vec3){0, 0, 100}, &none, &e), SL_OK);
+    ck_assert_int_eq(sl_body_fan_create(body, (sl_vec3){0, 0, 100}, 0, &none, &e), SL_OK);
     ck_assert_ptr_null(none);
     sl_body_free(bolus);
     sl_body_free(body);
