@@ -3,8 +3,10 @@
  *
  * Order of work: sample every organ once (beam-independent, in patient
  * coordinates), then for each beam build its frame and field outline, project
- * all samples to find the region the outline index must cover, index it, and
- * place the samples in chunks spread over the cores. Then each organ's
+ * all samples to find the region the outline index must cover, index it,
+ * index the body and the beam's bolus for rays from its source (fans,
+ * surface.h: the grid walk's depths at a third of its cost), and place the
+ * samples in chunks spread over the cores. Then each organ's
  * outline is searched between its outline samples near the field (below).
  * Summaries come last, on one thread, so they do not depend on how the
  * chunks were scheduled.
