@@ -681,6 +681,7 @@ struct sl_body_fan {
     double tau0, dtau;
     int nb;
     double xlo, xfar;
+    double *bin_xlo; /* per bin: the least X of any slab's edge in it (no body before) */
     fan_slice *fs;
 };
 
@@ -698,6 +699,7 @@ void sl_body_fan_free(sl_body_fan *f)
         free(s->cl_par);
     }
     free(f->fs);
+    free(f->bin_xlo);
     free(f);
 }
 
@@ -960,10 +962,20 @@ sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, int threads, sl_b
                 st = tst[t];
         free(tst);
     }
+    if (st == SL_OK && !(f->bin_xlo = malloc((size_t)f->nb * sizeof *f->bin_xlo)))
+        st = SL_ENOMEM;
     if (st != SL_OK) {
         sl_body_fan_free(f);
         return sl_error_set(err, SL_ENOMEM, "out of memory indexing the body for a beam");
     }
+    /* a ray's pieces before the first edge of its bin in any slab are
+     * outside: the walk starts there */
+    for (int j = 0; j < f->nb; j++)
+        f->bin_xlo[j] = INFINITY;
+    for (size_t k = 0; k < b->n; k++)
+        for (int j = 0; j < f->nb; j++)
+            if (f->fs[k].cl_start[j] < f->fs[k].cl_start[j + 1])
+                f->bin_xlo[j] = dmin(f->bin_xlo[j], f->fs[k].cl_lo[f->fs[k].cl_start[j]]);
     *out = f;
     return SL_OK;
 }
@@ -1055,8 +1067,10 @@ static double fan_path(const sl_body_fan *f, sl_vec3 p, double *entry_t, sl_span
     if (!(fj >= 0 && fj < f->nb))
         return 0; /* it passes beside the body */
     int j = (int)fj;
+    if (!(xp > f->bin_xlo[j]))
+        return 0; /* the ray ends before any edge of its bin */
     sl_vec2 far = {f->s2.x + (f->xfar / xp) * d[0], f->s2.y + (f->xfar / xp) * d[1]};
-    double t0 = f->xlo / xp, t1 = 1;
+    double t0 = dmax(f->xlo, f->bin_xlo[j]) / xp, t1 = 1;
     /* sink in t directly: base 0, scale 1 */
     span_sink sink = {spans, 0, 1, false};
     span_sink *sk = spans ? &sink : NULL;
