@@ -135,14 +135,25 @@ class BolusInTheReport(unittest.TestCase):
 
     CAUTION = "bolus 'Bolus_1cm' (named by the beam) is counted in the depths"
 
-    def make(self, d):
+    def make(self, d, referenced=True):
         import rtbuild as rb
         from test_locate import box_phantom
         bolus = {"name": "Bolus_1cm", "type": "BOLUS",
                  "contours": rb.box(-200.0, 200.0, -10.0, 0.0, -150.0, 150.0, 5.0)}
         # a lens-named POINT 5 cm outside the 10 cm field, 5 mm below the skin
         return box_phantom(d, points=[("Lens_L", (100.0, 5.0, 0.0))], extra_rois=[bolus],
-                           beam_extra={"boli": [3]}, ssd_mm=990.0)
+                           beam_extra={"boli": [3]} if referenced else None, ssd_mm=990.0)
+
+    def test_a_bolus_the_beam_does_not_name_is_counted_and_said(self):
+        with tempdir() as d:
+            plan, ss = self.make(d, referenced=False)
+            rc, js, err = run("estimate", plan, ss, "--model", MODEL, "--format", "json")
+            res = json.loads(js)
+            self.assertTrue(any("the beam names no bolus, but 'Bolus_1cm' is typed BOLUS" in c
+                                for c in res["result"]["case_cautions"]),
+                            res["result"]["case_cautions"])
+            slant = (10 ** 2 + 100.5 ** 2) ** 0.5 / 100.5
+            self.assertAlmostEqual(res["organs"][0]["min_depth_cm"], 1.5 * slant, delta=1e-6)
 
     def test_caution_in_every_format_and_no_bolus_what_if(self):
         with tempdir() as d:
