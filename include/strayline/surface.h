@@ -34,6 +34,9 @@ typedef struct sl_body sl_body;
 /* Build the body from the EXTERNAL ROI (a stack with at least one slice). */
 sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body **out,
                          sl_error *err);
+/* The same, its slices built on `threads` threads (0: every core). */
+sl_status sl_body_create_threads(const sl_slice_stack *stack, const char *what, int threads,
+                                 sl_body **out, sl_error *err);
 
 /* Length (cm) of segment a -> b (patient coordinates, cm) inside the body,
  * or NAN when out of memory (a very dense body contour needs a scratch

@@ -234,8 +234,26 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
     return SL_OK;
 }
 
+typedef struct build_job {
+    const sl_slice_stack *stack;
+    bslice *s;
+    sl_status *st;
+} build_job;
+
+static void build_task(size_t i, void *ctx)
+{
+    build_job *j = ctx;
+    j->st[i] = slice_build(j->stack, &j->stack->slices[i], &j->s[i]);
+}
+
 sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body **out,
                          sl_error *err)
+{
+    return sl_body_create_threads(stack, what, 1, out, err);
+}
+
+sl_status sl_body_create_threads(const sl_slice_stack *stack, const char *what, int threads,
+                                 sl_body **out, sl_error *err)
 {
     *out = NULL;
     if (stack->nslices == 0)
@@ -251,9 +269,19 @@ sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body 
     b->n = stack->nslices;
     b->lo = (sl_vec3){DBL_MAX, DBL_MAX, DBL_MAX};
     b->hi = (sl_vec3){-DBL_MAX, -DBL_MAX, -DBL_MAX};
+    /* slices are independent: built on the threads asked for, then checked
+     * in order, so that the first bad slice is the one named */
+    sl_status *sts = calloc(b->n, sizeof *sts);
+    if (!sts) {
+        sl_body_free(b);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    build_job job = {stack, b->s, sts};
+    sl_parallel_for(b->n, threads == 1 ? 1 : sl_parallel_threads(threads), build_task, &job);
     for (size_t i = 0; i < b->n; i++) {
-        sl_status st = slice_build(stack, &stack->slices[i], &b->s[i]);
+        sl_status st = sts[i];
         if (st != SL_OK) {
+            free(sts);
             double z = stack->slices[i].z_cm;
             sl_body_free(b);
             if (st == SL_EINPUT)
@@ -269,6 +297,7 @@ sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body 
         b->hi.x = fmax(b->hi.x, s->hi.x);
         b->hi.y = fmax(b->hi.y, s->hi.y);
     }
+    free(sts);
     b->lo.z = b->s[0].z_lo;
     b->hi.z = b->s[b->n - 1].z_hi;
     *out = b;

@@ -612,7 +612,7 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
             char what[256];
             snprintf(what, sizeof what, "%s: EXTERNAL ROI '%s'", ss->source,
                      loc->external->name);
-            st = sl_body_create(&stack, what, &body, err);
+            st = sl_body_create_threads(&stack, what, opt->threads, &body, err);
             sl_slices_free(&stack);
         }
         if (st != SL_OK) {
