@@ -7,6 +7,13 @@
  * from the applicator outline likewise, and its depth (cm), the in-body path
  * length along the ray from the source (surface.h).
  *
+ * A bolus on the skin is tissue on the ray: the ROIs the beam's Referenced
+ * Bolus Sequence names (DICOM PS3.3 C.8.8.14, RT Beams Module), or, when it
+ * names none, every ROI typed BOLUS (with a caution that says so), are
+ * added to the body for this beam's depths (surface.h: the union, each
+ * part counted once) and for the central axis's entry and SSD. The option
+ * no_bolus leaves them out, to show the difference.
+ *
  * Per beam it also finds where the central axis enters the body, the SSD
  * there (compared with the plan's) and the obliquity of the surface there.
  *
@@ -34,6 +41,7 @@ typedef struct sl_locate_options {
     size_t ncatalogue;
     double depth_cm;        /* NAN: depths from the EXTERNAL ROI; else this depth everywhere */
     bool include_external;  /* sample the EXTERNAL ROI as an organ too */
+    bool no_bolus;          /* leave the bolus out of depths (a what-if) */
     int threads;            /* 0: every online core */
     sl_sampling_options sampling;
 } sl_locate_options;
@@ -64,6 +72,15 @@ typedef struct sl_organ_place {
     size_t nearest;               /* sample nearest the field edge (valid when placed > 0) */
 } sl_organ_place;
 
+/* Where a beam's bolus came from. */
+typedef enum sl_bolus_from {
+    SL_BOLUS_NONE = 0,     /* no bolus on this beam */
+    SL_BOLUS_REFERENCED,   /* the beam's Referenced Bolus Sequence names it */
+    SL_BOLUS_TYPED         /* the beam names none; ROIs typed BOLUS are taken */
+} sl_bolus_from;
+
+struct sl_body;
+
 typedef struct sl_beam_place {
     const sl_beam *beam;          /* into the plan */
     sl_position position;
@@ -75,7 +92,15 @@ typedef struct sl_beam_place {
     double ssd_found_cm;          /* NAN when the axis misses the body */
     double obliquity_deg;         /* NAN when unknown */
     sl_organ_place *organs;       /* one per organ of the location */
+    size_t nboli;                 /* bolus ROIs on this beam's rays */
+    const sl_roi **boli;          /* into the structure set */
+    sl_bolus_from boli_from;
+    bool boli_counted;            /* false: left out by option (no_bolus) */
     sl_notes notes;
+    /* private: the solids this beam's depths pass through (the body, then
+     * its bolus when counted), owned by the location */
+    size_t nparts;
+    const struct sl_body **parts;
 } sl_beam_place;
 
 typedef struct sl_skipped_beam {
@@ -97,6 +122,12 @@ typedef struct sl_location {
     double depth_cm;
     double slice_spacing_cm;      /* typical, for single-slice ROIs */
     sl_notes notes;
+    /* private: the body and the bolus solids (one per bolus ROI used),
+     * kept for sl_location_depth */
+    struct sl_body *body;
+    size_t nbolus_solids;
+    const sl_roi **bolus_rois;
+    struct sl_body **bolus_solids;
 } sl_location;
 
 /* An organ is in, or touching, the field when any of it lies inside the
@@ -118,6 +149,12 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
                     const sl_locate_options *opt, sl_location **out, sl_error *err);
 
 void sl_location_free(sl_location *loc);
+
+/* Depth (cm) of point p (patient coordinates, cm) for a placed beam of the
+ * location, as its samples' depths are found: the path inside the body and
+ * the beam's bolus along the ray from the source, or the option's depth.
+ * NAN when out of memory. */
+double sl_location_depth(const sl_location *loc, const sl_beam_place *bp, sl_vec3 p);
 
 #ifdef __cplusplus
 }

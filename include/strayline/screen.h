@@ -9,7 +9,7 @@
  * The request says what the user asked beyond the plan; every option that
  * moves a number away from the plan as delivered (a shield, the measured
  * points instead of the fits, a reference dose by hand, one depth for every
- * organ, a fetus shifted toward the head) becomes a what-if record that the
+ * organ, a fetus shifted toward the head, the bolus left out) becomes a what-if record that the
  * reports put at the top and beside each organ it touches.
  */
 #ifndef STRAYLINE_SCREEN_H
@@ -67,7 +67,8 @@ typedef enum sl_whatif_kind {
     SL_WHATIF_POINTS,     /* the measured points interpolated instead of the fits */
     SL_WHATIF_REFDOSE,    /* the reference dose given by hand, not MU x output */
     SL_WHATIF_DEPTH,      /* one depth for every organ, not the body contour */
-    SL_WHATIF_FETUS_RISE  /* a copy of each fetus shifted toward the head */
+    SL_WHATIF_FETUS_RISE, /* a copy of each fetus shifted toward the head */
+    SL_WHATIF_NO_BOLUS    /* the plan's bolus left out of depths */
 } sl_whatif_kind;
 
 typedef struct sl_whatif {

@@ -100,6 +100,7 @@ static const char help_more[] =
     "                              body contour, in the plan's frame and study\n"
     "      --rtdose-spacing CM     its grid spacing (default 0.4)\n"
     "  -d, --depth CM              a depth for every organ (no body contour)\n"
+    "      --no-bolus              what-if: leave the plan's bolus out of depths\n"
     "      --allow-mismatch        go on when plan and structure set do not belong\n"
     "                              together (every output says so)\n"
     "  -j, --threads N             threads to use (default: every core)\n"
@@ -133,7 +134,8 @@ enum {
     OPT_HTML,
     OPT_PDF,
     OPT_PAPER,
-    OPT_PDF_DICOM
+    OPT_PDF_DICOM,
+    OPT_NO_BOLUS
 };
 
 #define MAX_ITEMS 64
@@ -270,6 +272,7 @@ int sl_cmd_estimate(int argc, char **argv)
         {"sex", required_argument, NULL, OPT_SEX},
         {"include-targets", no_argument, NULL, OPT_TARGETS},
         {"depth", required_argument, NULL, 'd'},
+        {"no-bolus", no_argument, NULL, OPT_NO_BOLUS},
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
         {"tps-dose", required_argument, NULL, OPT_TPS},
         {"tps-zone", required_argument, NULL, OPT_TPS_ZONE},
@@ -467,6 +470,7 @@ int sl_cmd_estimate(int argc, char **argv)
                 return sl_cli_usage("estimate", "--depth needs a depth in cm, not '%s'", optarg);
             break;
         case OPT_MISMATCH: allow_mismatch = true; break;
+        case OPT_NO_BOLUS: lopt.no_bolus = true; break;
         case OPT_TPS:
             if (ntps == MAX_ITEMS)
                 return sl_cli_usage("estimate", "too many --tps-dose files");

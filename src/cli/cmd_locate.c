@@ -31,6 +31,8 @@ static const char help[] =
     "                          geometry\n"
     "  -d, --depth CM          use this depth for every organ (needed when the\n"
     "                          structure set has no EXTERNAL ROI)\n"
+    "      --no-bolus          leave the plan's bolus out of depths (to see what it\n"
+    "                          adds; by default it is counted)\n"
     "      --allow-mismatch    go on when the plan and the structure set do not\n"
     "                          belong together (a warning is written in the output)\n"
     "      --include-external  report the EXTERNAL ROI as an organ too\n"
@@ -39,7 +41,7 @@ static const char help[] =
 
 int sl_cmd_locate(int argc, char **argv)
 {
-    enum { OPT_MISMATCH = 256, OPT_EXTERNAL };
+    enum { OPT_MISMATCH = 256, OPT_EXTERNAL, OPT_NO_BOLUS };
     static const struct option opts[] = {
         {"format", required_argument, NULL, 'f'},
         {"output", required_argument, NULL, 'o'},
@@ -47,6 +49,7 @@ int sl_cmd_locate(int argc, char **argv)
         {"depth", required_argument, NULL, 'd'},
         {"allow-mismatch", no_argument, NULL, OPT_MISMATCH},
         {"include-external", no_argument, NULL, OPT_EXTERNAL},
+        {"no-bolus", no_argument, NULL, OPT_NO_BOLUS},
         {"threads", required_argument, NULL, 'j'},
         {"help", no_argument, NULL, 'h'},
         {NULL, 0, NULL, 0},
@@ -86,6 +89,9 @@ int sl_cmd_locate(int argc, char **argv)
             break;
         case OPT_EXTERNAL:
             lopt.include_external = true;
+            break;
+        case OPT_NO_BOLUS:
+            lopt.no_bolus = true;
             break;
         case 'h':
             fputs(help, stdout);

@@ -2,7 +2,8 @@
  * The estimate on a dose grid over the body (see sl_estimate_grid in
  * include/strayline/dose.h), for an RT Dose that a DICOM viewer shows over
  * the CT. Each voxel is placed as an organ sample is (locate.c: the signed
- * distance in the plane through it, the in-body path from the source) and
+ * distance in the plane through it, the in-body path from the source, the
+ * beam's bolus included: sl_location_depth) and
  * given the model's percent of each beam's reference dose, summed over the
  * fraction groups; the zone of the planning system's dose, when given, is
  * the estimate's (dose.c).
@@ -63,9 +64,7 @@ static void grid_slice(size_t k, void *ctx)
                     continue; /* the model says nothing inside a field */
                 double ax = fabs(q.x), ay = fabs(q.y);
                 sl_eval_query qq = {
-                    e->loc->depth_from_body
-                        ? sl_body_path(j->body, sl_frame_source(&bp->frame), p, NULL)
-                        : e->loc->depth_cm,
+                    sl_location_depth(e->loc, bp, p),
                     dist,
                     bp->field.applicator ? scale * sl_outline_distance(bp->field.applicator, uv)
                                          : NAN,

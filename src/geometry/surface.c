@@ -11,10 +11,12 @@
  * them, so an edge listed in several cells is never counted twice.
  */
 #include "strayline/surface.h"
+#include "strayline/parallel.h"
 #include "strayline/poly2d.h"
 
 #include <float.h>
 #include <math.h>
+#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -52,6 +54,24 @@ static int cmp_double(const void *a, const void *b)
 {
     double x = *(const double *)a, y = *(const double *)b;
     return x < y ? -1 : x > y;
+}
+
+/* Crossings along one piece are few: insertion sort beats a qsort call. */
+static void sort_small(double *v, size_t n)
+{
+    if (n > 16) {
+        qsort(v, n, sizeof *v, cmp_double);
+        return;
+    }
+    for (size_t k = 1; k < n; k++) {
+        double x = v[k];
+        size_t m = k;
+        while (m > 0 && v[m - 1] > x) {
+            v[m] = v[m - 1];
+            m--;
+        }
+        v[m] = x;
+    }
 }
 
 static void slice_free(bslice *s)
@@ -214,8 +234,26 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
     return SL_OK;
 }
 
+typedef struct build_job {
+    const sl_slice_stack *stack;
+    bslice *s;
+    sl_status *st;
+} build_job;
+
+static void build_task(size_t i, void *ctx)
+{
+    build_job *j = ctx;
+    j->st[i] = slice_build(j->stack, &j->stack->slices[i], &j->s[i]);
+}
+
 sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body **out,
                          sl_error *err)
+{
+    return sl_body_create_threads(stack, what, 1, out, err);
+}
+
+sl_status sl_body_create_threads(const sl_slice_stack *stack, const char *what, int threads,
+                                 sl_body **out, sl_error *err)
 {
     *out = NULL;
     if (stack->nslices == 0)
@@ -231,9 +269,19 @@ sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body 
     b->n = stack->nslices;
     b->lo = (sl_vec3){DBL_MAX, DBL_MAX, DBL_MAX};
     b->hi = (sl_vec3){-DBL_MAX, -DBL_MAX, -DBL_MAX};
+    /* slices are independent: built on the threads asked for, then checked
+     * in order, so that the first bad slice is the one named */
+    sl_status *sts = calloc(b->n, sizeof *sts);
+    if (!sts) {
+        sl_body_free(b);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    build_job job = {stack, b->s, sts};
+    sl_parallel_for(b->n, threads == 1 ? 1 : sl_parallel_threads(threads), build_task, &job);
     for (size_t i = 0; i < b->n; i++) {
-        sl_status st = slice_build(stack, &stack->slices[i], &b->s[i]);
+        sl_status st = sts[i];
         if (st != SL_OK) {
+            free(sts);
             double z = stack->slices[i].z_cm;
             sl_body_free(b);
             if (st == SL_EINPUT)
@@ -249,6 +297,7 @@ sl_status sl_body_create(const sl_slice_stack *stack, const char *what, sl_body 
         b->hi.x = fmax(b->hi.x, s->hi.x);
         b->hi.y = fmax(b->hi.y, s->hi.y);
     }
+    free(sts);
     b->lo.z = b->s[0].z_lo;
     b->hi.z = b->s[b->n - 1].z_hi;
     *out = b;
@@ -287,9 +336,27 @@ static bool slice_inside(const bslice *s, sl_vec2 q)
     return in;
 }
 
+/* Where the stretches inside go when they are wanted one by one (for the
+ * union with a bolus): the slice's parameter f maps to base + f * scale. */
+typedef struct span_sink {
+    sl_spans *spans;
+    double base, scale;
+    bool failed;
+} span_sink;
+
+static void sink_put(span_sink *k, double f0, double f1)
+{
+    if (!k || k->failed || !(f1 > f0))
+        return;
+    if (sl_spans_add(k->spans, k->base + f0 * k->scale, k->base + f1 * k->scale) != SL_OK)
+        k->failed = true;
+}
+
 /* In-polygon part of the 2-D segment q0 -> q1 (parameter 0..1): its length
- * as a fraction of the segment, and the first parameter where it is inside. */
-static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *first_in)
+ * as a fraction of the segment, and the first parameter where it is inside.
+ * With a sink, each inside stretch is also handed to it. */
+static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *first_in,
+                            span_sink *sink)
 {
     *first_in = NAN;
     double dx = q1.x - q0.x, dy = q1.y - q0.y;
@@ -323,6 +390,7 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
             if (!s->center_in[c])
                 return 0;
             *first_in = sa;
+            sink_put(sink, sa, sb);
             return sb - sa;
         }
     }
@@ -330,6 +398,7 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
         /* the ray runs along z through this slab: one parity throughout */
         if (slice_inside(s, q0)) {
             *first_in = 0;
+            sink_put(sink, 0, 1);
             return 1;
         }
         return 0;
@@ -369,12 +438,14 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
                 buf[nloc++] = t;
         }
         if (nloc > 1)
-            qsort(buf, nloc, sizeof *buf, cmp_double);
+            sort_small(buf, nloc);
         for (size_t j = 0; j < nloc; j++) {
-            if (in)
+            if (in) {
                 total += buf[j] - last;
-            else if (isnan(*first_in))
+                sink_put(sink, last, buf[j]);
+            } else if (isnan(*first_in)) {
                 *first_in = buf[j];
+            }
             in = !in;
             last = buf[j];
         }
@@ -393,8 +464,10 @@ static double slice_segment(const bslice *s, sl_vec2 q0, sl_vec2 q1, double *fir
     }
     if (buf != local)
         free(buf);
-    if (in)
+    if (in) {
         total += sb - last;
+        sink_put(sink, last, sb);
+    }
     return total;
 }
 
@@ -411,7 +484,9 @@ static size_t slab_at(const sl_body *b, double z)
     return lo;
 }
 
-double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
+/* The path of a -> c inside the body; with spans, each inside stretch is
+ * appended too (segment parameters). */
+static double body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t, sl_spans *spans)
 {
     if (entry_t)
         *entry_t = NAN;
@@ -447,10 +522,11 @@ double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
             return 0;
         sl_vec2 q0 = {a.x + t0 * d[0], a.y + t0 * d[1]}, q1 = {a.x + t1 * d[0], a.y + t1 * d[1]};
         double first;
-        double f = slice_segment(&b->s[i], q0, q1, &first);
+        span_sink sink = {spans, t0, t1 - t0, false};
+        double f = slice_segment(&b->s[i], q0, q1, &first, spans ? &sink : NULL);
         if (entry_t && !isnan(first))
             *entry_t = t0 + first * (t1 - t0);
-        return f * (t1 - t0) * len;
+        return sink.failed ? NAN : f * (t1 - t0) * len;
     }
     /* walk the slabs in the order the segment meets them */
     double za = a.z + t0 * d[2], zb = a.z + t1 * d[2];
@@ -476,12 +552,119 @@ double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
             continue;
         sl_vec2 q0 = {a.x + ta * d[0], a.y + ta * d[1]}, q1 = {a.x + tb * d[0], a.y + tb * d[1]};
         double first;
-        double f = slice_segment(s, q0, q1, &first);
+        span_sink sink = {spans, ta, tb - ta, false};
+        double f = slice_segment(s, q0, q1, &first, spans ? &sink : NULL);
+        if (sink.failed)
+            return NAN;
         if (entry_t && isnan(*entry_t) && !isnan(first))
             *entry_t = ta + first * (tb - ta);
         total += f * (tb - ta) * len;
     }
     return total;
+}
+
+double sl_body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t)
+{
+    return body_path(b, a, c, entry_t, NULL);
+}
+
+sl_status sl_spans_add(sl_spans *s, double t0, double t1)
+{
+    if (s->n + 2 > s->cap) {
+        size_t cap = s->cap ? 2 * s->cap : 32;
+        double *t = s->heap ? realloc(s->t, cap * sizeof *t) : malloc(cap * sizeof *t);
+        if (!t)
+            return SL_ENOMEM;
+        if (!s->heap && s->n)
+            memcpy(t, s->t, s->n * sizeof *t);
+        s->t = t;
+        s->cap = cap;
+        s->heap = true;
+    }
+    s->t[s->n++] = t0;
+    s->t[s->n++] = t1;
+    return SL_OK;
+}
+
+void sl_spans_free(sl_spans *s)
+{
+    if (s->heap)
+        free(s->t);
+    s->t = NULL;
+    s->n = s->cap = 0;
+    s->heap = false;
+}
+
+sl_status sl_body_spans(const sl_body *b, sl_vec3 a, sl_vec3 c, sl_spans *spans)
+{
+    size_t n0 = spans->n;
+    double len = body_path(b, a, c, NULL, spans);
+    if (isnan(len)) {
+        spans->n = n0;
+        return SL_ENOMEM;
+    }
+    return SL_OK;
+}
+
+/* Total length (in segment parameter) of the union of the stretches, and
+ * where the first begins (NAN when none). Sorts them in place. */
+static double spans_union(sl_spans *spp, double *first)
+{
+    sl_spans sp = *spp;
+    /* each body's stretches come in order; together they are sorted by
+     * start (few: insertion sort) and overlaps counted once */
+    size_t np = sp.n / 2;
+    for (size_t i = 1; i < np; i++) {
+        double s0 = sp.t[2 * i], s1 = sp.t[2 * i + 1];
+        size_t j = i;
+        while (j > 0 && sp.t[2 * (j - 1)] > s0) {
+            sp.t[2 * j] = sp.t[2 * (j - 1)];
+            sp.t[2 * j + 1] = sp.t[2 * (j - 1) + 1];
+            j--;
+        }
+        sp.t[2 * j] = s0;
+        sp.t[2 * j + 1] = s1;
+    }
+    double total = 0, cur0 = 0, cur1 = -1;
+    for (size_t i = 0; i < np; i++) {
+        double s0 = sp.t[2 * i], s1 = sp.t[2 * i + 1];
+        if (s0 > cur1) {
+            if (cur1 > cur0)
+                total += cur1 - cur0;
+            cur0 = s0;
+            cur1 = s1;
+        } else if (s1 > cur1) {
+            cur1 = s1;
+        }
+    }
+    if (cur1 > cur0)
+        total += cur1 - cur0;
+    *first = np ? sp.t[0] : NAN;
+    return total;
+}
+
+double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, sl_vec3 c,
+                      double *entry_t)
+{
+    if (nbodies == 1)
+        return sl_body_path(bodies[0], a, c, entry_t);
+    if (entry_t)
+        *entry_t = NAN;
+    double local[64];
+    sl_spans sp = {local, 0, sizeof local / sizeof *local, false};
+    for (size_t i = 0; i < nbodies; i++) {
+        if (sl_body_spans(bodies[i], a, c, &sp) != SL_OK) {
+            sl_spans_free(&sp);
+            return NAN;
+        }
+    }
+    double first;
+    double total = spans_union(&sp, &first);
+    if (entry_t)
+        *entry_t = first;
+    sl_spans_free(&sp);
+    double dx = c.x - a.x, dy = c.y - a.y, dz = c.z - a.z;
+    return total * sqrt(dx * dx + dy * dy + dz * dz);
 }
 
 bool sl_body_contains(const sl_body *b, sl_vec3 p)
@@ -490,4 +673,504 @@ bool sl_body_contains(const sl_body *b, sl_vec3 p)
     if (i >= b->n || p.z < b->s[i].z_lo)
         return false;
     return slice_inside(&b->s[i], (sl_vec2){p.x, p.y});
+}
+
+/* ------------------------------------------------------------- fans -- */
+
+/* The body seen from one source (one beam): every ray from the source
+ * projects onto the axial plane as a ray from the source's projection S2,
+ * the same point for every slab. So each slab's edges are indexed once per
+ * beam by the direction they subtend from S2 (bins uniform in tan of the
+ * angle from a reference direction toward the body), and along one bin the
+ * edges' extents in X (distance along the reference direction, which grows
+ * along every ray of the bin) merge into clusters. Between two clusters no
+ * edge touches the bin's wedge, so the parity there is the same for every
+ * ray of the bin: it is found once, on the bin's centre ray. A query then
+ * walks the slabs as sl_body_path does, and a ray's piece in a slab that
+ * lies between clusters is all in or all out at the cost of a comparison;
+ * only a piece that overlaps a cluster (where the ray crosses the skin)
+ * tests the few edges of its bin, with the same crossing rule as the
+ * grid walk. Exact, like the grid walk: no interpolation. */
+
+#define FAN_TAN_MAX 4.0 /* the body must lie within about 76 degrees of the reference */
+
+typedef struct fan_slice {
+    uint32_t *bin_start; /* nb + 1 */
+    uint32_t *edges;
+    uint32_t *cl_start;  /* nb + 1 */
+    float *cl_lo, *cl_hi;  /* rounded outward: a piece is judged clear of a
+                              cluster only when it is */
+    unsigned char *cl_par; /* parity just beyond each cluster */
+} fan_slice;
+
+struct sl_body_fan {
+    const sl_body *body;
+    sl_vec3 src;
+    sl_vec2 s2, dir, nrm;
+    double tau0, dtau;
+    int nb;
+    double xlo, xfar;
+    double *bin_xlo; /* per bin: the least X of any slab's edge in it (no body before) */
+    fan_slice *fs;
+};
+
+void sl_body_fan_free(sl_body_fan *f)
+{
+    if (!f)
+        return;
+    for (size_t k = 0; f->fs && k < f->body->n; k++) {
+        fan_slice *s = &f->fs[k];
+        free(s->bin_start);
+        free(s->edges);
+        free(s->cl_start);
+        free(s->cl_lo);
+        free(s->cl_hi);
+        free(s->cl_par);
+    }
+    free(f->fs);
+    free(f->bin_xlo);
+    free(f);
+}
+
+static inline void fan_xy(const sl_body_fan *f, sl_vec2 q, double *x, double *y)
+{
+    double dx = q.x - f->s2.x, dy = q.y - f->s2.y;
+    *x = dx * f->dir.x + dy * f->dir.y;
+    *y = dx * f->nrm.x + dy * f->nrm.y;
+}
+
+typedef struct xr {
+    double lo, hi;
+    uint32_t e;
+} xr;
+
+static int cmp_xr(const void *a, const void *b)
+{
+    double x = ((const xr *)a)->lo, y = ((const xr *)b)->lo;
+    return x < y ? -1 : x > y;
+}
+
+/* Scratch space of fan building, reused slab after slab. */
+typedef struct fan_scratch {
+    double *xa, *xb, *ta, *tb; /* per edge */
+    int *j0, *j1;              /* per edge: its first and last bin */
+    size_t ecap;
+    xr *r;                     /* one bin's edges */
+    size_t rcap;
+    uint32_t *fill;            /* nb */
+} fan_scratch;
+
+static sl_status grow(void **p, size_t *cap, size_t n, size_t size)
+{
+    if (n <= *cap)
+        return SL_OK;
+    void *q = realloc(*p, n * size);
+    if (!q)
+        return SL_ENOMEM;
+    *p = q;
+    *cap = n;
+    return SL_OK;
+}
+
+static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs, fan_scratch *w)
+{
+    int nb = f->nb;
+    const double eps = 1e-9;
+    size_t ne = s->ne, ecap = w->ecap;
+    if (ne > ecap) {
+        size_t c = ecap;
+        if (grow((void **)&w->xa, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->xb, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->ta, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->tb, &c, ne, sizeof(double)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->j0, &c, ne, sizeof(int)) != SL_OK)
+            return SL_ENOMEM;
+        c = ecap;
+        if (grow((void **)&w->j1, &c, ne, sizeof(int)) != SL_OK)
+            return SL_ENOMEM;
+        w->ecap = ne;
+    }
+    fs->bin_start = calloc((size_t)nb + 1, sizeof *fs->bin_start);
+    fs->cl_start = calloc((size_t)nb + 1, sizeof *fs->cl_start);
+    if (!fs->bin_start || !fs->cl_start)
+        return SL_ENOMEM;
+    for (size_t i = 0; i < ne; i++) {
+        double ya, yb;
+        fan_xy(f, s->ea[i], &w->xa[i], &ya);
+        fan_xy(f, s->eb[i], &w->xb[i], &yb);
+        w->ta[i] = ya / w->xa[i];
+        w->tb[i] = yb / w->xb[i];
+        int j0 = cell_index((dmin(w->ta[i], w->tb[i]) - eps - f->tau0) / f->dtau, nb);
+        int j1 = cell_index((dmax(w->ta[i], w->tb[i]) + eps - f->tau0) / f->dtau, nb);
+        w->j0[i] = j0;
+        w->j1[i] = j1;
+        for (int j = j0; j <= j1; j++)
+            fs->bin_start[j]++;
+    }
+    size_t total = 0;
+    for (int j = 0; j < nb; j++) {
+        size_t k = fs->bin_start[j];
+        fs->bin_start[j] = (uint32_t)total;
+        w->fill[j] = (uint32_t)total;
+        total += k;
+    }
+    if (total > UINT32_MAX)
+        return SL_ENOMEM;
+    fs->bin_start[nb] = (uint32_t)total;
+    fs->edges = malloc((total ? total : 1) * sizeof *fs->edges);
+    /* at most one cluster an entry */
+    fs->cl_lo = malloc((total ? total : 1) * sizeof *fs->cl_lo);
+    fs->cl_hi = malloc((total ? total : 1) * sizeof *fs->cl_hi);
+    fs->cl_par = malloc(total ? total : 1);
+    if (!fs->edges || !fs->cl_lo || !fs->cl_hi || !fs->cl_par)
+        return SL_ENOMEM;
+    for (size_t i = 0; i < ne; i++)
+        for (int j = w->j0[i]; j <= w->j1[i]; j++)
+            fs->edges[w->fill[j]++] = (uint32_t)i;
+
+    size_t ncl = 0;
+    for (int j = 0; j < nb; j++) {
+        fs->cl_start[j] = (uint32_t)ncl;
+        uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
+        size_t n = e1 - e0;
+        if (n == 0)
+            continue;
+        if (grow((void **)&w->r, &w->rcap, n, sizeof *w->r) != SL_OK)
+            return SL_ENOMEM;
+        xr *r = w->r;
+        for (size_t k = 0; k < n; k++) {
+            uint32_t e = fs->edges[e0 + k];
+            r[k] = (xr){dmin(w->xa[e], w->xb[e]) - eps, dmax(w->xa[e], w->xb[e]) + eps, e};
+        }
+        if (n > 24) {
+            qsort(r, n, sizeof *r, cmp_xr);
+        } else {
+            for (size_t k = 1; k < n; k++) {
+                xr v = r[k];
+                size_t m = k;
+                while (m > 0 && r[m - 1].lo > v.lo) {
+                    r[m] = r[m - 1];
+                    m--;
+                }
+                r[m] = v;
+            }
+        }
+        /* the bin's centre ray, for the parity beyond each cluster */
+        double tc = f->tau0 + (j + 0.5) * f->dtau;
+        unsigned char par = 0;
+        size_t k = 0;
+        while (k < n) {
+            double lo = r[k].lo, hi = r[k].hi;
+            size_t k1 = k;
+            while (k1 < n && r[k1].lo <= hi) {
+                hi = dmax(hi, r[k1].hi);
+                /* the edge crosses the centre ray where its ends lie on
+                 * either side of it (half-open, so a vertex counts once):
+                 * all that the parity in the next gap needs */
+                uint32_t e = r[k1].e;
+                if ((w->ta[e] > tc) != (w->tb[e] > tc))
+                    par ^= 1;
+                k1++;
+            }
+            float flo = (float)lo, fhi = (float)hi;
+            fs->cl_lo[ncl] = (double)flo > lo ? nextafterf(flo, -INFINITY) : flo;
+            fs->cl_hi[ncl] = (double)fhi < hi ? nextafterf(fhi, INFINITY) : fhi;
+            fs->cl_par[ncl] = par;
+            ncl++;
+            k = k1;
+        }
+    }
+    fs->cl_start[nb] = (uint32_t)ncl;
+    /* fewer clusters than entries, usually by far: give the rest back */
+    float *lo = realloc(fs->cl_lo, (ncl ? ncl : 1) * sizeof *lo);
+    if (lo)
+        fs->cl_lo = lo;
+    float *hi = realloc(fs->cl_hi, (ncl ? ncl : 1) * sizeof *hi);
+    if (hi)
+        fs->cl_hi = hi;
+    unsigned char *par = realloc(fs->cl_par, ncl ? ncl : 1);
+    if (par)
+        fs->cl_par = par;
+    return SL_OK;
+}
+
+/* Slabs are indexed independently: a task a run of slabs, each task with
+ * its own scratch space. */
+#define FAN_TASK_SLABS 16
+
+typedef struct fan_job {
+    sl_body_fan *f;
+    sl_status *st;
+} fan_job;
+
+static void fan_task(size_t t, void *ctx)
+{
+    fan_job *j = ctx;
+    const sl_body *b = j->f->body;
+    fan_scratch w = {0};
+    w.fill = malloc((size_t)j->f->nb * sizeof *w.fill);
+    sl_status st = w.fill ? SL_OK : SL_ENOMEM;
+    size_t end = (t + 1) * FAN_TASK_SLABS < b->n ? (t + 1) * FAN_TASK_SLABS : b->n;
+    for (size_t k = t * FAN_TASK_SLABS; k < end && st == SL_OK; k++)
+        st = fan_slice_build(j->f, &b->s[k], &j->f->fs[k], &w);
+    free(w.xa);
+    free(w.xb);
+    free(w.ta);
+    free(w.tb);
+    free(w.j0);
+    free(w.j1);
+    free(w.r);
+    free(w.fill);
+    j->st[t] = st;
+}
+
+sl_status sl_body_fan_create(const sl_body *b, sl_vec3 source, int threads, sl_body_fan **out,
+                             sl_error *err)
+{
+    *out = NULL;
+    sl_vec2 s2 = {source.x, source.y};
+    double cx = 0.5 * (b->lo.x + b->hi.x) - s2.x, cy = 0.5 * (b->lo.y + b->hi.y) - s2.y;
+    double cn = sqrt(cx * cx + cy * cy);
+    if (!(cn > 0))
+        return SL_OK; /* a source above the body's middle (a beam along z): no fan */
+    sl_body_fan *f = calloc(1, sizeof *f);
+    if (!f)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    f->body = b;
+    f->src = source;
+    f->s2 = s2;
+    f->dir = (sl_vec2){cx / cn, cy / cn};
+    f->nrm = (sl_vec2){-f->dir.y, f->dir.x};
+    /* every slab lies in the body's box: its corners bound X and tan */
+    double tlo = INFINITY, thi = -INFINITY, xlo = INFINITY, xhi = -INFINITY;
+    const sl_vec2 corners[4] = {{b->lo.x, b->lo.y}, {b->hi.x, b->lo.y}, {b->hi.x, b->hi.y},
+                                {b->lo.x, b->hi.y}};
+    for (int k = 0; k < 4; k++) {
+        double x, y;
+        fan_xy(f, corners[k], &x, &y);
+        if (!(x > 0) || fabs(y / x) > FAN_TAN_MAX) {
+            free(f);
+            return SL_OK; /* the source is too close to the body, or beside it: no fan */
+        }
+        tlo = dmin(tlo, y / x);
+        thi = dmax(thi, y / x);
+        xlo = dmin(xlo, x);
+        xhi = dmax(xhi, x);
+    }
+    size_t maxe = 0;
+    for (size_t k = 0; k < b->n; k++)
+        maxe = b->s[k].ne > maxe ? b->s[k].ne : maxe;
+    /* about one bin an edge: few edges a bin, few bins an edge */
+    f->nb = (int)(maxe / 2 < 64 ? 64 : maxe / 2 > 16384 ? 16384 : maxe / 2);
+    double pad = 1e-6 * (thi - tlo) + 1e-12;
+    f->tau0 = tlo - pad;
+    f->dtau = (thi - tlo + 2 * pad) / f->nb;
+    f->xlo = xlo;
+    f->xfar = xhi + 1;
+    f->fs = calloc(b->n, sizeof *f->fs);
+    if (!f->fs) {
+        free(f);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    size_t ntasks = (b->n + FAN_TASK_SLABS - 1) / FAN_TASK_SLABS;
+    sl_status *tst = calloc(ntasks, sizeof *tst);
+    sl_status st = tst ? SL_OK : SL_ENOMEM;
+    if (tst) {
+        fan_job job = {f, tst};
+        sl_parallel_for(ntasks, sl_parallel_threads(threads), fan_task, &job);
+        for (size_t t = 0; t < ntasks; t++)
+            if (tst[t] != SL_OK)
+                st = tst[t];
+        free(tst);
+    }
+    if (st == SL_OK && !(f->bin_xlo = malloc((size_t)f->nb * sizeof *f->bin_xlo)))
+        st = SL_ENOMEM;
+    if (st != SL_OK) {
+        sl_body_fan_free(f);
+        return sl_error_set(err, SL_ENOMEM, "out of memory indexing the body for a beam");
+    }
+    /* a ray's pieces before the first edge of its bin in any slab are
+     * outside: the walk starts there */
+    for (int j = 0; j < f->nb; j++)
+        f->bin_xlo[j] = INFINITY;
+    for (size_t k = 0; k < b->n; k++)
+        for (int j = 0; j < f->nb; j++)
+            if (f->fs[k].cl_start[j] < f->fs[k].cl_start[j + 1])
+                f->bin_xlo[j] = dmin(f->bin_xlo[j], f->fs[k].cl_lo[f->fs[k].cl_start[j]]);
+    *out = f;
+    return SL_OK;
+}
+
+/* The in-body part (as a fraction of t) of the piece [ta, tb] of the ray
+ * S -> p in slab k; xp is p's X, far the end of the bin's crossing segment
+ * (X = xfar) on the ray's own direction. */
+static double fan_piece(const sl_body_fan *f, size_t k, int j, double ta, double tb, double xp,
+                        sl_vec2 far, double *first_in, span_sink *sink)
+{
+    const fan_slice *fs = &f->fs[k];
+    double xa = ta * xp, xb = tb * xp;
+    unsigned char par = 0;
+    for (uint32_t c = fs->cl_start[j]; c < fs->cl_start[j + 1]; c++) {
+        if (xb <= fs->cl_lo[c])
+            break;
+        if (xa >= fs->cl_hi[c]) {
+            par = fs->cl_par[c];
+            continue;
+        }
+        /* the piece meets the edges: cross them, as the grid walk does */
+        const bslice *s = &f->body->s[k];
+        double local[LOCAL_EDGES];
+        uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
+        double *buf = local;
+        if (e1 - e0 > LOCAL_EDGES) {
+            buf = malloc((e1 - e0) * sizeof *buf);
+            if (!buf)
+                return NAN;
+        }
+        size_t n = 0;
+        double scale = f->xfar / xp; /* segment parameter to t */
+        for (uint32_t q = e0; q < e1; q++) {
+            uint32_t e = fs->edges[q];
+            double sp;
+            if (sl_p2_crosses(f->s2, far, s->ea[e], s->eb[e], &sp))
+                buf[n++] = sp * scale;
+        }
+        if (n > 1)
+            sort_small(buf, n);
+        bool in = false;
+        size_t i = 0;
+        for (; i < n && buf[i] < ta; i++)
+            in = !in;
+        double total = 0, last = ta;
+        if (in && isnan(*first_in))
+            *first_in = ta;
+        for (; i < n && buf[i] < tb; i++) {
+            if (in) {
+                total += buf[i] - last;
+                sink_put(sink, last, buf[i]);
+            } else if (isnan(*first_in)) {
+                *first_in = buf[i];
+            }
+            in = !in;
+            last = buf[i];
+        }
+        if (in) {
+            total += tb - last;
+            sink_put(sink, last, tb);
+        }
+        if (buf != local)
+            free(buf);
+        return total;
+    }
+    if (!par)
+        return 0;
+    if (isnan(*first_in))
+        *first_in = ta;
+    sink_put(sink, ta, tb);
+    return tb - ta;
+}
+
+/* As body_path, through the fan. */
+static double fan_path(const sl_body_fan *f, sl_vec3 p, double *entry_t, sl_spans *spans)
+{
+    if (entry_t)
+        *entry_t = NAN;
+    const sl_body *b = f->body;
+    sl_vec3 a = f->src;
+    double d[3] = {p.x - a.x, p.y - a.y, p.z - a.z};
+    double len = sqrt(d[0] * d[0] + d[1] * d[1] + d[2] * d[2]);
+    double xp, yp;
+    fan_xy(f, (sl_vec2){p.x, p.y}, &xp, &yp);
+    if (!(xp > f->xlo) || len == 0)
+        return 0; /* the ray ends before the body's box */
+    double tau = yp / xp;
+    double fj = (tau - f->tau0) / f->dtau;
+    if (!(fj >= 0 && fj < f->nb))
+        return 0; /* it passes beside the body */
+    int j = (int)fj;
+    if (!(xp > f->bin_xlo[j]))
+        return 0; /* the ray ends before any edge of its bin */
+    sl_vec2 far = {f->s2.x + (f->xfar / xp) * d[0], f->s2.y + (f->xfar / xp) * d[1]};
+    double t0 = dmax(f->xlo, f->bin_xlo[j]) / xp, t1 = 1;
+    /* sink in t directly: base 0, scale 1 */
+    span_sink sink = {spans, 0, 1, false};
+    span_sink *sk = spans ? &sink : NULL;
+    double first = NAN, total = 0;
+    if (d[2] == 0) {
+        size_t i = slab_at(b, a.z);
+        if (i >= b->n || a.z < b->s[i].z_lo)
+            return 0;
+        total = fan_piece(f, i, j, t0, t1, xp, far, &first, sk);
+    } else {
+        double z0 = a.z + t0 * d[2], z1 = p.z;
+        bool up = d[2] > 0;
+        double zlo = up ? z0 : z1, zhi = up ? z1 : z0;
+        if (zhi <= b->lo.z || zlo >= b->hi.z)
+            return 0;
+        size_t i = slab_at(b, zlo);
+        size_t iend = slab_at(b, zhi);
+        if (iend >= b->n)
+            iend = b->n - 1;
+        if (i >= b->n)
+            return 0;
+        for (size_t step = 0; step <= iend - i; step++) {
+            size_t k = up ? i + step : iend - step;
+            const bslice *s = &b->s[k];
+            double ta = (s->z_lo - a.z) / d[2], tb = (s->z_hi - a.z) / d[2];
+            if (ta > tb) {
+                double t = ta;
+                ta = tb;
+                tb = t;
+            }
+            ta = dmax(ta, t0);
+            tb = dmin(tb, t1);
+            if (!(ta < tb))
+                continue;
+            double piece = fan_piece(f, k, j, ta, tb, xp, far, &first, sk);
+            if (isnan(piece))
+                return NAN;
+            total += piece;
+        }
+    }
+    if (isnan(total) || sink.failed)
+        return NAN;
+    if (entry_t)
+        *entry_t = first;
+    return total * len;
+}
+
+double sl_body_fan_path(const sl_body_fan *f, sl_vec3 p, double *entry_t)
+{
+    return fan_path(f, p, entry_t, NULL);
+}
+
+double sl_fans_path(const sl_body_fan *const *fans, size_t nfans, sl_vec3 p, double *entry_t)
+{
+    if (nfans == 1)
+        return fan_path(fans[0], p, entry_t, NULL);
+    if (entry_t)
+        *entry_t = NAN;
+    double local[64];
+    sl_spans sp = {local, 0, sizeof local / sizeof *local, false};
+    for (size_t i = 0; i < nfans; i++) {
+        if (isnan(fan_path(fans[i], p, NULL, &sp))) {
+            sl_spans_free(&sp);
+            return NAN;
+        }
+    }
+    double first;
+    double total = spans_union(&sp, &first);
+    if (entry_t)
+        *entry_t = first;
+    sl_spans_free(&sp);
+    double dx = p.x - fans[0]->src.x, dy = p.y - fans[0]->src.y, dz = p.z - fans[0]->src.z;
+    return total * sqrt(dx * dx + dy * dy + dz * dz);
 }

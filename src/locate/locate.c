@@ -3,12 +3,15 @@
  *
  * Order of work: sample every organ once (beam-independent, in patient
  * coordinates), then for each beam build its frame and field outline, project
- * all samples to find the region the outline index must cover, index it, and
- * place the samples in chunks spread over the cores. Then each organ's
+ * all samples to find the region the outline index must cover, index it,
+ * index the body and the beam's bolus for rays from its source (fans,
+ * surface.h: the grid walk's depths at a third of its cost), and place the
+ * samples in chunks spread over the cores. Then each organ's
  * outline is searched between its outline samples near the field (below).
  * Summaries come last, on one thread, so they do not depend on how the
  * chunks were scheduled.
  */
+#include "bolus.h"
 #include "strayline/locate.h"
 #include "strayline/parallel.h"
 #include "strayline/slices.h"
@@ -53,8 +56,10 @@ void sl_location_free(sl_location *loc)
             organ_place_free(&bp->organs[i]);
         free(bp->organs);
         sl_field_free(&bp->field);
+        /* boli and parts: sl_locate_bolus_free */
         sl_notes_free(&bp->notes);
     }
+    sl_locate_bolus_free(loc);
     free(loc->beams);
     for (size_t i = 0; loc->samples && i < loc->norgans; i++)
         sl_organ_samples_free(&loc->samples[i]);
@@ -91,6 +96,8 @@ typedef struct place_job {
     size_t ntasks;
     size_t *task_organ;
     size_t *task_first;
+    const sl_body_fan *const *fans; /* the depth solids indexed for this beam; NULL: trace */
+    size_t nfans;
 } place_job;
 
 static void place_task(size_t t, void *ctx)
@@ -101,7 +108,6 @@ static void place_task(size_t t, void *ctx)
     sl_organ_place *p = &j->bp->organs[o];
     size_t last = first + CHUNK < s->n ? first + CHUNK : s->n;
     const sl_frame *f = &j->bp->frame;
-    sl_vec3 src = sl_frame_source(f);
     for (size_t i = first; i < last; i++) {
         sl_vec3 b = sl_frame_to_bld(f, s->points[i]);
         sl_vec2 uv;
@@ -117,7 +123,8 @@ static void place_task(size_t t, void *ctx)
                                     ? scale * sl_outline_distance(j->bp->field.applicator, uv)
                                     : NAN;
         if (j->body) {
-            p->depth_cm[i] = sl_body_path(j->body, src, s->points[i], NULL);
+            p->depth_cm[i] = j->fans ? sl_fans_path(j->fans, j->nfans, s->points[i], NULL)
+                                     : sl_location_depth(j->loc, j->bp, s->points[i]);
             if (!sl_body_contains(j->body, s->points[i]))
                 flags |= SL_SAMPLE_OUTSIDE_BODY;
         } else {
@@ -298,16 +305,17 @@ static void summarise(const sl_organ_samples *s, sl_organ_place *p)
     p->outside_body_fraction = vout / vsum;
 }
 
-/* Entry of the ray from the source through iso-plane point (u, v). */
-static bool ray_entry(const sl_frame *f, const sl_body *body, double u, double v, sl_vec3 *entry,
-                      double *dist)
+/* Entry of the ray from the source through iso-plane point (u, v) into the
+ * body or the beam's bolus on it. */
+static bool ray_entry(const sl_beam_place *bp, double u, double v, sl_vec3 *entry, double *dist)
 {
+    const sl_frame *f = &bp->frame;
     sl_vec3 src = sl_frame_source(f);
     sl_vec3 iso_pt = sl_frame_iso_plane_point(f, u, v);
     sl_vec3 far = {src.x + 3 * (iso_pt.x - src.x), src.y + 3 * (iso_pt.y - src.y),
                    src.z + 3 * (iso_pt.z - src.z)};
     double t;
-    sl_body_path(body, src, far, &t);
+    sl_bodies_path((const sl_body *const *)bp->parts, bp->nparts, src, far, &t);
     if (isnan(t))
         return false;
     *entry = (sl_vec3){src.x + t * (far.x - src.x), src.y + t * (far.y - src.y),
@@ -317,13 +325,13 @@ static bool ray_entry(const sl_frame *f, const sl_body *body, double u, double v
     return true;
 }
 
-static void central_axis(sl_beam_place *bp, const sl_body *body, const char *file)
+static void central_axis(sl_beam_place *bp, const char *file)
 {
     bp->ssd_found_cm = NAN;
     bp->obliquity_deg = NAN;
     const sl_frame *f = &bp->frame;
     double dist;
-    if (!ray_entry(f, body, 0, 0, &bp->entry_cm, &dist)) {
+    if (!ray_entry(bp, 0, 0, &bp->entry_cm, &dist)) {
         sl_notes_add(&bp->notes, "%s: beam %d: the central axis does not enter the body",
                      file, bp->beam->number);
         return;
@@ -332,14 +340,14 @@ static void central_axis(sl_beam_place *bp, const sl_body *body, const char *fil
     bp->ssd_found_cm = dist;
     if (isfinite(bp->ssd_plan_cm) && fabs(dist - bp->ssd_plan_cm) > SL_SSD_WARN_CM)
         sl_notes_add(&bp->notes,
-                     "%s: beam %d: the SSD found on the body contour is %.1f cm, the plan says "
-                     "%.1f cm (more than %.0f cm apart)",
-                     file, bp->beam->number, dist, bp->ssd_plan_cm, SL_SSD_WARN_CM);
+                     "%s: beam %d: the SSD found on the body contour%s is %.1f cm, the plan "
+                     "says %.1f cm (more than %.0f cm apart)",
+                     file, bp->beam->number, bp->nparts > 1 ? " with its bolus" : "", dist, bp->ssd_plan_cm, SL_SSD_WARN_CM);
     sl_vec3 e[4];
     const double h = OBLIQUITY_BASE_CM;
     const double uv[4][2] = {{h, 0}, {-h, 0}, {0, h}, {0, -h}};
     for (int k = 0; k < 4; k++) {
-        if (!ray_entry(f, body, uv[k][0], uv[k][1], &e[k], &dist)) {
+        if (!ray_entry(bp, uv[k][0], uv[k][1], &e[k], &dist)) {
             sl_notes_add(&bp->notes,
                          "%s: beam %d: the body surface near the central axis is too small to "
                          "find its obliquity",
@@ -357,6 +365,44 @@ static void central_axis(sl_beam_place *bp, const sl_body *body, const char *fil
     sl_vec3 d = sl_frame_direction(f);
     double c = fabs(n[0] * d.x + n[1] * d.y + n[2] * d.z) / nn;
     bp->obliquity_deg = acos(fmin(1.0, c)) * 180.0 / M_PI;
+}
+
+/* Depths set by option: a bolus in the plan plays no part; say so. */
+static void bolus_unused_note(const sl_plan *plan, const sl_structure_set *ss, sl_location *loc)
+{
+    bool any = false;
+    for (size_t b = 0; b < plan->nbeams; b++)
+        any = any || plan->beams[b].nboli > 0;
+    for (size_t i = 0; i < ss->nrois; i++)
+        any = any || (ss->rois[i].type && strcmp(ss->rois[i].type, "BOLUS") == 0);
+    if (any)
+        sl_notes_add(&loc->notes, "the plan has bolus, but every depth is set by option: the "
+                                  "bolus is not counted");
+}
+
+/* The beam's depth solids (the body and its bolus) indexed for rays from
+ * its source (surface.h): the same depths as tracing, several times
+ * faster. *fans stays NULL when a solid cannot be indexed from this source
+ * (a beam along the patient's axis): the samples are traced then. */
+static sl_status depth_fans(const sl_beam_place *bp, int threads, sl_body_fan ***fans,
+                            sl_error *err)
+{
+    *fans = NULL;
+    sl_body_fan **f = calloc(bp->nparts ? bp->nparts : 1, sizeof *f);
+    if (!f)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    sl_vec3 src = sl_frame_source(&bp->frame);
+    for (size_t k = 0; k < bp->nparts; k++) {
+        sl_status st = sl_body_fan_create(bp->parts[k], src, threads, &f[k], err);
+        if (st != SL_OK || !f[k]) {
+            for (size_t i = 0; i < k; i++)
+                sl_body_fan_free(f[i]);
+            free(f);
+            return st;
+        }
+    }
+    *fans = f;
+    return SL_OK;
 }
 
 static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam *beam,
@@ -426,12 +472,17 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
         return st;
 
     place_job job = {loc, bp, body, ntasks, malloc((ntasks ? ntasks : 1) * sizeof(size_t)),
-                     malloc((ntasks ? ntasks : 1) * sizeof(size_t))};
-    if (!job.task_organ || !job.task_first) {
+                     malloc((ntasks ? ntasks : 1) * sizeof(size_t)), NULL, 0};
+    sl_body_fan **fans = NULL;
+    if (job.task_organ && job.task_first && body)
+        st = depth_fans(bp, opt->threads, &fans, err);
+    if (!job.task_organ || !job.task_first || st != SL_OK) {
         free(job.task_organ);
         free(job.task_first);
-        return sl_error_set(err, SL_ENOMEM, "out of memory");
+        return st != SL_OK ? st : sl_error_set(err, SL_ENOMEM, "out of memory");
     }
+    job.fans = (const sl_body_fan *const *)fans;
+    job.nfans = fans ? bp->nparts : 0;
     size_t t = 0;
     for (size_t o = 0; o < loc->norgans; o++) {
         for (size_t first = 0; first < loc->samples[o].n; first += CHUNK) {
@@ -443,6 +494,9 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
     free(job.task_organ);
     free(job.task_first);
+    for (size_t k = 0; fans && k < bp->nparts; k++)
+        sl_body_fan_free(fans[k]);
+    free(fans);
     refine_job rj = {loc, bp};
     sl_parallel_for(loc->norgans, sl_parallel_threads(opt->threads), refine_task, &rj);
     for (size_t o = 0; body && o < loc->norgans; o++)
@@ -459,13 +513,16 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
                          "and are not placed",
                          plan->source, beam->number, loc->rois[o]->name,
                          bp->organs[o].behind_source);
-        if (bp->organs[o].outside_body_fraction >= SL_OUTSIDE_BODY_NOTE)
+        /* bolus lies on the skin, outside the body contour by nature */
+        const char *type = loc->rois[o]->type;
+        if (bp->organs[o].outside_body_fraction >= SL_OUTSIDE_BODY_NOTE &&
+            !(type && strcmp(type, "BOLUS") == 0))
             sl_notes_add(&bp->notes,
                          "ROI '%s': %.1f %% of its volume lies outside the body contour",
                          loc->rois[o]->name, 100 * bp->organs[o].outside_body_fraction);
     }
     if (body)
-        central_axis(bp, body, plan->source);
+        central_axis(bp, plan->source);
     return SL_OK;
 }
 
@@ -546,6 +603,8 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
     }
 
     sl_body *body = NULL;
+    if (!loc->depth_from_body)
+        bolus_unused_note(plan, ss, loc);
     if (loc->depth_from_body) {
         sl_slice_stack stack;
         st = sl_slices_build(loc->external, ss->source, loc->slice_spacing_cm, &stack, err);
@@ -553,19 +612,19 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
             char what[256];
             snprintf(what, sizeof what, "%s: EXTERNAL ROI '%s'", ss->source,
                      loc->external->name);
-            st = sl_body_create(&stack, what, &body, err);
+            st = sl_body_create_threads(&stack, what, opt->threads, &body, err);
             sl_slices_free(&stack);
         }
         if (st != SL_OK) {
             sl_location_free(loc);
             return st;
         }
+        loc->body = body; /* kept for sl_location_depth */
     }
 
     loc->beams = calloc(plan->nbeams ? plan->nbeams : 1, sizeof *loc->beams);
     loc->skipped = calloc(plan->nbeams ? plan->nbeams : 1, sizeof *loc->skipped);
     if (!loc->beams || !loc->skipped) {
-        sl_body_free(body);
         sl_location_free(loc);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
@@ -576,9 +635,21 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
             loc->skipped[loc->nskipped++] = (sl_skipped_beam){beam->number, beam->name, why};
             continue;
         }
-        st = place_beam(loc, plan, beam, body, opt, &loc->beams[loc->nbeams++], err);
+        sl_beam_place *bp = &loc->beams[loc->nbeams++];
+        bp->beam = beam;
+        if (body)
+            st = sl_locate_bolus(loc, ss, opt, bp, err);
+        if (st == SL_OK)
+            st = place_beam(loc, plan, beam, body, opt, bp, err);
     }
-    sl_body_free(body);
+    if (st == SL_OK && body && opt->no_bolus) {
+        bool any = false;
+        for (size_t b = 0; b < loc->nbeams; b++)
+            any = any || loc->beams[b].nboli > 0;
+        if (!any)
+            sl_notes_add(&loc->notes, "no beam has bolus: leaving it out by option changes "
+                                      "nothing");
+    }
     if (st == SL_OK && loc->nbeams == 0)
         st = sl_error_set(err, SL_EINPUT, "%s: no TREATMENT electron beam to place",
                           plan->source);

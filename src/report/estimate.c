@@ -604,7 +604,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
     jw_put(w, res, "organs", vl);
     json_object *wl = json_object_new_array();
     static const char *const wk[] = {"shield", "measured_points", "reference_dose_by_hand",
-                                     "depth_by_hand", "fetus_shift"};
+                                     "depth_by_hand", "fetus_shift", "no_bolus"};
     for (size_t i = 0; i < r->nwhatifs; i++) {
         json_object *x = json_object_new_object();
         jw_str(w, x, "kind", wk[r->whatifs[i].kind]);

@@ -63,6 +63,20 @@ static void text_report(FILE *fp, const sl_plan *plan, const sl_structure_set *s
         fprintf(fp, " cm; surface obliquity");
         text_num(fp, 0, 1, bp->obliquity_deg);
         fprintf(fp, " deg\n");
+        if (bp->nboli) {
+            fprintf(fp, "  bolus");
+            for (size_t i = 0; i < bp->nboli; i++) {
+                char bn[160];
+                fprintf(fp, "%s '%s'", i ? "," : "",
+                        sl_text_escape(bp->boli[i]->name, bn, sizeof bn));
+            }
+            fprintf(fp, " (%s): %s\n",
+                    bp->boli_from == SL_BOLUS_REFERENCED ? "named by the beam"
+                                                         : "typed BOLUS, not named by the beam",
+                    !loc->depth_from_body ? "not counted, every depth is set by option"
+                    : bp->boli_counted    ? "counted in depths and in the SSD found"
+                                          : "left out of depths by option");
+        }
         fprintf(fp, "  %-20s %-10s %9s %7s %9s %9s %9s %9s %9s %8s %9s  %s\n", "ROI", "type",
                 "volume", "samples", "dist min", "dist mean", "dist max", "depth min",
                 "depth max", "in field", "applic.", "note");
@@ -143,6 +157,17 @@ static json_object *json_report(jw *w, const sl_plan *plan, const sl_structure_s
             jw_put(w, bo, "entry_point_cm", vec3(w, bp->entry_cm, "entry_point_cm"));
         else
             jw_put(w, bo, "entry_point_cm", NULL);
+        json_object *bol = json_object_new_object();
+        json_object *bnames = json_object_new_array();
+        for (size_t i = 0; i < bp->nboli; i++)
+            jw_append(w, bnames, json_object_new_string(bp->boli[i]->name));
+        jw_put(w, bol, "rois", bnames);
+        jw_str(w, bol, "source",
+               bp->boli_from == SL_BOLUS_REFERENCED ? "referenced by the beam"
+               : bp->boli_from == SL_BOLUS_TYPED    ? "typed BOLUS, not referenced"
+                                                    : NULL);
+        jw_bool(w, bol, "counted", bp->nboli > 0 && bp->boli_counted && loc->depth_from_body);
+        jw_put(w, bo, "bolus", bol);
         jw_str(w, bo, "field_source", sl_field_source_name(bp->field.source));
         jw_num(w, bo, "field_area_cm2", bp->field.area_cm2);
         json_object *organs = json_object_new_array();

@@ -220,6 +220,34 @@ size_t est_verdict(const sl_estimate_report *r, est_ventry **out)
     return n;
 }
 
+/* Bolus counted in depths moves every depth of its beam: say so, and say
+ * when the beam did not name it (the plan may use it on other beams only). */
+static void bolus_cautions(const sl_location *loc, sl_notes *out)
+{
+    for (size_t b = 0; loc && loc->depth_from_body && b < loc->nbeams; b++) {
+        const sl_beam_place *bp = &loc->beams[b];
+        if (!bp->boli_counted || bp->nboli == 0)
+            continue;
+        sl_buf names = {0};
+        for (size_t i = 0; i < bp->nboli; i++) {
+            char nm[160];
+            sl_buf_printf(&names, "%s'%s'", i ? ", " : "",
+                          sl_text_escape(bp->boli[i]->name, nm, sizeof nm));
+        }
+        const char *list = names.data && !names.failed ? names.data : "";
+        if (bp->boli_from == SL_BOLUS_REFERENCED)
+            sl_notes_add(out, "beam %d: bolus %s (named by the beam) is counted in the depths "
+                              "as tissue on the skin (--no-bolus shows the difference)",
+                         bp->beam->number, list);
+        else
+            sl_notes_add(out, "beam %d: the beam names no bolus, but %s %s typed BOLUS: counted "
+                              "in the depths as tissue on the skin; check it is on for this "
+                              "beam (--no-bolus shows the difference)",
+                         bp->beam->number, list, bp->nboli > 1 ? "are" : "is");
+        sl_buf_free(&names);
+    }
+}
+
 void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
 {
     const sl_estimate *e = r->est;
@@ -230,6 +258,7 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
                               "stand-in is used (it errs high); measure the cutout's profiles",
                          bd->place->beam->number);
     }
+    bolus_cautions(r->loc, out);
     static const struct {
         unsigned flag;
         const char *text;

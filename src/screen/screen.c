@@ -89,6 +89,34 @@ static void record_whatifs(sl_screen *s, const sl_screen_request *req)
                  req->locate.depth_cm);
 }
 
+/* What-if: the bolus the plan has, left out of depths. Known only once the
+ * fields are placed (which bolus each beam has); without any bolus the
+ * option changes nothing and locate's note says so. */
+static void record_no_bolus(sl_screen *s)
+{
+    const sl_location *loc = s->loc;
+    if (!loc->depth_from_body)
+        return;
+    char list[200] = "";
+    size_t len = 0;
+    bool any = false;
+    for (size_t b = 0; b < loc->nbeams; b++) {
+        const sl_beam_place *bp = &loc->beams[b];
+        if (bp->boli_counted || bp->nboli == 0)
+            continue;
+        any = true;
+        for (size_t i = 0; i < bp->nboli && len < sizeof list; i++) {
+            int n = snprintf(list + len, sizeof list - len, "%s'%s' (beam %d)", len ? ", " : "",
+                             bp->boli[i]->name, bp->beam->number);
+            len += n > 0 ? (size_t)n : 0;
+        }
+    }
+    if (!any)
+        return;
+    snprintf(add_whatif(s, SL_WHATIF_NO_BOLUS, NULL)->text, sizeof s->whatifs[0].text,
+             "bolus left out of the depths: %s; the plan as delivered has it", list);
+}
+
 /* A point typed in the wrong unit lands somewhere plausible-looking: warn
  * when it lies outside the body contour or far from every ROI of the scan. */
 #define POINT_FAR_MM 100.0
@@ -208,7 +236,7 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
     }
     /* fetus copies: at most one per ROI of the scan */
     size_t maxmap = req->nmap + req->npoints + req->nlandmarks + ss->nrois;
-    size_t maxwhat = req->estimate.nshields + 4 + ss->nrois;
+    size_t maxwhat = req->estimate.nshields + 5 + ss->nrois;
     s->map = calloc(maxmap ? maxmap : 1, sizeof *s->map);
     s->names = calloc(ss->nrois ? ss->nrois : 1, sizeof *s->names);
     s->whatifs = calloc(maxwhat, sizeof *s->whatifs);
@@ -240,8 +268,10 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
         goto fail;
     lopt.catalogue = s->catalogue;
     eopt.model = req->model;
-    if ((st = sl_locate(plan, ss, &lopt, &s->loc, err)) != SL_OK ||
-        (st = sl_estimate_doses(plan, ss, s->loc, &eopt, &s->est, err)) != SL_OK)
+    if ((st = sl_locate(plan, ss, &lopt, &s->loc, err)) != SL_OK)
+        goto fail;
+    record_no_bolus(s);
+    if ((st = sl_estimate_doses(plan, ss, s->loc, &eopt, &s->est, err)) != SL_OK)
         goto fail;
     for (size_t i = 0; i < req->nlandmarks; i++) {
         const sl_screen_landmark *l = &req->landmarks[i];

@@ -7,7 +7,10 @@
  * cutouts, then times sl_locate on one thread and on every core, reports
  * samples per second and the peak resident memory, and times the placement
  * with 8-, 200- and 2000-vertex cutouts to show that the cost of a sample
- * does not grow with the cutout.
+ * does not grow with the cutout. It also traces every sample's depth again
+ * through the body's grid walk (sl_location_depth, the tracer locate used
+ * before its per-beam fans) and prints the largest difference, which must
+ * be rounding only.
  *
  * Run: meson test -C build --benchmark -v   (or ./build/tests/bench_locate)
  * Targets: the whole locate under 1 s and 512 MB on a 2-core machine.
@@ -146,6 +149,27 @@ static size_t total_samples(const sl_location *loc)
     return n;
 }
 
+/* Largest difference between the depths locate gave and the grid walk's. */
+static double depth_check(const sl_location *loc, size_t *checked)
+{
+    double worst = 0;
+    *checked = 0;
+    for (size_t b = 0; b < loc->nbeams; b++) {
+        const sl_beam_place *bp = &loc->beams[b];
+        for (size_t o = 0; o < loc->norgans; o++) {
+            const sl_organ_samples *s = &loc->samples[o];
+            for (size_t i = 0; i < s->n; i++) {
+                if (bp->organs[o].flags[i] & SL_SAMPLE_BEHIND_SOURCE)
+                    continue;
+                double d = sl_location_depth(loc, bp, s->points[i]);
+                worst = fmax(worst, fabs(d - bp->organs[o].depth_cm[i]));
+                (*checked)++;
+            }
+        }
+    }
+    return worst;
+}
+
 int main(void)
 {
     sl_structure_set *ss = make_structures();
@@ -172,6 +196,13 @@ int main(void)
         printf("locate, 200-vertex cutouts, %d thread%s: %.3f s wall, %zu organ samples, "
                "%.2f million sample-beams/s\n",
                threads, threads > 1 ? "s" : "", t, n, 3.0 * n / t / 1e6);
+        if (pass == 0) {
+            size_t checked;
+            double worst = depth_check(loc, &checked);
+            printf("depths of %zu sample-beams traced again by the grid walk: largest "
+                   "difference %.3g cm\n",
+                   checked, worst);
+        }
         sl_location_free(loc);
         sl_plan_free(plan);
     }

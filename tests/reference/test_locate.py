@@ -277,6 +277,105 @@ class BoxPhantom(unittest.TestCase):
                         beam["warnings"])
 
 
+class Bolus(unittest.TestCase):
+    """A bolus of known thickness on the box phantom's anterior surface
+    (y = 0, HFS): a slab of tissue-equivalent material the beam crosses
+    before the skin. On the central axis the depth of a POINT organ grows by
+    exactly the bolus thickness; off the axis by the thickness times the
+    slant factor L / (100 + z) of the ray (hand geometry: the ray from the
+    source at 100 cm through a point x, y off axis at depth z crosses each
+    plane y = const once; similar triangles). The bolus ROI is typed BOLUS
+    (DICOM PS3.3 C.8.8.8, RT ROI Interpreted Type) and named by the beam's
+    Referenced Bolus Sequence (C.8.8.14)."""
+
+    # (x, depth z, y) in cm, as in BoxPhantom
+    CASES = [(0.0, 5.0, 0.0), (0.0, 0.5, 0.0), (3.0, 8.0, 2.0), (12.0, 4.0, 0.0)]
+    T = 1.0  # bolus thickness, cm
+
+    def case(self, d, *, referenced=True, y0_mm=-10.0, y1_mm=0.0, boli=None, ssd_mm=990.0):
+        points = [("p%d" % i, (x * 10, z * 10, y * 10)) for i, (x, z, y) in enumerate(self.CASES)]
+        bolus_number = len(points) + 2
+        bolus = {"name": "Bolus_1cm", "type": "BOLUS",
+                 "contours": rb.box(-200.0, 200.0, y0_mm, y1_mm, -150.0, 150.0, 5.0)}
+        extra = {"boli": boli if boli is not None else [bolus_number]} if referenced else None
+        return box_phantom(d, points=points, extra_rois=[bolus], beam_extra=extra, ssd_mm=ssd_mm)
+
+    def slant(self, x, z, y):
+        return math.sqrt(x * x + y * y + (100 + z) ** 2) / (100 + z)
+
+    def check_depths(self, beam, added):
+        organs = organs_by_name(beam)
+        for i, (x, z, y) in enumerate(self.CASES):
+            want = (z + added) * self.slant(x, z, y)
+            self.assertAlmostEqual(organs["p%d" % i]["min_depth_cm"], want, delta=1e-6,
+                                   msg="p%d" % i)
+
+    def test_referenced_bolus_adds_its_thickness(self):
+        with tempdir() as d:
+            plan, ss = self.case(d)
+            beam = locate_json(plan, ss)["beams"][0]
+            self.check_depths(beam, self.T)
+            # on the central axis: exactly the thickness
+            self.assertAlmostEqual(organs_by_name(beam)["p0"]["min_depth_cm"], 5.0 + self.T,
+                                   delta=1e-9)
+            self.assertEqual(beam["bolus"], {"rois": ["Bolus_1cm"], "counted": True,
+                                             "source": "referenced by the beam"})
+            # the beam meets the bolus surface: SSD 99 cm, as the plan says
+            self.assertAlmostEqual(beam["ssd_found_cm"], 100.0 - self.T, delta=1e-6)
+            self.assertFalse([w for w in beam["warnings"] if "outside the body" in w])
+            off = locate_json(plan, ss, "--no-bolus")["beams"][0]
+            self.check_depths(off, 0.0)
+            self.assertFalse(off["bolus"]["counted"])
+            self.assertAlmostEqual(off["ssd_found_cm"], 100.0, delta=1e-6)
+            rc, out, err = run("locate", plan, ss)
+            self.assertIn("bolus 'Bolus_1cm' (named by the beam): counted in depths", out)
+
+    def test_bolus_drawn_into_the_skin_counts_once(self):
+        """Drawn from 1 cm above the skin to 5 mm below it: the union of body
+        and bolus still adds 1 cm, not 1.5 cm."""
+        with tempdir() as d:
+            plan, ss = self.case(d, y1_mm=5.0)
+            self.check_depths(locate_json(plan, ss)["beams"][0], self.T)
+
+    def test_unreferenced_bolus_is_counted_with_a_note(self):
+        with tempdir() as d:
+            plan, ss = self.case(d, referenced=False)
+            beam = locate_json(plan, ss)["beams"][0]
+            self.check_depths(beam, self.T)
+            self.assertEqual(beam["bolus"]["source"], "typed BOLUS, not referenced")
+            self.assertTrue(beam["bolus"]["counted"])
+            rc, out, err = run("locate", plan, ss)
+            self.assertIn("(typed BOLUS, not named by the beam): counted in depths", out)
+
+    def test_beam_naming_another_roi_leaves_the_bolus_out_and_says_so(self):
+        """The beam names ROI number 99, which the structure set lacks: the
+        BOLUS ROI it does not name is not counted, and both are warned."""
+        with tempdir() as d:
+            plan, ss = self.case(d, boli=[99])
+            beam = locate_json(plan, ss)["beams"][0]
+            self.check_depths(beam, 0.0)
+            self.assertEqual(beam["bolus"]["rois"], [])
+            self.assertTrue(any("ROI number 99" in w for w in beam["warnings"]), beam["warnings"])
+            self.assertTrue(any("'Bolus_1cm' is typed BOLUS but the beam does not name it" in w
+                                for w in beam["warnings"]), beam["warnings"])
+
+    def test_depth_by_option_says_the_bolus_is_not_counted(self):
+        with tempdir() as d:
+            plan, ss = self.case(d)
+            js = locate_json(plan, ss, "--depth", "2")
+            self.assertTrue(any("bolus is not counted" in w for w in js["warnings"]),
+                            js["warnings"])
+            self.assertFalse(js["beams"][0]["bolus"]["counted"])
+
+    def test_no_bolus_without_bolus_changes_nothing_and_says_so(self):
+        with tempdir() as d:
+            plan, ss = box_phantom(d, points=[("p", (0.0, 50.0, 0.0))])
+            js = locate_json(plan, ss, "--no-bolus")
+            self.assertTrue(any("changes nothing" in w for w in js["warnings"]), js["warnings"])
+            self.assertAlmostEqual(organs_by_name(js["beams"][0])["p"]["min_depth_cm"], 5.0,
+                                   delta=1e-9)
+
+
 class OutlineDistance(unittest.TestCase):
     """The minimum distance of a large organ, sampled on a coarse lattice
     (0.5 cm), is that of its contoured outline, not of the lattice point

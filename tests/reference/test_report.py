@@ -127,6 +127,81 @@ class WhatIfs(unittest.TestCase):
         self.assertNotIn("[what-if]", out)
 
 
+class BolusInTheReport(unittest.TestCase):
+    """A bolus the beam names (DICOM PS3.3 C.8.8.14, Referenced Bolus
+    Sequence) moves every depth of its beam: each format says so as a
+    caution of this case, and --no-bolus is a what-if in each format.
+    Python's json and csv modules read the outputs; pdftotext the PDF."""
+
+    CAUTION = "bolus 'Bolus_1cm' (named by the beam) is counted in the depths"
+
+    def make(self, d, referenced=True):
+        import rtbuild as rb
+        from test_locate import box_phantom
+        bolus = {"name": "Bolus_1cm", "type": "BOLUS",
+                 "contours": rb.box(-200.0, 200.0, -10.0, 0.0, -150.0, 150.0, 5.0)}
+        # a lens-named POINT 5 cm outside the 10 cm field, 5 mm below the skin
+        return box_phantom(d, points=[("Lens_L", (100.0, 5.0, 0.0))], extra_rois=[bolus],
+                           beam_extra={"boli": [3]} if referenced else None, ssd_mm=990.0)
+
+    def test_a_bolus_the_beam_does_not_name_is_counted_and_said(self):
+        with tempdir() as d:
+            plan, ss = self.make(d, referenced=False)
+            rc, js, err = run("estimate", plan, ss, "--model", MODEL, "--format", "json")
+            res = json.loads(js)
+            self.assertTrue(any("the beam names no bolus, but 'Bolus_1cm' is typed BOLUS" in c
+                                for c in res["result"]["case_cautions"]),
+                            res["result"]["case_cautions"])
+            slant = (10 ** 2 + 100.5 ** 2) ** 0.5 / 100.5
+            self.assertAlmostEqual(res["organs"][0]["min_depth_cm"], 1.5 * slant, delta=1e-6)
+
+    def test_caution_in_every_format_and_no_bolus_what_if(self):
+        with tempdir() as d:
+            plan, ss = self.make(d)
+            base = ["estimate", plan, ss, "--model", MODEL]
+            html, pdf = os.path.join(d, "r.html"), os.path.join(d, "r.pdf")
+            rc, out, err = run(*base, "--html", html, "--pdf", pdf)
+            self.assertIn(rc, (0, 4), err)
+            self.assertIn(self.CAUTION, out[out.index("this case:"):])
+            self.assertNotIn("WHAT-IF", out)
+            self.assertIn(self.CAUTION, open(html, encoding="utf-8").read())
+            if shutil.which("pdftotext"):
+                self.assertIn("Bolus_1cm", re.sub(r"\s+", " ", pdftotext(pdf)))
+            rc, js, err = run(*base, "--format", "json")
+            res = json.loads(js)
+            self.assertTrue(any(self.CAUTION in c for c in res["result"]["case_cautions"]))
+            with_bolus = res["organs"][0]
+            rc, csv_out, err = run(*base, "--format", "csv")
+            rows = list(csv.DictReader(io.StringIO(csv_out)))
+            self.assertTrue(all(self.CAUTION in r["cautions"] for r in rows))
+
+            rc, js, err = run(*base, "--no-bolus", "--format", "json")
+            res = json.loads(js)
+            self.assertFalse(res["result"]["plan_as_delivered"])
+            self.assertIn("no_bolus", [w["kind"] for w in res["result"]["what_ifs"]])
+            self.assertFalse(any(self.CAUTION in c for c in res["result"]["case_cautions"]))
+            without = res["organs"][0]
+            self.assertTrue(without["what_if"])
+            # 1 cm less tissue on the ray (hand geometry: 0.5 cm instead of 1.5 cm,
+            # times the slant of the ray 10 cm off axis)
+            slant = (10 ** 2 + 100.5 ** 2) ** 0.5 / 100.5
+            self.assertAlmostEqual(with_bolus["min_depth_cm"], 1.5 * slant, delta=1e-6)
+            self.assertAlmostEqual(without["min_depth_cm"], 0.5 * slant, delta=1e-6)
+            self.assertNotEqual(with_bolus["course_max_cgy"], without["course_max_cgy"])
+            rc, out, err = run(*base, "--no-bolus", "--html", html, "--pdf", pdf)
+            head = out[:out.index("RESULT:")]
+            self.assertIn("WHAT-IF, NOT THE PLAN AS DELIVERED: bolus left out", head)
+            self.assertIn("[what-if]", out)
+            page = open(html, encoding="utf-8").read()
+            self.assertLess(page.index("WHAT-IF, NOT THE PLAN AS DELIVERED"),
+                            page.index('id="verdict"'))
+            rc, csv_out, err = run(*base, "--no-bolus", "--format", "csv")
+            rows = list(csv.DictReader(io.StringIO(csv_out)))
+            self.assertTrue(any(r["what_if"] == "yes" for r in rows))
+            if shutil.which("pdftotext"):
+                self.assertIn("WHAT-IF", pdftotext(pdf, 1))
+
+
 class HtmlPrint(unittest.TestCase):
     def test_printed_pages_name_the_patient(self):
         """CSS paged media (W3C css-page-3 margin boxes): every printed page of

@@ -525,12 +525,12 @@ END_TEST
 
 /* Box body: x -100..100, y -50..50 mm, slices z = -100..100 mm every 10 mm,
  * so the slabs reach z = -105..105 mm. */
-static sl_body *box_body(void)
+static sl_body *box_body_xy(double x0, double x1, double y0, double y1)
 {
     roi_builder b = {0};
     for (int k = -10; k <= 10; k++) {
         double z = k * 10.0;
-        sl_vec3 p[4] = {{-100, -50, z}, {100, -50, z}, {100, 50, z}, {-100, 50, z}};
+        sl_vec3 p[4] = {{x0, y0, z}, {x1, y0, z}, {x1, y1, z}, {x0, y1, z}};
         rb_add(&b, SL_CONTOUR_CLOSED_PLANAR, p, 4);
     }
     b.roi.name = "BODY";
@@ -544,6 +544,11 @@ static sl_body *box_body(void)
     sl_slices_free(&st);
     rb_free(&b);
     return body;
+}
+
+static sl_body *box_body(void)
+{
+    return box_body_xy(-100, 100, -50, 50);
 }
 
 START_TEST(body_path_lengths_in_a_box)
@@ -572,6 +577,119 @@ START_TEST(body_path_lengths_in_a_box)
     ck_assert(sl_body_contains(body, (sl_vec3){9.9, 4.9, 10.4}));
     ck_assert(!sl_body_contains(body, (sl_vec3){10.1, 0, 0}));
     ck_assert(!sl_body_contains(body, (sl_vec3){0, 0, 10.6}));
+    sl_body_free(body);
+}
+END_TEST
+
+/* A bolus 1.5 cm thick on the anterior surface of the box, drawn 5 mm into
+ * it: the union counts the overlap once (hand geometry). */
+START_TEST(body_and_bolus_union)
+{
+    sl_body *body = box_body();
+    sl_body *bolus = box_body_xy(-30, 30, -60, -45);
+    const sl_body *parts[2] = {body, bolus};
+    double t;
+    /* vertical ray stopping 3 cm below the skin: 1 cm of bolus above it */
+    double d = sl_bodies_path(parts, 2, (sl_vec3){0, -100, 0}, (sl_vec3){0, -2, 0}, &t);
+    ck_assert_double_eq_tol(d, 4, 1e-9);
+    ck_assert_double_eq_tol(t, 94.0 / 98.0, 1e-9);
+    /* one part alone is sl_body_path */
+    ck_assert_double_eq_tol(sl_bodies_path(parts, 1, (sl_vec3){0, -100, 0}, (sl_vec3){0, -2, 0},
+                                           NULL),
+                            3, 1e-9);
+    /* through several slabs: (0,-10,3) to (0,-2,-3) is 10 cm long, y = -10 + 8 t;
+     * the union holds y in [-6, -2] (t in [0.5, 1]), the body y in [-5, -2] */
+    ck_assert_double_eq_tol(
+        sl_bodies_path(parts, 2, (sl_vec3){0, -10, 3}, (sl_vec3){0, -2, -3}, NULL), 5, 1e-9);
+    ck_assert_double_eq_tol(sl_body_path(body, (sl_vec3){0, -10, 3}, (sl_vec3){0, -2, -3}, NULL),
+                            3.75, 1e-9);
+    /* beside the bolus only the body counts */
+    ck_assert_double_eq_tol(
+        sl_bodies_path(parts, 2, (sl_vec3){5, -100, 0}, (sl_vec3){5, -2, 0}, NULL), 3, 1e-9);
+    /* the stretches themselves, in order along the segment */
+    sl_spans sp = {0};
+    ck_assert_int_eq(sl_body_spans(bolus, (sl_vec3){0, -100, 0}, (sl_vec3){0, -2, 0}, &sp), SL_OK);
+    ck_assert_uint_eq(sp.n, 2);
+    ck_assert_double_eq_tol(sp.t[0], 94.0 / 98.0, 1e-9);
+    ck_assert_double_eq_tol(sp.t[1], 95.5 / 98.0, 1e-9);
+    sl_spans_free(&sp);
+    sl_body_free(bolus);
+    sl_body_free(body);
+}
+END_TEST
+
+/* The fan (a body indexed for one source) gives the grid walk's lengths:
+ * a wavy body whose outline changes from slice to slice (steps between
+ * slabs, as real contours have), rays from sources around it to random
+ * points, in and beyond the body, with and without a bolus. */
+START_TEST(fan_matches_the_grid_walk)
+{
+    roi_builder b = {0};
+    enum { NPTS = 400 };
+    sl_vec3 *p = malloc(NPTS * sizeof *p);
+    for (int k = -20; k <= 20; k++) {
+        double z = k * 2.5;
+        for (int i = 0; i < NPTS; i++) {
+            double a = 2 * M_PI * i / NPTS;
+            double w = 1 + 0.03 * sin(7 * a + k) + 0.01 * sin(31 * a);
+            p[i] = (sl_vec3){175 * w * cos(a), 125 * w * sin(a), z};
+        }
+        rb_add(&b, SL_CONTOUR_CLOSED_PLANAR, p, NPTS);
+    }
+    free(p);
+    b.roi.name = "BODY";
+    sl_slice_stack st;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_slices_build(&b.roi, "t", 0.25, &st, &e), SL_OK);
+    sl_body *body;
+    ck_assert_int_eq(sl_body_create(&st, "wavy", &body, &e), SL_OK);
+    sl_slices_free(&st);
+    rb_free(&b);
+    sl_body *bolus = box_body_xy(-60, 60, -140, -118);
+    const sl_body *parts[2] = {body, bolus};
+    unsigned seed = 12345;
+    double worst = 0;
+    int fans = 0;
+    const double gantry[] = {0, 40, 90, 180, 320, 271};
+    for (size_t g = 0; g < sizeof gantry / sizeof *gantry; g++) {
+        double ga = gantry[g] * M_PI / 180;
+        sl_vec3 src = {100 * sin(ga), -100 * cos(ga), (g % 3) * 7.0 - 5};
+        sl_body_fan *f = NULL, *fb = NULL;
+        ck_assert_int_eq(sl_body_fan_create(body, src, 0, &f, &e), SL_OK);
+        ck_assert_int_eq(sl_body_fan_create(bolus, src, 1, &fb, &e), SL_OK);
+        ck_assert_ptr_nonnull(f);
+        ck_assert_ptr_nonnull(fb);
+        fans++;
+        const sl_body_fan *fparts[2] = {f, fb};
+        for (int n = 0; n < 20000; n++) {
+            sl_vec3 q = {((double)rand_r(&seed) / RAND_MAX - 0.5) * 40,
+                         ((double)rand_r(&seed) / RAND_MAX - 0.5) * 30,
+                         ((double)rand_r(&seed) / RAND_MAX - 0.5) * 12};
+            if (n % 7 == 0)
+                q.z = src.z; /* an axial ray: one slab */
+            double t1, t2;
+            double want = sl_body_path(body, src, q, &t1);
+            double got = sl_body_fan_path(f, q, &t2);
+            worst = fmax(worst, fabs(want - got));
+            ck_assert_msg(fabs(want - got) < 1e-9, "gantry %g point (%g, %g, %g): %.12g vs %.12g",
+                          gantry[g], q.x, q.y, q.z, want, got);
+            ck_assert(isnan(t1) == isnan(t2));
+            if (!isnan(t1))
+                ck_assert_double_eq_tol(t1, t2, 1e-9);
+            double uw = sl_bodies_path(parts, 2, src, q, &t1);
+            double ug = sl_fans_path(fparts, 2, q, &t2);
+            ck_assert_double_eq_tol(uw, ug, 1e-9);
+        }
+        sl_body_fan_free(f);
+        sl_body_fan_free(fb);
+    }
+    ck_assert_int_eq(fans, 6);
+    ck_assert(worst < 1e-9);
+    /* a source over the body (a beam along z): no fan, the caller traces */
+    sl_body_fan *none = (sl_body_fan *)1;
+    ck_assert_int_eq(sl_body_fan_create(body, (sl_vec3){0, 0, 100}, 0, &none, &e), SL_OK);
+    ck_assert_ptr_null(none);
+    sl_body_free(bolus);
     sl_body_free(body);
 }
 END_TEST
@@ -686,6 +804,8 @@ static Suite *geometry_suite(void)
     tcase_add_test(tc, points_and_open_contours);
     tcase_add_test(tc, degenerate_rois_are_refused);
     tcase_add_test(tc, body_path_lengths_in_a_box);
+    tcase_add_test(tc, body_and_bolus_union);
+    tcase_add_test(tc, fan_matches_the_grid_walk);
     tcase_add_test(tc, dense_body_contours);
     tcase_add_test(tc, field_from_cutout_catalogue_and_geometry);
     suite_add_tcase(s, tc);
