@@ -74,6 +74,9 @@ typedef struct sl_beam_place {
     sl_vec3 entry_cm;             /* central-axis entry point, patient coordinates */
     double ssd_found_cm;          /* NAN when the axis misses the body */
     double obliquity_deg;         /* NAN when unknown */
+    sl_vec3 normal_bld;           /* the body's outward normal at the entry, in the beam
+                                     limiting device frame (z toward the source); NAN when
+                                     the obliquity is unknown */
     sl_organ_place *organs;       /* one per organ of the location */
     sl_notes notes;
 } sl_beam_place;
@@ -118,6 +121,15 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
                     const sl_locate_options *opt, sl_location **out, sl_error *err);
 
 void sl_location_free(sl_location *loc);
+
+/* The beam's tilt toward a point, in degrees: the angle between the central
+ * axis and the surface normal at the entry, in the plane through the axis
+ * and the point at (x_cm, y_cm) of the beam limiting device frame, positive
+ * when the beam leans toward the point's side (the surface falls away from
+ * the source there), negative when away; 0 on the axis. NAN when the
+ * obliquity is unknown. Its size is the obliquity for a point in the plane
+ * of the lean. */
+double sl_beam_tilt_toward(const sl_beam_place *bp, double x_cm, double y_cm);
 
 #ifdef __cplusplus
 }

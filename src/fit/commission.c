@@ -130,6 +130,7 @@ sl_status sl_commission(const sl_measurement_set *ms, const sl_commission_option
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     bool ok = copy_machine(&ms->machine, &m->machine);
     m->model_version = copy_str(opt->model_version, &ok);
+    m->format_version = SL_MODEL_FORMAT_VERSION;
     m->notice = copy_str(opt->notice, &ok);
     char tool[64];
     snprintf(tool, sizeof tool, "strayline %s", sl_version());
@@ -156,6 +157,8 @@ sl_status sl_commission(const sl_measurement_set *ms, const sl_commission_option
         q->insert = copy_str(d->insert, &ok);
         q->depth_cm = d->depth_cm;
         q->direction = copy_str(d->direction, &ok);
+        q->tilt_deg = d->tilt_deg;
+        q->ssd_cm = d->ssd_cm;
         q->data_file = copy_str(d->file, &ok);
         memcpy(q->sha256, d->sha256, sizeof q->sha256);
         q->rel_uncertainty = d->rel_uncertainty;

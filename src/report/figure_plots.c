@@ -101,6 +101,7 @@ static void dots_stroke(cairo_t *cr, double diameter)
 
 typedef struct dd_geom {
     double depth_cm, dist_cm, app_off_cm, angle_deg;
+    double tilt_deg;    /* toward the point (NAN: unknown, the highest) */
     double max_dist_cm; /* this beam's distance of the organ's hottest sample */
 } dd_geom;
 
@@ -113,6 +114,7 @@ static bool dd_geometry(const sl_estimate_report *r, const sl_beam_place *bp,
         g->dist_cm = g->max_dist_cm = d->min_distance_cm;
         g->app_off_cm = NAN;
         g->angle_deg = NAN;
+        g->tilt_deg = NAN;
         return isfinite(g->depth_cm) && isfinite(g->dist_cm);
     }
     const sl_organ_place *pl = &bp->organs[d->organ];
@@ -126,6 +128,7 @@ static bool dd_geometry(const sl_estimate_report *r, const sl_beam_place *bp,
     sl_vec3 q = sl_frame_to_bld(&bp->frame, s->points[i]);
     double ax = fabs(q.x), ay = fabs(q.y);
     g->angle_deg = ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0;
+    g->tilt_deg = sl_beam_tilt_toward(bp, q.x, q.y);
     g->max_dist_cm = d->max_sample < s->n ? pl->distance_cm[d->max_sample] : g->dist_cm;
     return isfinite(g->depth_cm) && isfinite(g->dist_cm);
 }
@@ -184,9 +187,10 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
     for (int i = 0; i < N; i++) {
         xs[i] = xmax * i / (N - 1);
         sl_eval_query q = {g.depth_cm, xs[i], isfinite(g.app_off_cm) ? xs[i] + g.app_off_cm : NAN,
-                           g.angle_deg, e->opt.mode, d->shield_transmission};
+                           g.angle_deg, e->opt.mode, d->shield_transmission, g.tilt_deg,
+                           bd->ssd_used_cm};
         sl_model_value mv;
-        sl_curves_eval_query(bd->curves, &q, &mv);
+        sl_beam_eval(bd, &q, &mv);
         ys[i] = mv.percent * per_percent;
         hi[i] = (mv.percent + 2 * mv.u_percent) * per_percent;
         lo[i] = (mv.percent - 2 * mv.u_percent) * per_percent;
@@ -199,9 +203,10 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
     }
     /* this beam at the organ's point nearest its edge: on the curve */
     sl_eval_query q = {g.depth_cm, g.dist_cm, isfinite(g.app_off_cm) ? g.dist_cm + g.app_off_cm : NAN,
-                       g.angle_deg, e->opt.mode, d->shield_transmission};
+                       g.angle_deg, e->opt.mode, d->shield_transmission, g.tilt_deg,
+                       bd->ssd_used_cm};
     sl_model_value mv;
-    sl_curves_eval_query(bd->curves, &q, &mv);
+    sl_beam_eval(bd, &q, &mv);
     double ynear = mv.percent * per_percent;
     double cmax = d->course_max.cgy * unit, cup = d->course_max.upper_cgy * unit;
     if (isfinite(ynear)) {

@@ -235,7 +235,8 @@ sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *
 
 static const unsigned all_flags[] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
                                      SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
-                                     SL_MF_POINTS_MODE,     SL_MF_POOR_FIT};
+                                     SL_MF_POINTS_MODE,     SL_MF_POOR_FIT,
+                                     SL_MF_TILT_OUTSIDE,    SL_MF_SSD_OUTSIDE};
 
 sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
                                 const char *applicator, const char *insert, double depth_cm,
@@ -262,6 +263,8 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
                     v->u_transfer);
             fprintf(fp, "  electron part %.4f %%, photon part %.4f %%; depth used %.2f cm\n",
                     v->electron_percent, v->photon_percent, v->depth_used_cm);
+            fprintf(fp, "  tilt used %+.2f deg, SSD used %.2f cm; uncertainty tilt/SSD %.4f %%\n",
+                    v->tilt_used_deg, v->ssd_used_cm, v->u_uncommissioned);
         }
         for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
             if (v->flags & all_flags[i])
@@ -289,11 +292,15 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
     jw_num_opt(&w, o, "uncertainty_transfer_percent", in_field ? NAN : v->u_transfer);
     jw_num_opt(&w, o, "electron_percent", in_field ? NAN : v->electron_percent);
     jw_num_opt(&w, o, "photon_percent", in_field ? NAN : v->photon_percent);
+    jw_num_opt(&w, o, "uncertainty_tilt_ssd_percent", in_field ? NAN : v->u_uncommissioned);
     jw_num(&w, o, "depth_used_cm", v->depth_used_cm);
+    jw_num_opt(&w, o, "tilt_used_deg", in_field ? NAN : v->tilt_used_deg);
+    jw_num_opt(&w, o, "ssd_used_cm", in_field ? NAN : v->ssd_used_cm);
     json_object *flags = json_object_new_array();
     static const char *const names[] = {"in_field", "depth_outside_commissioned_range",
                                         "extrapolated", "standin_for_uncommissioned_cutout",
-                                        "points_mode", "poor_fit"};
+                                        "points_mode", "poor_fit", "tilt_not_commissioned",
+                                        "ssd_not_commissioned"};
     for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
         if (v->flags & all_flags[i])
             jw_append(&w, flags, json_object_new_string(names[i]));

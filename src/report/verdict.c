@@ -239,6 +239,11 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
         {SL_MF_DEPTH_OUTSIDE, "deeper or shallower than the commissioned depths (the nearest "
                               "commissioned depth is used)"},
         {SL_MF_POOR_FIT, "a profile used fits its points poorly (uncertainty widened)"},
+        {SL_MF_TILT_OUTSIDE, "tilt not commissioned: the beam's tilt lies beyond the "
+                             "commissioned tilts (the nearest is used, uncertainty widened)"},
+        {SL_MF_SSD_OUTSIDE, "SSD not commissioned: beyond the commissioned SSDs (the nearest is "
+                            "used, uncertainty widened, the upper bound never below the "
+                            "nominal-SSD estimate)"},
     };
     for (size_t k = 0; k < sizeof kinds / sizeof kinds[0]; k++) {
         sl_buf b = {0};
