@@ -74,6 +74,7 @@ typedef struct sl_profile_data {
     double width_found_cm; /* 50 % width found (NAN unless from_positions) */
     double width_nominal_cm;
     size_t line;           /* of the profile's entry in the measurement set */
+    size_t entry;          /* its number in the list (1-based; a mirrored twin shares it) */
 } sl_profile_data;
 
 typedef struct sl_measurement_set {

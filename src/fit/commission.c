@@ -7,6 +7,7 @@
 #include "strayline/parallel.h"
 #include "strayline/version.h"
 
+#include <math.h>
 #include <pthread.h>
 #include <stdatomic.h>
 #include <stdio.h>
@@ -18,6 +19,16 @@ void sl_profile_label(double energy_mev, const char *applicator, const char *ins
 {
     snprintf(buf, size, "%g MeV %s %s %g cm %s", energy_mev, applicator, insert, depth_cm,
              direction);
+}
+
+void sl_profile_label_geometry(double tilt_deg, double ssd_cm, double nominal_ssd_cm, char *buf,
+                               size_t size)
+{
+    size_t len = strlen(buf);
+    if (tilt_deg != 0 && len < size)
+        len += (size_t)snprintf(buf + len, size - len, " tilt %+g deg", tilt_deg);
+    if (fabs(ssd_cm - nominal_ssd_cm) > 1e-9 && len < size)
+        snprintf(buf + len, size - len, " SSD %g cm", ssd_cm);
 }
 
 typedef struct job {
@@ -38,6 +49,8 @@ static void fit_task(size_t i, void *ctx)
     char label[160];
     sl_profile_label(d->energy_mev, d->applicator, d->insert, d->depth_cm, d->direction, label,
                      sizeof label);
+    sl_profile_label_geometry(d->tilt_deg, d->ssd_cm, j->ms->machine.nominal_ssd_cm, label,
+                              sizeof label);
     snprintf(what, sizeof what, "%s: profile %zu (%s, %s)", j->ms->source, i + 1, label,
              d->file);
     j->status[i] = sl_profile_fit_data(d->distance_cm, d->dose_percent, d->sigma_percent, d->n,

@@ -426,6 +426,7 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, size_t slot,
     snprintf(what, sizeof what, "profile %zu", k + 1);
     sl_profile_data *p = &m->profiles[slot];
     p->line = n ? n->start_mark.line + 1 : 0;
+    p->entry = k + 1;
     sl_yaml_field f[] = {{"energy_mev", true, NULL}, {"applicator", true, NULL},
                          {"insert", true, NULL},     {"depth_cm", true, NULL},
                          {"direction", true, NULL},  {"file", true, NULL},
@@ -517,9 +518,10 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     for (size_t j = 0; st == SL_OK && j < k; j++) {
         const sl_profile_data *q = &m->profiles[j];
         if (same_profile(q, p))
-            st = sl_yaml_error(y, n, err, "%s: duplicate of %s (same energy, applicator, "
-                                          "insert, depth, direction, tilt and SSD%s)",
-                               what, q->file, q->side || p->side ? ", the mirror rule counted" : "");
+            st = sl_yaml_error(y, n, err, "%s: duplicate of profile %zu (same energy, "
+                                          "applicator, insert, depth, direction, tilt and "
+                                          "SSD%s)",
+                               what, q->entry, q->side || p->side ? ", the mirror rule counted" : "");
     }
     if (st != SL_OK)
         return st;
@@ -654,6 +656,7 @@ sl_status sl_measurements_load_buffer(const char *data, size_t size, const char 
             q->rel_uncertainty = p->rel_uncertainty;
             q->floor_percent = p->floor_percent;
             q->line = p->line;
+            q->entry = p->entry;
             st = ok ? read_profile_data(&y, node, m->nprofiles - 1, what, dir, cax, m, err)
                     : sl_error_set(err, SL_ENOMEM, "out of memory");
         }

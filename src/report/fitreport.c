@@ -36,11 +36,13 @@ static void kv_table(hdoc *h, xmlNodePtr parent, const char *const (*rows)[2], s
     }
 }
 
-static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p, size_t idx)
+static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p, size_t idx,
+                            double nominal_ssd_cm)
 {
     char label[160], buf[256];
     sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction, label,
                      sizeof label);
+    sl_profile_label_geometry(p->tilt_deg, p->ssd_cm, nominal_ssd_cm, label, sizeof label);
     xmlNodePtr sec = hel(h, body, "section", NULL);
     hattrf(h, sec, "id", "p%zu", idx + 1);
     helf(h, sec, "h3", "%zu. %s%s", idx + 1, label, p->fit.poor ? " (poor fit)" : "");
@@ -135,6 +137,8 @@ sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_mo
             char label[160];
             sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction,
                              label, sizeof label);
+            sl_profile_label_geometry(p->tilt_deg, p->ssd_cm, m->machine.nominal_ssd_cm, label,
+                                      sizeof label);
             xmlNodePtr li = hel(&h, ul, "li", NULL);
             xmlNodePtr a = helf(&h, li, "a", "%s", label);
             hattrf(&h, a, "href", "#p%zu", i + 1);
@@ -200,7 +204,7 @@ sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_mo
     }
     hel(&h, b, "h2", "Profiles: fitted parameters");
     for (size_t i = 0; i < m->nprofiles; i++)
-        profile_section(&h, b, &m->profiles[i], i);
+        profile_section(&h, b, &m->profiles[i], i, m->machine.nominal_ssd_cm);
     helf(&h, b, "p", "written by strayline %s", sl_version());
     return hdoc_write(&h, fp, err);
 }
