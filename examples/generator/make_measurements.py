@@ -20,7 +20,7 @@ widens the near fall-off and the peak and raises the relative dose near the
 edge; the central-axis output falls by about the inverse square. Tilted
 profiles are given per side by edge distance, each at its signed tilt, for
 9 and 12 MeV with A10 at every depth; 9 MeV A10 is also measured at SSD 110
-cm, with its output there.
+cm (normal incidence and the same tilts), with its output there.
 
 Each point carries multiplicative
 noise of 2 % (one standard deviation) with a fixed seed, so the output is
@@ -213,6 +213,18 @@ def main():
         p = profile(e, app, "open", z, "crossplane", name)
         p["ssd_cm"] = ssd
         profiles.append(p)
+    # and tilted there, so that a tilted beam at an SSD between the two is
+    # interpolated over all four corners
+    for t in TILTS:
+        for z in depths_of[e]:
+            comp = components(e, app_size[app], z, tilt=t, gap=ssd - SSD)
+            name = "e%02d_%s_open_d%.2f_tilt%+03d_ssd%03d.csv" % (e, app.lower(), z, t, ssd)
+            rows = [(d, noisy(truth(d, comp), rnd)) for d in distances(40.0)]
+            write_csv(outdir, name, "edge_distance_cm", "dose_percent", rows)
+            p = profile(e, app, "open", z, "crossplane", name)
+            p["tilt_deg"] = t
+            p["ssd_cm"] = ssd
+            profiles.append(p)
     doc = {
         "format": "strayline-measurements",
         "format_version": 2,

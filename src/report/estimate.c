@@ -752,6 +752,17 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         for (size_t k = 0; k < nd; k++)
             jw_append(w, depths, jw_number(w, dv[k], "depths"));
         jw_put(w, x, "commissioned_depths_cm", depths);
+        size_t nt = sl_curves_tilts(bd->curves, &dv);
+        json_object *tilts = json_object_new_array();
+        for (size_t k = 0; k < nt; k++)
+            jw_append(w, tilts, jw_number(w, dv[k], "tilts"));
+        jw_put(w, x, "commissioned_tilts_deg", tilts);
+        size_t ns = sl_curves_ssds(bd->curves, &dv);
+        json_object *ssds = json_object_new_array();
+        for (size_t k = 0; k < ns; k++)
+            jw_append(w, ssds, jw_number(w, dv[k], "ssds"));
+        jw_put(w, x, "commissioned_ssds_cm", ssds);
+        jw_num_opt(w, x, "output_ssd_cm", bd->output_ssd_cm);
         jw_num_opt(w, x, "ssd_found_cm", bp->ssd_found_cm);
         jw_num_opt(w, x, "obliquity_deg", bp->obliquity_deg);
         jw_append(w, beams, x);
@@ -1132,6 +1143,14 @@ void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
     size_t nd = sl_curves_depths(bd->curves, &dv);
     sl_buf b = {0};
     sl_buf_printf(&b, "model limits: %.1f to %.1f cm from the field edge, depths ", lo, hi);
+    for (size_t k = 0; k < nd; k++)
+        sl_buf_printf(&b, "%s%g", k ? ", " : "", dv[k]);
+    sl_buf_printf(&b, " cm, tilts ");
+    nd = sl_curves_tilts(bd->curves, &dv);
+    for (size_t k = 0; k < nd; k++)
+        sl_buf_printf(&b, "%s%+g", k ? ", " : "", dv[k]);
+    sl_buf_printf(&b, " deg, SSDs ");
+    nd = sl_curves_ssds(bd->curves, &dv);
     for (size_t k = 0; k < nd; k++)
         sl_buf_printf(&b, "%s%g", k ? ", " : "", dv[k]);
     sl_buf_printf(&b, " cm");

@@ -624,6 +624,7 @@ class DemoReports(unittest.TestCase):
         "chest-fetus": ["--prescription-isodose", "90", "--gestational-age", "12", "--age", "31",
                         "--sex", "F"],
         "neck-device": ["--prescription-isodose", "90", "--pacing-dependent"],
+        "chest-oblique": ["--prescription-isodose", "90"],
     }
 
     def test_json_reports_follow_the_schema(self):

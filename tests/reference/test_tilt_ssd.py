@@ -249,6 +249,37 @@ class BoxPhantomTilt(unittest.TestCase):
             self.assertIn("[tilt]", outs["text"])
 
 
+class DemoObliqueCase(unittest.TestCase):
+    def test_chest_oblique_reads_each_side_at_its_tilt(self):
+        """examples/chest-oblique (invented): SSD 105 cm, gantry 12 deg. The
+        beam leans toward the patient's right (IEC 61217 gantry sense for
+        HFS), so the right breast is at a positive tilt and the left at the
+        negative one of the same size (hand geometry: the same surface
+        obliquity); both lie within the demo model's commissioned tilts
+        (-15 to 15 deg) and SSDs (100, 110 cm), so neither is marked."""
+        base = os.path.join(SOURCE_ROOT, "examples", "chest-oblique")
+        plan, ss = os.path.join(base, "rtplan.dcm"), os.path.join(base, "rtstruct.dcm")
+        model = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
+        js = run_json("locate", "--format", "json", plan, ss, "--model", model)
+        beam = js["beams"][0]
+        self.assertAlmostEqual(beam["ssd_found_cm"], 105.0, delta=0.05)
+        o = {x["roi"]: x for x in beam["organs"]}
+        self.assertGreater(o["Breast_R"]["tilt_toward_nearest_deg"], 5)
+        self.assertAlmostEqual(o["Breast_R"]["tilt_toward_nearest_deg"],
+                               -o["Breast_L"]["tilt_toward_nearest_deg"], delta=0.01)
+        self.assertAlmostEqual(o["Breast_R"]["tilt_toward_nearest_deg"], beam["obliquity_deg"],
+                               delta=0.01)
+        rc, out, err = run("estimate", plan, ss, "--model", model, "--prescription-isodose", "90",
+                           "--format", "json")
+        self.assertIn(rc, (0, 4), err)
+        est = json.loads(out)
+        self.assertEqual(est["beams"][0]["commissioned_ssds_cm"], [100, 110])
+        for name in ("Breast_L", "Breast_R"):
+            flags = [x for x in est["organs"] if x["roi"] == name][0]["flags"]
+            self.assertNotIn("tilt_not_commissioned", flags)
+            self.assertNotIn("ssd_not_commissioned", flags)
+
+
 class VersionOne(unittest.TestCase):
     def test_version_1_file_gives_identical_numbers(self):
         """tests/data/model-v1: a format-1 model file and what strayline
