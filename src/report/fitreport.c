@@ -1,7 +1,8 @@
 /*
  * The commissioning report of `strayline fit --report`: one self-contained
  * HTML page with, for every energy and applicator, one figure of its
- * profiles as small multiples on shared axes (figure.h: the measured points
+ * profiles as small multiples on shared axes (a column a depth, a row an
+ * insert, direction, SSD and tilt) (figure.h: the measured points
  * with their 2-sigma bars and the fitted curve with its 2-sigma band on a
  * log dose axis, the normalised residuals below), then each profile's
  * parameters with their standard errors and the fit statistics; poor fits
@@ -198,9 +199,11 @@ sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_mo
                  strcmp(m->profiles[k].applicator, p->applicator) == 0;
         xmlNodePtr sec = hel(&h, b, "section", NULL);
         helf(&h, sec, "h3", "%g MeV, applicator %s", p->energy_mev, p->applicator);
-        size_t cols = n < 4 ? n : 4, rows = (n + cols - 1) / cols;
-        fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator};
-        fig_svg_into(&h, sec, 640, 40 + 150 * (double)rows, fig_profiles, &fctx);
+        size_t cols, rows = fig_profiles_rows(m, p->energy_mev, p->applicator, &cols);
+        (void)n;
+        double fw = cols > 4 ? 160.0 * (double)cols : 640;
+        fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator, 0, 0};
+        fig_svg_into(&h, sec, fw, 50 + 150 * (double)rows, fig_profiles, &fctx);
     }
     hel(&h, b, "h2", "Profiles: fitted parameters");
     for (size_t i = 0; i < m->nprofiles; i++)
