@@ -825,7 +825,9 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
         fig_axes_draw(cr, &main, NULL, col == 0 ? "dose (% of CAX max)" : NULL, false, col == 0,
                       fs);
         /* shared axes: distances are numbered under the lowest panel of each column */
-        fig_axes_draw(cr, &res, last_row ? "distance from the field edge (cm)" : NULL, NULL,
+        /* its name once, under the first column: the panels are narrow */
+        fig_axes_draw(cr, &res,
+                      last_row && col == 0 ? "distance from the field edge (cm)" : NULL, NULL,
                       last_row, false, fs);
         if (col == 0) { /* the residual strip's scale: its 0 and 3 sigma lines */
             cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);

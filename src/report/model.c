@@ -129,6 +129,38 @@ static void text_show(FILE *fp, const sl_model *m)
                 o ? o->dmax_cm : NAN, o ? o->effective_ssd_cm : NAN, factor, forms, worst,
                 poor ? " (poor fits)" : "");
     }
+    /* the tilt and SSD dimensions, where a combination has more than one */
+    bool head = false;
+    for (size_t k = 0; k < n; k++) {
+        sl_curve_set *cv = NULL;
+        unsigned fl;
+        if (sl_model_select(m, cs[k].energy, cs[k].app, cs[k].insert, &cv, &fl, NULL) != SL_OK)
+            continue;
+        const double *tv, *sv;
+        size_t nt = sl_curves_tilts(cv, &tv), ns = sl_curves_ssds(cv, &sv);
+        if (nt > 1 || ns > 1 || tv[0] != 0 || sv[0] != mc->nominal_ssd_cm) {
+            if (!head)
+                fprintf(fp, "\n  beam tilts (deg) and SSDs (cm) commissioned, where other than "
+                            "0 deg at the nominal SSD only:\n");
+            head = true;
+            fprintf(fp, "  %6g %-7s %-6s tilts", cs[k].energy, cs[k].app, cs[k].insert);
+            for (size_t i = 0; i < nt; i++)
+                fprintf(fp, "%s %+g", i ? "," : "", tv[i]);
+            fprintf(fp, "; SSDs");
+            for (size_t i = 0; i < ns; i++)
+                fprintf(fp, "%s %g", i ? "," : "", sv[i]);
+            fputc('\n', fp);
+        }
+        sl_curve_set_free(cv);
+    }
+    for (size_t i = 0; i < mc->noutputs; i++) {
+        const sl_output_spec *o = &mc->outputs[i];
+        if (o->ssd_cm != mc->nominal_ssd_cm)
+            fprintf(fp, "  output of %g MeV %s at SSD %g cm: %.3f cGy/MU, dmax %.2f cm, SSD eff "
+                        "%.1f cm\n",
+                    o->energy_mev, o->applicator, o->ssd_cm, o->dose_per_mu_cgy, o->dmax_cm,
+                    o->effective_ssd_cm);
+    }
     free(cs);
 }
 
@@ -141,6 +173,7 @@ static json_object *json_show(jw *w, const sl_model *m)
     jw_str(w, root, "model_file", m->source);
     jw_str(w, root, "model_sha256", m->sha256);
     jw_str(w, root, "model_version", m->model_version);
+    jw_int(w, root, "format_version", m->format_version);
     jw_str(w, root, "notice", m->notice);
     json_object *mo = json_object_new_object();
     jw_str(w, mo, "name", mc->name);
@@ -197,6 +230,8 @@ static json_object *json_show(jw *w, const sl_model *m)
             json_object *po = json_object_new_object();
             jw_num(w, po, "depth_cm", p->depth_cm);
             jw_str(w, po, "direction", p->direction);
+            jw_num(w, po, "tilt_deg", p->tilt_deg);
+            jw_num(w, po, "ssd_cm", p->ssd_cm);
             jw_str(w, po, "form", sl_profile_form_name(p->fit.form));
             json_object *par = json_object_new_object();
             for (size_t j = 0; j < p->fit.p; j++)
