@@ -51,8 +51,9 @@ static void fit_task(size_t i, void *ctx)
                      sizeof label);
     sl_profile_label_geometry(d->tilt_deg, d->ssd_cm, j->ms->machine.nominal_ssd_cm, label,
                               sizeof label);
-    snprintf(what, sizeof what, "%s: profile %zu (%s, %s)", j->ms->source, i + 1, label,
-             d->file);
+    /* the entry's number in the set (a mirrored twin shares its entry's) */
+    snprintf(what, sizeof what, "%s: profile %zu (%s, %s)", j->ms->source,
+             d->entry ? d->entry : i + 1, label, d->file);
     j->status[i] = sl_profile_fit_data(d->distance_cm, d->dose_percent, d->sigma_percent, d->n,
                                        what, &j->m->profiles[i].fit, &j->errors[i]);
     size_t done = atomic_fetch_add(&j->done, 1) + 1;
