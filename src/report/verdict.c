@@ -229,6 +229,11 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
             sl_notes_add(out, "beam %d: the cutout is not commissioned: a conservative "
                               "stand-in is used (it errs high); measure the cutout's profiles",
                          bd->place->beam->number);
+        if (bd->place->obliquity_deg > SL_OBLIQUITY_CAUTION_DEG)
+            sl_notes_add(out, "beam %d: oblique incidence, surface obliquity %.1f deg (above "
+                              "%.0f deg the depth dose itself changes): confirm by measurement",
+                         bd->place->beam->number, bd->place->obliquity_deg,
+                         SL_OBLIQUITY_CAUTION_DEG);
     }
     static const struct {
         unsigned flag;
