@@ -10,6 +10,9 @@ made of ellipses and boxes of plausible adult sizes; names and IDs are made up.
                pregnant patient (12 weeks): fetus and uterus far out of field.
   neck-device  9 MeV field with a cutout over the left supraclavicular
                region above a left-pectoral pacemaker.
+  chest-oblique  9 MeV open field on the anterior chest at SSD 105 cm,
+               gantry 12 deg: an oblique beam at extended SSD, a breast on
+               either side of the field.
 
 Run: /usr/bin/python3 examples/generator/make_cases.py [OUTDIR]
 (OUTDIR defaults to examples/). The output is deterministic.
@@ -250,6 +253,63 @@ def neck_device(outdir):
     write_case(outdir, "neck-device", plan, ss)
 
 
+# ------------------------------------------------------- chest-oblique --
+
+def trunk_section_plain(z):
+    if z < -450.0 or z > 150.0:
+        return None
+    if z > 60.0:
+        return (0.0, 10.0, 60.0, 62.0)  # neck
+    return (0.0, 0.0, 165.0, 110.0)
+
+
+def chest_oblique(outdir):
+    """An oblique beam at extended SSD: the skin 5 cm beyond the isocentre
+    (SSD 105 cm), the gantry at 12 deg on the anterior chest, so that the
+    beam leans toward the patient's right; a breast on either side."""
+    patient = {"name": "DEMO^OBLIQUE", "id": "DEMO-OBLIQUE-04", "sex": "M",
+               "birth_date": "19600101"}
+    frame = rb.uid("chest-oblique", "frame")
+    step = 5.0
+    zs = rb.slices(-450.0, 150.0, step)
+    gantry = 12.0
+    z_field = -120.0
+    s = trunk_section_plain(z_field)
+    skin = surface_iso(gantry, (0.0, -60.0), z_field, (s[0], s[1]), s[2], s[3])
+    u = toward_source(gantry)
+    iso = [skin[0] + 50.0 * u[0], skin[1] + 50.0 * u[1], z_field]
+    rois = [
+        {"number": 1, "name": "BODY", "type": "EXTERNAL", "color": (255, 200, 150),
+         "contours": body_slices(zs, trunk_section_plain)},
+        {"number": 2, "name": "PTV_sternum", "type": "PTV", "color": (255, 0, 0),
+         "contours": rb.ellipsoid(inward(skin, gantry, 12.0), (25.0, 6.0, 25.0), step)},
+        {"number": 3, "name": "Breast_L", "type": "ORGAN", "color": (255, 150, 200),
+         "contours": rb.ellipsoid((115.0, -80.0, -120.0), (25.0, 12.0, 30.0), step)},
+        {"number": 4, "name": "Breast_R", "type": "ORGAN", "color": (255, 120, 180),
+         "contours": rb.ellipsoid((-115.0, -80.0, -120.0), (25.0, 12.0, 30.0), step)},
+        {"number": 5, "name": "Thyroid", "type": "ORGAN", "color": (160, 0, 255),
+         "contours": rb.ellipsoid((15.0, -35.0, 100.0), (8.0, 9.0, 20.0), step)
+         + rb.ellipsoid((-15.0, -35.0, 100.0), (8.0, 9.0, 20.0), step)},
+        {"number": 6, "name": "Heart", "type": "ORGAN", "color": (200, 0, 0),
+         "contours": rb.ellipsoid((20.0, -10.0, -240.0), (55.0, 45.0, 55.0), step)},
+    ]
+    ss = rb.structure_dataset(patient, label="CHEST_OBLIQUE", rois=rois, frame_uid=frame,
+                              seed="chest-oblique-ss")
+    beam = {"number": 1, "name": "E09 STERNUM", "description": "sternal skin lesion, SSD 105",
+            "energy_mev": 9.0, "gantry": gantry, "collimator": 0.0, "couch": 0.0,
+            "iso_mm": [round(v, 2) for v in iso], "ssd_mm": 1050.0,
+            "applicator": {"id": "A10", "type": "ELECTRON_SQUARE"},
+            "setup": 1}
+    plan = rb.plan_dataset(
+        patient, label="STERNUM_E09", name="sternal lesion 40 Gy / 10 fx", frame_uid=frame,
+        structure_set_uid=ss.SOPInstanceUID, beams=[beam],
+        setups=[{"number": 1, "position": "HFS"}],
+        fraction_groups=[{"number": 1, "fractions": 10, "beams": [(1, 480.0, 4.0)]}],
+        dose_refs=[{"prescription_gy": 40.0, "description": "sternal lesion, 90 % isodose"}],
+        seed="chest-oblique-plan")
+    write_case(outdir, "chest-oblique", plan, ss)
+
+
 def write_case(outdir, name, plan, ss):
     d = os.path.join(outdir, name)
     os.makedirs(d, exist_ok=True)
@@ -263,6 +323,7 @@ def main():
     face_lens(outdir)
     chest_fetus(outdir)
     neck_device(outdir)
+    chest_oblique(outdir)
 
 
 if __name__ == "__main__":

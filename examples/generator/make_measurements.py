@@ -8,7 +8,21 @@ scattered in the phantom, wider at higher energy and depth; a local maximum
 a few centimetres out from electrons scattered by the applicator, strongest
 at low energy and at the surface, gone a centimetre or two deeper; and a
 slow tail of bremsstrahlung and leakage that rises with energy. The
-magnitudes are plausible, not measured. Each point carries multiplicative
+magnitudes are plausible, not measured.
+
+Beam tilt and SSD (invented, after the shapes described in words in the
+trade, common practice): on the side a tilted beam leans away from (negative
+tilt: the surface rises toward the source there) the applicator-scatter peak
+moves toward the central axis by 0.5 mm a degree (7.5 mm at 15 deg) and
+rises; on the side it leans toward (positive tilt) the peak moves out and
+widens and the near fall-off lengthens. A longer air gap (SSD 110 cm)
+widens the near fall-off and the peak and raises the relative dose near the
+edge; the central-axis output falls by about the inverse square. Tilted
+profiles are given per side by edge distance, each at its signed tilt, for
+9 and 12 MeV with A10 at every depth; 9 MeV A10 is also measured at SSD 110
+cm (normal incidence and the same tilts), with its output there.
+
+Each point carries multiplicative
 noise of 2 % (one standard deviation) with a fixed seed, so the output is
 the same every run.
 
@@ -30,6 +44,9 @@ ENERGIES = [6, 9, 12, 16, 20]
 APPLICATORS = [("A06", 6.0), ("A10", 10.0), ("A15", 15.0), ("A20", 20.0), ("A25", 25.0)]
 INSERTS = [("C4", "A06", "circle", 4.0), ("C6", "A10", "circle", 6.0)]
 SSD = 100.0
+TILTS = [-15.0, -10.0, -5.0, 5.0, 10.0, 15.0]
+TILTED = [(9, "A10"), (12, "A10")]
+EXTENDED = (9, "A10", 110.0)
 
 
 def dmax_cm(e):
@@ -52,8 +69,10 @@ def pdd(e, z):
     return tail
 
 
-def components(e, size, z, insert_size=None):
-    """(A, l1, B, mu, s, C, l2) of the invented truth."""
+def components(e, size, z, insert_size=None, tilt=0.0, gap=0.0):
+    """(A, l1, B, mu, s, C, l2) of the invented truth; tilt (deg, signed:
+    > 0 the beam leans toward this side) and gap (cm beyond the nominal SSD)
+    move it as the module's docstring says."""
     opening = insert_size or size
     c = (0.25 + 0.11 * e) * (10.0 / size) ** 0.25 * (1.15 if insert_size else 1.0)
     l2 = 9.0 + 0.25 * e + 0.3 * size
@@ -62,8 +81,22 @@ def components(e, size, z, insert_size=None):
     mu = 2.0 + 0.5 * (size - opening) / 2 + 0.06 * size
     s = 1.1 + 0.04 * size
     l1 = 0.32 + 0.035 * e + 0.12 * z
+    if tilt < 0:
+        mu = max(mu + 0.05 * tilt, 0.8)
+        b *= 1.0 - 0.01 * tilt
+    elif tilt > 0:
+        mu += 0.02 * tilt
+        s *= 1.0 + 0.01 * tilt
+        b *= 1.0 - 0.01 * tilt
+        l1 *= 1.0 + 0.005 * tilt
+    if gap:
+        l1 *= 1.0 + 0.02 * gap
+        s *= 1.0 + 0.015 * gap
+        mu += 0.05 * gap
     edge = 0.5 * pdd(e, z)
     a = max(edge - c - b * math.exp(-mu * mu / (2 * s * s)), 0.2 * edge)
+    if gap:
+        a *= 1.0 + 0.01 * gap
     return a, l1, b, mu, s, c, l2
 
 
@@ -104,6 +137,16 @@ def main():
             if factors:
                 out["cutout_factors"] = factors
             outputs.append(out)
+            if (e, app) == EXTENDED[:2]:
+                # measured at the extended SSD too: about the inverse square
+                gap = EXTENDED[2] - SSD
+                r = (out["effective_ssd_cm"] + out["dmax_cm"]) / (
+                    out["effective_ssd_cm"] + gap + out["dmax_cm"])
+                outputs.append({"energy_mev": e, "applicator": app,
+                                "dose_per_mu_cgy": round(out["dose_per_mu_cgy"] * r * r * 0.99, 3),
+                                "dmax_cm": out["dmax_cm"],
+                                "effective_ssd_cm": out["effective_ssd_cm"],
+                                "ssd_cm": EXTENDED[2]})
     # 0, 0.5, 1, 2 cm, dmax, and E/4 cm, beyond which out-of-field dose is
     # nearly constant with depth (published measurements; see models/README.md)
     depths_of = {e: sorted({0.0, 0.5, 1.0, 2.0, dmax_cm(e), e / 4.0}) for e in ENERGIES}
@@ -149,9 +192,42 @@ def main():
         p = profile(9, "A10", "open", z, "inplane", name)
         p["cax_reading"] = cax
         profiles.append(p)
+    # tilted beams, each side at its signed tilt, by edge distance
+    for e, app in TILTED:
+        for t in TILTS:
+            for z in depths_of[e]:
+                comp = components(e, app_size[app], z, tilt=t)
+                name = "e%02d_%s_open_d%.2f_tilt%+03d.csv" % (e, app.lower(), z, t)
+                rows = [(d, noisy(truth(d, comp), rnd)) for d in distances(40.0)]
+                write_csv(outdir, name, "edge_distance_cm", "dose_percent", rows)
+                p = profile(e, app, "open", z, "crossplane", name)
+                p["tilt_deg"] = t
+                profiles.append(p)
+    # one applicator at an extended SSD, normal incidence
+    e, app, ssd = EXTENDED
+    for z in depths_of[e]:
+        comp = components(e, app_size[app], z, gap=ssd - SSD)
+        name = "e%02d_%s_open_d%.2f_ssd%03d.csv" % (e, app.lower(), z, ssd)
+        rows = [(d, noisy(truth(d, comp), rnd)) for d in distances(40.0)]
+        write_csv(outdir, name, "edge_distance_cm", "dose_percent", rows)
+        p = profile(e, app, "open", z, "crossplane", name)
+        p["ssd_cm"] = ssd
+        profiles.append(p)
+    # and tilted there, so that a tilted beam at an SSD between the two is
+    # interpolated over all four corners
+    for t in TILTS:
+        for z in depths_of[e]:
+            comp = components(e, app_size[app], z, tilt=t, gap=ssd - SSD)
+            name = "e%02d_%s_open_d%.2f_tilt%+03d_ssd%03d.csv" % (e, app.lower(), z, t, ssd)
+            rows = [(d, noisy(truth(d, comp), rnd)) for d in distances(40.0)]
+            write_csv(outdir, name, "edge_distance_cm", "dose_percent", rows)
+            p = profile(e, app, "open", z, "crossplane", name)
+            p["tilt_deg"] = t
+            p["ssd_cm"] = ssd
+            profiles.append(p)
     doc = {
         "format": "strayline-measurements",
-        "format_version": 1,
+        "format_version": 2,
         "notice": NOTICE,
         "machine": {"name": "DEMO-E1", "description": "invented electron linac for the strayline demo",
                     "nominal_ssd_cm": SSD, "sad_cm": 100.0, "invented": True},

@@ -35,6 +35,10 @@ sl_status sl_commission(const sl_measurement_set *ms, const sl_commission_option
  * "9 MeV A10 open 1 cm crossplane". */
 void sl_profile_label(double energy_mev, const char *applicator, const char *insert,
                       double depth_cm, const char *direction, char *buf, size_t size);
+/* Appends " tilt +5 deg" and " SSD 110 cm" to a label where the profile is
+ * tilted or at another SSD than the nominal one. */
+void sl_profile_label_geometry(double tilt_deg, double ssd_cm, double nominal_ssd_cm, char *buf,
+                               size_t size);
 
 #ifdef __cplusplus
 }

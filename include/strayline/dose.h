@@ -115,6 +115,13 @@ typedef struct sl_tps_ratio {
 
 void sl_estimate_default_options(sl_estimate_options *o);
 
+struct sl_beam_dose;
+/* The model's value for one beam at a query (whose tilt and SSD the caller
+ * sets), with the conservative rule at an uncommissioned extended SSD: the
+ * SSD component is widened so that the upper bound (k = 2) never reads
+ * below the estimate at the nominal SSD. */
+void sl_beam_eval(const struct sl_beam_dose *bd, const sl_eval_query *q, sl_model_value *v);
+
 typedef struct sl_beam_dose {
     const sl_beam_place *place;
     double energy_mev;
@@ -125,7 +132,10 @@ typedef struct sl_beam_dose {
     double dose_per_mu_cgy, dmax_cm, effective_ssd_cm;
     double ssd_used_cm;           /* NAN when neither the plan nor the body gives one */
     double gap_cm;                /* ssd_used - nominal SSD */
-    double isf;                   /* inverse-square factor */
+    double isf;                   /* inverse-square factor (from the SSD of the output used) */
+    double output_ssd_cm;         /* SSD of the output used: the nominal one, or the nearest
+                                     measured one when the model has outputs per SSD */
+    double nominal_ratio;         /* reference dose at the nominal SSD / the one used */
     double cutout_factor;
     bool cutout_factor_assumed;   /* no factor in the model: 1 used */
     double cutout_inset_cm;       /* deepest point of the cutout inside the applicator's
@@ -154,6 +164,7 @@ typedef struct sl_beam_dose {
 typedef struct sl_budget {
     double fit_cgy, measurement_cgy, interpolation_cgy, extrapolation_cgy;
     double standin_cgy, transfer_cgy, setup_cgy;
+    double uncommissioned_cgy;    /* tilt or SSD beyond the commissioned ones */
     double combined_cgy;          /* the components in quadrature (beams add linearly) */
 } sl_budget;
 

@@ -91,6 +91,9 @@ typedef struct sl_beam_place {
     sl_vec3 entry_cm;             /* central-axis entry point, patient coordinates */
     double ssd_found_cm;          /* NAN when the axis misses the body */
     double obliquity_deg;         /* NAN when unknown */
+    sl_vec3 normal_bld;           /* the body's outward normal at the entry, in the beam
+                                     limiting device frame (z toward the source); NAN when
+                                     the obliquity is unknown */
     sl_organ_place *organs;       /* one per organ of the location */
     size_t nboli;                 /* bolus ROIs on this beam's rays */
     const sl_roi **boli;          /* into the structure set */
@@ -155,6 +158,15 @@ void sl_location_free(sl_location *loc);
  * the beam's bolus along the ray from the source, or the option's depth.
  * NAN when out of memory. */
 double sl_location_depth(const sl_location *loc, const sl_beam_place *bp, sl_vec3 p);
+
+/* The beam's tilt toward a point, in degrees: the angle between the central
+ * axis and the surface normal at the entry, in the plane through the axis
+ * and the point at (x_cm, y_cm) of the beam limiting device frame, positive
+ * when the beam leans toward the point's side (the surface falls away from
+ * the source there), negative when away; 0 on the axis. NAN when the
+ * obliquity is unknown. Its size is the obliquity for a point in the plane
+ * of the lean. */
+double sl_beam_tilt_toward(const sl_beam_place *bp, double x_cm, double y_cm);
 
 #ifdef __cplusplus
 }

@@ -85,6 +85,8 @@ typedef struct sl_output_spec {
     double dose_per_mu_cgy; /* at the central-axis maximum, nominal SSD, open applicator */
     double dmax_cm;         /* depth of that maximum */
     double effective_ssd_cm;/* for the inverse-square correction at extended SSD */
+    double ssd_cm;          /* the SSD this output was measured at (the nominal one unless
+                               the file says otherwise) */
     size_t nfactors;
     sl_cutout_factor *factors;
 } sl_output_spec;
@@ -109,9 +111,17 @@ void sl_machine_free(sl_machine *m);
 const sl_applicator_spec *sl_machine_applicator(const sl_machine *m, const char *id);
 const sl_insert_spec *sl_machine_insert(const sl_machine *m, const char *applicator,
                                         const char *id);
-/* Energies match within 0.01 MeV. */
+/* Energies match within 0.01 MeV; the output at the nominal SSD. */
 const sl_output_spec *sl_machine_output(const sl_machine *m, double energy_mev,
                                         const char *applicator);
+
+/* Outputs of one energy and applicator measured at SSDs within this of each
+ * other (cm) are the same SSD. */
+#define SL_SSD_MATCH_CM 0.5
+/* The output measured at the SSD nearest to ssd_cm (NULL when none of this
+ * energy and applicator lies within max_cm of it; INFINITY: any). */
+const sl_output_spec *sl_machine_output_at(const sl_machine *m, double energy_mev,
+                                           const char *applicator, double ssd_cm, double max_cm);
 
 /* The applicator catalogue in the form the geometry stage takes; the
  * strings point into m. Caller frees the array. */

@@ -17,6 +17,14 @@
  * is compared with the nominal size projected to the measurement depth (a
  * note beyond 0.3 cm), and the points outside the field on both sides are
  * merged by their distance from their own edge.
+ *
+ * A profile may carry a beam tilt (the angle between the central axis and
+ * the phantom's normal, signed by the side of the field the beam leans
+ * toward in the profile's direction) and an SSD. A tilted through-field
+ * profile is not merged: its positive side becomes a profile at the tilt as
+ * given and its negative side one at the opposite tilt (the mirror rule: the
+ * side a beam leans away from is the side a beam of opposite tilt leans
+ * toward).
  */
 #ifndef STRAYLINE_MEASURE_H
 #define STRAYLINE_MEASURE_H
@@ -34,6 +42,13 @@ extern "C" {
 
 #define SL_EDGE_WIDTH_WARN_CM 0.3
 #define SL_PROFILE_MIN_POINTS 6
+/* The plausible range of a profile's beam tilt (degrees, either sign) and
+ * of its SSD about the nominal one (cm): a clinic measures up to a few tens
+ * of degrees and a few tens of cm of stand-off (common practice); anything
+ * beyond is a typing error. */
+#define SL_TILT_MAX_DEG 60.0
+#define SL_MEAS_SSD_SHORT_CM 5.0
+#define SL_MEAS_SSD_LONG_CM 30.0
 
 typedef struct sl_profile_data {
     double energy_mev;
@@ -41,6 +56,11 @@ typedef struct sl_profile_data {
     char *insert;          /* SL_INSERT_OPEN or an insert id */
     double depth_cm;
     char *direction;       /* "crossplane", "inplane" or "diagonal" */
+    double tilt_deg;       /* beam tilt, signed: > 0 when the beam leans toward the side
+                              this profile describes (0 when not given) */
+    double ssd_cm;         /* SSD of the measurement (the nominal SSD when not given) */
+    int side;              /* of a through-field profile: 0 both sides merged (tilt 0),
+                              +1 the positive positions only, -1 the negative ones */
     char *file;            /* as the measurement set names it */
     char *path;            /* the file as read (relative to the set's folder resolved) */
     char sha256[SL_SHA256_HEX_LEN];
@@ -54,6 +74,7 @@ typedef struct sl_profile_data {
     double width_found_cm; /* 50 % width found (NAN unless from_positions) */
     double width_nominal_cm;
     size_t line;           /* of the profile's entry in the measurement set */
+    size_t entry;          /* its number in the list (1-based; a mirrored twin shares it) */
 } sl_profile_data;
 
 typedef struct sl_measurement_set {

@@ -31,6 +31,11 @@
  *    flagged, with half the spread between them as an uncertainty;
  *  - a profile whose fit is poor (profile.h) marks the value and widens its
  *    fit uncertainty by its largest relative residual;
+ *  - each profile has a beam tilt and an SSD (model format 2); between
+ *    commissioned SSDs, and at each SSD between commissioned tilts, log dose
+ *    is interpolated linearly as between depths; beyond them by more than
+ *    SL_TILT_TOLERANCE_DEG / SL_SSD_TOLERANCE_CM the nearest is used,
+ *    flagged, with an uncertainty component growing with the distance;
  *  - the uncertainty combines the fit's standard error (covariance), the
  *    stated measurement uncertainty, the interpolation spread (between
  *    depths and directions), beyond the measured range an extrapolation
@@ -54,7 +59,20 @@ extern "C" {
 #endif
 
 #define SL_MODEL_FORMAT "strayline-model"
-#define SL_MODEL_FORMAT_VERSION 1
+#define SL_MODEL_FORMAT_VERSION 2
+/* Tolerances beyond the commissioned tilts (degrees) and SSDs (cm) within
+ * which the nearest commissioned one is used without a mark (common
+ * practice: set-up reproducibility of a clinical electron field). */
+#define SL_TILT_TOLERANCE_DEG 2.0
+#define SL_SSD_TOLERANCE_CM 2.0
+/* Relative standard uncertainty per degree of tilt, and per cm of SSD, by
+ * which a value lies beyond the nearest commissioned one (the same rate as
+ * the distance extrapolation: a stated value, common practice). */
+#define SL_UNCOMMISSIONED_PER_DEG 0.02
+#define SL_UNCOMMISSIONED_PER_CM 0.02
+/* Obliquity above which the reports carry a caution (common practice:
+ * depth-dose effects of obliquity become significant there). */
+#define SL_OBLIQUITY_CAUTION_DEG 45.0
 /* Relative extrapolation uncertainty per cm beyond the measured range. */
 #define SL_EXTRAPOLATION_PER_CM 0.02
 /* The plausible range of an evaluation: distances from the field edge up
@@ -69,6 +87,8 @@ typedef struct sl_model_profile {
     char *insert;
     double depth_cm;
     char *direction;
+    double tilt_deg;          /* signed beam tilt (0 in version-1 files) */
+    double ssd_cm;            /* SSD measured at (the nominal one in version-1 files) */
     char *data_file;
     char sha256[SL_SHA256_HEX_LEN];
     double rel_uncertainty, floor_percent;
@@ -92,6 +112,7 @@ typedef struct sl_model {
     char *source;            /* file it was read from (NULL when built in memory) */
     char sha256[SL_SHA256_HEX_LEN];
     char *model_version;
+    int format_version;      /* of the file read (SL_MODEL_FORMAT_VERSION when built) */
     char *notice;            /* e.g. the invented-data notice */
     sl_machine machine;
     sl_provenance provenance;
@@ -115,7 +136,9 @@ enum {
     SL_MF_OPEN_FOR_CUTOUT = 8,  /* open-applicator profiles used for an uncommissioned cutout */
     SL_MF_POINTS_MODE = 16,     /* interpolated measured points rather than the fit */
     SL_MF_POOR_FIT = 32,        /* a profile used has a poor fit: uncertainty widened */
-    SL_MF_NEAR_EDGE = 64        /* (dose stage) closer to the field edge than SL_NEAR_EDGE_CM */
+    SL_MF_NEAR_EDGE = 64,       /* (dose stage) closer to the field edge than SL_NEAR_EDGE_CM */
+    SL_MF_TILT_OUTSIDE = 128,   /* tilt beyond the commissioned tilts: nearest used */
+    SL_MF_SSD_OUTSIDE = 256     /* SSD beyond the commissioned SSDs: nearest used */
 };
 
 /* A short text for each flag set, for reports. */
@@ -133,6 +156,11 @@ sl_status sl_model_select(const sl_model *m, double energy_mev, const char *appl
                           sl_error *err);
 void sl_curve_set_free(sl_curve_set *c);
 
+/* Commissioned tilts (degrees, increasing) and SSDs (cm, increasing) of a
+ * curve set: every tilt measured at any SSD, every SSD. */
+size_t sl_curves_tilts(const sl_curve_set *c, const double **tilts);
+size_t sl_curves_ssds(const sl_curve_set *c, const double **ssds);
+
 /* Commissioned depths (cm) and distance range of a curve set: the nearest
  * and the farthest distance measured in any direction. */
 size_t sl_curves_depths(const sl_curve_set *c, const double **depths);
@@ -144,9 +172,11 @@ typedef struct sl_model_value {
     double u_fit, u_meas, u_interp, u_extrap;
     double u_standin;        /* half the spread of the stand-in's candidates */
     double u_transfer;       /* water tank to patient, by distance band */
+    double u_uncommissioned; /* tilt or SSD beyond the commissioned ones */
     double electron_percent; /* A and B terms (after any transmission) */
     double photon_percent;   /* C term */
     double depth_used_cm;
+    double tilt_used_deg, ssd_used_cm; /* the nearest commissioned when outside */
     unsigned flags;
 } sl_model_value;
 
@@ -160,6 +190,9 @@ typedef struct sl_eval_query {
                                 unknown (the highest direction is taken) */
     sl_eval_mode mode;
     double electron_t;       /* what-if transmission of the electron part (1: none) */
+    double tilt_deg;         /* beam tilt toward the point's side (signed); NAN: unknown (the
+                                highest commissioned tilt is taken) */
+    double ssd_cm;           /* SSD; 0 or NAN: the nominal one */
 } sl_eval_query;
 
 void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out);

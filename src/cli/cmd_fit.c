@@ -196,6 +196,8 @@ int sl_cmd_fit(int argc, char **argv)
             char label[160];
             sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction,
                              label, sizeof label);
+            sl_profile_label_geometry(p->tilt_deg, p->ssd_cm, model->machine.nominal_ssd_cm,
+                                      label, sizeof label);
             fprintf(summary,
                     "  %-40s reduced chi-square %.2f, largest residual %.1f sigma (%s)\n", label,
                     p->fit.chi2_red, p->fit.max_residual_sigma, p->data_file);

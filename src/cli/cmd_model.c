@@ -34,6 +34,9 @@ static const char help[] =
     "                          the directions measured\n"
     "      --applicator-distance CM  distance from the applicator's opening, for the\n"
     "                          stand-in of an uncommissioned cutout\n"
+    "      --tilt DEG          beam tilt toward the point's side, signed (-89 to 89;\n"
+    "                          default 0: normal incidence)\n"
+    "      --ssd CM            SSD (default: the machine's nominal SSD)\n"
     "  -f, --format FMT        text (default) or json\n"
     "  -o, --output FILE       write to FILE (default, or '-': standard output)\n"
     "  -h, --help              this help\n";
@@ -62,12 +65,14 @@ int sl_cmd_model(int argc, char **argv)
         {"format", required_argument, NULL, 'f'},  {"help", no_argument, NULL, 'h'},
         {"angle", required_argument, NULL, 'A'},
         {"applicator-distance", required_argument, NULL, 'X'},
+        {"tilt", required_argument, NULL, 'T'},   {"ssd", required_argument, NULL, 'S'},
         {"output", required_argument, NULL, 'o'},
         {NULL, 0, NULL, 0},
     };
     double energy = NAN, depth = NAN, distance = NAN, angle = NAN, app_distance = NAN;
+    double tilt = NAN, ssd = NAN;
     const char *applicator = NULL, *insert = NULL, *output = NULL;
-    static const char shortopts[] = "e:a:i:d:x:pf:hA:X:o:";
+    static const char shortopts[] = "e:a:i:d:x:pf:hA:X:o:T:S:";
     sl_format fmt = SL_FORMAT_TEXT;
     sl_eval_mode mode = SL_EVAL_FIT;
     int c;
@@ -105,6 +110,16 @@ int sl_cmd_model(int argc, char **argv)
                                     "--applicator-distance needs a distance in cm, not '%s'",
                                     optarg);
             break;
+        case 'T':
+            if (!sl_parse_double(optarg, &tilt) || !(fabs(tilt) < 90))
+                return sl_cli_usage("model",
+                                    "--tilt needs a beam tilt in degrees, -89 to 89, not '%s'",
+                                    optarg);
+            break;
+        case 'S':
+            if (!sl_parse_double(optarg, &ssd) || !(ssd > 0 && ssd <= 1000))
+                return sl_cli_usage("model", "--ssd needs an SSD in cm, not '%s'", optarg);
+            break;
         case 'f':
             if (!sl_cli_format("model", optarg, &fmt))
                 return SL_EXIT_USAGE;
@@ -125,7 +140,7 @@ int sl_cmd_model(int argc, char **argv)
                             "within 0 to %.0f cm",
                             SL_MAX_DISTANCE_CM, SL_MAX_DEPTH_CM);
     if (!eval && (!isnan(energy) || applicator || insert || !isnan(depth) || !isnan(distance) ||
-                  !isnan(angle) || !isnan(app_distance)))
+                  !isnan(angle) || !isnan(app_distance) || !isnan(tilt) || !isnan(ssd)))
         return sl_cli_usage("model", "show takes no point options (did you mean eval?)");
     sl_error err = {0};
     sl_model *m = NULL;
@@ -133,7 +148,8 @@ int sl_cmd_model(int argc, char **argv)
     const char *inputs[] = {argv[optind]};
     sl_outfile out = {0};
     sl_model_value v;
-    sl_eval_query q = {depth, distance, app_distance, angle, mode, 1.0};
+    sl_eval_query q = {depth, distance, app_distance, angle, mode, 1.0, isnan(tilt) ? 0 : tilt,
+                       ssd};
     if (sl_cli_read_model(argv[optind], &m, &err) != SL_OK ||
         (eval && sl_model_eval_query(m, energy, applicator, insert, &q, &v, &err) != SL_OK) ||
         sl_cli_output_open(&out, output ? output : "-", inputs, 1, &err) != SL_OK ||

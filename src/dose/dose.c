@@ -231,6 +231,12 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
         return st;
     }
     const sl_output_spec *o = sl_machine_output(&m->machine, b->energy_mev, bd->applicator);
+    const sl_output_spec *o_nominal = o;
+    double ssd_beam = isfinite(bp->ssd_plan_cm) ? bp->ssd_plan_cm : bp->ssd_found_cm;
+    if (o && isfinite(ssd_beam))
+        /* an output measured at another SSD, nearer the beam's, replaces the
+         * nominal one (the inverse square then runs from there) */
+        o = sl_machine_output_at(&m->machine, b->energy_mev, bd->applicator, ssd_beam, INFINITY);
     if (!o)
         return sl_error_set(err, SL_EINPUT,
                             "%s: no output (dose per MU) for %g MeV, applicator '%s'",
@@ -300,9 +306,16 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                                               : "found on the body contour",
                                 lo, hi, m->machine.nominal_ssd_cm);
         bd->gap_cm = bd->ssd_used_cm - m->machine.nominal_ssd_cm;
-        double r = (bd->effective_ssd_cm + bd->dmax_cm) /
-                   (bd->effective_ssd_cm + bd->gap_cm + bd->dmax_cm);
+        double g = bd->ssd_used_cm - o->ssd_cm;
+        double r = (bd->effective_ssd_cm + bd->dmax_cm) / (bd->effective_ssd_cm + g + bd->dmax_cm);
         bd->isf = r * r;
+        bd->output_ssd_cm = o->ssd_cm;
+        bd->nominal_ratio = o_nominal->dose_per_mu_cgy / (o->dose_per_mu_cgy * bd->isf);
+        if (o != o_nominal)
+            sl_notes_add(&e->notes,
+                         "beam %d: the output measured at SSD %g cm (%.4g cGy/MU) is used, with "
+                         "the inverse square from there to %.1f cm",
+                         b->number, o->ssd_cm, o->dose_per_mu_cgy, bd->ssd_used_cm);
         if (!ssd_from_plan)
             sl_notes_add(&e->notes,
                          "beam %d: the plan gives no SSD: the SSD found on the body contour "
@@ -311,6 +324,8 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     } else if (!isnan(e->opt.reference_dose_cgy)) {
         bd->gap_cm = NAN;
         bd->isf = 1.0;
+        bd->output_ssd_cm = o->ssd_cm;
+        bd->nominal_ratio = 1.0;
         sl_notes_add(&e->notes,
                      "beam %d: no SSD (none in the plan, %s): the reference dose given by option "
                      "is used as it stands",
@@ -395,8 +410,29 @@ static sl_eval_query sample_query(const sl_estimate *e, size_t b, size_t o, size
     double ax = fabs(q.x), ay = fabs(q.y);
     sl_eval_query r = {p->depth_cm[i], p->distance_cm[i], p->app_distance_cm[i],
                        ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0, e->opt.mode,
-                       1.0};
+                       1.0, sl_beam_tilt_toward(bp, q.x, q.y), e->beams[b].ssd_used_cm};
     return r;
+}
+
+void sl_beam_eval(const sl_beam_dose *bd, const sl_eval_query *q, sl_model_value *v)
+{
+    sl_curves_eval_query(bd->curves, q, v);
+    if (!(v->flags & SL_MF_SSD_OUTSIDE) || !(bd->gap_cm > 0) || !isfinite(v->percent))
+        return;
+    /* beyond the commissioned SSDs at an extended one: the inverse square
+     * alone may under-read (the air gap widens the penumbra and spreads the
+     * applicator's scatter), so the upper bound keeps at least the estimate
+     * at the nominal SSD */
+    sl_eval_query qn = *q;
+    qn.ssd_cm = NAN;
+    sl_model_value vn;
+    sl_curves_eval_query(bd->curves, &qn, &vn);
+    double need = 0.5 * (vn.percent * bd->nominal_ratio - v->percent);
+    if (need > v->u_uncommissioned) {
+        double rest = v->u_percent * v->u_percent - v->u_uncommissioned * v->u_uncommissioned;
+        v->u_uncommissioned = need;
+        v->u_percent = sqrt(fmax(rest, 0) + need * need);
+    }
 }
 
 /* The model's value at the query and at +/- the setup shift; *us receives
@@ -406,15 +442,15 @@ static double eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift
                            sl_model_value *v, double *us)
 {
     q.electron_t = t;
-    sl_curves_eval_query(bd->curves, &q, v);
+    sl_beam_eval(bd, &q, v);
     sl_eval_query qp = q, qm = q;
     sl_model_value vp, vm;
     qp.distance_cm += shift;
     qp.app_distance_cm += shift;
     qm.distance_cm = fmax(q.distance_cm - shift, 0);
     qm.app_distance_cm -= shift;
-    sl_curves_eval_query(bd->curves, &qp, &vp);
-    sl_curves_eval_query(bd->curves, &qm, &vm);
+    sl_beam_eval(bd, &qp, &vp);
+    sl_beam_eval(bd, &qm, &vm);
     *us = fmax(fabs(vp.percent - v->percent), fabs(vm.percent - v->percent));
     return sqrt(v->u_percent * v->u_percent + *us * *us);
 }
@@ -428,6 +464,7 @@ static void add_budget(sl_budget *bg, double c, const sl_model_value *v, double 
     bg->interpolation_cgy += c * v->u_interp;
     bg->extrapolation_cgy += c * v->u_extrap;
     bg->standin_cgy += c * v->u_standin;
+    bg->uncommissioned_cgy += c * v->u_uncommissioned;
     bg->transfer_cgy += c * v->u_transfer;
     bg->setup_cgy += c * us;
     bg->combined_cgy += c * u;
@@ -981,7 +1018,9 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
          * allows (its deepest inset), the cautious reading */
         double app = isfinite(bd->cutout_inset_cm) ? fmax(0, distance_cm - bd->cutout_inset_cm)
                                                    : NAN;
-        sl_eval_query q = {depth_cm, distance_cm, app, NAN, e->opt.mode, 1.0};
+        /* the tilt toward it is unknown too: the highest commissioned */
+        sl_eval_query q = {depth_cm, distance_cm, app, NAN, e->opt.mode, 1.0, NAN,
+                           bd->ssd_used_cm};
         sl_model_value v;
         double us;
         double u = eval_shifted(bd, q, shift, 1.0, &v, &us);

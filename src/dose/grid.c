@@ -68,9 +68,10 @@ static void grid_slice(size_t k, void *ctx)
                     dist,
                     bp->field.applicator ? scale * sl_outline_distance(bp->field.applicator, uv)
                                          : NAN,
-                    ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0, e->opt.mode, 1.0};
+                    ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0, e->opt.mode, 1.0,
+                    sl_beam_tilt_toward(bp, q.x, q.y), bd->ssd_used_cm};
                 sl_model_value v;
-                sl_curves_eval_query(bd->curves, &qq, &v);
+                sl_beam_eval(bd, &qq, &v);
                 for (size_t gr = 0; gr < e->ngroups; gr++)
                     if (isfinite(bd->ref_cgy[gr]))
                         course += e->fractions[gr] * bd->ref_cgy[gr] / 100 * v.percent;

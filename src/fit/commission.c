@@ -7,6 +7,7 @@
 #include "strayline/parallel.h"
 #include "strayline/version.h"
 
+#include <math.h>
 #include <pthread.h>
 #include <stdatomic.h>
 #include <stdio.h>
@@ -18,6 +19,16 @@ void sl_profile_label(double energy_mev, const char *applicator, const char *ins
 {
     snprintf(buf, size, "%g MeV %s %s %g cm %s", energy_mev, applicator, insert, depth_cm,
              direction);
+}
+
+void sl_profile_label_geometry(double tilt_deg, double ssd_cm, double nominal_ssd_cm, char *buf,
+                               size_t size)
+{
+    size_t len = strlen(buf);
+    if (tilt_deg != 0 && len < size)
+        len += (size_t)snprintf(buf + len, size - len, " tilt %+g deg", tilt_deg);
+    if (fabs(ssd_cm - nominal_ssd_cm) > 1e-9 && len < size)
+        snprintf(buf + len, size - len, " SSD %g cm", ssd_cm);
 }
 
 typedef struct job {
@@ -38,8 +49,11 @@ static void fit_task(size_t i, void *ctx)
     char label[160];
     sl_profile_label(d->energy_mev, d->applicator, d->insert, d->depth_cm, d->direction, label,
                      sizeof label);
-    snprintf(what, sizeof what, "%s: profile %zu (%s, %s)", j->ms->source, i + 1, label,
-             d->file);
+    sl_profile_label_geometry(d->tilt_deg, d->ssd_cm, j->ms->machine.nominal_ssd_cm, label,
+                              sizeof label);
+    /* the entry's number in the set (a mirrored twin shares its entry's) */
+    snprintf(what, sizeof what, "%s: profile %zu (%s, %s)", j->ms->source,
+             d->entry ? d->entry : i + 1, label, d->file);
     j->status[i] = sl_profile_fit_data(d->distance_cm, d->dose_percent, d->sigma_percent, d->n,
                                        what, &j->m->profiles[i].fit, &j->errors[i]);
     size_t done = atomic_fetch_add(&j->done, 1) + 1;
@@ -130,6 +144,7 @@ sl_status sl_commission(const sl_measurement_set *ms, const sl_commission_option
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     bool ok = copy_machine(&ms->machine, &m->machine);
     m->model_version = copy_str(opt->model_version, &ok);
+    m->format_version = SL_MODEL_FORMAT_VERSION;
     m->notice = copy_str(opt->notice, &ok);
     char tool[64];
     snprintf(tool, sizeof tool, "strayline %s", sl_version());
@@ -156,6 +171,8 @@ sl_status sl_commission(const sl_measurement_set *ms, const sl_commission_option
         q->insert = copy_str(d->insert, &ok);
         q->depth_cm = d->depth_cm;
         q->direction = copy_str(d->direction, &ok);
+        q->tilt_deg = d->tilt_deg;
+        q->ssd_cm = d->ssd_cm;
         q->data_file = copy_str(d->file, &ok);
         memcpy(q->sha256, d->sha256, sizeof q->sha256);
         q->rel_uncertainty = d->rel_uncertainty;

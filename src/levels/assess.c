@@ -119,6 +119,11 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
                (isfinite(level_gy) || (a->kind && a->kind->nbands))) {
         why = "the cutout is not commissioned (a conservative stand-in is used: measure the "
               "cutout's profiles)";
+    } else if (d->flags & (SL_MF_TILT_OUTSIDE | SL_MF_SSD_OUTSIDE) &&
+               (isfinite(level_gy) || (a->kind && a->kind->nbands))) {
+        why = d->flags & SL_MF_TILT_OUTSIDE
+                  ? "the beam's tilt is beyond the commissioned tilts (nearest used)"
+                  : "the SSD is beyond the commissioned SSDs (nearest used)";
     }
     if (why) {
         a->measurement_advised = true;

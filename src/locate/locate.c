@@ -329,6 +329,7 @@ static void central_axis(sl_beam_place *bp, const char *file)
 {
     bp->ssd_found_cm = NAN;
     bp->obliquity_deg = NAN;
+    bp->normal_bld = (sl_vec3){NAN, NAN, NAN};
     const sl_frame *f = &bp->frame;
     double dist;
     if (!ray_entry(bp, 0, 0, &bp->entry_cm, &dist)) {
@@ -365,6 +366,25 @@ static void central_axis(sl_beam_place *bp, const char *file)
     sl_vec3 d = sl_frame_direction(f);
     double c = fabs(n[0] * d.x + n[1] * d.y + n[2] * d.z) / nn;
     bp->obliquity_deg = acos(fmin(1.0, c)) * 180.0 / M_PI;
+    /* the normal in the beam's frame, turned toward the source (+Z) */
+    sl_vec3 nb = {0, 0, 0};
+    double *nbv[3] = {&nb.x, &nb.y, &nb.z};
+    for (int i = 0; i < 3; i++)
+        *nbv[i] = (f->r[i][0] * n[0] + f->r[i][1] * n[1] + f->r[i][2] * n[2]) / nn;
+    if (nb.z < 0)
+        nb = (sl_vec3){-nb.x, -nb.y, -nb.z};
+    bp->normal_bld = nb;
+}
+
+double sl_beam_tilt_toward(const sl_beam_place *bp, double x, double y)
+{
+    const sl_vec3 *n = &bp->normal_bld;
+    if (!isfinite(bp->obliquity_deg) || !isfinite(n->z))
+        return NAN;
+    double r = hypot(x, y);
+    if (!(r > 0) || !(n->z > 0))
+        return 0;
+    return atan2((n->x * x + n->y * y) / r, n->z) * 180.0 / M_PI;
 }
 
 /* Depths set by option: a bolus in the plan plays no part; say so. */
@@ -414,6 +434,7 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     /* unknown until the central axis is traced through a body */
     bp->ssd_found_cm = NAN;
     bp->obliquity_deg = NAN;
+    bp->normal_bld = (sl_vec3){NAN, NAN, NAN};
     sl_status st = sl_plan_beam_position(plan, beam, &bp->position, err);
     if (st == SL_OK)
         st = sl_frame_from_beam(&bp->frame, plan, beam, err);

@@ -195,15 +195,24 @@ static void write_transfer(sl_yaml_writer *w, const sl_transfer *t)
     sl_yaml_map_end(w);
 }
 
+const sl_output_spec *sl_machine_output_at(const sl_machine *m, double energy_mev,
+                                           const char *applicator, double ssd_cm, double max_cm)
+{
+    const sl_output_spec *best = NULL;
+    for (size_t i = 0; applicator && i < m->noutputs; i++) {
+        const sl_output_spec *o = &m->outputs[i];
+        if (fabs(o->energy_mev - energy_mev) < 0.01 && strcmp(o->applicator, applicator) == 0 &&
+            fabs(o->ssd_cm - ssd_cm) <= max_cm &&
+            (!best || fabs(o->ssd_cm - ssd_cm) < fabs(best->ssd_cm - ssd_cm)))
+            best = o;
+    }
+    return best;
+}
+
 const sl_output_spec *sl_machine_output(const sl_machine *m, double energy_mev,
                                         const char *applicator)
 {
-    for (size_t i = 0; applicator && i < m->noutputs; i++) {
-        if (fabs(m->outputs[i].energy_mev - energy_mev) < 0.01 &&
-            strcmp(m->outputs[i].applicator, applicator) == 0)
-            return &m->outputs[i];
-    }
-    return NULL;
+    return sl_machine_output_at(m, energy_mev, applicator, m->nominal_ssd_cm, INFINITY);
 }
 
 sl_status sl_machine_catalogue(const sl_machine *m, sl_applicator_size **out, size_t *n,
@@ -318,9 +327,10 @@ static sl_status read_output(sl_yaml *y, yaml_node_t *n, size_t k, sl_machine *m
     snprintf(what, sizeof what, "output %zu", k + 1);
     sl_yaml_field f[] = {{"energy_mev", true, NULL},       {"applicator", true, NULL},
                          {"dose_per_mu_cgy", true, NULL},  {"dmax_cm", true, NULL},
-                         {"effective_ssd_cm", true, NULL}, {"cutout_factors", false, NULL}};
+                         {"effective_ssd_cm", true, NULL}, {"cutout_factors", false, NULL},
+                         {"ssd_cm", false, NULL}};
     sl_output_spec *o = &m->outputs[k];
-    sl_status st = sl_yaml_fields(y, n, what, f, 6, err);
+    sl_status st = sl_yaml_fields(y, n, what, f, 7, err);
     if (st == SL_OK)
         st = sl_yaml_number_in(y, f[0].node, "energy_mev", 1, 50, &o->energy_mev, err);
     if (st == SL_OK)
@@ -336,11 +346,17 @@ static sl_status read_output(sl_yaml *y, yaml_node_t *n, size_t k, sl_machine *m
     if (st == SL_OK)
         st = sl_yaml_number_in(y, f[4].node, "effective_ssd_cm", 10, 500, &o->effective_ssd_cm,
                                err);
+    o->ssd_cm = m->nominal_ssd_cm;
+    if (st == SL_OK && f[6].node)
+        st = sl_yaml_number_in(y, f[6].node, "ssd_cm", m->nominal_ssd_cm - 5,
+                               m->nominal_ssd_cm + 30, &o->ssd_cm, err);
     for (size_t j = 0; st == SL_OK && j < k; j++) {
         if (fabs(m->outputs[j].energy_mev - o->energy_mev) < 0.01 &&
-            strcmp(m->outputs[j].applicator, o->applicator) == 0)
-            st = sl_yaml_error(y, n, err, "%s: duplicate output for %g MeV, applicator '%s'",
-                               what, o->energy_mev, o->applicator);
+            strcmp(m->outputs[j].applicator, o->applicator) == 0 &&
+            fabs(m->outputs[j].ssd_cm - o->ssd_cm) <= SL_SSD_MATCH_CM)
+            st = sl_yaml_error(y, n, err,
+                               "%s: duplicate output for %g MeV, applicator '%s', SSD %g cm",
+                               what, o->energy_mev, o->applicator, o->ssd_cm);
     }
     if (st == SL_OK && f[5].node) {
         yaml_node_item_t *items;
@@ -427,6 +443,16 @@ sl_status sl_machine_read(sl_yaml *y, yaml_node_t *machine, yaml_node_t *applica
     if (st == SL_OK)
         st = read_list(y, outputs, "outputs", sizeof *m->outputs, (void **)&m->outputs,
                        &m->noutputs, read_output, m, err);
+    for (size_t i = 0; st == SL_OK && i < m->noutputs; i++) {
+        /* an output at another SSD adds to the nominal one, never replaces it */
+        const sl_output_spec *o = &m->outputs[i];
+        if (!sl_machine_output_at(m, o->energy_mev, o->applicator, m->nominal_ssd_cm,
+                                  SL_SSD_MATCH_CM))
+            st = sl_yaml_error(y, outputs, err,
+                               "outputs: %g MeV, applicator '%s' has no output at the nominal "
+                               "SSD of %g cm",
+                               o->energy_mev, o->applicator, m->nominal_ssd_cm);
+    }
     if (st != SL_OK)
         sl_machine_free(m);
     return st;
@@ -484,6 +510,8 @@ void sl_machine_write(sl_yaml_writer *w, const sl_machine *m)
         sl_yaml_kv_number(w, "dose_per_mu_cgy", o->dose_per_mu_cgy);
         sl_yaml_kv_number(w, "dmax_cm", o->dmax_cm);
         sl_yaml_kv_number(w, "effective_ssd_cm", o->effective_ssd_cm);
+        if (fabs(o->ssd_cm - m->nominal_ssd_cm) > 1e-9)
+            sl_yaml_kv_number(w, "ssd_cm", o->ssd_cm);
         if (o->nfactors) {
             sl_yaml_key(w, "cutout_factors");
             sl_yaml_seq_begin(w, false);

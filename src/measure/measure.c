@@ -327,6 +327,9 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                                 : r.a[i] < left ? left - r.a[i]
                                                 : -1)
                              : r.a[i];
+        /* a tilted through-field profile keeps one side (the mirror rule) */
+        if (positions && ((p->side > 0 && r.a[i] < right) || (p->side < 0 && r.a[i] > left)))
+            d = -1;
         if (d < 0) {
             dropped++;
             continue;
@@ -372,7 +375,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                              name, p->width_found_cm, nominal_width_cm, SL_EDGE_WIDTH_WARN_CM);
         } else {
             p->width_found_cm = p->width_nominal_cm = NAN;
-            if (dropped && notes)
+            if (dropped && notes && !positions)
                 sl_notes_add(notes, "%s: %zu rows inside the field (negative distance) ignored",
                              name, dropped);
         }
@@ -415,18 +418,21 @@ sl_status sl_profile_read_csv(const char *path, double cax_reading, double nomin
 
 /* ---------------------------------------------------- measurement set -- */
 
-static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, const char *dir,
-                              sl_measurement_set *m, sl_error *err)
+/* The profile's entry (the k-th of the set) into m->profiles[slot]. */
+static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, size_t slot,
+                              sl_measurement_set *m, double *cax_out, sl_error *err)
 {
     char what[64];
     snprintf(what, sizeof what, "profile %zu", k + 1);
-    sl_profile_data *p = &m->profiles[k];
+    sl_profile_data *p = &m->profiles[slot];
     p->line = n ? n->start_mark.line + 1 : 0;
+    p->entry = k + 1;
     sl_yaml_field f[] = {{"energy_mev", true, NULL}, {"applicator", true, NULL},
                          {"insert", true, NULL},     {"depth_cm", true, NULL},
                          {"direction", true, NULL},  {"file", true, NULL},
-                         {"uncertainty", true, NULL}, {"cax_reading", false, NULL}};
-    sl_status st = sl_yaml_fields(y, n, what, f, 8, err);
+                         {"uncertainty", true, NULL}, {"cax_reading", false, NULL},
+                         {"tilt_deg", false, NULL},   {"ssd_cm", false, NULL}};
+    sl_status st = sl_yaml_fields(y, n, what, f, 10, err);
     if (st == SL_OK)
         st = sl_yaml_number_in(y, f[0].node, "energy_mev", 1, 50, &p->energy_mev, err);
     if (st == SL_OK)
@@ -469,23 +475,66 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t k, const char *
     double cax = NAN;
     if (st == SL_OK && f[7].node)
         st = sl_yaml_number_in(y, f[7].node, "cax_reading", 1e-12, 1e12, &cax, err);
+    p->tilt_deg = 0;
+    p->ssd_cm = m->machine.nominal_ssd_cm;
+    if (st == SL_OK && f[8].node)
+        st = sl_yaml_number_in(y, f[8].node, "tilt_deg", -SL_TILT_MAX_DEG, SL_TILT_MAX_DEG,
+                               &p->tilt_deg, err);
+    if (st == SL_OK && f[9].node)
+        st = sl_yaml_number_in(y, f[9].node, "ssd_cm",
+                               m->machine.nominal_ssd_cm - SL_MEAS_SSD_SHORT_CM,
+                               m->machine.nominal_ssd_cm + SL_MEAS_SSD_LONG_CM, &p->ssd_cm, err);
+    if (st == SL_OK && !sl_machine_output_at(&m->machine, p->energy_mev, p->applicator,
+                                             p->ssd_cm, SL_SSD_MATCH_CM) &&
+        fabs(p->ssd_cm - m->machine.nominal_ssd_cm) > SL_SSD_MATCH_CM && m->notes.count < 1000)
+        sl_notes_add(&m->notes,
+                     "%s: %s: no output is given at SSD %g cm: the nominal output with the "
+                     "inverse square applies there",
+                     m->source, what, p->ssd_cm);
+    *cax_out = cax;
+    if (st != SL_OK)
+        return st;
+    /* the side kept: a tilted profile given by positions splits in two (the
+     * caller makes the mirrored twin); by edge distance it is one side */
+    p->side = p->tilt_deg != 0 ? 1 : 0;
+    return SL_OK;
+}
+
+static bool same_profile(const sl_profile_data *q, const sl_profile_data *p)
+{
+    return fabs(q->energy_mev - p->energy_mev) < 0.01 && strcmp(q->applicator, p->applicator) == 0 &&
+           strcmp(q->insert, p->insert) == 0 && fabs(q->depth_cm - p->depth_cm) < 1e-6 &&
+           strcmp(q->direction, p->direction) == 0 && fabs(q->tilt_deg - p->tilt_deg) < 1e-6 &&
+           fabs(q->ssd_cm - p->ssd_cm) < 1e-6;
+}
+
+/* The profile's data: the duplicate check, the nominal width, the CSV. */
+static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const char *what,
+                                   const char *dir, double cax, sl_measurement_set *m,
+                                   sl_error *err)
+{
+    sl_profile_data *p = &m->profiles[k];
+    sl_status st = SL_OK;
     for (size_t j = 0; st == SL_OK && j < k; j++) {
         const sl_profile_data *q = &m->profiles[j];
-        if (fabs(q->energy_mev - p->energy_mev) < 0.01 && strcmp(q->applicator, p->applicator) == 0 &&
-            strcmp(q->insert, p->insert) == 0 && fabs(q->depth_cm - p->depth_cm) < 1e-6 &&
-            strcmp(q->direction, p->direction) == 0)
+        if (same_profile(q, p))
             st = sl_yaml_error(y, n, err, "%s: duplicate of profile %zu (same energy, "
-                                          "applicator, insert, depth and direction)",
-                               what, j + 1);
+                                          "applicator, insert, depth, direction, tilt and "
+                                          "SSD%s)",
+                               what, q->entry, q->side || p->side ? ", the mirror rule counted" : "");
     }
     if (st != SL_OK)
         return st;
+    const sl_applicator_spec *app = sl_machine_applicator(&m->machine, p->applicator);
+    const sl_insert_spec *ins = strcmp(p->insert, SL_INSERT_OPEN) != 0
+                                    ? sl_machine_insert(&m->machine, p->applicator, p->insert)
+                                    : NULL;
     /* the nominal width along the measured axis, at the measurement depth */
     double w = strcmp(p->direction, "inplane") == 0 ? (ins ? ins->y_cm : app->y_cm)
                                                     : (ins ? ins->x_cm : app->x_cm);
     if (strcmp(p->direction, "diagonal") == 0)
         w = NAN;
-    w *= (m->machine.nominal_ssd_cm + p->depth_cm) / m->machine.nominal_ssd_cm;
+    w *= (p->ssd_cm + p->depth_cm) / m->machine.nominal_ssd_cm;
     char path[4096];
     if (p->file[0] == '/')
         snprintf(path, sizeof path, "%s", p->file);
@@ -551,9 +600,9 @@ sl_status sl_measurements_load_buffer(const char *data, size_t size, const char 
     int version = 0;
     if (st == SL_OK)
         st = sl_yaml_int(&y, f[1].node, "format_version", &version, err);
-    if (st == SL_OK && version != 1)
-        st = sl_yaml_error(&y, f[1].node, err, "format_version %d: only version 1 is known",
-                           version);
+    if (st == SL_OK && version != 1 && version != 2)
+        st = sl_yaml_error(&y, f[1].node, err,
+                           "format_version %d: only versions 1 and 2 are known", version);
     if (st == SL_OK)
         st = sl_machine_read(&y, f[3].node, f[6].node, f[7].node, f[8].node, &m->machine, err);
     if (st == SL_OK) {
@@ -575,13 +624,42 @@ sl_status sl_measurements_load_buffer(const char *data, size_t size, const char 
     if (st == SL_OK && n == 0)
         st = sl_yaml_error(&y, f[9].node, err, "profiles: the list is empty");
     if (st == SL_OK) {
-        m->profiles = calloc(n, sizeof *m->profiles);
+        m->profiles = calloc(2 * n, sizeof *m->profiles); /* room for mirrored twins */
         if (!m->profiles)
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     for (size_t i = 0; st == SL_OK && i < n; i++) {
-        m->nprofiles = i + 1;
-        st = read_profile(&y, sl_yaml_item(&y, items[i]), i, dir, m, err);
+        yaml_node_t *node = sl_yaml_item(&y, items[i]);
+        char what[64];
+        snprintf(what, sizeof what, "profile %zu", i + 1);
+        size_t slot = m->nprofiles++;
+        double cax = NAN;
+        st = read_profile(&y, node, i, slot, m, &cax, err);
+        if (st == SL_OK)
+            st = read_profile_data(&y, node, slot, what, dir, cax, m, err);
+        sl_profile_data *p = &m->profiles[slot];
+        if (st == SL_OK && p->side && !p->from_positions)
+            p->side = 0; /* given by edge distance: the one side it describes */
+        if (st == SL_OK && p->side) {
+            /* the mirror rule: the negative side at the opposite tilt */
+            sl_profile_data *q = &m->profiles[m->nprofiles++];
+            bool ok = true;
+            q->energy_mev = p->energy_mev;
+            q->applicator = sl_strdup(p->applicator, &ok);
+            q->insert = sl_strdup(p->insert, &ok);
+            q->depth_cm = p->depth_cm;
+            q->direction = sl_strdup(p->direction, &ok);
+            q->file = sl_strdup(p->file, &ok);
+            q->tilt_deg = -p->tilt_deg;
+            q->ssd_cm = p->ssd_cm;
+            q->side = -1;
+            q->rel_uncertainty = p->rel_uncertainty;
+            q->floor_percent = p->floor_percent;
+            q->line = p->line;
+            q->entry = p->entry;
+            st = ok ? read_profile_data(&y, node, m->nprofiles - 1, what, dir, cax, m, err)
+                    : sl_error_set(err, SL_ENOMEM, "out of memory");
+        }
     }
     sl_yaml_free(&y);
     if (st != SL_OK) {

@@ -38,6 +38,11 @@ typedef struct member {
     double scale;         /* to percent of the open field's central-axis maximum */
 } member;
 
+typedef struct layer {
+    double tilt_deg, ssd_cm;
+    sl_curve_set *set;    /* the profiles of one tilt and SSD */
+} layer;
+
 struct sl_curve_set {
     size_t ngroups;
     depth_group *groups;
@@ -47,6 +52,14 @@ struct sl_curve_set {
     bool standin;         /* open curves standing in for an uncommissioned cutout */
     size_t nmembers;
     member *members;
+    /* tilts and SSDs: a set of one (tilt, SSD) holds its groups itself;
+     * a set of several holds one flat set a layer, and no groups */
+    double nominal_ssd_cm;
+    size_t ndepths;       /* of depths: the groups', or the reference layer's */
+    size_t nlayers;
+    layer *layers;
+    size_t ntilts, nssds;
+    double *tilts, *ssds;  /* distinct, increasing */
 };
 
 const char *sl_model_flag_text(unsigned flag)
@@ -64,6 +77,12 @@ const char *sl_model_flag_text(unsigned flag)
     case SL_MF_POOR_FIT: return "a profile used has a poor fit (uncertainty widened)";
     case SL_MF_NEAR_EDGE:
         return "near the field edge: the planning system's dose is the reference here";
+    case SL_MF_TILT_OUTSIDE:
+        return "tilt not commissioned: beyond the commissioned beam tilts (nearest used, "
+               "uncertainty widened)";
+    case SL_MF_SSD_OUTSIDE:
+        return "SSD not commissioned: beyond the commissioned SSDs (nearest used, uncertainty "
+               "widened; never below the nominal-SSD estimate at an extended SSD)";
     }
     return "unknown flag";
 }
@@ -85,6 +104,11 @@ void sl_curve_set_free(sl_curve_set *c)
     for (size_t k = 0; k < c->nmembers; k++)
         sl_curve_set_free(c->members[k].set);
     free(c->members);
+    for (size_t k = 0; k < c->nlayers; k++)
+        sl_curve_set_free(c->layers[k].set);
+    free(c->layers);
+    free(c->tilts);
+    free(c->ssds);
     free(c);
 }
 
@@ -109,6 +133,27 @@ static bool matches(const sl_model_profile *p, double e, const char *app, const 
            strcmp(p->insert, ins) == 0;
 }
 
+/* A profile of one tilt and SSD (NAN: any). */
+static bool matches_key(const sl_model_profile *p, double e, const char *app, const char *ins,
+                        double tilt, double ssd)
+{
+    return matches(p, e, app, ins) && (isnan(tilt) || fabs(p->tilt_deg - tilt) < 1e-6) &&
+           (isnan(ssd) || fabs(p->ssd_cm - ssd) < 1e-6);
+}
+
+/* Insert x into the increasing list v of *n distinct values (room assumed). */
+static void add_distinct(double *v, size_t *n, double x)
+{
+    size_t i = 0;
+    while (i < *n && v[i] < x - 1e-6)
+        i++;
+    if (i < *n && fabs(v[i] - x) < 1e-6)
+        return;
+    memmove(v + i + 1, v + i, (*n - i) * sizeof *v);
+    v[i] = x;
+    (*n)++;
+}
+
 static sl_status not_commissioned(const sl_model *m, double e, const char *app, sl_error *err)
 {
     char list[700] = "";
@@ -131,9 +176,11 @@ static sl_status not_commissioned(const sl_model *m, double e, const char *app, 
                         m->source ? m->source : "model", e, app ? app : "(none)", list);
 }
 
-/* The curves of exactly this energy, applicator and insert (n of them). */
-static sl_status build_set(const sl_model *m, double e, const char *app, const char *ins,
-                           size_t n, sl_curve_set **out, sl_error *err)
+/* The curves of exactly this energy, applicator, insert, tilt and SSD (n of
+ * them). */
+static sl_status build_flat(const sl_model *m, double e, const char *app, const char *ins,
+                            double tilt, double ssd, size_t n, sl_curve_set **out,
+                            sl_error *err)
 {
     const sl_model_profile **sel = malloc(n * sizeof *sel);
     sl_curve_set *c = calloc(1, sizeof *c);
@@ -144,13 +191,21 @@ static sl_status build_set(const sl_model *m, double e, const char *app, const c
     }
     size_t k = 0;
     for (size_t i = 0; i < m->nprofiles; i++) {
-        if (matches(&m->profiles[i], e, app, ins))
+        if (matches_key(&m->profiles[i], e, app, ins, tilt, ssd))
             sel[k++] = &m->profiles[i];
     }
     qsort(sel, n, sizeof *sel, cmp_prof_depth);
+    c->nominal_ssd_cm = m->machine.nominal_ssd_cm;
+    c->tilts = malloc(sizeof *c->tilts);
+    c->ssds = malloc(sizeof *c->ssds);
+    if (c->tilts && c->ssds) {
+        c->ntilts = c->nssds = 1;
+        c->tilts[0] = tilt;
+        c->ssds[0] = ssd;
+    }
     c->groups = calloc(n, sizeof *c->groups);
     c->depths = calloc(n, sizeof *c->depths);
-    sl_status st = c->groups && c->depths ? SL_OK : SL_ENOMEM;
+    sl_status st = c->groups && c->depths && c->tilts && c->ssds ? SL_OK : SL_ENOMEM;
     c->range_lo = INFINITY;
     c->range_hi = -INFINITY;
     c->transfer = &m->machine.transfer;
@@ -165,6 +220,7 @@ static sl_status build_set(const sl_model *m, double e, const char *app, const c
                 break;
             }
             c->depths[c->ngroups - 1] = g->depth_cm;
+            c->ndepths = c->ngroups;
         }
         curve *cv = &g->curves[g->ncurves++];
         cv->prof = sel[i];
@@ -196,12 +252,99 @@ static sl_status build_set(const sl_model *m, double e, const char *app, const c
     return SL_OK;
 }
 
-static size_t count_matches(const sl_model *m, double e, const char *app, const char *ins)
+static size_t count_key(const sl_model *m, double e, const char *app, const char *ins,
+                        double tilt, double ssd)
 {
     size_t n = 0;
     for (size_t i = 0; i < m->nprofiles; i++)
-        n += matches(&m->profiles[i], e, app, ins);
+        n += matches_key(&m->profiles[i], e, app, ins, tilt, ssd);
     return n;
+}
+
+static size_t count_matches(const sl_model *m, double e, const char *app, const char *ins)
+{
+    return count_key(m, e, app, ins, NAN, NAN);
+}
+
+/* The curves of this energy, applicator and insert (n of them): one flat
+ * set when they share one tilt and SSD, else one flat set a (tilt, SSD). */
+static sl_status build_set(const sl_model *m, double e, const char *app, const char *ins,
+                           size_t n, sl_curve_set **out, sl_error *err)
+{
+    double *tl = malloc(n * sizeof *tl), *sl = malloc(n * sizeof *sl);
+    size_t nt = 0, ns = 0;
+    layer *ly = calloc(n, sizeof *ly);
+    size_t nl = 0;
+    if (!tl || !sl || !ly) {
+        free(tl);
+        free(sl);
+        free(ly);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t i = 0; i < m->nprofiles; i++) {
+        const sl_model_profile *p = &m->profiles[i];
+        if (!matches(p, e, app, ins))
+            continue;
+        add_distinct(tl, &nt, p->tilt_deg);
+        add_distinct(sl, &ns, p->ssd_cm);
+        bool seen = false;
+        for (size_t k = 0; k < nl && !seen; k++)
+            seen = fabs(ly[k].tilt_deg - p->tilt_deg) < 1e-6 && fabs(ly[k].ssd_cm - p->ssd_cm) < 1e-6;
+        if (!seen)
+            ly[nl++] = (layer){p->tilt_deg, p->ssd_cm, NULL};
+    }
+    if (nl == 1) {
+        sl_status st = build_flat(m, e, app, ins, ly[0].tilt_deg, ly[0].ssd_cm, n, out, err);
+        free(tl);
+        free(sl);
+        free(ly);
+        return st;
+    }
+    sl_curve_set *c = calloc(1, sizeof *c);
+    if (!c) {
+        free(tl);
+        free(sl);
+        free(ly);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    c->nominal_ssd_cm = m->machine.nominal_ssd_cm;
+    c->transfer = &m->machine.transfer;
+    c->tilts = tl;
+    c->ntilts = nt;
+    c->ssds = sl;
+    c->nssds = ns;
+    c->layers = ly;
+    c->nlayers = nl;
+    c->range_lo = INFINITY;
+    c->range_hi = -INFINITY;
+    sl_status st = SL_OK;
+    size_t ref = 0; /* the layer nearest normal incidence at the nominal SSD: its depths */
+    for (size_t k = 0; k < nl && st == SL_OK; k++) {
+        size_t nk = count_key(m, e, app, ins, ly[k].tilt_deg, ly[k].ssd_cm);
+        st = build_flat(m, e, app, ins, ly[k].tilt_deg, ly[k].ssd_cm, nk, &ly[k].set, err);
+        if (st != SL_OK)
+            break;
+        c->range_lo = fmin(c->range_lo, ly[k].set->range_lo);
+        c->range_hi = fmax(c->range_hi, ly[k].set->range_hi);
+        double dk = fabs(ly[k].ssd_cm - c->nominal_ssd_cm) * 10 + fabs(ly[k].tilt_deg);
+        double dr = fabs(ly[ref].ssd_cm - c->nominal_ssd_cm) * 10 + fabs(ly[ref].tilt_deg);
+        if (dk < dr)
+            ref = k;
+    }
+    if (st != SL_OK) {
+        sl_curve_set_free(c);
+        return st;
+    }
+    c->depths = malloc(ly[ref].set->ngroups * sizeof *c->depths);
+    if (!c->depths) {
+        sl_curve_set_free(c);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    memcpy(c->depths, ly[ref].set->depths, ly[ref].set->ngroups * sizeof *c->depths);
+    c->ngroups = 0;
+    c->ndepths = ly[ref].set->ngroups;
+    *out = c;
+    return SL_OK;
 }
 
 /* The scale that puts an insert's profiles on the open output: its cutout
@@ -268,7 +411,19 @@ sl_status sl_model_select(const sl_model *m, double e, const char *app, const ch
 size_t sl_curves_depths(const sl_curve_set *c, const double **depths)
 {
     *depths = c->depths;
-    return c->ngroups;
+    return c->ndepths;
+}
+
+size_t sl_curves_tilts(const sl_curve_set *c, const double **tilts)
+{
+    *tilts = c->tilts;
+    return c->ntilts;
+}
+
+size_t sl_curves_ssds(const sl_curve_set *c, const double **ssds)
+{
+    *ssds = c->ssds;
+    return c->nssds;
 }
 
 void sl_curves_range(const sl_curve_set *c, double *lo, double *hi)
@@ -401,13 +556,14 @@ static point_value group_value(const depth_group *g, double d, double angle, sl_
 static void set_nan(sl_model_value *out)
 {
     out->percent = out->u_percent = out->u_fit = out->u_meas = out->u_interp = NAN;
-    out->u_extrap = out->u_standin = out->u_transfer = NAN;
+    out->u_extrap = out->u_standin = out->u_transfer = out->u_uncommissioned = NAN;
+    out->tilt_used_deg = out->ssd_used_cm = NAN;
     out->electron_percent = out->photon_percent = NAN;
 }
 
-/* One curve set (no members) at one distance. */
-static void eval_set(const sl_curve_set *c, double depth, double d, double angle,
-                     sl_eval_mode mode, double electron_t, sl_model_value *out)
+/* One flat curve set (no members, one tilt and SSD) at one distance. */
+static void eval_flat(const sl_curve_set *c, double depth, double d, double angle,
+                      sl_eval_mode mode, double electron_t, sl_model_value *out)
 {
     size_t g0 = 0, g1 = 0;
     double w = 0;
@@ -452,13 +608,173 @@ static void eval_set(const sl_curve_set *c, double depth, double d, double angle
     out->u_interp = sqrt(between * between + (rs * r.v) * (rs * r.v)) * scale;
 }
 
+/* Where x falls in the increasing list v of n values: the two neighbours
+ * and the weight on the second, or the nearest one (i0 == i1) with *beyond
+ * the distance from it. */
+static void bracket(const double *v, size_t n, double x, size_t *i0, size_t *i1, double *w,
+                    double *beyond)
+{
+    *w = 0;
+    *beyond = 0;
+    if (x <= v[0]) {
+        *i0 = *i1 = 0;
+        *beyond = v[0] - x;
+    } else if (x >= v[n - 1]) {
+        *i0 = *i1 = n - 1;
+        *beyond = x - v[n - 1];
+    } else {
+        size_t k = 1;
+        while (k < n && v[k] < x)
+            k++;
+        *i0 = k - 1;
+        *i1 = k;
+        *w = (x - v[k - 1]) / (v[k] - v[k - 1]);
+    }
+}
+
+/* Log-linear blend of two evaluations with weight w on b, as between
+ * depths: components blend relatively, and the interpolation spread
+ * w (1 - w) |b - a| joins the interpolation component. */
+static void blend_values(const sl_model_value *a, const sl_model_value *b, double w,
+                         sl_model_value *out)
+{
+    unsigned flags = a->flags | b->flags;
+    if (w <= 0 || w >= 1 || !(a->percent > 0) || !(b->percent > 0)) {
+        *out = w >= 1 ? *b : *a;
+        out->flags = (w <= 0 ? a->flags : w >= 1 ? b->flags : flags);
+        return;
+    }
+    sl_model_value r = *a;
+    r.percent = exp((1 - w) * log(a->percent) + w * log(b->percent));
+#define REL(f) (((1 - w) * a->f / a->percent + w * b->f / b->percent) * r.percent)
+    r.u_fit = REL(u_fit);
+    r.u_meas = REL(u_meas);
+    r.u_extrap = REL(u_extrap);
+    r.u_uncommissioned = REL(u_uncommissioned);
+    r.electron_percent = REL(electron_percent);
+    r.photon_percent = REL(photon_percent);
+    double ui = REL(u_interp);
+#undef REL
+    double between = w * (1 - w) * fabs(b->percent - a->percent);
+    r.u_interp = sqrt(ui * ui + between * between);
+    r.depth_used_cm = (1 - w) * a->depth_used_cm + w * b->depth_used_cm;
+    r.tilt_used_deg = (1 - w) * a->tilt_used_deg + w * b->tilt_used_deg;
+    r.ssd_used_cm = (1 - w) * a->ssd_used_cm + w * b->ssd_used_cm;
+    r.flags = flags;
+    *out = r;
+}
+
+/* The layers of one SSD at a tilt: interpolated between the commissioned
+ * tilts around it, the nearest beyond them (flagged beyond the tolerance,
+ * with its uncertainty component), the highest when the tilt is unknown. */
+static void eval_at_ssd(const sl_curve_set *c, double ssd, double depth, double d, double angle,
+                        double tilt, sl_eval_mode mode, double electron_t, sl_model_value *out)
+{
+    double tl[64];
+    const sl_curve_set *sets[64];
+    size_t n = 0;
+    for (size_t k = 0; k < c->nlayers && n < 64; k++) {
+        if (fabs(c->layers[k].ssd_cm - ssd) > 1e-6)
+            continue;
+        /* keep increasing by tilt */
+        size_t i = n;
+        while (i > 0 && tl[i - 1] > c->layers[k].tilt_deg) {
+            tl[i] = tl[i - 1];
+            sets[i] = sets[i - 1];
+            i--;
+        }
+        tl[i] = c->layers[k].tilt_deg;
+        sets[i] = c->layers[k].set;
+        n++;
+    }
+    if (isnan(tilt)) {
+        /* unknown tilt: the highest of the commissioned ones */
+        for (size_t k = 0; k < n; k++) {
+            sl_model_value v;
+            memset(&v, 0, sizeof v);
+            eval_flat(sets[k], depth, d, angle, mode, electron_t, &v);
+            v.tilt_used_deg = tl[k];
+            v.ssd_used_cm = ssd;
+            if (k == 0 || v.percent > out->percent) {
+                unsigned f = k ? out->flags : 0;
+                *out = v;
+                out->flags |= f;
+            } else {
+                out->flags |= v.flags;
+            }
+        }
+        return;
+    }
+    size_t i0, i1;
+    double w, beyond;
+    bracket(tl, n, tilt, &i0, &i1, &w, &beyond);
+    sl_model_value a, b;
+    memset(&a, 0, sizeof a);
+    memset(&b, 0, sizeof b);
+    eval_flat(sets[i0], depth, d, angle, mode, electron_t, &a);
+    a.tilt_used_deg = tl[i0];
+    a.ssd_used_cm = ssd;
+    if (i1 != i0) {
+        eval_flat(sets[i1], depth, d, angle, mode, electron_t, &b);
+        b.tilt_used_deg = tl[i1];
+        b.ssd_used_cm = ssd;
+    } else {
+        b = a;
+    }
+    blend_values(&a, &b, w, out);
+    if (beyond > SL_TILT_TOLERANCE_DEG) {
+        out->flags |= SL_MF_TILT_OUTSIDE;
+        out->u_uncommissioned = hypot(out->u_uncommissioned,
+                                      SL_UNCOMMISSIONED_PER_DEG * beyond * out->percent);
+    }
+}
+
+/* One curve set (no members) at one distance, tilt and SSD. */
+static void eval_set(const sl_curve_set *c, double depth, double d, double angle, double tilt,
+                     double ssd_q, sl_eval_mode mode, double electron_t, sl_model_value *out)
+{
+    double ssd = isfinite(ssd_q) && ssd_q > 0 ? ssd_q : c->nominal_ssd_cm;
+    unsigned given = out->flags;
+    size_t i0, i1;
+    double w, beyond;
+    bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
+    if (c->nlayers == 0) {
+        /* one tilt and SSD */
+        eval_flat(c, depth, d, angle, mode, electron_t, out);
+        out->tilt_used_deg = c->tilts[0];
+        out->ssd_used_cm = c->ssds[0];
+        double tb = isnan(tilt) ? 0 : fabs(tilt - c->tilts[0]);
+        if (tb > SL_TILT_TOLERANCE_DEG) {
+            out->flags |= SL_MF_TILT_OUTSIDE;
+            out->u_uncommissioned = SL_UNCOMMISSIONED_PER_DEG * tb * out->percent;
+        }
+    } else {
+        sl_model_value a, b;
+        memset(&a, 0, sizeof a);
+        memset(&b, 0, sizeof b);
+        eval_at_ssd(c, c->ssds[i0], depth, d, angle, tilt, mode, electron_t, &a);
+        if (i1 != i0)
+            eval_at_ssd(c, c->ssds[i1], depth, d, angle, tilt, mode, electron_t, &b);
+        else
+            b = a;
+        blend_values(&a, &b, w, out);
+        out->flags |= given;
+    }
+    if (beyond > SL_SSD_TOLERANCE_CM) {
+        out->flags |= SL_MF_SSD_OUTSIDE;
+        out->u_uncommissioned =
+            hypot(out->u_uncommissioned, SL_UNCOMMISSIONED_PER_CM * beyond * out->percent);
+    }
+}
+
 static void combine(const sl_curve_set *c, double d, sl_model_value *out)
 {
     double rel = sl_transfer_relative(c->transfer, d);
     out->u_transfer = rel * out->percent;
     out->u_percent = sqrt(out->u_fit * out->u_fit + out->u_meas * out->u_meas +
                           out->u_interp * out->u_interp + out->u_extrap * out->u_extrap +
-                          out->u_standin * out->u_standin + out->u_transfer * out->u_transfer);
+                          out->u_standin * out->u_standin + out->u_transfer * out->u_transfer +
+                          out->u_uncommissioned * out->u_uncommissioned);
 }
 
 static void scale_value(sl_model_value *v, double k)
@@ -470,6 +786,7 @@ static void scale_value(sl_model_value *v, double k)
     v->u_meas *= k;
     v->u_interp *= k;
     v->u_extrap *= k;
+    v->u_uncommissioned *= k;
 }
 
 void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out)
@@ -489,14 +806,15 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
         set_nan(out);
         return;
     }
-    eval_set(c, depth, d, q->angle_deg, q->mode, q->electron_t, out);
+    eval_set(c, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, q->mode, q->electron_t, out);
     if (c->standin) {
         /* the largest candidate; the flags of every candidate are kept */
         double lo = out->percent;
         sl_model_value cand;
         if (isfinite(q->app_distance_cm) && q->app_distance_cm >= 0) {
             memset(&cand, 0, sizeof cand);
-            eval_set(c, depth, q->app_distance_cm, q->angle_deg, q->mode, q->electron_t, &cand);
+            eval_set(c, depth, q->app_distance_cm, q->angle_deg, q->tilt_deg, q->ssd_cm, q->mode,
+                     q->electron_t, &cand);
             cand.flags |= out->flags;
             out->flags = cand.flags;
             lo = fmin(lo, cand.percent);
@@ -505,7 +823,8 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
         }
         for (size_t k = 0; k < c->nmembers; k++) {
             memset(&cand, 0, sizeof cand);
-            eval_set(c->members[k].set, depth, d, q->angle_deg, q->mode, q->electron_t, &cand);
+            eval_set(c->members[k].set, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, q->mode,
+                     q->electron_t, &cand);
             scale_value(&cand, c->members[k].scale);
             cand.flags |= out->flags;
             out->flags = cand.flags;
@@ -522,7 +841,7 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
 void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode mode,
                     double electron_t, sl_model_value *out)
 {
-    sl_eval_query q = {depth, d, NAN, NAN, mode, electron_t};
+    sl_eval_query q = {depth, d, NAN, NAN, mode, electron_t, 0, NAN};
     sl_curves_eval_query(c, &q, out);
 }
 
@@ -545,6 +864,6 @@ sl_status sl_model_eval(const sl_model *m, double energy_mev, const char *applic
                         const char *insert, double depth_cm, double distance_cm,
                         sl_eval_mode mode, sl_model_value *out, sl_error *err)
 {
-    sl_eval_query q = {depth_cm, distance_cm, NAN, NAN, mode, 1.0};
+    sl_eval_query q = {depth_cm, distance_cm, NAN, NAN, mode, 1.0, 0, NAN};
     return sl_model_eval_query(m, energy_mev, applicator, insert, &q, out, err);
 }

@@ -4,6 +4,7 @@
  * needs a change there and, when old files would no longer read, a new
  * format_version.
  */
+#include "strayline/measure.h"
 #include "strayline/model.h"
 #include "strayline/util.h"
 #include "strayline/yamlio.h"
@@ -172,9 +173,28 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t idx, sl_model *
                          {"direction", true, NULL},  {"data_file", true, NULL},
                          {"data_sha256", true, NULL}, {"uncertainty", true, NULL},
                          {"edge", false, NULL},      {"range_cm", true, NULL},
-                         {"fit", true, NULL},        {"points", true, NULL}};
+                         {"fit", true, NULL},        {"points", true, NULL},
+                         {"tilt_deg", false, NULL},  {"ssd_cm", false, NULL}};
     enum { NK = sizeof k / sizeof *k };
     sl_status st = sl_yaml_fields(y, n, what, k, NK, err);
+    /* version 1 knew neither: its profiles are at normal incidence and the
+     * nominal SSD; version 2 states both for every profile */
+    p->tilt_deg = 0;
+    p->ssd_cm = m->machine.nominal_ssd_cm;
+    for (size_t i = NK - 2; st == SL_OK && i < NK; i++) {
+        if (m->format_version < 2 && k[i].node)
+            st = sl_yaml_error(y, k[i].node, err, "%s: %s needs format_version 2", what,
+                               k[i].key);
+        else if (m->format_version >= 2 && !k[i].node)
+            st = sl_yaml_error(y, n, err, "%s: missing key '%s'", what, k[i].key);
+    }
+    if (st == SL_OK && k[NK - 2].node)
+        st = sl_yaml_number_in(y, k[NK - 2].node, "tilt_deg", -SL_TILT_MAX_DEG, SL_TILT_MAX_DEG,
+                               &p->tilt_deg, err);
+    if (st == SL_OK && k[NK - 1].node)
+        st = sl_yaml_number_in(y, k[NK - 1].node, "ssd_cm",
+                               m->machine.nominal_ssd_cm - SL_MEAS_SSD_SHORT_CM,
+                               m->machine.nominal_ssd_cm + SL_MEAS_SSD_LONG_CM, &p->ssd_cm, err);
     if (st == SL_OK)
         st = sl_yaml_number_in(y, k[0].node, "energy_mev", 1, 50, &p->energy_mev, err);
     if (st == SL_OK)
@@ -266,7 +286,8 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t idx, sl_model *
         const sl_model_profile *o = &m->profiles[j];
         if (fabs(o->energy_mev - p->energy_mev) < 0.01 && strcmp(o->applicator, p->applicator) == 0 &&
             strcmp(o->insert, p->insert) == 0 && fabs(o->depth_cm - p->depth_cm) < 1e-6 &&
-            strcmp(o->direction, p->direction) == 0)
+            strcmp(o->direction, p->direction) == 0 && fabs(o->tilt_deg - p->tilt_deg) < 1e-6 &&
+            fabs(o->ssd_cm - p->ssd_cm) < 1e-6)
             st = sl_yaml_error(y, n, err, "%s: duplicate of profile %zu", what, j + 1);
     }
     return st;
@@ -329,9 +350,11 @@ static sl_status read_model(sl_yaml *y, sl_model *m, sl_error *err)
     int version = 0;
     if (st == SL_OK)
         st = sl_yaml_int(y, k[1].node, "format_version", &version, err);
-    if (st == SL_OK && version != SL_MODEL_FORMAT_VERSION)
-        st = sl_yaml_error(y, k[1].node, err, "format_version %d: this strayline reads version %d",
-                           version, SL_MODEL_FORMAT_VERSION);
+    if (st == SL_OK && (version < 1 || version > SL_MODEL_FORMAT_VERSION))
+        st = sl_yaml_error(y, k[1].node, err,
+                           "format_version %d: this strayline reads versions 1 to %d", version,
+                           SL_MODEL_FORMAT_VERSION);
+    m->format_version = version;
     if (st == SL_OK)
         st = sl_yaml_string(y, k[2].node, "model_version", &m->model_version, err);
     if (st == SL_OK && k[3].node)
@@ -473,6 +496,8 @@ sl_status sl_model_write(const sl_model *m, FILE *fp, sl_error *err)
         sl_yaml_kv_string(&w, "insert", q->insert);
         sl_yaml_kv_number(&w, "depth_cm", q->depth_cm);
         sl_yaml_kv_string(&w, "direction", q->direction);
+        sl_yaml_kv_number(&w, "tilt_deg", q->tilt_deg);
+        sl_yaml_kv_number(&w, "ssd_cm", q->ssd_cm);
         sl_yaml_kv_string(&w, "data_file", q->data_file);
         sl_yaml_kv_string(&w, "data_sha256", q->sha256);
         sl_yaml_key(&w, "uncertainty");

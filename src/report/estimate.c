@@ -18,19 +18,22 @@
 const unsigned est_flags[EST_NFLAGS] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
                                         SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
                                         SL_MF_POINTS_MODE,     SL_MF_POOR_FIT,
-                                        SL_MF_NEAR_EDGE};
+                                        SL_MF_NEAR_EDGE,       SL_MF_TILT_OUTSIDE,
+                                        SL_MF_SSD_OUTSIDE};
 const char *const est_flag_names[EST_NFLAGS] = {"in_field",
                                                 "depth_outside_commissioned_range",
                                                 "extrapolated",
                                                 "standin_for_uncommissioned_cutout",
                                                 "points_mode",
                                                 "poor_fit",
-                                                "near_field_edge"};
+                                                "near_field_edge",
+                                                "tilt_not_commissioned",
+                                                "ssd_not_commissioned"};
 
 /* short marks for the text table; the long ones are the model's flag texts */
 static const char *const mark_short[EST_NFLAGS] = {NULL,         "[depth]",     "[extrapolated]",
                                                    "[stand-in]", NULL,          "[poor fit]",
-                                                   "[near edge]"};
+                                                   "[near edge]", "[tilt]",      "[SSD]"};
 
 void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size)
 {
@@ -51,18 +54,21 @@ const char *est_marks_legend(void)
            "depth used); [stand-in] cutout not commissioned (largest of the open profiles from "
            "both edges and the commissioned inserts); [poor fit] a profile used fits its points "
            "poorly (uncertainty widened); [near edge] closer than 1 cm to the field edge: the "
-           "planning system's dose is the reference, not judged";
+           "planning system's dose is the reference, not judged; [tilt] tilt not commissioned "
+           "(the beam's tilt lies beyond the commissioned tilts: nearest used, uncertainty "
+           "widened); [SSD] SSD not commissioned (nearest used, uncertainty widened, the upper "
+           "bound never below the nominal-SSD estimate)";
 }
 
 const char *const est_budget_names[EST_NBUDGET] = {
     "fit", "measurement", "interpolation", "extrapolation",
-    "standin", "transfer", "setup_shift", "combined"};
+    "standin", "tilt_ssd", "transfer", "setup_shift", "combined"};
 
 void est_budget_values(const sl_budget *b, double out[EST_NBUDGET])
 {
     double v[EST_NBUDGET] = {b->fit_cgy,         b->measurement_cgy, b->interpolation_cgy,
-                             b->extrapolation_cgy, b->standin_cgy,   b->transfer_cgy,
-                             b->setup_cgy,       b->combined_cgy};
+                             b->extrapolation_cgy, b->standin_cgy,   b->uncommissioned_cgy,
+                             b->transfer_cgy,    b->setup_cgy,       b->combined_cgy};
     memcpy(out, v, sizeof v);
 }
 
@@ -108,6 +114,25 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
                  "Estimates outside the commissioned range (depths, distances, inserts) are marked "
                  "and carry extra uncertainty; the model is valid only for the machine it was "
                  "measured on.");
+    {
+        /* steep obliquity: the tilt the model interpolates in is no longer
+         * the whole story, the depth dose itself changes */
+        char list[300] = "";
+        size_t len = 0, nb = 0;
+        for (size_t b = 0; b < r->loc->nbeams && len + 40 < sizeof list; b++) {
+            const sl_beam_place *bp = &r->loc->beams[b];
+            if (!(bp->obliquity_deg > SL_OBLIQUITY_CAUTION_DEG))
+                continue;
+            len += (size_t)snprintf(list + len, sizeof list - len, "%sbeam %d (%.1f deg)",
+                                    nb++ ? ", " : "", bp->beam->number, bp->obliquity_deg);
+        }
+        if (nb && n < max)
+            snprintf(out[n++], EST_CAUTION_LEN,
+                     "OBLIQUE INCIDENCE: the surface obliquity at the central axis of %s is "
+                     "above %.0f deg, where the depth dose itself changes (common practice): "
+                     "the model's tilt dimension does not cover it; confirm by measurement.",
+                     list, SL_OBLIQUITY_CAUTION_DEG);
+    }
     if (n < max && r->est->opt.ntps)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Within %.1f cm of a field edge (in the field too) each sample's dose is the "
@@ -727,6 +752,17 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         for (size_t k = 0; k < nd; k++)
             jw_append(w, depths, jw_number(w, dv[k], "depths"));
         jw_put(w, x, "commissioned_depths_cm", depths);
+        size_t nt = sl_curves_tilts(bd->curves, &dv);
+        json_object *tilts = json_object_new_array();
+        for (size_t k = 0; k < nt; k++)
+            jw_append(w, tilts, jw_number(w, dv[k], "tilts"));
+        jw_put(w, x, "commissioned_tilts_deg", tilts);
+        size_t ns = sl_curves_ssds(bd->curves, &dv);
+        json_object *ssds = json_object_new_array();
+        for (size_t k = 0; k < ns; k++)
+            jw_append(w, ssds, jw_number(w, dv[k], "ssds"));
+        jw_put(w, x, "commissioned_ssds_cm", ssds);
+        jw_num_opt(w, x, "output_ssd_cm", bd->output_ssd_cm);
         jw_num_opt(w, x, "ssd_found_cm", bp->ssd_found_cm);
         jw_num_opt(w, x, "obliquity_deg", bp->obliquity_deg);
         jw_append(w, beams, x);
@@ -1107,6 +1143,14 @@ void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
     size_t nd = sl_curves_depths(bd->curves, &dv);
     sl_buf b = {0};
     sl_buf_printf(&b, "model limits: %.1f to %.1f cm from the field edge, depths ", lo, hi);
+    for (size_t k = 0; k < nd; k++)
+        sl_buf_printf(&b, "%s%g", k ? ", " : "", dv[k]);
+    sl_buf_printf(&b, " cm, tilts ");
+    nd = sl_curves_tilts(bd->curves, &dv);
+    for (size_t k = 0; k < nd; k++)
+        sl_buf_printf(&b, "%s%+g", k ? ", " : "", dv[k]);
+    sl_buf_printf(&b, " deg, SSDs ");
+    nd = sl_curves_ssds(bd->curves, &dv);
     for (size_t k = 0; k < nd; k++)
         sl_buf_printf(&b, "%s%g", k ? ", " : "", dv[k]);
     sl_buf_printf(&b, " cm");

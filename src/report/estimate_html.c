@@ -273,8 +273,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     hel(&h, b, "h3", "Uncertainty budget of the course maximum (cGy, k = 1)");
     xmlNodePtr ut = hel(&h, b, "table", NULL);
     const char *uhead[] = {"organ", "fit", "measurement", "interpolation", "extrapolation",
-                           "stand-in", "transfer", "setup shift", "combined"};
-    hrow(&h, ut, true, uhead, 9);
+                           "stand-in", "tilt/SSD", "transfer", "setup shift", "combined"};
+    hrow(&h, ut, true, uhead, 10);
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
         if (!d->estimated)
@@ -292,7 +292,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
         "Components add in quadrature at each beam and linearly over beams and fractions. "
         "Transfer: water tank to patient, beam direction and leakage asymmetry, by distance "
         "from the field edge (see the cautions for its source); stand-in: half the spread of "
-        "the candidates for an uncommissioned cutout.");
+        "the candidates for an uncommissioned cutout; tilt/SSD: a beam tilt or SSD beyond the "
+        "commissioned ones (models/README.md).");
     xmlNodePtr ne = NULL;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];

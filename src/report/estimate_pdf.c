@@ -287,11 +287,11 @@ static void budget(pdoc *d, const sl_estimate_report *r)
 {
     const sl_estimate *e = r->est;
     pdoc_heading(d, "Uncertainty budget of the course maximum (cGy, k = 1)", 11);
-    static const double w[] = {0.16, 0.105, 0.105, 0.105, 0.105, 0.105, 0.105, 0.105, 0.105};
-    static const char *const head[] = {"organ", "fit", "measurement", "interpolation",
-                                       "extrapolation", "stand-in", "transfer", "setup shift",
-                                       "combined"};
-    ptable t = {9, w, head, 7.5};
+    static const double w[] = {0.16, 0.095, 0.095, 0.095, 0.095, 0.09, 0.09, 0.095, 0.09, 0.095};
+    static const char *const head[] = {"organ",    "fit",      "measurement", "interpolation",
+                                       "extrapolation", "stand-in", "tilt/SSD", "transfer",
+                                       "setup shift", "combined"};
+    ptable t = {10, w, head, 7.5};
     pdoc_table_head(d, &t);
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *dd = &e->organs[o];
@@ -300,7 +300,7 @@ static void budget(pdoc *d, const sl_estimate_report *r)
         double v[EST_NBUDGET];
         est_budget_values(&dd->course_max_budget, v);
         char nm[160], c[EST_NBUDGET][24];
-        const char *cells[9] = {sl_text_escape(dd->roi->name, nm, sizeof nm)};
+        const char *cells[10] = {sl_text_escape(dd->roi->name, nm, sizeof nm)};
         for (size_t i = 0; i < EST_NBUDGET; i++) {
             est_num(v[i], c[i], sizeof c[i]);
             cells[i + 1] = c[i];

@@ -80,8 +80,14 @@ typedef struct fig_profiles_ctx {
     const sl_model *m;
     double energy_mev;
     const char *applicator;
+    size_t row_from, row_count;   /* the rows drawn (row_count 0: every row) */
 } fig_profiles_ctx;
 void fig_profiles(cairo_t *cr, double w, double h, const void *ctx);
+/* The grid of fig_profiles for one energy and applicator: rows (returned;
+ * an insert, direction, SSD and tilt each) and columns (*ncols, a depth
+ * each), for sizing the figure. */
+size_t fig_profiles_rows(const sl_model *m, double energy_mev, const char *applicator,
+                         size_t *ncols);
 
 /* The colour of a status (figures and tables alike), and its shape cue as
  * one UTF-8 character, so that no status is told by colour alone. */

@@ -101,6 +101,7 @@ static void dots_stroke(cairo_t *cr, double diameter)
 
 typedef struct dd_geom {
     double depth_cm, dist_cm, app_off_cm, angle_deg;
+    double tilt_deg;    /* toward the point (NAN: unknown, the highest) */
     double max_dist_cm; /* this beam's distance of the organ's hottest sample */
 } dd_geom;
 
@@ -113,6 +114,7 @@ static bool dd_geometry(const sl_estimate_report *r, const sl_beam_place *bp,
         g->dist_cm = g->max_dist_cm = d->min_distance_cm;
         g->app_off_cm = NAN;
         g->angle_deg = NAN;
+        g->tilt_deg = NAN;
         return isfinite(g->depth_cm) && isfinite(g->dist_cm);
     }
     const sl_organ_place *pl = &bp->organs[d->organ];
@@ -126,6 +128,7 @@ static bool dd_geometry(const sl_estimate_report *r, const sl_beam_place *bp,
     sl_vec3 q = sl_frame_to_bld(&bp->frame, s->points[i]);
     double ax = fabs(q.x), ay = fabs(q.y);
     g->angle_deg = ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0;
+    g->tilt_deg = sl_beam_tilt_toward(bp, q.x, q.y);
     g->max_dist_cm = d->max_sample < s->n ? pl->distance_cm[d->max_sample] : g->dist_cm;
     return isfinite(g->depth_cm) && isfinite(g->dist_cm);
 }
@@ -184,9 +187,10 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
     for (int i = 0; i < N; i++) {
         xs[i] = xmax * i / (N - 1);
         sl_eval_query q = {g.depth_cm, xs[i], isfinite(g.app_off_cm) ? xs[i] + g.app_off_cm : NAN,
-                           g.angle_deg, e->opt.mode, d->shield_transmission};
+                           g.angle_deg, e->opt.mode, d->shield_transmission, g.tilt_deg,
+                           bd->ssd_used_cm};
         sl_model_value mv;
-        sl_curves_eval_query(bd->curves, &q, &mv);
+        sl_beam_eval(bd, &q, &mv);
         ys[i] = mv.percent * per_percent;
         hi[i] = (mv.percent + 2 * mv.u_percent) * per_percent;
         lo[i] = (mv.percent - 2 * mv.u_percent) * per_percent;
@@ -199,9 +203,10 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
     }
     /* this beam at the organ's point nearest its edge: on the curve */
     sl_eval_query q = {g.depth_cm, g.dist_cm, isfinite(g.app_off_cm) ? g.dist_cm + g.app_off_cm : NAN,
-                       g.angle_deg, e->opt.mode, d->shield_transmission};
+                       g.angle_deg, e->opt.mode, d->shield_transmission, g.tilt_deg,
+                       bd->ssd_used_cm};
     sl_model_value mv;
-    sl_curves_eval_query(bd->curves, &q, &mv);
+    sl_beam_eval(bd, &q, &mv);
     double ynear = mv.percent * per_percent;
     double cmax = d->course_max.cgy * unit, cup = d->course_max.upper_cgy * unit;
     if (isfinite(ynear)) {
@@ -587,6 +592,106 @@ static void draw_dvh(cairo_t *cr, double w, double h, const void *vctx)
 
 /* ------------------------------------------------------- fit profiles -- */
 
+static bool same_data(const sl_profile_data *d, const sl_model_profile *p)
+{
+    return d->n == p->n && d->energy_mev == p->energy_mev &&
+           strcmp(d->applicator, p->applicator) == 0 && strcmp(d->insert, p->insert) == 0 &&
+           d->depth_cm == p->depth_cm && strcmp(d->direction, p->direction) == 0 &&
+           d->tilt_deg == p->tilt_deg && d->ssd_cm == p->ssd_cm;
+}
+
+/* The small multiples of one energy and applicator: a column a depth, a row
+ * a (insert, direction, SSD, tilt), so that down a column the curve moves
+ * with tilt and SSD and along a row with depth. */
+static bool same_row(const sl_model_profile *a, const sl_model_profile *b)
+{
+    return strcmp(a->insert, b->insert) == 0 && strcmp(a->direction, b->direction) == 0 &&
+           a->ssd_cm == b->ssd_cm && a->tilt_deg == b->tilt_deg;
+}
+
+static int cmp_row(const sl_model_profile *a, const sl_model_profile *b)
+{
+    bool ao = strcmp(a->insert, SL_INSERT_OPEN) == 0, bo = strcmp(b->insert, SL_INSERT_OPEN) == 0;
+    if (ao != bo)
+        return ao ? -1 : 1;
+    int c = strcmp(a->insert, b->insert);
+    if (c)
+        return c;
+    c = strcmp(a->direction, b->direction);
+    if (c)
+        return c;
+    if (a->ssd_cm != b->ssd_cm)
+        return a->ssd_cm < b->ssd_cm ? -1 : 1;
+    if (a->tilt_deg != b->tilt_deg)
+        return a->tilt_deg < b->tilt_deg ? -1 : 1;
+    return 0;
+}
+
+/* Rows and columns of the grid, and each profile's place (row[k], col[k] for
+ * the k-th profile of the energy and applicator, idx[k] its index). */
+static void profile_grid(const sl_model *m, const size_t *idx, size_t n, size_t *row,
+                         size_t *col, size_t *nrows, size_t *ncols, size_t *row_first)
+{
+    double depths[64];
+    size_t nd = 0;
+    *nrows = 0;
+    for (size_t k = 0; k < n; k++) {
+        const sl_model_profile *p = &m->profiles[idx[k]];
+        /* depths, increasing */
+        size_t i = 0;
+        while (i < nd && depths[i] < p->depth_cm)
+            i++;
+        if ((i == nd || depths[i] != p->depth_cm) && nd < 64) {
+            memmove(depths + i + 1, depths + i, (nd - i) * sizeof *depths);
+            depths[i] = p->depth_cm;
+            nd++;
+        }
+    }
+    /* rows in order: row_first[r] is a profile (k) of row r */
+    for (size_t k = 0; k < n; k++) {
+        const sl_model_profile *p = &m->profiles[idx[k]];
+        size_t r = 0;
+        while (r < *nrows && cmp_row(&m->profiles[idx[row_first[r]]], p) < 0)
+            r++;
+        if (r < *nrows && same_row(&m->profiles[idx[row_first[r]]], p))
+            continue;
+        memmove(row_first + r + 1, row_first + r, (*nrows - r) * sizeof *row_first);
+        row_first[r] = k;
+        (*nrows)++;
+    }
+    for (size_t k = 0; k < n; k++) {
+        const sl_model_profile *p = &m->profiles[idx[k]];
+        row[k] = 0;
+        while (row[k] < *nrows && !same_row(&m->profiles[idx[row_first[row[k]]]], p))
+            row[k]++;
+        col[k] = 0;
+        while (col[k] < nd && depths[col[k]] != p->depth_cm)
+            col[k]++;
+        if (col[k] >= nd)
+            col[k] = nd ? nd - 1 : 0;
+    }
+    *ncols = nd ? nd : 1;
+}
+
+size_t fig_profiles_rows(const sl_model *m, double energy_mev, const char *applicator,
+                         size_t *ncols)
+{
+    size_t n = 0, nrows = 0;
+    *ncols = 1;
+    size_t *idx = malloc((m->nprofiles + 1) * 4 * sizeof *idx);
+    if (!idx)
+        return 1;
+    for (size_t i = 0; i < m->nprofiles; i++)
+        if (m->profiles[i].energy_mev == energy_mev &&
+            strcmp(m->profiles[i].applicator, applicator) == 0)
+            idx[n++] = i;
+    size_t *row = idx + m->nprofiles + 1, *col = row + m->nprofiles + 1,
+           *first = col + m->nprofiles + 1;
+    profile_grid(m, idx, n, row, col, &nrows, ncols, first);
+    free(idx);
+    return nrows ? nrows : 1;
+}
+
 static const sl_profile_data *data_for(const sl_measurement_set *ms, size_t i,
                                        const sl_model_profile *p)
 {
@@ -595,16 +700,12 @@ static const sl_profile_data *data_for(const sl_measurement_set *ms, size_t i,
     /* the model keeps the measurement set's order; check it is the same */
     if (i < ms->nprofiles) {
         const sl_profile_data *d = &ms->profiles[i];
-        if (d->n == p->n && d->energy_mev == p->energy_mev &&
-            strcmp(d->applicator, p->applicator) == 0 && strcmp(d->insert, p->insert) == 0 &&
-            d->depth_cm == p->depth_cm && strcmp(d->direction, p->direction) == 0)
+        if (same_data(d, p))
             return d;
     }
     for (size_t k = 0; k < ms->nprofiles; k++) {
         const sl_profile_data *d = &ms->profiles[k];
-        if (d->n == p->n && d->energy_mev == p->energy_mev &&
-            strcmp(d->applicator, p->applicator) == 0 && strcmp(d->insert, p->insert) == 0 &&
-            d->depth_cm == p->depth_cm && strcmp(d->direction, p->direction) == 0)
+        if (same_data(d, p))
             return d;
     }
     return NULL;
@@ -614,9 +715,11 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
 {
     const fig_profiles_ctx *ctx = vctx;
     const sl_model *m = ctx->m;
-    size_t *idx = malloc((m->nprofiles + 1) * sizeof *idx);
+    size_t *idx = malloc((m->nprofiles + 1) * 4 * sizeof *idx);
     if (!idx)
         return;
+    size_t *prow = idx + m->nprofiles + 1, *pcol = prow + m->nprofiles + 1,
+           *row_first = pcol + m->nprofiles + 1;
     size_t n = 0;
     double xmax = 1, ymin = INFINITY, ymax = 0;
     for (size_t i = 0; i < m->nprofiles; i++) {
@@ -636,7 +739,8 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
     char buf[300], e1[32];
     fig_format_number(ctx->energy_mev, e1, sizeof e1);
     snprintf(buf, sizeof buf,
-             "%s MeV, applicator %s: %zu profile%s. Points: measured, bars 2 sigma; line: fit, "
+             "%s MeV, applicator %s: %zu profile%s, a column a depth, a row an insert, "
+             "direction, SSD and tilt. Points: measured, bars 2 sigma; line: fit, "
              "band 2 sigma; below each: residual / sigma (dashed at 0 and \u00B13); red frame: "
              "a poor fit",
              e1, ctx->applicator, n, n == 1 ? "" : "s");
@@ -650,23 +754,48 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
     }
     double y0, y1;
     fig_log_range(ymin * 0.7, ymax * 1.3, &y0, &y1);
-    /* a grid of panels about as wide as high */
+    /* the grid: a column a depth, a row an insert, direction, SSD and tilt */
     double top = th + 4, left = fs * 5.5, bottom = fs * 5;
     double aw = w - left - fs, ah = h - top - bottom;
-    size_t cols = 1;
-    double best = INFINITY;
-    for (size_t c = 1; c <= n; c++) {
-        size_t rows = (n + c - 1) / c;
-        double pw = aw / (double)c, ph = ah / (double)rows;
-        double score = fabs(log(pw / ph / 1.25));
-        if (score < best) {
-            best = score;
-            cols = c;
+    size_t cols = 1, rows = 1;
+    profile_grid(m, idx, n, prow, pcol, &rows, &cols, row_first);
+    for (size_t r = 0; r < rows; r++)
+        row_first[r] = idx[row_first[r]]; /* a profile of each row, by its model index */
+    /* a page may hold some of the rows only */
+    size_t r0 = ctx->row_count ? ctx->row_from : 0;
+    size_t nr = ctx->row_count ? ctx->row_count : rows;
+    if (r0 >= rows)
+        r0 = rows ? rows - 1 : 0;
+    if (r0 + nr > rows)
+        nr = rows - r0;
+    {
+        size_t kept = 0;
+        for (size_t k = 0; k < n; k++) {
+            if (prow[k] < r0 || prow[k] >= r0 + nr)
+                continue;
+            idx[kept] = idx[k];
+            prow[kept] = prow[k] - r0;
+            pcol[kept] = pcol[k];
+            kept++;
         }
+        n = kept;
+        memmove(row_first, row_first + r0, nr * sizeof *row_first);
+        rows = nr ? nr : 1;
     }
-    size_t rows = (n + cols - 1) / cols;
     double pw = aw / (double)cols, ph = ah / (double)rows;
     double gapx = fs * 1.2, gapy = fs * 1.8;
+    /* the row's name above its first column */
+    for (size_t r = 0; r < rows; r++) {
+        const sl_model_profile *p = &m->profiles[row_first[r]];
+        char ssd[32], tilt[32];
+        fig_format_number(p->ssd_cm, ssd, sizeof ssd);
+        fig_format_number(p->tilt_deg, tilt, sizeof tilt);
+        snprintf(buf, sizeof buf, "%s %s, SSD %s cm, tilt %s%s deg", p->insert, p->direction,
+                 ssd, p->tilt_deg > 0 ? "+" : "", tilt);
+        cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
+        fig_text(cr, left, top + (double)r * ph, 0, 0, buf, (fig_font){fs * 1.05, true, false},
+                 -aw);
+    }
     size_t total_pts = 0;
     char *counts = malloc(n * 24 + 1);
     size_t clen = 0;
@@ -675,26 +804,30 @@ static void draw_profiles(cairo_t *cr, double w, double h, const void *vctx)
     for (size_t k = 0; k < n; k++) {
         const sl_model_profile *p = &m->profiles[idx[k]];
         const sl_profile_data *d = data_for(ctx->ms, idx[k], p);
-        size_t row = k / cols, col = k % cols;
-        double px0 = left + (double)col * pw, py0 = top + (double)row * ph;
-        fig_axes main = {px0, py0 + fs * 1.4, pw - gapx, (ph - gapy - fs * 1.4) * 0.72, 0, xmax,
-                         y0, y1, true};
-        fig_axes res = {px0, main.y + main.h + fs * 0.9, main.w,
-                        (ph - gapy - fs * 1.4) * 0.28 - fs * 0.9, 0, xmax, -4.5, 4.5, false};
+        size_t row = prow[k], col = pcol[k];
+        double px0 = left + (double)col * pw, py0 = top + (double)row * ph + fs * 1.4;
+        double inner = ph - gapy - fs * 2.8;
+        fig_axes main = {px0, py0 + fs * 1.4, pw - gapx, inner * 0.72, 0, xmax, y0, y1, true};
+        fig_axes res = {px0, main.y + main.h + fs * 0.9, main.w, inner * 0.28 - fs * 0.9, 0, xmax,
+                        -4.5, 4.5, false};
         char dep[32];
         fig_format_number(p->depth_cm, dep, sizeof dep);
-        snprintf(buf, sizeof buf, "%zu. %s, %s cm, %s%s", idx[k] + 1, p->insert, dep,
-                 p->direction, p->fit.poor ? ": POOR" : "");
+        snprintf(buf, sizeof buf, "%zu. %s cm%s", idx[k] + 1, dep, p->fit.poor ? ": POOR" : "");
         if (p->fit.poor)
             set_rgb(cr, data_rgb);
         else
             cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);
         fig_text(cr, px0, py0, 0, 0, buf, (fig_font){fs * 1.05, p->fit.poor, false}, -main.w);
-        bool last_row = row == rows - 1 || k + cols >= n;
+        bool last_row = true; /* no panel below it in its column */
+        for (size_t k2 = 0; k2 < n; k2++)
+            if (pcol[k2] == col && prow[k2] > row)
+                last_row = false;
         fig_axes_draw(cr, &main, NULL, col == 0 ? "dose (% of CAX max)" : NULL, false, col == 0,
                       fs);
         /* shared axes: distances are numbered under the lowest panel of each column */
-        fig_axes_draw(cr, &res, last_row ? "distance from the field edge (cm)" : NULL, NULL,
+        /* its name once, under the first column: the panels are narrow */
+        fig_axes_draw(cr, &res,
+                      last_row && col == 0 ? "distance from the field edge (cm)" : NULL, NULL,
                       last_row, false, fs);
         if (col == 0) { /* the residual strip's scale: its 0 and 3 sigma lines */
             cairo_set_source_rgb(cr, 0.1, 0.1, 0.1);

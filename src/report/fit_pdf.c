@@ -82,8 +82,20 @@ sl_status sl_report_fit_pdf(const sl_measurement_set *ms, const sl_model *m, con
             pdoc_heading(&d, line, 12);
             double tw = d.w - d.left - d.right;
             double fh = d.h - d.bottom - d.y - 8;
-            fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator};
-            pdoc_figure(&d, tw, fh, fig_profiles, &fctx);
+            /* at most 6 rows (insert, direction, SSD, tilt) a page */
+            size_t cols, rows = fig_profiles_rows(m, p->energy_mev, p->applicator, &cols);
+            for (size_t r = 0; r < rows; r += 6) {
+                if (r) {
+                    pdoc_new_page(&d);
+                    snprintf(line, sizeof line, "%g MeV, applicator %s (continued)",
+                             p->energy_mev, p->applicator);
+                    pdoc_heading(&d, line, 12);
+                    fh = d.h - d.bottom - d.y - 8;
+                }
+                size_t nr = rows - r < 6 ? rows - r : 6;
+                fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator, r, nr};
+                pdoc_figure(&d, tw, rows <= 6 ? fh : fh * (double)nr / 6.0, fig_profiles, &fctx);
+            }
         }
         total = d.page;
         pdoc_end(&d);

@@ -1,7 +1,8 @@
 /*
  * The commissioning report of `strayline fit --report`: one self-contained
  * HTML page with, for every energy and applicator, one figure of its
- * profiles as small multiples on shared axes (figure.h: the measured points
+ * profiles as small multiples on shared axes (a column a depth, a row an
+ * insert, direction, SSD and tilt) (figure.h: the measured points
  * with their 2-sigma bars and the fitted curve with its 2-sigma band on a
  * log dose axis, the normalised residuals below), then each profile's
  * parameters with their standard errors and the fit statistics; poor fits
@@ -36,11 +37,13 @@ static void kv_table(hdoc *h, xmlNodePtr parent, const char *const (*rows)[2], s
     }
 }
 
-static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p, size_t idx)
+static void profile_section(hdoc *h, xmlNodePtr body, const sl_model_profile *p, size_t idx,
+                            double nominal_ssd_cm)
 {
     char label[160], buf[256];
     sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction, label,
                      sizeof label);
+    sl_profile_label_geometry(p->tilt_deg, p->ssd_cm, nominal_ssd_cm, label, sizeof label);
     xmlNodePtr sec = hel(h, body, "section", NULL);
     hattrf(h, sec, "id", "p%zu", idx + 1);
     helf(h, sec, "h3", "%zu. %s%s", idx + 1, label, p->fit.poor ? " (poor fit)" : "");
@@ -135,6 +138,8 @@ sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_mo
             char label[160];
             sl_profile_label(p->energy_mev, p->applicator, p->insert, p->depth_cm, p->direction,
                              label, sizeof label);
+            sl_profile_label_geometry(p->tilt_deg, p->ssd_cm, m->machine.nominal_ssd_cm, label,
+                                      sizeof label);
             xmlNodePtr li = hel(&h, ul, "li", NULL);
             xmlNodePtr a = helf(&h, li, "a", "%s", label);
             hattrf(&h, a, "href", "#p%zu", i + 1);
@@ -194,13 +199,15 @@ sl_status sl_report_fit_html(FILE *fp, const sl_measurement_set *ms, const sl_mo
                  strcmp(m->profiles[k].applicator, p->applicator) == 0;
         xmlNodePtr sec = hel(&h, b, "section", NULL);
         helf(&h, sec, "h3", "%g MeV, applicator %s", p->energy_mev, p->applicator);
-        size_t cols = n < 4 ? n : 4, rows = (n + cols - 1) / cols;
-        fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator};
-        fig_svg_into(&h, sec, 640, 40 + 150 * (double)rows, fig_profiles, &fctx);
+        size_t cols, rows = fig_profiles_rows(m, p->energy_mev, p->applicator, &cols);
+        (void)n;
+        double fw = cols > 4 ? 160.0 * (double)cols : 640;
+        fig_profiles_ctx fctx = {ms, m, p->energy_mev, p->applicator, 0, 0};
+        fig_svg_into(&h, sec, fw, 50 + 150 * (double)rows, fig_profiles, &fctx);
     }
     hel(&h, b, "h2", "Profiles: fitted parameters");
     for (size_t i = 0; i < m->nprofiles; i++)
-        profile_section(&h, b, &m->profiles[i], i);
+        profile_section(&h, b, &m->profiles[i], i, m->machine.nominal_ssd_cm);
     helf(&h, b, "p", "written by strayline %s", sl_version());
     return hdoc_write(&h, fp, err);
 }

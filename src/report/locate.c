@@ -198,6 +198,13 @@ static json_object *json_report(jw *w, const sl_plan *plan, const sl_structure_s
                 jw_put(w, oo, "nearest_point_cm", vec3(w, s->points[p->nearest], "nearest_point_cm"));
             else
                 jw_put(w, oo, "nearest_point_cm", NULL);
+            /* the beam's tilt toward the nearest point, as the model takes it */
+            double tilt = NAN;
+            if (p->placed > 0) {
+                sl_vec3 q = sl_frame_to_bld(&bp->frame, s->points[p->nearest]);
+                tilt = sl_beam_tilt_toward(bp, q.x, q.y);
+            }
+            jw_num_opt(w, oo, "tilt_toward_nearest_deg", tilt);
             jw_append(w, organs, oo);
         }
         jw_put(w, bo, "organs", organs);

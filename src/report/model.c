@@ -129,6 +129,38 @@ static void text_show(FILE *fp, const sl_model *m)
                 o ? o->dmax_cm : NAN, o ? o->effective_ssd_cm : NAN, factor, forms, worst,
                 poor ? " (poor fits)" : "");
     }
+    /* the tilt and SSD dimensions, where a combination has more than one */
+    bool head = false;
+    for (size_t k = 0; k < n; k++) {
+        sl_curve_set *cv = NULL;
+        unsigned fl;
+        if (sl_model_select(m, cs[k].energy, cs[k].app, cs[k].insert, &cv, &fl, NULL) != SL_OK)
+            continue;
+        const double *tv, *sv;
+        size_t nt = sl_curves_tilts(cv, &tv), ns = sl_curves_ssds(cv, &sv);
+        if (nt > 1 || ns > 1 || tv[0] != 0 || sv[0] != mc->nominal_ssd_cm) {
+            if (!head)
+                fprintf(fp, "\n  beam tilts (deg) and SSDs (cm) commissioned, where other than "
+                            "0 deg at the nominal SSD only:\n");
+            head = true;
+            fprintf(fp, "  %6g %-7s %-6s tilts", cs[k].energy, cs[k].app, cs[k].insert);
+            for (size_t i = 0; i < nt; i++)
+                fprintf(fp, "%s %+g", i ? "," : "", tv[i]);
+            fprintf(fp, "; SSDs");
+            for (size_t i = 0; i < ns; i++)
+                fprintf(fp, "%s %g", i ? "," : "", sv[i]);
+            fputc('\n', fp);
+        }
+        sl_curve_set_free(cv);
+    }
+    for (size_t i = 0; i < mc->noutputs; i++) {
+        const sl_output_spec *o = &mc->outputs[i];
+        if (o->ssd_cm != mc->nominal_ssd_cm)
+            fprintf(fp, "  output of %g MeV %s at SSD %g cm: %.3f cGy/MU, dmax %.2f cm, SSD eff "
+                        "%.1f cm\n",
+                    o->energy_mev, o->applicator, o->ssd_cm, o->dose_per_mu_cgy, o->dmax_cm,
+                    o->effective_ssd_cm);
+    }
     free(cs);
 }
 
@@ -141,6 +173,7 @@ static json_object *json_show(jw *w, const sl_model *m)
     jw_str(w, root, "model_file", m->source);
     jw_str(w, root, "model_sha256", m->sha256);
     jw_str(w, root, "model_version", m->model_version);
+    jw_int(w, root, "format_version", m->format_version);
     jw_str(w, root, "notice", m->notice);
     json_object *mo = json_object_new_object();
     jw_str(w, mo, "name", mc->name);
@@ -197,6 +230,8 @@ static json_object *json_show(jw *w, const sl_model *m)
             json_object *po = json_object_new_object();
             jw_num(w, po, "depth_cm", p->depth_cm);
             jw_str(w, po, "direction", p->direction);
+            jw_num(w, po, "tilt_deg", p->tilt_deg);
+            jw_num(w, po, "ssd_cm", p->ssd_cm);
             jw_str(w, po, "form", sl_profile_form_name(p->fit.form));
             json_object *par = json_object_new_object();
             for (size_t j = 0; j < p->fit.p; j++)
@@ -235,7 +270,8 @@ sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *
 
 static const unsigned all_flags[] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
                                      SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
-                                     SL_MF_POINTS_MODE,     SL_MF_POOR_FIT};
+                                     SL_MF_POINTS_MODE,     SL_MF_POOR_FIT,
+                                     SL_MF_TILT_OUTSIDE,    SL_MF_SSD_OUTSIDE};
 
 sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
                                 const char *applicator, const char *insert, double depth_cm,
@@ -262,6 +298,8 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
                     v->u_transfer);
             fprintf(fp, "  electron part %.4f %%, photon part %.4f %%; depth used %.2f cm\n",
                     v->electron_percent, v->photon_percent, v->depth_used_cm);
+            fprintf(fp, "  tilt used %+.2f deg, SSD used %.2f cm; uncertainty tilt/SSD %.4f %%\n",
+                    v->tilt_used_deg, v->ssd_used_cm, v->u_uncommissioned);
         }
         for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
             if (v->flags & all_flags[i])
@@ -289,11 +327,15 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
     jw_num_opt(&w, o, "uncertainty_transfer_percent", in_field ? NAN : v->u_transfer);
     jw_num_opt(&w, o, "electron_percent", in_field ? NAN : v->electron_percent);
     jw_num_opt(&w, o, "photon_percent", in_field ? NAN : v->photon_percent);
+    jw_num_opt(&w, o, "uncertainty_tilt_ssd_percent", in_field ? NAN : v->u_uncommissioned);
     jw_num(&w, o, "depth_used_cm", v->depth_used_cm);
+    jw_num_opt(&w, o, "tilt_used_deg", in_field ? NAN : v->tilt_used_deg);
+    jw_num_opt(&w, o, "ssd_used_cm", in_field ? NAN : v->ssd_used_cm);
     json_object *flags = json_object_new_array();
     static const char *const names[] = {"in_field", "depth_outside_commissioned_range",
                                         "extrapolated", "standin_for_uncommissioned_cutout",
-                                        "points_mode", "poor_fit"};
+                                        "points_mode", "poor_fit", "tilt_not_commissioned",
+                                        "ssd_not_commissioned"};
     for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
         if (v->flags & all_flags[i])
             jw_append(&w, flags, json_object_new_string(names[i]));

@@ -257,6 +257,11 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
             sl_notes_add(out, "beam %d: the cutout is not commissioned: a conservative "
                               "stand-in is used (it errs high); measure the cutout's profiles",
                          bd->place->beam->number);
+        if (bd->place->obliquity_deg > SL_OBLIQUITY_CAUTION_DEG)
+            sl_notes_add(out, "beam %d: oblique incidence, surface obliquity %.1f deg (above "
+                              "%.0f deg the depth dose itself changes): confirm by measurement",
+                         bd->place->beam->number, bd->place->obliquity_deg,
+                         SL_OBLIQUITY_CAUTION_DEG);
     }
     bolus_cautions(r->loc, out);
     static const struct {
@@ -268,6 +273,11 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
         {SL_MF_DEPTH_OUTSIDE, "deeper or shallower than the commissioned depths (the nearest "
                               "commissioned depth is used)"},
         {SL_MF_POOR_FIT, "a profile used fits its points poorly (uncertainty widened)"},
+        {SL_MF_TILT_OUTSIDE, "tilt not commissioned: the beam's tilt lies beyond the "
+                             "commissioned tilts (the nearest is used, uncertainty widened)"},
+        {SL_MF_SSD_OUTSIDE, "SSD not commissioned: beyond the commissioned SSDs (the nearest is "
+                            "used, uncertainty widened, the upper bound never below the "
+                            "nominal-SSD estimate)"},
     };
     for (size_t k = 0; k < sizeof kinds / sizeof kinds[0]; k++) {
         sl_buf b = {0};

@@ -72,8 +72,11 @@ def u_meas(p, v):
 
 
 def profiles(energy, app, insert="open"):
+    # the box phantoms are at normal incidence (tilt 0): the profiles of tilt 0
+    # at the nominal SSD are the ones used (models/README.md, "Tilt and SSD")
     ps = [p for p in M["profiles"]
-          if abs(p["energy_mev"] - energy) < 0.01 and p["applicator"] == app and p["insert"] == insert]
+          if abs(p["energy_mev"] - energy) < 0.01 and p["applicator"] == app and p["insert"] == insert
+          and p.get("tilt_deg", 0) == 0 and p.get("ssd_cm", 100) == 100]
     depths = sorted({p["depth_cm"] for p in ps})
     byd = {z: [p for p in ps if p["depth_cm"] == z] for z in depths}
     for z, group in byd.items():
@@ -288,6 +291,14 @@ class BoxPhantomArithmetic(unittest.TestCase):
         v, _ = model_percent(12, "A10", depth, dist)
         want = 300 * o["dose_per_mu_cgy"] * isf * v / 100
         self.assertAlmostEqual(organ(js, "p")["course_max_cgy"], want, delta=1e-6 * want)
+        # 12 MeV A10 is commissioned at 100 cm only: 110 cm is marked, and at
+        # this uncommissioned extended SSD the upper bound keeps at least the
+        # estimate at the nominal SSD (no inverse square; models/README.md)
+        self.assertIn("ssd_not_commissioned", organ(js, "p")["flags"])
+        nominal = 300 * o["dose_per_mu_cgy"] * v / 100
+        self.assertGreater(nominal, want)
+        self.assertGreaterEqual(organ(js, "p")["course_max_upper_cgy"], nominal * (1 - 1e-9))
+        self.assertGreater(organ(js, "p")["course_max_uncertainty_budget"]["tilt_ssd_cgy"], 0)
 
     def test_reference_dose_option_overrides(self):
         x, z = 9.0, 1.0
@@ -624,6 +635,7 @@ class DemoReports(unittest.TestCase):
         "chest-fetus": ["--prescription-isodose", "90", "--gestational-age", "12", "--age", "31",
                         "--sex", "F"],
         "neck-device": ["--prescription-isodose", "90", "--pacing-dependent"],
+        "chest-oblique": ["--prescription-isodose", "90"],
     }
 
     def test_json_reports_follow_the_schema(self):

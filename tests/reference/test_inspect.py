@@ -15,7 +15,7 @@ import pydicom
 from common import PYDICOM_TEST_FILES, SOURCE_ROOT, run, run_json, tempdir
 import rtbuild as rb  # noqa: E402 (common puts examples/generator on the path)
 
-CASES = ["face-lens", "chest-fetus", "neck-device"]
+CASES = ["face-lens", "chest-fetus", "neck-device", "chest-oblique"]
 
 
 def cm(v):

@@ -330,9 +330,9 @@ class PdfDicom(unittest.TestCase):
 @unittest.skipUnless(shutil.which("pdfinfo"), "poppler-utils not installed")
 class FitPdf(unittest.TestCase):
     def test_fit_report_pdf_is_small_multiples(self):
-        """An energy and applicator a page (pdfinfo, poppler-utils): the demo's
-        profiles print on a page for each
-        group plus the title page, not one a profile."""
+        """Small multiples (pdfinfo, poppler-utils): the demo's profiles print
+        on a page for each energy and applicator (more where it has more than
+        six rows of tilts and SSDs) plus the title page, not one a profile."""
         import yaml
         ms = os.path.join(EX, "commissioning", "demo-e1", "measurements.yaml")
         with tempdir() as d:
@@ -344,7 +344,15 @@ class FitPdf(unittest.TestCase):
             model = yaml.safe_load(open(os.path.join(d, "m.yaml")))
             groups = {(p["energy_mev"], p["applicator"]) for p in model["profiles"]}
             self.assertGreater(len(model["profiles"]), 3 * len(groups))
-            self.assertEqual(int(info["Pages"]), len(groups) + 1)
+            # a row of panels an insert, direction, SSD and tilt, at most six
+            # rows a page (the tilted and extended-SSD groups take more)
+            rows = {}
+            for p in model["profiles"]:
+                rows.setdefault((p["energy_mev"], p["applicator"]), set()).add(
+                    (p["insert"], p["direction"], p["ssd_cm"], p["tilt_deg"]))
+            pages = sum((len(r) + 5) // 6 for r in rows.values())
+            self.assertGreater(pages, len(groups))
+            self.assertEqual(int(info["Pages"]), pages + 1)
             w, h = re.findall(r"[\d.]+", info["Page size"])[:2]
             self.assertEqual((round(float(w)), round(float(h))), (612, 792))
 

@@ -108,6 +108,38 @@ END_TEST
 
 /* Noise-free data of a known peaked profile, with 2 % uncertainties: the fit
  * must return the parameters it was made from, and choose the peaked form. */
+/* The mirror rule (models/README.md): a tilted through-field profile keeps
+ * one side; each side's first point outside its 50 % edge is that side's
+ * own (an asymmetric invented profile: 2 % on the positive side, 4 % on the
+ * negative one, so a mixed-up side shows). */
+START_TEST(tilted_through_field_profile_keeps_one_side)
+{
+    char csv[4096];
+    size_t len = (size_t)snprintf(csv, sizeof csv, "off_axis_cm,dose_percent\n");
+    for (int i = -40; i <= 40; i++) {
+        double x = i * 0.5, ax = fabs(x);
+        double d = ax < 4.5 ? 100 : ax < 5.5 ? 100 * (5.5 - ax)
+                 : (x > 0 ? 2.0 : 4.0) * exp(-(ax - 5.5) / 3.0);
+        len += (size_t)snprintf(csv + len, sizeof csv - len, "%g,%g\n", x, d);
+    }
+    sl_error e = {0};
+    for (int side = -1; side <= 1; side++) {
+        sl_profile_data p;
+        memset(&p, 0, sizeof p);
+        p.rel_uncertainty = 0.02;
+        p.floor_percent = 0.01;
+        p.side = side;
+        ck_assert_int_eq(sl_profile_parse_csv(csv, len, "t.csv", NAN, 10.0, &p, NULL, &e), SL_OK);
+        /* the 50 % edges at +/-5 cm; outside them 31 points a side from 0.5 cm */
+        ck_assert_uint_eq(p.n, 30);
+        ck_assert_double_eq_tol(p.distance_cm[0], 0.5, 1e-9);
+        double want = side > 0 ? 2.0 : side < 0 ? 4.0 : 3.0; /* merged sides average */
+        ck_assert_double_eq_tol(p.dose_percent[0], want, 1e-9);
+        sl_profile_data_free(&p);
+    }
+}
+END_TEST
+
 START_TEST(fit_recovers_known_parameters)
 {
     const double truth[7] = {40, 0.8, 1.8, 14, 2.5, 4.0, 1.5};
@@ -220,6 +252,7 @@ static Suite *model_suite(void)
     tcase_set_timeout(tc, 120);
     tcase_add_test(tc, edges_of_an_analytic_profile);
     tcase_add_test(tc, csv_reading_and_its_errors);
+    tcase_add_test(tc, tilted_through_field_profile_keeps_one_side);
     tcase_add_test(tc, fit_recovers_known_parameters);
     tcase_add_test(tc, model_round_trip_is_exact);
     tcase_add_test(tc, evaluation_refuses_what_is_not_commissioned);

@@ -581,6 +581,23 @@ def yaml_cases():
     model_case("model_uncommissioned_output.yaml",
                lambda d: d["profiles"][0].update(energy_mev=12),
                "no output is given for 12 MeV")
+    # format 2: every profile states its tilt and SSD; format 1 knows neither
+    def v2(tilt=0.0, ssd=100.0):
+        def mutate(d):
+            d["format_version"] = 2
+            for p in d["profiles"]:
+                p.update(tilt_deg=tilt, ssd_cm=ssd)
+        return mutate
+    model_case("model_tilt_absurd.yaml", v2(tilt=90.0), "tilt_deg: 90 lies outside")
+    model_case("model_tilt_negative_absurd.yaml", v2(tilt=-361.0), "tilt_deg: -361 lies outside")
+    model_case("model_ssd_negative.yaml", v2(ssd=-100.0), "ssd_cm: -100 lies outside")
+    model_case("model_ssd_absurd.yaml", v2(ssd=400.0), "ssd_cm: 400 lies outside")
+    def v2_missing(d):
+        v2()(d)
+        d["profiles"][0].pop("tilt_deg")
+    model_case("model_v2_missing_tilt.yaml", v2_missing, "profile 1: missing key 'tilt_deg'")
+    model_case("model_v1_with_tilt.yaml", lambda d: d["profiles"][0].update(tilt_deg=5.0),
+               "tilt_deg needs format_version 2")
     model_case("model_unknown_insert.yaml", lambda d: d["profiles"][0].update(insert="C9"),
                "insert 'C9' is not listed")
     def bad_relative(d):
@@ -665,6 +682,19 @@ def yaml_cases():
     ms_case("ms_duplicate_profile.yaml",
             lambda d: d["profiles"].append(copy.deepcopy(d["profiles"][0])),
             "duplicate of profile 1")
+    # beam tilt and SSD (format 2): absurd values, one line each
+    ms_case("ms_tilt_absurd.yaml", lambda d: d["profiles"][0].update(tilt_deg=75),
+            "tilt_deg: 75 lies outside")
+    ms_case("ms_tilt_negative_absurd.yaml", lambda d: d["profiles"][0].update(tilt_deg=-400),
+            "tilt_deg: -400 lies outside")
+    ms_case("ms_ssd_negative.yaml", lambda d: d["profiles"][0].update(ssd_cm=-100),
+            "ssd_cm: -100 lies outside")
+    ms_case("ms_ssd_absurd.yaml", lambda d: d["profiles"][0].update(ssd_cm=1000),
+            "ssd_cm: 1000 lies outside")
+    ms_case("ms_output_ssd_absurd.yaml", lambda d: d["outputs"][0].update(ssd_cm=5),
+            "ssd_cm: 5 lies outside")
+    ms_case("ms_tilt_text.yaml", lambda d: d["profiles"][0].update(tilt_deg="steep"),
+            "tilt_deg: 'steep' is not a finite number")
     ms_case("ms_unknown_applicator.yaml", lambda d: d["profiles"][0].update(applicator="A99"),
             "applicator 'A99' is not in the list")
     ms_case("csv_missing_file.yaml", lambda d: d["profiles"][0].update(file="csv/none.csv"),
