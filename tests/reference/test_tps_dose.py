@@ -369,6 +369,83 @@ class InEveryFormat(unittest.TestCase):
             self.assertIn("%.3f" % r["ratio_mean"], text)
 
 
+class ScanFindsTheDose(unittest.TestCase):
+    """`scan` gives an RT Dose to the plan its Referenced RT Plan Sequence
+    names (DICOM PS3.3 C.8.8.3: Referenced RT Plan Sequence; C.7.4.1: the
+    Frame of Reference UID ties the grid to the patient), read as
+    --tps-dose reads it: the organ doses from the grid equal the analytic
+    dose written with pydicom; a dose of another frame is refused for its
+    plan, the summary (Python's json and csv) says why and the plan is
+    screened with the model alone (the in-field organ unestimated); an RT
+    Dose of a plan not in the folder is listed, not used. The log (Python's
+    sqlite3) records which plan used a dose."""
+
+    def test_used_refused_and_unmatched(self):
+        with tempdir() as d:
+            folder, out = os.path.join(d, "export"), os.path.join(d, "out")
+            good, bad, lone = (os.path.join(folder, n) for n in ("good", "bad", "lone"))
+            for p in (good, bad):
+                os.makedirs(p)
+            plan_g, _, dose_g = case(good)
+            plan_b, _, dose_b = case(bad, frame=rb.uid("some", "other", "frame"))
+            uid_g = pydicom.dcmread(plan_g).SOPInstanceUID
+            uid_b = pydicom.dcmread(plan_b).SOPInstanceUID
+            other = os.path.join(d, "elsewhere")
+            os.makedirs(other)
+            _, _, dose_l = case(other)
+            os.makedirs(lone)
+            os.replace(dose_l, os.path.join(lone, "rtdose.dcm"))
+            dose_l = os.path.join(lone, "rtdose.dcm")
+            rc, stdout, err = run("scan", folder, "--model", MODEL, "--out", out, "--quiet")
+            self.assertIn(rc, (0, 4), err)
+            with open(os.path.join(out, "summary.json")) as f:
+                summary = json.load(f)
+            with open(os.path.join(out, "summary.csv")) as f:
+                rows = list(csv.DictReader(f))
+            reports = {}
+            for p in summary["plans"]:
+                if p.get("report_json"):
+                    with open(os.path.join(out, p["report_json"])) as f:
+                        reports[p["plan_file"]] = json.load(f)
+            import sqlite3
+            con = sqlite3.connect(os.path.join(out, "screening.sqlite"))
+            log = {r[0]: r[1] for r in con.execute("SELECT plan_uid, options FROM screening")}
+            con.close()
+        by = {p["plan_file"]: p for p in summary["plans"]}
+        g, b = by[plan_g], by[plan_b]
+        self.assertEqual(g["outcome"], "screened")
+        self.assertEqual(g["planning_system_dose_files"], [dose_g])
+        self.assertIn("used", g["planning_system_dose"])
+        rg = reports[plan_g]
+        self.assertEqual(rg["planning_system_dose"]["files"], [dose_g])
+        for name, x, z in POINTS:
+            dist, _ = point_geometry(x, z)
+            if dist < 3.0:
+                want = 100 * analytic_gy(x * 10, z * 10, 0.0)
+                self.assertEqual(organ(rg, name)["dose_source"], "planning system")
+                self.assertAlmostEqual(organ(rg, name)["course_max_cgy"], want, delta=1e-3)
+        # another frame: refused by name, never used
+        self.assertEqual(b["outcome"], "screened")
+        self.assertEqual(b["planning_system_dose_files"], [])
+        self.assertIn("refused", b["planning_system_dose"])
+        self.assertIn("Frame of Reference", b["planning_system_dose"])
+        self.assertIn(dose_b, b["planning_system_dose"])
+        rb_ = reports[plan_b]
+        self.assertNotIn("planning_system_dose", rb_)
+        self.assertFalse(organ(rb_, "in")["estimated"])   # in the field: not estimated
+        # the CSV says the same
+        csv_by = {r["plan_file"]: r for r in rows}
+        self.assertEqual(csv_by[plan_g]["planning_system_dose"], g["planning_system_dose"])
+        self.assertIn("refused", csv_by[plan_b]["planning_system_dose"])
+        # a dose of a plan not in the folder: listed, not used
+        lone_row = by[dose_l]
+        self.assertEqual(lone_row["outcome"], "ignored")
+        self.assertIn("not in the folder", lone_row["message"])
+        self.assertIn("used for 1 plan, refused for 1", stdout)
+        self.assertIn("tps-dose: " + dose_g, log[uid_g])
+        self.assertNotIn("tps-dose", log[uid_b])
+
+
 class EstimateAsRtDose(unittest.TestCase):
     """--rtdose-out read back with pydicom: the plan's frame, study and SOP
     Instance UID (PS3.3 C.8.8.3 RT Dose Module: Referenced RT Plan
