@@ -51,14 +51,14 @@ def analytic_gy(x, y, z):
 
 
 def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN", beams=(),
-                 bits=32):
+                 bits=32, zs=None):
     """An axial RT Dose grid: x -150..150 mm, y -10..100 mm, z -50..50 mm,
-    every 2.5 mm, of the analytic dose, stored as integers times Dose Grid
-    Scaling."""
+    every 2.5 mm (or the frames zs), of the analytic dose, stored as
+    integers times Dose Grid Scaling."""
     plan = pydicom.dcmread(plan_path)
     xs = np.arange(-150.0, 150.0 + 1e-9, 2.5)
     ys = np.arange(-10.0, 100.0 + 1e-9, 2.5)
-    zs = np.arange(-50.0, 50.0 + 1e-9, 2.5)
+    zs = np.arange(-50.0, 50.0 + 1e-9, 2.5) if zs is None else np.asarray(zs, dtype=float)
     zz, yy, xx = np.meshgrid(zs, ys, xs, indexing="ij")
     gy = analytic_gy(xx, yy, zz)
     scale = 1e-6 if bits == 32 else 1e-4
@@ -187,6 +187,23 @@ class FromTheGrid(unittest.TestCase):
         self.assertGreaterEqual(row["ratio_max"], ratio - 1e-6)
         self.assertIn(rc_t, (0, 4))
         self.assertIn("planning system's dose: within 3.0 cm", text)
+
+    def test_uneven_frames_are_read_as_they_are(self):
+        """Grid Frame Offset Vector with uneven, ordered offsets (legal: DICOM
+        PS3.3 C.8.8.3.2 asks only for one offset a frame): interpolation
+        between the frames where they are still reproduces the linear
+        analytic dose; frames out of order are refused (the bad-input
+        corpus, rtdose_frames_*)."""
+        zs = [-50.0, -41.0, -20.0, -3.5, 1.0, 7.5, 30.0, 50.0]
+        with tempdir() as d:
+            plan, ss, rtd = case(d, zs=zs)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        self.assertIn(rc, (0, 4), err)
+        for name, x, z in POINTS:
+            dist, _ = point_geometry(x, z)
+            if dist < 3.0:
+                want = 100 * analytic_gy(x * 10, z * 10, 0.0)
+                self.assertAlmostEqual(organ(js, name)["course_max_cgy"], want, delta=1e-3)
 
     def test_beam_dose_gives_the_beam_its_row(self):
         """A BEAM dose of the plan's one beam: the same organ doses, and the
