@@ -195,6 +195,24 @@ sl_status sl_node_step(sl_node *n, double now_s,
                        sl_error *err);
 void sl_node_free(sl_node *n);
 
+/* At start-up, what an earlier run left in the store folder: every plan
+ * there (a file "<SOP Instance UID>.dcm") of which the screening log holds
+ * no screening (cfg->log; without a log, every plan) is queued as if it had
+ * just arrived, so sl_node_step pairs it with a structure set in the store
+ * and screens it, or waits for one. Plans already in the log are left (they
+ * were screened, or refused with a reason, before). Counts say what was
+ * found, for the node's log. Files the node did not name (temporaries of
+ * an interrupted transfer, anything else) are not read. */
+typedef struct sl_node_resume_counts {
+    size_t plans;            /* RT Plans in the store */
+    size_t in_log;           /* of those, screened before (in the screening log) */
+    size_t queued;           /* of those, queued to pair and screen now */
+    size_t not_electron;     /* of those, without electron beams: left */
+    size_t structure_sets;   /* RT Structure Sets in the store */
+    size_t unreadable;       /* store files whose header could not be read */
+} sl_node_resume_counts;
+sl_status sl_node_resume(sl_node *n, sl_node_resume_counts *c, sl_error *err);
+
 #ifdef __cplusplus
 }
 #endif
