@@ -27,7 +27,11 @@ static const double series_rgb[][3] = {
 static void marker(cairo_t *cr, size_t s, double x, double y, double r)
 {
     switch (s % 4) {
-    case 0: cairo_arc(cr, x, y, r, 0, 2 * M_PI); break;
+    case 0: /* a disc: its own closed subpath, as every filled shape */
+        cairo_new_sub_path(cr);
+        cairo_arc(cr, x, y, r, 0, 2 * M_PI);
+        cairo_close_path(cr);
+        break;
     case 1: cairo_rectangle(cr, x - r, y - r, 2 * r, 2 * r); break;
     case 2:
         cairo_move_to(cr, x, y - r * 1.2);

@@ -37,6 +37,7 @@ from pydicom.uid import ExplicitVRLittleEndian
 
 from common import run, tempdir
 import rtbuild as rb  # noqa: E402
+from test_figures import SVG_NS, parse_path, style_of
 from test_estimate import (MODEL, SCHEMA, box_case, estimate, model_percent, organ, output,
                            point_geometry)
 
@@ -347,6 +348,13 @@ class InEveryFormat(unittest.TestCase):
         self.assertEqual(t.svgs, 1)
         sec = page[page.index('id="planning-system"'):]
         svg = ET.fromstring(re.search(r"<svg\b.*?</svg>", sec, re.S).group(0))
+        # the path grammar and closed fills, as test_figures checks every figure
+        for path in svg.iter(SVG_NS + "path"):
+            sub = parse_path(path.get("d") or "")
+            if style_of(path).get("fill") != "none":
+                for sp in sub:
+                    if len(sp) > 1:
+                        self.assertEqual(sp[-1][0], "Z", "a filled path is open")
         counts = dict(kv.split("=", 1) for kv in svg.get("data-counts").split())
         self.assertEqual(int(counts["rows"]), len(rows))
         self.assertEqual(int(counts["bins"]), len(rows))   # every row drawn
