@@ -134,8 +134,11 @@ static void draw_tps_ratio(cairo_t *cr, double w, double h, const void *vctx)
     cairo_line_to(cr, sx, ax.y + ax.h);
     cairo_stroke(cr);
     cairo_set_dash(cr, NULL, 0, 0);
-    fig_text(cr, ax.x + ax.w - 2, fig_ax_y(&ax, 1) - 2, 1, 1, "model = planning system",
-             (fig_font){fs * 0.9, false, false}, 0);
+    /* the label above its line, or below it when the line runs along the top */
+    double y1px = fig_ax_y(&ax, 1);
+    bool below = y1px - ax.y < fs * 1.5;
+    fig_text(cr, ax.x + ax.w - 2, below ? y1px + 2 : y1px - 2, 1, below ? 0 : 1,
+             "model = planning system", (fig_font){fs * 0.9, false, false}, 0);
     char seam[64];
     snprintf(seam, sizeof seam, "seam %.1f cm", e->tps_zone_cm);
     fig_text(cr, sx + 2, ax.y + 2, 0, 0, seam, (fig_font){fs * 0.9, false, false}, 0);
