@@ -20,7 +20,8 @@ extern "C" {
 typedef enum sl_head_kind {
     SL_HEAD_RTPLAN,
     SL_HEAD_RTSTRUCT,
-    SL_HEAD_OTHER /* a DICOM object of another SOP Class (an image, an RT Dose, ...) */
+    SL_HEAD_RTDOSE, /* a planning system's dose grid: `scan` gives it to the plan it names */
+    SL_HEAD_OTHER   /* a DICOM object of another SOP Class (an image, ...) */
 } sl_head_kind;
 
 /* UIDs are at most 64 characters (PS3.5 9.1); other values are cut to fit. */
@@ -33,9 +34,12 @@ typedef struct sl_dicom_head {
     char sop_instance_uid[SL_HEAD_UID];
     char patient_id[SL_HEAD_TEXT];
     char label[SL_HEAD_TEXT];        /* RT Plan Label or Structure Set Label */
-    char frame_uid[SL_HEAD_UID];     /* plan: Frame of Reference UID; structure set: the
-                                        first Referenced Frame of Reference UID; "" */
+    char frame_uid[SL_HEAD_UID];     /* plan and RT Dose: Frame of Reference UID; structure
+                                        set: the first Referenced Frame of Reference UID; "" */
     char structure_set_uid[SL_HEAD_UID]; /* plan: Referenced Structure Set; "" */
+    char plan_ref_uid[SL_HEAD_UID];  /* RT Dose: Referenced RT Plan Sequence > Referenced
+                                        SOP Instance UID (the first item); "" */
+    char summation[17];              /* RT Dose: Dose Summation Type (PLAN, BEAM, ...); "" */
     int nbeams;                      /* plan: items of the Beam Sequence */
     int electron_beams;              /* plan: of those, Radiation Type ELECTRON */
 } sl_dicom_head;

@@ -80,6 +80,11 @@ typedef struct sl_batch_entry {
     size_t nflagged;
     sl_flagged_organ *organs;
     long long log_id;            /* row id in the log, 0 when not logged */
+    size_t ntps;
+    char **tps_paths;            /* RT Doses of the folder to combine with this plan (scan) */
+    char *tps_note;              /* what became of the RT Doses that name this plan: used, or
+                                    refused and why ("; " between them); NULL when none */
+    bool tps_used;               /* screened with the planning system's dose */
 } sl_batch_entry;
 
 void sl_batch_entry_clear(sl_batch_entry *e);
@@ -87,7 +92,14 @@ void sl_batch_entry_clear(sl_batch_entry *e);
 /* Sort the folder's files into entries: one per plan (to screen, skipped,
  * incomplete), per bad or foreign file, per duplicate. Entries whose
  * outcome is SL_OUT_SCREENED are still to be screened (sl_batch_screen);
- * the rest are final. */
+ * the rest are final.
+ *
+ * An RT Dose whose Referenced RT Plan is a plan of the folder goes with that
+ * plan (as `estimate --tps-dose` takes it) when its Frame of Reference is
+ * the plan's: one PLAN dose, else every BEAM dose. One of another frame, a
+ * second PLAN dose, a BEAM dose beside a PLAN dose or another summation
+ * type is refused for that plan, and tps_note says which and why; an RT
+ * Dose of a plan not in the folder is listed as ignored. */
 sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t *n,
                        sl_error *err);
 
@@ -141,7 +153,10 @@ typedef struct sl_batch_config {
  * HTML writers) must be initialised before threads use it. */
 void sl_batch_prepare(void);
 
-/* Screen one pair: read both files, screen, write OUTDIR/NAME.json and
+/* Screen one pair (with the planning system's doses of tps_paths, each
+ * read and checked against the plan first: any that does not belong to it,
+ * BEAM doses that do not hold each screened beam once, or a plan of more
+ * than one fraction group, and none is used, tps_note saying why): read both files, screen, write OUTDIR/NAME.json and
  * NAME.html (NAME from the sanitised patient ID, plan label and plan UID),
  * (and NAME.pdf with pdf_paper), log it, and fill e (outcome SL_OUT_SCREENED or SL_OUT_ERROR with the
  * reason). Returns a status only for a failure that concerns every plan
@@ -179,6 +194,24 @@ sl_status sl_node_step(sl_node *n, double now_s,
                        void (*report)(const sl_batch_entry *e, void *ctx), void *ctx,
                        sl_error *err);
 void sl_node_free(sl_node *n);
+
+/* At start-up, what an earlier run left in the store folder: every plan
+ * there (a file "<SOP Instance UID>.dcm") of which the screening log holds
+ * no screening (cfg->log; without a log, every plan) is queued as if it had
+ * just arrived, so sl_node_step pairs it with a structure set in the store
+ * and screens it, or waits for one. Plans already in the log are left (they
+ * were screened, or refused with a reason, before). Counts say what was
+ * found, for the node's log. Files the node did not name (temporaries of
+ * an interrupted transfer, anything else) are not read. */
+typedef struct sl_node_resume_counts {
+    size_t plans;            /* RT Plans in the store */
+    size_t in_log;           /* of those, screened before (in the screening log) */
+    size_t queued;           /* of those, queued to pair and screen now */
+    size_t not_electron;     /* of those, without electron beams: left */
+    size_t structure_sets;   /* RT Structure Sets in the store */
+    size_t unreadable;       /* store files whose header could not be read */
+} sl_node_resume_counts;
+sl_status sl_node_resume(sl_node *n, sl_node_resume_counts *c, sl_error *err);
 
 #ifdef __cplusplus
 }

@@ -4,7 +4,8 @@
  * system sends it. The DICOM node (storescp.h) stores objects; the main
  * loop here pairs and screens them (sl_node_step) and prints the log lines,
  * with UTC timestamps and without patient names. SIGTERM and SIGINT stop it
- * after the current associations.
+ * after the current associations. At start-up it screens what an earlier
+ * run left in its store and the screening log has no screening of.
  */
 #include <errno.h>
 #include <getopt.h>
@@ -31,7 +32,9 @@ static const char help[] =
     "when a plan and its structure set have both arrived (in either order, in\n"
     "one association or several) the plan is screened as 'scan' does: JSON and\n"
     "HTML reports, the summary (index.html, summary.csv, summary.json) and the\n"
-    "screening log. Only calling AE titles on the allow list are accepted; with\n"
+    "screening log. At start-up, plans an earlier run left in OUTDIR/received/\n"
+    "that the screening log has not seen are paired and screened too.\n"
+    "Only calling AE titles on the allow list are accepted; with\n"
     "no allow list the node does not start. The node holds patient data: run it\n"
     "on the clinic's internal network only. SIGTERM or SIGINT (Ctrl-C) stops it\n"
     "after the current associations.\n\n"
@@ -342,6 +345,25 @@ int sl_cmd_listen(int argc, char **argv)
     }
     logline("listening on port %d as AE title '%s' (%zu allowed caller%s); store %s", port, ae,
             nallowed, nallowed == 1 ? "" : "s", store);
+    /* what an earlier run left in the store: screened now unless the log
+     * says it was screened before */
+    sl_node_resume_counts rc0;
+    if (sl_node_resume(node, &rc0, &err) != SL_OK) {
+        logline("%s", err.msg);
+        rc = sl_cli_exit_code(err.code);
+        goto done;
+    }
+    if (rc0.plans || rc0.structure_sets || rc0.unreadable)
+        logline("start-up: the store holds %zu plan%s and %zu structure set%s from an earlier "
+                "run: %zu plan%s already in the screening log (%s), %zu to pair and screen "
+                "now, %zu without electron beams (left); %zu file%s whose header cannot be "
+                "read",
+                rc0.plans, rc0.plans == 1 ? "" : "s", rc0.structure_sets,
+                rc0.structure_sets == 1 ? "" : "s", rc0.in_log, rc0.in_log == 1 ? "" : "s",
+                log_path, rc0.queued, rc0.not_electron, rc0.unreadable,
+                rc0.unreadable == 1 ? "" : "s");
+    else
+        logline("start-up: the store is empty, nothing from an earlier run");
     while (!stop_requested) {
         if (sl_scp_poll(scp, &err) != SL_OK) {
             logline("%s", err.msg);

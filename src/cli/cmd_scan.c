@@ -80,10 +80,13 @@ static void progress(pool_ctx *p, const sl_batch_entry *e)
             fputc('\n', stderr);
     } else {
         char a[80], b[80];
-        fprintf(stderr, "strayline scan: %zu/%zu %s %s: %s%s\n", p->done, p->ntodo,
+        fprintf(stderr, "strayline scan: %zu/%zu %s %s: %s%s%s\n", p->done, p->ntodo,
                 sl_text_escape(e->patient_id ? e->patient_id : "-", a, sizeof a),
                 sl_text_escape(e->plan_label ? e->plan_label : "-", b, sizeof b),
-                sl_outcome_name(e->outcome), e->flagged ? ", flagged" : "");
+                sl_outcome_name(e->outcome), e->flagged ? ", flagged" : "",
+                e->tps_used            ? ", with the planning system's RT Dose"
+                : e->tps_note          ? ", its RT Dose refused (see the summary)"
+                                       : "");
     }
     fflush(stderr);
 }
@@ -264,10 +267,12 @@ int sl_cmd_scan(int argc, char **argv)
         rc = sl_cli_fail(&err);
         goto done;
     }
-    size_t counts[SL_OUT_BAD + 1] = {0}, flagged = 0;
+    size_t counts[SL_OUT_BAD + 1] = {0}, flagged = 0, tps_used = 0, tps_refused = 0;
     bool attention = false;
     for (size_t i = 0; i < n; i++) {
         counts[entries[i].outcome]++;
+        tps_used += entries[i].outcome == SL_OUT_SCREENED && entries[i].tps_used;
+        tps_refused += entries[i].tps_note && !entries[i].tps_used;
         flagged += entries[i].outcome == SL_OUT_SCREENED && entries[i].flagged;
         attention |= entries[i].flagged || entries[i].outcome == SL_OUT_INCOMPLETE;
     }
@@ -276,6 +281,10 @@ int sl_cmd_scan(int argc, char **argv)
            counts[SL_OUT_SCREENED], flagged, counts[SL_OUT_ERROR], counts[SL_OUT_INCOMPLETE],
            counts[SL_OUT_SKIPPED], counts[SL_OUT_DUPLICATE], counts[SL_OUT_IGNORED],
            counts[SL_OUT_BAD]);
+    if (tps_used || tps_refused)
+        printf("planning system's RT Dose: used for %zu plan%s, refused for %zu (the summary's "
+               "planning_system_dose says why)\n",
+               tps_used, tps_used == 1 ? "" : "s", tps_refused);
     printf("summary: %s/index.html, %s/summary.csv, %s/summary.json\nlog: %s\n", outdir, outdir,
            outdir, log_path);
     if (fflush(stdout) != 0) {

@@ -1,7 +1,8 @@
 /*
  * The identity of a DICOM file (dicomhead.h): SOP Class and Instance, patient
  * ID, label, frame of reference, the referenced structure set and the beams'
- * radiation types, read with DCMTK while long values stay on disk.
+ * radiation types (an RT Dose: its frame, summation type and referenced
+ * plan), read with DCMTK while long values stay on disk.
  *
  * `scan` runs this over every file of a folder, so it must be cheap and it
  * must survive anything: the same guards as the full reader (rt_read.cc)
@@ -36,6 +37,7 @@ namespace {
 
 const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
 const char *const UID_RTSTRUCT = "1.2.840.10008.5.1.4.1.1.481.3";
+const char *const UID_RTDOSE = "1.2.840.10008.5.1.4.1.1.481.2";
 const char *const UID_DEFLATED = "1.2.840.10008.1.2.1.99";
 
 /* Values longer than this stay on disk: the identifying elements are short. */
@@ -151,6 +153,19 @@ sl_status fill(const char *path, DcmFileFormat &ff, sl_dicom_head *out, sl_error
             st = uid_field(path, "ReferencedFrameOfReferenceSequence (3006,0010) > "
                                  "FrameOfReferenceUID (0020,0052)",
                            get(fr, DCM_FrameOfReferenceUID), out->frame_uid, false, err);
+    } else if (cls == UID_RTDOSE) {
+        /* the plan it belongs to and its frame, so that `scan` can give it
+         * to that plan (the full reader, rtdose.cc, checks it again) */
+        out->kind = SL_HEAD_RTDOSE;
+        copy_text(out->summation, sizeof out->summation, get(ds, DCM_DoseSummationType).c_str());
+        st = uid_field(path, "FrameOfReferenceUID (0020,0052)", get(ds, DCM_FrameOfReferenceUID),
+                       out->frame_uid, false, err);
+        DcmItem *ref = nullptr;
+        if (st == SL_OK &&
+            ds->findAndGetSequenceItem(DCM_ReferencedRTPlanSequence, ref, 0).good())
+            st = uid_field(path, "ReferencedRTPlanSequence (300C,0002) > "
+                                 "ReferencedSOPInstanceUID (0008,1155)",
+                           get(ref, DCM_ReferencedSOPInstanceUID), out->plan_ref_uid, false, err);
     } else {
         out->kind = SL_HEAD_OTHER;
     }

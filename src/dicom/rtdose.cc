@@ -366,7 +366,9 @@ sl_status sl_rtdose_read(const char *path, sl_rtdose **out, sl_error *err)
         OFCondition c = ff.loadFile(path, EXS_Unknown, EGL_noChange, OFstatic_cast(Uint32, -1),
                                     ERM_autoDetect);
         if (c.bad())
-            r.fail(SL_EINPUT, "", std::string("not a readable DICOM file (") + c.text() + ")");
+            r.fail(SL_EINPUT, "",
+                   std::string("not a readable DICOM file, or cut short (DCMTK: ") + c.text() +
+                       ")");
         DcmDataset *ds = ff.getDataset();
         if (!ds)
             r.fail(SL_EINPUT, "", "no DICOM data set in the file");

@@ -190,6 +190,31 @@ void est_warnings(const sl_estimate_report *r, sl_notes *out)
     sl_notes_extend(out, &r->as->notes);
 }
 
+const char *est_tps_source(const sl_organ_dose *d)
+{
+    return d->tps_samples == 0              ? "model"
+           : d->tps_volume_fraction >= 1.0 ? "planning system"
+                                            : "planning system and model";
+}
+
+void est_tps_u_text(char *buf, size_t size)
+{
+    snprintf(buf, size,
+             "The planning system's dose is given a standard uncertainty of %.0f %% of itself "
+             "(k = 1; its upper bound is %.0f %% above it). This value is from memory: a few per "
+             "cent near the field edge is the usual tolerance of electron dose calculation; it "
+             "is stated, not measured for this planning system.",
+             100 * SL_TPS_U_FRACTION, 200 * SL_TPS_U_FRACTION);
+}
+
+void est_tps_row_name(const sl_tps_ratio *t, char *buf, size_t size)
+{
+    if (t->beam_number)
+        snprintf(buf, size, "beam %d", t->beam_number);
+    else
+        snprintf(buf, size, "every beam");
+}
+
 const char *est_kind(const sl_assessment *a)
 {
     return a->kind ? a->kind->kind : "-";
@@ -392,6 +417,9 @@ static void text_tps(FILE *fp, const sl_estimate_report *r)
             fprintf(fp, "; %zu samples in the zone outside its grid (model)", d->tps_outside_grid);
         fputc('\n', fp);
     }
+    char u[400];
+    est_tps_u_text(u, sizeof u);
+    fprintf(fp, "  %s\n", u);
     if (!e->nratios)
         return;
     fprintf(fp, "  model / planning system, course dose, by distance from the nearest field "
@@ -792,10 +820,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_num_opt(w, x, "other_dose_cgy", a->other_cgy > 0 ? a->other_cgy : NAN);
         jw_bool(w, x, "geometry_measured_on_patient", d->landmark);
         if (e->tps_used && d->estimated) { /* where its dose came from (--tps-dose) */
-            jw_str(w, x, "dose_source",
-                   d->tps_samples == 0              ? "model"
-                   : d->tps_volume_fraction >= 1.0 ? "planning system"
-                                                    : "planning system and model");
+            jw_str(w, x, "dose_source", est_tps_source(d));
             jw_num(w, x, "planning_system_volume_fraction", d->tps_volume_fraction);
             jw_bool(w, x, "max_from_planning_system", d->max_from_tps);
             jw_bool(w, x, "nearest_from_planning_system", d->nearest_from_tps);
@@ -937,6 +962,10 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
             jw_append(w, files, json_object_new_string(e->opt.tps[f]->source));
         jw_put(w, tp, "files", files);
         jw_num(w, tp, "zone_cm", e->tps_zone_cm);
+        jw_num(w, tp, "u_fraction_k1", SL_TPS_U_FRACTION);
+        char u[400];
+        est_tps_u_text(u, sizeof u);
+        jw_str(w, tp, "u_basis", u);
         json_object *rows = json_object_new_array();
         for (size_t k = 0; k < e->nratios; k++) {
             const sl_tps_ratio *t = &e->ratios[k];
@@ -981,6 +1010,49 @@ static void csv_num(FILE *fp, double v, bool last)
     csv_field(fp, buf, last);
 }
 
+/* The planning system's columns of one organ's row (d NULL: an organ not
+ * found): where its dose came from, and the plan's comparison model /
+ * planning system repeated in every row as the plan's other facts are (the
+ * mean ratio of every beam together per 1 cm bin, and every row of the
+ * table in one cell). All empty without --tps-dose. */
+static void csv_tps(FILE *fp, const sl_estimate *e, const sl_organ_dose *d, sl_buf *table)
+{
+    bool own = e->tps_used && d && d->estimated;
+    csv_field(fp, own ? est_tps_source(d) : "", false);
+    csv_num(fp, own ? 100 * d->tps_volume_fraction : NAN, false);
+    csv_field(fp, own ? (d->max_from_tps ? "planning system" : "model") : "", false);
+    csv_field(fp, own ? (d->nearest_from_tps ? "planning system" : "model") : "", false);
+    bool any = own && d->tps_samples > 0;
+    csv_num(fp, any ? 100 * SL_TPS_U_FRACTION : NAN, false);
+    char u[400] = "";
+    if (any)
+        est_tps_u_text(u, sizeof u);
+    csv_field(fp, u, false);
+    csv_num(fp, e->tps_used ? e->tps_zone_cm : NAN, false);
+    for (size_t k = 0; k < SL_TPS_BINS; k++) {
+        double v = NAN;
+        for (size_t i = 0; i < e->nratios; i++)
+            if (e->ratios[i].beam_number == 0 &&
+                fabs(e->ratios[i].lo_cm - (double)k * SL_TPS_BAND_CM / SL_TPS_BINS) < 1e-9)
+                v = e->ratios[i].mean;
+        csv_num(fp, v, false);
+    }
+    csv_field(fp, table->data ? table->data : "", false);
+}
+
+/* The comparison table in one cell: "every beam 0.0-1.0 cm: mean 1.234,
+ * min 1.100, max 1.400, 40 samples | beam 1 ..." */
+static void tps_table_text(const sl_estimate *e, sl_buf *b)
+{
+    for (size_t i = 0; i < e->nratios; i++) {
+        const sl_tps_ratio *t = &e->ratios[i];
+        char name[32];
+        est_tps_row_name(t, name, sizeof name);
+        sl_buf_printf(b, "%s%s %.1f-%.1f cm: mean %.3f, min %.3f, max %.3f, %zu samples",
+                      i ? " | " : "", name, t->lo_cm, t->hi_cm, t->mean, t->min, t->max, t->n);
+    }
+}
+
 /* One tidy table: a row an organ (those asked for and not found too), the
  * same columns in every row, the patient, plan and model in columns, and
  * the cautions and warnings in a column of their own, so that Python's csv,
@@ -994,7 +1066,12 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         "volume_cc", "fraction_max_cgy", "fraction_max_upper_cgy", "course_max_cgy",
         "course_max_upper_cgy", "course_mean_cgy", "course_mean_upper_cgy",
         "course_nearmax_cgy", "course_nearest_cgy", "level_cgy", "level_source", "flags",
-        "not_estimated_reason", "advice", "cautions"};
+        "dose_source", "planning_system_volume_percent", "max_dose_source",
+        "nearest_point_dose_source", "planning_system_u_k1_percent", "planning_system_u_basis",
+        "planning_system_zone_cm", "model_to_planning_system_0_1_cm",
+        "model_to_planning_system_1_2_cm", "model_to_planning_system_2_3_cm",
+        "model_to_planning_system_3_4_cm", "model_to_planning_system_4_5_cm",
+        "model_to_planning_system_by_beam", "not_estimated_reason", "advice", "cautions"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
@@ -1036,6 +1113,13 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         sl_buf_free(&cb);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
+    sl_buf tt = {0};
+    tps_table_text(e, &tt);
+    if (tt.failed) {
+        sl_buf_free(&cb);
+        sl_buf_free(&tt);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
     est_ventry *ve = NULL;
     size_t nve = est_verdict(r, &ve);
 
@@ -1064,6 +1148,7 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
                 csv_num(fp, NAN, false);
             csv_field(fp, "", false);
             csv_field(fp, "", false);
+            csv_tps(fp, e, NULL, &tt);
             csv_field(fp, r->as->missing.items[k], false);
             csv_field(fp, v ? v->advice : "", false);
             csv_field(fp, cb.data, true);
@@ -1116,6 +1201,7 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
             snprintf(lsrc, sizeof lsrc, "%s (%s)", a->governing->source, a->governing->mark);
         csv_field(fp, lsrc, false);
         csv_field(fp, flags, false);
+        csv_tps(fp, e, d, &tt);
         csv_field(fp, est ? (a->not_assessed_why ? a->not_assessed_why : "")
                           : (d->excluded_why ? d->excluded_why : ""),
                   false);
@@ -1124,6 +1210,7 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
     }
     free(ve);
     sl_buf_free(&cb);
+    sl_buf_free(&tt);
     return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the CSV output") : SL_OK;
 }
 

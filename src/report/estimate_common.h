@@ -46,6 +46,15 @@ void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size);
 /* The result line, shared by text and HTML. */
 void est_result_text(const sl_estimate_report *r, char *buf, size_t size);
 
+/* With the planning system's dose (--tps-dose): where an organ's dose came
+ * from ("model", "planning system", "planning system and model"); the
+ * sentence that states the planning system's dose uncertainty and that it
+ * is from memory (every format that shows a planning-system dose carries
+ * it); a comparison row's name ("every beam", "beam 2"). */
+const char *est_tps_source(const sl_organ_dose *d);
+void est_tps_u_text(char *buf, size_t size);
+void est_tps_row_name(const sl_tps_ratio *t, char *buf, size_t size);
+
 /* The kind's name or "-". */
 const char *est_kind(const sl_assessment *a);
 

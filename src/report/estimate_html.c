@@ -7,6 +7,10 @@
  * mGy), the generic cautions and inputs, the advice with sources, and for
  * each beam its beam's-eye view and the dose against distance at each
  * judged organ's own depth, then a dose-volume histogram for each organ.
+ * With the planning system's dose (--tps-dose) a section after the organ
+ * tables says where each organ's dose came from, states the planning
+ * system's uncertainty (and that the value is from memory), and shows the
+ * ratio model / planning system by distance as a table and a figure.
  */
 #include "strayline/report.h"
 #include "strayline/version.h"
@@ -96,12 +100,102 @@ static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool
         est_marks(d, false, marks, sizeof marks);
         strncat(st, marks, sizeof st - strlen(st) - 1);
         strncat(st, est_whatif_mark(r, d->roi->name), sizeof st - strlen(st) - 1);
+        if (e->tps_used && d->tps_samples) {
+            char src[64];
+            snprintf(src, sizeof src, " [dose: %s]", est_tps_source(d));
+            strncat(st, src, sizeof st - strlen(st) - 1);
+        }
         xmlNodePtr td = hel(h, tr, "td", st);
         if (a->status == SL_ST_EXCEEDS || (a->status == SL_ST_BAND && a->flagged))
             hattr(h, td, "class", "status-exceeds");
         else if (a->status == SL_ST_MAY_EXCEED)
             hattr(h, td, "class", "status-may");
     }
+}
+
+/* --tps-dose: where each organ's dose came from (the seam), the stated
+ * uncertainty of the planning system's dose, and the comparison model /
+ * planning system by distance, as a table and a figure. */
+static void tps_section(hdoc *h, xmlNodePtr b, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    char buf[800], u[400];
+    xmlNodePtr sec = hel(h, b, "section", NULL);
+    hattr(h, sec, "id", "planning-system");
+    hel(h, sec, "h2", "The planning system's dose and the model");
+    sl_buf files = {0};
+    for (size_t f = 0; f < e->opt.ntps; f++)
+        sl_buf_printf(&files, "%s%s", f ? ", " : "", e->opt.tps[f]->source);
+    helf(h, sec, "p",
+         "Within %.1f cm of any field edge (the seam), and in the field, each sample's dose is "
+         "the planning system's (RT Dose %s, trilinear in its grid); beyond the seam it is the "
+         "model's.",
+         e->tps_zone_cm, files.data && !files.failed ? files.data : "-");
+    sl_buf_free(&files);
+    est_tps_u_text(u, sizeof u);
+    xmlNodePtr ud = hel(h, sec, "p", u);
+    hattr(h, ud, "class", "caution");
+    hel(h, sec, "h3", "Where each organ's dose came from");
+    xmlNodePtr t = hel(h, sec, "table", NULL);
+    const char *head[] = {"organ", "dose from", "volume from the planning system (%)",
+                          "maximum from", "nearest point from",
+                          "zone samples outside its grid (model used)",
+                          "uncertainty of the planning system's dose (k = 1)"};
+    hrow(h, t, true, head, 7);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *d = &e->organs[o];
+        if (!d->estimated)
+            continue;
+        xmlNodePtr tr = hel(h, t, "tr", NULL);
+        hel(h, tr, "td", d->roi->name);
+        hel(h, tr, "td", est_tps_source(d));
+        snprintf(buf, sizeof buf, "%.1f", 100 * d->tps_volume_fraction);
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        hel(h, tr, "td", d->max_from_tps ? "planning system" : "model");
+        hel(h, tr, "td", d->nearest_from_tps ? "planning system" : "model");
+        snprintf(buf, sizeof buf, "%zu", d->tps_outside_grid);
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        if (d->tps_samples)
+            snprintf(buf, sizeof buf, "%.0f %% of its dose (from memory)",
+                     100 * SL_TPS_U_FRACTION);
+        else
+            snprintf(buf, sizeof buf, "-");
+        hel(h, tr, "td", buf);
+    }
+    hel(h, sec, "h3", "Model / planning system by distance from the nearest field edge");
+    if (!e->nratios) {
+        helf(h, sec, "p",
+             "No organ sample lies within %.0f cm beyond a field edge with both doses: nothing to "
+             "compare.",
+             SL_TPS_BAND_CM);
+        return;
+    }
+    helf(h, sec, "p",
+         "The ratio of the model's course dose to the planning system's at the organ samples "
+         "0 to %.0f cm beyond the field edges, where both exist, in 1 cm bins; for every beam "
+         "together, and for each beam that has a dose of its own (a BEAM RT Dose). A ratio above "
+         "1 means the planning system gives less than the measured model there.",
+         SL_TPS_BAND_CM);
+    xmlNodePtr rt = hel(h, sec, "table", NULL);
+    const char *rh[] = {"beams", "distance from the edge (cm)", "samples", "mean ratio",
+                        "smallest", "largest"};
+    hrow(h, rt, true, rh, 6);
+    for (size_t k = 0; k < e->nratios; k++) {
+        const sl_tps_ratio *q = &e->ratios[k];
+        char name[32], c[5][32];
+        est_tps_row_name(q, name, sizeof name);
+        snprintf(c[0], sizeof c[0], "%.1f to %.1f", q->lo_cm, q->hi_cm);
+        snprintf(c[1], sizeof c[1], "%zu", q->n);
+        snprintf(c[2], sizeof c[2], "%.3f", q->mean);
+        snprintf(c[3], sizeof c[3], "%.3f", q->min);
+        snprintf(c[4], sizeof c[4], "%.3f", q->max);
+        xmlNodePtr tr = hel(h, rt, "tr", NULL);
+        hel(h, tr, "td", name);
+        for (int i = 0; i < 5; i++)
+            hattr(h, hel(h, tr, "td", c[i]), "class", "n");
+    }
+    fig_tps_ctx tctx = {r};
+    fig_svg_into(h, sec, 560, 300, fig_tps_ratio, &tctx);
 }
 
 sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_error *err)
@@ -218,6 +312,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
 
     organ_table(&h, b, r, false);
     organ_table(&h, b, r, true);
+    if (e->tps_used)
+        tps_section(&h, b, r);
     const sl_patient *pt = &r->as->patient;
     if (!isnan(pt->gestational_weeks))
         helf(&h, b, "p",
@@ -275,19 +371,36 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     const char *uhead[] = {"organ", "fit", "measurement", "interpolation", "extrapolation",
                            "stand-in", "tilt/SSD", "transfer", "setup shift", "combined"};
     hrow(&h, ut, true, uhead, 10);
+    bool any_tps_max = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
         if (!d->estimated)
             continue;
         xmlNodePtr tr = hel(&h, ut, "tr", NULL);
-        hel(&h, tr, "td", d->roi->name);
         double v[EST_NBUDGET];
         est_budget_values(&d->course_max_budget, v);
+        if (d->max_from_tps) {
+            /* no model budget: the planning system's stated uncertainty only */
+            any_tps_max = true;
+            helf(&h, tr, "td", "%s (planning system's dose)", d->roi->name);
+            for (size_t i = 0; i + 1 < EST_NBUDGET; i++)
+                hattr(&h, hel(&h, tr, "td", "-"), "class", "n");
+            char x1[32];
+            helf(&h, tr, "td", "%s (%.0f %%, from memory)", num(x1, sizeof x1, v[EST_NBUDGET - 1]),
+                 100 * SL_TPS_U_FRACTION);
+            continue;
+        }
+        hel(&h, tr, "td", d->roi->name);
         for (size_t i = 0; i < EST_NBUDGET; i++) {
             char x1[32];
             hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, v[i])), "class", "n");
         }
     }
+    if (any_tps_max)
+        helf(&h, b, "p",
+             "An organ whose maximum is the planning system's dose has no model budget: its "
+             "uncertainty is the stated %.0f %% of that dose (k = 1), a value from memory.",
+             100 * SL_TPS_U_FRACTION);
     hel(&h, b, "p",
         "Components add in quadrature at each beam and linearly over beams and fractions. "
         "Transfer: water tank to patient, beam direction and leakage asymmetry, by distance "

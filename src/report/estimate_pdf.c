@@ -3,7 +3,9 @@
  * Page 1 carries the verdict (each organ that needs attention, with its
  * dose, level and what to do), every what-if banner and the sign-off
  * block; the organ tables, advice with sources, beams, figures and the
- * generic cautions follow. Every page names the patient and the plan and
+ * generic cautions follow; with --tps-dose, after the organ tables, the
+ * sources of each organ's dose and the comparison model / planning system
+ * (as in the HTML). Every page names the patient and the plan and
  * says "page n of m". The same PDF bytes go into --pdf-dicom's object.
  */
 #include "strayline/report.h"
@@ -182,10 +184,98 @@ static void organ_table(pdoc *d, const sl_estimate_report *r, bool fetus)
         est_marks(dd, false, marks, sizeof marks);
         strncat(st, marks, sizeof st - strlen(st) - 1);
         strncat(st, est_whatif_mark(r, dd->roi->name), sizeof st - strlen(st) - 1);
+        if (e->tps_used && dd->tps_samples) {
+            char src[64];
+            snprintf(src, sizeof src, " [dose: %s]", est_tps_source(dd));
+            strncat(st, src, sizeof st - strlen(st) - 1);
+        }
         const char *cells[] = {nm, est_kind(a), dist, depth, fx, course, mean, level, st};
         pdoc_table_row(d, &t, cells,
                        a->flagged ? fill_att : a->measurement_advised ? fill_meas : NULL, true);
     }
+}
+
+/* --tps-dose: each organ's dose source, the planning system's stated
+ * uncertainty (from memory), and the comparison model / planning system by
+ * distance, as in the HTML report. */
+static void tps_section(pdoc *d, const sl_estimate_report *r)
+{
+    const sl_estimate *e = r->est;
+    char line[1200], u[400];
+    pdoc_heading(d, "The planning system's dose and the model", 11);
+    sl_buf files = {0};
+    for (size_t f = 0; f < e->opt.ntps; f++)
+        sl_buf_printf(&files, "%s%s", f ? ", " : "", e->opt.tps[f]->source);
+    snprintf(line, sizeof line,
+             "Within %.1f cm of any field edge (the seam), and in the field, each sample's dose is "
+             "the planning system's (RT Dose %s, trilinear in its grid); beyond the seam it is "
+             "the model's.",
+             e->tps_zone_cm, files.data && !files.failed ? files.data : "-");
+    sl_buf_free(&files);
+    pdoc_para(d, line, 8.5, false);
+    est_tps_u_text(u, sizeof u);
+    pdoc_para(d, u, 8.5, true);
+    static const double w[] = {0.17, 0.17, 0.12, 0.12, 0.12, 0.12, 0.18};
+    static const char *const head[] = {"organ", "dose from", "volume from the planning system (%)",
+                                       "maximum from", "nearest point from",
+                                       "zone samples outside its grid", "uncertainty of the "
+                                       "planning system's dose (k = 1)"};
+    ptable t = {7, w, head, 7.5};
+    pdoc_table_head(d, &t);
+    for (size_t o = 0; o < e->norgans; o++) {
+        const sl_organ_dose *dd = &e->organs[o];
+        if (!dd->estimated)
+            continue;
+        char nm[160], vol[24], out[24], uc[64];
+        snprintf(vol, sizeof vol, "%.1f", 100 * dd->tps_volume_fraction);
+        snprintf(out, sizeof out, "%zu", dd->tps_outside_grid);
+        if (dd->tps_samples)
+            snprintf(uc, sizeof uc, "%.0f %% of its dose (from memory)", 100 * SL_TPS_U_FRACTION);
+        else
+            snprintf(uc, sizeof uc, "-");
+        const char *cells[] = {sl_text_escape(dd->roi->name, nm, sizeof nm), est_tps_source(dd),
+                               vol, dd->max_from_tps ? "planning system" : "model",
+                               dd->nearest_from_tps ? "planning system" : "model", out, uc};
+        pdoc_table_row(d, &t, cells, NULL, true);
+    }
+    /* the heading, its paragraph and the table's first rows on one page */
+    pdoc_need(d, 150);
+    pdoc_heading(d, "Model / planning system by distance from the nearest field edge", 10);
+    if (!e->nratios) {
+        snprintf(line, sizeof line,
+                 "No organ sample lies within %.0f cm beyond a field edge with both doses: "
+                 "nothing to compare.",
+                 SL_TPS_BAND_CM);
+        pdoc_para(d, line, 8.5, false);
+        return;
+    }
+    snprintf(line, sizeof line,
+             "The ratio of the model's course dose to the planning system's at the organ samples "
+             "0 to %.0f cm beyond the field edges, where both exist, in 1 cm bins; for every beam "
+             "together and for each beam with a BEAM RT Dose of its own. Above 1: the planning "
+             "system gives less than the measured model there.",
+             SL_TPS_BAND_CM);
+    pdoc_para(d, line, 8.5, false);
+    static const double rw[] = {0.2, 0.2, 0.15, 0.15, 0.15, 0.15};
+    static const char *const rh[] = {"beams", "distance from the edge (cm)", "samples",
+                                     "mean ratio", "smallest", "largest"};
+    ptable rt = {6, rw, rh, 7.5};
+    pdoc_table_head(d, &rt);
+    for (size_t k = 0; k < e->nratios; k++) {
+        const sl_tps_ratio *q = &e->ratios[k];
+        char name[32], c[5][32];
+        est_tps_row_name(q, name, sizeof name);
+        snprintf(c[0], sizeof c[0], "%.1f to %.1f", q->lo_cm, q->hi_cm);
+        snprintf(c[1], sizeof c[1], "%zu", q->n);
+        snprintf(c[2], sizeof c[2], "%.3f", q->mean);
+        snprintf(c[3], sizeof c[3], "%.3f", q->min);
+        snprintf(c[4], sizeof c[4], "%.3f", q->max);
+        const char *cells[] = {name, c[0], c[1], c[2], c[3], c[4]};
+        pdoc_table_row(d, &rt, cells, NULL, false);
+    }
+    double tw = d->w - d->left - d->right;
+    fig_tps_ctx tctx = {r};
+    pdoc_figure(d, tw, tw * 0.5, fig_tps_ratio, &tctx);
 }
 
 static void advice(pdoc *d, const sl_estimate_report *r)
@@ -293,19 +383,39 @@ static void budget(pdoc *d, const sl_estimate_report *r)
                                        "setup shift", "combined"};
     ptable t = {10, w, head, 7.5};
     pdoc_table_head(d, &t);
+    bool any_tps = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *dd = &e->organs[o];
         if (!dd->estimated)
             continue;
         double v[EST_NBUDGET];
         est_budget_values(&dd->course_max_budget, v);
-        char nm[160], c[EST_NBUDGET][24];
+        char nm[200], c[EST_NBUDGET][48];
         const char *cells[10] = {sl_text_escape(dd->roi->name, nm, sizeof nm)};
         for (size_t i = 0; i < EST_NBUDGET; i++) {
             est_num(v[i], c[i], sizeof c[i]);
             cells[i + 1] = c[i];
         }
+        if (dd->max_from_tps) {
+            /* no model budget: the planning system's stated uncertainty only */
+            any_tps = true;
+            strncat(nm, " (planning system's dose)", sizeof nm - strlen(nm) - 1);
+            for (size_t i = 0; i + 1 < EST_NBUDGET; i++)
+                cells[i + 1] = "-";
+            char x[24];
+            est_num(v[EST_NBUDGET - 1], x, sizeof x);
+            snprintf(c[EST_NBUDGET - 1], sizeof c[EST_NBUDGET - 1], "%s (%.0f %%, from memory)",
+                     x, 100 * SL_TPS_U_FRACTION);
+        }
         pdoc_table_row(d, &t, cells, NULL, true);
+    }
+    if (any_tps) {
+        char line[300];
+        snprintf(line, sizeof line,
+                 "An organ whose maximum is the planning system's dose has no model budget: its "
+                 "uncertainty is the stated %.0f %% of that dose (k = 1), a value from memory.",
+                 100 * SL_TPS_U_FRACTION);
+        pdoc_para(d, line, 7.5, false);
     }
 }
 
@@ -378,6 +488,8 @@ static void compose(pdoc *d, const sl_estimate_report *r, const char *date)
 
     organ_table(d, r, false);
     organ_table(d, r, true);
+    if (r->est->tps_used)
+        tps_section(d, r);
     bool any = false;
     char nm[160];
     for (size_t o = 0; o < r->est->norgans; o++) {

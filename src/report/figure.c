@@ -340,6 +340,86 @@ static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
 /* Write the numbers of a path's data with two decimals (a hundredth of a
  * point; cairo writes six), which halves a figure's size and changes no
  * pixel. Returns a new string or NULL. */
+/* A plain decimal number of path data (optional sign, digits, optional
+ * point and digits: how cairo writes coordinates) rounded to 2 decimals on
+ * its digits (an exact tie to even, as printf's "%.2f"), trailing zeros
+ * and a lone point dropped, "-0" as "0". Returns the length written to buf (at least 72 bytes), or 0 when
+ * the token is not such a number (an exponent, say): the caller then goes
+ * through strtod. Working on the digits avoids a strtod and a printf per
+ * coordinate, which cost a tenth of a whole scan. */
+static size_t round_plain(const char *t, size_t used, char *buf)
+{
+    size_t i = 0;
+    bool neg = false;
+    if (i < used && (t[i] == '-' || t[i] == '+'))
+        neg = t[i++] == '-';
+    char dig[72];
+    size_t nd = 0, nint = 0;
+    for (; i < used && t[i] >= '0' && t[i] <= '9'; i++, nint++)
+        if (nd < 64)
+            dig[nd++] = t[i];
+    if (nint > 60)
+        return 0;
+    size_t nfrac = 0;
+    char third = '0';
+    bool beyond = false; /* a non-zero digit after the third decimal */
+    if (i < used && t[i] == '.') {
+        for (i++; i < used && t[i] >= '0' && t[i] <= '9'; i++, nfrac++) {
+            if (nfrac < 2)
+                dig[nd++] = t[i];
+            else if (nfrac == 2)
+                third = t[i];
+            else
+                beyond = beyond || t[i] != '0';
+        }
+    }
+    if (i != used || nint + nfrac == 0)
+        return 0;
+    while (nfrac < 2) { /* pad to two decimals */
+        dig[nd++] = '0';
+        nfrac++;
+    }
+    /* dig holds the integer digits and two decimals; round on the third,
+     * an exact tie to even as printf rounds it */
+    bool up = third > '5' || (third == '5' && (beyond || (dig[nd - 1] - '0') % 2 == 1));
+    if (up) {
+        size_t k = nd;
+        while (k > 0 && dig[k - 1] == '9')
+            dig[--k] = '0';
+        if (k == 0) {
+            memmove(dig + 1, dig, nd);
+            dig[0] = '1';
+            nd++;
+            nint++;
+        } else {
+            dig[k - 1]++;
+        }
+    }
+    size_t ni = nd - 2, lead = 0;
+    while (lead + 1 < ni && dig[lead] == '0')
+        lead++;
+    size_t k = 0;
+    bool zero = true;
+    for (size_t j = lead; j < nd; j++)
+        zero = zero && dig[j] == '0';
+    if (neg && !zero)
+        buf[k++] = '-';
+    if (ni == 0)
+        buf[k++] = '0';
+    for (size_t j = lead; j < ni; j++)
+        buf[k++] = dig[j];
+    size_t last = nd;
+    while (last > ni && dig[last - 1] == '0')
+        last--;
+    if (last > ni) {
+        buf[k++] = '.';
+        for (size_t j = ni; j < last; j++)
+            buf[k++] = dig[j];
+    }
+    buf[k] = '\0';
+    return k;
+}
+
 static char *round_path_data(const char *d)
 {
     size_t n = strlen(d);
@@ -356,14 +436,32 @@ static char *round_path_data(const char *d)
             out[k++] = d[i++];
             continue;
         }
+        /* the token: sign, digits, point, digits (and an exponent, if any) */
+        size_t used = (c == '-' || c == '+') ? 1 : 0;
+        while (i + used < n && ((d[i + used] >= '0' && d[i + used] <= '9') || d[i + used] == '.'))
+            used++;
+        char buf[80];
+        size_t pl = (i + used < n && (d[i + used] == 'e' || d[i + used] == 'E'))
+                        ? 0
+                        : round_plain(d + i, used, buf);
+        if (pl > 0) {
+            if (pl > used) { /* never longer than what it replaces */
+                memcpy(out + k, d + i, used);
+                k += used;
+            } else {
+                memcpy(out + k, buf, pl);
+                k += pl;
+            }
+            i += used;
+            continue;
+        }
         char *end;
         double v = strtod(d + i, &end);
-        size_t used = (size_t)(end - (d + i));
+        used = (size_t)(end - (d + i));
         if (used == 0) {
             out[k++] = d[i++];
             continue;
         }
-        char buf[64];
         int w = snprintf(buf, sizeof buf, "%.2f", v);
         if (w < 0 || (size_t)w >= sizeof buf) { /* cannot happen for a coordinate: keep it */
             memcpy(out + k, d + i, used);

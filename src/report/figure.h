@@ -71,6 +71,15 @@ typedef struct fig_dvh_ctx {
 } fig_dvh_ctx;
 void fig_dvh(cairo_t *cr, double w, double h, const void *ctx);
 
+/* With the planning system's dose (--tps-dose): the ratio model / planning
+ * system of the course dose against the distance from the nearest field
+ * edge, in the band's bins, a series for every beam together and one for
+ * each beam with a dose of its own (figure_tps.c). */
+typedef struct fig_tps_ctx {
+    const sl_estimate_report *r;
+} fig_tps_ctx;
+void fig_tps_ratio(cairo_t *cr, double w, double h, const void *ctx);
+
 /* The fit report's small multiples: one panel for each profile (insert,
  * depth, direction) of one energy and applicator: the measured points with
  * 2-sigma bars, the fit and its 2-sigma band, and the normalised residuals.

@@ -432,13 +432,26 @@ static double vy(const view *v, double w)
     return v->y + v->side - (w - v->v0) * v->scale;
 }
 
+/* A closed outline. Vertices closer than a quarter point to the last one
+ * drawn are left out (the last vertex always stays): a contour of hundreds
+ * of points projected into a few centimetres of page looks the same, and
+ * its SVG is a fraction of the size (writing those coordinates was a large
+ * share of a batch's time). The distances the reports print never come
+ * from the picture. */
 static void path_loop(cairo_t *cr, const view *v, const sl_vec2 *p, size_t n)
 {
+    double lx = 0, ly = 0;
     for (size_t i = 0; i < n; i++) {
-        if (i == 0)
-            cairo_move_to(cr, vx(v, p[i].x), vy(v, p[i].y));
-        else
-            cairo_line_to(cr, vx(v, p[i].x), vy(v, p[i].y));
+        double x = vx(v, p[i].x), y = vy(v, p[i].y);
+        if (i == 0) {
+            cairo_move_to(cr, x, y);
+        } else if (i + 1 == n || (x - lx) * (x - lx) + (y - ly) * (y - ly) >= 0.0625) {
+            cairo_line_to(cr, x, y);
+        } else {
+            continue;
+        }
+        lx = x;
+        ly = y;
     }
     cairo_close_path(cr);
 }

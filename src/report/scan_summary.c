@@ -57,7 +57,8 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
                                        "plan_label", "plan_uid", "structure_set_uid",
                                        "electron_beams", "organs_flagged", "flagged_organs",
                                        "report_json", "report_html", "report_pdf", "plan_file",
-                                       "structure_set_file", "message"};
+                                       "structure_set_file", "planning_system_dose",
+                                       "message"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
@@ -83,6 +84,7 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
         csv_field(fp, x->report_pdf, false);
         csv_field(fp, x->plan_path, false);
         csv_field(fp, x->ss_path, false);
+        csv_field(fp, x->tps_note, false);
         csv_field(fp, x->message, true);
     }
     return ferror(fp) ? SL_EIO : SL_OK;
@@ -151,6 +153,11 @@ static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch
         jw_str(&w, p, "report_json", x->report_json);
         jw_str(&w, p, "report_html", x->report_html);
         jw_str(&w, p, "report_pdf", x->report_pdf);
+        json_object *td = json_object_new_array();
+        jw_put(&w, p, "planning_system_dose_files", td);
+        for (size_t k = 0; k < x->ntps; k++)
+            jw_append(&w, td, json_object_new_string(x->tps_paths[k]));
+        jw_str(&w, p, "planning_system_dose", x->tps_note);
         jw_str(&w, p, "message", x->message);
     }
     return jw_write(&w, root, fp);
@@ -218,7 +225,12 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
             xmlNodePtr a = hel(&h, rc, "a", "JSON");
             hattr(&h, a, "href", x->report_json);
         }
-        hel(&h, tr, "td", s_or(x->message, ""));
+        xmlNodePtr nt = hel(&h, tr, "td", s_or(x->message, ""));
+        if (x->tps_note) {
+            if (x->message)
+                hel(&h, nt, "br", NULL);
+            htext(&h, nt, x->tps_note);
+        }
     }
     return hdoc_write(&h, fp, err);
 }

@@ -8,17 +8,24 @@
  *
  * The store folder names every object by its SOP Instance UID, so "has the
  * structure set arrived" is whether "<UID>.dcm" exists there: that also
- * covers a structure set that arrived in an earlier run of the node.
+ * covers a structure set that arrived in an earlier run of the node. At
+ * start-up sl_node_resume queues the plans an earlier run left there that
+ * the screening log has no screening of, so nothing received is forgotten
+ * when the node was stopped before it could pair or screen it.
  */
+#include <dirent.h>
+#include <errno.h>
 #include <math.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/stat.h>
 #include <unistd.h>
 
 #include "strayline/scan.h"
+#include "strayline/screenlog.h"
 
 typedef struct pending {
     char *path;
@@ -94,6 +101,101 @@ sl_status sl_node_received(sl_node *n, const char *path)
     n->queue[n->nqueue++] = p;
     pthread_mutex_unlock(&n->lock);
     return SL_OK;
+}
+
+static int cmp_str(const void *a, const void *b)
+{
+    return strcmp(*(char *const *)a, *(char *const *)b);
+}
+
+/* The plan UIDs the screening log holds, sorted (caller frees the array;
+ * the strings belong to *h). */
+static sl_status logged_plans(sl_screenlog *log, sl_history **h, char ***uids, size_t *n,
+                              sl_error *err)
+{
+    *uids = NULL;
+    *n = 0;
+    sl_history_query q = {0};
+    sl_status st = sl_screenlog_query(log, &q, h, err);
+    if (st != SL_OK)
+        return st;
+    *uids = malloc(((*h)->n ? (*h)->n : 1) * sizeof **uids);
+    if (!*uids)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t i = 0; i < (*h)->n; i++)
+        if ((*h)->rows[i].plan_uid)
+            (*uids)[(*n)++] = (*h)->rows[i].plan_uid;
+    qsort(*uids, *n, sizeof **uids, cmp_str);
+    return SL_OK;
+}
+
+sl_status sl_node_resume(sl_node *n, sl_node_resume_counts *c, sl_error *err)
+{
+    memset(c, 0, sizeof *c);
+    sl_history *h = NULL;
+    char **uids = NULL;
+    size_t nuids = 0;
+    sl_status st = n->cfg->log ? logged_plans(n->cfg->log, &h, &uids, &nuids, err) : SL_OK;
+    DIR *dir = st == SL_OK ? opendir(n->store) : NULL;
+    if (st == SL_OK && !dir)
+        st = sl_error_set(err, SL_EIO, "%s: cannot list the store folder: %s", n->store,
+                          strerror(errno));
+    struct dirent *de;
+    while (st == SL_OK && (de = readdir(dir)) != NULL) {
+        /* only the node's own names: "<valid UID>.dcm" */
+        size_t len = strlen(de->d_name);
+        char stem[SL_HEAD_UID];
+        if (len < 5 || len - 4 >= sizeof stem || strcmp(de->d_name + len - 4, ".dcm") != 0)
+            continue;
+        memcpy(stem, de->d_name, len - 4);
+        stem[len - 4] = '\0';
+        if (!sl_dicom_uid_valid(stem))
+            continue;
+        size_t plen = strlen(n->store) + len + 2;
+        char *path = malloc(plen);
+        if (!path) {
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+            break;
+        }
+        snprintf(path, plen, "%s/%s", n->store, de->d_name);
+        struct stat sb;
+        sl_dicom_head head;
+        sl_error herr = {0};
+        if (lstat(path, &sb) != 0 || !S_ISREG(sb.st_mode) ||
+            sl_dicom_read_head(path, &head, &herr) != SL_OK) {
+            c->unreadable++;
+            free(path);
+            continue;
+        }
+        if (head.kind == SL_HEAD_RTSTRUCT)
+            c->structure_sets++;
+        if (head.kind != SL_HEAD_RTPLAN) {
+            free(path);
+            continue;
+        }
+        c->plans++;
+        const char *key = head.sop_instance_uid;
+        if (nuids && bsearch(&key, uids, nuids, sizeof *uids, cmp_str)) {
+            c->in_log++;
+            free(path);
+            continue;
+        }
+        if (head.electron_beams == 0) {
+            c->not_electron++;
+            free(path);
+            continue;
+        }
+        if (sl_node_received(n, path) != SL_OK)
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        else
+            c->queued++;
+        free(path);
+    }
+    if (dir)
+        closedir(dir);
+    free(uids);
+    sl_history_free(h);
+    return st;
 }
 
 /* A new final entry (kept for the summary); NULL when out of memory. */

@@ -1,7 +1,9 @@
 /*
- * One screening of a batch (`scan` or `listen`): read the pair, screen it,
- * write its JSON and HTML reports into the output folder, log it, and keep
- * what the summary needs (worst status, flagged organs, report names).
+ * One screening of a batch (`scan` or `listen`): read the pair (and the
+ * planning system's RT Doses the pairing found for the plan, each checked
+ * against it before use), screen it, write its JSON and HTML reports into
+ * the output folder, log it, and keep what the summary needs (worst status,
+ * flagged organs, report names, what became of the RT Doses).
  *
  * A bad plan must never stop a batch, so an input error becomes the entry's
  * outcome and message; only what concerns every plan (the log cannot be
@@ -19,6 +21,7 @@
 
 #include "strayline/dicom.h"
 #include "strayline/report.h"
+#include "strayline/rtdose.h"
 #include "strayline/scan.h"
 #include "strayline/screen.h"
 #include "strayline/util.h"
@@ -182,9 +185,16 @@ static sl_status write_report(const sl_batch_config *cfg, const char *name, int 
     return st;
 }
 
-/* The facts used, as one line for the log. */
-static void facts_text(const sl_facts_entry *f, sl_buf *b)
+/* The facts used (and the planning system's doses), as one line for the log. */
+static void facts_text(const sl_facts_entry *f, const sl_batch_entry *e, bool tps_used,
+                       sl_buf *b)
 {
+    if (tps_used) {
+        sl_buf_printf(b, "tps-dose:");
+        for (size_t i = 0; i < e->ntps; i++)
+            sl_buf_printf(b, " %s", e->tps_paths[i]);
+        sl_buf_printf(b, "; ");
+    }
     if (!f) {
         sl_buf_printf(b, "facts: none");
         return;
@@ -251,10 +261,13 @@ static sl_status log_entry(const sl_batch_config *cfg, sl_batch_entry *e, const 
 /* The screening itself (sl_screen_run, as `estimate` does) with the
  * patient's facts. Takes ownership of plan and ss. */
 static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structure_set *ss,
-                          const sl_facts_entry *facts, sl_batch_entry *e, sl_error *err)
+                          const sl_facts_entry *facts, sl_rtdose *const *tps, size_t ntps,
+                          sl_batch_entry *e, sl_error *err)
 {
     sl_screen_request req;
     sl_screen_request_init(&req);
+    req.estimate.tps = (const sl_rtdose *const *)tps;
+    req.estimate.ntps = ntps;
     req.model = cfg->model;
     req.levels = cfg->levels;
     req.levels_path = cfg->levels_path;
@@ -337,6 +350,89 @@ static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structur
     return st;
 }
 
+/* The note on the planning system's doses, one more part. */
+static void tps_note(sl_batch_entry *e, bool *ok, const char *text)
+{
+    size_t n = (e->tps_note ? strlen(e->tps_note) + 2 : 0) + strlen(text) + 1;
+    char *c = malloc(n);
+    if (!c) {
+        *ok = false;
+        return;
+    }
+    snprintf(c, n, "%s%s%s", e->tps_note ? e->tps_note : "", e->tps_note ? "; " : "", text);
+    free(e->tps_note);
+    e->tps_note = c;
+}
+
+/* Read the RT Doses the pairing gave this plan and check that they can be
+ * combined with it as `estimate --tps-dose` would: each belongs to the plan
+ * (frame, plan UID, beams), a PLAN dose alone or BEAM doses that hold each
+ * screened beam once, a plan of one fraction group. Anything amiss and none
+ * is used: the note says why (never a silent partial use). Returns the
+ * number read into tps (0: none used); -1 when out of memory. */
+static long read_doses(sl_batch_entry *e, const sl_plan *plan, sl_rtdose **tps, bool *ok)
+{
+    sl_error derr = {0};
+    size_t n = 0;
+    sl_status st = SL_OK;
+    for (; n < e->ntps && st == SL_OK; n++) {
+        st = sl_rtdose_read(e->tps_paths[n], &tps[n], &derr);
+        if (st == SL_OK)
+            st = sl_rtdose_check_plan(tps[n], plan, &derr);
+        if (st != SL_OK) {
+            n++; /* free it too (NULL when the read failed) */
+            break;
+        }
+    }
+    if (st == SL_OK && plan->ngroups != 1)
+        st = sl_error_set(&derr, SL_EINPUT,
+                          "%s: %zu fraction groups: the planning system's dose is combined with "
+                          "a plan of one fraction group only",
+                          plan->source, plan->ngroups);
+    if (st == SL_OK && tps[0]->summation == SL_RTDOSE_BEAM) {
+        for (size_t b = 0; b < plan->nbeams && st == SL_OK; b++) {
+            if (sl_beam_skip_reason(&plan->beams[b]) != NULL)
+                continue;
+            int num = plan->beams[b].number, times = 0;
+            for (size_t f = 0; f < n; f++)
+                for (size_t k = 0; k < tps[f]->nbeams; k++)
+                    times += tps[f]->beams[k] == num;
+            if (times != 1)
+                st = sl_error_set(&derr, SL_EINPUT,
+                                  "beam %d is in %d of the BEAM doses found: each screened beam "
+                                  "must be in exactly one",
+                                  num, times);
+        }
+    }
+    if (st == SL_ENOMEM) {
+        for (size_t i = 0; i < n; i++)
+            sl_rtdose_free(tps[i]);
+        return -1;
+    }
+    char line[1400];
+    if (st != SL_OK) {
+        for (size_t i = 0; i < n; i++) {
+            sl_rtdose_free(tps[i]);
+            tps[i] = NULL;
+        }
+        snprintf(line, sizeof line,
+                 "the planning system's dose refused for this plan, screened with the model "
+                 "only: %s",
+                 derr.msg);
+        tps_note(e, ok, line);
+        return 0;
+    }
+    for (size_t i = 0; i < n; i++) {
+        snprintf(line, sizeof line,
+                 "RT Dose %s (%s) used: the planning system's dose within %.1f cm of the field "
+                 "edges, the model beyond",
+                 e->tps_paths[i], tps[i]->summation == SL_RTDOSE_PLAN ? "PLAN" : "BEAM",
+                 SL_TPS_ZONE_CM);
+        tps_note(e, ok, line);
+    }
+    return (long)n;
+}
+
 sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_error *err)
 {
     sl_error perr = {0};
@@ -365,11 +461,23 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
         }
         facts = cfg->facts ? sl_facts_find(cfg->facts, e->plan_uid, e->patient_id) : NULL;
     }
+    sl_rtdose **tps = NULL;
+    long ntps = 0;
+    if (st == SL_OK && e->ntps) {
+        tps = calloc(e->ntps, sizeof *tps);
+        ntps = tps ? read_doses(e, plan, tps, &ok) : -1;
+        if (ntps < 0)
+            st = sl_error_set(&perr, SL_ENOMEM, "out of memory");
+    }
     if (st == SL_OK) {
-        st = pipeline(cfg, plan, ss, facts, e, &perr);
+        e->tps_used = ntps > 0;
+        st = pipeline(cfg, plan, ss, facts, tps, (size_t)ntps, e, &perr);
         plan = NULL;
         ss = NULL;
     }
+    for (long i = 0; i < ntps; i++)
+        sl_rtdose_free(tps[i]);
+    free(tps);
     sl_plan_free(plan);
     sl_structure_set_free(ss);
     if (st == SL_ENOMEM)
@@ -384,7 +492,7 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
         e->outcome = SL_OUT_SCREENED;
     }
     sl_buf opts = {0};
-    facts_text(facts, &opts);
+    facts_text(facts, e, ntps > 0, &opts);
     st = opts.failed ? sl_error_set(err, SL_ENOMEM, "out of memory")
                      : log_entry(cfg, e, opts.data, err);
     sl_buf_free(&opts);

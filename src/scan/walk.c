@@ -6,19 +6,24 @@
  * Files are classified by their SOP Class, never by name or extension.
  * Plans pair with structure sets through the plan's Referenced Structure Set
  * Sequence (the SOP Instance UID); the frames of reference are checked again
- * by sl_pair_check() when the pair is screened. The walk keeps its own stack
+ * by sl_pair_check() when the pair is screened. An RT Dose goes with the
+ * plan its Referenced RT Plan Sequence names, when its Frame of Reference is
+ * that plan's (scan.h says which are used and which refused). The walk keeps its own stack
  * of directories (no recursion, no global callback state as nftw() needs)
  * and does not follow symbolic links.
  */
 #include <dirent.h>
 #include <errno.h>
+#include <stdarg.h>
 #include <stdint.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
 
 #include "strayline/parallel.h"
 #include "strayline/scan.h"
+#include "strayline/util.h"
 
 typedef struct strvec {
     char **v;
@@ -198,6 +203,10 @@ void sl_batch_entry_clear(sl_batch_entry *e)
                   &e->report_json, &e->report_html, &e->report_pdf};
     for (size_t i = 0; i < sizeof s / sizeof *s; i++)
         free(*s[i]);
+    for (size_t i = 0; i < e->ntps; i++)
+        free(e->tps_paths[i]);
+    free(e->tps_paths);
+    free(e->tps_note);
     for (size_t i = 0; i < e->nflagged; i++) {
         free(e->organs[i].roi);
         free(e->organs[i].kind);
@@ -261,6 +270,99 @@ static char *fmt_msg(bool *ok, const char *fmt, const char *a, const char *b)
     return m;
 }
 
+/* A note appended to *note ("; " between notes). */
+static void note_add(char **note, bool *ok, const char *fmt, ...)
+#if defined(__GNUC__)
+    __attribute__((format(printf, 3, 4)))
+#endif
+    ;
+static void note_add(char **note, bool *ok, const char *fmt, ...)
+{
+    sl_buf b = {0};
+    if (*note)
+        sl_buf_printf(&b, "%s; ", *note);
+    va_list ap;
+    va_start(ap, fmt);
+    char one[1024];
+    vsnprintf(one, sizeof one, fmt, ap);
+    va_end(ap);
+    sl_buf_printf(&b, "%s", one);
+    if (b.failed || !b.data) {
+        *ok = false;
+        sl_buf_free(&b);
+        return;
+    }
+    free(*note);
+    *note = b.data; /* the buffer's text, now owned by the note */
+}
+
+/* The RT Doses that name plan file p (a list through next_dose): which to
+ * combine with it, and a note on each one refused. */
+static void choose_doses(const sl_scan_files *f, size_t p, const size_t *first_dose,
+                         const size_t *next_dose, sl_batch_entry *o, bool *ok)
+{
+    const sl_dicom_head *ph = &f->files[p].head;
+    size_t nplan = 0, nbeam = 0, plan_dose = SIZE_MAX;
+    for (size_t j = first_dose[p]; j != SIZE_MAX; j = next_dose[j]) {
+        const sl_dicom_head *h = &f->files[j].head;
+        const char *path = f->files[j].path;
+        if (!h->frame_uid[0] || strcmp(h->frame_uid, ph->frame_uid) != 0) {
+            note_add(&o->tps_note, ok,
+                     "RT Dose %s refused for this plan: its Frame of Reference UID (0020,0052) "
+                     "'%s' is not the plan's '%s' (another patient frame: its grid would not lie "
+                     "on this patient)",
+                     path, h->frame_uid, ph->frame_uid);
+            continue;
+        }
+        if (strcmp(h->summation, "PLAN") == 0) {
+            nplan++;
+            plan_dose = j;
+        } else if (strcmp(h->summation, "BEAM") == 0) {
+            nbeam++;
+        } else {
+            note_add(&o->tps_note, ok,
+                     "RT Dose %s refused for this plan: Dose Summation Type (3004,000A) '%s' "
+                     "(only PLAN or BEAM doses are combined)",
+                     path, h->summation);
+        }
+    }
+    if (nplan > 1) {
+        note_add(&o->tps_note, ok,
+                 "%zu RT Doses of summation PLAN name this plan: which one holds its dose is "
+                 "not clear, none is used (give one with estimate --tps-dose)",
+                 nplan);
+        return;
+    }
+    size_t want = nplan == 1 ? 1 : nbeam;
+    if (want == 0)
+        return;
+    o->tps_paths = calloc(want, sizeof *o->tps_paths);
+    if (!o->tps_paths) {
+        *ok = false;
+        return;
+    }
+    for (size_t j = first_dose[p]; j != SIZE_MAX; j = next_dose[j]) {
+        const sl_dicom_head *h = &f->files[j].head;
+        if (!h->frame_uid[0] || strcmp(h->frame_uid, ph->frame_uid) != 0)
+            continue;
+        if (nplan == 1 && j != plan_dose) {
+            if (strcmp(h->summation, "BEAM") == 0)
+                note_add(&o->tps_note, ok,
+                         "RT Dose %s (BEAM) not used: the plan's PLAN dose %s holds every beam",
+                         f->files[j].path, f->files[plan_dose].path);
+            continue;
+        }
+        if (nplan == 0 && strcmp(h->summation, "BEAM") != 0)
+            continue;
+        char *c = strdup(f->files[j].path);
+        if (!c) {
+            *ok = false;
+            return;
+        }
+        o->tps_paths[o->ntps++] = c;
+    }
+}
+
 sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t *n,
                        sl_error *err)
 {
@@ -285,6 +387,32 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
         size_t first = uid_find_or_add(&x, f->files, f->files[i].head.sop_instance_uid, i);
         dup[i] = first != SIZE_MAX;
     }
+    /* each plan's RT Doses, as lists through the files */
+    size_t *first_dose = malloc((f->n ? f->n : 1) * sizeof *first_dose);
+    size_t *next_dose = malloc((f->n ? f->n : 1) * sizeof *next_dose);
+    bool *dose_taken = calloc(f->n ? f->n : 1, sizeof *dose_taken);
+    if (!first_dose || !next_dose || !dose_taken) {
+        free(first_dose);
+        free(next_dose);
+        free(dose_taken);
+        free(x.slot);
+        free(e);
+        free(dup);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t i = 0; i < f->n; i++)
+        first_dose[i] = next_dose[i] = SIZE_MAX;
+    for (size_t i = f->n; i-- > 0;) { /* backwards, so each list keeps the files' order */
+        const sl_scan_file *g = &f->files[i];
+        if (!g->ok || dup[i] || g->head.kind != SL_HEAD_RTDOSE || !g->head.plan_ref_uid[0])
+            continue;
+        size_t p = uid_find_or_add(&x, f->files, g->head.plan_ref_uid, SIZE_MAX);
+        if (p == SIZE_MAX || f->files[p].head.kind != SL_HEAD_RTPLAN)
+            continue;
+        next_dose[i] = first_dose[p];
+        first_dose[p] = i;
+        dose_taken[i] = true;
+    }
     size_t k = 0;
     bool ok = true;
     for (size_t i = 0; i < f->n && ok; i++) {
@@ -298,7 +426,7 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
             k++;
             continue;
         }
-        if (h->kind == SL_HEAD_RTSTRUCT && !dup[i])
+        if ((h->kind == SL_HEAD_RTSTRUCT || dose_taken[i]) && !dup[i])
             continue; /* listed with the plan that uses it */
         o->plan_path = dup_or_null(g->path, &ok);
         o->patient_id = dup_or_null(h->patient_id, &ok);
@@ -310,6 +438,17 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
             o->outcome = SL_OUT_DUPLICATE;
             o->message = fmt_msg(&ok, "the same object (SOP Instance UID) as %s: screened once%s",
                                  f->files[first].path, NULL);
+            continue;
+        }
+        if (h->kind == SL_HEAD_RTDOSE) {
+            o->outcome = SL_OUT_IGNORED;
+            o->message = h->plan_ref_uid[0]
+                             ? fmt_msg(&ok, "an RT Dose of the plan with SOP Instance UID %s, "
+                                            "which is not in the folder%s",
+                                       h->plan_ref_uid, NULL)
+                             : fmt_msg(&ok, "an RT Dose that names no plan (Referenced RT Plan "
+                                            "Sequence (300C,0002))%s%s",
+                                       "", NULL);
             continue;
         }
         if (h->kind == SL_HEAD_OTHER) {
@@ -345,9 +484,13 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
         }
         o->outcome = SL_OUT_SCREENED; /* to screen */
         o->ss_path = dup_or_null(f->files[s].path, &ok);
+        choose_doses(f, i, first_dose, next_dose, o, &ok);
     }
     free(x.slot);
     free(dup);
+    free(first_dose);
+    free(next_dose);
+    free(dose_taken);
     if (!ok) {
         for (size_t i = 0; i < f->n; i++)
             sl_batch_entry_clear(&e[i]);

@@ -57,6 +57,15 @@ class BadInputs(unittest.TestCase):
                            os.path.join(BAD, "good_rtstruct.dcm"))
         self.assertEqual(rc, 0, err)
 
+    def test_the_good_dose_reads(self):
+        """The RT Dose the rtdose_* cases break is itself accepted."""
+        rc, out, err = run("estimate", os.path.join(BAD, "good_rtplan.dcm"),
+                           os.path.join(BAD, "good_rtstruct.dcm"), "--model",
+                           os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml"), "--tps-dose",
+                           os.path.join(BAD, "good_rtdose.dcm"), "--format", "json")
+        self.assertIn(rc, (0, 4), err)
+        self.assertIn('"planning_system_dose"', out)
+
     def check_case(self, name, args, code, fragment):
         with tempdir() as tmp:
             rc, out, err = run(*expand(args, name, tmp))

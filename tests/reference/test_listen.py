@@ -375,6 +375,44 @@ class Listen(unittest.TestCase):
         # what arrived before the stop was still screened
         self.assertEqual(len(report_names(self.out)), 1, log)
 
+    def test_restart_picks_up_what_waits_in_the_store(self):
+        """A second run screens what the first left in its store: a plan
+        whose structure set arrives only now, and a pair stored but never
+        screened (as if the node had been killed first; written here with
+        pydicom under the node's own names); a plan the screening log
+        (Python's sqlite3) already holds is not screened again."""
+        face = os.path.join(EXAMPLES, "face-lens")
+        fetus = os.path.join(EXAMPLES, "chest-fetus")
+        node = self.start("--incomplete-after", "600")
+        self.assertEqual(store(node.port, os.path.join(face, "rtplan.dcm"),
+                               os.path.join(face, "rtstruct.dcm")).returncode, 0)
+        self.assertTrue(self.screened(1), node.log())
+        self.assertEqual(store(node.port, os.path.join(fetus, "rtplan.dcm")).returncode, 0)
+        received = os.path.join(self.out, "received")
+        self.assertTrue(node.wait_for(lambda: len(os.listdir(received)) == 3), node.log())
+        self.assertEqual(node.stop(), 0)
+        face_uid = plan_uid(os.path.join(face, "rtplan.dcm"))
+        self.assertEqual(log_plan_uids(self.out), [face_uid])
+        # a pair that reached the store but was never screened
+        d = os.path.join(self.tmp.name, "unscreened")
+        neck_uid, neck_ss, _ = copy_pair("neck-device", d, "LEFT")
+        shutil.copy(os.path.join(d, "rtplan.dcm"), os.path.join(received, neck_uid + ".dcm"))
+        shutil.copy(os.path.join(d, "rtstruct.dcm"), os.path.join(received, neck_ss + ".dcm"))
+
+        node = self.start("--incomplete-after", "600")
+        fetus_uid = plan_uid(os.path.join(fetus, "rtplan.dcm"))
+        self.assertTrue(node.wait_for(lambda: neck_uid in log_plan_uids(self.out)), node.log())
+        start = [l for l in node.log().splitlines() if "start-up:" in l]
+        self.assertEqual(len(start), 1, node.log())
+        self.assertIn("3 plans and 2 structure sets", start[0])
+        self.assertIn("1 plan already in the screening log", start[0])
+        self.assertIn("2 to pair and screen now", start[0])
+        # the fetus plan waited; its structure set arrives now
+        self.assertEqual(store(node.port, os.path.join(fetus, "rtstruct.dcm")).returncode, 0)
+        self.assertTrue(node.wait_for(lambda: fetus_uid in log_plan_uids(self.out)), node.log())
+        self.assertEqual(node.stop(), 0)
+        self.assertEqual(log_plan_uids(self.out), sorted([face_uid, neck_uid, fetus_uid]))
+
     def test_log_has_timestamps_and_no_patient_names(self):
         node = self.start()
         d = os.path.join(self.tmp.name, "named")

@@ -17,11 +17,16 @@ the model beyond, against references outside the tool:
   ties a dose grid to the patient's coordinates);
 - the JSON report against models/estimate-report.schema.json (jsonschema).
 """
+import csv
+import io
 import json
 import math
 import os
+import re
 import subprocess
 import unittest
+import xml.etree.ElementTree as ET
+from html.parser import HTMLParser
 
 import jsonschema
 import numpy as np
@@ -32,7 +37,8 @@ from pydicom.uid import ExplicitVRLittleEndian
 
 from common import run, tempdir
 import rtbuild as rb  # noqa: E402
-from test_estimate import (SCHEMA, box_case, estimate, model_percent, organ, output,
+from test_figures import SVG_NS, parse_path, style_of
+from test_estimate import (MODEL, SCHEMA, box_case, estimate, model_percent, organ, output,
                            point_geometry)
 
 RT_DOSE = "1.2.840.10008.5.1.4.1.1.481.2"
@@ -46,14 +52,14 @@ def analytic_gy(x, y, z):
 
 
 def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN", beams=(),
-                 bits=32):
+                 bits=32, zs=None):
     """An axial RT Dose grid: x -150..150 mm, y -10..100 mm, z -50..50 mm,
-    every 2.5 mm, of the analytic dose, stored as integers times Dose Grid
-    Scaling."""
+    every 2.5 mm (or the frames zs), of the analytic dose, stored as
+    integers times Dose Grid Scaling."""
     plan = pydicom.dcmread(plan_path)
     xs = np.arange(-150.0, 150.0 + 1e-9, 2.5)
     ys = np.arange(-10.0, 100.0 + 1e-9, 2.5)
-    zs = np.arange(-50.0, 50.0 + 1e-9, 2.5)
+    zs = np.arange(-50.0, 50.0 + 1e-9, 2.5) if zs is None else np.asarray(zs, dtype=float)
     zz, yy, xx = np.meshgrid(zs, ys, xs, indexing="ij")
     gy = analytic_gy(xx, yy, zz)
     scale = 1e-6 if bits == 32 else 1e-4
@@ -183,6 +189,23 @@ class FromTheGrid(unittest.TestCase):
         self.assertIn(rc_t, (0, 4))
         self.assertIn("planning system's dose: within 3.0 cm", text)
 
+    def test_uneven_frames_are_read_as_they_are(self):
+        """Grid Frame Offset Vector with uneven, ordered offsets (legal: DICOM
+        PS3.3 C.8.8.3.2 asks only for one offset a frame): interpolation
+        between the frames where they are still reproduces the linear
+        analytic dose; frames out of order are refused (the bad-input
+        corpus, rtdose_frames_*)."""
+        zs = [-50.0, -41.0, -20.0, -3.5, 1.0, 7.5, 30.0, 50.0]
+        with tempdir() as d:
+            plan, ss, rtd = case(d, zs=zs)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        self.assertIn(rc, (0, 4), err)
+        for name, x, z in POINTS:
+            dist, _ = point_geometry(x, z)
+            if dist < 3.0:
+                want = 100 * analytic_gy(x * 10, z * 10, 0.0)
+                self.assertAlmostEqual(organ(js, name)["course_max_cgy"], want, delta=1e-3)
+
     def test_beam_dose_gives_the_beam_its_row(self):
         """A BEAM dose of the plan's one beam: the same organ doses, and the
         comparison per beam equals the comparison of every beam together."""
@@ -200,6 +223,252 @@ class FromTheGrid(unittest.TestCase):
         for k, r in beam1.items():
             self.assertEqual(r["samples"], every[k]["samples"])
             self.assertAlmostEqual(r["ratio_mean"], every[k]["ratio_mean"], delta=1e-9)
+
+
+class TableRows(HTMLParser):
+    """The rows of every table inside <section id="planning-system"> and
+    its <svg> elements (Python's html.parser)."""
+
+    def __init__(self):
+        super().__init__()
+        self.depth = 0      # nesting inside the section
+        self.tables, self.row, self.cell = [], None, None
+        self.svgs = 0
+        self.text = []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if self.depth == 0:
+            if tag == "section" and a.get("id") == "planning-system":
+                self.depth = 1
+            return
+        if tag == "section":
+            self.depth += 1
+        elif tag == "table":
+            self.tables.append([])
+        elif tag == "tr":
+            self.row = []
+        elif tag in ("td", "th"):
+            self.cell = ""
+        elif tag == "svg":
+            self.svgs += 1
+
+    def handle_endtag(self, tag):
+        if self.depth == 0:
+            return
+        if tag == "section":
+            self.depth -= 1
+        elif tag in ("td", "th") and self.cell is not None:
+            self.row.append(self.cell.strip())
+            self.cell = None
+        elif tag == "tr" and self.row is not None:
+            self.tables[-1].append(self.row)
+            self.row = None
+
+    def handle_data(self, data):
+        if self.depth:
+            self.text.append(data)
+            if self.cell is not None:
+                self.cell += data
+
+
+class InEveryFormat(unittest.TestCase):
+    """The seam and the comparison in HTML, CSV and PDF, not only in text
+    and JSON: each organ's source as the geometry says it must be (dist < 3
+    cm: the planning system; beyond: the model, the box phantom by hand as
+    above), the stated 5 % (k = 1) of a planning-system dose and that it is
+    from memory wherever that source is shown, and the ratio table whose
+    1-2 cm bin brackets the ratio worked out by hand for 'near'. Readers
+    outside the tool: Python's html.parser and csv, xml.etree for the
+    figure, Debian's pdftotext (poppler-utils)."""
+
+    def expected_sources(self):
+        want = {}
+        for name, x, z in POINTS:
+            dist, _ = point_geometry(x, z)
+            want[name] = "planning system" if dist < 3.0 else "model"
+        want["across"] = "planning system and model"
+        return want
+
+    def hand_ratio_near(self):
+        ref = MU * output(12, "A10")["dose_per_mu_cgy"]
+        dist, depth = point_geometry(6.5, 1.0)
+        v, _ = model_percent(12, "A10", depth, dist)
+        return (ref * N_FX * v / 100) / (100 * analytic_gy(65.0, 10.0, 0.0))
+
+    def test_html_csv_pdf(self):
+        with tempdir() as d:
+            plan, ss, rtd = case(d)
+            html, pdf = os.path.join(d, "r.html"), os.path.join(d, "r.pdf")
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--html", html, "--pdf", pdf)
+            self.assertIn(rc, (0, 4), err)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--tps-dose", rtd,
+                               "--format", "csv")
+            self.assertIn(rc, (0, 4), err)
+            with open(html) as f:
+                page = f.read()
+            p = subprocess.run(["pdftotext", "-layout", pdf, "-"], capture_output=True,
+                               text=True)
+        want = self.expected_sources()
+        hand = self.hand_ratio_near()
+        rows = js["planning_system_dose"]["model_to_planning_system"]
+        self.assertTrue(rows)
+        bin12 = next(r for r in rows if r["beam_number"] is None and r["from_cm"] == 1.0)
+        self.assertLessEqual(bin12["ratio_min"], hand + 1e-6)
+        self.assertGreaterEqual(bin12["ratio_max"], hand - 1e-6)
+        self.assertIn("from memory", js["planning_system_dose"]["u_basis"])
+        self.assertEqual(js["planning_system_dose"]["u_fraction_k1"], 0.05)
+
+        # HTML: the source table, the ratio table, the figure
+        t = TableRows()
+        t.feed(page)
+        self.assertEqual(len(t.tables), 2, "source table and ratio table")
+        src = {r[0]: r for r in t.tables[0][1:]}
+        self.assertEqual(set(src), set(want))
+        for name, w in want.items():
+            self.assertEqual(src[name][1], w, name)
+            if w == "model":
+                self.assertEqual(src[name][6], "-", name)
+            else:
+                self.assertIn("5 %", src[name][6], name)
+                self.assertIn("from memory", src[name][6], name)
+        self.assertIn("from memory", "".join(t.text))
+        got = t.tables[1][1:]
+        self.assertEqual(len(got), len(rows))
+        for r, g in zip(rows, got):
+            self.assertEqual(g[0], "every beam" if r["beam_number"] is None
+                             else "beam %d" % r["beam_number"])
+            self.assertEqual(g[1], "%.1f to %.1f" % (r["from_cm"], r["to_cm"]))
+            self.assertEqual(int(g[2]), r["samples"])
+            for k, key in ((3, "ratio_mean"), (4, "ratio_min"), (5, "ratio_max")):
+                self.assertAlmostEqual(float(g[k]), r[key], delta=6e-4)
+        h12 = next(g for g in got if g[0] == "every beam" and g[1] == "1.0 to 2.0")
+        self.assertLessEqual(float(h12[4]), hand + 6e-4)
+        self.assertGreaterEqual(float(h12[5]), hand - 6e-4)
+        self.assertEqual(t.svgs, 1)
+        sec = page[page.index('id="planning-system"'):]
+        svg = ET.fromstring(re.search(r"<svg\b.*?</svg>", sec, re.S).group(0))
+        # the path grammar and closed fills, as test_figures checks every figure
+        for path in svg.iter(SVG_NS + "path"):
+            sub = parse_path(path.get("d") or "")
+            if style_of(path).get("fill") != "none":
+                for sp in sub:
+                    if len(sp) > 1:
+                        self.assertEqual(sp[-1][0], "Z", "a filled path is open")
+        counts = dict(kv.split("=", 1) for kv in svg.get("data-counts").split())
+        self.assertEqual(int(counts["rows"]), len(rows))
+        self.assertEqual(int(counts["bins"]), len(rows))   # every row drawn
+        # the budget of an organ whose maximum is the planning system's
+        self.assertIn("planning system's dose)", page)
+
+        # CSV: one tidy table, the source per organ, the plan's ratios
+        reader = csv.DictReader(io.StringIO(out))
+        crows = list(reader)
+        for r in crows:
+            self.assertEqual(set(r), set(reader.fieldnames))
+        by = {r["roi"]: r for r in crows}
+        for name, w in want.items():
+            r = by[name]
+            self.assertEqual(r["dose_source"], w, name)
+            self.assertEqual(r["planning_system_zone_cm"], "3.0000")
+            if w == "model":
+                self.assertEqual(r["planning_system_u_k1_percent"], "", name)
+            else:
+                self.assertEqual(float(r["planning_system_u_k1_percent"]), 5.0, name)
+                self.assertIn("from memory", r["planning_system_u_basis"], name)
+            self.assertAlmostEqual(float(r["model_to_planning_system_1_2_cm"]),
+                                   bin12["ratio_mean"], delta=1e-4)
+            self.assertIn("every beam 1.0-2.0 cm", r["model_to_planning_system_by_beam"])
+        self.assertEqual(by["far"]["max_dose_source"], "model")
+        self.assertEqual(by["near"]["max_dose_source"], "planning system")
+
+        # PDF (pdftotext): the section, the stated uncertainty, every row
+        if p.returncode != 0:
+            self.skipTest("pdftotext not available")
+        text = re.sub(r"\s+", " ", p.stdout)
+        self.assertIn("The planning system's dose and the model", text)
+        self.assertIn("from memory", text)
+        self.assertIn("standard uncertainty of 5 %", text)
+        self.assertIn("from memory", text[text.index("Uncertainty budget"):])
+        for r in rows:
+            self.assertIn("%.3f" % r["ratio_mean"], text)
+
+
+class ScanFindsTheDose(unittest.TestCase):
+    """`scan` gives an RT Dose to the plan its Referenced RT Plan Sequence
+    names (DICOM PS3.3 C.8.8.3: Referenced RT Plan Sequence; C.7.4.1: the
+    Frame of Reference UID ties the grid to the patient), read as
+    --tps-dose reads it: the organ doses from the grid equal the analytic
+    dose written with pydicom; a dose of another frame is refused for its
+    plan, the summary (Python's json and csv) says why and the plan is
+    screened with the model alone (the in-field organ unestimated); an RT
+    Dose of a plan not in the folder is listed, not used. The log (Python's
+    sqlite3) records which plan used a dose."""
+
+    def test_used_refused_and_unmatched(self):
+        with tempdir() as d:
+            folder, out = os.path.join(d, "export"), os.path.join(d, "out")
+            good, bad, lone = (os.path.join(folder, n) for n in ("good", "bad", "lone"))
+            for p in (good, bad):
+                os.makedirs(p)
+            plan_g, _, dose_g = case(good)
+            plan_b, _, dose_b = case(bad, frame=rb.uid("some", "other", "frame"))
+            uid_g = pydicom.dcmread(plan_g).SOPInstanceUID
+            uid_b = pydicom.dcmread(plan_b).SOPInstanceUID
+            other = os.path.join(d, "elsewhere")
+            os.makedirs(other)
+            _, _, dose_l = case(other)
+            os.makedirs(lone)
+            os.replace(dose_l, os.path.join(lone, "rtdose.dcm"))
+            dose_l = os.path.join(lone, "rtdose.dcm")
+            rc, stdout, err = run("scan", folder, "--model", MODEL, "--out", out, "--quiet")
+            self.assertIn(rc, (0, 4), err)
+            with open(os.path.join(out, "summary.json")) as f:
+                summary = json.load(f)
+            with open(os.path.join(out, "summary.csv")) as f:
+                rows = list(csv.DictReader(f))
+            reports = {}
+            for p in summary["plans"]:
+                if p.get("report_json"):
+                    with open(os.path.join(out, p["report_json"])) as f:
+                        reports[p["plan_file"]] = json.load(f)
+            import sqlite3
+            con = sqlite3.connect(os.path.join(out, "screening.sqlite"))
+            log = {r[0]: r[1] for r in con.execute("SELECT plan_uid, options FROM screening")}
+            con.close()
+        by = {p["plan_file"]: p for p in summary["plans"]}
+        g, b = by[plan_g], by[plan_b]
+        self.assertEqual(g["outcome"], "screened")
+        self.assertEqual(g["planning_system_dose_files"], [dose_g])
+        self.assertIn("used", g["planning_system_dose"])
+        rg = reports[plan_g]
+        self.assertEqual(rg["planning_system_dose"]["files"], [dose_g])
+        for name, x, z in POINTS:
+            dist, _ = point_geometry(x, z)
+            if dist < 3.0:
+                want = 100 * analytic_gy(x * 10, z * 10, 0.0)
+                self.assertEqual(organ(rg, name)["dose_source"], "planning system")
+                self.assertAlmostEqual(organ(rg, name)["course_max_cgy"], want, delta=1e-3)
+        # another frame: refused by name, never used
+        self.assertEqual(b["outcome"], "screened")
+        self.assertEqual(b["planning_system_dose_files"], [])
+        self.assertIn("refused", b["planning_system_dose"])
+        self.assertIn("Frame of Reference", b["planning_system_dose"])
+        self.assertIn(dose_b, b["planning_system_dose"])
+        rb_ = reports[plan_b]
+        self.assertNotIn("planning_system_dose", rb_)
+        self.assertFalse(organ(rb_, "in")["estimated"])   # in the field: not estimated
+        # the CSV says the same
+        csv_by = {r["plan_file"]: r for r in rows}
+        self.assertEqual(csv_by[plan_g]["planning_system_dose"], g["planning_system_dose"])
+        self.assertIn("refused", csv_by[plan_b]["planning_system_dose"])
+        # a dose of a plan not in the folder: listed, not used
+        lone_row = by[dose_l]
+        self.assertEqual(lone_row["outcome"], "ignored")
+        self.assertIn("not in the folder", lone_row["message"])
+        self.assertIn("used for 1 plan, refused for 1", stdout)
+        self.assertIn("tps-dose: " + dose_g, log[uid_g])
+        self.assertNotIn("tps-dose", log[uid_b])
 
 
 class EstimateAsRtDose(unittest.TestCase):

@@ -187,6 +187,116 @@ START_TEST(two_figures_get_their_own_ids)
 }
 END_TEST
 
+/* A path through coordinates that test the rounding of path data to
+ * hundredths of a point: exact binary ties (10.125, 20.375, 0.625), a
+ * carry through nines (99.999), a tiny negative (-0.004), whole numbers. */
+static const double coords[][2] = {{10.125, 20.375}, {0.625, 99.999}, {-0.004, 5},
+                                   {33.3333, 7.5},   {12, 0.005},     {1e-7, 150.0449}};
+static void draw_coords(cairo_t *cr, double w, double h, const void *ctx)
+{
+    (void)w, (void)h, (void)ctx;
+    for (size_t i = 0; i < sizeof coords / sizeof *coords; i++)
+        (i ? cairo_line_to : cairo_move_to)(cr, coords[i][0], coords[i][1]);
+    cairo_set_line_width(cr, 1);
+    cairo_stroke(cr);
+}
+
+/* The first stroked path under n (depth first). */
+static xmlNodePtr stroked_path(xmlNodePtr n)
+{
+    for (; n; n = n->next) {
+        if (n->type != XML_ELEMENT_NODE)
+            continue;
+        if (xmlStrcmp(n->name, BAD_CAST "path") == 0) {
+            xmlChar *st = xmlGetProp(n, BAD_CAST "style");
+            bool stroked = st && strstr((const char *)st, "fill:none");
+            xmlFree(st);
+            if (stroked)
+                return n;
+        }
+        xmlNodePtr c = stroked_path(n->children);
+        if (c)
+            return c;
+    }
+    return NULL;
+}
+
+/* The numbers of a path's data, in order. */
+static size_t path_numbers(const char *d, double *v, size_t max, char tok[][40])
+{
+    size_t n = 0;
+    for (const char *p = d; *p && n < max;) {
+        if ((*p >= '0' && *p <= '9') || *p == '-' || *p == '.') {
+            char *end;
+            v[n] = strtod(p, &end);
+            snprintf(tok[n], 40, "%.*s", (int)(end - p), p);
+            n++;
+            p = end;
+        } else {
+            p++;
+        }
+    }
+    return n;
+}
+
+/* Path data in the HTML carry hundredths of a point: every number within
+ * half a hundredth of what cairo wrote (fig_svg_string, unrounded), with at
+ * most two decimals, no trailing zero, no "-0"; exact ties go to even as C's
+ * printf("%.2f") rounds them (C17 7.21.6.1, with IEEE 754 round to nearest
+ * even: common practice of glibc), checked against snprintf here. */
+START_TEST(path_data_rounded_to_hundredths)
+{
+    char *raw = NULL;
+    size_t len = 0;
+    sl_error err;
+    ck_assert_int_eq(fig_svg_string(200, 200, draw_coords, NULL, &raw, &len, &err), SL_OK);
+    const char *rp = strstr(raw, "<path style=\"fill:none");
+    ck_assert_ptr_nonnull(rp);
+    const char *rd = strstr(rp, " d=\"");
+    ck_assert_ptr_nonnull(rd);
+    hdoc h;
+    ck_assert(hdoc_new(&h, "t", ""));
+    xmlNodePtr fig = fig_svg_into(&h, h.body, 200, 200, draw_coords, NULL);
+    ck_assert_ptr_nonnull(fig);
+    xmlNodePtr path = stroked_path(fig->children);
+    ck_assert_ptr_nonnull(path);
+    xmlChar *d = xmlGetProp(path, BAD_CAST "d");
+    double a[32], b[32];
+    char ta[32][40], tb[32][40];
+    size_t na = path_numbers(rd + 4, a, 32, ta), nb = path_numbers((const char *)d, b, 32, tb);
+    ck_assert_uint_eq(na, 12);
+    ck_assert_uint_eq(nb, na);
+    for (size_t i = 0; i < na; i++) {
+        ck_assert_msg(fabs(b[i] - a[i]) <= 0.005 + 1e-9, "%s -> %s", ta[i], tb[i]);
+        const char *dot = strchr(tb[i], '.');
+        ck_assert(!dot || strlen(dot + 1) <= 2);
+        ck_assert(!dot || tb[i][strlen(tb[i]) - 1] != '0');
+        ck_assert_str_ne(tb[i], "-0");
+        /* where the raw text is the binary value exactly, as printf rounds it */
+        char want[48];
+        snprintf(want, sizeof want, "%.2f", a[i]);
+        char *e = want + strlen(want) - 1;
+        while (*e == '0')
+            *e-- = '\0';
+        if (*e == '.')
+            *e = '\0';
+        if (strcmp(want, "-0") == 0)
+            strcpy(want, "0");
+        double back = strtod(ta[i], NULL);
+        if (back == a[i] && (strcmp(ta[i], "10.125") == 0 || strcmp(ta[i], "20.375") == 0 ||
+                             strcmp(ta[i], "0.625") == 0 || strcmp(ta[i], "99.999") == 0))
+            ck_assert_str_eq(tb[i], want);
+    }
+    /* the cases named above, as written */
+    char *all = (char *)d;
+    ck_assert_ptr_nonnull(strstr(all, "10.12 20.38"));
+    ck_assert_ptr_nonnull(strstr(all, "0.62 100"));
+    xmlFree(d);
+    free(raw);
+    hdoc_free(&h);
+}
+END_TEST
+
 /* Last: the font libraries' caches released, as the tool does at its end,
  * so that the leak checkers of the sanitizer build see only real leaks. */
 START_TEST(caches_released)
@@ -206,6 +316,7 @@ static Suite *figure_suite(void)
     tcase_add_test(tc, numbers_have_no_exponent);
     tcase_add_test(tc, svg_string_parses);
     tcase_add_test(tc, two_figures_get_their_own_ids);
+    tcase_add_test(tc, path_data_rounded_to_hundredths);
     tcase_add_test(tc, caches_released);
     suite_add_tcase(s, tc);
     return s;

@@ -2,7 +2,8 @@
  * Unit tests of the batch modules: the UID grammar (DICOM PS3.5 section 9.1),
  * AE titles (PS3.5 section 6.2, AE value representation), name
  * sanitising, the screening log (SQLite: concurrent writers, stale
- * queries, schema version) and the per-patient facts file.
+ * queries, schema version), the per-patient facts file, and which RT Doses
+ * of a folder go with which plan.
  */
 #include <math.h>
 #include <pthread.h>
@@ -247,6 +248,92 @@ START_TEST(facts_file)
 }
 END_TEST
 
+/* One file of a folder as the header reader would describe it. */
+static sl_scan_file head_file(const char *path, sl_head_kind kind, const char *uid,
+                              const char *frame, const char *ref, const char *summation)
+{
+    sl_scan_file f = {0};
+    f.path = (char *)path;
+    f.ok = true;
+    f.head.kind = kind;
+    snprintf(f.head.sop_instance_uid, sizeof f.head.sop_instance_uid, "%s", uid);
+    snprintf(f.head.frame_uid, sizeof f.head.frame_uid, "%s", frame);
+    if (kind == SL_HEAD_RTPLAN) {
+        snprintf(f.head.structure_set_uid, sizeof f.head.structure_set_uid, "%s", ref);
+        f.head.nbeams = f.head.electron_beams = 1;
+    } else if (kind == SL_HEAD_RTDOSE) {
+        snprintf(f.head.plan_ref_uid, sizeof f.head.plan_ref_uid, "%s", ref);
+        snprintf(f.head.summation, sizeof f.head.summation, "%s", summation);
+    }
+    return f;
+}
+
+static const sl_batch_entry *entry_of(const sl_batch_entry *e, size_t n, const char *path)
+{
+    for (size_t i = 0; i < n; i++)
+        if (e[i].plan_path && strcmp(e[i].plan_path, path) == 0)
+            return &e[i];
+    return NULL;
+}
+
+/* Which RT Doses of a folder go with a plan (scan.h): the Referenced RT Plan
+ * and the Frame of Reference must both be the plan's (DICOM PS3.3 C.7.4.1,
+ * C.8.8.3); one PLAN dose, else every BEAM dose; two PLAN doses, another
+ * frame or another summation type are refused with the reason; a dose of a
+ * plan not in the folder is listed, not used. */
+START_TEST(rt_doses_go_with_their_plans)
+{
+    sl_scan_file files[] = {
+        /* plan 1: one PLAN dose, one BEAM dose beside it, one of another frame */
+        head_file("p1.dcm", SL_HEAD_RTPLAN, "1.1", "9.1", "2.1", NULL),
+        head_file("s1.dcm", SL_HEAD_RTSTRUCT, "2.1", "9.1", "", NULL),
+        head_file("d1a.dcm", SL_HEAD_RTDOSE, "3.1", "9.1", "1.1", "PLAN"),
+        head_file("d1b.dcm", SL_HEAD_RTDOSE, "3.2", "9.1", "1.1", "BEAM"),
+        head_file("d1c.dcm", SL_HEAD_RTDOSE, "3.3", "9.9", "1.1", "PLAN"),
+        /* plan 2: two BEAM doses, both used */
+        head_file("p2.dcm", SL_HEAD_RTPLAN, "1.2", "9.2", "2.2", NULL),
+        head_file("s2.dcm", SL_HEAD_RTSTRUCT, "2.2", "9.2", "", NULL),
+        head_file("d2a.dcm", SL_HEAD_RTDOSE, "3.4", "9.2", "1.2", "BEAM"),
+        head_file("d2b.dcm", SL_HEAD_RTDOSE, "3.5", "9.2", "1.2", "BEAM"),
+        /* plan 3: two PLAN doses, neither used; and a FRACTION dose */
+        head_file("p3.dcm", SL_HEAD_RTPLAN, "1.3", "9.3", "2.3", NULL),
+        head_file("s3.dcm", SL_HEAD_RTSTRUCT, "2.3", "9.3", "", NULL),
+        head_file("d3a.dcm", SL_HEAD_RTDOSE, "3.6", "9.3", "1.3", "PLAN"),
+        head_file("d3b.dcm", SL_HEAD_RTDOSE, "3.7", "9.3", "1.3", "PLAN"),
+        head_file("d3c.dcm", SL_HEAD_RTDOSE, "3.8", "9.3", "1.3", "FRACTION"),
+        /* a dose of a plan that is not here */
+        head_file("d4.dcm", SL_HEAD_RTDOSE, "3.9", "9.4", "1.4", "PLAN"),
+    };
+    sl_scan_files f = {sizeof files / sizeof *files, files, 0, {0}};
+    sl_batch_entry *e = NULL;
+    size_t n = 0;
+    sl_error err = {0};
+    ck_assert_int_eq(sl_scan_pair(&f, &e, &n, &err), SL_OK);
+    ck_assert_uint_eq(n, 4); /* three plans and the lone dose */
+    const sl_batch_entry *p1 = entry_of(e, n, "p1.dcm"), *p2 = entry_of(e, n, "p2.dcm"),
+                         *p3 = entry_of(e, n, "p3.dcm"), *d4 = entry_of(e, n, "d4.dcm");
+    ck_assert_ptr_nonnull(p1);
+    ck_assert_uint_eq(p1->ntps, 1);
+    ck_assert_str_eq(p1->tps_paths[0], "d1a.dcm");
+    ck_assert_ptr_nonnull(strstr(p1->tps_note, "d1c.dcm refused"));
+    ck_assert_ptr_nonnull(strstr(p1->tps_note, "Frame of Reference"));
+    ck_assert_ptr_nonnull(strstr(p1->tps_note, "d1b.dcm (BEAM) not used"));
+    ck_assert_ptr_nonnull(p2);
+    ck_assert_uint_eq(p2->ntps, 2);
+    ck_assert_ptr_null(p2->tps_note);
+    ck_assert_ptr_nonnull(p3);
+    ck_assert_uint_eq(p3->ntps, 0);
+    ck_assert_ptr_nonnull(strstr(p3->tps_note, "2 RT Doses of summation PLAN"));
+    ck_assert_ptr_nonnull(strstr(p3->tps_note, "'FRACTION'"));
+    ck_assert_ptr_nonnull(d4);
+    ck_assert_int_eq(d4->outcome, SL_OUT_IGNORED);
+    ck_assert_ptr_nonnull(strstr(d4->message, "not in the folder"));
+    for (size_t i = 0; i < n; i++)
+        sl_batch_entry_clear(&e[i]);
+    free(e);
+}
+END_TEST
+
 static Suite *scan_suite(void)
 {
     Suite *s = suite_create("scan");
@@ -259,6 +346,7 @@ static Suite *scan_suite(void)
     tcase_add_test(tc, log_stale_is_the_latest_screening_of_each_plan);
     tcase_add_test(tc, log_refuses_what_is_not_a_log);
     tcase_add_test(tc, facts_file);
+    tcase_add_test(tc, rt_doses_go_with_their_plans);
     suite_add_tcase(s, tc);
     return s;
 }

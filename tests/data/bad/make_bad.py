@@ -443,6 +443,7 @@ def main():
     ss_case("ss_wrong_modality.dcm", lambda d: setattr(d, "Modality", "RTPLAN"),
             "contradicts the SOP Class (RT Structure Set)")
 
+    rtdose_cases()
     yaml_cases()
     facts_cases()
 
@@ -451,6 +452,167 @@ def main():
         for r in rows:
             f.write("%s\t%s\t%d\t%s\n" % r)
     print("%d bad inputs written" % len(rows))
+
+
+# ------------------------------------------------------------- RT Dose --
+
+RT_DOSE = "1.2.840.10008.5.1.4.1.1.481.2"
+
+
+def base_dose(summation="PLAN", beams=(1,)):
+    """An RT Dose of the good plan (DICOM PS3.3 A.18 RT Dose IOD, C.8.8.3 RT
+    Dose Module): an axial grid over the body box every 20 mm, 16-bit values
+    times Dose Grid Scaling, frames as offsets from Image Position (Patient).
+    The dose is invented (a smooth fall-off from the beam's axis), not a
+    planning system's."""
+    import numpy as np
+    from pydicom.dataset import Dataset, FileMetaDataset
+    plan = base_plan()
+    xs = np.arange(-140.0, 141.0, 20.0)
+    ys = np.arange(-100.0, 101.0, 20.0)
+    zs = np.arange(-140.0, 141.0, 20.0)
+    zz, yy, xx = np.meshgrid(zs, ys, xs, indexing="ij")
+    gy = 2.0 * np.exp(-(xx ** 2 + zz ** 2) / (2 * 60.0 ** 2))
+    scale = 1e-4
+    ds = Dataset()
+    ds.file_meta = FileMetaDataset()
+    ds.file_meta.MediaStorageSOPClassUID = RT_DOSE
+    ds.file_meta.MediaStorageSOPInstanceUID = rb.uid("bad", "dose", summation)
+    ds.SOPClassUID = RT_DOSE
+    ds.SOPInstanceUID = ds.file_meta.MediaStorageSOPInstanceUID
+    ds.StudyInstanceUID = plan.StudyInstanceUID
+    ds.SeriesInstanceUID = rb.uid("bad", "dose-series")
+    ds.Modality = "RTDOSE"
+    ds.PatientName = plan.PatientName
+    ds.PatientID = plan.PatientID
+    ds.FrameOfReferenceUID = plan.FrameOfReferenceUID
+    ds.ImagePositionPatient = [float(xs[0]), float(ys[0]), float(zs[0])]
+    ds.ImageOrientationPatient = [1, 0, 0, 0, 1, 0]
+    ds.SamplesPerPixel = 1
+    ds.PhotometricInterpretation = "MONOCHROME2"
+    ds.NumberOfFrames = len(zs)
+    ds.FrameIncrementPointer = 0x3004000C
+    ds.Rows = len(ys)
+    ds.Columns = len(xs)
+    ds.PixelSpacing = [20.0, 20.0]
+    ds.BitsAllocated = 16
+    ds.BitsStored = 16
+    ds.HighBit = 15
+    ds.PixelRepresentation = 0
+    ds.DoseUnits = "GY"
+    ds.DoseType = "PHYSICAL"
+    ds.DoseSummationType = summation
+    ds.DoseComment = "INVENTED DEMO DATA - NOT FOR CLINICAL USE"
+    ds.GridFrameOffsetVector = [float(z - zs[0]) for z in zs]
+    ds.DoseGridScaling = scale
+    ref = Dataset()
+    ref.ReferencedSOPClassUID = rb.RT_PLAN
+    ref.ReferencedSOPInstanceUID = plan.SOPInstanceUID
+    if summation == "BEAM":
+        fg = Dataset()
+        fg.ReferencedFractionGroupNumber = 1
+        items = []
+        for b in beams:
+            it = Dataset()
+            it.ReferencedBeamNumber = b
+            items.append(it)
+        fg.ReferencedBeamSequence = Sequence(items)
+        ref.ReferencedFractionGroupSequence = Sequence([fg])
+    ds.ReferencedRTPlanSequence = Sequence([ref])
+    ds.PixelData = np.rint(gy / scale).astype("<u2").tobytes()
+    return ds
+
+
+def rtdose_cases():
+    """The planning system's dose (estimate --tps-dose): each broken RT Dose
+    gives one line naming the file and the element, exit 3."""
+    args = "estimate {plan} {ss} --model {model} --tps-dose {f}"
+    good = base_dose()
+    rb.save(good, os.path.join(HERE, "good_rtdose.dcm"))
+    good_bytes = open(os.path.join(HERE, "good_rtdose.dcm"), "rb").read()
+
+    def dose_case(name, mutate, fragment, summation="PLAN", beams=(1,)):
+        ds = base_dose(summation, beams)
+        mutate(ds)
+        save(name, ds, args, 3, fragment)
+
+    # the pixel data cut short: by the file's end, or a whole but short element
+    raw("rtdose_truncated_pixel_data.dcm", good_bytes[:-1001], args, 3,
+        "not a readable DICOM file, or cut short")
+    dose_case("rtdose_short_pixel_data.dcm",
+              lambda d: setattr(d, "PixelData", d.PixelData[:len(d.PixelData) // 2]),
+              "holds fewer values than Rows x Columns x Number of Frames")
+    dose_case("rtdose_missing_scaling.dcm", lambda d: delete(d, "DoseGridScaling"),
+              "DoseGridScaling (3004,000E): missing or not one positive number")
+    dose_case("rtdose_zero_scaling.dcm", lambda d: raw_ds(d, "DoseGridScaling", "0"),
+              "DoseGridScaling (3004,000E): missing or not one positive number")
+    dose_case("rtdose_scaling_decimal_comma.dcm",
+              lambda d: raw_ds(d, "DoseGridScaling", "1,0E-4"),
+              "DoseGridScaling (3004,000E): value 1 '1,0E-4' is not a decimal string")
+    dose_case("rtdose_other_frame.dcm",
+              lambda d: setattr(d, "FrameOfReferenceUID", rb.uid("bad", "other-frame")),
+              "FrameOfReferenceUID (0020,0052)")
+    dose_case("rtdose_missing_frame.dcm", lambda d: delete(d, "FrameOfReferenceUID"),
+              "FrameOfReferenceUID (0020,0052): missing or empty")
+    dose_case("rtdose_other_plan.dcm",
+              lambda d: setattr(d.ReferencedRTPlanSequence[0], "ReferencedSOPInstanceUID",
+                                rb.uid("bad", "other-plan")),
+              "the dose was computed for another plan")
+    dose_case("rtdose_no_plan_reference.dcm", lambda d: delete(d, "ReferencedRTPlanSequence"),
+              "ReferencedRTPlanSequence (300C,0002): must hold exactly one item")
+
+    # Grid Frame Offset Vector (PS3.3 C.8.8.3.2): frames strictly in order,
+    # one offset a frame, relative (first 0) or absolute (first = z of the
+    # position). Uneven but ordered offsets are legal and read as they are.
+    def offsets(d, values):
+        d.GridFrameOffsetVector = values
+    n = 15
+    ordered = [20.0 * k for k in range(n)]
+    swapped = ordered[:]
+    swapped[5], swapped[6] = swapped[6], swapped[5]
+    dose_case("rtdose_frames_out_of_order.dcm", lambda d: offsets(d, swapped),
+              "GridFrameOffsetVector (3004,000C): the frames are not strictly in order")
+    repeated = ordered[:]
+    repeated[7] = repeated[6]
+    dose_case("rtdose_frames_repeated.dcm", lambda d: offsets(d, repeated),
+              "GridFrameOffsetVector (3004,000C): the frames are not strictly in order")
+    dose_case("rtdose_offsets_too_few.dcm", lambda d: offsets(d, ordered[:-1]),
+              "GridFrameOffsetVector (3004,000C): has 14 offsets for 15 frames")
+    dose_case("rtdose_offsets_neither.dcm", lambda d: offsets(d, [5.0 + v for v in ordered]),
+              "GridFrameOffsetVector (3004,000C): neither relative")
+    dose_case("rtdose_offsets_missing.dcm", lambda d: delete(d, "GridFrameOffsetVector"),
+              "GridFrameOffsetVector (3004,000C): has 0 offsets for 15 frames")
+
+    dose_case("rtdose_relative_units.dcm", lambda d: setattr(d, "DoseUnits", "RELATIVE"),
+              "DoseUnits (3004,0002): 'RELATIVE': only absolute dose (GY)")
+    dose_case("rtdose_effective_dose.dcm", lambda d: setattr(d, "DoseType", "EFFECTIVE"),
+              "DoseType (3004,0004): 'EFFECTIVE': only PHYSICAL dose is read")
+    dose_case("rtdose_fraction_summation.dcm",
+              lambda d: setattr(d, "DoseSummationType", "FRACTION"),
+              "DoseSummationType (3004,000A): 'FRACTION': only PLAN and BEAM")
+    dose_case("rtdose_beam_without_beams.dcm",
+              lambda d: delete(d.ReferencedRTPlanSequence[0], "ReferencedFractionGroupSequence"),
+              "a BEAM dose must name one fraction group and its beams", summation="BEAM")
+    dose_case("rtdose_beam_not_in_plan.dcm", lambda d: None,
+              "ReferencedBeamNumber (300C,0006) 7 is not a beam of", summation="BEAM",
+              beams=(7,))
+    dose_case("rtdose_oblique.dcm",
+              lambda d: setattr(d, "ImageOrientationPatient", [1, 0, 0, 0, 0, -1]),
+              "ImageOrientationPatient (0020,0037): only axial grids")
+    dose_case("rtdose_pixel_spacing_one_value.dcm",
+              lambda d: raw_ds(d, "PixelSpacing", "20"),
+              "PixelSpacing (0028,0030): expected two positive spacings")
+    dose_case("rtdose_bits_8.dcm", lambda d: setattr(d, "BitsAllocated", 8),
+              "BitsAllocated (0028,0100): 8 is outside 16..32")
+    dose_case("rtdose_high_bit.dcm", lambda d: setattr(d, "HighBit", 14),
+              "HighBit (0028,0102): must be Bits Stored - 1")
+    def huge(d):
+        d.Rows = 65535
+        d.Columns = 65535
+        d.NumberOfFrames = 1000
+    dose_case("rtdose_huge_grid.dcm", huge, "voxels is larger than strayline reads")
+    # a file of another kind given as the dose
+    save("rtdose_is_a_plan.dcm", base_plan(), args, 3, "is not RT Dose Storage")
 
 
 # ------------------------------------------------------------ YAML / CSV --
