@@ -200,7 +200,7 @@ typedef struct sl_invivo_proposal {
     double *old_rel, *new_rel;          /* per band of the model's transfer uncertainty */
     size_t *n;                          /* readings in each band */
     double *rms;                        /* root mean square log ratio in each band */
-    double *u_other;                    /* RMS of the other components (reading, model) */
+    double *u_other;                    /* RMS of the readings' own relative uncertainties */
     double *upper;                      /* 95 % upper bound of the spread (chi-square, n dof) */
     size_t nreadings;
     char *first_date, *last_date;
@@ -209,7 +209,8 @@ typedef struct sl_invivo_proposal {
 /* The new transfer bands for model m's machine from the readings: in each
  * band with at least SL_INVIVO_MIN_BAND readings, the 95 % upper bound of
  * the RMS log ratio about 0 (chi-square on n degrees of freedom), less the
- * other components in quadrature; fewer readings keep the model's value. */
+ * readings' own uncertainties in quadrature (the model's other components
+ * stay in: the value errs high); fewer readings keep the model's value. */
 sl_status sl_invivo_propose(const sl_model *m, const sl_log_readings *r,
                             sl_invivo_proposal **out, sl_error *err);
 void sl_invivo_proposal_free(sl_invivo_proposal *p);

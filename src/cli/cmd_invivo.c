@@ -278,7 +278,8 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
         changed += p->n[b] >= SL_INVIVO_MIN_BAND;
     /* the evidence, in the bands' source, so that model show and every
      * estimate report repeat where the transfer uncertainty came from */
-    size_t cap = 4096 + 256 * p->nbands;
+    size_t cap = 4096 + 256 * p->nbands + strlen(log_path) + strlen(model_path) +
+                 strlen(model->model_version) + strlen(model->machine.transfer.source);
     source = malloc(cap);
     if (!source) {
         sl_error_set(&err, SL_ENOMEM, "out of memory");
@@ -289,9 +290,10 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
                      "in-vivo readings of the screening log %s: %zu readings of machine %s "
                      "measured %s to %s, compared with model %s (version %s); per band the 95 "
                      "%% upper bound (chi-square, n degrees of freedom) of the RMS log ratio "
-                     "(measured/estimated) about 0, less the reading's and the model's other "
-                     "components in quadrature; bands with fewer than %d readings keep the "
-                     "previous value (%s). Proposed by strayline invivo propose %s",
+                     "(measured/estimated) about 0, less the readings' own uncertainties in "
+                     "quadrature (the model's other components left in: errs high); bands with "
+                     "fewer than %d readings keep the previous value (%s). Proposed by "
+                     "strayline invivo propose %s",
                      log_path, p->nreadings, model->machine.name, p->first_date, p->last_date,
                      model_path, model->model_version, SL_INVIVO_MIN_BAND,
                      model->machine.transfer.source, sl_version());
@@ -305,8 +307,8 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
             snprintf(range, sizeof range, "%g to %g cm", lo, hi);
         if (p->n[b] >= SL_INVIVO_MIN_BAND)
             k += snprintf(source + k, cap - (size_t)k,
-                          "; %s: n = %zu, RMS log ratio %.3f, upper bound %.3f, other "
-                          "components %.3f, relative %.3f (was %.3f)",
+                          "; %s: n = %zu, RMS log ratio %.3f, upper bound %.3f, readings' "
+                          "own %.3f, relative %.3f (was %.3f)",
                           range, p->n[b], p->rms[b], p->upper[b], p->u_other[b], p->new_rel[b],
                           p->old_rel[b]);
         else

@@ -10,8 +10,10 @@
  * pooled per distance band of the model (the transfer uncertainty is a
  * machine's, by band): the spread of the log ratios about zero (so a bias
  * counts as spread unless a model is rescaled, which this does not do) at
- * its 95 % upper bound, less the other components of each comparison (the
- * reading's and the model's own) in quadrature. Bands with too few readings
+ * its 95 % upper bound, less the readings' own uncertainties in quadrature.
+ * The model's other components (fit, measurement, setup shift) are not
+ * taken out: they are part of the observed spread too, so the proposal
+ * counts them twice and errs high, never low. Bands with too few readings
  * keep the model's value: evidence replaces a default only where there is
  * evidence.
  */
@@ -243,11 +245,13 @@ sl_status sl_invivo_propose(const sl_model *m, const sl_log_readings *rs,
         size_t b = 0;
         while (b + 1 < nb && !(r->distance_cm < t->bands[b].below_cm))
             b++;
-        double ut = r->u_transfer_cgy / r->estimate_cgy;
-        double o2 = r->u_log_ratio * r->u_log_ratio - ut * ut;
+        /* only the reading's own uncertainty is taken out: the model's
+         * other components (fit, measurement, setup shift) stay in, so the
+         * proposal errs high rather than credit them with transfer error */
+        double o = r->u_measured_cgy / r->measured_cgy;
         p->n[b]++;
         sum2[b] += r->log_ratio * r->log_ratio;
-        other2[b] += o2 > 0 ? o2 : 0;
+        other2[b] += o * o;
         p->nreadings++;
         if (!p->first_date || strcmp(r->date, p->first_date) < 0) {
             free(p->first_date);
