@@ -130,10 +130,10 @@ static int cmd_add(int argc, char **argv, const char *readings_path, const char 
         }
         sl_status st = sl_invivo_estimate(rd, model, levels, levels_path, &res[i], &err);
         if (st != SL_OK) {
-            rc = st == SL_EUSAGE ? (sl_cli_error("%s: line %d: %s", readings_path, rd->line,
-                                                 err.msg),
-                                    SL_EXIT_INPUT)
-                                 : sl_cli_fail(&err);
+            /* name the readings file and the reading's line as well as
+             * the DICOM file and element the estimate found wrong */
+            sl_cli_error("%s: line %d: %s", readings_path, rd->line, err.msg);
+            rc = st == SL_EUSAGE ? SL_EXIT_INPUT : sl_cli_exit_code(st);
             goto done;
         }
         nres = i + 1;
