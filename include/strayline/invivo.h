@@ -189,6 +189,12 @@ typedef struct sl_invivo_report {
     const sl_model *model;              /* may be NULL */
 } sl_invivo_report;
 sl_status sl_report_invivo(FILE *fp, sl_format fmt, const sl_invivo_report *r, sl_error *err);
+/* The same with its plot (measured / estimated against distance), as HTML
+ * (libxml2, inline SVG) or PDF bytes (caller frees *pdf); paper "a4" or
+ * "letter" (src/report/invivo_html.c). */
+sl_status sl_report_invivo_html(FILE *fp, const sl_invivo_report *r, sl_error *err);
+sl_status sl_report_invivo_pdf(const sl_invivo_report *r, const char *paper,
+                               unsigned char **pdf, size_t *len, sl_error *err);
 
 /* ---------------------------------------------------------- propose -- */
 

@@ -26,7 +26,7 @@
 static const char help[] =
     "usage: strayline invivo add READINGS.yaml --model MODEL.yaml [--log FILE]\n"
     "       strayline invivo report [--log FILE] [--model MODEL.yaml] [--format text|json]\n"
-    "                               [-o FILE]\n"
+    "                               [-o FILE] [--html FILE] [--pdf FILE] [--paper a4|letter]\n"
     "       strayline invivo propose --model MODEL.yaml -o NEW.yaml [--log FILE]\n"
     "                               [--version-label LABEL]\n\n"
     "add: for each reading of READINGS.yaml (format in README.md), estimate the dose at\n"
@@ -45,13 +45,16 @@ static const char help[] =
     "  -l, --levels FILE       action levels (default: action-levels.yaml beside the model)\n"
     "  -L, --log FILE          the screening log (default: screening.sqlite here)\n"
     "  -f, --format FMT        report: text (default) or json\n"
-    "  -o, --output FILE       report: write to FILE (default: standard output);\n"
+    "      --html FILE         report: also as HTML with its plot (measured/estimated\n"
+    "                          against distance); --pdf FILE as PDF (--paper a4|letter)\n"
+    "  -o, --output FILE       report: write to FILE (default: standard output, unless\n"
+    "                          only --html or --pdf is given);\n"
     "                          propose: the new model file (required)\n"
     "      --version-label L   propose: the new model_version (default: the old one\n"
     "                          with '+invivo-' and the date of the last reading)\n"
     "  -h, --help              this help\n";
 
-enum { OPT_VERSION = 256 };
+enum { OPT_VERSION = 256, OPT_HTML, OPT_PDF, OPT_PAPER };
 
 static void print_result(const sl_invivo_result *r)
 {
@@ -203,9 +206,14 @@ done:
     return rc;
 }
 
+typedef struct report_outputs {
+    const char *output, *html, *pdf, *paper;
+} report_outputs;
+
 static int cmd_report(const char *model_path, const char *log_path, sl_format fmt,
-                      const char *output)
+                      const report_outputs *o)
 {
+    const char *output = o->output;
     sl_error err = {0};
     sl_model *model = NULL;
     sl_screenlog *log = NULL;
@@ -225,7 +233,35 @@ static int cmd_report(const char *model_path, const char *log_path, sl_format fm
         goto done;
     }
     sl_invivo_report rep = {log_path, rs, stats, model};
-    if (sl_cli_output_open(&out, output ? output : "-", inputs, model_path ? 2 : 1, &err) !=
+    size_t ninputs = model_path ? 2 : 1;
+    if (o->html && (sl_cli_output_open(&out, o->html, inputs, ninputs, &err) != SL_OK ||
+                    sl_report_invivo_html(out.fp, &rep, &err) != SL_OK ||
+                    sl_cli_output_commit(&out, &err) != SL_OK)) {
+        sl_cli_output_abort(&out);
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    memset(&out, 0, sizeof out);
+    if (o->pdf) {
+        unsigned char *pdf = NULL;
+        size_t npdf = 0;
+        sl_status st = sl_report_invivo_pdf(&rep, o->paper, &pdf, &npdf, &err);
+        if (st == SL_OK && (st = sl_cli_output_open(&out, o->pdf, inputs, ninputs, &err)) == SL_OK) {
+            if (fwrite(pdf, 1, npdf, out.fp) != npdf)
+                st = sl_error_set(&err, SL_EIO, "%s: cannot write", o->pdf);
+            st = st == SL_OK ? sl_cli_output_commit(&out, &err) : st;
+        }
+        free(pdf);
+        if (st != SL_OK) {
+            sl_cli_output_abort(&out);
+            rc = sl_cli_fail(&err);
+            goto done;
+        }
+        memset(&out, 0, sizeof out);
+    }
+    if ((o->html || o->pdf) && !output)
+        goto done;
+    if (sl_cli_output_open(&out, output ? output : "-", inputs, ninputs, &err) !=
             SL_OK ||
         sl_report_invivo(out.fp, fmt, &rep, &err) != SL_OK ||
         sl_cli_output_commit(&out, &err) != SL_OK) {
@@ -382,11 +418,14 @@ int sl_cmd_invivo(int argc, char **argv)
         {"log", required_argument, NULL, 'L'},    {"format", required_argument, NULL, 'f'},
         {"output", required_argument, NULL, 'o'}, {"help", no_argument, NULL, 'h'},
         {"version-label", required_argument, NULL, OPT_VERSION},
+        {"html", required_argument, NULL, OPT_HTML},
+        {"pdf", required_argument, NULL, OPT_PDF},
+        {"paper", required_argument, NULL, OPT_PAPER},
         {NULL, 0, NULL, 0},
     };
     static const char shortopts[] = "m:l:L:f:o:h";
     const char *model_path = NULL, *levels_path = NULL, *log_path = "screening.sqlite",
-               *output = NULL, *label = NULL;
+               *output = NULL, *label = NULL, *html = NULL, *pdf = NULL, *paper = "a4";
     bool fmt_given = false;
     sl_format fmt = SL_FORMAT_TEXT;
     int c;
@@ -411,6 +450,13 @@ int sl_cmd_invivo(int argc, char **argv)
                 return sl_cli_usage("invivo", "--version-label needs a label");
             label = optarg;
             break;
+        case OPT_HTML: html = optarg; break;
+        case OPT_PDF: pdf = optarg; break;
+        case OPT_PAPER:
+            if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
+                return sl_cli_usage("invivo", "--paper needs a4 or letter, not '%s'", optarg);
+            paper = optarg;
+            break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
         default: return sl_cli_bad_option(argv, opts, shortopts);
         }
@@ -421,8 +467,9 @@ int sl_cmd_invivo(int argc, char **argv)
             return sl_cli_usage("invivo", "add needs one readings file");
         if (!model_path)
             return sl_cli_usage("invivo", "add needs --model MODEL.yaml");
-        if (output || fmt_given || label)
-            return sl_cli_usage("invivo", "add takes no --output, --format or --version-label");
+        if (output || fmt_given || label || html || pdf)
+            return sl_cli_usage("invivo", "add takes no --output, --format, --version-label, "
+                                          "--html or --pdf");
         return cmd_add(argc, argv, argv[optind], model_path, levels_path, log_path);
     }
     if (nargs != 0)
@@ -430,10 +477,17 @@ int sl_cmd_invivo(int argc, char **argv)
                             subs[sub]);
     if (levels_path)
         return sl_cli_usage("invivo", "%s takes no --levels", subs[sub]);
+    if (sub != 1 && (html || pdf))
+        return sl_cli_usage("invivo", "--html and --pdf belong to report");
     if (sub == 1) {
         if (label)
             return sl_cli_usage("invivo", "report takes no --version-label");
-        return cmd_report(model_path, log_path, fmt, output);
+        int to_stdout = (output && strcmp(output, "-") == 0) + (html && strcmp(html, "-") == 0) +
+                        (pdf && strcmp(pdf, "-") == 0);
+        if (to_stdout > 1)
+            return sl_cli_usage("invivo", "only one report can go to standard output");
+        report_outputs ro = {output, html, pdf, paper};
+        return cmd_report(model_path, log_path, fmt, &ro);
     }
     if (!model_path || !output)
         return sl_cli_usage("invivo", "propose needs --model MODEL.yaml and -o NEW.yaml");

@@ -123,7 +123,8 @@ static sl_status json(FILE *fp, const sl_invivo_report *r, sl_error *err)
         jw_str(&w, o, "energy_mev", g->energy);
         jw_str(&w, o, "applicator", g->applicator);
         jw_num(&w, o, "band_from_cm", g->band_lo_cm);
-        jw_num_opt(&w, o, "band_below_cm", g->band_hi_cm);
+        /* the last band has no upper edge: null */
+        jw_num_opt(&w, o, "band_below_cm", isinf(g->band_hi_cm) ? NAN : g->band_hi_cm);
         jw_int(&w, o, "n", (long long)g->n);
         jw_num(&w, o, "mean_log_ratio", g->mean_log_ratio);
         jw_num(&w, o, "mean_ratio", exp(g->mean_log_ratio));

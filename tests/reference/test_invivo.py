@@ -18,7 +18,9 @@ import math
 import os
 import shutil
 import sqlite3
+import subprocess
 import unittest
+from html.parser import HTMLParser
 
 import numpy as np
 from scipy import stats
@@ -226,6 +228,29 @@ class Add(unittest.TestCase):
             rep = run_json("invivo", "report", "--log", log, "--model", MODEL, "-f", "json")
             self.assertEqual(rep["readings_count"], 11)
             self.assertIn("SCREENING", rep["caution"])
+            self.assertEqual(sum(g["n"] for g in rep["groups"]), 11)
+            # HTML (parsed with Python's html.parser) and PDF (poppler-utils'
+            # pdftotext and pdfinfo): the plot holds every reading
+            html, pdf = os.path.join(d, "r.html"), os.path.join(d, "r.pdf")
+            rc, out, err = run("invivo", "report", "--log", log, "--model", MODEL, "--html", html,
+                               "--pdf", pdf, "--paper", "letter")
+            self.assertEqual((rc, out), (0, ""), err)
+            counts = []
+
+            class P(HTMLParser):
+                def handle_starttag(self, tag, attrs):
+                    if tag == "svg":
+                        counts.append(dict(attrs).get("data-counts"))
+            with open(html) as fp:
+                P().feed(fp.read())
+            self.assertEqual(counts, ["points=11"])
+            text = subprocess.run(["pdftotext", "-layout", pdf, "-"], capture_output=True,
+                                  text=True, check=True).stdout
+            self.assertIn("SCREENING", text)
+            self.assertIn("FL-Lens_L", text)
+            info = subprocess.run(["pdfinfo", pdf], capture_output=True, text=True,
+                                  check=True).stdout
+            self.assertIn("612 x 792 pts", info)
 
 
 # The version 1 schema as README.md documented it before the readings table.
