@@ -21,6 +21,7 @@
 #include <stddef.h>
 #include <stdio.h>
 
+#include "strayline/dose.h"
 #include "strayline/error.h"
 #include "strayline/levels.h"
 #include "strayline/model.h"
@@ -97,6 +98,10 @@ typedef struct sl_invivo_result {
     double estimate_cgy;      /* per-fraction estimate x fractions measured */
     double u_estimate_cgy;    /* k = 1 */
     double u_transfer_cgy;    /* the transfer part of it */
+    sl_budget budget;         /* the estimate's budget at the point (cGy, k = 1): the
+                                 course budget at the sample nearest the field edge times
+                                 estimate / course dose there (exact for one fraction group,
+                                 a proportional share for several) */
     double log_ratio;         /* ln(measured / estimate) */
     double u_log_ratio;       /* combined relative uncertainties in quadrature */
     bool flagged;             /* |log ratio| > SL_INVIVO_K u */
@@ -124,6 +129,7 @@ typedef struct sl_log_reading {
     int fractions, planned_fractions;
     double reading_cgy, energy_correction, measured_cgy, u_measured_cgy;
     double estimate_cgy, u_estimate_cgy, u_transfer_cgy, log_ratio, u_log_ratio;
+    sl_budget budget;         /* as recorded (transfer_cgy equals u_transfer_cgy) */
     bool flagged;
     unsigned model_flags;
     char *check, *model_file, *model_version, *model_sha256;

@@ -237,9 +237,16 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
         out->model_flags = od->flags;
         out->estimate_cgy = fx->cgy * rd->fractions;
         out->u_estimate_cgy = fx->u_cgy * rd->fractions;
-        out->u_transfer_cgy =
-            sl_transfer_relative(&model->machine.transfer, od->min_distance_cm) *
-            out->estimate_cgy;
+        /* the budget at the point, scaled from the course to the fractions
+         * measured; its transfer part is what propose and report use */
+        double share = od->course_nearest.cgy > 0 ? out->estimate_cgy / od->course_nearest.cgy
+                                                  : NAN;
+        const sl_budget *cb = &od->course_nearest_budget;
+        out->budget = (sl_budget){cb->fit_cgy * share,           cb->measurement_cgy * share,
+                                  cb->interpolation_cgy * share, cb->extrapolation_cgy * share,
+                                  cb->standin_cgy * share,       cb->transfer_cgy * share,
+                                  cb->setup_cgy * share,         cb->combined_cgy * share};
+        out->u_transfer_cgy = out->budget.transfer_cgy;
         double corr = isnan(rd->energy_correction) ? 1.0 : rd->energy_correction;
         out->measured_cgy = rd->reading_cgy * corr;
         double urel = sqrt(rd->u_detector * rd->u_detector + rd->u_added * rd->u_added);

@@ -32,6 +32,8 @@ const char sl_invivo_schema_sql[] =
     " reading_cgy REAL NOT NULL, energy_correction REAL,"
     " measured_cgy REAL NOT NULL, u_measured_cgy REAL NOT NULL,"
     " estimate_cgy REAL NOT NULL, u_estimate_cgy REAL NOT NULL, u_transfer_cgy REAL NOT NULL,"
+    " u_fit_cgy REAL, u_measurement_cgy REAL, u_interpolation_cgy REAL,"
+    " u_extrapolation_cgy REAL, u_standin_cgy REAL, u_setup_cgy REAL,"
     " log_ratio REAL NOT NULL, u_log_ratio REAL NOT NULL,"
     " flagged INTEGER NOT NULL, model_flags INTEGER NOT NULL, checks TEXT,"
     " model_file TEXT, model_version TEXT, model_sha256 TEXT);"
@@ -129,9 +131,10 @@ sl_status sl_screenlog_add_reading(sl_screenlog *log, const sl_invivo_result *r,
         " detector, machine, energy, energy_mev, applicator, distance_cm, depth_cm, fractions,"
         " planned_fractions, reading_cgy, energy_correction, measured_cgy, u_measured_cgy,"
         " estimate_cgy, u_estimate_cgy, u_transfer_cgy, log_ratio, u_log_ratio, flagged,"
-        " model_flags, checks, model_file, model_version, model_sha256) VALUES"
-        " (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
-        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
+        " model_flags, checks, model_file, model_version, model_sha256, u_fit_cgy,"
+        " u_measurement_cgy, u_interpolation_cgy, u_extrapolation_cgy, u_standin_cgy,"
+        " u_setup_cgy) VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
+        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
     char pos[512];
     position_text(rd, pos, sizeof pos);
     sqlite3_stmt *s = NULL;
@@ -177,6 +180,11 @@ sl_status sl_screenlog_add_reading(sl_screenlog *log, const sl_invivo_result *r,
     sl_screenlog_bind_text(s, k++, model->source);
     sl_screenlog_bind_text(s, k++, model->model_version);
     sl_screenlog_bind_text(s, k++, model->sha256);
+    const double b[] = {r->budget.fit_cgy,           r->budget.measurement_cgy,
+                        r->budget.interpolation_cgy, r->budget.extrapolation_cgy,
+                        r->budget.standin_cgy,       r->budget.setup_cgy};
+    for (size_t i = 0; i < sizeof b / sizeof *b; i++)
+        sl_screenlog_bind_real(s, k++, b[i]);
     if (sqlite3_step(s) != SQLITE_DONE) {
         st = sl_screenlog_db_fail(log, err, "cannot record the reading");
         goto done;
@@ -214,14 +222,16 @@ sl_status sl_screenlog_readings(sl_screenlog *log, const char *machine, sl_log_r
     sl_log_readings *rs = calloc(1, sizeof *rs);
     if (!rs)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
-    char sql[1024];
+    char sql[2048];
     snprintf(sql, sizeof sql,
              "SELECT id, added_at, reading_id, readings_file, measured_on, patient_id, plan_uid,"
              " structure_set_uid, plan_label, screening_id, position, detector, machine, energy,"
              " energy_mev, applicator, distance_cm, depth_cm, fractions, planned_fractions,"
              " reading_cgy, energy_correction, measured_cgy, u_measured_cgy, estimate_cgy,"
              " u_estimate_cgy, u_transfer_cgy, log_ratio, u_log_ratio, flagged, model_flags,"
-             " checks, model_file, model_version, model_sha256 FROM invivo_reading%s ORDER BY id",
+             " checks, model_file, model_version, model_sha256, u_fit_cgy, u_measurement_cgy,"
+             " u_interpolation_cgy, u_extrapolation_cgy, u_standin_cgy, u_setup_cgy"
+             " FROM invivo_reading%s ORDER BY id",
              machine ? " WHERE machine = ?" : "");
     sqlite3_stmt *s = NULL;
     sl_status st = SL_OK;
@@ -279,6 +289,13 @@ sl_status sl_screenlog_readings(sl_screenlog *log, const char *machine, sl_log_r
         r->model_file = sl_screenlog_col_text(s, c++, &ok);
         r->model_version = sl_screenlog_col_text(s, c++, &ok);
         r->model_sha256 = sl_screenlog_col_text(s, c++, &ok);
+        double *bd[] = {&r->budget.fit_cgy,           &r->budget.measurement_cgy,
+                        &r->budget.interpolation_cgy, &r->budget.extrapolation_cgy,
+                        &r->budget.standin_cgy,       &r->budget.setup_cgy};
+        for (size_t i = 0; i < sizeof bd / sizeof *bd; i++)
+            *bd[i] = sl_screenlog_col_real(s, c++);
+        r->budget.transfer_cgy = r->u_transfer_cgy;
+        r->budget.combined_cgy = r->u_estimate_cgy;
         if (!ok) {
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
             goto done;

@@ -170,6 +170,17 @@ static sl_status json(FILE *fp, const sl_invivo_report *r, sl_error *err)
         jw_num(&w, o, "estimate_cgy", x->estimate_cgy);
         jw_num(&w, o, "u_estimate_cgy", x->u_estimate_cgy);
         jw_num(&w, o, "u_transfer_cgy", x->u_transfer_cgy);
+        /* the estimate's budget at the point (k = 1); null where not recorded */
+        json_object *b = json_object_new_object();
+        jw_num_opt(&w, b, "fit_cgy", x->budget.fit_cgy);
+        jw_num_opt(&w, b, "measurement_cgy", x->budget.measurement_cgy);
+        jw_num_opt(&w, b, "interpolation_cgy", x->budget.interpolation_cgy);
+        jw_num_opt(&w, b, "extrapolation_cgy", x->budget.extrapolation_cgy);
+        jw_num_opt(&w, b, "standin_cgy", x->budget.standin_cgy);
+        jw_num(&w, b, "transfer_cgy", x->budget.transfer_cgy);
+        jw_num_opt(&w, b, "setup_shift_cgy", x->budget.setup_cgy);
+        jw_num(&w, b, "combined_cgy", x->budget.combined_cgy);
+        jw_put(&w, o, "estimate_uncertainty_budget", b);
         jw_num(&w, o, "log_ratio", x->log_ratio);
         jw_num(&w, o, "u_log_ratio", x->u_log_ratio);
         jw_bool(&w, o, "flagged", x->flagged);

@@ -103,6 +103,13 @@ class Add(unittest.TestCase):
         self.assertAlmostEqual(a["u_log_ratio"], u, places=6)
         self.assertEqual(a["flagged"], int(abs(math.log(ratio)) > 2 * u))
         self.assertAlmostEqual(a["distance_cm"], dist, places=6)
+        # the budget at the point: transfer = the model's band (25 % below 5 cm in
+        # models/demo-e1.yaml) times the estimate (models/README.md), and the
+        # combined budget is the estimate's own u
+        self.assertLess(dist, 5)
+        self.assertAlmostEqual(a["u_transfer_cgy"], 0.25 * a["estimate_cgy"], places=6)
+        self.assertAlmostEqual(a["u_estimate_cgy"], u1, delta=1e-6 * u1)
+        self.assertAlmostEqual(b["u_setup_cgy"], 3 * a["u_setup_cgy"], places=6)
         self.assertEqual(a["energy_correction"], 0.85)
         self.assertEqual(a["machine"], "DEMO-E1")
         self.assertEqual(a["energy"], "9")
