@@ -151,6 +151,7 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
     if (!ok) {
         sl_plan_free(plan);
         sl_structure_set_free(ss);
+        sl_invivo_result_free(out);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     /* the fraction group */
@@ -174,6 +175,7 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
     if (st != SL_OK) {
         sl_plan_free(plan);
         sl_structure_set_free(ss);
+        sl_invivo_result_free(out);
         return st;
     }
 
@@ -197,12 +199,15 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
                           rd->ss_path, rd->roi, rd->id);
         sl_plan_free(plan);
         sl_structure_set_free(ss);
+        sl_invivo_result_free(out);
         return st;
     }
     sl_screen *scr = NULL;
     st = sl_screen_run(plan, ss, &req, &scr, err);
-    if (st != SL_OK)
+    if (st != SL_OK) {
+        sl_invivo_result_free(out);
         return st;
+    }
     const sl_estimate *e = scr->est;
     const sl_organ_dose *od = NULL;
     for (size_t i = 0; i < e->norgans; i++)
