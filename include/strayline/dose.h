@@ -196,6 +196,7 @@ typedef struct sl_organ_dose {
     double shield_transmission;   /* what-if transmission applied (1 for none) */
     bool near_edge;               /* min_distance_cm < SL_NEAR_EDGE_CM: marked, not judged */
     sl_budget course_max_budget;  /* the budget at the hottest sample, over the course */
+    sl_budget course_nearest_budget; /* the same at the sample nearest the field edge */
     double *course_cgy;           /* per sample, for dose-volume histograms */
     bool landmark;                /* geometry measured on the patient (--landmark): not in
                                      the location's organs (organ is SIZE_MAX) */

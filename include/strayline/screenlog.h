@@ -7,8 +7,10 @@
  * plans screened with the old one. The database runs in WAL mode with a busy
  * timeout, so several writers (listen's workers) and a reader (history) can
  * use it at once; every screening is written in one transaction. The schema
- * (documented in README.md) carries its version in PRAGMA user_version; a
- * database of another version is refused, never silently altered.
+ * (documented in README.md) carries its version in PRAGMA user_version.
+ * Version 2 added the in-vivo readings (strayline/invivo.h): a version 1 log
+ * is upgraded when opened (the new table added, nothing else touched); a
+ * database of any other version is refused, never silently altered.
  */
 #ifndef STRAYLINE_SCREENLOG_H
 #define STRAYLINE_SCREENLOG_H
@@ -25,7 +27,7 @@
 extern "C" {
 #endif
 
-#define SL_SCREENLOG_SCHEMA_VERSION 1
+#define SL_SCREENLOG_SCHEMA_VERSION 2
 
 typedef struct sl_screenlog sl_screenlog;
 

@@ -40,6 +40,7 @@ int sl_cmd_estimate(int argc, char **argv);
 int sl_cmd_film(int argc, char **argv);
 int sl_cmd_scan(int argc, char **argv);
 int sl_cmd_history(int argc, char **argv);
+int sl_cmd_invivo(int argc, char **argv);
 int sl_cmd_listen(int argc, char **argv);
 
 /* The command being run (set once by main before dispatch): every message

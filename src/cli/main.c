@@ -34,6 +34,7 @@ static const sl_command commands[] = {
     {"scan", "screen every electron plan of a folder; reports, summary and log", sl_cmd_scan},
     {"listen", "a DICOM node that screens the plans it receives", sl_cmd_listen},
     {"history", "list the screenings recorded in the screening log", sl_cmd_history},
+    {"invivo", "in-vivo readings against the estimate: add to the log, report, propose a model", sl_cmd_invivo},
 };
 
 static void usage(FILE *fp)

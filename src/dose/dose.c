@@ -751,8 +751,15 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         } else if (pass < 0) {
             od->max_sample = imax;
             sample_budget(e, o, imax, t, &od->course_max_budget);
-            od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
         }
+        if (pass < 0 && use[nearest]) {
+            memset(&od->course_nearest_budget, 0, sizeof od->course_nearest_budget);
+            od->course_nearest_budget.combined_cgy = uc[nearest];
+        } else if (pass < 0) {
+            sample_budget(e, o, nearest, t, &od->course_nearest_budget);
+        }
+        if (pass < 0 && !use[imax])
+            od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
     }
     free(dg);
     free(ug);
@@ -1045,6 +1052,7 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
     free(ug);
     set_stat(&od->course_max, od->course_cgy[0], uc);
     od->course_mean = od->course_nearmax = od->course_nearest = od->course_max;
+    od->course_nearest_budget = od->course_max_budget;
     od->electron_fraction = od->course_cgy[0] > 0 ? ec / od->course_cgy[0] : 0;
     od->estimated = true;
     return SL_OK;

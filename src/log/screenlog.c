@@ -16,17 +16,14 @@
 
 #include <sqlite3.h>
 
+#include "strayline/invivo.h"
 #include "strayline/screenlog.h"
 
 /* How long a writer waits for another (ms): listen's workers write one
  * short transaction each, so seconds are plenty. */
 #define BUSY_TIMEOUT_MS 15000
 
-struct sl_screenlog {
-    sqlite3 *db;
-    char *path;
-    pthread_mutex_t lock;
-};
+#include "screenlog_private.h"
 
 static const char schema_sql[] =
     "CREATE TABLE screening ("
@@ -55,7 +52,12 @@ static const char schema_sql[] =
     " level TEXT, level_gy REAL);"
     "CREATE INDEX flagged_organ_screening ON flagged_organ(screening_id);";
 
-static sl_status db_fail(sl_screenlog *log, sl_error *err, const char *what)
+/* Schema version 2 added the in-vivo readings (src/log/invivolog.c): a
+ * version 1 log gets the table when it is opened, in one transaction, and
+ * keeps every screening it had. */
+static sl_status migrate(sl_screenlog *log, int *v, sl_error *err);
+
+sl_status sl_screenlog_db_fail(sl_screenlog *log, sl_error *err, const char *what)
 {
     int code = sqlite3_errcode(log->db);
     sl_status st = code == SQLITE_NOTADB || code == SQLITE_CORRUPT ? SL_EINPUT : SL_EIO;
@@ -122,20 +124,22 @@ sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, s
             st = sl_error_set(err, SL_EINPUT, "%s: an empty database, not a screening log", path);
             goto fail;
         }
-        char sql[sizeof schema_sql + 128];
-        snprintf(sql, sizeof sql, "BEGIN IMMEDIATE;%sPRAGMA user_version=%d;COMMIT;", schema_sql,
-                 SL_SCREENLOG_SCHEMA_VERSION);
+        char sql[sizeof schema_sql + SL_INVIVO_SCHEMA_MAX + 128];
+        snprintf(sql, sizeof sql, "BEGIN IMMEDIATE;%s%sPRAGMA user_version=%d;COMMIT;", schema_sql,
+                 sl_invivo_schema_sql, SL_SCREENLOG_SCHEMA_VERSION);
         if (sqlite3_exec(log->db, sql, NULL, NULL, NULL) != SQLITE_OK) {
-            st = db_fail(log, err, "cannot create the schema");
+            st = sl_screenlog_db_fail(log, err, "cannot create the schema");
             sqlite3_exec(log->db, "ROLLBACK", NULL, NULL, NULL);
             goto fail;
         }
         /* another process may have created it at the same moment: re-read */
         if (user_version(log->db, &v) != SQLITE_OK) {
-            st = db_fail(log, err, "cannot read the schema version");
+            st = sl_screenlog_db_fail(log, err, "cannot read the schema version");
             goto fail;
         }
     }
+    if (v == 1 && (st = migrate(log, &v, err)) != SL_OK)
+        goto fail;
     if (v != SL_SCREENLOG_SCHEMA_VERSION) {
         st = sl_error_set(err, SL_EINPUT,
                           "%s: PRAGMA user_version: %d: not a strayline screening log of schema "
@@ -149,7 +153,7 @@ sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, s
      * power cut (the last commits may be lost) without a sync per screening */
     if (create && sqlite3_exec(log->db, "PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL",
                                NULL, NULL, NULL) != SQLITE_OK) {
-        st = db_fail(log, err, "cannot switch to WAL mode");
+        st = sl_screenlog_db_fail(log, err, "cannot switch to WAL mode");
         goto fail;
     }
     *out = log;
@@ -157,6 +161,31 @@ sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, s
 fail:
     sl_screenlog_close(log);
     return st;
+}
+
+static sl_status migrate(sl_screenlog *log, int *v, sl_error *err)
+{
+    if (sqlite3_exec(log->db, "BEGIN IMMEDIATE", NULL, NULL, NULL) != SQLITE_OK)
+        return sl_screenlog_db_fail(log, err, "cannot begin the schema upgrade");
+    /* another process may have upgraded it while this one waited */
+    if (user_version(log->db, v) != SQLITE_OK) {
+        sqlite3_exec(log->db, "ROLLBACK", NULL, NULL, NULL);
+        return sl_screenlog_db_fail(log, err, "cannot read the schema version");
+    }
+    if (*v != 1)
+        return sqlite3_exec(log->db, "COMMIT", NULL, NULL, NULL) == SQLITE_OK
+                   ? SL_OK
+                   : sl_screenlog_db_fail(log, err, "cannot end the schema upgrade");
+    char sql[SL_INVIVO_SCHEMA_MAX + 64];
+    snprintf(sql, sizeof sql, "%sPRAGMA user_version=%d;COMMIT;", sl_invivo_schema_sql,
+             SL_SCREENLOG_SCHEMA_VERSION);
+    if (sqlite3_exec(log->db, sql, NULL, NULL, NULL) != SQLITE_OK) {
+        sl_status st = sl_screenlog_db_fail(log, err, "cannot upgrade schema version 1 to 2");
+        sqlite3_exec(log->db, "ROLLBACK", NULL, NULL, NULL);
+        return st;
+    }
+    *v = SL_SCREENLOG_SCHEMA_VERSION;
+    return SL_OK;
 }
 
 void sl_screenlog_close(sl_screenlog *log)
@@ -169,7 +198,7 @@ void sl_screenlog_close(sl_screenlog *log)
     free(log);
 }
 
-static void bind_text(sqlite3_stmt *s, int i, const char *v)
+void sl_screenlog_bind_text(sqlite3_stmt *s, int i, const char *v)
 {
     if (v)
         sqlite3_bind_text(s, i, v, -1, SQLITE_TRANSIENT);
@@ -177,7 +206,7 @@ static void bind_text(sqlite3_stmt *s, int i, const char *v)
         sqlite3_bind_null(s, i);
 }
 
-static void bind_real(sqlite3_stmt *s, int i, double v)
+void sl_screenlog_bind_real(sqlite3_stmt *s, int i, double v)
 {
     if (isfinite(v))
         sqlite3_bind_double(s, i, v);
@@ -202,13 +231,13 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
     sqlite3_stmt *s = NULL, *so = NULL;
     pthread_mutex_lock(&log->lock);
     if (sqlite3_exec(log->db, "BEGIN IMMEDIATE", NULL, NULL, NULL) != SQLITE_OK) {
-        st = db_fail(log, err, "cannot begin a transaction");
+        st = sl_screenlog_db_fail(log, err, "cannot begin a transaction");
         pthread_mutex_unlock(&log->lock);
         return st;
     }
     if (sqlite3_prepare_v2(log->db, ins, -1, &s, NULL) != SQLITE_OK ||
         sqlite3_prepare_v2(log->db, ins_organ, -1, &so, NULL) != SQLITE_OK) {
-        st = db_fail(log, err, "cannot prepare a statement");
+        st = sl_screenlog_db_fail(log, err, "cannot prepare a statement");
         goto rollback;
     }
     const char *v[] = {e->command,       e->plan_uid,      e->structure_set_uid, e->patient_id,
@@ -217,14 +246,14 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
                        e->options,       e->outcome,       e->worst_status};
     int k = 1;
     for (size_t i = 0; i < sizeof v / sizeof *v; i++)
-        bind_text(s, k++, v[i]);
+        sl_screenlog_bind_text(s, k++, v[i]);
     sqlite3_bind_int(s, k++, e->flagged ? 1 : 0);
-    bind_text(s, k++, e->message);
-    bind_text(s, k++, e->report_json);
-    bind_text(s, k++, e->report_html);
-    bind_text(s, k++, e->report_pdf);
+    sl_screenlog_bind_text(s, k++, e->message);
+    sl_screenlog_bind_text(s, k++, e->report_json);
+    sl_screenlog_bind_text(s, k++, e->report_html);
+    sl_screenlog_bind_text(s, k++, e->report_pdf);
     if (sqlite3_step(s) != SQLITE_DONE) {
-        st = db_fail(log, err, "cannot record the screening");
+        st = sl_screenlog_db_fail(log, err, "cannot record the screening");
         goto rollback;
     }
     long long rowid = sqlite3_last_insert_rowid(log->db);
@@ -232,20 +261,20 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
         const sl_log_organ *o = &e->organs[i];
         sqlite3_reset(so);
         sqlite3_bind_int64(so, 1, rowid);
-        bind_text(so, 2, o->roi ? o->roi : "");
-        bind_text(so, 3, o->kind);
-        bind_text(so, 4, o->status ? o->status : "");
-        bind_real(so, 5, o->course_cgy);
-        bind_real(so, 6, o->upper_cgy);
-        bind_text(so, 7, o->level);
-        bind_real(so, 8, o->level_gy);
+        sl_screenlog_bind_text(so, 2, o->roi ? o->roi : "");
+        sl_screenlog_bind_text(so, 3, o->kind);
+        sl_screenlog_bind_text(so, 4, o->status ? o->status : "");
+        sl_screenlog_bind_real(so, 5, o->course_cgy);
+        sl_screenlog_bind_real(so, 6, o->upper_cgy);
+        sl_screenlog_bind_text(so, 7, o->level);
+        sl_screenlog_bind_real(so, 8, o->level_gy);
         if (sqlite3_step(so) != SQLITE_DONE) {
-            st = db_fail(log, err, "cannot record a flagged organ");
+            st = sl_screenlog_db_fail(log, err, "cannot record a flagged organ");
             goto rollback;
         }
     }
     if (sqlite3_exec(log->db, "COMMIT", NULL, NULL, NULL) != SQLITE_OK) {
-        st = db_fail(log, err, "cannot commit");
+        st = sl_screenlog_db_fail(log, err, "cannot commit");
         goto rollback;
     }
     sqlite3_finalize(s);
@@ -262,7 +291,7 @@ rollback:
     return st;
 }
 
-static char *col_text(sqlite3_stmt *s, int i, bool *ok)
+char *sl_screenlog_col_text(sqlite3_stmt *s, int i, bool *ok)
 {
     const unsigned char *t = sqlite3_column_text(s, i);
     if (!t)
@@ -273,7 +302,7 @@ static char *col_text(sqlite3_stmt *s, int i, bool *ok)
     return c;
 }
 
-static double col_real(sqlite3_stmt *s, int i)
+double sl_screenlog_col_real(sqlite3_stmt *s, int i)
 {
     return sqlite3_column_type(s, i) == SQLITE_NULL ? NAN : sqlite3_column_double(s, i);
 }
@@ -324,16 +353,16 @@ static sl_status load_organs(sl_screenlog *log, sqlite3_stmt *so, sl_history_row
             return sl_error_set(err, SL_ENOMEM, "out of memory");
         r->organs = g;
         g = &r->organs[r->norgans++];
-        g->roi = col_text(so, 0, &ok);
-        g->kind = col_text(so, 1, &ok);
-        g->status = col_text(so, 2, &ok);
-        g->course_cgy = col_real(so, 3);
-        g->upper_cgy = col_real(so, 4);
-        g->level = col_text(so, 5, &ok);
-        g->level_gy = col_real(so, 6);
+        g->roi = sl_screenlog_col_text(so, 0, &ok);
+        g->kind = sl_screenlog_col_text(so, 1, &ok);
+        g->status = sl_screenlog_col_text(so, 2, &ok);
+        g->course_cgy = sl_screenlog_col_real(so, 3);
+        g->upper_cgy = sl_screenlog_col_real(so, 4);
+        g->level = sl_screenlog_col_text(so, 5, &ok);
+        g->level_gy = sl_screenlog_col_real(so, 6);
     }
     if (rc != SQLITE_DONE)
-        return db_fail(log, err, "cannot read flagged organs");
+        return sl_screenlog_db_fail(log, err, "cannot read flagged organs");
     return ok ? SL_OK : sl_error_set(err, SL_ENOMEM, "out of memory");
 }
 
@@ -370,17 +399,17 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
                            "SELECT roi, kind, status, course_cgy, upper_cgy, level, level_gy"
                            " FROM flagged_organ WHERE screening_id = ? ORDER BY rowid",
                            -1, &so, NULL) != SQLITE_OK) {
-        st = db_fail(log, err, "cannot query");
+        st = sl_screenlog_db_fail(log, err, "cannot query");
         goto done;
     }
     if (q->stale_machine) {
-        bind_text(s, 1, q->stale_machine);
-        bind_text(s, 2, q->stale_sha256);
+        sl_screenlog_bind_text(s, 1, q->stale_machine);
+        sl_screenlog_bind_text(s, 2, q->stale_sha256);
     }
     if (q->patient_id)
-        bind_text(s, 3, q->patient_id);
+        sl_screenlog_bind_text(s, 3, q->patient_id);
     if (q->since)
-        bind_text(s, 4, q->since);
+        sl_screenlog_bind_text(s, 4, q->since);
     int rc;
     size_t cap = 0;
     while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
@@ -403,7 +432,7 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
                       &r->levels_sha256, &r->options,      &r->outcome,      &r->worst_status,
                       &r->message,      &r->report_json,   &r->report_html, &r->report_pdf};
         for (size_t i = 0; i < sizeof f / sizeof *f; i++)
-            *f[i] = col_text(s, (int)i + 1, &ok);
+            *f[i] = sl_screenlog_col_text(s, (int)i + 1, &ok);
         r->flagged = sqlite3_column_int(s, 21) != 0;
         if (!ok) {
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
@@ -413,7 +442,7 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
             goto done;
     }
     if (rc != SQLITE_DONE)
-        st = db_fail(log, err, "cannot read the screenings");
+        st = sl_screenlog_db_fail(log, err, "cannot read the screenings");
 done:
     sqlite3_finalize(s);
     sqlite3_finalize(so);

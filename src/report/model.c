@@ -65,6 +65,18 @@ static void text_show(FILE *fp, const sl_model *m)
             m->provenance.measurement_set, m->provenance.measurement_set_sha256,
             m->provenance.measured_date, m->provenance.measured_by, m->provenance.detector);
     fprintf(fp, "  doses are %s\n", m->provenance.reference);
+    /* where the transfer uncertainty came from: the defaults, a published
+     * stand-in, or the clinic's own in-vivo readings (invivo propose) */
+    fprintf(fp, "  transfer uncertainty (relative, k = 1, by distance from the field edge):");
+    for (size_t i = 0; i < mc->transfer.nbands; i++) {
+        if (isfinite(mc->transfer.bands[i].below_cm))
+            fprintf(fp, "%s below %g cm %.3f", i ? "," : "", mc->transfer.bands[i].below_cm,
+                    mc->transfer.bands[i].relative);
+        else
+            fprintf(fp, "%s beyond %.3f", i ? "," : "", mc->transfer.bands[i].relative);
+    }
+    fprintf(fp, "\n    from %s [%s]%s\n", mc->transfer.source, mc->transfer.mark,
+            mc->transfer.is_default ? " (built-in defaults: the model file states none)" : "");
     fprintf(fp, "  applicators:");
     for (size_t i = 0; i < mc->napplicators; i++)
         fprintf(fp, "%s %s (%s %g x %g cm)", i ? "," : "", mc->applicators[i].id,
@@ -192,6 +204,21 @@ static json_object *json_show(jw *w, const sl_model *m)
     jw_str(w, prov, "detector", m->provenance.detector);
     jw_str(w, prov, "reference", m->provenance.reference);
     jw_put(w, root, "provenance", prov);
+    json_object *tr = json_object_new_object();
+    jw_str(w, tr, "source", mc->transfer.source);
+    jw_str(w, tr, "mark", mc->transfer.mark);
+    jw_bool(w, tr, "built_in_defaults", mc->transfer.is_default);
+    json_object *bands = json_object_new_array();
+    for (size_t i = 0; i < mc->transfer.nbands; i++) {
+        json_object *b = json_object_new_object();
+        jw_num_opt(w, b, "below_cm", isfinite(mc->transfer.bands[i].below_cm)
+                                         ? mc->transfer.bands[i].below_cm
+                                         : NAN);
+        jw_num(w, b, "relative", mc->transfer.bands[i].relative);
+        jw_append(w, bands, b);
+    }
+    jw_put(w, tr, "bands", bands);
+    jw_put(w, root, "transfer_uncertainty", tr);
     json_object *apps = json_object_new_array();
     for (size_t i = 0; i < mc->napplicators; i++) {
         json_object *a = json_object_new_object();

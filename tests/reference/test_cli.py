@@ -30,7 +30,7 @@ PLAN = os.path.join(FACE, "rtplan.dcm")
 SS = os.path.join(FACE, "rtstruct.dcm")
 MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
 MEAS = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1", "measurements.yaml")
-COMMANDS = ["inspect", "locate", "fit", "model", "estimate"]
+COMMANDS = ["inspect", "locate", "fit", "model", "estimate", "invivo"]
 
 
 def run_stdin(data, *args):

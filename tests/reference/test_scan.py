@@ -182,7 +182,7 @@ class MixedFolder(unittest.TestCase):
         con = sqlite3.connect(os.path.join(self.out, "screening.sqlite"))
         try:
             # the schema version and WAL mode the README documents
-            self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 1)
+            self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 2)
             self.assertEqual(con.execute("PRAGMA journal_mode").fetchone()[0], "wal")
             organs = con.execute("SELECT count(*) FROM flagged_organ").fetchone()[0]
         finally:

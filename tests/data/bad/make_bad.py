@@ -446,6 +446,7 @@ def main():
     rtdose_cases()
     yaml_cases()
     facts_cases()
+    invivo_cases()
 
     with open(os.path.join(HERE, "cases.tsv"), "w") as f:
         f.write("# file\targuments\texit\tmessage fragment\n")
@@ -965,6 +966,54 @@ def facts_cases():
                scan, 3, "missing key 'kind'")
     raw("log_not_sqlite.txt", b"screening log? no, plain text.\n" * 40,
         "history --log {f}", 3, "not a screening log")
+
+
+def invivo_cases():
+    """In-vivo readings files (README.md, 'In-vivo readings'); the plan and
+    structure set named are the corpus's good pair, beside these files."""
+    add = "invivo add {f} --model {model} --log {tmp}/log.sqlite"
+    head = "format: strayline-invivo-readings\nformat_version: 1\nreadings:\n"
+
+    def one(**change):
+        r = {"id": "R1", "patient_id": "DEMO-BAD-00", "plan": "good_rtplan.dcm",
+             "structure_set": "good_rtstruct.dcm", "date": "2026-03-02",
+             "position": "{roi: Lens_L}", "fractions": "1", "detector": "OSL",
+             "reading_cgy": "1.5", "energy_correction": "0.85"}
+        r.update(change)
+        lines = ["  - id: %s" % r.pop("id")]
+        lines += ["    %s: %s" % (k, v) for k, v in r.items() if v is not None]
+        return "\n".join(lines) + "\n"
+
+    def case(name, body, fragment, code=3, args=add):
+        write_text(name, head + body, args, code, fragment)
+
+    write_text("invivo_wrong_format.yaml", "format: readings\nformat_version: 1\nreadings: []\n",
+               add, 3, "not a strayline readings file")
+    case("invivo_no_correction_key.yaml", one(energy_correction=None),
+         "missing key 'energy_correction'")
+    case("invivo_bad_detector.yaml", one(detector="chamber"), "detector 'chamber': TLD, OSL or diode")
+    case("invivo_diode_without_u.yaml", one(detector="diode"),
+         "a diode needs detector_uncertainty_percent")
+    case("invivo_two_positions.yaml", one(position="{roi: Lens_L, point_mm: [0, 0, 0]}"),
+         "give exactly one of roi")
+    case("invivo_zero_reading.yaml", one(reading_cgy="0"), "a reading of 0 cannot be compared")
+    case("invivo_bad_date.yaml", one(date="2026-13-01"), "needs YYYY-MM-DD")
+    case("invivo_correction_out_of_range.yaml", one(energy_correction="3"), "energy_correction")
+    case("invivo_duplicate_id.yaml", one() + one(), "the id is used twice")
+    case("invivo_point_in_wrong_unit.yaml",
+         one(position="{name: P, kind: lens, point_cm: [0, 0, 90000]}"), "more than 5 m")
+    case("invivo_zero_fractions.yaml", one(fractions="0"), "fractions 0")
+    case("invivo_plan_without_structures.yaml", one(structure_set=None),
+         "give both plan and structure_set")
+    case("invivo_wrong_patient.yaml", one(patient_id="SOMEONE-ELSE"),
+         "PatientID (0010,0020): 'DEMO-BAD-00', but reading 'R1' is of patient 'SOMEONE-ELSE'")
+    case("invivo_unknown_roi.yaml", one(position="{roi: Spleen}"), "no ROI 'Spleen'")
+    case("invivo_unknown_kind.yaml",
+         one(position="{name: P, kind: elbow, distance_cm: 10, depth_cm: 1}"),
+         "unknown kind 'elbow'")
+    case("invivo_too_many_fractions.yaml", one(fractions="99"), "fractions 99, but the fraction")
+    raw("invivo_log_not_sqlite.txt", b"screening log? no, plain text.\n" * 40,
+        "invivo report --log {f}", 3, "not a screening log")
 
 
 if __name__ == "__main__":
