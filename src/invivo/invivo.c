@@ -247,10 +247,15 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
         double share = od->course_nearest.cgy > 0 ? out->estimate_cgy / od->course_nearest.cgy
                                                   : NAN;
         const sl_budget *cb = &od->course_nearest_budget;
-        out->budget = (sl_budget){cb->fit_cgy * share,           cb->measurement_cgy * share,
-                                  cb->interpolation_cgy * share, cb->extrapolation_cgy * share,
-                                  cb->standin_cgy * share,       cb->transfer_cgy * share,
-                                  cb->setup_cgy * share,         cb->combined_cgy * share};
+        out->budget = (sl_budget){.fit_cgy = cb->fit_cgy * share,
+                                  .measurement_cgy = cb->measurement_cgy * share,
+                                  .interpolation_cgy = cb->interpolation_cgy * share,
+                                  .extrapolation_cgy = cb->extrapolation_cgy * share,
+                                  .standin_cgy = cb->standin_cgy * share,
+                                  .transfer_cgy = cb->transfer_cgy * share,
+                                  .setup_cgy = cb->setup_cgy * share,
+                                  .uncommissioned_cgy = cb->uncommissioned_cgy * share,
+                                  .combined_cgy = cb->combined_cgy * share};
         out->u_transfer_cgy = out->budget.transfer_cgy;
         double corr = isnan(rd->energy_correction) ? 1.0 : rd->energy_correction;
         out->measured_cgy = rd->reading_cgy * corr;

@@ -33,7 +33,7 @@ const char sl_invivo_schema_sql[] =
     " measured_cgy REAL NOT NULL, u_measured_cgy REAL NOT NULL,"
     " estimate_cgy REAL NOT NULL, u_estimate_cgy REAL NOT NULL, u_transfer_cgy REAL NOT NULL,"
     " u_fit_cgy REAL, u_measurement_cgy REAL, u_interpolation_cgy REAL,"
-    " u_extrapolation_cgy REAL, u_standin_cgy REAL, u_setup_cgy REAL,"
+    " u_extrapolation_cgy REAL, u_standin_cgy REAL, u_setup_cgy REAL, u_tilt_ssd_cgy REAL,"
     " log_ratio REAL NOT NULL, u_log_ratio REAL NOT NULL,"
     " flagged INTEGER NOT NULL, model_flags INTEGER NOT NULL, checks TEXT,"
     " model_file TEXT, model_version TEXT, model_sha256 TEXT);"
@@ -133,8 +133,8 @@ sl_status sl_screenlog_add_reading(sl_screenlog *log, const sl_invivo_result *r,
         " estimate_cgy, u_estimate_cgy, u_transfer_cgy, log_ratio, u_log_ratio, flagged,"
         " model_flags, checks, model_file, model_version, model_sha256, u_fit_cgy,"
         " u_measurement_cgy, u_interpolation_cgy, u_extrapolation_cgy, u_standin_cgy,"
-        " u_setup_cgy) VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
-        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
+        " u_setup_cgy, u_tilt_ssd_cgy) VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
+        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
     char pos[512];
     position_text(rd, pos, sizeof pos);
     sqlite3_stmt *s = NULL;
@@ -182,7 +182,8 @@ sl_status sl_screenlog_add_reading(sl_screenlog *log, const sl_invivo_result *r,
     sl_screenlog_bind_text(s, k++, model->sha256);
     const double b[] = {r->budget.fit_cgy,           r->budget.measurement_cgy,
                         r->budget.interpolation_cgy, r->budget.extrapolation_cgy,
-                        r->budget.standin_cgy,       r->budget.setup_cgy};
+                        r->budget.standin_cgy,       r->budget.setup_cgy,
+                        r->budget.uncommissioned_cgy};
     for (size_t i = 0; i < sizeof b / sizeof *b; i++)
         sl_screenlog_bind_real(s, k++, b[i]);
     if (sqlite3_step(s) != SQLITE_DONE) {
@@ -230,7 +231,8 @@ sl_status sl_screenlog_readings(sl_screenlog *log, const char *machine, sl_log_r
              " reading_cgy, energy_correction, measured_cgy, u_measured_cgy, estimate_cgy,"
              " u_estimate_cgy, u_transfer_cgy, log_ratio, u_log_ratio, flagged, model_flags,"
              " checks, model_file, model_version, model_sha256, u_fit_cgy, u_measurement_cgy,"
-             " u_interpolation_cgy, u_extrapolation_cgy, u_standin_cgy, u_setup_cgy"
+             " u_interpolation_cgy, u_extrapolation_cgy, u_standin_cgy, u_setup_cgy,"
+             " u_tilt_ssd_cgy"
              " FROM invivo_reading%s ORDER BY id",
              machine ? " WHERE machine = ?" : "");
     sqlite3_stmt *s = NULL;
@@ -291,7 +293,8 @@ sl_status sl_screenlog_readings(sl_screenlog *log, const char *machine, sl_log_r
         r->model_sha256 = sl_screenlog_col_text(s, c++, &ok);
         double *bd[] = {&r->budget.fit_cgy,           &r->budget.measurement_cgy,
                         &r->budget.interpolation_cgy, &r->budget.extrapolation_cgy,
-                        &r->budget.standin_cgy,       &r->budget.setup_cgy};
+                        &r->budget.standin_cgy,       &r->budget.setup_cgy,
+                        &r->budget.uncommissioned_cgy};
         for (size_t i = 0; i < sizeof bd / sizeof *bd; i++)
             *bd[i] = sl_screenlog_col_real(s, c++);
         r->budget.transfer_cgy = r->u_transfer_cgy;

@@ -179,6 +179,7 @@ static sl_status json(FILE *fp, const sl_invivo_report *r, sl_error *err)
         jw_num_opt(&w, b, "standin_cgy", x->budget.standin_cgy);
         jw_num(&w, b, "transfer_cgy", x->budget.transfer_cgy);
         jw_num_opt(&w, b, "setup_shift_cgy", x->budget.setup_cgy);
+        jw_num_opt(&w, b, "tilt_ssd_cgy", x->budget.uncommissioned_cgy);
         jw_num(&w, b, "combined_cgy", x->budget.combined_cgy);
         jw_put(&w, o, "estimate_uncertainty_budget", b);
         jw_num(&w, o, "log_ratio", x->log_ratio);
