@@ -120,12 +120,8 @@ static sl_status read_film(sl_yaml *y, yaml_node_t *n, size_t i, const char *bas
     if (st == SL_OK)
         st = sl_yaml_number_in(y, k[6].node, "ssd_cm", 50, 200, &f->ssd_cm, err);
     if (st == SL_OK)
-        st = sl_yaml_number_in(y, k[7].node, "tilt_deg", -90, 90, &f->tilt_deg, err);
-    if (st == SL_OK && f->tilt_deg != 0)
-        st = sl_yaml_error(y, k[7].node, err,
-                           "tilt_deg: %g: a measurement set holds profiles at normal incidence; "
-                           "a tilted film cannot go into it",
-                           f->tilt_deg);
+        st = sl_yaml_number_in(y, k[7].node, "tilt_deg", -SL_TILT_MAX_DEG, SL_TILT_MAX_DEG,
+                               &f->tilt_deg, err);
     if (st == SL_OK)
         st = sl_yaml_string(y, k[8].node, "image_x", &ix, err);
     if (st == SL_OK) {
@@ -160,6 +156,15 @@ static sl_status read_film(sl_yaml *y, yaml_node_t *n, size_t i, const char *bas
         }
         free(s);
     }
+    /* A tilt lies in one plane: the profile along it has a side the beam leans
+     * toward and one it leans away from (the measurement set's mirror rule); a
+     * profile across that plane has neither, and the measurement set has no way
+     * to say so. So a tilted film gives the one profile in its tilt's plane. */
+    if (st == SL_OK && f->tilt_deg != 0 && f->ndirs != 1)
+        st = sl_yaml_error(y, k[9].node, err,
+                           "directions: a tilted film (tilt_deg %g) gives one profile, the one "
+                           "in the plane of its tilt",
+                           f->tilt_deg);
     if (st == SL_OK)
         st = sl_yaml_number_in(y, k[10].node, "monitor_units", 1e-3, 1e6, &f->mu, err);
     if (st == SL_OK)
@@ -493,10 +498,19 @@ typedef struct merged {
 
 /* A file name made of the profile's names: anything but letters, digits, '-', '_' and
  * '.' becomes '_', so that an applicator called "../x" cannot leave the output folder. */
-static void profile_name(const film_spec *f, int direction, char *buf, size_t size)
+/* The file name of a profile: the SSD when it is not the nominal one, the
+ * tilt when there is one (so that the films of another SSD or tilt never
+ * overwrite each other's files), the direction last. */
+static void profile_name(const film_spec *f, int direction, double nominal_ssd_cm, char *buf,
+                         size_t size)
 {
-    snprintf(buf, size, "e%02g_%s_%s_d%.2f_%s.csv", f->energy_mev, f->applicator, f->insert,
-             f->depth_cm, dir_names[direction]);
+    char ssd[40] = "", tilt[40] = "";
+    if (!(fabs(f->ssd_cm - nominal_ssd_cm) < 1e-6))
+        snprintf(ssd, sizeof ssd, "_ssd%g", f->ssd_cm);
+    if (f->tilt_deg != 0)
+        snprintf(tilt, sizeof tilt, "_tilt%g", f->tilt_deg);
+    snprintf(buf, size, "e%02g_%s_%s_d%.2f%s%s_%s.csv", f->energy_mev, f->applicator, f->insert,
+             f->depth_cm, ssd, tilt, dir_names[direction]);
     for (char *c = buf; *c; c++)
         if (!((*c >= 'a' && *c <= 'z') || (*c >= 'A' && *c <= 'Z') || (*c >= '0' && *c <= '9') ||
               *c == '-' || *c == '_' || *c == '.'))
@@ -508,7 +522,31 @@ static void profile_name(const film_spec *f, int direction, char *buf, size_t si
 static bool same_profile(const film_spec *a, const film_spec *b)
 {
     return a->energy_mev == b->energy_mev && strcmp(a->applicator, b->applicator) == 0 &&
-           strcmp(a->insert, b->insert) == 0 && a->depth_cm == b->depth_cm;
+           strcmp(a->insert, b->insert) == 0 && a->depth_cm == b->depth_cm &&
+           a->ssd_cm == b->ssd_cm && a->tilt_deg == b->tilt_deg;
+}
+
+/* The machine's nominal SSD as the film set's measurement_set gives it, for
+ * the profiles' file names only (NAN when absent or not a number: the
+ * measurement set read back as fit reads it refuses it then, with its line). */
+static double nominal_ssd_of(sl_yaml *y, yaml_node_t *machine)
+{
+    if (!machine || machine->type != YAML_MAPPING_NODE)
+        return NAN;
+    for (yaml_node_pair_t *p = machine->data.mapping.pairs.start;
+         p < machine->data.mapping.pairs.top; p++) {
+        yaml_node_t *k = yaml_document_get_node(&y->doc, p->key);
+        if (k && k->type == YAML_SCALAR_NODE &&
+            strcmp((const char *)k->data.scalar.value, "nominal_ssd_cm") == 0) {
+            double v = NAN;
+            sl_error e = {0};
+            if (sl_yaml_number(y, yaml_document_get_node(&y->doc, p->value), "nominal_ssd_cm", &v,
+                               &e) != SL_OK)
+                return NAN;
+            return v;
+        }
+    }
+    return NAN;
 }
 
 sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options *opt,
@@ -974,7 +1012,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             goto done;
         }
         char base[200];
-        profile_name(f0, M->direction, base, sizeof base);
+        profile_name(f0, M->direction, nominal_ssd_of(&y, mf[0].node), base, sizeof base);
         snprintf(M->file, sizeof M->file, "profiles/%s", base);
         /* each point's own uncertainty, beside: the fit's CSV has two columns */
         {
@@ -1096,7 +1134,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             fprintf(mem, "# %s\n", fs.notice);
         sl_yaml_map_begin(&w, false);
         sl_yaml_kv_string(&w, "format", "strayline-measurements");
-        sl_yaml_kv_int(&w, "format_version", 1);
+        sl_yaml_kv_int(&w, "format_version", 2);
         if (fs.notice)
             sl_yaml_kv_string(&w, "notice", fs.notice);
         for (int k = 0; k < 6; k++)
@@ -1123,6 +1161,10 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                               sqrt(fs.floor_pct * fs.floor_pct +
                                    mp[g].stat_floor * mp[g].stat_floor));
             sl_yaml_map_end(&w);
+            /* the film's positions are signed as the tilt is (models/README.md, film):
+               the mirror rule of the measurement set splits them by side as it stands */
+            sl_yaml_kv_number(&w, "tilt_deg", f0->tilt_deg);
+            sl_yaml_kv_number(&w, "ssd_cm", f0->ssd_cm);
             sl_yaml_map_end(&w);
         }
         sl_yaml_seq_end(&w);
@@ -1143,16 +1185,6 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             sl_error_prefix(err, pre);
             goto done;
         }
-        for (size_t i = 0; i < n; i++)
-            if (fabs(fs.films[i].ssd_cm - ms->machine.nominal_ssd_cm) > 1e-6) {
-                st = sl_error_set(err, SL_EINPUT,
-                                  "%s:%zu: film %zu: ssd_cm: %g, but the measurement set holds "
-                                  "profiles at the nominal SSD %g cm",
-                                  films_path, fs.films[i].line, i + 1, fs.films[i].ssd_cm,
-                                  ms->machine.nominal_ssd_cm);
-                sl_measurements_free(ms);
-                goto done;
-            }
         st = sl_notes_extend(&sum->notes, &ms->notes);
         sl_measurements_free(ms);
         if (st != SL_OK)
@@ -1236,6 +1268,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             const merged *M = &mp[g];
             sl_yaml_map_begin(&w, false);
             sl_yaml_kv_string(&w, "file", M->file);
+            sl_yaml_kv_number(&w, "tilt_deg", fs.films[M->first].tilt_deg);
+            sl_yaml_kv_number(&w, "ssd_cm", fs.films[M->first].ssd_cm);
             sl_yaml_key(&w, "films");
             sl_yaml_seq_begin(&w, true);
             for (size_t q = 0; q < M->nfilms; q++)

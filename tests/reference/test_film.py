@@ -23,6 +23,7 @@ known response (the rational scanner response of Lewis et al., Med Phys 39:6339
   the image, a non-monotone response, a field not found, no resolution tags, a
   saturated region), and an 8-bit scan warned about.
 """
+import copy
 import html.parser
 import math
 import os
@@ -552,6 +553,190 @@ class FilmGeometry(unittest.TestCase):
         self.assertIn("offscan.tif", err)
         self.assertIn("field cannot be found", err)
         self.assertEqual(out, "")
+
+
+class TiltedAndExtendedSSD(unittest.TestCase):
+    """A tilted film and a film at SSD 110 cm go through film profile -> fit -> model.
+
+    The tilted film (+10 deg, crossplane) is synthetic (numpy, tifffile): film_synth's
+    field with an extra tail added on the side of positive image x only (an invented
+    shape, not a measurement), so that the two sides differ and the sign convention of
+    models/README.md (film: positive tilt leans toward the side of positive positions)
+    can be checked end to end: `model eval --tilt 10` must give the heavier side and
+    `--tilt -10` the other (the measurement set's mirror rule), each within 2 of its
+    stated standard uncertainties of the numpy truth. The film at SSD 110 cm has the
+    nominal field projected to that SSD at the film's depth, 6 x (110 + 1) / 100 cm
+    (the measurement set's nominal-width rule, models/README.md); its truth is
+    film_synth's shape of that width."""
+
+    EXTRA = 0.05      # the extra tail's height on the positive side (relative, invented)
+    EXTRA_L = 2.0     # its decay length (cm, invented)
+    DEPTH, FRAC = 1.0, 0.97
+    SSD = 110.0
+
+    @classmethod
+    def q_tilted(cls, x):
+        """The crossplane shape of the tilted film: film_synth's q plus a tail that
+        rises through the right-hand penumbra and decays beyond it."""
+        F = make_films.FIELD_CM
+        x = np.asarray(x, dtype=float)
+        erfc = np.vectorize(math.erfc)
+        step = 0.5 * erfc(-(x - F / 2) / (0.3 * math.sqrt(2)))
+        return film_synth.q_profile(x, F) + cls.EXTRA * step * np.exp(
+            -np.maximum(x - F / 2, 0) / cls.EXTRA_L)
+
+    @classmethod
+    def film(cls, name, mu, dose_of):
+        dpi, W, H = 50, 16.0, 8.0
+        px = 2.54 / dpi
+        x = np.arange(int(round(W / px))) * px - W / 2
+        y = np.arange(int(round(H / px))) * px - H / 2
+        X, Y = np.meshgrid(x, y)
+        dose = dose_of(X, Y) * cls.FRAC * mu * make_films.DOSE_PER_MU
+        x0, y0, w, h = make_films.CONTROL_CM
+        dose[int(round(y0 / px)):int(round((y0 + h) / px)),
+             int(round(x0 / px)):int(round((x0 + w) / px))] = 0.0
+        rng = np.random.default_rng(sum(map(ord, name)))
+        film_synth.write_tiff(os.path.join(cls.c.dir, "scans", name + ".tif"),
+                              film_synth.pixel_values(dose, rng, 0.004), dpi=dpi)
+
+    @classmethod
+    def setUpClass(cls):
+        cls.tmpctx = tempdir()
+        cls.c = Campaign(cls.tmpctx.name)
+        F = make_films.FIELD_CM
+        Fs = F * (cls.SSD + cls.DEPTH) / 100.0
+        q0 = film_synth.q_profile(0.0, F)
+        qs0 = film_synth.q_profile(0.0, Fs)
+        tilted = lambda X, Y: cls.q_tilted(X) * film_synth.q_profile(Y, F) / (
+            cls.q_tilted(0.0) * q0)
+        extended = lambda X, Y: film_synth.field_dose(X, Y, 1.0, Fs)
+        doc = load(cls.c.films)
+        base = doc["films"][0]
+        for mu in (100, 1000):
+            for kind, fn, tilt, ssd in (("tilt", tilted, 10.0, 100.0),
+                                        ("ssd", extended, 0.0, cls.SSD)):
+                name = "%s-%dmu" % (kind, mu)
+                cls.film(name, mu, fn)
+                f = copy.deepcopy(base)
+                f.update({"id": name, "scan": "scans/%s.tif" % name, "depth_cm": cls.DEPTH,
+                          "monitor_units": mu, "cax_reference_cgy": mu * make_films.DOSE_PER_MU,
+                          "tilt_deg": tilt, "ssd_cm": ssd, "directions": ["crossplane"]})
+                doc["films"].append(f)
+        cls.doc = doc
+        cls.path = os.path.join(cls.c.dir, "films-tilt.yaml")
+        with open(cls.path, "w") as fh:
+            yaml.safe_dump(doc, fh)
+        rc, out, err, cls.out = cls.c.profile(cls.path, "out-tilt")
+        if rc != 0:
+            raise AssertionError(err)
+        cls.ms = load(os.path.join(cls.out, "measurements.yaml"))
+        cls.model = os.path.join(cls.c.dir, "model-tilt.yaml")
+        rc, out, err = run("fit", os.path.join(cls.out, "measurements.yaml"), "-o", cls.model,
+                           "-q")
+        if rc != 0:
+            raise AssertionError(err)
+        cls.fit_err = err
+        # the truths' 50 % edges by bisection on each side (numpy)
+        def edge(f, sign):
+            lo, hi = 0.0, 2 * Fs
+            for _ in range(200):
+                m = 0.5 * (lo + hi)
+                if f(sign * m) / f(0.0) > 0.5:
+                    lo = m
+                else:
+                    hi = m
+            return 0.5 * (lo + hi)
+        cls.truth = {
+            10.0: (cls.q_tilted, edge(cls.q_tilted, 1), 1),
+            -10.0: (cls.q_tilted, edge(cls.q_tilted, -1), -1),
+        }
+        qs = lambda u: film_synth.q_profile(u, Fs)
+        cls.truth_ssd = (qs, edge(qs, 1))
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmpctx.cleanup()
+
+    def test_measurement_set_carries_tilt_and_ssd(self):
+        self.assertEqual(self.ms["format_version"], 2)
+        got = sorted((p["depth_cm"], p["tilt_deg"], p["ssd_cm"], p["file"])
+                     for p in self.ms["profiles"])
+        self.assertEqual([g[:3] for g in got],
+                         [(1.0, 0.0, 100.0), (1.0, 0.0, 110.0), (1.0, 10.0, 100.0),
+                          (2.0, 0.0, 100.0)])
+        files = [g[3] for g in got]
+        self.assertEqual(len(set(files)), 4)
+        self.assertIn("profiles/e09_A06_open_d1.00_ssd110_crossplane.csv", files)
+        self.assertIn("profiles/e09_A06_open_d1.00_tilt10_crossplane.csv", files)
+
+    def test_model_show_lists_tilts_and_ssd(self):
+        import json
+        rc, out, err = run("model", "show", self.model)
+        self.assertEqual(rc, 0, err)
+        self.assertIn("tilts", out)
+        self.assertRegex(out, r"-10\b.*\b10\b")
+        self.assertIn("110", out)
+        rc, out, err = run("model", "show", self.model, "--format", "json")
+        self.assertEqual(rc, 0, err)
+        text = json.dumps(json.loads(out))
+        pairs = set(re.findall(r'"tilt_deg": (-?[0-9.]+), "ssd_cm": ([0-9.]+)', text))
+        self.assertTrue({("10", "100"), ("-10", "100"), ("0", "110"), ("0", "100")} <=
+                        {(str(int(float(a))), str(int(float(b)))) for a, b in pairs}, pairs)
+
+    def test_tilt_sign_and_sides_against_the_truth(self):
+        """--tilt 10 reads the side of positive positions (the heavier tail), --tilt -10
+        the other, each within 2 stated standard uncertainties of the numpy truth."""
+        import json
+        for tilt, (f, e, sign) in self.truth.items():
+            for dist in (0.5, 1.0, 2.0, 3.0):
+                rc, out, err = run("model", "eval", self.model, "-e", "9", "-a", "A06", "-d",
+                                   self.DEPTH, "-x", dist, "--tilt", tilt, "--format", "json")
+                self.assertEqual(rc, 0, err)
+                v = json.loads(out)
+                truth = 100 * self.FRAC * float(f(sign * (e + dist))) / float(f(0.0))
+                self.assertLess(abs(v["dose_percent"] - truth), 2 * v["uncertainty_percent"],
+                                (tilt, dist, v["dose_percent"], truth))
+        # the sides differ by more than their uncertainties: a swapped sign would fail above
+        f, e, _ = self.truth[10.0]
+        fn, en, _ = self.truth[-10.0]
+        self.assertGreater(f(e + 2.0) / f(0.0), 1.5 * fn(-(en + 2.0)) / fn(0.0))
+
+    def test_ssd_110_against_the_truth(self):
+        import json
+        qs, e = self.truth_ssd
+        for dist in (0.5, 1.0, 2.0, 3.0):
+            rc, out, err = run("model", "eval", self.model, "-e", "9", "-a", "A06", "-d",
+                               self.DEPTH, "-x", dist, "--ssd", self.SSD, "--format", "json")
+            self.assertEqual(rc, 0, err)
+            v = json.loads(out)
+            truth = 100 * self.FRAC * float(qs(e + dist)) / float(qs(0.0))
+            self.assertLess(abs(v["dose_percent"] - truth), 2 * v["uncertainty_percent"],
+                            (dist, v["dose_percent"], truth))
+
+    def test_tilted_film_gives_one_direction(self):
+        doc = copy.deepcopy(self.doc)
+        doc["films"] = [dict(doc["films"][-2], directions=["crossplane", "inplane"])]
+        path = os.path.join(self.c.dir, "two-dirs.yaml")
+        with open(path, "w") as fh:
+            yaml.safe_dump(doc, fh)
+        rc, out, err, d = self.c.profile(path, "out-two")
+        self.assertEqual(rc, 3, err)
+        self.assertEqual(out, "")
+        self.assertEqual(len(err.strip().splitlines()), 1, err)
+        self.assertIn("two-dirs.yaml", err)
+        self.assertIn("plane of its tilt", err)
+
+    def test_tilt_beyond_60_refused(self):
+        doc = copy.deepcopy(self.doc)
+        doc["films"] = [dict(doc["films"][-2], tilt_deg=70.0)]
+        path = os.path.join(self.c.dir, "steep.yaml")
+        with open(path, "w") as fh:
+            yaml.safe_dump(doc, fh)
+        rc, out, err, d = self.c.profile(path, "out-steep")
+        self.assertEqual(rc, 3, err)
+        self.assertIn("steep.yaml", err)
+        self.assertIn("tilt_deg", err)
 
 
 class BadFilmInput(unittest.TestCase):
