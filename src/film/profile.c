@@ -642,6 +642,39 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 goto done;
             }
     }
+    /* Refused here, before any scan is read, with the film's own line: an SSD the
+     * measurement set would refuse, and a film whose mirrored side repeats another
+     * film's profile (+T at one side is -T at the other: the mirror rule). */
+    double nominal_ssd = nominal_ssd_of(&y, mf[0].node);
+    for (size_t i = 0; i < n; i++) {
+        const film_spec *a = &fs.films[i];
+        if (isfinite(nominal_ssd) && (a->ssd_cm < nominal_ssd - SL_MEAS_SSD_SHORT_CM - 1e-9 ||
+                                      a->ssd_cm > nominal_ssd + SL_MEAS_SSD_LONG_CM + 1e-9)) {
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s:%zu: film %zu: ssd_cm: %g lies outside %g to %g (the nominal SSD "
+                              "%g cm - %g to + %g)",
+                              films_path, a->line, i + 1, a->ssd_cm,
+                              nominal_ssd - SL_MEAS_SSD_SHORT_CM, nominal_ssd + SL_MEAS_SSD_LONG_CM,
+                              nominal_ssd, SL_MEAS_SSD_SHORT_CM, SL_MEAS_SSD_LONG_CM);
+            goto done;
+        }
+        for (size_t j = 0; j < i; j++) {
+            const film_spec *b = &fs.films[j];
+            if (a->tilt_deg != 0 && b->tilt_deg == -a->tilt_deg && b->ssd_cm == a->ssd_cm &&
+                a->energy_mev == b->energy_mev && strcmp(a->applicator, b->applicator) == 0 &&
+                strcmp(a->insert, b->insert) == 0 && a->depth_cm == b->depth_cm &&
+                a->dirs[0] == b->dirs[0]) {
+                st = sl_error_set(err, SL_EINPUT,
+                                  "%s:%zu: film %zu: tilt_deg %g: its profile's two sides are "
+                                  "the profiles at %g and %g deg, which film %zu (tilt_deg %g) "
+                                  "also gives (the mirror rule); give every film of one tilted "
+                                  "profile the same sign",
+                                  films_path, a->line, i + 1, a->tilt_deg, a->tilt_deg,
+                                  -a->tilt_deg, j + 1, b->tilt_deg);
+                goto done;
+            }
+        }
+    }
     const sl_film_channel *ch = NULL;
     for (int i = 0; i < curve->nchannels; i++)
         if (curve->ch[i].channel == curve->channel)
@@ -1012,7 +1045,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             goto done;
         }
         char base[200];
-        profile_name(f0, M->direction, nominal_ssd_of(&y, mf[0].node), base, sizeof base);
+        profile_name(f0, M->direction, nominal_ssd, base, sizeof base);
         snprintf(M->file, sizeof M->file, "profiles/%s", base);
         /* each point's own uncertainty, beside: the fit's CSV has two columns */
         {

@@ -731,6 +731,34 @@ class TiltedAndExtendedSSD(unittest.TestCase):
         self.assertIn("two-dirs.yaml", err)
         self.assertIn("plane of its tilt", err)
 
+    def refused_variant(self, name, mutate, *fragments):
+        doc = copy.deepcopy(self.doc)
+        mutate(doc)
+        path = os.path.join(self.c.dir, name + ".yaml")
+        with open(path, "w") as fh:
+            yaml.safe_dump(doc, fh)
+        rc, out, err, d = self.c.profile(path, "out-" + name)
+        self.assertEqual(rc, 3, err)
+        self.assertEqual(out, "")
+        self.assertEqual(len(err.strip().splitlines()), 1, err)
+        for f in (name + ".yaml",) + fragments:
+            self.assertIn(f, err)
+
+    def test_mirrored_twin_refused_naming_the_film(self):
+        """A film at -10 deg of the profile a +10 deg film gives: its sides are the same
+        two profiles (the measurement set's mirror rule), refused with the film's line."""
+        def m(doc):
+            g = copy.deepcopy(doc["films"][-2])
+            g.update(id="tilt-neg", tilt_deg=-10.0)
+            doc["films"].append(g)
+        self.refused_variant("mirror", m, "film 9", "mirror rule", "film 5")
+
+    def test_ssd_beyond_the_measurement_sets_range_refused(self):
+        """SSD 140 cm on a nominal 100 cm: outside nominal - 5 to + 30 (models/README.md)."""
+        def m(doc):
+            doc["films"][-1]["ssd_cm"] = 140.0
+        self.refused_variant("ssd140", m, "film 8", "ssd_cm: 140 lies outside 95 to 130")
+
     def test_tilt_beyond_60_refused(self):
         doc = copy.deepcopy(self.doc)
         doc["films"] = [dict(doc["films"][-2], tilt_deg=70.0)]
