@@ -284,9 +284,9 @@ def chest_oblique(outdir):
         {"number": 2, "name": "PTV_sternum", "type": "PTV", "color": (255, 0, 0),
          "contours": rb.ellipsoid(inward(skin, gantry, 12.0), (25.0, 6.0, 25.0), step)},
         {"number": 3, "name": "Breast_L", "type": "ORGAN", "color": (255, 150, 200),
-         "contours": rb.ellipsoid((115.0, -80.0, -120.0), (25.0, 12.0, 30.0), step)},
+         "contours": rb.ellipsoid((100.0, -62.0, -120.0), (25.0, 12.0, 30.0), step)},
         {"number": 4, "name": "Breast_R", "type": "ORGAN", "color": (255, 120, 180),
-         "contours": rb.ellipsoid((-115.0, -80.0, -120.0), (25.0, 12.0, 30.0), step)},
+         "contours": rb.ellipsoid((-100.0, -62.0, -120.0), (25.0, 12.0, 30.0), step)},
         {"number": 5, "name": "Thyroid", "type": "ORGAN", "color": (160, 0, 255),
          "contours": rb.ellipsoid((15.0, -35.0, 100.0), (8.0, 9.0, 20.0), step)
          + rb.ellipsoid((-15.0, -35.0, 100.0), (8.0, 9.0, 20.0), step)},
