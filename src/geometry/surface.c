@@ -484,6 +484,52 @@ static size_t slab_at(const sl_body *b, double z)
     return lo;
 }
 
+/* The slabs a segment z(t) = az + t dz, t in [t0, t1] (dz != 0), passes
+ * through, in the order it meets them, each with the stretch [ta, tb] of t
+ * inside it: the exact tracer and the fans walk them alike. */
+typedef struct slab_walk {
+    const sl_body *b;
+    double az, dz, t0, t1;
+    size_t i, iend, step;
+    bool up;
+} slab_walk;
+
+static bool slab_walk_start(slab_walk *w, const sl_body *b, double az, double dz, double t0,
+                            double t1)
+{
+    double za = az + t0 * dz, zb = az + t1 * dz;
+    *w = (slab_walk){b, az, dz, t0, t1, 0, 0, 0, dz > 0};
+    w->i = slab_at(b, w->up ? za : zb);
+    w->iend = slab_at(b, w->up ? zb : za);
+    if (w->iend >= b->n)
+        w->iend = b->n - 1;
+    return w->i < b->n;
+}
+
+static bool slab_walk_next(slab_walk *w, size_t *k, double *ta, double *tb)
+{
+    while (w->step <= w->iend - w->i) {
+        size_t kk = w->up ? w->i + w->step : w->iend - w->step;
+        w->step++;
+        const bslice *s = &w->b->s[kk];
+        double a0 = (s->z_lo - w->az) / w->dz, a1 = (s->z_hi - w->az) / w->dz;
+        if (a0 > a1) {
+            double t = a0;
+            a0 = a1;
+            a1 = t;
+        }
+        a0 = dmax(a0, w->t0);
+        a1 = dmin(a1, w->t1);
+        if (a0 < a1) {
+            *k = kk;
+            *ta = a0;
+            *tb = a1;
+            return true;
+        }
+    }
+    return false;
+}
+
 /* The path of a -> c inside the body; with spans, each inside stretch is
  * appended too (segment parameters). */
 static double body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t, sl_spans *spans)
@@ -528,28 +574,13 @@ static double body_path(const sl_body *b, sl_vec3 a, sl_vec3 c, double *entry_t,
             *entry_t = t0 + first * (t1 - t0);
         return sink.failed ? NAN : f * (t1 - t0) * len;
     }
-    /* walk the slabs in the order the segment meets them */
-    double za = a.z + t0 * d[2], zb = a.z + t1 * d[2];
-    bool up = d[2] > 0;
-    size_t i = slab_at(b, up ? za : zb);
-    size_t iend = slab_at(b, up ? zb : za);
-    if (iend >= b->n)
-        iend = b->n - 1;
-    if (i >= b->n)
+    slab_walk w;
+    if (!slab_walk_start(&w, b, a.z, d[2], t0, t1))
         return 0;
-    for (size_t step = 0; step <= iend - i; step++) {
-        size_t k = up ? i + step : iend - step;
+    size_t k;
+    double ta, tb;
+    while (slab_walk_next(&w, &k, &ta, &tb)) {
         const bslice *s = &b->s[k];
-        double ta = (s->z_lo - a.z) / d[2], tb = (s->z_hi - a.z) / d[2];
-        if (ta > tb) {
-            double t = ta;
-            ta = tb;
-            tb = t;
-        }
-        ta = dmax(ta, t0);
-        tb = dmin(tb, t1);
-        if (!(ta < tb))
-            continue;
         sl_vec2 q0 = {a.x + ta * d[0], a.y + ta * d[1]}, q1 = {a.x + tb * d[0], a.y + tb * d[1]};
         double first;
         span_sink sink = {spans, ta, tb - ta, false};
@@ -1111,29 +1142,14 @@ static double fan_path(const sl_body_fan *f, sl_vec3 p, double *entry_t, sl_span
         total = fan_piece(f, i, j, t0, t1, xp, far, &first, sk);
     } else {
         double z0 = a.z + t0 * d[2], z1 = p.z;
-        bool up = d[2] > 0;
-        double zlo = up ? z0 : z1, zhi = up ? z1 : z0;
-        if (zhi <= b->lo.z || zlo >= b->hi.z)
+        if (fmax(z0, z1) <= b->lo.z || fmin(z0, z1) >= b->hi.z)
             return 0;
-        size_t i = slab_at(b, zlo);
-        size_t iend = slab_at(b, zhi);
-        if (iend >= b->n)
-            iend = b->n - 1;
-        if (i >= b->n)
+        slab_walk w;
+        if (!slab_walk_start(&w, b, a.z, d[2], t0, t1))
             return 0;
-        for (size_t step = 0; step <= iend - i; step++) {
-            size_t k = up ? i + step : iend - step;
-            const bslice *s = &b->s[k];
-            double ta = (s->z_lo - a.z) / d[2], tb = (s->z_hi - a.z) / d[2];
-            if (ta > tb) {
-                double t = ta;
-                ta = tb;
-                tb = t;
-            }
-            ta = dmax(ta, t0);
-            tb = dmin(tb, t1);
-            if (!(ta < tb))
-                continue;
+        size_t k;
+        double ta, tb;
+        while (slab_walk_next(&w, &k, &ta, &tb)) {
             double piece = fan_piece(f, k, j, ta, tb, xp, far, &first, sk);
             if (isnan(piece))
                 return NAN;
