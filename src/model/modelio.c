@@ -385,11 +385,7 @@ static sl_status read_scales(sl_yaml *y, yaml_node_t *n, sl_model *m, sl_error *
             st = sl_yaml_number_in(y, k[8].node, "p_value", 0, 1, &s->p_value, err);
         if (st == SL_OK)
             st = sl_yaml_string(y, k[9].node, "source", &s->source, err);
-        bool has_output = false;
-        for (size_t o = 0; st == SL_OK && o < m->machine.noutputs; o++)
-            has_output |= m->machine.outputs[o].energy_mev == s->energy_mev &&
-                          strcmp(m->machine.outputs[o].applicator, s->applicator) == 0;
-        if (st == SL_OK && !has_output)
+        if (st == SL_OK && !sl_machine_output(&m->machine, s->energy_mev, s->applicator))
             st = sl_yaml_error(y, e, err, "%s: %g MeV, applicator %s is not commissioned", what,
                                s->energy_mev, s->applicator);
         for (size_t j = 0; st == SL_OK && j < i; j++)
