@@ -366,7 +366,7 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
                      SL_INVIVO_MIN_BAND);
         else if (!(c->p_bias < SL_INVIVO_SCALE_P))
             snprintf(c->why, sizeof c->why,
-                     "bias not significant (t test p = %.3g, not below %g): no scale", c->p_bias,
+                     "bias not significant (t test p = %.3g, not below %g)", c->p_bias,
                      SL_INVIVO_SCALE_P);
         else if (!(f >= SL_SCALE_MIN && f <= SL_SCALE_MAX))
             snprintf(c->why, sizeof c->why,
