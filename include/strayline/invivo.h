@@ -227,6 +227,34 @@ sl_status sl_invivo_propose(const sl_model *m, const sl_log_readings *r,
                             sl_invivo_proposal **out, sl_error *err);
 void sl_invivo_proposal_free(sl_invivo_proposal *p);
 
+/* propose --scale: a scale factor per energy and applicator, all distance
+ * bands together. A group gets one only when its bias is significant (the
+ * report's two-sided t test of mean log ratio = 0 below SL_INVIVO_SCALE_P),
+ * it has at least SL_INVIVO_MIN_BAND readings, its readings share one
+ * energy, the factor exp(mean) lies within SL_SCALE_MIN..SL_SCALE_MAX, the
+ * energy and applicator are commissioned and the model has no scale for it
+ * yet (readings compared with an unscaled model only); `why` says which
+ * rule left a group out. */
+#define SL_INVIVO_SCALE_P 0.05
+typedef struct sl_invivo_scale_choice {
+    char *energy, *applicator;
+    double energy_mev;                  /* NAN when the readings' energies differ */
+    size_t n;
+    double mean_log_ratio, ci_lo, ci_hi, p_bias;
+    char *first_date, *last_date;
+    bool take;
+    char why[256];                      /* empty when taken */
+} sl_invivo_scale_choice;
+
+typedef struct sl_invivo_scales {
+    size_t n;
+    sl_invivo_scale_choice *c;
+} sl_invivo_scales;
+
+sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *r,
+                                   sl_invivo_scales **out, sl_error *err);
+void sl_invivo_scales_free(sl_invivo_scales *s);
+
 #ifdef __cplusplus
 }
 #endif

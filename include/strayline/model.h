@@ -108,6 +108,32 @@ typedef struct sl_provenance {
     char *measured_date, *measured_by, *detector, *reference;
 } sl_provenance;
 
+/* A scale factor of one energy x applicator from in-vivo evidence
+ * (`invivo propose --scale`, model key invivo_scales): the evaluation
+ * multiplies the dose by `factor`, adds the relative component `rel_u`
+ * (the half-width of the 95 % interval of the mean log ratio: errs high) to
+ * the transfer uncertainty, marks the value SL_MF_INVIVO_SCALED, and for a
+ * factor below 1 keeps the upper bound (k = 2) at least the unscaled
+ * estimate. */
+#define SL_SCALE_MIN 0.2
+#define SL_SCALE_MAX 5.0
+typedef struct sl_model_scale {
+    double energy_mev;
+    char *applicator;
+    double factor;            /* measured / estimated, exp(mean log ratio) */
+    int readings;             /* readings behind it */
+    char *first_date, *last_date;
+    double mean_log_ratio;    /* ln(measured / estimated) */
+    double ci_lo, ci_hi;      /* 95 % interval of the mean log ratio (t) */
+    double p_value;           /* t test of mean = 0, two-sided */
+    char *source;             /* where the readings came from (log, model, tool) */
+} sl_model_scale;
+
+/* Relative standard uncertainty the scale adds: the half-width of its 95 %
+ * interval (a k = 2 width used as k = 1: errs high, common practice for a
+ * conservative screening value). */
+double sl_model_scale_rel_u(const sl_model_scale *s);
+
 typedef struct sl_model {
     char *source;            /* file it was read from (NULL when built in memory) */
     char sha256[SL_SHA256_HEX_LEN];
@@ -118,6 +144,8 @@ typedef struct sl_model {
     sl_provenance provenance;
     size_t nprofiles;
     sl_model_profile *profiles;
+    size_t nscales;          /* invivo_scales (optional; none in files before them) */
+    sl_model_scale *scales;
 } sl_model;
 
 sl_status sl_model_load(const char *path, sl_model **out, sl_error *err);
@@ -126,6 +154,9 @@ sl_status sl_model_load_buffer(const char *data, size_t size, const char *name, 
 /* Write a model file (the caller opens and commits the file). */
 sl_status sl_model_write(const sl_model *m, FILE *fp, sl_error *err);
 void sl_model_free(sl_model *m);
+/* The scale of one energy and applicator, NULL when none. */
+const sl_model_scale *sl_model_find_scale(const sl_model *m, double energy_mev,
+                                          const char *applicator);
 
 /* ------------------------------------------------------ evaluation -- */
 
@@ -138,7 +169,8 @@ enum {
     SL_MF_POOR_FIT = 32,        /* a profile used has a poor fit: uncertainty widened */
     SL_MF_NEAR_EDGE = 64,       /* (dose stage) closer to the field edge than SL_NEAR_EDGE_CM */
     SL_MF_TILT_OUTSIDE = 128,   /* tilt beyond the commissioned tilts: nearest used */
-    SL_MF_SSD_OUTSIDE = 256     /* SSD beyond the commissioned SSDs: nearest used */
+    SL_MF_SSD_OUTSIDE = 256,    /* SSD beyond the commissioned SSDs: nearest used */
+    SL_MF_INVIVO_SCALED = 512   /* the dose was scaled by an in-vivo scale factor */
 };
 
 /* A short text for each flag set, for reports. */
@@ -173,6 +205,8 @@ typedef struct sl_model_value {
     double u_standin;        /* half the spread of the stand-in's candidates */
     double u_transfer;       /* water tank to patient, by distance band */
     double u_uncommissioned; /* tilt or SSD beyond the commissioned ones */
+    double scale;            /* in-vivo scale factor applied (1: none); u_transfer holds its
+                                uncertainty and, below 1, the widening to the unscaled value */
     double electron_percent; /* A and B terms (after any transmission) */
     double photon_percent;   /* C term */
     double depth_used_cm;

@@ -28,7 +28,7 @@ static const char help[] =
     "       strayline invivo report [--log FILE] [--model MODEL.yaml] [--format text|json]\n"
     "                               [-o FILE] [--html FILE] [--pdf FILE] [--paper a4|letter]\n"
     "       strayline invivo propose --model MODEL.yaml -o NEW.yaml [--log FILE]\n"
-    "                               [--version-label LABEL]\n\n"
+    "                               [--version-label LABEL] [--scale]\n\n"
     "add: for each reading of READINGS.yaml (format in README.md), estimate the dose at\n"
     "the dosimeter's position for the fractions it measured, as `estimate` does, and\n"
     "record reading, estimate, uncertainties and the ratio in the screening log. A\n"
@@ -40,7 +40,10 @@ static const char help[] =
     "stated uncertainties, and the outliers.\n"
     "propose: a new model file whose transfer uncertainty bands come from the\n"
     "readings of its machine, the evidence in the bands' source; MODEL.yaml is not\n"
-    "changed.\n\n"
+    "changed. With --scale also a dose scale factor per energy and applicator\n"
+    "(exp of the mean log ratio), only where at least 5 readings show a bias\n"
+    "significant by the t test at 5 %; a factor below 1 lowers the estimate but\n"
+    "never the upper bound below the unscaled estimate.\n\n"
     "  -m, --model MODEL.yaml  the model (add: estimates with it; report: its bands)\n"
     "  -l, --levels FILE       action levels (default: action-levels.yaml beside the model)\n"
     "  -L, --log FILE          the screening log (default: screening.sqlite here)\n"
@@ -52,9 +55,10 @@ static const char help[] =
     "                          propose: the new model file (required)\n"
     "      --version-label L   propose: the new model_version (default: the old one\n"
     "                          with '+invivo-' and the date of the last reading)\n"
+    "      --scale             propose: also the in-vivo scale factors (above)\n"
     "  -h, --help              this help\n";
 
-enum { OPT_VERSION = 256, OPT_HTML, OPT_PDF, OPT_PAPER };
+enum { OPT_VERSION = 256, OPT_HTML, OPT_PDF, OPT_PAPER, OPT_SCALE };
 
 static void print_result(const sl_invivo_result *r)
 {
@@ -279,14 +283,78 @@ done:
     return rc;
 }
 
+/* propose --scale: the groups with a significant bias get a scale (with
+ * its evidence, into the new model), the others are named with the reason */
+static sl_status add_scales(sl_model *model, const sl_invivo_scales *sc, const char *model_path,
+                            const char *log_path, size_t *taken, sl_error *err)
+{
+    *taken = 0;
+    size_t want = model->nscales;
+    for (size_t i = 0; i < sc->n; i++)
+        want += sc->c[i].take;
+    if (want == model->nscales) {
+        for (size_t i = 0; i < sc->n; i++)
+            fprintf(stderr, "strayline invivo: %s MeV, applicator %s: no scale: %s\n",
+                    sc->c[i].energy, sc->c[i].applicator, sc->c[i].why);
+        return SL_OK;
+    }
+    sl_model_scale *ns = realloc(model->scales, want * sizeof *ns);
+    if (!ns)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    model->scales = ns;
+    for (size_t i = 0; i < sc->n; i++) {
+        const sl_invivo_scale_choice *c = &sc->c[i];
+        if (!c->take) {
+            fprintf(stderr, "strayline invivo: %s MeV, applicator %s: no scale: %s\n", c->energy,
+                    c->applicator, c->why);
+            continue;
+        }
+        sl_model_scale *s = &model->scales[model->nscales];
+        memset(s, 0, sizeof *s);
+        s->energy_mev = c->energy_mev;
+        s->factor = exp(c->mean_log_ratio);
+        s->readings = (int)c->n;
+        s->mean_log_ratio = c->mean_log_ratio;
+        s->ci_lo = c->ci_lo;
+        s->ci_hi = c->ci_hi;
+        s->p_value = c->p_bias;
+        s->applicator = strdup(c->applicator);
+        s->first_date = strdup(c->first_date);
+        s->last_date = strdup(c->last_date);
+        sl_buf b = {0};
+        sl_buf_printf(&b, "in-vivo readings of the screening log %s compared with model %s "
+                          "(version %s): factor exp(mean log ratio measured/estimated) over "
+                          "every distance; bias significant by the two-sided t test at %g; "
+                          "proposed by strayline invivo propose --scale %s",
+                      log_path, model_path, model->model_version, SL_INVIVO_SCALE_P,
+                      sl_version());
+        s->source = b.data && !b.failed ? strdup(b.data) : NULL;
+        sl_buf_free(&b);
+        model->nscales++;
+        if (!s->applicator || !s->first_date || !s->last_date || !s->source)
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+        (*taken)++;
+        fprintf(stderr, "strayline invivo: %s MeV, applicator %s: scale %.4f from %zu readings "
+                        "(mean log ratio %.4f, 95 %% interval %.4f to %.4f, p = %.3g)%s\n",
+                c->energy, c->applicator, s->factor, c->n, c->mean_log_ratio, c->ci_lo, c->ci_hi,
+                c->p_bias,
+                s->factor < 1 ? ": below 1 it lowers the estimate only; the upper bound stays "
+                                "at least the unscaled estimate"
+                              : "");
+    }
+    return SL_OK;
+}
+
 static int cmd_propose(const char *model_path, const char *log_path, const char *output,
-                       const char *label)
+                       const char *label, bool scale)
 {
     sl_error err = {0};
     sl_model *model = NULL;
     sl_screenlog *log = NULL;
     sl_log_readings *rs = NULL;
     sl_invivo_proposal *p = NULL;
+    sl_invivo_scales *sc = NULL;
+    size_t taken = 0;
     sl_outfile out = {0};
     int rc = SL_EXIT_OK;
     char *source = NULL;
@@ -294,7 +362,8 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
     if (sl_cli_read_model(model_path, &model, &err) != SL_OK ||
         sl_screenlog_open(log_path, false, &log, &err) != SL_OK ||
         sl_screenlog_readings(log, model->machine.name, &rs, &err) != SL_OK ||
-        sl_invivo_propose(model, rs, &p, &err) != SL_OK) {
+        sl_invivo_propose(model, rs, &p, &err) != SL_OK ||
+        (scale && sl_invivo_propose_scales(model, rs, &sc, &err) != SL_OK)) {
         rc = sl_cli_fail(&err);
         goto done;
     }
@@ -351,21 +420,28 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
             k += snprintf(source + k, cap - (size_t)k, "; %s: n = %zu, kept %.3f", range,
                           p->n[b], p->old_rel[b]);
     }
-    if (changed == 0) {
+    if (sc && add_scales(model, sc, model_path, log_path, &taken, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    if (changed == 0 && taken == 0) {
         sl_cli_error("the log %s has fewer than %d readings of machine %s in every distance "
-                     "band: no band would change, no model written",
-                     log_path, SL_INVIVO_MIN_BAND, model->machine.name);
+                     "band%s: no band would change, no model written",
+                     log_path, SL_INVIVO_MIN_BAND, model->machine.name,
+                     scale ? " and no group has a significant bias" : "");
         rc = SL_EXIT_INPUT;
         goto done;
     }
-    for (size_t b = 0; b < p->nbands; b++)
+    for (size_t b = 0; changed && b < p->nbands; b++)
         model->machine.transfer.bands[b].relative = p->new_rel[b];
-    free(model->machine.transfer.source);
-    model->machine.transfer.source = source;
-    source = NULL;
-    free(model->machine.transfer.mark);
-    model->machine.transfer.mark = strdup("measured");
-    model->machine.transfer.is_default = false;
+    if (changed) {
+        free(model->machine.transfer.source);
+        model->machine.transfer.source = source;
+        source = NULL;
+        free(model->machine.transfer.mark);
+        model->machine.transfer.mark = strdup("measured");
+        model->machine.transfer.is_default = false;
+    }
     free(model->model_version);
     model->model_version = strdup(newlabel);
     if (!model->machine.transfer.mark || !model->model_version) {
@@ -381,10 +457,12 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
         goto done;
     }
     fprintf(stderr, "strayline invivo: wrote %s, model_version %s: transfer uncertainty from %zu "
-                    "readings (%zu of %zu bands changed); %s is unchanged\n",
-            output, newlabel, p->nreadings, changed, p->nbands, model_path);
+                    "readings (%zu of %zu bands changed)%s%zu in-vivo scale%s; %s is unchanged\n",
+            output, newlabel, p->nreadings, changed, p->nbands, scale ? ", " : "", taken,
+            taken == 1 ? "" : "s", model_path);
 done:
     free(source);
+    sl_invivo_scales_free(sc);
     sl_invivo_proposal_free(p);
     sl_log_readings_free(rs);
     sl_screenlog_close(log);
@@ -421,12 +499,13 @@ int sl_cmd_invivo(int argc, char **argv)
         {"html", required_argument, NULL, OPT_HTML},
         {"pdf", required_argument, NULL, OPT_PDF},
         {"paper", required_argument, NULL, OPT_PAPER},
+        {"scale", no_argument, NULL, OPT_SCALE},
         {NULL, 0, NULL, 0},
     };
     static const char shortopts[] = "m:l:L:f:o:h";
     const char *model_path = NULL, *levels_path = NULL, *log_path = "screening.sqlite",
                *output = NULL, *label = NULL, *html = NULL, *pdf = NULL, *paper = "a4";
-    bool fmt_given = false;
+    bool fmt_given = false, scale = false;
     sl_format fmt = SL_FORMAT_TEXT;
     int c;
     optind = 1;
@@ -451,6 +530,7 @@ int sl_cmd_invivo(int argc, char **argv)
             label = optarg;
             break;
         case OPT_HTML: html = optarg; break;
+        case OPT_SCALE: scale = true; break;
         case OPT_PDF: pdf = optarg; break;
         case OPT_PAPER:
             if (strcmp(optarg, "a4") != 0 && strcmp(optarg, "letter") != 0)
@@ -462,6 +542,8 @@ int sl_cmd_invivo(int argc, char **argv)
         }
     }
     int nargs = argc - optind;
+    if (sub != 2 && scale)
+        return sl_cli_usage("invivo", "--scale belongs to propose");
     if (sub == 0) {
         if (nargs != 1)
             return sl_cli_usage("invivo", "add needs one readings file");
@@ -495,5 +577,5 @@ int sl_cmd_invivo(int argc, char **argv)
         return sl_cli_usage("invivo", "propose takes no --format");
     if (strcmp(output, "-") == 0)
         return sl_cli_usage("invivo", "propose needs a file for the new model, not '-'");
-    return cmd_propose(model_path, log_path, output, label);
+    return cmd_propose(model_path, log_path, output, label, scale);
 }

@@ -293,3 +293,96 @@ sl_status sl_invivo_propose(const sl_model *m, const sl_log_readings *rs,
     *out = p;
     return SL_OK;
 }
+
+void sl_invivo_scales_free(sl_invivo_scales *s)
+{
+    if (!s)
+        return;
+    for (size_t i = 0; i < s->n; i++) {
+        free(s->c[i].energy);
+        free(s->c[i].applicator);
+        free(s->c[i].first_date);
+        free(s->c[i].last_date);
+    }
+    free(s->c);
+    free(s);
+}
+
+sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
+                                   sl_invivo_scales **out, sl_error *err)
+{
+    *out = NULL;
+    /* one band covering every distance: the scale is per energy and
+     * applicator, as the output it corrects */
+    sl_transfer_band band = {INFINITY, 0};
+    sl_transfer one = {1, &band, NULL, NULL, false};
+    sl_invivo_stats *st = NULL;
+    sl_status rc = sl_invivo_statistics(rs, &one, &st, err);
+    if (rc != SL_OK)
+        return rc;
+    sl_invivo_scales *s = calloc(1, sizeof *s);
+    if (s)
+        s->c = calloc(st->ngroups ? st->ngroups : 1, sizeof *s->c);
+    if (!s || !s->c) {
+        sl_invivo_scales_free(s);
+        sl_invivo_stats_free(st);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t i = 0; i < st->ngroups; i++) {
+        const sl_invivo_group *g = &st->groups[i];
+        sl_invivo_scale_choice *c = &s->c[s->n++];
+        c->energy = strdup(g->energy);
+        c->applicator = strdup(g->applicator);
+        c->n = g->n;
+        c->mean_log_ratio = g->mean_log_ratio;
+        c->ci_lo = g->ci_lo;
+        c->ci_hi = g->ci_hi;
+        c->p_bias = g->p_bias;
+        for (size_t j = 0; j < g->n; j++) {
+            const char *d = rs->r[g->idx[j]].date;
+            if (!c->first_date || strcmp(d, c->first_date) < 0) {
+                free(c->first_date);
+                c->first_date = strdup(d);
+            }
+            if (!c->last_date || strcmp(d, c->last_date) > 0) {
+                free(c->last_date);
+                c->last_date = strdup(d);
+            }
+        }
+        if (!c->energy || !c->applicator || !c->first_date || !c->last_date) {
+            sl_invivo_scales_free(s);
+            sl_invivo_stats_free(st);
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+        }
+        char *end;
+        double e = strtod(c->energy, &end);
+        c->energy_mev = *end == '\0' && end != c->energy ? e : NAN;
+        double f = exp(c->mean_log_ratio);
+        if (isnan(c->energy_mev))
+            snprintf(c->why, sizeof c->why, "the readings' beams differ in energy (%s MeV)",
+                     c->energy);
+        else if (c->n < SL_INVIVO_MIN_BAND)
+            snprintf(c->why, sizeof c->why, "%zu readings, fewer than %d", c->n,
+                     SL_INVIVO_MIN_BAND);
+        else if (!(c->p_bias < SL_INVIVO_SCALE_P))
+            snprintf(c->why, sizeof c->why,
+                     "bias not significant (t test p = %.3g, not below %g)", c->p_bias,
+                     SL_INVIVO_SCALE_P);
+        else if (!(f >= SL_SCALE_MIN && f <= SL_SCALE_MAX))
+            snprintf(c->why, sizeof c->why,
+                     "factor %.3g outside the plausible %g to %g: check the readings and the "
+                     "model",
+                     f, SL_SCALE_MIN, SL_SCALE_MAX);
+        else if (!sl_machine_output(&m->machine, c->energy_mev, c->applicator))
+            snprintf(c->why, sizeof c->why, "%s MeV, applicator %s is not in the model",
+                     c->energy, c->applicator);
+        else if (sl_model_find_scale(m, c->energy_mev, c->applicator))
+            snprintf(c->why, sizeof c->why,
+                     "the model is scaled there already: propose from the unscaled model");
+        else
+            c->take = true;
+    }
+    sl_invivo_stats_free(st);
+    *out = s;
+    return SL_OK;
+}

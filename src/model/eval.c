@@ -49,6 +49,7 @@ struct sl_curve_set {
     double *depths;
     double range_lo, range_hi; /* nearest and farthest distance measured */
     const sl_transfer *transfer;
+    const sl_model_scale *scale; /* in-vivo scale of this energy and applicator, or NULL */
     bool standin;         /* open curves standing in for an uncommissioned cutout */
     size_t nmembers;
     member *members;
@@ -83,6 +84,10 @@ const char *sl_model_flag_text(unsigned flag)
     case SL_MF_SSD_OUTSIDE:
         return "SSD not commissioned: beyond the commissioned SSDs (nearest used, uncertainty "
                "widened; never below the nominal-SSD estimate at an extended SSD)";
+    case SL_MF_INVIVO_SCALED:
+        return "scaled by in-vivo evidence: the model's dose times the in-vivo scale factor of "
+               "this energy and applicator (model file invivo_scales; upper bound never below "
+               "the unscaled estimate)";
     }
     return "unknown flag";
 }
@@ -364,8 +369,20 @@ static double insert_scale(const sl_model *m, double e, const char *app, const c
     return 1.0;
 }
 
+static sl_status select_set(const sl_model *m, double e, const char *app, const char *insert,
+                            sl_curve_set **out, unsigned *flags, sl_error *err);
+
 sl_status sl_model_select(const sl_model *m, double e, const char *app, const char *insert,
                           sl_curve_set **out, unsigned *flags, sl_error *err)
+{
+    sl_status st = select_set(m, e, app, insert, out, flags, err);
+    if (st == SL_OK)
+        (*out)->scale = sl_model_find_scale(m, e, app);
+    return st;
+}
+
+static sl_status select_set(const sl_model *m, double e, const char *app, const char *insert,
+                            sl_curve_set **out, unsigned *flags, sl_error *err)
 {
     *out = NULL;
     *flags = 0;
@@ -557,6 +574,7 @@ static void set_nan(sl_model_value *out)
 {
     out->percent = out->u_percent = out->u_fit = out->u_meas = out->u_interp = NAN;
     out->u_extrap = out->u_standin = out->u_transfer = out->u_uncommissioned = NAN;
+    out->scale = 1;
     out->tilt_used_deg = out->ssd_used_cm = NAN;
     out->electron_percent = out->photon_percent = NAN;
 }
@@ -770,11 +788,41 @@ static void eval_set(const sl_curve_set *c, double depth, double d, double angle
 static void combine(const sl_curve_set *c, double d, sl_model_value *out)
 {
     double rel = sl_transfer_relative(c->transfer, d);
+    out->scale = 1;
+    double unscaled = out->percent;
+    if (c->scale && isfinite(out->percent)) {
+        /* the in-vivo scale: every part of the value and its components
+         * scale with the dose; the scale's own uncertainty joins the
+         * transfer component (it is the same water-tank-to-patient question
+         * answered by the clinic's readings) */
+        double f = c->scale->factor;
+        out->percent *= f;
+        out->electron_percent *= f;
+        out->photon_percent *= f;
+        out->u_fit *= f;
+        out->u_meas *= f;
+        out->u_interp *= f;
+        out->u_extrap *= f;
+        out->u_standin *= f;
+        out->u_uncommissioned *= f;
+        out->scale = f;
+        out->flags |= SL_MF_INVIVO_SCALED;
+        rel = hypot(rel, sl_model_scale_rel_u(c->scale));
+    }
     out->u_transfer = rel * out->percent;
-    out->u_percent = sqrt(out->u_fit * out->u_fit + out->u_meas * out->u_meas +
-                          out->u_interp * out->u_interp + out->u_extrap * out->u_extrap +
-                          out->u_standin * out->u_standin + out->u_transfer * out->u_transfer +
-                          out->u_uncommissioned * out->u_uncommissioned);
+    double other2 = out->u_fit * out->u_fit + out->u_meas * out->u_meas +
+                    out->u_interp * out->u_interp + out->u_extrap * out->u_extrap +
+                    out->u_standin * out->u_standin +
+                    out->u_uncommissioned * out->u_uncommissioned;
+    if (out->scale < 1) {
+        /* a scale below 1 lowers the estimate only: the transfer component
+         * widens until the upper bound (k = 2) is at least the unscaled
+         * estimate, so that readings never lower what a screening passes */
+        double need = 0.5 * (unscaled - out->percent);
+        if (need * need > other2 + out->u_transfer * out->u_transfer)
+            out->u_transfer = sqrt(need * need - other2);
+    }
+    out->u_percent = sqrt(other2 + out->u_transfer * out->u_transfer);
 }
 
 static void scale_value(sl_model_value *v, double k)

@@ -43,6 +43,13 @@ void sl_model_free(sl_model *m)
     for (size_t i = 0; i < m->nprofiles; i++)
         profile_free(&m->profiles[i]);
     free(m->profiles);
+    for (size_t i = 0; i < m->nscales; i++) {
+        free(m->scales[i].applicator);
+        free(m->scales[i].first_date);
+        free(m->scales[i].last_date);
+        free(m->scales[i].source);
+    }
+    free(m->scales);
     free(m);
 }
 
@@ -307,6 +314,102 @@ static sl_status read_provenance(sl_yaml *y, yaml_node_t *n, sl_provenance *p, s
     return st;
 }
 
+/* invivo_scales: one entry per energy x applicator. The factor is checked
+ * against a plausible range (a factor beyond it is a typing error or a
+ * model of another machine, not a bias to correct); the evidence is
+ * required so that `model show` and every report can say where it came
+ * from. */
+static sl_status read_scales(sl_yaml *y, yaml_node_t *n, sl_model *m, sl_error *err)
+{
+    yaml_node_item_t *items;
+    size_t cnt = 0;
+    sl_status st = sl_yaml_seq(y, n, "invivo_scales", &items, &cnt, err);
+    if (st == SL_OK && cnt == 0)
+        return sl_yaml_error(y, n, err, "invivo_scales: the list is empty (leave the key out)");
+    if (st == SL_OK) {
+        m->scales = calloc(cnt, sizeof *m->scales);
+        if (!m->scales)
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    for (size_t i = 0; st == SL_OK && i < cnt; i++) {
+        yaml_node_t *e = sl_yaml_item(y, items[i]);
+        sl_model_scale *s = &m->scales[i];
+        m->nscales = i + 1;
+        sl_yaml_field k[] = {{"energy_mev", true, NULL},     {"applicator", true, NULL},
+                             {"factor", true, NULL},         {"readings", true, NULL},
+                             {"first_date", true, NULL},     {"last_date", true, NULL},
+                             {"mean_log_ratio", true, NULL}, {"mean_log_ratio_ci95", true, NULL},
+                             {"p_value", true, NULL},        {"source", true, NULL}};
+        char what[64];
+        snprintf(what, sizeof what, "invivo_scales[%zu]", i);
+        st = sl_yaml_fields(y, e, what, k, 10, err);
+        if (st == SL_OK)
+            st = sl_yaml_number_in(y, k[0].node, "energy_mev", 0.1, 100, &s->energy_mev, err);
+        if (st == SL_OK)
+            st = sl_yaml_string(y, k[1].node, "applicator", &s->applicator, err);
+        if (st == SL_OK)
+            st = sl_yaml_number(y, k[2].node, "factor", &s->factor, err);
+        if (st == SL_OK && !(s->factor >= SL_SCALE_MIN && s->factor <= SL_SCALE_MAX))
+            st = sl_yaml_error(y, k[2].node, err,
+                               "%s: factor %g is outside the plausible %g to %g (a scale of "
+                               "in-vivo evidence, not a different machine)",
+                               what, s->factor, SL_SCALE_MIN, SL_SCALE_MAX);
+        if (st == SL_OK)
+            st = sl_yaml_int(y, k[3].node, "readings", &s->readings, err);
+        if (st == SL_OK && s->readings < 2)
+            st = sl_yaml_error(y, k[3].node, err, "%s: readings %d: a scale needs at least 2",
+                               what, s->readings);
+        if (st == SL_OK)
+            st = sl_yaml_string(y, k[4].node, "first_date", &s->first_date, err);
+        if (st == SL_OK)
+            st = sl_yaml_string(y, k[5].node, "last_date", &s->last_date, err);
+        if (st == SL_OK)
+            st = sl_yaml_number_in(y, k[6].node, "mean_log_ratio", -5, 5, &s->mean_log_ratio,
+                                   err);
+        double *ci = NULL;
+        size_t nci = 0;
+        if (st == SL_OK)
+            st = sl_yaml_numbers(y, k[7].node, "mean_log_ratio_ci95", &ci, &nci, err);
+        if (st == SL_OK && (nci != 2 || !(ci[0] <= s->mean_log_ratio) ||
+                            !(s->mean_log_ratio <= ci[1])))
+            st = sl_yaml_error(y, k[7].node, err,
+                               "%s: mean_log_ratio_ci95 must be [low, high] around "
+                               "mean_log_ratio",
+                               what);
+        if (st == SL_OK) {
+            s->ci_lo = ci[0];
+            s->ci_hi = ci[1];
+        }
+        free(ci);
+        if (st == SL_OK)
+            st = sl_yaml_number_in(y, k[8].node, "p_value", 0, 1, &s->p_value, err);
+        if (st == SL_OK)
+            st = sl_yaml_string(y, k[9].node, "source", &s->source, err);
+        if (st == SL_OK && !sl_machine_output(&m->machine, s->energy_mev, s->applicator))
+            st = sl_yaml_error(y, e, err, "%s: %g MeV, applicator %s is not commissioned", what,
+                               s->energy_mev, s->applicator);
+        for (size_t j = 0; st == SL_OK && j < i; j++)
+            if (m->scales[j].energy_mev == s->energy_mev &&
+                strcmp(m->scales[j].applicator, s->applicator) == 0)
+                st = sl_yaml_error(y, e, err, "%s: a second scale for %g MeV, applicator %s",
+                                   what, s->energy_mev, s->applicator);
+    }
+    return st;
+}
+
+double sl_model_scale_rel_u(const sl_model_scale *s)
+{
+    return 0.5 * (s->ci_hi - s->ci_lo);
+}
+
+const sl_model_scale *sl_model_find_scale(const sl_model *m, double e, const char *app)
+{
+    for (size_t i = 0; m && app && i < m->nscales; i++)
+        if (fabs(m->scales[i].energy_mev - e) < 1e-6 && strcmp(m->scales[i].applicator, app) == 0)
+            return &m->scales[i];
+    return NULL;
+}
+
 /* The root mapping's `format` value, or NULL: looked at before the keys are
  * checked, so that a measurement set handed over as a model file is named as
  * such rather than as a model with unknown keys. */
@@ -338,8 +441,9 @@ static sl_status read_model(sl_yaml *y, sl_model *m, sl_error *err)
                          {"model_version", true, NULL}, {"notice", false, NULL},
                          {"machine", true, NULL},     {"applicators", true, NULL},
                          {"inserts", false, NULL},    {"outputs", true, NULL},
-                         {"provenance", true, NULL},  {"profiles", true, NULL}};
-    sl_status st = sl_yaml_fields(y, sl_yaml_root(y), "model file", k, 10, err);
+                         {"provenance", true, NULL},  {"profiles", true, NULL},
+                         {"invivo_scales", false, NULL}};
+    sl_status st = sl_yaml_fields(y, sl_yaml_root(y), "model file", k, 11, err);
     char *format = NULL;
     if (st == SL_OK)
         st = sl_yaml_string(y, k[0].node, "format", &format, err);
@@ -378,6 +482,8 @@ static sl_status read_model(sl_yaml *y, sl_model *m, sl_error *err)
         m->nprofiles = i + 1;
         st = read_profile(y, sl_yaml_item(y, items[i]), i, m, err);
     }
+    if (st == SL_OK && k[10].node)
+        st = read_scales(y, k[10].node, m, err);
     return st;
 }
 
@@ -524,6 +630,27 @@ sl_status sl_model_write(const sl_model *m, FILE *fp, sl_error *err)
         sl_yaml_map_end(&w);
     }
     sl_yaml_seq_end(&w);
+    if (m->nscales) {
+        sl_yaml_key(&w, "invivo_scales");
+        sl_yaml_seq_begin(&w, false);
+        for (size_t i = 0; i < m->nscales; i++) {
+            const sl_model_scale *s = &m->scales[i];
+            sl_yaml_map_begin(&w, false);
+            sl_yaml_kv_number(&w, "energy_mev", s->energy_mev);
+            sl_yaml_kv_string(&w, "applicator", s->applicator);
+            sl_yaml_kv_number(&w, "factor", s->factor);
+            sl_yaml_kv_int(&w, "readings", s->readings);
+            sl_yaml_kv_string(&w, "first_date", s->first_date);
+            sl_yaml_kv_string(&w, "last_date", s->last_date);
+            sl_yaml_kv_number(&w, "mean_log_ratio", s->mean_log_ratio);
+            double ci[2] = {s->ci_lo, s->ci_hi};
+            sl_yaml_kv_numbers(&w, "mean_log_ratio_ci95", ci, 2);
+            sl_yaml_kv_number(&w, "p_value", s->p_value);
+            sl_yaml_kv_string(&w, "source", s->source);
+            sl_yaml_map_end(&w);
+        }
+        sl_yaml_seq_end(&w);
+    }
     sl_yaml_map_end(&w);
     return sl_yaml_writer_close(&w, err);
 }

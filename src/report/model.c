@@ -77,6 +77,17 @@ static void text_show(FILE *fp, const sl_model *m)
     }
     fprintf(fp, "\n    from %s [%s]%s\n", mc->transfer.source, mc->transfer.mark,
             mc->transfer.is_default ? " (built-in defaults: the model file states none)" : "");
+    /* in-vivo scale factors (invivo propose --scale) with their evidence */
+    for (size_t i = 0; i < m->nscales; i++) {
+        const sl_model_scale *s = &m->scales[i];
+        fprintf(fp, "  IN-VIVO SCALE %g MeV, applicator %s: dose times %.4f (relative "
+                    "uncertainty %.4f in the transfer part)\n    from %d readings %s to %s: mean "
+                    "log ratio measured/estimated %.4f, 95 %% interval %.4f to %.4f, t test p = "
+                    "%.3g; %s\n",
+                s->energy_mev, s->applicator, s->factor, sl_model_scale_rel_u(s), s->readings,
+                s->first_date, s->last_date, s->mean_log_ratio, s->ci_lo, s->ci_hi, s->p_value,
+                s->source);
+    }
     fprintf(fp, "  applicators:");
     for (size_t i = 0; i < mc->napplicators; i++)
         fprintf(fp, "%s %s (%s %g x %g cm)", i ? "," : "", mc->applicators[i].id,
@@ -219,6 +230,25 @@ static json_object *json_show(jw *w, const sl_model *m)
     }
     jw_put(w, tr, "bands", bands);
     jw_put(w, root, "transfer_uncertainty", tr);
+    json_object *scales = json_object_new_array();
+    for (size_t i = 0; i < m->nscales; i++) {
+        const sl_model_scale *s = &m->scales[i];
+        json_object *so = json_object_new_object();
+        jw_num(w, so, "energy_mev", s->energy_mev);
+        jw_str(w, so, "applicator", s->applicator);
+        jw_num(w, so, "factor", s->factor);
+        jw_num(w, so, "relative_uncertainty", sl_model_scale_rel_u(s));
+        jw_int(w, so, "readings", s->readings);
+        jw_str(w, so, "first_date", s->first_date);
+        jw_str(w, so, "last_date", s->last_date);
+        jw_num(w, so, "mean_log_ratio", s->mean_log_ratio);
+        jw_num(w, so, "mean_log_ratio_ci95_low", s->ci_lo);
+        jw_num(w, so, "mean_log_ratio_ci95_high", s->ci_hi);
+        jw_num(w, so, "p_value", s->p_value);
+        jw_str(w, so, "source", s->source);
+        jw_append(w, scales, so);
+    }
+    jw_put(w, root, "invivo_scales", scales);
     json_object *apps = json_object_new_array();
     for (size_t i = 0; i < mc->napplicators; i++) {
         json_object *a = json_object_new_object();
@@ -298,7 +328,8 @@ sl_status sl_report_model(FILE *fp, sl_format fmt, const sl_model *m, sl_error *
 static const unsigned all_flags[] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
                                      SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
                                      SL_MF_POINTS_MODE,     SL_MF_POOR_FIT,
-                                     SL_MF_TILT_OUTSIDE,    SL_MF_SSD_OUTSIDE};
+                                     SL_MF_TILT_OUTSIDE,    SL_MF_SSD_OUTSIDE,
+                                     SL_MF_INVIVO_SCALED};
 
 sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
                                 const char *applicator, const char *insert, double depth_cm,
@@ -327,6 +358,10 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
                     v->electron_percent, v->photon_percent, v->depth_used_cm);
             fprintf(fp, "  tilt used %+.2f deg, SSD used %.2f cm; uncertainty tilt/SSD %.4f %%\n",
                     v->tilt_used_deg, v->ssd_used_cm, v->u_uncommissioned);
+            if (v->flags & SL_MF_INVIVO_SCALED)
+                fprintf(fp, "  SCALED BY IN-VIVO EVIDENCE: dose times %.4f (model file "
+                            "invivo_scales; its uncertainty is in the transfer part)\n",
+                        v->scale);
         }
         for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
             if (v->flags & all_flags[i])
@@ -355,6 +390,7 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
     jw_num_opt(&w, o, "electron_percent", in_field ? NAN : v->electron_percent);
     jw_num_opt(&w, o, "photon_percent", in_field ? NAN : v->photon_percent);
     jw_num_opt(&w, o, "uncertainty_tilt_ssd_percent", in_field ? NAN : v->u_uncommissioned);
+    jw_num(&w, o, "invivo_scale", v->scale);
     jw_num(&w, o, "depth_used_cm", v->depth_used_cm);
     jw_num_opt(&w, o, "tilt_used_deg", in_field ? NAN : v->tilt_used_deg);
     jw_num_opt(&w, o, "ssd_used_cm", in_field ? NAN : v->ssd_used_cm);
@@ -362,7 +398,7 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
     static const char *const names[] = {"in_field", "depth_outside_commissioned_range",
                                         "extrapolated", "standin_for_uncommissioned_cutout",
                                         "points_mode", "poor_fit", "tilt_not_commissioned",
-                                        "ssd_not_commissioned"};
+                                        "ssd_not_commissioned", "scaled_by_invivo_evidence"};
     for (size_t i = 0; i < sizeof all_flags / sizeof *all_flags; i++) {
         if (v->flags & all_flags[i])
             jw_append(&w, flags, json_object_new_string(names[i]));

@@ -263,6 +263,20 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
                          bd->place->beam->number, bd->place->obliquity_deg,
                          SL_OBLIQUITY_CAUTION_DEG);
     }
+    /* a model scaled by in-vivo evidence says so beside every beam it
+     * scaled, with the evidence: nothing changes a model silently */
+    for (size_t b = 0; r->model && b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        const sl_model_scale *s = sl_model_find_scale(r->model, bd->energy_mev, bd->applicator);
+        if (s)
+            sl_notes_add(out, "beam %d: MODEL SCALED BY IN-VIVO EVIDENCE: the model's dose for "
+                              "%g MeV, applicator %s is multiplied by %.4f (model version %s; %d "
+                              "readings %s to %s, mean log ratio measured/estimated %.4f, 95 %% "
+                              "interval %.4f to %.4f, t test p = %.2g; from %s)",
+                         bd->place->beam->number, s->energy_mev, s->applicator, s->factor,
+                         r->model->model_version, s->readings, s->first_date, s->last_date,
+                         s->mean_log_ratio, s->ci_lo, s->ci_hi, s->p_value, s->source);
+    }
     bolus_cautions(r->loc, out);
     static const struct {
         unsigned flag;
@@ -278,6 +292,9 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
         {SL_MF_SSD_OUTSIDE, "SSD not commissioned: beyond the commissioned SSDs (the nearest is "
                             "used, uncertainty widened, the upper bound never below the "
                             "nominal-SSD estimate)"},
+        {SL_MF_INVIVO_SCALED, "scaled by in-vivo evidence: the model's dose times the in-vivo "
+                              "scale factor (the upper bound never below the unscaled "
+                              "estimate)"},
     };
     for (size_t k = 0; k < sizeof kinds / sizeof kinds[0]; k++) {
         sl_buf b = {0};

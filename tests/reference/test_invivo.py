@@ -431,3 +431,167 @@ class Propose(unittest.TestCase):
 
 if __name__ == "__main__":
     unittest.main()
+
+
+class Scale(unittest.TestCase):
+    """invivo propose --scale: an in-vivo scale factor per energy and
+    applicator. Sources: synthetic readings drawn with numpy from a known
+    bias; the evidence (mean, 95 % interval by Student's t, two-sided t test)
+    recomputed with numpy and scipy.stats (t.ppf, ttest_1samp); the factor
+    exp(mean log ratio) and the scaled dose by hand (math.exp, a product);
+    the PDF read back with poppler's pdftotext. The rule that a scale below 1
+    lowers the estimate but not the upper bound below the unscaled estimate
+    is this project's conservative choice (models/README.md)."""
+
+    synthetic_log = Statistics.synthetic_log
+
+    @classmethod
+    def setUpClass(cls):
+        Statistics.setUpClass.__func__(cls)
+        cls.plan = os.path.join(FACE, "rtplan.dcm")
+        cls.ss = os.path.join(FACE, "rtstruct.dcm")
+        cls.before = run_json("estimate", cls.plan, cls.ss, "--model", MODEL, "-f", "json",
+                              check=4)
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmp.cleanup()
+
+    def scaled_model(self, name, r):
+        log = self.synthetic_log(name + ".sqlite", r, 0.05)
+        new = os.path.join(self.tmp.name, name + ".yaml")
+        rc, out, err = run("invivo", "propose", "--scale", "--model", MODEL, "--log", log,
+                           "-o", new)
+        return rc, err, log, new
+
+    def test_known_bias_gives_the_expected_factor(self):
+        """12 readings drawn with numpy from a bias of 0.2 in log ratio: the
+        factor is exp(mean) (numpy), its interval the t interval
+        (scipy.stats.t), its p the t test (scipy.stats.ttest_1samp), the true
+        factor exp(0.2) lies within exp(interval), and the version changes."""
+        rng = np.random.default_rng(18)
+        r = 0.2 + 0.1 * rng.standard_normal(12)
+        rc, err, log, new = self.scaled_model("bias", r)
+        self.assertEqual(rc, 0, err)
+        show = run_json("model", "show", new, "-f", "json")
+        self.assertEqual(len(show["invivo_scales"]), 1)
+        s = show["invivo_scales"][0]
+        row = rows(log)[0]
+        self.assertEqual(s["energy_mev"], float(row["energy"]))
+        self.assertEqual(s["applicator"], row["applicator"])
+        n, m, sd = len(r), r.mean(), r.std(ddof=1)
+        half = stats.t.ppf(0.975, n - 1) * sd / math.sqrt(n)
+        self.assertEqual(s["readings"], n)
+        self.assertAlmostEqual(s["mean_log_ratio"], m, places=9)
+        self.assertAlmostEqual(s["factor"], math.exp(m), places=9)
+        self.assertAlmostEqual(s["mean_log_ratio_ci95_low"], m - half, places=8)
+        self.assertAlmostEqual(s["mean_log_ratio_ci95_high"], m + half, places=8)
+        self.assertAlmostEqual(s["relative_uncertainty"], half, places=8)
+        self.assertAlmostEqual(s["p_value"], stats.ttest_1samp(r, 0.0).pvalue, places=8)
+        self.assertLess(s["p_value"], 0.05)
+        self.assertTrue(math.exp(s["mean_log_ratio_ci95_low"]) <= math.exp(0.2)
+                        <= math.exp(s["mean_log_ratio_ci95_high"]))
+        self.assertIn("in-vivo readings of the screening log", s["source"])
+        self.assertEqual(s["first_date"], "2026-03-01")
+        self.assertEqual(s["last_date"], "2026-03-12")
+        old = run_json("model", "show", MODEL, "-f", "json")
+        self.assertEqual(old["invivo_scales"], [])
+        self.assertNotEqual(show["model_version"], old["model_version"])
+        rc, text, _ = run("model", "show", new)
+        self.assertIn("IN-VIVO SCALE 9 MeV, applicator %s: dose times %.4f"
+                      % (row["applicator"], math.exp(m)), text)
+        self.assertIn("scale %.4f from 12 readings" % math.exp(m), err)
+
+    def test_no_significant_bias_no_scale(self):
+        """Readings whose mean is 0 (t test p = 1 by scipy.stats.ttest_1samp)
+        get no scale, and the command says why; 4 readings with a clear bias
+        get none either (fewer than 5), and with no band changed no file is
+        written."""
+        rng = np.random.default_rng(5)
+        r = 0.1 * rng.standard_normal(12)
+        r -= r.mean()
+        self.assertGreater(stats.ttest_1samp(r, 0.0).pvalue, 0.05)
+        rc, err, log, new = self.scaled_model("nobias", r)
+        self.assertEqual(rc, 0, err)  # the transfer band of 12 readings still changes
+        self.assertIn("no scale: bias not significant", err)
+        self.assertEqual(run_json("model", "show", new, "-f", "json")["invivo_scales"], [])
+        few = 0.3 + 0.01 * rng.standard_normal(4)
+        self.assertLess(stats.ttest_1samp(few, 0.0).pvalue, 0.05)
+        rc, err, log, new = self.scaled_model("few", few)
+        self.assertEqual(rc, 3, err)
+        self.assertIn("4 readings, fewer than 5", err)
+        self.assertIn("no model written", err)
+        self.assertFalse(os.path.exists(new))
+
+    def organs(self, d):
+        return {o["roi"]: o for o in d["organs"] if o["estimated"]}
+
+    def test_estimate_scaled_by_exactly_the_factor_in_every_format(self):
+        """estimate with the scaled model: every organ's course dose is the
+        old one times the factor (by hand), marked in JSON, text, CSV, HTML
+        and PDF (pdftotext) with the evidence; model eval likewise; the old
+        model still gives the old numbers."""
+        rng = np.random.default_rng(181)
+        r = 0.25 + 0.1 * rng.standard_normal(10)
+        rc, err, log, new = self.scaled_model("est", r)
+        self.assertEqual(rc, 0, err)
+        f = run_json("model", "show", new, "-f", "json")["invivo_scales"][0]["factor"]
+        self.assertAlmostEqual(f, math.exp(r.mean()), places=9)
+        after = run_json("estimate", self.plan, self.ss, "--model", new, "--levels", LEVELS,
+                         "-f", "json", check=None)
+        a, b = self.organs(after), self.organs(self.before)
+        self.assertEqual(set(a), set(b))
+        for roi in b:
+            for key in ("course_max_cgy", "course_mean_cgy", "course_nearest_cgy"):
+                self.assertAlmostEqual(a[roi][key] / b[roi][key], f, places=6, msg=roi + key)
+            self.assertIn("scaled_by_invivo_evidence", a[roi]["flags"])
+            self.assertNotIn("scaled_by_invivo_evidence", b[roi]["flags"])
+        caution = [c for c in after["result"]["case_cautions"] if "MODEL SCALED BY IN-VIVO EVIDENCE" in c]
+        self.assertEqual(len(caution), 1)
+        self.assertIn("multiplied by %.4f" % f, caution[0])
+        self.assertIn("10 readings", caution[0])
+        again = run_json("estimate", self.plan, self.ss, "--model", MODEL, "-f", "json", check=4)
+        self.assertEqual(self.organs(again), b)
+        base = ("estimate", self.plan, self.ss, "--model", new, "--levels", LEVELS)
+        rc, text, _ = run(*base)
+        self.assertIn("[in-vivo scale]", text)
+        self.assertIn("MODEL SCALED BY IN-VIVO EVIDENCE", text)
+        rc, csvtext, _ = run(*base, "-f", "csv")
+        self.assertIn("scaled_by_invivo_evidence", csvtext)
+        self.assertIn("MODEL SCALED BY IN-VIVO EVIDENCE", csvtext)
+        html = os.path.join(self.tmp.name, "est.html")
+        pdf = os.path.join(self.tmp.name, "est.pdf")
+        run(*base, "--html", html, "--pdf", pdf)
+        with open(html, encoding="utf-8") as fh:
+            h = fh.read()
+        self.assertIn("MODEL SCALED BY IN-VIVO EVIDENCE", h)
+        self.assertIn("[in-vivo scale]", h)
+        txt = subprocess.run(["pdftotext", "-layout", pdf, "-"], capture_output=True, text=True,
+                             check=True).stdout
+        self.assertIn("MODEL SCALED BY IN-VIVO EVIDENCE", " ".join(txt.split()))
+        q = ("--energy", 9, "--applicator", "A06", "--depth", 1, "--distance", 6, "-f", "json")
+        ev_new = run_json("model", "eval", new, *q)
+        ev_old = run_json("model", "eval", MODEL, *q)
+        self.assertAlmostEqual(ev_new["dose_percent"] / ev_old["dose_percent"], f, places=8)
+        self.assertAlmostEqual(ev_new["invivo_scale"], f, places=9)
+        self.assertIn("scaled_by_invivo_evidence", ev_new["flags"])
+
+    def test_scale_below_one_keeps_the_upper_bound(self):
+        """A bias of -0.3 (the model overestimates): the estimate is scaled
+        by the factor (by hand) but every organ's upper bound (k = 2) stays
+        at least the unscaled estimate (the project's conservative rule)."""
+        rng = np.random.default_rng(182)
+        r = -0.3 + 0.08 * rng.standard_normal(10)
+        rc, err, log, new = self.scaled_model("down", r)
+        self.assertEqual(rc, 0, err)
+        self.assertIn("the upper bound stays at least the unscaled estimate", err)
+        f = math.exp(r.mean())
+        self.assertLess(f, 1)
+        after = run_json("estimate", self.plan, self.ss, "--model", new, "--levels", LEVELS,
+                         "-f", "json", check=None)
+        a, b = self.organs(after), self.organs(self.before)
+        for roi in b:
+            self.assertAlmostEqual(a[roi]["course_max_cgy"] / b[roi]["course_max_cgy"], f,
+                                   places=6)
+            self.assertGreaterEqual(a[roi]["course_max_upper_cgy"],
+                                    b[roi]["course_max_cgy"] * (1 - 1e-9), roi)

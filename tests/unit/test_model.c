@@ -245,6 +245,95 @@ START_TEST(evaluation_refuses_what_is_not_commissioned)
 }
 END_TEST
 
+/* An in-vivo scale (models/README.md, invivo_scales): the value and every
+ * component times the factor, the scale's relative uncertainty (half its
+ * 95 % interval) joined to the transfer component in quadrature, the value
+ * marked; below 1 the upper bound (k = 2) stays at the unscaled value (the
+ * project's conservative rule); written and read back exactly. Checked by
+ * hand arithmetic (hypot, products). */
+static void add_scale(sl_model *m, double e, const char *app, double f, double lo, double hi)
+{
+    sl_model_scale *ns = realloc(m->scales, (m->nscales + 1) * sizeof *ns);
+    ck_assert_ptr_nonnull(ns);
+    m->scales = ns;
+    sl_model_scale *s = &m->scales[m->nscales++];
+    memset(s, 0, sizeof *s);
+    s->energy_mev = e;
+    s->applicator = strdup(app);
+    s->factor = f;
+    s->readings = 9;
+    s->first_date = strdup("2026-03-01");
+    s->last_date = strdup("2026-03-09");
+    s->mean_log_ratio = log(f);
+    s->ci_lo = lo;
+    s->ci_hi = hi;
+    s->p_value = 0.003;
+    s->source = strdup("invented test evidence");
+}
+
+START_TEST(invivo_scale_applied_and_round_tripped)
+{
+    sl_model *m, *b;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_model_load(demo_model(), &m, &e), SL_OK);
+    sl_model_value v0, v1, c0, c1;
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", NULL, 1, 6, SL_EVAL_FIT, &v0, &e), SL_OK);
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", "CUSTOM", 1, 6, SL_EVAL_FIT, &c0, &e), SL_OK);
+    add_scale(m, 9, "A10", 1.3, log(1.3) - 0.06, log(1.3) + 0.06);
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", NULL, 1, 6, SL_EVAL_FIT, &v1, &e), SL_OK);
+    ck_assert_double_eq_tol(v1.percent, 1.3 * v0.percent, 1e-12 * v0.percent);
+    ck_assert_double_eq_tol(v1.u_fit, 1.3 * v0.u_fit, 1e-12 * v0.percent);
+    ck_assert_double_eq_tol(v1.u_meas, 1.3 * v0.u_meas, 1e-12 * v0.percent);
+    double rel = v0.u_transfer / v0.percent;
+    ck_assert_double_eq_tol(v1.u_transfer, hypot(rel, 0.06) * v1.percent, 1e-9 * v1.percent);
+    ck_assert(v1.flags & SL_MF_INVIVO_SCALED);
+    ck_assert(!(v0.flags & SL_MF_INVIVO_SCALED));
+    ck_assert_double_eq(v1.scale, 1.3);
+    ck_assert_double_eq(v0.scale, 1.0);
+    /* the stand-in of an uncommissioned cutout is scaled alike */
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", "CUSTOM", 1, 6, SL_EVAL_FIT, &c1, &e), SL_OK);
+    ck_assert_double_eq_tol(c1.percent, 1.3 * c0.percent, 1e-12 * c0.percent);
+    /* another energy is untouched */
+    ck_assert_int_eq(sl_model_eval(m, 12, "A10", NULL, 1, 6, SL_EVAL_FIT, &v1, &e), SL_OK);
+    ck_assert(!(v1.flags & SL_MF_INVIVO_SCALED));
+    /* below 1: the estimate drops, the upper bound does not drop below the unscaled value */
+    add_scale(m, 6, "A10", 0.4, log(0.4) - 0.01, log(0.4) + 0.01);
+    ck_assert_int_eq(sl_model_eval(m, 6, "A10", NULL, 1, 2, SL_EVAL_FIT, &v1, &e), SL_OK);
+    free(m->scales[1].applicator);
+    m->nscales--;
+    ck_assert_int_eq(sl_model_eval(m, 6, "A10", NULL, 1, 2, SL_EVAL_FIT, &v0, &e), SL_OK);
+    m->nscales++;
+    m->scales[1].applicator = strdup("A10");
+    ck_assert_double_eq_tol(v1.percent, 0.4 * v0.percent, 1e-12 * v0.percent);
+    ck_assert(v1.percent + 2 * v1.u_percent >= v0.percent * (1 - 1e-12));
+    /* in field: nothing to scale */
+    ck_assert_int_eq(sl_model_eval(m, 9, "A10", NULL, 1, -1, SL_EVAL_FIT, &v1, &e), SL_OK);
+    ck_assert(isnan(v1.percent) && v1.scale == 1.0);
+    /* written and read back exactly */
+    char path[] = "/tmp/sl_model_XXXXXX";
+    int fd = mkstemp(path);
+    FILE *fp = fdopen(fd, "w");
+    ck_assert_int_eq(sl_model_write(m, fp, &e), SL_OK);
+    fclose(fp);
+    ck_assert_int_eq(sl_model_load(path, &b, &e), SL_OK);
+    unlink(path);
+    ck_assert_uint_eq(b->nscales, 2);
+    for (size_t i = 0; i < 2; i++) {
+        const sl_model_scale *x = &m->scales[i], *y = &b->scales[i];
+        ck_assert(x->energy_mev == y->energy_mev && x->factor == y->factor &&
+                  x->ci_lo == y->ci_lo && x->ci_hi == y->ci_hi && x->p_value == y->p_value &&
+                  x->mean_log_ratio == y->mean_log_ratio && x->readings == y->readings);
+        ck_assert_str_eq(x->applicator, y->applicator);
+        ck_assert_str_eq(x->source, y->source);
+        ck_assert_str_eq(x->first_date, y->first_date);
+    }
+    ck_assert_ptr_eq(sl_model_find_scale(b, 9, "A06"), NULL);
+    ck_assert_ptr_nonnull(sl_model_find_scale(b, 9, "A10"));
+    sl_model_free(m);
+    sl_model_free(b);
+}
+END_TEST
+
 static Suite *model_suite(void)
 {
     Suite *s = suite_create("model");
@@ -256,6 +345,7 @@ static Suite *model_suite(void)
     tcase_add_test(tc, fit_recovers_known_parameters);
     tcase_add_test(tc, model_round_trip_is_exact);
     tcase_add_test(tc, evaluation_refuses_what_is_not_commissioned);
+    tcase_add_test(tc, invivo_scale_applied_and_round_tripped);
     suite_add_tcase(s, tc);
     return s;
 }

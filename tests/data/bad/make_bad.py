@@ -718,6 +718,24 @@ def yaml_cases():
     model_case("model_negative_length.yaml",
                lambda d: fit0(d)["parameters"].update(lambda1_cm=-1.0),
                "lambda1_cm: -1 lies outside")
+
+    def scale(factor, energy=9, applicator="A10"):
+        # an in-vivo scale factor (invivo_scales, models/README.md) with its evidence
+        def mutate(d):
+            d["invivo_scales"] = [{"energy_mev": energy, "applicator": applicator,
+                                   "factor": factor, "readings": 8,
+                                   "first_date": "2026-03-01", "last_date": "2026-03-09",
+                                   "mean_log_ratio": 0.1, "mean_log_ratio_ci95": [0.05, 0.15],
+                                   "p_value": 0.01, "source": "invented test evidence"}]
+        return mutate
+    model_case("model_scale_zero.yaml", scale(0.0),
+               "factor 0 is outside the plausible 0.2 to 5")
+    model_case("model_scale_negative.yaml", scale(-1.2),
+               "factor -1.2 is outside the plausible 0.2 to 5")
+    model_case("model_scale_absurd.yaml", scale(7.5),
+               "factor 7.5 is outside the plausible 0.2 to 5")
+    model_case("model_scale_uncommissioned.yaml", scale(1.1, applicator="A15"),
+               "9 MeV, applicator A15 is not commissioned")
     model_case("model_nan.yaml", lambda d: fit0(d)["parameters"].update(c_percent=float("nan")),
                "c_percent: '.nan' is not a finite number")
     model_case("model_inf.yaml", lambda d: d["outputs"][0].update(dose_per_mu_cgy=float("inf")),
