@@ -526,6 +526,17 @@ static void compose(pdoc *d, const sl_estimate_report *r, const char *date)
     sl_notes_free(&w);
 }
 
+typedef struct compose_ctx {
+    const sl_estimate_report *r;
+    const char *date;
+} compose_ctx;
+
+static void compose_pass(pdoc *d, const void *ctx)
+{
+    const compose_ctx *c = ctx;
+    compose(d, c->r, c->date);
+}
+
 sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
                                  unsigned char **pdf, size_t *len, sl_error *err)
 {
@@ -549,23 +560,6 @@ sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
              orq(p->patient_id));
     snprintf(d.foot_left, sizeof d.foot_left, "plan %s (%s); report %s", orq(p->label),
              orq(p->sop_instance_uid), date);
-    double w, h;
-    pdoc_paper(paper, &w, &h);
-    int total = 0;
-    for (int pass = 0; pass < 2; pass++) {
-        if (!pdoc_begin(&d, w, h, total)) {
-            pdoc_free(&d);
-            return sl_error_set(err, SL_EINTERNAL, "cannot start the PDF (cairo)");
-        }
-        compose(&d, r, date);
-        total = d.page;
-        pdoc_end(&d);
-    }
-    if (d.failed || d.out.failed || !d.out.len) {
-        pdoc_free(&d);
-        return sl_error_set(err, SL_ENOMEM, "cannot write the PDF (cairo)");
-    }
-    *pdf = (unsigned char *)d.out.data;
-    *len = d.out.len;
-    return SL_OK;
+    compose_ctx c = {r, date};
+    return pdoc_render(&d, paper, compose_pass, &c, pdf, len, err);
 }

@@ -268,6 +268,17 @@ static void compose(pdoc *d, const sl_invivo_report *r, const char *date)
         }
 }
 
+typedef struct compose_ctx {
+    const sl_invivo_report *r;
+    const char *date;
+} compose_ctx;
+
+static void compose_pass(pdoc *d, const void *ctx)
+{
+    const compose_ctx *c = ctx;
+    compose(d, c->r, c->date);
+}
+
 sl_status sl_report_invivo_pdf(const sl_invivo_report *r, const char *paper,
                                unsigned char **pdf, size_t *len, sl_error *err)
 {
@@ -283,23 +294,6 @@ sl_status sl_report_invivo_pdf(const sl_invivo_report *r, const char *paper,
     snprintf(d.head_left, sizeof d.head_left, "strayline in-vivo readings: SCREENING ESTIMATES");
     snprintf(d.head_right, sizeof d.head_right, "log %s", r->log_path);
     snprintf(d.foot_left, sizeof d.foot_left, "report %s", date);
-    double w, h;
-    pdoc_paper(paper, &w, &h);
-    int total = 0;
-    for (int pass = 0; pass < 2; pass++) {
-        if (!pdoc_begin(&d, w, h, total)) {
-            pdoc_free(&d);
-            return sl_error_set(err, SL_EINTERNAL, "cannot start the PDF (cairo)");
-        }
-        compose(&d, r, date);
-        total = d.page;
-        pdoc_end(&d);
-    }
-    if (d.failed || d.out.failed || !d.out.len) {
-        pdoc_free(&d);
-        return sl_error_set(err, SL_ENOMEM, "cannot write the PDF (cairo)");
-    }
-    *pdf = (unsigned char *)d.out.data;
-    *len = d.out.len;
-    return SL_OK;
+    compose_ctx c = {r, date};
+    return pdoc_render(&d, paper, compose_pass, &c, pdf, len, err);
 }

@@ -348,3 +348,29 @@ void pdoc_free(pdoc *d)
     pdoc_end(d);
     sl_buf_free(&d->out);
 }
+
+sl_status pdoc_render(pdoc *d, const char *paper, pdoc_compose_fn compose, const void *ctx,
+                      unsigned char **pdf, size_t *len, sl_error *err)
+{
+    *pdf = NULL;
+    *len = 0;
+    double w, h;
+    pdoc_paper(paper, &w, &h);
+    int total = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        if (!pdoc_begin(d, w, h, total)) {
+            pdoc_free(d);
+            return sl_error_set(err, SL_EINTERNAL, "cannot start the PDF (cairo)");
+        }
+        compose(d, ctx);
+        total = d->page;
+        pdoc_end(d);
+    }
+    if (d->failed || d->out.failed || !d->out.len) {
+        pdoc_free(d);
+        return sl_error_set(err, SL_ENOMEM, "cannot write the PDF (cairo)");
+    }
+    *pdf = (unsigned char *)d->out.data;
+    *len = d->out.len;
+    return SL_OK;
+}

@@ -40,6 +40,14 @@ bool pdoc_begin(pdoc *d, double w, double h, int total);
 void pdoc_end(pdoc *d);
 void pdoc_free(pdoc *d);
 
+/* The whole document: paper ("a4" or "letter"), the running head and foot
+ * already set in d, compose called once a pass, and on success the PDF's
+ * bytes handed over in pdf/len (the caller frees them). Every report's PDF
+ * is made so, whatever it composes. */
+typedef void (*pdoc_compose_fn)(pdoc *d, const void *ctx);
+sl_status pdoc_render(pdoc *d, const char *paper, pdoc_compose_fn compose, const void *ctx,
+                      unsigned char **pdf, size_t *len, sl_error *err);
+
 void pdoc_new_page(pdoc *d);
 /* Make room for `need` points, starting a new page if they do not fit. */
 void pdoc_need(pdoc *d, double need);
