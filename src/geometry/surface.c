@@ -809,24 +809,18 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
     const double eps = 1e-9;
     size_t ne = s->ne, ecap = w->ecap;
     if (ne > ecap) {
-        size_t c = ecap;
-        if (grow((void **)&w->xa, &c, ne, sizeof(double)) != SL_OK)
-            return SL_ENOMEM;
-        c = ecap;
-        if (grow((void **)&w->xb, &c, ne, sizeof(double)) != SL_OK)
-            return SL_ENOMEM;
-        c = ecap;
-        if (grow((void **)&w->ta, &c, ne, sizeof(double)) != SL_OK)
-            return SL_ENOMEM;
-        c = ecap;
-        if (grow((void **)&w->tb, &c, ne, sizeof(double)) != SL_OK)
-            return SL_ENOMEM;
-        c = ecap;
-        if (grow((void **)&w->j0, &c, ne, sizeof(int)) != SL_OK)
-            return SL_ENOMEM;
-        c = ecap;
-        if (grow((void **)&w->j1, &c, ne, sizeof(int)) != SL_OK)
-            return SL_ENOMEM;
+        /* the per-edge scratch arrays grow together */
+        struct {
+            void **p;
+            size_t size;
+        } a[] = {{(void **)&w->xa, sizeof(double)}, {(void **)&w->xb, sizeof(double)},
+                 {(void **)&w->ta, sizeof(double)}, {(void **)&w->tb, sizeof(double)},
+                 {(void **)&w->j0, sizeof(int)},    {(void **)&w->j1, sizeof(int)}};
+        for (size_t k = 0; k < sizeof a / sizeof *a; k++) {
+            size_t c = ecap;
+            if (grow(a[k].p, &c, ne, a[k].size) != SL_OK)
+                return SL_ENOMEM;
+        }
         w->ecap = ne;
     }
     fs->bin_start = calloc((size_t)nb + 1, sizeof *fs->bin_start);
