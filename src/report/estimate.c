@@ -219,6 +219,37 @@ void est_tps_row_name(const sl_tps_ratio *t, char *buf, size_t size)
         snprintf(buf, size, "every beam");
 }
 
+void est_tps_ratio_cells(const sl_tps_ratio *t, char cells[6][32])
+{
+    est_tps_row_name(t, cells[0], sizeof cells[0]);
+    snprintf(cells[1], sizeof cells[1], "%.1f to %.1f", t->lo_cm, t->hi_cm);
+    snprintf(cells[2], sizeof cells[2], "%zu", t->n);
+    snprintf(cells[3], sizeof cells[3], "%.3f", t->mean);
+    snprintf(cells[4], sizeof cells[4], "%.3f", t->min);
+    snprintf(cells[5], sizeof cells[5], "%.3f", t->max);
+}
+
+void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl_assessment *a,
+                          double s, est_dose_cells *c)
+{
+    char x[24], y[24];
+    if (e->ngroups == 1) {
+        est_num(s * d->fx_max[0].cgy, x, sizeof x);
+        est_num(s * d->fx_max[0].upper_cgy, y, sizeof y);
+        snprintf(c->fx, sizeof c->fx, "%s (%s)", x, y);
+    } else {
+        snprintf(c->fx, sizeof c->fx, "by group (JSON)");
+    }
+    est_num(s * d->course_max.cgy, x, sizeof x);
+    est_num(s * d->course_max.upper_cgy, y, sizeof y);
+    snprintf(c->course, sizeof c->course, "%s (%s)", x, y);
+    est_num(s * d->course_mean.cgy, c->mean, sizeof c->mean);
+    if (a->governing)
+        est_num(s * 100 * a->governing->dose_gy, c->level, sizeof c->level);
+    else
+        snprintf(c->level, sizeof c->level, a->status == SL_ST_BAND ? "bands" : "-");
+}
+
 const char *est_kind(const sl_assessment *a)
 {
     return a->kind ? a->kind->kind : "-";
@@ -370,32 +401,16 @@ static void text_table(FILE *fp, const sl_estimate_report *r, bool fetus)
             fprintf(fp, "%-18s %-14s %8s %9s %19s %19s %9s %8s\n", "", "", "cm", "cm", h1, h1,
                     h2, h3);
         }
-        char depth[24], fx[48], course[48], mean[16], level[24], status[EST_STATUS_LEN];
+        char depth[24], status[EST_STATUS_LEN];
         snprintf(depth, sizeof depth, "%.1f-%.1f", d->min_depth_cm, d->max_depth_cm);
-        char x[24], y[24];
-        if (e->ngroups == 1) {
-            est_num(s * d->fx_max[0].cgy, x, sizeof x);
-            est_num(s * d->fx_max[0].upper_cgy, y, sizeof y);
-            snprintf(fx, sizeof fx, "%s (%s)", x, y);
-        } else {
-            snprintf(fx, sizeof fx, "by group (JSON)");
-        }
-        est_num(s * d->course_max.cgy, x, sizeof x);
-        est_num(s * d->course_max.upper_cgy, y, sizeof y);
-        snprintf(course, sizeof course, "%s (%s)", x, y);
-        est_num(s * d->course_mean.cgy, mean, sizeof mean);
-        if (a->governing)
-            est_num(s * 100 * a->governing->dose_gy, level, sizeof level);
-        else if (a->status == SL_ST_BAND)
-            snprintf(level, sizeof level, "bands");
-        else
-            snprintf(level, sizeof level, "-");
+        est_dose_cells c;
+        est_organ_dose_cells(e, d, a, s, &c);
         est_status_text(a, status, sizeof status);
         char marks[96];
         est_marks(d, false, marks, sizeof marks);
         fprintf(fp, "%-18.18s %-14.14s %8.2f %9s %19s %19s %9s %8s  %s%s%s\n",
                 sl_text_escape(d->roi->name, nm, sizeof nm), est_kind(a), d->min_distance_cm,
-                depth, fx, course, mean, level, status, marks,
+                depth, c.fx, c.course, c.mean, c.level, status, marks,
                 est_whatif_mark(r, d->roi->name));
     }
 }

@@ -54,6 +54,20 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size);
 const char *est_tps_source(const sl_organ_dose *d);
 void est_tps_u_text(char *buf, size_t size);
 void est_tps_row_name(const sl_tps_ratio *t, char *buf, size_t size);
+/* A comparison row's cells as the HTML and PDF tables show them: its name,
+ * the distance bin (cm), the samples, and the mean, smallest and largest
+ * ratio model / planning system. */
+void est_tps_ratio_cells(const sl_tps_ratio *t, char cells[6][32]);
+
+/* An organ row's dose cells in the unit of its table (scale s: 1 for cGy,
+ * 10 for mGy), as the text and PDF tables show them: the maximum a fraction
+ * and the course maximum, each "estimate (upper bound)", the course mean,
+ * and the governing level ("bands" for risk bands, "-" without one). */
+typedef struct est_dose_cells {
+    char fx[48], course[48], mean[24], level[24];
+} est_dose_cells;
+void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl_assessment *a,
+                          double s, est_dose_cells *c);
 
 /* The kind's name or "-". */
 const char *est_kind(const sl_assessment *a);

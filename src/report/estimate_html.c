@@ -182,16 +182,11 @@ static void tps_section(hdoc *h, xmlNodePtr b, const sl_estimate_report *r)
     hrow(h, rt, true, rh, 6);
     for (size_t k = 0; k < e->nratios; k++) {
         const sl_tps_ratio *q = &e->ratios[k];
-        char name[32], c[5][32];
-        est_tps_row_name(q, name, sizeof name);
-        snprintf(c[0], sizeof c[0], "%.1f to %.1f", q->lo_cm, q->hi_cm);
-        snprintf(c[1], sizeof c[1], "%zu", q->n);
-        snprintf(c[2], sizeof c[2], "%.3f", q->mean);
-        snprintf(c[3], sizeof c[3], "%.3f", q->min);
-        snprintf(c[4], sizeof c[4], "%.3f", q->max);
+        char c[6][32];
+        est_tps_ratio_cells(q, c);
         xmlNodePtr tr = hel(h, rt, "tr", NULL);
-        hel(h, tr, "td", name);
-        for (int i = 0; i < 5; i++)
+        hel(h, tr, "td", c[0]);
+        for (int i = 1; i < 6; i++)
             hattr(h, hel(h, tr, "td", c[i]), "class", "n");
     }
     fig_tps_ctx tctx = {r};

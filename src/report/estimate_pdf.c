@@ -160,26 +160,12 @@ static void organ_table(pdoc *d, const sl_estimate_report *r, bool fetus)
             pdoc_table_head(d, &t);
             started = true;
         }
-        char nm[160], dist[24], depth[32], fx[48], course[48], mean[24], level[24],
-            st[EST_STATUS_LEN + 200], x[24], y[24], marks[120];
+        char nm[160], dist[24], depth[32], st[EST_STATUS_LEN + 200], marks[120];
         sl_text_escape(dd->roi->name, nm, sizeof nm);
         snprintf(dist, sizeof dist, "%.2f", dd->min_distance_cm);
         snprintf(depth, sizeof depth, "%.1f to %.1f", dd->min_depth_cm, dd->max_depth_cm);
-        if (e->ngroups == 1) {
-            est_num(s * dd->fx_max[0].cgy, x, sizeof x);
-            est_num(s * dd->fx_max[0].upper_cgy, y, sizeof y);
-            snprintf(fx, sizeof fx, "%s (%s)", x, y);
-        } else {
-            snprintf(fx, sizeof fx, "by group (JSON)");
-        }
-        est_num(s * dd->course_max.cgy, x, sizeof x);
-        est_num(s * dd->course_max.upper_cgy, y, sizeof y);
-        snprintf(course, sizeof course, "%s (%s)", x, y);
-        est_num(s * dd->course_mean.cgy, mean, sizeof mean);
-        if (a->governing)
-            est_num(s * 100 * a->governing->dose_gy, level, sizeof level);
-        else
-            snprintf(level, sizeof level, a->status == SL_ST_BAND ? "bands" : "-");
+        est_dose_cells c;
+        est_organ_dose_cells(e, dd, a, s, &c);
         est_status_text(a, st, sizeof st);
         est_marks(dd, false, marks, sizeof marks);
         strncat(st, marks, sizeof st - strlen(st) - 1);
@@ -189,7 +175,7 @@ static void organ_table(pdoc *d, const sl_estimate_report *r, bool fetus)
             snprintf(src, sizeof src, " [dose: %s]", est_tps_source(dd));
             strncat(st, src, sizeof st - strlen(st) - 1);
         }
-        const char *cells[] = {nm, est_kind(a), dist, depth, fx, course, mean, level, st};
+        const char *cells[] = {nm, est_kind(a), dist, depth, c.fx, c.course, c.mean, c.level, st};
         pdoc_table_row(d, &t, cells,
                        a->flagged ? fill_att : a->measurement_advised ? fill_meas : NULL, true);
     }
@@ -263,14 +249,9 @@ static void tps_section(pdoc *d, const sl_estimate_report *r)
     pdoc_table_head(d, &rt);
     for (size_t k = 0; k < e->nratios; k++) {
         const sl_tps_ratio *q = &e->ratios[k];
-        char name[32], c[5][32];
-        est_tps_row_name(q, name, sizeof name);
-        snprintf(c[0], sizeof c[0], "%.1f to %.1f", q->lo_cm, q->hi_cm);
-        snprintf(c[1], sizeof c[1], "%zu", q->n);
-        snprintf(c[2], sizeof c[2], "%.3f", q->mean);
-        snprintf(c[3], sizeof c[3], "%.3f", q->min);
-        snprintf(c[4], sizeof c[4], "%.3f", q->max);
-        const char *cells[] = {name, c[0], c[1], c[2], c[3], c[4]};
+        char c[6][32];
+        est_tps_ratio_cells(q, c);
+        const char *cells[] = {c[0], c[1], c[2], c[3], c[4], c[5]};
         pdoc_table_row(d, &rt, cells, NULL, false);
     }
     double tw = d->w - d->left - d->right;
