@@ -674,6 +674,20 @@ static double spans_union(sl_spans *spp, double *first)
     return total;
 }
 
+/* The path (cm) along a -> c through the union of the solids whose inside
+ * stretches sp holds (segment parameters); the first entry into entry_t.
+ * Frees sp. */
+static double spans_path(sl_spans *sp, sl_vec3 a, sl_vec3 c, double *entry_t)
+{
+    double first;
+    double total = spans_union(sp, &first);
+    if (entry_t)
+        *entry_t = first;
+    sl_spans_free(sp);
+    double dx = c.x - a.x, dy = c.y - a.y, dz = c.z - a.z;
+    return total * sqrt(dx * dx + dy * dy + dz * dz);
+}
+
 double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, sl_vec3 c,
                       double *entry_t)
 {
@@ -689,13 +703,7 @@ double sl_bodies_path(const sl_body *const *bodies, size_t nbodies, sl_vec3 a, s
             return NAN;
         }
     }
-    double first;
-    double total = spans_union(&sp, &first);
-    if (entry_t)
-        *entry_t = first;
-    sl_spans_free(&sp);
-    double dx = c.x - a.x, dy = c.y - a.y, dz = c.z - a.z;
-    return total * sqrt(dx * dx + dy * dy + dz * dz);
+    return spans_path(&sp, a, c, entry_t);
 }
 
 bool sl_body_contains(const sl_body *b, sl_vec3 p)
@@ -1176,11 +1184,5 @@ double sl_fans_path(const sl_body_fan *const *fans, size_t nfans, sl_vec3 p, dou
             return NAN;
         }
     }
-    double first;
-    double total = spans_union(&sp, &first);
-    if (entry_t)
-        *entry_t = first;
-    sl_spans_free(&sp);
-    double dx = p.x - fans[0]->src.x, dy = p.y - fans[0]->src.y, dz = p.z - fans[0]->src.z;
-    return total * sqrt(dx * dx + dy * dy + dz * dz);
+    return spans_path(&sp, fans[0]->src, p, entry_t);
 }
