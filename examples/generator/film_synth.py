@@ -32,11 +32,15 @@ def response(channel, dose):
     return r["a"] + b / (np.asarray(dose, dtype=float) - r["c"])
 
 
-def pixel_values(dose, rng, noise=0.004, piece_factor=None, channels=CHANNELS):
-    """16-bit RGB pixel values (H x W x 3) of a dose map (H x W)."""
+def pixel_values(dose, rng, noise=0.004, piece_factor=None, channels=CHANNELS, thickness=None):
+    """16-bit RGB pixel values (H x W x 3) of a dose map (H x W). `thickness` (H x W, 1 for
+    the calibration's film) scales every channel's total optical density
+    log10(65535 / PV), the unexposed film's own included: PV = 65535 (PV'/65535)^thickness."""
     planes = []
     for ch in channels:
         pv = RESPONSE[ch]["pv0"] * response(ch, dose)
+        if thickness is not None:
+            pv = 65535.0 * (pv / 65535.0) ** thickness
         if piece_factor is not None:
             pv = pv * piece_factor
         pv = pv * (1.0 + noise * rng.standard_normal(dose.shape))
@@ -102,11 +106,13 @@ def field_dose(xx, yy, axis_cgy, field_cm, **shape):
 
 def measurement_scan(path, axis_cgy, field_cm, width_cm, height_cm, dpi=100, centre=None,
                      angle_deg=0.0, seed=2, noise=0.004, write_dpi=True, shape=None,
-                     control_cm=None):
+                     control_cm=None, thickness=None, grey=False):
     """A film of one field: the field centre at `centre` (cm from the top left corner;
     default the middle), its crossplane axis along the image's x turned by angle_deg.
     control_cm = [x, y, width, height]: an unexposed control piece lying on the scanner
-    beside the film (dose 0 there)."""
+    beside the film (dose 0 there, thickness 1: a piece of the calibration's sheet).
+    thickness(X, Y) -> factor, X and Y cm from the field centre: the film's thickness
+    relative to the calibration's (pixel_values). grey: the red channel alone, as one plane."""
     rng = np.random.default_rng(seed)
     px = 2.54 / dpi
     W, H = int(round(width_cm / px)), int(round(height_cm / px))
@@ -118,11 +124,17 @@ def measurement_scan(path, axis_cgy, field_cm, width_cm, height_cm, dpi=100, cen
     u = X * math.cos(a) + Y * math.sin(a)
     v = -X * math.sin(a) + Y * math.cos(a)
     dose = field_dose(u, v, axis_cgy, field_cm, **(shape or {}))
+    tau = None if thickness is None else np.asarray(thickness(X, Y), dtype=float) * np.ones_like(X)
     if control_cm:
         x0, y0, w, h = control_cm
-        dose[int(round(y0 / px)):int(round((y0 + h) / px)),
-             int(round(x0 / px)):int(round((x0 + w) / px))] = 0.0
-    write_tiff(path, pixel_values(dose, rng, noise), dpi=dpi if write_dpi else None)
+        ys = slice(int(round(y0 / px)), int(round((y0 + h) / px)))
+        xs = slice(int(round(x0 / px)), int(round((x0 + w) / px)))
+        dose[ys, xs] = 0.0
+        if tau is not None:
+            tau[ys, xs] = 1.0
+    channels = ("red",) if grey else CHANNELS
+    pix = pixel_values(dose, rng, noise, channels=channels, thickness=tau)
+    write_tiff(path, pix[:, :, 0] if grey else pix, dpi=dpi if write_dpi else None)
     return dose
 
 

@@ -198,17 +198,30 @@ sl_status sl_film_curve_report_pdf(const sl_film_curve *c, FILE *fp, sl_error *e
 #define SL_FILM_BAND_CM 0.4   /* default width of the band averaged across the line */
 #define SL_FILM_STEP_CM 0.1   /* default spacing of profile points */
 
+/* How a profile cell's pixels become dose: through the curve's one channel,
+ * or through the red, green and blue channels together with a thickness
+ * factor per cell (the triple-channel method; needs RGB scans and a curve
+ * with the three channels fitted). */
+typedef enum { SL_FILM_DOSE_SINGLE = 0, SL_FILM_DOSE_TRIPLE = 1 } sl_film_dose_channels;
+/* The range searched for the film thickness factor (a best value on either
+ * end is not taken: the cell is dropped and counted). */
+#define SL_FILM_TAU_LO 0.85
+#define SL_FILM_TAU_HI 1.15
+
 typedef struct sl_film_profile_options {
     const char *curve_path;
     const char *out_dir;
     double dpi;
     const char *created;
+    sl_film_dose_channels dose_channels;
 } sl_film_profile_options;
 
 typedef struct sl_film_run_summary {
     size_t nfilms, nprofiles;
     size_t dropped_low, dropped_high; /* profile points below the lowest resolvable dose /
                                          above the calibrated range */
+    size_t dropped_tau;               /* triple-channel: cells whose thickness factor lies on
+                                         its range's bound */
     char *measurement_set;            /* path written */
     sl_notes notes;
 } sl_film_run_summary;

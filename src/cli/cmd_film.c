@@ -37,7 +37,10 @@ static const char help[] =
     "DIR/measurements.yaml (for strayline fit), DIR/points/*.csv (each point's\n"
     "uncertainty), DIR/films.yaml (what was found) and DIR/qa/*.html (a page a film).\n"
     "      --curve FILE           the curve file (required)\n"
-    "      --out DIR              the output folder (required; made if absent)\n\n"
+    "      --out DIR              the output folder (required; made if absent)\n"
+    "      --dose-channels HOW    single (default: the curve's channel) or triple: the\n"
+    "                             red, green and blue channels with a film thickness\n"
+    "                             factor per profile cell (RGB scans, three fitted curves)\n\n"
     "both:\n"
     "      --dpi N                pixel density of scans without resolution tags\n"
     "      --created TEXT         creation time to record (default: now, UTC)\n"
@@ -187,9 +190,10 @@ done:
 
 static int profile(int argc, char **argv)
 {
-    enum { OPT_CURVE = 256, OPT_OUT, OPT_DPI, OPT_CREATED };
+    enum { OPT_CURVE = 256, OPT_OUT, OPT_DPI, OPT_CREATED, OPT_CHANNELS };
     static const struct option opts[] = {
         {"curve", required_argument, NULL, OPT_CURVE},
+        {"dose-channels", required_argument, NULL, OPT_CHANNELS},
         {"out", required_argument, NULL, OPT_OUT},
         {"dpi", required_argument, NULL, OPT_DPI},
         {"created", required_argument, NULL, OPT_CREATED},
@@ -201,7 +205,7 @@ static int profile(int argc, char **argv)
     struct tm tm;
     gmtime_r(&t, &tm);
     strftime(now, sizeof now, "%Y-%m-%dT%H:%M:%SZ", &tm);
-    sl_film_profile_options o = {NULL, NULL, 0, now};
+    sl_film_profile_options o = {NULL, NULL, 0, now, SL_FILM_DOSE_SINGLE};
     int c;
     optind = 1;
     while ((c = getopt_long(argc, argv, "h", opts, NULL)) != -1) {
@@ -213,6 +217,15 @@ static int profile(int argc, char **argv)
                 return sl_cli_usage("film profile", "--dpi needs a number from 10 to 10000");
             break;
         case OPT_CREATED: o.created = optarg; break;
+        case OPT_CHANNELS:
+            if (strcmp(optarg, "single") == 0)
+                o.dose_channels = SL_FILM_DOSE_SINGLE;
+            else if (strcmp(optarg, "triple") == 0)
+                o.dose_channels = SL_FILM_DOSE_TRIPLE;
+            else
+                return sl_cli_usage("film profile",
+                                    "--dose-channels is single or triple, not '%s'", optarg);
+            break;
         case 'h': fputs(help, stdout); return SL_EXIT_OK;
         default: return sl_cli_bad_option(argv, opts, "h");
         }
@@ -233,6 +246,10 @@ static int profile(int argc, char **argv)
                "%zu above the calibrated range dropped; measurement set written to %s\n",
                argv[optind], sum.nfilms, sum.nprofiles, sum.dropped_low, sum.dropped_high,
                sum.measurement_set);
+        if (o.dose_channels == SL_FILM_DOSE_TRIPLE)
+            printf("triple-channel dose: %zu points dropped with the film thickness factor on its "
+                   "range's bound (%g to %g)\n",
+                   sum.dropped_tau, SL_FILM_TAU_LO, SL_FILM_TAU_HI);
         sl_cli_warnings(&sum.notes);
         if (fflush(stdout) != 0 || ferror(stdout)) {
             fprintf(stderr, "strayline: output error: cannot write to standard output\n");

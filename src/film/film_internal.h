@@ -17,6 +17,36 @@ int sl_film_parse_channel(const char *s);
 sl_status sl_film_read_head(sl_yaml *y, const char *want, const char *what, sl_yaml_field *f,
                             size_t nf, sl_error *err);
 
+/* The triple-channel dose (triple.c): the red, green and blue channels of a
+   curve with the film's own unexposed levels, the unexposed optical densities
+   OD0_k = log10(max_value / PV0_k) and the range searched for the thickness
+   factor. */
+typedef struct sl_film_triple {
+    const sl_film_channel *ch[3];
+    double od0[3];
+    double max_value;
+    double tau_lo, tau_hi;
+} sl_film_triple;
+
+enum {
+    SL_TRIPLE_OK = 0,
+    SL_TRIPLE_ABOVE,   /* a channel above its calibrated range (or saturated) */
+    SL_TRIPLE_BOUND,   /* the best thickness factor lies on the range's bound: not taken */
+    SL_TRIPLE_FLAT,    /* the channels cannot tell the factor: no uncertainty */
+};
+
+typedef struct sl_film_triple_result {
+    int status;
+    double tau, tau_sigma;
+    double dose_cgy, sigma_cgy;
+    double chisq;      /* the weighted spread at the minimum (1 degree of freedom) */
+} sl_film_triple_result;
+
+/* One cell: the robust mean pixel value and its standard error per channel
+   (red, green, blue). */
+void sl_film_triple_cell(const sl_film_triple *t, const double pv[3], const double sem[3],
+                         sl_film_triple_result *out);
+
 enum { SL_DIR_CROSSPLANE = 0, SL_DIR_INPLANE = 1, SL_DIR_DIAGONAL = 2 };
 
 /* One profile sampled on one film: off-axis positions k * step (cm). */
@@ -27,6 +57,12 @@ typedef struct film_line {
     double *dose_cgy;     /* per index (kmax - kmin + 1), NAN where not resolved */
     double *sigma_cgy;
     size_t dropped_low, dropped_high;
+    /* triple-channel only (NULL otherwise): per index the channels' mean pixel values
+       and standard errors (red, green, blue, then the three errors), the thickness factor
+       and its uncertainty, the cell's status (SL_TRIPLE_*; 255: not sampled) */
+    double *pv6, *tau, *tau_sigma;
+    unsigned char *status;
+    size_t dropped_tau;
 } film_line;
 
 typedef struct film_result {
@@ -46,6 +82,12 @@ typedef struct film_result {
     const char *applicator, *insert;
     size_t nlines;
     film_line lines[3];
+    bool triple;            /* the triple-channel dose */
+    double pv0[3], pv0_sem[3]; /* the unexposed levels used (red, green, blue) */
+    double tau_median, tau_min, tau_max; /* over the cells with a dose */
+    double axis_cell_cgy;   /* the triple-channel dose of the centre's cell (mean over the
+                               lines; NAN when none has one); cax_dose_cgy is the map's */
+    size_t ntau, dropped_tau;
 } film_result;
 
 /* Write the QA page of one film. */

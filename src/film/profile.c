@@ -340,8 +340,10 @@ static double field_angle(const float *dose, const unsigned char *above, size_t 
 
 /* Sample one line: cells of step x band about the centre along (ux, uy). */
 static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_film_channel *ch,
-                             double cx, double cy, double ux, double uy, double band_cm,
-                             double step_cm, double lowest, film_line *L, sl_error *err)
+                             const float *const *pv3, const sl_film_triple *tr,
+                             double resolve_fraction, double cx, double cy, double ux, double uy,
+                             double band_cm, double step_cm, double lowest, film_line *L,
+                             sl_error *err)
 {
     double px = s->pixel_cm;
     double half_band = band_cm / 2 / px, half_step = step_cm / 2 / px, step = step_cm / px;
@@ -375,8 +377,17 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
     L->sigma_cgy = malloc(n * sizeof *L->sigma_cgy);
     size_t cap = (size_t)((2 * half_step + 2 * half_band + 4) * (2 * half_step + 2 * half_band + 4));
     double *v = malloc(cap * sizeof *v);
-    if (!L->dose_cgy || !L->sigma_cgy || !v) {
+    size_t *idx = malloc(cap * sizeof *idx);
+    if (tr) {
+        L->pv6 = malloc(6 * n * sizeof *L->pv6);
+        L->tau = malloc(n * sizeof *L->tau);
+        L->tau_sigma = malloc(n * sizeof *L->tau_sigma);
+        L->status = malloc(n);
+    }
+    if (!L->dose_cgy || !L->sigma_cgy || !v || !idx ||
+        (tr && (!L->pv6 || !L->tau || !L->tau_sigma || !L->status))) {
         free(v);
+        free(idx);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     for (long k = kmin; k <= kmax; k++) {
@@ -392,39 +403,168 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
                 if (fabs(a) > half_step || fabs(b) > half_band || m >= cap)
                     continue;
                 all++;
-                float p = pv[(size_t)y * s->width + (size_t)x];
-                if (isnan(p))
+                size_t pi = (size_t)y * s->width + (size_t)x;
+                bool isbad = isnan(pv[pi]);
+                for (int c = 0; tr && c < 3; c++)
+                    isbad |= isnan(pv3[c][pi]);
+                if (isbad)
                     bad++;
                 else
-                    v[m++] = p;
+                    idx[m++] = pi;
             }
         size_t i = (size_t)(k - kmin);
         L->dose_cgy[i] = L->sigma_cgy[i] = NAN;
+        if (tr) {
+            L->tau[i] = L->tau_sigma[i] = NAN;
+            L->status[i] = SL_TRIPLE_ABOVE;
+            for (int c = 0; c < 6; c++)
+                L->pv6[6 * i + (size_t)c] = NAN;
+        }
         if (m < 3 || (double)bad > SL_FILM_MAX_SATURATED_SHARE * (double)all) {
             L->dropped_high++;
             continue;
         }
         sl_film_stats st;
-        sl_film_robust(v, m, &st);
-        double x = log10(ch->pv0 / st.mean);
-        double sd = st.sem / st.mean / LN10;
-        double sg, d = sl_film_dose(ch, x, sd, &sg);
-        if (!isfinite(d)) {
-            L->dropped_high++;
-            continue;
-        }
-        if (!(d > 0) || (isfinite(lowest) && d < lowest)) {
-            L->dropped_low++;
-            continue;
+        double d, sg;
+        if (tr) {
+            /* each channel's robust mean over the same pixels, then one factor for the three */
+            double mean[3], sem[3];
+            for (int c = 0; c < 3; c++) {
+                for (size_t q = 0; q < m; q++)
+                    v[q] = pv3[c][idx[q]];
+                sl_film_robust(v, m, &st);
+                mean[c] = L->pv6[6 * i + (size_t)c] = st.mean;
+                sem[c] = L->pv6[6 * i + 3 + (size_t)c] = st.sem;
+            }
+            sl_film_triple_result tres;
+            sl_film_triple_cell(tr, mean, sem, &tres);
+            L->status[i] = (unsigned char)tres.status;
+            L->tau[i] = tres.tau;
+            L->tau_sigma[i] = tres.tau_sigma;
+            if (tres.status == SL_TRIPLE_BOUND || tres.status == SL_TRIPLE_FLAT) {
+                L->dropped_tau++;
+                continue;
+            }
+            d = tres.dose_cgy;
+            sg = tres.sigma_cgy;
+            if (!isfinite(d)) {
+                L->dropped_high++;
+                continue;
+            }
+            /* the lowest-dose rule of the curve applied to the cell's own uncertainty */
+            if (!(d > 0) || !(sg <= resolve_fraction * d)) {
+                L->dropped_low++;
+                continue;
+            }
+        } else {
+            for (size_t q = 0; q < m; q++)
+                v[q] = pv[idx[q]];
+            sl_film_robust(v, m, &st);
+            double x = log10(ch->pv0 / st.mean);
+            double sd = st.sem / st.mean / LN10;
+            d = sl_film_dose(ch, x, sd, &sg);
+            if (!isfinite(d)) {
+                L->dropped_high++;
+                continue;
+            }
+            if (!(d > 0) || (isfinite(lowest) && d < lowest)) {
+                L->dropped_low++;
+                continue;
+            }
         }
         L->dose_cgy[i] = d;
         L->sigma_cgy[i] = sg;
     }
     free(v);
+    free(idx);
+    return SL_OK;
+}
+
+/* The thickness factor over a film: median and range over the cells that
+ * gave a dose (triple-channel only). */
+static sl_status tau_summary(film_result *r, sl_error *err)
+{
+    size_t cap = 0, n = 0;
+    for (size_t d = 0; d < r->nlines; d++)
+        cap += (size_t)(r->lines[d].kmax - r->lines[d].kmin + 1);
+    double *v = malloc((cap ? cap : 1) * sizeof *v);
+    if (!v)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    r->tau_min = INFINITY;
+    r->tau_max = -INFINITY;
+    for (size_t d = 0; d < r->nlines; d++) {
+        const film_line *L = &r->lines[d];
+        for (long k = L->kmin; k <= L->kmax; k++) {
+            size_t i = (size_t)(k - L->kmin);
+            if (!isfinite(L->dose_cgy[i]))
+                continue;
+            v[n++] = L->tau[i];
+            r->tau_min = fmin(r->tau_min, L->tau[i]);
+            r->tau_max = fmax(r->tau_max, L->tau[i]);
+        }
+    }
+    r->ntau = n;
+    double sa = 0;
+    size_t na = 0;
+    for (size_t d = 0; d < r->nlines; d++) {
+        const film_line *L = &r->lines[d];
+        if (L->kmin <= 0 && L->kmax >= 0 && isfinite(L->dose_cgy[-L->kmin])) {
+            sa += L->dose_cgy[-L->kmin];
+            na++;
+        }
+    }
+    r->axis_cell_cgy = na ? sa / (double)na : NAN;
+    sl_film_stats st;
+    sl_film_robust(v, n, &st);
+    r->tau_median = n ? st.median : NAN;
+    if (!n)
+        r->tau_min = r->tau_max = NAN;
+    free(v);
     return SL_OK;
 }
 
 /* -------------------------------------------------------- writing -- */
+
+static const char *cell_status(const film_line *L, size_t i)
+{
+    if (isfinite(L->dose_cgy[i]))
+        return "dose";
+    switch (L->status[i]) {
+    case SL_TRIPLE_BOUND: return "thickness_factor_on_bound";
+    case SL_TRIPLE_FLAT: return "thickness_factor_undetermined";
+    case SL_TRIPLE_OK: return "below_lowest_dose";
+    default: return "above_range";
+    }
+}
+
+/* One film's cells (triple-channel): the channels' means, the factor, the dose. */
+static sl_status write_cells(const film_result *r, const char *path, sl_error *err)
+{
+    sl_outfile of = {0};
+    sl_status st = sl_outfile_open(&of, path, NULL, 0, err);
+    if (st != SL_OK)
+        return st;
+    static const char *const head[] = {
+        "direction", "off_axis_cm", "pv_red", "pv_green", "pv_blue", "pv_sem_red",
+        "pv_sem_green", "pv_sem_blue", "thickness_factor", "thickness_factor_sigma", "dose_cgy",
+        "sigma_cgy", "status"};
+    for (size_t c = 0; c < 13; c++) {
+        csv_fwrite(of.fp, head[c], strlen(head[c]));
+        fputc(c < 12 ? ',' : '\n', of.fp);
+    }
+    for (size_t d = 0; d < r->nlines; d++) {
+        const film_line *L = &r->lines[d];
+        for (long k = L->kmin; k <= L->kmax; k++) {
+            size_t i = (size_t)(k - L->kmin);
+            fprintf(of.fp, "%s,%.4f", dir_names[L->direction], (double)k * r->step_cm);
+            for (int c = 0; c < 6; c++)
+                fprintf(of.fp, ",%.10g", L->pv6[6 * i + (size_t)c]);
+            fprintf(of.fp, ",%.10g,%.6g,%.10g,%.6g,%s\n", L->tau[i], L->tau_sigma[i],
+                    L->dose_cgy[i], L->sigma_cgy[i], cell_status(L, i));
+        }
+    }
+    return sl_outfile_commit(&of, err);
+}
 
 /* Copy a YAML node to the writer as it stands (scalars keep their style). */
 static void emit_node(sl_yaml_writer *w, sl_yaml *y, yaml_node_t *n)
@@ -564,6 +704,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
     char *prof_dir = NULL, *qa_dir = NULL, *ms_path = NULL, *sum_path = NULL;
     char *msbuf = NULL;
     size_t mslen = 0;
+    float *pv3[3] = {NULL, NULL, NULL}; /* the triple-channel dose's pixel values of one film */
     sl_status st = sl_film_curve_load(opt->curve_path, &curve, err);
     if (st != SL_OK)
         return st;
@@ -680,6 +821,24 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         if (curve->ch[i].channel == curve->channel)
             ch = &curve->ch[i];
     double lowest = ch->lowest_dose_cgy;
+    /* The triple-channel dose needs the red, green and blue curves. */
+    const sl_film_channel *rgb[3] = {NULL, NULL, NULL};
+    bool triple = opt->dose_channels == SL_FILM_DOSE_TRIPLE;
+    if (triple) {
+        for (int i = 0; i < curve->nchannels; i++)
+            if (curve->ch[i].channel >= SL_FILM_RED && curve->ch[i].channel <= SL_FILM_BLUE &&
+                curve->ch[i].chosen >= 0)
+                rgb[curve->ch[i].channel] = &curve->ch[i];
+        for (int c = 0; c < 3; c++)
+            if (!rgb[c]) {
+                st = sl_error_set(err, SL_EINPUT,
+                                  "%s: channels: the %s channel has no fitted curve (the "
+                                  "triple-channel dose needs red, green and blue calibrated "
+                                  "from 48-bit RGB scans)",
+                                  opt->curve_path, sl_film_channel_name(c));
+                goto done;
+            }
+    }
 
     /* Per film: the dose map, the field, the lines. */
     for (size_t i = 0; i < n; i++) {
@@ -693,6 +852,13 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             goto done;
         }
         sl_film_scan *s = scans[i];
+        if (triple && s->channels != 3) {
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: a grey scan has one channel; the triple-channel dose needs "
+                              "48-bit RGB scans",
+                              where);
+            goto done;
+        }
         if ((s->channels == 1) != (curve->channel == SL_FILM_GREY)) {
             st = sl_error_set(err, SL_EINPUT, "%s: a %s scan, but the curve is for the %s channel",
                               where, s->channels == 1 ? "grey" : "colour",
@@ -730,6 +896,45 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                                    "calibration's unexposed pieces (scanner drift not cancelled)",
                                    where)) != SL_OK)
                 goto done;
+        }
+        /* Triple-channel: each channel's unexposed level from the same source (the
+           control piece, or the calibration's unexposed pieces), its optical density
+           against the scan's full scale, and each channel's pixel values. */
+        sl_film_channel chf3[3];
+        sl_film_triple tr;
+        r->triple = triple;
+        if (triple) {
+            tr.max_value = s->max_value;
+            tr.tau_lo = SL_FILM_TAU_LO;
+            tr.tau_hi = SL_FILM_TAU_HI;
+            for (int c = 0; c < 3; c++) {
+                chf3[c] = *rgb[c];
+                if (fp->has_control) {
+                    sl_film_stats cs;
+                    long r4[4] = {lround(fp->control[0] / s->pixel_cm),
+                                  lround(fp->control[1] / s->pixel_cm),
+                                  lround((fp->control[0] + fp->control[2]) / s->pixel_cm),
+                                  lround((fp->control[1] + fp->control[3]) / s->pixel_cm)};
+                    if ((st = sl_film_region_stats(s, c, r4[0], r4[1], r4[2], r4[3], &cs, err)) !=
+                        SL_OK) {
+                        char pre[600];
+                        snprintf(pre, sizeof pre, "%s: unexposed_region_cm", where);
+                        sl_error_prefix(err, pre);
+                        goto done;
+                    }
+                    chf3[c].pv0 = cs.mean;
+                    chf3[c].pv0_sem = cs.sem;
+                }
+                r->pv0[c] = chf3[c].pv0;
+                r->pv0_sem[c] = chf3[c].pv0_sem;
+                tr.ch[c] = &chf3[c];
+                tr.od0[c] = log10(s->max_value / chf3[c].pv0);
+            }
+            for (int c = 0; c < 3; c++)
+                if (!(pv3[c] = pixel_values(s, c, fs.median_px, err))) {
+                    st = SL_ENOMEM;
+                    goto done;
+                }
         }
         float *pv = pixel_values(s, curve->channel, fs.median_px, err);
         if (!pv) {
@@ -878,17 +1083,26 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             double uy = fp->dirs[d] == SL_DIR_CROSSPLANE ? ey
                         : fp->dirs[d] == SL_DIR_INPLANE  ? iy
                                                          : (ey + iy) / sqrt(2);
-            if ((st = sample_line(s, pv, &chf, cx, cy, ux, uy, fs.band_cm, fs.step_cm, lowest, L,
-                                  err)) != SL_OK) {
+            if ((st = sample_line(s, pv, &chf, (const float *const *)pv3, triple ? &tr : NULL,
+                                  curve->resolve_fraction, cx, cy, ux, uy, fs.band_cm, fs.step_cm,
+                                  lowest, L, err)) != SL_OK) {
                 free(pv);
                 free(above);
                 goto done;
             }
             sum->dropped_low += L->dropped_low;
             sum->dropped_high += L->dropped_high;
+            sum->dropped_tau += L->dropped_tau;
+            r->dropped_tau += L->dropped_tau;
         }
         free(pv);
         free(above);
+        for (int c = 0; c < 3; c++) {
+            free(pv3[c]);
+            pv3[c] = NULL;
+        }
+        if (triple && (st = tau_summary(r, err)) != SL_OK)
+            goto done;
     }
     sum->nfilms = n;
 
@@ -1262,8 +1476,17 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         sl_yaml_kv_number(&w, "band_width_cm", fs.band_cm);
         sl_yaml_kv_number(&w, "step_cm", fs.step_cm);
         sl_yaml_kv_int(&w, "median_filter_px", fs.median_px);
-        if (isfinite(lowest))
-            sl_yaml_kv_number(&w, "lowest_resolvable_dose_cgy", lowest);
+        if (triple) {
+            sl_yaml_kv_string(&w, "dose_channels", "triple");
+            double rng[2] = {SL_FILM_TAU_LO, SL_FILM_TAU_HI};
+            sl_yaml_kv_numbers(&w, "thickness_factor_range", rng, 2);
+            sl_yaml_kv_number(&w, "resolve_fraction", curve->resolve_fraction);
+        } else {
+            sl_yaml_kv_string(&w, "dose_channels", "single");
+            sl_yaml_kv_string(&w, "dose_channel", sl_film_channel_name(curve->channel));
+            if (isfinite(lowest))
+                sl_yaml_kv_number(&w, "lowest_resolvable_dose_cgy", lowest);
+        }
         sl_yaml_key(&w, "films");
         sl_yaml_seq_begin(&w, false);
         for (size_t i = 0; i < n; i++) {
@@ -1289,6 +1512,25 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             }
             sl_yaml_kv_int(&w, "points_below_lowest_dose", (long long)lo);
             sl_yaml_kv_int(&w, "points_above_range", (long long)hi);
+            if (r->triple) {
+                sl_yaml_kv_int(&w, "points_thickness_factor_on_bound", (long long)r->dropped_tau);
+                if (isfinite(r->axis_cell_cgy))
+                    sl_yaml_kv_number(&w, "axis_cell_dose_cgy", r->axis_cell_cgy);
+                sl_yaml_kv_numbers(&w, "unexposed_pixel_values", r->pv0, 3);
+                sl_yaml_kv_numbers(&w, "unexposed_pixel_value_sems", r->pv0_sem, 3);
+                sl_yaml_key(&w, "thickness_factor");
+                sl_yaml_map_begin(&w, true);
+                sl_yaml_kv_int(&w, "cells", (long long)r->ntau);
+                if (r->ntau) {
+                    sl_yaml_kv_number(&w, "median", r->tau_median);
+                    sl_yaml_kv_number(&w, "min", r->tau_min);
+                    sl_yaml_kv_number(&w, "max", r->tau_max);
+                }
+                sl_yaml_map_end(&w);
+                char cp[300];
+                snprintf(cp, sizeof cp, "cells/%s.csv", r->id);
+                sl_yaml_kv_string(&w, "cells", cp);
+            }
             char qa[300];
             snprintf(qa, sizeof qa, "qa/%s.html", r->id);
             sl_yaml_kv_string(&w, "qa_page", qa);
@@ -1330,6 +1572,30 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         }
     }
 
+    /* Triple-channel: every cell of every film with its channels' readings. */
+    if (triple) {
+        char *cells_dir = path_join(opt->out_dir, "cells");
+        if (!cells_dir) {
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+            goto done;
+        }
+        st = make_dir(cells_dir, err);
+        for (size_t i = 0; st == SL_OK && i < n; i++) {
+            char name[300];
+            snprintf(name, sizeof name, "%s.csv", res[i].id);
+            char *cp = path_join(cells_dir, name);
+            if (!cp) {
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                break;
+            }
+            st = write_cells(&res[i], cp, err);
+            free(cp);
+        }
+        free(cells_dir);
+        if (st != SL_OK)
+            goto done;
+    }
+
     /* QA pages. */
     for (size_t i = 0; i < n; i++) {
         char name[300];
@@ -1353,6 +1619,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
     sum->measurement_set = ms_path;
     ms_path = NULL;
 done:
+    for (int c = 0; c < 3; c++)
+        free(pv3[c]);
     free(msbuf);
     free(prof_dir);
     free(qa_dir);
@@ -1368,6 +1636,10 @@ done:
         for (size_t d = 0; d < res[i].nlines; d++) {
             free(res[i].lines[d].dose_cgy);
             free(res[i].lines[d].sigma_cgy);
+            free(res[i].lines[d].pv6);
+            free(res[i].lines[d].tau);
+            free(res[i].lines[d].tau_sigma);
+            free(res[i].lines[d].status);
         }
     free(res);
     for (size_t i = 0; doses && i < fs.nfilms; i++)

@@ -788,13 +788,48 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
                  100 * r->cax_dose_cgy / r->cax_reference_cgy);
     else
         snprintf(b[5], 128, "above the calibrated range (%g cGy)", r->max_dose_cgy);
+    if (r->triple && isfinite(r->axis_cell_cgy)) {
+        /* the map is the one channel's; the profiles' centre cell is the three channels' */
+        size_t l = strlen(b[5]);
+        snprintf(b[5] + l, 128 - l, "; the centre's cell, triple-channel: %.4g cGy",
+                 r->axis_cell_cgy);
+    }
     snprintf(b[6], 128, "%.4g cGy", r->threshold_cgy);
     snprintf(b[7], 128, "%g cm across, points every %g cm", r->band_cm, r->step_cm);
+    char chan[300], tau[300];
+    if (r->triple) {
+        size_t low = 0, high = 0;
+        for (size_t i = 0; i < r->nlines; i++) {
+            low += r->lines[i].dropped_low;
+            high += r->lines[i].dropped_high;
+        }
+        snprintf(chan, sizeof chan,
+                 "red, green and blue together (triple-channel): one film thickness factor "
+                 "per profile cell scales each channel's total optical density; the dose map "
+                 "below is the %s channel's alone",
+                 sl_film_channel_name(c->channel));
+        if (r->ntau)
+            snprintf(tau, sizeof tau,
+                     "median %.4f, range %.4f to %.4f over %zu cells with a dose; %zu cells "
+                     "dropped with the factor on the bound of %g to %g, %zu below the lowest "
+                     "dose, %zu above the range",
+                     r->tau_median, r->tau_min, r->tau_max, r->ntau, r->dropped_tau,
+                     SL_FILM_TAU_LO, SL_FILM_TAU_HI, low, high);
+        else
+            snprintf(tau, sizeof tau, "no cell gave a dose; %zu cells dropped with the factor "
+                                      "on the bound of %g to %g",
+                     r->dropped_tau, SL_FILM_TAU_LO, SL_FILM_TAU_HI);
+    } else {
+        snprintf(chan, sizeof chan, "the %s channel (single channel)",
+                 sl_film_channel_name(c->channel));
+        snprintf(tau, sizeof tau, "not found (single channel)");
+    }
     const char *rows[][2] = {
         {"scan", r->scan_name}, {"SHA-256", r->scan->sha256}, {"set-up", b[0]},
         {"exposure", b[1]},     {"pixel size", b[2]},        {"field centre", b[3]},
         {"field turned by", b[4]}, {"dose on the axis", b[5]}, {"field found at", b[6]},
-        {"band averaged", b[7]}, {"curve", c->source},
+        {"band averaged", b[7]}, {"curve", c->source},    {"dose from", chan},
+        {"film thickness factor", tau},
     };
     for (size_t i = 0; i < sizeof rows / sizeof rows[0]; i++)
         hrow(&h, t, false, rows[i], 2);
@@ -853,6 +888,30 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
         } else
             hel(&h, h.body, "p", "No point of this profile was resolved on this film.");
         plot_end(&p);
+        /* the thickness factor along the profile: a smooth film reads a smooth factor */
+        if (r->triple) {
+            double tmin = INFINITY, tmax = -INFINITY;
+            for (size_t k = 0; k < n; k++) {
+                y[k] = isfinite(L->dose_cgy[k]) ? L->tau[k] : NAN;
+                e[k] = L->tau_sigma[k];
+                if (isfinite(y[k])) {
+                    tmin = fmin(tmin, y[k] - (isfinite(e[k]) ? e[k] : 0));
+                    tmax = fmax(tmax, y[k] + (isfinite(e[k]) ? e[k] : 0));
+                }
+            }
+            cplot q = {0};
+            snprintf(pt, sizeof pt, "%s profile: film thickness factor of each cell with a dose",
+                     dnames[L->direction]);
+            if (isfinite(tmin) &&
+                plot_begin(&q, NULL, 620, 220, x[0], x[n - 1], fmin(tmin, 0.99), fmax(tmax, 1.01),
+                           false, "off-axis position (cm)", "thickness factor", pt)) {
+                plot_hline(&q, 1, 0.1, 0.37, 0.62);
+                plot_points(&q, x, y, e, n, 0.15, 0.35, 0.15);
+                cairo_surface_flush(q.sf);
+                ok = ok && put_image(&h, h.body, q.sf, pt);
+            }
+            plot_end(&q);
+        }
         free(x);
         free(y);
         free(e);
