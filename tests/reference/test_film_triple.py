@@ -19,6 +19,10 @@ Checks:
   uncertainty with the weighted least-squares covariance (J^T W J)^-1 computed
   here with numpy;
 - films.yaml's factor summary (median and range) recomputed with numpy;
+- a factor beyond the searched range: the cells on the bound dropped and counted;
+- films of uniform thickness (test_film's campaign, two exposures merged): the
+  triple-channel profiles within their stated uncertainty of the numpy truth, the
+  edges within 0.5 mm, the factor's median within 0.003 of 1;
 - a grey scan and a curve without the three channels refused with one line naming
   the file.
 """
@@ -325,6 +329,60 @@ class TripleChannel(unittest.TestCase):
                            os.path.join(self.c.dir, "x"), "--dose-channels", "quad")
         self.assertNotEqual(rc, 0)
         self.assertIn("--dose-channels is single or triple", err)
+
+
+class TripleChannelUniformFilm(unittest.TestCase):
+    """The test campaign of test_film (films of uniform thickness, 100 and 1000 MU at two
+    depths, merged): the triple-channel profiles equal the numpy truth within their
+    stated uncertainty, as the single channel's do, with the factor near 1 and
+    uncertainties at most 1.6 times the single channel's."""
+
+    @classmethod
+    def setUpClass(cls):
+        cls.tmpctx = tempdir()
+        cls.c = Campaign(cls.tmpctx.name)
+        cls.dirs = {}
+        for mode in ("single", "triple"):
+            rc, out, err, d = cls.c.profile(None, mode, "--dose-channels", mode)
+            if rc != 0:
+                raise AssertionError(err)
+            cls.dirs[mode] = d
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.tmpctx.cleanup()
+
+    def test_profiles_against_truth(self):
+        res = {m: load(os.path.join(d, "films.yaml")) for m, d in self.dirs.items()}
+        for f in res["triple"]["films"]:
+            self.assertLess(abs(f["thickness_factor"]["median"] - 1), 0.003, f["id"])
+            self.assertEqual(f["points_thickness_factor_on_bound"], 0)
+        for p, ps in zip(res["triple"]["profiles"], res["single"]["profiles"]):
+            self.assertEqual(p["file"], ps["file"])
+            depth = 1.0 if "d1.00" in p["file"] else 2.0
+            frac = make_films.DEPTHS[depth]
+            e = film_synth.truth_edge(frac, make_films.FIELD_CM)
+            self.assertLess(abs(p["edge_right_cm"] - e), 0.05, p)
+            self.assertLess(abs(p["edge_left_cm"] + e), 0.05, p)
+            pts = np.genfromtxt(os.path.join(self.dirs["triple"], "points",
+                                             os.path.basename(p["file"])),
+                                delimiter=",", skip_header=1)
+            x, v, sig = pts[:, 0], pts[:, 1], pts[:, 2]
+            t = film_synth.truth_percent(x, frac, make_films.FIELD_CM)
+            keep = np.abs(np.abs(x) - e) > 0.6
+            z = (v - t)[keep] / sig[keep]
+            rms = float(np.sqrt(np.mean(z ** 2)))
+            self.assertGreater(rms, 0.5, p["file"])
+            self.assertLess(rms, 1.5, p["file"])
+            self.assertLess(float(np.abs(z).max()), 4.0, p["file"])
+            self.assertGreater(int(keep.sum()), 100)
+            self.assertLess(abs(p["overlap_ratio"] - 1), 3 * p["overlap_ratio_sem"])
+            ratio = p["statistical_floor_percent"] / ps["statistical_floor_percent"]
+            self.assertLess(ratio, 1.6)
+            print("# %s: rms z %.2f; floor %.4f %% (single %.4f %%), relative %.4f (single %.4f)"
+                  % (p["file"], rms, p["statistical_floor_percent"],
+                     ps["statistical_floor_percent"], p["statistical_relative_uncertainty"],
+                     ps["statistical_relative_uncertainty"]))
 
 
 if __name__ == "__main__":

@@ -2,8 +2,9 @@
  * Unit tests of the film module's pieces: TIFF reading against scans written
  * here with libtiff itself (strips and tiles, contiguous and separate
  * planes, grey and RGB, 8 and 16 bits, with and without resolution tags),
- * the robust region mean, and the calibration forms' analytic gradients
- * against finite differences.
+ * the robust region mean, the calibration forms' analytic gradients
+ * against finite differences, and the triple-channel cell on exact readings
+ * of a known thickness factor and dose.
  */
 #include <math.h>
 #include <stdio.h>
@@ -15,6 +16,8 @@
 
 #include "check_main.h"
 #include "strayline/film.h"
+/* the triple-channel cell is the module's own (src/film/triple.c) */
+#include "../../src/film/film_internal.h"
 
 static char dir[64];
 
@@ -269,6 +272,69 @@ START_TEST(robust_mean_rejects_dust)
 }
 END_TEST
 
+/* Three channels of the rational response X(D) = a + b / (D - c), X(0) = 1 (the
+ * invented responses of examples/generator/film_synth.py), as curves D = c + b / (X - a). */
+static void triple_channels(sl_film_channel ch[3], double pv0[3])
+{
+    const double a[3] = {0.25, 0.30, 0.50}, c[3] = {-60, -120, -400};
+    const double p0[3] = {42000, 38000, 30000};
+    memset(ch, 0, 3 * sizeof *ch);
+    for (int k = 0; k < 3; k++) {
+        ch[k].channel = k;
+        ch[k].pv0 = pv0[k] = p0[k];
+        ch[k].pv0_sem = 1;
+        ch[k].chosen = SL_FILM_FORM_RATIONAL;
+        double *t = ch[k].forms[SL_FILM_FORM_RATIONAL].theta;
+        t[0] = a[k];
+        t[1] = (1 - a[k]) * (-c[k]);
+        t[2] = c[k];
+        ch[k].forms[SL_FILM_FORM_RATIONAL].ok = true;
+        ch[k].max_dose_cgy = 150;
+        ch[k].max_netod = -log10(a[k] + t[1] / (150 - c[k]));
+    }
+}
+
+START_TEST(triple_cell_exact)
+{
+    sl_film_channel ch[3];
+    double pv0[3];
+    triple_channels(ch, pv0);
+    sl_film_triple tr = {{&ch[0], &ch[1], &ch[2]}, {0, 0, 0}, 65535, SL_FILM_TAU_LO,
+                         SL_FILM_TAU_HI};
+    for (int k = 0; k < 3; k++)
+        tr.od0[k] = log10(65535 / pv0[k]);
+    const double cases[][2] = {{0, 0.97}, {0.5, 1.04}, {5, 1.0}, {40, 0.93}, {120, 1.1}};
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        double D = cases[i][0], tau = cases[i][1], pv[3], sem[3] = {5, 5, 5};
+        for (int k = 0; k < 3; k++) {
+            const double *t = ch[k].forms[SL_FILM_FORM_RATIONAL].theta;
+            double X = t[0] + t[1] / (D - t[2]);
+            pv[k] = 65535 * pow(pv0[k] * X / 65535, tau);
+        }
+        sl_film_triple_result r;
+        sl_film_triple_cell(&tr, pv, sem, &r);
+        ck_assert_int_eq(r.status, SL_TRIPLE_OK);
+        ck_assert_msg(fabs(r.tau - tau) < 1e-7, "case %zu: tau %.9g", i, r.tau);
+        ck_assert_msg(fabs(r.dose_cgy - D) < 1e-5 * fmax(1, D), "case %zu: dose %.9g", i,
+                      r.dose_cgy);
+        ck_assert(r.chisq < 1e-9);
+        ck_assert(r.sigma_cgy > 0 && isfinite(r.sigma_cgy));
+    }
+    /* beyond the range searched: on the bound, not taken */
+    double pv[3], sem[3] = {5, 5, 5};
+    for (int k = 0; k < 3; k++)
+        pv[k] = 65535 * pow(pv0[k] / 65535, 1.25);
+    sl_film_triple_result r;
+    sl_film_triple_cell(&tr, pv, sem, &r);
+    ck_assert_int_eq(r.status, SL_TRIPLE_BOUND);
+    ck_assert(isnan(r.dose_cgy));
+    /* a channel at the scale's top: no reading */
+    pv[0] = 65535;
+    sl_film_triple_cell(&tr, pv, sem, &r);
+    ck_assert_int_eq(r.status, SL_TRIPLE_ABOVE);
+}
+END_TEST
+
 START_TEST(form_gradients)
 {
     const double th[2][3] = {{120.0, 900.0, 2.6}, {0.25, 45.0, -60.0}};
@@ -308,6 +374,7 @@ static Suite *film_suite(void)
     tcase_add_test(tc, region_statistics);
     tcase_add_test(tc, robust_mean_rejects_dust);
     tcase_add_test(tc, form_gradients);
+    tcase_add_test(tc, triple_cell_exact);
     suite_add_tcase(s, tc);
     return s;
 }
