@@ -878,7 +878,8 @@ class BadFilmInput(unittest.TestCase):
                  "a sanitizer build: valgrind cannot run it")
 @unittest.skipUnless(shutil.which("valgrind"), "valgrind is not installed")
 class Valgrind(unittest.TestCase):
-    """Both film commands on the demo under valgrind (Debian valgrind) --leak-check=full:
+    """Both film commands on the demo (profile also with --dose-channels triple) under
+    valgrind (Debian valgrind) --leak-check=full:
     no memory error, no definite leak (the font caches of Pango and fontconfig are
     released at exit)."""
 
@@ -890,7 +891,10 @@ class Valgrind(unittest.TestCase):
             for args in (["calibrate", os.path.join(demo, "calibration.yaml"), "-o",
                           os.path.join(tmp, "c.yaml"), "-r", os.path.join(tmp, "c.html")],
                          ["profile", os.path.join(demo, "films.yaml"), "--curve",
-                          os.path.join(tmp, "c.yaml"), "--out", os.path.join(tmp, "o")]):
+                          os.path.join(tmp, "c.yaml"), "--out", os.path.join(tmp, "o")],
+                         ["profile", os.path.join(demo, "films.yaml"), "--curve",
+                          os.path.join(tmp, "c.yaml"), "--out", os.path.join(tmp, "o3"),
+                          "--dose-channels", "triple"]):
                 p = subprocess.run(["valgrind", "--leak-check=full",
                                     "--errors-for-leak-kinds=definite", "--error-exitcode=99",
                                     STRAYLINE, "film"] + args, capture_output=True, text=True,
