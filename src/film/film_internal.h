@@ -85,6 +85,9 @@ typedef struct film_result {
     bool triple;            /* the triple-channel dose */
     double pv0[3], pv0_sem[3]; /* the unexposed levels used (red, green, blue) */
     double tau_median, tau_min, tau_max; /* over the cells with a dose */
+    size_t map_blocks, map_blocks_filled; /* the map's thickness blocks, and those that
+                                             took the film's median factor */
+    double map_block_cm;
     double axis_cell_cgy;   /* the triple-channel dose of the centre's cell (mean over the
                                lines; NAN when none has one); cax_dose_cgy is the map's */
     size_t ntau, dropped_tau;

@@ -480,6 +480,78 @@ static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_fi
     return SL_OK;
 }
 
+/* The thickness factor of the dose map (triple-channel): per square block of
+ * about SL_FILM_MAP_BLOCK_CM, the factor of the block's three channel means
+ * (the cell's rule); a block without one (above the range, on the bound, too
+ * few pixels) takes the median of the others. NULL when out of memory. */
+#define SL_FILM_MAP_BLOCK_CM 0.2
+static float *tau_blocks(const sl_film_scan *s, const float *const *pv3, const sl_film_triple *tr,
+                         size_t *bpx, size_t *nbx, size_t *nby, size_t *filled)
+{
+    size_t w = s->width, h = s->height;
+    size_t b = (size_t)lround(SL_FILM_MAP_BLOCK_CM / s->pixel_cm);
+    if (b < 3)
+        b = 3;
+    size_t nx = (w + b - 1) / b, ny = (h + b - 1) / b;
+    float *t = malloc(nx * ny * sizeof *t);
+    double *v = malloc(b * b * sizeof *v), *all = malloc(nx * ny * sizeof *all);
+    size_t *idx = malloc(b * b * sizeof *idx);
+    if (!t || !v || !all || !idx) {
+        free(t);
+        free(v);
+        free(all);
+        free(idx);
+        return NULL;
+    }
+    size_t nall = 0;
+    for (size_t by = 0; by < ny; by++)
+        for (size_t bx = 0; bx < nx; bx++) {
+            size_t m = 0, n = 0;
+            for (size_t y = by * b; y < (by + 1) * b && y < h; y++)
+                for (size_t x = bx * b; x < (bx + 1) * b && x < w; x++) {
+                    size_t i = y * w + x;
+                    n++;
+                    if (!isnan(pv3[0][i]) && !isnan(pv3[1][i]) && !isnan(pv3[2][i]))
+                        idx[m++] = i;
+                }
+            float tau = NAN;
+            if (m >= 3 && 2 * m >= n) {
+                double mean[3], sem[3];
+                for (int c = 0; c < 3; c++) {
+                    sl_film_stats st;
+                    for (size_t q = 0; q < m; q++)
+                        v[q] = pv3[c][idx[q]];
+                    sl_film_robust(v, m, &st);
+                    mean[c] = st.mean;
+                    sem[c] = st.sem;
+                }
+                sl_film_triple_result r;
+                sl_film_triple_cell(tr, mean, sem, &r);
+                if (r.status == SL_TRIPLE_OK) {
+                    tau = (float)r.tau;
+                    all[nall++] = r.tau;
+                }
+            }
+            t[by * nx + bx] = tau;
+        }
+    sl_film_stats st;
+    sl_film_robust(all, nall, &st);
+    double med = nall ? st.median : 1.0;
+    *filled = 0;
+    for (size_t i = 0; i < nx * ny; i++)
+        if (isnan(t[i])) {
+            t[i] = (float)med;
+            (*filled)++;
+        }
+    free(v);
+    free(all);
+    free(idx);
+    *bpx = b;
+    *nbx = nx;
+    *nby = ny;
+    return t;
+}
+
 /* The thickness factor over a film: median and range over the cells that
  * gave a dose (triple-channel only). */
 static sl_status tau_summary(film_result *r, sl_error *err)
@@ -954,6 +1026,22 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         doses[i] = dose;
         size_t nvalid = 0;
         const uint16_t *plane = sl_film_plane(s, curve->channel);
+        /* triple-channel: the map is the curve's channel's, its total optical density
+           divided by the thickness factor of the pixel's block */
+        float *taub = NULL;
+        size_t bpx = 1, nbx = 1, nby = 1;
+        double od0 = log10(s->max_value / chf.pv0);
+        if (triple) {
+            if (!(taub = tau_blocks(s, (const float *const *)pv3, &tr, &bpx, &nbx, &nby,
+                                    &r->map_blocks_filled))) {
+                free(pv);
+                free(above);
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                goto done;
+            }
+            r->map_blocks = nbx * nby;
+            r->map_block_cm = (double)bpx * s->pixel_cm;
+        }
         for (size_t k = 0; k < w * h; k++) {
             dose[k] = NAN;
             if (isnan(pv[k])) {
@@ -962,6 +1050,10 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 continue;
             }
             double x = log10(chf.pv0 / pv[k]);
+            if (taub) {
+                size_t bx = (k % w) / bpx, by = (k / w) / bpx;
+                x = log10(s->max_value / pv[k]) / taub[by * nbx + bx] - od0;
+            }
             double d = sl_film_dose(&chf, x, 0, NULL);
             if (isfinite(d)) {
                 dose[k] = (float)d;
@@ -969,6 +1061,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             } else
                 above[k] = 1;
         }
+        free(taub);
         /* the 99.5th percentile of the map as the first guess of the axis dose */
         float *tmp = malloc((nvalid ? nvalid : 1) * sizeof *tmp);
         if (!tmp) {
@@ -1516,6 +1609,12 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 sl_yaml_kv_int(&w, "points_thickness_factor_on_bound", (long long)r->dropped_tau);
                 if (isfinite(r->axis_cell_cgy))
                     sl_yaml_kv_number(&w, "axis_cell_dose_cgy", r->axis_cell_cgy);
+                sl_yaml_key(&w, "map_thickness_blocks");
+                sl_yaml_map_begin(&w, true);
+                sl_yaml_kv_number(&w, "block_cm", r->map_block_cm);
+                sl_yaml_kv_int(&w, "blocks", (long long)r->map_blocks);
+                sl_yaml_kv_int(&w, "given_the_median", (long long)r->map_blocks_filled);
+                sl_yaml_map_end(&w);
                 sl_yaml_kv_numbers(&w, "unexposed_pixel_values", r->pv0, 3);
                 sl_yaml_kv_numbers(&w, "unexposed_pixel_value_sems", r->pv0_sem, 3);
                 sl_yaml_key(&w, "thickness_factor");

@@ -796,7 +796,7 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
     }
     snprintf(b[6], 128, "%.4g cGy", r->threshold_cgy);
     snprintf(b[7], 128, "%g cm across, points every %g cm", r->band_cm, r->step_cm);
-    char chan[300], tau[300];
+    char chan[400], tau[300];
     if (r->triple) {
         size_t low = 0, high = 0;
         for (size_t i = 0; i < r->nlines; i++) {
@@ -806,8 +806,10 @@ sl_status sl_film_qa_page(const film_result *r, const sl_film_curve *c, FILE *fp
         snprintf(chan, sizeof chan,
                  "red, green and blue together (triple-channel): one film thickness factor "
                  "per profile cell scales each channel's total optical density; the dose map "
-                 "below is the %s channel's alone",
-                 sl_film_channel_name(c->channel));
+                 "below is the %s channel's with the factor of its %.2g cm block (%zu of %zu "
+                 "blocks without one took the film's median)",
+                 sl_film_channel_name(c->channel), r->map_block_cm, r->map_blocks_filled,
+                 r->map_blocks);
         if (r->ntau)
             snprintf(tau, sizeof tau,
                      "median %.4f, range %.4f to %.4f over %zu cells with a dose; %zu cells "

@@ -228,7 +228,8 @@ class TripleChannel(unittest.TestCase):
 
     def test_summary_in_films_yaml_and_qa_page(self):
         """films.yaml: the method, the factor's median and range over the cells with a
-        dose (numpy), the cells dropped; the QA page states them with a factor plot."""
+        dose (numpy), the cells dropped, the map's blocks; the QA page states them with
+        a factor plot."""
         self.assertEqual(self.res["dose_channels"], "triple")
         self.assertEqual(self.res["thickness_factor_range"], [LO, HI])
         f = self.res["films"][0]
@@ -250,6 +251,17 @@ class TripleChannel(unittest.TestCase):
         self.assertAlmostEqual(f["axis_cell_dose_cgy"], float(centre["dose_cgy"][0]), delta=1e-6)
         self.assertLess(abs(f["axis_cell_dose_cgy"] - AXIS), 3 * float(centre["sigma_cgy"][0]))
         single = load(os.path.join(self.single, "films.yaml"))
+        # the map: the red channel over the factor of 0.2 cm blocks finds the field square
+        # and the axis dose true (numpy truth: 97 cGy, no turn); the red channel alone reads
+        # the centre's thickness (1.026) as dose and the pattern as a turn
+        m = f["map_thickness_blocks"]
+        self.assertAlmostEqual(m["block_cm"], 4 * 2.54 / 50)
+        self.assertEqual(m["given_the_median"], 0)
+        self.assertLess(abs(f["rotation_deg"]), 0.2)
+        self.assertLess(abs(f["cax_dose_cgy"] - AXIS), 0.02 * AXIS)
+        s0 = single["films"][0]
+        self.assertGreater(abs(s0["cax_dose_cgy"] - AXIS), 0.04 * AXIS)
+        self.assertGreater(abs(s0["rotation_deg"]), 0.3)
         self.assertEqual(single["dose_channels"], "single")
         self.assertEqual(single["dose_channel"], "red")
         with open(os.path.join(self.triple, f["qa_page"])) as fh:
