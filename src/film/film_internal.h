@@ -59,7 +59,7 @@ typedef struct film_line {
     size_t dropped_low, dropped_high;
     /* triple-channel only (NULL otherwise): per index the channels' mean pixel values
        and standard errors (red, green, blue, then the three errors), the thickness factor
-       and its uncertainty, the cell's status (SL_TRIPLE_*; 255: not sampled) */
+       and its uncertainty, the cell's status (SL_TRIPLE_*) */
     double *pv6, *tau, *tau_sigma;
     unsigned char *status;
     size_t dropped_tau;
