@@ -943,6 +943,16 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             (st = sl_notes_add(&sum->notes, "%s: %d bits a channel, the calibration %d", where,
                                s->bits, curve->bits)) != SL_OK)
             goto done;
+        if (triple && s->bits != curve->bits && !fp->has_control) {
+            /* the factor is read from total optical densities against the unexposed
+               level: the calibration's is not this scan's at another bit depth */
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: %d bits a channel, the calibration %d: the triple-channel "
+                              "dose needs scans of the calibration's depth or an "
+                              "unexposed_region_cm on this scan",
+                              where, s->bits, curve->bits);
+            goto done;
+        }
         /* The film's own unexposed level, from a control piece scanned with it (AAPM TG-235),
            so that the scanner's drift between sessions cancels; else the calibration's. */
         sl_film_channel chf = *ch;

@@ -31,6 +31,7 @@ import os
 import unittest
 
 import numpy as np
+import tifffile
 import yaml
 from scipy.optimize import minimize_scalar
 
@@ -323,6 +324,23 @@ class TripleChannel(unittest.TestCase):
             yaml.safe_dump(doc, fh)
         self.refused(self.c.profile(path, "grey", "--dose-channels", "triple")[:3],
                      path, "grey.tif", "grey scan", "48-bit RGB")
+
+    def test_other_bit_depth_without_control_refused(self):
+        """An 8-bit scan against a 16-bit calibration, with no control piece on it: the
+        factor would be read against another scan's unexposed level, so it is refused."""
+        scan = os.path.join(self.c.dir, "scans", "eight.tif")
+        film_synth.measurement_scan(scan, AXIS, make_films.FIELD_CM, 16.0, 8.0, dpi=50, seed=7)
+        eight = (tifffile.imread(scan) >> 8).astype("uint8")   # numpy: the top 8 bits
+        film_synth.write_tiff(scan, eight, dpi=50)
+        doc = load(self.films)
+        doc["films"] = [dict(doc["films"][0], scan="scans/eight.tif")]
+        doc["films"][0].pop("unexposed_region_cm", None)
+        path = os.path.join(self.c.dir, "eight.yaml")
+        with open(path, "w") as fh:
+            yaml.safe_dump(doc, fh)
+        self.refused(self.c.profile(path, "eight", "--dose-channels", "triple")[:3],
+                     path, "eight.tif", "8 bits a channel, the calibration 16",
+                     "unexposed_region_cm")
 
     def test_one_channel_curve_refused(self):
         """A curve holding the red channel alone: one line naming the curve file and the
