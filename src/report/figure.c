@@ -9,6 +9,18 @@
  * then resolve a reference of one figure to another's definition. The ids
  * of each figure are therefore prefixed with the figure's number in the page
  * and every reference rewritten to match.
+ *
+ * Text in an HTML figure is SVG text, not glyph outlines: cairo's SVG
+ * surface writes every glyph's outline and a reference per glyph, which made
+ * the text most of each figure's bytes and most of the time a report took
+ * to write. fig_text, drawing into a figure meant for the HTML, records the
+ * text, its place, font and colour, and fills its box in a marker colour;
+ * fig_svg_into then puts a text element where cairo wrote the marker, so
+ * that the text keeps its place in the drawing order and inside any clip.
+ * The text is given Pango's width (textLength), so that a viewer without
+ * the font still lays it out as measured. Text cairo would not draw as one
+ * solid run (an ellipsis, a pattern source, a group) is drawn as glyphs, and
+ * a figure whose markers do not all come back is drawn again with glyphs.
  */
 #include "figure.h"
 
@@ -128,6 +140,335 @@ void fig_count(cairo_t *cr, const char *key, const char *fmt, ...)
                                key, val);
 }
 
+/* ---------------------------------------------------------- SVG text -- */
+
+/* A marker is a fill of this opacity, which no figure draws with; its colour
+ * carries the index of the text it stands for (24 bits, one byte a
+ * channel), so that a marker cairo left out (text outside the figure) costs
+ * nothing but that text. */
+#define MARK_ALPHA 0.0123
+static const char mark_opacity[] = "fill-opacity:0.0123;";
+#define TEXT_MAX_ITEMS (1u << 24)
+
+typedef struct text_line {
+    char *text;
+    double x, y, w; /* start of the baseline and advance width, in the text's space */
+} text_line;
+
+typedef struct text_item {
+    cairo_matrix_t m; /* the text's space (origin at the layout's top left) to the figure's */
+    double size_pt;
+    bool bold, italic;
+    double rgba[4];
+    size_t nlines;
+    text_line *lines;
+} text_item;
+
+typedef struct text_sink {
+    text_item *v;
+    size_t n, cap;
+    bool failed;
+} text_sink;
+
+static const cairo_user_data_key_t text_key;
+
+static void text_sink_free(void *p)
+{
+    text_sink *ts = p;
+    if (!ts)
+        return;
+    for (size_t i = 0; i < ts->n; i++) {
+        for (size_t k = 0; k < ts->v[i].nlines; k++)
+            free(ts->v[i].lines[k].text);
+        free(ts->v[i].lines);
+    }
+    free(ts->v);
+    free(ts);
+}
+
+/* One line of a layout as plain text: its bytes without the trailing white
+ * space (its width then ends where that space begins), control characters
+ * as spaces (they are not allowed in XML). */
+static bool text_line_take(PangoLayoutLine *line, const char *all, int base_pu, double x_pu,
+                           text_line *out)
+{
+    int start = line->start_index, len = line->length;
+    while (len > 0 && (all[start + len - 1] == ' ' || all[start + len - 1] == '\n' ||
+                       all[start + len - 1] == '\r' || all[start + len - 1] == '\t'))
+        len--;
+    out->text = malloc((size_t)len + 1);
+    if (!out->text)
+        return false;
+    for (int i = 0; i < len; i++) {
+        unsigned char c = (unsigned char)all[start + i];
+        out->text[i] = c < 0x20 || c == 0x7f ? ' ' : (char)c;
+    }
+    out->text[len] = '\0';
+    int end_x = 0;
+    pango_layout_line_index_to_x(line, start + len, 0, &end_x);
+    int start_x = 0;
+    pango_layout_line_index_to_x(line, start, 0, &start_x);
+    out->x = (x_pu + start_x) / PANGO_SCALE;
+    out->y = (double)base_pu / PANGO_SCALE;
+    out->w = (double)(end_x - start_x) / PANGO_SCALE;
+    return true;
+}
+
+/* Record a layout drawn at (x0, y0) as SVG text and fill its box with its
+ * marker; false when it must be drawn as glyphs instead. */
+static bool text_to_sink(cairo_t *cr, PangoLayout *l, double x0, double y0, fig_font f)
+{
+    text_sink *ts = cairo_surface_get_user_data(cairo_get_target(cr), &text_key);
+    if (!ts || ts->failed || pango_layout_is_ellipsized(l) || ts->n >= TEXT_MAX_ITEMS)
+        return false;
+    double rgba[4];
+    if (cairo_pattern_get_rgba(cairo_get_source(cr), &rgba[0], &rgba[1], &rgba[2], &rgba[3]) !=
+        CAIRO_STATUS_SUCCESS)
+        return false;
+    PangoRectangle ink, logical;
+    pango_layout_get_extents(l, &ink, &logical);
+    if (logical.width <= 0 || logical.height <= 0 || pango_layout_get_character_count(l) == 0)
+        return true; /* nothing to see */
+    if (ts->n == ts->cap) {
+        size_t cap = ts->cap ? ts->cap * 2 : 64;
+        text_item *v = realloc(ts->v, cap * sizeof *v);
+        if (!v) {
+            ts->failed = true;
+            return false;
+        }
+        ts->v = v;
+        ts->cap = cap;
+    }
+    text_item *it = &ts->v[ts->n];
+    memset(it, 0, sizeof *it);
+    cairo_get_matrix(cr, &it->m);
+    cairo_matrix_translate(&it->m, x0, y0);
+    it->size_pt = f.size_pt;
+    it->bold = f.bold;
+    it->italic = f.italic;
+    memcpy(it->rgba, rgba, sizeof rgba);
+    const char *all = pango_layout_get_text(l);
+    it->lines = calloc((size_t)pango_layout_get_line_count(l), sizeof *it->lines);
+    bool ok = it->lines != NULL;
+    PangoLayoutIter *iter = ok ? pango_layout_get_iter(l) : NULL;
+    if (iter) {
+        do {
+            PangoRectangle lr;
+            pango_layout_iter_get_line_extents(iter, NULL, &lr);
+            if (!text_line_take(pango_layout_iter_get_line_readonly(iter), all,
+                                pango_layout_iter_get_baseline(iter), lr.x,
+                                &it->lines[it->nlines])) {
+                ok = false;
+                break;
+            }
+            it->nlines++;
+        } while (pango_layout_iter_next_line(iter));
+        pango_layout_iter_free(iter);
+    }
+    if (!ok) {
+        for (size_t k = 0; k < it->nlines; k++)
+            free(it->lines[k].text);
+        free(it->lines);
+        ts->failed = true; /* the figure is drawn again with glyphs */
+        return false;
+    }
+    size_t idx = ts->n++;
+    /* the marker covers what the glyphs would: cairo clips it (and so the
+     * text that replaces it) as it would have clipped them */
+    int x1 = ink.x < logical.x ? ink.x : logical.x, y1 = ink.y < logical.y ? ink.y : logical.y;
+    int x2 = ink.x + ink.width > logical.x + logical.width ? ink.x + ink.width
+                                                            : logical.x + logical.width;
+    int y2 = ink.y + ink.height > logical.y + logical.height ? ink.y + ink.height
+                                                              : logical.y + logical.height;
+    cairo_save(cr);
+    cairo_new_path(cr);
+    cairo_rectangle(cr, x0 + (double)x1 / PANGO_SCALE, y0 + (double)y1 / PANGO_SCALE,
+                    (double)(x2 - x1) / PANGO_SCALE, (double)(y2 - y1) / PANGO_SCALE);
+    cairo_set_source_rgba(cr, (double)(idx & 0xff) / 255, (double)((idx >> 8) & 0xff) / 255,
+                          (double)((idx >> 16) & 0xff) / 255, MARK_ALPHA);
+    cairo_fill(cr);
+    cairo_restore(cr);
+    return true;
+}
+
+/* The index a path's style names if it is a marker: -1 when it is not one,
+ * -2 when it looks like one but cannot be read. */
+static long marker_index(const char *style)
+{
+    if (!strstr(style, mark_opacity))
+        return -1;
+    const char *p = strstr(style, "fill:rgb(");
+    if (!p)
+        return -2;
+    p += strlen("fill:rgb(");
+    long idx = 0;
+    for (int k = 0; k < 3; k++) {
+        char *end;
+        double pc = strtod(p, &end);
+        if (end == p || *end != '%')
+            return -2;
+        double byte = pc * 2.55;
+        long b = lround(byte);
+        if (fabs(byte - (double)b) > 0.01 || b < 0 || b > 255)
+            return -2;
+        idx |= b << (8 * k);
+        p = end + 1;
+        if (k < 2 && *p++ != ',')
+            return -2;
+    }
+    return idx;
+}
+
+/* A number for an attribute: fixed decimals, trailing zeros dropped. */
+static void attr_num(char *buf, size_t size, double v, int dec)
+{
+    snprintf(buf, size, "%.*f", dec, v);
+    char *dot = strchr(buf, '.');
+    if (dot) {
+        char *e = buf + strlen(buf) - 1;
+        while (e > dot && *e == '0')
+            *e-- = '\0';
+        if (e == dot)
+            *e = '\0';
+    }
+    if (strcmp(buf, "-0") == 0)
+        snprintf(buf, size, "0");
+}
+
+/* Text as ASCII runs and character references: the HTML writer would turn
+ * other characters into HTML's named entities, which an SVG read as XML (a
+ * figure saved on its own) does not know. The text is valid UTF-8 (Pango's
+ * layout holds it). */
+static bool add_text_content(xmlNodePtr t, const char *s)
+{
+    while (*s) {
+        size_t run = 0;
+        while (s[run] && (unsigned char)s[run] < 0x80)
+            run++;
+        if (run) {
+            xmlNodePtr tx = xmlNewDocTextLen(t->doc, BAD_CAST s, (int)run);
+            if (!tx)
+                return false;
+            xmlAddChild(t, tx);
+            s += run;
+            continue;
+        }
+        int len = 4;
+        int cp = xmlGetUTF8Char((const unsigned char *)s, &len);
+        if (cp < 0 || len <= 0)
+            return false;
+        char ref[16];
+        snprintf(ref, sizeof ref, "#%d", cp);
+        xmlNodePtr r = xmlNewCharRef(t->doc, BAD_CAST ref);
+        if (!r)
+            return false;
+        xmlAddChild(t, r);
+        s += len;
+    }
+    return true;
+}
+
+static xmlNodePtr text_node(xmlDocPtr doc, xmlNsPtr ns, const text_item *it)
+{
+    char style[256], n1[32], n2[32], n3[32], n4[32], n5[32], n6[32];
+    attr_num(n1, sizeof n1, it->size_pt, 2);
+    attr_num(n2, sizeof n2, it->rgba[0] * 100, 1);
+    attr_num(n3, sizeof n3, it->rgba[1] * 100, 1);
+    attr_num(n4, sizeof n4, it->rgba[2] * 100, 1);
+    attr_num(n5, sizeof n5, it->rgba[3], 3);
+    snprintf(style, sizeof style,
+             "font-family:'DejaVu Sans',sans-serif;font-size:%spx;%s%sfill:rgb(%s%%,%s%%,%s%%);"
+             "%s%s%swhite-space:pre",
+             n1, it->bold ? "font-weight:bold;" : "", it->italic ? "font-style:italic;" : "", n2,
+             n3, n4, it->rgba[3] < 1 ? "fill-opacity:" : "", it->rgba[3] < 1 ? n5 : "",
+             it->rgba[3] < 1 ? ";" : "");
+    /* a translation alone folds into x and y */
+    const cairo_matrix_t *m = &it->m;
+    bool moved_only = m->xx == 1 && m->yx == 0 && m->xy == 0 && m->yy == 1;
+    char tf[200] = "";
+    if (!moved_only) {
+        char a[6][32];
+        const double mv[6] = {m->xx, m->yx, m->xy, m->yy, m->x0, m->y0};
+        for (int k = 0; k < 6; k++)
+            attr_num(a[k], sizeof a[k], mv[k], k < 4 ? 5 : 2);
+        snprintf(tf, sizeof tf, "matrix(%s,%s,%s,%s,%s,%s)", a[0], a[1], a[2], a[3], a[4], a[5]);
+    }
+    xmlNodePtr group = NULL;
+    if (it->nlines > 1) {
+        group = xmlNewDocNode(doc, ns, BAD_CAST "g", NULL);
+        if (!group)
+            return NULL;
+        if (*tf)
+            xmlNewProp(group, BAD_CAST "transform", BAD_CAST tf);
+    }
+    xmlNodePtr first = NULL;
+    for (size_t k = 0; k < it->nlines; k++) {
+        const text_line *ln = &it->lines[k];
+        if (!*ln->text)
+            continue;
+        xmlNodePtr t = xmlNewDocNode(doc, ns, BAD_CAST "text", NULL);
+        if (!t) {
+            xmlFreeNode(group);
+            xmlFreeNode(first);
+            return NULL;
+        }
+        attr_num(n1, sizeof n1, ln->x + (moved_only ? m->x0 : 0), 2);
+        attr_num(n2, sizeof n2, ln->y + (moved_only ? m->y0 : 0), 2);
+        attr_num(n6, sizeof n6, ln->w, 2);
+        xmlNewProp(t, BAD_CAST "x", BAD_CAST n1);
+        xmlNewProp(t, BAD_CAST "y", BAD_CAST n2);
+        if (*tf && !group)
+            xmlNewProp(t, BAD_CAST "transform", BAD_CAST tf);
+        xmlNewProp(t, BAD_CAST "style", BAD_CAST style);
+        if (ln->w > 0) {
+            xmlNewProp(t, BAD_CAST "textLength", BAD_CAST n6);
+            xmlNewProp(t, BAD_CAST "lengthAdjust", BAD_CAST "spacingAndGlyphs");
+        }
+        if (!add_text_content(t, ln->text)) {
+            xmlFreeNode(t);
+            xmlFreeNode(group);
+            xmlFreeNode(first);
+            return NULL;
+        }
+        if (group)
+            xmlAddChild(group, t);
+        else
+            first = t;
+    }
+    if (group)
+        return group;
+    return first ? first : xmlNewDocNode(doc, ns, BAD_CAST "g", NULL);
+}
+
+/* Put each recorded text where cairo wrote its marker. */
+static bool place_texts(xmlNodePtr n, const text_sink *ts, bool *used)
+{
+    for (xmlNodePtr next; n; n = next) {
+        next = n->next;
+        if (n->type != XML_ELEMENT_NODE)
+            continue;
+        if (xmlStrcmp(n->name, BAD_CAST "path") == 0) {
+            xmlChar *st = xmlGetProp(n, BAD_CAST "style");
+            long idx = st ? marker_index((const char *)st) : -1;
+            xmlFree(st);
+            if (idx == -2 || idx >= (long)ts->n || (idx >= 0 && used[idx]))
+                return false;
+            if (idx >= 0) {
+                used[idx] = true;
+                xmlNodePtr t = text_node(n->doc, n->ns, &ts->v[idx]);
+                if (!t)
+                    return false;
+                xmlReplaceNode(n, t);
+                xmlFreeNode(n);
+                continue;
+            }
+        }
+        if (!place_texts(n->children, ts, used))
+            return false;
+    }
+    return true;
+}
+
 /* --------------------------------------------------------------- SVG -- */
 
 typedef struct membuf {
@@ -152,22 +493,34 @@ static cairo_status_t membuf_write(void *closure, const unsigned char *data, uns
     return CAIRO_STATUS_SUCCESS;
 }
 
+/* texts: NULL to draw text as glyphs; else it receives the texts the
+ * drawing left as markers (the caller frees it with text_sink_free). */
 static sl_status render_svg(double w, double h, fig_draw_fn draw, const void *ctx, char **svg,
-                            size_t *len, char **counts, sl_error *err)
+                            size_t *len, char **counts, text_sink **texts, sl_error *err)
 {
     membuf b = {0};
     *svg = NULL;
     *len = 0;
     if (counts)
         *counts = NULL;
+    text_sink *ts = NULL;
+    if (texts) {
+        *texts = NULL;
+        ts = calloc(1, sizeof *ts);
+        if (!ts)
+            return sl_error_set(err, SL_ENOMEM, "out of memory drawing a figure");
+    }
     cairo_surface_t *s = cairo_svg_surface_create_for_stream(membuf_write, &b, w, h);
     fig_counts *c = calloc(1, sizeof *c);
     if (!c || cairo_surface_status(s) != CAIRO_STATUS_SUCCESS ||
-        cairo_surface_set_user_data(s, &counts_key, c, counts_free) != CAIRO_STATUS_SUCCESS) {
-        if (cairo_surface_status(s) == CAIRO_STATUS_SUCCESS && c)
+        cairo_surface_set_user_data(s, &counts_key, c, counts_free) != CAIRO_STATUS_SUCCESS ||
+        (ts && cairo_surface_set_user_data(s, &text_key, ts, NULL) != CAIRO_STATUS_SUCCESS)) {
+        if (cairo_surface_status(s) == CAIRO_STATUS_SUCCESS && c &&
+            cairo_surface_get_user_data(s, &counts_key) != c)
             free(c);
         cairo_surface_destroy(s);
         free(b.p);
+        text_sink_free(ts);
         return sl_error_set(err, SL_ENOMEM, "out of memory drawing a figure");
     }
     cairo_svg_surface_restrict_to_version(s, CAIRO_SVG_VERSION_1_1);
@@ -186,8 +539,19 @@ static sl_status render_svg(double w, double h, fig_draw_fn draw, const void *ct
         c->s = NULL;
     }
     cairo_surface_destroy(s); /* frees c */
+    if (ts && ts->failed) {
+        /* a text could not be recorded: glyphs throughout */
+        text_sink_free(ts);
+        free(b.p);
+        if (counts) {
+            free(*counts);
+            *counts = NULL;
+        }
+        return render_svg(w, h, draw, ctx, svg, len, counts, NULL, err);
+    }
     if (cst != CAIRO_STATUS_SUCCESS || cfail || !b.p) {
         free(b.p);
+        text_sink_free(ts);
         if (counts) {
             free(*counts);
             *counts = NULL;
@@ -197,13 +561,15 @@ static sl_status render_svg(double w, double h, fig_draw_fn draw, const void *ct
     }
     *svg = b.p;
     *len = b.len;
+    if (texts)
+        *texts = ts;
     return SL_OK;
 }
 
 sl_status fig_svg_string(double w_pt, double h_pt, fig_draw_fn draw, const void *ctx, char **svg,
                          size_t *len, sl_error *err)
 {
-    return render_svg(w_pt, h_pt, draw, ctx, svg, len, NULL, err);
+    return render_svg(w_pt, h_pt, draw, ctx, svg, len, NULL, NULL, err);
 }
 
 typedef struct idset {
@@ -520,36 +886,55 @@ xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fi
 {
     if (h->failed || !parent)
         return NULL;
-    char *svg = NULL, *counts = NULL;
-    size_t len = 0;
-    sl_error err;
-    if (render_svg(w_pt, h_pt, draw, ctx, &svg, &len, &counts, &err) != SL_OK || len > INT32_MAX) {
+    char *counts = NULL;
+    xmlNodePtr copy = NULL;
+    unsigned nfig = ++h->nfig;
+    /* SVG text first; glyphs if the texts do not all find their markers */
+    for (int glyphs = 0; glyphs < 2 && !copy; glyphs++) {
+        char *svg = NULL;
+        size_t len = 0;
+        text_sink *ts = NULL;
+        sl_error err;
+        free(counts);
+        counts = NULL;
+        if (render_svg(w_pt, h_pt, draw, ctx, &svg, &len, &counts, glyphs ? NULL : &ts, &err) !=
+                SL_OK ||
+            len > INT32_MAX) {
+            free(svg);
+            text_sink_free(ts);
+            break;
+        }
+        xmlDocPtr sd = xmlReadMemory(svg, (int)len, "figure.svg", NULL,
+                                     XML_PARSE_NONET | XML_PARSE_NOBLANKS | XML_PARSE_HUGE);
         free(svg);
-        free(counts);
-        h->failed = true;
-        return NULL;
+        xmlNodePtr root = sd ? xmlDocGetRootElement(sd) : NULL;
+        bool placed = false;
+        if (root) {
+            bool *used = ts && ts->n ? calloc(ts->n, sizeof *used) : NULL;
+            placed = !ts || !ts->n || (used && place_texts(root, ts, used));
+            free(used);
+        }
+        text_sink_free(ts);
+        if (!placed) {
+            if (sd)
+                xmlFreeDoc(sd);
+            if (!root)
+                break;
+            continue;
+        }
+        char prefix[32];
+        snprintf(prefix, sizeof prefix, "fig%u-", nfig);
+        idset ids = {0};
+        bool ok = prefix_ids(root, prefix, &ids) && rewrite_refs(root, prefix, &ids) &&
+                  round_paths(root);
+        for (size_t i = 0; i < ids.n; i++)
+            free(ids.v[i]);
+        free(ids.v);
+        copy = ok ? xmlDocCopyNode(root, h->doc, 1) : NULL;
+        xmlFreeDoc(sd);
+        if (!ok || !copy)
+            break;
     }
-    xmlDocPtr sd = xmlReadMemory(svg, (int)len, "figure.svg", NULL,
-                                 XML_PARSE_NONET | XML_PARSE_NOBLANKS | XML_PARSE_HUGE);
-    free(svg);
-    xmlNodePtr root = sd ? xmlDocGetRootElement(sd) : NULL;
-    if (!root) {
-        if (sd)
-            xmlFreeDoc(sd);
-        free(counts);
-        h->failed = true;
-        return NULL;
-    }
-    char prefix[32];
-    snprintf(prefix, sizeof prefix, "fig%u-", ++h->nfig);
-    idset ids = {0};
-    bool ok = prefix_ids(root, prefix, &ids) && rewrite_refs(root, prefix, &ids) &&
-              round_paths(root);
-    for (size_t i = 0; i < ids.n; i++)
-        free(ids.v[i]);
-    free(ids.v);
-    xmlNodePtr copy = ok ? xmlDocCopyNode(root, h->doc, 1) : NULL;
-    xmlFreeDoc(sd);
     if (!copy) {
         free(counts);
         h->failed = true;
@@ -644,8 +1029,11 @@ void fig_text(cairo_t *cr, double x, double y, double ax, double ay, const char 
         return;
     int iw, ih;
     pango_layout_get_size(l, &iw, &ih);
-    cairo_move_to(cr, x - ax * iw / PANGO_SCALE, y - ay * ih / PANGO_SCALE);
-    pango_cairo_show_layout(cr, l);
+    double x0 = x - ax * iw / PANGO_SCALE, y0 = y - ay * ih / PANGO_SCALE;
+    if (!text_to_sink(cr, l, x0, y0, f)) {
+        cairo_move_to(cr, x0, y0);
+        pango_cairo_show_layout(cr, l);
+    }
     cairo_new_path(cr);
 }
 

@@ -175,8 +175,20 @@ class Figures(unittest.TestCase):
                     for sp in sub:
                         if len(sp) > 1:   # a lone M draws nothing
                             self.assertEqual(sp[-1][0], "Z", "%s: a filled path is open" % here)
+            # text is SVG text (SVG 1.1, W3C, chapter 10 "Text") put where the
+            # figure's marker was: none of the markers may be left, and every
+            # text element carries its text and Pango's measured width
+            for path in svg.iter(SVG_NS + "path"):
+                self.assertNotIn("fill-opacity:0.0123", path.get("style") or "",
+                                 "%s: a text marker was left in the figure" % here)
+            for t in svg.iter(SVG_NS + "text"):
+                self.assertTrue((t.text or "").strip(), "%s: an empty text element" % here)
+                self.assertGreater(float(t.get("textLength")), 0, here)
             parsed.append(svg)
         return parsed
+
+    def texts(self, svg):
+        return ["".join(t.itertext()) for t in svg.iter(SVG_NS + "text")]
 
     def paths(self, svg):
         out = []
@@ -206,6 +218,12 @@ class Figures(unittest.TestCase):
                 c = counts_of(svg)
                 if "organs-drawn" in c:
                     kinds["bev"] += 1
+                    # the patient directions drawn are the ones counted (and
+                    # checked against IEC 61217 in check_bev), as text
+                    texts = self.texts(svg)
+                    for letter in c["directions"].split(","):
+                        self.assertIn(letter, texts, "%s: direction %s not drawn" % (case, letter))
+                    self.assertTrue(any("beam's-eye view" in t for t in texts), case)
                     self.check_bev(case, c, organs, beams[int(c["beam"])], setup)
                 elif "curve" in c:
                     kinds["dd"] += 1
