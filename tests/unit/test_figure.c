@@ -141,6 +141,10 @@ static void draw_text(cairo_t *cr, double w, double h, const void *ctx)
     cairo_stroke(cr);
     fig_text(cr, w / 2, h / 2, 0.5, 0.5, "Lens_L 0.01 cGy \u25B2", (fig_font){9, false, false},
              0);
+    /* cut with an ellipsis: drawn as cairo's glyphs, whose ids and
+     * references must be prefixed per figure */
+    fig_text(cr, 2, 2, 0, 0, "a label far too long for thirty points", (fig_font){9, false, false},
+             -30);
     fig_count(cr, "things", "%d", 3);
 }
 
@@ -182,6 +186,9 @@ START_TEST(two_figures_get_their_own_ids)
     ck_assert_ptr_nonnull(strstr(s, "href=\"#fig1-"));
     ck_assert_ptr_nonnull(strstr(s, "href=\"#fig2-"));
     ck_assert_ptr_null(strstr(s, "href=\"#glyph"));
+    /* the text that fits is SVG text, its symbol a character reference */
+    ck_assert_ptr_nonnull(strstr(s, ">Lens_L 0.01 cGy &#9650;</text>"));
+    ck_assert_ptr_null(strstr(s, "fill-opacity:0.0123"));
     xmlFree(ma);
     hdoc_free(&h);
 }
