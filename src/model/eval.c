@@ -25,6 +25,11 @@ typedef struct curve {
     double angle_deg;     /* 0 crossplane, 45 diagonal, 90 inplane */
     gsl_interp *interp;   /* Steffen spline of ln(dose) against distance */
     double *logdose;
+    /* what every evaluation beyond the measured points needs, fixed by the
+     * profile: computed once here rather than at every sample */
+    double fit_lo, fit_hi; /* the fit at the nearest and the farthest measured distance */
+    double u_hi;           /* the fit's standard uncertainty at the farthest */
+    double floor;          /* the level held beyond the farthest (measured_floor) */
 } curve;
 
 typedef struct depth_group {
@@ -43,6 +48,14 @@ typedef struct layer {
     sl_curve_set *set;    /* the profiles of one tilt and SSD */
 } layer;
 
+/* The layers of one commissioned SSD by increasing tilt, gathered once when
+ * the set is built: every evaluation between tilts needs them. */
+typedef struct ssd_row {
+    size_t n;
+    double *tilts;
+    const sl_curve_set **sets;
+} ssd_row;
+
 struct sl_curve_set {
     size_t ngroups;
     depth_group *groups;
@@ -59,6 +72,7 @@ struct sl_curve_set {
     size_t ndepths;       /* of depths: the groups', or the reference layer's */
     size_t nlayers;
     layer *layers;
+    ssd_row *rows;        /* one a SSD of ssds, when there are layers */
     size_t ntilts, nssds;
     double *tilts, *ssds;  /* distinct, increasing */
 };
@@ -112,6 +126,11 @@ void sl_curve_set_free(sl_curve_set *c)
     for (size_t k = 0; k < c->nlayers; k++)
         sl_curve_set_free(c->layers[k].set);
     free(c->layers);
+    for (size_t k = 0; c->rows && k < c->nssds; k++) {
+        free(c->rows[k].tilts);
+        free(c->rows[k].sets);
+    }
+    free(c->rows);
     free(c->tilts);
     free(c->ssds);
     free(c);
@@ -181,6 +200,17 @@ static sl_status not_commissioned(const sl_model *m, double e, const char *app, 
                         m->source ? m->source : "model", e, app ? app : "(none)", list);
 }
 
+/* The level a profile keeps beyond its farthest measured point: the larger
+ * of its fit there (fit_hi) and the mean of its last three measured doses. */
+static double measured_floor(const sl_model_profile *p, double fit_hi)
+{
+    size_t k = p->n < 3 ? p->n : 3;
+    double sum = 0;
+    for (size_t i = p->n - k; i < p->n; i++)
+        sum += p->dose_percent[i];
+    return fmax(sum / (double)k, fit_hi);
+}
+
 /* The curves of exactly this energy, applicator, insert, tilt and SSD (n of
  * them). */
 static sl_status build_flat(const sl_model *m, double e, const char *app, const char *ins,
@@ -233,6 +263,9 @@ static sl_status build_flat(const sl_model *m, double e, const char *app, const 
         c->range_lo = fmin(c->range_lo, sel[i]->fit.range_lo_cm);
         c->range_hi = fmax(c->range_hi, sel[i]->fit.range_hi_cm);
         size_t np = sel[i]->n;
+        cv->fit_lo = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[0], NULL);
+        cv->fit_hi = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[np - 1], &cv->u_hi);
+        cv->floor = measured_floor(sel[i], cv->fit_hi);
         cv->logdose = malloc(np * sizeof *cv->logdose);
         cv->interp = np >= 3 ? gsl_interp_alloc(gsl_interp_steffen, np)
                              : gsl_interp_alloc(gsl_interp_linear, np);
@@ -254,6 +287,36 @@ static sl_status build_flat(const sl_model *m, double e, const char *app, const 
                                               m->source ? m->source : "model");
     }
     *out = c;
+    return SL_OK;
+}
+
+/* Each SSD's row of layers, by increasing tilt (layers of equal tilt keep
+ * their order). */
+static sl_status build_rows(sl_curve_set *c)
+{
+    c->rows = calloc(c->nssds, sizeof *c->rows);
+    if (!c->rows)
+        return SL_ENOMEM;
+    for (size_t r = 0; r < c->nssds; r++) {
+        ssd_row *row = &c->rows[r];
+        row->tilts = malloc(c->nlayers * sizeof *row->tilts);
+        row->sets = malloc(c->nlayers * sizeof *row->sets);
+        if (!row->tilts || !row->sets)
+            return SL_ENOMEM;
+        for (size_t k = 0; k < c->nlayers; k++) {
+            if (fabs(c->layers[k].ssd_cm - c->ssds[r]) > 1e-6)
+                continue;
+            size_t i = row->n;
+            while (i > 0 && row->tilts[i - 1] > c->layers[k].tilt_deg) {
+                row->tilts[i] = row->tilts[i - 1];
+                row->sets[i] = row->sets[i - 1];
+                i--;
+            }
+            row->tilts[i] = c->layers[k].tilt_deg;
+            row->sets[i] = c->layers[k].set;
+            row->n++;
+        }
+    }
     return SL_OK;
 }
 
@@ -341,7 +404,7 @@ static sl_status build_set(const sl_model *m, double e, const char *app, const c
         return st;
     }
     c->depths = malloc(ly[ref].set->ngroups * sizeof *c->depths);
-    if (!c->depths) {
+    if (!c->depths || build_rows(c) != SL_OK) {
         sl_curve_set_free(c);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
@@ -454,25 +517,13 @@ typedef struct point_value {
     bool extrapolated, poor;
 } point_value;
 
-/* The level a profile keeps beyond its farthest measured point: the larger
- * of its fit there and the mean of its last three measured doses. */
-static double measured_floor(const sl_model_profile *p)
-{
-    size_t k = p->n < 3 ? p->n : 3;
-    double sum = 0;
-    for (size_t i = p->n - k; i < p->n; i++)
-        sum += p->dose_percent[i];
-    return fmax(sum / (double)k, sl_profile_fit_eval(&p->fit, p->distance_cm[p->n - 1], NULL));
-}
-
 /* One profile at one distance. */
 static point_value curve_value(const curve *cv, double d, sl_eval_mode mode)
 {
     const sl_model_profile *p = cv->prof;
     point_value r = {0};
     double ufit, el, ph;
-    double fit = sl_profile_fit_eval(&p->fit, d, &ufit);
-    sl_profile_value(p->fit.form, p->fit.theta, d, NULL, &el, &ph);
+    double fit = sl_profile_fit_eval_parts(&p->fit, d, &ufit, &el, &ph);
     r.e_frac = el + ph > 0 ? el / (el + ph) : 0;
     double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
     r.extrapolated = d > hi + 1e-9 || d < lo - 1e-9;
@@ -481,8 +532,7 @@ static point_value curve_value(const curve *cv, double d, sl_eval_mode mode)
             r.v = exp(gsl_interp_eval(cv->interp, p->distance_cm, cv->logdose, d, NULL));
         } else {
             /* beyond the points: the fitted form, scaled to meet the end point */
-            double end = d > hi ? hi : lo;
-            double at_end = sl_profile_fit_eval(&p->fit, end, NULL);
+            double at_end = d > hi ? cv->fit_hi : cv->fit_lo;
             double meas_end = p->dose_percent[d > hi ? p->n - 1 : 0];
             r.v = fit * meas_end / at_end;
         }
@@ -494,11 +544,10 @@ static point_value curve_value(const curve *cv, double d, sl_eval_mode mode)
     if (d > hi) {
         /* far out, head leakage flattens the curve: an exponential tail
          * would under-read, so the measured floor holds (all photons) */
-        double floor = measured_floor(p);
+        double floor = cv->floor;
         if (!(r.v >= floor)) {
             /* the fit's relative uncertainty where it was last measured */
-            double uhi, vhi = sl_profile_fit_eval(&p->fit, hi, &uhi);
-            r.u_fit = vhi > 0 ? uhi / vhi * floor : 0;
+            r.u_fit = cv->fit_hi > 0 ? cv->u_hi / cv->fit_hi * floor : 0;
             r.e_frac = r.v > 0 ? r.e_frac * r.v / floor : 0;
             r.v = floor;
         }
@@ -682,29 +731,17 @@ static void blend_values(const sl_model_value *a, const sl_model_value *b, doubl
     *out = r;
 }
 
-/* The layers of one SSD at a tilt: interpolated between the commissioned
- * tilts around it, the nearest beyond them (flagged beyond the tolerance,
- * with its uncertainty component), the highest when the tilt is unknown. */
-static void eval_at_ssd(const sl_curve_set *c, double ssd, double depth, double d, double angle,
+/* The layers of one SSD (c->ssds[r]) at a tilt: interpolated between the
+ * commissioned tilts around it, the nearest beyond them (flagged beyond the
+ * tolerance, with its uncertainty component), the highest when the tilt is
+ * unknown. */
+static void eval_at_ssd(const sl_curve_set *c, size_t r, double depth, double d, double angle,
                         double tilt, sl_eval_mode mode, double electron_t, sl_model_value *out)
 {
-    double tl[64];
-    const sl_curve_set *sets[64];
-    size_t n = 0;
-    for (size_t k = 0; k < c->nlayers && n < 64; k++) {
-        if (fabs(c->layers[k].ssd_cm - ssd) > 1e-6)
-            continue;
-        /* keep increasing by tilt */
-        size_t i = n;
-        while (i > 0 && tl[i - 1] > c->layers[k].tilt_deg) {
-            tl[i] = tl[i - 1];
-            sets[i] = sets[i - 1];
-            i--;
-        }
-        tl[i] = c->layers[k].tilt_deg;
-        sets[i] = c->layers[k].set;
-        n++;
-    }
+    double ssd = c->ssds[r];
+    const double *tl = c->rows[r].tilts;
+    const sl_curve_set *const *sets = c->rows[r].sets;
+    size_t n = c->rows[r].n;
     if (isnan(tilt)) {
         /* unknown tilt: the highest of the commissioned ones */
         for (size_t k = 0; k < n; k++) {
@@ -770,9 +807,9 @@ static void eval_set(const sl_curve_set *c, double depth, double d, double angle
         sl_model_value a, b;
         memset(&a, 0, sizeof a);
         memset(&b, 0, sizeof b);
-        eval_at_ssd(c, c->ssds[i0], depth, d, angle, tilt, mode, electron_t, &a);
+        eval_at_ssd(c, i0, depth, d, angle, tilt, mode, electron_t, &a);
         if (i1 != i0)
-            eval_at_ssd(c, c->ssds[i1], depth, d, angle, tilt, mode, electron_t, &b);
+            eval_at_ssd(c, i1, depth, d, angle, tilt, mode, electron_t, &b);
         else
             b = a;
         blend_values(&a, &b, w, out);
