@@ -376,7 +376,8 @@ double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, d
                                  double *photon)
 {
     double g[SL_PROFILE_MAX_PARAMS];
-    double v = sl_profile_value(f->form, f->theta, d, g, electron, photon);
+    /* the gradient serves the uncertainty only */
+    double v = sl_profile_value(f->form, f->theta, d, u ? g : NULL, electron, photon);
     if (u) {
         double var = 0;
         for (size_t i = 0; i < f->p; i++)
