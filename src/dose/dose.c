@@ -425,9 +425,8 @@ void sl_beam_eval(const sl_beam_dose *bd, const sl_eval_query *q, sl_model_value
      * at the nominal SSD */
     sl_eval_query qn = *q;
     qn.ssd_cm = NAN;
-    sl_model_value vn;
-    sl_curves_eval_query(bd->curves, &qn, &vn);
-    double need = 0.5 * (vn.percent * bd->nominal_ratio - v->percent);
+    double vn = sl_curves_eval_percent(bd->curves, &qn); /* its dose alone counts here */
+    double need = 0.5 * (vn * bd->nominal_ratio - v->percent);
     if (need > v->u_uncommissioned) {
         double rest = v->u_percent * v->u_percent - v->u_uncommissioned * v->u_uncommissioned;
         v->u_uncommissioned = need;
