@@ -10,6 +10,12 @@
  * applicator, each evaluated from the cutout's edge and scaled to the open
  * output; the largest candidate wins, so the stand-in never reads below an
  * insert that was measured on this applicator.
+ *
+ * The estimate evaluates a set three times at every sample of every organ
+ * and beam, so what does not depend on the query (each curve's fit at its
+ * ends and its measured floor, each SSD's layers by tilt) is computed when
+ * the set is built, and the dose alone (sl_curves_eval_percent) skips the
+ * uncertainty components; both leave every number bitwise as it was.
  */
 #include "strayline/model.h"
 #include "strayline/util.h"
