@@ -231,6 +231,12 @@ typedef struct sl_eval_query {
 
 void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out);
 
+/* The percent of sl_curves_eval_query alone, bitwise the same, for callers
+ * that use nothing else (the setup shift's neighbouring evaluations): the
+ * uncertainty components, whose covariance forms cost as much as the
+ * profiles' exponentials, are not computed. Thread-safe. */
+double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q);
+
 /* Value at depth (cm) and distance from the field edge (cm), direction
  * unknown, applicator edge unknown (sl_curves_eval_query). `electron_t`
  * is a transmission (0..1) applied to the electron part only, for a what-if

@@ -106,6 +106,13 @@ sl_status sl_profile_fit_form(const double *d, const double *dose, const double 
  * (delta method). */
 double sl_profile_fit_eval(const sl_profile_fit *f, double d, double *u);
 
+/* sl_profile_fit_eval with the electron (A + B) and photon (C) parts of the
+ * same value (any of u, electron, photon may be NULL): one evaluation of the
+ * exponentials where a caller needs all three, as model evaluation does at
+ * every sample. */
+double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, double *electron,
+                                 double *photon);
+
 #ifdef __cplusplus
 }
 #endif

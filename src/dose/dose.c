@@ -425,9 +425,8 @@ void sl_beam_eval(const sl_beam_dose *bd, const sl_eval_query *q, sl_model_value
      * at the nominal SSD */
     sl_eval_query qn = *q;
     qn.ssd_cm = NAN;
-    sl_model_value vn;
-    sl_curves_eval_query(bd->curves, &qn, &vn);
-    double need = 0.5 * (vn.percent * bd->nominal_ratio - v->percent);
+    double vn = sl_curves_eval_percent(bd->curves, &qn); /* its dose alone counts here */
+    double need = 0.5 * (vn * bd->nominal_ratio - v->percent);
     if (need > v->u_uncommissioned) {
         double rest = v->u_percent * v->u_percent - v->u_uncommissioned * v->u_uncommissioned;
         v->u_uncommissioned = need;
@@ -444,14 +443,16 @@ static double eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift
     q.electron_t = t;
     sl_beam_eval(bd, &q, v);
     sl_eval_query qp = q, qm = q;
-    sl_model_value vp, vm;
     qp.distance_cm += shift;
     qp.app_distance_cm += shift;
     qm.distance_cm = fmax(q.distance_cm - shift, 0);
     qm.app_distance_cm -= shift;
-    sl_beam_eval(bd, &qp, &vp);
-    sl_beam_eval(bd, &qm, &vm);
-    *us = fmax(fabs(vp.percent - v->percent), fabs(vm.percent - v->percent));
+    /* of the shifted places only the dose counts: sl_beam_eval's extended-SSD
+     * bound changes uncertainties alone, and the model's percent without its
+     * components is the same number without every profile's covariance form */
+    double pp = sl_curves_eval_percent(bd->curves, &qp);
+    double pm = sl_curves_eval_percent(bd->curves, &qm);
+    *us = fmax(fabs(pp - v->percent), fabs(pm - v->percent));
     return sqrt(v->u_percent * v->u_percent + *us * *us);
 }
 

@@ -70,11 +70,12 @@ static void grid_slice(size_t k, void *ctx)
                                          : NAN,
                     ax + ay > 0 ? atan2(ay, ax) * 180 / M_PI : 0, e->opt.mode, 1.0,
                     sl_beam_tilt_toward(bp, q.x, q.y), bd->ssd_used_cm};
-                sl_model_value v;
-                sl_beam_eval(bd, &qq, &v);
+                /* the grid holds doses only: the model's percent without its
+                 * uncertainty components (sl_beam_eval's extra bound is one) */
+                double pc = sl_curves_eval_percent(bd->curves, &qq);
                 for (size_t gr = 0; gr < e->ngroups; gr++)
                     if (isfinite(bd->ref_cgy[gr]))
-                        course += e->fractions[gr] * bd->ref_cgy[gr] / 100 * v.percent;
+                        course += e->fractions[gr] * bd->ref_cgy[gr] / 100 * pc;
             }
             if (!placed)
                 continue;

@@ -369,8 +369,15 @@ sl_status sl_profile_fit_data(const double *d, const double *y, const double *si
 
 double sl_profile_fit_eval(const sl_profile_fit *f, double d, double *u)
 {
+    return sl_profile_fit_eval_parts(f, d, u, NULL, NULL);
+}
+
+double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, double *electron,
+                                 double *photon)
+{
     double g[SL_PROFILE_MAX_PARAMS];
-    double v = sl_profile_value(f->form, f->theta, d, g, NULL, NULL);
+    /* the gradient serves the uncertainty only */
+    double v = sl_profile_value(f->form, f->theta, d, u ? g : NULL, electron, photon);
     if (u) {
         double var = 0;
         for (size_t i = 0; i < f->p; i++)

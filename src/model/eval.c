@@ -10,6 +10,12 @@
  * applicator, each evaluated from the cutout's edge and scaled to the open
  * output; the largest candidate wins, so the stand-in never reads below an
  * insert that was measured on this applicator.
+ *
+ * The estimate evaluates a set three times at every sample of every organ
+ * and beam, so what does not depend on the query (each curve's fit at its
+ * ends and its measured floor, each SSD's layers by tilt) is computed when
+ * the set is built, and the dose alone (sl_curves_eval_percent) skips the
+ * uncertainty components; both leave every number bitwise as it was.
  */
 #include "strayline/model.h"
 #include "strayline/util.h"
@@ -25,6 +31,11 @@ typedef struct curve {
     double angle_deg;     /* 0 crossplane, 45 diagonal, 90 inplane */
     gsl_interp *interp;   /* Steffen spline of ln(dose) against distance */
     double *logdose;
+    /* what every evaluation beyond the measured points needs, fixed by the
+     * profile: computed once here rather than at every sample */
+    double fit_lo, fit_hi; /* the fit at the nearest and the farthest measured distance */
+    double u_hi;           /* the fit's standard uncertainty at the farthest */
+    double floor;          /* the level held beyond the farthest (measured_floor) */
 } curve;
 
 typedef struct depth_group {
@@ -43,6 +54,14 @@ typedef struct layer {
     sl_curve_set *set;    /* the profiles of one tilt and SSD */
 } layer;
 
+/* The layers of one commissioned SSD by increasing tilt, gathered once when
+ * the set is built: every evaluation between tilts needs them. */
+typedef struct ssd_row {
+    size_t n;
+    double *tilts;
+    const sl_curve_set **sets;
+} ssd_row;
+
 struct sl_curve_set {
     size_t ngroups;
     depth_group *groups;
@@ -59,6 +78,7 @@ struct sl_curve_set {
     size_t ndepths;       /* of depths: the groups', or the reference layer's */
     size_t nlayers;
     layer *layers;
+    ssd_row *rows;        /* one a SSD of ssds, when there are layers */
     size_t ntilts, nssds;
     double *tilts, *ssds;  /* distinct, increasing */
 };
@@ -112,6 +132,11 @@ void sl_curve_set_free(sl_curve_set *c)
     for (size_t k = 0; k < c->nlayers; k++)
         sl_curve_set_free(c->layers[k].set);
     free(c->layers);
+    for (size_t k = 0; c->rows && k < c->nssds; k++) {
+        free(c->rows[k].tilts);
+        free(c->rows[k].sets);
+    }
+    free(c->rows);
     free(c->tilts);
     free(c->ssds);
     free(c);
@@ -181,6 +206,17 @@ static sl_status not_commissioned(const sl_model *m, double e, const char *app, 
                         m->source ? m->source : "model", e, app ? app : "(none)", list);
 }
 
+/* The level a profile keeps beyond its farthest measured point: the larger
+ * of its fit there (fit_hi) and the mean of its last three measured doses. */
+static double measured_floor(const sl_model_profile *p, double fit_hi)
+{
+    size_t k = p->n < 3 ? p->n : 3;
+    double sum = 0;
+    for (size_t i = p->n - k; i < p->n; i++)
+        sum += p->dose_percent[i];
+    return fmax(sum / (double)k, fit_hi);
+}
+
 /* The curves of exactly this energy, applicator, insert, tilt and SSD (n of
  * them). */
 static sl_status build_flat(const sl_model *m, double e, const char *app, const char *ins,
@@ -233,6 +269,9 @@ static sl_status build_flat(const sl_model *m, double e, const char *app, const 
         c->range_lo = fmin(c->range_lo, sel[i]->fit.range_lo_cm);
         c->range_hi = fmax(c->range_hi, sel[i]->fit.range_hi_cm);
         size_t np = sel[i]->n;
+        cv->fit_lo = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[0], NULL);
+        cv->fit_hi = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[np - 1], &cv->u_hi);
+        cv->floor = measured_floor(sel[i], cv->fit_hi);
         cv->logdose = malloc(np * sizeof *cv->logdose);
         cv->interp = np >= 3 ? gsl_interp_alloc(gsl_interp_steffen, np)
                              : gsl_interp_alloc(gsl_interp_linear, np);
@@ -254,6 +293,36 @@ static sl_status build_flat(const sl_model *m, double e, const char *app, const 
                                               m->source ? m->source : "model");
     }
     *out = c;
+    return SL_OK;
+}
+
+/* Each SSD's row of layers, by increasing tilt (layers of equal tilt keep
+ * their order). */
+static sl_status build_rows(sl_curve_set *c)
+{
+    c->rows = calloc(c->nssds, sizeof *c->rows);
+    if (!c->rows)
+        return SL_ENOMEM;
+    for (size_t r = 0; r < c->nssds; r++) {
+        ssd_row *row = &c->rows[r];
+        row->tilts = malloc(c->nlayers * sizeof *row->tilts);
+        row->sets = malloc(c->nlayers * sizeof *row->sets);
+        if (!row->tilts || !row->sets)
+            return SL_ENOMEM;
+        for (size_t k = 0; k < c->nlayers; k++) {
+            if (fabs(c->layers[k].ssd_cm - c->ssds[r]) > 1e-6)
+                continue;
+            size_t i = row->n;
+            while (i > 0 && row->tilts[i - 1] > c->layers[k].tilt_deg) {
+                row->tilts[i] = row->tilts[i - 1];
+                row->sets[i] = row->sets[i - 1];
+                i--;
+            }
+            row->tilts[i] = c->layers[k].tilt_deg;
+            row->sets[i] = c->layers[k].set;
+            row->n++;
+        }
+    }
     return SL_OK;
 }
 
@@ -341,7 +410,7 @@ static sl_status build_set(const sl_model *m, double e, const char *app, const c
         return st;
     }
     c->depths = malloc(ly[ref].set->ngroups * sizeof *c->depths);
-    if (!c->depths) {
+    if (!c->depths || build_rows(c) != SL_OK) {
         sl_curve_set_free(c);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
@@ -449,40 +518,36 @@ void sl_curves_range(const sl_curve_set *c, double *lo, double *hi)
     *hi = c->range_hi;
 }
 
+/* How to evaluate: the fitted form or the measured points, and whether the
+ * uncertainty components are wanted. Without them (sl_curves_eval_percent)
+ * a profile's covariance form, as costly as its exponentials, is skipped;
+ * the dose does not depend on them, so it comes out bitwise the same. */
+typedef struct eval_how {
+    sl_eval_mode mode;
+    bool with_u;
+} eval_how;
+
 typedef struct point_value {
     double v, u_fit, u_meas, u_extrap, e_frac;
     bool extrapolated, poor;
 } point_value;
 
-/* The level a profile keeps beyond its farthest measured point: the larger
- * of its fit there and the mean of its last three measured doses. */
-static double measured_floor(const sl_model_profile *p)
-{
-    size_t k = p->n < 3 ? p->n : 3;
-    double sum = 0;
-    for (size_t i = p->n - k; i < p->n; i++)
-        sum += p->dose_percent[i];
-    return fmax(sum / (double)k, sl_profile_fit_eval(&p->fit, p->distance_cm[p->n - 1], NULL));
-}
-
 /* One profile at one distance. */
-static point_value curve_value(const curve *cv, double d, sl_eval_mode mode)
+static point_value curve_value(const curve *cv, double d, eval_how how)
 {
     const sl_model_profile *p = cv->prof;
     point_value r = {0};
-    double ufit, el, ph;
-    double fit = sl_profile_fit_eval(&p->fit, d, &ufit);
-    sl_profile_value(p->fit.form, p->fit.theta, d, NULL, &el, &ph);
+    double ufit = 0, el, ph;
+    double fit = sl_profile_fit_eval_parts(&p->fit, d, how.with_u ? &ufit : NULL, &el, &ph);
     r.e_frac = el + ph > 0 ? el / (el + ph) : 0;
     double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
     r.extrapolated = d > hi + 1e-9 || d < lo - 1e-9;
-    if (mode == SL_EVAL_POINTS) {
+    if (how.mode == SL_EVAL_POINTS) {
         if (d >= lo && d <= hi) {
             r.v = exp(gsl_interp_eval(cv->interp, p->distance_cm, cv->logdose, d, NULL));
         } else {
             /* beyond the points: the fitted form, scaled to meet the end point */
-            double end = d > hi ? hi : lo;
-            double at_end = sl_profile_fit_eval(&p->fit, end, NULL);
+            double at_end = d > hi ? cv->fit_hi : cv->fit_lo;
             double meas_end = p->dose_percent[d > hi ? p->n - 1 : 0];
             r.v = fit * meas_end / at_end;
         }
@@ -494,39 +559,42 @@ static point_value curve_value(const curve *cv, double d, sl_eval_mode mode)
     if (d > hi) {
         /* far out, head leakage flattens the curve: an exponential tail
          * would under-read, so the measured floor holds (all photons) */
-        double floor = measured_floor(p);
+        double floor = cv->floor;
         if (!(r.v >= floor)) {
             /* the fit's relative uncertainty where it was last measured */
-            double uhi, vhi = sl_profile_fit_eval(&p->fit, hi, &uhi);
-            r.u_fit = vhi > 0 ? uhi / vhi * floor : 0;
+            r.u_fit = cv->fit_hi > 0 ? cv->u_hi / cv->fit_hi * floor : 0;
             r.e_frac = r.v > 0 ? r.e_frac * r.v / floor : 0;
             r.v = floor;
         }
         r.u_extrap = SL_EXTRAPOLATION_PER_CM * (d - hi) * r.v;
     }
+    r.poor = p->fit.poor;
+    if (!how.with_u)
+        return r;
     double rel = p->rel_uncertainty * r.v;
     r.u_meas = sqrt(rel * rel + p->floor_percent * p->floor_percent);
     if (p->fit.poor) {
         double wide = p->fit.max_residual_relative * r.v;
         r.u_fit = sqrt(r.u_fit * r.u_fit + wide * wide);
-        r.poor = true;
     }
     return r;
 }
 
 /* Log-linear blend of two values with weight w on b; uncertainties blend
  * relatively, like the values. */
-static point_value blend(point_value a, point_value b, double w)
+static point_value blend(point_value a, point_value b, double w, bool with_u)
 {
     if (w <= 0)
         return a;
     if (w >= 1)
         return b;
-    point_value r;
+    point_value r = {0};
     r.v = exp((1 - w) * log(a.v) + w * log(b.v));
-    r.u_fit = ((1 - w) * a.u_fit / a.v + w * b.u_fit / b.v) * r.v;
-    r.u_meas = ((1 - w) * a.u_meas / a.v + w * b.u_meas / b.v) * r.v;
-    r.u_extrap = ((1 - w) * a.u_extrap / a.v + w * b.u_extrap / b.v) * r.v;
+    if (with_u) {
+        r.u_fit = ((1 - w) * a.u_fit / a.v + w * b.u_fit / b.v) * r.v;
+        r.u_meas = ((1 - w) * a.u_meas / a.v + w * b.u_meas / b.v) * r.v;
+        r.u_extrap = ((1 - w) * a.u_extrap / a.v + w * b.u_extrap / b.v) * r.v;
+    }
     r.e_frac = (1 - w) * a.e_frac + w * b.e_frac;
     r.extrapolated = a.extrapolated || b.extrapolated;
     r.poor = a.poor || b.poor;
@@ -537,16 +605,16 @@ static point_value blend(point_value a, point_value b, double w)
  * two measured directions around it (the nearest beyond the measured ones),
  * or the highest when the direction is unknown. *between receives the
  * interpolation spread w (1 - w) |b - a|. */
-static point_value group_value(const depth_group *g, double d, double angle, sl_eval_mode mode,
+static point_value group_value(const depth_group *g, double d, double angle, eval_how how,
                                double *between)
 {
     *between = 0;
     if (g->ncurves == 1)
-        return curve_value(&g->curves[0], d, mode);
+        return curve_value(&g->curves[0], d, how);
     if (isnan(angle)) {
-        point_value best = curve_value(&g->curves[0], d, mode);
+        point_value best = curve_value(&g->curves[0], d, how);
         for (size_t k = 1; k < g->ncurves; k++) {
-            point_value r = curve_value(&g->curves[k], d, mode);
+            point_value r = curve_value(&g->curves[k], d, how);
             if (r.v > best.v)
                 best = r;
         }
@@ -557,18 +625,23 @@ static point_value group_value(const depth_group *g, double d, double angle, sl_
     while (k1 < g->ncurves && g->curves[k1].angle_deg < angle)
         k1++;
     if (k1 == 0)
-        return curve_value(&g->curves[0], d, mode);
+        return curve_value(&g->curves[0], d, how);
     if (k1 == g->ncurves)
-        return curve_value(&g->curves[g->ncurves - 1], d, mode);
+        return curve_value(&g->curves[g->ncurves - 1], d, how);
     const curve *c0 = &g->curves[k1 - 1], *c1 = &g->curves[k1];
     double w = (angle - c0->angle_deg) / (c1->angle_deg - c0->angle_deg);
-    point_value a = curve_value(c0, d, mode), b = curve_value(c1, d, mode);
-    point_value r = blend(a, b, w);
+    point_value a = curve_value(c0, d, how), b = curve_value(c1, d, how);
+    point_value r = blend(a, b, w, how.with_u);
     /* a profile whose measured range ends before d counts only when it has weight */
     r.extrapolated = (w < 1 && a.extrapolated) || (w > 0 && b.extrapolated);
     *between = w * (1 - w) * fabs(b.v - a.v);
     return r;
 }
+
+/* Where an evaluation starts. Assigning it clears a value with a few vector
+ * moves; memset of this size compiled to a `rep stos`, whose start-up cost,
+ * several times at every sample, showed in the estimate's profile. */
+static const sl_model_value zero_value;
 
 static void set_nan(sl_model_value *out)
 {
@@ -581,7 +654,7 @@ static void set_nan(sl_model_value *out)
 
 /* One flat curve set (no members, one tilt and SSD) at one distance. */
 static void eval_flat(const sl_curve_set *c, double depth, double d, double angle,
-                      sl_eval_mode mode, double electron_t, sl_model_value *out)
+                      eval_how how, double electron_t, sl_model_value *out)
 {
     size_t g0 = 0, g1 = 0;
     double w = 0;
@@ -603,13 +676,11 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
         w = (depth - c->depths[g0]) / (c->depths[g1] - c->depths[g0]);
     }
     double s0, s1 = 0;
-    point_value a = group_value(&c->groups[g0], d, angle, mode, &s0);
-    point_value b = g1 == g0 ? a : group_value(&c->groups[g1], d, angle, mode, &s1);
+    point_value a = group_value(&c->groups[g0], d, angle, how, &s0);
+    point_value b = g1 == g0 ? a : group_value(&c->groups[g1], d, angle, how, &s1);
     if (g1 == g0)
         s1 = s0;
-    point_value r = blend(a, b, w);
-    double rs = (1 - w) * s0 / a.v + w * s1 / b.v;
-    double between = w * (1 - w) * fabs(b.v - a.v);
+    point_value r = blend(a, b, w, how.with_u);
     if (r.extrapolated)
         out->flags |= SL_MF_EXTRAPOLATED;
     if (r.poor)
@@ -620,6 +691,10 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
     out->percent = r.v * scale;
     out->electron_percent = r.v * r.e_frac * t;
     out->photon_percent = r.v * (1 - r.e_frac);
+    if (!how.with_u)
+        return;
+    double rs = (1 - w) * s0 / a.v + w * s1 / b.v;
+    double between = w * (1 - w) * fabs(b.v - a.v);
     out->u_fit = r.u_fit / r.v * out->percent;
     out->u_meas = r.u_meas / r.v * out->percent;
     out->u_extrap = r.u_extrap / r.v * out->percent;
@@ -651,10 +726,10 @@ static void bracket(const double *v, size_t n, double x, size_t *i0, size_t *i1,
 }
 
 /* Log-linear blend of two evaluations with weight w on b, as between
- * depths: components blend relatively, and the interpolation spread
- * w (1 - w) |b - a| joins the interpolation component. */
+ * depths: components blend relatively (when wanted: with_u), and the
+ * interpolation spread w (1 - w) |b - a| joins the interpolation component. */
 static void blend_values(const sl_model_value *a, const sl_model_value *b, double w,
-                         sl_model_value *out)
+                         bool with_u, sl_model_value *out)
 {
     unsigned flags = a->flags | b->flags;
     if (w <= 0 || w >= 1 || !(a->percent > 0) || !(b->percent > 0)) {
@@ -664,6 +739,14 @@ static void blend_values(const sl_model_value *a, const sl_model_value *b, doubl
     }
     sl_model_value r = *a;
     r.percent = exp((1 - w) * log(a->percent) + w * log(b->percent));
+    r.depth_used_cm = (1 - w) * a->depth_used_cm + w * b->depth_used_cm;
+    r.tilt_used_deg = (1 - w) * a->tilt_used_deg + w * b->tilt_used_deg;
+    r.ssd_used_cm = (1 - w) * a->ssd_used_cm + w * b->ssd_used_cm;
+    r.flags = flags;
+    if (!with_u) {
+        *out = r;
+        return;
+    }
 #define REL(f) (((1 - w) * a->f / a->percent + w * b->f / b->percent) * r.percent)
     r.u_fit = REL(u_fit);
     r.u_meas = REL(u_meas);
@@ -675,42 +758,26 @@ static void blend_values(const sl_model_value *a, const sl_model_value *b, doubl
 #undef REL
     double between = w * (1 - w) * fabs(b->percent - a->percent);
     r.u_interp = sqrt(ui * ui + between * between);
-    r.depth_used_cm = (1 - w) * a->depth_used_cm + w * b->depth_used_cm;
-    r.tilt_used_deg = (1 - w) * a->tilt_used_deg + w * b->tilt_used_deg;
-    r.ssd_used_cm = (1 - w) * a->ssd_used_cm + w * b->ssd_used_cm;
-    r.flags = flags;
     *out = r;
 }
 
-/* The layers of one SSD at a tilt: interpolated between the commissioned
- * tilts around it, the nearest beyond them (flagged beyond the tolerance,
- * with its uncertainty component), the highest when the tilt is unknown. */
-static void eval_at_ssd(const sl_curve_set *c, double ssd, double depth, double d, double angle,
-                        double tilt, sl_eval_mode mode, double electron_t, sl_model_value *out)
+/* The layers of one SSD (c->ssds[r]) at a tilt: interpolated between the
+ * commissioned tilts around it, the nearest beyond them (flagged beyond the
+ * tolerance, with its uncertainty component), the highest when the tilt is
+ * unknown. */
+static void eval_at_ssd(const sl_curve_set *c, size_t r, double depth, double d, double angle,
+                        double tilt, eval_how how, double electron_t, sl_model_value *out)
 {
-    double tl[64];
-    const sl_curve_set *sets[64];
-    size_t n = 0;
-    for (size_t k = 0; k < c->nlayers && n < 64; k++) {
-        if (fabs(c->layers[k].ssd_cm - ssd) > 1e-6)
-            continue;
-        /* keep increasing by tilt */
-        size_t i = n;
-        while (i > 0 && tl[i - 1] > c->layers[k].tilt_deg) {
-            tl[i] = tl[i - 1];
-            sets[i] = sets[i - 1];
-            i--;
-        }
-        tl[i] = c->layers[k].tilt_deg;
-        sets[i] = c->layers[k].set;
-        n++;
-    }
+    double ssd = c->ssds[r];
+    const double *tl = c->rows[r].tilts;
+    const sl_curve_set *const *sets = c->rows[r].sets;
+    size_t n = c->rows[r].n;
     if (isnan(tilt)) {
         /* unknown tilt: the highest of the commissioned ones */
         for (size_t k = 0; k < n; k++) {
             sl_model_value v;
-            memset(&v, 0, sizeof v);
-            eval_flat(sets[k], depth, d, angle, mode, electron_t, &v);
+            v = zero_value;
+            eval_flat(sets[k], depth, d, angle, how, electron_t, &v);
             v.tilt_used_deg = tl[k];
             v.ssd_used_cm = ssd;
             if (k == 0 || v.percent > out->percent) {
@@ -727,29 +794,30 @@ static void eval_at_ssd(const sl_curve_set *c, double ssd, double depth, double 
     double w, beyond;
     bracket(tl, n, tilt, &i0, &i1, &w, &beyond);
     sl_model_value a, b;
-    memset(&a, 0, sizeof a);
-    memset(&b, 0, sizeof b);
-    eval_flat(sets[i0], depth, d, angle, mode, electron_t, &a);
+    a = zero_value;
+    b = zero_value;
+    eval_flat(sets[i0], depth, d, angle, how, electron_t, &a);
     a.tilt_used_deg = tl[i0];
     a.ssd_used_cm = ssd;
     if (i1 != i0) {
-        eval_flat(sets[i1], depth, d, angle, mode, electron_t, &b);
+        eval_flat(sets[i1], depth, d, angle, how, electron_t, &b);
         b.tilt_used_deg = tl[i1];
         b.ssd_used_cm = ssd;
     } else {
         b = a;
     }
-    blend_values(&a, &b, w, out);
+    blend_values(&a, &b, w, how.with_u, out);
     if (beyond > SL_TILT_TOLERANCE_DEG) {
         out->flags |= SL_MF_TILT_OUTSIDE;
-        out->u_uncommissioned = hypot(out->u_uncommissioned,
-                                      SL_UNCOMMISSIONED_PER_DEG * beyond * out->percent);
+        if (how.with_u)
+            out->u_uncommissioned = hypot(out->u_uncommissioned,
+                                          SL_UNCOMMISSIONED_PER_DEG * beyond * out->percent);
     }
 }
 
 /* One curve set (no members) at one distance, tilt and SSD. */
 static void eval_set(const sl_curve_set *c, double depth, double d, double angle, double tilt,
-                     double ssd_q, sl_eval_mode mode, double electron_t, sl_model_value *out)
+                     double ssd_q, eval_how how, double electron_t, sl_model_value *out)
 {
     double ssd = isfinite(ssd_q) && ssd_q > 0 ? ssd_q : c->nominal_ssd_cm;
     unsigned given = out->flags;
@@ -758,7 +826,7 @@ static void eval_set(const sl_curve_set *c, double depth, double d, double angle
     bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
     if (c->nlayers == 0) {
         /* one tilt and SSD */
-        eval_flat(c, depth, d, angle, mode, electron_t, out);
+        eval_flat(c, depth, d, angle, how, electron_t, out);
         out->tilt_used_deg = c->tilts[0];
         out->ssd_used_cm = c->ssds[0];
         double tb = isnan(tilt) ? 0 : fabs(tilt - c->tilts[0]);
@@ -768,20 +836,21 @@ static void eval_set(const sl_curve_set *c, double depth, double d, double angle
         }
     } else {
         sl_model_value a, b;
-        memset(&a, 0, sizeof a);
-        memset(&b, 0, sizeof b);
-        eval_at_ssd(c, c->ssds[i0], depth, d, angle, tilt, mode, electron_t, &a);
+        a = zero_value;
+        b = zero_value;
+        eval_at_ssd(c, i0, depth, d, angle, tilt, how, electron_t, &a);
         if (i1 != i0)
-            eval_at_ssd(c, c->ssds[i1], depth, d, angle, tilt, mode, electron_t, &b);
+            eval_at_ssd(c, i1, depth, d, angle, tilt, how, electron_t, &b);
         else
             b = a;
-        blend_values(&a, &b, w, out);
+        blend_values(&a, &b, w, how.with_u, out);
         out->flags |= given;
     }
     if (beyond > SL_SSD_TOLERANCE_CM) {
         out->flags |= SL_MF_SSD_OUTSIDE;
-        out->u_uncommissioned =
-            hypot(out->u_uncommissioned, SL_UNCOMMISSIONED_PER_CM * beyond * out->percent);
+        if (how.with_u)
+            out->u_uncommissioned =
+                hypot(out->u_uncommissioned, SL_UNCOMMISSIONED_PER_CM * beyond * out->percent);
     }
 }
 
@@ -837,9 +906,12 @@ static void scale_value(sl_model_value *v, double k)
     v->u_uncommissioned *= k;
 }
 
-void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out)
+/* sl_curves_eval_query, with or without the uncertainty components. */
+static void eval_query(const sl_curve_set *c, const sl_eval_query *q, bool with_u,
+                       sl_model_value *out)
 {
-    memset(out, 0, sizeof *out);
+    eval_how how = {q->mode, with_u};
+    *out = zero_value;
     double depth = q->depth_cm, d = q->distance_cm;
     out->depth_used_cm = depth;
     if (q->mode == SL_EVAL_POINTS)
@@ -854,14 +926,14 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
         set_nan(out);
         return;
     }
-    eval_set(c, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, q->mode, q->electron_t, out);
+    eval_set(c, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, how, q->electron_t, out);
     if (c->standin) {
         /* the largest candidate; the flags of every candidate are kept */
         double lo = out->percent;
         sl_model_value cand;
         if (isfinite(q->app_distance_cm) && q->app_distance_cm >= 0) {
-            memset(&cand, 0, sizeof cand);
-            eval_set(c, depth, q->app_distance_cm, q->angle_deg, q->tilt_deg, q->ssd_cm, q->mode,
+            cand = zero_value;
+            eval_set(c, depth, q->app_distance_cm, q->angle_deg, q->tilt_deg, q->ssd_cm, how,
                      q->electron_t, &cand);
             cand.flags |= out->flags;
             out->flags = cand.flags;
@@ -870,8 +942,8 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
                 *out = cand;
         }
         for (size_t k = 0; k < c->nmembers; k++) {
-            memset(&cand, 0, sizeof cand);
-            eval_set(c->members[k].set, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, q->mode,
+            cand = zero_value;
+            eval_set(c->members[k].set, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, how,
                      q->electron_t, &cand);
             scale_value(&cand, c->members[k].scale);
             cand.flags |= out->flags;
@@ -884,6 +956,18 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
         out->flags |= SL_MF_OPEN_FOR_CUTOUT;
     }
     combine(c, d, out);
+}
+
+void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out)
+{
+    eval_query(c, q, true, out);
+}
+
+double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q)
+{
+    sl_model_value v;
+    eval_query(c, q, false, &v);
+    return v.percent;
 }
 
 void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode mode,

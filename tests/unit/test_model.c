@@ -1,7 +1,8 @@
 /*
  * Unit tests of commissioning: profile CSV reading and edge finding, the
  * profile fit on noise-free data of known parameters, the model file round
- * trip (write, read, identical evaluation) and evaluation rules.
+ * trip (write, read, identical evaluation), evaluation rules and the dose-alone
+ * evaluation against the full one.
  */
 #include <math.h>
 #include <stdio.h>
@@ -334,6 +335,60 @@ START_TEST(invivo_scale_applied_and_round_tripped)
 }
 END_TEST
 
+/* sl_curves_eval_percent, the dose alone that the setup shift's neighbouring
+ * evaluations take, is bitwise the percent of the full evaluation everywhere:
+ * between and beyond the commissioned depths, distances, directions, tilts
+ * and SSDs, unknown direction and tilt, both modes, a what-if shield, the
+ * stand-in of an uncommissioned cutout (with and without the applicator's
+ * distance) and an in-vivo scale. A consistency check of two paths through
+ * the same code; the values themselves are checked elsewhere. */
+START_TEST(dose_alone_equals_the_full_evaluation)
+{
+    sl_model *m;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_model_load(demo_model(), &m, &e), SL_OK);
+    add_scale(m, 12, "A06", 0.8, log(0.8) - 0.05, log(0.8) + 0.05);
+    const struct {
+        double e;
+        const char *app, *ins;
+    } sets[] = {{9, "A10", NULL}, {9, "A10", "CUSTOM"}, {12, "A06", "CUSTOM"}, {6, "A06", "C4"}};
+    const double depths[] = {-0.2, 0, 0.7, 1.54, 2.6, 8};
+    const double dists[] = {-1, 0, 0.3, 2.2, 9.7, 24, 39.5, 52};
+    const double angles[] = {NAN, 0, 30, 90};
+    const double tilts[] = {NAN, -20, -7.5, 0, 12, 30};
+    const double ssds[] = {NAN, 96, 100, 106, 110, 125};
+    size_t n = 0;
+    for (size_t k = 0; k < sizeof sets / sizeof *sets; k++) {
+        sl_curve_set *c;
+        unsigned fl;
+        ck_assert_int_eq(sl_model_select(m, sets[k].e, sets[k].app, sets[k].ins, &c, &fl, &e),
+                         SL_OK);
+        for (int mode = 0; mode < 2; mode++)
+            for (size_t a = 0; a < sizeof depths / sizeof *depths; a++)
+                for (size_t b = 0; b < sizeof dists / sizeof *dists; b++)
+                    for (size_t g = 0; g < sizeof angles / sizeof *angles; g++)
+                        for (size_t t = 0; t < sizeof tilts / sizeof *tilts; t++)
+                            for (size_t s = 0; s < sizeof ssds / sizeof *ssds; s++) {
+                                sl_eval_query q = {depths[a], dists[b],
+                                                   (t + s) % 2 ? dists[b] + 1.5 : NAN,
+                                                   angles[g],
+                                                   mode ? SL_EVAL_POINTS : SL_EVAL_FIT,
+                                                   (g + t) % 2 ? 0.3 : 1.0, tilts[t], ssds[s]};
+                                sl_model_value v;
+                                sl_curves_eval_query(c, &q, &v);
+                                double p = sl_curves_eval_percent(c, &q);
+                                ck_assert_msg(memcmp(&p, &v.percent, sizeof p) == 0,
+                                              "set %zu, query %zu: %a != %a", k, n, p,
+                                              v.percent);
+                                n++;
+                            }
+        sl_curve_set_free(c);
+    }
+    ck_assert_uint_eq(n, 4 * 2 * 6 * 8 * 4 * 6 * 6);
+    sl_model_free(m);
+}
+END_TEST
+
 static Suite *model_suite(void)
 {
     Suite *s = suite_create("model");
@@ -346,6 +401,7 @@ static Suite *model_suite(void)
     tcase_add_test(tc, model_round_trip_is_exact);
     tcase_add_test(tc, evaluation_refuses_what_is_not_commissioned);
     tcase_add_test(tc, invivo_scale_applied_and_round_tripped);
+    tcase_add_test(tc, dose_alone_equals_the_full_evaluation);
     suite_add_tcase(s, tc);
     return s;
 }
