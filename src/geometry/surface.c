@@ -209,28 +209,64 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
         free(fill);
     }
 
-    /* parity of every cell centre: one horizontal scan a row */
-    double *xs = malloc((ne ? ne : 1) * sizeof *xs);
-    if (!xs)
-        return SL_ENOMEM;
-    for (int cy = 0; cy < s->gy; cy++) {
-        double y = lo.y + (cy + 0.5) * s->cell;
-        size_t nx = 0;
+    /* parity of every cell centre: one horizontal scan a row. Each edge
+     * goes only to the rows whose centre line it crosses (a few), not every
+     * row to every edge: a dense body contour made this scan the larger part
+     * of building the body. The test and the crossing are those of a scan
+     * over all edges, so every row gets the same crossings. */
+    double rowy[GRID_MAX];
+    size_t rowstart[GRID_MAX + 2] = {0};
+    for (int cy = 0; cy < s->gy; cy++)
+        rowy[cy] = lo.y + (cy + 0.5) * s->cell;
+    size_t nxs = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        double *xs = NULL;
+        if (pass == 1) {
+            for (int cy = 0; cy < s->gy; cy++)
+                rowstart[cy + 1] += rowstart[cy];
+            nxs = rowstart[s->gy];
+            xs = malloc((nxs ? nxs : 1) * sizeof *xs);
+            if (!xs)
+                return SL_ENOMEM;
+        }
         for (size_t i = 0; i < ne; i++) {
             sl_vec2 a = s->ea[i], b = s->eb[i];
-            if ((a.y > y) != (b.y > y))
-                xs[nx++] = a.x + (y - a.y) * (b.x - a.x) / (b.y - a.y);
+            /* the rows near the edge's y extent; the exact test decides */
+            double f0 = (dmin(a.y, b.y) - lo.y) / s->cell - 0.5;
+            double f1 = (dmax(a.y, b.y) - lo.y) / s->cell - 0.5;
+            int r0 = f0 > 1 ? (int)f0 - 1 : 0;
+            int r1 = f1 < s->gy ? (int)f1 + 1 : s->gy - 1;
+            if (r1 > s->gy - 1)
+                r1 = s->gy - 1;
+            for (int cy = r0; cy <= r1; cy++) {
+                double y = rowy[cy];
+                if ((a.y > y) != (b.y > y)) {
+                    if (pass == 0)
+                        rowstart[cy + 1]++;
+                    else
+                        xs[rowstart[cy]++] = a.x + (y - a.y) * (b.x - a.x) / (b.y - a.y);
+                }
+            }
         }
-        qsort(xs, nx, sizeof *xs, cmp_double);
-        size_t k = 0;
-        for (int cx = 0; cx < s->gx; cx++) {
-            double x = lo.x + (cx + 0.5) * s->cell;
-            while (k < nx && xs[k] < x)
-                k++;
-            s->center_in[(size_t)cy * (size_t)s->gx + (size_t)cx] = (unsigned char)(k & 1);
+        if (pass == 1) {
+            /* rowstart[cy] now ends row cy: rows run from the previous end */
+            size_t from = 0;
+            for (int cy = 0; cy < s->gy; cy++) {
+                size_t to = rowstart[cy], nx = to - from;
+                double *row = xs + from;
+                qsort(row, nx, sizeof *row, cmp_double);
+                size_t k = 0;
+                for (int cx = 0; cx < s->gx; cx++) {
+                    double x = lo.x + (cx + 0.5) * s->cell;
+                    while (k < nx && row[k] < x)
+                        k++;
+                    s->center_in[(size_t)cy * (size_t)s->gx + (size_t)cx] = (unsigned char)(k & 1);
+                }
+                from = to;
+            }
+            free(xs);
         }
     }
-    free(xs);
     return SL_OK;
 }
 

@@ -78,13 +78,31 @@ typedef struct sample_job {
     const sl_sampling_options *opt;
     sl_status *status;
     sl_error *errors;
+    /* the body's slab stack, built as one more task of the same loop (it
+     * does not depend on the samples); NULL when depths do not come from
+     * the body */
+    sl_slice_stack *stack;
+    sl_status stack_status;
+    sl_error stack_error;
 } sample_job;
 
-static void sample_task(size_t i, void *ctx)
+/* Task 0 builds the body's stack when there is one: the longest single
+ * task, started first so that it overlaps the organs' sampling instead of
+ * running alone after it. */
+static void sample_task(size_t t, void *ctx)
 {
     sample_job *j = ctx;
-    j->status[i] = sl_sample_roi(j->loc->rois[i], j->file, j->opt, &j->loc->samples[i],
-                                 &j->errors[i]);
+    if (j->stack) {
+        if (t == 0) {
+            j->stack_status = sl_slices_build(j->loc->external, j->file,
+                                              j->loc->slice_spacing_cm, j->stack,
+                                              &j->stack_error);
+            return;
+        }
+        t--;
+    }
+    j->status[t] = sl_sample_roi(j->loc->rois[t], j->file, j->opt, &j->loc->samples[t],
+                                 &j->errors[t]);
 }
 
 /* --------------------------------------------------------- placement -- */
@@ -605,8 +623,10 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
         sl_location_free(loc);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    sample_job sj = {loc, ss->source, &sopt, sst, serr};
-    sl_parallel_for(loc->norgans, threads, sample_task, &sj);
+    sl_slice_stack stack = {0};
+    sample_job sj = {loc, ss->source, &sopt, sst, serr,
+                     loc->depth_from_body ? &stack : NULL, SL_OK, {0}};
+    sl_parallel_for(loc->norgans + (sj.stack != NULL), threads, sample_task, &sj);
     for (size_t i = 0; i < loc->norgans && st == SL_OK; i++) {
         if (sst[i] != SL_OK) {
             st = sst[i];
@@ -619,6 +639,7 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
     free(sst);
     free(serr);
     if (st != SL_OK) {
+        sl_slices_free(&stack);
         sl_location_free(loc);
         return st;
     }
@@ -627,8 +648,9 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
     if (!loc->depth_from_body)
         bolus_unused_note(plan, ss, loc);
     if (loc->depth_from_body) {
-        sl_slice_stack stack;
-        st = sl_slices_build(loc->external, ss->source, loc->slice_spacing_cm, &stack, err);
+        st = sj.stack_status;
+        if (st != SL_OK && err)
+            *err = sj.stack_error;
         if (st == SL_OK) {
             char what[256];
             snprintf(what, sizeof what, "%s: EXTERNAL ROI '%s'", ss->source,
