@@ -11,7 +11,9 @@
  */
 #include "strayline/dicom.h"
 #include "strayline/util.h"
+#include "contour_points.h"
 #include "ds_value.h"
+#include "strayline/parallel.h"
 
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dcdeftag.h>
@@ -204,14 +206,21 @@ public:
      * number of values; the points (count / 3 rounded up, malloc'd, NULL for
      * none) are owned by the caller as soon as they are handed over through
      * `own`, so that they are freed whatever fails next. Another VR than DS
-     * goes through nums(). */
+     * goes through nums(). Points already converted in `batch` are taken
+     * from it. */
     template <typename Own>
-    void contour_data(DcmItem *item, const std::string &ctx, size_t *count, Own own)
+    void contour_data(DcmItem *item, const std::string &ctx, size_t *count, Own own,
+                      sl_dicom_internal::contour_batch *batch = nullptr)
     {
         DcmElement *el = nullptr;
         *count = 0;
         if (item->findAndGetElement(DCM_ContourData, el).bad() || !el || el->getLength() == 0)
             return;
+        sl_vec3 *ready = nullptr;
+        if (batch && batch->take(el, &ready, count)) {
+            own(ready);
+            return;
+        }
         auto where = [&]() { return at(ctx, DCM_ContourData); };
         sl_vec3 *pts = nullptr;
         auto begin = [&](size_t vm) {
@@ -807,6 +816,21 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
 
     size_t total_points = 0;
     std::vector<DcmItem *> rcs = r.seq(ds, DCM_ROIContourSequence, "", false);
+    /* every contour's values converted first, on every core; the walk
+     * below takes them in order and checks everything as before */
+    sl_dicom_internal::contour_batch batch;
+    for (DcmItem *rc : rcs) {
+        DcmSequenceOfItems *sq = nullptr;
+        if (rc->findAndGetSequence(DCM_ContourSequence, sq).bad() || !sq)
+            continue;
+        for (DcmObject *o = sq->nextInContainer(nullptr); o; o = sq->nextInContainer(o)) {
+            DcmElement *el = nullptr;
+            if (static_cast<DcmItem *>(o)->findAndGetElement(DCM_ContourData, el).good() && el &&
+                el->getLength() > 0 && el->ident() == EVR_DS)
+                batch.add(el);
+        }
+    }
+    batch.convert(sl_parallel_threads(0), SL_DICOM_MAX_CONTOUR_POINTS);
     for (size_t i = 0; i < rcs.size(); i++) {
         std::string ctx0 = "ROI contour item " + std::to_string(i + 1);
         int ref = r.integer(rcs[i], DCM_ReferencedROINumber, ctx0, true);
@@ -850,7 +874,7 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                            std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
                            " contour points, more than strayline accepts");
             size_t nvalues = 0;
-            r.contour_data(cs[j], cctx, &nvalues, [&](sl_vec3 *p) { c->points = p; });
+            r.contour_data(cs[j], cctx, &nvalues, [&](sl_vec3 *p) { c->points = p; }, &batch);
             if (nvalues == 0)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData), "missing or empty");
             if (nvalues % 3 != 0)
