@@ -40,7 +40,7 @@ void convert_one(contour_values &cv, convert_job &job)
     if (cv.el->getString(chars, nchars).bad() || !chars || nchars == 0)
         return;
     const char *s = chars, *end = chars + nchars;
-    size_t vm = 1 + static_cast<size_t>(std::count(s, end, '\\'));
+    size_t vm = 1 + ds_delimiters(s, end);
     if (vm > 100000000UL)
         return;
     while (end > s && (end[-1] == ' ' || end[-1] == '\0'))

@@ -10,6 +10,9 @@
 #include <cfloat>
 #include <charconv>
 #include <cmath>
+#include <cstddef>
+#include <cstdint>
+#include <cstring>
 #include <system_error>
 
 namespace sl_dicom_internal {
@@ -61,6 +64,28 @@ inline bool ds_convert(const char *b, const char *e, double &out)
         return false; /* subnormal: strtod says ERANGE */
     out = d;
     return true;
+}
+
+/* The number of '\\' delimiters in [b, e), eight bytes at a time: counting
+ * them byte by byte (to size a contour's points exactly before converting)
+ * was a fifth of converting a dense structure set. A byte of x is zero
+ * exactly where the text has a delimiter; ((x & 0x7f..) + 0x7f..) | x has
+ * that byte's top bit clear exactly then, with no carry between bytes. */
+inline size_t ds_delimiters(const char *b, const char *e)
+{
+    const uint64_t ones7 = 0x7f7f7f7f7f7f7f7fULL, delim = 0x5c5c5c5c5c5c5c5cULL;
+    size_t n = 0;
+    while (e - b >= 8) {
+        uint64_t w;
+        std::memcpy(&w, b, 8);
+        uint64_t x = w ^ delim;
+        uint64_t t = ((x & ones7) + ones7) | x;
+        n += static_cast<size_t>(__builtin_popcountll(~t & ~ones7));
+        b += 8;
+    }
+    for (; b < e; b++)
+        n += *b == '\\';
+    return n;
 }
 
 } // namespace sl_dicom_internal

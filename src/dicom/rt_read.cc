@@ -47,6 +47,7 @@
 namespace {
 
 using sl_dicom_internal::ds_convert;
+using sl_dicom_internal::ds_delimiters;
 
 const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
 const char *const UID_RTSTRUCT = "1.2.840.10008.5.1.4.1.1.481.3";
@@ -174,7 +175,7 @@ public:
             return;
         }
         const char *s = chars, *end = chars + nchars;
-        size_t vm = 1 + static_cast<size_t>(std::count(s, end, '\\'));
+        size_t vm = 1 + ds_delimiters(s, end);
         if (vm > 100000000UL)
             fail(SL_EINPUT, where(), "too many values");
         while (end > s && (end[-1] == ' ' || end[-1] == '\0'))
@@ -1080,14 +1081,24 @@ const char *const NOT_DICOM =
     "element)";
 
 /* Item tags (FFFE,E000) in either byte order: every level of nesting needs
- * one, so their count bounds the depth DCMTK's recursive reader can reach. */
+ * one, so their count bounds the depth DCMTK's recursive reader can reach.
+ * Each form holds exactly one 0xFE byte (first in little endian, second in
+ * big endian), so memchr jumps from one 0xFE to the next: Contour Data is
+ * text and holds none, where a byte-by-byte test cost a pass over it. */
 size_t count_item_tags(const unsigned char *p, size_t n)
 {
     size_t k = 0;
-    for (size_t i = 0; i + 4 <= n; i++) {
-        if ((p[i] == 0xFE && p[i + 1] == 0xFF && p[i + 2] == 0x00 && p[i + 3] == 0xE0) ||
-            (p[i] == 0xFF && p[i + 1] == 0xFE && p[i + 2] == 0xE0 && p[i + 3] == 0x00))
+    const unsigned char *end = p + n;
+    for (const unsigned char *q = p; q < end;) {
+        q = static_cast<const unsigned char *>(memchr(q, 0xFE, static_cast<size_t>(end - q)));
+        if (!q)
+            break;
+        size_t i = static_cast<size_t>(q - p);
+        if (i + 4 <= n && q[1] == 0xFF && q[2] == 0x00 && q[3] == 0xE0)
             k++;
+        else if (i >= 1 && i + 3 <= n && q[-1] == 0xFF && q[1] == 0xE0 && q[2] == 0x00)
+            k++;
+        q++;
     }
     return k;
 }

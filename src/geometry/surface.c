@@ -138,14 +138,17 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
     for (size_t k = 0; k < sl->count; k++) {
         const sl_vec2 *p = st->loops[sl->first + k];
         size_t n = st->loop_n[sl->first + k];
+        /* no division for the wrap (a modulo an edge was a tenth of
+         * building a dense body's slices), no fmin/fmax calls: contour
+         * points are finite, and a zero's sign cannot move the margin */
         for (size_t i = 0; i < n; i++) {
             s->ea[e] = p[i];
-            s->eb[e] = p[(i + 1) % n];
+            s->eb[e] = p[i + 1 < n ? i + 1 : 0];
             e++;
-            lo.x = fmin(lo.x, p[i].x);
-            lo.y = fmin(lo.y, p[i].y);
-            hi.x = fmax(hi.x, p[i].x);
-            hi.y = fmax(hi.y, p[i].y);
+            lo.x = dmin(lo.x, p[i].x);
+            lo.y = dmin(lo.y, p[i].y);
+            hi.x = dmax(hi.x, p[i].x);
+            hi.y = dmax(hi.y, p[i].y);
         }
     }
     lo.x -= MARGIN_CM;
@@ -193,10 +196,10 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
             memcpy(fill, s->cell_start, ncell * sizeof *fill);
         }
         for (size_t i = 0; i < ne; i++) {
-            int x0 = cell_index((fmin(s->ea[i].x, s->eb[i].x) - eps - lo.x) / s->cell, s->gx);
-            int x1 = cell_index((fmax(s->ea[i].x, s->eb[i].x) + eps - lo.x) / s->cell, s->gx);
-            int y0 = cell_index((fmin(s->ea[i].y, s->eb[i].y) - eps - lo.y) / s->cell, s->gy);
-            int y1 = cell_index((fmax(s->ea[i].y, s->eb[i].y) + eps - lo.y) / s->cell, s->gy);
+            int x0 = cell_index((dmin(s->ea[i].x, s->eb[i].x) - eps - lo.x) / s->cell, s->gx);
+            int x1 = cell_index((dmax(s->ea[i].x, s->eb[i].x) + eps - lo.x) / s->cell, s->gx);
+            int y0 = cell_index((dmin(s->ea[i].y, s->eb[i].y) - eps - lo.y) / s->cell, s->gy);
+            int y1 = cell_index((dmax(s->ea[i].y, s->eb[i].y) + eps - lo.y) / s->cell, s->gy);
             for (int cy = y0; cy <= y1; cy++)
                 for (int cx = x0; cx <= x1; cx++) {
                     size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;

@@ -485,12 +485,15 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
         for (size_t i = 0; i < s->n; i++) {
             sl_vec2 uv;
             double scale;
+            /* comparisons, not fmin/fmax calls (a serial pass over every
+             * sample): projections of finite points are finite, and the
+             * bounds only size the outline's index */
             if (sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, s->points[i]), &uv,
                                  &scale)) {
-                lo.x = fmin(lo.x, uv.x);
-                lo.y = fmin(lo.y, uv.y);
-                hi.x = fmax(hi.x, uv.x);
-                hi.y = fmax(hi.y, uv.y);
+                lo.x = uv.x < lo.x ? uv.x : lo.x;
+                lo.y = uv.y < lo.y ? uv.y : lo.y;
+                hi.x = uv.x > hi.x ? uv.x : hi.x;
+                hi.y = uv.y > hi.y ? uv.y : hi.y;
             }
         }
         ntasks += (s->n + CHUNK - 1) / CHUNK;
