@@ -2,14 +2,15 @@
  * The placement stage (see include/strayline/locate.h).
  *
  * Order of work: sample every organ once (beam-independent, in patient
- * coordinates), then for each beam build its frame and field outline, project
+ * coordinates; the body's slab stack is built in the same parallel loop),
+ * then for each beam build its frame and field outline, project
  * all samples to find the region the outline index must cover, index it,
  * index the body and the beam's bolus for rays from its source (fans,
  * surface.h: the grid walk's depths at a third of its cost), and place the
  * samples in chunks spread over the cores. Then each organ's
- * outline is searched between its outline samples near the field (below).
- * Summaries come last, on one thread, so they do not depend on how the
- * chunks were scheduled.
+ * outline is searched between its outline samples near the field (below),
+ * and the organ summarised, one organ a task: a summary reads its organ's
+ * samples in order, so it does not depend on how the chunks were scheduled.
  */
 #include "bolus.h"
 #include "strayline/locate.h"
@@ -236,9 +237,10 @@ typedef struct refine_job {
     sl_beam_place *bp;
 } refine_job;
 
-static void refine_task(size_t o, void *ctx)
+static void summarise(const sl_organ_samples *s, sl_organ_place *p);
+
+static void refine_organ(refine_job *j, size_t o)
 {
-    refine_job *j = ctx;
     const sl_organ_samples *s = &j->loc->samples[o];
     sl_organ_place *p = &j->bp->organs[o];
     if (!s->n_outline)
@@ -277,6 +279,15 @@ static void refine_task(size_t o, void *ctx)
     }
     if (best < p->distance_cm[best_i])
         p->distance_cm[best_i] = best;
+}
+
+/* An organ's summary needs only its own refined samples: it is made on the
+ * same thread, not in a pass over every sample on one thread after. */
+static void refine_task(size_t o, void *ctx)
+{
+    refine_job *j = ctx;
+    refine_organ(j, o);
+    summarise(&j->loc->samples[o], &j->bp->organs[o]);
 }
 
 static void summarise(const sl_organ_samples *s, sl_organ_place *p)
@@ -548,7 +559,6 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
                 return sl_error_set(err, SL_ENOMEM, "out of memory tracing depths through the "
                                                     "body contour");
     for (size_t o = 0; o < loc->norgans; o++) {
-        summarise(&loc->samples[o], &bp->organs[o]);
         if (bp->organs[o].behind_source)
             sl_notes_add(&bp->notes,
                          "%s: beam %d: ROI '%s': %zu samples lie at or behind the source plane "
