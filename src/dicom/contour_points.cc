@@ -53,13 +53,14 @@ void convert_one(contour_values &cv, convert_job &job)
     sl_vec3 *pts = static_cast<sl_vec3 *>(malloc(npoints * sizeof(sl_vec3)));
     if (!pts)
         return;
+    /* each value found and converted in one pass (ds_scan); a value that
+     * ends the list before vm values, or a delimiter after the last, leaves
+     * the element to the ordered reader */
     const char *b = s;
     for (size_t i = 0; i < vm; i++) {
-        const char *q = static_cast<const char *>(memchr(b, '\\', static_cast<size_t>(end - b)));
-        if (!q)
-            q = end;
+        const char *q = end;
         double d;
-        if ((i + 1 < vm && q == end) || !ds_convert(b, q, d)) {
+        if (!ds_scan(b, end, &q, d) || (i + 1 < vm) != (q < end)) {
             free(pts);
             return;
         }
