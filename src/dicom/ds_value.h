@@ -86,19 +86,22 @@ inline bool ds_scan(const char *b, const char *end, const char **next, double &o
     while (p < end && *p == ' ')
         p++;
     const char *core = p;
-    size_t digits = 0;
+    size_t digits = 0, frac = 0;
+    uint64_t m = 0; /* the digits as an integer while they fit (at most 19) */
+    bool neg = false, exact = true;
     if (p < end && (*p == '+' || *p == '-'))
-        p++;
+        neg = *p++ == '-';
     while (p < end && *p >= '0' && *p <= '9')
-        p++, digits++;
+        m = m * 10 + static_cast<uint64_t>(*p++ - '0'), digits++;
     if (p < end && *p == '.') {
         p++;
         while (p < end && *p >= '0' && *p <= '9')
-            p++, digits++;
+            m = m * 10 + static_cast<uint64_t>(*p++ - '0'), digits++, frac++;
     }
     if (digits == 0)
         return false;
     if (p < end && (*p == 'e' || *p == 'E')) {
+        exact = false;
         p++;
         if (p < end && (*p == '+' || *p == '-'))
             p++;
@@ -114,6 +117,19 @@ inline bool ds_scan(const char *b, const char *end, const char **next, double &o
     if (p < end && *p != '\\')
         return false;
     *next = p;
+    /* Contour coordinates are short decimals ("-123.456"): an integer of at
+     * most 2^53 and a power of ten of at most 1e22 are both exact doubles,
+     * so one IEEE division gives the correctly rounded quotient, the very
+     * double from_chars gives (Clinger's fast path), without parsing the
+     * text again. Anything else goes to from_chars. */
+    static const double pow10[] = {1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,
+                                   1e8,  1e9,  1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
+                                   1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22};
+    if (exact && digits <= 19 && m <= (uint64_t(1) << 53) && frac <= 22) {
+        double d = static_cast<double>(m) / pow10[frac];
+        out = neg ? -d : d;
+        return true;
+    }
     return ds_number(core, core_end, out);
 }
 
