@@ -16,6 +16,7 @@
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dcelem.h>
 
+#include <algorithm>
 #include <atomic>
 #include <cstdlib>
 #include <cstring>
@@ -31,12 +32,7 @@ struct convert_job {
 };
 
 /* One element's values into points, or nothing (done stays false). The
- * values are not counted first (a pass over text no longer in the cache,
- * a fifth of the conversion): the points are allocated for the most values
- * the text can hold (a digit and a delimiter each) and the block shrunk to
- * the values found; pages never written are never touched. The values and
- * their count are those of ds_each in rt_read.cc, which counts the
- * delimiters: the padding it trims holds none. */
+ * checks are ds_each's in rt_read.cc, in the same order. */
 void convert_one(contour_values &cv, convert_job &job)
 {
     char *chars = nullptr;
@@ -44,50 +40,38 @@ void convert_one(contour_values &cv, convert_job &job)
     if (cv.el->getString(chars, nchars).bad() || !chars || nchars == 0)
         return;
     const char *s = chars, *end = chars + nchars;
+    size_t vm = 1 + ds_delimiters(s, end);
+    if (vm > 100000000UL)
+        return;
     while (end > s && (end[-1] == ' ' || end[-1] == '\0'))
         end--; /* the padding to an even length */
-    size_t most = (static_cast<size_t>(end - s) + 1) / 2;
-    if (most == 0 || most > 100000000UL)
-        return; /* the ordered reader says what is wrong */
-    size_t room = (most + 2) / 3;
+    size_t npoints = (vm + 2) / 3;
     /* past the limit the ordered reader refuses the file before converting
      * more: do not hold more points than it would */
-    if (job.used.fetch_add(room) + room > job.max_points) {
-        job.used.fetch_sub(room);
+    if (job.used.fetch_add(npoints) + npoints > job.max_points)
         return;
-    }
-    sl_vec3 *pts = static_cast<sl_vec3 *>(malloc(room * sizeof(sl_vec3)));
-    if (!pts) {
-        job.used.fetch_sub(room);
+    sl_vec3 *pts = static_cast<sl_vec3 *>(malloc(npoints * sizeof(sl_vec3)));
+    if (!pts)
         return;
-    }
-    /* each value found and converted in one pass (ds_scan) */
+    /* each value found and converted in one pass (ds_scan); a value that
+     * ends the list before vm values, or a delimiter after the last, leaves
+     * the element to the ordered reader */
     const char *b = s;
-    size_t vm = 0;
-    for (;;) {
+    for (size_t i = 0; i < vm; i++) {
         const char *q = end;
         double d;
-        if (vm == most || !ds_scan(b, end, &q, d)) {
+        if (!ds_scan(b, end, &q, d) || (i + 1 < vm) != (q < end)) {
             free(pts);
-            job.used.fetch_sub(room);
             return;
         }
-        sl_vec3 &p = pts[vm / 3];
-        switch (vm % 3) {
+        sl_vec3 &p = pts[i / 3];
+        switch (i % 3) {
         case 0: p.x = d; break;
         case 1: p.y = d; break;
         default: p.z = d; break;
         }
-        vm++;
-        if (q == end)
-            break;
-        b = q + 1;
+        b = q < end ? q + 1 : end;
     }
-    size_t npoints = (vm + 2) / 3;
-    sl_vec3 *fit = static_cast<sl_vec3 *>(realloc(pts, npoints * sizeof(sl_vec3)));
-    if (fit)
-        pts = fit;
-    job.used.fetch_sub(room - npoints);
     cv.points = pts;
     cv.count = vm;
     cv.done = true;
