@@ -153,6 +153,39 @@ static void place_task(size_t t, void *ctx)
     }
 }
 
+/* The bounds of one chunk's projections on the isocentric plane, for the
+ * region the outline index must cover. Comparisons, not fmin/fmax calls:
+ * projections of finite points are finite, and the bounds only size the
+ * index (its distances are exact wherever it is built). */
+typedef struct bounds_job {
+    const sl_location *loc;
+    const sl_beam_place *bp;
+    const size_t *task_organ, *task_first;
+    sl_vec2 *lo, *hi; /* per chunk */
+} bounds_job;
+
+static void bounds_task(size_t t, void *ctx)
+{
+    bounds_job *j = ctx;
+    const sl_organ_samples *s = &j->loc->samples[j->task_organ[t]];
+    size_t first = j->task_first[t];
+    size_t last = first + CHUNK < s->n ? first + CHUNK : s->n;
+    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
+    for (size_t i = first; i < last; i++) {
+        sl_vec2 uv;
+        double scale;
+        if (sl_frame_project(&j->bp->frame, sl_frame_to_bld(&j->bp->frame, s->points[i]), &uv,
+                             &scale)) {
+            lo.x = uv.x < lo.x ? uv.x : lo.x;
+            lo.y = uv.y < lo.y ? uv.y : lo.y;
+            hi.x = uv.x > hi.x ? uv.x : hi.x;
+            hi.y = uv.y > hi.y ? uv.y : hi.y;
+        }
+    }
+    j->lo[t] = lo;
+    j->hi[t] = hi;
+}
+
 /* ----------------------------------------------- outline refinement -- */
 
 /* The outline samples lie on the contours, but the outline's point nearest
@@ -480,8 +513,6 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     if (!bp->organs)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
 
-    /* where will the queries fall on the isocentric plane? */
-    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
     size_t ntasks = 0;
     for (size_t o = 0; o < loc->norgans; o++) {
         const sl_organ_samples *s = &loc->samples[o];
@@ -493,22 +524,41 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
         p->flags = calloc(n, 1);
         if (!p->distance_cm || !p->app_distance_cm || !p->depth_cm || !p->flags)
             return sl_error_set(err, SL_ENOMEM, "out of memory");
-        for (size_t i = 0; i < s->n; i++) {
-            sl_vec2 uv;
-            double scale;
-            /* comparisons, not fmin/fmax calls (a serial pass over every
-             * sample): projections of finite points are finite, and the
-             * bounds only size the outline's index */
-            if (sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, s->points[i]), &uv,
-                                 &scale)) {
-                lo.x = uv.x < lo.x ? uv.x : lo.x;
-                lo.y = uv.y < lo.y ? uv.y : lo.y;
-                hi.x = uv.x > hi.x ? uv.x : hi.x;
-                hi.y = uv.y > hi.y ? uv.y : hi.y;
-            }
-        }
         ntasks += (s->n + CHUNK - 1) / CHUNK;
     }
+    size_t nt = ntasks ? ntasks : 1;
+    place_job job = {loc, bp, body, ntasks, malloc(nt * sizeof(size_t)),
+                     malloc(nt * sizeof(size_t)), NULL, 0};
+    bounds_job bj = {loc, bp, job.task_organ, job.task_first, malloc(nt * sizeof(sl_vec2)),
+                     malloc(nt * sizeof(sl_vec2))};
+    if (!job.task_organ || !job.task_first || !bj.lo || !bj.hi) {
+        free(job.task_organ);
+        free(job.task_first);
+        free(bj.lo);
+        free(bj.hi);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    size_t t = 0;
+    for (size_t o = 0; o < loc->norgans; o++) {
+        for (size_t first = 0; first < loc->samples[o].n; first += CHUNK) {
+            job.task_organ[t] = o;
+            job.task_first[t] = first;
+            t++;
+        }
+    }
+
+    /* where will the queries fall on the isocentric plane? Each chunk's
+     * bounds on the cores, then the least and greatest of them in order */
+    sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), bounds_task, &bj);
+    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
+    for (t = 0; t < ntasks; t++) {
+        lo.x = bj.lo[t].x < lo.x ? bj.lo[t].x : lo.x;
+        lo.y = bj.lo[t].y < lo.y ? bj.lo[t].y : lo.y;
+        hi.x = bj.hi[t].x > hi.x ? bj.hi[t].x : hi.x;
+        hi.y = bj.hi[t].y > hi.y ? bj.hi[t].y : hi.y;
+    }
+    free(bj.lo);
+    free(bj.hi);
     if (lo.x > hi.x)
         lo = hi = (sl_vec2){0, 0};
     /* far-off samples (tens of cm) need no fine index: clamp the indexed
@@ -521,29 +571,16 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     st = sl_outline_index(bp->field.edge, lo, hi, err);
     if (st == SL_OK && bp->field.applicator)
         st = sl_outline_index(bp->field.applicator, lo, hi, err);
-    if (st != SL_OK)
-        return st;
-
-    place_job job = {loc, bp, body, ntasks, malloc((ntasks ? ntasks : 1) * sizeof(size_t)),
-                     malloc((ntasks ? ntasks : 1) * sizeof(size_t)), NULL, 0};
     sl_body_fan **fans = NULL;
-    if (job.task_organ && job.task_first && body)
+    if (st == SL_OK && body)
         st = depth_fans(bp, opt->threads, &fans, err);
-    if (!job.task_organ || !job.task_first || st != SL_OK) {
+    if (st != SL_OK) {
         free(job.task_organ);
         free(job.task_first);
-        return st != SL_OK ? st : sl_error_set(err, SL_ENOMEM, "out of memory");
+        return st;
     }
     job.fans = (const sl_body_fan *const *)fans;
     job.nfans = fans ? bp->nparts : 0;
-    size_t t = 0;
-    for (size_t o = 0; o < loc->norgans; o++) {
-        for (size_t first = 0; first < loc->samples[o].n; first += CHUNK) {
-            job.task_organ[t] = o;
-            job.task_first[t] = first;
-            t++;
-        }
-    }
     sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
     free(job.task_organ);
     free(job.task_first);
