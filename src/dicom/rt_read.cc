@@ -11,7 +11,9 @@
  */
 #include "strayline/dicom.h"
 #include "strayline/util.h"
+#include "contour_points.h"
 #include "ds_value.h"
+#include "strayline/parallel.h"
 
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dcdeftag.h>
@@ -45,6 +47,7 @@
 namespace {
 
 using sl_dicom_internal::ds_convert;
+using sl_dicom_internal::ds_delimiters;
 
 const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
 const char *const UID_RTSTRUCT = "1.2.840.10008.5.1.4.1.1.481.3";
@@ -172,7 +175,7 @@ public:
             return;
         }
         const char *s = chars, *end = chars + nchars;
-        size_t vm = 1 + static_cast<size_t>(std::count(s, end, '\\'));
+        size_t vm = 1 + ds_delimiters(s, end);
         if (vm > 100000000UL)
             fail(SL_EINPUT, where(), "too many values");
         while (end > s && (end[-1] == ' ' || end[-1] == '\0'))
@@ -204,14 +207,21 @@ public:
      * number of values; the points (count / 3 rounded up, malloc'd, NULL for
      * none) are owned by the caller as soon as they are handed over through
      * `own`, so that they are freed whatever fails next. Another VR than DS
-     * goes through nums(). */
+     * goes through nums(). Points already converted in `batch` are taken
+     * from it. */
     template <typename Own>
-    void contour_data(DcmItem *item, const std::string &ctx, size_t *count, Own own)
+    void contour_data(DcmItem *item, const std::string &ctx, size_t *count, Own own,
+                      sl_dicom_internal::contour_batch *batch = nullptr)
     {
         DcmElement *el = nullptr;
         *count = 0;
         if (item->findAndGetElement(DCM_ContourData, el).bad() || !el || el->getLength() == 0)
             return;
+        sl_vec3 *ready = nullptr;
+        if (batch && batch->take(el, &ready, count)) {
+            own(ready);
+            return;
+        }
         auto where = [&]() { return at(ctx, DCM_ContourData); };
         sl_vec3 *pts = nullptr;
         auto begin = [&](size_t vm) {
@@ -807,6 +817,21 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
 
     size_t total_points = 0;
     std::vector<DcmItem *> rcs = r.seq(ds, DCM_ROIContourSequence, "", false);
+    /* every contour's values converted first, on every core; the walk
+     * below takes them in order and checks everything as before */
+    sl_dicom_internal::contour_batch batch;
+    for (DcmItem *rc : rcs) {
+        DcmSequenceOfItems *sq = nullptr;
+        if (rc->findAndGetSequence(DCM_ContourSequence, sq).bad() || !sq)
+            continue;
+        for (DcmObject *o = sq->nextInContainer(nullptr); o; o = sq->nextInContainer(o)) {
+            DcmElement *el = nullptr;
+            if (static_cast<DcmItem *>(o)->findAndGetElement(DCM_ContourData, el).good() && el &&
+                el->getLength() > 0 && el->ident() == EVR_DS)
+                batch.add(el);
+        }
+    }
+    batch.convert(sl_parallel_threads(0), SL_DICOM_MAX_CONTOUR_POINTS);
     for (size_t i = 0; i < rcs.size(); i++) {
         std::string ctx0 = "ROI contour item " + std::to_string(i + 1);
         int ref = r.integer(rcs[i], DCM_ReferencedROINumber, ctx0, true);
@@ -850,7 +875,7 @@ void read_structure_items(Reader &r, DcmDataset *ds, sl_structure_set *ss)
                            std::to_string(SL_DICOM_MAX_CONTOUR_POINTS) +
                            " contour points, more than strayline accepts");
             size_t nvalues = 0;
-            r.contour_data(cs[j], cctx, &nvalues, [&](sl_vec3 *p) { c->points = p; });
+            r.contour_data(cs[j], cctx, &nvalues, [&](sl_vec3 *p) { c->points = p; }, &batch);
             if (nvalues == 0)
                 r.fail(SL_EINPUT, Reader::at(cctx, DCM_ContourData), "missing or empty");
             if (nvalues % 3 != 0)
@@ -1056,14 +1081,24 @@ const char *const NOT_DICOM =
     "element)";
 
 /* Item tags (FFFE,E000) in either byte order: every level of nesting needs
- * one, so their count bounds the depth DCMTK's recursive reader can reach. */
+ * one, so their count bounds the depth DCMTK's recursive reader can reach.
+ * Each form holds exactly one 0xFE byte (first in little endian, second in
+ * big endian), so memchr jumps from one 0xFE to the next: Contour Data is
+ * text and holds none, where a byte-by-byte test cost a pass over it. */
 size_t count_item_tags(const unsigned char *p, size_t n)
 {
     size_t k = 0;
-    for (size_t i = 0; i + 4 <= n; i++) {
-        if ((p[i] == 0xFE && p[i + 1] == 0xFF && p[i + 2] == 0x00 && p[i + 3] == 0xE0) ||
-            (p[i] == 0xFF && p[i + 1] == 0xFE && p[i + 2] == 0xE0 && p[i + 3] == 0x00))
+    const unsigned char *end = p + n;
+    for (const unsigned char *q = p; q < end;) {
+        q = static_cast<const unsigned char *>(memchr(q, 0xFE, static_cast<size_t>(end - q)));
+        if (!q)
+            break;
+        size_t i = static_cast<size_t>(q - p);
+        if (i + 4 <= n && q[1] == 0xFF && q[2] == 0x00 && q[3] == 0xE0)
             k++;
+        else if (i >= 1 && i + 3 <= n && q[-1] == 0xFF && q[1] == 0xE0 && q[2] == 0x00)
+            k++;
+        q++;
     }
     return k;
 }

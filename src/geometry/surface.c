@@ -138,14 +138,17 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
     for (size_t k = 0; k < sl->count; k++) {
         const sl_vec2 *p = st->loops[sl->first + k];
         size_t n = st->loop_n[sl->first + k];
+        /* no division for the wrap (a modulo an edge was a tenth of
+         * building a dense body's slices), no fmin/fmax calls: contour
+         * points are finite, and a zero's sign cannot move the margin */
         for (size_t i = 0; i < n; i++) {
             s->ea[e] = p[i];
-            s->eb[e] = p[(i + 1) % n];
+            s->eb[e] = p[i + 1 < n ? i + 1 : 0];
             e++;
-            lo.x = fmin(lo.x, p[i].x);
-            lo.y = fmin(lo.y, p[i].y);
-            hi.x = fmax(hi.x, p[i].x);
-            hi.y = fmax(hi.y, p[i].y);
+            lo.x = dmin(lo.x, p[i].x);
+            lo.y = dmin(lo.y, p[i].y);
+            hi.x = dmax(hi.x, p[i].x);
+            hi.y = dmax(hi.y, p[i].y);
         }
     }
     lo.x -= MARGIN_CM;
@@ -193,10 +196,10 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
             memcpy(fill, s->cell_start, ncell * sizeof *fill);
         }
         for (size_t i = 0; i < ne; i++) {
-            int x0 = cell_index((fmin(s->ea[i].x, s->eb[i].x) - eps - lo.x) / s->cell, s->gx);
-            int x1 = cell_index((fmax(s->ea[i].x, s->eb[i].x) + eps - lo.x) / s->cell, s->gx);
-            int y0 = cell_index((fmin(s->ea[i].y, s->eb[i].y) - eps - lo.y) / s->cell, s->gy);
-            int y1 = cell_index((fmax(s->ea[i].y, s->eb[i].y) + eps - lo.y) / s->cell, s->gy);
+            int x0 = cell_index((dmin(s->ea[i].x, s->eb[i].x) - eps - lo.x) / s->cell, s->gx);
+            int x1 = cell_index((dmax(s->ea[i].x, s->eb[i].x) + eps - lo.x) / s->cell, s->gx);
+            int y0 = cell_index((dmin(s->ea[i].y, s->eb[i].y) - eps - lo.y) / s->cell, s->gy);
+            int y1 = cell_index((dmax(s->ea[i].y, s->eb[i].y) + eps - lo.y) / s->cell, s->gy);
             for (int cy = y0; cy <= y1; cy++)
                 for (int cx = x0; cx <= x1; cx++) {
                     size_t c = (size_t)cy * (size_t)s->gx + (size_t)cx;
@@ -209,28 +212,64 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
         free(fill);
     }
 
-    /* parity of every cell centre: one horizontal scan a row */
-    double *xs = malloc((ne ? ne : 1) * sizeof *xs);
-    if (!xs)
-        return SL_ENOMEM;
-    for (int cy = 0; cy < s->gy; cy++) {
-        double y = lo.y + (cy + 0.5) * s->cell;
-        size_t nx = 0;
+    /* parity of every cell centre: one horizontal scan a row. Each edge
+     * goes only to the rows whose centre line it crosses (a few), not every
+     * row to every edge: a dense body contour made this scan the larger part
+     * of building the body. The test and the crossing are those of a scan
+     * over all edges, so every row gets the same crossings. */
+    double rowy[GRID_MAX];
+    size_t rowstart[GRID_MAX + 2] = {0};
+    for (int cy = 0; cy < s->gy; cy++)
+        rowy[cy] = lo.y + (cy + 0.5) * s->cell;
+    size_t nxs = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        double *xs = NULL;
+        if (pass == 1) {
+            for (int cy = 0; cy < s->gy; cy++)
+                rowstart[cy + 1] += rowstart[cy];
+            nxs = rowstart[s->gy];
+            xs = malloc((nxs ? nxs : 1) * sizeof *xs);
+            if (!xs)
+                return SL_ENOMEM;
+        }
         for (size_t i = 0; i < ne; i++) {
             sl_vec2 a = s->ea[i], b = s->eb[i];
-            if ((a.y > y) != (b.y > y))
-                xs[nx++] = a.x + (y - a.y) * (b.x - a.x) / (b.y - a.y);
+            /* the rows near the edge's y extent; the exact test decides */
+            double f0 = (dmin(a.y, b.y) - lo.y) / s->cell - 0.5;
+            double f1 = (dmax(a.y, b.y) - lo.y) / s->cell - 0.5;
+            int r0 = f0 > 1 ? (int)f0 - 1 : 0;
+            int r1 = f1 < s->gy ? (int)f1 + 1 : s->gy - 1;
+            if (r1 > s->gy - 1)
+                r1 = s->gy - 1;
+            for (int cy = r0; cy <= r1; cy++) {
+                double y = rowy[cy];
+                if ((a.y > y) != (b.y > y)) {
+                    if (pass == 0)
+                        rowstart[cy + 1]++;
+                    else
+                        xs[rowstart[cy]++] = a.x + (y - a.y) * (b.x - a.x) / (b.y - a.y);
+                }
+            }
         }
-        qsort(xs, nx, sizeof *xs, cmp_double);
-        size_t k = 0;
-        for (int cx = 0; cx < s->gx; cx++) {
-            double x = lo.x + (cx + 0.5) * s->cell;
-            while (k < nx && xs[k] < x)
-                k++;
-            s->center_in[(size_t)cy * (size_t)s->gx + (size_t)cx] = (unsigned char)(k & 1);
+        if (pass == 1) {
+            /* rowstart[cy] now ends row cy: rows run from the previous end */
+            size_t from = 0;
+            for (int cy = 0; cy < s->gy; cy++) {
+                size_t to = rowstart[cy], nx = to - from;
+                double *row = xs + from;
+                qsort(row, nx, sizeof *row, cmp_double);
+                size_t k = 0;
+                for (int cx = 0; cx < s->gx; cx++) {
+                    double x = lo.x + (cx + 0.5) * s->cell;
+                    while (k < nx && row[k] < x)
+                        k++;
+                    s->center_in[(size_t)cy * (size_t)s->gx + (size_t)cx] = (unsigned char)(k & 1);
+                }
+                from = to;
+            }
+            free(xs);
         }
     }
-    free(xs);
     return SL_OK;
 }
 
@@ -733,8 +772,11 @@ bool sl_body_contains(const sl_body *b, sl_vec3 p)
 
 #define FAN_TAN_MAX 4.0 /* the body must lie within about 76 degrees of the reference */
 
+/* One slab's index lives in one block (bin_start is its base, the rest
+ * follow it), sized exactly once the slab is built: one allocation a slab
+ * instead of nine, and no pages touched for room given back later. */
 typedef struct fan_slice {
-    uint32_t *bin_start; /* nb + 1 */
+    uint32_t *bin_start; /* nb + 1; the base of the block */
     uint32_t *edges;
     uint32_t *cl_start;  /* nb + 1 */
     float *cl_lo, *cl_hi;  /* rounded outward: a piece is judged clear of a
@@ -758,13 +800,7 @@ void sl_body_fan_free(sl_body_fan *f)
     if (!f)
         return;
     for (size_t k = 0; f->fs && k < f->body->n; k++) {
-        fan_slice *s = &f->fs[k];
-        free(s->bin_start);
-        free(s->edges);
-        free(s->cl_start);
-        free(s->cl_lo);
-        free(s->cl_hi);
-        free(s->cl_par);
+        free(f->fs[k].bin_start);
     }
     free(f->fs);
     free(f->bin_xlo);
@@ -797,6 +833,12 @@ typedef struct fan_scratch {
     xr *r;                     /* one bin's edges */
     size_t rcap;
     uint32_t *fill;            /* nb */
+    uint32_t *bin_start, *cl_start; /* nb + 1 each */
+    uint32_t *edges;           /* the slab's index, built here, then copied */
+    size_t edcap;
+    float *cl_lo, *cl_hi;
+    unsigned char *cl_par;
+    size_t clcap;
 } fan_scratch;
 
 static sl_status grow(void **p, size_t *cap, size_t n, size_t size)
@@ -831,10 +873,8 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
         }
         w->ecap = ne;
     }
-    fs->bin_start = calloc((size_t)nb + 1, sizeof *fs->bin_start);
-    fs->cl_start = calloc((size_t)nb + 1, sizeof *fs->cl_start);
-    if (!fs->bin_start || !fs->cl_start)
-        return SL_ENOMEM;
+    uint32_t *bin_start = w->bin_start, *cl_start = w->cl_start;
+    memset(bin_start, 0, ((size_t)nb + 1) * sizeof *bin_start);
     for (size_t i = 0; i < ne; i++) {
         double ya, yb;
         fan_xy(f, s->ea[i], &w->xa[i], &ya);
@@ -846,33 +886,45 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
         w->j0[i] = j0;
         w->j1[i] = j1;
         for (int j = j0; j <= j1; j++)
-            fs->bin_start[j]++;
+            bin_start[j]++;
     }
     size_t total = 0;
     for (int j = 0; j < nb; j++) {
-        size_t k = fs->bin_start[j];
-        fs->bin_start[j] = (uint32_t)total;
+        size_t k = bin_start[j];
+        bin_start[j] = (uint32_t)total;
         w->fill[j] = (uint32_t)total;
         total += k;
     }
     if (total > UINT32_MAX)
         return SL_ENOMEM;
-    fs->bin_start[nb] = (uint32_t)total;
-    fs->edges = malloc((total ? total : 1) * sizeof *fs->edges);
+    bin_start[nb] = (uint32_t)total;
     /* at most one cluster an entry */
-    fs->cl_lo = malloc((total ? total : 1) * sizeof *fs->cl_lo);
-    fs->cl_hi = malloc((total ? total : 1) * sizeof *fs->cl_hi);
-    fs->cl_par = malloc(total ? total : 1);
-    if (!fs->edges || !fs->cl_lo || !fs->cl_hi || !fs->cl_par)
+    if (grow((void **)&w->edges, &w->edcap, total ? total : 1, sizeof *w->edges) != SL_OK)
         return SL_ENOMEM;
+    size_t need = total ? total : 1;
+    if (need > w->clcap) {
+        size_t c = w->clcap;
+        if (grow((void **)&w->cl_lo, &c, need, sizeof *w->cl_lo) != SL_OK)
+            return SL_ENOMEM;
+        c = w->clcap;
+        if (grow((void **)&w->cl_hi, &c, need, sizeof *w->cl_hi) != SL_OK)
+            return SL_ENOMEM;
+        c = w->clcap;
+        if (grow((void **)&w->cl_par, &c, need, sizeof *w->cl_par) != SL_OK)
+            return SL_ENOMEM;
+        w->clcap = need;
+    }
+    uint32_t *edges = w->edges;
+    float *cl_lo = w->cl_lo, *cl_hi = w->cl_hi;
+    unsigned char *cl_par = w->cl_par;
     for (size_t i = 0; i < ne; i++)
         for (int j = w->j0[i]; j <= w->j1[i]; j++)
-            fs->edges[w->fill[j]++] = (uint32_t)i;
+            edges[w->fill[j]++] = (uint32_t)i;
 
     size_t ncl = 0;
     for (int j = 0; j < nb; j++) {
-        fs->cl_start[j] = (uint32_t)ncl;
-        uint32_t e0 = fs->bin_start[j], e1 = fs->bin_start[j + 1];
+        cl_start[j] = (uint32_t)ncl;
+        uint32_t e0 = bin_start[j], e1 = bin_start[j + 1];
         size_t n = e1 - e0;
         if (n == 0)
             continue;
@@ -880,7 +932,7 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
             return SL_ENOMEM;
         xr *r = w->r;
         for (size_t k = 0; k < n; k++) {
-            uint32_t e = fs->edges[e0 + k];
+            uint32_t e = edges[e0 + k];
             r[k] = (xr){dmin(w->xa[e], w->xb[e]) - eps, dmax(w->xa[e], w->xb[e]) + eps, e};
         }
         if (n > 24) {
@@ -914,24 +966,31 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
                 k1++;
             }
             float flo = (float)lo, fhi = (float)hi;
-            fs->cl_lo[ncl] = (double)flo > lo ? nextafterf(flo, -INFINITY) : flo;
-            fs->cl_hi[ncl] = (double)fhi < hi ? nextafterf(fhi, INFINITY) : fhi;
-            fs->cl_par[ncl] = par;
+            cl_lo[ncl] = (double)flo > lo ? nextafterf(flo, -INFINITY) : flo;
+            cl_hi[ncl] = (double)fhi < hi ? nextafterf(fhi, INFINITY) : fhi;
+            cl_par[ncl] = par;
             ncl++;
             k = k1;
         }
     }
-    fs->cl_start[nb] = (uint32_t)ncl;
-    /* fewer clusters than entries, usually by far: give the rest back */
-    float *lo = realloc(fs->cl_lo, (ncl ? ncl : 1) * sizeof *lo);
-    if (lo)
-        fs->cl_lo = lo;
-    float *hi = realloc(fs->cl_hi, (ncl ? ncl : 1) * sizeof *hi);
-    if (hi)
-        fs->cl_hi = hi;
-    unsigned char *par = realloc(fs->cl_par, ncl ? ncl : 1);
-    if (par)
-        fs->cl_par = par;
+    cl_start[nb] = (uint32_t)ncl;
+    /* the slab's index in one block of its exact size */
+    size_t n32 = 2 * ((size_t)nb + 1) + total + 2 * ncl;
+    uint32_t *block = malloc(n32 * sizeof(uint32_t) + (ncl ? ncl : 1));
+    if (!block)
+        return SL_ENOMEM;
+    fs->bin_start = block;
+    fs->cl_start = fs->bin_start + nb + 1;
+    fs->edges = fs->cl_start + nb + 1;
+    fs->cl_lo = (float *)(fs->edges + total);
+    fs->cl_hi = fs->cl_lo + ncl;
+    fs->cl_par = (unsigned char *)(fs->cl_hi + ncl);
+    memcpy(fs->bin_start, bin_start, ((size_t)nb + 1) * sizeof *bin_start);
+    memcpy(fs->cl_start, cl_start, ((size_t)nb + 1) * sizeof *cl_start);
+    memcpy(fs->edges, edges, total * sizeof *edges);
+    memcpy(fs->cl_lo, cl_lo, ncl * sizeof *cl_lo);
+    memcpy(fs->cl_hi, cl_hi, ncl * sizeof *cl_hi);
+    memcpy(fs->cl_par, cl_par, ncl);
     return SL_OK;
 }
 
@@ -950,7 +1009,9 @@ static void fan_task(size_t t, void *ctx)
     const sl_body *b = j->f->body;
     fan_scratch w = {0};
     w.fill = malloc((size_t)j->f->nb * sizeof *w.fill);
-    sl_status st = w.fill ? SL_OK : SL_ENOMEM;
+    w.bin_start = malloc(((size_t)j->f->nb + 1) * sizeof *w.bin_start);
+    w.cl_start = malloc(((size_t)j->f->nb + 1) * sizeof *w.cl_start);
+    sl_status st = w.fill && w.bin_start && w.cl_start ? SL_OK : SL_ENOMEM;
     size_t end = (t + 1) * FAN_TASK_SLABS < b->n ? (t + 1) * FAN_TASK_SLABS : b->n;
     for (size_t k = t * FAN_TASK_SLABS; k < end && st == SL_OK; k++)
         st = fan_slice_build(j->f, &b->s[k], &j->f->fs[k], &w);
@@ -962,6 +1023,12 @@ static void fan_task(size_t t, void *ctx)
     free(w.j1);
     free(w.r);
     free(w.fill);
+    free(w.bin_start);
+    free(w.cl_start);
+    free(w.edges);
+    free(w.cl_lo);
+    free(w.cl_hi);
+    free(w.cl_par);
     j->st[t] = st;
 }
 

@@ -2,14 +2,15 @@
  * The placement stage (see include/strayline/locate.h).
  *
  * Order of work: sample every organ once (beam-independent, in patient
- * coordinates), then for each beam build its frame and field outline, project
+ * coordinates; the body's slab stack is built in the same parallel loop),
+ * then for each beam build its frame and field outline, project
  * all samples to find the region the outline index must cover, index it,
  * index the body and the beam's bolus for rays from its source (fans,
  * surface.h: the grid walk's depths at a third of its cost), and place the
  * samples in chunks spread over the cores. Then each organ's
- * outline is searched between its outline samples near the field (below).
- * Summaries come last, on one thread, so they do not depend on how the
- * chunks were scheduled.
+ * outline is searched between its outline samples near the field (below),
+ * and the organ summarised, one organ a task: a summary reads its organ's
+ * samples in order, so it does not depend on how the chunks were scheduled.
  */
 #include "bolus.h"
 #include "strayline/locate.h"
@@ -78,13 +79,31 @@ typedef struct sample_job {
     const sl_sampling_options *opt;
     sl_status *status;
     sl_error *errors;
+    /* the body's slab stack, built as one more task of the same loop (it
+     * does not depend on the samples); NULL when depths do not come from
+     * the body */
+    sl_slice_stack *stack;
+    sl_status stack_status;
+    sl_error stack_error;
 } sample_job;
 
-static void sample_task(size_t i, void *ctx)
+/* Task 0 builds the body's stack when there is one: the longest single
+ * task, started first so that it overlaps the organs' sampling instead of
+ * running alone after it. */
+static void sample_task(size_t t, void *ctx)
 {
     sample_job *j = ctx;
-    j->status[i] = sl_sample_roi(j->loc->rois[i], j->file, j->opt, &j->loc->samples[i],
-                                 &j->errors[i]);
+    if (j->stack) {
+        if (t == 0) {
+            j->stack_status = sl_slices_build(j->loc->external, j->file,
+                                              j->loc->slice_spacing_cm, j->stack,
+                                              &j->stack_error);
+            return;
+        }
+        t--;
+    }
+    j->status[t] = sl_sample_roi(j->loc->rois[t], j->file, j->opt, &j->loc->samples[t],
+                                 &j->errors[t]);
 }
 
 /* --------------------------------------------------------- placement -- */
@@ -132,6 +151,39 @@ static void place_task(size_t t, void *ctx)
         }
         p->flags[i] = flags;
     }
+}
+
+/* The bounds of one chunk's projections on the isocentric plane, for the
+ * region the outline index must cover. Comparisons, not fmin/fmax calls:
+ * projections of finite points are finite, and the bounds only size the
+ * index (its distances are exact wherever it is built). */
+typedef struct bounds_job {
+    const sl_location *loc;
+    const sl_beam_place *bp;
+    const size_t *task_organ, *task_first;
+    sl_vec2 *lo, *hi; /* per chunk */
+} bounds_job;
+
+static void bounds_task(size_t t, void *ctx)
+{
+    bounds_job *j = ctx;
+    const sl_organ_samples *s = &j->loc->samples[j->task_organ[t]];
+    size_t first = j->task_first[t];
+    size_t last = first + CHUNK < s->n ? first + CHUNK : s->n;
+    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
+    for (size_t i = first; i < last; i++) {
+        sl_vec2 uv;
+        double scale;
+        if (sl_frame_project(&j->bp->frame, sl_frame_to_bld(&j->bp->frame, s->points[i]), &uv,
+                             &scale)) {
+            lo.x = uv.x < lo.x ? uv.x : lo.x;
+            lo.y = uv.y < lo.y ? uv.y : lo.y;
+            hi.x = uv.x > hi.x ? uv.x : hi.x;
+            hi.y = uv.y > hi.y ? uv.y : hi.y;
+        }
+    }
+    j->lo[t] = lo;
+    j->hi[t] = hi;
 }
 
 /* ----------------------------------------------- outline refinement -- */
@@ -218,9 +270,10 @@ typedef struct refine_job {
     sl_beam_place *bp;
 } refine_job;
 
-static void refine_task(size_t o, void *ctx)
+static void summarise(const sl_organ_samples *s, sl_organ_place *p);
+
+static void refine_organ(refine_job *j, size_t o)
 {
-    refine_job *j = ctx;
     const sl_organ_samples *s = &j->loc->samples[o];
     sl_organ_place *p = &j->bp->organs[o];
     if (!s->n_outline)
@@ -259,6 +312,15 @@ static void refine_task(size_t o, void *ctx)
     }
     if (best < p->distance_cm[best_i])
         p->distance_cm[best_i] = best;
+}
+
+/* An organ's summary needs only its own refined samples: it is made on the
+ * same thread, not in a pass over every sample on one thread after. */
+static void refine_task(size_t o, void *ctx)
+{
+    refine_job *j = ctx;
+    refine_organ(j, o);
+    summarise(&j->loc->samples[o], &j->bp->organs[o]);
 }
 
 static void summarise(const sl_organ_samples *s, sl_organ_place *p)
@@ -451,8 +513,6 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     if (!bp->organs)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
 
-    /* where will the queries fall on the isocentric plane? */
-    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
     size_t ntasks = 0;
     for (size_t o = 0; o < loc->norgans; o++) {
         const sl_organ_samples *s = &loc->samples[o];
@@ -464,19 +524,41 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
         p->flags = calloc(n, 1);
         if (!p->distance_cm || !p->app_distance_cm || !p->depth_cm || !p->flags)
             return sl_error_set(err, SL_ENOMEM, "out of memory");
-        for (size_t i = 0; i < s->n; i++) {
-            sl_vec2 uv;
-            double scale;
-            if (sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, s->points[i]), &uv,
-                                 &scale)) {
-                lo.x = fmin(lo.x, uv.x);
-                lo.y = fmin(lo.y, uv.y);
-                hi.x = fmax(hi.x, uv.x);
-                hi.y = fmax(hi.y, uv.y);
-            }
-        }
         ntasks += (s->n + CHUNK - 1) / CHUNK;
     }
+    size_t nt = ntasks ? ntasks : 1;
+    place_job job = {loc, bp, body, ntasks, malloc(nt * sizeof(size_t)),
+                     malloc(nt * sizeof(size_t)), NULL, 0};
+    bounds_job bj = {loc, bp, job.task_organ, job.task_first, malloc(nt * sizeof(sl_vec2)),
+                     malloc(nt * sizeof(sl_vec2))};
+    if (!job.task_organ || !job.task_first || !bj.lo || !bj.hi) {
+        free(job.task_organ);
+        free(job.task_first);
+        free(bj.lo);
+        free(bj.hi);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    size_t t = 0;
+    for (size_t o = 0; o < loc->norgans; o++) {
+        for (size_t first = 0; first < loc->samples[o].n; first += CHUNK) {
+            job.task_organ[t] = o;
+            job.task_first[t] = first;
+            t++;
+        }
+    }
+
+    /* where will the queries fall on the isocentric plane? Each chunk's
+     * bounds on the cores, then the least and greatest of them in order */
+    sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), bounds_task, &bj);
+    sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
+    for (t = 0; t < ntasks; t++) {
+        lo.x = bj.lo[t].x < lo.x ? bj.lo[t].x : lo.x;
+        lo.y = bj.lo[t].y < lo.y ? bj.lo[t].y : lo.y;
+        hi.x = bj.hi[t].x > hi.x ? bj.hi[t].x : hi.x;
+        hi.y = bj.hi[t].y > hi.y ? bj.hi[t].y : hi.y;
+    }
+    free(bj.lo);
+    free(bj.hi);
     if (lo.x > hi.x)
         lo = hi = (sl_vec2){0, 0};
     /* far-off samples (tens of cm) need no fine index: clamp the indexed
@@ -489,29 +571,16 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     st = sl_outline_index(bp->field.edge, lo, hi, err);
     if (st == SL_OK && bp->field.applicator)
         st = sl_outline_index(bp->field.applicator, lo, hi, err);
-    if (st != SL_OK)
-        return st;
-
-    place_job job = {loc, bp, body, ntasks, malloc((ntasks ? ntasks : 1) * sizeof(size_t)),
-                     malloc((ntasks ? ntasks : 1) * sizeof(size_t)), NULL, 0};
     sl_body_fan **fans = NULL;
-    if (job.task_organ && job.task_first && body)
+    if (st == SL_OK && body)
         st = depth_fans(bp, opt->threads, &fans, err);
-    if (!job.task_organ || !job.task_first || st != SL_OK) {
+    if (st != SL_OK) {
         free(job.task_organ);
         free(job.task_first);
-        return st != SL_OK ? st : sl_error_set(err, SL_ENOMEM, "out of memory");
+        return st;
     }
     job.fans = (const sl_body_fan *const *)fans;
     job.nfans = fans ? bp->nparts : 0;
-    size_t t = 0;
-    for (size_t o = 0; o < loc->norgans; o++) {
-        for (size_t first = 0; first < loc->samples[o].n; first += CHUNK) {
-            job.task_organ[t] = o;
-            job.task_first[t] = first;
-            t++;
-        }
-    }
     sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
     free(job.task_organ);
     free(job.task_first);
@@ -527,7 +596,6 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
                 return sl_error_set(err, SL_ENOMEM, "out of memory tracing depths through the "
                                                     "body contour");
     for (size_t o = 0; o < loc->norgans; o++) {
-        summarise(&loc->samples[o], &bp->organs[o]);
         if (bp->organs[o].behind_source)
             sl_notes_add(&bp->notes,
                          "%s: beam %d: ROI '%s': %zu samples lie at or behind the source plane "
@@ -605,8 +673,10 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
         sl_location_free(loc);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    sample_job sj = {loc, ss->source, &sopt, sst, serr};
-    sl_parallel_for(loc->norgans, threads, sample_task, &sj);
+    sl_slice_stack stack = {0};
+    sample_job sj = {loc, ss->source, &sopt, sst, serr,
+                     loc->depth_from_body ? &stack : NULL, SL_OK, {0}};
+    sl_parallel_for(loc->norgans + (sj.stack != NULL), threads, sample_task, &sj);
     for (size_t i = 0; i < loc->norgans && st == SL_OK; i++) {
         if (sst[i] != SL_OK) {
             st = sst[i];
@@ -619,6 +689,7 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
     free(sst);
     free(serr);
     if (st != SL_OK) {
+        sl_slices_free(&stack);
         sl_location_free(loc);
         return st;
     }
@@ -627,8 +698,9 @@ sl_status sl_locate(const sl_plan *plan, const sl_structure_set *ss,
     if (!loc->depth_from_body)
         bolus_unused_note(plan, ss, loc);
     if (loc->depth_from_body) {
-        sl_slice_stack stack;
-        st = sl_slices_build(loc->external, ss->source, loc->slice_spacing_cm, &stack, err);
+        st = sj.stack_status;
+        if (st != SL_OK && err)
+            *err = sj.stack_error;
         if (st == SL_OK) {
             char what[256];
             snprintf(what, sizeof what, "%s: EXTERNAL ROI '%s'", ss->source,
