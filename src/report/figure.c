@@ -69,6 +69,24 @@ const char *fig_status_symbol(sl_status_kind s)
 
 /* ----------------------------------------------------------- numbers -- */
 
+/* v with dec decimals, trailing zeros after the point dropped (0.50 -> 0.5,
+ * 10.0 -> 10), never "-0". */
+static void fixed_trimmed(char *buf, size_t size, double v, int dec)
+{
+    snprintf(buf, size, "%.*f", dec, v);
+    /* drop trailing zeros after a decimal point: 0.50 -> 0.5, 10.0 -> 10 */
+    char *dot = strchr(buf, '.');
+    if (dot) {
+        char *e = buf + strlen(buf) - 1;
+        while (e > dot && *e == '0')
+            *e-- = '\0';
+        if (e == dot)
+            *e = '\0';
+    }
+    if (strcmp(buf, "-0") == 0)
+        snprintf(buf, size, "0");
+}
+
 void fig_format_number(double v, char *buf, size_t size)
 {
     if (!isfinite(v)) {
@@ -83,18 +101,7 @@ void fig_format_number(double v, char *buf, size_t size)
         dec = (int)fmax(0, 1 - floor(log10(a))); /* two significant figures at least */
     if (dec > 9)
         dec = 9;
-    snprintf(buf, size, "%.*f", dec, v);
-    /* drop trailing zeros after a decimal point: 0.50 -> 0.5, 10.0 -> 10 */
-    char *dot = strchr(buf, '.');
-    if (dot) {
-        char *e = buf + strlen(buf) - 1;
-        while (e > dot && *e == '0')
-            *e-- = '\0';
-        if (e == dot)
-            *e = '\0';
-    }
-    if (strcmp(buf, "-0") == 0)
-        snprintf(buf, size, "0");
+    fixed_trimmed(buf, size, v, dec);
 }
 
 /* ------------------------------------------------------------ counts -- */
@@ -319,22 +326,6 @@ static long marker_index(const char *style)
     return idx;
 }
 
-/* A number for an attribute: fixed decimals, trailing zeros dropped. */
-static void attr_num(char *buf, size_t size, double v, int dec)
-{
-    snprintf(buf, size, "%.*f", dec, v);
-    char *dot = strchr(buf, '.');
-    if (dot) {
-        char *e = buf + strlen(buf) - 1;
-        while (e > dot && *e == '0')
-            *e-- = '\0';
-        if (e == dot)
-            *e = '\0';
-    }
-    if (strcmp(buf, "-0") == 0)
-        snprintf(buf, size, "0");
-}
-
 /* Text as ASCII runs and character references: the HTML writer would turn
  * other characters into HTML's named entities, which an SVG read as XML (a
  * figure saved on its own) does not know. The text is valid UTF-8 (Pango's
@@ -371,11 +362,11 @@ static bool add_text_content(xmlNodePtr t, const char *s)
 static xmlNodePtr text_node(xmlDocPtr doc, xmlNsPtr ns, const text_item *it)
 {
     char style[256], n1[32], n2[32], n3[32], n4[32], n5[32], n6[32];
-    attr_num(n1, sizeof n1, it->size_pt, 2);
-    attr_num(n2, sizeof n2, it->rgba[0] * 100, 1);
-    attr_num(n3, sizeof n3, it->rgba[1] * 100, 1);
-    attr_num(n4, sizeof n4, it->rgba[2] * 100, 1);
-    attr_num(n5, sizeof n5, it->rgba[3], 3);
+    fixed_trimmed(n1, sizeof n1, it->size_pt, 2);
+    fixed_trimmed(n2, sizeof n2, it->rgba[0] * 100, 1);
+    fixed_trimmed(n3, sizeof n3, it->rgba[1] * 100, 1);
+    fixed_trimmed(n4, sizeof n4, it->rgba[2] * 100, 1);
+    fixed_trimmed(n5, sizeof n5, it->rgba[3], 3);
     snprintf(style, sizeof style,
              "font-family:'DejaVu Sans',sans-serif;font-size:%spx;%s%sfill:rgb(%s%%,%s%%,%s%%);"
              "%s%s%swhite-space:pre",
@@ -390,7 +381,7 @@ static xmlNodePtr text_node(xmlDocPtr doc, xmlNsPtr ns, const text_item *it)
         char a[6][32];
         const double mv[6] = {m->xx, m->yx, m->xy, m->yy, m->x0, m->y0};
         for (int k = 0; k < 6; k++)
-            attr_num(a[k], sizeof a[k], mv[k], k < 4 ? 5 : 2);
+            fixed_trimmed(a[k], sizeof a[k], mv[k], k < 4 ? 5 : 2);
         snprintf(tf, sizeof tf, "matrix(%s,%s,%s,%s,%s,%s)", a[0], a[1], a[2], a[3], a[4], a[5]);
     }
     xmlNodePtr group = NULL;
@@ -412,9 +403,9 @@ static xmlNodePtr text_node(xmlDocPtr doc, xmlNsPtr ns, const text_item *it)
             xmlFreeNode(first);
             return NULL;
         }
-        attr_num(n1, sizeof n1, ln->x + (moved_only ? m->x0 : 0), 2);
-        attr_num(n2, sizeof n2, ln->y + (moved_only ? m->y0 : 0), 2);
-        attr_num(n6, sizeof n6, ln->w, 2);
+        fixed_trimmed(n1, sizeof n1, ln->x + (moved_only ? m->x0 : 0), 2);
+        fixed_trimmed(n2, sizeof n2, ln->y + (moved_only ? m->y0 : 0), 2);
+        fixed_trimmed(n6, sizeof n6, ln->w, 2);
         xmlNewProp(t, BAD_CAST "x", BAD_CAST n1);
         xmlNewProp(t, BAD_CAST "y", BAD_CAST n2);
         if (*tf && !group)
