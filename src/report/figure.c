@@ -941,9 +941,78 @@ xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fi
     return copy;
 }
 
+/* Every Pango font map a figure has used, held weakly: each thread has its
+ * own default map, and Pango's own threads (fontconfig's start-up and font
+ * matching) hold a map until their task ends. A weak reference registers
+ * its own address with the object, so each lives in a node of its own. */
+typedef struct fontmap_ref {
+    GWeakRef ref;
+    struct fontmap_ref *next;
+} fontmap_ref;
+
+static GMutex fontmaps_lock;
+static fontmap_ref *fontmaps;
+
+static void fontmap_seen(PangoFontMap *fm)
+{
+    g_mutex_lock(&fontmaps_lock);
+    fontmap_ref *slot = NULL;
+    bool known = false;
+    for (fontmap_ref *r = fontmaps; r && !known; r = r->next) {
+        GObject *o = g_weak_ref_get(&r->ref);
+        known = o == (GObject *)fm;
+        if (!o && !slot)
+            slot = r;
+        if (o)
+            g_object_unref(o);
+    }
+    if (!known && slot) {
+        g_weak_ref_set(&slot->ref, fm);
+    } else if (!known && (slot = malloc(sizeof *slot)) != NULL) {
+        g_weak_ref_init(&slot->ref, fm);
+        slot->next = fontmaps;
+        fontmaps = slot;
+    }
+    g_mutex_unlock(&fontmaps_lock);
+}
+
+static bool fontmaps_alive(void)
+{
+    bool alive = false;
+    g_mutex_lock(&fontmaps_lock);
+    for (fontmap_ref *r = fontmaps; r && !alive; r = r->next) {
+        GObject *o = g_weak_ref_get(&r->ref);
+        alive = o != NULL;
+        if (o)
+            g_object_unref(o);
+    }
+    g_mutex_unlock(&fontmaps_lock);
+    return alive;
+}
+
 void sl_report_release_caches(void)
 {
     pango_cairo_font_map_set_default(NULL);
+    /* cairo's reset is safe only once no font of it is alive, and a map
+     * still held by a Pango thread finishing its task keeps its fonts: wait
+     * for the maps to go (briefly: such a task ends soon after the drawing),
+     * and if one stays, leave the caches to the end of the process rather
+     * than have cairo assert */
+    bool alive = fontmaps_alive();
+    for (int tries = 0; tries < 2000 && alive; tries++) {
+        g_usleep(1000);
+        alive = fontmaps_alive();
+    }
+    if (alive)
+        return;
+    g_mutex_lock(&fontmaps_lock);
+    while (fontmaps) {
+        fontmap_ref *r = fontmaps;
+        fontmaps = r->next;
+        g_weak_ref_clear(&r->ref);
+        free(r);
+    }
+    g_mutex_unlock(&fontmaps_lock);
     cairo_debug_reset_static_data();
     FcFini();
 }
@@ -966,6 +1035,7 @@ static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double
         cairo_font_options_set_hint_style(fo, CAIRO_HINT_STYLE_NONE);
         pango_cairo_context_set_font_options(pango_layout_get_context(l), fo);
         cairo_font_options_destroy(fo);
+        fontmap_seen(pango_context_get_font_map(pango_layout_get_context(l)));
         if (cairo_set_user_data(cr, &layout_key, l, g_object_unref) != CAIRO_STATUS_SUCCESS) {
             g_object_unref(l);
             return NULL;
