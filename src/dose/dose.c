@@ -501,6 +501,69 @@ static int cmp_iv(const void *a, const void *b)
     return x < y ? 1 : x > y ? -1 : 0;
 }
 
+/* Whether a comes before b: hotter first, then the earlier sample, which is
+ * the order a stable sort by cmp_iv gives (glibc's qsort is a merge sort). */
+static bool iv_before(iv a, iv b)
+{
+    return a.v > b.v || (a.v == b.v && a.i < b.i);
+}
+
+static void iv_sift(iv *h, size_t n, size_t k)
+{
+    for (;;) {
+        size_t c = 2 * k + 1;
+        if (c >= n)
+            return;
+        if (c + 1 < n && iv_before(h[c + 1], h[c]))
+            c++;
+        if (!iv_before(h[c], h[k]))
+            return;
+        iv t = h[k];
+        h[k] = h[c];
+        h[c] = t;
+        k = c;
+    }
+}
+
+/* The sample at which the hottest samples first hold a volume (cc): the
+ * near-maximum's sample. Only the hottest few are needed, so a heap hands
+ * them out one by one instead of sorting every sample; a NaN has no place
+ * in that order, and then the whole array is sorted as before. w is NULL
+ * for a point organ (no volume: the hottest sample). order is scratch of n. */
+static size_t nearmax_sample(const double *dv, const double *w, size_t n, double volume,
+                             iv *order)
+{
+    bool nan = false;
+    for (size_t i = 0; i < n; i++) {
+        order[i] = (iv){dv[i], i};
+        nan = nan || isnan(dv[i]);
+    }
+    double acc = 0;
+    if (nan) {
+        qsort(order, n, sizeof *order, cmp_iv);
+        size_t inm = order[0].i;
+        for (size_t k = 0; k < n; k++) {
+            acc += w ? w[order[k].i] : 0;
+            inm = order[k].i;
+            if (acc >= volume)
+                break;
+        }
+        return inm;
+    }
+    for (size_t k = n / 2; k-- > 0;)
+        iv_sift(order, n, k);
+    size_t inm = order[0].i;
+    for (size_t m = n; m > 0;) {
+        inm = order[0].i;
+        acc += w ? w[inm] : 0;
+        if (acc >= volume)
+            break;
+        order[0] = order[--m];
+        iv_sift(order, m, 0);
+    }
+    return inm;
+}
+
 static void set_stat(sl_dose_stat *s, double v, double u)
 {
     s->cgy = v;
@@ -723,17 +786,9 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                 imax = i;
             sum += w * dv[i];
             usum += w * uv[i];
-            order[i] = (iv){dv[i], i};
         }
-        qsort(order, n, sizeof *order, cmp_iv);
-        size_t inm = order[0].i;
-        double acc = 0;
-        for (size_t k = 0; k < n; k++) {
-            acc += s->is_point ? 0 : s->volume_cc[order[k].i];
-            inm = order[k].i;
-            if (acc >= od->nearmax_volume_cc)
-                break;
-        }
+        size_t inm = nearmax_sample(dv, s->is_point ? NULL : s->volume_cc, n,
+                                    od->nearmax_volume_cc, order);
         sl_dose_stat *mx = pass < 0 ? &od->course_max : &od->fx_max[pass];
         sl_dose_stat *mn = pass < 0 ? &od->course_mean : &od->fx_mean[pass];
         sl_dose_stat *nm = pass < 0 ? &od->course_nearmax : &od->fx_nearmax[pass];
