@@ -14,8 +14,10 @@
  * The estimate evaluates a set three times at every sample of every organ
  * and beam, so what does not depend on the query (each curve's fit at its
  * ends and its measured floor, each SSD's layers by tilt) is computed when
- * the set is built, and the dose alone (sl_curves_eval_percent) skips the
- * uncertainty components; both leave every number bitwise as it was.
+ * the set is built, and the dose alone (sl_curves_eval_percent) takes a
+ * path of its own, the same arithmetic on the dose without the uncertainty
+ * components, the flags and the copies of whole values; both leave every
+ * number bitwise as it was.
  */
 #include "strayline/model.h"
 #include "strayline/util.h"
@@ -518,13 +520,9 @@ void sl_curves_range(const sl_curve_set *c, double *lo, double *hi)
     *hi = c->range_hi;
 }
 
-/* How to evaluate: the fitted form or the measured points, and whether the
- * uncertainty components are wanted. Without them (sl_curves_eval_percent)
- * a profile's covariance form, as costly as its exponentials, is skipped;
- * the dose does not depend on them, so it comes out bitwise the same. */
+/* How to evaluate: the fitted form or the measured points. */
 typedef struct eval_how {
     sl_eval_mode mode;
-    bool with_u;
 } eval_how;
 
 typedef struct point_value {
@@ -538,7 +536,7 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
     const sl_model_profile *p = cv->prof;
     point_value r = {0};
     double ufit = 0, el, ph;
-    double fit = sl_profile_fit_eval_parts(&p->fit, d, how.with_u ? &ufit : NULL, &el, &ph);
+    double fit = sl_profile_fit_eval_parts(&p->fit, d, &ufit, &el, &ph);
     r.e_frac = el + ph > 0 ? el / (el + ph) : 0;
     double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
     r.extrapolated = d > hi + 1e-9 || d < lo - 1e-9;
@@ -569,8 +567,6 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
         r.u_extrap = SL_EXTRAPOLATION_PER_CM * (d - hi) * r.v;
     }
     r.poor = p->fit.poor;
-    if (!how.with_u)
-        return r;
     double rel = p->rel_uncertainty * r.v;
     r.u_meas = sqrt(rel * rel + p->floor_percent * p->floor_percent);
     if (p->fit.poor) {
@@ -582,7 +578,7 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
 
 /* Log-linear blend of two values with weight w on b; uncertainties blend
  * relatively, like the values. */
-static point_value blend(point_value a, point_value b, double w, bool with_u)
+static point_value blend(point_value a, point_value b, double w)
 {
     if (w <= 0)
         return a;
@@ -590,11 +586,9 @@ static point_value blend(point_value a, point_value b, double w, bool with_u)
         return b;
     point_value r = {0};
     r.v = exp((1 - w) * log(a.v) + w * log(b.v));
-    if (with_u) {
-        r.u_fit = ((1 - w) * a.u_fit / a.v + w * b.u_fit / b.v) * r.v;
-        r.u_meas = ((1 - w) * a.u_meas / a.v + w * b.u_meas / b.v) * r.v;
-        r.u_extrap = ((1 - w) * a.u_extrap / a.v + w * b.u_extrap / b.v) * r.v;
-    }
+    r.u_fit = ((1 - w) * a.u_fit / a.v + w * b.u_fit / b.v) * r.v;
+    r.u_meas = ((1 - w) * a.u_meas / a.v + w * b.u_meas / b.v) * r.v;
+    r.u_extrap = ((1 - w) * a.u_extrap / a.v + w * b.u_extrap / b.v) * r.v;
     r.e_frac = (1 - w) * a.e_frac + w * b.e_frac;
     r.extrapolated = a.extrapolated || b.extrapolated;
     r.poor = a.poor || b.poor;
@@ -631,7 +625,7 @@ static point_value group_value(const depth_group *g, double d, double angle, eva
     const curve *c0 = &g->curves[k1 - 1], *c1 = &g->curves[k1];
     double w = (angle - c0->angle_deg) / (c1->angle_deg - c0->angle_deg);
     point_value a = curve_value(c0, d, how), b = curve_value(c1, d, how);
-    point_value r = blend(a, b, w, how.with_u);
+    point_value r = blend(a, b, w);
     /* a profile whose measured range ends before d counts only when it has weight */
     r.extrapolated = (w < 1 && a.extrapolated) || (w > 0 && b.extrapolated);
     *between = w * (1 - w) * fabs(b.v - a.v);
@@ -680,7 +674,7 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
     point_value b = g1 == g0 ? a : group_value(&c->groups[g1], d, angle, how, &s1);
     if (g1 == g0)
         s1 = s0;
-    point_value r = blend(a, b, w, how.with_u);
+    point_value r = blend(a, b, w);
     if (r.extrapolated)
         out->flags |= SL_MF_EXTRAPOLATED;
     if (r.poor)
@@ -691,8 +685,6 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
     out->percent = r.v * scale;
     out->electron_percent = r.v * r.e_frac * t;
     out->photon_percent = r.v * (1 - r.e_frac);
-    if (!how.with_u)
-        return;
     double rs = (1 - w) * s0 / a.v + w * s1 / b.v;
     double between = w * (1 - w) * fabs(b.v - a.v);
     out->u_fit = r.u_fit / r.v * out->percent;
@@ -726,10 +718,10 @@ static void bracket(const double *v, size_t n, double x, size_t *i0, size_t *i1,
 }
 
 /* Log-linear blend of two evaluations with weight w on b, as between
- * depths: components blend relatively (when wanted: with_u), and the
+ * depths: components blend relatively, and the
  * interpolation spread w (1 - w) |b - a| joins the interpolation component. */
 static void blend_values(const sl_model_value *a, const sl_model_value *b, double w,
-                         bool with_u, sl_model_value *out)
+                         sl_model_value *out)
 {
     unsigned flags = a->flags | b->flags;
     if (w <= 0 || w >= 1 || !(a->percent > 0) || !(b->percent > 0)) {
@@ -743,10 +735,6 @@ static void blend_values(const sl_model_value *a, const sl_model_value *b, doubl
     r.tilt_used_deg = (1 - w) * a->tilt_used_deg + w * b->tilt_used_deg;
     r.ssd_used_cm = (1 - w) * a->ssd_used_cm + w * b->ssd_used_cm;
     r.flags = flags;
-    if (!with_u) {
-        *out = r;
-        return;
-    }
 #define REL(f) (((1 - w) * a->f / a->percent + w * b->f / b->percent) * r.percent)
     r.u_fit = REL(u_fit);
     r.u_meas = REL(u_meas);
@@ -806,12 +794,11 @@ static void eval_at_ssd(const sl_curve_set *c, size_t r, double depth, double d,
     } else {
         b = a;
     }
-    blend_values(&a, &b, w, how.with_u, out);
+    blend_values(&a, &b, w, out);
     if (beyond > SL_TILT_TOLERANCE_DEG) {
         out->flags |= SL_MF_TILT_OUTSIDE;
-        if (how.with_u)
-            out->u_uncommissioned = hypot(out->u_uncommissioned,
-                                          SL_UNCOMMISSIONED_PER_DEG * beyond * out->percent);
+        out->u_uncommissioned =
+            hypot(out->u_uncommissioned, SL_UNCOMMISSIONED_PER_DEG * beyond * out->percent);
     }
 }
 
@@ -843,14 +830,13 @@ static void eval_set(const sl_curve_set *c, double depth, double d, double angle
             eval_at_ssd(c, i1, depth, d, angle, tilt, how, electron_t, &b);
         else
             b = a;
-        blend_values(&a, &b, w, how.with_u, out);
+        blend_values(&a, &b, w, out);
         out->flags |= given;
     }
     if (beyond > SL_SSD_TOLERANCE_CM) {
         out->flags |= SL_MF_SSD_OUTSIDE;
-        if (how.with_u)
-            out->u_uncommissioned =
-                hypot(out->u_uncommissioned, SL_UNCOMMISSIONED_PER_CM * beyond * out->percent);
+        out->u_uncommissioned =
+            hypot(out->u_uncommissioned, SL_UNCOMMISSIONED_PER_CM * beyond * out->percent);
     }
 }
 
@@ -906,11 +892,9 @@ static void scale_value(sl_model_value *v, double k)
     v->u_uncommissioned *= k;
 }
 
-/* sl_curves_eval_query, with or without the uncertainty components. */
-static void eval_query(const sl_curve_set *c, const sl_eval_query *q, bool with_u,
-                       sl_model_value *out)
+void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out)
 {
-    eval_how how = {q->mode, with_u};
+    eval_how how = {q->mode};
     *out = zero_value;
     double depth = q->depth_cm, d = q->distance_cm;
     out->depth_used_cm = depth;
@@ -958,16 +942,168 @@ static void eval_query(const sl_curve_set *c, const sl_eval_query *q, bool with_
     combine(c, d, out);
 }
 
-void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_model_value *out)
+/* ------------------------------------------------------ dose alone -- */
+
+/* The dose alone, as the setup shift's neighbouring evaluations take it at
+ * every sample: the same arithmetic as the full evaluation's percent, step
+ * for step, without the uncertainty components, the flags and the copies of
+ * whole values they need. The unit test dose_alone_equals_the_full_evaluation
+ * holds the two paths bitwise equal. */
+
+typedef struct dose_part {
+    double v;      /* percent */
+    double e_frac; /* the electrons' share */
+} dose_part;
+
+static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
 {
-    eval_query(c, q, true, out);
+    const sl_model_profile *p = cv->prof;
+    double el, ph;
+    double fit = sl_profile_fit_eval_parts(&p->fit, d, NULL, &el, &ph);
+    dose_part r = {fit, el + ph > 0 ? el / (el + ph) : 0};
+    double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
+    if (mode == SL_EVAL_POINTS) {
+        if (d >= lo && d <= hi) {
+            r.v = exp(gsl_interp_eval(cv->interp, p->distance_cm, cv->logdose, d, NULL));
+        } else {
+            double at_end = d > hi ? cv->fit_hi : cv->fit_lo;
+            double meas_end = p->dose_percent[d > hi ? p->n - 1 : 0];
+            r.v = fit * meas_end / at_end;
+        }
+    }
+    if (d > hi && !(r.v >= cv->floor)) {
+        r.e_frac = r.v > 0 ? r.e_frac * r.v / cv->floor : 0;
+        r.v = cv->floor;
+    }
+    return r;
+}
+
+static dose_part blend_dose(dose_part a, dose_part b, double w)
+{
+    if (w <= 0)
+        return a;
+    if (w >= 1)
+        return b;
+    dose_part r;
+    r.v = exp((1 - w) * log(a.v) + w * log(b.v));
+    r.e_frac = (1 - w) * a.e_frac + w * b.e_frac;
+    return r;
+}
+
+static dose_part group_dose(const depth_group *g, double d, double angle, sl_eval_mode mode)
+{
+    if (g->ncurves == 1)
+        return curve_dose(&g->curves[0], d, mode);
+    if (isnan(angle)) {
+        dose_part best = curve_dose(&g->curves[0], d, mode);
+        for (size_t k = 1; k < g->ncurves; k++) {
+            dose_part r = curve_dose(&g->curves[k], d, mode);
+            if (r.v > best.v)
+                best = r;
+        }
+        return best;
+    }
+    size_t k1 = 0;
+    while (k1 < g->ncurves && g->curves[k1].angle_deg < angle)
+        k1++;
+    if (k1 == 0)
+        return curve_dose(&g->curves[0], d, mode);
+    if (k1 == g->ncurves)
+        return curve_dose(&g->curves[g->ncurves - 1], d, mode);
+    const curve *c0 = &g->curves[k1 - 1], *c1 = &g->curves[k1];
+    double w = (angle - c0->angle_deg) / (c1->angle_deg - c0->angle_deg);
+    return blend_dose(curve_dose(c0, d, mode), curve_dose(c1, d, mode), w);
+}
+
+static double flat_dose(const sl_curve_set *c, double depth, double d, double angle,
+                        sl_eval_mode mode, double electron_t)
+{
+    size_t g0 = 0, g1 = 0;
+    double w = 0;
+    if (depth <= c->depths[0]) {
+        g0 = g1 = 0;
+    } else if (depth >= c->depths[c->ngroups - 1]) {
+        g0 = g1 = c->ngroups - 1;
+    } else {
+        while (g1 < c->ngroups && c->depths[g1] < depth)
+            g1++;
+        g0 = g1 - 1;
+        w = (depth - c->depths[g0]) / (c->depths[g1] - c->depths[g0]);
+    }
+    dose_part a = group_dose(&c->groups[g0], d, angle, mode);
+    dose_part b = g1 == g0 ? a : group_dose(&c->groups[g1], d, angle, mode);
+    dose_part r = blend_dose(a, b, w);
+    double t = electron_t >= 0 && electron_t <= 1 ? electron_t : 1;
+    return r.v * (r.e_frac * t + (1 - r.e_frac));
+}
+
+/* blend_values' percent */
+static double blend_percent(double a, double b, double w)
+{
+    if (w <= 0 || w >= 1 || !(a > 0) || !(b > 0))
+        return w >= 1 ? b : a;
+    return exp((1 - w) * log(a) + w * log(b));
+}
+
+static double ssd_dose(const sl_curve_set *c, size_t r, double depth, double d, double angle,
+                       double tilt, sl_eval_mode mode, double electron_t)
+{
+    const double *tl = c->rows[r].tilts;
+    const sl_curve_set *const *sets = c->rows[r].sets;
+    size_t n = c->rows[r].n;
+    if (isnan(tilt)) {
+        double best = 0;
+        for (size_t k = 0; k < n; k++) {
+            double v = flat_dose(sets[k], depth, d, angle, mode, electron_t);
+            if (k == 0 || v > best)
+                best = v;
+        }
+        return best;
+    }
+    size_t i0, i1;
+    double w, beyond;
+    bracket(tl, n, tilt, &i0, &i1, &w, &beyond);
+    double a = flat_dose(sets[i0], depth, d, angle, mode, electron_t);
+    double b = i1 != i0 ? flat_dose(sets[i1], depth, d, angle, mode, electron_t) : a;
+    return blend_percent(a, b, w);
+}
+
+static double set_dose(const sl_curve_set *c, double depth, double d, const sl_eval_query *q)
+{
+    if (c->nlayers == 0)
+        return flat_dose(c, depth, d, q->angle_deg, q->mode, q->electron_t);
+    double ssd = isfinite(q->ssd_cm) && q->ssd_cm > 0 ? q->ssd_cm : c->nominal_ssd_cm;
+    size_t i0, i1;
+    double w, beyond;
+    bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
+    double a = ssd_dose(c, i0, depth, d, q->angle_deg, q->tilt_deg, q->mode, q->electron_t);
+    double b = i1 != i0
+                   ? ssd_dose(c, i1, depth, d, q->angle_deg, q->tilt_deg, q->mode, q->electron_t)
+                   : a;
+    return blend_percent(a, b, w);
 }
 
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q)
 {
-    sl_model_value v;
-    eval_query(c, q, false, &v);
-    return v.percent;
+    double depth = q->depth_cm, d = q->distance_cm;
+    if (isnan(depth) || isnan(d) || !(d >= 0))
+        return NAN;
+    double v = set_dose(c, depth, d, q);
+    if (c->standin) {
+        if (isfinite(q->app_distance_cm) && q->app_distance_cm >= 0) {
+            double cand = set_dose(c, depth, q->app_distance_cm, q);
+            if (cand > v)
+                v = cand;
+        }
+        for (size_t k = 0; k < c->nmembers; k++) {
+            double cand = set_dose(c->members[k].set, depth, d, q) * c->members[k].scale;
+            if (cand > v)
+                v = cand;
+        }
+    }
+    if (c->scale && isfinite(v))
+        v *= c->scale->factor;
+    return v;
 }
 
 void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode mode,
