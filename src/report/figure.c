@@ -1061,12 +1061,17 @@ static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double
         pango_layout_set_width(l, -1);
     }
     /* names come from DICOM files: a byte that is not UTF-8 becomes a
-     * replacement character rather than a warning printed by Pango */
+     * replacement character rather than a warning printed by Pango. The
+     * same text again (measured, then drawn) keeps the layout Pango has
+     * made: setting a text always makes it lay the text out afresh. */
+    const char *now = pango_layout_get_text(l);
     if (g_utf8_validate(text, -1, NULL)) {
-        pango_layout_set_text(l, text, -1);
+        if (!now || strcmp(now, text) != 0)
+            pango_layout_set_text(l, text, -1);
     } else {
         gchar *valid = g_utf8_make_valid(text, -1);
-        pango_layout_set_text(l, valid, -1);
+        if (!now || strcmp(now, valid) != 0)
+            pango_layout_set_text(l, valid, -1);
         g_free(valid);
     }
     return l;
