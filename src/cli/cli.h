@@ -30,7 +30,12 @@ typedef struct sl_command {
     const char *name;
     const char *summary;
     int (*run)(int argc, char **argv);
+    bool one_case; /* works through one case and exits: sl_cli_memory_one_case */
 } sl_command;
+
+/* Memory taken in large steps, with huge pages, for a command that works
+ * through one case (memory.c says why). Call before the command runs. */
+void sl_cli_memory_one_case(void);
 
 int sl_cmd_inspect(int argc, char **argv);
 int sl_cmd_locate(int argc, char **argv);
