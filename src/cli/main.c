@@ -26,16 +26,19 @@ static const sl_command commands[] = {
     {"inspect", "summarise DICOM RT Plan and RT Structure Set files", sl_cmd_inspect, true},
     {"locate", "place each electron field in the patient: organ distances and depths",
      sl_cmd_locate, true},
-    {"fit", "fit peripheral-dose models to measured profiles; write a model file", sl_cmd_fit, false},
+    {"fit", "fit peripheral-dose models to measured profiles; write a model file", sl_cmd_fit,
+     false},
     {"model", "show or evaluate a model file", sl_cmd_model, false},
     {"estimate", "estimate organ out-of-field doses and compare with action levels",
      sl_cmd_estimate, true},
     {"film", "film dosimetry: calibrate film scans, turn film scans into profiles", sl_cmd_film,
      true},
-    {"scan", "screen every electron plan of a folder; reports, summary and log", sl_cmd_scan, false},
+    {"scan", "screen every electron plan of a folder; reports, summary and log", sl_cmd_scan,
+     false},
     {"listen", "a DICOM node that screens the plans it receives", sl_cmd_listen, false},
     {"history", "list the screenings recorded in the screening log", sl_cmd_history, false},
-    {"invivo", "in-vivo readings against the estimate: add to the log, report, propose a model", sl_cmd_invivo, false},
+    {"invivo", "in-vivo readings against the estimate: add to the log, report, propose a model",
+     sl_cmd_invivo, false},
 };
 
 static void usage(FILE *fp)

@@ -595,6 +595,50 @@ static point_value blend(point_value a, point_value b, double w)
     return r;
 }
 
+/* Where x falls in the increasing list v of n values: the two neighbours
+ * and the weight on the second, or the nearest one (i0 == i1) with *beyond
+ * the distance from it. */
+static void bracket(const double *v, size_t n, double x, size_t *i0, size_t *i1, double *w,
+                    double *beyond)
+{
+    *w = 0;
+    *beyond = 0;
+    if (x <= v[0]) {
+        *i0 = *i1 = 0;
+        *beyond = v[0] - x;
+    } else if (x >= v[n - 1]) {
+        *i0 = *i1 = n - 1;
+        *beyond = x - v[n - 1];
+    } else {
+        size_t k = 1;
+        while (k < n && v[k] < x)
+            k++;
+        *i0 = k - 1;
+        *i1 = k;
+        *w = (x - v[k - 1]) / (v[k] - v[k - 1]);
+    }
+}
+
+/* Where a direction falls among a group's curves (sorted by angle): the
+ * two around it and the weight on the second, or one (k0 == k1) at or
+ * beyond the first and beyond the last. */
+static void direction_bracket(const depth_group *g, double angle, size_t *k0, size_t *k1,
+                              double *w)
+{
+    size_t k = 0;
+    while (k < g->ncurves && g->curves[k].angle_deg < angle)
+        k++;
+    *w = 0;
+    if (k == 0 || k == g->ncurves) {
+        *k0 = *k1 = k ? k - 1 : 0;
+        return;
+    }
+    *k0 = k - 1;
+    *k1 = k;
+    double a0 = g->curves[k - 1].angle_deg, a1 = g->curves[k].angle_deg;
+    *w = (angle - a0) / (a1 - a0);
+}
+
 /* The curves measured at one depth, at a direction: interpolated between the
  * two measured directions around it (the nearest beyond the measured ones),
  * or the highest when the direction is unknown. *between receives the
@@ -614,17 +658,12 @@ static point_value group_value(const depth_group *g, double d, double angle, eva
         }
         return best;
     }
-    /* curves are sorted by direction angle */
-    size_t k1 = 0;
-    while (k1 < g->ncurves && g->curves[k1].angle_deg < angle)
-        k1++;
-    if (k1 == 0)
-        return curve_value(&g->curves[0], d, how);
-    if (k1 == g->ncurves)
-        return curve_value(&g->curves[g->ncurves - 1], d, how);
-    const curve *c0 = &g->curves[k1 - 1], *c1 = &g->curves[k1];
-    double w = (angle - c0->angle_deg) / (c1->angle_deg - c0->angle_deg);
-    point_value a = curve_value(c0, d, how), b = curve_value(c1, d, how);
+    size_t k0, k1;
+    double w;
+    direction_bracket(g, angle, &k0, &k1, &w);
+    if (k0 == k1)
+        return curve_value(&g->curves[k0], d, how);
+    point_value a = curve_value(&g->curves[k0], d, how), b = curve_value(&g->curves[k1], d, how);
     point_value r = blend(a, b, w);
     /* a profile whose measured range ends before d counts only when it has weight */
     r.extrapolated = (w < 1 && a.extrapolated) || (w > 0 && b.extrapolated);
@@ -650,25 +689,12 @@ static void set_nan(sl_model_value *out)
 static void eval_flat(const sl_curve_set *c, double depth, double d, double angle,
                       eval_how how, double electron_t, sl_model_value *out)
 {
-    size_t g0 = 0, g1 = 0;
-    double w = 0;
-    out->depth_used_cm = depth;
-    if (depth <= c->depths[0]) {
-        g0 = g1 = 0;
-        if (depth < c->depths[0] - 1e-9)
-            out->flags |= SL_MF_DEPTH_OUTSIDE;
-        out->depth_used_cm = c->depths[0];
-    } else if (depth >= c->depths[c->ngroups - 1]) {
-        g0 = g1 = c->ngroups - 1;
-        if (depth > c->depths[c->ngroups - 1] + 1e-9)
-            out->flags |= SL_MF_DEPTH_OUTSIDE;
-        out->depth_used_cm = c->depths[c->ngroups - 1];
-    } else {
-        while (g1 < c->ngroups && c->depths[g1] < depth)
-            g1++;
-        g0 = g1 - 1;
-        w = (depth - c->depths[g0]) / (c->depths[g1] - c->depths[g0]);
-    }
+    size_t g0, g1;
+    double w, beyond;
+    bracket(c->depths, c->ngroups, depth, &g0, &g1, &w, &beyond);
+    out->depth_used_cm = g0 == g1 ? c->depths[g0] : depth;
+    if (beyond > 1e-9)
+        out->flags |= SL_MF_DEPTH_OUTSIDE;
     double s0, s1 = 0;
     point_value a = group_value(&c->groups[g0], d, angle, how, &s0);
     point_value b = g1 == g0 ? a : group_value(&c->groups[g1], d, angle, how, &s1);
@@ -691,30 +717,6 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
     out->u_meas = r.u_meas / r.v * out->percent;
     out->u_extrap = r.u_extrap / r.v * out->percent;
     out->u_interp = sqrt(between * between + (rs * r.v) * (rs * r.v)) * scale;
-}
-
-/* Where x falls in the increasing list v of n values: the two neighbours
- * and the weight on the second, or the nearest one (i0 == i1) with *beyond
- * the distance from it. */
-static void bracket(const double *v, size_t n, double x, size_t *i0, size_t *i1, double *w,
-                    double *beyond)
-{
-    *w = 0;
-    *beyond = 0;
-    if (x <= v[0]) {
-        *i0 = *i1 = 0;
-        *beyond = v[0] - x;
-    } else if (x >= v[n - 1]) {
-        *i0 = *i1 = n - 1;
-        *beyond = x - v[n - 1];
-    } else {
-        size_t k = 1;
-        while (k < n && v[k] < x)
-            k++;
-        *i0 = k - 1;
-        *i1 = k;
-        *w = (x - v[k - 1]) / (v[k] - v[k - 1]);
-    }
 }
 
 /* Log-linear blend of two evaluations with weight w on b, as between
@@ -1003,33 +1005,21 @@ static dose_part group_dose(const depth_group *g, double d, double angle, sl_eva
         }
         return best;
     }
-    size_t k1 = 0;
-    while (k1 < g->ncurves && g->curves[k1].angle_deg < angle)
-        k1++;
-    if (k1 == 0)
-        return curve_dose(&g->curves[0], d, mode);
-    if (k1 == g->ncurves)
-        return curve_dose(&g->curves[g->ncurves - 1], d, mode);
-    const curve *c0 = &g->curves[k1 - 1], *c1 = &g->curves[k1];
-    double w = (angle - c0->angle_deg) / (c1->angle_deg - c0->angle_deg);
-    return blend_dose(curve_dose(c0, d, mode), curve_dose(c1, d, mode), w);
+    size_t k0, k1;
+    double w;
+    direction_bracket(g, angle, &k0, &k1, &w);
+    if (k0 == k1)
+        return curve_dose(&g->curves[k0], d, mode);
+    return blend_dose(curve_dose(&g->curves[k0], d, mode), curve_dose(&g->curves[k1], d, mode),
+                      w);
 }
 
 static double flat_dose(const sl_curve_set *c, double depth, double d, double angle,
                         sl_eval_mode mode, double electron_t)
 {
-    size_t g0 = 0, g1 = 0;
-    double w = 0;
-    if (depth <= c->depths[0]) {
-        g0 = g1 = 0;
-    } else if (depth >= c->depths[c->ngroups - 1]) {
-        g0 = g1 = c->ngroups - 1;
-    } else {
-        while (g1 < c->ngroups && c->depths[g1] < depth)
-            g1++;
-        g0 = g1 - 1;
-        w = (depth - c->depths[g0]) / (c->depths[g1] - c->depths[g0]);
-    }
+    size_t g0, g1;
+    double w, beyond;
+    bracket(c->depths, c->ngroups, depth, &g0, &g1, &w, &beyond);
     dose_part a = group_dose(&c->groups[g0], d, angle, mode);
     dose_part b = g1 == g0 ? a : group_dose(&c->groups[g1], d, angle, mode);
     dose_part r = blend_dose(a, b, w);
