@@ -18,12 +18,15 @@
  *
  * All of it is advice: with huge pages off in the kernel, or under a leak
  * checker that replaces malloc, the calls change nothing and the command
- * runs as before.
+ * runs as before. Under a limit on the data segment or the address space
+ * (ulimit -d, -v) nothing is changed either: the reserved top pad counts
+ * against such a limit, and a command that fitted in it must still fit.
  */
 #include <malloc.h>
 #include <stdint.h>
 #include <stdlib.h>
 #include <sys/mman.h>
+#include <sys/resource.h>
 #include <unistd.h>
 
 #include "cli.h"
@@ -32,6 +35,10 @@
 
 void sl_cli_memory_one_case(void)
 {
+    struct rlimit lim;
+    if ((getrlimit(RLIMIT_DATA, &lim) == 0 && lim.rlim_cur != RLIM_INFINITY) ||
+        (getrlimit(RLIMIT_AS, &lim) == 0 && lim.rlim_cur != RLIM_INFINITY))
+        return;
     /* the largest threshold glibc takes: buffers below it (a 17 MB file's
      * bytes, say) come from the heap, which has huge pages */
     mallopt(M_MMAP_THRESHOLD, 32 << 20);

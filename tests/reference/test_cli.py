@@ -231,6 +231,36 @@ class Cli(unittest.TestCase):
                            "no such directory: " + gone)
             self.assertEqual(os.listdir(d), [])
 
+    # memory -----------------------------------------------------------------
+    @unittest.skipIf(os.environ.get("SL_SANITIZED", "none") != "none",
+                     "a sanitizer's shadow memory does not fit under a data-segment limit")
+    def test_memory_limits_change_nothing(self):
+        """A command that works through one case takes its memory in large
+        steps (src/cli/memory.c) only without a limit on the data segment or
+        the address space: under `ulimit -d` or `ulimit -v` it runs with
+        glibc's defaults and writes the same report (a run that fitted in the
+        limit must still fit; the reserved top pad would count against it)."""
+        import resource
+
+        def limited(kind, mb):
+            def cap():
+                resource.setrlimit(kind, (mb << 20, mb << 20))
+            return cap
+
+        with tempdir() as d:
+            outs = []
+            for cap in (None, limited(resource.RLIMIT_DATA, 200),
+                        limited(resource.RLIMIT_AS, 1500)):
+                path = os.path.join(d, "e%d.json" % len(outs))
+                p = subprocess.run([STRAYLINE, "estimate", PLAN, SS, "--model", MODEL,
+                                    "--format", "json", "-o", path],
+                                   capture_output=True, text=True, timeout=300, preexec_fn=cap)
+                self.assertEqual(p.returncode, 4, p.stderr)
+                with open(path, "rb") as f:
+                    outs.append(f.read())
+            self.assertEqual(outs[1], outs[0])
+            self.assertEqual(outs[2], outs[0])
+
 
 if __name__ == "__main__":
     unittest.main()
