@@ -563,20 +563,36 @@ sl_status fig_svg_string(double w_pt, double h_pt, fig_draw_fn draw, const void 
     return render_svg(w_pt, h_pt, draw, ctx, svg, len, NULL, NULL, err);
 }
 
+/* A figure's ids: cairo's (v) and the figure's own (nv). */
 typedef struct idset {
-    char **v;
+    char **v, **nv;
     size_t n, cap;
 } idset;
 
-static bool idset_has(const idset *s, const char *id, size_t n)
+/* The figure's id for cairo's id (n bytes), or NULL when it is not one. */
+static const char *idset_new(const idset *s, const char *id, size_t n)
 {
     for (size_t i = 0; i < s->n; i++)
         if (strlen(s->v[i]) == n && memcmp(s->v[i], id, n) == 0)
-            return true;
-    return false;
+            return s->nv[i];
+    return NULL;
 }
 
-/* Give every id a prefix; collect the old ids. */
+static void idset_free(idset *s)
+{
+    for (size_t i = 0; i < s->n; i++) {
+        free(s->v[i]);
+        free(s->nv[i]);
+    }
+    free(s->v);
+    free(s->nv);
+}
+
+/* Give every id the figure's prefix and a number by its place in the
+ * document, keeping cairo's kind (glyph, clip, surface ...): cairo numbers
+ * some definitions from counters shared by the whole process, so that the
+ * same report drawn twice, or beside another on a second thread, would
+ * carry other ids. Collect the old and the new ids. */
 static bool prefix_ids(xmlNodePtr n, const char *prefix, idset *ids)
 {
     for (; n; n = n->next) {
@@ -587,28 +603,35 @@ static bool prefix_ids(xmlNodePtr n, const char *prefix, idset *ids)
             if (ids->n == ids->cap) {
                 size_t cap = ids->cap ? ids->cap * 2 : 64;
                 char **v = realloc(ids->v, cap * sizeof *v);
-                if (!v) {
+                if (v)
+                    ids->v = v;
+                char **nv = v ? realloc(ids->nv, cap * sizeof *nv) : NULL;
+                if (nv)
+                    ids->nv = nv;
+                if (!v || !nv) {
                     xmlFree(id);
                     return false;
                 }
-                ids->v = v;
                 ids->cap = cap;
             }
-            ids->v[ids->n] = strdup((const char *)id);
-            if (!ids->v[ids->n]) {
+            const char *old = (const char *)id;
+            size_t kind = 0;
+            while ((old[kind] >= 'a' && old[kind] <= 'z') || (old[kind] >= 'A' && old[kind] <= 'Z'))
+                kind++;
+            size_t l = strlen(prefix) + (kind ? kind : 2) + 24;
+            char *nid = malloc(l), *copy = strdup(old);
+            if (!nid || !copy) {
+                free(nid);
+                free(copy);
                 xmlFree(id);
                 return false;
             }
+            snprintf(nid, l, "%s%.*s%zu", prefix, (int)(kind ? kind : 2), kind ? old : "id",
+                     ids->n + 1);
+            ids->v[ids->n] = copy;
+            ids->nv[ids->n] = nid;
             ids->n++;
-            size_t l = strlen(prefix) + strlen((const char *)id) + 1;
-            char *nid = malloc(l);
-            if (!nid) {
-                xmlFree(id);
-                return false;
-            }
-            snprintf(nid, l, "%s%s", prefix, (const char *)id);
             xmlSetProp(n, BAD_CAST "id", BAD_CAST nid);
-            free(nid);
             xmlFree(id);
         }
         if (!prefix_ids(n->children, prefix, ids))
@@ -623,10 +646,10 @@ static bool idchar(char c)
            c == '-' || c == '_' || c == '.';
 }
 
-/* Rewrite "#id" references to ids of the set in every attribute. */
-static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
+/* Rewrite "#id" references to ids of the set, in every attribute, to the
+ * figure's ids. */
+static bool rewrite_refs(xmlNodePtr n, const idset *ids)
 {
-    size_t pl = strlen(prefix);
     for (; n; n = n->next) {
         if (n->type != XML_ELEMENT_NODE)
             continue;
@@ -639,7 +662,7 @@ static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
                 xmlFree(v);
                 continue;
             }
-            size_t cap = strlen(s) * 2 + 16 + pl * 8, len = 0;
+            size_t cap = strlen(s) * 2 + 64, len = 0;
             char *out = malloc(cap);
             if (!out) {
                 xmlFree(v);
@@ -650,9 +673,11 @@ static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
                     size_t j = i + 1;
                     while (idchar(s[j]))
                         j++;
-                    if (j > i + 1 && idset_has(ids, s + i + 1, j - i - 1)) {
-                        if (len + pl + (j - i) + 1 > cap) {
-                            cap = (len + pl + (j - i) + 1) * 2;
+                    const char *nid = j > i + 1 ? idset_new(ids, s + i + 1, j - i - 1) : NULL;
+                    if (nid) {
+                        size_t nl = strlen(nid);
+                        if (len + nl + 2 > cap) {
+                            cap = (len + nl + 2) * 2;
                             char *o2 = realloc(out, cap);
                             if (!o2) {
                                 free(out);
@@ -662,10 +687,8 @@ static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
                             out = o2;
                         }
                         out[len++] = '#';
-                        memcpy(out + len, prefix, pl);
-                        len += pl;
-                        memcpy(out + len, s + i + 1, j - i - 1);
-                        len += j - i - 1;
+                        memcpy(out + len, nid, nl);
+                        len += nl;
                         i = j;
                         continue;
                     }
@@ -688,7 +711,7 @@ static bool rewrite_refs(xmlNodePtr n, const char *prefix, const idset *ids)
             free(out);
             xmlFree(v);
         }
-        if (!rewrite_refs(n->children, prefix, ids))
+        if (!rewrite_refs(n->children, ids))
             return false;
     }
     return true;
@@ -916,11 +939,9 @@ xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fi
         char prefix[32];
         snprintf(prefix, sizeof prefix, "fig%u-", nfig);
         idset ids = {0};
-        bool ok = prefix_ids(root, prefix, &ids) && rewrite_refs(root, prefix, &ids) &&
+        bool ok = prefix_ids(root, prefix, &ids) && rewrite_refs(root, &ids) &&
                   round_paths(root);
-        for (size_t i = 0; i < ids.n; i++)
-            free(ids.v[i]);
-        free(ids.v);
+        idset_free(&ids);
         copy = ok ? xmlDocCopyNode(root, h->doc, 1) : NULL;
         xmlFreeDoc(sd);
         if (!ok || !copy)
