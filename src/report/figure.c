@@ -6,9 +6,11 @@
  *
  * cairo names its SVG definitions glyph0-1, clip1, surface5 and so on, the
  * same in every document it writes; an HTML page with several figures would
- * then resolve a reference of one figure to another's definition. The ids
- * of each figure are therefore prefixed with the figure's number in the page
- * and every reference rewritten to match.
+ * then resolve a reference of one figure to another's definition. Some of
+ * those numbers come from counters of the whole process, so that the same
+ * report drawn twice would differ. Each id is therefore the figure's number
+ * in the page, cairo's kind of definition and the definition's place in the
+ * figure, and every reference is rewritten to match.
  *
  * Text in an HTML figure is SVG text, not glyph outlines: cairo's SVG
  * surface writes every glyph's outline and a reference per glyph, which made
