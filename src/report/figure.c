@@ -964,75 +964,83 @@ xmlNodePtr fig_svg_into(hdoc *h, xmlNodePtr parent, double w_pt, double h_pt, fi
     return copy;
 }
 
-/* Every Pango font map a figure has used, held weakly: each thread has its
- * own default map, and Pango's own threads (fontconfig's start-up and font
- * matching) hold a map until their task ends. A weak reference registers
- * its own address with the object, so each lives in a node of its own. */
+/* Every Pango font map a figure has used, with a reference of ours. Each
+ * thread has its own default map, and Pango's own threads (fontconfig's
+ * start-up and font matching) hold a map until their task ends. A map is
+ * finished (and its fonts, which hold cairo's, freed) where its last
+ * reference goes; holding one ourselves lets that be our thread, at a time
+ * we choose: when ours is the last reference left. Waiting for a weak
+ * reference to clear is not enough, as it clears before the map's fonts
+ * are freed, in the thread that drops the map. */
 typedef struct fontmap_ref {
-    GWeakRef ref;
+    PangoFontMap *fm;
     struct fontmap_ref *next;
 } fontmap_ref;
 
 static GMutex fontmaps_lock;
 static fontmap_ref *fontmaps;
 
+static bool only_ours(PangoFontMap *fm)
+{
+    return g_atomic_int_get((gint *)&G_OBJECT(fm)->ref_count) == 1;
+}
+
 static void fontmap_seen(PangoFontMap *fm)
 {
     g_mutex_lock(&fontmaps_lock);
-    fontmap_ref *slot = NULL;
     bool known = false;
-    for (fontmap_ref *r = fontmaps; r && !known; r = r->next) {
-        GObject *o = g_weak_ref_get(&r->ref);
-        known = o == (GObject *)fm;
-        if (!o && !slot)
-            slot = r;
-        if (o)
-            g_object_unref(o);
+    for (fontmap_ref **rp = &fontmaps; *rp;) {
+        fontmap_ref *r = *rp;
+        known = known || r->fm == fm;
+        if (r->fm != fm && only_ours(r->fm)) {
+            /* its thread has ended: finish it here, so that a long run of
+             * threads (listen) does not keep every map */
+            *rp = r->next;
+            g_object_unref(r->fm);
+            free(r);
+            continue;
+        }
+        rp = &r->next;
     }
-    if (!known && slot) {
-        g_weak_ref_set(&slot->ref, fm);
-    } else if (!known && (slot = malloc(sizeof *slot)) != NULL) {
-        g_weak_ref_init(&slot->ref, fm);
-        slot->next = fontmaps;
-        fontmaps = slot;
+    fontmap_ref *r = known ? NULL : malloc(sizeof *r);
+    if (r) {
+        r->fm = g_object_ref(fm);
+        r->next = fontmaps;
+        fontmaps = r;
     }
     g_mutex_unlock(&fontmaps_lock);
 }
 
-static bool fontmaps_alive(void)
+static bool fontmaps_only_ours(void)
 {
-    bool alive = false;
+    bool all = true;
     g_mutex_lock(&fontmaps_lock);
-    for (fontmap_ref *r = fontmaps; r && !alive; r = r->next) {
-        GObject *o = g_weak_ref_get(&r->ref);
-        alive = o != NULL;
-        if (o)
-            g_object_unref(o);
-    }
+    for (fontmap_ref *r = fontmaps; r && all; r = r->next)
+        all = only_ours(r->fm);
     g_mutex_unlock(&fontmaps_lock);
-    return alive;
+    return all;
 }
 
 void sl_report_release_caches(void)
 {
     pango_cairo_font_map_set_default(NULL);
-    /* cairo's reset is safe only once no font of it is alive, and a map
-     * still held by a Pango thread finishing its task keeps its fonts: wait
-     * for the maps to go (briefly: such a task ends soon after the drawing),
-     * and if one stays, leave the caches to the end of the process rather
-     * than have cairo assert */
-    bool alive = fontmaps_alive();
-    for (int tries = 0; tries < 2000 && alive; tries++) {
+    /* cairo's reset is safe only once no font of it is alive: wait until
+     * every map is held by us alone (briefly: a Pango task ends soon after
+     * the drawing), finish the maps here, then reset; if a map stays held,
+     * leave the caches to the end of the process rather than have cairo
+     * assert */
+    bool ready = fontmaps_only_ours();
+    for (int tries = 0; tries < 2000 && !ready; tries++) {
         g_usleep(1000);
-        alive = fontmaps_alive();
+        ready = fontmaps_only_ours();
     }
-    if (alive)
+    if (!ready)
         return;
     g_mutex_lock(&fontmaps_lock);
     while (fontmaps) {
         fontmap_ref *r = fontmaps;
         fontmaps = r->next;
-        g_weak_ref_clear(&r->ref);
+        g_object_unref(r->fm);
         free(r);
     }
     g_mutex_unlock(&fontmaps_lock);
