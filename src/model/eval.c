@@ -576,6 +576,25 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
     return r;
 }
 
+/* The log-linear blend of two doses with weight w on b (0 < w < 1). */
+static double log_blend(double a, double b, double w)
+{
+    return exp((1 - w) * log(a) + w * log(b));
+}
+
+/* The share of the electrons a what-if shield lets through (1 when none or
+ * out of range). */
+static double transmission_used(double electron_t)
+{
+    return electron_t >= 0 && electron_t <= 1 ? electron_t : 1;
+}
+
+/* The SSD a query is evaluated at: its own, or the nominal one. */
+static double ssd_used(const sl_curve_set *c, double ssd_q)
+{
+    return isfinite(ssd_q) && ssd_q > 0 ? ssd_q : c->nominal_ssd_cm;
+}
+
 /* Log-linear blend of two values with weight w on b; uncertainties blend
  * relatively, like the values. */
 static point_value blend(point_value a, point_value b, double w)
@@ -585,7 +604,7 @@ static point_value blend(point_value a, point_value b, double w)
     if (w >= 1)
         return b;
     point_value r = {0};
-    r.v = exp((1 - w) * log(a.v) + w * log(b.v));
+    r.v = log_blend(a.v, b.v, w);
     r.u_fit = ((1 - w) * a.u_fit / a.v + w * b.u_fit / b.v) * r.v;
     r.u_meas = ((1 - w) * a.u_meas / a.v + w * b.u_meas / b.v) * r.v;
     r.u_extrap = ((1 - w) * a.u_extrap / a.v + w * b.u_extrap / b.v) * r.v;
@@ -706,7 +725,7 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
     if (r.poor)
         out->flags |= SL_MF_POOR_FIT;
     /* a what-if shield takes off part of the electron share only */
-    double t = electron_t >= 0 && electron_t <= 1 ? electron_t : 1;
+    double t = transmission_used(electron_t);
     double scale = r.e_frac * t + (1 - r.e_frac);
     out->percent = r.v * scale;
     out->electron_percent = r.v * r.e_frac * t;
@@ -732,7 +751,7 @@ static void blend_values(const sl_model_value *a, const sl_model_value *b, doubl
         return;
     }
     sl_model_value r = *a;
-    r.percent = exp((1 - w) * log(a->percent) + w * log(b->percent));
+    r.percent = log_blend(a->percent, b->percent, w);
     r.depth_used_cm = (1 - w) * a->depth_used_cm + w * b->depth_used_cm;
     r.tilt_used_deg = (1 - w) * a->tilt_used_deg + w * b->tilt_used_deg;
     r.ssd_used_cm = (1 - w) * a->ssd_used_cm + w * b->ssd_used_cm;
@@ -808,7 +827,7 @@ static void eval_at_ssd(const sl_curve_set *c, size_t r, double depth, double d,
 static void eval_set(const sl_curve_set *c, double depth, double d, double angle, double tilt,
                      double ssd_q, eval_how how, double electron_t, sl_model_value *out)
 {
-    double ssd = isfinite(ssd_q) && ssd_q > 0 ? ssd_q : c->nominal_ssd_cm;
+    double ssd = ssd_used(c, ssd_q);
     unsigned given = out->flags;
     size_t i0, i1;
     double w, beyond;
@@ -987,7 +1006,7 @@ static dose_part blend_dose(dose_part a, dose_part b, double w)
     if (w >= 1)
         return b;
     dose_part r;
-    r.v = exp((1 - w) * log(a.v) + w * log(b.v));
+    r.v = log_blend(a.v, b.v, w);
     r.e_frac = (1 - w) * a.e_frac + w * b.e_frac;
     return r;
 }
@@ -1023,7 +1042,7 @@ static double flat_dose(const sl_curve_set *c, double depth, double d, double an
     dose_part a = group_dose(&c->groups[g0], d, angle, mode);
     dose_part b = g1 == g0 ? a : group_dose(&c->groups[g1], d, angle, mode);
     dose_part r = blend_dose(a, b, w);
-    double t = electron_t >= 0 && electron_t <= 1 ? electron_t : 1;
+    double t = transmission_used(electron_t);
     return r.v * (r.e_frac * t + (1 - r.e_frac));
 }
 
@@ -1032,7 +1051,7 @@ static double blend_percent(double a, double b, double w)
 {
     if (w <= 0 || w >= 1 || !(a > 0) || !(b > 0))
         return w >= 1 ? b : a;
-    return exp((1 - w) * log(a) + w * log(b));
+    return log_blend(a, b, w);
 }
 
 static double ssd_dose(const sl_curve_set *c, size_t r, double depth, double d, double angle,
@@ -1062,7 +1081,7 @@ static double set_dose(const sl_curve_set *c, double depth, double d, const sl_e
 {
     if (c->nlayers == 0)
         return flat_dose(c, depth, d, q->angle_deg, q->mode, q->electron_t);
-    double ssd = isfinite(q->ssd_cm) && q->ssd_cm > 0 ? q->ssd_cm : c->nominal_ssd_cm;
+    double ssd = ssd_used(c, q->ssd_cm);
     size_t i0, i1;
     double w, beyond;
     bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
