@@ -237,6 +237,15 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
  * profiles' exponentials, are not computed. Thread-safe. */
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q);
 
+/* The percent of q at two distances at once, each bitwise what
+ * sl_curves_eval_percent gives for q with distance_cm[i] and
+ * app_distance_cm[i] in place of q's own: the setup shift's two neighbours
+ * share the walk down the curve set, which depends on the depth, direction,
+ * tilt and SSD alone. Thread-safe. */
+void sl_curves_eval_percent_pair(const sl_curve_set *c, const sl_eval_query *q,
+                                 const double distance_cm[2], const double app_distance_cm[2],
+                                 double out[2]);
+
 /* Value at depth (cm) and distance from the field edge (cm), direction
  * unknown, applicator edge unknown (sl_curves_eval_query). `electron_t`
  * is a transmission (0..1) applied to the electron part only, for a what-if

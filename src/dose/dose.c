@@ -442,17 +442,14 @@ static double eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift
 {
     q.electron_t = t;
     sl_beam_eval(bd, &q, v);
-    sl_eval_query qp = q, qm = q;
-    qp.distance_cm += shift;
-    qp.app_distance_cm += shift;
-    qm.distance_cm = fmax(q.distance_cm - shift, 0);
-    qm.app_distance_cm -= shift;
+    const double d[2] = {q.distance_cm + shift, fmax(q.distance_cm - shift, 0)};
+    const double app[2] = {q.app_distance_cm + shift, q.app_distance_cm - shift};
     /* of the shifted places only the dose counts: sl_beam_eval's extended-SSD
      * bound changes uncertainties alone, and the model's percent without its
      * components is the same number without every profile's covariance form */
-    double pp = sl_curves_eval_percent(bd->curves, &qp);
-    double pm = sl_curves_eval_percent(bd->curves, &qm);
-    *us = fmax(fabs(pp - v->percent), fabs(pm - v->percent));
+    double p[2];
+    sl_curves_eval_percent_pair(bd->curves, &q, d, app, p);
+    *us = fmax(fabs(p[0] - v->percent), fabs(p[1] - v->percent));
     return sqrt(v->u_percent * v->u_percent + *us * *us);
 }
 

@@ -1011,39 +1011,57 @@ static dose_part blend_dose(dose_part a, dose_part b, double w)
     return r;
 }
 
-static dose_part group_dose(const depth_group *g, double d, double angle, sl_eval_mode mode)
+/* The lean path evaluates one query at up to LEAN_MAX distances at once:
+ * where a query falls among the depths, directions, tilts and SSDs does
+ * not depend on its distance, so the setup shift's two neighbours share
+ * one walk down the curve set. Each distance's arithmetic is the single
+ * evaluation's, step for step. */
+#define LEAN_MAX 2
+
+static void group_dose(const depth_group *g, const double *d, size_t n, double angle,
+                       sl_eval_mode mode, dose_part *out)
 {
-    if (g->ncurves == 1)
-        return curve_dose(&g->curves[0], d, mode);
+    if (g->ncurves == 1) {
+        for (size_t i = 0; i < n; i++)
+            out[i] = curve_dose(&g->curves[0], d[i], mode);
+        return;
+    }
     if (isnan(angle)) {
-        dose_part best = curve_dose(&g->curves[0], d, mode);
-        for (size_t k = 1; k < g->ncurves; k++) {
-            dose_part r = curve_dose(&g->curves[k], d, mode);
-            if (r.v > best.v)
-                best = r;
+        for (size_t i = 0; i < n; i++) {
+            dose_part best = curve_dose(&g->curves[0], d[i], mode);
+            for (size_t k = 1; k < g->ncurves; k++) {
+                dose_part r = curve_dose(&g->curves[k], d[i], mode);
+                if (r.v > best.v)
+                    best = r;
+            }
+            out[i] = best;
         }
-        return best;
+        return;
     }
     size_t k0, k1;
     double w;
     direction_bracket(g, angle, &k0, &k1, &w);
-    if (k0 == k1)
-        return curve_dose(&g->curves[k0], d, mode);
-    return blend_dose(curve_dose(&g->curves[k0], d, mode), curve_dose(&g->curves[k1], d, mode),
-                      w);
+    for (size_t i = 0; i < n; i++)
+        out[i] = k0 == k1 ? curve_dose(&g->curves[k0], d[i], mode)
+                          : blend_dose(curve_dose(&g->curves[k0], d[i], mode),
+                                       curve_dose(&g->curves[k1], d[i], mode), w);
 }
 
-static double flat_dose(const sl_curve_set *c, double depth, double d, double angle,
-                        sl_eval_mode mode, double electron_t)
+static void flat_dose(const sl_curve_set *c, double depth, const double *d, size_t n,
+                      double angle, sl_eval_mode mode, double electron_t, double *out)
 {
     size_t g0, g1;
     double w, beyond;
     bracket(c->depths, c->ngroups, depth, &g0, &g1, &w, &beyond);
-    dose_part a = group_dose(&c->groups[g0], d, angle, mode);
-    dose_part b = g1 == g0 ? a : group_dose(&c->groups[g1], d, angle, mode);
-    dose_part r = blend_dose(a, b, w);
+    dose_part a[LEAN_MAX], b[LEAN_MAX];
+    group_dose(&c->groups[g0], d, n, angle, mode, a);
+    if (g1 != g0)
+        group_dose(&c->groups[g1], d, n, angle, mode, b);
     double t = transmission_used(electron_t);
-    return r.v * (r.e_frac * t + (1 - r.e_frac));
+    for (size_t i = 0; i < n; i++) {
+        dose_part r = blend_dose(a[i], g1 == g0 ? a[i] : b[i], w);
+        out[i] = r.v * (r.e_frac * t + (1 - r.e_frac));
+    }
 }
 
 /* blend_values' percent */
@@ -1054,65 +1072,112 @@ static double blend_percent(double a, double b, double w)
     return log_blend(a, b, w);
 }
 
-static double ssd_dose(const sl_curve_set *c, size_t r, double depth, double d, double angle,
-                       double tilt, sl_eval_mode mode, double electron_t)
+static void ssd_dose(const sl_curve_set *c, size_t r, double depth, const double *d, size_t n,
+                     const sl_eval_query *q, double *out)
 {
     const double *tl = c->rows[r].tilts;
     const sl_curve_set *const *sets = c->rows[r].sets;
-    size_t n = c->rows[r].n;
-    if (isnan(tilt)) {
-        double best = 0;
-        for (size_t k = 0; k < n; k++) {
-            double v = flat_dose(sets[k], depth, d, angle, mode, electron_t);
-            if (k == 0 || v > best)
-                best = v;
+    size_t nt = c->rows[r].n;
+    double a[LEAN_MAX], b[LEAN_MAX];
+    if (isnan(q->tilt_deg)) {
+        for (size_t i = 0; i < n; i++)
+            out[i] = 0;
+        for (size_t k = 0; k < nt; k++) {
+            flat_dose(sets[k], depth, d, n, q->angle_deg, q->mode, q->electron_t, a);
+            for (size_t i = 0; i < n; i++)
+                if (k == 0 || a[i] > out[i])
+                    out[i] = a[i];
         }
-        return best;
+        return;
     }
     size_t i0, i1;
     double w, beyond;
-    bracket(tl, n, tilt, &i0, &i1, &w, &beyond);
-    double a = flat_dose(sets[i0], depth, d, angle, mode, electron_t);
-    double b = i1 != i0 ? flat_dose(sets[i1], depth, d, angle, mode, electron_t) : a;
-    return blend_percent(a, b, w);
+    bracket(tl, nt, q->tilt_deg, &i0, &i1, &w, &beyond);
+    flat_dose(sets[i0], depth, d, n, q->angle_deg, q->mode, q->electron_t, a);
+    if (i1 != i0)
+        flat_dose(sets[i1], depth, d, n, q->angle_deg, q->mode, q->electron_t, b);
+    for (size_t i = 0; i < n; i++)
+        out[i] = blend_percent(a[i], i1 != i0 ? b[i] : a[i], w);
 }
 
-static double set_dose(const sl_curve_set *c, double depth, double d, const sl_eval_query *q)
+static void set_dose(const sl_curve_set *c, double depth, const double *d, size_t n,
+                     const sl_eval_query *q, double *out)
 {
-    if (c->nlayers == 0)
-        return flat_dose(c, depth, d, q->angle_deg, q->mode, q->electron_t);
+    if (c->nlayers == 0) {
+        flat_dose(c, depth, d, n, q->angle_deg, q->mode, q->electron_t, out);
+        return;
+    }
     double ssd = ssd_used(c, q->ssd_cm);
     size_t i0, i1;
     double w, beyond;
     bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
-    double a = ssd_dose(c, i0, depth, d, q->angle_deg, q->tilt_deg, q->mode, q->electron_t);
-    double b = i1 != i0
-                   ? ssd_dose(c, i1, depth, d, q->angle_deg, q->tilt_deg, q->mode, q->electron_t)
-                   : a;
-    return blend_percent(a, b, w);
+    double a[LEAN_MAX], b[LEAN_MAX];
+    ssd_dose(c, i0, depth, d, n, q, a);
+    if (i1 != i0)
+        ssd_dose(c, i1, depth, d, n, q, b);
+    for (size_t i = 0; i < n; i++)
+        out[i] = blend_percent(a[i], i1 != i0 ? b[i] : a[i], w);
+}
+
+/* The percent at n (1 or LEAN_MAX) distances of one query: distance i is
+ * d[i] from the field edge and app[i] from the applicator. */
+static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const double *d,
+                         const double *app, size_t n, double *out)
+{
+    double depth = q->depth_cm;
+    double dd[LEAN_MAX], v[LEAN_MAX], cand[LEAN_MAX];
+    bool ok[LEAN_MAX], any = false;
+    for (size_t i = 0; i < n; i++) {
+        ok[i] = !isnan(depth) && !isnan(d[i]) && d[i] >= 0;
+        any = any || ok[i];
+        dd[i] = ok[i] ? d[i] : 0; /* a stand-in; its value is not used */
+        out[i] = NAN;
+    }
+    if (!any)
+        return;
+    set_dose(c, depth, dd, n, q, v);
+    if (c->standin) {
+        bool app_ok[LEAN_MAX], app_any = false;
+        double ad[LEAN_MAX];
+        for (size_t i = 0; i < n; i++) {
+            app_ok[i] = ok[i] && isfinite(app[i]) && app[i] >= 0;
+            app_any = app_any || app_ok[i];
+            ad[i] = app_ok[i] ? app[i] : 0;
+        }
+        if (app_any) {
+            set_dose(c, depth, ad, n, q, cand);
+            for (size_t i = 0; i < n; i++)
+                if (app_ok[i] && cand[i] > v[i])
+                    v[i] = cand[i];
+        }
+        for (size_t k = 0; k < c->nmembers; k++) {
+            set_dose(c->members[k].set, depth, dd, n, q, cand);
+            for (size_t i = 0; i < n; i++) {
+                double m = cand[i] * c->members[k].scale;
+                if (m > v[i])
+                    v[i] = m;
+            }
+        }
+    }
+    for (size_t i = 0; i < n; i++) {
+        if (!ok[i])
+            continue;
+        out[i] = c->scale && isfinite(v[i]) ? v[i] * c->scale->factor : v[i];
+    }
 }
 
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q)
 {
-    double depth = q->depth_cm, d = q->distance_cm;
-    if (isnan(depth) || isnan(d) || !(d >= 0))
-        return NAN;
-    double v = set_dose(c, depth, d, q);
-    if (c->standin) {
-        if (isfinite(q->app_distance_cm) && q->app_distance_cm >= 0) {
-            double cand = set_dose(c, depth, q->app_distance_cm, q);
-            if (cand > v)
-                v = cand;
-        }
-        for (size_t k = 0; k < c->nmembers; k++) {
-            double cand = set_dose(c->members[k].set, depth, d, q) * c->members[k].scale;
-            if (cand > v)
-                v = cand;
-        }
-    }
-    if (c->scale && isfinite(v))
-        v *= c->scale->factor;
-    return v;
+    double out;
+    eval_percent(c, q, &q->distance_cm, &q->app_distance_cm, 1, &out);
+    return out;
+}
+
+void sl_curves_eval_percent_pair(const sl_curve_set *c, const sl_eval_query *q,
+                                 const double distance_cm[2], const double app_distance_cm[2],
+                                 double out[2])
+{
+    eval_percent(c, q, distance_cm, app_distance_cm, 2, out);
 }
 
 void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode mode,

@@ -340,8 +340,10 @@ END_TEST
  * between and beyond the commissioned depths, distances, directions, tilts
  * and SSDs, unknown direction and tilt, both modes, a what-if shield, the
  * stand-in of an uncommissioned cutout (with and without the applicator's
- * distance) and an in-vivo scale. A consistency check of two paths through
- * the same code; the values themselves are checked elsewhere. */
+ * distance) and an in-vivo scale; and sl_curves_eval_percent_pair, the
+ * setup shift's two neighbours in one walk, is bitwise two single calls,
+ * with either distance in or out of range. A consistency check of paths
+ * through the same code; the values themselves are checked elsewhere. */
 START_TEST(dose_alone_equals_the_full_evaluation)
 {
     sl_model *m;
@@ -380,6 +382,22 @@ START_TEST(dose_alone_equals_the_full_evaluation)
                                 ck_assert_msg(memcmp(&p, &v.percent, sizeof p) == 0,
                                               "set %zu, query %zu: %a != %a", k, n, p,
                                               v.percent);
+                                /* the setup shift's pair, one walk for both */
+                                const double pd[2] = {q.distance_cm + 0.5,
+                                                      fmax(q.distance_cm - 0.5, 0)};
+                                const double pa[2] = {q.app_distance_cm + 0.5,
+                                                      q.app_distance_cm - 2.0};
+                                double pair[2];
+                                sl_curves_eval_percent_pair(c, &q, pd, pa, pair);
+                                for (int i = 0; i < 2; i++) {
+                                    sl_eval_query qi = q;
+                                    qi.distance_cm = pd[i];
+                                    qi.app_distance_cm = pa[i];
+                                    double one = sl_curves_eval_percent(c, &qi);
+                                    ck_assert_msg(memcmp(&one, &pair[i], sizeof one) == 0,
+                                                  "set %zu, query %zu, pair %d: %a != %a", k,
+                                                  n, i, pair[i], one);
+                                }
                                 n++;
                             }
         sl_curve_set_free(c);
