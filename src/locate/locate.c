@@ -487,6 +487,32 @@ static sl_status depth_fans(const sl_beam_place *bp, int threads, sl_body_fan **
     return SL_OK;
 }
 
+/* The field's outline indexes and the beam's depth fans need nothing of
+ * each other, so they are built side by side: the indexes on one thread
+ * (5 ms for a 200-vertex cutout on the benchmark's case, which kept a core
+ * idle three times a plan) while the fans take the cores. */
+typedef struct prep_job {
+    sl_beam_place *bp;
+    const sl_body *body;
+    sl_vec2 lo, hi;
+    int threads;
+    sl_body_fan **fans;
+    sl_status st[2];
+    sl_error err[2];
+} prep_job;
+
+static void prep_task(size_t t, void *ctx)
+{
+    prep_job *j = ctx;
+    if (t == 0) {
+        j->st[0] = sl_outline_index(j->bp->field.edge, j->lo, j->hi, &j->err[0]);
+        if (j->st[0] == SL_OK && j->bp->field.applicator)
+            j->st[0] = sl_outline_index(j->bp->field.applicator, j->lo, j->hi, &j->err[0]);
+    } else if (j->body) {
+        j->st[1] = depth_fans(j->bp, j->threads, &j->fans, &j->err[1]);
+    }
+}
+
 static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam *beam,
                             const sl_body *body, const sl_locate_options *opt, sl_beam_place *bp,
                             sl_error *err)
@@ -568,13 +594,18 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     lo.y = fmax(lo.y, -reach);
     hi.x = fmin(hi.x, reach);
     hi.y = fmin(hi.y, reach);
-    st = sl_outline_index(bp->field.edge, lo, hi, err);
-    if (st == SL_OK && bp->field.applicator)
-        st = sl_outline_index(bp->field.applicator, lo, hi, err);
-    sl_body_fan **fans = NULL;
-    if (st == SL_OK && body)
-        st = depth_fans(bp, opt->threads, &fans, err);
+    prep_job pj = {.bp = bp, .body = body, .lo = lo, .hi = hi, .threads = opt->threads,
+                   .st = {SL_OK, SL_OK}};
+    sl_parallel_for(2, sl_parallel_threads(opt->threads) > 1 ? 2 : 1, prep_task, &pj);
+    sl_body_fan **fans = pj.fans;
+    /* the index's error first, as when they were built in turn */
+    st = pj.st[0] != SL_OK ? pj.st[0] : pj.st[1];
     if (st != SL_OK) {
+        if (err)
+            *err = pj.st[0] != SL_OK ? pj.err[0] : pj.err[1];
+        for (size_t k = 0; fans && k < bp->nparts; k++)
+            sl_body_fan_free(fans[k]);
+        free(fans);
         free(job.task_organ);
         free(job.task_first);
         return st;
