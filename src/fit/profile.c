@@ -383,7 +383,7 @@ double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, d
          * C_ij + C_ji (the same sum for any C): half the products of the
          * full double sum, and rows the processor can add side by side
          * instead of one chain of p * p additions, which was the costliest
-         * step of evaluating a model (a tenth of a scan) */
+         * step of evaluating a model (6 % of a scan's processor time) */
         const size_t p = f->p;
         const double *c = f->covar;
         double var = 0;

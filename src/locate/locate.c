@@ -490,7 +490,7 @@ static sl_status depth_fans(const sl_beam_place *bp, int threads, sl_body_fan **
 /* The field's outline indexes and the beam's depth fans need nothing of
  * each other, so they are built side by side: the indexes on one thread
  * (5 ms for a 200-vertex cutout on the benchmark's case, which kept a core
- * idle three times a plan) while the fans take the cores. */
+ * idle once a beam) while the fans take the cores. */
 typedef struct prep_job {
     sl_beam_place *bp;
     const sl_body *body;
