@@ -530,6 +530,20 @@ typedef struct point_value {
     bool extrapolated, poor;
 } point_value;
 
+/* A profile's value at d from its measured points (SL_EVAL_POINTS): the
+ * log-linear interpolation between them, and beyond them the fitted form
+ * (fit, its value at d) scaled to meet the end point. */
+static double points_value(const curve *cv, double d, double fit)
+{
+    const sl_model_profile *p = cv->prof;
+    double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
+    if (d >= lo && d <= hi)
+        return exp(gsl_interp_eval(cv->interp, p->distance_cm, cv->logdose, d, NULL));
+    double at_end = d > hi ? cv->fit_hi : cv->fit_lo;
+    double meas_end = p->dose_percent[d > hi ? p->n - 1 : 0];
+    return fit * meas_end / at_end;
+}
+
 /* One profile at one distance. */
 static point_value curve_value(const curve *cv, double d, eval_how how)
 {
@@ -541,14 +555,7 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
     double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
     r.extrapolated = d > hi + 1e-9 || d < lo - 1e-9;
     if (how.mode == SL_EVAL_POINTS) {
-        if (d >= lo && d <= hi) {
-            r.v = exp(gsl_interp_eval(cv->interp, p->distance_cm, cv->logdose, d, NULL));
-        } else {
-            /* beyond the points: the fitted form, scaled to meet the end point */
-            double at_end = d > hi ? cv->fit_hi : cv->fit_lo;
-            double meas_end = p->dose_percent[d > hi ? p->n - 1 : 0];
-            r.v = fit * meas_end / at_end;
-        }
+        r.v = points_value(cv, d, fit);
         r.u_fit = ufit * (fit > 0 ? r.v / fit : 1);
     } else {
         r.v = fit;
@@ -982,16 +989,9 @@ static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
     double el, ph;
     double fit = sl_profile_fit_eval_parts(&p->fit, d, NULL, &el, &ph);
     dose_part r = {fit, el + ph > 0 ? el / (el + ph) : 0};
-    double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
-    if (mode == SL_EVAL_POINTS) {
-        if (d >= lo && d <= hi) {
-            r.v = exp(gsl_interp_eval(cv->interp, p->distance_cm, cv->logdose, d, NULL));
-        } else {
-            double at_end = d > hi ? cv->fit_hi : cv->fit_lo;
-            double meas_end = p->dose_percent[d > hi ? p->n - 1 : 0];
-            r.v = fit * meas_end / at_end;
-        }
-    }
+    double hi = p->distance_cm[p->n - 1];
+    if (mode == SL_EVAL_POINTS)
+        r.v = points_value(cv, d, fit);
     if (d > hi && !(r.v >= cv->floor)) {
         r.e_frac = r.v > 0 ? r.e_frac * r.v / cv->floor : 0;
         r.v = cv->floor;
