@@ -466,6 +466,13 @@ static void bolus_unused_note(const sl_plan *plan, const sl_structure_set *ss, s
  * its source (surface.h): the same depths as tracing, several times
  * faster. *fans stays NULL when a solid cannot be indexed from this source
  * (a beam along the patient's axis): the samples are traced then. */
+static void fans_free(sl_body_fan **f, size_t n)
+{
+    for (size_t i = 0; f && i < n; i++)
+        sl_body_fan_free(f[i]);
+    free(f);
+}
+
 static sl_status depth_fans(const sl_beam_place *bp, int threads, sl_body_fan ***fans,
                             sl_error *err)
 {
@@ -477,9 +484,7 @@ static sl_status depth_fans(const sl_beam_place *bp, int threads, sl_body_fan **
     for (size_t k = 0; k < bp->nparts; k++) {
         sl_status st = sl_body_fan_create(bp->parts[k], src, threads, &f[k], err);
         if (st != SL_OK || !f[k]) {
-            for (size_t i = 0; i < k; i++)
-                sl_body_fan_free(f[i]);
-            free(f);
+            fans_free(f, k);
             return st;
         }
     }
@@ -600,24 +605,18 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
     sl_body_fan **fans = pj.fans;
     /* the index's error first, as when they were built in turn */
     st = pj.st[0] != SL_OK ? pj.st[0] : pj.st[1];
-    if (st != SL_OK) {
-        if (err)
-            *err = pj.st[0] != SL_OK ? pj.err[0] : pj.err[1];
-        for (size_t k = 0; fans && k < bp->nparts; k++)
-            sl_body_fan_free(fans[k]);
-        free(fans);
-        free(job.task_organ);
-        free(job.task_first);
-        return st;
+    if (st == SL_OK) {
+        job.fans = (const sl_body_fan *const *)fans;
+        job.nfans = fans ? bp->nparts : 0;
+        sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
+    } else if (err) {
+        *err = pj.st[0] != SL_OK ? pj.err[0] : pj.err[1];
     }
-    job.fans = (const sl_body_fan *const *)fans;
-    job.nfans = fans ? bp->nparts : 0;
-    sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), place_task, &job);
     free(job.task_organ);
     free(job.task_first);
-    for (size_t k = 0; fans && k < bp->nparts; k++)
-        sl_body_fan_free(fans[k]);
-    free(fans);
+    fans_free(fans, bp->nparts);
+    if (st != SL_OK)
+        return st;
     refine_job rj = {loc, bp};
     sl_parallel_for(loc->norgans, sl_parallel_threads(opt->threads), refine_task, &rj);
     for (size_t o = 0; body && o < loc->norgans; o++)
