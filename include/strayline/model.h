@@ -237,14 +237,24 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
  * profiles' exponentials, are not computed. Thread-safe. */
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q);
 
-/* The percent of q at two distances at once, each bitwise what
- * sl_curves_eval_percent gives for q with distance_cm[i] and
- * app_distance_cm[i] in place of q's own: the setup shift's two neighbours
- * share the walk down the curve set, which depends on the depth, direction,
- * tilt and SSD alone. Thread-safe. */
-void sl_curves_eval_percent_pair(const sl_curve_set *c, const sl_eval_query *q,
-                                 const double distance_cm[2], const double app_distance_cm[2],
-                                 double out[2]);
+/* Prepare a curve set for the setup shift (cm, > 0) that
+ * sl_curves_eval_percent_shift will be asked for: each profile's decay
+ * factors over twice the shift. Not thread-safe; call it before the
+ * evaluations start. */
+void sl_curves_prepare_shift(sl_curve_set *c, double shift_cm);
+
+/* The percent of q with its distances moved by the setup shift (cm): out[0]
+ * at distance_cm + shift_cm (app_distance_cm + shift_cm), out[1] at
+ * max(distance_cm - shift_cm, 0) (app_distance_cm - shift_cm), each what
+ * sl_curves_eval_percent gives there. The two share the walk down the curve
+ * set, which depends on the depth, direction, tilt and SSD alone, and, for
+ * a set prepared for this shift, the profiles' exponentials: the nearer
+ * distance's are the farther's times the decay factors, which agrees with
+ * the single evaluation to a few units in the last place. out[0], and both
+ * for a set not prepared or a clamped distance, are bitwise
+ * sl_curves_eval_percent's. Thread-safe. */
+void sl_curves_eval_percent_shift(const sl_curve_set *c, const sl_eval_query *q,
+                                  double shift_cm, double out[2]);
 
 /* Value at depth (cm) and distance from the field edge (cm), direction
  * unknown, applicator edge unknown (sl_curves_eval_query). `electron_t`

@@ -91,6 +91,20 @@ const char *sl_profile_param_key(size_t i);
 double sl_profile_value(sl_profile_form f, const double *theta, double d, double *grad,
                         double *electron, double *photon);
 
+/* The decay factors exp(delta / l1) and exp(delta / l2) of parameters
+ * theta, for sl_profile_value_two. */
+void sl_profile_decay_factors(const double *theta, double delta, double k[2]);
+
+/* sl_profile_value without the gradient at two distances at once, d[0] and
+ * d[1] = d[0] - delta (cm), with k the decay factors of theta for that
+ * delta: the second distance's exponential terms are the first's times k,
+ * a multiplication where the single evaluation takes an exponential. d[0]'s
+ * value, electron and photon parts are bitwise sl_profile_value's; d[1]'s
+ * agree with it to a few units in the last place. */
+void sl_profile_value_two(sl_profile_form f, const double *theta, const double d[2],
+                          const double k[2], double value[2], double electron[2],
+                          double photon[2]);
+
 /* Fit both forms to (d, D, sigma), n points with d increasing, and keep the
  * better by AICc. `what` names the profile in messages. */
 sl_status sl_profile_fit_data(const double *d, const double *dose, const double *sigma, size_t n,

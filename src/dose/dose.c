@@ -230,6 +230,7 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
         sl_error_prefix(err, where);
         return st;
     }
+    sl_curves_prepare_shift(bd->curves, e->opt.setup_shift_cm);
     const sl_output_spec *o = sl_machine_output(&m->machine, b->energy_mev, bd->applicator);
     const sl_output_spec *o_nominal = o;
     double ssd_beam = isfinite(bp->ssd_plan_cm) ? bp->ssd_plan_cm : bp->ssd_found_cm;
@@ -442,13 +443,11 @@ static double eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift
 {
     q.electron_t = t;
     sl_beam_eval(bd, &q, v);
-    const double d[2] = {q.distance_cm + shift, fmax(q.distance_cm - shift, 0)};
-    const double app[2] = {q.app_distance_cm + shift, q.app_distance_cm - shift};
     /* of the shifted places only the dose counts: sl_beam_eval's extended-SSD
      * bound changes uncertainties alone, and the model's percent without its
      * components is the same number without every profile's covariance form */
     double p[2];
-    sl_curves_eval_percent_pair(bd->curves, &q, d, app, p);
+    sl_curves_eval_percent_shift(bd->curves, &q, shift, p);
     *us = fmax(fabs(p[0] - v->percent), fabs(p[1] - v->percent));
     return sqrt(v->u_percent * v->u_percent + *us * *us);
 }

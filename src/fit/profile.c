@@ -72,6 +72,32 @@ double sl_profile_value(sl_profile_form f, const double *t, double d, double *gr
     return near + tail + peak;
 }
 
+void sl_profile_decay_factors(const double *t, double delta, double k[2])
+{
+    k[0] = exp(delta / t[SL_P_L1]);
+    k[1] = exp(delta / t[SL_P_L2]);
+}
+
+/* Term for term sl_profile_value's arithmetic at d[0]; at d[1] the same
+ * with the two decaying exponentials taken from d[0]'s. */
+void sl_profile_value_two(sl_profile_form f, const double *t, const double d[2],
+                          const double k[2], double value[2], double electron[2],
+                          double photon[2])
+{
+    double e1 = exp(-d[0] / t[SL_P_L1]), e2 = exp(-d[0] / t[SL_P_L2]);
+    const double e1s[2] = {e1, e1 * k[0]}, e2s[2] = {e2, e2 * k[1]};
+    for (int i = 0; i < 2; i++) {
+        double near = t[SL_P_A] * e1s[i], tail = t[SL_P_C] * e2s[i], peak = 0;
+        if (f == SL_FORM_PEAKED) {
+            double z = (d[i] - t[SL_P_MU]) / t[SL_P_S];
+            peak = t[SL_P_B] * exp(-0.5 * z * z);
+        }
+        electron[i] = near + peak;
+        photon[i] = tail;
+        value[i] = near + tail + peak;
+    }
+}
+
 /* The model in the solver's variables. */
 typedef struct fit_ctx {
     sl_profile_form form;

@@ -17,7 +17,11 @@
  * the set is built, and the dose alone (sl_curves_eval_percent) takes a
  * path of its own, the same arithmetic on the dose without the uncertainty
  * components, the flags and the copies of whole values; both leave every
- * number bitwise as it was.
+ * number bitwise as it was. The setup shift's two neighbours share one walk
+ * and, on a set prepared for the shift, the profiles' exponentials: the
+ * nearer distance's are the farther's times a factor fixed per profile,
+ * which moves that one number by a few units in its last place and took a
+ * quarter of the estimate's exponentials away.
  */
 #include "strayline/model.h"
 #include "strayline/util.h"
@@ -38,6 +42,7 @@ typedef struct curve {
     double fit_lo, fit_hi; /* the fit at the nearest and the farthest measured distance */
     double u_hi;           /* the fit's standard uncertainty at the farthest */
     double floor;          /* the level held beyond the farthest (measured_floor) */
+    double shift_k[2];     /* decay factors over twice the prepared setup shift */
 } curve;
 
 typedef struct depth_group {
@@ -83,6 +88,7 @@ struct sl_curve_set {
     ssd_row *rows;        /* one a SSD of ssds, when there are layers */
     size_t ntilts, nssds;
     double *tilts, *ssds;  /* distinct, increasing */
+    double shift_cm;      /* the setup shift prepared for (sl_curves_prepare_shift), or 0 */
 };
 
 const char *sl_model_flag_text(unsigned flag)
@@ -983,11 +989,12 @@ typedef struct dose_part {
     double e_frac; /* the electrons' share */
 } dose_part;
 
-static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
+/* A profile's dose at d from its fit there (value, electron and photon
+ * parts): the measured points in that mode, the floor beyond them. */
+static dose_part curve_finish(const curve *cv, double d, sl_eval_mode mode, double fit,
+                              double el, double ph)
 {
     const sl_model_profile *p = cv->prof;
-    double el, ph;
-    double fit = sl_profile_fit_eval_parts(&p->fit, d, NULL, &el, &ph);
     dose_part r = {fit, el + ph > 0 ? el / (el + ph) : 0};
     double hi = p->distance_cm[p->n - 1];
     if (mode == SL_EVAL_POINTS)
@@ -997,6 +1004,32 @@ static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
         r.v = cv->floor;
     }
     return r;
+}
+
+static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
+{
+    double el, ph;
+    double fit = sl_profile_fit_eval_parts(&cv->prof->fit, d, NULL, &el, &ph);
+    return curve_finish(cv, d, mode, fit, el, ph);
+}
+
+/* One profile at the n distances of a lean evaluation. linked: n is 2 and
+ * d[1] is d[0] less twice the setup shift the set was prepared for, so the
+ * second distance's exponentials come from the first's
+ * (sl_profile_value_two). */
+static void curve_doses(const curve *cv, const double *d, size_t n, sl_eval_mode mode,
+                        bool linked, dose_part *out)
+{
+    if (!linked) {
+        for (size_t i = 0; i < n; i++)
+            out[i] = curve_dose(cv, d[i], mode);
+        return;
+    }
+    const sl_profile_fit *f = &cv->prof->fit;
+    double v[2], el[2], ph[2];
+    sl_profile_value_two(f->form, f->theta, d, cv->shift_k, v, el, ph);
+    for (size_t i = 0; i < 2; i++)
+        out[i] = curve_finish(cv, d[i], mode, v[i], el[i], ph[i]);
 }
 
 static dose_part blend_dose(dose_part a, dose_part b, double w)
@@ -1015,48 +1048,53 @@ static dose_part blend_dose(dose_part a, dose_part b, double w)
  * where a query falls among the depths, directions, tilts and SSDs does
  * not depend on its distance, so the setup shift's two neighbours share
  * one walk down the curve set. Each distance's arithmetic is the single
- * evaluation's, step for step. */
+ * evaluation's, step for step, but for the exponentials that a linked pair
+ * shares (curve_doses). */
 #define LEAN_MAX 2
 
 static void group_dose(const depth_group *g, const double *d, size_t n, double angle,
-                       sl_eval_mode mode, dose_part *out)
+                       sl_eval_mode mode, bool linked, dose_part *out)
 {
     if (g->ncurves == 1) {
-        for (size_t i = 0; i < n; i++)
-            out[i] = curve_dose(&g->curves[0], d[i], mode);
+        curve_doses(&g->curves[0], d, n, mode, linked, out);
         return;
     }
     if (isnan(angle)) {
-        for (size_t i = 0; i < n; i++) {
-            dose_part best = curve_dose(&g->curves[0], d[i], mode);
-            for (size_t k = 1; k < g->ncurves; k++) {
-                dose_part r = curve_dose(&g->curves[k], d[i], mode);
-                if (r.v > best.v)
-                    best = r;
-            }
-            out[i] = best;
+        curve_doses(&g->curves[0], d, n, mode, linked, out);
+        for (size_t k = 1; k < g->ncurves; k++) {
+            dose_part r[LEAN_MAX];
+            curve_doses(&g->curves[k], d, n, mode, linked, r);
+            for (size_t i = 0; i < n; i++)
+                if (r[i].v > out[i].v)
+                    out[i] = r[i];
         }
         return;
     }
     size_t k0, k1;
     double w;
     direction_bracket(g, angle, &k0, &k1, &w);
+    if (k0 == k1) {
+        curve_doses(&g->curves[k0], d, n, mode, linked, out);
+        return;
+    }
+    dose_part a[LEAN_MAX], b[LEAN_MAX];
+    curve_doses(&g->curves[k0], d, n, mode, linked, a);
+    curve_doses(&g->curves[k1], d, n, mode, linked, b);
     for (size_t i = 0; i < n; i++)
-        out[i] = k0 == k1 ? curve_dose(&g->curves[k0], d[i], mode)
-                          : blend_dose(curve_dose(&g->curves[k0], d[i], mode),
-                                       curve_dose(&g->curves[k1], d[i], mode), w);
+        out[i] = blend_dose(a[i], b[i], w);
 }
 
 static void flat_dose(const sl_curve_set *c, double depth, const double *d, size_t n,
-                      double angle, sl_eval_mode mode, double electron_t, double *out)
+                      double angle, sl_eval_mode mode, double electron_t, bool linked,
+                      double *out)
 {
     size_t g0, g1;
     double w, beyond;
     bracket(c->depths, c->ngroups, depth, &g0, &g1, &w, &beyond);
     dose_part a[LEAN_MAX], b[LEAN_MAX];
-    group_dose(&c->groups[g0], d, n, angle, mode, a);
+    group_dose(&c->groups[g0], d, n, angle, mode, linked, a);
     if (g1 != g0)
-        group_dose(&c->groups[g1], d, n, angle, mode, b);
+        group_dose(&c->groups[g1], d, n, angle, mode, linked, b);
     double t = transmission_used(electron_t);
     for (size_t i = 0; i < n; i++) {
         dose_part r = blend_dose(a[i], g1 == g0 ? a[i] : b[i], w);
@@ -1073,7 +1111,7 @@ static double blend_percent(double a, double b, double w)
 }
 
 static void ssd_dose(const sl_curve_set *c, size_t r, double depth, const double *d, size_t n,
-                     const sl_eval_query *q, double *out)
+                     const sl_eval_query *q, bool linked, double *out)
 {
     const double *tl = c->rows[r].tilts;
     const sl_curve_set *const *sets = c->rows[r].sets;
@@ -1083,7 +1121,7 @@ static void ssd_dose(const sl_curve_set *c, size_t r, double depth, const double
         for (size_t i = 0; i < n; i++)
             out[i] = 0;
         for (size_t k = 0; k < nt; k++) {
-            flat_dose(sets[k], depth, d, n, q->angle_deg, q->mode, q->electron_t, a);
+            flat_dose(sets[k], depth, d, n, q->angle_deg, q->mode, q->electron_t, linked, a);
             for (size_t i = 0; i < n; i++)
                 if (k == 0 || a[i] > out[i])
                     out[i] = a[i];
@@ -1093,18 +1131,18 @@ static void ssd_dose(const sl_curve_set *c, size_t r, double depth, const double
     size_t i0, i1;
     double w, beyond;
     bracket(tl, nt, q->tilt_deg, &i0, &i1, &w, &beyond);
-    flat_dose(sets[i0], depth, d, n, q->angle_deg, q->mode, q->electron_t, a);
+    flat_dose(sets[i0], depth, d, n, q->angle_deg, q->mode, q->electron_t, linked, a);
     if (i1 != i0)
-        flat_dose(sets[i1], depth, d, n, q->angle_deg, q->mode, q->electron_t, b);
+        flat_dose(sets[i1], depth, d, n, q->angle_deg, q->mode, q->electron_t, linked, b);
     for (size_t i = 0; i < n; i++)
         out[i] = blend_percent(a[i], i1 != i0 ? b[i] : a[i], w);
 }
 
 static void set_dose(const sl_curve_set *c, double depth, const double *d, size_t n,
-                     const sl_eval_query *q, double *out)
+                     const sl_eval_query *q, bool linked, double *out)
 {
     if (c->nlayers == 0) {
-        flat_dose(c, depth, d, n, q->angle_deg, q->mode, q->electron_t, out);
+        flat_dose(c, depth, d, n, q->angle_deg, q->mode, q->electron_t, linked, out);
         return;
     }
     double ssd = ssd_used(c, q->ssd_cm);
@@ -1112,17 +1150,20 @@ static void set_dose(const sl_curve_set *c, double depth, const double *d, size_
     double w, beyond;
     bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
     double a[LEAN_MAX], b[LEAN_MAX];
-    ssd_dose(c, i0, depth, d, n, q, a);
+    ssd_dose(c, i0, depth, d, n, q, linked, a);
     if (i1 != i0)
-        ssd_dose(c, i1, depth, d, n, q, b);
+        ssd_dose(c, i1, depth, d, n, q, linked, b);
     for (size_t i = 0; i < n; i++)
         out[i] = blend_percent(a[i], i1 != i0 ? b[i] : a[i], w);
 }
 
 /* The percent at n (1 or LEAN_MAX) distances of one query: distance i is
- * d[i] from the field edge and app[i] from the applicator. */
+ * d[i] from the field edge and app[i] from the applicator. linked and
+ * app_linked: the pair's two field-edge or applicator distances are twice
+ * the prepared shift apart (curve_doses). */
 static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const double *d,
-                         const double *app, size_t n, double *out)
+                         const double *app, size_t n, bool linked, bool app_linked,
+                         double *out)
 {
     double depth = q->depth_cm;
     double dd[LEAN_MAX], v[LEAN_MAX], cand[LEAN_MAX];
@@ -1135,7 +1176,7 @@ static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const do
     }
     if (!any)
         return;
-    set_dose(c, depth, dd, n, q, v);
+    set_dose(c, depth, dd, n, q, linked, v);
     if (c->standin) {
         bool app_ok[LEAN_MAX], app_any = false;
         double ad[LEAN_MAX];
@@ -1145,13 +1186,13 @@ static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const do
             ad[i] = app_ok[i] ? app[i] : 0;
         }
         if (app_any) {
-            set_dose(c, depth, ad, n, q, cand);
+            set_dose(c, depth, ad, n, q, app_linked && app_ok[0] && app_ok[1], cand);
             for (size_t i = 0; i < n; i++)
                 if (app_ok[i] && cand[i] > v[i])
                     v[i] = cand[i];
         }
         for (size_t k = 0; k < c->nmembers; k++) {
-            set_dose(c->members[k].set, depth, dd, n, q, cand);
+            set_dose(c->members[k].set, depth, dd, n, q, linked, cand);
             for (size_t i = 0; i < n; i++) {
                 double m = cand[i] * c->members[k].scale;
                 if (m > v[i])
@@ -1169,15 +1210,43 @@ static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const do
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q)
 {
     double out;
-    eval_percent(c, q, &q->distance_cm, &q->app_distance_cm, 1, &out);
+    eval_percent(c, q, &q->distance_cm, &q->app_distance_cm, 1, false, false, &out);
     return out;
 }
 
-void sl_curves_eval_percent_pair(const sl_curve_set *c, const sl_eval_query *q,
-                                 const double distance_cm[2], const double app_distance_cm[2],
-                                 double out[2])
+void sl_curves_prepare_shift(sl_curve_set *c, double shift_cm)
 {
-    eval_percent(c, q, distance_cm, app_distance_cm, 2, out);
+    if (!(shift_cm > 0 && isfinite(shift_cm)))
+        return;
+    bool finite = true;
+    for (size_t g = 0; g < c->ngroups; g++)
+        for (size_t k = 0; k < c->groups[g].ncurves; k++) {
+            curve *cv = &c->groups[g].curves[k];
+            sl_profile_decay_factors(cv->prof->fit.theta, 2 * shift_cm, cv->shift_k);
+            finite = finite && isfinite(cv->shift_k[0]) && isfinite(cv->shift_k[1]);
+        }
+    for (size_t l = 0; l < c->nlayers; l++) {
+        sl_curves_prepare_shift(c->layers[l].set, shift_cm);
+        finite = finite && c->layers[l].set->shift_cm == shift_cm;
+    }
+    for (size_t k = 0; k < c->nmembers; k++) {
+        sl_curves_prepare_shift(c->members[k].set, shift_cm);
+        finite = finite && c->members[k].set->shift_cm == shift_cm;
+    }
+    /* a decay length so short that the factor overflows: no shortcut, the
+     * two distances are evaluated one by one */
+    c->shift_cm = finite ? shift_cm : 0;
+}
+
+void sl_curves_eval_percent_shift(const sl_curve_set *c, const sl_eval_query *q,
+                                  double shift_cm, double out[2])
+{
+    const double d[2] = {q->distance_cm + shift_cm, fmax(q->distance_cm - shift_cm, 0)};
+    const double app[2] = {q->app_distance_cm + shift_cm, q->app_distance_cm - shift_cm};
+    /* only an unclamped pair is twice the shift apart */
+    bool prepared = shift_cm > 0 && c->shift_cm == shift_cm;
+    eval_percent(c, q, d, app, 2, prepared && q->distance_cm - shift_cm >= 0,
+                 prepared && app[1] >= 0, out);
 }
 
 void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode mode,
