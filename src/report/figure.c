@@ -1263,6 +1263,145 @@ void fig_axes_draw(cairo_t *cr, const fig_axes *a, const char *xlabel, const cha
     cairo_restore(cr);
 }
 
+/* ------------------------------------------------------- path thinning -- */
+
+static double seg_dist2(const cairo_path_data_t *p, const cairo_path_data_t *a,
+                        const cairo_path_data_t *b)
+{
+    double ax = a[1].point.x, ay = a[1].point.y, dx = b[1].point.x - ax,
+           dy = b[1].point.y - ay, px = p[1].point.x - ax, py = p[1].point.y - ay;
+    double l2 = dx * dx + dy * dy, t = l2 > 0 ? (px * dx + py * dy) / l2 : 0;
+    t = t < 0 ? 0 : t > 1 ? 1 : t;
+    px -= t * dx;
+    py -= t * dy;
+    return px * px + py * py;
+}
+
+/* Mark which of run[0..n) to keep (keep[0] and keep[n - 1] always): the
+ * Ramer-Douglas-Peucker method with a stack of spans instead of recursion,
+ * so a long run cannot exhaust the call stack. */
+static void thin_run(const cairo_path_data_t **run, size_t n, double tol2, bool *keep,
+                     size_t *stack)
+{
+    for (size_t i = 0; i < n; i++)
+        keep[i] = i == 0 || i + 1 == n;
+    size_t top = 0;
+    if (n > 2) {
+        stack[top++] = 0;
+        stack[top++] = n - 1;
+    }
+    while (top > 0) {
+        size_t hi = stack[--top], lo = stack[--top];
+        double worst = -1;
+        size_t at = lo;
+        for (size_t i = lo + 1; i < hi; i++) {
+            double d2 = seg_dist2(run[i], run[lo], run[hi]);
+            if (d2 > worst) {
+                worst = d2;
+                at = i;
+            }
+        }
+        if (!(worst > tol2)) /* a NaN keeps nothing between: the ends stay */
+            continue;
+        keep[at] = true;
+        if (at - lo > 1) {
+            stack[top++] = lo;
+            stack[top++] = at;
+        }
+        if (hi - at > 1) {
+            stack[top++] = at;
+            stack[top++] = hi;
+        }
+    }
+}
+
+static void emit_run(cairo_t *cr, const cairo_path_data_t **run, size_t n, const bool *keep,
+                     bool starts)
+{
+    for (size_t i = 0; i < n; i++) {
+        if (!keep[i])
+            continue;
+        if (i == 0 && starts)
+            cairo_move_to(cr, run[i][1].point.x, run[i][1].point.y);
+        else if (i > 0)
+            cairo_line_to(cr, run[i][1].point.x, run[i][1].point.y);
+    }
+}
+
+void fig_path_thin(cairo_t *cr)
+{
+    cairo_path_t *p = cairo_copy_path(cr);
+    if (!p || p->status != CAIRO_STATUS_SUCCESS || p->num_data == 0) {
+        cairo_path_destroy(p);
+        return; /* the path stays as drawn */
+    }
+    /* the tolerance in user units, at the direction the CTM shrinks most */
+    double ux = FIG_THIN_TOLERANCE_PT, uy = 0, vx = 0, vy = FIG_THIN_TOLERANCE_PT;
+    cairo_device_to_user_distance(cr, &ux, &uy);
+    cairo_device_to_user_distance(cr, &vx, &vy);
+    double tol2 = fmin(ux * ux + uy * uy, vx * vx + vy * vy);
+    size_t n = (size_t)p->num_data;
+    const cairo_path_data_t **run = malloc(n * sizeof *run);
+    bool *keep = malloc(n * sizeof *keep);
+    size_t *stack = malloc(2 * n * sizeof *stack);
+    if (!run || !keep || !stack || !(tol2 > 0)) {
+        free(run);
+        free(keep);
+        free(stack);
+        cairo_path_destroy(p);
+        return;
+    }
+    cairo_new_path(cr);
+    /* a run: the point the line starts from (a move, or the end of a curve)
+     * and the line-tos after it */
+    size_t nr = 0;
+    bool starts = false; /* the run's first point is a move-to */
+    for (int i = 0; i < p->num_data; i += p->data[i].header.length) {
+        const cairo_path_data_t *d = &p->data[i];
+        switch (d->header.type) {
+        case CAIRO_PATH_MOVE_TO:
+            thin_run(run, nr, tol2, keep, stack);
+            emit_run(cr, run, nr, keep, starts);
+            run[0] = d;
+            nr = 1;
+            starts = true;
+            break;
+        case CAIRO_PATH_LINE_TO:
+            if (nr == 0) {
+                /* a line straight after a close starts from where the close
+                 * left the pen: drawn as it is, and the run's anchor */
+                cairo_line_to(cr, d[1].point.x, d[1].point.y);
+                starts = false;
+            }
+            run[nr++] = d;
+            break;
+        case CAIRO_PATH_CURVE_TO:
+            thin_run(run, nr, tol2, keep, stack);
+            emit_run(cr, run, nr, keep, starts);
+            cairo_curve_to(cr, d[1].point.x, d[1].point.y, d[2].point.x, d[2].point.y,
+                           d[3].point.x, d[3].point.y);
+            /* the curve's end starts the next run; its data holds the point
+             * at d[3], seen as [1] from d + 2 */
+            run[0] = d + 2;
+            nr = 1;
+            starts = false;
+            break;
+        case CAIRO_PATH_CLOSE_PATH:
+            thin_run(run, nr, tol2, keep, stack);
+            emit_run(cr, run, nr, keep, starts);
+            cairo_close_path(cr);
+            nr = 0;
+            break;
+        }
+    }
+    thin_run(run, nr, tol2, keep, stack);
+    emit_run(cr, run, nr, keep, starts);
+    free(run);
+    free(keep);
+    free(stack);
+    cairo_path_destroy(p);
+}
+
 void fig_boxed(cairo_t *cr, double w, double h, fig_draw_fn draw, const void *ctx)
 {
     cairo_save(cr);

@@ -114,6 +114,15 @@ void fig_bev_directions(const sl_frame *f, char right[4], char left[4], char up[
 /* A number for a person to read: fixed decimals, never an exponent. */
 void fig_format_number(double v, char *buf, size_t size);
 
+/* Thin the straight runs of the current path (Ramer-Douglas-Peucker) to
+ * FIG_THIN_TOLERANCE_PT: a vertex goes where the line without it stays
+ * within that distance of it; curves, ends and closes stay. A contour of
+ * hundreds of points projected into a few centimetres of page looks the
+ * same, and its figure is a fraction of the size: writing coordinates was
+ * the largest share of a report's drawing time. */
+#define FIG_THIN_TOLERANCE_PT 0.05
+void fig_path_thin(cairo_t *cr);
+
 /* Record a count of drawn data items under a key ("curve", "points"). */
 void fig_count(cairo_t *cr, const char *key, const char *fmt, ...)
 #if defined(__GNUC__)

@@ -768,6 +768,7 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
                 path_loop(cr, &v, g->shape.p + g->shape.start[i],
                           g->shape.start[i + 1] - g->shape.start[i]);
             nfaces += g->shape.np;
+            fig_path_thin(cr);
             cairo_set_fill_rule(cr, CAIRO_FILL_RULE_WINDING);
             cairo_set_line_join(cr, CAIRO_LINE_JOIN_ROUND);
             cairo_set_line_width(cr, g->status == SL_ST_EXCEEDS ? 3.6 : 2.4);

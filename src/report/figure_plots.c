@@ -60,6 +60,7 @@ static size_t band_path(cairo_t *cr, const fig_axes *a, const double *xs, const 
         k++;
     }
     cairo_close_path(cr);
+    fig_path_thin(cr);
     return k;
 }
 
@@ -77,6 +78,7 @@ static size_t line_path(cairo_t *cr, const fig_axes *a, const double *xs, const 
         else
             cairo_line_to(cr, fig_ax_x(a, xs[i]), y);
     }
+    fig_path_thin(cr);
     return k;
 }
 
@@ -571,6 +573,7 @@ static void draw_dvh(cairo_t *cr, double w, double h, const void *vctx)
             ly = py;
         }
     }
+    fig_path_thin(cr);
     set_rgb(cr, srgb);
     cairo_set_line_width(cr, 1.6);
     cairo_stroke(cr);

@@ -371,6 +371,103 @@ static void *drop_later(void *arg)
  * reports) while a font of a map is alive: with a map still held by
  * another thread, the release waits until that thread lets it go. The
  * earlier tests drew text, so the map holds fonts. */
+/* Distance from p to segment ab (plane geometry by hand). */
+static double seg_distance(double px, double py, double ax, double ay, double bx, double by)
+{
+    double dx = bx - ax, dy = by - ay, l2 = dx * dx + dy * dy;
+    double t = l2 > 0 ? ((px - ax) * dx + (py - ay) * dy) / l2 : 0;
+    t = t < 0 ? 0 : t > 1 ? 1 : t;
+    return hypot(px - ax - t * dx, py - ay - t * dy);
+}
+
+/* fig_path_thin, the Ramer-Douglas-Peucker method (Ramer 1972; Douglas and
+ * Peucker 1973): a closed circle of 720 points, radius 40 pt, keeps every
+ * drawn point within the tolerance of the thinned outline and needs far
+ * fewer (a chord of length c strays c^2 / (8 r) from its arc: chords of
+ * 4 pt at most at 0.05 pt, so at least 63 vertices, and the method, which
+ * splits at the farthest point, takes some more); 500 collinear points keep their two
+ * ends; a curve and the close stay; under a scale of 10 the tolerance stays
+ * 0.05 device points. */
+START_TEST(paths_thinned_within_tolerance)
+{
+    cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, 10, 10);
+    cairo_t *cr = cairo_create(s);
+    for (int scaled = 0; scaled < 2; scaled++) {
+        double k = scaled ? 10 : 1; /* user units per device point */
+        cairo_identity_matrix(cr);
+        cairo_scale(cr, 1 / k, 1 / k);
+        const int n = 720;
+        double px[720], py[720];
+        cairo_new_path(cr);
+        for (int i = 0; i < n; i++) {
+            px[i] = k * (50 + 40 * cos(2 * M_PI * i / n));
+            py[i] = k * (50 + 40 * sin(2 * M_PI * i / n));
+            if (i == 0)
+                cairo_move_to(cr, px[i], py[i]);
+            else
+                cairo_line_to(cr, px[i], py[i]);
+        }
+        cairo_close_path(cr);
+        cairo_move_to(cr, 0, 0);
+        for (int i = 1; i < 500; i++)
+            cairo_line_to(cr, k * i * 0.1, k * i * 0.05);
+        cairo_curve_to(cr, k * 60, k * 30, k * 70, k * 20, k * 80, k * 10);
+        fig_path_thin(cr);
+        cairo_path_t *p = cairo_copy_path(cr);
+        ck_assert_int_eq(p->status, CAIRO_STATUS_SUCCESS);
+        double ring[720][2];
+        int nring = 0, nline = 0, ncurve = 0, ncloses = 0, sub = 0;
+        double line_end[2] = {0, 0};
+        for (int i = 0; i < p->num_data; i += p->data[i].header.length) {
+            const cairo_path_data_t *d = &p->data[i];
+            if (d->header.type == CAIRO_PATH_MOVE_TO)
+                sub++;
+            if (d->header.type == CAIRO_PATH_CLOSE_PATH)
+                ncloses++;
+            if (d->header.type == CAIRO_PATH_CURVE_TO) {
+                ncurve++;
+                ck_assert_double_eq_tol(d[3].point.x, k * 80, k / 128);
+            }
+            if (d->header.type == CAIRO_PATH_MOVE_TO || d->header.type == CAIRO_PATH_LINE_TO) {
+                if (sub == 1 && ncloses == 0) {
+                    ring[nring][0] = d[1].point.x;
+                    ring[nring][1] = d[1].point.y;
+                    nring++;
+                } else if (ncloses == 1 && !(d->header.type == CAIRO_PATH_MOVE_TO &&
+                                             d[1].point.x == px[0])) {
+                    nline++;
+                    line_end[0] = d[1].point.x;
+                    line_end[1] = d[1].point.y;
+                }
+            }
+        }
+        ck_assert_int_eq(ncloses, 1);
+        ck_assert_int_eq(ncurve, 1);
+        ck_assert_int_ge(nring, 63);
+        ck_assert_int_lt(nring, 160);
+        /* the straight run: its start and its end, nothing between */
+        ck_assert_int_eq(nline, 2);
+        /* (cairo keeps paths in fixed point, 1/256 of a device unit) */
+        ck_assert_double_eq_tol(line_end[0], k * 49.9, k / 128);
+        ck_assert_double_eq_tol(line_end[1], k * 24.95, k / 128);
+        /* every drawn point of the circle within 0.05 device points of the
+         * thinned outline (closed back to its start) */
+        for (int i = 0; i < n; i++) {
+            double best = INFINITY;
+            for (int j = 0; j < nring; j++) {
+                int jn = (j + 1) % nring;
+                best = fmin(best, seg_distance(px[i], py[i], ring[j][0], ring[j][1], ring[jn][0],
+                                               ring[jn][1]));
+            }
+            ck_assert_msg(best / k <= 0.05 + 1.0 / 128, "point %d strays %g pt", i, best / k);
+        }
+        cairo_path_destroy(p);
+    }
+    cairo_destroy(cr);
+    cairo_surface_destroy(s);
+}
+END_TEST
+
 START_TEST(caches_released)
 {
     held_map h = {g_object_ref(pango_cairo_font_map_get_default()), false};
@@ -394,6 +491,7 @@ static Suite *figure_suite(void)
     tcase_add_test(tc, two_figures_get_their_own_ids);
     tcase_add_test(tc, path_data_rounded_to_hundredths);
     tcase_add_test(tc, same_figure_same_bytes);
+    tcase_add_test(tc, paths_thinned_within_tolerance);
     tcase_add_test(tc, caches_released);
     suite_add_tcase(s, tc);
     return s;
