@@ -28,6 +28,7 @@
 
 #include <math.h>
 #include <stdarg.h>
+#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -1261,6 +1262,62 @@ void fig_axes_draw(cairo_t *cr, const fig_axes *a, const char *xlabel, const cha
         cairo_restore(cr);
     }
     cairo_restore(cr);
+}
+
+/* ----------------------------------------------------- sorting doses -- */
+
+
+static int cmp_dv_desc(const void *a, const void *b)
+{
+    const fig_dv *x = a, *y = b;
+    return x->d > y->d ? -1 : x->d < y->d;
+}
+
+/* A key whose unsigned order is the dose's descending order: IEEE 754
+ * doubles order as their bits once a negative one's are all flipped and a
+ * positive one's sign is set; -0 counts as +0, as the comparison has it. */
+static uint64_t dv_key(double d)
+{
+    uint64_t b;
+    if (d == 0)
+        d = 0; /* -0 as +0 */
+    memcpy(&b, &d, sizeof b);
+    b = (b >> 63) ? ~b : b | (UINT64_C(1) << 63);
+    return ~b;
+}
+
+/* A least-significant-digit radix sort, stable by construction, in 8
+ * passes of a byte, each skipped where every key has the same byte (the
+ * exponent's high bits, mostly). */
+void fig_dv_sort_desc(fig_dv *a, fig_dv *tmp, uint64_t *key, uint64_t *ktmp, size_t n)
+{
+    for (size_t i = 0; i < n; i++) {
+        if (isnan(a[i].d)) {
+            qsort(a, n, sizeof *a, cmp_dv_desc);
+            return;
+        }
+        key[i] = dv_key(a[i].d);
+    }
+    for (int pass = 0; pass < 8; pass++) {
+        int shift = 8 * pass;
+        size_t count[257] = {0};
+        for (size_t i = 0; i < n; i++)
+            count[((key[i] >> shift) & 0xff) + 1]++;
+        bool one = false;
+        for (int b = 1; b <= 256; b++)
+            one = one || count[b] == n;
+        if (one)
+            continue;
+        for (int b = 1; b <= 256; b++)
+            count[b] += count[b - 1];
+        for (size_t i = 0; i < n; i++) {
+            size_t at = count[(key[i] >> shift) & 0xff]++;
+            tmp[at] = a[i];
+            ktmp[at] = key[i];
+        }
+        memcpy(a, tmp, n * sizeof *a);
+        memcpy(key, ktmp, n * sizeof *key);
+    }
 }
 
 /* ------------------------------------------------------- path thinning -- */

@@ -17,6 +17,7 @@
 
 #include <stdbool.h>
 #include <stddef.h>
+#include <stdint.h>
 
 #include <cairo.h>
 
@@ -113,6 +114,18 @@ void fig_bev_directions(const sl_frame *f, char right[4], char left[4], char up[
 
 /* A number for a person to read: fixed decimals, never an exponent. */
 void fig_format_number(double v, char *buf, size_t size);
+
+/* A dose and the volume it stands for (a DVH's input). */
+typedef struct fig_dv {
+    double d, v;
+} fig_dv;
+
+/* Sort by dose, highest first, into the order a stable comparison sort
+ * gives (glibc's qsort is a merge sort), ties in their first order; with a
+ * NaN among the doses, which has no place in that order, a comparison sort
+ * as qsort has it. tmp, key and ktmp: scratch of n each. The comparison
+ * sort was a tenth of drawing a report. */
+void fig_dv_sort_desc(fig_dv *a, fig_dv *tmp, uint64_t *key, uint64_t *ktmp, size_t n);
 
 /* Thin the straight runs of the current path (Ramer-Douglas-Peucker) to
  * FIG_THIN_TOLERANCE_PT: a vertex goes where the line without it stays

@@ -14,6 +14,8 @@
 #include "figure.h"
 
 #include <math.h>
+#include <stdbool.h>
+#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -424,16 +426,6 @@ static void draw_dose_distance(cairo_t *cr, double w, double h, const void *vctx
 
 /* ------------------------------------------------------------------ DVH -- */
 
-typedef struct dv {
-    double d, v;
-} dv;
-
-static int cmp_dv_desc(const void *a, const void *b)
-{
-    const dv *x = a, *y = b;
-    return x->d > y->d ? -1 : x->d < y->d;
-}
-
 static void draw_dvh(cairo_t *cr, double w, double h, const void *vctx)
 {
     const fig_dvh_ctx *ctx = vctx;
@@ -460,20 +452,23 @@ static void draw_dvh(cairo_t *cr, double w, double h, const void *vctx)
     const sl_organ_samples *s = &r->loc->samples[d->organ];
     size_t n = s->n;
     fig_count(cr, "organ", "%zu", ctx->organ);
-    dv *arr = malloc(n * sizeof *arr);
+    fig_dv *arr = malloc(2 * n * sizeof *arr);
+    uint64_t *keys = malloc(2 * n * sizeof *keys);
     double *xs = malloc((2 * n + 2) * sizeof *xs), *ys = malloc((2 * n + 2) * sizeof *ys);
-    if (!arr || !xs || !ys) {
+    if (!arr || !keys || !xs || !ys) {
         free(arr);
+        free(keys);
         free(xs);
         free(ys);
         return;
     }
     double vt = 0;
     for (size_t i = 0; i < n; i++) {
-        arr[i] = (dv){d->course_cgy[i] * unit, s->volume_cc[i]};
+        arr[i] = (fig_dv){d->course_cgy[i] * unit, s->volume_cc[i]};
         vt += s->volume_cc[i];
     }
-    qsort(arr, n, sizeof *arr, cmp_dv_desc);
+    fig_dv_sort_desc(arr, arr + n, keys, keys + n, n);
+    free(keys);
     /* the cumulative histogram as steps: the volume at or above each dose,
      * from the highest dose down; each distinct dose is a step */
     size_t m = 0, steps = 0;

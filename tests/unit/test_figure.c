@@ -468,6 +468,64 @@ START_TEST(paths_thinned_within_tolerance)
 }
 END_TEST
 
+static int cmp_desc_ref(const void *a, const void *b)
+{
+    const fig_dv *x = a, *y = b;
+    return x->d > y->d ? -1 : x->d < y->d;
+}
+
+/* fig_dv_sort_desc against glibc's qsort with the same comparison (a merge
+ * sort, stable, the reference): random doses over many decades with many
+ * ties, both zeros, negatives, infinities and subnormals give the same
+ * sequence, ties in their first order (told apart by their volumes); with a
+ * NaN among them it still returns every element, sorted around it as qsort
+ * sorts. */
+START_TEST(doses_sorted_as_a_stable_comparison_sort)
+{
+    enum { N = 5000 };
+    static fig_dv a[N], ref[N], tmp[N];
+    static uint64_t key[N], ktmp[N];
+    unsigned seed = 12345;
+    for (int round = 0; round < 6; round++) {
+        for (int i = 0; i < N; i++) {
+            seed = seed * 1103515245u + 12345u;
+            unsigned r = seed >> 8;
+            double d;
+            switch (r % 9) {
+            case 0: d = 0.0; break;
+            case 1: d = -0.0; break;
+            case 2: d = (double)(r % 7); break;              /* ties */
+            case 3: d = -(double)(r % 5) * 0.25; break;
+            case 4: d = ldexp((double)(r % 1000), (int)(r % 60) - 30); break;
+            case 5: d = 4.9e-324 * (r % 3); break;           /* subnormals */
+            case 6: d = (r & 1) ? INFINITY : -INFINITY; break;
+            default: d = (double)r / 1e3; break;
+            }
+            if (round == 5 && i == N / 2)
+                d = NAN;
+            a[i] = ref[i] = (fig_dv){d, (double)i};
+        }
+        qsort(ref, N, sizeof *ref, cmp_desc_ref);
+        fig_dv_sort_desc(a, tmp, key, ktmp, N);
+        if (round < 5) {
+            for (int i = 0; i < N; i++)
+                ck_assert_msg(memcmp(&a[i], &ref[i], sizeof a[i]) == 0,
+                              "round %d, %d: %a (%g) != %a (%g)", round, i, a[i].d, a[i].v,
+                              ref[i].d, ref[i].v);
+        } else {
+            /* every element still there, once */
+            static bool seen[N];
+            memset(seen, 0, sizeof seen);
+            for (int i = 0; i < N; i++) {
+                int v = (int)a[i].v;
+                ck_assert(v >= 0 && v < N && !seen[v]);
+                seen[v] = true;
+            }
+        }
+    }
+}
+END_TEST
+
 START_TEST(caches_released)
 {
     held_map h = {g_object_ref(pango_cairo_font_map_get_default()), false};
@@ -492,6 +550,7 @@ static Suite *figure_suite(void)
     tcase_add_test(tc, path_data_rounded_to_hundredths);
     tcase_add_test(tc, same_figure_same_bytes);
     tcase_add_test(tc, paths_thinned_within_tolerance);
+    tcase_add_test(tc, doses_sorted_as_a_stable_comparison_sort);
     tcase_add_test(tc, caches_released);
     suite_add_tcase(s, tc);
     return s;
