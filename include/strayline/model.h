@@ -250,9 +250,13 @@ void sl_curves_prepare_shift(sl_curve_set *c, double shift_cm);
  * set, which depends on the depth, direction, tilt and SSD alone, and, for
  * a set prepared for this shift, the profiles' exponentials: the nearer
  * distance's are the farther's times the decay factors, which agrees with
- * the single evaluation to a few units in the last place. out[0], and both
- * for a set not prepared or a clamped distance, are bitwise
- * sl_curves_eval_percent's. Thread-safe. */
+ * the single evaluation within 1e-13 relative (the rounding grows with the
+ * distance over the decay length; a term that underflows at the farther
+ * distance stays 0 at the nearer, where it is below any other term's last
+ * place). out[0] is bitwise sl_curves_eval_percent's, and so is out[1] for
+ * a set not prepared, or where neither its field-edge distance (clamped at
+ * 0) nor its applicator distance (below 0 or unknown) was linked.
+ * Thread-safe. */
 void sl_curves_eval_percent_shift(const sl_curve_set *c, const sl_eval_query *q,
                                   double shift_cm, double out[2]);
 

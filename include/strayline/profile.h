@@ -100,7 +100,8 @@ void sl_profile_decay_factors(const double *theta, double delta, double k[2]);
  * delta: the second distance's exponential terms are the first's times k,
  * a multiplication where the single evaluation takes an exponential. d[0]'s
  * value, electron and photon parts are bitwise sl_profile_value's; d[1]'s
- * agree with it to a few units in the last place. */
+ * agree with it within rounding that grows with the distance over the
+ * decay length: a few times 1e-16 d / l relative for each term. */
 void sl_profile_value_two(sl_profile_form f, const double *theta, const double d[2],
                           const double k[2], double value[2], double electron[2],
                           double photon[2]);

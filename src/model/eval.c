@@ -20,8 +20,8 @@
  * number bitwise as it was. The setup shift's two neighbours share one walk
  * and, on a set prepared for the shift, the profiles' exponentials: the
  * nearer distance's are the farther's times a factor fixed per profile,
- * which moves that one number by a few units in its last place and took a
- * quarter of the estimate's exponentials away.
+ * which moves that one number by rounding alone (within 1e-13 relative)
+ * and took a quarter of the estimate's exponentials away.
  */
 #include "strayline/model.h"
 #include "strayline/util.h"

@@ -1392,11 +1392,15 @@ void fig_path_thin(cairo_t *cr)
         cairo_path_destroy(p);
         return; /* the path stays as drawn */
     }
-    /* the tolerance in user units, at the direction the CTM shrinks most */
-    double ux = FIG_THIN_TOLERANCE_PT, uy = 0, vx = 0, vy = FIG_THIN_TOLERANCE_PT;
-    cairo_device_to_user_distance(cr, &ux, &uy);
-    cairo_device_to_user_distance(cr, &vx, &vy);
-    double tol2 = fmin(ux * ux + uy * uy, vx * vx + vy * vy);
+    /* the tolerance in user units: over the CTM's largest scale factor (its
+     * linear part's largest singular value), so that no direction of the
+     * page strays more than the tolerance */
+    cairo_matrix_t m;
+    cairo_get_matrix(cr, &m);
+    double p2 = m.xx * m.xx + m.yx * m.yx + m.xy * m.xy + m.yy * m.yy,
+           det = m.xx * m.yy - m.xy * m.yx;
+    double smax2 = 0.5 * (p2 + sqrt(fmax(p2 * p2 - 4 * det * det, 0)));
+    double tol2 = FIG_THIN_TOLERANCE_PT * FIG_THIN_TOLERANCE_PT / smax2;
     size_t n = (size_t)p->num_data;
     const cairo_path_data_t **run = malloc(n * sizeof *run);
     bool *keep = malloc(n * sizeof *keep);

@@ -365,12 +365,6 @@ static void *drop_later(void *arg)
     return NULL;
 }
 
-/* Last: the font libraries' caches released, as the tool does at its end,
- * so that the leak checkers of the sanitizer build see only real leaks.
- * cairo's reset asserts (and the tool would abort after writing its
- * reports) while a font of a map is alive: with a map still held by
- * another thread, the release waits until that thread lets it go. The
- * earlier tests drew text, so the map holds fonts. */
 /* Distance from p to segment ab (plane geometry by hand). */
 static double seg_distance(double px, double py, double ax, double ay, double bx, double by)
 {
@@ -480,6 +474,64 @@ static int cmp_desc_ref(const void *a, const void *b)
  * sequence, ties in their first order (told apart by their volumes); with a
  * NaN among them it still returns every element, sorted around it as qsort
  * sorts. */
+/* The tolerance holds on the page under a rotated, unevenly scaled
+ * transformation too: a circle of 720 points, radius 40 device points,
+ * drawn through rotate(30 degrees) and scale(8, 1), every point within 0.05
+ * device points of the thinned outline, measured on the page. */
+START_TEST(paths_thinned_within_tolerance_on_the_page)
+{
+    cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, 10, 10);
+    cairo_t *cr = cairo_create(s);
+    cairo_rotate(cr, M_PI / 6);
+    cairo_scale(cr, 8, 1);
+    enum { N = 720 };
+    double px[N], py[N];
+    cairo_new_path(cr);
+    for (int i = 0; i < N; i++) {
+        px[i] = 50 + 40 * cos(2 * M_PI * i / N);
+        py[i] = 50 + 40 * sin(2 * M_PI * i / N);
+        double ux = px[i], uy = py[i];
+        cairo_device_to_user(cr, &ux, &uy);
+        if (i == 0)
+            cairo_move_to(cr, ux, uy);
+        else
+            cairo_line_to(cr, ux, uy);
+    }
+    cairo_close_path(cr);
+    fig_path_thin(cr);
+    cairo_path_t *p = cairo_copy_path(cr);
+    ck_assert_int_eq(p->status, CAIRO_STATUS_SUCCESS);
+    static double ring[N][2];
+    int nring = 0;
+    for (int i = 0; i < p->num_data; i += p->data[i].header.length) {
+        const cairo_path_data_t *d = &p->data[i];
+        if ((d->header.type == CAIRO_PATH_MOVE_TO || d->header.type == CAIRO_PATH_LINE_TO) &&
+            nring < N) {
+            double x = d[1].point.x, y = d[1].point.y;
+            cairo_user_to_device(cr, &x, &y);
+            ring[nring][0] = x;
+            ring[nring][1] = y;
+            nring++;
+        }
+    }
+    /* a trailing move to the start after the close is the start again */
+    ck_assert_int_ge(nring, 63);
+    ck_assert_int_lt(nring, 200);
+    for (int i = 0; i < N; i++) {
+        double best = INFINITY;
+        for (int j = 0; j < nring; j++) {
+            int jn = (j + 1) % nring;
+            best = fmin(best, seg_distance(px[i], py[i], ring[j][0], ring[j][1], ring[jn][0],
+                                           ring[jn][1]));
+        }
+        ck_assert_msg(best <= 0.05 + 1.0 / 128, "point %d strays %g pt", i, best);
+    }
+    cairo_path_destroy(p);
+    cairo_destroy(cr);
+    cairo_surface_destroy(s);
+}
+END_TEST
+
 START_TEST(doses_sorted_as_a_stable_comparison_sort)
 {
     enum { N = 5000 };
@@ -526,6 +578,12 @@ START_TEST(doses_sorted_as_a_stable_comparison_sort)
 }
 END_TEST
 
+/* Last: the font libraries' caches released, as the tool does at its end,
+ * so that the leak checkers of the sanitizer build see only real leaks.
+ * cairo's reset asserts (and the tool would abort after writing its
+ * reports) while a font of a map is alive: with a map still held by
+ * another thread, the release waits until that thread lets it go. The
+ * earlier tests drew text, so the map holds fonts. */
 START_TEST(caches_released)
 {
     held_map h = {g_object_ref(pango_cairo_font_map_get_default()), false};
@@ -550,6 +608,7 @@ static Suite *figure_suite(void)
     tcase_add_test(tc, path_data_rounded_to_hundredths);
     tcase_add_test(tc, same_figure_same_bytes);
     tcase_add_test(tc, paths_thinned_within_tolerance);
+    tcase_add_test(tc, paths_thinned_within_tolerance_on_the_page);
     tcase_add_test(tc, doses_sorted_as_a_stable_comparison_sort);
     tcase_add_test(tc, caches_released);
     suite_add_tcase(s, tc);
