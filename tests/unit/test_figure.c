@@ -374,6 +374,17 @@ static double seg_distance(double px, double py, double ax, double ay, double bx
     return hypot(px - ax - t * dx, py - ay - t * dy);
 }
 
+/* Distance from p to a closed outline of n vertices. */
+static double ring_distance(double px, double py, double (*ring)[2], int n)
+{
+    double best = INFINITY;
+    for (int j = 0; j < n; j++) {
+        int jn = (j + 1) % n;
+        best = fmin(best, seg_distance(px, py, ring[j][0], ring[j][1], ring[jn][0], ring[jn][1]));
+    }
+    return best;
+}
+
 /* fig_path_thin, the Ramer-Douglas-Peucker method (Ramer 1972; Douglas and
  * Peucker 1973): a closed circle of 720 points, radius 40 pt, keeps every
  * drawn point within the tolerance of the thinned outline and needs far
@@ -447,13 +458,8 @@ START_TEST(paths_thinned_within_tolerance)
         /* every drawn point of the circle within 0.05 device points of the
          * thinned outline (closed back to its start) */
         for (int i = 0; i < n; i++) {
-            double best = INFINITY;
-            for (int j = 0; j < nring; j++) {
-                int jn = (j + 1) % nring;
-                best = fmin(best, seg_distance(px[i], py[i], ring[j][0], ring[j][1], ring[jn][0],
-                                               ring[jn][1]));
-            }
-            ck_assert_msg(best / k <= 0.05 + 1.0 / 128, "point %d strays %g pt", i, best / k);
+            double best = ring_distance(px[i], py[i], ring, nring) / k;
+            ck_assert_msg(best <= 0.05 + 1.0 / 128, "point %d strays %g pt", i, best);
         }
         cairo_path_destroy(p);
     }
@@ -518,12 +524,7 @@ START_TEST(paths_thinned_within_tolerance_on_the_page)
     ck_assert_int_ge(nring, 63);
     ck_assert_int_lt(nring, 200);
     for (int i = 0; i < N; i++) {
-        double best = INFINITY;
-        for (int j = 0; j < nring; j++) {
-            int jn = (j + 1) % nring;
-            best = fmin(best, seg_distance(px[i], py[i], ring[j][0], ring[j][1], ring[jn][0],
-                                           ring[jn][1]));
-        }
+        double best = ring_distance(px[i], py[i], ring, nring);
         ck_assert_msg(best <= 0.05 + 1.0 / 128, "point %d strays %g pt", i, best);
     }
     cairo_path_destroy(p);
