@@ -1266,7 +1266,6 @@ void fig_axes_draw(cairo_t *cr, const fig_axes *a, const char *xlabel, const cha
 
 /* ----------------------------------------------------- sorting doses -- */
 
-
 static int cmp_dv_desc(const void *a, const void *b)
 {
     const fig_dv *x = a, *y = b;

@@ -14,8 +14,6 @@
 #include "figure.h"
 
 #include <math.h>
-#include <stdbool.h>
-#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
