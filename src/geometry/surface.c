@@ -46,7 +46,7 @@ typedef struct bslice {
     sl_vec2 *ep;
     size_t nloops;
     size_t *loop_start;
-    size_t *cell_start;
+    uint32_t *cell_start;  /* gx * gy + 1 offsets into cell_edges */
     uint32_t *cell_edges;
     size_t max_cell;       /* most edges listed by one cell */
     unsigned char *center_in;
@@ -192,15 +192,16 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
                     return SL_EINPUT;
                 if (k > s->max_cell)
                     s->max_cell = k;
-                s->cell_start[c] = total;
+                /* at most 64 x 64 cells of MAX_CELL_EDGES: 32 bits hold it */
+                s->cell_start[c] = (uint32_t)total;
                 total += k;
             }
-            s->cell_start[ncell] = total;
+            s->cell_start[ncell] = (uint32_t)total;
             s->cell_edges = malloc((total ? total : 1) * sizeof *s->cell_edges);
             if (!s->cell_edges)
                 return SL_ENOMEM;
         }
-        size_t *fill = NULL;
+        uint32_t *fill = NULL;
         if (pass == 1) {
             fill = malloc(ncell * sizeof *fill);
             if (!fill)
