@@ -138,9 +138,10 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
         ne += st->loop_n[sl->first + k];
     s->ne = ne;
     s->nloops = sl->count;
-    /* edges are named by 32-bit positions (the cell and fan lists) */
+    /* edges are named by 32-bit positions (the cell and fan lists): four
+     * billion points would not fit in memory anyway */
     if (ne + sl->count > UINT32_MAX)
-        return SL_EINPUT;
+        return SL_ENOMEM;
     s->ep = malloc((ne + sl->count) * sizeof *s->ep);
     s->loop_start = malloc((sl->count + 1) * sizeof *s->loop_start);
     if (!s->ep || !s->loop_start)
@@ -160,7 +161,8 @@ static sl_status slice_build(const sl_slice_stack *st, const sl_slice *sl, bslic
             hi.x = dmax(hi.x, p[i].x);
             hi.y = dmax(hi.y, p[i].y);
         }
-        s->ep[e++] = p[0];
+        if (n)
+            s->ep[e++] = p[0];
     }
     s->loop_start[sl->count] = e;
     lo.x -= MARGIN_CM;
