@@ -847,7 +847,7 @@ static int cmp_xr(const void *a, const void *b)
 typedef struct fan_scratch {
     double *x, *t;             /* per point (the slice's positions) */
     int *j0, *j1;              /* per edge: its first and last bin */
-    size_t ecap;
+    size_t pcap;               /* positions the four arrays above hold */
     xr *r;                     /* one bin's edges */
     size_t rcap;
     uint32_t *fill;            /* nb */
@@ -877,8 +877,8 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
     const double eps = 1e-9;
     /* positions: every point, and the repeated first point that ends each
      * loop; an edge i runs from position i to i + 1 */
-    size_t np = s->loop_start[s->nloops], ecap = w->ecap;
-    if (np > ecap) {
+    size_t np = s->loop_start[s->nloops], pcap = w->pcap;
+    if (np > pcap) {
         /* the per-position scratch arrays grow together */
         struct {
             void **p;
@@ -888,11 +888,11 @@ static sl_status fan_slice_build(sl_body_fan *f, const bslice *s, fan_slice *fs,
                  {(void **)&w->j0, sizeof(int)},
                  {(void **)&w->j1, sizeof(int)}};
         for (size_t k = 0; k < sizeof a / sizeof *a; k++) {
-            size_t c = ecap;
+            size_t c = pcap;
             if (grow(a[k].p, &c, np, a[k].size) != SL_OK)
                 return SL_ENOMEM;
         }
-        w->ecap = np;
+        w->pcap = np;
     }
     uint32_t *bin_start = w->bin_start, *cl_start = w->cl_start;
     memset(bin_start, 0, ((size_t)nb + 1) * sizeof *bin_start);
