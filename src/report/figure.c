@@ -224,20 +224,210 @@ static bool text_line_take(PangoLayoutLine *line, const char *all, int base_pu, 
     return true;
 }
 
-/* Record a layout drawn at (x0, y0) as SVG text and fill its box with its
- * marker; false when it must be drawn as glyphs instead. */
-static bool text_to_sink(cairo_t *cr, PangoLayout *l, double x0, double y0, fig_font f)
+/* ------------------------------------------------------- text shapes -- */
+
+/* What Pango made of one text, as a figure for the HTML takes it: the
+ * layout's size and extents, and its lines as SVG text. The same labels
+ * (tick values, axis titles, organ names) come back in every figure and
+ * every plan of a scan, and shaping them again was most of the time Pango
+ * took; the shapes are kept, keyed by everything the layout depends on:
+ * the text, the font, the width rule and the linear part of the
+ * transformation (Pango takes the matrix without its translation). The
+ * figure is then byte for byte the one a fresh layout gives. Kept only
+ * while a figure's text goes to SVG text (a text sink is set): glyphs, for
+ * the PDF or a figure drawn again, always come from a layout. */
+typedef struct text_shape {
+    char *text; /* the key: the text as given, the font, max_w and matrix */
+    double size_pt, max_w, m[4];
+    bool bold, italic;
+    int iw, ih; /* pango_layout_get_size */
+    bool ellipsized;
+    PangoRectangle ink, logical;
+    int nchars;
+    size_t nlines; /* 0 when nothing would be seen or it is cut with an ellipsis */
+    text_line *lines;
+    struct text_shape *next;
+} text_shape;
+
+#define SHAPE_BUCKETS 1024
+#define SHAPE_MAX 8192 /* then the kept shapes are dropped and kept afresh */
+static GMutex shapes_lock;
+static text_shape *shapes[SHAPE_BUCKETS];
+static size_t nshapes;
+
+static void lines_free(text_line *lines, size_t n)
+{
+    for (size_t k = 0; k < n; k++)
+        free(lines[k].text);
+    free(lines);
+}
+
+static void shapes_clear(void)
+{
+    for (size_t b = 0; b < SHAPE_BUCKETS; b++) {
+        while (shapes[b]) {
+            text_shape *s = shapes[b];
+            shapes[b] = s->next;
+            free(s->text);
+            lines_free(s->lines, s->nlines);
+            free(s);
+        }
+    }
+    nshapes = 0;
+}
+
+static uint64_t shape_hash(const text_shape *k)
+{
+    uint64_t h = 1469598103934665603u; /* FNV-1a */
+    for (const unsigned char *p = (const unsigned char *)k->text; *p; p++)
+        h = (h ^ *p) * 1099511628211u;
+    const double v[6] = {k->size_pt, k->max_w, k->m[0], k->m[1], k->m[2], k->m[3]};
+    for (int i = 0; i < 6; i++) {
+        uint64_t bits;
+        memcpy(&bits, &v[i], sizeof bits);
+        h = (h ^ bits) * 1099511628211u;
+    }
+    return (h ^ (uint64_t)(k->bold * 2 + k->italic)) * 1099511628211u;
+}
+
+static bool shape_same(const text_shape *a, const text_shape *b)
+{
+    return a->size_pt == b->size_pt && a->max_w == b->max_w && a->m[0] == b->m[0] &&
+           a->m[1] == b->m[1] && a->m[2] == b->m[2] && a->m[3] == b->m[3] &&
+           a->bold == b->bold && a->italic == b->italic && strcmp(a->text, b->text) == 0;
+}
+
+/* The layout's shape into s (its key already set); false when out of memory. */
+static bool shape_from_layout(PangoLayout *l, text_shape *s)
+{
+    pango_layout_get_size(l, &s->iw, &s->ih);
+    s->ellipsized = pango_layout_is_ellipsized(l);
+    pango_layout_get_extents(l, &s->ink, &s->logical);
+    s->nchars = pango_layout_get_character_count(l);
+    s->nlines = 0;
+    s->lines = NULL;
+    if (s->ellipsized || s->logical.width <= 0 || s->logical.height <= 0 || s->nchars == 0)
+        return true;
+    const char *all = pango_layout_get_text(l);
+    s->lines = calloc((size_t)pango_layout_get_line_count(l), sizeof *s->lines);
+    PangoLayoutIter *iter = s->lines ? pango_layout_get_iter(l) : NULL;
+    if (!iter) {
+        free(s->lines);
+        s->lines = NULL;
+        return false;
+    }
+    bool ok = true;
+    do {
+        PangoRectangle lr;
+        pango_layout_iter_get_line_extents(iter, NULL, &lr);
+        if (!text_line_take(pango_layout_iter_get_line_readonly(iter), all,
+                            pango_layout_iter_get_baseline(iter), lr.x, &s->lines[s->nlines])) {
+            ok = false;
+            break;
+        }
+        s->nlines++;
+    } while (pango_layout_iter_next_line(iter));
+    pango_layout_iter_free(iter);
+    if (!ok) {
+        lines_free(s->lines, s->nlines);
+        s->lines = NULL;
+        s->nlines = 0;
+    }
+    return ok;
+}
+
+/* A copy of s into out, its lines too when lines is set. */
+static bool shape_copy(const text_shape *s, text_shape *out, bool lines)
+{
+    *out = *s;
+    out->text = NULL;
+    out->next = NULL;
+    out->lines = NULL;
+    out->nlines = 0;
+    if (!lines || !s->nlines)
+        return true;
+    out->lines = calloc(s->nlines, sizeof *out->lines);
+    if (!out->lines)
+        return false;
+    for (size_t k = 0; k < s->nlines; k++) {
+        out->lines[k] = s->lines[k];
+        out->lines[k].text = strdup(s->lines[k].text);
+        if (!out->lines[k].text) {
+            lines_free(out->lines, k);
+            out->lines = NULL;
+            return false;
+        }
+        out->nlines++;
+    }
+    return true;
+}
+
+static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double max_w);
+
+/* The shape of a text as the context would lay it out (a copy: the caller
+ * frees its lines), from the kept ones or from a layout, which is then
+ * kept. False when out of memory. */
+static bool shape_get(cairo_t *cr, const char *text, fig_font f, double max_w, bool lines,
+                      text_shape *out)
+{
+    cairo_matrix_t cm;
+    cairo_get_matrix(cr, &cm);
+    text_shape key = {.text = (char *)text, .size_pt = f.size_pt, .max_w = max_w,
+                      .m = {cm.xx, cm.yx, cm.xy, cm.yy}, .bold = f.bold, .italic = f.italic};
+    size_t b = (size_t)(shape_hash(&key) % SHAPE_BUCKETS);
+    bool ok = false, found = false;
+    g_mutex_lock(&shapes_lock);
+    for (const text_shape *s = shapes[b]; s && !found; s = s->next) {
+        if (shape_same(s, &key)) {
+            found = true;
+            ok = shape_copy(s, out, lines);
+        }
+    }
+    g_mutex_unlock(&shapes_lock);
+    if (found)
+        return ok;
+    PangoLayout *l = layout_for(cr, text, f, max_w);
+    text_shape *s = l ? calloc(1, sizeof *s) : NULL;
+    if (!s)
+        return false;
+    *s = key;
+    s->text = strdup(text);
+    if (!s->text || !shape_from_layout(l, s)) {
+        free(s->text);
+        free(s);
+        return false;
+    }
+    ok = shape_copy(s, out, lines);
+    g_mutex_lock(&shapes_lock);
+    if (nshapes >= SHAPE_MAX)
+        shapes_clear();
+    s->next = shapes[b];
+    shapes[b] = s;
+    nshapes++;
+    g_mutex_unlock(&shapes_lock);
+    return ok;
+}
+
+static text_sink *sink_of(cairo_t *cr)
 {
     text_sink *ts = cairo_surface_get_user_data(cairo_get_target(cr), &text_key);
-    if (!ts || ts->failed || pango_layout_is_ellipsized(l) || ts->n >= TEXT_MAX_ITEMS)
+    return ts && !ts->failed ? ts : NULL;
+}
+
+/* Record a text of this shape drawn at (x0, y0) as SVG text and fill its
+ * box with its marker; false when it must be drawn as glyphs instead. The
+ * sink takes the shape's lines when it records them. */
+static bool text_to_sink(cairo_t *cr, text_sink *ts, text_shape *sh, double x0, double y0,
+                         fig_font f)
+{
+    if (sh->ellipsized || ts->n >= TEXT_MAX_ITEMS)
         return false;
     double rgba[4];
     if (cairo_pattern_get_rgba(cairo_get_source(cr), &rgba[0], &rgba[1], &rgba[2], &rgba[3]) !=
         CAIRO_STATUS_SUCCESS)
         return false;
-    PangoRectangle ink, logical;
-    pango_layout_get_extents(l, &ink, &logical);
-    if (logical.width <= 0 || logical.height <= 0 || pango_layout_get_character_count(l) == 0)
+    const PangoRectangle ink = sh->ink, logical = sh->logical;
+    if (logical.width <= 0 || logical.height <= 0 || sh->nchars == 0)
         return true; /* nothing to see */
     if (ts->n == ts->cap) {
         size_t cap = ts->cap ? ts->cap * 2 : 64;
@@ -257,31 +447,10 @@ static bool text_to_sink(cairo_t *cr, PangoLayout *l, double x0, double y0, fig_
     it->bold = f.bold;
     it->italic = f.italic;
     memcpy(it->rgba, rgba, sizeof rgba);
-    const char *all = pango_layout_get_text(l);
-    it->lines = calloc((size_t)pango_layout_get_line_count(l), sizeof *it->lines);
-    bool ok = it->lines != NULL;
-    PangoLayoutIter *iter = ok ? pango_layout_get_iter(l) : NULL;
-    if (iter) {
-        do {
-            PangoRectangle lr;
-            pango_layout_iter_get_line_extents(iter, NULL, &lr);
-            if (!text_line_take(pango_layout_iter_get_line_readonly(iter), all,
-                                pango_layout_iter_get_baseline(iter), lr.x,
-                                &it->lines[it->nlines])) {
-                ok = false;
-                break;
-            }
-            it->nlines++;
-        } while (pango_layout_iter_next_line(iter));
-        pango_layout_iter_free(iter);
-    }
-    if (!ok) {
-        for (size_t k = 0; k < it->nlines; k++)
-            free(it->lines[k].text);
-        free(it->lines);
-        ts->failed = true; /* the figure is drawn again with glyphs */
-        return false;
-    }
+    it->lines = sh->lines;
+    it->nlines = sh->nlines;
+    sh->lines = NULL;
+    sh->nlines = 0;
     size_t idx = ts->n++;
     /* the marker covers what the glyphs would: cairo clips it (and so the
      * text that replaces it) as it would have clipped them */
@@ -1030,6 +1199,9 @@ void sl_report_release_caches(void)
      * the drawing), finish the maps here, then reset; if a map stays held,
      * leave the caches to the end of the process rather than have cairo
      * assert */
+    g_mutex_lock(&shapes_lock);
+    shapes_clear();
+    g_mutex_unlock(&shapes_lock);
     bool ready = fontmaps_only_ours();
     for (int tries = 0; tries < 2000 && !ready; tries++) {
         g_usleep(1000);
@@ -1111,10 +1283,16 @@ static PangoLayout *layout_for(cairo_t *cr, const char *text, fig_font f, double
 
 void fig_text_size(cairo_t *cr, const char *text, fig_font f, double max_w, double *w, double *h)
 {
-    PangoLayout *l = layout_for(cr, text, f, max_w);
     int iw = 0, ih = 0;
-    if (l)
-        pango_layout_get_size(l, &iw, &ih);
+    text_shape sh;
+    if (sink_of(cr) && shape_get(cr, text, f, max_w, false, &sh)) {
+        iw = sh.iw;
+        ih = sh.ih;
+    } else {
+        PangoLayout *l = layout_for(cr, text, f, max_w);
+        if (l)
+            pango_layout_get_size(l, &iw, &ih);
+    }
     *w = (double)iw / PANGO_SCALE;
     *h = (double)ih / PANGO_SCALE;
 }
@@ -1122,16 +1300,29 @@ void fig_text_size(cairo_t *cr, const char *text, fig_font f, double max_w, doub
 void fig_text(cairo_t *cr, double x, double y, double ax, double ay, const char *text, fig_font f,
               double max_w)
 {
+    text_sink *ts = sink_of(cr);
+    if (ts) {
+        text_shape sh;
+        if (!shape_get(cr, text, f, max_w, true, &sh)) {
+            ts->failed = true; /* out of memory: the figure is drawn again with glyphs */
+        } else {
+            double x0 = x - ax * sh.iw / PANGO_SCALE, y0 = y - ay * sh.ih / PANGO_SCALE;
+            bool recorded = text_to_sink(cr, ts, &sh, x0, y0, f);
+            lines_free(sh.lines, sh.nlines);
+            if (recorded) {
+                cairo_new_path(cr);
+                return;
+            }
+        }
+    }
     PangoLayout *l = layout_for(cr, text, f, max_w);
     if (!l)
         return;
     int iw, ih;
     pango_layout_get_size(l, &iw, &ih);
     double x0 = x - ax * iw / PANGO_SCALE, y0 = y - ay * ih / PANGO_SCALE;
-    if (!text_to_sink(cr, l, x0, y0, f)) {
-        cairo_move_to(cr, x0, y0);
-        pango_cairo_show_layout(cr, l);
-    }
+    cairo_move_to(cr, x0, y0);
+    pango_cairo_show_layout(cr, l);
     cairo_new_path(cr);
 }
 
