@@ -589,10 +589,12 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
     return r;
 }
 
-/* The log-linear blend of two doses with weight w on b (0 < w < 1). */
+/* The log-linear blend of two doses with weight w on b (0 < w < 1):
+ * a^(1 - w) b^w, written with one logarithm instead of two (the blends'
+ * logarithms were a twentieth of a scan's instructions). */
 static double log_blend(double a, double b, double w)
 {
-    return exp((1 - w) * log(a) + w * log(b));
+    return a * exp(w * log(b / a));
 }
 
 /* The share of the electrons a what-if shield lets through (1 when none or
