@@ -31,7 +31,11 @@
  * Per organ: maximum, volume-weighted mean, near-maximum (the least dose in
  * the hottest 0.03 cm3, or 2 % of the volume when that is smaller) and the
  * dose at the point nearest the field edge, per fraction of each group and
- * over the course. Organs in or touching any field are not estimated: the
+ * over the course. The upper bound (k = 2) of the maximum is the highest of
+ * the samples' bounds, and that of the near-maximum the near-maximum of the
+ * samples' bounds: a sample less hot but farther out can carry the higher
+ * bound, as the uncertainty grows with distance; each such statistic's u is
+ * then the one its bound implies. Organs in or touching any field are not estimated: the
  * planning system's dose applies there.
  *
  * With the planning system's dose (RT Dose: one PLAN dose, or BEAM doses
@@ -196,6 +200,8 @@ typedef struct sl_organ_dose {
     double shield_transmission;   /* what-if transmission applied (1 for none) */
     bool near_edge;               /* min_distance_cm < SL_NEAR_EDGE_CM: marked, not judged */
     sl_budget course_max_budget;  /* the budget at the hottest sample, over the course */
+    bool upper_elsewhere;         /* the course maximum's upper bound is another sample's,
+                                     higher than the hottest sample's own */
     sl_budget course_nearest_budget; /* the same at the sample nearest the field edge */
     double *course_cgy;           /* per sample, for dose-volume histograms */
     bool landmark;                /* geometry measured on the patient (--landmark): not in

@@ -567,6 +567,20 @@ static void set_stat(sl_dose_stat *s, double v, double u)
     s->upper_cgy = v + 2 * u;
 }
 
+/* Raise a statistic's upper bound to the highest of its samples' bounds:
+ * the uncertainty grows with distance (the transfer component steps up at
+ * its band edges, the extrapolation component grows beyond the measured
+ * distances), so a sample a little less hot but farther out can carry a
+ * higher bound than the hottest one, and a screening judges by the bound.
+ * The uncertainty shown is the one that bound implies (k = 2). */
+static void raise_bound(sl_dose_stat *s, double upper)
+{
+    if (upper > s->upper_cgy) {
+        s->upper_cgy = upper;
+        s->u_cgy = 0.5 * (upper - s->cgy);
+    }
+}
+
 static sl_status organ_task_run(sl_estimate *e, size_t o)
 {
     sl_organ_dose *od = &e->organs[o];
@@ -624,6 +638,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     double *dg = calloc(n * ng, sizeof *dg), *ug = calloc(n * ng, sizeof *ug);
     double *uc = calloc(n, sizeof *uc), *ec = calloc(n, sizeof *ec);
     double *dmin = malloc(n * sizeof *dmin);
+    double *up = malloc(n * sizeof *up); /* each sample's upper bound (k = 2) */
     iv *order = malloc(n * sizeof *order);
     /* the planning system's course dose (cGy) at each sample, and whether
      * the sample takes it; the ratio accumulators: row 0 every beam, row
@@ -634,7 +649,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     if (e->tps_used)
         od->tps_acc = calloc(nrow * SL_TPS_BINS * 4, sizeof *od->tps_acc);
     if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
-        !dg || !ug || !uc || !ec || !dmin || !order || !use ||
+        !dg || !ug || !uc || !ec || !dmin || !up || !order || !use ||
         (e->tps_used && (!tv || !od->tps_acc))) {
         free(tv);
         free(use);
@@ -643,6 +658,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         free(uc);
         free(ec);
         free(dmin);
+        free(up);
         free(order);
         return SL_ENOMEM;
     }
@@ -672,6 +688,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                         free(uc);
                         free(ec);
                         free(dmin);
+                        free(up);
                         free(order);
                         od->excluded_why = "in or touching the field and partly outside the "
                                            "planning system's dose grid";
@@ -774,24 +791,33 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     for (int pass = -1; pass < (int)ng; pass++) {
         const double *dv = pass < 0 ? od->course_cgy : dg + (size_t)pass * n;
         const double *uv = pass < 0 ? uc : ug + (size_t)pass * n;
-        size_t imax = 0;
+        size_t imax = 0, iup = 0;
         double sum = 0, usum = 0;
         for (size_t i = 0; i < n; i++) {
             double w = s->is_point ? 1.0 : s->volume_cc[i];
             if (dv[i] > dv[imax])
                 imax = i;
+            up[i] = dv[i] + 2 * uv[i];
+            if (up[i] > up[iup])
+                iup = i;
             sum += w * dv[i];
             usum += w * uv[i];
         }
         size_t inm = nearmax_sample(dv, s->is_point ? NULL : s->volume_cc, n,
                                     od->nearmax_volume_cc, order);
+        size_t inmu = nearmax_sample(up, s->is_point ? NULL : s->volume_cc, n,
+                                     od->nearmax_volume_cc, order);
         sl_dose_stat *mx = pass < 0 ? &od->course_max : &od->fx_max[pass];
         sl_dose_stat *mn = pass < 0 ? &od->course_mean : &od->fx_mean[pass];
         sl_dose_stat *nm = pass < 0 ? &od->course_nearmax : &od->fx_nearmax[pass];
         sl_dose_stat *ne = pass < 0 ? &od->course_nearest : &od->fx_nearest[pass];
         set_stat(mx, dv[imax], uv[imax]);
+        raise_bound(mx, up[iup]);
         set_stat(mn, sum / vtot, usum / vtot);
         set_stat(nm, dv[inm], uv[inm]);
+        raise_bound(nm, up[inmu]);
+        if (pass < 0)
+            od->upper_elsewhere = up[iup] > dv[imax] + 2 * uv[imax];
         set_stat(ne, dv[nearest], uv[nearest]);
         if (pass < 0 && use[imax]) {
             /* a planning-system dose carries its stated uncertainty only */
@@ -825,6 +851,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         od->nearest_from_tps = use[nearest];
     }
     free(dmin);
+    free(up);
     free(order);
     free(tv);
     free(use);

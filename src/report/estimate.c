@@ -853,6 +853,9 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         if (d->estimated) {
             jw_num(w, x, "nearmax_volume_cc", d->nearmax_volume_cc);
             put_stat(w, x, "course_max", &d->course_max);
+            /* the bound is another sample's, higher than the hottest one's
+             * (its budget below is the hottest sample's) */
+            jw_bool(w, x, "course_max_upper_from_other_sample", d->upper_elsewhere);
             put_stat(w, x, "course_mean", &d->course_mean);
             put_stat(w, x, "course_nearmax", &d->course_nearmax);
             put_stat(w, x, "course_nearest", &d->course_nearest);

@@ -884,6 +884,44 @@ class ReviewFindings(unittest.TestCase):
         self.assertEqual(rc, 4, err)
         self.assertTrue(any("reaches the level" in a for a in o["advice"]))
 
+    def test_the_upper_bound_is_the_highest_of_the_samples_bounds(self):
+        """The demo fetus moved 7.8 cm toward the head, the MU cut to 85 %:
+        the fetus straddles 30 cm from the field edge, where the transfer
+        component steps from 60 % to 100 % (models/README.md), so its
+        farther, slightly less hot samples carry a higher upper bound than
+        its hottest one. A point inside the contour, beyond 30 cm, reads
+        "may exceed"; the organ holding it must not read lower (it read
+        "below level" before)."""
+        import pydicom
+        src = os.path.join(SOURCE_ROOT, "examples", "chest-fetus")
+        with tempdir() as d:
+            ss = pydicom.dcmread(os.path.join(src, "rtstruct.dcm"))
+            num = next(r.ROINumber for r in ss.StructureSetROISequence if r.ROIName == "Fetus")
+            rc_ = next(c for c in ss.ROIContourSequence if c.ReferencedROINumber == num)
+            for c in rc_.ContourSequence:
+                pts = [float(v) for v in c.ContourData]
+                for k in range(2, len(pts), 3):
+                    pts[k] += 78.0
+                c.ContourData = pts
+            plan = pydicom.dcmread(os.path.join(src, "rtplan.dcm"))
+            for rb_ in plan.FractionGroupSequence[0].ReferencedBeamSequence:
+                rb_.BeamMeterset = float(rb_.BeamMeterset) * 0.85
+            ps, pp = os.path.join(d, "ss.dcm"), os.path.join(d, "plan.dcm")
+            ss.save_as(ps)
+            plan.save_as(pp)
+            rc, js, err = estimate(pp, ps, "--gestational-age", "12", "--point",
+                                   "Fetus_inner=fetus@0,-40,-408mm")
+        f, p = organ(js, "Fetus"), organ(js, "Fetus_inner")
+        self.assertGreater(p["min_distance_cm"], 30)
+        self.assertLess(f["min_distance_cm"], 30)
+        self.assertEqual(p["status"], "may_exceed")
+        self.assertGreaterEqual(f["course_max_upper_cgy"], 0.99 * p["course_max_upper_cgy"])
+        self.assertEqual(f["status"], "may_exceed")
+        self.assertTrue(f["course_max_upper_from_other_sample"])
+        self.assertAlmostEqual(f["course_max_upper_cgy"],
+                               f["course_max_cgy"] + 2 * f["course_max_u_cgy"], places=6)
+        self.assertEqual(rc, 4, err)
+
 
 class NearTheFieldEdge(unittest.TestCase):
     def test_an_organ_within_1_cm_is_marked_and_not_judged(self):
