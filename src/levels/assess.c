@@ -427,8 +427,11 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
              * needs attention even where the model is not the reference */
             double lowest = INFINITY;
             for (size_t i = 0; k && i < k->nlevels; i++) {
-                if (sl_level_applies(k->levels[i].weeks_from, k->levels[i].weeks_to,
-                                     pt->gestational_weeks))
+                /* the periods count weeks after conception; with no age
+                 * given, every period's level could be the one */
+                if (isnan(pt->conception_weeks) ||
+                    sl_level_applies(k->levels[i].weeks_from, k->levels[i].weeks_to,
+                                     pt->conception_weeks))
                     lowest = fmin(lowest, k->levels[i].dose_gy);
             }
             if (k && k->nbands)
