@@ -184,11 +184,21 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                             "cannot be chosen",
                             f, b->number);
     bd->applicator = b->applicator.id;
+    /* a model is valid only for the machine it was measured on: another
+     * machine's beam is refused, not estimated with a mark (a batch with one
+     * model over a clinic's plans meets this routinely) */
     if (b->machine && m->machine.name && sl_strcasecmp(b->machine, m->machine.name) != 0)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d: TreatmentMachineName (300A,00B2) is '%s', but the model "
+                            "is of machine '%s': a model is valid only for the machine it was "
+                            "measured on (use that machine's model; a model's machine name must "
+                            "be the one the planning system gives the machine)",
+                            f, b->number, b->machine, m->machine.name);
+    if (!b->machine && m->machine.name)
         sl_notes_add(&e->notes,
-                     "beam %d is planned for treatment machine '%s', the model is of machine "
-                     "'%s': a model is valid only for the machine it was measured on",
-                     b->number, b->machine, m->machine.name);
+                     "beam %d names no treatment machine (300A,00B2): check that it is treated "
+                     "on '%s', the machine of the model",
+                     b->number, m->machine.name);
     const char *ins = choose_insert(m, b, e->opt.insert);
     bd->cutout = strcmp(ins, SL_INSERT_OPEN) != 0;
     if (!bd->cutout && bp->field.has_cutout)

@@ -236,15 +236,31 @@ class NoSilentChange(unittest.TestCase):
         self.assertEqual(organ_doses(a), organ_doses(b))
         self.assertTrue(any("repeat another exactly" in w for w in b["warnings"]))
 
-    def test_a_plan_for_another_machine_is_warned(self):
+    def test_a_plan_for_another_machine_is_refused(self):
+        """A model is valid only for the machine it was measured on
+        (models/README.md): a beam of another machine is an input error
+        that names the element and both machines, not an estimate with a
+        warning (found by an independent review: it read "no organ reaches
+        its action level" with exit 0). A beam that names no machine is
+        estimated, with a warning to check the machine."""
         with tempdir() as d:
             ds = pydicom.dcmread(PLAN)
             for b in ds.BeamSequence:
                 b.TreatmentMachineName = "OTHER-LINAC"
             path = os.path.join(d, "other.dcm")
             ds.save_as(path)
+            rc, out, err = run("estimate", path, SS, "--model", MODEL, "--format", "json")
+            self.assertEqual(rc, 3, err)
+            self.assertEqual(out, "")
+            self.assertEqual(len(err.strip().splitlines()), 1, err)
+            self.assertIn("TreatmentMachineName (300A,00B2) is 'OTHER-LINAC'", err)
+            self.assertIn("model is of machine 'DEMO-E1'", err)
+            self.assertIn(path, err)
+            for b in ds.BeamSequence:
+                del b.TreatmentMachineName
+            ds.save_as(path)
             js, _ = estimate_json(path, SS)
-        self.assertTrue(any("treatment machine 'OTHER-LINAC'" in w for w in js["warnings"]))
+        self.assertTrue(any("names no treatment machine" in w for w in js["warnings"]))
 
 
 class OutputsNeverOverInputs(unittest.TestCase):
