@@ -75,6 +75,17 @@ extern "C" {
 #define SL_OBLIQUITY_CAUTION_DEG 45.0
 /* Relative extrapolation uncertainty per cm beyond the measured range. */
 #define SL_EXTRAPOLATION_PER_CM 0.02
+/* Beyond the commissioned depths the nearest depth's profiles are used.
+ * Where the dose rises toward the uncommissioned side (between the two
+ * commissioned depths nearest it), the extrapolation component takes that
+ * rise continued: the logarithmic slope per cm times the depth beyond, as a
+ * relative standard uncertainty; where it falls, holding the nearest depth
+ * already errs high. Shallower than the shallowest commissioned depth, and
+ * for a model of one depth, at least this relative uncertainty per cm
+ * applies (a strayline default chosen to be cautious, not a published
+ * value: out-of-field dose near the surface can change by a fifth or more
+ * over a centimetre of depth, even where the commissioned depths fall). */
+#define SL_DEPTH_OUTSIDE_PER_CM 0.25
 /* The plausible range of an evaluation: distances from the field edge up
  * to this (cm; nothing in a treatment room is farther) and depths up to
  * SL_MAX_DEPTH_CM. Callers refuse anything beyond with an input error. */

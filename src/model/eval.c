@@ -751,6 +751,25 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
     out->u_meas = r.u_meas / r.v * out->percent;
     out->u_extrap = r.u_extrap / r.v * out->percent;
     out->u_interp = sqrt(between * between + (rs * r.v) * (rs * r.v)) * scale;
+    if (beyond > 1e-9) {
+        /* beyond the commissioned depths: the nearest depth's value, and the
+         * rise toward this side continued as an uncertainty (model.h) */
+        bool shallower = depth < c->depths[0];
+        double fixed = SL_DEPTH_OUTSIDE_PER_CM * beyond, rel = fixed;
+        if (c->ngroups >= 2) {
+            size_t g2 = shallower ? 1 : c->ngroups - 2;
+            double s2;
+            point_value n2 = group_value(&c->groups[g2], d, angle, how, &s2);
+            double slope = log(a.v / n2.v) / fabs(c->depths[g0] - c->depths[g2]);
+            rel = slope > 0 ? slope * beyond : 0;
+            /* toward the surface the scattered electrons' dose can rise
+             * although the commissioned depths fall: never less there */
+            if (shallower)
+                rel = fmax(rel, fixed);
+        }
+        if (rel > 0)
+            out->u_extrap = hypot(out->u_extrap, rel * out->percent);
+    }
 }
 
 /* Log-linear blend of two evaluations with weight w on b, as between

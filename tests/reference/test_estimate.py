@@ -922,6 +922,36 @@ class ReviewFindings(unittest.TestCase):
                                f["course_max_cgy"] + 2 * f["course_max_u_cgy"], places=6)
         self.assertEqual(rc, 4, err)
 
+    def test_shallower_than_the_commissioned_depths_the_bound_covers_the_surface(self):
+        """The demo model without its 9 MeV A06 profiles shallower than 1 cm:
+        at 0, 0.2 and 0.5 cm deep, 3 cm from the edge, the 1 cm profiles
+        stand in (flagged) and read up to a quarter below the full model.
+        The upper bound (k = 2) must still reach the full model's dose
+        there: at least SL_DEPTH_OUTSIDE_PER_CM (0.25 per cm, include/
+        strayline/model.h) of extrapolation uncertainty per cm toward the
+        surface (found by an independent review: the uncertainty was
+        unchanged)."""
+        with tempdir() as d:
+            m = dict(M)
+            m["profiles"] = [p for p in M["profiles"]
+                             if not (p["energy_mev"] == 9 and p["applicator"] == "A06"
+                                     and p["depth_cm"] < 1)]
+            self.assertLess(len(m["profiles"]), len(M["profiles"]))
+            trimmed = os.path.join(d, "trimmed.yaml")
+            with open(trimmed, "w") as f:
+                yaml.safe_dump(m, f)
+            for depth in ("0", "0.2", "0.5"):
+                args = ["-e", "9", "-a", "A06", "-d", depth, "-x", "3", "--format", "json"]
+                full = run_json("model", "eval", MODEL, *args)
+                cut = run_json("model", "eval", trimmed, *args)
+                self.assertIn("depth_outside_commissioned_range", cut["flags"])
+                self.assertLess(cut["dose_percent"], full["dose_percent"])
+                beyond = 1 - float(depth)
+                self.assertGreaterEqual(cut["uncertainty_extrapolation_percent"],
+                                        0.25 * beyond * cut["dose_percent"] * (1 - 1e-9))
+                self.assertGreaterEqual(cut["dose_percent"] + 2 * cut["uncertainty_percent"],
+                                        full["dose_percent"], depth)
+
 
 class NearTheFieldEdge(unittest.TestCase):
     def test_an_organ_within_1_cm_is_marked_and_not_judged(self):
