@@ -208,6 +208,7 @@ typedef struct sl_assessment {
     sl_level_check *checks;   /* every applicable level */
     int band, band_upper;     /* risk band by the estimate and by the upper bound; -1: none */
     bool flagged;             /* needs attention: exit code 4 */
+    bool unjudged;            /* has levels, and this screening could not judge it */
     bool shield_advised;
     double lead_mm, alloy_mm, shield_energy_mev;
     bool photon_dominated;

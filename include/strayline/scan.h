@@ -76,6 +76,7 @@ typedef struct sl_batch_entry {
     int rank;                    /* sort key: higher needs attention sooner */
     char *worst_status;          /* text, NULL when not screened */
     char *message;               /* why not screened, or what to supply */
+    char *unjudged;              /* organs with levels not judged ("ROI, ROI"), or NULL */
     char *report_json, *report_html, *report_pdf; /* names inside the output folder, or NULL */
     size_t nflagged;
     sl_flagged_organ *organs;

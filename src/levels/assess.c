@@ -49,6 +49,7 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
     if (!a->kind || (a->kind->nlevels == 0 && a->kind->nbands == 0))
         return;
     as->n_unjudged++;
+    a->unjudged = true;
     bool critical = a->kind->nbands > 0 || strcmp(a->kind->kind, "fetus") == 0;
     if (critical) {
         a->flagged = true;

@@ -56,7 +56,7 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
     static const char *const head[] = {"outcome", "flagged", "worst_status", "patient_id",
                                        "plan_label", "plan_uid", "structure_set_uid",
                                        "electron_beams", "organs_flagged", "flagged_organs",
-                                       "report_json", "report_html", "report_pdf", "plan_file",
+                                       "organs_not_judged", "report_json", "report_html", "report_pdf", "plan_file",
                                        "structure_set_file", "planning_system_dose",
                                        "message"};
     size_t nh = sizeof head / sizeof *head;
@@ -79,6 +79,7 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
         csv_field(fp, screened ? beams : "", false);
         csv_field(fp, screened ? nf : "", false);
         csv_field(fp, organs, false);
+        csv_field(fp, x->unjudged, false);
         csv_field(fp, x->report_json, false);
         csv_field(fp, x->report_html, false);
         csv_field(fp, x->report_pdf, false);
@@ -134,6 +135,8 @@ static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch
         jw_str(&w, p, "structure_set_file", x->ss_path);
         if (x->outcome == SL_OUT_SCREENED)
             jw_int(&w, p, "electron_beams", (long long)x->nbeams);
+        /* organs with levels this screening could not judge: not clear */
+        jw_str(&w, p, "organs_not_judged", x->unjudged);
         json_object *orgs = json_object_new_array();
         jw_put(&w, p, "flagged_organs", orgs);
         for (size_t k = 0; k < x->nflagged; k++) {
@@ -198,17 +201,23 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
         const sl_batch_entry *x = &e[i];
         xmlNodePtr tr = hel(&h, t, "tr", NULL);
         const char *verdict = x->outcome == SL_OUT_SCREENED
-                                  ? (x->flagged ? "FLAGGED" : "no organ flagged")
+                                  ? (x->flagged    ? "FLAGGED"
+                                     : x->unjudged ? "NOT JUDGED: see the report"
+                                                   : "no organ flagged")
                                   : sl_outcome_name(x->outcome);
         xmlNodePtr v = hel(&h, tr, "td", verdict);
         if (x->flagged)
             hattr(&h, v, "class", "status-exceeds");
+        else if (x->outcome == SL_OUT_SCREENED && x->unjudged)
+            hattr(&h, v, "class", "status-may");
         hel(&h, tr, "td", s_or(x->worst_status, ""));
         hel(&h, tr, "td", s_or(x->patient_id, ""));
         hel(&h, tr, "td", s_or(x->plan_label, s_or(x->plan_path, "")));
         snprintf(beams, sizeof beams, "%zu", x->nbeams);
         hattr(&h, hel(&h, tr, "td", x->outcome == SL_OUT_SCREENED ? beams : ""), "class", "n");
         organs_text(x, organs, sizeof organs);
+        if (!x->nflagged && x->unjudged)
+            snprintf(organs, sizeof organs, "not judged: %s", x->unjudged);
         hel(&h, tr, "td", organs);
         xmlNodePtr rc = hel(&h, tr, "td", NULL);
         if (x->report_html) {

@@ -44,21 +44,29 @@ void sl_sanitise_name(const char *in, char *out, size_t max)
     out[k] = '\0';
 }
 
-/* Sort key of a screened plan's organ: the worse, the higher. */
+/* Sort key of a screened plan's organ: the worse, the higher. Unflagged,
+ * an organ with levels left unjudged ranks above one judged below its
+ * level, and that above an organ without levels (a target, say), so that
+ * a plan's worst status names what a reader must look at. */
 static int organ_rank(const sl_assessment *a)
 {
-    if (!a->flagged)
-        return 0;
+    if (!a->flagged) {
+        if (a->unjudged)
+            return 2;
+        return a->governing || a->status == SL_ST_BAND ? 1 : 0;
+    }
     switch (a->status) {
-    case SL_ST_EXCEEDS: return 10;
-    case SL_ST_MAY_EXCEED: return 9;
-    case SL_ST_BAND: return 8;
-    default: return 7;
+    case SL_ST_EXCEEDS: return 11;
+    case SL_ST_MAY_EXCEED: return 10;
+    case SL_ST_BAND: return 9;
+    default: return 8;
     }
 }
 
-enum { RANK_ERROR = 6, RANK_INCOMPLETE = 5, RANK_BAD = 4, RANK_CLEAR = 3, RANK_SKIPPED = 2,
-       RANK_OTHER = 1 };
+/* Plans by rank: flagged (8 to 11, by their worst organ), then these. A
+ * plan with an organ left unjudged is not listed among the clear ones. */
+enum { RANK_FLAGGED = 8, RANK_ERROR = 7, RANK_INCOMPLETE = 6, RANK_BAD = 5, RANK_NOT_JUDGED = 4,
+       RANK_CLEAR = 3, RANK_SKIPPED = 2, RANK_OTHER = 1 };
 
 static char *xstrdup(const char *s, bool *ok)
 {
@@ -106,6 +114,17 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
             free(e->worst_status);
             e->worst_status = xstrdup(buf, &ok);
         }
+        if (a->unjudged && !a->flagged) {
+            /* named in the summary: not judged is not clear */
+            size_t had = e->unjudged ? strlen(e->unjudged) : 0, add = strlen(a->dose->roi->name);
+            char *u = realloc(e->unjudged, had + add + 3);
+            if (!u) {
+                ok = false;
+            } else {
+                snprintf(u + had, add + 3, "%s%s", had ? ", " : "", a->dose->roi->name);
+                e->unjudged = u;
+            }
+        }
         if (!a->flagged)
             continue;
         sl_flagged_organ *o = &e->organs[e->nflagged++];
@@ -142,12 +161,20 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
         /* flagged for something asked for and absent (a fetus, a device) */
         free(e->worst_status);
         e->worst_status = xstrdup(as->missing.count ? as->missing.items[0] : "flagged", &ok);
-        worst = 7;
+        worst = RANK_FLAGGED;
     }
-    if (!e->worst_status)
+    if (!e->worst_status) {
         e->worst_status = xstrdup("no organ estimated", &ok);
+    } else if (worst == 0) {
+        /* targets and organs without levels only: their statuses say
+         * nothing about the plan */
+        free(e->worst_status);
+        e->worst_status = xstrdup("no organ with action levels", &ok);
+    }
     e->flagged = as->any_flagged;
-    e->rank = as->any_flagged ? (worst > RANK_ERROR ? worst : 7) : RANK_CLEAR;
+    e->rank = as->any_flagged ? (worst >= RANK_FLAGGED ? worst : RANK_FLAGGED)
+              : e->unjudged  ? RANK_NOT_JUDGED
+                             : RANK_CLEAR;
     return ok;
 }
 

@@ -200,7 +200,7 @@ void sl_batch_entry_clear(sl_batch_entry *e)
 {
     char **s[] = {&e->plan_path,  &e->ss_path,      &e->patient_id, &e->plan_label,
                   &e->plan_uid,   &e->ss_uid,       &e->worst_status, &e->message,
-                  &e->report_json, &e->report_html, &e->report_pdf};
+                  &e->report_json, &e->report_html, &e->report_pdf, &e->unjudged};
     for (size_t i = 0; i < sizeof s / sizeof *s; i++)
         free(*s[i]);
     for (size_t i = 0; i < e->ntps; i++)

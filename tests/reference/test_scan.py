@@ -258,6 +258,57 @@ class MissingFact(unittest.TestCase):
             self.assertTrue(json.loads(out)["screenings"][0]["flagged"])
 
 
+class NotJudgedIsNotClear(unittest.TestCase):
+    """An organ with action levels that the screening cannot judge (here a
+    lens 0.9 cm from the field edge: near edge) leaves its plan unflagged
+    (README: counted, not passed as clear), but the summary must not list
+    that plan among the clear ones: its worst status is the lens's, it names
+    the lens, and it sorts above a plan with nothing unjudged (found by an
+    independent review: it read as clear, worst status the target's)."""
+
+    @staticmethod
+    def variant(dest, tag, near_lens):
+        copy_pair("face-lens", dest, tag)
+        plan_p, ss_p = os.path.join(dest, "rtplan.dcm"), os.path.join(dest, "rtstruct.dcm")
+        ss = pydicom.dcmread(ss_p)
+        for k, r in enumerate(ss.StructureSetROISequence):
+            if r.ROIName.startswith("PTV"):
+                continue
+            r.ROIName = ("Lens_L_near" if near_lens and r.ROIName == "Parotid_L"
+                         else "Other_%d" % k)
+        ss.save_as(ss_p)
+        plan = pydicom.dcmread(plan_p)
+        for b in plan.FractionGroupSequence[0].ReferencedBeamSequence:
+            b.BeamMeterset = 2.0
+        plan.save_as(plan_p)
+        return plan.SOPInstanceUID
+
+    def test_summary_names_the_unjudged_organ(self):
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            clear = self.variant(os.path.join(src, "a"), "CLEAR", False)
+            nj = self.variant(os.path.join(src, "b"), "NJ", True)
+            out = os.path.join(d, "out")
+            rc, _, err = scan(src, out)
+            self.assertEqual(rc, 0, err)
+            with open(os.path.join(out, "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertEqual([p["plan_uid"] for p in plans], [nj, clear])
+            self.assertFalse(plans[0]["flagged"])
+            self.assertEqual(plans[0]["organs_not_judged"], "Lens_L_near")
+            self.assertIn("near", plans[0]["worst_status"])
+            self.assertIsNone(plans[1]["organs_not_judged"])
+            self.assertEqual(plans[1]["worst_status"], "no organ with action levels")
+            with open(os.path.join(out, "summary.csv"), newline="") as f:
+                rows = list(csv.DictReader(f))
+            self.assertEqual(rows[0]["organs_not_judged"], "Lens_L_near")
+            self.assertEqual(rows[1]["organs_not_judged"], "")
+            with open(os.path.join(out, "index.html")) as f:
+                page = f.read()
+            self.assertIn("NOT JUDGED", page)
+            self.assertIn("not judged: Lens_L_near", page)
+
+
 class Pdf(unittest.TestCase):
     def test_pdf_reports(self):
         """--pdf: each plan's PDF report beside the others, read by poppler's
