@@ -209,6 +209,8 @@ typedef struct sl_assessment {
     int band, band_upper;     /* risk band by the estimate and by the upper bound; -1: none */
     bool flagged;             /* needs attention: exit code 4 */
     bool unjudged;            /* has levels, and this screening could not judge it */
+    double unjudged_level_gy; /* unjudged, and the value shown or its upper bound reaches
+                                 this level (its lowest that applies); 0 otherwise */
     bool shield_advised;
     double lead_mm, alloy_mm, shield_energy_mev;
     bool photon_dominated;

@@ -440,6 +440,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
             if (d->estimated && up >= lowest) {
                 a->flagged = true;
                 a->measurement_advised = true;
+                a->unjudged_level_gy = lowest;
                 sl_notes_add(&a->advice,
                              "the value shown (%.1f cGy, upper bound %.1f cGy) reaches the "
                              "level of %.1f cGy: though not judged here, check this organ's dose "

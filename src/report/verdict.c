@@ -89,6 +89,15 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
     sl_buf b = {0};
     const sl_organ_dose *d = a->dose;
     if (k == EST_V_NOT_JUDGED) {
+        if (a->unjudged_level_gy > 0) {
+            bool fetus = a->kind && strcmp(a->kind->kind, "fetus") == 0;
+            double f = fetus ? 1000 : 100;
+            sl_buf_printf(&b, "the value shown (upper bound %.1f %s) reaches the level of %.1f "
+                              "%s: check this organ's dose; ",
+                          f * (d->course_max.upper_cgy + a->other_cgy) / 100,
+                          fetus ? "mGy" : "cGy", f * a->unjudged_level_gy,
+                          fetus ? "mGy" : "cGy");
+        }
         if (a->status == SL_ST_IN_FIELD)
             sl_buf_printf(&b, "in or touching the field: use the planning system's dose");
         else if (d->flags & SL_MF_NEAR_EDGE)
@@ -124,7 +133,7 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
 static const char *status_word(const sl_assessment *a, est_vkind k)
 {
     if (k == EST_V_NOT_JUDGED)
-        return "NOT JUDGED";
+        return a->unjudged_level_gy > 0 ? "NOT JUDGED, REACHES LEVEL" : "NOT JUDGED";
     switch (a->status) {
     case SL_ST_EXCEEDS: return "EXCEEDS level";
     case SL_ST_MAY_EXCEED: return "MAY EXCEED level (upper bound)";

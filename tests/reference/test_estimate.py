@@ -878,6 +878,10 @@ class ReviewFindings(unittest.TestCase):
                                 [{"number": 1, "energy_mev": 12.0}],
                                 [{"number": 1, "fractions": 30, "beams": [(1, 400.0)]}])
             rc, js, err = estimate(plan, ss)
+            # the verdict line says so, not only the details
+            _, text, _ = run("estimate", plan, ss, "--model", MODEL)
+        self.assertIn("NOT JUDGED, REACHES LEVEL", text)
+        self.assertIn("reaches the level of 50.0 cGy: check this organ's dose", text)
         o = organ(js, "Lens_near")
         self.assertEqual(o["status"], "not_assessed")
         self.assertGreater(o["course_max_cgy"], 50)
