@@ -531,6 +531,12 @@ typedef struct eval_how {
     sl_eval_mode mode;
 } eval_how;
 
+/* The dose alone of the lean path (below): percent and the electrons' share. */
+typedef struct dose_part {
+    double v;      /* percent */
+    double e_frac; /* the electrons' share */
+} dose_part;
+
 typedef struct point_value {
     double v, u_fit, u_meas, u_extrap, e_frac;
     bool extrapolated, poor;
@@ -719,6 +725,9 @@ static void set_nan(sl_model_value *out)
     out->electron_percent = out->photon_percent = NAN;
 }
 
+static void group_dose(const depth_group *g, const double *d, size_t n, double angle,
+                       sl_eval_mode mode, bool linked, dose_part *out);
+
 /* One flat curve set (no members, one tilt and SSD) at one distance. */
 static void eval_flat(const sl_curve_set *c, double depth, double d, double angle,
                       eval_how how, double electron_t, sl_model_value *out)
@@ -758,8 +767,10 @@ static void eval_flat(const sl_curve_set *c, double depth, double d, double angl
         double fixed = SL_DEPTH_OUTSIDE_PER_CM * beyond, rel = fixed;
         if (c->ngroups >= 2) {
             size_t g2 = shallower ? 1 : c->ngroups - 2;
-            double s2;
-            point_value n2 = group_value(&c->groups[g2], d, angle, how, &s2);
+            /* the neighbour's dose alone (the lean path's, bitwise the
+             * same as the full evaluation's value) */
+            dose_part n2;
+            group_dose(&c->groups[g2], &d, 1, angle, how.mode, false, &n2);
             double slope = log(a.v / n2.v) / fabs(c->depths[g0] - c->depths[g2]);
             rel = slope > 0 ? slope * beyond : 0;
             /* toward the surface the scattered electrons' dose can rise
@@ -1005,10 +1016,7 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
  * whole values they need. The unit test dose_alone_equals_the_full_evaluation
  * holds the two paths bitwise equal. */
 
-typedef struct dose_part {
-    double v;      /* percent */
-    double e_frac; /* the electrons' share */
-} dose_part;
+
 
 /* A profile's dose at d from its fit there (value, electron and photon
  * parts): the measured points in that mode, the floor beyond them. */
