@@ -344,16 +344,22 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
             if (order[k] == EST_V_ATTENTION)
                 sl_buf_printf(&b, "%s%s (%s)", c++ ? ", " : "", v[i].organ, v[i].status);
             else
-                sl_buf_printf(&b, "%s%s", c++ ? ", " : "", v[i].organ);
+                sl_buf_printf(&b, "%s%s%s", c++ ? ", " : "", v[i].organ,
+                              v[i].a && v[i].a->unjudged_level_gy > 0
+                                  ? " (its value shown reaches its level)"
+                                  : "");
         }
     }
-    size_t natt = 0;
-    for (size_t i = 0; i < n; i++)
+    size_t natt = 0, nreach = 0;
+    for (size_t i = 0; i < n; i++) {
         natt += v[i].kind == EST_V_ATTENTION;
+        nreach += v[i].kind == EST_V_NOT_JUDGED && v[i].a && v[i].a->unjudged_level_gy > 0;
+    }
     if (!b.len)
         sl_buf_printf(&b, "no organ reaches its action level at this screening");
-    else if (!natt)
+    else if (!natt && !nreach)
         sl_buf_printf(&b, " (no judged organ reaches its action level)");
+
     if (as->nother)
         sl_buf_printf(&b, "; %zu treatment beam%s not estimated by this tool, %zu organ%s "
                           "incomplete",

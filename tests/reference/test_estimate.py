@@ -881,6 +881,8 @@ class ReviewFindings(unittest.TestCase):
             # the verdict line says so, not only the details
             _, text, _ = run("estimate", plan, ss, "--model", MODEL)
         self.assertIn("NOT JUDGED, REACHES LEVEL", text)
+        self.assertIn("RESULT: not judged: Lens_near (its value shown reaches its level)", text)
+        self.assertNotIn("no judged organ reaches its action level", text)
         self.assertIn("reaches the level of 50.0 cGy: check this organ's dose", text)
         o = organ(js, "Lens_near")
         self.assertEqual(o["status"], "not_assessed")
