@@ -175,6 +175,11 @@ static void fill_entry(const sl_estimate_report *r, const sl_assessment *a, est_
         char x[32];
         est_num(s * 100 * a->governing->dose_gy, x, sizeof x);
         snprintf(v->level, sizeof v->level, "%s %s", x, u);
+    } else if (a->unjudged_level_gy > 0) {
+        /* not judged, but its value reaches this level: shown beside it */
+        char x[32];
+        est_num(s * 100 * a->unjudged_level_gy, x, sizeof x);
+        snprintf(v->level, sizeof v->level, "%s %s", x, u);
     }
     v->whatif = whatif_for(r, a->dose->roi->name);
     char adv[sizeof v->advice];
