@@ -161,8 +161,16 @@ typedef struct sl_plan {
 
 void sl_plan_free(sl_plan *plan);
 
-/* Why a beam is not estimated, or NULL when it is a TREATMENT electron beam
- * that strayline handles. */
+/* Whether a beam delivers dose: every Treatment Delivery Type (300A,00CE)
+ * but SETUP, which applies no beam (DICOM PS3.3, RT Beams Module; from
+ * memory). TREATMENT, CONTINUATION (an interrupted treatment's rest) and
+ * TRMT_PORTFILM (a portal image taken with the treatment port) deliver
+ * treatment dose, OPEN_PORTFILM an open field's; a type this tool does not
+ * know is taken to deliver dose, the cautious reading. */
+bool sl_beam_delivers_dose(const sl_beam *beam);
+
+/* Why a beam is not estimated, or NULL when it is an electron beam that
+ * delivers dose (sl_beam_delivers_dose), which strayline estimates. */
 const char *sl_beam_skip_reason(const sl_beam *beam);
 
 const sl_beam *sl_plan_find_beam(const sl_plan *plan, int number);

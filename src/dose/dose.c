@@ -1006,6 +1006,14 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
         e->nbeams = b + 1;
         st = setup_beam(e, &loc->beams[b], &e->beams[b], err);
     }
+    /* an electron beam left out is said in every report (other kinds are
+     * listed as beams this tool does not estimate) */
+    for (size_t k = 0; k < loc->nskipped && st == SL_OK; k++) {
+        const sl_beam *sb = sl_plan_find_beam(plan, loc->skipped[k].number);
+        if (sb && sb->radiation_type && strcmp(sb->radiation_type, "ELECTRON") == 0)
+            sl_notes_add(&e->notes, "beam %d '%s' is not estimated: %s", sb->number,
+                         sb->name ? sb->name : "-", loc->skipped[k].reason);
+    }
     if (st == SL_OK && !isnan(opt->reference_dose_cgy))
         sl_notes_add(&e->notes,
                      "the reference dose is set by option to %.1f cGy a fraction for every beam: "

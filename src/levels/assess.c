@@ -194,7 +194,7 @@ static sl_status other_beams(sl_assessments *as, const sl_plan *plan)
         return SL_OK;
     for (size_t b = 0; b < plan->nbeams; b++) {
         const sl_beam *be = &plan->beams[b];
-        bool treatment = !be->delivery_type || strcmp(be->delivery_type, "TREATMENT") == 0;
+        bool treatment = sl_beam_delivers_dose(be);
         bool electron = be->radiation_type && strcmp(be->radiation_type, "ELECTRON") == 0;
         if (!treatment || electron)
             continue;

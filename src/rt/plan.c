@@ -98,12 +98,17 @@ static bool is(const char *s, const char *what)
     return s && strcmp(s, what) == 0;
 }
 
+bool sl_beam_delivers_dose(const sl_beam *beam)
+{
+    return !is(beam->delivery_type, "SETUP");
+}
+
 const char *sl_beam_skip_reason(const sl_beam *beam)
 {
     if (!is(beam->radiation_type, "ELECTRON"))
         return "not an electron beam (only electron beams are estimated)";
-    if (!is(beam->delivery_type, "TREATMENT"))
-        return "not a TREATMENT beam (setup and verification beams deliver no treatment dose)";
+    if (!sl_beam_delivers_dose(beam))
+        return "a SETUP beam (Treatment Delivery Type: no beam is applied)";
     return NULL;
 }
 
@@ -196,7 +201,7 @@ sl_status sl_plan_validate(sl_plan *plan, sl_error *err)
         if (!is(b->radiation_type, "ELECTRON"))
             continue;
         electrons++;
-        if (!is(b->delivery_type, "TREATMENT"))
+        if (!sl_beam_delivers_dose(b))
             continue;
         if (!is(b->beam_type, "STATIC"))
             return sl_error_set(err, SL_EINPUT,

@@ -262,6 +262,43 @@ class NoSilentChange(unittest.TestCase):
             js, _ = estimate_json(path, SS)
         self.assertTrue(any("names no treatment machine" in w for w in js["warnings"]))
 
+    def test_every_beam_that_delivers_dose_is_estimated(self):
+        """DICOM's Treatment Delivery Type (300A,00CE): CONTINUATION (the
+        rest of an interrupted treatment) and TRMT_PORTFILM (a portal image
+        with the treatment port) deliver treatment dose, so a second beam of
+        either type adds its dose as a TREATMENT beam does; only SETUP
+        applies no beam, and an electron SETUP beam is said in the report
+        (found by an independent review: such beams were dropped, the fetal
+        dose halved, with no mark)."""
+        import copy
+        src = os.path.join(SOURCE_ROOT, "examples", "chest-fetus")
+        ss = os.path.join(src, "rtstruct.dcm")
+        doses = {}
+        with tempdir() as d:
+            for dt in ("TREATMENT", "CONTINUATION", "TRMT_PORTFILM", "SETUP"):
+                p = pydicom.dcmread(os.path.join(src, "rtplan.dcm"))
+                b = copy.deepcopy(p.BeamSequence[0])
+                b.BeamNumber, b.BeamName, b.TreatmentDeliveryType = 3, "E12 B", dt
+                p.BeamSequence.append(b)
+                fg = p.FractionGroupSequence[0]
+                r = copy.deepcopy(fg.ReferencedBeamSequence[0])
+                r.ReferencedBeamNumber = 3
+                fg.ReferencedBeamSequence.append(r)
+                fg.NumberOfBeams = len(fg.ReferencedBeamSequence)
+                path = os.path.join(d, dt + ".dcm")
+                p.save_as(path)
+                js, _ = estimate_json(path, ss, "--gestational-age", "12")
+                doses[dt] = organ_doses(js)["Fetus"]
+                if dt == "SETUP":
+                    self.assertTrue(any("beam 3 'E12 B' is not estimated: a SETUP beam" in w
+                                        for w in js["warnings"]), js["warnings"])
+            one, _ = estimate_json(os.path.join(src, "rtplan.dcm"), ss, "--gestational-age", "12")
+        single = organ_doses(one)["Fetus"]
+        self.assertAlmostEqual(doses["TREATMENT"], 2 * single, delta=1e-6 * single)
+        self.assertEqual(doses["CONTINUATION"], doses["TREATMENT"])
+        self.assertEqual(doses["TRMT_PORTFILM"], doses["TREATMENT"])
+        self.assertEqual(doses["SETUP"], single)
+
 
 class OutputsNeverOverInputs(unittest.TestCase):
     def test_fit_refuses_to_write_over_a_profile_csv(self):
