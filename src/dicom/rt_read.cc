@@ -594,6 +594,27 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
         if (std::isfinite(a.v))
             check_angle(r, a.v, Reader::at(cctx, a.k));
     }
+    /* table-top pitch and roll and gantry pitch tilt the patient against
+     * the beam in ways the field placement does not model: a beam with any
+     * of them is refused rather than placed as if they were zero */
+    const struct {
+        DcmTagKey k;
+        const char *name;
+    } tilts[] = {{DCM_TableTopPitchAngle, "table-top pitch"},
+                 {DCM_TableTopRollAngle, "table-top roll"},
+                 {DCM_GantryPitchAngle, "gantry pitch"}};
+    for (const auto &t : tilts) {
+        double v = r.num(cp, t.k, cctx, false);
+        if (!electron || std::isnan(v))
+            continue;
+        check_angle(r, v, Reader::at(cctx, t.k));
+        double a = std::fabs(std::remainder(v, 360.0));
+        if (a > 0.05)
+            r.fail(SL_EINPUT, Reader::at(cctx, t.k),
+                   std::to_string(v) + " deg: " + t.name +
+                       " is not modelled (only gantry, collimator, couch and table-top "
+                       "eccentric angles are): the field would be placed wrongly");
+    }
     std::vector<double> iso = r.nums(cp, DCM_IsocenterPosition, cctx);
     if (!iso.empty()) {
         if (iso.size() != 3)

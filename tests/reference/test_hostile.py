@@ -299,6 +299,29 @@ class NoSilentChange(unittest.TestCase):
         self.assertEqual(doses["TRMT_PORTFILM"], doses["TREATMENT"])
         self.assertEqual(doses["SETUP"], single)
 
+    def test_table_top_pitch_roll_and_gantry_pitch_are_refused(self):
+        """Table Top Pitch (300A,0140) and Roll (300A,0144) Angles and the
+        Gantry Pitch Angle (300A,014A) tilt the patient against the beam;
+        the placement models gantry, collimator, couch and eccentric angles
+        only, so a beam with any of them non-zero is an input error naming
+        the element (found by an independent review: they were ignored, and
+        a 10 degree roll changed nothing). Zero (or 360) is accepted."""
+        with tempdir() as d:
+            for kw in ("TableTopPitchAngle", "TableTopRollAngle", "GantryPitchAngle"):
+                for v, ok in ((10.0, False), (350.0, False), (0.0, True), (360.0, True)):
+                    ds = pydicom.dcmread(PLAN)
+                    setattr(ds.BeamSequence[0].ControlPointSequence[0], kw, v)
+                    path = os.path.join(d, "tilted.dcm")
+                    ds.save_as(path)
+                    rc, out, err = run("estimate", path, SS, "--model", MODEL, "--format", "json")
+                    if ok:
+                        self.assertIn(rc, (0, 4), err)
+                        continue
+                    self.assertEqual(rc, 3, (kw, v, err))
+                    self.assertEqual(len(err.strip().splitlines()), 1, err)
+                    self.assertIn(kw, err)
+                    self.assertIn("is not modelled", err)
+
 
 class OutputsNeverOverInputs(unittest.TestCase):
     def test_fit_refuses_to_write_over_a_profile_csv(self):
