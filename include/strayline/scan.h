@@ -133,6 +133,18 @@ void sl_facts_free(sl_facts *f);
 const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
                                     const char *patient_id);
 
+/* The facts for a plan when both an entry of its plan UID and one of its
+ * patient ID may hold some: one view of the two, the plan's entry winning
+ * fact by fact (its weeks, age, sex; its organ kinds and doses from
+ * elsewhere for the ROIs it names, the patient's for the others; pacing
+ * dependence when either says so), so that a fact given for the patient is
+ * not lost when another is given for one plan. *found is false when neither
+ * entry exists. The view's key names the entries ("UID + ID"); its arrays
+ * are its own, their strings the facts' (sl_facts_view_free). */
+sl_status sl_facts_view(const sl_facts *f, const char *plan_uid, const char *patient_id,
+                        sl_facts_entry *out, bool *found, sl_error *err);
+void sl_facts_view_free(sl_facts_entry *v);
+
 /* --------------------------------------------------- screening -- */
 
 typedef struct sl_batch_config {

@@ -7,6 +7,7 @@
  * README.md.
  */
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -49,6 +50,80 @@ const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
         if (strcmp(f->items[i].key, patient_id) == 0)
             return &f->items[i];
     return NULL;
+}
+
+static const sl_facts_entry *find_key(const sl_facts *f, const char *key)
+{
+    for (size_t i = 0; key && i < f->n; i++)
+        if (strcmp(f->items[i].key, key) == 0)
+            return &f->items[i];
+    return NULL;
+}
+
+void sl_facts_view_free(sl_facts_entry *v)
+{
+    free(v->key);
+    free(v->map);
+    free(v->other);
+    memset(v, 0, sizeof *v);
+}
+
+sl_status sl_facts_view(const sl_facts *f, const char *plan_uid, const char *patient_id,
+                        sl_facts_entry *out, bool *found, sl_error *err)
+{
+    memset(out, 0, sizeof *out);
+    const sl_facts_entry *u = find_key(f, plan_uid), *p = find_key(f, patient_id);
+    *found = u || p;
+    if (!*found)
+        return SL_OK;
+    const sl_facts_entry *one = u ? u : p;
+    if (!u || !p) {
+        *out = *one;
+        out->key = strdup(one->key);
+        out->map = calloc(one->nmap ? one->nmap : 1, sizeof *out->map);
+        out->other = calloc(one->nother ? one->nother : 1, sizeof *out->other);
+        if (!out->key || !out->map || !out->other) {
+            sl_facts_view_free(out);
+            return sl_error_set(err, SL_ENOMEM, "out of memory");
+        }
+        memcpy(out->map, one->map, one->nmap * sizeof *out->map);
+        memcpy(out->other, one->other, one->nother * sizeof *out->other);
+        return SL_OK;
+    }
+    size_t kl = strlen(u->key) + strlen(p->key) + 4;
+    out->key = malloc(kl);
+    out->map = calloc(u->nmap + p->nmap + 1, sizeof *out->map);
+    out->other = calloc(u->nother + p->nother + 1, sizeof *out->other);
+    if (!out->key || !out->map || !out->other) {
+        sl_facts_view_free(out);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
+    snprintf(out->key, kl, "%s + %s", u->key, p->key);
+    bool weeks = !isnan(u->gestational_weeks) || !isnan(u->conception_weeks);
+    out->gestational_weeks = weeks ? u->gestational_weeks : p->gestational_weeks;
+    out->conception_weeks = weeks ? u->conception_weeks : p->conception_weeks;
+    out->pacing_dependent = u->pacing_dependent || p->pacing_dependent;
+    out->age_years = !isnan(u->age_years) ? u->age_years : p->age_years;
+    out->sex = u->sex ? u->sex : p->sex;
+    for (size_t i = 0; i < u->nmap; i++)
+        out->map[out->nmap++] = u->map[i];
+    for (size_t i = 0; i < p->nmap; i++) {
+        bool named = false;
+        for (size_t k = 0; k < u->nmap && !named; k++)
+            named = strcmp(u->map[k].roi, p->map[i].roi) == 0;
+        if (!named)
+            out->map[out->nmap++] = p->map[i];
+    }
+    for (size_t i = 0; i < u->nother; i++)
+        out->other[out->nother++] = u->other[i];
+    for (size_t i = 0; i < p->nother; i++) {
+        bool named = false;
+        for (size_t k = 0; k < u->nother && !named; k++)
+            named = strcmp(u->other[k].roi, p->other[i].roi) == 0;
+        if (!named)
+            out->other[out->nother++] = p->other[i];
+    }
+    return SL_OK;
 }
 
 static sl_status read_pairs(sl_yaml *y, yaml_node_t *n, const char *what, bool dose,

@@ -470,6 +470,7 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
     if (st == SL_OK)
         st = sl_dicom_read_structures(e->ss_path, &ss, &perr);
     const sl_facts_entry *facts = NULL;
+    sl_facts_entry fview = {0};
     if (st == SL_OK) {
         /* identities from the full reader (UTF-8, whole), not the header pass */
         free(e->patient_id);
@@ -486,7 +487,10 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
                                    e->plan_path)
                     : sl_error_set(&perr, SL_ENOMEM, "out of memory");
         }
-        facts = cfg->facts ? sl_facts_find(cfg->facts, e->plan_uid, e->patient_id) : NULL;
+        bool found = false;
+        if (st == SL_OK && cfg->facts)
+            st = sl_facts_view(cfg->facts, e->plan_uid, e->patient_id, &fview, &found, &perr);
+        facts = found ? &fview : NULL;
     }
     sl_rtdose **tps = NULL;
     long ntps = 0;
@@ -520,6 +524,7 @@ sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_erro
     }
     sl_buf opts = {0};
     facts_text(facts, e, ntps > 0, &opts);
+    sl_facts_view_free(&fview);
     st = opts.failed ? sl_error_set(err, SL_ENOMEM, "out of memory")
                      : log_entry(cfg, e, opts.data, err);
     sl_buf_free(&opts);

@@ -258,6 +258,39 @@ class MissingFact(unittest.TestCase):
             self.assertTrue(json.loads(out)["screenings"][0]["flagged"])
 
 
+class FactsOfPlanAndPatient(unittest.TestCase):
+    def test_a_plan_entry_does_not_hide_the_patient_entry(self):
+        """Pacing dependence given for the patient, a dose from elsewhere
+        for one of the patient's plans: both apply to that plan (the plan's
+        entry wins fact by fact), and the log names both entries (found by
+        an independent review: the plan's entry hid the patient's, and the
+        device's band came out one lower)."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            plan_uid, _, pid = copy_pair("neck-device", src, "MERGE")
+            facts = os.path.join(d, "facts.yaml")
+            with open(facts, "w") as f:
+                f.write("format: strayline-patient-facts\n"
+                        "notice: invented demo facts, not for clinical use\n"
+                        "patients:\n"
+                        "  - key: %s\n    pacing_dependent: true\n"
+                        "  - key: %s\n    other_dose: [{roi: Thyroid, cgy: 5}]\n"
+                        % (pid, plan_uid))
+            out = os.path.join(d, "out")
+            rc, _, err = scan(src, out, "--facts", facts)
+            self.assertIn(rc, (0, 4), err)
+            with open(os.path.join(out, "summary.json")) as f:
+                plan = json.load(f)["plans"][0]
+            with open(os.path.join(out, plan["report_json"])) as f:
+                rep = json.load(f)
+            self.assertTrue(rep["patient"]["pacing_dependent"])
+            thyroid = [o for o in rep["organs"] if o["roi"] == "Thyroid"][0]
+            self.assertEqual(thyroid["other_dose_cgy"], 5)
+            rows = log_rows(os.path.join(out, "screening.sqlite"))
+            self.assertIn("facts: %s + %s; pacing_dependent" % (plan_uid, pid),
+                          rows[0]["options"])
+
+
 class NotJudgedIsNotClear(unittest.TestCase):
     """An organ with action levels that the screening cannot judge (here a
     lens 0.9 cm from the field edge: near edge) leaves its plan unflagged
