@@ -67,6 +67,11 @@ static sl_status applicator_outline(const sl_plan *plan, const sl_beam *beam,
     return SL_OK;
 }
 
+/* How far (cm, at the isocentre) a cutout's vertex may lie outside its
+ * applicator's opening before the plan is refused: the opening comes from
+ * the catalogue's nominal size, and planning systems round the outline. */
+#define CUTOUT_OUTSIDE_CM 0.1
+
 sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
                          const sl_applicator_size *catalogue, size_t ncatalogue, sl_field *out,
                          sl_error *err)
@@ -147,6 +152,29 @@ sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
             st = sl_error_set(err, SL_EINPUT,
                               "%s: beam %d: a SHIELDING block lies outside the field opening",
                               plan->source, beam->number);
+    }
+    /* a cutout sits in its applicator: a vertex beyond the opening (more
+     * than CUTOUT_OUTSIDE_CM, for rounding) is not a field this applicator
+     * can give, and would be placed as a larger field than delivered */
+    for (size_t i = 0; st == SL_OK && out->applicator && i < beam->nblocks; i++) {
+        const sl_block *b = &beam->blocks[i];
+        if (b->type != SL_BLOCK_APERTURE)
+            continue;
+        for (size_t j = 0; j < b->npoints; j++) {
+            sl_vec2 q = {b->points[j].x * 0.1, b->points[j].y * 0.1};
+            double d = sl_outline_distance(out->applicator, q);
+            if (d > CUTOUT_OUTSIDE_CM) {
+                st = sl_error_set(err, SL_EINPUT,
+                                  "%s: beam %d: block %d: Block Data (300A,0106): point %zu "
+                                  "(%.1f, %.1f mm) lies %.1f cm outside the opening of "
+                                  "applicator '%s' at the isocentre: a cutout cannot be larger "
+                                  "than its applicator",
+                                  plan->source, beam->number, b->number, j + 1,
+                                  b->points[j].x, b->points[j].y, d,
+                                  beam->applicator.id ? beam->applicator.id : "(unnamed)");
+                break;
+            }
+        }
     }
     for (size_t i = 0; i < nloops; i++)
         free(pts[i]);

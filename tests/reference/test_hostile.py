@@ -322,6 +322,30 @@ class NoSilentChange(unittest.TestCase):
                     self.assertIn(kw, err)
                     self.assertIn("is not modelled", err)
 
+    def test_a_cutout_larger_than_its_applicator_is_refused(self):
+        """The face-lens beam's 6 x 6 cm applicator (models/demo-e1.yaml)
+        with its cutout replaced by squares: 6 x 6 cm fits; 8 x 8 cm cannot
+        be delivered through it and is an input error naming Block Data,
+        rather than a larger field that made organs 'in field' (found by an
+        independent review: a 40 x 40 cm cutout read 'not judged', exit 0)."""
+        with tempdir() as d:
+            for half, ok in ((30.0, True), (40.0, False), (200.0, False)):
+                ds = pydicom.dcmread(PLAN)
+                blk = ds.BeamSequence[0].BlockSequence[0]
+                sq = [-half, -half, half, -half, half, half, -half, half]
+                blk.BlockData = sq
+                blk.BlockNumberOfPoints = 4
+                path = os.path.join(d, "cut.dcm")
+                ds.save_as(path)
+                rc, out, err = run("estimate", path, SS, "--model", MODEL, "--format", "json")
+                if ok:
+                    self.assertIn(rc, (0, 4), err)
+                    continue
+                self.assertEqual(rc, 3, err)
+                self.assertEqual(len(err.strip().splitlines()), 1, err)
+                self.assertIn("Block Data (300A,0106)", err)
+                self.assertIn("outside the opening of applicator 'A06'", err)
+
 
 class OutputsNeverOverInputs(unittest.TestCase):
     def test_fit_refuses_to_write_over_a_profile_csv(self):
