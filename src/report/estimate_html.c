@@ -366,7 +366,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     const char *uhead[] = {"organ", "fit", "measurement", "interpolation", "extrapolation",
                            "stand-in", "tilt/SSD", "transfer", "setup shift", "combined"};
     hrow(&h, ut, true, uhead, 10);
-    bool any_tps_max = false;
+    bool any_tps_max = false, any_elsewhere = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
         if (!d->estimated)
@@ -385,12 +385,23 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
                  100 * SL_TPS_U_FRACTION);
             continue;
         }
-        hel(&h, tr, "td", d->roi->name);
+        if (d->upper_elsewhere) {
+            any_elsewhere = true;
+            helf(&h, tr, "td", "%s *", d->roi->name);
+        } else {
+            hel(&h, tr, "td", d->roi->name);
+        }
         for (size_t i = 0; i < EST_NBUDGET; i++) {
             char x1[32];
             hattr(&h, hel(&h, tr, "td", num(x1, sizeof x1, v[i])), "class", "n");
         }
     }
+    if (any_elsewhere)
+        hel(&h, b, "p",
+            "* The budget is the hottest sample's; the organ's upper bound is another "
+            "sample's, higher (the uncertainty grows with distance from the field), so the "
+            "u shown in the organ table is the one that bound implies, above this combined "
+            "value.");
     if (any_tps_max)
         helf(&h, b, "p",
              "An organ whose maximum is the planning system's dose has no model budget: its "

@@ -364,7 +364,7 @@ static void budget(pdoc *d, const sl_estimate_report *r)
                                        "setup shift", "combined"};
     ptable t = {10, w, head, 7.5};
     pdoc_table_head(d, &t);
-    bool any_tps = false;
+    bool any_tps = false, any_elsewhere = false;
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *dd = &e->organs[o];
         if (!dd->estimated)
@@ -376,6 +376,10 @@ static void budget(pdoc *d, const sl_estimate_report *r)
         for (size_t i = 0; i < EST_NBUDGET; i++) {
             est_num(v[i], c[i], sizeof c[i]);
             cells[i + 1] = c[i];
+        }
+        if (dd->upper_elsewhere && !dd->max_from_tps) {
+            any_elsewhere = true;
+            strncat(nm, " *", sizeof nm - strlen(nm) - 1);
         }
         if (dd->max_from_tps) {
             /* no model budget: the planning system's stated uncertainty only */
@@ -398,6 +402,13 @@ static void budget(pdoc *d, const sl_estimate_report *r)
                  100 * SL_TPS_U_FRACTION);
         pdoc_para(d, line, 7.5, false);
     }
+    if (any_elsewhere)
+        pdoc_para(d,
+                  "* The budget is the hottest sample's; the organ's upper bound is another "
+                  "sample's, higher (the uncertainty grows with distance from the field), so "
+                  "the u shown in the organ table is the one that bound implies, above this "
+                  "combined value.",
+                  7.5, false);
 }
 
 static void inputs(pdoc *d, const sl_estimate_report *r)
