@@ -86,8 +86,10 @@ sl_status sl_facts_view(const sl_facts *f, const char *plan_uid, const char *pat
             sl_facts_view_free(out);
             return sl_error_set(err, SL_ENOMEM, "out of memory");
         }
-        memcpy(out->map, one->map, one->nmap * sizeof *out->map);
-        memcpy(out->other, one->other, one->nother * sizeof *out->other);
+        if (one->nmap) /* an empty list may be NULL, which memcpy must not see */
+            memcpy(out->map, one->map, one->nmap * sizeof *out->map);
+        if (one->nother)
+            memcpy(out->other, one->other, one->nother * sizeof *out->other);
         return SL_OK;
     }
     size_t kl = strlen(u->key) + strlen(p->key) + 4;
