@@ -1016,8 +1016,6 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
  * whole values they need. The unit test dose_alone_equals_the_full_evaluation
  * holds the two paths bitwise equal. */
 
-
-
 /* A profile's dose at d from its fit there (value, electron and photon
  * parts): the measured points in that mode, the floor beyond them. */
 static dose_part curve_finish(const curve *cv, double d, sl_eval_mode mode, double fit,
