@@ -90,13 +90,11 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
     const sl_organ_dose *d = a->dose;
     if (k == EST_V_NOT_JUDGED) {
         if (a->unjudged_level_gy > 0) {
-            bool fetus = a->kind && strcmp(a->kind->kind, "fetus") == 0;
-            double f = fetus ? 1000 : 100;
+            double s = est_unit_scale(a); /* cGy to the organ's unit */
             sl_buf_printf(&b, "the value shown (upper bound %.1f %s) reaches the level of %.1f "
                               "%s: check this organ's dose; ",
-                          f * (d->course_max.upper_cgy + a->other_cgy) / 100,
-                          fetus ? "mGy" : "cGy", f * a->unjudged_level_gy,
-                          fetus ? "mGy" : "cGy");
+                          s * (d->course_max.upper_cgy + a->other_cgy), est_unit(a),
+                          s * 100 * a->unjudged_level_gy, est_unit(a));
         }
         if (a->status == SL_ST_IN_FIELD)
             sl_buf_printf(&b, "in or touching the field: use the planning system's dose");

@@ -40,24 +40,19 @@ void sl_facts_free(sl_facts *f)
     free(f);
 }
 
-const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
-                                    const char *patient_id)
-{
-    for (size_t i = 0; plan_uid && i < f->n; i++)
-        if (strcmp(f->items[i].key, plan_uid) == 0)
-            return &f->items[i];
-    for (size_t i = 0; patient_id && i < f->n; i++)
-        if (strcmp(f->items[i].key, patient_id) == 0)
-            return &f->items[i];
-    return NULL;
-}
-
 static const sl_facts_entry *find_key(const sl_facts *f, const char *key)
 {
     for (size_t i = 0; key && i < f->n; i++)
         if (strcmp(f->items[i].key, key) == 0)
             return &f->items[i];
     return NULL;
+}
+
+const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
+                                    const char *patient_id)
+{
+    const sl_facts_entry *u = find_key(f, plan_uid);
+    return u ? u : find_key(f, patient_id);
 }
 
 void sl_facts_view_free(sl_facts_entry *v)
@@ -73,26 +68,19 @@ sl_status sl_facts_view(const sl_facts *f, const char *plan_uid, const char *pat
 {
     memset(out, 0, sizeof *out);
     const sl_facts_entry *u = find_key(f, plan_uid), *p = find_key(f, patient_id);
+    if (p == u)
+        p = NULL; /* a key that is both: one entry */
     *found = u || p;
     if (!*found)
         return SL_OK;
-    const sl_facts_entry *one = u ? u : p;
-    if (!u || !p) {
-        *out = *one;
-        out->key = strdup(one->key);
-        out->map = calloc(one->nmap ? one->nmap : 1, sizeof *out->map);
-        out->other = calloc(one->nother ? one->nother : 1, sizeof *out->other);
-        if (!out->key || !out->map || !out->other) {
-            sl_facts_view_free(out);
-            return sl_error_set(err, SL_ENOMEM, "out of memory");
-        }
-        if (one->nmap) /* an empty list may be NULL, which memcpy must not see */
-            memcpy(out->map, one->map, one->nmap * sizeof *out->map);
-        if (one->nother)
-            memcpy(out->other, one->other, one->nother * sizeof *out->other);
-        return SL_OK;
-    }
-    size_t kl = strlen(u->key) + strlen(p->key) + 4;
+    /* one entry alone is merged with an empty one: the same rules serve */
+    static const sl_facts_entry none = {.gestational_weeks = NAN, .conception_weeks = NAN,
+                                        .age_years = NAN};
+    size_t kl = (u ? strlen(u->key) : 0) + (p ? strlen(p->key) : 0) + 4;
+    if (!u)
+        u = &none;
+    if (!p)
+        p = &none;
     out->key = malloc(kl);
     out->map = calloc(u->nmap + p->nmap + 1, sizeof *out->map);
     out->other = calloc(u->nother + p->nother + 1, sizeof *out->other);
@@ -100,7 +88,8 @@ sl_status sl_facts_view(const sl_facts *f, const char *plan_uid, const char *pat
         sl_facts_view_free(out);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
-    snprintf(out->key, kl, "%s + %s", u->key, p->key);
+    snprintf(out->key, kl, "%s%s%s", u->key ? u->key : "", u->key && p->key ? " + " : "",
+             p->key ? p->key : "");
     bool weeks = !isnan(u->gestational_weeks) || !isnan(u->conception_weeks);
     out->gestational_weeks = weeks ? u->gestational_weeks : p->gestational_weeks;
     out->conception_weeks = weeks ? u->conception_weeks : p->conception_weeks;
