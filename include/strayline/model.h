@@ -271,6 +271,16 @@ void sl_curves_prepare_shift(sl_curve_set *c, double shift_cm);
 void sl_curves_eval_percent_shift(const sl_curve_set *c, const sl_eval_query *q,
                                   double shift_cm, double out[2]);
 
+/* sl_curves_eval_query and sl_curves_eval_percent_shift at once, each
+ * result as those give it (out bitwise, shifted as the pair). For the
+ * stand-in of an uncommissioned cutout the lean walk of the pair also
+ * takes the query's own distance and chooses the candidate that gives the
+ * dose, so that the full evaluation, with its uncertainty components, is
+ * made of that candidate alone, and the others give their flags only.
+ * Thread-safe. */
+void sl_curves_eval_query_shift(const sl_curve_set *c, const sl_eval_query *q, double shift_cm,
+                                sl_model_value *out, double shifted[2]);
+
 /* Value at depth (cm) and distance from the field edge (cm), direction
  * unknown, applicator edge unknown (sl_curves_eval_query). `electron_t`
  * is a transmission (0..1) applied to the electron part only, for a what-if

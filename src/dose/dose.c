@@ -425,15 +425,15 @@ static sl_eval_query sample_query(const sl_estimate *e, size_t b, size_t o, size
     return r;
 }
 
-void sl_beam_eval(const sl_beam_dose *bd, const sl_eval_query *q, sl_model_value *v)
+/* beyond the commissioned SSDs at an extended one: the inverse square
+ * alone may under-read (the air gap widens the penumbra and spreads the
+ * applicator's scatter), so the upper bound keeps at least the estimate at
+ * the nominal SSD */
+static void extended_ssd_bound(const sl_beam_dose *bd, const sl_eval_query *q,
+                               sl_model_value *v)
 {
-    sl_curves_eval_query(bd->curves, q, v);
     if (!(v->flags & SL_MF_SSD_OUTSIDE) || !(bd->gap_cm > 0) || !isfinite(v->percent))
         return;
-    /* beyond the commissioned SSDs at an extended one: the inverse square
-     * alone may under-read (the air gap widens the penumbra and spreads the
-     * applicator's scatter), so the upper bound keeps at least the estimate
-     * at the nominal SSD */
     sl_eval_query qn = *q;
     qn.ssd_cm = NAN;
     double vn = sl_curves_eval_percent(bd->curves, &qn); /* its dose alone counts here */
@@ -445,19 +445,23 @@ void sl_beam_eval(const sl_beam_dose *bd, const sl_eval_query *q, sl_model_value
     }
 }
 
+void sl_beam_eval(const sl_beam_dose *bd, const sl_eval_query *q, sl_model_value *v)
+{
+    sl_curves_eval_query(bd->curves, q, v);
+    extended_ssd_bound(bd, q, v);
+}
+
 /* The model's value at the query and at +/- the setup shift; *us receives
  * the shift's uncertainty, and the result is the combined standard
- * uncertainty with it (percent). */
+ * uncertainty with it (percent). Of the shifted places only the dose
+ * counts: the extended-SSD bound changes uncertainties alone. */
 static double eval_shifted(const sl_beam_dose *bd, sl_eval_query q, double shift, double t,
                            sl_model_value *v, double *us)
 {
     q.electron_t = t;
-    sl_beam_eval(bd, &q, v);
-    /* of the shifted places only the dose counts: sl_beam_eval's extended-SSD
-     * bound changes uncertainties alone, and the model's percent without its
-     * components is the same number without every profile's covariance form */
     double p[2];
-    sl_curves_eval_percent_shift(bd->curves, &q, shift, p);
+    sl_curves_eval_query_shift(bd->curves, &q, shift, v, p);
+    extended_ssd_bound(bd, &q, v);
     *us = fmax(fabs(p[0] - v->percent), fabs(p[1] - v->percent));
     return sqrt(v->u_percent * v->u_percent + *us * *us);
 }

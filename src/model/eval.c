@@ -1040,23 +1040,23 @@ static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
     return curve_finish(cv, d, mode, fit, el, ph);
 }
 
-/* One profile at the n distances of a lean evaluation. linked: n is 2 and
- * d[1] is d[0] less twice the setup shift the set was prepared for, so the
- * second distance's exponentials come from the first's
- * (sl_profile_value_two). */
+/* One profile at the n distances of a lean evaluation. linked: d[1] is d[0]
+ * less twice the setup shift the set was prepared for, so the second
+ * distance's exponentials come from the first's (sl_profile_value_two);
+ * a third distance, when there is one, is evaluated on its own. */
 static void curve_doses(const curve *cv, const double *d, size_t n, sl_eval_mode mode,
                         bool linked, dose_part *out)
 {
-    if (!linked) {
-        for (size_t i = 0; i < n; i++)
-            out[i] = curve_dose(cv, d[i], mode);
-        return;
+    size_t i = 0;
+    if (linked) {
+        const sl_profile_fit *f = &cv->prof->fit;
+        double v[2], el[2], ph[2];
+        sl_profile_value_two(f->form, f->theta, d, cv->shift_k, v, el, ph);
+        for (; i < 2; i++)
+            out[i] = curve_finish(cv, d[i], mode, v[i], el[i], ph[i]);
     }
-    const sl_profile_fit *f = &cv->prof->fit;
-    double v[2], el[2], ph[2];
-    sl_profile_value_two(f->form, f->theta, d, cv->shift_k, v, el, ph);
-    for (size_t i = 0; i < 2; i++)
-        out[i] = curve_finish(cv, d[i], mode, v[i], el[i], ph[i]);
+    for (; i < n; i++)
+        out[i] = curve_dose(cv, d[i], mode);
 }
 
 static dose_part blend_dose(dose_part a, dose_part b, double w)
@@ -1073,11 +1073,12 @@ static dose_part blend_dose(dose_part a, dose_part b, double w)
 
 /* The lean path evaluates one query at up to LEAN_MAX distances at once:
  * where a query falls among the depths, directions, tilts and SSDs does
- * not depend on its distance, so the setup shift's two neighbours share
- * one walk down the curve set. Each distance's arithmetic is the single
+ * not depend on its distance, so the setup shift's two neighbours, and for
+ * a stand-in the query's own distance (to choose its candidate), share one
+ * walk down the curve set. Each distance's arithmetic is the single
  * evaluation's, step for step, but for the exponentials that a linked pair
  * shares (curve_doses). */
-#define LEAN_MAX 2
+#define LEAN_MAX 3
 
 static void group_dose(const depth_group *g, const double *d, size_t n, double angle,
                        sl_eval_mode mode, bool linked, dose_part *out)
@@ -1184,13 +1185,26 @@ static void set_dose(const sl_curve_set *c, double depth, const double *d, size_
         out[i] = blend_percent(a[i], i1 != i0 ? b[i] : a[i], w);
 }
 
-/* The percent at n (1 or LEAN_MAX) distances of one query: distance i is
+/* Which of a stand-in's candidates gives the dose at one distance, as the
+ * full evaluation chooses it: STANDIN_AT_EDGE the open curves from the
+ * cutout's edge, STANDIN_AT_APPLICATOR from the applicator's, a member's
+ * index above those; and the lowest candidate's dose. */
+enum { STANDIN_AT_EDGE = 0, STANDIN_AT_APPLICATOR = 1, STANDIN_MEMBER = 2 };
+
+typedef struct standin_pick {
+    size_t i;      /* the distance picked for (of the n) */
+    size_t winner;
+    double lo;
+} standin_pick;
+
+/* The percent at n (1 to LEAN_MAX) distances of one query: distance i is
  * d[i] from the field edge and app[i] from the applicator. linked and
- * app_linked: the pair's two field-edge or applicator distances are twice
- * the prepared shift apart (curve_doses). */
+ * app_linked: the first two field-edge or applicator distances are twice
+ * the prepared shift apart (curve_doses). pk, when given, receives a
+ * stand-in's choice at its distance pk->i (before any in-vivo scale). */
 static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const double *d,
                          const double *app, size_t n, bool linked, bool app_linked,
-                         double *out)
+                         standin_pick *pk, double *out)
 {
     double depth = q->depth_cm;
     double dd[LEAN_MAX], v[LEAN_MAX], cand[LEAN_MAX];
@@ -1205,6 +1219,11 @@ static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const do
         return;
     set_dose(c, depth, dd, n, q, linked, v);
     if (c->standin) {
+        size_t pi = pk ? pk->i : 0;
+        if (pk) {
+            pk->winner = STANDIN_AT_EDGE;
+            pk->lo = v[pi];
+        }
         bool app_ok[LEAN_MAX], app_any = false;
         double ad[LEAN_MAX];
         for (size_t i = 0; i < n; i++) {
@@ -1214,14 +1233,27 @@ static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const do
         }
         if (app_any) {
             set_dose(c, depth, ad, n, q, app_linked && app_ok[0] && app_ok[1], cand);
-            for (size_t i = 0; i < n; i++)
-                if (app_ok[i] && cand[i] > v[i])
+            for (size_t i = 0; i < n; i++) {
+                if (!app_ok[i])
+                    continue;
+                if (pk && i == pi) {
+                    pk->lo = fmin(pk->lo, cand[i]);
+                    if (cand[i] > v[i])
+                        pk->winner = STANDIN_AT_APPLICATOR;
+                }
+                if (cand[i] > v[i])
                     v[i] = cand[i];
+            }
         }
         for (size_t k = 0; k < c->nmembers; k++) {
             set_dose(c->members[k].set, depth, dd, n, q, linked, cand);
             for (size_t i = 0; i < n; i++) {
                 double m = cand[i] * c->members[k].scale;
+                if (pk && i == pi) {
+                    pk->lo = fmin(pk->lo, m);
+                    if (m > v[i])
+                        pk->winner = STANDIN_MEMBER + k;
+                }
                 if (m > v[i])
                     v[i] = m;
             }
@@ -1237,7 +1269,7 @@ static void eval_percent(const sl_curve_set *c, const sl_eval_query *q, const do
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q)
 {
     double out;
-    eval_percent(c, q, &q->distance_cm, &q->app_distance_cm, 1, false, false, &out);
+    eval_percent(c, q, &q->distance_cm, &q->app_distance_cm, 1, false, false, NULL, &out);
     return out;
 }
 
@@ -1273,7 +1305,185 @@ void sl_curves_eval_percent_shift(const sl_curve_set *c, const sl_eval_query *q,
     /* only an unclamped pair is twice the shift apart */
     bool prepared = shift_cm > 0 && c->shift_cm == shift_cm;
     eval_percent(c, q, d, app, 2, prepared && q->distance_cm - shift_cm >= 0,
-                 prepared && app[1] >= 0, out);
+                 prepared && app[1] >= 0, NULL, out);
+}
+
+/* ------------------------------------------------ flags alone -- */
+
+/* The flags the full evaluation of a set raises at one distance, without
+ * its values: the marks of a stand-in's candidates that do not give the
+ * dose, which the full evaluation keeps. Each function follows the one
+ * named in its comment, rule for rule; where that one picks the highest
+ * value (an unknown direction), the lean path's values, bitwise the same,
+ * decide. */
+typedef struct curve_marks {
+    bool extrapolated, poor;
+} curve_marks;
+
+/* blend's and blend_values' rule for the marks of a weighted pair */
+static curve_marks blend_marks(curve_marks a, curve_marks b, double w)
+{
+    if (w <= 0)
+        return a;
+    if (w >= 1)
+        return b;
+    return (curve_marks){a.extrapolated || b.extrapolated, a.poor || b.poor};
+}
+
+static unsigned blend_flags(unsigned a, unsigned b, double w)
+{
+    return w <= 0 ? a : w >= 1 ? b : a | b;
+}
+
+/* curve_value */
+static curve_marks curve_marks_at(const curve *cv, double d)
+{
+    const sl_model_profile *p = cv->prof;
+    double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
+    return (curve_marks){d > hi + 1e-9 || d < lo - 1e-9, p->fit.poor};
+}
+
+/* group_value */
+static curve_marks group_marks(const depth_group *g, double d, double angle, sl_eval_mode mode)
+{
+    if (g->ncurves == 1)
+        return curve_marks_at(&g->curves[0], d);
+    if (isnan(angle)) {
+        size_t best = 0;
+        double bv = curve_dose(&g->curves[0], d, mode).v;
+        for (size_t k = 1; k < g->ncurves; k++) {
+            double v = curve_dose(&g->curves[k], d, mode).v;
+            if (v > bv) {
+                bv = v;
+                best = k;
+            }
+        }
+        return curve_marks_at(&g->curves[best], d);
+    }
+    size_t k0, k1;
+    double w;
+    direction_bracket(g, angle, &k0, &k1, &w);
+    if (k0 == k1)
+        return curve_marks_at(&g->curves[k0], d);
+    curve_marks a = curve_marks_at(&g->curves[k0], d), b = curve_marks_at(&g->curves[k1], d);
+    curve_marks r = blend_marks(a, b, w);
+    r.extrapolated = (w < 1 && a.extrapolated) || (w > 0 && b.extrapolated);
+    return r;
+}
+
+/* eval_flat */
+static unsigned flat_flags(const sl_curve_set *c, double depth, double d, double angle,
+                           sl_eval_mode mode)
+{
+    size_t g0, g1;
+    double w, beyond;
+    bracket(c->depths, c->ngroups, depth, &g0, &g1, &w, &beyond);
+    unsigned f = beyond > 1e-9 ? SL_MF_DEPTH_OUTSIDE : 0;
+    curve_marks a = group_marks(&c->groups[g0], d, angle, mode);
+    curve_marks b = g1 == g0 ? a : group_marks(&c->groups[g1], d, angle, mode);
+    curve_marks r = blend_marks(a, b, w);
+    if (r.extrapolated)
+        f |= SL_MF_EXTRAPOLATED;
+    if (r.poor)
+        f |= SL_MF_POOR_FIT;
+    return f;
+}
+
+/* eval_at_ssd */
+static unsigned ssd_flags(const sl_curve_set *c, size_t r, double depth, double d,
+                          const sl_eval_query *q)
+{
+    const double *tl = c->rows[r].tilts;
+    const sl_curve_set *const *sets = c->rows[r].sets;
+    size_t n = c->rows[r].n;
+    unsigned f = 0;
+    if (isnan(q->tilt_deg)) {
+        for (size_t k = 0; k < n; k++)
+            f |= flat_flags(sets[k], depth, d, q->angle_deg, q->mode);
+        return f;
+    }
+    size_t i0, i1;
+    double w, beyond;
+    bracket(tl, n, q->tilt_deg, &i0, &i1, &w, &beyond);
+    unsigned a = flat_flags(sets[i0], depth, d, q->angle_deg, q->mode);
+    unsigned b = i1 != i0 ? flat_flags(sets[i1], depth, d, q->angle_deg, q->mode) : a;
+    f = blend_flags(a, b, w);
+    if (beyond > SL_TILT_TOLERANCE_DEG)
+        f |= SL_MF_TILT_OUTSIDE;
+    return f;
+}
+
+/* eval_set */
+static unsigned set_flags(const sl_curve_set *c, double depth, double d, const sl_eval_query *q)
+{
+    double ssd = ssd_used(c, q->ssd_cm);
+    size_t i0, i1;
+    double w, beyond;
+    bracket(c->ssds, c->nssds, ssd, &i0, &i1, &w, &beyond);
+    unsigned f;
+    if (c->nlayers == 0) {
+        f = flat_flags(c, depth, d, q->angle_deg, q->mode);
+        double tb = isnan(q->tilt_deg) ? 0 : fabs(q->tilt_deg - c->tilts[0]);
+        if (tb > SL_TILT_TOLERANCE_DEG)
+            f |= SL_MF_TILT_OUTSIDE;
+    } else {
+        unsigned a = ssd_flags(c, i0, depth, d, q);
+        unsigned b = i1 != i0 ? ssd_flags(c, i1, depth, d, q) : a;
+        f = blend_flags(a, b, w);
+    }
+    if (beyond > SL_SSD_TOLERANCE_CM)
+        f |= SL_MF_SSD_OUTSIDE;
+    return f;
+}
+
+void sl_curves_eval_query_shift(const sl_curve_set *c, const sl_eval_query *q, double shift_cm,
+                                sl_model_value *out, double shifted[2])
+{
+    double depth = q->depth_cm, d = q->distance_cm, app = q->app_distance_cm;
+    if (!c->standin || isnan(depth) || isnan(d) || !(d >= 0)) {
+        sl_curves_eval_query(c, q, out);
+        sl_curves_eval_percent_shift(c, q, shift_cm, shifted);
+        return;
+    }
+    /* the pair of sl_curves_eval_percent_shift, and the query's own distance
+     * to choose the candidate that gives the dose */
+    const double d3[3] = {d + shift_cm, fmax(d - shift_cm, 0), d};
+    const double app3[3] = {app + shift_cm, app - shift_cm, app};
+    bool prepared = shift_cm > 0 && c->shift_cm == shift_cm;
+    standin_pick pk = {2, STANDIN_AT_EDGE, NAN};
+    double v3[3];
+    eval_percent(c, q, d3, app3, 3, prepared && d - shift_cm >= 0, prepared && app3[1] >= 0,
+                 &pk, v3);
+    shifted[0] = v3[0];
+    shifted[1] = v3[1];
+    /* sl_curves_eval_query's stand-in, with the full evaluation of the
+     * chosen candidate only and the others' flags */
+    eval_how how = {q->mode};
+    unsigned given = q->mode == SL_EVAL_POINTS ? SL_MF_POINTS_MODE : 0, others = 0;
+    bool app_ok = isfinite(app) && app >= 0;
+    if (pk.winner != STANDIN_AT_EDGE)
+        others |= set_flags(c, depth, d, q);
+    if (app_ok && pk.winner != STANDIN_AT_APPLICATOR)
+        others |= set_flags(c, depth, app, q);
+    for (size_t k = 0; k < c->nmembers; k++)
+        if (pk.winner != STANDIN_MEMBER + k)
+            others |= set_flags(c->members[k].set, depth, d, q);
+    *out = zero_value;
+    if (pk.winner == STANDIN_AT_EDGE) {
+        out->depth_used_cm = depth;
+        out->flags = given;
+        eval_set(c, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, how, q->electron_t, out);
+    } else if (pk.winner == STANDIN_AT_APPLICATOR) {
+        eval_set(c, depth, app, q->angle_deg, q->tilt_deg, q->ssd_cm, how, q->electron_t, out);
+    } else {
+        const member *mb = &c->members[pk.winner - STANDIN_MEMBER];
+        eval_set(mb->set, depth, d, q->angle_deg, q->tilt_deg, q->ssd_cm, how, q->electron_t,
+                 out);
+        scale_value(out, mb->scale);
+    }
+    out->flags |= given | others | SL_MF_OPEN_FOR_CUTOUT;
+    out->u_standin = 0.5 * (out->percent - pk.lo);
+    combine(c, d, out);
 }
 
 void sl_curves_eval(const sl_curve_set *c, double depth, double d, sl_eval_mode mode,

@@ -347,6 +347,20 @@ END_TEST
  * farther's) within 1e-13 relative of them, the farther bitwise. A
  * consistency check of paths through the same code; the values themselves
  * are checked elsewhere. */
+/* Every field of two values bitwise (the struct's padding aside). */
+static bool same_value(const sl_model_value *a, const sl_model_value *b)
+{
+    const double x[] = {a->percent, a->u_percent, a->u_fit, a->u_meas, a->u_interp,
+                        a->u_extrap, a->u_standin, a->u_transfer, a->u_uncommissioned,
+                        a->scale, a->electron_percent, a->photon_percent, a->depth_used_cm,
+                        a->tilt_used_deg, a->ssd_used_cm};
+    const double y[] = {b->percent, b->u_percent, b->u_fit, b->u_meas, b->u_interp,
+                        b->u_extrap, b->u_standin, b->u_transfer, b->u_uncommissioned,
+                        b->scale, b->electron_percent, b->photon_percent, b->depth_used_cm,
+                        b->tilt_used_deg, b->ssd_used_cm};
+    return memcmp(x, y, sizeof x) == 0 && a->flags == b->flags;
+}
+
 START_TEST(dose_alone_equals_the_full_evaluation)
 {
     sl_model *m;
@@ -362,7 +376,7 @@ START_TEST(dose_alone_equals_the_full_evaluation)
     const double angles[] = {NAN, 0, 30, 90};
     const double tilts[] = {NAN, -20, -7.5, 0, 12, 30};
     const double ssds[] = {NAN, 96, 100, 106, 110, 125};
-    size_t n = 0, nshort = 0;
+    size_t n = 0, nshort = 0, nstandin = 0;
     for (size_t k = 0; k < sizeof sets / sizeof *sets; k++) {
         sl_curve_set *c, *cp;
         unsigned fl;
@@ -398,6 +412,21 @@ START_TEST(dose_alone_equals_the_full_evaluation)
                                 double pair[2], linked[2];
                                 sl_curves_eval_percent_shift(c, &q, 0.5, pair);
                                 sl_curves_eval_percent_shift(cp, &q, 0.5, linked);
+                                /* both at once: the same value, flags and pair,
+                                 * a stand-in's chosen candidate alone in full */
+                                for (int pr = 0; pr < 2; pr++) {
+                                    sl_model_value w;
+                                    double two[2];
+                                    sl_curves_eval_query_shift(pr ? cp : c, &q, 0.5, &w, two);
+                                    ck_assert_msg(same_value(&v, &w),
+                                                  "set %zu, query %zu: query_shift differs", k,
+                                                  n);
+                                    ck_assert_msg(memcmp(two, pr ? linked : pair,
+                                                         sizeof two) == 0,
+                                                  "set %zu, query %zu: query_shift pair", k, n);
+                                    nstandin += pr == 0 && sets[k].ins != NULL &&
+                                                (v.flags & SL_MF_OPEN_FOR_CUTOUT);
+                                }
                                 for (int i = 0; i < 2; i++) {
                                     sl_eval_query qi = q;
                                     qi.distance_cm = pd[i];
@@ -428,6 +457,8 @@ START_TEST(dose_alone_equals_the_full_evaluation)
     /* the prepared sets took the shortcut: some nearer distances differ in
      * their last bits */
     ck_assert_uint_gt(nshort, 0);
+    /* and the stand-ins were among the queries */
+    ck_assert_uint_gt(nstandin, 0);
     sl_model_free(m);
 }
 END_TEST
