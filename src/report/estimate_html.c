@@ -213,7 +213,8 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
                  p->label ? p->label : "-");
         size_t k = 0;
         for (const char *c = pid; *c && k + 8 < sizeof esc; c++) {
-            if (*c == '"' || *c == '\\' || (unsigned char)*c < 0x20)
+            if (*c == '"' || *c == '\\' || *c == '<' || *c == '>' || *c == '&' ||
+                (unsigned char)*c < 0x20)
                 k += (size_t)snprintf(esc + k, sizeof esc - k, "\\%02x ", (unsigned char)*c);
             else
                 esc[k++] = *c;

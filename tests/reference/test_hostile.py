@@ -350,6 +350,54 @@ class NoSilentChange(unittest.TestCase):
                 self.assertIn("outside the opening of applicator 'A06'", err)
 
 
+class MarkupInNames(unittest.TestCase):
+    """Names from the DICOM files reach the HTML report's page header as a
+    CSS string inside a <style> element, whose text HTML does not escape
+    (HTML Living Standard, raw text elements); there '<', '>' and '&' are
+    written as CSS escapes (CSS Syntax Level 3, 4.3.7), so a name cannot end
+    the element. Python's html.parser is the reference reader (found by an
+    independent review: a PatientName holding '</style><script>' ran in the
+    report)."""
+
+    def test_a_name_cannot_end_the_style_element(self):
+        import html.parser
+
+        class Tags(html.parser.HTMLParser):
+            def __init__(self):
+                super().__init__()
+                self.tags, self.style = [], ""
+                self.in_style = False
+
+            def handle_starttag(self, tag, attrs):
+                self.tags.append(tag)
+                self.in_style = tag == "style"
+
+            def handle_endtag(self, tag):
+                self.in_style = False
+
+            def handle_data(self, data):
+                if self.in_style:
+                    self.style += data
+
+        name = "X</style><script>document.title='INJECTED'</script>&amp;"
+        with tempdir() as d:
+            paths = []
+            for src, base in ((PLAN, "plan.dcm"), (SS, "ss.dcm")):
+                ds = pydicom.dcmread(src)
+                ds.PatientName = name
+                ds.RTPlanLabel = "P<b>1" if base == "plan.dcm" else ds.get("RTPlanLabel", "")
+                paths.append(os.path.join(d, base))
+                ds.save_as(paths[-1])
+            out = os.path.join(d, "r.html")
+            rc, _, err = run("estimate", paths[0], paths[1], "--model", MODEL, "--html", out)
+            self.assertIn(rc, (0, 4), err)
+            p = Tags()
+            p.feed(open(out, encoding="utf-8").read())
+        self.assertNotIn("script", p.tags)
+        self.assertNotIn("b", p.tags)
+        self.assertIn("\\3c /style\\3e \\3c script\\3e ", p.style)
+
+
 class OutputsNeverOverInputs(unittest.TestCase):
     def test_fit_refuses_to_write_over_a_profile_csv(self):
         with tempdir() as d:
