@@ -40,8 +40,11 @@ typedef struct curve {
     /* what every evaluation beyond the measured points needs, fixed by the
      * profile: computed once here rather than at every sample */
     double fit_lo, fit_hi; /* the fit at the nearest and the farthest measured distance */
-    double u_hi;           /* the fit's standard uncertainty at the farthest */
+    double u_lo, u_hi;     /* the fit's standard uncertainty there */
     double floor;          /* the level held beyond the farthest (measured_floor) */
+    double near_floor;     /* the level held nearer the edge than the nearest measured
+                              distance: the larger of the fit and the dose measured there */
+    double near_rise;      /* relative extrapolation per cm toward the edge from there */
     double shift_k[2];     /* decay factors over twice the prepared setup shift */
 } curve;
 
@@ -97,8 +100,8 @@ const char *sl_model_flag_text(unsigned flag)
     case SL_MF_IN_FIELD: return "in field: the out-of-field model does not apply";
     case SL_MF_DEPTH_OUTSIDE: return "depth outside the commissioned depths (nearest depth used)";
     case SL_MF_EXTRAPOLATED:
-        return "beyond the measured distances (extrapolated, held at least at the farthest "
-               "measured level)";
+        return "outside the measured distances (extrapolated, held at least at the nearest "
+               "measured level: the farthest beyond them, the first nearer the edge)";
     case SL_MF_OPEN_FOR_CUTOUT:
         return "cutout not commissioned: the largest of the open profiles from the cutout's "
                "and the applicator's edge and the commissioned inserts is used";
@@ -225,6 +228,21 @@ static double measured_floor(const sl_model_profile *p, double fit_hi)
     return fmax(sum / (double)k, fit_hi);
 }
 
+/* How fast the dose may rise toward the edge nearer than a profile's first
+ * measured distance, relative per cm: the log slope of its first three
+ * measured doses continued, and never less than the rate beyond the
+ * farthest (SL_EXTRAPOLATION_PER_CM). A profile measured from the edge
+ * never needs it. */
+static double near_rise(const sl_model_profile *p)
+{
+    size_t k = p->n < 3 ? p->n - 1 : 2;
+    double slope = 0;
+    if (k > 0 && p->dose_percent[k] > 0 && p->distance_cm[k] > p->distance_cm[0])
+        slope = log(p->dose_percent[0] / p->dose_percent[k]) /
+                (p->distance_cm[k] - p->distance_cm[0]);
+    return fmax(slope, SL_EXTRAPOLATION_PER_CM);
+}
+
 /* The curves of exactly this energy, applicator, insert, tilt and SSD (n of
  * them). */
 static sl_status build_flat(const sl_model *m, double e, const char *app, const char *ins,
@@ -277,9 +295,11 @@ static sl_status build_flat(const sl_model *m, double e, const char *app, const 
         c->range_lo = fmin(c->range_lo, sel[i]->fit.range_lo_cm);
         c->range_hi = fmax(c->range_hi, sel[i]->fit.range_hi_cm);
         size_t np = sel[i]->n;
-        cv->fit_lo = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[0], NULL);
+        cv->fit_lo = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[0], &cv->u_lo);
         cv->fit_hi = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[np - 1], &cv->u_hi);
         cv->floor = measured_floor(sel[i], cv->fit_hi);
+        cv->near_floor = fmax(sel[i]->dose_percent[0], cv->fit_lo);
+        cv->near_rise = near_rise(sel[i]);
         cv->logdose = malloc(np * sizeof *cv->logdose);
         cv->interp = np >= 3 ? gsl_interp_alloc(gsl_interp_steffen, np)
                              : gsl_interp_alloc(gsl_interp_linear, np);
@@ -584,6 +604,17 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
             r.v = floor;
         }
         r.u_extrap = SL_EXTRAPOLATION_PER_CM * (d - hi) * r.v;
+    } else if (d < lo) {
+        /* nearer the edge than measured: a peaked fit may fall again there
+         * while the dose rises toward the edge, so the nearest measured
+         * level holds, and the distance from it is an extrapolation */
+        double floor = cv->near_floor;
+        if (!(r.v >= floor)) {
+            r.u_fit = cv->fit_lo > 0 ? cv->u_lo / cv->fit_lo * floor : 0;
+            r.e_frac = r.v > 0 ? r.e_frac * r.v / floor : 0;
+            r.v = floor;
+        }
+        r.u_extrap = cv->near_rise * (lo - d) * r.v;
     }
     r.poor = p->fit.poor;
     double rel = p->rel_uncertainty * r.v;
@@ -1023,12 +1054,15 @@ static dose_part curve_finish(const curve *cv, double d, sl_eval_mode mode, doub
 {
     const sl_model_profile *p = cv->prof;
     dose_part r = {fit, el + ph > 0 ? el / (el + ph) : 0};
-    double hi = p->distance_cm[p->n - 1];
+    double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
     if (mode == SL_EVAL_POINTS)
         r.v = points_value(cv, d, fit);
     if (d > hi && !(r.v >= cv->floor)) {
         r.e_frac = r.v > 0 ? r.e_frac * r.v / cv->floor : 0;
         r.v = cv->floor;
+    } else if (d < lo && !(r.v >= cv->near_floor)) {
+        r.e_frac = r.v > 0 ? r.e_frac * r.v / cv->near_floor : 0;
+        r.v = cv->near_floor;
     }
     return r;
 }

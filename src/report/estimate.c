@@ -51,7 +51,7 @@ void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size)
 
 const char *est_marks_legend(void)
 {
-    return "[extrapolated] beyond the measured distances (held at least at the farthest "
+    return "[extrapolated] outside the measured distances (held at least at the nearest "
            "measured level); [depth] deeper or shallower than the commissioned depths (nearest "
            "depth used); [stand-in] cutout not commissioned (largest of the open profiles from "
            "both edges and the commissioned inserts); [poor fit] a profile used fits its points "
@@ -155,8 +155,9 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Organs closer than %.0f cm to the field edge are marked [near edge] and not "
                  "judged: the planning system's dose is the reference there. Beyond a profile's "
-                 "measured distances its value is held at least at the farthest measured level "
-                 "(marked [extrapolated]); organs more than %.1f times the farthest measured "
+                 "measured distances its value is held at least at the farthest measured level, "
+                 "and nearer the edge than its first at that level (marked [extrapolated]); "
+                 "organs more than %.1f times the farthest measured "
                  "distance away are shown, not judged.",
                  SL_NEAR_EDGE_CM, SL_BEYOND_RANGE_FACTOR);
     if (n < max)

@@ -294,7 +294,7 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
         unsigned flag;
         const char *text;
     } kinds[] = {
-        {SL_MF_EXTRAPOLATED, "beyond the measured distances (held at least at the farthest "
+        {SL_MF_EXTRAPOLATED, "outside the measured distances (held at least at the nearest "
                              "measured level)"},
         {SL_MF_DEPTH_OUTSIDE, "deeper or shallower than the commissioned depths (the nearest "
                               "commissioned depth is used)"},

@@ -296,6 +296,53 @@ class HandMadeModel(unittest.TestCase):
         self.assertIn("9 MeV/A10", err)
 
 
+class NearerTheEdgeThanMeasured(unittest.TestCase):
+    """A peaked profile measured from 3 cm out, whose bump (mu 3.5 cm) makes
+    the fitted form fall again toward the edge before its first point. The
+    formulas of models/README.md (Distance) give the expected numbers: the
+    first measured level holds nearer the edge, flagged extrapolated, with
+    the extrapolation component the measured rise of the first three points
+    (log slope per cm) times the distance from the first point (found by an
+    independent review: the fit read 2.6 times low at 1 cm from the edge,
+    with no extrapolation component)."""
+    T = {"a_percent": 0.5, "lambda1_cm": 1.0, "c_percent": 1.0, "lambda2_cm": 12.0,
+         "b_percent": 3.0, "mu_cm": 3.5, "sigma_cm": 0.6}
+
+    def f(self, d):
+        t = self.T
+        return (t["a_percent"] * math.exp(-d / t["lambda1_cm"]) +
+                t["c_percent"] * math.exp(-d / t["lambda2_cm"]) +
+                t["b_percent"] * math.exp(-0.5 * ((d - t["mu_cm"]) / t["sigma_cm"]) ** 2))
+
+    def test_the_first_measured_level_holds_with_the_rise_as_uncertainty(self):
+        d = [float(x) for x in range(3, 21)]
+        y = [self.f(x) for x in d]
+        prof = smooth_profile(0.0, 1, 1, 1, 1, 1e-4)
+        prof["range_cm"] = [3.0, 20.0]
+        prof["points"] = {"distance_cm": d, "dose_percent": y}
+        prof["fit"].update({"form": "peaked", "parameters": dict(self.T), "n": len(d),
+                            "dof": len(d) - 7, "chi2": float(len(d) - 7)})
+        prof["fit"]["covariance"] = [[1e-6 if i == j else 0.0 for j in range(7)]
+                                     for i in range(7)]
+        with tempdir() as tmp:
+            path = os.path.join(tmp, "near.yaml")
+            write_model(path, [prof])
+            rise = math.log(y[0] / y[2]) / 2.0
+            for x in (0.0, 1.0, 2.5):
+                js = run_json("model", "eval", path, "--format", "json", "-e", "9", "-a",
+                              "A10", "-d", "0", "-x", str(x))
+                self.assertLess(self.f(x), y[0])  # the fit alone reads low here
+                self.assertAlmostEqual(js["dose_percent"], y[0], delta=1e-9)
+                self.assertIn("extrapolated", js["flags"])
+                self.assertAlmostEqual(js["uncertainty_extrapolation_percent"],
+                                       rise * (3.0 - x) * y[0], delta=1e-9)
+            # measured points themselves are unchanged
+            js = run_json("model", "eval", path, "--format", "json", "-e", "9", "-a", "A10",
+                          "-d", "0", "-x", "4")
+            self.assertAlmostEqual(js["dose_percent"], self.f(4.0), delta=1e-9)
+            self.assertNotIn("extrapolated", js["flags"])
+
+
 class DirectionsStandInPoorFits(unittest.TestCase):
     """Evaluation rules of models/README.md worked by hand: a crossplane
     profile measured to 30 cm and a through-field inplane profile to 20 cm at
