@@ -46,6 +46,11 @@ extern "C" {
 /* Robust mean: pixels farther than this many robust standard deviations
  * (1.4826 x the median absolute deviation) from the median are rejected. */
 #define SL_FILM_CLIP_SIGMAS 3.5
+/* Films of one profile whose overlap ratio (longer exposure over the
+ * shorter, where both read) is farther than this from 1, and beyond 5
+ * standard errors, are refused: a wrong MU or reference dose (a strayline
+ * setting; within it, beyond 3 % and 3 standard errors, a warning). */
+#define SL_FILM_OVERLAP_REFUSE 0.10
 /* Largest scan read (pixels), so that a hostile header cannot exhaust memory. */
 #define SL_FILM_MAX_PIXELS ((size_t)1 << 25) /* 33.5 million: 25 x 20 cm at 600 dpi */
 

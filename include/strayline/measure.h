@@ -72,6 +72,7 @@ typedef struct sl_profile_data {
     double *sigma_percent; /* standard uncertainty of each point */
     bool from_positions;   /* the CSV gave off-axis positions */
     double width_found_cm; /* 50 % width found (NAN unless from_positions) */
+    double axis_percent;   /* the dose on the axis at this depth (NAN unless from_positions) */
     double width_nominal_cm;
     size_t line;           /* of the profile's entry in the measurement set */
     size_t entry;          /* its number in the list (1-based; a mirrored twin shares it) */
@@ -107,9 +108,23 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
 
 /* The 50 % points of a through-field profile (positions increasing): where
  * the dose falls to half its value on the axis at that depth, by linear
- * interpolation on each side. Input error when a side has no crossing. */
+ * interpolation on each side. Input error when a side has no crossing.
+ * *axis (may be NULL) receives that value on the axis. */
 sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *what,
-                        double *left, double *right, sl_error *err);
+                        double *left, double *right, double *axis, sl_error *err);
+
+/* The least dose (percent of the central-axis maximum) a profile can read
+ * where the model is anchored, at a depth no deeper than the depth of
+ * maximum: on the axis of a through-field profile (electron depth doses at
+ * the surface are 70 % and more of their maximum, common practice), and
+ * at the field edge of a profile by edge distance (half of that, less a
+ * margin). Below them the profile is in another unit (a fraction) or
+ * against another reference dose, and every organ would read low. */
+#define SL_AXIS_MIN_PERCENT 60.0
+#define SL_EDGE_MIN_PERCENT 10.0
+/* A profile by edge distance is checked there when it starts this close
+ * to the edge (cm). */
+#define SL_EDGE_START_CM 0.25
 
 void sl_profile_data_free(sl_profile_data *p);
 

@@ -1316,6 +1316,20 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         M->overlap_sem = M->overlap_n ? M->overlap_ratio * sqrt(var_l / (sum_l * sum_l) +
                                                                 var_s / (sum_s * sum_s))
                                       : NAN;
+        if (M->overlap_n > 2 && fabs(M->overlap_ratio - 1) > SL_FILM_OVERLAP_REFUSE &&
+            fabs(M->overlap_ratio - 1) > 5 * M->overlap_sem) {
+            /* exposures that disagree by this much hold a wrong MU or reference
+             * dose, and the merged tail would take one of them: refused */
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: %g MeV %s %s %g cm %s: where the films overlap, the longer "
+                              "exposure reads %.3f times the shorter (more than %.0f %% apart, "
+                              "beyond 5 standard errors): check each film's monitor_units and "
+                              "cax_reference_cgy",
+                              films_path, f0->energy_mev, f0->applicator, f0->insert,
+                              f0->depth_cm, dir_names[M->direction], M->overlap_ratio,
+                              100 * SL_FILM_OVERLAP_REFUSE);
+            goto done;
+        }
         if (M->overlap_n > 2 && fabs(M->overlap_ratio - 1) > 0.03 &&
             fabs(M->overlap_ratio - 1) > 3 * M->overlap_sem &&
             (st = sl_notes_add(&sum->notes,
@@ -1356,7 +1370,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                               what);
             goto done;
         }
-        if ((st = sl_find_edges(xs, ps, np, what, &M->left, &M->right, err)) != SL_OK) {
+        if ((st = sl_find_edges(xs, ps, np, what, &M->left, &M->right, NULL, err)) != SL_OK) {
             free(xs);
             free(ps);
             goto done;

@@ -157,7 +157,7 @@ static void on_row(int c, void *ctx)
 }
 
 sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *what,
-                        double *left, double *right, sl_error *err)
+                        double *left, double *right, double *axis_out, sl_error *err)
 {
     /* start from the point nearest the axis */
     size_t c = 0;
@@ -178,6 +178,8 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
     else if (c > 0 && x[c] > 0 && x[c - 1] < 0)
         axis = d[c - 1] + (0 - x[c - 1]) * (d[c] - d[c - 1]) / (x[c] - x[c - 1]);
     double half = 0.5 * axis;
+    if (axis_out)
+        *axis_out = axis;
     if (!(axis > 0))
         return sl_error_set(err, SL_EINPUT, "%s: no dose on the axis", what);
     *left = *right = NAN;
@@ -313,7 +315,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
     }
     double left = NAN, right = NAN;
     if (st == SL_OK && positions)
-        st = sl_find_edges(r.a, r.b, r.nrows, name, &left, &right, err);
+        st = sl_find_edges(r.a, r.b, r.nrows, name, &left, &right, &p->axis_percent, err);
     dpair *pts = NULL;
     size_t np = 0;
     if (st == SL_OK) {
@@ -374,7 +376,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                              "depth is %.2f cm (more than %.1f cm apart)",
                              name, p->width_found_cm, nominal_width_cm, SL_EDGE_WIDTH_WARN_CM);
         } else {
-            p->width_found_cm = p->width_nominal_cm = NAN;
+            p->width_found_cm = p->width_nominal_cm = p->axis_percent = NAN;
             if (dropped && notes && !positions)
                 sl_notes_add(notes, "%s: %zu rows inside the field (negative distance) ignored",
                              name, dropped);
@@ -544,7 +546,31 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     p->path = sl_strdup(path, &ok);
     if (!ok)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
-    return sl_profile_read_csv(path, cax, w, p, &m->notes, err);
+    sl_status st2 = sl_profile_read_csv(path, cax, w, p, &m->notes, err);
+    if (st2 != SL_OK)
+        return st2;
+    /* a dose in another unit or against another reference: every organ
+     * would read low by the same factor, with nothing else to show it */
+    const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
+    if (!o || p->depth_cm > o->dmax_cm)
+        return SL_OK;
+    if (p->from_positions && !(p->axis_percent >= SL_AXIS_MIN_PERCENT))
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: the dose on the axis reads %g %% at depth %g cm, no deeper "
+                            "than the depth of maximum (%g cm): a profile is in percent of the "
+                            "central-axis maximum, and this one reads below %.0f %% (a fraction, "
+                            "another unit or another reference dose?)",
+                            path, p->axis_percent, p->depth_cm, o->dmax_cm, SL_AXIS_MIN_PERCENT);
+    if (!p->from_positions && p->n > 0 && p->distance_cm[0] <= SL_EDGE_START_CM &&
+        !(p->dose_percent[0] >= SL_EDGE_MIN_PERCENT))
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: the dose %g cm from the field edge reads %g %% at depth %g cm, "
+                            "no deeper than the depth of maximum (%g cm): a profile is in "
+                            "percent of the central-axis maximum, and at the edge it reads "
+                            "below %.0f %% (a fraction, another unit or another reference dose?)",
+                            path, p->distance_cm[0], p->dose_percent[0], p->depth_cm,
+                            o->dmax_cm, SL_EDGE_MIN_PERCENT);
+    return SL_OK;
 }
 
 sl_status sl_measurements_load_buffer(const char *data, size_t size, const char *name,

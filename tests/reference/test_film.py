@@ -861,6 +861,37 @@ class BadFilmInput(unittest.TestCase):
         self.assertEqual(rc, 0, err)
         self.assertIn("8-bit scan", err)
 
+    def films_variant(self, name, mutate):
+        doc = load(self.c.films)
+        mutate(doc)
+        path = os.path.join(self.c.dir, name + ".yaml")
+        with open(path, "w") as f:
+            yaml.safe_dump(doc, f)
+        return self.c.profile(path, name + "-out")[:3]
+
+    def test_a_reference_dose_ten_times_too_high_is_refused(self):
+        """Every film's cax_reference_cgy ten times the dose given: the axis of
+        each profile reads about 10 % of the maximum at a depth no deeper than
+        the maximum's, where electron depth doses are 70 % and more (common
+        practice); refused, where the model read ten times low (found by an
+        independent review)."""
+        def m(doc):
+            for f in doc["films"]:
+                f["cax_reference_cgy"] *= 10
+        self.refused(self.films_variant("ref10", m), "the dose on the axis reads",
+                     "another reference dose")
+
+    def test_one_exposure_with_a_wrong_reference_is_refused(self):
+        """The longer exposure's reference ten times too high: where the two
+        films overlap they disagree tenfold; refused naming the fields to
+        check, where it was a warning and the merged tail read ten times low
+        (found by an independent review)."""
+        def m(doc):
+            longest = max(doc["films"], key=lambda f: f["monitor_units"])
+            longest["cax_reference_cgy"] *= 10
+        self.refused(self.films_variant("long10", m), "longer exposure reads 0.1",
+                     "cax_reference_cgy")
+
     def test_curve_not_a_curve(self):
         rc, out, err = run("film", "profile", self.c.films, "--curve", self.c.cal, "--out",
                            os.path.join(self.c.dir, "x"))

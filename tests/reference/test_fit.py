@@ -13,8 +13,10 @@
   with the two limits recomputed by scipy.stats (chi-square and normal).
 """
 import html.parser
+import csv
 import math
 import os
+import shutil
 import unittest
 
 import numpy as np
@@ -341,6 +343,43 @@ class NearerTheEdgeThanMeasured(unittest.TestCase):
                           "-d", "0", "-x", "4")
             self.assertAlmostEqual(js["dose_percent"], self.f(4.0), delta=1e-9)
             self.assertNotIn("extrapolated", js["flags"])
+
+
+class ProfilesInAnotherUnit(unittest.TestCase):
+    """A profile is in percent of the central-axis maximum. At a depth no
+    deeper than the maximum's, an electron beam's axis dose is 70 % of the
+    maximum and more, and its dose at the field edge about half that (common
+    practice); the demo set's profiles read 39 % and more at the edge. The
+    same set with one profile as a fraction (every dose / 100) is refused
+    naming the file, where the model read a hundred times low (found by an
+    independent review)."""
+
+    def refuse_fraction(self, name, through):
+        with tempdir() as d:
+            dst = os.path.join(d, "set")
+            shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"),
+                            dst)
+            path = os.path.join(dst, "profiles", name)
+            with open(path) as f:
+                rows = list(csv.reader(f))
+            self.assertEqual(rows[0][0], "off_axis_cm" if through else "edge_distance_cm")
+            with open(path, "w", newline="") as f:
+                w = csv.writer(f)
+                w.writerow(rows[0])
+                for r in rows[1:]:
+                    w.writerow([r[0], repr(float(r[1]) / 100)])
+            rc, out, err = run("fit", os.path.join(dst, "measurements.yaml"), "-q", "-o",
+                               os.path.join(d, "m.yaml"))
+        self.assertEqual(rc, 3, err)
+        self.assertEqual(len(err.strip().splitlines()), 1, err)
+        self.assertIn(name, err)
+        self.assertIn("a fraction, another unit or another reference dose", err)
+
+    def test_an_edge_distance_profile_as_a_fraction(self):
+        self.refuse_fraction("e06_a06_open_d0.00.csv", False)
+
+    def test_a_through_field_profile_as_a_fraction(self):
+        self.refuse_fraction("e09_a10_open_d1.00_inplane_through.csv", True)
 
 
 class DirectionsStandInPoorFits(unittest.TestCase):

@@ -30,19 +30,19 @@ START_TEST(edges_of_an_analytic_profile)
     }
     double l, r;
     sl_error e = {0};
-    ck_assert_int_eq(sl_find_edges(x, d, n, "analytic", &l, &r, &e), SL_OK);
+    ck_assert_int_eq(sl_find_edges(x, d, n, "analytic", &l, &r, NULL, &e), SL_OK);
     ck_assert_double_eq_tol(l, -5, 1e-12);
     ck_assert_double_eq_tol(r, 5, 1e-12);
     /* the edge is half the axis dose at that depth, not 50 % of the maximum */
     for (size_t i = 0; i < n; i++)
         d[i] *= 0.8;
-    ck_assert_int_eq(sl_find_edges(x, d, n, "scaled", &l, &r, &e), SL_OK);
+    ck_assert_int_eq(sl_find_edges(x, d, n, "scaled", &l, &r, NULL, &e), SL_OK);
     ck_assert_double_eq_tol(r - l, 10, 1e-12);
     /* no crossing on one side */
     for (size_t i = 0; i < n; i++)
         if (x[i] > 0)
             d[i] = 80;
-    ck_assert_int_eq(sl_find_edges(x, d, n, "one-sided", &l, &r, &e), SL_EINPUT);
+    ck_assert_int_eq(sl_find_edges(x, d, n, "one-sided", &l, &r, NULL, &e), SL_EINPUT);
     ck_assert_ptr_nonnull(strstr(e.msg, "no 50 % crossing on the positive side"));
 }
 END_TEST
