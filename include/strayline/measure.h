@@ -121,6 +121,11 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
  * margin). Below them the profile is in another unit (a fraction) or
  * against another reference dose, and every organ would read low. */
 #define SL_AXIS_MIN_PERCENT 60.0
+/* The two sides of a through-field profile are averaged at each distance
+ * unless they differ by more than this many standard deviations of a
+ * difference of two points (sqrt 2 times a point's); then the hotter side
+ * is kept (a strayline setting). */
+#define SL_SIDES_APART_SIGMAS 3.0
 #define SL_EDGE_MIN_PERCENT 10.0
 /* A profile by edge distance is checked there when it starts this close
  * to the edge (cm). */

@@ -352,21 +352,37 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
     if (st == SL_OK) {
         if (positions) {
             /* both sides merged: sort by distance, and average points
-             * closer than 0.5 mm so that the distances increase strictly */
+             * closer than 0.5 mm so that the distances increase strictly;
+             * where they differ by more than three standard deviations of
+             * a difference, one side is hotter than the other, and the
+             * hotter is kept (an organ may lie on either side) */
             qsort(pts, np, sizeof *pts, cmp_dpair);
-            size_t m = 0;
+            size_t m = 0, hot = 0;
             for (size_t i = 0; i < np;) {
                 size_t j = i;
-                double sd = 0, sv = 0;
+                double sd = 0, sv = 0, lo = INFINITY, hi = -INFINITY;
                 while (j < np && pts[j].d - pts[i].d < 0.05) {
                     sd += pts[j].d;
                     sv += pts[j].v;
+                    lo = fmin(lo, pts[j].v);
+                    hi = fmax(hi, pts[j].v);
                     j++;
                 }
-                pts[m++] = (dpair){sd / (double)(j - i), sv / (double)(j - i)};
+                double v = sv / (double)(j - i), rel = p->rel_uncertainty * v;
+                double sigma = sqrt(rel * rel + p->floor_percent * p->floor_percent);
+                if (j - i > 1 && hi - lo > SL_SIDES_APART_SIGMAS * M_SQRT2 * sigma) {
+                    v = hi;
+                    hot++;
+                }
+                pts[m++] = (dpair){sd / (double)(j - i), v};
                 i = j;
             }
             np = m;
+            if (hot && notes)
+                sl_notes_add(notes,
+                             "%s: at %zu distances the two sides differ by more than %.0f "
+                             "standard deviations of a difference; the hotter side is kept there",
+                             name, hot, SL_SIDES_APART_SIGMAS);
             p->width_found_cm = right - left;
             p->width_nominal_cm = nominal_width_cm;
             if (isfinite(nominal_width_cm) &&
