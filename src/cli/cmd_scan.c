@@ -108,10 +108,14 @@ static void screen_task(size_t i, void *ctx)
 }
 
 /* Is plan_uid among the stale plans of the log? */
-static bool in_history(const sl_history *h, const char *uid)
+/* Whether the plan has a row in h (for this machine's model when machine
+ * is given). */
+static bool in_history(const sl_history *h, const char *uid, const char *machine)
 {
     for (size_t i = 0; uid && i < h->n; i++)
-        if (h->rows[i].plan_uid && strcmp(h->rows[i].plan_uid, uid) == 0)
+        if (h->rows[i].plan_uid && strcmp(h->rows[i].plan_uid, uid) == 0 &&
+            (!machine ||
+             (h->rows[i].model_machine && strcmp(h->rows[i].model_machine, machine) == 0)))
             return true;
     return false;
 }
@@ -196,7 +200,7 @@ int sl_cmd_scan(int argc, char **argv)
     sl_screenlog *log = NULL;
     sl_scan_files *files = NULL;
     sl_batch_entry *entries = NULL;
-    sl_history *stale = NULL;
+    sl_history *stale = NULL, *known = NULL;
     size_t n = 0, *todo = NULL;
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
@@ -212,7 +216,9 @@ int sl_cmd_scan(int argc, char **argv)
     if (rescreen) {
         sl_history_query q = {.stale_machine = model->machine.name,
                               .stale_sha256 = model->sha256};
-        if (sl_screenlog_query(log, &q, &stale, &err) != SL_OK) {
+        sl_history_query all = {0};
+        if (sl_screenlog_query(log, &q, &stale, &err) != SL_OK ||
+            sl_screenlog_query(log, &all, &known, &err) != SL_OK) {
             rc = sl_cli_fail(&err);
             goto done;
         }
@@ -227,11 +233,13 @@ int sl_cmd_scan(int argc, char **argv)
     for (size_t i = 0; i < n; i++) {
         if (entries[i].outcome != SL_OUT_SCREENED)
             continue;
-        if (stale && !in_history(stale, entries[i].plan_uid)) {
+        /* stale, or never screened with this machine's model: screened */
+        if (stale && !in_history(stale, entries[i].plan_uid, NULL) &&
+            in_history(known, entries[i].plan_uid, model->machine.name)) {
             entries[i].outcome = SL_OUT_SKIPPED;
             free(entries[i].message);
-            entries[i].message = strdup("--rescreen-stale: not screened with an older version "
-                                        "of this model");
+            entries[i].message = strdup("--rescreen-stale: last screened with this version of "
+                                        "the model");
             continue;
         }
         todo[ntodo++] = i;
@@ -304,6 +312,7 @@ done:
     free(entries);
     free(todo);
     sl_history_free(stale);
+    sl_history_free(known);
     sl_scan_files_free(files);
     sl_screenlog_close(log);
     sl_facts_free(facts);

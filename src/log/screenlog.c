@@ -373,11 +373,14 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
     char sql[2048];
     if (q->stale_machine)
         /* the latest screening of each plan (by row id: screened_at has
-         * one-second steps), if its model is another version of this machine's */
+         * one-second steps), if its model is another version of this
+         * machine's; a screening that ended in an error counts too, since a
+         * new model (an energy or applicator added) is what it may need */
         snprintf(sql, sizeof sql,
-                 "SELECT " COLUMNS " FROM screening s WHERE s.outcome = 'screened' AND"
-                 " s.id = (SELECT max(t.id) FROM screening t WHERE t.plan_uid = s.plan_uid AND"
-                 " t.outcome = 'screened' AND t.model_machine = ?1) AND s.model_sha256 IS NOT ?2"
+                 "SELECT " COLUMNS " FROM screening s WHERE s.outcome IN ('screened', 'error')"
+                 " AND s.id = (SELECT max(t.id) FROM screening t WHERE t.plan_uid = s.plan_uid"
+                 " AND t.outcome IN ('screened', 'error') AND t.model_machine = ?1)"
+                 " AND s.model_sha256 IS NOT ?2"
                  "%s%s%s ORDER BY s.id",
                  q->flagged_only ? " AND s.flagged = 1" : "",
                  q->patient_id ? " AND s.patient_id = ?3" : "",

@@ -19,6 +19,7 @@ import subprocess
 import unittest
 
 import pydicom
+import yaml
 from pydicom.uid import generate_uid
 
 from common import PYDICOM_TEST_FILES, SOURCE_ROOT, run, tempdir
@@ -447,18 +448,65 @@ class History(unittest.TestCase):
                          ["DEMO-DEVICE-03", "DEMO-LENS-01"])
         extra = os.path.join(self.tmp.name, "in2")
         shutil.copytree(self.src, extra)
-        copy_pair("face-lens", os.path.join(extra, "new"), "NEW")  # never screened
+        # never screened with this machine's model: screened as well, so
+        # that every plan of the folder has a screening with the new model
+        copy_pair("face-lens", os.path.join(extra, "new"), "NEW")
         rc, out, err = run("scan", extra, "--model", self.model2, "--out", self.out,
                            "--rescreen-stale", "--quiet")
         self.assertEqual(rc, 4, err)
         rows = log_rows(self.log)
-        self.assertEqual(len(rows), 4)
+        self.assertEqual(len(rows), 5)
         self.assertEqual(sorted(r["patient_id"] for r in rows[2:]),
-                         ["DEMO-DEVICE-03", "DEMO-LENS-01"])
+                         ["DEMO-DEVICE-03", "DEMO-LENS-01", "DEMO-LENS-01-NEW"])
         self.assertTrue(all(r["model_version"] == "2026.12-demo-recommissioned"
                             for r in rows[2:]))
         self.assertEqual(self.hist("--stale", self.model2), [])
-        self.assertEqual(len(self.hist("--stale", MODEL)), 2)
+        self.assertEqual(len(self.hist("--stale", MODEL)), 3)
+        # and once more: nothing left to screen, each plan listed as skipped
+        rc, out, err = run("scan", extra, "--model", self.model2, "--out", self.out,
+                           "--rescreen-stale", "--quiet")
+        self.assertEqual(len(log_rows(self.log)), 5)
+        with open(os.path.join(self.out, "summary.csv"), newline="") as f:
+            summary = list(csv.DictReader(f))
+        self.assertEqual(len(summary), 3)
+        for r in summary:
+            self.assertIn("last screened with this version of the model", "|".join(r.values()))
+
+    def test_a_plan_that_failed_with_the_old_model_is_stale(self):
+        """A model without the 12 MeV profiles refuses the chest-fetus plan
+        (an error in the log); after a recommissioning that adds them, the
+        plan is stale and --rescreen-stale screens it (found by an
+        independent review: it was skipped as 'not screened with an older
+        version', exit 0)."""
+        with tempdir() as d:
+            with open(MODEL) as f:
+                doc = yaml.safe_load(f)
+            doc["model_version"] = "2025.01-without-12-MeV"
+            doc["profiles"] = [p for p in doc["profiles"] if p["energy_mev"] != 12]
+            old = os.path.join(d, "old.yaml")
+            with open(old, "w") as f:
+                yaml.safe_dump(doc, f, sort_keys=False)
+            shutil.copy(os.path.join(SOURCE_ROOT, "models", "action-levels.yaml"), d)
+            src = os.path.join(d, "in")
+            copy_pair("chest-fetus", os.path.join(src, "fetus"), "OLD")
+            out = os.path.join(d, "out")
+            run("scan", src, "--model", old, "--out", out, "--quiet", "--facts",
+                self.facts(d), check=4)
+            log = os.path.join(out, "screening.sqlite")
+            self.assertEqual([r["outcome"] for r in log_rows(log)], ["error"])
+            rc, o, e = run("history", "--log", log, "--format", "json", "--stale", MODEL,
+                           check=0)
+            self.assertEqual(len(json.loads(o)["screenings"]), 1)
+            rc, o, e = run("scan", src, "--model", MODEL, "--out", out, "--quiet",
+                           "--rescreen-stale", "--facts", self.facts(d))
+            self.assertIn(rc, (0, 4), e)
+            self.assertEqual([r["outcome"] for r in log_rows(log)], ["error", "screened"])
+
+    def facts(self, d):
+        path = os.path.join(d, "facts.yaml")
+        with open(path, "w") as f:
+            f.write(FACTS.replace("DEMO-FETUS-02", "DEMO-FETUS-02-OLD"))
+        return path
 
 
 class BadInput(unittest.TestCase):
