@@ -169,6 +169,48 @@ static sl_status read_fit(sl_yaml *y, yaml_node_t *n, const char *what, sl_profi
     return st;
 }
 
+/* A fit that its own points contradict: a file edited by hand (or a fit
+ * made by something else) could otherwise drop the poor mark and its
+ * widening, or carry parameters that read low, and load silently. The
+ * points and the stated uncertainty give the chi-square and the largest
+ * residual again (as sl_profile_fit_data did); a fit marked good that they
+ * call poor, a point count that is not the fit's, or a parameter whose
+ * variance is not positive, is refused. A fit marked poor that the points
+ * call good is kept: the mark only widens the uncertainty. */
+static sl_status check_fit_on_points(sl_yaml *y, yaml_node_t *node, const char *what,
+                                     const sl_model_profile *p, sl_error *err)
+{
+    const sl_profile_fit *f = &p->fit;
+    if (f->n != p->n)
+        return sl_yaml_error(y, node, err, "%s: fit n is %zu, but the profile holds %zu points",
+                             what, f->n, p->n);
+    for (size_t i = 0; i < f->p; i++)
+        if (!(f->covar[i * f->p + i] > 0))
+            return sl_yaml_error(y, node, err,
+                                 "%s: the variance of %s is not positive: a fitted parameter "
+                                 "always has some uncertainty",
+                                 what, sl_profile_param_key(i));
+    double chi2 = 0, zmax = 0;
+    for (size_t i = 0; i < p->n; i++) {
+        double v = sl_profile_value(f->form, f->theta, p->distance_cm[i], NULL, NULL, NULL);
+        double rel = p->rel_uncertainty * p->dose_percent[i];
+        double sigma = sqrt(rel * rel + p->floor_percent * p->floor_percent);
+        double z = (p->dose_percent[i] - v) / sigma;
+        chi2 += z * z;
+        zmax = fmax(zmax, fabs(z));
+    }
+    bool poor = chi2 > sl_profile_poor_chi2_limit(f->dof) ||
+                zmax > sl_profile_poor_residual_limit(p->n);
+    if (poor && !f->poor)
+        return sl_yaml_error(y, node, err,
+                             "%s: the fit is marked good (poor: false), but its own points give "
+                             "a chi-square of %.4g (limit %.4g) and a largest residual of %.3g "
+                             "standard uncertainties (limit %.3g): parameters or points edited?",
+                             what, chi2, sl_profile_poor_chi2_limit(f->dof), zmax,
+                             sl_profile_poor_residual_limit(p->n));
+    return SL_OK;
+}
+
 static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t idx, sl_model *m, sl_error *err)
 {
     char what[64];
@@ -288,6 +330,8 @@ static sl_status read_profile(sl_yaml *y, yaml_node_t *n, size_t idx, sl_model *
                             fabs(p->distance_cm[nd - 1] - p->fit.range_hi_cm) > 1e-9))
             st = sl_yaml_error(y, k[9].node, err,
                                "%s: range_cm does not match the first and last points", what);
+        if (st == SL_OK)
+            st = check_fit_on_points(y, k[10].node, what, p, err);
     }
     for (size_t j = 0; st == SL_OK && j < idx; j++) {
         const sl_model_profile *o = &m->profiles[j];

@@ -759,6 +759,18 @@ def yaml_cases():
                "covariance has 3 rows")
     model_case("model_dof_mismatch.yaml", lambda d: fit0(d).update(dof=5),
                "dof 5 does not equal n 16 minus 4 parameters")
+    # a fit its own points contradict (an edited file): refused
+    def scale_amplitudes(d):
+        fit0(d)["parameters"]["a_percent"] /= 10
+        fit0(d)["parameters"]["c_percent"] /= 10
+    model_case("model_fit_edited_parameters.yaml", scale_amplitudes,
+               "the fit is marked good (poor: false), but its own points give")
+    model_case("model_fit_n_not_points.yaml",
+               lambda d: fit0(d).update(n=fit0(d)["n"] + 1, dof=fit0(d)["dof"] + 1),
+               "fit n is 17, but the profile holds 16 points")
+    model_case("model_fit_zero_covariance.yaml",
+               lambda d: fit0(d).update(covariance=[[0.0] * 4 for _ in range(4)]),
+               "the variance of a_percent is not positive")
     model_case("model_uncommissioned_output.yaml",
                lambda d: d["profiles"][0].update(energy_mev=12),
                "no output is given for 12 MeV")
