@@ -27,7 +27,7 @@
 extern "C" {
 #endif
 
-#define SL_SCREENLOG_SCHEMA_VERSION 2
+#define SL_SCREENLOG_SCHEMA_VERSION 3
 
 typedef struct sl_screenlog sl_screenlog;
 
@@ -62,6 +62,7 @@ typedef struct sl_log_entry {
     bool flagged;
     const char *message;      /* why not screened / what to supply; may be NULL */
     const char *report_json, *report_html, *report_pdf;
+    const char *organs_not_judged; /* organs with levels not judged ("ROI, ROI"), or NULL */
     size_t norgans;
     const sl_log_organ *organs;
 } sl_log_entry;
@@ -74,6 +75,7 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
 /* What history asks for. */
 typedef struct sl_history_query {
     bool flagged_only;
+    bool attention_only;      /* flagged, or with an organ not judged */
     const char *patient_id;   /* NULL: all */
     const char *since;        /* "YYYY-MM-DD" or a full "YYYY-MM-DDTHH:MM:SSZ"; NULL: all */
     /* stale: the latest screening of each plan whose model is for this
@@ -93,6 +95,7 @@ typedef struct sl_history_row {
     char *tool_version, *model_file, *model_machine, *model_version, *model_sha256;
     char *levels_file, *levels_sha256, *options, *outcome, *worst_status, *message;
     char *report_json, *report_html, *report_pdf;
+    char *organs_not_judged;  /* "ROI, ROI", or NULL */
     bool flagged;
     size_t norgans;
     sl_history_organ *organs;

@@ -16,9 +16,12 @@
 static const char help[] =
     "usage: strayline history [--log FILE] [OPTIONS]\n\n"
     "List the screenings recorded by 'scan' and 'listen', oldest first, with\n"
-    "each flagged organ's course dose (cGy), upper bound (cGy) and level (Gy).\n\n"
+    "each flagged organ's course dose (cGy), upper bound (cGy) and level (Gy),\n"
+    "and the organs with action levels that were not judged.\n\n"
     "  -L, --log FILE         the screening log (default: screening.sqlite here)\n"
     "      --flagged          only screenings that flagged the plan\n"
+    "      --attention        only screenings that flagged the plan or left an\n"
+    "                         organ with action levels not judged\n"
     "      --patient ID       only this patient ID\n"
     "      --since DATE       only screenings on or after DATE (YYYY-MM-DD, UTC)\n"
     "      --stale MODEL.yaml only plans whose latest screening used another\n"
@@ -26,7 +29,7 @@ static const char help[] =
     "  -f, --format FMT       text (default), json or csv\n"
     "  -h, --help             this help\n";
 
-enum { OPT_FLAGGED = 256, OPT_PATIENT, OPT_SINCE, OPT_STALE };
+enum { OPT_FLAGGED = 256, OPT_ATTENTION, OPT_PATIENT, OPT_SINCE, OPT_STALE };
 
 /* YYYY-MM-DD, a real calendar date. */
 static bool date_ok(const char *s)
@@ -51,6 +54,7 @@ int sl_cmd_history(int argc, char **argv)
     static const struct option opts[] = {
         {"log", required_argument, NULL, 'L'},
         {"flagged", no_argument, NULL, OPT_FLAGGED},
+        {"attention", no_argument, NULL, OPT_ATTENTION},
         {"patient", required_argument, NULL, OPT_PATIENT},
         {"since", required_argument, NULL, OPT_SINCE},
         {"stale", required_argument, NULL, OPT_STALE},
@@ -68,6 +72,7 @@ int sl_cmd_history(int argc, char **argv)
         switch (c) {
         case 'L': log_path = optarg; break;
         case OPT_FLAGGED: q.flagged_only = true; break;
+        case OPT_ATTENTION: q.attention_only = true; break;
         case OPT_PATIENT: q.patient_id = optarg; break;
         case OPT_SINCE:
             if (!date_ok(optarg))

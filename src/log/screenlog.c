@@ -42,7 +42,8 @@ static const char schema_sql[] =
     " worst_status TEXT,"
     " flagged INTEGER NOT NULL,"
     " message TEXT,"
-    " report_json TEXT, report_html TEXT, report_pdf TEXT);"
+    " report_json TEXT, report_html TEXT, report_pdf TEXT,"
+    " organs_not_judged TEXT);"          /* "ROI, ROI": organs with levels not judged */
     "CREATE INDEX screening_plan ON screening(plan_uid);"
     "CREATE INDEX screening_patient ON screening(patient_id);"
     "CREATE TABLE flagged_organ ("
@@ -52,9 +53,10 @@ static const char schema_sql[] =
     " level TEXT, level_gy REAL);"
     "CREATE INDEX flagged_organ_screening ON flagged_organ(screening_id);";
 
-/* Schema version 2 added the in-vivo readings (src/log/invivolog.c): a
- * version 1 log gets the table when it is opened, in one transaction, and
- * keeps every screening it had. */
+/* Schema version 2 added the in-vivo readings (src/log/invivolog.c), version
+ * 3 the organs not judged of each screening (a plan with one is not clear,
+ * and the log is the lasting record of it): an older log is upgraded when
+ * it is opened, in one transaction, and keeps every screening it had. */
 static sl_status migrate(sl_screenlog *log, int *v, sl_error *err);
 
 sl_status sl_screenlog_db_fail(sl_screenlog *log, sl_error *err, const char *what)
@@ -114,7 +116,13 @@ sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, s
     }
     sqlite3_busy_timeout(log->db, BUSY_TIMEOUT_MS);
     int v = 0, ntables = 0;
-    if (user_version(log->db, &v) != SQLITE_OK || count_tables(log->db, &ntables) != SQLITE_OK) {
+    /* both read in one transaction: another process creating the schema
+     * commits tables and version at once, and a reader between the two
+     * reads would see tables without a version */
+    sqlite3_exec(log->db, "BEGIN", NULL, NULL, NULL);
+    int rv = user_version(log->db, &v), rt = count_tables(log->db, &ntables);
+    sqlite3_exec(log->db, "COMMIT", NULL, NULL, NULL);
+    if (rv != SQLITE_OK || rt != SQLITE_OK) {
         st = sl_error_set(err, SL_EINPUT, "%s: not a screening log (SQLite: %s)", path,
                           sqlite3_errmsg(log->db));
         goto fail;
@@ -127,18 +135,23 @@ sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, s
         char sql[sizeof schema_sql + SL_INVIVO_SCHEMA_MAX + 128];
         snprintf(sql, sizeof sql, "BEGIN IMMEDIATE;%s%sPRAGMA user_version=%d;COMMIT;", schema_sql,
                  sl_invivo_schema_sql, SL_SCREENLOG_SCHEMA_VERSION);
+        /* another process may create it at the same moment: its CREATE wins,
+         * this one's fails on the existing table, and the version re-read
+         * below is the other's */
         if (sqlite3_exec(log->db, sql, NULL, NULL, NULL) != SQLITE_OK) {
             st = sl_screenlog_db_fail(log, err, "cannot create the schema");
             sqlite3_exec(log->db, "ROLLBACK", NULL, NULL, NULL);
-            goto fail;
-        }
-        /* another process may have created it at the same moment: re-read */
-        if (user_version(log->db, &v) != SQLITE_OK) {
+            if (user_version(log->db, &v) != SQLITE_OK || v == 0)
+                goto fail;
+            if (err)
+                memset(err, 0, sizeof *err);
+            st = SL_OK;
+        } else if (user_version(log->db, &v) != SQLITE_OK) {
             st = sl_screenlog_db_fail(log, err, "cannot read the schema version");
             goto fail;
         }
     }
-    if (v == 1 && (st = migrate(log, &v, err)) != SL_OK)
+    if ((v == 1 || v == 2) && (st = migrate(log, &v, err)) != SL_OK)
         goto fail;
     if (v != SL_SCREENLOG_SCHEMA_VERSION) {
         st = sl_error_set(err, SL_EINPUT,
@@ -172,15 +185,17 @@ static sl_status migrate(sl_screenlog *log, int *v, sl_error *err)
         sqlite3_exec(log->db, "ROLLBACK", NULL, NULL, NULL);
         return sl_screenlog_db_fail(log, err, "cannot read the schema version");
     }
-    if (*v != 1)
+    if (*v != 1 && *v != 2)
         return sqlite3_exec(log->db, "COMMIT", NULL, NULL, NULL) == SQLITE_OK
                    ? SL_OK
                    : sl_screenlog_db_fail(log, err, "cannot end the schema upgrade");
-    char sql[SL_INVIVO_SCHEMA_MAX + 64];
-    snprintf(sql, sizeof sql, "%sPRAGMA user_version=%d;COMMIT;", sl_invivo_schema_sql,
-             SL_SCREENLOG_SCHEMA_VERSION);
+    char sql[SL_INVIVO_SCHEMA_MAX + 160];
+    snprintf(sql, sizeof sql,
+             "%sALTER TABLE screening ADD COLUMN organs_not_judged TEXT;"
+             "PRAGMA user_version=%d;COMMIT;",
+             *v == 1 ? sl_invivo_schema_sql : "", SL_SCREENLOG_SCHEMA_VERSION);
     if (sqlite3_exec(log->db, sql, NULL, NULL, NULL) != SQLITE_OK) {
-        sl_status st = sl_screenlog_db_fail(log, err, "cannot upgrade schema version 1 to 2");
+        sl_status st = sl_screenlog_db_fail(log, err, "cannot upgrade the schema");
         sqlite3_exec(log->db, "ROLLBACK", NULL, NULL, NULL);
         return st;
     }
@@ -222,8 +237,9 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
         "INSERT INTO screening (screened_at, command, plan_uid, structure_set_uid, patient_id,"
         " plan_label, tool_version, model_file, model_machine, model_version, model_sha256,"
         " levels_file, levels_sha256, options, outcome, worst_status, flagged, message,"
-        " report_json, report_html, report_pdf) VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
-        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
+        " report_json, report_html, report_pdf, organs_not_judged)"
+        " VALUES (strftime('%Y-%m-%dT%H:%M:%SZ','now'),"
+        " ?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)";
     static const char ins_organ[] =
         "INSERT INTO flagged_organ (screening_id, roi, kind, status, course_cgy, upper_cgy,"
         " level, level_gy) VALUES (?,?,?,?,?,?,?,?)";
@@ -252,6 +268,7 @@ sl_status sl_screenlog_add(sl_screenlog *log, const sl_log_entry *e, long long *
     sl_screenlog_bind_text(s, k++, e->report_json);
     sl_screenlog_bind_text(s, k++, e->report_html);
     sl_screenlog_bind_text(s, k++, e->report_pdf);
+    sl_screenlog_bind_text(s, k++, e->organs_not_judged);
     if (sqlite3_step(s) != SQLITE_DONE) {
         st = sl_screenlog_db_fail(log, err, "cannot record the screening");
         goto rollback;
@@ -313,7 +330,8 @@ static void row_free(sl_history_row *r)
                   &r->patient_id,   &r->plan_label,    &r->tool_version, &r->model_file,
                   &r->model_machine, &r->model_version, &r->model_sha256, &r->levels_file,
                   &r->levels_sha256, &r->options,      &r->outcome,      &r->worst_status,
-                  &r->message,      &r->report_json,   &r->report_html, &r->report_pdf};
+                  &r->message,      &r->report_json,   &r->report_html, &r->report_pdf,
+                  &r->organs_not_judged};
     for (size_t i = 0; i < sizeof f / sizeof *f; i++)
         free(*f[i]);
     for (size_t i = 0; i < r->norgans; i++) {
@@ -339,7 +357,7 @@ void sl_history_free(sl_history *h)
     "s.id, s.screened_at, s.command, s.plan_uid, s.structure_set_uid, s.patient_id,"           \
     " s.plan_label, s.tool_version, s.model_file, s.model_machine, s.model_version,"           \
     " s.model_sha256, s.levels_file, s.levels_sha256, s.options, s.outcome, s.worst_status,"   \
-    " s.message, s.report_json, s.report_html, s.report_pdf, s.flagged"
+    " s.message, s.report_json, s.report_html, s.report_pdf, s.flagged, s.organs_not_judged"
 
 static sl_status load_organs(sl_screenlog *log, sqlite3_stmt *so, sl_history_row *r, sl_error *err)
 {
@@ -382,12 +400,16 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
                  " AND t.outcome IN ('screened', 'error') AND t.model_machine = ?1)"
                  " AND s.model_sha256 IS NOT ?2"
                  "%s%s%s ORDER BY s.id",
-                 q->flagged_only ? " AND s.flagged = 1" : "",
+                 q->flagged_only     ? " AND s.flagged = 1"
+                 : q->attention_only ? " AND (s.flagged = 1 OR s.organs_not_judged IS NOT NULL)"
+                                     : "",
                  q->patient_id ? " AND s.patient_id = ?3" : "",
                  q->since ? " AND s.screened_at >= ?4" : "");
     else
         snprintf(sql, sizeof sql, "SELECT " COLUMNS " FROM screening s WHERE 1%s%s%s ORDER BY s.id",
-                 q->flagged_only ? " AND s.flagged = 1" : "",
+                 q->flagged_only     ? " AND s.flagged = 1"
+                 : q->attention_only ? " AND (s.flagged = 1 OR s.organs_not_judged IS NOT NULL)"
+                                     : "",
                  q->patient_id ? " AND s.patient_id = ?3" : "",
                  q->since ? " AND s.screened_at >= ?4" : "");
     sqlite3_stmt *s = NULL, *so = NULL;
@@ -437,6 +459,7 @@ sl_status sl_screenlog_query(sl_screenlog *log, const sl_history_query *q, sl_hi
         for (size_t i = 0; i < sizeof f / sizeof *f; i++)
             *f[i] = sl_screenlog_col_text(s, (int)i + 1, &ok);
         r->flagged = sqlite3_column_int(s, 21) != 0;
+        r->organs_not_judged = sl_screenlog_col_text(s, 22, &ok);
         if (!ok) {
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
             goto done;

@@ -8,6 +8,7 @@
 #include <stdio.h>
 #include <string.h>
 
+#include "estimate_common.h"
 #include "jsonw.h"
 #include "strayline/report.h"
 #include "strayline/screenlog.h"
@@ -35,15 +36,22 @@ static sl_status text(FILE *fp, const sl_history *h)
             const sl_history_organ *o = &r->organs[k];
             fprintf(fp, "    %s: %s", sl_text_escape(o->roi, a, sizeof a),
                     sl_text_escape(s_or(o->status, ""), b, sizeof b));
-            if (isfinite(o->course_cgy))
-                fprintf(fp, "; course %.4g cGy, upper bound %.4g cGy", o->course_cgy,
-                        o->upper_cgy);
+            if (isfinite(o->course_cgy)) {
+                /* fixed decimals, no exponent, as every report a person reads */
+                char cv[32], uv[32];
+                est_num(o->course_cgy, cv, sizeof cv);
+                est_num(o->upper_cgy, uv, sizeof uv);
+                fprintf(fp, "; course %s cGy, upper bound %s cGy", cv, uv);
+            }
             if (o->level)
                 fprintf(fp, "; level %s", sl_text_escape(o->level, c, sizeof c));
             if (isfinite(o->level_gy))
                 fprintf(fp, " (%.4g Gy)", o->level_gy);
             fputc('\n', fp);
         }
+        if (r->organs_not_judged)
+            fprintf(fp, "    NOT JUDGED (organs with action levels): %s\n",
+                    sl_text_escape(r->organs_not_judged, a, sizeof a));
         if (r->outcome && strcmp(r->outcome, "screened") != 0 && r->message)
             fprintf(fp, "    %s\n", sl_text_escape(r->message, a, sizeof a));
     }
@@ -73,7 +81,7 @@ static sl_status csv(FILE *fp, const sl_history *h)
         "plan_label", "plan_uid", "structure_set_uid", "model_file", "model_version",
         "model_sha256", "levels_file", "levels_sha256", "tool_version", "options", "roi",
         "organ_status", "course_max_cgy", "course_max_upper_cgy", "level", "level_gy",
-        "report_json", "report_html", "report_pdf", "message"};
+        "report_json", "report_html", "report_pdf", "message", "organs_not_judged"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
@@ -98,7 +106,8 @@ static sl_status csv(FILE *fp, const sl_history *h)
             csv_field(fp, r->report_json, false);
             csv_field(fp, r->report_html, false);
             csv_field(fp, r->report_pdf, false);
-            csv_field(fp, r->message, true);
+            csv_field(fp, r->message, false);
+            csv_field(fp, r->organs_not_judged, true);
         }
     }
     return ferror(fp) ? SL_EIO : SL_OK;
@@ -140,6 +149,7 @@ static sl_status json(FILE *fp, const sl_history *h, sl_error *err)
         jw_str(&w, o, "report_json", r->report_json);
         jw_str(&w, o, "report_html", r->report_html);
         jw_str(&w, o, "report_pdf", r->report_pdf);
+        jw_str(&w, o, "organs_not_judged", r->organs_not_judged);
         json_object *orgs = json_object_new_array();
         jw_put(&w, o, "flagged_organs", orgs);
         for (size_t k = 0; k < r->norgans && orgs; k++) {

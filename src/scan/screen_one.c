@@ -277,6 +277,7 @@ static sl_status log_entry(const sl_batch_config *cfg, sl_batch_entry *e, const 
         .report_json = e->report_json,
         .report_html = e->report_html,
         .report_pdf = e->report_pdf,
+        .organs_not_judged = e->unjudged,
         .norgans = e->nflagged,
         .organs = lo,
     };

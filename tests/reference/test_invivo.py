@@ -193,7 +193,7 @@ class Add(unittest.TestCase):
 
     def test_version_1_log_is_upgraded(self):
         """A log of schema version 1 (as scan wrote it before) gets the readings
-        table; its screenings stay, history still reads them, and a reading of
+        table and the not-judged column; its screenings stay, history still reads them, and a reading of
         a plan it screened links to that screening."""
         with tempdir() as d:
             log = os.path.join(d, "log.sqlite")
@@ -213,8 +213,11 @@ class Add(unittest.TestCase):
             self.assertNotIn("no screening of plan", err)
             con = sqlite3.connect(log)
             try:
-                self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 2)
+                # upgraded to the current version 3 (README, the screening log)
+                self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 3)
                 self.assertEqual(con.execute("SELECT count(*) FROM screening").fetchone()[0], 1)
+                self.assertIsNone(con.execute("SELECT organs_not_judged FROM screening")
+                                  .fetchone()[0])
                 self.assertEqual(con.execute("SELECT screening_id FROM invivo_reading")
                                  .fetchone()[0], 1)
             finally:

@@ -183,7 +183,7 @@ class MixedFolder(unittest.TestCase):
         con = sqlite3.connect(os.path.join(self.out, "screening.sqlite"))
         try:
             # the schema version and WAL mode the README documents
-            self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 2)
+            self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 3)
             self.assertEqual(con.execute("PRAGMA journal_mode").fetchone()[0], "wal")
             organs = con.execute("SELECT count(*) FROM flagged_organ").fetchone()[0]
         finally:
@@ -341,6 +341,21 @@ class NotJudgedIsNotClear(unittest.TestCase):
                 page = f.read()
             self.assertIn("NOT JUDGED", page)
             self.assertIn("not judged: Lens_L_near", page)
+            # the log, the lasting record, keeps it (read with Python's
+            # sqlite3), and history --attention finds it where --flagged
+            # does not (found by an independent review: the log dropped it)
+            log = os.path.join(out, "screening.sqlite")
+            by_uid = {r["plan_uid"]: r for r in log_rows(log)}
+            self.assertEqual(by_uid[nj]["organs_not_judged"], "Lens_L_near")
+            self.assertIsNone(by_uid[clear]["organs_not_judged"])
+            for opt, want in (("--flagged", []), ("--attention", [nj])):
+                rc, o, e = run("history", "--log", log, "--format", "json", opt, check=0)
+                self.assertEqual([x["plan_uid"] for x in json.loads(o)["screenings"]], want)
+            rc, o, e = run("history", "--log", log, "--attention", check=0)
+            self.assertIn("NOT JUDGED (organs with action levels): Lens_L_near", o)
+            rc, o, e = run("history", "--log", log, "--format", "csv", check=0)
+            rows = {r["plan_uid"]: r for r in csv.DictReader(io.StringIO(o))}
+            self.assertEqual(rows[nj]["organs_not_judged"], "Lens_L_near")
 
 
 class Pdf(unittest.TestCase):
