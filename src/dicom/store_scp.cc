@@ -167,6 +167,17 @@ protected:
     }
 
 private:
+    /* Whether two stored files hold the same data set, element for element
+     * (DcmItem::compare: values, not bytes, so another transfer syntax or
+     * file meta information from another sender is still the same). */
+    static bool same_data_set(const char *a, const char *b)
+    {
+        DcmFileFormat fa, fb;
+        if (fa.loadFile(a).bad() || fb.loadFile(b).bad())
+            return false;
+        return fa.getDataset()->compare(*fb.getDataset()) == 0;
+    }
+
     /* Check the received file and give it its final name. */
     Uint16 commit(const char *tmp, const std::string &cls, const std::string &uid,
                   const std::string &shown, const std::string &ae)
@@ -198,11 +209,26 @@ private:
         std::string final_path = ctx->dir + "/" + uid + ".dcm";
         if (link(tmp, final_path.c_str()) != 0) {
             int e = errno;
-            unlink(tmp);
+            const char *tmp_keep = tmp; /* compared with the stored copy below */
+            if (e != EEXIST)
+                unlink(tmp);
             if (e == EEXIST) {
-                emit(ctx, SL_SCP_EV_DUPLICATE, "received " + uid + " again: stored once",
-                     ae.c_str(), final_path.c_str(), cls.c_str(), uid.c_str());
-                return STATUS_Success;
+                if (same_data_set(tmp_keep, final_path.c_str())) {
+                    unlink(tmp_keep);
+                    emit(ctx, SL_SCP_EV_DUPLICATE, "received " + uid + " again: stored once",
+                         ae.c_str(), final_path.c_str(), cls.c_str(), uid.c_str());
+                    return STATUS_Success;
+                }
+                /* an edited object re-sent under its old UID: the screening
+                 * of the stored one would stand for it, so it is refused */
+                unlink(tmp_keep);
+                emit(ctx, SL_SCP_EV_FAILED,
+                     "C-STORE of " + uid +
+                         " refused: another data set with this SOP Instance UID is stored "
+                         "already and differs from this one (an edited object must have a new "
+                         "UID); the stored one stands",
+                     ae.c_str());
+                return STATUS_STORE_Error_CannotUnderstand;
             }
             emit(ctx, SL_SCP_EV_FAILED,
                  "C-STORE of " + uid + " refused: cannot store it: " + strerror(e), ae.c_str());

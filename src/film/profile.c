@@ -338,6 +338,26 @@ static double field_angle(const float *dose, const unsigned char *above, size_t 
     return ang;
 }
 
+/* Whether a control region (cm: x, y, width, height on the image) meets
+ * the band of width band_cm sampled along (ux, uy) through the centre
+ * (cx, cy, pixels) from edge to edge of the image: its corners' distances
+ * across the line straddle or fall within half the band. */
+static bool control_on_band(const double *control, double px, double cx, double cy, double ux,
+                            double uy, double band_cm)
+{
+    double vx = -uy, vy = ux, lo = INFINITY, hi = -INFINITY;
+    for (int a = 0; a < 2; a++)
+        for (int b = 0; b < 2; b++) {
+            double x = (control[0] + a * control[2]) / px - cx;
+            double y = (control[1] + b * control[3]) / px - cy;
+            double t = x * vx + y * vy;
+            lo = fmin(lo, t);
+            hi = fmax(hi, t);
+        }
+    double half = band_cm / 2 / px;
+    return lo <= half && hi >= -half;
+}
+
 /* Sample one line: cells of step x band about the centre along (ux, uy). */
 static sl_status sample_line(const sl_film_scan *s, const float *pv, const sl_film_channel *ch,
                              const float *const *pv3, const sl_film_triple *tr,
@@ -1177,6 +1197,29 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             ey = cxv;
         }
         double ix = -ey, iy = ex;                    /* inplane: a quarter turn */
+        /* the control piece must be unexposed: on a sampled band, or in the
+         * field, it would take exposed film as the unexposed level, and every
+         * dose of the tail would read low (found by an independent review:
+         * three times low, with no mark) */
+        for (int d = 0; fp->has_control && d < fp->ndirs; d++) {
+            double ux = fp->dirs[d] == SL_DIR_CROSSPLANE ? ex
+                        : fp->dirs[d] == SL_DIR_INPLANE  ? ix
+                                                         : (ex + ix) / sqrt(2);
+            double uy = fp->dirs[d] == SL_DIR_CROSSPLANE ? ey
+                        : fp->dirs[d] == SL_DIR_INPLANE  ? iy
+                                                         : (ey + iy) / sqrt(2);
+            if (control_on_band(fp->control, s->pixel_cm, cx, cy, ux, uy, fs.band_cm)) {
+                st = sl_error_set(err, SL_EINPUT,
+                                  "%s: unexposed_region_cm [%g, %g, %g, %g] lies on the %s band "
+                                  "sampled through the field: the control piece must be "
+                                  "unexposed film away from the field and the bands",
+                                  where, fp->control[0], fp->control[1], fp->control[2],
+                                  fp->control[3], dir_names[fp->dirs[d]]);
+                free(pv);
+                free(above);
+                goto done;
+            }
+        }
         for (int d = 0; d < fp->ndirs; d++) {
             film_line *L = &r->lines[r->nlines++];
             L->direction = fp->dirs[d];

@@ -892,6 +892,18 @@ class BadFilmInput(unittest.TestCase):
         self.refused(self.films_variant("long10", m), "longer exposure reads 0.1",
                      "cax_reference_cgy")
 
+    def test_control_piece_on_a_sampled_band_is_refused(self):
+        """The first film's unexposed control region moved onto the crossplane
+        band through the field's centre (the test films are 16 x 8 cm with the
+        field in the middle), 3 cm outside the field: exposed film taken as
+        unexposed would make every dose of the tail read low, about three
+        times at 2 cm on the review's film (found by an independent review);
+        refused, naming the key and the band."""
+        def m(doc):
+            doc["films"][0]["unexposed_region_cm"] = [2.0, 3.7, 0.6, 0.6]
+        self.refused(self.films_variant("ctrlband", m), "unexposed_region_cm",
+                     "lies on the crossplane band")
+
     def test_curve_not_a_curve(self):
         rc, out, err = run("film", "profile", self.c.films, "--curve", self.c.cal, "--out",
                            os.path.join(self.c.dir, "x"))

@@ -214,6 +214,37 @@ class Listen(unittest.TestCase):
         self.assertEqual([f for f in os.listdir(os.path.join(self.out, "received"))], [])
         self.assertEqual(echo(node.port), 0)
 
+    def test_same_uid_other_content_refused(self):
+        """The face-lens plan, then the same plan with three times the MU under
+        its old SOP Instance UID (pydicom): the second is refused with a
+        failure status and logged; the stored file stays the first, compared
+        element by element with pydicom (found by an independent review: it
+        was answered 'stored once', and the old screening stood for the edited
+        plan). The same plan sent again is still a plain duplicate."""
+        node = self.start()
+        face = os.path.join(EXAMPLES, "face-lens")
+        first = os.path.join(face, "rtplan.dcm")
+        edited = os.path.join(self.tmp.name, "edited.dcm")
+        ds = pydicom.dcmread(first)
+        for b in ds.FractionGroupSequence[0].ReferencedBeamSequence:
+            b.BeamMeterset = float(b.BeamMeterset) * 3
+        ds.save_as(edited, write_like_original=True)
+        self.assertEqual(store(node.port, first).returncode, 0)
+        uid = plan_uid(first)
+        stored = os.path.join(self.out, "received", uid + ".dcm")
+        self.assertTrue(node.wait_for(lambda: os.path.exists(stored)), node.log())
+        store(node.port, edited)
+        self.assertTrue(node.wait_for(lambda: "differs from this one" in node.log(), 15),
+                        node.log())
+        self.assertEqual(pydicom.dcmread(stored).FractionGroupSequence[0]
+                         .ReferencedBeamSequence[0].BeamMeterset,
+                         pydicom.dcmread(first).FractionGroupSequence[0]
+                         .ReferencedBeamSequence[0].BeamMeterset)
+        self.assertEqual(store(node.port, first).returncode, 0)
+        self.assertTrue(node.wait_for(lambda: "again: stored once" in node.log(), 15),
+                        node.log())
+        self.assertEqual(echo(node.port), 0)
+
     def test_unknown_caller_refused(self):
         node = self.start()
         self.assertNotEqual(echo(node.port, calling="INTRUDER"), 0)
