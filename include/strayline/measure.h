@@ -121,6 +121,15 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
  * margin). Below them the profile is in another unit (a fraction) or
  * against another reference dose, and every organ would read low. */
 #define SL_AXIS_MIN_PERCENT 60.0
+/* A transfer uncertainty band below this relative value is warned about
+ * when a measurement set is read (a strayline setting). */
+#define SL_TRANSFER_WARN_BELOW 0.1
+/* A through-field profile's 50 % width farther than both of these from the
+ * nominal field projected to its depth, at a depth no deeper than the
+ * maximum's, is refused (a strayline setting; beyond SL_EDGE_WIDTH_WARN_CM
+ * a note). */
+#define SL_EDGE_WIDTH_REFUSE_CM 1.0
+#define SL_EDGE_WIDTH_REFUSE_REL 0.15
 /* The two sides of a through-field profile are averaged at each distance
  * unless they differ by more than this many standard deviations of a
  * difference of two points (sqrt 2 times a point's); then the hotter side

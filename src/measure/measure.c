@@ -570,6 +570,22 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
     if (!o || p->depth_cm > o->dmax_cm)
         return SL_OK;
+    /* a width far from the nominal one: another applicator or insert than
+     * the one named, or a wrong pixel size; either puts the profile's
+     * distances, and so every organ's dose, somewhere else */
+    if (p->from_positions && isfinite(p->width_nominal_cm) &&
+        fabs(p->width_found_cm - p->width_nominal_cm) >
+            fmax(SL_EDGE_WIDTH_REFUSE_CM, SL_EDGE_WIDTH_REFUSE_REL * p->width_nominal_cm))
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: the 50 %% width found is %.2f cm, the nominal field of "
+                            "applicator '%s'%s%s at depth %g cm is %.2f cm: more than %.0f cm "
+                            "and %.0f %% apart (another applicator or insert, or a wrong pixel "
+                            "size?)",
+                            path, p->width_found_cm, p->applicator,
+                            strcmp(p->insert, SL_INSERT_OPEN) ? ", insert " : "",
+                            strcmp(p->insert, SL_INSERT_OPEN) ? p->insert : "", p->depth_cm,
+                            p->width_nominal_cm, SL_EDGE_WIDTH_REFUSE_CM,
+                            100 * SL_EDGE_WIDTH_REFUSE_REL);
     if (p->from_positions && !(p->axis_percent >= SL_AXIS_MIN_PERCENT))
         return sl_error_set(err, SL_EINPUT,
                             "%s: the dose on the axis reads %g %% at depth %g cm, no deeper "
@@ -704,6 +720,32 @@ sl_status sl_measurements_load_buffer(const char *data, size_t size, const char 
         }
     }
     sl_yaml_free(&y);
+    /* the same file under two entries (other than a mirrored twin): a copy
+     * and paste that puts one depth's or applicator's data at another */
+    for (size_t i = 0; st == SL_OK && i < m->nprofiles; i++)
+        for (size_t j = 0; j < i; j++)
+            if (m->profiles[i].entry != m->profiles[j].entry &&
+                memcmp(m->profiles[i].sha256, m->profiles[j].sha256,
+                       sizeof m->profiles[i].sha256) == 0) {
+                sl_notes_add(&m->notes,
+                             "%s: profiles %zu and %zu read files with the same content (%s and "
+                             "%s): check that each entry names its own measurement",
+                             name, m->profiles[j].entry, m->profiles[i].entry,
+                             m->profiles[j].file, m->profiles[i].file);
+                break;
+            }
+    /* no transfer uncertainty: the water tank would stand for the patient
+     * exactly, which no published comparison supports */
+    for (size_t i = 0; st == SL_OK && i < m->machine.transfer.nbands; i++)
+        if (m->machine.transfer.bands[i].relative < SL_TRANSFER_WARN_BELOW) {
+            sl_notes_add(&m->notes,
+                         "%s: transfer_uncertainty band %zu is %g: below %g the upper bounds "
+                         "assume the water tank stands for the patient almost exactly; the "
+                         "defaults are 0.25 to 1.0 (models/README.md)",
+                         name, i + 1, m->machine.transfer.bands[i].relative,
+                         SL_TRANSFER_WARN_BELOW);
+            break;
+        }
     if (st != SL_OK) {
         sl_measurements_free(m);
         return st;

@@ -904,6 +904,15 @@ class BadFilmInput(unittest.TestCase):
         self.refused(self.films_variant("ctrlband", m), "unexposed_region_cm",
                      "lies on the crossplane band")
 
+    def test_a_wrong_pixel_size_is_refused(self):
+        """--dpi 75 for scans tagged (and made) at 50 dpi: every distance
+        shrinks by a third, the 50 % width found is two thirds of the nominal
+        field, and the tail reads two to three times low at 2 to 3 cm (found
+        by an independent review: only a warning). Refused at a depth no
+        deeper than the maximum's, naming the widths."""
+        rc, out, err, _ = self.c.profile(None, "dpi75", "--dpi", "75")
+        self.refused((rc, out, err), "the 50 % width found is", "a wrong pixel size")
+
     def test_curve_not_a_curve(self):
         rc, out, err = run("film", "profile", self.c.films, "--curve", self.c.cal, "--out",
                            os.path.join(self.c.dir, "x"))

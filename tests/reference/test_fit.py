@@ -434,6 +434,46 @@ class OneSideHotter(unittest.TestCase):
         self.assertTrue(hot_poor)
 
 
+class SetWarnings(unittest.TestCase):
+    """Two slips a measurement set can hold that no single profile shows
+    (found by an independent review): one file named by two entries (a copy
+    and paste that puts one depth's data at another), and a transfer
+    uncertainty of 0 (the water tank standing for the patient exactly,
+    against the published spread of out-of-field estimates, Med Phys 34:1193
+    (2007)). Each is a warning naming the set; the demo set raises neither."""
+
+    def fit_edited(self, edit):
+        with tempdir() as d:
+            dst = os.path.join(d, "set")
+            shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"),
+                            dst)
+            path = os.path.join(dst, "measurements.yaml")
+            with open(path) as f:
+                text = f.read()
+            with open(path, "w") as f:
+                f.write(edit(text))
+            rc, out, err = run("fit", path, "-o", os.path.join(d, "m.yaml"))
+        self.assertEqual(rc, 0, err)
+        return err
+
+    def test_the_demo_set_raises_neither(self):
+        err = self.fit_edited(lambda t: t)
+        self.assertNotIn("same content", err)
+        self.assertNotIn("transfer_uncertainty band", err)
+
+    def test_one_file_under_two_entries(self):
+        err = self.fit_edited(lambda t: t.replace("file: profiles/e06_a06_open_d0.50.csv",
+                                                  "file: profiles/e06_a06_open_d0.00.csv"))
+        self.assertIn("read files with the same content", err)
+        self.assertIn("e06_a06_open_d0.00.csv", err)
+
+    def test_a_transfer_uncertainty_of_zero(self):
+        err = self.fit_edited(lambda t: t.replace(
+            "  invented: true\n", "  invented: true\n  transfer_uncertainty:\n"
+            "    source: a test\n    mark: measured\n    bands:\n      - {relative: 0}\n", 1))
+        self.assertIn("transfer_uncertainty band 1 is 0", err)
+
+
 class DirectionsStandInPoorFits(unittest.TestCase):
     """Evaluation rules of models/README.md worked by hand: a crossplane
     profile measured to 30 cm and a through-field inplane profile to 20 cm at
