@@ -43,6 +43,37 @@ static void progress(size_t done, size_t total, const char *what, void *ctx)
     fflush(stderr);
 }
 
+/* Write the model, read back first as `estimate` will read it: a model
+ * that the loader refuses (a parameter beyond its bounds) is an error now,
+ * at commissioning, not when a patient is screened. */
+static sl_status write_checked(const sl_model *model, const char *output, sl_outfile *out,
+                               const char **inputs, size_t ninputs, sl_error *err)
+{
+    char *buf = NULL;
+    size_t len = 0;
+    FILE *mem = open_memstream(&buf, &len);
+    if (!mem)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    sl_status st = sl_model_write(model, mem, err);
+    if (fclose(mem) != 0 && st == SL_OK)
+        st = sl_error_set(err, SL_ENOMEM, "out of memory");
+    sl_model *back = NULL;
+    if (st == SL_OK) {
+        st = sl_model_load_buffer(buf, len, output, &back, err);
+        if (st != SL_OK)
+            sl_error_prefix(err, "the model as written would be refused when read");
+    }
+    sl_model_free(back);
+    if (st == SL_OK)
+        st = sl_cli_output_open(out, output, inputs, ninputs, err);
+    if (st == SL_OK && fwrite(buf, 1, len, out->fp) != len)
+        st = sl_error_set(err, SL_EIO, "%s: cannot write the model", output);
+    if (st == SL_OK)
+        st = sl_cli_output_commit(out, err);
+    free(buf);
+    return st;
+}
+
 int sl_cmd_fit(int argc, char **argv)
 {
     enum { OPT_VERSION = 256, OPT_CREATED, OPT_REPORT_PDF, OPT_PAPER };
@@ -138,9 +169,7 @@ int sl_cmd_fit(int argc, char **argv)
     for (size_t i = 0; i < ms->nprofiles; i++)
         inputs[i + 1] = ms->profiles[i].path;
     if (sl_commission(ms, &copt, &model, &err) != SL_OK ||
-        sl_cli_output_open(&out, output, inputs, ms->nprofiles + 1, &err) != SL_OK ||
-        sl_model_write(model, out.fp, &err) != SL_OK ||
-        sl_cli_output_commit(&out, &err) != SL_OK) {
+        write_checked(model, output, &out, inputs, ms->nprofiles + 1, &err) != SL_OK) {
         sl_cli_output_abort(&out);
         rc = sl_cli_fail(&err);
         goto done;
