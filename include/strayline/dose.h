@@ -197,6 +197,8 @@ typedef struct sl_organ_dose {
     double electron_fraction;     /* of the course dose at the hottest sample */
     double max_energy_mev;        /* highest energy among the beams that reach it */
     unsigned flags;               /* SL_MF_* met at any sample */
+    unsigned nearest_flags;       /* SL_MF_* at the sample nearest the field edge */
+    double nearest_depth_cm;      /* that sample's depth, for the beam nearest it (NAN: none) */
     double shield_transmission;   /* what-if transmission applied (1 for none) */
     bool near_edge;               /* min_distance_cm < SL_NEAR_EDGE_CM: marked, not judged */
     sl_budget course_max_budget;  /* the budget at the hottest sample, over the course */

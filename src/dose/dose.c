@@ -716,6 +716,16 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     }
     double shift = e->opt.setup_shift_cm;
     double t = od->shield_transmission;
+    /* the sample nearest the field: its flags and depth are the point's in
+     * an in-vivo comparison (src/invivo), not the organ's as a whole */
+    size_t nearest = 0;
+    for (size_t i = 1; i < n; i++) {
+        if (dmin[i] < dmin[nearest])
+            nearest = i;
+    }
+    od->nearest_flags =
+        n > 0 && dmin[nearest] < SL_NEAR_EDGE_CM && !use[nearest] ? SL_MF_NEAR_EDGE : 0;
+    od->nearest_depth_cm = NAN;
     if (near_by_model) {
         od->near_edge = true;
         od->flags |= SL_MF_NEAR_EDGE;
@@ -742,6 +752,11 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             double pc = v.percent;
             if (!use[i])
                 od->flags |= v.flags | bd->model_flags;
+            if (i == nearest && !use[i]) {
+                od->nearest_flags |= v.flags | bd->model_flags;
+                if (p->distance_cm[i] == dmin[i])
+                    od->nearest_depth_cm = p->depth_cm[i];
+            }
             double course_b = 0;
             for (size_t g = 0; g < ng; g++) {
                 if (!isfinite(bd->ref_cgy[g]))
@@ -796,11 +811,6 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     for (size_t i = 0; i < n; i++)
         vtot += s->is_point ? 1.0 : s->volume_cc[i];
     od->nearmax_volume_cc = s->is_point ? 0 : fmin(SL_NEARMAX_CC, SL_NEARMAX_FRACTION * vtot);
-    size_t nearest = 0;
-    for (size_t i = 1; i < n; i++) {
-        if (dmin[i] < dmin[nearest])
-            nearest = i;
-    }
     od->nearest_sample = nearest;
     for (int pass = -1; pass < (int)ng; pass++) {
         const double *dv = pass < 0 ? od->course_cgy : dg + (size_t)pass * n;
@@ -1097,7 +1107,7 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
     od->ngroups = e->ngroups;
     od->shield_transmission = 1.0;
     od->min_distance_cm = distance_cm;
-    od->min_depth_cm = od->max_depth_cm = depth_cm;
+    od->min_depth_cm = od->max_depth_cm = od->nearest_depth_cm = depth_cm;
     size_t ng = e->ngroups;
     od->fx_max = calloc(ng ? ng : 1, sizeof *od->fx_max);
     od->fx_mean = calloc(ng ? ng : 1, sizeof *od->fx_mean);
@@ -1134,6 +1144,7 @@ sl_status sl_estimate_add_landmark(sl_estimate *e, const sl_roi *roi, double dis
         double u = eval_shifted(bd, q, shift, 1.0, &v, &us);
         double pc = v.percent;
         od->flags |= v.flags | bd->model_flags;
+        od->nearest_flags = od->flags; /* one point: the organ's own */
         for (size_t g = 0; g < ng; g++) {
             if (!isfinite(bd->ref_cgy[g]))
                 continue;

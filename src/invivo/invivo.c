@@ -184,6 +184,10 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
     req.model = model;
     req.levels = levels;
     req.levels_path = levels_path;
+    /* the comparison needs the organ's dose, not its judgement: a fetus in
+     * the structure set without a gestational age is left not judged, as in
+     * a batch, rather than refusing every reading of a pregnant patient */
+    req.patient.age_unknown_unjudged = true;
     sl_screen_point pt = {rd->roi, rd->kind,
                           {rd->point_mm[0], rd->point_mm[1], rd->point_mm[2]}};
     sl_screen_landmark lm = {rd->roi, rd->kind, rd->distance_cm, rd->depth_cm};
@@ -238,8 +242,9 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
     if (st == SL_OK) {
         const sl_dose_stat *fx = &od->fx_nearest[g];
         out->distance_cm = od->min_distance_cm;
-        out->depth_cm = od->min_depth_cm;
-        out->model_flags = od->flags;
+        /* the point compared: the sample nearest the field edge */
+        out->depth_cm = isfinite(od->nearest_depth_cm) ? od->nearest_depth_cm : od->min_depth_cm;
+        out->model_flags = od->nearest_flags;
         out->estimate_cgy = fx->cgy * rd->fractions;
         out->u_estimate_cgy = fx->u_cgy * rd->fractions;
         /* the budget at the point, scaled from the course to the fractions
@@ -289,19 +294,16 @@ sl_status sl_invivo_estimate(const sl_reading *rd, const sl_model *model, const 
                          "published for OSL out of field (Scarboro et al. 2012): check it",
                          rd->id, rd->energy_correction, SL_INVIVO_OSL_CORR_LO,
                          SL_INVIVO_OSL_CORR_HI);
-        if (od->flags & (SL_MF_EXTRAPOLATED | SL_MF_DEPTH_OUTSIDE))
+        unsigned pf = out->model_flags;
+        if (pf & (SL_MF_EXTRAPOLATED | SL_MF_DEPTH_OUTSIDE))
             sl_notes_add(n,
                          "reading '%s': the position (%.1f cm from the field edge, %.1f cm deep) "
                          "is outside the model's measured range: %s%s%s; the comparison tests "
                          "the model's conservative hold, not a measured profile",
-                         rd->id, od->min_distance_cm, od->min_depth_cm,
-                         od->flags & SL_MF_EXTRAPOLATED ? sl_model_flag_text(SL_MF_EXTRAPOLATED)
-                                                        : "",
-                         (od->flags & SL_MF_EXTRAPOLATED) && (od->flags & SL_MF_DEPTH_OUTSIDE)
-                             ? "; "
-                             : "",
-                         od->flags & SL_MF_DEPTH_OUTSIDE ? sl_model_flag_text(SL_MF_DEPTH_OUTSIDE)
-                                                         : "");
+                         rd->id, out->distance_cm, out->depth_cm,
+                         pf & SL_MF_EXTRAPOLATED ? sl_model_flag_text(SL_MF_EXTRAPOLATED) : "",
+                         (pf & SL_MF_EXTRAPOLATED) && (pf & SL_MF_DEPTH_OUTSIDE) ? "; " : "",
+                         pf & SL_MF_DEPTH_OUTSIDE ? sl_model_flag_text(SL_MF_DEPTH_OUTSIDE) : "");
         if (od->near_edge)
             sl_notes_add(n,
                          "reading '%s': %.1f cm from the field edge, nearer than %.1f cm: the "

@@ -29,6 +29,7 @@ from common import SOURCE_ROOT, run, run_json, tempdir
 
 MODEL = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
 FACE = os.path.join(SOURCE_ROOT, "examples", "face-lens")
+CHEST = os.path.join(SOURCE_ROOT, "examples", "chest-fetus")
 NECK = os.path.join(SOURCE_ROOT, "examples", "neck-device")
 DEMO = os.path.join(SOURCE_ROOT, "examples", "invivo", "readings.yaml")
 LEVELS = os.path.join(SOURCE_ROOT, "models", "action-levels.yaml")
@@ -278,6 +279,42 @@ CREATE TABLE flagged_organ (screening_id INTEGER NOT NULL REFERENCES screening(i
  level TEXT, level_gy REAL);
 CREATE INDEX flagged_organ_screening ON flagged_organ(screening_id);
 """
+
+
+class ThePointCompared(unittest.TestCase):
+    """Found by an independent review of the in-vivo readings."""
+
+    def test_flags_and_depth_are_the_nearest_samples(self):
+        """A reading on Lung_L of the neck-device plan compares the estimate at
+        the lung's point nearest the field edge (2.5 cm out); the log records
+        that point's depth and model flags, not the whole lung's (which
+        reaches 23 cm, beyond the measured distances). The reference is
+        `model eval` at that distance and depth: no extrapolated flag."""
+        with tempdir() as d:
+            f = write(d, "r.yaml", reading("LUNG", roi="Lung_L", case=NECK,
+                                           patient="DEMO-DEVICE-03"))
+            log = os.path.join(d, "log.sqlite")
+            rc, out, err = run("invivo", "add", f, "--model", MODEL, "--log", log)
+            self.assertIn(rc, (0, 4), err)
+            r = rows(log)[0]
+        self.assertEqual(r["model_flags"] & 4, 0)  # SL_MF_EXTRAPOLATED
+        self.assertNotIn("beyond the measured distances", err)
+        js = run_json("model", "eval", MODEL, "--format", "json", "-e", "9", "-a", "A10",
+                      "-d", repr(r["depth_cm"]), "-x", repr(r["distance_cm"]))
+        self.assertNotIn("extrapolated", js["flags"])
+        self.assertGreater(r["depth_cm"], 5.0)  # the lung's near point lies deep
+
+    def test_a_pregnant_patients_reading_is_taken(self):
+        """A reading on the chest-fetus plan's Thyroid: the structure set holds
+        a fetus, and no gestational age is needed to compare a thyroid dose
+        (the fetus is left not judged, as in a batch); it was refused."""
+        with tempdir() as d:
+            f = write(d, "r.yaml", reading("THY", roi="Thyroid", case=CHEST,
+                                           patient="DEMO-FETUS-02"))
+            log = os.path.join(d, "log.sqlite")
+            rc, out, err = run("invivo", "add", f, "--model", MODEL, "--log", log)
+            self.assertIn(rc, (0, 4), err)
+            self.assertEqual(len(rows(log)), 1)
 
 
 class Statistics(unittest.TestCase):
