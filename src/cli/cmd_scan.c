@@ -287,7 +287,8 @@ int sl_cmd_scan(int argc, char **argv)
         tps_used += entries[i].outcome == SL_OUT_SCREENED && entries[i].tps_used;
         tps_refused += entries[i].tps_note && !entries[i].tps_used;
         flagged += entries[i].outcome == SL_OUT_SCREENED && entries[i].flagged;
-        attention |= entries[i].flagged || entries[i].outcome == SL_OUT_INCOMPLETE;
+        attention |= entries[i].flagged || entries[i].outcome == SL_OUT_INCOMPLETE ||
+                     entries[i].outcome == SL_OUT_ERROR;
     }
     printf("screened %zu (flagged %zu), errors %zu, incomplete %zu, skipped %zu, duplicates "
            "%zu, other objects %zu, unreadable files %zu\n",

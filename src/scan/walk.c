@@ -363,6 +363,28 @@ static void choose_doses(const sl_scan_files *f, size_t p, const size_t *first_d
     }
 }
 
+/* Whether two files hold the same bytes. Two copies of one export are;
+ * an object edited and saved again under its old SOP Instance UID is not,
+ * and then the folder does not say which one is meant. A file that cannot
+ * be read counts as different. */
+static bool same_bytes(const char *a, const char *b)
+{
+    FILE *fa = fopen(a, "rb"), *fb = fopen(b, "rb");
+    bool same = fa && fb;
+    char ba[65536], bb[65536];
+    while (same) {
+        size_t na = fread(ba, 1, sizeof ba, fa), nb = fread(bb, 1, sizeof bb, fb);
+        same = na == nb && memcmp(ba, bb, na) == 0 && !ferror(fa) && !ferror(fb);
+        if (na < sizeof ba)
+            break;
+    }
+    if (fa)
+        fclose(fa);
+    if (fb)
+        fclose(fb);
+    return same;
+}
+
 sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t *n,
                        sl_error *err)
 {
@@ -381,11 +403,22 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
         free(dup);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
+    /* conflict: a UID that two files of different content share; neither
+     * is screened, nor a plan that names such a structure set */
+    bool *conflict = calloc(f->n ? f->n : 1, sizeof *conflict);
+    if (!conflict) {
+        free(x.slot);
+        free(e);
+        free(dup);
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    }
     for (size_t i = 0; i < f->n; i++) {
         if (!f->files[i].ok)
             continue;
         size_t first = uid_find_or_add(&x, f->files, f->files[i].head.sop_instance_uid, i);
         dup[i] = first != SIZE_MAX;
+        if (dup[i] && !same_bytes(f->files[first].path, f->files[i].path))
+            conflict[i] = conflict[first] = true;
     }
     /* each plan's RT Doses, as lists through the files */
     size_t *first_dose = malloc((f->n ? f->n : 1) * sizeof *first_dose);
@@ -398,6 +431,7 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
         free(x.slot);
         free(e);
         free(dup);
+        free(conflict);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     for (size_t i = 0; i < f->n; i++)
@@ -433,11 +467,28 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
         o->plan_label = dup_or_null(h->label, &ok);
         o->plan_uid = dup_or_null(h->sop_instance_uid, &ok);
         k++;
+        if (dup[i] && conflict[i] &&
+            (h->kind == SL_HEAD_RTPLAN || h->kind == SL_HEAD_RTSTRUCT)) {
+            size_t first = uid_find_or_add(&x, f->files, h->sop_instance_uid, SIZE_MAX);
+            o->outcome = SL_OUT_ERROR;
+            o->message = fmt_msg(&ok, "the SOP Instance UID of %s with other content: an edited "
+                                      "object needs a new UID; neither is screened%s",
+                                 f->files[first].path, NULL);
+            continue;
+        }
         if (dup[i]) {
             size_t first = uid_find_or_add(&x, f->files, h->sop_instance_uid, SIZE_MAX);
             o->outcome = SL_OUT_DUPLICATE;
             o->message = fmt_msg(&ok, "the same object (SOP Instance UID) as %s: screened once%s",
                                  f->files[first].path, NULL);
+            continue;
+        }
+        if (conflict[i] && h->kind == SL_HEAD_RTPLAN) {
+            o->outcome = SL_OUT_ERROR;
+            o->message = fmt_msg(&ok, "another file in the folder has this plan's SOP Instance "
+                                      "UID with other content: an edited plan needs a new UID; "
+                                      "neither is screened%s%s",
+                                 "", NULL);
             continue;
         }
         if (h->kind == SL_HEAD_RTDOSE) {
@@ -482,12 +533,21 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
                               "", NULL);
             continue;
         }
+        if (conflict[s]) {
+            o->outcome = SL_OUT_ERROR;
+            o->message = fmt_msg(&ok, "its structure set's SOP Instance UID %s is held by files "
+                                      "of different content in the folder: an edited structure "
+                                      "set needs a new UID; not screened%s",
+                                 h->structure_set_uid, NULL);
+            continue;
+        }
         o->outcome = SL_OUT_SCREENED; /* to screen */
         o->ss_path = dup_or_null(f->files[s].path, &ok);
         choose_doses(f, i, first_dose, next_dose, o, &ok);
     }
     free(x.slot);
     free(dup);
+    free(conflict);
     free(first_dose);
     free(next_dose);
     free(dose_taken);

@@ -524,6 +524,47 @@ class History(unittest.TestCase):
         return path
 
 
+class SameUidOtherContent(unittest.TestCase):
+    def test_neither_copy_is_screened(self):
+        """The face-lens plan, and the same plan with three times the MU saved
+        under its old SOP Instance UID (pydicom) elsewhere in the folder: the
+        folder does not say which is meant, so neither is screened and both
+        are errors naming the other file (exit 4); the same holds for a
+        structure set, whose plan is then not screened. Two byte-identical
+        copies stay a plain duplicate (found by an independent review of
+        listen, which answered an edited object 'stored once')."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            plan_uid, ss_uid, _ = copy_pair("face-lens", os.path.join(src, "a"), "EDIT")
+            ds = pydicom.dcmread(os.path.join(src, "a", "rtplan.dcm"))
+            for b in ds.FractionGroupSequence[0].ReferencedBeamSequence:
+                b.BeamMeterset = float(b.BeamMeterset) * 3
+            os.makedirs(os.path.join(src, "b"))
+            ds.save_as(os.path.join(src, "b", "rtplan.dcm"), write_like_original=True)
+            out = os.path.join(d, "out")
+            rc, o, err = scan(src, out)
+            self.assertEqual(rc, 4, err)
+            with open(os.path.join(out, "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertEqual(sorted(p["outcome"] for p in plans), ["error", "error"])
+            for p in plans:
+                self.assertIn("other content", p["message"])
+            self.assertEqual(log_rows(os.path.join(out, "screening.sqlite")), [])
+            # a structure set edited under its old UID: its plan is not screened
+            src2 = os.path.join(d, "in2")
+            copy_pair("face-lens", os.path.join(src2, "a"), "SS")
+            ss = pydicom.dcmread(os.path.join(src2, "a", "rtstruct.dcm"))
+            ss.StructureSetLabel = "edited"
+            os.makedirs(os.path.join(src2, "b"))
+            ss.save_as(os.path.join(src2, "b", "rtstruct.dcm"), write_like_original=True)
+            rc, o, err = scan(src2, os.path.join(d, "out2"))
+            with open(os.path.join(d, "out2", "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            outcome = {p["plan_uid"]: (p["outcome"], p["message"]) for p in plans}
+            self.assertTrue(any(v[0] == "error" and "structure set's SOP Instance UID" in v[1]
+                                for v in outcome.values()), outcome)
+
+
 class ConcurrentNewLog(unittest.TestCase):
     def test_four_scans_create_one_log_at_once(self):
         """Four scans started together on a log that does not exist yet: one
