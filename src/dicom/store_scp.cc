@@ -61,7 +61,11 @@ void emit(const node_ctx *c, sl_scp_event_kind kind, const std::string &text,
 {
     if (!c->cb)
         return;
-    sl_scp_event ev = {kind, text.c_str(), calling, path, cls, uid};
+    /* one event, one log line: DCMTK's condition texts can hold line breaks */
+    std::string line;
+    for (char ch : text)
+        line += ch == '\n' ? std::string("; ") : ch == '\r' ? std::string() : std::string(1, ch);
+    sl_scp_event ev = {kind, line.c_str(), calling, path, cls, uid};
     c->cb(&ev, c->cb_ctx);
 }
 
@@ -95,6 +99,20 @@ protected:
         emit(ctx, SL_SCP_EV_REFUSED,
              "association refused: calling AE title '" + printable(ae) + "' from " +
                  printable(getPeerIP().c_str()) + " is not on the allow list");
+        return OFFalse;
+    }
+
+    /* a sender configured for another node (a typing slip in the planning
+     * system's export, or a node meant for something else) is refused too */
+    OFBool checkCalledAETitleAccepted(const OFString &called) override
+    {
+        std::string ae = trim(called);
+        if (ae == ctx->ae_title)
+            return OFTrue;
+        emit(ctx, SL_SCP_EV_REFUSED,
+             "association refused: called AE title '" + printable(ae) + "' from " +
+                 printable(getPeerIP().c_str()) + " is not this node's ('" + ctx->ae_title +
+                 "')");
         return OFFalse;
     }
 
@@ -384,7 +402,7 @@ sl_status sl_scp_start(const sl_scp_config *cfg, sl_scp **out, sl_error *err)
     if (!s)
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     try {
-        s->ctx.ae_title = cfg->ae_title;
+        s->ctx.ae_title = trim(OFString(cfg->ae_title));
         for (size_t i = 0; i < cfg->nallowed; i++)
             s->ctx.allowed.push_back(trim(OFString(cfg->allowed[i])));
         s->ctx.dir = cfg->store_dir;

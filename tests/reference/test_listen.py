@@ -255,6 +255,19 @@ class Listen(unittest.TestCase):
         self.assertIn("not on the allow list", node.log())
         self.assertEqual(os.listdir(os.path.join(self.out, "received")), [])
 
+    def test_wrong_called_title_refused(self):
+        """An allowed caller that calls another AE title than the node's is
+        refused (PS3.8: Called AE Title not recognised) and logged (found by
+        an independent review: any called title was accepted)."""
+        node = self.start()
+        p = subprocess.run([ECHOSCU, "-aet", CALLER, "-aec", "WRONGTITLE", "-to", "5",
+                            "127.0.0.1", str(node.port)], capture_output=True, text=True,
+                           timeout=10)
+        self.assertNotEqual(p.returncode, 0)
+        self.assertTrue(node.wait_for(lambda: "called AE title 'WRONGTITLE'" in node.log(), 10),
+                        node.log())
+        self.assertEqual(echo(node.port), 0)
+
     def test_no_allow_list_refuses_to_start(self):
         p = subprocess.run([STRAYLINE, "listen", "--port", str(free_port()), "--ae-title", AET,
                             "--model", MODEL, "--out", self.out], capture_output=True, text=True,
