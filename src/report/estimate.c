@@ -415,7 +415,9 @@ static void text_table(FILE *fp, const sl_estimate_report *r, bool fetus)
         est_status_text(a, status, sizeof status);
         char marks[96];
         est_marks(d, false, marks, sizeof marks);
-        fprintf(fp, "%-18.18s %-14.14s %8.2f %9s %19s %19s %9s %8s  %s%s%s\n",
+        /* the name whole: two ROIs alike in their first characters must not
+         * read as one (a longer name shifts its row, not its meaning) */
+        fprintf(fp, "%-18s %-14.14s %8.2f %9s %19s %19s %9s %8s  %s%s%s\n",
                 sl_text_escape(d->roi->name, nm, sizeof nm), est_kind(a), d->min_distance_cm,
                 depth, c.fx, c.course, c.mean, c.level, status, marks,
                 est_whatif_mark(r, d->roi->name));

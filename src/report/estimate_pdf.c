@@ -540,7 +540,8 @@ sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
     char date[32];
     time_t now = time(NULL);
     struct tm tmv;
-    if (!localtime_r(&now, &tmv) || !strftime(date, sizeof date, "%Y-%m-%d %H:%M", &tmv))
+    /* UTC, said so, as the log and listen give times */
+    if (!gmtime_r(&now, &tmv) || !strftime(date, sizeof date, "%Y-%m-%d %H:%M UTC", &tmv))
         snprintf(date, sizeof date, "-");
     const sl_plan *p = r->plan;
     pdoc d;
@@ -550,8 +551,8 @@ sl_status sl_report_estimate_pdf(const sl_estimate_report *r, const char *paper,
              r->nwhatifs ? " with WHAT-IF options" : "");
     snprintf(d.head_right, sizeof d.head_right, "Patient %s, ID %s", orq(p->patient_name),
              orq(p->patient_id));
-    snprintf(d.foot_left, sizeof d.foot_left, "plan %s (%s); report %s", orq(p->label),
-             orq(p->sop_instance_uid), date);
+    snprintf(d.foot_left, sizeof d.foot_left, "report %s; plan %s (%s)", date, orq(p->label),
+             orq(p->sop_instance_uid));
     compose_ctx c = {r, date};
     return pdoc_render(&d, paper, compose_pass, &c, pdf, len, err);
 }

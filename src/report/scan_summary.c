@@ -11,6 +11,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "estimate_common.h"
 #include "html.h"
 #include "jsonw.h"
 #include "strayline/scan.h"
@@ -33,9 +34,13 @@ static void organs_text(const sl_batch_entry *e, char *buf, size_t size)
     buf[0] = '\0';
     for (size_t i = 0; i < e->nflagged && k + 1 < size; i++) {
         const sl_flagged_organ *o = &e->organs[i];
+        /* fixed decimals, no exponent, as every report a person reads */
+        char cv[32], uv[32];
+        est_num(o->course_cgy, cv, sizeof cv);
+        est_num(o->upper_cgy, uv, sizeof uv);
         int n = isfinite(o->course_cgy)
-                    ? snprintf(buf + k, size - k, "%s%s: %s (course %.4g cGy, upper %.4g cGy)",
-                               i ? "; " : "", o->roi, o->status, o->course_cgy, o->upper_cgy)
+                    ? snprintf(buf + k, size - k, "%s%s: %s (course %s cGy, upper %s cGy)",
+                               i ? "; " : "", o->roi, o->status, cv, uv)
                     : snprintf(buf + k, size - k, "%s%s: %s", i ? "; " : "", o->roi, o->status);
         if (n < 0)
             break;

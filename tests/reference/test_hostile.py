@@ -398,6 +398,25 @@ class MarkupInNames(unittest.TestCase):
         self.assertIn("\\3c /style\\3e \\3c script\\3e ", p.style)
 
 
+class LongNames(unittest.TestCase):
+    def test_the_text_table_shows_whole_names(self):
+        """Two ROIs alike in their first 18 characters read as two in the
+        terminal table, each with its own row (found by an independent
+        review: both were cut to 'Lens_L_planning_PR')."""
+        with tempdir() as d:
+            ds = pydicom.dcmread(SS)
+            names = {"Lens_L": "Lens_L_planning_PRV_A", "Lens_R": "Lens_L_planning_PRV_B"}
+            for r in ds.StructureSetROISequence:
+                r.ROIName = names.get(r.ROIName, r.ROIName)
+            ss = os.path.join(d, "ss.dcm")
+            ds.save_as(ss)
+            rc, out, err = run("estimate", PLAN, ss, "--model", MODEL)
+        self.assertIn(rc, (0, 4), err)
+        rows = [l for l in out.splitlines() if l.startswith("Lens_L_planning_PRV_")]
+        self.assertEqual(sorted(l.split()[0] for l in rows),
+                         ["Lens_L_planning_PRV_A", "Lens_L_planning_PRV_B"])
+
+
 class OutputsNeverOverInputs(unittest.TestCase):
     def test_fit_refuses_to_write_over_a_profile_csv(self):
         with tempdir() as d:

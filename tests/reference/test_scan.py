@@ -565,6 +565,29 @@ class SameUidOtherContent(unittest.TestCase):
                                 for v in outcome.values()), outcome)
 
 
+class NoExponents(unittest.TestCase):
+    def test_large_doses_read_without_exponent(self):
+        """The face-lens plan at thirty times its MU: the lens's upper bound
+        passes 10 000 cGy; the summary's organ text, index.html and history's
+        text give it with fixed decimals, as README says of every number a
+        person reads (found by an independent review: '1.855e+04 cGy')."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            copy_pair("face-lens", src, "BIG")
+            plan = pydicom.dcmread(os.path.join(src, "rtplan.dcm"))
+            for b in plan.FractionGroupSequence[0].ReferencedBeamSequence:
+                b.BeamMeterset = float(b.BeamMeterset) * 30
+            plan.save_as(os.path.join(src, "rtplan.dcm"))
+            out = os.path.join(d, "out")
+            scan(src, out, check=4)
+            texts = [open(os.path.join(out, n)).read() for n in ("summary.csv", "index.html")]
+            rc, o, e = run("history", "--log", os.path.join(out, "screening.sqlite"), check=0)
+            texts.append(o)
+        for t in texts:
+            self.assertIn("upper", t)
+            self.assertNotRegex(t, r"[0-9]e[+-][0-9]")
+
+
 class ConcurrentNewLog(unittest.TestCase):
     def test_four_scans_create_one_log_at_once(self):
         """Four scans started together on a log that does not exist yet: one
