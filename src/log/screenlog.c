@@ -97,6 +97,19 @@ static int count_tables(sqlite3 *db, int *n)
     return rc;
 }
 
+static bool has_screening_table(sqlite3 *db)
+{
+    sqlite3_stmt *s;
+    if (sqlite3_prepare_v2(db,
+                           "SELECT count(*) FROM sqlite_schema WHERE type = 'table' AND name = "
+                           "'screening'",
+                           -1, &s, NULL) != SQLITE_OK)
+        return false;
+    bool yes = sqlite3_step(s) == SQLITE_ROW && sqlite3_column_int(s, 0) == 1;
+    sqlite3_finalize(s);
+    return yes;
+}
+
 sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, sl_error *err)
 {
     *out = NULL;
@@ -150,6 +163,14 @@ sl_status sl_screenlog_open(const char *path, bool create, sl_screenlog **out, s
             st = sl_screenlog_db_fail(log, err, "cannot read the schema version");
             goto fail;
         }
+    }
+    if ((v == 1 || v == 2) && !has_screening_table(log->db)) {
+        /* another program's database that happens to carry the number */
+        st = sl_error_set(err, SL_EINPUT,
+                          "%s: PRAGMA user_version %d but no table 'screening': not a strayline "
+                          "screening log",
+                          path, v);
+        goto fail;
     }
     if ((v == 1 || v == 2) && (st = migrate(log, &v, err)) != SL_OK)
         goto fail;

@@ -996,6 +996,21 @@ def facts_cases():
                scan, 3, "missing key 'kind'")
     raw("log_not_sqlite.txt", b"screening log? no, plain text.\n" * 40,
         "history --log {f}", 3, "not a screening log")
+    # another program's SQLite database whose user_version happens to be 2
+    # (Python's sqlite3 writes it; the file is made in a scratch copy, as
+    # SQLite output is not byte-stable across versions)
+    import sqlite3
+    import tempfile
+    with tempfile.TemporaryDirectory() as t:
+        con = sqlite3.connect(os.path.join(t, "f.sqlite"))
+        con.execute("CREATE TABLE notes (x TEXT)")
+        con.execute("PRAGMA user_version=2")
+        con.commit()
+        con.close()
+        with open(os.path.join(t, "f.sqlite"), "rb") as f:
+            foreign = f.read()
+    raw("log_foreign_version_2.sqlite", foreign, "history --log {f}", 3,
+        "but no table 'screening': not a strayline screening log")
 
 
 def invivo_cases():
