@@ -236,10 +236,17 @@ void sl_invivo_proposal_free(sl_invivo_proposal *p);
  * yet (readings compared with an unscaled model only); `why` says which
  * rule left a group out. */
 #define SL_INVIVO_SCALE_P 0.05
+/* ... and readings from at least this many plans; readings whose point
+ * rests on a stand-in, an extrapolation or the near-edge zone (where the
+ * model errs high on purpose) are left out of the scale altogether (a
+ * strayline setting). */
+#define SL_INVIVO_MIN_PLANS 3
+#define SL_INVIVO_SCALE_EXCLUDED (SL_MF_OPEN_FOR_CUTOUT | SL_MF_EXTRAPOLATED | SL_MF_NEAR_EDGE)
 typedef struct sl_invivo_scale_choice {
     char *energy, *applicator;
     double energy_mev;                  /* NAN when the readings' energies differ */
-    size_t n;
+    size_t n;                           /* readings used (the excluded ones aside) */
+    size_t nplans;                      /* distinct plans among them */
     double mean_log_ratio, ci_lo, ci_hi, p_bias;
     char *first_date, *last_date;
     bool take;

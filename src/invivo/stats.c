@@ -316,16 +316,29 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
      * applicator, as the output it corrects */
     sl_transfer_band band = {INFINITY, 0};
     sl_transfer one = {1, &band, NULL, NULL, false};
+    /* only readings where the model gives its own estimate: at a stand-in
+     * for an uncommissioned cutout, beyond the measured distances or near
+     * the edge the model errs high on purpose, and a scale made there would
+     * take that margin away from every field of the energy and applicator */
+    sl_log_readings use = {0, calloc(rs->n ? rs->n : 1, sizeof *use.r)};
+    if (!use.r)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    for (size_t i = 0; i < rs->n; i++)
+        if (!(rs->r[i].model_flags & SL_INVIVO_SCALE_EXCLUDED))
+            use.r[use.n++] = rs->r[i]; /* a shallow copy: the strings stay rs's */
     sl_invivo_stats *st = NULL;
-    sl_status rc = sl_invivo_statistics(rs, &one, &st, err);
-    if (rc != SL_OK)
+    sl_status rc = sl_invivo_statistics(&use, &one, &st, err);
+    if (rc != SL_OK) {
+        free(use.r);
         return rc;
+    }
     sl_invivo_scales *s = calloc(1, sizeof *s);
     if (s)
         s->c = calloc(st->ngroups ? st->ngroups : 1, sizeof *s->c);
     if (!s || !s->c) {
         sl_invivo_scales_free(s);
         sl_invivo_stats_free(st);
+        free(use.r);
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     for (size_t i = 0; i < st->ngroups; i++) {
@@ -338,8 +351,18 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
         c->ci_lo = g->ci_lo;
         c->ci_hi = g->ci_hi;
         c->p_bias = g->p_bias;
+        size_t nplans = 0; /* distinct plans among the group's readings */
         for (size_t j = 0; j < g->n; j++) {
-            const char *d = rs->r[g->idx[j]].date;
+            const char *pu = use.r[g->idx[j]].plan_uid;
+            bool seen = false;
+            for (size_t k = 0; k < j && !seen; k++)
+                seen = pu && use.r[g->idx[k]].plan_uid &&
+                       strcmp(pu, use.r[g->idx[k]].plan_uid) == 0;
+            nplans += !seen;
+        }
+        c->nplans = nplans;
+        for (size_t j = 0; j < g->n; j++) {
+            const char *d = use.r[g->idx[j]].date;
             if (!c->first_date || strcmp(d, c->first_date) < 0) {
                 free(c->first_date);
                 c->first_date = strdup(d);
@@ -352,6 +375,7 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
         if (!c->energy || !c->applicator || !c->first_date || !c->last_date) {
             sl_invivo_scales_free(s);
             sl_invivo_stats_free(st);
+            free(use.r);
             return sl_error_set(err, SL_ENOMEM, "out of memory");
         }
         char *end;
@@ -364,6 +388,11 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
         else if (c->n < SL_INVIVO_MIN_BAND)
             snprintf(c->why, sizeof c->why, "%zu readings, fewer than %d", c->n,
                      SL_INVIVO_MIN_BAND);
+        else if (c->nplans < SL_INVIVO_MIN_PLANS)
+            snprintf(c->why, sizeof c->why,
+                     "readings from %zu plan%s, fewer than %d: readings on one patient are not "
+                     "independent evidence about the machine",
+                     c->nplans, c->nplans == 1 ? "" : "s", SL_INVIVO_MIN_PLANS);
         else if (!(c->p_bias < SL_INVIVO_SCALE_P))
             snprintf(c->why, sizeof c->why,
                      "bias not significant (t test p = %.3g, not below %g)", c->p_bias,
@@ -383,6 +412,7 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
             c->take = true;
     }
     sl_invivo_stats_free(st);
+    free(use.r);
     *out = s;
     return SL_OK;
 }

@@ -333,7 +333,10 @@ class Statistics(unittest.TestCase):
     def tearDownClass(cls):
         cls.tmp.cleanup()
 
-    def synthetic_log(self, name, log_ratios, u, distance=3.0):
+    def synthetic_log(self, name, log_ratios, u, distance=3.0, plans=None, flags=None):
+        """A log of readings with the log ratios given, each on its own plan
+        (or on `plans` plans in turn), with the template's model flags (or
+        `flags`)."""
         log = os.path.join(self.tmp.name, name)
         shutil.copy(self.template, log)
         con = sqlite3.connect(log)
@@ -344,6 +347,9 @@ class Statistics(unittest.TestCase):
             for i, r in enumerate(log_ratios):
                 row = dict(base)
                 del row["id"]
+                row.update(plan_uid="2.25.%d" % (900000 + (i % plans if plans else i)))
+                if flags is not None:
+                    row.update(model_flags=flags)
                 row.update(reading_id="S%d" % i, log_ratio=float(r), u_log_ratio=u,
                            distance_cm=distance, estimate_cgy=10.0,
                            measured_cgy=10.0 * math.exp(r), flagged=int(abs(r) > 2 * u),
@@ -497,8 +503,8 @@ class Scale(unittest.TestCase):
     def tearDownClass(cls):
         cls.tmp.cleanup()
 
-    def scaled_model(self, name, r):
-        log = self.synthetic_log(name + ".sqlite", r, 0.05)
+    def scaled_model(self, name, r, plans=None, flags=0):
+        log = self.synthetic_log(name + ".sqlite", r, 0.05, plans=plans, flags=flags)
         new = os.path.join(self.tmp.name, name + ".yaml")
         rc, out, err = run("invivo", "propose", "--scale", "--model", MODEL, "--log", log,
                            "-o", new)
@@ -541,6 +547,33 @@ class Scale(unittest.TestCase):
         self.assertIn("IN-VIVO SCALE 9 MeV, applicator %s: dose times %.4f"
                       % (row["applicator"], math.exp(m)), text)
         self.assertIn("scale %.4f from 12 readings" % math.exp(m), err)
+
+    def test_readings_of_too_few_plans_or_where_the_model_errs_high_give_no_scale(self):
+        """The clear bias of the factor test, but every reading on one or two
+        plans (one patient's readings are not independent evidence about the
+        machine), or every reading at a point that rests on a stand-in for an
+        uncommissioned cutout (SL_MF_OPEN_FOR_CUTOUT, 8), where the model errs
+        high on purpose: no scale, and the command says why (found by an
+        independent review: five readings of one patient on a stand-in halved
+        every estimate of the energy and applicator)."""
+        rng = np.random.default_rng(18)
+        r = 0.2 + 0.1 * rng.standard_normal(12)
+        def scales(new):
+            # the transfer bands may still change and be written: no scale
+            if not os.path.exists(new):
+                return []
+            return run_json("model", "show", new, "-f", "json")["invivo_scales"]
+        for plans in (1, 2):
+            rc, err, log, new = self.scaled_model("plans%d" % plans, r, plans=plans)
+            self.assertIn("readings from %d plan" % plans, err)
+            self.assertEqual(scales(new), [])
+        rc, err, log, new = self.scaled_model("standin", -r, flags=8)
+        self.assertEqual(scales(new), [])
+        self.assertIn("0 in-vivo scales", err)
+        # three plans are enough
+        rc, err, log, new = self.scaled_model("plans3", r, plans=3)
+        self.assertEqual(rc, 0, err)
+        self.assertEqual(len(scales(new)), 1)
 
     def test_no_significant_bias_no_scale(self):
         """Readings whose mean is 0 (t test p = 1 by scipy.stats.ttest_1samp)
