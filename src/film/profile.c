@@ -338,6 +338,15 @@ static double field_angle(const float *dose, const unsigned char *above, size_t 
     return ang;
 }
 
+/* The unit vector in the image of a sampled direction, from crossplane's
+ * (ex, ey) and inplane's (ix, iy): the diagonal lies between them. */
+static void line_direction(int dir, double ex, double ey, double ix, double iy, double *ux,
+                           double *uy)
+{
+    *ux = dir == SL_DIR_CROSSPLANE ? ex : dir == SL_DIR_INPLANE ? ix : (ex + ix) / sqrt(2);
+    *uy = dir == SL_DIR_CROSSPLANE ? ey : dir == SL_DIR_INPLANE ? iy : (ey + iy) / sqrt(2);
+}
+
 /* Whether a control region (cm: x, y, width, height on the image) meets
  * the band of width band_cm sampled along (ux, uy) through the centre
  * (cx, cy, pixels) from edge to edge of the image: its corners' distances
@@ -1202,12 +1211,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
          * dose of the tail would read low (found by an independent review:
          * three times low, with no mark) */
         for (int d = 0; fp->has_control && d < fp->ndirs; d++) {
-            double ux = fp->dirs[d] == SL_DIR_CROSSPLANE ? ex
-                        : fp->dirs[d] == SL_DIR_INPLANE  ? ix
-                                                         : (ex + ix) / sqrt(2);
-            double uy = fp->dirs[d] == SL_DIR_CROSSPLANE ? ey
-                        : fp->dirs[d] == SL_DIR_INPLANE  ? iy
-                                                         : (ey + iy) / sqrt(2);
+            double ux, uy;
+            line_direction(fp->dirs[d], ex, ey, ix, iy, &ux, &uy);
             if (control_on_band(fp->control, s->pixel_cm, cx, cy, ux, uy, fs.band_cm)) {
                 st = sl_error_set(err, SL_EINPUT,
                                   "%s: unexposed_region_cm [%g, %g, %g, %g] lies on the %s band "
@@ -1223,12 +1228,8 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
         for (int d = 0; d < fp->ndirs; d++) {
             film_line *L = &r->lines[r->nlines++];
             L->direction = fp->dirs[d];
-            double ux = fp->dirs[d] == SL_DIR_CROSSPLANE ? ex
-                        : fp->dirs[d] == SL_DIR_INPLANE  ? ix
-                                                         : (ex + ix) / sqrt(2);
-            double uy = fp->dirs[d] == SL_DIR_CROSSPLANE ? ey
-                        : fp->dirs[d] == SL_DIR_INPLANE  ? iy
-                                                         : (ey + iy) / sqrt(2);
+            double ux, uy;
+            line_direction(fp->dirs[d], ex, ey, ix, iy, &ux, &uy);
             if ((st = sample_line(s, pv, &chf, (const float *const *)pv3, triple ? &tr : NULL,
                                   curve->resolve_fraction, cx, cy, ux, uy, fs.band_cm, fs.step_cm,
                                   lowest, L, err)) != SL_OK) {

@@ -784,12 +784,17 @@ class BadFilmInput(unittest.TestCase):
     def tearDownClass(cls):
         cls.tmpctx.cleanup()
 
-    def calib_variant(self, name, mutate):
-        doc = load(self.c.cal)
+    def variant(self, source, name, mutate):
+        """A copy of a campaign file, changed by mutate(document); its path."""
+        doc = load(source)
         mutate(doc)
         path = os.path.join(self.c.dir, name + ".yaml")
         with open(path, "w") as f:
             yaml.safe_dump(doc, f)
+        return path
+
+    def calib_variant(self, name, mutate):
+        path = self.variant(self.c.cal, name, mutate)
         return path, run("film", "calibrate", path, "-o", os.path.join(self.c.dir, name + ".out"))
 
     def refused(self, result, *fragments):
@@ -862,12 +867,7 @@ class BadFilmInput(unittest.TestCase):
         self.assertIn("8-bit scan", err)
 
     def films_variant(self, name, mutate):
-        doc = load(self.c.films)
-        mutate(doc)
-        path = os.path.join(self.c.dir, name + ".yaml")
-        with open(path, "w") as f:
-            yaml.safe_dump(doc, f)
-        return self.c.profile(path, name + "-out")[:3]
+        return self.c.profile(self.variant(self.c.films, name, mutate), name + "-out")[:3]
 
     def test_a_reference_dose_ten_times_too_high_is_refused(self):
         """Every film's cax_reference_cgy ten times the dose given: the axis of

@@ -290,13 +290,7 @@ class ThePointCompared(unittest.TestCase):
         that point's depth and model flags, not the whole lung's (which
         reaches 23 cm, beyond the measured distances). The reference is
         `model eval` at that distance and depth: no extrapolated flag."""
-        with tempdir() as d:
-            f = write(d, "r.yaml", reading("LUNG", roi="Lung_L", case=NECK,
-                                           patient="DEMO-DEVICE-03"))
-            log = os.path.join(d, "log.sqlite")
-            rc, out, err = run("invivo", "add", f, "--model", MODEL, "--log", log)
-            self.assertIn(rc, (0, 4), err)
-            r = rows(log)[0]
+        r, err = self.add_one(reading("LUNG", roi="Lung_L", case=NECK, patient="DEMO-DEVICE-03"))
         self.assertEqual(r["model_flags"] & 4, 0)  # SL_MF_EXTRAPOLATED
         self.assertNotIn("beyond the measured distances", err)
         js = run_json("model", "eval", MODEL, "--format", "json", "-e", "9", "-a", "A10",
@@ -308,13 +302,19 @@ class ThePointCompared(unittest.TestCase):
         """A reading on the chest-fetus plan's Thyroid: the structure set holds
         a fetus, and no gestational age is needed to compare a thyroid dose
         (the fetus is left not judged, as in a batch); it was refused."""
+        r, err = self.add_one(reading("THY", roi="Thyroid", case=CHEST, patient="DEMO-FETUS-02"))
+        self.assertIn("Thyroid", r["position"])
+
+    def add_one(self, text):
+        """invivo add of one reading into a new log: its row and the messages."""
         with tempdir() as d:
-            f = write(d, "r.yaml", reading("THY", roi="Thyroid", case=CHEST,
-                                           patient="DEMO-FETUS-02"))
+            f = write(d, "r.yaml", text)
             log = os.path.join(d, "log.sqlite")
             rc, out, err = run("invivo", "add", f, "--model", MODEL, "--log", log)
             self.assertIn(rc, (0, 4), err)
-            self.assertEqual(len(rows(log)), 1)
+            got = rows(log)
+        self.assertEqual(len(got), 1)
+        return got[0], err
 
 
 class Statistics(unittest.TestCase):
