@@ -21,7 +21,13 @@
  * and, on a set prepared for the shift, the profiles' exponentials: the
  * nearer distance's are the farther's times a factor fixed per profile,
  * which moves that one number by rounding alone (within 1e-13 relative)
- * and took a quarter of the estimate's exponentials away.
+ * and took a quarter of the estimate's exponentials away. For a stand-in,
+ * whose candidates the full evaluation would all evaluate in full to keep
+ * the largest, the lean walk takes the query's own distance as well and
+ * picks the candidate (sl_curves_eval_query_shift): only that one is
+ * evaluated in full, and the others give their flags alone (set_flags).
+ * Nearer the edge than a profile's first measured distance, and beyond its
+ * last, the measured level holds (curve_value, curve_finish).
  */
 #include "strayline/model.h"
 #include "strayline/util.h"
