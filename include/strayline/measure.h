@@ -119,7 +119,9 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
  * the surface are 70 % and more of their maximum, common practice), and
  * at the field edge of a profile by edge distance (half of that, less a
  * margin). Below them the profile is in another unit (a fraction) or
- * against another reference dose, and every organ would read low. */
+ * against another reference dose, and every organ would read low. An
+ * insert's profiles given relative to the open field's maximum are held to
+ * half of each (its cutout factor lowers them). */
 #define SL_AXIS_MIN_PERCENT 60.0
 /* A transfer uncertainty band below this relative value is warned about
  * when a measurement set is read (a strayline setting). */

@@ -570,6 +570,10 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
     if (!o || p->depth_cm > o->dmax_cm)
         return SL_OK;
+    /* an insert's profiles relative to the open field's maximum carry its
+     * cutout factor too (a small cutout's can be 0.7 or less): half the
+     * least levels then */
+    double lower = ins && ins->relative_to == SL_REL_OPEN_CAX ? 0.5 : 1.0;
     /* a width far from the nominal one: another applicator or insert than
      * the one named, or a wrong pixel size; either puts the profile's
      * distances, and so every organ's dose, somewhere else */
@@ -586,22 +590,23 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
                             strcmp(p->insert, SL_INSERT_OPEN) ? p->insert : "", p->depth_cm,
                             p->width_nominal_cm, SL_EDGE_WIDTH_REFUSE_CM,
                             100 * SL_EDGE_WIDTH_REFUSE_REL);
-    if (p->from_positions && !(p->axis_percent >= SL_AXIS_MIN_PERCENT))
+    if (p->from_positions && !(p->axis_percent >= lower * SL_AXIS_MIN_PERCENT))
         return sl_error_set(err, SL_EINPUT,
                             "%s: the dose on the axis reads %g %% at depth %g cm, no deeper "
                             "than the depth of maximum (%g cm): a profile is in percent of the "
                             "central-axis maximum, and this one reads below %.0f %% (a fraction, "
                             "another unit or another reference dose?)",
-                            path, p->axis_percent, p->depth_cm, o->dmax_cm, SL_AXIS_MIN_PERCENT);
+                            path, p->axis_percent, p->depth_cm, o->dmax_cm,
+                            lower * SL_AXIS_MIN_PERCENT);
     if (!p->from_positions && p->n > 0 && p->distance_cm[0] <= SL_EDGE_START_CM &&
-        !(p->dose_percent[0] >= SL_EDGE_MIN_PERCENT))
+        !(p->dose_percent[0] >= lower * SL_EDGE_MIN_PERCENT))
         return sl_error_set(err, SL_EINPUT,
                             "%s: the dose %g cm from the field edge reads %g %% at depth %g cm, "
                             "no deeper than the depth of maximum (%g cm): a profile is in "
                             "percent of the central-axis maximum, and at the edge it reads "
                             "below %.0f %% (a fraction, another unit or another reference dose?)",
                             path, p->distance_cm[0], p->dose_percent[0], p->depth_cm,
-                            o->dmax_cm, SL_EDGE_MIN_PERCENT);
+                            o->dmax_cm, lower * SL_EDGE_MIN_PERCENT);
     return SL_OK;
 }
 
