@@ -48,6 +48,11 @@ typedef struct sl_dicom_head {
  * identifying elements, or a UID that breaks the UID grammar: input error. */
 sl_status sl_dicom_read_head(const char *path, sl_dicom_head *out, sl_error *err);
 
+/* 1 when two DICOM files hold the same data set, element for element,
+ * whatever their transfer syntaxes and file meta information; 0 when they
+ * differ or one cannot be read. */
+int sl_dicom_same_data_set(const char *a, const char *b);
+
 /* Is s a valid DICOM UID (digits and dots, components without leading
  * zeros, at most 64 characters)? Used before a UID becomes a file name. */
 int sl_dicom_uid_valid(const char *s);

@@ -128,7 +128,7 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
 #define SL_TRANSFER_WARN_BELOW 0.1
 /* A through-field profile's 50 % width farther than both of these from the
  * nominal field projected to its depth, at a depth no deeper than the
- * maximum's, is refused (a strayline setting; beyond SL_EDGE_WIDTH_WARN_CM
+ * maximum's and at normal incidence (tilt 0), is refused (a strayline setting; beyond SL_EDGE_WIDTH_WARN_CM
  * a note). */
 #define SL_EDGE_WIDTH_REFUSE_CM 1.0
 #define SL_EDGE_WIDTH_REFUSE_REL 0.15
@@ -141,6 +141,9 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
 /* A profile by edge distance is checked there when it starts this close
  * to the edge (cm). */
 #define SL_EDGE_START_CM 0.25
+/* A profile whose first point lies farther than this from the edge (cm)
+ * gets a note: the near-edge organs rest on the extrapolation. */
+#define SL_EDGE_FAR_START_CM 1.0
 
 void sl_profile_data_free(sl_profile_data *p);
 

@@ -272,6 +272,17 @@ int sl_dicom_uid_valid(const char *s)
     return !start;
 }
 
+/* Element for element (DcmItem::compare: values, not bytes), so another
+ * transfer syntax or another sender's file meta information is still the
+ * same data set. Only called on files whose headers were read already. */
+int sl_dicom_same_data_set(const char *a, const char *b)
+{
+    DcmFileFormat fa, fb;
+    if (fa.loadFile(a).bad() || fb.loadFile(b).bad())
+        return 0;
+    return fa.getDataset()->compare(*fb.getDataset()) == 0;
+}
+
 sl_status sl_dicom_read_head(const char *path, sl_dicom_head *out, sl_error *err)
 {
     quiet();

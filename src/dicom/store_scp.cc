@@ -185,17 +185,6 @@ protected:
     }
 
 private:
-    /* Whether two stored files hold the same data set, element for element
-     * (DcmItem::compare: values, not bytes, so another transfer syntax or
-     * file meta information from another sender is still the same). */
-    static bool same_data_set(const char *a, const char *b)
-    {
-        DcmFileFormat fa, fb;
-        if (fa.loadFile(a).bad() || fb.loadFile(b).bad())
-            return false;
-        return fa.getDataset()->compare(*fb.getDataset()) == 0;
-    }
-
     /* Check the received file and give it its final name. */
     Uint16 commit(const char *tmp, const std::string &cls, const std::string &uid,
                   const std::string &shown, const std::string &ae)
@@ -231,7 +220,7 @@ private:
             if (e != EEXIST)
                 unlink(tmp);
             if (e == EEXIST) {
-                if (same_data_set(tmp_keep, final_path.c_str())) {
+                if (sl_dicom_same_data_set(tmp_keep, final_path.c_str())) {
                     unlink(tmp_keep);
                     emit(ctx, SL_SCP_EV_DUPLICATE, "received " + uid + " again: stored once",
                          ae.c_str(), final_path.c_str(), cls.c_str(), uid.c_str());

@@ -565,6 +565,12 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     sl_status st2 = sl_profile_read_csv(path, cax, w, p, &m->notes, err);
     if (st2 != SL_OK)
         return st2;
+    if (p->n > 0 && p->distance_cm[0] > SL_EDGE_FAR_START_CM)
+        sl_notes_add(&m->notes,
+                     "%s: the first point lies %.2f cm from the field edge: nearer organs will "
+                     "rest on the extrapolation toward the edge (marked extrapolated); measure "
+                     "from the edge",
+                     path, p->distance_cm[0]);
     /* a dose in another unit or against another reference: every organ
      * would read low by the same factor, with nothing else to show it */
     const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
@@ -577,7 +583,9 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     /* a width far from the nominal one: another applicator or insert than
      * the one named, or a wrong pixel size; either puts the profile's
      * distances, and so every organ's dose, somewhere else */
-    if (p->from_positions && isfinite(p->width_nominal_cm) &&
+    /* a tilted beam's footprint widens (by about 1 / cos tilt, more with the
+     * obliquity's own scatter): there the note alone */
+    if (p->from_positions && p->tilt_deg == 0 && isfinite(p->width_nominal_cm) &&
         fabs(p->width_found_cm - p->width_nominal_cm) >
             fmax(SL_EDGE_WIDTH_REFUSE_CM, SL_EDGE_WIDTH_REFUSE_REL * p->width_nominal_cm))
         return sl_error_set(err, SL_EINPUT,

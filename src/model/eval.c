@@ -26,8 +26,9 @@
  * the largest, the lean walk takes the query's own distance as well and
  * picks the candidate (sl_curves_eval_query_shift): only that one is
  * evaluated in full, and the others give their flags alone (set_flags).
- * Nearer the edge than a profile's first measured distance, and beyond its
- * last, the measured level holds (curve_value, curve_finish).
+ * Beyond a profile's last measured distance the measured level holds, and
+ * nearer the edge than its first the measured rise goes on from the first
+ * level (curve_value, curve_finish).
  */
 #include "strayline/model.h"
 #include "strayline/util.h"
@@ -50,7 +51,8 @@ typedef struct curve {
     double floor;          /* the level held beyond the farthest (measured_floor) */
     double near_floor;     /* the level held nearer the edge than the nearest measured
                               distance: the larger of the fit and the dose measured there */
-    double near_rise;      /* relative extrapolation per cm toward the edge from there */
+    double near_rise;      /* log rise per cm toward the edge from there: of the value
+                              held (near_level) and of its extrapolation component */
     double shift_k[2];     /* decay factors over twice the prepared setup shift */
 } curve;
 
@@ -106,8 +108,9 @@ const char *sl_model_flag_text(unsigned flag)
     case SL_MF_IN_FIELD: return "in field: the out-of-field model does not apply";
     case SL_MF_DEPTH_OUTSIDE: return "depth outside the commissioned depths (nearest depth used)";
     case SL_MF_EXTRAPOLATED:
-        return "outside the measured distances (extrapolated, held at least at the nearest "
-               "measured level: the farthest beyond them, the first nearer the edge)";
+        return "outside the measured distances (extrapolated: beyond them held at least at "
+               "the farthest measured level, nearer the edge rising on from the first at the "
+               "measured rise)";
     case SL_MF_OPEN_FOR_CUTOUT:
         return "cutout not commissioned: the largest of the open profiles from the cutout's "
                "and the applicator's edge and the commissioned inserts is used";
@@ -582,6 +585,14 @@ static double points_value(const curve *cv, double d, double fit)
     return fit * meas_end / at_end;
 }
 
+/* The least a profile reads `inside` cm nearer the edge than its first
+ * measured distance: the level held there, rising on at the measured rise
+ * (log-linear, near_rise per cm), as the dose rises toward the edge. */
+static double near_level(const curve *cv, double inside)
+{
+    return cv->near_floor * exp(cv->near_rise * inside);
+}
+
 /* One profile at one distance. */
 static point_value curve_value(const curve *cv, double d, eval_how how)
 {
@@ -612,9 +623,10 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
         r.u_extrap = SL_EXTRAPOLATION_PER_CM * (d - hi) * r.v;
     } else if (d < lo) {
         /* nearer the edge than measured: a peaked fit may fall again there
-         * while the dose rises toward the edge, so the nearest measured
-         * level holds, and the distance from it is an extrapolation */
-        double floor = cv->near_floor;
+         * while the dose rises toward the edge, so the measured rise goes
+         * on from the nearest measured level, and the distance from it is
+         * an extrapolation */
+        double floor = near_level(cv, lo - d);
         if (!(r.v >= floor)) {
             r.u_fit = cv->fit_lo > 0 ? cv->u_lo / cv->fit_lo * floor : 0;
             r.e_frac = r.v > 0 ? r.e_frac * r.v / floor : 0;
@@ -1066,9 +1078,12 @@ static dose_part curve_finish(const curve *cv, double d, sl_eval_mode mode, doub
     if (d > hi && !(r.v >= cv->floor)) {
         r.e_frac = r.v > 0 ? r.e_frac * r.v / cv->floor : 0;
         r.v = cv->floor;
-    } else if (d < lo && !(r.v >= cv->near_floor)) {
-        r.e_frac = r.v > 0 ? r.e_frac * r.v / cv->near_floor : 0;
-        r.v = cv->near_floor;
+    } else if (d < lo) {
+        double floor = near_level(cv, lo - d);
+        if (!(r.v >= floor)) {
+            r.e_frac = r.v > 0 ? r.e_frac * r.v / floor : 0;
+            r.v = floor;
+        }
     }
     return r;
 }

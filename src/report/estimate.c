@@ -156,7 +156,8 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
                  "Organs closer than %.0f cm to the field edge are marked [near edge] and not "
                  "judged: the planning system's dose is the reference there. Beyond a profile's "
                  "measured distances its value is held at least at the farthest measured level, "
-                 "and nearer the edge than its first at that level (marked [extrapolated]); "
+                 "and nearer the edge than its first it rises on from that level (marked "
+                 "[extrapolated]); "
                  "organs more than %.1f times the farthest measured "
                  "distance away are shown, not judged.",
                  SL_NEAR_EDGE_CM, SL_BEYOND_RANGE_FACTOR);

@@ -363,8 +363,9 @@ static void choose_doses(const sl_scan_files *f, size_t p, const size_t *first_d
     }
 }
 
-/* Whether two files hold the same bytes. Two copies of one export are;
- * an object edited and saved again under its old SOP Instance UID is not,
+/* Whether two files hold the same bytes: two copies of one export do, and
+ * then the data sets need not be compared element by element. An object
+ * edited and saved again under its old SOP Instance UID differs in both,
  * and then the folder does not say which one is meant. A file that cannot
  * be read counts as different. */
 static bool same_bytes(const char *a, const char *b)
@@ -417,7 +418,8 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
             continue;
         size_t first = uid_find_or_add(&x, f->files, f->files[i].head.sop_instance_uid, i);
         dup[i] = first != SIZE_MAX;
-        if (dup[i] && !same_bytes(f->files[first].path, f->files[i].path))
+        if (dup[i] && !same_bytes(f->files[first].path, f->files[i].path) &&
+            !sl_dicom_same_data_set(f->files[first].path, f->files[i].path))
             conflict[i] = conflict[first] = true;
     }
     /* each plan's RT Doses, as lists through the files */

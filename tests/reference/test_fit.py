@@ -301,12 +301,12 @@ class HandMadeModel(unittest.TestCase):
 class NearerTheEdgeThanMeasured(unittest.TestCase):
     """A peaked profile measured from 3 cm out, whose bump (mu 3.5 cm) makes
     the fitted form fall again toward the edge before its first point. The
-    formulas of models/README.md (Distance) give the expected numbers: the
-    first measured level holds nearer the edge, flagged extrapolated, with
-    the extrapolation component the measured rise of the first three points
-    (log slope per cm) times the distance from the first point (found by an
-    independent review: the fit read 2.6 times low at 1 cm from the edge,
-    with no extrapolation component)."""
+    formulas of models/README.md (Distance) give the expected numbers: nearer
+    the edge the first measured level rises on at the measured rise of the
+    first three points (log slope per cm), flagged extrapolated, with the
+    extrapolation component that rise times the distance from the first
+    point (found by independent reviews: the fit read 2.6 times low at 1 cm
+    from the edge, with no extrapolation component)."""
     T = {"a_percent": 0.5, "lambda1_cm": 1.0, "c_percent": 1.0, "lambda2_cm": 12.0,
          "b_percent": 3.0, "mu_cm": 3.5, "sigma_cm": 0.6}
 
@@ -329,15 +329,16 @@ class NearerTheEdgeThanMeasured(unittest.TestCase):
         with tempdir() as tmp:
             path = os.path.join(tmp, "near.yaml")
             write_model(path, [prof])
-            rise = math.log(y[0] / y[2]) / 2.0
+            rise = max(math.log(y[0] / y[2]) / 2.0, 0.02)
             for x in (0.0, 1.0, 2.5):
                 js = run_json("model", "eval", path, "--format", "json", "-e", "9", "-a",
                               "A10", "-d", "0", "-x", str(x))
                 self.assertLess(self.f(x), y[0])  # the fit alone reads low here
-                self.assertAlmostEqual(js["dose_percent"], y[0], delta=1e-9)
+                want = y[0] * math.exp(rise * (3.0 - x))
+                self.assertAlmostEqual(js["dose_percent"], want, delta=1e-9 * want)
                 self.assertIn("extrapolated", js["flags"])
                 self.assertAlmostEqual(js["uncertainty_extrapolation_percent"],
-                                       rise * (3.0 - x) * y[0], delta=1e-9)
+                                       rise * (3.0 - x) * want, delta=1e-9 * want)
             # measured points themselves are unchanged
             js = run_json("model", "eval", path, "--format", "json", "-e", "9", "-a", "A10",
                           "-d", "0", "-x", "4")

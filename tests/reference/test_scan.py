@@ -563,6 +563,23 @@ class SameUidOtherContent(unittest.TestCase):
             outcome = {p["plan_uid"]: (p["outcome"], p["message"]) for p in plans}
             self.assertTrue(any(v[0] == "error" and "structure set's SOP Instance UID" in v[1]
                                 for v in outcome.values()), outcome)
+            # the same plan in another transfer syntax (implicit VR, pydicom):
+            # other bytes, the same data set, a plain duplicate (found by an
+            # independent review: it was an error)
+            src3 = os.path.join(d, "in3")
+            copy_pair("face-lens", os.path.join(src3, "a"), "TS")
+            ds = pydicom.dcmread(os.path.join(src3, "a", "rtplan.dcm"))
+            ds.file_meta.TransferSyntaxUID = pydicom.uid.ImplicitVRLittleEndian
+            os.makedirs(os.path.join(src3, "b"))
+            ds.is_implicit_VR, ds.is_little_endian = True, True
+            ds.save_as(os.path.join(src3, "b", "rtplan.dcm"), write_like_original=False)
+            with open(os.path.join(src3, "a", "rtplan.dcm"), "rb") as f1, \
+                    open(os.path.join(src3, "b", "rtplan.dcm"), "rb") as f2:
+                self.assertNotEqual(f1.read(), f2.read())
+            rc, o, err = scan(src3, os.path.join(d, "out3"))
+            with open(os.path.join(d, "out3", "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertEqual(sorted(p["outcome"] for p in plans), ["duplicate", "screened"])
 
 
 class NoExponents(unittest.TestCase):
