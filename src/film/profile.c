@@ -997,6 +997,21 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                 sl_error_prefix(err, pre);
                 goto done;
             }
+            /* a control on exposed film (near the field, off the bands the
+             * check below sees) reads dose against the calibration's
+             * unexposed pieces; so does a scanner that drifted, which the
+             * control is there to cancel: said, for the user to look */
+            double dc = sl_film_dose(ch, log10(ch->pv0 / cs.mean), 0, NULL);
+            double warn = isfinite(ch->lowest_dose_cgy) ? 2 * ch->lowest_dose_cgy
+                                                        : 0.01 * fp->cax_ref;
+            if (!(dc <= warn) &&
+                (st = sl_notes_add(&sum->notes,
+                                   "%s: unexposed_region_cm reads %.3g cGy against the "
+                                   "calibration's unexposed pieces (more than %.3g cGy): "
+                                   "exposed film, or a scanner that drifted; if it lies near "
+                                   "the field, every dose of the tail reads low",
+                                   where, dc, warn)) != SL_OK)
+                goto done;
             chf.pv0 = cs.mean;
             chf.pv0_sem = cs.sem;
             r->control_pv = cs.mean;

@@ -904,6 +904,26 @@ class BadFilmInput(unittest.TestCase):
         self.refused(self.films_variant("ctrlband", m), "unexposed_region_cm",
                      "lies on the crossplane band")
 
+    def test_control_piece_on_exposed_film_is_warned_about(self):
+        """The first film's control region moved beside the field's corner,
+        off every sampled band: it reads dose against the calibration's
+        unexposed pieces, and the profile says so (a scanner that drifted
+        reads so too, so it is a warning; found by an independent review: a
+        control near the field made the tail read three times low, with no
+        word)."""
+        def one(doc):  # the shorter exposure alone: no overlap to compare
+            doc["films"] = [min(doc["films"], key=lambda f: f["monitor_units"])]
+
+        def m(doc):
+            one(doc)
+            doc["films"][0]["unexposed_region_cm"] = [11.3, 0.3, 0.5, 0.5]
+        rc, out, err = self.films_variant("ctrlfield", m)
+        self.assertEqual(rc, 0, err)
+        self.assertIn("unexposed_region_cm reads", err)
+        rc, out, err = self.films_variant("ctrlok", one)
+        self.assertEqual(rc, 0, err)
+        self.assertNotIn("unexposed_region_cm reads", err)
+
     def test_a_wrong_pixel_size_is_refused(self):
         """--dpi 75 for scans tagged (and made) at 50 dpi: every distance
         shrinks by a third, the 50 % width found is two thirds of the nominal
