@@ -141,6 +141,13 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
 /* A profile by edge distance is checked there when it starts this close
  * to the edge (cm). */
 #define SL_EDGE_START_CM 0.25
+/* Profiles of one energy, applicator and insert at depths no deeper than
+ * the maximum, compared far from the field (at up to this distance, cm):
+ * one whose median ratio to the others lies beyond this factor is refused
+ * (a strayline setting; a fraction reads 100 times low, a reference dose
+ * typed ten times high 10 times). */
+#define SL_LEVELS_AT_CM 10.0
+#define SL_LEVELS_APART 5.0
 /* A profile whose first point lies farther than this from the edge (cm)
  * gets a note: the near-edge organs rest on the extrapolation. */
 #define SL_EDGE_FAR_START_CM 1.0

@@ -618,6 +618,76 @@ static sl_status read_profile_data(sl_yaml *y, yaml_node_t *n, size_t k, const c
     return SL_OK;
 }
 
+/* A profile's dose at distance x (cm) by log-linear interpolation of its
+ * points; NAN outside them. */
+static double dose_at(const sl_profile_data *p, double x)
+{
+    for (size_t i = 1; i < p->n; i++)
+        if (x >= p->distance_cm[i - 1] && x <= p->distance_cm[i]) {
+            double w = (x - p->distance_cm[i - 1]) / (p->distance_cm[i] - p->distance_cm[i - 1]);
+            return p->dose_percent[i - 1] * exp(w * log(p->dose_percent[i] /
+                                                        p->dose_percent[i - 1]));
+        }
+    return NAN;
+}
+
+/* The profiles of one energy, applicator and insert at depths no deeper
+ * than the maximum read alike far from the field, where head leakage and
+ * scatter dominate and depth, direction, tilt and SSD change the dose by
+ * a factor of two or so. One that reads SL_LEVELS_APART times lower or
+ * higher than the median of the others at the same distance is in another
+ * unit or against another reference dose (the checks at the axis and the
+ * edge see only profiles that start there). */
+static sl_status check_levels_agree(const sl_measurement_set *m, const char *name,
+                                    sl_error *err)
+{
+    size_t n = m->nprofiles;
+    double *v = malloc((n ? n : 1) * sizeof *v);
+    if (!v)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    sl_status st = SL_OK;
+    for (size_t i = 0; st == SL_OK && i < n; i++) {
+        const sl_profile_data *p = &m->profiles[i];
+        const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
+        if (!o || p->depth_cm > o->dmax_cm || p->n < 2)
+            continue;
+        /* the farthest distance both reach, at most SL_LEVELS_AT_CM */
+        size_t k = 0;
+        for (size_t j = 0; j < n; j++) {
+            const sl_profile_data *q = &m->profiles[j];
+            if (j == i || q->n < 2 || q->entry == p->entry ||
+                fabs(q->energy_mev - p->energy_mev) > 0.01 ||
+                strcmp(q->applicator, p->applicator) != 0 || strcmp(q->insert, p->insert) != 0 ||
+                q->depth_cm > o->dmax_cm)
+                continue;
+            double x = fmin(SL_LEVELS_AT_CM, fmin(p->distance_cm[p->n - 1],
+                                                  q->distance_cm[q->n - 1]));
+            double a = dose_at(p, x), b = dose_at(q, x);
+            if (isfinite(a) && isfinite(b) && a > 0 && b > 0)
+                v[k++] = a / b;
+        }
+        if (k < 2)
+            continue;
+        /* the median ratio to the others */
+        for (size_t a = 1; a < k; a++)
+            for (size_t b = a; b > 0 && v[b] < v[b - 1]; b--) {
+                double t = v[b];
+                v[b] = v[b - 1];
+                v[b - 1] = t;
+            }
+        double med = k % 2 ? v[k / 2] : sqrt(v[k / 2 - 1] * v[k / 2]);
+        if (med < 1 / SL_LEVELS_APART || med > SL_LEVELS_APART)
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: profile %zu (%s) reads %.3g times the other profiles of "
+                              "%g MeV, applicator '%s', insert '%s' far from the field (median "
+                              "of %zu, at up to %g cm): another unit or another reference dose?",
+                              name, p->entry, p->path ? p->path : p->file, med, p->energy_mev,
+                              p->applicator, p->insert, k, SL_LEVELS_AT_CM);
+    }
+    free(v);
+    return st;
+}
+
 sl_status sl_measurements_load_buffer(const char *data, size_t size, const char *name,
                                       const char *dir, sl_measurement_set **out, sl_error *err)
 {
@@ -733,6 +803,8 @@ sl_status sl_measurements_load_buffer(const char *data, size_t size, const char 
         }
     }
     sl_yaml_free(&y);
+    if (st == SL_OK)
+        st = check_levels_agree(m, name, err);
     /* the same file under two entries (other than a mirrored twin): a copy
      * and paste that puts one depth's or applicator's data at another */
     for (size_t i = 0; st == SL_OK && i < m->nprofiles; i++)

@@ -355,7 +355,8 @@ class ProfilesInAnotherUnit(unittest.TestCase):
     naming the file, where the model read a hundred times low (found by an
     independent review)."""
 
-    def refuse_fraction(self, name, through):
+    def refuse_fraction(self, name, through, start=None, fragment="a fraction, another unit or "
+                        "another reference dose"):
         with tempdir() as d:
             dst = os.path.join(d, "set")
             shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"),
@@ -368,19 +369,27 @@ class ProfilesInAnotherUnit(unittest.TestCase):
                 w = csv.writer(f)
                 w.writerow(rows[0])
                 for r in rows[1:]:
-                    w.writerow([r[0], repr(float(r[1]) / 100)])
+                    if start is None or float(r[0]) >= start:
+                        w.writerow([r[0], repr(float(r[1]) / 100)])
             rc, out, err = run("fit", os.path.join(dst, "measurements.yaml"), "-q", "-o",
                                os.path.join(d, "m.yaml"))
         self.assertEqual(rc, 3, err)
         self.assertEqual(len(err.strip().splitlines()), 1, err)
         self.assertIn(name, err)
-        self.assertIn("a fraction, another unit or another reference dose", err)
+        self.assertIn(fragment, err)
 
     def test_an_edge_distance_profile_as_a_fraction(self):
         self.refuse_fraction("e06_a06_open_d0.00.csv", False)
 
     def test_a_through_field_profile_as_a_fraction(self):
         self.refuse_fraction("e09_a10_open_d1.00_inplane_through.csv", True)
+
+    def test_a_profile_from_half_a_centimetre_as_a_fraction(self):
+        """Neither the axis nor the edge in it: far from the field it reads a
+        hundredth of the other profiles of 9 MeV, A10, open at depths no deeper
+        than the maximum (found by an independent review of the first rule)."""
+        self.refuse_fraction("e09_a10_open_d1.00.csv", False, start=0.5,
+                             fragment="another unit or another reference dose")
 
 
 class OneSideHotter(unittest.TestCase):
