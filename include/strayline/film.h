@@ -49,8 +49,11 @@ extern "C" {
 /* Films of one profile whose overlap ratio (longer exposure over the
  * shorter, where both read) is farther than this from 1, and beyond 5
  * standard errors, are refused: a wrong MU or reference dose (a strayline
- * setting; within it, beyond 3 % and 3 standard errors, a warning). */
-#define SL_FILM_OVERLAP_REFUSE 0.10
+ * setting; within it, beyond 3 % and 3 standard errors, a warning). The
+ * standard error counts the cells as independent, not the calibration's
+ * bias common to them, which can reach several per cent at the short
+ * film's low end: hence a margin well above that. */
+#define SL_FILM_OVERLAP_REFUSE 0.25
 /* Largest scan read (pixels), so that a hostile header cannot exhaust memory. */
 #define SL_FILM_MAX_PIXELS ((size_t)1 << 25) /* 33.5 million: 25 x 20 cm at 600 dpi */
 
