@@ -109,6 +109,7 @@ static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch
     jw_str(&w, root, "model_file", cfg->model_path);
     jw_str(&w, root, "model_version", cfg->model->model_version);
     jw_str(&w, root, "model_sha256", cfg->model->sha256);
+    jw_int(&w, root, "model_invivo_scales", (long long)cfg->model->nscales);
     jw_str(&w, root, "action_levels_file", cfg->levels_path);
     jw_str(&w, root, "action_levels_sha256", cfg->levels->sha256);
     size_t counts[SL_OUT_BAD + 1] = {0}, flagged = 0;
@@ -184,6 +185,12 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
     hel(&h, cd, "p", caution);
     if (cfg->model->machine.invented)
         hel(&h, cd, "p", "The model is invented demo data, not for clinical use.");
+    if (cfg->model->nscales)
+        helf(&h, cd, "p",
+             "MODEL SCALED BY IN-VIVO EVIDENCE: %zu energy and applicator pair%s of this model "
+             "%s scaled by in-vivo readings; each report names the beams it touches.",
+             cfg->model->nscales, cfg->model->nscales == 1 ? "" : "s",
+             cfg->model->nscales == 1 ? "is" : "are");
     xmlNodePtr meta = hel(&h, b, "table", NULL);
     const char *const rows[][2] = {{"model", cfg->model_path},
                                    {"model version", cfg->model->model_version},

@@ -575,6 +575,25 @@ class Scale(unittest.TestCase):
         self.assertEqual(rc, 0, err)
         self.assertEqual(len(scales(new)), 1)
 
+    def test_scan_summary_says_the_model_is_scaled(self):
+        """A scan with a model that carries an in-vivo scale says so in its
+        index.html and summary.json, as each report does (found by an
+        independent review: only the reports said it)."""
+        rng = np.random.default_rng(18)
+        rc, err, log, new = self.scaled_model("scanned", 0.2 + 0.1 * rng.standard_normal(12))
+        self.assertEqual(rc, 0, err)
+        src = os.path.join(self.tmp.name, "scan-in")
+        shutil.copytree(FACE, src)
+        out = os.path.join(self.tmp.name, "scan-out")
+        rc, o, e = run("scan", src, "--model", new, "--levels",
+                       os.path.join(SOURCE_ROOT, "models", "action-levels.yaml"), "--out", out,
+                       "--quiet")
+        self.assertIn(rc, (0, 4), e)
+        with open(os.path.join(out, "index.html")) as f:
+            self.assertIn("MODEL SCALED BY IN-VIVO EVIDENCE", f.read())
+        with open(os.path.join(out, "summary.json")) as f:
+            self.assertEqual(json.load(f)["model_invivo_scales"], 1)
+
     def test_no_significant_bias_no_scale(self):
         """Readings whose mean is 0 (t test p = 1 by scipy.stats.ttest_1samp)
         get no scale, and the command says why; 4 readings with a clear bias
