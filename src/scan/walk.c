@@ -396,8 +396,9 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
     while (x.cap < 2 * f->n + 2)
         x.cap *= 2;
     x.slot = calloc(x.cap, sizeof *x.slot);
-    sl_batch_entry *e = calloc(f->n ? f->n : 1, sizeof *e);
-    bool *dup = calloc(f->n ? f->n : 1, sizeof *dup);
+    const size_t nf = f->n ? f->n : 1; /* no allocation of size 0 */
+    sl_batch_entry *e = calloc(nf, sizeof *e);
+    bool *dup = calloc(nf, sizeof *dup);
     if (!x.slot || !e || !dup) {
         free(x.slot);
         free(e);
@@ -406,7 +407,7 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
     }
     /* conflict: a UID that two files of different content share; neither
      * is screened, nor a plan that names such a structure set */
-    bool *conflict = calloc(f->n ? f->n : 1, sizeof *conflict);
+    bool *conflict = calloc(nf, sizeof *conflict);
     if (!conflict) {
         free(x.slot);
         free(e);
@@ -417,15 +418,17 @@ sl_status sl_scan_pair(const sl_scan_files *f, sl_batch_entry **entries, size_t 
         if (!f->files[i].ok)
             continue;
         size_t first = uid_find_or_add(&x, f->files, f->files[i].head.sop_instance_uid, i);
-        dup[i] = first != SIZE_MAX;
-        if (dup[i] && !same_bytes(f->files[first].path, f->files[i].path) &&
+        if (first == SIZE_MAX)
+            continue;
+        dup[i] = true;
+        if (!same_bytes(f->files[first].path, f->files[i].path) &&
             !sl_dicom_same_data_set(f->files[first].path, f->files[i].path))
             conflict[i] = conflict[first] = true;
     }
     /* each plan's RT Doses, as lists through the files */
-    size_t *first_dose = malloc((f->n ? f->n : 1) * sizeof *first_dose);
-    size_t *next_dose = malloc((f->n ? f->n : 1) * sizeof *next_dose);
-    bool *dose_taken = calloc(f->n ? f->n : 1, sizeof *dose_taken);
+    size_t *first_dose = malloc(nf * sizeof *first_dose);
+    size_t *next_dose = malloc(nf * sizeof *next_dose);
+    bool *dose_taken = calloc(nf, sizeof *dose_taken);
     if (!first_dose || !next_dose || !dose_taken) {
         free(first_dose);
         free(next_dose);
