@@ -281,7 +281,9 @@ int sl_cmd_listen(int argc, char **argv)
         log_path = default_log;
     }
     snprintf(store, sizeof store, "%s/received", outdir);
-    if ((mkdir(outdir, 0777) != 0 && errno != EEXIST) ||
+    /* the reports name patients: a folder made here is closed to other
+     * users (owner and group only); one that exists keeps its mode */
+    if ((mkdir(outdir, 0750) != 0 && errno != EEXIST) ||
         (mkdir(store, 0700) != 0 && errno != EEXIST)) {
         sl_cli_error("%s: cannot create the output folder: %s", outdir,
                 strerror(errno));

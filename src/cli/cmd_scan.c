@@ -184,7 +184,9 @@ int sl_cmd_scan(int argc, char **argv)
         snprintf(default_log, sizeof default_log, "%s/screening.sqlite", outdir);
         log_path = default_log;
     }
-    if (mkdir(outdir, 0777) != 0 && errno != EEXIST) {
+    /* the reports name patients: a folder made here is closed to other
+     * users (owner and group only); one that exists keeps its mode */
+    if (mkdir(outdir, 0750) != 0 && errno != EEXIST) {
         sl_cli_error("%s: cannot create the output folder: %s", outdir,
                 strerror(errno));
         return SL_EXIT_INTERNAL;

@@ -157,6 +157,10 @@ class Listen(unittest.TestCase):
         ss_uid = plan_uid(os.path.join(face, "rtstruct.dcm"))
         self.assertEqual(stored, sorted([uid + ".dcm", ss_uid + ".dcm"]))
         self.assertEqual(plan_uid(os.path.join(self.out, "received", uid + ".dcm")), uid)
+        # the folder the node made holds patient data: no access for other
+        # users (POSIX permission bits), the store for the owner alone
+        self.assertEqual(os.stat(self.out).st_mode & 0o007, 0)
+        self.assertEqual(os.stat(os.path.join(self.out, "received")).st_mode & 0o077, 0)
 
     def test_port_in_use(self):
         node = self.start()

@@ -131,6 +131,13 @@ class MixedFolder(unittest.TestCase):
     def by_outcome(self, outcome):
         return [p for p in self.summary["plans"] if p["outcome"] == outcome]
 
+    def test_new_output_folder_closed_to_others(self):
+        # the reports name patients: a folder scan creates gives other users
+        # no access (POSIX permission bits; the umask may only take more away)
+        mode = os.stat(self.out).st_mode
+        self.assertEqual(mode & 0o007, 0, oct(mode))
+        self.assertEqual(mode & 0o700, 0o700, oct(mode))
+
     def test_exit_code_flags(self):
         # the demo cases flag organs (examples/README.md), so exit code 4
         self.assertEqual(self.rc, 4, self.stderr)
