@@ -369,6 +369,15 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                                     "(300A,0086): its monitor units are unknown (or give "
                                     "--reference-dose)",
                                     f, fg->number, b->number);
+            /* a treatment beam of no monitor units would read 0 everywhere
+             * and pass every organ: the meterset is missing, not zero */
+            if (fg->refs[r].meterset_mu == 0 && isnan(e->opt.reference_dose_cgy))
+                return sl_error_set(err, SL_EINPUT,
+                                    "%s: fraction group %d: beam %d has BeamMeterset "
+                                    "(300A,0086) 0 for an electron treatment beam: its monitor "
+                                    "units are not known yet (export the plan after its MU are "
+                                    "set, or give --reference-dose)",
+                                    f, fg->number, b->number);
             in_any = true;
             bd->mu[g] = fg->refs[r].meterset_mu;
             bd->plan_beam_dose_cgy[g] = fg->refs[r].beam_dose_gy * 100.0;

@@ -331,6 +331,13 @@ def main():
               lambda d: setattr(d.FractionGroupSequence[0].ReferencedBeamSequence[0],
                                 "BeamMeterset", "-200"),
               "BeamMeterset (300A,0086): -200.000000 MU is not a plausible meterset")
+    # a treatment beam of 0 MU would read 0 cGy at every organ and pass
+    # them all (found by an independent review): the MU are unknown
+    plan_case("meterset_zero.dcm",
+              lambda d: setattr(d.FractionGroupSequence[0].ReferencedBeamSequence[0],
+                                "BeamMeterset", "0"),
+              "BeamMeterset (300A,0086) 0 for an electron treatment beam",
+              args="estimate {f} {ss} --model {model}")
     plan_case("isocenter_absurd.dcm", lambda d: setattr(cp0(d), "IsocenterPosition",
                                                        rb.ds([0, 1e9, 0])),
               "IsocenterPosition (300A,012C): coordinate")
