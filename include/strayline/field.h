@@ -34,7 +34,8 @@ typedef struct sl_applicator_size {
 typedef enum sl_field_source {
     SL_FIELD_CUTOUT,
     SL_FIELD_PLAN_APPLICATOR,
-    SL_FIELD_CATALOGUE
+    SL_FIELD_CATALOGUE,
+    SL_FIELD_LARGER_APPLICATOR /* the plan and the catalogue disagree: the larger of each */
 } sl_field_source;
 
 typedef struct sl_field {
@@ -44,6 +45,11 @@ typedef struct sl_field {
     bool has_cutout;
     bool has_shielding;
     double area_cm2;         /* of the field edge outline, isocentric plane */
+    /* the plan's Applicator Geometry and the model's catalogue entry of the
+     * same applicator ID disagree (beyond 0.5 cm and 10 %): their sizes (cm,
+     * x and y at the isocentre; a circle's diameter twice) */
+    bool applicator_disagrees;
+    double plan_opening_cm[2], model_opening_cm[2];
 } sl_field;
 
 const char *sl_field_source_name(sl_field_source s);

@@ -14,6 +14,9 @@ const char *sl_field_source_name(sl_field_source s)
     case SL_FIELD_CUTOUT: return "cutout (APERTURE blocks)";
     case SL_FIELD_PLAN_APPLICATOR: return "applicator opening in the plan";
     case SL_FIELD_CATALOGUE: return "applicator catalogue of the model file";
+    case SL_FIELD_LARGER_APPLICATOR:
+        return "larger of the plan's applicator opening and the model file's size (they "
+               "disagree)";
     }
     return "?";
 }
@@ -28,43 +31,91 @@ void sl_field_free(sl_field *f)
 }
 
 /* The applicator opening at the isocentric plane, from the plan or the
- * catalogue; *out stays NULL when neither knows it. */
+ * catalogue; *out stays NULL when neither knows it. When both know it and
+ * disagree beyond APPLICATOR_AGREE, the larger of the two on each axis is
+ * taken: the model's profiles are measured from the edge of the applicator
+ * it lists under that ID, and a smaller opening in the plan would put every
+ * organ farther from the edge than the model's distances mean, so lower
+ * (found by an independent review: 6 cm in the plan under a 10 cm
+ * applicator passed a lens at a third of its dose). */
+#define APPLICATOR_AGREE_CM 0.5
+#define APPLICATOR_AGREE_REL 0.10
+
+static bool sizes_agree(double a, double b)
+{
+    return fabs(a - b) <= fmax(APPLICATOR_AGREE_CM, APPLICATOR_AGREE_REL * fmax(a, b));
+}
+
 static sl_status applicator_outline(const sl_plan *plan, const sl_beam *beam,
-                                    const sl_applicator_size *cat, size_t ncat, sl_outline **out,
+                                    const sl_applicator_size *cat, size_t ncat, sl_field *f,
                                     sl_field_source *src, sl_error *err)
 {
+    sl_outline **out = &f->applicator;
     *out = NULL;
     const sl_applicator *a = &beam->applicator;
     char what[128];
     snprintf(what, sizeof what, "%s: beam %d applicator", plan->source, beam->number);
+    /* the plan's opening: its size on each axis (cm), circular or not */
+    bool in_plan = false, plan_circ = false;
+    double px = NAN, py = NAN;
     if (a->present && a->has_geometry && a->aperture_shape) {
-        *src = SL_FIELD_PLAN_APPLICATOR;
         const char *shape = a->aperture_shape;
-        if (strcmp(shape, "SYM_CIRCULAR") == 0 && isfinite(a->opening_mm))
-            return sl_outline_circle(a->opening_mm * 0.1, what, out, err);
-        if (strcmp(shape, "SYM_SQUARE") == 0 && isfinite(a->opening_mm))
-            return sl_outline_rectangle(a->opening_mm * 0.1, a->opening_mm * 0.1, what, out, err);
-        if (strcmp(shape, "SYM_RECTANGLE") == 0 && isfinite(a->opening_x_mm) &&
-            isfinite(a->opening_y_mm))
-            return sl_outline_rectangle(a->opening_x_mm * 0.1, a->opening_y_mm * 0.1, what, out,
-                                        err);
-        return sl_error_set(err, SL_EINPUT,
-                            "%s: beam %d: ApplicatorApertureShape (300A,0432) %s without the "
-                            "opening it needs",
-                            plan->source, beam->number, shape);
-    }
-    if (!a->present || !a->id)
-        return SL_OK;
-    for (size_t i = 0; i < ncat; i++) {
-        if (cat[i].id && strcmp(cat[i].id, a->id) == 0) {
-            *src = SL_FIELD_CATALOGUE;
-            double s = (beam->sad_mm * 0.1) / cat[i].nominal_ssd_cm;
-            if (cat[i].circular)
-                return sl_outline_circle(cat[i].x_cm * s, what, out, err);
-            return sl_outline_rectangle(cat[i].x_cm * s, cat[i].y_cm * s, what, out, err);
+        if (strcmp(shape, "SYM_CIRCULAR") == 0 && isfinite(a->opening_mm)) {
+            px = py = a->opening_mm * 0.1;
+            plan_circ = true;
+        } else if (strcmp(shape, "SYM_SQUARE") == 0 && isfinite(a->opening_mm)) {
+            px = py = a->opening_mm * 0.1;
+        } else if (strcmp(shape, "SYM_RECTANGLE") == 0 && isfinite(a->opening_x_mm) &&
+                   isfinite(a->opening_y_mm)) {
+            px = a->opening_x_mm * 0.1;
+            py = a->opening_y_mm * 0.1;
+        } else {
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: beam %d: ApplicatorApertureShape (300A,0432) %s without "
+                                "the opening it needs",
+                                plan->source, beam->number, shape);
         }
+        in_plan = true;
     }
-    return SL_OK;
+    /* the model's catalogue entry of this ID, at the isocentre */
+    const sl_applicator_size *c = NULL;
+    for (size_t i = 0; a->present && a->id && i < ncat; i++)
+        if (cat[i].id && strcmp(cat[i].id, a->id) == 0)
+            c = &cat[i];
+    double cx = NAN, cy = NAN;
+    if (c) {
+        double s = (beam->sad_mm * 0.1) / c->nominal_ssd_cm;
+        cx = c->x_cm * s;
+        cy = (c->circular ? c->x_cm : c->y_cm) * s;
+    }
+    bool circ;
+    double x, y;
+    if (in_plan && c && !(sizes_agree(px, cx) && sizes_agree(py, cy))) {
+        *src = SL_FIELD_LARGER_APPLICATOR;
+        f->applicator_disagrees = true;
+        f->plan_opening_cm[0] = px;
+        f->plan_opening_cm[1] = py;
+        f->model_opening_cm[0] = cx;
+        f->model_opening_cm[1] = cy;
+        circ = plan_circ && c->circular;
+        x = fmax(px, cx);
+        y = fmax(py, cy);
+    } else if (in_plan) {
+        *src = SL_FIELD_PLAN_APPLICATOR;
+        circ = plan_circ;
+        x = px;
+        y = py;
+    } else if (c) {
+        *src = SL_FIELD_CATALOGUE;
+        circ = c->circular;
+        x = cx;
+        y = cy;
+    } else {
+        return SL_OK;
+    }
+    if (circ)
+        return sl_outline_circle(x, what, out, err);
+    return sl_outline_rectangle(x, y, what, out, err);
 }
 
 /* How far (cm, at the isocentre) a cutout's vertex may lie outside its
@@ -78,8 +129,7 @@ sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
 {
     memset(out, 0, sizeof *out);
     sl_field_source app_src = SL_FIELD_CATALOGUE;
-    sl_status st = applicator_outline(plan, beam, catalogue, ncatalogue, &out->applicator,
-                                      &app_src, err);
+    sl_status st = applicator_outline(plan, beam, catalogue, ncatalogue, out, &app_src, err);
     if (st != SL_OK)
         return st;
 

@@ -535,6 +535,15 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
         st = sl_field_build(plan, beam, opt->catalogue, opt->ncatalogue, &bp->field, err);
     if (st != SL_OK)
         return st;
+    if (bp->field.applicator_disagrees)
+        sl_notes_add(&bp->notes,
+                     "%s: beam %d: the plan's applicator opening (%.1f x %.1f cm) and the model "
+                     "file's size of applicator '%s' (%.1f x %.1f cm at the isocentre) disagree: "
+                     "distances are measured from the larger of the two on each axis; check the "
+                     "applicator",
+                     plan->source, beam->number, bp->field.plan_opening_cm[0],
+                     bp->field.plan_opening_cm[1], beam->applicator.id,
+                     bp->field.model_opening_cm[0], bp->field.model_opening_cm[1]);
     if (!bp->field.applicator)
         sl_notes_add(&bp->notes,
                      "%s: beam %d: the applicator opening is unknown (no Applicator Geometry and "

@@ -536,6 +536,36 @@ class BadGeometry(unittest.TestCase):
         self.assertEqual(rc, 3)
         self.assertIn("field size is unknown", err)
 
+    def test_plan_opening_that_contradicts_the_model_takes_the_larger(self):
+        """Applicator A10 is 10 x 10 cm in the model's catalogue; a plan whose
+        Applicator Geometry says 6 cm under that ID contradicts it (found by
+        an independent review: the 6 cm edge put a point 2 cm farther from the
+        field than the model's profiles mean). Distances come from the larger
+        opening, with a warning; an opening that agrees is used as it is.
+        Expected distances: the signed distance to a square at the isocentric
+        plane (the point lies on the surface, SSD = SAD = 100 cm)."""
+        from common import SOURCE_ROOT
+        model = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
+        found = {}
+        with tempdir() as d:
+            for opening in (60.0, 102.0, 150.0):
+                app = {"id": "A10", "type": "ELECTRON_SQUARE",
+                       "geometry": {"shape": "SYM_SQUARE", "opening": opening}}
+                plan, ss = box_phantom(d, points=[("p", (70.0, 0.0, 0.0))], blocks=[],
+                                       applicator=app)
+                found[opening] = locate_json(plan, ss, "--model", model)["beams"][0]
+        small, near, large = found[60.0], found[102.0], found[150.0]
+        # 6 cm against 10 cm: the 10 cm square, 7 - 5 = 2 cm, and a warning
+        self.assertAlmostEqual(organs_by_name(small)["p"]["min_distance_cm"], 2.0, delta=0.02)
+        self.assertTrue(any("disagree" in w and "'A10'" in w for w in small["warnings"]),
+                        small["warnings"])
+        # 10.2 cm agrees with 10 cm (within 0.5 cm): the plan's, no warning
+        self.assertAlmostEqual(organs_by_name(near)["p"]["min_distance_cm"], 7 - 5.1, delta=0.02)
+        self.assertFalse(any("disagree" in w for w in near["warnings"]), near["warnings"])
+        # 15 cm against 10 cm: the larger, the plan's 15 cm square
+        self.assertAlmostEqual(organs_by_name(large)["p"]["min_distance_cm"], 7 - 7.5, delta=0.02)
+        self.assertTrue(any("disagree" in w for w in large["warnings"]), large["warnings"])
+
     def test_plan_and_structures_that_do_not_belong_together(self):
         with tempdir() as d:
             os.mkdir(os.path.join(d, "a"))
