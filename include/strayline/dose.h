@@ -263,6 +263,10 @@ sl_status sl_estimate_grid(const sl_estimate *e, double step_cm, sl_dose_grid **
 /* Is a ROI of this RT ROI Interpreted Type left out unless asked for? */
 bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why);
 
+/* Is this RT ROI Interpreted Type a target volume (PTV, CTV, GTV, treated or
+ * irradiated volume)? */
+bool sl_dose_type_target(const char *type);
+
 #ifdef __cplusplus
 }
 #endif

@@ -24,19 +24,25 @@ void sl_estimate_default_options(sl_estimate_options *o)
     o->tps_zone_cm = SL_TPS_ZONE_CM;
 }
 
-bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why)
+bool sl_dose_type_target(const char *type)
 {
     static const char *const targets[] = {"PTV", "CTV", "GTV", "TREATED_VOLUME", "IRRAD_VOLUME"};
+    for (size_t i = 0; type && i < sizeof targets / sizeof *targets; i++)
+        if (strcmp(type, targets[i]) == 0)
+            return true;
+    return false;
+}
+
+bool sl_dose_type_excluded(const char *type, bool include_targets, const char **why)
+{
     static const char *const others[] = {"EXTERNAL", "BOLUS", "SUPPORT", "FIXATION", "ISOCENTER",
                                          "REGISTRATION", "CONTRAST_AGENT"};
     if (!type)
         return false;
-    for (size_t i = 0; i < sizeof targets / sizeof *targets; i++) {
-        if (strcmp(type, targets[i]) == 0) {
-            if (why)
-                *why = "a target volume (give --include-targets to estimate it)";
-            return !include_targets;
-        }
+    if (sl_dose_type_target(type)) {
+        if (why)
+            *why = "a target volume (give --include-targets to estimate it)";
+        return !include_targets;
     }
     for (size_t i = 0; i < sizeof others / sizeof *others; i++) {
         if (strcmp(type, others[i]) == 0) {

@@ -199,8 +199,9 @@ size_t est_verdict(const sl_estimate_report *r, est_ventry **out)
     for (int pass = 0; pass < 3; pass++) {
         for (size_t i = 0; i < as->n; i++) {
             const sl_assessment *a = &as->items[i];
-            bool notj = has_levels(a) && !a->incomplete &&
-                        (a->status == SL_ST_IN_FIELD || a->status == SL_ST_NOT_ASSESSED);
+            /* the organs the assessment counted as not judged, and only
+             * they, so that the verdict and organs_not_judged agree */
+            bool notj = has_levels(a) && !a->incomplete && a->unjudged;
             est_vkind k;
             if (a->flagged && !notj)
                 k = EST_V_ATTENTION;

@@ -627,6 +627,25 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
             self.assertFalse(organ(js, "PTV_device")["flagged"])
             self.assertEqual(js["organs_not_judged"], 0)
             self.assertEqual(rc, 0)
+            self.assertTrue(any("a target volume, yet named as" in a
+                                for a in organ(js, "PTV_device")["advice"]))
+            # a ROI typed as no organ (support, bolus, ...) whose name gives
+            # it action levels is not passed in silence (found by an
+            # independent review): a pacemaker typed SUPPORT is not judged
+            # and flagged, a lens typed BOLUS not judged and counted, and the
+            # text's verdict agrees with the JSON's count
+            plan, ss = box_case(d, [("Pacemaker", (90.0, 10.0, 0.0), "SUPPORT"),
+                                    ("Lens_L", (-90.0, 10.0, 0.0), "BOLUS"),
+                                    ("p", (90.0, 20.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}], self.ONE)
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1")
+            self.assertFalse(organ(js, "Pacemaker")["estimated"])
+            self.assertTrue(organ(js, "Pacemaker")["flagged"])
+            self.assertFalse(organ(js, "Lens_L")["estimated"])
+            self.assertEqual(js["organs_not_judged"], 2)
+            self.assertEqual(rc, 4)
+            rc, text, err = run("estimate", plan, ss, "--model", MODEL, "--reference-dose", "1")
+            self.assertIn("RESULT: not judged: Pacemaker, Lens_L", text)
 
 
 class DemoReports(unittest.TestCase):
