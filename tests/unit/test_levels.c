@@ -179,7 +179,21 @@ START_TEST(naming_conventions_table)
         {"CIED", "cardiac_device"}, {"AICD", "cardiac_device"}, {"Pacer", "cardiac_device"},
         {"L_Pacemaker", "cardiac_device"}, {"Defibrillator", "cardiac_device"},
         {"Cardiac_Device", "cardiac_device"}, {"BoneMarrow", "bone_marrow"},
+        /* the organ's word in other languages, with clinics' spellings
+         * (common practice: German, French, Spanish, Italian, Portuguese;
+         * these names escaped every level, found by an independent review) */
+        {"Augenlinse_L", "lens"}, {"L_Linse", "lens"}, {"Cristalino_I", "lens"},
+        {"OD_Lente", "lens"}, {"Cristallin_D", "lens"}, {"Thyreoidea", "thyroid"},
+        {"Tiroides", "thyroid"}, {"Tiroide", "thyroid"}, {"Thyroïde", "thyroid"},
+        {"Thyr", "thyroid"}, {"Schilddruese", "thyroid"}, {"Schrittmacher", "cardiac_device"},
+        {"Herzschrittmacher", "cardiac_device"}, {"PPM-L", "cardiac_device"},
+        {"L Pacer", "cardiac_device"}, {"Pace maker", "cardiac_device"},
+        {"ICD-L", "cardiac_device"}, {"Device", "cardiac_device"},
+        {"Stimulateur", "cardiac_device"}, {"Marcapasos", "cardiac_device"},
+        {"Brust_L", "breast"}, {"Mama_I", "breast"}, {"Feto", "fetus"}, {"Fötus", "fetus"},
         /* organs with no kind: must not be caught by a wide pattern */
+        {"Spacer", NULL}, {"Rectal_Spacer", NULL}, {"SpaceOAR", NULL}, {"Larynx", NULL},
+        {"Mandible", NULL}, {"Brainstem", NULL}, {"Art_Mammary_Int_L", NULL},
         {"Eye_L", NULL}, {"Eye_R", NULL}, {"Glnd_Lacrimal_L", NULL}, {"OpticNrv_L", NULL},
         {"Heart", NULL}, {"Lung_L", NULL}, {"Parotid_R", NULL}, {"SpinalCord", NULL},
         {"Bladder", NULL}, {"Rectum", NULL}, {"Uterus", NULL}, {"Prostate", NULL},
