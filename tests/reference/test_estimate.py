@@ -587,6 +587,24 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
                 rc, out, err = run("estimate", plan, ss, "--model", MODEL)
             self.assertEqual(rc in (0, 4), ok, "SSD %g mm: exit %d %s" % (ssd_mm, rc, err))
 
+    def test_a_body_nearer_than_the_plans_ssd_takes_the_shorter(self):
+        """The plan says SSD 103 cm, the body's surface is at 100 cm on the
+        central axis (isocentre on the surface). One of the two is wrong and
+        the shorter gives the higher dose (the inverse-square law, a handbook
+        formula): the estimate is that of a plan at 100 cm, with a warning
+        (found by an independent review: the plan's longer SSD read lower)."""
+        doses = {}
+        with tempdir() as d:
+            for ssd_mm in (1000.0, 1030.0):
+                plan, ss = box_case(d, [("p", (150.0, 10.0, 0.0))],
+                                    [{"number": 1, "energy_mev": 12.0}], self.ONE, ssd_mm=ssd_mm)
+                rc, js, err = estimate(plan, ss)
+                doses[ssd_mm] = (organ(js, "p")["course_max_cgy"], js["warnings"])
+        self.assertAlmostEqual(doses[1030.0][0], doses[1000.0][0], delta=1e-9 * doses[1000.0][0])
+        self.assertTrue(any("shorter than the plan's (103.0 cm)" in w for w in doses[1030.0][1]),
+                        doses[1030.0][1])
+        self.assertFalse(any("shorter than the plan's" in w for w in doses[1000.0][1]))
+
     def test_unjudged_organs_are_counted_and_a_fetus_is_flagged(self):
         """A lens and a fetus inside the field: the screening does not judge
         them; the lens is counted in the headline, the fetus needs attention
