@@ -539,6 +539,12 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
      * other beams are read for the listing and skipped. */
     b->beam_type = r.cstr(electron ? r.str_req(it, DCM_BeamType, ctx) : r.str(it, DCM_BeamType));
     b->machine = r.cstr(r.str(it, DCM_TreatmentMachineName));
+    /* the meterset is read as monitor units: a beam metered in minutes
+     * (a cobalt or orthovoltage unit) would be scaled as MU without a word */
+    std::string unit = r.str(it, DCM_PrimaryDosimeterUnit);
+    if (electron && !unit.empty() && unit != "MU")
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_PrimaryDosimeterUnit),
+               "'" + unit + "': strayline reads an electron beam's meterset as monitor units (MU)");
     b->setup_number = r.integer(it, DCM_ReferencedPatientSetupNumber, ctx, false, -1);
     b->sad_mm = r.num(it, DCM_SourceAxisDistance, ctx, false);
     if (std::isnan(b->sad_mm)) {

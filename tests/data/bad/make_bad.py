@@ -331,6 +331,11 @@ def main():
               lambda d: setattr(d.FractionGroupSequence[0].ReferencedBeamSequence[0],
                                 "BeamMeterset", "-200"),
               "BeamMeterset (300A,0086): -200.000000 MU is not a plausible meterset")
+    # a meterset in minutes would be read as monitor units
+    plan_case("dosimeter_unit_minute.dcm",
+              lambda d: setattr(beam(d), "PrimaryDosimeterUnit", "MINUTE"),
+              "PrimaryDosimeterUnit (300A,00B3): 'MINUTE': strayline reads an electron beam's "
+              "meterset as monitor units")
     # a treatment beam of 0 MU would read 0 cGy at every organ and pass
     # them all (found by an independent review): the MU are unknown
     plan_case("meterset_zero.dcm",
