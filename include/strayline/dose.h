@@ -137,6 +137,8 @@ typedef struct sl_beam_dose {
     double ssd_used_cm;           /* NAN when neither the plan nor the body gives one */
     double gap_cm;                /* ssd_used - nominal SSD */
     double isf;                   /* inverse-square factor (from the SSD of the output used) */
+    double isf_ssd_cm;            /* the SSD the inverse square runs to: ssd_used_cm, or the
+                                     body's when more than 1 cm shorter than the plan's */
     double output_ssd_cm;         /* SSD of the output used: the nominal one, or the nearest
                                      measured one when the model has outputs per SSD */
     double nominal_ratio;         /* reference dose at the nominal SSD / the one used */

@@ -35,7 +35,7 @@ typedef enum sl_field_source {
     SL_FIELD_CUTOUT,
     SL_FIELD_PLAN_APPLICATOR,
     SL_FIELD_CATALOGUE,
-    SL_FIELD_LARGER_APPLICATOR /* the plan and the catalogue disagree: the larger of each */
+    SL_FIELD_LARGER_APPLICATOR /* the plan's and the catalogue's: the larger on each axis */
 } sl_field_source;
 
 typedef struct sl_field {
@@ -46,8 +46,9 @@ typedef struct sl_field {
     bool has_shielding;
     double area_cm2;         /* of the field edge outline, isocentric plane */
     /* the plan's Applicator Geometry and the model's catalogue entry of the
-     * same applicator ID disagree (beyond 0.5 cm and 10 %): their sizes (cm,
-     * x and y at the isocentre; a circle's diameter twice) */
+     * same applicator ID disagree (beyond 0.5 cm and 10 %); their sizes when
+     * both are known (cm, x and y at the isocentre; a circle's diameter
+     * twice) */
     bool applicator_disagrees;
     double plan_opening_cm[2], model_opening_cm[2];
 } sl_field;

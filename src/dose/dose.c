@@ -24,6 +24,11 @@ void sl_estimate_default_options(sl_estimate_options *o)
     o->tps_zone_cm = SL_TPS_ZONE_CM;
 }
 
+/* The least meterset (MU) a treatment beam's dose is taken from: below it
+ * the plan is a placeholder (common practice: electron fields run tens to
+ * hundreds of MU a fraction). */
+#define SL_MIN_TREATMENT_MU 1.0
+
 bool sl_dose_type_target(const char *type)
 {
     static const char *const targets[] = {"PTV", "CTV", "GTV", "TREATED_VOLUME", "IRRAD_VOLUME"};
@@ -176,10 +181,13 @@ static sl_status check_insert(sl_estimate *e, const sl_beam *b, sl_beam_dose *bd
 }
 
 
-/* The body nearer the source than the plan's SSD says, beyond the 1 cm
- * that locate warns about: one of the two is wrong, and the shorter SSD
- * gives the higher dose, so it is used (a plan's 110 cm over a body at
- * 105 cm read 10 % lower; found by an independent review). */
+/* The body (with the beam's bolus) nearer the source than the plan's SSD
+ * says, beyond the 1 cm that locate warns about: one of the two is wrong.
+ * The shorter SSD gives the higher central-axis dose (the inverse square),
+ * so the reference dose takes it; the profiles stay read at the plan's SSD,
+ * where the out-of-field percent near the field is the higher (it rises
+ * with SSD). A plan's 110 cm over a body at 105 cm read 10 % lower; found
+ * by an independent review. */
 static bool body_nearer(const sl_beam_place *bp)
 {
     return isfinite(bp->ssd_plan_cm) && isfinite(bp->ssd_found_cm) &&
@@ -259,9 +267,7 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     sl_curves_prepare_shift(bd->curves, e->opt.setup_shift_cm);
     const sl_output_spec *o = sl_machine_output(&m->machine, b->energy_mev, bd->applicator);
     const sl_output_spec *o_nominal = o;
-    double ssd_beam = body_nearer(bp) ? bp->ssd_found_cm
-                      : isfinite(bp->ssd_plan_cm) ? bp->ssd_plan_cm
-                                                  : bp->ssd_found_cm;
+    double ssd_beam = isfinite(bp->ssd_plan_cm) ? bp->ssd_plan_cm : bp->ssd_found_cm;
     if (o && isfinite(ssd_beam))
         /* an output measured at another SSD, nearer the beam's, replaces the
          * nominal one (the inverse square then runs from there) */
@@ -326,13 +332,16 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     /* the plan's SSD and the body's, each checked where it is used */
     double ssd_check[2] = {ssd_from_plan ? bp->ssd_plan_cm : NAN, NAN};
     bd->ssd_used_cm = ssd_from_plan ? bp->ssd_plan_cm : bp->ssd_found_cm;
+    bd->isf_ssd_cm = bd->ssd_used_cm;
     if (body_nearer(bp)) {
-        bd->ssd_used_cm = ssd_check[1] = bp->ssd_found_cm;
+        bd->isf_ssd_cm = ssd_check[1] = bp->ssd_found_cm;
         sl_notes_add(&e->notes,
-                     "beam %d: the SSD found on the body contour (%.1f cm) is shorter than the "
-                     "plan's (%.1f cm): the shorter is used, as it gives the higher dose; check "
-                     "the plan's SSD and the body contour",
-                     b->number, bp->ssd_found_cm, bp->ssd_plan_cm);
+                     "beam %d: the SSD found on the body contour%s (%.1f cm) is shorter than "
+                     "the plan's (%.1f cm): the inverse-square correction takes the shorter, "
+                     "which gives the higher dose, and the profiles stay read at the plan's SSD; "
+                     "check the plan's SSD and the body contour",
+                     b->number, bp->nparts > 1 ? " with its bolus" : "", bp->ssd_found_cm,
+                     bp->ssd_plan_cm);
     } else if (!ssd_from_plan) {
         ssd_check[1] = bp->ssd_found_cm;
     }
@@ -349,7 +358,7 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     }
     if (isfinite(bd->ssd_used_cm)) {
         bd->gap_cm = bd->ssd_used_cm - m->machine.nominal_ssd_cm;
-        double g = bd->ssd_used_cm - o->ssd_cm;
+        double g = bd->isf_ssd_cm - o->ssd_cm;
         double r = (bd->effective_ssd_cm + bd->dmax_cm) / (bd->effective_ssd_cm + g + bd->dmax_cm);
         bd->isf = r * r;
         bd->output_ssd_cm = o->ssd_cm;
@@ -401,15 +410,18 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                                     "(300A,0086): its monitor units are unknown (or give "
                                     "--reference-dose)",
                                     f, fg->number, b->number);
-            /* a treatment beam of no monitor units would read 0 everywhere
-             * and pass every organ: the meterset is missing, not zero */
-            if (fg->refs[r].meterset_mu == 0 && isnan(e->opt.reference_dose_cgy))
+            /* a treatment beam of no monitor units (or a placeholder's
+             * fraction of one) would read next to nothing everywhere and
+             * pass every organ: the meterset is not set yet */
+            if (fg->refs[r].meterset_mu < SL_MIN_TREATMENT_MU &&
+                isnan(e->opt.reference_dose_cgy))
                 return sl_error_set(err, SL_EINPUT,
                                     "%s: fraction group %d: beam %d has BeamMeterset "
-                                    "(300A,0086) 0 for an electron treatment beam: its monitor "
-                                    "units are not known yet (export the plan after its MU are "
-                                    "set, or give --reference-dose)",
-                                    f, fg->number, b->number);
+                                    "(300A,0086) %.4g MU for an electron treatment beam, below "
+                                    "%g MU: its monitor units are not set yet (export the plan "
+                                    "after its MU are set, or give --reference-dose)",
+                                    f, fg->number, b->number, fg->refs[r].meterset_mu,
+                                    SL_MIN_TREATMENT_MU);
             in_any = true;
             bd->mu[g] = fg->refs[r].meterset_mu;
             bd->plan_beam_dose_cgy[g] = fg->refs[r].beam_dose_gy * 100.0;

@@ -387,15 +387,13 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         if (!d->estimated) {
             a->status = d->in_field ? SL_ST_IN_FIELD : SL_ST_NOT_ASSESSED;
             a->not_assessed_why = d->excluded_why;
-            /* a target volume is not an organ left unjudged, whatever its
-             * name matches; a ROI typed as no organ at all (support,
-             * bolus, fixation, ...) whose name or --organ gives it action
-             * levels is: the type and the name disagree, and a lens or a
-             * pacemaker typed SUPPORT was passed in silence (found by an
-             * independent review) */
-            if (!(sl_dose_type_target(d->roi->type) && !e->opt.include_targets))
-                unjudged(as, a);
-            else if (a->kind && (a->kind->nlevels || a->kind->nbands))
+            /* any ROI whose name or --organ gives it action levels and that
+             * is not estimated is not judged, whatever its type: a lens or
+             * a pacemaker typed SUPPORT or PTV passed in silence before
+             * (found by independent reviews); a target named as an organ
+             * says why it was left out */
+            unjudged(as, a);
+            if (a->unjudged && sl_dose_type_target(d->roi->type) && !e->opt.include_targets)
                 sl_notes_add(&a->advice,
                              "typed %s, a target volume, yet named as a %s: not estimated; if "
                              "it is the organ, correct its RT ROI Interpreted Type (3006,00A4) "

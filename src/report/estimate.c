@@ -782,6 +782,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_num(w, x, "dose_per_mu_cgy", bd->dose_per_mu_cgy);
         jw_num_opt(w, x, "ssd_cm", bd->ssd_used_cm);
         jw_num(w, x, "inverse_square_factor", bd->isf);
+        jw_num_opt(w, x, "inverse_square_ssd_cm", bd->isf_ssd_cm);
         jw_num(w, x, "cutout_factor", bd->cutout_factor);
         jw_bool(w, x, "cutout_factor_assumed", bd->cutout_factor_assumed);
         jw_bool(w, x, "reference_dose_overridden", bd->reference_overridden);
@@ -1248,7 +1249,10 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
 
 void est_ssd_text(const sl_beam_dose *bd, char *buf, size_t size)
 {
-    if (isfinite(bd->ssd_used_cm))
+    if (isfinite(bd->ssd_used_cm) && bd->isf_ssd_cm != bd->ssd_used_cm)
+        snprintf(buf, size, "SSD %.1f cm (inverse square %.3f to the body's %.1f cm)",
+                 bd->ssd_used_cm, bd->isf, bd->isf_ssd_cm);
+    else if (isfinite(bd->ssd_used_cm))
         snprintf(buf, size, "SSD %.1f cm (inverse square %.3f)", bd->ssd_used_cm, bd->isf);
     else
         snprintf(buf, size, "SSD unknown (no inverse-square correction)");

@@ -541,14 +541,15 @@ class BadGeometry(unittest.TestCase):
         Applicator Geometry says 6 cm under that ID contradicts it (found by
         an independent review: the 6 cm edge put a point 2 cm farther from the
         field than the model's profiles mean). Distances come from the larger
-        opening, with a warning; an opening that agrees is used as it is.
+        opening on each axis, with a warning when they disagree beyond 0.5 cm
+        and 10 %.
         Expected distances: the signed distance to a square at the isocentric
         plane (the point lies on the surface, SSD = SAD = 100 cm)."""
         from common import SOURCE_ROOT
         model = os.path.join(SOURCE_ROOT, "models", "demo-e1.yaml")
         found = {}
         with tempdir() as d:
-            for opening in (60.0, 102.0, 150.0):
+            for opening in (60.0, 92.0, 102.0, 150.0):
                 app = {"id": "A10", "type": "ELECTRON_SQUARE",
                        "geometry": {"shape": "SYM_SQUARE", "opening": opening}}
                 plan, ss = box_phantom(d, points=[("p", (70.0, 0.0, 0.0))], blocks=[],
@@ -559,7 +560,12 @@ class BadGeometry(unittest.TestCase):
         self.assertAlmostEqual(organs_by_name(small)["p"]["min_distance_cm"], 2.0, delta=0.02)
         self.assertTrue(any("disagree" in w and "'A10'" in w for w in small["warnings"]),
                         small["warnings"])
-        # 10.2 cm agrees with 10 cm (within 0.5 cm): the plan's, no warning
+        # 9.2 cm agrees with 10 cm (within 10 %), yet the smaller would move
+        # the edge in by 4 mm: the 10 cm, no warning
+        agree = found[92.0]
+        self.assertAlmostEqual(organs_by_name(agree)["p"]["min_distance_cm"], 2.0, delta=0.02)
+        self.assertFalse(any("disagree" in w for w in agree["warnings"]), agree["warnings"])
+        # 10.2 cm agrees with 10 cm (within 0.5 cm): the larger, the plan's
         self.assertAlmostEqual(organs_by_name(near)["p"]["min_distance_cm"], 7 - 5.1, delta=0.02)
         self.assertFalse(any("disagree" in w for w in near["warnings"]), near["warnings"])
         # 15 cm against 10 cm: the larger, the plan's 15 cm square

@@ -191,9 +191,20 @@ START_TEST(naming_conventions_table)
         {"ICD-L", "cardiac_device"}, {"Device", "cardiac_device"},
         {"Stimulateur", "cardiac_device"}, {"Marcapasos", "cardiac_device"},
         {"Brust_L", "breast"}, {"Mama_I", "breast"}, {"Feto", "fetus"}, {"Fötus", "fetus"},
+        {"Marcapasso", "cardiac_device"}, {"Marca-passo", "cardiac_device"},
+        {"Pace-maker", "cardiac_device"}, {"Defibrillateur", "cardiac_device"},
+        {"Desfibrilador", "cardiac_device"}, {"DAI", "cardiac_device"},
+        {"Tireoide", "thyroid"}, {"Tireóide", "thyroid"}, {"Tiróide", "thyroid"},
+        {"Mammella_sx", "breast"}, {"Mamma_li", "breast"}, {"Brust re", "breast"},
+        {"L_Feto", "fetus"},
         /* organs with no kind: must not be caught by a wide pattern */
         {"Spacer", NULL}, {"Rectal_Spacer", NULL}, {"SpaceOAR", NULL}, {"Larynx", NULL},
         {"Mandible", NULL}, {"Brainstem", NULL}, {"Art_Mammary_Int_L", NULL},
+        /* German chest wall and spine, an artery and an implanted nerve
+         * stimulator: words that share a stem with an organ's (reviewed) */
+        {"Brustwand", NULL}, {"Brustwand_li", NULL}, {"Brustwirbel", NULL},
+        {"Mamaria_Interna", NULL}, {"Mammaria_Interna", NULL}, {"Neurostimulateur", NULL},
+        {"Chestwall", NULL}, {"Lentiform", NULL},
         {"Eye_L", NULL}, {"Eye_R", NULL}, {"Glnd_Lacrimal_L", NULL}, {"OpticNrv_L", NULL},
         {"Heart", NULL}, {"Lung_L", NULL}, {"Parotid_R", NULL}, {"SpinalCord", NULL},
         {"Bladder", NULL}, {"Rectum", NULL}, {"Uterus", NULL}, {"Prostate", NULL},

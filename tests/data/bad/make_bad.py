@@ -341,7 +341,12 @@ def main():
     plan_case("meterset_zero.dcm",
               lambda d: setattr(d.FractionGroupSequence[0].ReferencedBeamSequence[0],
                                 "BeamMeterset", "0"),
-              "BeamMeterset (300A,0086) 0 for an electron treatment beam",
+              "BeamMeterset (300A,0086) 0 MU for an electron treatment beam, below 1 MU",
+              args="estimate {f} {ss} --model {model}")
+    plan_case("meterset_placeholder.dcm",
+              lambda d: setattr(d.FractionGroupSequence[0].ReferencedBeamSequence[0],
+                                "BeamMeterset", "0.0001"),
+              "BeamMeterset (300A,0086) 0.0001 MU for an electron treatment beam, below 1 MU",
               args="estimate {f} {ss} --model {model}")
     plan_case("isocenter_absurd.dcm", lambda d: setattr(cp0(d), "IsocenterPosition",
                                                        rb.ds([0, 1e9, 0])),
