@@ -270,6 +270,21 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
             sl_notes_add(out, "beam %d: the cutout is not commissioned: a conservative "
                               "stand-in is used (it errs high); measure the cutout's profiles",
                          bd->place->beam->number);
+        /* inputs that contradict each other, where the higher reading was
+         * taken: said beside the result, not only among the warnings */
+        if (bd->place->field.applicator_disagrees)
+            sl_notes_add(out, "beam %d: the plan's applicator opening (%.1f x %.1f cm) and the "
+                              "model's size of applicator %s (%.1f x %.1f cm) disagree: "
+                              "distances from the larger; check the applicator",
+                         bd->place->beam->number, bd->place->field.plan_opening_cm[0],
+                         bd->place->field.plan_opening_cm[1], bd->applicator,
+                         bd->place->field.model_opening_cm[0],
+                         bd->place->field.model_opening_cm[1]);
+        if (isfinite(bd->ssd_used_cm) && bd->isf_ssd_cm != bd->ssd_used_cm)
+            sl_notes_add(out, "beam %d: the body is nearer the source (SSD %.1f cm) than the "
+                              "plan's SSD (%.1f cm): the inverse square takes the shorter; "
+                              "check the SSD",
+                         bd->place->beam->number, bd->isf_ssd_cm, bd->ssd_used_cm);
         if (bd->place->obliquity_deg > SL_OBLIQUITY_CAUTION_DEG)
             sl_notes_add(out, "beam %d: oblique incidence, surface obliquity %.1f deg (above "
                               "%.0f deg the depth dose itself changes): confirm by measurement",

@@ -614,6 +614,10 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
         self.assertTrue(any("shorter than the plan's (103.0 cm)" in w
                             for w in got[1030.0]["warnings"]), got[1030.0]["warnings"])
         self.assertFalse(any("shorter than the plan's" in w for w in got[1000.0]["warnings"]))
+        # said beside the result too, among this case's cautions
+        self.assertTrue(any("the body is nearer the source" in c
+                            for c in got[1030.0]["result"]["case_cautions"]),
+                        got[1030.0]["result"])
 
     def test_unjudged_organs_are_counted_and_a_fetus_is_flagged(self):
         """A lens and a fetus inside the field: the screening does not judge
