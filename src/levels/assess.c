@@ -14,6 +14,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 void sl_assessments_free(sl_assessments *a)
 {
@@ -44,6 +45,18 @@ static int band_of(const sl_kind *k, double gy)
  * field, beyond the model's range, not placed) is counted so that no
  * headline reads as all clear. A fetus or a cardiac device left unjudged
  * needs attention in itself (common practice: their doses are documented). */
+/* A name that begins with a target's type (PTV, CTV, GTV, ITV, any case,
+ * any suffix: PTVp, CTV_60, ptv-boost), as AAPM Report 263 (TG-263) names
+ * target volumes. */
+static bool target_prefix(const char *name)
+{
+    static const char *const prefixes[] = {"PTV", "CTV", "GTV", "ITV"};
+    for (size_t i = 0; name && i < sizeof prefixes / sizeof *prefixes; i++)
+        if (strncasecmp(name, prefixes[i], 3) == 0)
+            return true;
+    return false;
+}
+
 static void unjudged(sl_assessments *as, sl_assessment *a)
 {
     if (!a->kind || (a->kind->nlevels == 0 && a->kind->nbands == 0))
@@ -392,7 +405,15 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
              * a pacemaker typed SUPPORT or PTV passed in silence before
              * (found by independent reviews); a target named as an organ
              * says why it was left out */
-            unjudged(as, a);
+            /* a target volume named as one by its prefix (PTV_Thyroid_bed)
+             * is the target, not the organ its name also holds: AAPM
+             * TG-263 names targets by their type first */
+            bool named_target = sl_dose_type_target(d->roi->type) && !a->kind_by_option &&
+                                target_prefix(d->roi->name);
+            if (named_target)
+                a->kind = NULL;
+            else
+                unjudged(as, a);
             if (a->unjudged && sl_dose_type_target(d->roi->type) && !e->opt.include_targets)
                 sl_notes_add(&a->advice,
                              "typed %s, a target volume, yet named as a %s: not estimated; if "

@@ -663,6 +663,27 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
             self.assertEqual(rc, 4)
             self.assertTrue(any("a target volume, yet named as" in a
                                 for a in organ(js, "PTV_device")["advice"]))
+            # a target volume whose name begins with its type is the target,
+            # not the organ the rest of its name holds (AAPM Report 263,
+            # TG-263, names targets type first): PTV_Thyroid_bed is neither
+            # counted nor flagged; a lens typed PTV still is counted
+            plan, ss = box_case(d, [("PTV_Thyroid_bed", (0.0, 10.0, 0.0), "PTV"),
+                                    ("ctvN_Pacemaker", (0.0, 12.0, 0.0), "CTV"),
+                                    ("Lens_L", (-90.0, 10.0, 0.0), "PTV"),
+                                    ("p", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}], self.ONE)
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1")
+            for name in ("PTV_Thyroid_bed", "ctvN_Pacemaker"):
+                self.assertFalse(organ(js, name)["estimated"])
+                self.assertFalse(organ(js, name)["flagged"])
+                self.assertIsNone(organ(js, name)["kind"], organ(js, name))
+            self.assertFalse(organ(js, "Lens_L")["estimated"])
+            self.assertEqual(js["organs_not_judged"], 1)
+            self.assertEqual(rc, 0)
+            # --organ makes the named target an organ again: counted
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1", "--organ",
+                                   "PTV_Thyroid_bed=thyroid")
+            self.assertEqual(js["organs_not_judged"], 2)
             # a ROI typed as no organ (support, bolus, ...) whose name gives
             # it action levels is not passed in silence (found by an
             # independent review): a pacemaker typed SUPPORT is not judged
