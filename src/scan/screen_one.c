@@ -114,8 +114,10 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
             free(e->worst_status);
             e->worst_status = xstrdup(buf, &ok);
         }
-        if (a->unjudged && !a->flagged) {
-            /* named in the summary: not judged is not clear */
+        if (a->unjudged) {
+            /* named in the summary: not judged is not clear; a flagged one
+             * too, so that the column holds what the report's
+             * organs_not_judged counts */
             size_t had = e->unjudged ? strlen(e->unjudged) : 0, add = strlen(a->dose->roi->name);
             char *u = realloc(e->unjudged, had + add + 3);
             if (!u) {

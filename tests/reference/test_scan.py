@@ -308,14 +308,14 @@ class NotJudgedIsNotClear(unittest.TestCase):
     independent review: it read as clear, worst status the target's)."""
 
     @staticmethod
-    def variant(dest, tag, near_lens):
+    def variant(dest, tag, near_lens, near_name="Lens_L_near"):
         copy_pair("face-lens", dest, tag)
         plan_p, ss_p = os.path.join(dest, "rtplan.dcm"), os.path.join(dest, "rtstruct.dcm")
         ss = pydicom.dcmread(ss_p)
         for k, r in enumerate(ss.StructureSetROISequence):
             if r.ROIName.startswith("PTV"):
                 continue
-            r.ROIName = ("Lens_L_near" if near_lens and r.ROIName == "Parotid_L"
+            r.ROIName = (near_name if near_lens and r.ROIName == "Parotid_L"
                          else "Other_%d" % k)
         ss.save_as(ss_p)
         plan = pydicom.dcmread(plan_p)
@@ -363,6 +363,26 @@ class NotJudgedIsNotClear(unittest.TestCase):
             rc, o, e = run("history", "--log", log, "--format", "csv", check=0)
             rows = {r["plan_uid"]: r for r in csv.DictReader(io.StringIO(o))}
             self.assertEqual(rows[nj]["organs_not_judged"], "Lens_L_near")
+
+    def test_a_flagged_unjudged_device_is_named_too(self):
+        """A cardiac device near the field edge is not judged and so flagged;
+        the summary's and the log's organs_not_judged name it as well, as the
+        plan's report counts it (before, they held only unflagged ones)."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            dev = self.variant(os.path.join(src, "a"), "DEV", True, "Pacemaker_near")
+            out = os.path.join(d, "out")
+            rc, _, err = scan(src, out)
+            self.assertEqual(rc, 4, err)
+            with open(os.path.join(out, "summary.json")) as f:
+                plans = json.load(f)["plans"]
+            self.assertTrue(plans[0]["flagged"])
+            self.assertEqual(plans[0]["organs_not_judged"], "Pacemaker_near")
+            with open(plans[0]["report_json"] if os.path.isabs(plans[0]["report_json"])
+                      else os.path.join(out, plans[0]["report_json"])) as f:
+                self.assertEqual(json.load(f)["organs_not_judged"], 1)
+            by_uid = {r["plan_uid"]: r for r in log_rows(os.path.join(out, "screening.sqlite"))}
+            self.assertEqual(by_uid[dev]["organs_not_judged"], "Pacemaker_near")
 
 
 class Pdf(unittest.TestCase):
