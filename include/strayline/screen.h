@@ -74,7 +74,7 @@ typedef enum sl_whatif_kind {
 typedef struct sl_whatif {
     sl_whatif_kind kind;
     const char *roi;      /* the ROI it touches (shield, fetus copy); NULL: every organ */
-    char text[256];       /* one line for the banner, with its numbers and units */
+    char text[400];       /* one line for the banner, with its numbers and units */
 } sl_whatif;
 
 typedef struct sl_screen {

@@ -114,7 +114,9 @@ static void record_no_bolus(sl_screen *s)
     if (!any)
         return;
     snprintf(add_whatif(s, SL_WHATIF_NO_BOLUS, NULL)->text, sizeof s->whatifs[0].text,
-             "bolus left out of the depths: %s; the plan as delivered has it", list);
+             "bolus left out of the depths and of the SSD found where the central "
+             "axis enters the body: %s; the plan as delivered has it",
+             list);
 }
 
 /* A point typed in the wrong unit lands somewhere plausible-looking: warn

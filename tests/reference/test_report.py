@@ -179,6 +179,9 @@ class BolusInTheReport(unittest.TestCase):
             res = json.loads(js)
             self.assertFalse(res["result"]["plan_as_delivered"])
             self.assertIn("no_bolus", [w["kind"] for w in res["result"]["what_ifs"]])
+            # it moves the SSD found on the body as well, and says so
+            self.assertTrue(any("and of the SSD found where the central axis enters" in w["text"]
+                                for w in res["result"]["what_ifs"]), res["result"]["what_ifs"])
             self.assertFalse(any(self.CAUTION in c for c in res["result"]["case_cautions"]))
             without = res["organs"][0]
             self.assertTrue(without["what_if"])
