@@ -103,6 +103,9 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
         else
             sl_buf_printf(&b, "%s: measure, or use the planning system's dose",
                           a->not_assessed_why ? a->not_assessed_why : "not assessed");
+        if (a->incomplete)
+            sl_buf_printf(&b, "; incomplete: other treatment beams not included (add their "
+                              "dose with --other-dose)");
     } else {
         if (a->shield_advised)
             sl_buf_printf(&b, "shield: at least %.1f mm lead (or %.1f mm low-melting-point "
@@ -130,6 +133,9 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
 
 static const char *status_word(const sl_assessment *a, est_vkind k)
 {
+    if (k == EST_V_NOT_JUDGED && a->incomplete)
+        return a->unjudged_level_gy > 0 ? "NOT JUDGED, REACHES LEVEL, INCOMPLETE"
+                                        : "NOT JUDGED, INCOMPLETE";
     if (k == EST_V_NOT_JUDGED)
         return a->unjudged_level_gy > 0 ? "NOT JUDGED, REACHES LEVEL" : "NOT JUDGED";
     switch (a->status) {
@@ -200,8 +206,9 @@ size_t est_verdict(const sl_estimate_report *r, est_ventry **out)
         for (size_t i = 0; i < as->n; i++) {
             const sl_assessment *a = &as->items[i];
             /* the organs the assessment counted as not judged, and only
-             * they, so that the verdict and organs_not_judged agree */
-            bool notj = has_levels(a) && !a->incomplete && a->unjudged;
+             * they, so that the verdict and organs_not_judged agree (one
+             * also incomplete says so in its status and advice) */
+            bool notj = has_levels(a) && a->unjudged;
             est_vkind k;
             if (a->flagged && !notj)
                 k = EST_V_ATTENTION;

@@ -95,6 +95,30 @@ class OtherBeams(unittest.TestCase):
             self.assertIn("not estimated by this tool", html)
             self.assertIn("incomplete: other beams not included", html)
 
+    def test_an_organ_near_the_edge_and_incomplete_is_listed_as_counted(self):
+        """A lens 0.45 cm from the field edge in a plan with a photon beam is
+        both not judged and incomplete: counted in organs_not_judged, it is
+        listed among the not judged in the result line and the verdict box,
+        whose status and advice say incomplete as well (before, the count
+        held it while the verdict listed it only as INCOMPLETE)."""
+        with tempdir() as d:
+            plan, ss = photon_case(d, [("Lens_L", (55.0, 10.0, 0.0)),
+                                       ("Lens_R", (200.0, 10.0, 0.0))])
+            rc, js, err = estimate(plan, ss, "--reference-dose", "1")
+            self.assertEqual(rc, 4, err)
+            self.assertEqual(js["organs_not_judged"], 1)
+            self.assertEqual(js["organs_incomplete"], 2)
+            lens = organ(js, "Lens_L")
+            self.assertTrue(lens["incomplete"] and lens["flagged"])
+            self.assertEqual(lens["status"], "not_assessed")
+            rc, text, err = text_of(plan, ss, "--reference-dose", "1")
+            result = next(l for l in text.splitlines() if l.startswith("RESULT:"))
+            self.assertIn("not judged: Lens_L;", result)
+            self.assertIn("needs attention: Lens_R (INCOMPLETE)", result)
+            self.assertRegex(text, r"\?  Lens_L +NOT JUDGED, INCOMPLETE;")
+            self.assertIn("within 1 cm of the field edge: use the planning system's dose; "
+                          "incomplete: other treatment beams not included", text)
+
     def test_face_lens_variant_with_a_photon_treatment_beam(self):
         """The shipped face-lens case (invented) with its photon setup beam
         made a 200 MU TREATMENT beam (pydicom, into a temporary folder)."""
