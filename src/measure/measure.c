@@ -208,12 +208,50 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
 
 typedef struct dpair {
     double d, v;
+    int side; /* of a through-field profile: -1 left, +1 right; 0 one-sided */
+    bool drop;
 } dpair;
 
 static int cmp_dpair(const void *a, const void *b)
 {
     double x = ((const dpair *)a)->d, y = ((const dpair *)b)->d;
     return x < y ? -1 : x > y;
+}
+
+/* The two sides of a through-field profile are seldom read at the same
+ * distances from their edges (the edges fall between a scan's positions), so
+ * the 0.5 mm merge below rarely meets a pair: a point is also compared with
+ * the other side read between its two neighbours there (log-linear, as the
+ * dose falls off exponentially; neighbours at most 1 cm apart), and where
+ * that side is hotter by more than SL_SIDES_APART_SIGMAS standard
+ * deviations of a difference the colder point is left out. Without it a
+ * side 1.5 times hotter beyond 5 cm was fitted through both, 17 % low on
+ * the hot side. pts sorted by distance; returns the points left out. */
+#define SIDES_MAX_GAP_CM 1.0
+static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_percent)
+{
+    size_t n = 0;
+    for (size_t i = 0; i < np; i++) {
+        pts[i].drop = false;
+        const dpair *lo = NULL, *hi = NULL;
+        for (size_t k = i; k-- > 0 && !lo;)
+            if (pts[k].side == -pts[i].side)
+                lo = &pts[k];
+        for (size_t k = i + 1; k < np && !hi; k++)
+            if (pts[k].side == -pts[i].side)
+                hi = &pts[k];
+        if (!lo || !hi || hi->d - lo->d > SIDES_MAX_GAP_CM)
+            continue;
+        double t = hi->d > lo->d ? (pts[i].d - lo->d) / (hi->d - lo->d) : 0;
+        double u = exp(log(lo->v) + t * (log(hi->v) - log(lo->v)));
+        double m = 0.5 * (u + pts[i].v), r = rel * m;
+        double sigma = sqrt(r * r + floor_percent * floor_percent);
+        if (u - pts[i].v > SL_SIDES_APART_SIGMAS * M_SQRT2 * sigma) {
+            pts[i].drop = true;
+            n++;
+        }
+    }
+    return n;
 }
 
 sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
@@ -325,6 +363,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
     }
     size_t dropped = 0;
     for (size_t i = 0; st == SL_OK && i < r.nrows; i++) {
+        int side = positions ? (r.a[i] > right ? 1 : -1) : 0;
         double d = positions ? (r.a[i] > right ? r.a[i] - right
                                 : r.a[i] < left ? left - r.a[i]
                                                 : -1)
@@ -343,7 +382,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                               name, r.lines[i]);
             break;
         }
-        pts[np++] = (dpair){d, r.b[i]};
+        pts[np++] = (dpair){d, r.b[i], side, false};
     }
     if (st == SL_OK && np < SL_PROFILE_MIN_POINTS)
         st = sl_error_set(err, SL_EINPUT, "%s: %zu points lie outside the field; at least %d are "
@@ -358,6 +397,14 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
              * hotter is kept (an organ may lie on either side) */
             qsort(pts, np, sizeof *pts, cmp_dpair);
             size_t m = 0, hot = 0;
+            if (p->side == 0) {
+                hot = drop_colder_side(pts, np, p->rel_uncertainty, p->floor_percent);
+                for (size_t i = 0; i < np; i++)
+                    if (!pts[i].drop)
+                        pts[m++] = pts[i];
+                np = m;
+                m = 0;
+            }
             for (size_t i = 0; i < np;) {
                 size_t j = i;
                 double sd = 0, sv = 0, lo = INFINITY, hi = -INFINITY;
@@ -374,7 +421,7 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                     v = hi;
                     hot++;
                 }
-                pts[m++] = (dpair){sd / (double)(j - i), v};
+                pts[m++] = (dpair){sd / (double)(j - i), v, 0, false};
                 i = j;
             }
             np = m;
