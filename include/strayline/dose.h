@@ -213,6 +213,9 @@ typedef struct sl_organ_dose {
     /* with the planning system's dose (all 0 without) */
     size_t tps_samples;           /* samples whose dose is the planning system's */
     size_t tps_outside_grid;      /* samples in the zone outside its grid: the model's dose */
+    size_t tps_below_model;       /* samples in the zone, outside the field, where the
+                                     planning system's dose is below the model's: the
+                                     model's dose, with its marks */
     double tps_volume_fraction;   /* of the volume (of the samples, for points) */
     bool max_from_tps, nearest_from_tps;
     double *tps_acc;              /* private: the organ's share of the ratio table */

@@ -712,13 +712,15 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
      * 1 + b beam b, SL_TPS_BINS bins of (n, sum, min, max) */
     const size_t nrow = 1 + e->nbeams;
     double *tv = e->tps_used ? malloc(n * sizeof *tv) : NULL;
+    unsigned *mf = e->tps_used ? calloc(n, sizeof *mf) : NULL; /* model marks where TPS */
     unsigned char *use = calloc(n, 1);
     if (e->tps_used)
         od->tps_acc = calloc(nrow * SL_TPS_BINS * 4, sizeof *od->tps_acc);
     if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
         !dg || !ug || !uc || !ec || !dmin || !up || !order || !use ||
-        (e->tps_used && (!tv || !od->tps_acc))) {
+        (e->tps_used && (!tv || !mf || !od->tps_acc))) {
         free(tv);
+        free(mf);
         free(use);
         free(dg);
         free(ug);
@@ -749,6 +751,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                     od->tps_outside_grid++;
                     if (dmin[i] < SL_IN_FIELD_MARGIN_CM) {
                         free(tv);
+                        free(mf);
                         free(use);
                         free(dg);
                         free(ug);
@@ -805,6 +808,8 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             double pc = v.percent;
             if (!use[i])
                 od->flags |= v.flags | bd->model_flags;
+            else
+                mf[i] |= v.flags | bd->model_flags;
             if (i == nearest && !use[i]) {
                 od->nearest_flags |= v.flags | bd->model_flags;
                 if (p->distance_cm[i] == dmin[i])
@@ -850,6 +855,27 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         }
         if (!use[i])
             continue;
+        if (dmin[i] >= 0 && od->course_cgy[i] > tv[i]) {
+            /* outside the field the planning system's dose stands only
+             * where it is at least the model's: a grid cropped or cut at a
+             * threshold reads 0 there (found by an independent review: a
+             * lens 2 cm from the edge passed on the grid's 0); the model's
+             * value keeps its marks, near the edge too */
+            use[i] = 0;
+            od->tps_below_model++;
+            od->flags |= mf[i];
+            if (dmin[i] < SL_NEAR_EDGE_CM) {
+                od->near_edge = true;
+                od->flags |= SL_MF_NEAR_EDGE;
+            }
+            if (i == nearest) {
+                od->nearest_flags |= mf[i] | (dmin[i] < SL_NEAR_EDGE_CM ? SL_MF_NEAR_EDGE : 0);
+                for (size_t b = 0; b < e->nbeams; b++)
+                    if (loc->beams[b].organs[o].distance_cm[i] == dmin[i])
+                        od->nearest_depth_cm = loc->beams[b].organs[o].depth_cm[i];
+            }
+            continue;
+        }
         od->tps_samples++;
         od->course_cgy[i] = tv[i];
         uc[i] = SL_TPS_U_FRACTION * tv[i];
@@ -931,6 +957,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     free(up);
     free(order);
     free(tv);
+    free(mf);
     free(use);
     od->estimated = true;
     return SL_OK;
@@ -1125,8 +1152,23 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
             free(ost);
         }
     }
-    if (st == SL_OK && e->tps_used)
+    if (st == SL_OK && e->tps_used) {
         st = gather_ratios(e, err);
+        size_t below = 0, norg = 0;
+        for (size_t o = 0; o < e->norgans; o++) {
+            below += e->organs[o].tps_below_model;
+            norg += e->organs[o].tps_below_model > 0;
+        }
+        if (below)
+            sl_notes_add(&e->notes,
+                         "planning system's dose: at %zu sample%s of %zu organ%s outside the "
+                         "field within the %.1f cm zone it is below the model's, and the "
+                         "model's value stands there with its marks (the higher of the two; a "
+                         "grid cropped or cut at a threshold reads 0): check the RT Dose's "
+                         "grid",
+                         below, below == 1 ? "" : "s", norg, norg == 1 ? "" : "s",
+                         e->tps_zone_cm);
+    }
     if (st != SL_OK) {
         sl_estimate_free(e);
         return st;

@@ -140,8 +140,8 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
     if (n < max && r->est->opt.ntps)
         snprintf(out[n++], EST_CAUTION_LEN,
                  "Within %.1f cm of a field edge (in the field too) each sample's dose is the "
-                 "planning system's (its RT Dose given by --tps-dose); beyond, the model's: each "
-                 "organ says which.",
+                 "planning system's (its RT Dose given by --tps-dose), outside the field where "
+                 "it is at least the model's; elsewhere the model's: each organ says which.",
                  r->est->opt.tps_zone_cm);
     else if (n < max)
         snprintf(out[n++], EST_CAUTION_LEN,
@@ -444,6 +444,9 @@ static void text_tps(FILE *fp, const sl_estimate_report *r)
                 d->nearest_from_tps ? "planning system" : "model");
         if (d->tps_outside_grid)
             fprintf(fp, "; %zu samples in the zone outside its grid (model)", d->tps_outside_grid);
+        if (d->tps_below_model)
+            fprintf(fp, "; %zu samples in the zone where the model is higher (model)",
+                    d->tps_below_model);
         fputc('\n', fp);
     }
     char u[400];
@@ -855,6 +858,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
             jw_bool(w, x, "max_from_planning_system", d->max_from_tps);
             jw_bool(w, x, "nearest_from_planning_system", d->nearest_from_tps);
             jw_int(w, x, "zone_samples_outside_planning_grid", (long long)d->tps_outside_grid);
+            jw_int(w, x, "zone_samples_model_higher", (long long)d->tps_below_model);
         }
         jw_num(w, x, "volume_cc", d->volume_cc);
         jw_bool(w, x, "point", d->is_point);

@@ -52,7 +52,7 @@ def analytic_gy(x, y, z):
 
 
 def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN", beams=(),
-                 bits=32, zs=None):
+                 bits=32, zs=None, zero_beyond_mm=None):
     """An axial RT Dose grid: x -150..150 mm, y -10..100 mm, z -50..50 mm,
     every 2.5 mm (or the frames zs), of the analytic dose, stored as
     integers times Dose Grid Scaling."""
@@ -62,6 +62,8 @@ def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN"
     zs = np.arange(-50.0, 50.0 + 1e-9, 2.5) if zs is None else np.asarray(zs, dtype=float)
     zz, yy, xx = np.meshgrid(zs, ys, xs, indexing="ij")
     gy = analytic_gy(xx, yy, zz)
+    if zero_beyond_mm is not None:  # a grid cut at a threshold: 0 off the field
+        gy = np.where(np.abs(xx) > zero_beyond_mm, 0.0, gy)
     scale = 1e-6 if bits == 32 else 1e-4
     raw = np.rint(gy / scale).astype("<u4" if bits == 32 else "<u2")
     ds = Dataset()
@@ -188,6 +190,30 @@ class FromTheGrid(unittest.TestCase):
         self.assertGreaterEqual(row["ratio_max"], ratio - 1e-6)
         self.assertIn(rc_t, (0, 4))
         self.assertIn("planning system's dose: within 3.0 cm", text)
+
+    def test_a_grid_below_the_model_does_not_lower_an_organ(self):
+        """A planning system's grid that reads 0 beyond 5.5 cm off axis (cut at
+        a threshold): 'near', 1.5 cm beyond the field edge inside the zone,
+        keeps the model's dose, as with no RT Dose at all, and says so; the
+        organ in the field keeps the grid's (found by an independent review:
+        a lens there passed on the grid's 0)."""
+        with tempdir() as d:
+            plan, ss, rtd = case(d, zero_beyond_mm=55.0)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+            rc0, js0, err0 = estimate(plan, ss)
+        jsonschema.validate(js, json.load(open(SCHEMA)))
+        near, near0 = organ(js, "near"), organ(js0, "near")
+        self.assertEqual(near["dose_source"], "model")
+        self.assertGreater(near["course_max_cgy"], 0)
+        self.assertEqual(near["course_max_cgy"], near0["course_max_cgy"])
+        self.assertGreaterEqual(near["zone_samples_model_higher"], 1)
+        self.assertTrue(any("it is below the model's" in w for w in js["warnings"]),
+                        js["warnings"])
+        inside = organ(js, "in")
+        self.assertEqual(inside["dose_source"], "planning system")
+        self.assertAlmostEqual(inside["course_max_cgy"], 100 * analytic_gy(20.0, 10.0, 0.0),
+                               delta=1e-3)
+        self.assertEqual(inside["zone_samples_model_higher"], 0)
 
     def test_uneven_frames_are_read_as_they_are(self):
         """Grid Frame Offset Vector with uneven, ordered offsets (legal: DICOM
