@@ -134,11 +134,15 @@ typedef struct sl_beam_dose {
     bool cutout;                  /* the plan has a cutout */
     unsigned model_flags;         /* SL_MF_OPEN_FOR_CUTOUT when open profiles stand in */
     double dose_per_mu_cgy, dmax_cm, effective_ssd_cm;
-    double ssd_used_cm;           /* NAN when neither the plan nor the body gives one */
+    double ssd_used_cm;           /* the SSD the profiles are read at: the plan's, or the
+                                     body's when more than 1 cm longer (or when the plan
+                                     gives none); NAN when neither gives one */
     double gap_cm;                /* ssd_used - nominal SSD */
     double isf;                   /* inverse-square factor (from the SSD of the output used) */
-    double isf_ssd_cm;            /* the SSD the inverse square runs to: ssd_used_cm, or the
+    double isf_ssd_cm;            /* the SSD the inverse square runs to: the plan's, or the
                                      body's when more than 1 cm shorter than the plan's */
+    bool body_nearer, body_farther; /* the body's SSD more than 1 cm from the plan's: each
+                                     factor takes the SSD that gives it the higher value */
     double output_ssd_cm;         /* SSD of the output used: the nominal one, or the nearest
                                      measured one when the model has outputs per SSD */
     double nominal_ratio;         /* reference dose at the nominal SSD / the one used */

@@ -287,11 +287,16 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
                          bd->place->field.plan_opening_cm[1], bd->applicator,
                          bd->place->field.model_opening_cm[0],
                          bd->place->field.model_opening_cm[1]);
-        if (isfinite(bd->ssd_used_cm) && bd->isf_ssd_cm != bd->ssd_used_cm)
+        if (bd->body_nearer)
             sl_notes_add(out, "beam %d: the body is nearer the source (SSD %.1f cm) than the "
                               "plan's SSD (%.1f cm): the inverse square takes the shorter; "
                               "check the SSD",
                          bd->place->beam->number, bd->isf_ssd_cm, bd->ssd_used_cm);
+        if (bd->body_farther)
+            sl_notes_add(out, "beam %d: the body is farther from the source (SSD %.1f cm) than "
+                              "the plan's SSD (%.1f cm): the profiles are read at the longer; "
+                              "check the SSD",
+                         bd->place->beam->number, bd->ssd_used_cm, bd->isf_ssd_cm);
         if (bd->place->obliquity_deg > SL_OBLIQUITY_CAUTION_DEG)
             sl_notes_add(out, "beam %d: oblique incidence, surface obliquity %.1f deg (above "
                               "%.0f deg the depth dose itself changes): confirm by measurement",

@@ -619,6 +619,41 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
                             for c in got[1030.0]["result"]["case_cautions"]),
                         got[1030.0]["result"])
 
+    def test_a_body_farther_than_the_plans_ssd_reads_the_profiles_there(self):
+        """The mirror case: the plan says SSD 97 cm, the body's surface is at
+        100 cm. The profiles are read at the body's 100 cm, where the
+        out-of-field percent is the higher, and the inverse square stays at
+        the plan's 97 cm, which gives the higher reference dose (a handbook
+        formula, (100 + dmax) / (97 + dmax) squared about the effective SSD):
+        each factor the higher, so the organ reads the 100 cm case's dose
+        times that factor (found by an independent review: the plan's SSD
+        for both read 8 % lower at 5 cm of air)."""
+        got = {}
+        with tempdir() as d:
+            for ssd_mm in (1000.0, 970.0):
+                plan, ss = box_case(d, [("p", (150.0, 10.0, 0.0))],
+                                    [{"number": 1, "energy_mev": 12.0}], self.ONE, ssd_mm=ssd_mm)
+                rc, js, err = estimate(plan, ss)
+                got[ssd_mm] = js
+        body, far = got[1000.0]["beams"][0], got[970.0]["beams"][0]
+        self.assertEqual(far["ssd_cm"], 100.0)
+        self.assertEqual(far["inverse_square_ssd_cm"], 97.0)
+        self.assertGreater(far["inverse_square_factor"], 1.05)
+        for rf, rb_ in zip(far["reference_dose_per_fraction_cgy"],
+                           body["reference_dose_per_fraction_cgy"]):
+            self.assertAlmostEqual(rf, rb_ * far["inverse_square_factor"], delta=1e-9 * rf)
+        pf, pb = organ(got[970.0], "p"), organ(got[1000.0], "p")
+        self.assertAlmostEqual(pf["course_max_cgy"],
+                               pb["course_max_cgy"] * far["inverse_square_factor"],
+                               delta=1e-9 * pf["course_max_cgy"])
+        self.assertTrue(any("is longer than the plan's (97.0 cm)" in w
+                            for w in got[970.0]["warnings"]), got[970.0]["warnings"])
+        self.assertTrue(any("the body is farther from the source" in c
+                            for c in got[970.0]["result"]["case_cautions"]),
+                        got[970.0]["result"])
+        self.assertFalse(any("farther from the source" in c
+                             for c in got[1000.0]["result"]["case_cautions"]))
+
     def test_unjudged_organs_are_counted_and_a_fetus_is_flagged(self):
         """A lens and a fetus inside the field: the screening does not judge
         them; the lens is counted in the headline, the fetus needs attention
