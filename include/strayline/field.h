@@ -41,6 +41,8 @@ typedef enum sl_field_source {
 typedef struct sl_field {
     sl_outline *edge;        /* the field edge that distances are measured from */
     sl_outline *applicator;  /* the applicator opening; NULL when unknown */
+    sl_outline *outer;       /* with SHIELDING blocks: the openings without their holes
+                                (NULL otherwise) */
     sl_field_source source;
     bool has_cutout;
     bool has_shielding;
@@ -54,6 +56,12 @@ typedef struct sl_field {
 } sl_field;
 
 const char *sl_field_source_name(sl_field_source s);
+
+/* Signed distance (cm, isocentric plane, negative inside) of uv from the
+ * field edge, where a point under a SHIELDING block inside the opening
+ * counts as in the field: the measured profiles say nothing about the dose
+ * under a block with the field on every side, the planning system does. */
+double sl_field_distance(const sl_field *f, sl_vec2 uv);
 
 sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
                          const sl_applicator_size *catalogue, size_t ncatalogue, sl_field *out,

@@ -58,7 +58,7 @@ static void grid_slice(size_t k, void *ctx)
                     placed = false;
                     break;
                 }
-                double dist = scale * sl_outline_distance(bp->field.edge, uv);
+                double dist = scale * sl_field_distance(&bp->field, uv);
                 dmin = fmin(dmin, dist);
                 if (dist < SL_IN_FIELD_MARGIN_CM)
                     continue; /* the model says nothing inside a field */

@@ -26,6 +26,7 @@ void sl_field_free(sl_field *f)
         return;
     sl_outline_free(f->edge);
     sl_outline_free(f->applicator);
+    sl_outline_free(f->outer);
     memset(f, 0, sizeof *f);
 }
 
@@ -125,6 +126,14 @@ static sl_status applicator_outline(const sl_plan *plan, const sl_beam *beam,
  * the catalogue's nominal size, and planning systems round the outline. */
 #define CUTOUT_OUTSIDE_CM 0.1
 
+double sl_field_distance(const sl_field *f, sl_vec2 uv)
+{
+    double d = sl_outline_distance(f->edge, uv);
+    if (f->outer && d > 0 && sl_outline_distance(f->outer, uv) < 0)
+        return -d; /* under a shield: inside by its distance from the shield's edge */
+    return d;
+}
+
 sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
                          const sl_applicator_size *catalogue, size_t ncatalogue, sl_field *out,
                          sl_error *err)
@@ -191,6 +200,8 @@ sl_status sl_field_build(const sl_plan *plan, const sl_beam *beam,
              naper ? "cutout" : "field");
     if (st == SL_OK)
         st = sl_outline_create(loops, k, what, &out->edge, err);
+    if (st == SL_OK && nshield > 0 && k > nshield)
+        st = sl_outline_create(loops, k - nshield, what, &out->outer, err);
     /* openings must not nest (one would turn into a hole), and a shielding
      * block must be a hole in an opening, not an island */
     for (size_t i = 0; st == SL_OK && i < naper; i++) {

@@ -137,7 +137,7 @@ static void place_task(size_t t, void *ctx)
             p->distance_cm[i] = p->app_distance_cm[i] = p->depth_cm[i] = NAN;
             continue;
         }
-        p->distance_cm[i] = scale * sl_outline_distance(j->bp->field.edge, uv);
+        p->distance_cm[i] = scale * sl_field_distance(&j->bp->field, uv);
         p->app_distance_cm[i] = j->bp->field.applicator
                                     ? scale * sl_outline_distance(j->bp->field.applicator, uv)
                                     : NAN;
@@ -206,7 +206,7 @@ static double field_distance(const sl_beam_place *bp, sl_vec3 q, bool *ok)
     sl_vec2 uv;
     double scale;
     *ok = sl_frame_project(&bp->frame, sl_frame_to_bld(&bp->frame, q), &uv, &scale);
-    return *ok ? scale * sl_outline_distance(bp->field.edge, uv) : INFINITY;
+    return *ok ? scale * sl_field_distance(&bp->field, uv) : INFINITY;
 }
 
 static sl_vec3 lerp3(sl_vec3 a, sl_vec3 b, double t)
@@ -544,6 +544,13 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
                      plan->source, beam->number, bp->field.plan_opening_cm[0],
                      bp->field.plan_opening_cm[1], beam->applicator.id,
                      bp->field.model_opening_cm[0], bp->field.model_opening_cm[1]);
+    if (bp->field.outer)
+        sl_notes_add(&bp->notes,
+                     "%s: beam %d: a SHIELDING block lies inside the field opening: points under "
+                     "it are taken as in the field, where the planning system's dose applies "
+                     "(the measured profiles say nothing about the dose under a block with the "
+                     "field on every side)",
+                     plan->source, beam->number);
     if (!bp->field.applicator)
         sl_notes_add(&bp->notes,
                      "%s: beam %d: the applicator opening is unknown (no Applicator Geometry and "

@@ -979,6 +979,47 @@ class ReviewFindings(unittest.TestCase):
         self.assertGreater(lm["course_max_cgy"], 1.5 * ref * ev["dose_percent"] / 100)
         self.assertIn("standin_for_uncommissioned_cutout", lm["flags"])
 
+    def test_a_point_under_a_shielding_block_inside_the_field_is_in_the_field(self):
+        """A 4 x 4 cm SHIELDING block on the central axis of a 10 x 10 cm
+        field (Block Sequence, DICOM PS3.3 C.8.8.14): a device under its
+        middle is 2 cm from the block's edge, yet the field lies on every
+        side, and the measured profiles (one edge, the field on one side)
+        say nothing there. It is taken as in the field, not judged, and a
+        device so is flagged; a point outside the opening is placed as
+        without the block (found by an independent review: it read as 2 cm
+        outside an open field, passing)."""
+        import pydicom
+        from pydicom.dataset import Dataset
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Pacemaker", (0.0, 10.0, 0.0)), ("p", (150.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+            rc0, js0, err0 = estimate(plan, ss)
+            ds = pydicom.dcmread(plan)
+            blk = Dataset()
+            blk.BlockType = "SHIELDING"
+            blk.BlockNumber = 1
+            blk.BlockDivergence = "PRESENT"
+            blk.MaterialID = "LMA"
+            blk.BlockNumberOfPoints = 4
+            blk.BlockData = [-20.0, -20.0, 20.0, -20.0, 20.0, 20.0, -20.0, 20.0]
+            ds.BeamSequence[0].BlockSequence = [blk]
+            ds.BeamSequence[0].NumberOfBlocks = 1
+            ds.save_as(plan)
+            rc, js, err = estimate(plan, ss)
+        dev = organ(js, "Pacemaker")
+        self.assertEqual(organ(js0, "Pacemaker")["status"], "in_field")  # the open field
+        self.assertFalse(dev["estimated"])
+        self.assertEqual(dev["status"], "in_field")
+        self.assertTrue(dev["flagged"])
+        self.assertEqual(js["organs_not_judged"], 1)
+        self.assertEqual(rc, 4)
+        self.assertTrue(any("a SHIELDING block lies inside the field opening" in w
+                            for w in js["warnings"]), js["warnings"])
+        far, far0 = organ(js, "p"), organ(js0, "p")
+        self.assertEqual(far["min_distance_cm"], far0["min_distance_cm"])
+        self.assertEqual(far["course_max_cgy"], far0["course_max_cgy"])
+
     def test_an_unjudged_organ_whose_value_reaches_its_level_is_flagged(self):
         """A lens 0.5 cm from a 10 x 10 cm field edge (near edge: not
         judged) with a dose far above 0.5 Gy: flagged, exit 4."""
