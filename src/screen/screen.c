@@ -272,6 +272,23 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
     eopt.model = req->model;
     if ((st = sl_locate(plan, ss, &lopt, &s->loc, err)) != SL_OK)
         goto fail;
+    /* an electron field whose central axis misses the body treats no one
+     * on this scan: another scan, or an isocentre moved; every organ would
+     * be left out as far away or not judged, the plan passed (found by an
+     * independent review) */
+    for (size_t b = 0; !req->allow_mismatch && s->loc->depth_from_body && b < s->loc->nbeams;
+         b++) {
+        const sl_beam_place *bp = &s->loc->beams[b];
+        if (!bp->entry_found) {
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: beam %d: its central axis misses the body contour of %s: "
+                              "plan and structure set do not fit together (another scan, or "
+                              "the isocentre moved); check them, or give --allow-mismatch to "
+                              "go on",
+                              plan->source, bp->beam->number, ss->source);
+            goto fail;
+        }
+    }
     record_no_bolus(s);
     if ((st = sl_estimate_doses(plan, ss, s->loc, &eopt, &s->est, err)) != SL_OK)
         goto fail;

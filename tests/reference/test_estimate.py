@@ -979,6 +979,42 @@ class ReviewFindings(unittest.TestCase):
         self.assertGreater(lm["course_max_cgy"], 1.5 * ref * ev["dose_percent"] / 100)
         self.assertIn("standin_for_uncommissioned_cutout", lm["flags"])
 
+    def test_a_plan_that_misses_the_body_is_refused_and_a_missed_target_said(self):
+        """The invented chest-oblique case with its isocentre moved (pydicom):
+        100 cm to the side, the central axis misses the body contour, and
+        every organ would be left out as far away with the plan passed: it
+        is refused (exit 3) unless --allow-mismatch; 15 cm toward the feet,
+        the field lies on the body but no target volume touches it: said
+        beside the result (found by an independent review)."""
+        import pydicom
+        base = os.path.join(SOURCE_ROOT, "examples", "chest-oblique")
+        ss = os.path.join(base, "rtstruct.dcm")
+        with tempdir() as d:
+            plan = os.path.join(d, "rtplan.dcm")
+            for shift, code in (((1000.0, 0.0, 0.0), 3), ((0.0, 0.0, -150.0), None)):
+                p = pydicom.dcmread(os.path.join(base, "rtplan.dcm"))
+                for cp in p.BeamSequence[0].ControlPointSequence:
+                    if "IsocenterPosition" in cp:
+                        cp.IsocenterPosition = [float(a) + b for a, b in
+                                                zip(cp.IsocenterPosition, shift)]
+                p.save_as(plan)
+                rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+                if code == 3:
+                    self.assertEqual(rc, 3, err)
+                    self.assertIn("beam 1: its central axis misses the body contour", err)
+                    self.assertIn("--allow-mismatch", err)
+                    self.assertEqual(len(err.strip().splitlines()), 1, err)
+                    rc, out, err = run("estimate", plan, ss, "--model", MODEL,
+                                       "--allow-mismatch")
+                    self.assertIn(rc, (0, 4), err)
+                    self.assertIn("the central axis does not enter the body", out)
+                else:
+                    self.assertIn(rc, (0, 4), err)
+                    head = out[:out.index("organs (cGy):")]
+                    self.assertIn("no target volume lies in any field (PTV_sternum)", head)
+            rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"), ss, "--model", MODEL)
+            self.assertNotIn("no target volume lies in any field", out)
+
     def test_a_point_under_a_shielding_block_inside_the_field_is_in_the_field(self):
         """A 4 x 4 cm SHIELDING block on the central axis of a 10 x 10 cm
         field (Block Sequence, DICOM PS3.3 C.8.8.14): a device under its
