@@ -153,6 +153,11 @@ typedef struct sl_beam_dose {
     double cutout_area_cm2;       /* the plan's cutout at the nominal SSD; NAN without one */
     double cutout_eqsq_cm;        /* its equivalent square, 4 area / perimeter */
     bool reference_overridden;
+    /* the reference dose raised to what the plan's own Beam Dose (or, for a
+     * plan of one beam, its prescription) implies, when that is higher than
+     * MU x output by more than SL_BEAM_DOSE_TOLERANCE: the ratio taken */
+    double reference_raised_by;   /* 1 when not raised */
+    const char *reference_raised_from; /* "Beam Dose" or "prescription"; NULL */
     double *mu;                   /* per fraction group (NAN: beam not in that group) */
     double *ref_cgy;              /* reference dose per fraction, per group (NAN likewise) */
     double *plan_beam_dose_cgy;   /* Beam Dose of the plan, per group (NAN when absent) */

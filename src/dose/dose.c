@@ -207,6 +207,7 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
     const sl_beam *b = bp->beam;
     const char *f = plan->source;
     bd->place = bp;
+    bd->reference_raised_by = 1.0;
     bd->energy_mev = b->energy_mev;
     if (!b->applicator.present || !b->applicator.id)
         return sl_error_set(err, SL_EINPUT,
@@ -468,13 +469,30 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
             continue;
         double expect = bd->ref_cgy[g] * iso;
         double ratio = bd->plan_beam_dose_cgy[g] / expect;
-        if (fabs(ratio - 1) > SL_BEAM_DOSE_TOLERANCE)
+        if (ratio > 1 + SL_BEAM_DOSE_TOLERANCE && !bd->reference_overridden) {
+            /* the plan's own statement of its dose is the higher: taken, so
+             * that MU that contradict it (a plan exported before its MU
+             * were final) never lower an organ (found by an independent
+             * review: 10 MU against a Beam Dose of 4 Gy passed at 9 cGy) */
+            sl_notes_add(&e->notes,
+                         "beam %d: the plan's Beam Dose is %.1f cGy a fraction, %+.0f %% above "
+                         "the model's reference dose %.1f cGy x prescription isodose %.0f %% "
+                         "(%.1f cGy): the reference dose is raised to %.1f cGy, what the Beam "
+                         "Dose implies (the higher); check the MU, the output or "
+                         "--prescription-isodose",
+                         b->number, bd->plan_beam_dose_cgy[g], 100 * (ratio - 1),
+                         bd->ref_cgy[g], 100 * iso, expect, bd->ref_cgy[g] * ratio);
+            bd->ref_cgy[g] *= ratio;
+            bd->reference_raised_by = fmax(bd->reference_raised_by, ratio);
+            bd->reference_raised_from = "Beam Dose";
+        } else if (fabs(ratio - 1) > SL_BEAM_DOSE_TOLERANCE) {
             sl_notes_add(&e->notes,
                          "beam %d: the plan's Beam Dose is %.1f cGy a fraction; the model's "
                          "reference dose %.1f cGy x prescription isodose %.0f %% gives %.1f cGy "
                          "(%+.0f %%): check the MU, the output or --prescription-isodose",
                          b->number, bd->plan_beam_dose_cgy[g], bd->ref_cgy[g], 100 * iso, expect,
                          100 * (ratio - 1));
+        }
     }
     return SL_OK;
 }
@@ -1142,12 +1160,27 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
             if (!isfinite(rx) || rx <= 0 || !isfinite(e->beams[0].ref_cgy[0]))
                 continue;
             double iso = isnan(opt->prescription_isodose) ? 1.0 : opt->prescription_isodose;
-            double course = e->beams[0].ref_cgy[0] * iso * e->fractions[0];
-            if (fabs(course / rx - 1) > SL_BEAM_DOSE_TOLERANCE)
+            sl_beam_dose *bd0 = &e->beams[0];
+            double course = bd0->ref_cgy[0] * iso * e->fractions[0];
+            if (rx / course > 1 + SL_BEAM_DOSE_TOLERANCE && !bd0->reference_overridden) {
+                /* as for the Beam Dose: the plan's prescription is the higher */
+                double ratio = rx / course;
+                sl_notes_add(&e->notes,
+                             "the plan prescribes %.0f cGy; the reference dose x isodose %.0f %% "
+                             "x %d fractions gives %.0f cGy (%+.0f %%): the reference dose is "
+                             "raised to %.1f cGy a fraction, what the prescription implies (the "
+                             "higher); check the MU, the output or --prescription-isodose",
+                             rx, 100 * iso, e->fractions[0], course, 100 * (course / rx - 1),
+                             bd0->ref_cgy[0] * ratio);
+                bd0->ref_cgy[0] *= ratio;
+                bd0->reference_raised_by *= ratio;
+                bd0->reference_raised_from = "prescription";
+            } else if (fabs(course / rx - 1) > SL_BEAM_DOSE_TOLERANCE) {
                 sl_notes_add(&e->notes,
                              "the plan prescribes %.0f cGy; the reference dose x isodose %.0f %% x "
                              "%d fractions gives %.0f cGy (%+.0f %%)",
                              rx, 100 * iso, e->fractions[0], course, 100 * (course / rx - 1));
+            }
         }
     }
     if (st == SL_OK && opt->ntps > 0)

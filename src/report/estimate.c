@@ -789,6 +789,8 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_num(w, x, "cutout_factor", bd->cutout_factor);
         jw_bool(w, x, "cutout_factor_assumed", bd->cutout_factor_assumed);
         jw_bool(w, x, "reference_dose_overridden", bd->reference_overridden);
+        jw_num(w, x, "reference_dose_raised_by", bd->reference_raised_by);
+        jw_str(w, x, "reference_dose_raised_from", bd->reference_raised_from);
         json_object *mu = json_object_new_array(), *ref = json_object_new_array(),
                     *pbd = json_object_new_array();
         for (size_t g = 0; g < e->ngroups; g++) {

@@ -979,6 +979,49 @@ class ReviewFindings(unittest.TestCase):
         self.assertGreater(lm["course_max_cgy"], 1.5 * ref * ev["dose_percent"] / 100)
         self.assertIn("standin_for_uncommissioned_cutout", lm["flags"])
 
+    def test_mu_below_what_the_plan_states_are_raised_to_it(self):
+        """The invented face-lens plan with its BeamMeterset cut to a tenth
+        (pydicom): the plan's own Beam Dose (300 cGy a fraction at the 90 %
+        isodose) and, without it, its prescription (4500 cGy in 15
+        fractions) say ten times more. The reference dose takes the higher,
+        what the plan states: 300 / 0.9 cGy at the maximum, so every organ
+        reads as the plan's own statement implies (arithmetic), with a
+        caution beside the result (found by an independent review: 10 MU
+        against a Beam Dose of 4 Gy passed an organ at 9 cGy)."""
+        import pydicom
+        ss = os.path.join(self.FACE, "rtstruct.dcm")
+        rc, js0, err = estimate(os.path.join(self.FACE, "rtplan.dcm"), ss,
+                                "--prescription-isodose", "90")
+        self.assertEqual(js0["beams"][0]["reference_dose_raised_by"], 1)
+        self.assertIsNone(js0["beams"][0]["reference_dose_raised_from"])
+        ref0 = js0["beams"][0]["reference_dose_per_fraction_cgy"][0]
+        with tempdir() as d:
+            plan = os.path.join(d, "rtplan.dcm")
+            for source in ("Beam Dose", "prescription"):
+                p = pydicom.dcmread(os.path.join(self.FACE, "rtplan.dcm"))
+                rb_ = p.FractionGroupSequence[0].ReferencedBeamSequence[0]
+                rb_.BeamMeterset = float(rb_.BeamMeterset) / 10
+                if source == "prescription":
+                    del rb_.BeamDose
+                p.save_as(plan)
+                rc, js, err = estimate(plan, ss, "--prescription-isodose", "90")
+                b = js["beams"][0]
+                self.assertEqual(b["reference_dose_raised_from"], source)
+                want = 300.0 / 0.9  # cGy a fraction at the maximum, as the plan states
+                self.assertAlmostEqual(b["reference_dose_per_fraction_cgy"][0], want, delta=1e-6)
+                self.assertAlmostEqual(b["reference_dose_raised_by"], want / (ref0 / 10),
+                                       delta=1e-9 * want)
+                for o0 in js0["organs"]:
+                    if not o0["estimated"]:
+                        continue
+                    o = organ(js, o0["roi"])
+                    self.assertAlmostEqual(o["course_max_cgy"],
+                                           o0["course_max_cgy"] * want / ref0,
+                                           delta=1e-9 * o["course_max_cgy"], msg=o0["roi"])
+                self.assertTrue(any("less than the plan's %s implies" % source in c
+                                    for c in js["result"]["case_cautions"]),
+                                js["result"]["case_cautions"])
+
     def test_a_plan_that_misses_the_body_is_refused_and_a_missed_target_said(self):
         """The invented chest-oblique case with its isocentre moved (pydicom):
         100 cm to the side, the central axis misses the body contour, and
