@@ -167,6 +167,12 @@ void sl_plan_free(sl_plan *plan);
  * TRMT_PORTFILM (a portal image taken with the treatment port) deliver
  * treatment dose, OPEN_PORTFILM an open field's; a type this tool does not
  * know is taken to deliver dose, the cautious reading. */
+/* The least meterset (MU) a treatment beam's dose is taken from: below it
+ * the plan is a placeholder (common practice: electron fields run tens to
+ * hundreds of MU a fraction); an electron SETUP beam with as much is a
+ * contradiction and refused. */
+#define SL_MIN_TREATMENT_MU 1.0
+
 bool sl_beam_delivers_dose(const sl_beam *beam);
 
 /* Why a beam is not estimated, or NULL when it is an electron beam that

@@ -24,10 +24,6 @@ void sl_estimate_default_options(sl_estimate_options *o)
     o->tps_zone_cm = SL_TPS_ZONE_CM;
 }
 
-/* The least meterset (MU) a treatment beam's dose is taken from: below it
- * the plan is a placeholder (common practice: electron fields run tens to
- * hundreds of MU a fraction). */
-#define SL_MIN_TREATMENT_MU 1.0
 
 bool sl_dose_type_target(const char *type)
 {

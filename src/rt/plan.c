@@ -201,8 +201,25 @@ sl_status sl_plan_validate(sl_plan *plan, sl_error *err)
         if (!is(b->radiation_type, "ELECTRON"))
             continue;
         electrons++;
-        if (!sl_beam_delivers_dose(b))
+        if (!sl_beam_delivers_dose(b)) {
+            /* a setup beam is never delivered; one given monitor units
+             * would be skipped with its dose (found by an independent
+             * review: an electron SETUP beam of 480 MU passed in silence) */
+            for (size_t g = 0; g < plan->ngroups; g++)
+                for (size_t k = 0; k < plan->groups[g].nrefs; k++) {
+                    const sl_beam_ref *r = &plan->groups[g].refs[k];
+                    if (r->beam_number == b->number && r->meterset_mu >= SL_MIN_TREATMENT_MU)
+                        return sl_error_set(err, SL_EINPUT,
+                                            "%s: beam %d is an electron beam of Treatment "
+                                            "Delivery Type (300A,00CE) SETUP, yet fraction "
+                                            "group %d gives it BeamMeterset (300A,0086) %.1f "
+                                            "MU: a setup beam delivers no dose; correct its "
+                                            "type or its meterset",
+                                            f, b->number, plan->groups[g].number,
+                                            r->meterset_mu);
+                }
             continue;
+        }
         if (!is(b->beam_type, "STATIC"))
             return sl_error_set(err, SL_EINPUT,
                                 "%s: beam %d: BeamType (300A,00C4) is %s: moving electron beams "

@@ -348,6 +348,12 @@ def main():
                                 "BeamMeterset", "0.0001"),
               "BeamMeterset (300A,0086) 0.0001 MU for an electron treatment beam, below 1 MU",
               args="estimate {f} {ss} --model {model}")
+    # a setup beam given monitor units would be skipped with its dose
+    # (found by an independent review)
+    plan_case("setup_beam_with_mu.dcm",
+              lambda d: setattr(beam(d), "TreatmentDeliveryType", "SETUP"),
+              "is an electron beam of Treatment Delivery Type (300A,00CE) SETUP, yet fraction "
+              "group 1 gives it BeamMeterset (300A,0086)")
     plan_case("isocenter_absurd.dcm", lambda d: setattr(cp0(d), "IsocenterPosition",
                                                        rb.ds([0, 1e9, 0])),
               "IsocenterPosition (300A,012C): coordinate")
