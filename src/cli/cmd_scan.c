@@ -215,6 +215,24 @@ int sl_cmd_scan(int argc, char **argv)
         goto done;
     }
     sl_cli_warnings(&files->notes);
+    /* a facts entry that names no plan of the folder (a typo in a patient
+     * ID) would leave its patient's plan judged without its facts: said,
+     * and the batch needs attention (found by an independent review: a
+     * pacing dependence so lost passed a device at a lower band) */
+    size_t facts_unmatched = 0;
+    for (size_t k = 0; facts && k < facts->n; k++) {
+        const char *key = facts->items[k].key;
+        bool hit = false;
+        for (size_t i = 0; i < n && !hit; i++)
+            hit = (entries[i].plan_uid && strcmp(entries[i].plan_uid, key) == 0) ||
+                  (entries[i].patient_id && strcmp(entries[i].patient_id, key) == 0);
+        if (!hit) {
+            facts_unmatched++;
+            sl_cli_error("warning: %s: entry '%s' names no plan UID or patient ID of the plans in %s: "
+                           "its facts were used for no plan (check the key)",
+                           facts->source, key, dir);
+        }
+    }
     if (rescreen) {
         sl_history_query q = {.stale_machine = model->machine.name,
                               .stale_sha256 = model->sha256};
@@ -308,7 +326,10 @@ int sl_cmd_scan(int argc, char **argv)
         rc = SL_EXIT_INTERNAL;
         goto done;
     }
-    rc = attention ? SL_EXIT_FLAGGED : SL_EXIT_OK;
+    if (facts_unmatched)
+        printf("facts: %zu entr%s of %s named no plan of the folder (see the warnings)\n",
+               facts_unmatched, facts_unmatched == 1 ? "y" : "ies", facts->source);
+    rc = attention || facts_unmatched ? SL_EXIT_FLAGGED : SL_EXIT_OK;
 done:
     for (size_t i = 0; i < n; i++)
         sl_batch_entry_clear(&entries[i]);

@@ -299,6 +299,28 @@ class FactsOfPlanAndPatient(unittest.TestCase):
                           rows[0]["options"])
 
 
+    def test_an_entry_that_names_no_plan_is_said(self):
+        """A facts entry whose key is a mistyped patient ID names no plan of
+        the folder: its facts reach no plan, which a warning says, and the
+        batch exits 4 (found by an independent review: a pacing dependence
+        so lost passed in silence)."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            plan_uid, _, pid = copy_pair("neck-device", src, "TYPO")
+            facts = os.path.join(d, "facts.yaml")
+            with open(facts, "w") as f:
+                f.write("format: strayline-patient-facts\n"
+                        "notice: invented demo facts, not for clinical use\n"
+                        "patients:\n"
+                        "  - key: %s-X\n    pacing_dependent: true\n"
+                        "  - key: %s\n    age_years: 60\n" % (pid, plan_uid))
+            rc, out, err = scan(src, os.path.join(d, "out"), "--facts", facts)
+            self.assertEqual(rc, 4, err)
+            self.assertIn("entry '%s-X' names no plan UID or patient ID" % pid, err)
+            self.assertNotIn("entry '%s'" % plan_uid, err)
+            self.assertIn("facts: 1 entry of %s named no plan of the folder" % facts, out)
+
+
 class NotJudgedIsNotClear(unittest.TestCase):
     """An organ with action levels that the screening cannot judge (here a
     lens 0.9 cm from the field edge: near edge) leaves its plan unflagged
