@@ -148,7 +148,9 @@ double sl_alloy_mm(double energy_mev);
 /* What the report needs to know of the patient. */
 typedef struct sl_patient {
     double gestational_weeks; /* since the last menstrual period; NAN when not given */
-    bool pacing_dependent;
+    bool pacing_dependent;    /* given so (false when not stated: see pacing_stated) */
+    bool pacing_stated;       /* pacing dependence given either way; when not, a cardiac
+                                 device is judged as for a pacing-dependent patient */
     double age_years;         /* NAN when not given */
     char sex;                 /* 'M', 'F' or 0 */
     double conception_weeks;  /* weeks after conception (ICRP 84 windows); NAN when not
@@ -225,6 +227,7 @@ typedef struct sl_assessment {
     bool neutron_band;        /* the band was raised for a possibly neutron-producing beam */
     bool neutron_unrated;     /* such a beam exists and the table has no neutron rule */
     bool pacing_raised;       /* the band was raised for pacing dependence */
+    bool pacing_assumed;      /* ... which was not stated: assumed (the higher band) */
     bool verdict;             /* statements.items[0] is the verdict (fetus): printed first */
 } sl_assessment;
 

@@ -113,6 +113,7 @@ typedef struct sl_facts_entry {
     double gestational_weeks;    /* NAN */
     double conception_weeks;     /* NAN */
     bool pacing_dependent;
+    bool pacing_stated;          /* pacing_dependent given (true or false) */
     double age_years;            /* NAN */
     char sex;                    /* 0, 'M', 'F' */
     size_t nmap;

@@ -83,6 +83,8 @@ static const char help2[] =
     "                              distance from the nearest field edge along the body\n"
     "                              surface and depth below it (cm)\n"
     "      --pacing-dependent      the patient depends on the pacemaker\n"
+    "      --not-pacing-dependent  the patient does not (not stated: a cardiac device\n"
+    "                              is judged as for a pacing-dependent patient)\n"
     "      --age YEARS --sex M|F   for age-dependent statements and lifetime cancer\n"
     "                              risks (default: from the plan's Patient's Sex, Birth\n"
     "                              Date and RT Plan Date)\n"
@@ -120,6 +122,7 @@ enum {
     OPT_FETUS,
     OPT_DEVICE,
     OPT_PACING,
+    OPT_NOT_PACING,
     OPT_AGE,
     OPT_SEX,
     OPT_TARGETS,
@@ -297,6 +300,7 @@ int sl_cmd_estimate(int argc, char **argv)
         {"fetus-point", required_argument, NULL, OPT_FETUS},
         {"device-point", required_argument, NULL, OPT_DEVICE},
         {"pacing-dependent", no_argument, NULL, OPT_PACING},
+        {"not-pacing-dependent", no_argument, NULL, OPT_NOT_PACING},
         {"age", required_argument, NULL, OPT_AGE},
         {"sex", required_argument, NULL, OPT_SEX},
         {"include-targets", no_argument, NULL, OPT_TARGETS},
@@ -478,8 +482,17 @@ int sl_cmd_estimate(int argc, char **argv)
             break;
         }
         case OPT_PACING:
-            patient.pacing_dependent = true;
+            if (patient.pacing_stated && !patient.pacing_dependent)
+                return sl_cli_usage("estimate", "--pacing-dependent and --not-pacing-dependent "
+                                                "contradict each other");
+            patient.pacing_dependent = patient.pacing_stated = true;
             patient.device_asked = true;
+            break;
+        case OPT_NOT_PACING:
+            if (patient.pacing_dependent)
+                return sl_cli_usage("estimate", "--pacing-dependent and --not-pacing-dependent "
+                                                "contradict each other");
+            patient.pacing_stated = true;
             break;
         case OPT_AGE:
             if (!sl_parse_double(optarg, &v) || v < 0 || v > 120)

@@ -480,7 +480,10 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
             a->band = band_of(k, gy);
             a->band_upper = band_of(k, up);
             int top = (int)k->nbands - 1;
-            if (pt->pacing_dependent) {
+            /* pacing dependence not stated is taken as stated: the higher
+             * band (found by an independent review: a pacing-dependent
+             * patient's device passed at the lower band when nobody said) */
+            if (pt->pacing_dependent || !pt->pacing_stated) {
                 int b0 = a->band, b1 = a->band_upper;
                 a->band = a->band + k->pacing_shift > top ? top : a->band + k->pacing_shift;
                 a->band_upper = a->band_upper + k->pacing_shift > top
@@ -494,6 +497,13 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                                                                        : a->band_upper;
                 }
                 a->pacing_raised = a->band != b0 || a->band_upper != b1;
+                a->pacing_assumed = a->pacing_raised && !pt->pacing_stated;
+                if (a->pacing_assumed)
+                    sl_notes_add(&a->advice,
+                                 "pacing dependence not stated: judged as for a "
+                                 "pacing-dependent patient (the higher band); if the patient "
+                                 "is not pacing dependent, say so (--not-pacing-dependent, or "
+                                 "pacing_dependent: false in a facts file)");
             }
             if (as->neutrons && k->neutron_band >= 0) {
                 a->neutron_band = a->band < k->neutron_band;
@@ -571,7 +581,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                      "fetus): give its position, or measure its dose");
         as->any_flagged = true;
     }
-    if ((pt->pacing_dependent || pt->device_asked) && !device_found) {
+    if (((pt->pacing_dependent && pt->pacing_stated) || pt->device_asked) && !device_found) {
         sl_notes_add(&as->missing,
                      "cardiac_device: not assessed: no device found (no ROI matches the device "
                      "patterns or --organ ROI=cardiac_device, and no --device-point, --point or "

@@ -485,8 +485,11 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                 pt->gestational_weeks, pt->conception_weeks);
     else if (!isnan(pt->conception_weeks))
         fprintf(fp, "pregnant: %.1f weeks after conception (given)\n", pt->conception_weeks);
-    if (pt->pacing_dependent)
+    if (pt->pacing_dependent && pt->pacing_stated)
         fprintf(fp, "pacing-dependent patient\n");
+    else if (est_pacing_assumed(r))
+        fprintf(fp, "pacing dependence not stated: a cardiac device is judged as for a "
+                    "pacing-dependent patient\n");
     if (!isnan(pt->age_years))
         fprintf(fp, "age %.0f years (%s)\n", pt->age_years, pt->age_from ? pt->age_from : "given");
     if (pt->sex)
@@ -739,6 +742,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
     jw_str(w, pa, "age_source", pt->age_from);
     jw_str(w, pa, "sex_source", pt->sex_from);
     jw_bool(w, pa, "pacing_dependent", pt->pacing_dependent);
+    jw_bool(w, pa, "pacing_dependence_stated", pt->pacing_stated);
     jw_num_opt(w, pa, "age_years", pt->age_years);
     char sex[2] = {pt->sex, 0};
     jw_str(w, pa, "sex", pt->sex ? sex : NULL);
@@ -1290,10 +1294,20 @@ void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size)
     sl_buf_free(&b);
 }
 
+bool est_pacing_assumed(const sl_estimate_report *r)
+{
+    for (size_t i = 0; i < r->as->n; i++)
+        if (r->as->items[i].pacing_assumed)
+            return true;
+    return false;
+}
+
 void est_pacing_text(const sl_estimate_report *r, const sl_assessment *a, char *buf, size_t size)
 {
     snprintf(buf, size, "; judged by the table in %s%s%s", r->levels->source,
-             a->pacing_raised ? "; raised for pacing dependence" : "",
+             a->pacing_assumed  ? "; raised for pacing dependence, not stated: assumed"
+             : a->pacing_raised ? "; raised for pacing dependence"
+                                : "",
              a->neutron_band ? "; raised for a treatment beam that may produce neutrons" : "");
 }
 

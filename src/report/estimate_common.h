@@ -82,6 +82,9 @@ void est_obliquity_text(const sl_beam_dose *bd, char *buf, size_t size);
  * field edge, depths 0, 0.5, 1, 1.54 cm" (truncated with "..." if long). */
 void est_limits_text(const sl_beam_dose *bd, char *buf, size_t size);
 
+/* Whether a cardiac device was judged as for a pacing-dependent patient
+ * because nobody said whether the patient is. */
+bool est_pacing_assumed(const sl_estimate_report *r);
 /* "; moved up 1 band for pacing dependence" when the device bands were
  * shifted, else "". */
 void est_pacing_text(const sl_estimate_report *r, const sl_assessment *a, char *buf, size_t size);

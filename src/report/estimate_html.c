@@ -319,8 +319,11 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     else if (!isnan(pt->conception_weeks))
         helf(&h, b, "p", "Pregnant patient: %.1f weeks after conception (given).",
              pt->conception_weeks);
-    if (pt->pacing_dependent)
+    if (pt->pacing_dependent && pt->pacing_stated)
         hel(&h, b, "p", "The patient is pacing-dependent.");
+    else if (est_pacing_assumed(r))
+        hel(&h, b, "p", "Pacing dependence not stated: a cardiac device is judged as for a "
+                        "pacing-dependent patient.");
     if (!isnan(pt->age_years))
         helf(&h, b, "p", "Age %.0f years (%s).", pt->age_years,
              pt->age_from ? pt->age_from : "given");

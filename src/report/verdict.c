@@ -350,6 +350,10 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
     }
     bolus_cautions(r->loc, out);
     target_caution(r->loc, out);
+    if (est_pacing_assumed(r))
+        sl_notes_add(out, "pacing dependence not stated: the cardiac device is judged as for a "
+                          "pacing-dependent patient (the higher band); if the patient is not, "
+                          "say so (--not-pacing-dependent)");
     static const struct {
         unsigned flag;
         const char *text;

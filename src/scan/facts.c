@@ -94,6 +94,7 @@ sl_status sl_facts_view(const sl_facts *f, const char *plan_uid, const char *pat
     out->gestational_weeks = weeks ? u->gestational_weeks : p->gestational_weeks;
     out->conception_weeks = weeks ? u->conception_weeks : p->conception_weeks;
     out->pacing_dependent = u->pacing_dependent || p->pacing_dependent;
+    out->pacing_stated = u->pacing_stated || p->pacing_stated;
     out->age_years = !isnan(u->age_years) ? u->age_years : p->age_years;
     out->sex = u->sex ? u->sex : p->sex;
     for (size_t i = 0; i < u->nmap; i++)
@@ -182,6 +183,7 @@ static sl_status read_entry(sl_yaml *y, yaml_node_t *n, sl_facts_entry *e, sl_er
                                               "weeks_after_conception, not both");
     if (st == SL_OK && f[3].node)
         st = sl_yaml_bool(y, f[3].node, "pacing_dependent", &e->pacing_dependent, err);
+    e->pacing_stated = st == SL_OK && f[3].node;
     if (st == SL_OK && f[4].node)
         st = sl_yaml_number_in(y, f[4].node, "age_years", 0, 120, &e->age_years, err);
     if (st == SL_OK && f[5].node) {

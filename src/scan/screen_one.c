@@ -233,8 +233,8 @@ static void facts_text(const sl_facts_entry *f, const sl_batch_entry *e, bool tp
         sl_buf_printf(b, "; gestational_age_weeks=%g", f->gestational_weeks);
     if (!isnan(f->conception_weeks))
         sl_buf_printf(b, "; weeks_after_conception=%g", f->conception_weeks);
-    if (f->pacing_dependent)
-        sl_buf_printf(b, "; pacing_dependent");
+    if (f->pacing_stated)
+        sl_buf_printf(b, f->pacing_dependent ? "; pacing_dependent" : "; not pacing_dependent");
     if (!isnan(f->age_years))
         sl_buf_printf(b, "; age_years=%g", f->age_years);
     if (f->sex)
@@ -315,9 +315,10 @@ static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structur
             pt->conception_weeks = facts->conception_weeks;
             pt->conception_given = true;
         }
-        if (facts->pacing_dependent) {
-            pt->pacing_dependent = true;
-            pt->device_asked = true;
+        if (facts->pacing_stated) {
+            pt->pacing_stated = true;
+            pt->pacing_dependent = facts->pacing_dependent;
+            pt->device_asked |= facts->pacing_dependent;
         }
         if (!isnan(facts->age_years)) {
             pt->age_years = facts->age_years;

@@ -426,22 +426,37 @@ class LevelsAndStatuses(unittest.TestCase):
 
     def test_pacing_dependence_moves_the_device_up_a_band(self):
         """Dutch guideline (Radiat Oncol 7:198, 2012): below 2 Gy is low risk,
-        unless the patient is pacing-dependent (one band up)."""
+        unless the patient is pacing-dependent (one band up). Pacing
+        dependence that nobody states is taken as stated, the higher band,
+        and said (found by an independent review: a pacing-dependent
+        patient's device passed at the lower band when nobody said)."""
         with tempdir() as d:
             plan, ss = box_case(d, [("Pacemaker", (250.0, 10.0, 0.0))],
                                 [{"number": 1, "energy_mev": 12.0}],
                                 [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
-            rc, js, _ = estimate(plan, ss)
+            rc, js, _ = estimate(plan, ss, "--not-pacing-dependent")
             o = organ(js, "Pacemaker")
             self.assertLess(o["course_max_upper_cgy"], 200)
             self.assertEqual(o["band"]["name"], "low")
             self.assertFalse(o["flagged"])
             self.assertEqual(rc, 0)
-            rc, js, _ = estimate(plan, ss, "--pacing-dependent")
-            o = organ(js, "Pacemaker")
-            self.assertEqual(o["band"]["name"], "medium")
-            self.assertTrue(o["flagged"])
-            self.assertEqual(rc, 4)
+            self.assertTrue(js["patient"]["pacing_dependence_stated"])
+            self.assertFalse(js["patient"]["pacing_dependent"])
+            for extra in (["--pacing-dependent"], []):
+                rc, js, _ = estimate(plan, ss, *extra)
+                o = organ(js, "Pacemaker")
+                self.assertEqual(o["band"]["name"], "medium", extra)
+                self.assertTrue(o["flagged"])
+                self.assertEqual(rc, 4)
+                self.assertEqual(js["patient"]["pacing_dependent"], bool(extra))
+                self.assertEqual(js["patient"]["pacing_dependence_stated"], bool(extra))
+                assumed = any("pacing dependence not stated" in c
+                              for c in js["result"]["case_cautions"])
+                self.assertEqual(assumed, not extra)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--pacing-dependent",
+                               "--not-pacing-dependent")
+            self.assertEqual(rc, 2)
+            self.assertIn("contradict each other", err)
             # a device given as a point on the command line
             rc, js, _ = estimate(plan, ss, "--device-point", "250,10,0mm")
             o = organ(js, "Cardiac device (point given)")

@@ -321,6 +321,42 @@ class FactsOfPlanAndPatient(unittest.TestCase):
             self.assertIn("facts: 1 entry of %s named no plan of the folder" % facts, out)
 
 
+class PacingDependenceInABatch(unittest.TestCase):
+    def test_not_stated_is_judged_as_dependent_and_false_is_read(self):
+        """The invented neck-device pair screened twice: with no facts, the
+        pacemaker is judged as for a pacing-dependent patient (the higher
+        band) and its report says so; with pacing_dependent: false in the
+        facts file, the lower band, and the log's options say so."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            plan_uid, _, pid = copy_pair("neck-device", src, "PACE")
+            bands = {}
+            for name, text in (("none", None), ("false", "    pacing_dependent: false\n")):
+                extra = []
+                if text:
+                    facts = os.path.join(d, "facts.yaml")
+                    with open(facts, "w") as f:
+                        f.write("format: strayline-patient-facts\n"
+                                "notice: invented demo facts, not for clinical use\n"
+                                "patients:\n  - key: %s\n%s" % (pid, text))
+                    extra = ["--facts", facts]
+                out = os.path.join(d, "out-" + name)
+                rc, _, err = scan(src, out, *extra)
+                self.assertIn(rc, (0, 4), err)
+                with open(os.path.join(out, "summary.json")) as f:
+                    plan = json.load(f)["plans"][0]
+                with open(os.path.join(out, plan["report_json"])) as f:
+                    rep = json.load(f)
+                dev = [o for o in rep["organs"] if o["roi"] == "Pacemaker"][0]
+                bands[name] = (dev["band"]["name"], rep["patient"]["pacing_dependence_stated"],
+                               any("pacing dependence not stated" in c
+                                   for c in rep["result"]["case_cautions"]),
+                               log_rows(os.path.join(out, "screening.sqlite"))[0]["options"])
+            self.assertEqual(bands["none"][:3], ("medium", False, True))
+            self.assertEqual(bands["false"][:3], ("low", True, False))
+            self.assertIn("not pacing_dependent", bands["false"][3])
+
+
 class NotJudgedIsNotClear(unittest.TestCase):
     """An organ with action levels that the screening cannot judge (here a
     lens 0.9 cm from the field edge: near edge) leaves its plan unflagged
@@ -341,8 +377,18 @@ class NotJudgedIsNotClear(unittest.TestCase):
                          else "Other_%d" % k)
         ss.save_as(ss_p)
         plan = pydicom.dcmread(plan_p)
+        # a low dose everywhere: the MU, and the plan's own statements of its
+        # dose with them (they would raise the reference dose otherwise)
+        k = 1.0
         for b in plan.FractionGroupSequence[0].ReferencedBeamSequence:
+            if float(b.BeamMeterset) > 0:
+                k = 2.0 / float(b.BeamMeterset)
+                if "BeamDose" in b:
+                    b.BeamDose = float(b.BeamDose) * k
             b.BeamMeterset = 2.0
+        for r in plan.get("DoseReferenceSequence", []):
+            if "TargetPrescriptionDose" in r:
+                r.TargetPrescriptionDose = float(r.TargetPrescriptionDose) * k
         plan.save_as(plan_p)
         return plan.SOPInstanceUID
 

@@ -305,7 +305,8 @@ class DeviceTables(unittest.TestCase):
                 (300, True): "medium", (600, False): "medium", (600, True): "medium",
                 (1100, False): "high", (1100, True): "high"}
         for (cgy, dep), name in want.items():
-            b = self.band(cgy, LEVELS, *(["--pacing-dependent"] if dep else []))
+            b = self.band(cgy, LEVELS,
+                          "--pacing-dependent" if dep else "--not-pacing-dependent")
             self.assertEqual(b["name"], name, "%g cGy, pacing-dependent %s" % (cgy, dep))
             self.assertTrue(b["table_file"].endswith("action-levels.yaml"))
 
@@ -316,12 +317,14 @@ class DeviceTables(unittest.TestCase):
         want = {(100, False): "low", (100, True): "medium", (300, False): "medium",
                 (300, True): "medium", (600, False): "high", (600, True): "high"}
         for (cgy, dep), name in want.items():
-            b = self.band(cgy, TG203, *(["--pacing-dependent"] if dep else []))
+            b = self.band(cgy, TG203,
+                          "--pacing-dependent" if dep else "--not-pacing-dependent")
             self.assertEqual(b["name"], name, "%g cGy, pacing-dependent %s" % (cgy, dep))
             self.assertEqual(b["mark"], "from memory")
             self.assertTrue(b["table_file"].endswith("action-levels-tg203.yaml"))
         # a photon beam of 18 MV may produce neutrons: high whatever the dose
-        b = self.band(100, TG203, "--other-dose", "Pacemaker=1", photon=18.0)
+        b = self.band(100, TG203, "--other-dose", "Pacemaker=1", "--not-pacing-dependent",
+                      photon=18.0)
         self.assertEqual(b["name"], "high")
         self.assertTrue(b["raised_for_neutrons"])
         b = self.band(100, TG203, "--other-dose", "Pacemaker=1", photon=6.0)
@@ -338,7 +341,7 @@ class DeviceTables(unittest.TestCase):
             plan, ss = box_case(d, [("Pacemaker", (x * 10, z * 10, 0.0))], beams,
                                 [{"number": 1, "fractions": 1, "beams": [(1, 100.0), (2, 100.0)]}])
             rc, js, err = estimate(plan, ss, "--reference-dose", "1", "--other-dose",
-                                   "Pacemaker=1")
+                                   "Pacemaker=1", "--not-pacing-dependent")
         o = organ(js, "Pacemaker")
         self.assertEqual(o["band"]["name"], "low")
         self.assertFalse(o["incomplete"])
