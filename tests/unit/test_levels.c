@@ -197,6 +197,15 @@ START_TEST(naming_conventions_table)
         {"Tireoide", "thyroid"}, {"Tireóide", "thyroid"}, {"Tiróide", "thyroid"},
         {"Mammella_sx", "breast"}, {"Mamma_li", "breast"}, {"Brust re", "breast"},
         {"L_Feto", "fetus"},
+        /* more device, marrow and lens names that passed as "no action
+         * level" (found by an independent review) */
+        {"Cardiac Device", "cardiac_device"}, {"CardiacDevice", "cardiac_device"},
+        {"PM", "cardiac_device"}, {"PM_L", "cardiac_device"}, {"L_PM", "cardiac_device"},
+        {"IPG", "cardiac_device"}, {"CRT-D", "cardiac_device"}, {"CRT_P", "cardiac_device"},
+        {"CRTD", "cardiac_device"}, {"Defib", "cardiac_device"}, {"Device L", "cardiac_device"},
+        {"Knochenmark", "bone_marrow"}, {"Moelle osseuse", "bone_marrow"},
+        {"Medula_osea", "bone_marrow"}, {"Midollo_osseo", "bone_marrow"},
+        {"Médula_óssea", "bone_marrow"}, {"Crystalline_L", "lens"},
         /* organs with no kind: must not be caught by a wide pattern */
         {"Spacer", NULL}, {"Rectal_Spacer", NULL}, {"SpaceOAR", NULL}, {"Larynx", NULL},
         {"Mandible", NULL}, {"Brainstem", NULL}, {"Art_Mammary_Int_L", NULL},
@@ -205,6 +214,8 @@ START_TEST(naming_conventions_table)
         {"Brustwand", NULL}, {"Brustwand_li", NULL}, {"Brustwirbel", NULL},
         {"Mamaria_Interna", NULL}, {"Mammaria_Interna", NULL}, {"Neurostimulateur", NULL},
         {"Chestwall", NULL}, {"Lentiform", NULL},
+        {"Medula_espinal", NULL}, {"Moelle_epiniere", NULL}, {"Midollo_spinale", NULL},
+        {"Medulla", NULL}, {"Pmma_Block", NULL}, {"Ipsi_Lung", NULL}, {"Crtx_Motor", NULL},
         {"Eye_L", NULL}, {"Eye_R", NULL}, {"Glnd_Lacrimal_L", NULL}, {"OpticNrv_L", NULL},
         {"Heart", NULL}, {"Lung_L", NULL}, {"Parotid_R", NULL}, {"SpinalCord", NULL},
         {"Bladder", NULL}, {"Rectum", NULL}, {"Uterus", NULL}, {"Prostate", NULL},
