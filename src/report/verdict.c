@@ -293,6 +293,37 @@ static void target_caution(const sl_location *loc, sl_notes *out)
     sl_buf_free(&b);
 }
 
+/* Estimated organs whose names match no kind of the action-level table
+ * (a clinic's own spelling of a device or a lens would pass as "no action
+ * level"), named when their upper bound reaches the table's lowest level. */
+static void nameless_caution(const sl_estimate_report *r, sl_notes *out)
+{
+    double lowest = INFINITY;
+    for (size_t k = 0; r->levels && k < r->levels->nkinds; k++)
+        for (size_t l = 0; l < r->levels->kinds[k].nlevels; l++)
+            lowest = fmin(lowest, r->levels->kinds[k].levels[l].dose_gy);
+    if (!isfinite(lowest))
+        return;
+    sl_buf b = {0};
+    size_t n = 0;
+    for (size_t i = 0; i < r->as->n; i++) {
+        const sl_assessment *a = &r->as->items[i];
+        const sl_organ_dose *d = a->dose;
+        if (a->kind || !d->estimated ||
+            !(d->course_max.upper_cgy + a->other_cgy >= 100 * lowest))
+            continue;
+        char nm[160];
+        sl_buf_printf(&b, "%s%s", n++ ? ", " : "", sl_text_escape(d->roi->name, nm, sizeof nm));
+    }
+    if (n && b.data && !b.failed)
+        sl_notes_add(out, "no action level for %s, whose upper bound reaches %.0f cGy, the "
+                          "lowest level of the table: no kind's name matches; if one is a "
+                          "lens, thyroid, breast, gonad, bone marrow, fetus or cardiac device, "
+                          "say so with --organ ROI=KIND",
+                     b.data, 100 * lowest);
+    sl_buf_free(&b);
+}
+
 void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
 {
     const sl_estimate *e = r->est;
@@ -350,6 +381,7 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
     }
     bolus_cautions(r->loc, out);
     target_caution(r->loc, out);
+    nameless_caution(r, out);
     if (est_pacing_assumed(r))
         sl_notes_add(out, "pacing dependence not stated: the cardiac device is judged as for a "
                           "pacing-dependent patient (the higher band); if the patient is not, "

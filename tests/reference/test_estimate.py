@@ -1037,6 +1037,27 @@ class ReviewFindings(unittest.TestCase):
                                     for c in js["result"]["case_cautions"]),
                                 js["result"]["case_cautions"])
 
+    def test_an_organ_no_kind_matches_is_named_beside_the_result(self):
+        """An organ whose name no kind of the action-level table matches (a
+        clinic's own spelling of a device, say) passes as "no action level";
+        when its upper bound reaches the table's lowest level (5 cGy, the
+        fetus's 50 mGy) the case's cautions name it and say how to give its
+        kind (found by an independent review)."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Gadget", (90.0, 10.0, 0.0)), ("Lens_L", (90.0, 20.0, 0.0)),
+                                    ("Far_thing", (900.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 5, "beams": [(1, 200.0)]}])
+            rc, js, err = estimate(plan, ss)
+        self.assertGreaterEqual(organ(js, "Gadget")["course_max_upper_cgy"], 5)
+        self.assertLess(organ(js, "Far_thing")["course_max_upper_cgy"], 5)
+        c = [x for x in js["result"]["case_cautions"] if x.startswith("no action level for")]
+        self.assertEqual(len(c), 1, js["result"]["case_cautions"])
+        self.assertIn("no action level for Gadget, whose upper bound reaches 5 cGy", c[0])
+        self.assertIn("--organ ROI=KIND", c[0])
+        self.assertNotIn("Lens_L", c[0])
+        self.assertNotIn("Far_thing", c[0])
+
     def test_a_plan_that_misses_the_body_is_refused_and_a_missed_target_said(self):
         """The invented chest-oblique case with its isocentre moved (pydicom):
         100 cm to the side, the central axis misses the body contour, and
