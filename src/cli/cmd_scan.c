@@ -329,7 +329,12 @@ int sl_cmd_scan(int argc, char **argv)
     if (facts_unmatched)
         printf("facts: %zu entr%s of %s named no plan of the folder (see the warnings)\n",
                facts_unmatched, facts_unmatched == 1 ? "y" : "ies", facts->source);
-    rc = attention || facts_unmatched ? SL_EXIT_FLAGGED : SL_EXIT_OK;
+    if (files->nunreadable)
+        printf("%zu folder%s or entr%s could not be listed or read: plans there were not "
+               "screened (see the summary)\n",
+               files->nunreadable, files->nunreadable == 1 ? "" : "s",
+               files->nunreadable == 1 ? "y" : "ies");
+    rc = attention || facts_unmatched || files->nunreadable ? SL_EXIT_FLAGGED : SL_EXIT_OK;
 done:
     for (size_t i = 0; i < n; i++)
         sl_batch_entry_clear(&entries[i]);

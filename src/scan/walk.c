@@ -63,6 +63,23 @@ static int cmp_str(const void *a, const void *b)
     return strcmp(*(char *const *)a, *(char *const *)b);
 }
 
+/* A path that could not be listed or read, with why: both vectors take
+ * their strings (path is freed on failure). */
+static bool push_bad(strvec *bad, strvec *badwhy, char *path, const char *why)
+{
+    char *w = strdup(why);
+    if (!w || !strvec_push(badwhy, w)) {
+        free(w);
+        free(path);
+        return false;
+    }
+    if (!strvec_push(bad, path)) {
+        free(path);
+        return false;
+    }
+    return true;
+}
+
 static void read_one(size_t i, void *ctx)
 {
     sl_scan_file *f = &((sl_scan_files *)ctx)->files[i];
@@ -96,7 +113,7 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
     if (!S_ISDIR(sb.st_mode))
         return sl_error_set(err, SL_EINPUT, "%s: not a folder", dir);
     sl_scan_files *f = calloc(1, sizeof *f);
-    strvec todo = {0}, found = {0};
+    strvec todo = {0}, found = {0}, bad = {0}, badwhy = {0}; /* bad: folders not listed */
     sl_status st = SL_OK;
     char *root = f ? strdup(dir) : NULL;
     if (!root || !strvec_push(&todo, root)) {
@@ -108,9 +125,17 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
         char *d = todo.v[--todo.n];
         DIR *dp = opendir(d);
         if (!dp) {
+            /* a row of its own in the summary, so that the plans it may
+             * hold are not missed in silence */
+            char why[300];
+            snprintf(why, sizeof why, "cannot list this folder: %s: the files in it were not "
+                                      "screened", strerror(errno));
             f->nunreadable++;
             sl_notes_add(&f->notes, "%s: cannot list: %s", d, strerror(errno));
-            free(d);
+            if (!push_bad(&bad, &badwhy, d, why)) {
+                st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                goto done;
+            }
             continue;
         }
         struct dirent *de;
@@ -124,9 +149,14 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
                 break;
             }
             if (lstat(p, &es) != 0) {
+                char why[300];
+                snprintf(why, sizeof why, "cannot read: %s", strerror(errno));
                 f->nunreadable++;
                 sl_notes_add(&f->notes, "%s: cannot read: %s", p, strerror(errno));
-                free(p);
+                if (!push_bad(&bad, &badwhy, p, why)) {
+                    st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                    break;
+                }
             } else if (S_ISDIR(es.st_mode)) {
                 if (have_skip && es.st_dev == skip_sb.st_dev && es.st_ino == skip_sb.st_ino) {
                     free(p); /* our own output: reports and the log are not inputs */
@@ -152,7 +182,7 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
     }
     if (found.n)
         qsort(found.v, found.n, sizeof *found.v, cmp_str);
-    f->files = calloc(found.n ? found.n : 1, sizeof *f->files);
+    f->files = calloc(found.n + bad.n ? found.n + bad.n : 1, sizeof *f->files);
     if (!f->files) {
         st = sl_error_set(err, SL_ENOMEM, "out of memory");
         goto done;
@@ -167,13 +197,29 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
             st = sl_error_set(err, SL_ENOMEM, "out of memory");
             goto done;
         }
+    /* what could not be listed or read, after the files: not readable */
+    for (size_t i = 0; i < bad.n; i++) {
+        f->files[f->n].path = bad.v[i];
+        f->files[f->n].why = badwhy.v[i];
+        f->files[f->n].ok = false;
+        f->n++;
+    }
+    for (size_t i = bad.n; i < badwhy.n; i++)
+        free(badwhy.v[i]);
+    bad.n = badwhy.n = 0;
 done:
     for (size_t i = 0; i < todo.n; i++)
         free(todo.v[i]);
     for (size_t i = 0; i < found.n; i++)
         free(found.v[i]);
+    for (size_t i = 0; i < bad.n; i++)
+        free(bad.v[i]);
+    for (size_t i = 0; i < badwhy.n; i++)
+        free(badwhy.v[i]);
     free(todo.v);
     free(found.v);
+    free(bad.v);
+    free(badwhy.v);
     if (st != SL_OK) {
         sl_scan_files_free(f);
         return st;

@@ -453,6 +453,40 @@ class NotJudgedIsNotClear(unittest.TestCase):
             self.assertEqual(by_uid[dev]["organs_not_judged"], "Pacemaker_near")
 
 
+class WhatCannotBeRead(unittest.TestCase):
+    def test_an_entry_that_cannot_be_read_is_a_row_and_exit_4(self):
+        """A folder entry that cannot be read (here a path longer than the
+        system's limit, ENAMETOOLONG, which even root meets; an unlistable
+        folder takes the same path) may hold plans: it is a row of the
+        summary, `bad` with the reason, and the batch exits 4 beside a clear
+        plan (before, only a warning on stderr, exit 0)."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            NotJudgedIsNotClear.variant(os.path.join(src, "a"), "CLEAR", False)
+            here = os.getcwd()
+            try:
+                os.chdir(src)
+                for i in range(17):  # 17 x 244 characters: beyond PATH_MAX (4096)
+                    name = "d%02d" % i + "x" * 240
+                    os.mkdir(name)
+                    os.chdir(name)
+            finally:
+                os.chdir(here)
+            out = os.path.join(d, "out")
+            rc, stdout, err = run("scan", src, "--model", MODEL, "--out", out, "--quiet",
+                                  check=None)
+            self.assertEqual(rc, 4, err)
+            self.assertIn("could not be listed or read", stdout)
+            with open(os.path.join(out, "summary.csv"), newline="") as f:
+                rows = list(csv.DictReader(f))
+            bad = [r for r in rows if r["outcome"] == "bad"]
+            self.assertEqual(len(bad), 1, rows)
+            self.assertIn("cannot read", bad[0]["message"])
+            self.assertEqual([r["outcome"] for r in rows if r["outcome"] != "bad"],
+                             ["screened"])
+            shutil.rmtree(src, ignore_errors=True)
+
+
 class Pdf(unittest.TestCase):
     def test_pdf_reports(self):
         """--pdf: each plan's PDF report beside the others, read by poppler's
