@@ -267,9 +267,10 @@ class NoSilentChange(unittest.TestCase):
         rest of an interrupted treatment) and TRMT_PORTFILM (a portal image
         with the treatment port) deliver treatment dose, so a second beam of
         either type adds its dose as a TREATMENT beam does; only SETUP
-        applies no beam, and an electron SETUP beam is said in the report
-        (found by an independent review: such beams were dropped, the fetal
-        dose halved, with no mark)."""
+        applies no beam, and an electron SETUP beam of no monitor units is
+        said in the report; one given monitor units is refused as a
+        contradiction (found by independent reviews: such beams were
+        dropped, the fetal dose halved, with no mark)."""
         import copy
         src = os.path.join(SOURCE_ROOT, "examples", "chest-fetus")
         ss = os.path.join(src, "rtstruct.dcm")
@@ -286,6 +287,16 @@ class NoSilentChange(unittest.TestCase):
                 fg.ReferencedBeamSequence.append(r)
                 fg.NumberOfBeams = len(fg.ReferencedBeamSequence)
                 path = os.path.join(d, dt + ".dcm")
+                if dt == "SETUP":
+                    p.save_as(path)
+                    rc, out, err = run("estimate", path, ss, "--model", MODEL,
+                                       "--gestational-age", "12")
+                    self.assertEqual(rc, 3, err)
+                    self.assertIn("beam 3 is an electron beam of Treatment Delivery Type "
+                                  "(300A,00CE) SETUP, yet fraction group 1 gives it", err)
+                    r.BeamMeterset = 0.0
+                    if "BeamDose" in r:
+                        del r.BeamDose
                 p.save_as(path)
                 js, _ = estimate_json(path, ss, "--gestational-age", "12")
                 doses[dt] = organ_doses(js)["Fetus"]
