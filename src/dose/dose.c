@@ -780,6 +780,25 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             for (size_t f = 0; f < e->opt.ntps && !isnan(sum); f++)
                 sum += sl_rtdose_at(e->opt.tps[f], q.x * 10, q.y * 10, q.z * 10);
             tv[i] = sum * 100; /* Gy over the course to cGy */
+            if (dmin[i] < 0 && !(tv[i] > 0)) {
+                /* in the field (under a shielding block too) a grid that
+                 * reads 0 was cut at a threshold or cropped: not a dose
+                 * (found by an independent review: a lens under a block
+                 * passed at 0) */
+                free(tv);
+                free(mf);
+                free(use);
+                free(dg);
+                free(ug);
+                free(uc);
+                free(ec);
+                free(dmin);
+                free(up);
+                free(order);
+                od->excluded_why = "in the field, where the planning system's dose grid reads 0 "
+                                   "(a grid cut at a threshold or cropped): not judged";
+                return SL_OK;
+            }
             if (dmin[i] < e->tps_zone_cm) {
                 if (!isnan(tv[i])) {
                     use[i] = 1;
@@ -912,13 +931,20 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             }
             continue;
         }
+        /* outside the field its upper bound (k = 2) is never below the
+         * model's there either: a value a little above the model's central
+         * one would otherwise trade the model's wide bound for its own
+         * 5 % and pass an organ the model flags (found by an independent
+         * review) */
+        double model_up = dmin[i] >= 0 ? od->course_cgy[i] + 2 * uc[i] : 0;
         od->tps_samples++;
         od->course_cgy[i] = tv[i];
-        uc[i] = SL_TPS_U_FRACTION * tv[i];
+        uc[i] = fmax(SL_TPS_U_FRACTION * tv[i], (model_up - tv[i]) / 2);
         ec[i] = tv[i]; /* an electron field's own dose near its edge: all electrons */
         for (size_t g = 0; g < ng; g++) {
+            double mg = dmin[i] >= 0 ? dg[g * n + i] + 2 * ug[g * n + i] : 0;
             dg[g * n + i] = tv[i] / e->fractions[g]; /* one fraction group (checked) */
-            ug[g * n + i] = SL_TPS_U_FRACTION * dg[g * n + i];
+            ug[g * n + i] = fmax(SL_TPS_U_FRACTION * dg[g * n + i], (mg - dg[g * n + i]) / 2);
         }
     }
     /* statistics of one dose array */

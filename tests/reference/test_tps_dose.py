@@ -149,6 +149,7 @@ class FromTheGrid(unittest.TestCase):
         with tempdir() as d:
             plan, ss, rtd = case(d)
             rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+            rc0, js0, err0 = estimate(plan, ss)
             rc_t, text, _ = run("estimate", plan, ss, "--model",
                                 os.path.join(os.path.dirname(SCHEMA), "demo-e1.yaml"),
                                 "--tps-dose", rtd)
@@ -166,8 +167,15 @@ class FromTheGrid(unittest.TestCase):
                 self.assertAlmostEqual(o["course_max_cgy"], want, delta=1e-3, msg=name)
                 self.assertAlmostEqual(o["per_fraction"][0]["max_cgy"], want / N_FX,
                                        delta=1e-3, msg=name)
-                # the stated 5 % (k = 1) of a planning-system dose
-                self.assertAlmostEqual(o["course_max_u_cgy"], 0.05 * want, delta=1e-3)
+                # the stated 5 % (k = 1) of a planning-system dose; outside the
+                # field its upper bound (k = 2) is never below the model's
+                u = 0.05 * want
+                if dist >= 0:
+                    m = organ(js0, name)
+                    u = max(u, (m["course_max_cgy"] + 2 * m["course_max_u_cgy"] - want) / 2)
+                    self.assertGreaterEqual(o["course_max_upper_cgy"],
+                                            m["course_max_upper_cgy"] - 1e-6)
+                self.assertAlmostEqual(o["course_max_u_cgy"], u, delta=1e-3, msg=name)
             else:
                 v, _ = model_percent(12, "A10", depth, dist)
                 want = ref * N_FX * v / 100
@@ -214,6 +222,19 @@ class FromTheGrid(unittest.TestCase):
         self.assertAlmostEqual(inside["course_max_cgy"], 100 * analytic_gy(20.0, 10.0, 0.0),
                                delta=1e-3)
         self.assertEqual(inside["zone_samples_model_higher"], 0)
+
+    def test_a_grid_that_reads_0_in_the_field_is_not_a_dose(self):
+        """A grid of 0 everywhere (cut at a threshold above the field's
+        dose): the organ in the field is not judged, not passed at 0 (found
+        by an independent review: a lens under a shielding block, in the
+        field, read 0 from such a grid)."""
+        with tempdir() as d:
+            plan, ss, rtd = case(d, zero_beyond_mm=-1.0)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        inside = organ(js, "in")
+        self.assertFalse(inside["estimated"])
+        self.assertIn("the planning system's dose grid reads 0", inside["not_estimated_reason"])
+        self.assertIsNone(inside.get("course_max_cgy"))
 
     def test_uneven_frames_are_read_as_they_are(self):
         """Grid Frame Offset Vector with uneven, ordered offsets (legal: DICOM
