@@ -1175,34 +1175,56 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
                      "the reference dose is set by option to %.1f cGy a fraction for every beam: "
                      "MU, output and inverse square are not used",
                      opt->reference_dose_cgy);
-    /* a plan's prescription, when one beam delivers it */
-    if (st == SL_OK && e->nbeams == 1 && e->ngroups == 1) {
-        for (size_t d = 0; d < plan->ndose_refs; d++) {
-            double rx = plan->dose_refs[d].target_prescription_gy * 100;
-            if (!isfinite(rx) || rx <= 0 || !isfinite(e->beams[0].ref_cgy[0]))
-                continue;
-            double iso = isnan(opt->prescription_isodose) ? 1.0 : opt->prescription_isodose;
-            sl_beam_dose *bd0 = &e->beams[0];
-            double course = bd0->ref_cgy[0] * iso * e->fractions[0];
-            if (rx / course > 1 + SL_BEAM_DOSE_TOLERANCE && !bd0->reference_overridden) {
-                /* as for the Beam Dose: the plan's prescription is the higher */
-                double ratio = rx / course;
-                sl_notes_add(&e->notes,
-                             "the plan prescribes %.0f cGy; the reference dose x isodose %.0f %% "
-                             "x %d fractions gives %.0f cGy (%+.0f %%): the reference dose is "
-                             "raised to %.1f cGy a fraction, what the prescription implies (the "
-                             "higher); check the MU, the output or --prescription-isodose",
-                             rx, 100 * iso, e->fractions[0], course, 100 * (course / rx - 1),
-                             bd0->ref_cgy[0] * ratio);
-                bd0->ref_cgy[0] *= ratio;
-                bd0->reference_raised_by *= ratio;
-                bd0->reference_raised_from = "prescription";
-            } else if (fabs(course / rx - 1) > SL_BEAM_DOSE_TOLERANCE) {
-                sl_notes_add(&e->notes,
-                             "the plan prescribes %.0f cGy; the reference dose x isodose %.0f %% x "
-                             "%d fractions gives %.0f cGy (%+.0f %%)",
-                             rx, 100 * iso, e->fractions[0], course, 100 * (course / rx - 1));
+    /* A plan's prescription against its beams: the reference doses x
+     * isodose x fractions of all its beams add up to at least what any
+     * target receives (where beams treat one target their doses add; where
+     * each treats its own, each gives it all). A prescription above that
+     * sum, in a plan of electron beams only, means MU that contradict the
+     * plan: every beam is raised by the ratio, the least that meets it (the
+     * higher; found by independent reviews: 10 MU against 10 Gy passed a
+     * lens in a plan of two beams). */
+    bool others = false;
+    for (size_t i = 0; i < plan->nbeams; i++)
+        others |= sl_beam_delivers_dose(&plan->beams[i]) &&
+                  !(plan->beams[i].radiation_type &&
+                    strcmp(plan->beams[i].radiation_type, "ELECTRON") == 0);
+    for (size_t d = 0; st == SL_OK && d < plan->ndose_refs && e->nbeams > 0; d++) {
+        double rx = plan->dose_refs[d].target_prescription_gy * 100;
+        double iso = isnan(opt->prescription_isodose) ? 1.0 : opt->prescription_isodose;
+        double sum = 0;
+        bool overridden = false;
+        for (size_t b = 0; b < e->nbeams; b++) {
+            overridden |= e->beams[b].reference_overridden;
+            for (size_t g = 0; g < e->ngroups; g++)
+                if (isfinite(e->beams[b].ref_cgy[g]))
+                    sum += e->beams[b].ref_cgy[g] * iso * e->fractions[g];
+        }
+        if (!isfinite(rx) || rx <= 0 || !(sum > 0))
+            continue;
+        const char *what = e->nbeams == 1 && e->ngroups == 1
+                               ? "the reference dose x isodose %.0f %% x fractions"
+                               : "the beams' reference doses x isodose %.0f %% x fractions, "
+                                 "added up,";
+        char lead[200];
+        snprintf(lead, sizeof lead, what, 100 * iso);
+        if (rx / sum > 1 + SL_BEAM_DOSE_TOLERANCE && !overridden && !others) {
+            double ratio = rx / sum;
+            sl_notes_add(&e->notes,
+                         "the plan prescribes %.0f cGy; %s give %.0f cGy (%+.0f %%): every "
+                         "beam's reference dose is raised by %.0f %%, the least that meets the "
+                         "prescription (the higher); check the MU, the output or "
+                         "--prescription-isodose",
+                         rx, lead, sum, 100 * (sum / rx - 1), 100 * (ratio - 1));
+            for (size_t b = 0; b < e->nbeams; b++) {
+                sl_beam_dose *bd = &e->beams[b];
+                for (size_t g = 0; g < e->ngroups; g++)
+                    bd->ref_cgy[g] *= ratio;
+                bd->reference_raised_by *= ratio;
+                bd->reference_raised_from = "prescription";
             }
+        } else if (e->nbeams == 1 && e->ngroups == 1 && fabs(sum / rx - 1) > SL_BEAM_DOSE_TOLERANCE) {
+            sl_notes_add(&e->notes, "the plan prescribes %.0f cGy; %s give %.0f cGy (%+.0f %%)",
+                         rx, lead, sum, 100 * (sum / rx - 1));
         }
     }
     if (st == SL_OK && opt->ntps > 0)

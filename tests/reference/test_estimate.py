@@ -1037,6 +1037,43 @@ class ReviewFindings(unittest.TestCase):
                                     for c in js["result"]["case_cautions"]),
                                 js["result"]["case_cautions"])
 
+    def test_a_prescription_above_all_beams_together_raises_every_beam(self):
+        """The face-lens plan with its electron beam copied as a second one
+        (pydicom), both at a tenth of the MU and without Beam Dose: the two
+        together give far less than the prescription (4500 cGy in 15
+        fractions at the 90 % isodose), so every beam is raised by the
+        least ratio that meets it: each reads 4500 / (2 x 0.9 x 15) cGy a
+        fraction (arithmetic; found by an independent review: the check
+        held only for a plan of one beam)."""
+        import copy
+        import pydicom
+        with tempdir() as d:
+            p = pydicom.dcmread(os.path.join(self.FACE, "rtplan.dcm"))
+            b = copy.deepcopy(p.BeamSequence[0])
+            b.BeamNumber, b.BeamName = 3, "E09 copy"
+            p.BeamSequence.append(b)
+            fg = p.FractionGroupSequence[0]
+            r = copy.deepcopy(fg.ReferencedBeamSequence[0])
+            r.ReferencedBeamNumber = 3
+            fg.ReferencedBeamSequence.append(r)
+            fg.NumberOfBeams = len(fg.ReferencedBeamSequence)
+            for ref in fg.ReferencedBeamSequence:
+                if int(ref.ReferencedBeamNumber) in (1, 3):
+                    ref.BeamMeterset = float(ref.BeamMeterset) / 10
+                    if "BeamDose" in ref:
+                        del ref.BeamDose
+            plan = os.path.join(d, "rtplan.dcm")
+            p.save_as(plan)
+            rc, js, err = estimate(plan, os.path.join(self.FACE, "rtstruct.dcm"),
+                                   "--prescription-isodose", "90")
+        self.assertIn(rc, (0, 4), err)
+        want = 4500.0 / (2 * 0.9 * 15)
+        self.assertEqual(len(js["beams"]), 2)
+        for bm in js["beams"]:
+            self.assertEqual(bm["reference_dose_raised_from"], "prescription")
+            self.assertAlmostEqual(bm["reference_dose_per_fraction_cgy"][0], want, delta=1e-6)
+        self.assertTrue(any("added up, give" in w for w in js["warnings"]), js["warnings"])
+
     def test_an_organ_no_kind_matches_is_named_beside_the_result(self):
         """An organ whose name no kind of the action-level table matches (a
         clinic's own spelling of a device, say) passes as "no action level";
