@@ -222,7 +222,8 @@ static int cmp_dpair(const void *a, const void *b)
  * distances from their edges (the edges fall between a scan's positions), so
  * the 0.5 mm merge below rarely meets a pair: a point is also compared with
  * the other side read between its two neighbours there (log-linear, as the
- * dose falls off exponentially; neighbours at most 1 cm apart), and where
+ * dose falls off exponentially; neighbours at most 1 cm, or half the
+ * distance, apart), and where
  * that side is hotter by more than SL_SIDES_APART_SIGMAS standard
  * deviations of a difference the colder point is left out. Without it a
  * side 1.5 times hotter beyond 5 cm was fitted through both, 17 % low on
@@ -240,7 +241,11 @@ static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_p
         for (size_t k = i + 1; k < np && !hi; k++)
             if (pts[k].side == -pts[i].side)
                 hi = &pts[k];
-        if (!lo || !hi || hi->d - lo->d > SIDES_MAX_GAP_CM)
+        /* neighbours at most 1 cm apart near the field, half the distance
+         * farther out, where the fall-off is slow and scans
+         * coarse (found by an independent review: 2 cm steps beyond 10 cm
+         * were fitted through both sides) */
+        if (!lo || !hi || hi->d - lo->d > fmax(SIDES_MAX_GAP_CM, 0.5 * pts[i].d))
             continue;
         double t = hi->d > lo->d ? (pts[i].d - lo->d) / (hi->d - lo->d) : 0;
         double u = exp(log(lo->v) + t * (log(hi->v) - log(lo->v)));
