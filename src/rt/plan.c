@@ -208,15 +208,17 @@ sl_status sl_plan_validate(sl_plan *plan, sl_error *err)
             for (size_t g = 0; g < plan->ngroups; g++)
                 for (size_t k = 0; k < plan->groups[g].nrefs; k++) {
                     const sl_beam_ref *r = &plan->groups[g].refs[k];
-                    if (r->beam_number == b->number && r->meterset_mu >= SL_MIN_TREATMENT_MU)
+                    if (r->beam_number == b->number &&
+                        (r->meterset_mu >= SL_MIN_TREATMENT_MU || r->beam_dose_gy > 0))
                         return sl_error_set(err, SL_EINPUT,
                                             "%s: beam %d is an electron beam of Treatment "
                                             "Delivery Type (300A,00CE) SETUP, yet fraction "
                                             "group %d gives it BeamMeterset (300A,0086) %.1f "
-                                            "MU: a setup beam delivers no dose; correct its "
-                                            "type or its meterset",
+                                            "MU, Beam Dose (300A,0084) %.3g Gy: a setup beam "
+                                            "delivers no dose; correct its type or its meterset",
                                             f, b->number, plan->groups[g].number,
-                                            r->meterset_mu);
+                                            r->meterset_mu,
+                                            r->beam_dose_gy > 0 ? r->beam_dose_gy : 0.0);
                 }
             continue;
         }

@@ -97,7 +97,7 @@ static void record_no_bolus(sl_screen *s)
     const sl_location *loc = s->loc;
     if (!loc->depth_from_body)
         return;
-    char list[200] = "";
+    char list[260] = ""; /* room in the banner's line after its words */
     size_t len = 0;
     bool any = false;
     for (size_t b = 0; b < loc->nbeams; b++) {
@@ -113,6 +113,8 @@ static void record_no_bolus(sl_screen *s)
     }
     if (!any)
         return;
+    if (len >= sizeof list - 1) /* cut: say so, not a name cut short */
+        memcpy(list + sizeof list - 5, " ...", 5);
     snprintf(add_whatif(s, SL_WHATIF_NO_BOLUS, NULL)->text, sizeof s->whatifs[0].text,
              "bolus left out of the depths and of the SSD found where the central "
              "axis enters the body: %s; the plan as delivered has it",
