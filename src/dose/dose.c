@@ -747,6 +747,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
      * the sample takes it; the ratio accumulators: row 0 every beam, row
      * 1 + b beam b, SL_TPS_BINS bins of (n, sum, min, max) */
     const size_t nrow = 1 + e->nbeams;
+    sl_status st = SL_OK;
     double *tv = e->tps_used ? malloc(n * sizeof *tv) : NULL;
     unsigned *mf = e->tps_used ? calloc(n, sizeof *mf) : NULL; /* model marks where TPS */
     unsigned char *use = calloc(n, 1);
@@ -755,17 +756,8 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
         !dg || !ug || !uc || !ec || !dmin || !up || !order || !use ||
         (e->tps_used && (!tv || !mf || !od->tps_acc))) {
-        free(tv);
-        free(mf);
-        free(use);
-        free(dg);
-        free(ug);
-        free(uc);
-        free(ec);
-        free(dmin);
-        free(up);
-        free(order);
-        return SL_ENOMEM;
+        st = SL_ENOMEM;
+        goto done;
     }
     for (size_t i = 0; i < n; i++)
         dmin[i] = INFINITY;
@@ -785,19 +777,9 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                  * reads 0 was cut at a threshold or cropped: not a dose
                  * (found by an independent review: a lens under a block
                  * passed at 0) */
-                free(tv);
-                free(mf);
-                free(use);
-                free(dg);
-                free(ug);
-                free(uc);
-                free(ec);
-                free(dmin);
-                free(up);
-                free(order);
                 od->excluded_why = "in the field, where the planning system's dose grid reads 0 "
                                    "(a grid cut at a threshold or cropped): not judged";
-                return SL_OK;
+                goto done;
             }
             if (dmin[i] < e->tps_zone_cm) {
                 if (!isnan(tv[i])) {
@@ -805,19 +787,9 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                 } else {
                     od->tps_outside_grid++;
                     if (dmin[i] < SL_IN_FIELD_MARGIN_CM) {
-                        free(tv);
-                        free(mf);
-                        free(use);
-                        free(dg);
-                        free(ug);
-                        free(uc);
-                        free(ec);
-                        free(dmin);
-                        free(up);
-                        free(order);
                         od->excluded_why = "in or touching the field and partly outside the "
                                            "planning system's dose grid";
-                        return SL_OK;
+                        goto done;
                     }
                 }
             }
@@ -1004,10 +976,6 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         if (pass < 0 && !use[imax])
             od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
     }
-    free(dg);
-    free(ug);
-    free(uc);
-    free(ec);
     if (e->tps_used) {
         double vt = 0;
         for (size_t i = 0; i < n; i++)
@@ -1015,14 +983,19 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         od->tps_volume_fraction = vtot > 0 ? vt / vtot : 0;
         od->nearest_from_tps = use[nearest];
     }
+    od->estimated = true;
+done: /* the scratch arrays, on every path (an organ left out keeps excluded_why) */
+    free(dg);
+    free(ug);
+    free(uc);
+    free(ec);
     free(dmin);
     free(up);
     free(order);
     free(tv);
     free(mf);
     free(use);
-    od->estimated = true;
-    return SL_OK;
+    return st;
 }
 
 static void organ_task(size_t o, void *ctx)
