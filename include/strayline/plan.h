@@ -178,6 +178,9 @@ bool sl_beam_delivers_dose(const sl_beam *beam);
 /* Why a beam is not estimated, or NULL when it is an electron beam that
  * delivers dose (sl_beam_delivers_dose), which strayline estimates. */
 const char *sl_beam_skip_reason(const sl_beam *beam);
+/* A beam that delivers dose and that this tool does not estimate (photons,
+ * protons, ...): its dose is not in the estimate. */
+bool sl_beam_is_other_treatment(const sl_beam *beam);
 
 const sl_beam *sl_plan_find_beam(const sl_plan *plan, int number);
 const sl_setup *sl_plan_find_setup(const sl_plan *plan, int number);

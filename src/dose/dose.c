@@ -24,7 +24,6 @@ void sl_estimate_default_options(sl_estimate_options *o)
     o->tps_zone_cm = SL_TPS_ZONE_CM;
 }
 
-
 bool sl_dose_type_target(const char *type)
 {
     static const char *const targets[] = {"PTV", "CTV", "GTV", "TREATED_VOLUME", "IRRAD_VOLUME"};
@@ -1158,9 +1157,7 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
      * lens in a plan of two beams). */
     bool others = false;
     for (size_t i = 0; i < plan->nbeams; i++)
-        others |= sl_beam_delivers_dose(&plan->beams[i]) &&
-                  !(plan->beams[i].radiation_type &&
-                    strcmp(plan->beams[i].radiation_type, "ELECTRON") == 0);
+        others |= sl_beam_is_other_treatment(&plan->beams[i]);
     for (size_t d = 0; st == SL_OK && d < plan->ndose_refs && e->nbeams > 0; d++) {
         double rx = plan->dose_refs[d].target_prescription_gy * 100;
         double iso = isnan(opt->prescription_isodose) ? 1.0 : opt->prescription_isodose;

@@ -41,10 +41,6 @@ static int band_of(const sl_kind *k, double gy)
     return (int)k->nbands - 1;
 }
 
-/* An organ with action levels that this screening cannot judge (in the
- * field, beyond the model's range, not placed) is counted so that no
- * headline reads as all clear. A fetus or a cardiac device left unjudged
- * needs attention in itself (common practice: their doses are documented). */
 /* A name that begins with a target's type (PTV, CTV, GTV, ITV, any case,
  * any suffix: PTVp, CTV_60, ptv-boost), as AAPM Report 263 (TG-263) names
  * target volumes. */
@@ -57,6 +53,10 @@ static bool target_prefix(const char *name)
     return false;
 }
 
+/* An organ with action levels that this screening cannot judge (in the
+ * field, beyond the model's range, not placed) is counted so that no
+ * headline reads as all clear. A fetus or a cardiac device left unjudged
+ * needs attention in itself (common practice: their doses are documented). */
 static void unjudged(sl_assessments *as, sl_assessment *a)
 {
     if (!a->kind || (a->kind->nlevels == 0 && a->kind->nbands == 0))
@@ -207,9 +207,7 @@ static sl_status other_beams(sl_assessments *as, const sl_plan *plan)
         return SL_OK;
     for (size_t b = 0; b < plan->nbeams; b++) {
         const sl_beam *be = &plan->beams[b];
-        bool treatment = sl_beam_delivers_dose(be);
-        bool electron = be->radiation_type && strcmp(be->radiation_type, "ELECTRON") == 0;
-        if (!treatment || electron)
+        if (!sl_beam_is_other_treatment(be))
             continue;
         sl_other_beam *nb = realloc(as->other, (as->nother + 1) * sizeof *nb);
         if (!nb)
@@ -404,10 +402,9 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
              * is not estimated is not judged, whatever its type: a lens or
              * a pacemaker typed SUPPORT or PTV passed in silence before
              * (found by independent reviews); a target named as an organ
-             * says why it was left out */
-            /* a target volume named as one by its prefix (PTV_Thyroid_bed)
-             * is the target, not the organ its name also holds: AAPM
-             * TG-263 names targets by their type first */
+             * says why it was left out. But a target volume named as one
+             * by its prefix (PTV_Thyroid_bed) is the target, not the organ
+             * its name also holds: AAPM TG-263 names targets type first */
             bool named_target = sl_dose_type_target(d->roi->type) && !a->kind_by_option &&
                                 target_prefix(d->roi->name);
             if (named_target)

@@ -1260,8 +1260,11 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
 void est_ssd_text(const sl_beam_dose *bd, char *buf, size_t size)
 {
     if (isfinite(bd->ssd_used_cm) && bd->isf_ssd_cm != bd->ssd_used_cm)
-        snprintf(buf, size, "SSD %.1f cm (inverse square %.3f to the body's %.1f cm)",
-                 bd->ssd_used_cm, bd->isf, bd->isf_ssd_cm);
+        /* the two SSDs disagree: profiles at one, the inverse square at the
+         * other (the body's when nearer, the plan's when the body is farther) */
+        snprintf(buf, size, "SSD %.1f cm for the profiles (inverse square %.3f to the %s %.1f cm)",
+                 bd->ssd_used_cm, bd->isf, bd->body_farther ? "plan's" : "body's",
+                 bd->isf_ssd_cm);
     else if (isfinite(bd->ssd_used_cm))
         snprintf(buf, size, "SSD %.1f cm (inverse square %.3f)", bd->ssd_used_cm, bd->isf);
     else

@@ -112,6 +112,11 @@ const char *sl_beam_skip_reason(const sl_beam *beam)
     return NULL;
 }
 
+bool sl_beam_is_other_treatment(const sl_beam *beam)
+{
+    return sl_beam_delivers_dose(beam) && !is(beam->radiation_type, "ELECTRON");
+}
+
 const sl_beam *sl_plan_find_beam(const sl_plan *plan, int number)
 {
     for (size_t i = 0; i < plan->nbeams; i++) {
