@@ -68,6 +68,11 @@ extern "C" {
 #define SL_NEARMAX_CC 0.03
 #define SL_NEARMAX_FRACTION 0.02
 #define SL_BEAM_DOSE_TOLERANCE 0.10   /* warn when the plan's Beam Dose differs more */
+/* the reference dose is raised to what the plan's Beam Dose or prescription
+ * implies once that is higher by more than this: past the rounding of a
+ * decimal string, not a tolerance (a plan that states a dose 2 % above the
+ * MU's reads 2 % higher) */
+#define SL_BEAM_DOSE_RAISE_ABOVE 0.001
 /* SSDs accepted around the model's nominal SSD, cm (common practice: the
  * applicator ends about 5 cm above the nominal surface; extended SSDs for
  * electrons rarely pass 120 cm) */
@@ -154,8 +159,9 @@ typedef struct sl_beam_dose {
     double cutout_eqsq_cm;        /* its equivalent square, 4 area / perimeter */
     bool reference_overridden;
     /* the reference dose raised to what the plan's own Beam Dose (or, for a
-     * plan of one beam, its prescription) implies, when that is higher than
-     * MU x output by more than SL_BEAM_DOSE_TOLERANCE: the ratio taken */
+     * plan's electron beams together, its prescription) implies, when that
+     * is higher than MU x output by more than SL_BEAM_DOSE_RAISE_ABOVE: the
+     * ratio taken */
     double reference_raised_by;   /* 1 when not raised */
     const char *reference_raised_from; /* "Beam Dose" or "prescription"; NULL */
     double *mu;                   /* per fraction group (NAN: beam not in that group) */

@@ -464,13 +464,13 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
             continue;
         double expect = bd->ref_cgy[g] * iso;
         double ratio = bd->plan_beam_dose_cgy[g] / expect;
-        if (ratio > 1 + SL_BEAM_DOSE_TOLERANCE && !bd->reference_overridden) {
+        if (ratio > 1 + SL_BEAM_DOSE_RAISE_ABOVE && !bd->reference_overridden) {
             /* the plan's own statement of its dose is the higher: taken, so
              * that MU that contradict it (a plan exported before its MU
              * were final) never lower an organ (found by an independent
              * review: 10 MU against a Beam Dose of 4 Gy passed at 9 cGy) */
             sl_notes_add(&e->notes,
-                         "beam %d: the plan's Beam Dose is %.1f cGy a fraction, %+.0f %% above "
+                         "beam %d: the plan's Beam Dose is %.1f cGy a fraction, %.1f %% above "
                          "the model's reference dose %.1f cGy x prescription isodose %.0f %% "
                          "(%.1f cGy): the reference dose is raised to %.1f cGy, what the Beam "
                          "Dose implies (the higher); check the MU, the output or "
@@ -1177,11 +1177,11 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
                                  "added up,";
         char lead[200];
         snprintf(lead, sizeof lead, what, 100 * iso);
-        if (rx / sum > 1 + SL_BEAM_DOSE_TOLERANCE && !overridden && !others) {
+        if (rx / sum > 1 + SL_BEAM_DOSE_RAISE_ABOVE && !overridden && !others) {
             double ratio = rx / sum;
             sl_notes_add(&e->notes,
-                         "the plan prescribes %.0f cGy; %s give %.0f cGy (%+.0f %%): every "
-                         "beam's reference dose is raised by %.0f %%, the least that meets the "
+                         "the plan prescribes %.0f cGy; %s give %.0f cGy (%+.1f %%): every "
+                         "beam's reference dose is raised by %.1f %%, the least that meets the "
                          "prescription (the higher); check the MU, the output or "
                          "--prescription-isodose",
                          rx, lead, sum, 100 * (sum / rx - 1), 100 * (ratio - 1));

@@ -344,7 +344,7 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
                          bd->place->field.model_opening_cm[0],
                          bd->place->field.model_opening_cm[1]);
         if (bd->reference_raised_from)
-            sl_notes_add(out, "beam %d: its MU give %.0f %% less than the plan's %s implies: "
+            sl_notes_add(out, "beam %d: its MU give %.1f %% less than the plan's %s implies: "
                               "the reference dose is raised to the plan's (the higher); check "
                               "the MU, the output or --prescription-isodose",
                          bd->place->beam->number, 100 * (1 - 1 / bd->reference_raised_by),

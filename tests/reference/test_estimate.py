@@ -1037,6 +1037,43 @@ class ReviewFindings(unittest.TestCase):
                                     for c in js["result"]["case_cautions"]),
                                 js["result"]["case_cautions"])
 
+    def test_a_beam_dose_a_little_above_the_mu_raises_them_too(self):
+        """The face-lens plan with its Beam Dose set 2 % above what its MU
+        give at the 90 % isodose (pydicom): not a contradiction worth a
+        warning, but still a statement that the beam gives more than the
+        MU say, so the reference dose takes it, 2 % higher, and says so
+        (arithmetic; the higher of two readings, common practice for a
+        screening estimate). 0.05 % above, within the rounding of a decimal
+        string, changes nothing."""
+        import pydicom
+        ss = os.path.join(self.FACE, "rtstruct.dcm")
+        rc, js0, err = estimate(os.path.join(self.FACE, "rtplan.dcm"), ss,
+                                "--prescription-isodose", "90")
+        ref0 = js0["beams"][0]["reference_dose_per_fraction_cgy"][0]
+        with tempdir() as d:
+            plan = os.path.join(d, "rtplan.dcm")
+            for above, raised in ((1.02, True), (1.0005, False)):
+                p = pydicom.dcmread(os.path.join(self.FACE, "rtplan.dcm"))
+                rb_ = p.FractionGroupSequence[0].ReferencedBeamSequence[0]
+                rb_.BeamDose = "%.6f" % (ref0 * 0.9 * above / 100)
+                p.save_as(plan)
+                rc, js, err = estimate(plan, ss, "--prescription-isodose", "90")
+                b = js["beams"][0]
+                if raised:
+                    self.assertEqual(b["reference_dose_raised_from"], "Beam Dose")
+                    self.assertAlmostEqual(b["reference_dose_per_fraction_cgy"][0], ref0 * above,
+                                           delta=1e-4)
+                    lm = organ(js, "Lens_L")
+                    self.assertAlmostEqual(lm["course_max_cgy"],
+                                           organ(js0, "Lens_L")["course_max_cgy"] * above,
+                                           delta=1e-3 * lm["course_max_cgy"])
+                    self.assertTrue(any("2.0 % less than the plan's Beam Dose" in c
+                                        for c in js["result"]["case_cautions"]),
+                                    js["result"]["case_cautions"])
+                else:
+                    self.assertEqual(b["reference_dose_raised_by"], 1)
+                    self.assertEqual(b["reference_dose_per_fraction_cgy"][0], ref0)
+
     def test_a_prescription_above_all_beams_together_raises_every_beam(self):
         """The face-lens plan with its electron beam copied as a second one
         (pydicom), both at a tenth of the MU and without Beam Dose: the two
