@@ -245,8 +245,33 @@ static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_p
          * farther out, where the fall-off is slow and scans
          * coarse (found by an independent review: 2 cm steps beyond 10 cm
          * were fitted through both sides) */
-        if (!lo || !hi || hi->d - lo->d > fmax(SIDES_MAX_GAP_CM, 0.5 * pts[i].d))
+        double gap = fmax(SIDES_MAX_GAP_CM, 0.5 * pts[i].d);
+        if (!lo != !hi) {
+            /* beyond the other side's last point (or before its first):
+             * its last two carried on log-linearly, within the same reach.
+             * The fall-off flattens with distance, so the line reads that
+             * side lower than it is, and a point is never left out for a
+             * bend of the curve (found by an independent review: a cold
+             * side's last point, past the hot side's scan, pulled the fit
+             * 11 % low at 21 cm) */
+            const dpair *near = lo ? lo : hi, *next = NULL;
+            if (lo) {
+                for (size_t k = (size_t)(lo - pts); k-- > 0 && !next;)
+                    if (pts[k].side == lo->side && pts[k].d < lo->d)
+                        next = &pts[k];
+            } else {
+                for (size_t k = (size_t)(hi - pts) + 1; k < np && !next; k++)
+                    if (pts[k].side == hi->side && pts[k].d > hi->d)
+                        next = &pts[k];
+            }
+            if (!next || fabs(pts[i].d - near->d) > gap || fabs(near->d - next->d) > gap)
+                continue;
+            /* the line through the two, in order of distance */
+            hi = lo ? lo : next;
+            lo = lo ? next : near;
+        } else if (!lo || hi->d - lo->d > gap) {
             continue;
+        }
         double t = hi->d > lo->d ? (pts[i].d - lo->d) / (hi->d - lo->d) : 0;
         double u = exp(log(lo->v) + t * (log(hi->v) - log(lo->v)));
         double m = 0.5 * (u + pts[i].v), r = rel * m;

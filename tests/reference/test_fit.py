@@ -401,8 +401,9 @@ class OneSideHotter(unittest.TestCase):
     mark (found by an independent review). The two sides are read at the same
     distances from their edges only out to 5.2 cm; farther out their points
     interleave, and each point is compared with the other side read between
-    its neighbours there (before, the fit went through both sides out there,
-    low on the hot one). The reference is the data as made: the points kept
+    its neighbours there, or beyond that side's scan its last two points
+    carried on (before, the fit went through both sides out there, low on
+    the hot one). The reference is the data as made: the points kept
     are 1.5 times the original side's, and so is the fit beyond 2 cm."""
 
     def fit_set(self, d, hot):
@@ -453,7 +454,9 @@ class OneSideHotter(unittest.TestCase):
         self.assertIn("e09_a10_open_d1.00_inplane_through.csv", err)
         self.assertIn("the hotter side is kept", err)
         # the hot side's scan reaches 21.2 cm from its edge (26.25 cm off
-        # axis); the cold side's last point, farther, has nothing to meet
+        # axis); the cold side's last point, 21.95 cm, is compared with the
+        # hot side's last two carried on, and left out
+        self.assertLess(max(hot["distance_cm"]), 21.5)
         n = far = 0
         for dist, h in zip(hot["distance_cm"], hot["dose_percent"]):
             if 2.1 <= dist <= 21.0:
@@ -464,11 +467,13 @@ class OneSideHotter(unittest.TestCase):
                 far += dist > 5.2
         self.assertGreaterEqual(n, 20)
         self.assertGreaterEqual(far, 10)
-        # the fit follows the hot side out to the farthest point
-        for x in (3.0, 5.0, 8.0, 11.0, 14.0):
+        # the fit follows the hot side out to the farthest point: within 5 %
+        # of 1.5 times the base fit (before the cold side's last point was
+        # compared, 11 % low at 21 cm)
+        for x in (3.0, 5.0, 8.0, 11.0, 14.0, 16.0, 18.0, 20.0, 21.0):
             ratio = self.fit_value(hot_fit, x) / self.fit_value(base_fit, x)
-            self.assertGreater(ratio, 1.35, x)
-            self.assertLess(ratio, 1.65, x)
+            self.assertGreater(ratio, 1.425, x)
+            self.assertLess(ratio, 1.575, x)
         self.assertFalse(base_fit["poor"])
 
 
