@@ -281,6 +281,27 @@ static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_p
             n++;
         }
     }
+    /* A side found colder is not the only word where the hotter was not
+     * read: its points beyond the other side's scan are left out too, so
+     * that the profile ends where the hotter side ends and farther out the
+     * model holds its farthest level [extrapolated]. Kept, they bent the
+     * fit toward the colder side: 27 % low at 10 cm on a side 1.5 times
+     * hotter scanned to 7 cm (its fall-off carried on reads low, so a
+     * comparison there passes them). */
+    for (int side = -1; side <= 1; side += 2) {
+        bool colder = false;
+        double other_last = -INFINITY;
+        for (size_t i = 0; i < np; i++) {
+            colder = colder || (pts[i].side == side && pts[i].drop);
+            if (pts[i].side == -side)
+                other_last = fmax(other_last, pts[i].d);
+        }
+        for (size_t i = 0; colder && i < np; i++)
+            if (pts[i].side == side && !pts[i].drop && pts[i].d > other_last) {
+                pts[i].drop = true;
+                n++;
+            }
+    }
     return n;
 }
 

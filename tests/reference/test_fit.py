@@ -13,6 +13,7 @@
   with the two limits recomputed by scipy.stats (chi-square and normal).
 """
 import html.parser
+import json
 import csv
 import math
 import os
@@ -406,7 +407,7 @@ class OneSideHotter(unittest.TestCase):
     the hot one). The reference is the data as made: the points kept
     are 1.5 times the original side's, and so is the fit beyond 2 cm."""
 
-    def fit_set(self, d, hot):
+    def fit_set(self, d, hot, keep=lambda x: True, model=False):
         dst = os.path.join(d, "set%d" % hot)
         shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"), dst)
         path = os.path.join(dst, "profiles", "e09_a10_open_d1.00_inplane_through.csv")
@@ -417,10 +418,13 @@ class OneSideHotter(unittest.TestCase):
             w.writerow(rows[0])
             for r in rows[1:]:
                 x, v = float(r[0]), float(r[1])
-                w.writerow([r[0], repr(v * 1.5) if hot and x > 7 else r[1]])
+                if keep(x):
+                    w.writerow([r[0], repr(v * 1.5) if hot and x > 7 else r[1]])
         out = os.path.join(d, "m%d.yaml" % hot)
         rc, _, err = run("fit", os.path.join(dst, "measurements.yaml"), "-q", "-o", out)
         self.assertEqual(rc, 0, err)
+        if model:
+            return out
         for p in load(out)["profiles"]:
             if (p["energy_mev"], p["applicator"], p["depth_cm"], p["direction"]) == \
                     (9, "A10", 1.0, "inplane"):
@@ -475,6 +479,29 @@ class OneSideHotter(unittest.TestCase):
             self.assertGreater(ratio, 1.425, x)
             self.assertLess(ratio, 1.575, x)
         self.assertFalse(base_fit["poor"])
+
+
+    def test_a_colder_side_scanned_farther_does_not_speak_for_the_hotter(self):
+        """The same hot side, its scan cut at 12 cm off axis (about 7 cm from
+        its edge), the cold side read on to 21 cm: beyond the hot side's
+        scan nothing says what it reads, and the cold side's points there
+        would bend the fit toward the cold side (25 % low at 10 cm before).
+        They are left out, so the profile ends where the hot side ends and
+        the model holds its farthest level beyond [extrapolated]: at least
+        1.5 times the base model there (the data as made)."""
+        with tempdir() as d:
+            base = self.fit_set(d, False, model=True)
+            hot = self.fit_set(d, True, keep=lambda x: x < 12, model=True)
+
+            def ev(m, x):
+                rc, out, err = run("model", "eval", m, "-e", "9", "-a", "A10", "-d", "1",
+                                   "-x", str(x), "--angle", "90", "-f", "json")
+                self.assertEqual(rc, 0, err)
+                return json.loads(out)
+            for x in (8.0, 10.0, 14.0, 20.0):
+                b, h = ev(base, x), ev(hot, x)
+                self.assertGreaterEqual(h["dose_percent"], 1.5 * 0.97 * b["dose_percent"], x)
+                self.assertIn("extrapolated", h["flags"], x)
 
 
 class SetWarnings(unittest.TestCase):
