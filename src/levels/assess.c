@@ -280,6 +280,43 @@ sl_status sl_assess(const sl_levels *lv, const sl_estimate *e, const sl_patient 
     return sl_assess_with(lv, e, pt, map, nmap, NULL, 0, out, err);
 }
 
+/* A plan whose fields meet none of the structure set's target volumes may
+ * have been paired with another patient's or another course's structure
+ * set, or carry a wrong isocentre: every organ's distance from the field
+ * would then be wrong, and the screening must not read as clear (found by
+ * an independent review; it was a caution beside an exit code of 0). */
+static void missed_targets(const sl_estimate *est, sl_assessments *as)
+{
+    if (est->nbeams == 0)
+        return;
+    char names[400] = "";
+    size_t len = 0, n = 0;
+    for (size_t o = 0; o < est->norgans; o++) {
+        const sl_organ_dose *d = &est->organs[o];
+        if (!d->roi || !sl_dose_type_target(d->roi->type))
+            continue;
+        if (d->in_field)
+            return;
+        if (len < sizeof names) {
+            char nm[160];
+            int w = snprintf(names + len, sizeof names - len, "%s%s", n ? ", " : "",
+                             sl_text_escape(d->roi->name, nm, sizeof nm));
+            len = w < 0 ? sizeof names : len + (size_t)w;
+        }
+        n++;
+    }
+    if (n == 0)
+        return;
+    if (len >= sizeof names)
+        strcpy(names + sizeof names - 5, " ...");
+    sl_notes_add(&as->missing,
+                 "target in a field: no target volume lies in any field (%s): check that the "
+                 "plan and the structure set belong together; every distance holds only if "
+                 "they do",
+                 names);
+    as->any_flagged = true;
+}
+
 sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_patient *pt_in,
                          const sl_organ_map *map, size_t nmap, const sl_other_dose *other,
                          size_t nother, sl_assessments **out, sl_error *err)
@@ -586,6 +623,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                      "dose");
         as->any_flagged = true;
     }
+    missed_targets(e, as);
     if (as->n_incomplete)
         as->any_flagged = true;
     /* an advised measurement is attention too: the screening cannot settle

@@ -268,31 +268,6 @@ static void bolus_cautions(const sl_location *loc, sl_notes *out)
     }
 }
 
-/* Target volumes none of which touches any field: the plan does not treat
- * what this structure set outlines (another scan, a moved isocentre). */
-static void target_caution(const sl_location *loc, sl_notes *out)
-{
-    if (!loc || loc->nbeams == 0)
-        return;
-    sl_buf b = {0};
-    size_t n = 0;
-    for (size_t o = 0; o < loc->norgans; o++) {
-        if (!sl_dose_type_target(loc->rois[o]->type))
-            continue;
-        for (size_t k = 0; k < loc->nbeams; k++)
-            if (sl_organ_in_field(&loc->beams[k].organs[o]))
-                return; /* a target in a field */
-        char nm[160];
-        sl_buf_printf(&b, "%s%s", n++ ? ", " : "", sl_text_escape(loc->rois[o]->name, nm,
-                                                                  sizeof nm));
-    }
-    if (n && b.data && !b.failed)
-        sl_notes_add(out, "no target volume lies in any field (%s): check that the plan and the "
-                          "structure set belong together",
-                     b.data);
-    sl_buf_free(&b);
-}
-
 /* Estimated organs whose names match no kind of the action-level table
  * (a clinic's own spelling of a device or a lens would pass as "no action
  * level"), named when their upper bound reaches the table's lowest level. */
@@ -380,7 +355,6 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
                          s->mean_log_ratio, s->ci_lo, s->ci_hi, s->p_value, s->source);
     }
     bolus_cautions(r->loc, out);
-    target_caution(r->loc, out);
     nameless_caution(r, out);
     if (est_pacing_assumed(r))
         sl_notes_add(out, "pacing dependence not stated: the cardiac device is judged as for a "

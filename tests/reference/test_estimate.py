@@ -1137,8 +1137,10 @@ class ReviewFindings(unittest.TestCase):
         100 cm to the side, the central axis misses the body contour, and
         every organ would be left out as far away with the plan passed: it
         is refused (exit 3) unless --allow-mismatch; 15 cm toward the feet,
-        the field lies on the body but no target volume touches it: said
-        beside the result (found by an independent review)."""
+        the field lies on the body but no target volume touches it: the
+        plan is not passed (exit 4, "not found: target in a field" in the
+        result line; found by independent reviews: first it was not said,
+        then only said beside an exit code of 0)."""
         import pydicom
         base = os.path.join(SOURCE_ROOT, "examples", "chest-oblique")
         ss = os.path.join(base, "rtstruct.dcm")
@@ -1162,11 +1164,16 @@ class ReviewFindings(unittest.TestCase):
                     self.assertIn(rc, (0, 4), err)
                     self.assertIn("the central axis does not enter the body", out)
                 else:
-                    self.assertIn(rc, (0, 4), err)
+                    # the plan is not passed: exit 4 and the result line
+                    # names it, whatever the organs read
+                    self.assertEqual(rc, 4, err)
                     head = out[:out.index("organs (cGy):")]
                     self.assertIn("no target volume lies in any field (PTV_sternum)", head)
+                    result = [ln for ln in out.splitlines() if ln.startswith("RESULT:")][0]
+                    self.assertIn("not found: target in a field", result)
             rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"), ss, "--model", MODEL)
             self.assertNotIn("no target volume lies in any field", out)
+            self.assertNotIn("target in a field", out)
 
     def test_a_point_under_a_shielding_block_inside_the_field_is_in_the_field(self):
         """A 4 x 4 cm SHIELDING block on the central axis of a 10 x 10 cm
