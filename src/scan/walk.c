@@ -9,8 +9,11 @@
  * by sl_pair_check() when the pair is screened. An RT Dose goes with the
  * plan its Referenced RT Plan Sequence names, when its Frame of Reference is
  * that plan's (scan.h says which are used and which refused). The walk keeps its own stack
- * of directories (no recursion, no global callback state as nftw() needs)
- * and does not follow symbolic links.
+ * of directories (no recursion, no global callback state as nftw() needs).
+ * A symbolic link to a file is read as the file (an export may link its
+ * objects); a link to a folder is not followed, since a loop would never
+ * end, and neither is a link to nothing: each is a row of its own, so that
+ * the plans it may hold are not missed in silence.
  */
 #include <dirent.h>
 #include <errno.h>
@@ -102,6 +105,34 @@ void sl_scan_files_free(sl_scan_files *f)
     free(f);
 }
 
+/* Whether the symbolic link p leads to a regular file, to be read as one;
+ * otherwise it becomes a bad row with its reason (*st set on running out
+ * of memory). */
+static bool link_to_file(const char *p, strvec *bad, strvec *badwhy, sl_scan_files *f,
+                         sl_status *st)
+{
+    struct stat ts;
+    char why[300];
+    if (stat(p, &ts) != 0) {
+        snprintf(why, sizeof why, "a symbolic link that leads nowhere readable: %s",
+                 strerror(errno));
+    } else if (S_ISREG(ts.st_mode)) {
+        return true;
+    } else if (S_ISDIR(ts.st_mode)) {
+        snprintf(why, sizeof why, "a symbolic link to a folder, not followed (a loop would "
+                                  "never end): the files in it were not screened; scan the "
+                                  "folder itself");
+    } else {
+        return false; /* to a device, socket or pipe: not a file of an export */
+    }
+    f->nunreadable++;
+    sl_notes_add(&f->notes, "%s: %s", p, why);
+    char *copy = strdup(p); /* push_bad owns it, freed there on failure */
+    if (!copy || !push_bad(bad, badwhy, copy, why))
+        *st = SL_ENOMEM;
+    return false;
+}
+
 sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_files **out,
                        sl_error *err)
 {
@@ -165,14 +196,20 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
                     st = sl_error_set(err, SL_ENOMEM, "out of memory");
                     break;
                 }
-            } else if (S_ISREG(es.st_mode)) {
+            } else if (S_ISLNK(es.st_mode) && !link_to_file(p, &bad, &badwhy, f, &st)) {
+                free(p); /* a row of its own, or out of memory */
+                if (st != SL_OK) {
+                    st = sl_error_set(err, SL_ENOMEM, "out of memory");
+                    break;
+                }
+            } else if (S_ISREG(es.st_mode) || S_ISLNK(es.st_mode)) {
                 if (!strvec_push(&found, p)) {
                     free(p);
                     st = sl_error_set(err, SL_ENOMEM, "out of memory");
                     break;
                 }
             } else {
-                free(p); /* links, devices, sockets: not files of an export */
+                free(p); /* devices, sockets, pipes: not files of an export */
             }
         }
         closedir(dp);

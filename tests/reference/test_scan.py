@@ -486,6 +486,31 @@ class WhatCannotBeRead(unittest.TestCase):
                              ["screened"])
             shutil.rmtree(src, ignore_errors=True)
 
+    def test_symbolic_links(self):
+        """Symbolic links in an export folder (POSIX symlink(7)): a link to
+        a file is read as the file, so a plan and structure set linked in
+        from elsewhere are screened; a link to a folder is not followed (a
+        loop would never end) and a link to nothing leads nowhere: each is
+        a `bad` row with its reason, and the batch exits 4. Before, all
+        three were passed over without a row."""
+        with tempdir() as d:
+            src, elsewhere = os.path.join(d, "in"), os.path.join(d, "elsewhere")
+            os.makedirs(src)
+            copy_pair("face-lens", elsewhere, "LINK")
+            os.symlink(os.path.join(elsewhere, "rtplan.dcm"), os.path.join(src, "plan"))
+            os.symlink(os.path.join(elsewhere, "rtstruct.dcm"), os.path.join(src, "ss"))
+            os.symlink(elsewhere, os.path.join(src, "folder"))
+            os.symlink(os.path.join(d, "nothing"), os.path.join(src, "dangling"))
+            out = os.path.join(d, "out")
+            rc, stdout, err = scan(src, out)
+            self.assertEqual(rc, 4, err)
+            with open(os.path.join(out, "summary.csv"), newline="") as f:
+                rows = list(csv.DictReader(f))
+            self.assertEqual(sorted(r["outcome"] for r in rows), ["bad", "bad", "screened"], rows)
+            why = sorted(r["message"] for r in rows if r["outcome"] == "bad")
+            self.assertIn("a symbolic link that leads nowhere readable", why[0])
+            self.assertIn("a symbolic link to a folder, not followed", why[1])
+
 
 class Pdf(unittest.TestCase):
     def test_pdf_reports(self):
