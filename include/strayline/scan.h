@@ -154,6 +154,10 @@ typedef struct sl_batch_config {
     const char *model_path, *levels_path;
     const char *outdir;
     const sl_facts *facts;       /* may be NULL */
+    /* keys of facts entries that name no plan of the batch (scan): listed
+     * in the summary, since their patients' plans went without them */
+    const char *const *facts_unmatched;
+    size_t nfacts_unmatched;
     sl_screenlog *log;           /* may be NULL: nothing logged */
     const char *command;         /* "scan" or "listen", for the log */
     int threads_per_plan;        /* threads inside one screening (1 in a pool) */

@@ -204,6 +204,7 @@ int sl_cmd_scan(int argc, char **argv)
     sl_batch_entry *entries = NULL;
     sl_history *stale = NULL, *known = NULL;
     size_t n = 0, *todo = NULL;
+    const char **unmatched = NULL; /* facts keys that name no plan */
     int rc = SL_EXIT_OK;
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
@@ -220,6 +221,12 @@ int sl_cmd_scan(int argc, char **argv)
      * and the batch needs attention (found by an independent review: a
      * pacing dependence so lost passed a device at a lower band) */
     size_t facts_unmatched = 0;
+    unmatched = facts && facts->n ? calloc(facts->n, sizeof *unmatched) : NULL;
+    if (facts && facts->n && !unmatched) {
+        sl_cli_error("out of memory");
+        rc = SL_EXIT_INTERNAL;
+        goto done;
+    }
     for (size_t k = 0; facts && k < facts->n; k++) {
         const char *key = facts->items[k].key;
         bool hit = false;
@@ -227,7 +234,7 @@ int sl_cmd_scan(int argc, char **argv)
             hit = (entries[i].plan_uid && strcmp(entries[i].plan_uid, key) == 0) ||
                   (entries[i].patient_id && strcmp(entries[i].patient_id, key) == 0);
         if (!hit) {
-            facts_unmatched++;
+            unmatched[facts_unmatched++] = key;
             sl_cli_error("warning: %s: entry '%s' names no plan UID or patient ID of the plans in %s: "
                            "its facts were used for no plan (check the key)",
                            facts->source, key, dir);
@@ -271,6 +278,8 @@ int sl_cmd_scan(int argc, char **argv)
         .levels_path = levels_path,
         .outdir = outdir,
         .facts = facts,
+        .facts_unmatched = unmatched,
+        .nfacts_unmatched = facts_unmatched,
         .log = log,
         .command = "scan",
         .threads_per_plan = 1,
@@ -340,6 +349,7 @@ done:
         sl_batch_entry_clear(&entries[i]);
     free(entries);
     free(todo);
+    free(unmatched);
     sl_history_free(stale);
     sl_history_free(known);
     sl_scan_files_free(files);

@@ -122,6 +122,12 @@ static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch
     for (int o = 0; o <= SL_OUT_BAD; o++)
         jw_int(&w, c, sl_outcome_name((sl_outcome)o), (long long)counts[o]);
     jw_int(&w, c, "flagged", (long long)flagged);
+    /* facts entries that named no plan: their patients' plans, if any,
+     * were screened without those facts */
+    json_object *fu = json_object_new_array();
+    jw_put(&w, root, "facts_entries_matching_no_plan", fu);
+    for (size_t k = 0; k < cfg->nfacts_unmatched; k++)
+        jw_append(&w, fu, json_object_new_string(cfg->facts_unmatched[k]));
     json_object *arr = json_object_new_array();
     jw_put(&w, root, "plans", arr);
     for (size_t i = 0; i < n; i++) {
@@ -191,6 +197,19 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
              "%s scaled by in-vivo readings; each report names the beams it touches.",
              cfg->model->nscales, cfg->model->nscales == 1 ? "" : "s",
              cfg->model->nscales == 1 ? "is" : "are");
+    if (cfg->nfacts_unmatched) {
+        sl_buf keys = {0};
+        for (size_t k = 0; k < cfg->nfacts_unmatched; k++)
+            sl_buf_printf(&keys, "%s'%s'", k ? ", " : "", cfg->facts_unmatched[k]);
+        helf(&h, cd, "p",
+             "FACTS NOT USED: %zu entr%s of the facts file %s named no plan of this folder "
+             "(%s): a patient's plan, if here under another ID, was screened without them; "
+             "check the keys.",
+             cfg->nfacts_unmatched, cfg->nfacts_unmatched == 1 ? "y" : "ies",
+             cfg->facts ? s_or(cfg->facts->source, "") : "",
+             keys.failed ? "" : s_or(keys.data, ""));
+        sl_buf_free(&keys);
+    }
     xmlNodePtr meta = hel(&h, b, "table", NULL);
     const char *const rows[][2] = {{"model", cfg->model_path},
                                    {"model version", cfg->model->model_version},

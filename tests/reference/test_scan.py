@@ -319,6 +319,13 @@ class FactsOfPlanAndPatient(unittest.TestCase):
             self.assertIn("entry '%s-X' names no plan UID or patient ID" % pid, err)
             self.assertNotIn("entry '%s'" % plan_uid, err)
             self.assertIn("facts: 1 entry of %s named no plan of the folder" % facts, out)
+            # and in the summary a user opens later, not only on the terminal
+            with open(os.path.join(d, "out", "summary.json")) as f:
+                self.assertEqual(json.load(f)["facts_entries_matching_no_plan"], [pid + "-X"])
+            with open(os.path.join(d, "out", "index.html")) as f:
+                page = f.read()
+            self.assertIn("FACTS NOT USED: 1 entry of the facts file", page)
+            self.assertIn("'%s-X'" % pid, page)
 
 
 class PacingDependenceInABatch(unittest.TestCase):
