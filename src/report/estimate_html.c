@@ -140,8 +140,9 @@ static void tps_section(hdoc *h, xmlNodePtr b, const sl_estimate_report *r)
     const char *head[] = {"organ", "dose from", "volume from the planning system (%)",
                           "maximum from", "nearest point from",
                           "zone samples outside its grid (model used)",
+                          "zone samples where the model is higher (model used)",
                           "uncertainty of the planning system's dose (k = 1)"};
-    hrow(h, t, true, head, 7);
+    hrow(h, t, true, head, 8);
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *d = &e->organs[o];
         if (!d->estimated)
@@ -154,6 +155,8 @@ static void tps_section(hdoc *h, xmlNodePtr b, const sl_estimate_report *r)
         hel(h, tr, "td", d->max_from_tps ? "planning system" : "model");
         hel(h, tr, "td", d->nearest_from_tps ? "planning system" : "model");
         snprintf(buf, sizeof buf, "%zu", d->tps_outside_grid);
+        hattr(h, hel(h, tr, "td", buf), "class", "n");
+        snprintf(buf, sizeof buf, "%zu", d->tps_below_model);
         hattr(h, hel(h, tr, "td", buf), "class", "n");
         if (d->tps_samples)
             snprintf(buf, sizeof buf, "%.0f %% of its dose (from memory)",

@@ -201,27 +201,30 @@ static void tps_section(pdoc *d, const sl_estimate_report *r)
     pdoc_para(d, line, 8.5, false);
     est_tps_u_text(u, sizeof u);
     pdoc_para(d, u, 8.5, true);
-    static const double w[] = {0.17, 0.17, 0.12, 0.12, 0.12, 0.12, 0.18};
+    static const double w[] = {0.15, 0.15, 0.11, 0.11, 0.11, 0.11, 0.11, 0.15};
     static const char *const head[] = {"organ", "dose from", "volume from the planning system (%)",
                                        "maximum from", "nearest point from",
-                                       "zone samples outside its grid", "uncertainty of the "
-                                       "planning system's dose (k = 1)"};
-    ptable t = {7, w, head, 7.5};
+                                       "zone samples outside its grid",
+                                       "zone samples where the model is higher",
+                                       "uncertainty of the planning system's dose (k = 1)"};
+    ptable t = {8, w, head, 7.5};
     pdoc_table_head(d, &t);
     for (size_t o = 0; o < e->norgans; o++) {
         const sl_organ_dose *dd = &e->organs[o];
         if (!dd->estimated)
             continue;
-        char nm[160], vol[24], out[24], uc[64];
+        char nm[160], vol[24], out[24], higher[24], uc[64];
         snprintf(vol, sizeof vol, "%.1f", 100 * dd->tps_volume_fraction);
         snprintf(out, sizeof out, "%zu", dd->tps_outside_grid);
+        snprintf(higher, sizeof higher, "%zu", dd->tps_below_model);
         if (dd->tps_samples)
             snprintf(uc, sizeof uc, "%.0f %% of its dose (from memory)", 100 * SL_TPS_U_FRACTION);
         else
             snprintf(uc, sizeof uc, "-");
         const char *cells[] = {sl_text_escape(dd->roi->name, nm, sizeof nm), est_tps_source(dd),
                                vol, dd->max_from_tps ? "planning system" : "model",
-                               dd->nearest_from_tps ? "planning system" : "model", out, uc};
+                               dd->nearest_from_tps ? "planning system" : "model", out,
+                               higher, uc};
         pdoc_table_row(d, &t, cells, NULL, true);
     }
     /* the heading, its paragraph and the table's first rows on one page */

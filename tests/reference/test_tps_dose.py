@@ -207,8 +207,17 @@ class FromTheGrid(unittest.TestCase):
         a lens there passed on the grid's 0)."""
         with tempdir() as d:
             plan, ss, rtd = case(d, zero_beyond_mm=55.0)
-            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+            html = os.path.join(d, "r.html")
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--html", html)
             rc0, js0, err0 = estimate(plan, ss)
+            t = TableRows()
+            with open(html) as f:
+                t.feed(f.read())
+        # the HTML's source table counts them too (Python's html.parser)
+        head = t.tables[0][0]
+        col = head.index("zone samples where the model is higher (model used)")
+        row = next(r for r in t.tables[0][1:] if r[0] == "near")
+        self.assertEqual(int(row[col]), organ(js, "near")["zone_samples_model_higher"])
         jsonschema.validate(js, json.load(open(SCHEMA)))
         near, near0 = organ(js, "near"), organ(js0, "near")
         self.assertEqual(near["dose_source"], "model")
@@ -374,11 +383,13 @@ class InEveryFormat(unittest.TestCase):
         self.assertEqual(set(src), set(want))
         for name, w in want.items():
             self.assertEqual(src[name][1], w, name)
+            self.assertEqual(int(src[name][5]), organ(js, name)["zone_samples_outside_planning_grid"])
+            self.assertEqual(int(src[name][6]), organ(js, name)["zone_samples_model_higher"])
             if w == "model":
-                self.assertEqual(src[name][6], "-", name)
+                self.assertEqual(src[name][7], "-", name)
             else:
-                self.assertIn("5 %", src[name][6], name)
-                self.assertIn("from memory", src[name][6], name)
+                self.assertIn("5 %", src[name][7], name)
+                self.assertIn("from memory", src[name][7], name)
         self.assertIn("from memory", "".join(t.text))
         got = t.tables[1][1:]
         self.assertEqual(len(got), len(rows))
