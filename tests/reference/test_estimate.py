@@ -1119,7 +1119,9 @@ class ReviewFindings(unittest.TestCase):
         kind (found by an independent review)."""
         with tempdir() as d:
             plan, ss = box_case(d, [("Gadget", (90.0, 10.0, 0.0)), ("Lens_L", (90.0, 20.0, 0.0)),
-                                    ("Far_thing", (900.0, 10.0, 0.0))],
+                                    ("Far_thing", (900.0, 10.0, 0.0)),
+                                    ("Heart", (90.0, 0.0, 0.0)),
+                                    ("Heart_Device", (90.0, -10.0, 0.0))],
                                 [{"number": 1, "energy_mev": 12.0}],
                                 [{"number": 1, "fractions": 5, "beams": [(1, 200.0)]}])
             rc, js, err = estimate(plan, ss)
@@ -1127,10 +1129,16 @@ class ReviewFindings(unittest.TestCase):
         self.assertLess(organ(js, "Far_thing")["course_max_upper_cgy"], 5)
         c = [x for x in js["result"]["case_cautions"] if x.startswith("no action level for")]
         self.assertEqual(len(c), 1, js["result"]["case_cautions"])
-        self.assertIn("no action level for Gadget, whose upper bound reaches 5 cGy", c[0])
+        self.assertIn("no action level for Gadget, Heart_Device, whose upper bound reaches "
+                      "5 cGy", c[0])
         self.assertIn("--organ ROI=KIND", c[0])
         self.assertNotIn("Lens_L", c[0])
         self.assertNotIn("Far_thing", c[0])
+        # a standard name (AAPM TG-263) is known to the table, without a
+        # level: not named; a name with another word in it still is
+        self.assertGreaterEqual(organ(js, "Heart")["course_max_upper_cgy"], 5)
+        self.assertEqual(organ(js, "Heart")["kind"], "other_organ")
+        self.assertNotIn("Heart,", c[0])
 
     def test_a_plan_that_misses_the_body_is_refused_and_a_missed_target_said(self):
         """The invented chest-oblique case with its isocentre moved (pydicom):
