@@ -31,8 +31,8 @@ START_TEST(roi_names_match_their_kinds)
         {"Pacemaker", "cardiac_device"}, {"ICD", "cardiac_device"}, {"PPM", "cardiac_device"},
         {"Fetus", "fetus"},          {"Fetal_pole", "fetus"},   {"Thyroid", "thyroid"},
         {"Breast_R", "breast"},      {"Testis_L", "testis"},    {"Ovary_R", "ovary"},
-        {"Bone_Marrow", "bone_marrow"}, {"Eye_L", NULL},        {"Heart", NULL},
-        {"Parotid_L", NULL},
+        {"Bone_Marrow", "bone_marrow"}, {"Eye_L", NULL},        {"Heart", "other_organ"},
+        {"Parotid_L", "other_organ"},
     };
     for (size_t i = 0; i < sizeof cases / sizeof *cases; i++) {
         const sl_kind *k = sl_levels_match(l, cases[i].name);
@@ -206,9 +206,10 @@ START_TEST(naming_conventions_table)
         {"Knochenmark", "bone_marrow"}, {"Moelle osseuse", "bone_marrow"},
         {"Medula_osea", "bone_marrow"}, {"Midollo_osseo", "bone_marrow"},
         {"Médula_óssea", "bone_marrow"}, {"Crystalline_L", "lens"},
-        /* organs with no kind: must not be caught by a wide pattern */
-        {"Spacer", NULL}, {"Rectal_Spacer", NULL}, {"SpaceOAR", NULL}, {"Larynx", NULL},
-        {"Mandible", NULL}, {"Brainstem", NULL}, {"Art_Mammary_Int_L", NULL},
+        /* organs with no kind, or the last kind's exact standard names
+         * (AAPM TG-263, no level): must not be caught by a wide pattern */
+        {"Spacer", NULL}, {"Rectal_Spacer", NULL}, {"SpaceOAR", NULL}, {"Larynx", "other_organ"},
+        {"Mandible", "other_organ"}, {"Brainstem", "other_organ"}, {"Art_Mammary_Int_L", NULL},
         /* German chest wall and spine, an artery and an implanted nerve
          * stimulator: words that share a stem with an organ's (reviewed) */
         {"Brustwand", NULL}, {"Brustwand_li", NULL}, {"Brustwirbel", NULL},
@@ -216,10 +217,10 @@ START_TEST(naming_conventions_table)
         {"Chestwall", NULL}, {"Lentiform", NULL},
         {"Medula_espinal", NULL}, {"Moelle_epiniere", NULL}, {"Midollo_spinale", NULL},
         {"Medulla", NULL}, {"Pmma_Block", NULL}, {"Ipsi_Lung", NULL}, {"Crtx_Motor", NULL},
-        {"Eye_L", NULL}, {"Eye_R", NULL}, {"Glnd_Lacrimal_L", NULL}, {"OpticNrv_L", NULL},
-        {"Heart", NULL}, {"Lung_L", NULL}, {"Parotid_R", NULL}, {"SpinalCord", NULL},
-        {"Bladder", NULL}, {"Rectum", NULL}, {"Uterus", NULL}, {"Prostate", NULL},
-        {"Femur_Head_L", NULL}, {"Kidney_L", NULL}, {"Esophagus", NULL},
+        {"Eye_L", NULL}, {"Eye_R", NULL}, {"Glnd_Lacrimal_L", NULL}, {"OpticNrv_L", "other_organ"},
+        {"Heart", "other_organ"}, {"Lung_L", "other_organ"}, {"Parotid_R", "other_organ"}, {"SpinalCord", "other_organ"},
+        {"Bladder", "other_organ"}, {"Rectum", "other_organ"}, {"Uterus", NULL}, {"Prostate", NULL},
+        {"Femur_Head_L", "other_organ"}, {"Kidney_L", "other_organ"}, {"Esophagus", "other_organ"},
     };
     size_t n = sizeof cases / sizeof *cases;
     ck_assert_uint_ge(n, 60);
