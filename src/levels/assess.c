@@ -291,9 +291,16 @@ static void missed_targets(const sl_estimate *est, sl_assessments *as)
         return;
     char names[400] = "";
     size_t len = 0, n = 0;
-    for (size_t o = 0; o < est->norgans; o++) {
-        const sl_organ_dose *d = &est->organs[o];
-        if (!d->roi || !sl_dose_type_target(d->roi->type))
+    for (size_t i = 0; i < as->n; i++) {
+        /* typed a target, or named one type first as AAPM TG-263 names
+         * targets (RT ROI Interpreted Type may be empty: found by an
+         * independent review, an untyped PTV_sternum escaped this check),
+         * unless --organ says what it is */
+        const sl_assessment *a = &as->items[i];
+        const sl_organ_dose *d = a->dose;
+        if (!d || !d->roi ||
+            !(sl_dose_type_target(d->roi->type) ||
+              (target_prefix(d->roi->name) && !a->kind_by_option)))
             continue;
         if (d->in_field)
             return;

@@ -1179,6 +1179,18 @@ class ReviewFindings(unittest.TestCase):
                     self.assertIn("no target volume lies in any field (PTV_sternum)", head)
                     result = [ln for ln in out.splitlines() if ln.startswith("RESULT:")][0]
                     self.assertIn("not found: target in a field", result)
+                    # the same with the PTV's RT ROI Interpreted Type left
+                    # empty (type 2, DICOM PS3.3 C.8.8.8): named type first,
+                    # as AAPM TG-263 names targets, it is still the target
+                    s = pydicom.dcmread(ss)
+                    for obs in s.RTROIObservationsSequence:
+                        if str(obs.get("RTROIInterpretedType", "")) == "PTV":
+                            obs.RTROIInterpretedType = ""
+                    untyped = os.path.join(d, "rtstruct-untyped.dcm")
+                    s.save_as(untyped)
+                    rc, out, err = run("estimate", plan, untyped, "--model", MODEL)
+                    self.assertEqual(rc, 4, err)
+                    self.assertIn("no target volume lies in any field (PTV_sternum)", out)
             rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"), ss, "--model", MODEL)
             self.assertNotIn("no target volume lies in any field", out)
             self.assertNotIn("target in a field", out)
