@@ -229,8 +229,16 @@ static int cmp_dpair(const void *a, const void *b)
  * side 1.5 times hotter beyond 5 cm was fitted through both, 17 % low on
  * the hot side. pts sorted by distance; returns the points left out. */
 #define SIDES_MAX_GAP_CM 1.0
-static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_percent)
+typedef struct side_cut {
+    int side;        /* the colder side cut short (-1 or +1); 0: none */
+    size_t n;        /* its points left out beyond the other side's scan */
+    double from_cm;  /* the other side's farthest distance */
+} side_cut;
+
+static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_percent,
+                               side_cut *cut)
 {
+    *cut = (side_cut){0, 0, NAN};
     size_t n = 0;
     for (size_t i = 0; i < np; i++) {
         pts[i].drop = false;
@@ -249,9 +257,12 @@ static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_p
         if (!lo != !hi) {
             /* beyond the other side's last point (or before its first):
              * its last two carried on log-linearly, within the same reach.
-             * The fall-off flattens with distance, so the line reads that
-             * side lower than it is, and a point is never left out for a
-             * bend of the curve (found by an independent review: a cold
+             * Beyond the applicator-scatter peak the fall-off flattens with
+             * distance, so the line reads that side lower than it is and
+             * a point is not left out for a bend of the curve; carried
+             * back toward the edge across the peak it may read high and
+             * leave a near point out, which only raises the fit there
+             * (found by an independent review: a cold
              * side's last point, past the hot side's scan, pulled the fit
              * 11 % low at 21 cm) */
             const dpair *near = lo ? lo : hi, *next = NULL;
@@ -299,7 +310,9 @@ static size_t drop_colder_side(dpair *pts, size_t np, double rel, double floor_p
         for (size_t i = 0; colder && i < np; i++)
             if (pts[i].side == side && !pts[i].drop && pts[i].d > other_last) {
                 pts[i].drop = true;
-                n++;
+                cut->side = side;
+                cut->n++;
+                cut->from_cm = other_last;
             }
     }
     return n;
@@ -448,8 +461,9 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
              * hotter is kept (an organ may lie on either side) */
             qsort(pts, np, sizeof *pts, cmp_dpair);
             size_t m = 0, hot = 0;
+            side_cut cut = {0, 0, NAN};
             if (p->side == 0) {
-                hot = drop_colder_side(pts, np, p->rel_uncertainty, p->floor_percent);
+                hot = drop_colder_side(pts, np, p->rel_uncertainty, p->floor_percent, &cut);
                 for (size_t i = 0; i < np; i++)
                     if (!pts[i].drop)
                         pts[m++] = pts[i];
@@ -481,6 +495,16 @@ sl_status sl_profile_parse_csv(const char *data, size_t size, const char *name,
                              "%s: at %zu distances the two sides differ by more than %.0f "
                              "standard deviations of a difference; the hotter side is kept there",
                              name, hot, SL_SIDES_APART_SIGMAS);
+            if (cut.n && notes)
+                sl_notes_add(notes,
+                             "%s: the %s side reads colder where both sides were read; its %zu "
+                             "point%s beyond %.2f cm from the edge, where the other side was not "
+                             "scanned, %s left out: the profile ends at %.2f cm and the model "
+                             "holds its farthest level beyond [extrapolated]; scan the other "
+                             "side farther",
+                             name, cut.side < 0 ? "negative" : "positive", cut.n,
+                             cut.n == 1 ? "" : "s", cut.from_cm, cut.n == 1 ? "is" : "are",
+                             cut.from_cm);
             p->width_found_cm = right - left;
             p->width_nominal_cm = nominal_width_cm;
             if (isfinite(nominal_width_cm) &&

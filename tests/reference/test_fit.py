@@ -492,6 +492,12 @@ class OneSideHotter(unittest.TestCase):
         with tempdir() as d:
             base = self.fit_set(d, False, model=True)
             hot = self.fit_set(d, True, keep=lambda x: x < 12, model=True)
+            with tempdir() as d2:
+                _, _, err = self.fit_set(d2, True, keep=lambda x: x < 12)
+            # said apart from the compared points: the cold (negative) side
+            # is cut short where the hot side was not scanned
+            self.assertIn("the negative side reads colder where both sides were read", err)
+            self.assertIn("the model holds its farthest level beyond [extrapolated]", err)
 
             def ev(m, x):
                 rc, out, err = run("model", "eval", m, "-e", "9", "-a", "A10", "-d", "1",
