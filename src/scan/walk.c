@@ -12,11 +12,13 @@
  * of directories (no recursion, no global callback state as nftw() needs).
  * A symbolic link to a file is read as the file (an export may link its
  * objects); a link to a folder is not followed, since a loop would never
- * end, and neither is a link to nothing: each is a row of its own, so that
+ * end: one inside the scanned folder, or to our own output, loses nothing
+ * (a note), any other, and a link to nothing, is a row of its own, so that
  * the plans it may hold are not missed in silence.
  */
 #include <dirent.h>
 #include <errno.h>
+#include <limits.h>
 #include <stdarg.h>
 #include <stdint.h>
 #include <stdio.h>
@@ -108,8 +110,22 @@ void sl_scan_files_free(sl_scan_files *f)
 /* Whether the symbolic link p leads to a regular file, to be read as one;
  * otherwise it becomes a bad row with its reason (*st set on running out
  * of memory). */
-static bool link_to_file(const char *p, strvec *bad, strvec *badwhy, sl_scan_files *f,
-                         sl_status *st)
+typedef struct walk_root {
+    const char *real;           /* the scanned folder, resolved (NULL if not) */
+    const struct stat *skip;    /* our output folder, or NULL */
+} walk_root;
+
+/* Whether the resolved path t is the folder root or lies inside it. */
+static bool path_within(const char *t, const char *root)
+{
+    size_t n = strlen(root);
+    if (n > 1 && root[n - 1] == '/')
+        n--;
+    return strncmp(t, root, n) == 0 && (t[n] == '\0' || t[n] == '/');
+}
+
+static bool link_to_file(const char *p, const walk_root *wr, strvec *bad, strvec *badwhy,
+                         sl_scan_files *f, sl_status *st)
 {
     struct stat ts;
     char why[300];
@@ -118,7 +134,22 @@ static bool link_to_file(const char *p, strvec *bad, strvec *badwhy, sl_scan_fil
                  strerror(errno));
     } else if (S_ISREG(ts.st_mode)) {
         return true;
+    } else if (S_ISDIR(ts.st_mode) && wr->skip && ts.st_dev == wr->skip->st_dev &&
+               ts.st_ino == wr->skip->st_ino) {
+        return false; /* to our own output: reports and the log are not inputs */
     } else if (S_ISDIR(ts.st_mode)) {
+        /* a link to a folder the walk reaches anyway (latest -> a dated
+         * folder beside it) loses nothing: a note, not a row that would
+         * make every run need attention (found by an independent review) */
+        char *t = wr->real ? realpath(p, NULL) : NULL;
+        bool within = t && path_within(t, wr->real);
+        free(t);
+        if (within) {
+            sl_notes_add(&f->notes, "%s: a symbolic link to a folder inside the scanned one, "
+                                    "not followed: its files are read where they lie",
+                         p);
+            return false;
+        }
         snprintf(why, sizeof why, "a symbolic link to a folder, not followed (a loop would "
                                   "never end): the files in it were not screened; scan the "
                                   "folder itself");
@@ -145,6 +176,8 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
         return sl_error_set(err, SL_EINPUT, "%s: not a folder", dir);
     sl_scan_files *f = calloc(1, sizeof *f);
     strvec todo = {0}, found = {0}, bad = {0}, badwhy = {0}; /* bad: folders not listed */
+    char *root_real = realpath(dir, NULL);
+    walk_root wr = {root_real, have_skip ? &skip_sb : NULL};
     sl_status st = SL_OK;
     char *root = f ? strdup(dir) : NULL;
     if (!root || !strvec_push(&todo, root)) {
@@ -196,7 +229,7 @@ sl_status sl_scan_walk(const char *dir, int threads, const char *skip, sl_scan_f
                     st = sl_error_set(err, SL_ENOMEM, "out of memory");
                     break;
                 }
-            } else if (S_ISLNK(es.st_mode) && !link_to_file(p, &bad, &badwhy, f, &st)) {
+            } else if (S_ISLNK(es.st_mode) && !link_to_file(p, &wr, &bad, &badwhy, f, &st)) {
                 free(p); /* a row of its own, or out of memory */
                 if (st != SL_OK) {
                     st = sl_error_set(err, SL_ENOMEM, "out of memory");
@@ -253,6 +286,7 @@ done:
         free(bad.v[i]);
     for (size_t i = 0; i < badwhy.n; i++)
         free(badwhy.v[i]);
+    free(root_real);
     free(todo.v);
     free(found.v);
     free(bad.v);

@@ -499,7 +499,10 @@ class WhatCannotBeRead(unittest.TestCase):
         from elsewhere are screened; a link to a folder is not followed (a
         loop would never end) and a link to nothing leads nowhere: each is
         a `bad` row with its reason, and the batch exits 4. Before, all
-        three were passed over without a row."""
+        three were passed over without a row. A link to a folder inside the
+        scanned one, or to the output folder, loses nothing: a note, no row
+        (found by an independent review: a `latest` link made every run
+        need attention)."""
         with tempdir() as d:
             src, elsewhere = os.path.join(d, "in"), os.path.join(d, "elsewhere")
             os.makedirs(src)
@@ -508,12 +511,20 @@ class WhatCannotBeRead(unittest.TestCase):
             os.symlink(os.path.join(elsewhere, "rtstruct.dcm"), os.path.join(src, "ss"))
             os.symlink(elsewhere, os.path.join(src, "folder"))
             os.symlink(os.path.join(d, "nothing"), os.path.join(src, "dangling"))
+            # a link to a folder the walk reaches anyway, and one to the
+            # output folder: nothing is lost, no row
+            copy_pair("face-lens", os.path.join(src, "2026-12-01"), "DATED")
+            os.symlink(os.path.join(src, "2026-12-01"), os.path.join(src, "latest"))
             out = os.path.join(d, "out")
+            os.makedirs(out)
+            os.symlink(out, os.path.join(src, "reports"))
             rc, stdout, err = scan(src, out)
             self.assertEqual(rc, 4, err)
+            self.assertIn("latest: a symbolic link to a folder inside the scanned one", err)
             with open(os.path.join(out, "summary.csv"), newline="") as f:
                 rows = list(csv.DictReader(f))
-            self.assertEqual(sorted(r["outcome"] for r in rows), ["bad", "bad", "screened"], rows)
+            self.assertEqual(sorted(r["outcome"] for r in rows),
+                             ["bad", "bad", "screened", "screened"], rows)
             why = sorted(r["message"] for r in rows if r["outcome"] == "bad")
             self.assertIn("a symbolic link that leads nowhere readable", why[0])
             self.assertIn("a symbolic link to a folder, not followed", why[1])
