@@ -540,7 +540,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                 orq(d->excluded_why));
     }
     for (size_t i = 0; i < r->as->missing.count; i++)
-        fprintf(fp, "%s%s\n", i ? "  " : "\nasked for, not found:\n  ", r->as->missing.items[i]);
+        fprintf(fp, "%s%s\n", i ? "  " : "\nnot found (asked for or expected):\n  ", r->as->missing.items[i]);
     fprintf(fp, "\nmarks: %s%s\n", est_marks_legend(),
             r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
 

@@ -303,7 +303,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     if (r->as->missing.count) {
         xmlNodePtr md = hel(&h, vb, "div", NULL);
         hattr(&h, md, "class", "caution");
-        hel(&h, md, "strong", "Asked for, not found");
+        hel(&h, md, "strong", "Not found (asked for or expected)");
         xmlNodePtr ml = hel(&h, md, "ul", NULL);
         for (size_t i = 0; i < r->as->missing.count; i++)
             hel(&h, ml, "li", r->as->missing.items[i]);

@@ -115,7 +115,8 @@ static void verdict(pdoc *d, const sl_estimate_report *r)
         pdoc_para(d, line, 8.5, false);
     }
     for (size_t i = 0; i < r->as->missing.count; i++) {
-        snprintf(line, sizeof line, "\u2022 asked for, not found: %s", r->as->missing.items[i]);
+        snprintf(line, sizeof line, "\u2022 not found (asked for or expected): %s",
+                 r->as->missing.items[i]);
         pdoc_para(d, line, 8.5, false);
     }
 }
