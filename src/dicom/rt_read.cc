@@ -621,6 +621,24 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
                        " is not modelled (only gantry, collimator, couch and table-top "
                        "eccentric angles are): the field would be placed wrongly");
     }
+    /* a rotation during delivery is not modelled either: a static electron
+     * beam states NONE, or nothing (found by an independent review: CW at
+     * control point 0, not repeated later, was placed as static) */
+    const struct {
+        DcmTagKey k;
+        const char *name;
+    } turns[] = {{DCM_GantryRotationDirection, "gantry"},
+                 {DCM_BeamLimitingDeviceRotationDirection, "collimator"},
+                 {DCM_PatientSupportRotationDirection, "couch"},
+                 {DCM_TableTopEccentricRotationDirection, "table-top eccentric"}};
+    for (const auto &t : turns) {
+        std::string v = r.str(cp, t.k);
+        if (electron && !v.empty() && v != "NONE")
+            r.fail(SL_EINPUT, Reader::at(cctx, t.k),
+                   "'" + v + "': a " + t.name +
+                       " rotation during delivery is not modelled (a static electron beam "
+                       "states NONE): the field would be placed wrongly");
+    }
     std::vector<double> iso = r.nums(cp, DCM_IsocenterPosition, cctx);
     if (!iso.empty()) {
         if (iso.size() != 3)

@@ -220,6 +220,19 @@ static sl_status setup_beam(sl_estimate *e, const sl_beam_place *bp, sl_beam_dos
                             "measured on (use that machine's model; a model's machine name must "
                             "be the one the planning system gives the machine)",
                             f, b->number, b->machine, m->machine.name);
+    /* one machine has one source-axis distance: a plan that states another
+     * is of another machine or a wrong export, and the cutout and the
+     * applicator's opening are scaled to its isocentric plane (found by an
+     * independent review: 80 cm against the model's 100 cm passed without
+     * a word); 0.5 cm allows for rounding (common practice) */
+    if (!b->sad_defaulted && m->machine.sad_cm > 0 &&
+        fabs(b->sad_mm / 10 - m->machine.sad_cm) > 0.5)
+        return sl_error_set(err, SL_EINPUT,
+                            "%s: beam %d: SourceAxisDistance (300A,00B4) is %.1f cm, but the "
+                            "model's machine '%s' has %.1f cm: the plan is of another machine, "
+                            "or its export is wrong",
+                            f, b->number, b->sad_mm / 10,
+                            m->machine.name ? m->machine.name : "-", m->machine.sad_cm);
     if (!b->machine && m->machine.name)
         sl_notes_add(&e->notes,
                      "beam %d names no treatment machine (300A,00B2): check that it is treated "

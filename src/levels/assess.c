@@ -56,7 +56,13 @@ static bool target_prefix(const char *name)
 /* An organ with action levels that this screening cannot judge (in the
  * field, beyond the model's range, not placed) is counted so that no
  * headline reads as all clear. A fetus or a cardiac device left unjudged
- * needs attention in itself (common practice: their doses are documented). */
+ * needs attention in itself (common practice: their doses are documented).
+ * So does any organ with levels in or touching the field, which receives
+ * part of the treatment dose, far above any level here, and one whose
+ * place is unknown (no closed contour, or not placed), whose dose is
+ * unknown: neither may leave the plan looking clear (found by an
+ * independent review: a lens in the field exited 0, the same lens just
+ * outside it 4). */
 static void unjudged(sl_assessments *as, sl_assessment *a)
 {
     if (!a->kind || (a->kind->nlevels == 0 && a->kind->nbands == 0))
@@ -68,6 +74,8 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
         a->flagged = true;
         a->measurement_advised = true;
     }
+    if (a->status == SL_ST_IN_FIELD || (a->dose && !a->dose->in_field && !a->dose->placed))
+        a->flagged = true;
     sl_notes_add(&a->advice, "not judged by this screening (%s): %s",
                  a->status == SL_ST_IN_FIELD ? "in or touching the field"
                                              : (a->not_assessed_why ? a->not_assessed_why

@@ -349,13 +349,18 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
                 sl_buf_printf(&b, "%s%s%s", c++ ? ", " : "", v[i].organ,
                               v[i].a && v[i].a->unjudged_level_gy > 0
                                   ? " (its value shown reaches its level)"
+                              : est_unjudged_unknown(v[i].a)
+                                  ? (v[i].a->status == SL_ST_IN_FIELD
+                                         ? " (in the field: the planning system's dose applies)"
+                                         : " (its place, and so its dose, unknown)")
                                   : "");
         }
     }
     size_t natt = 0, nreach = 0;
     for (size_t i = 0; i < n; i++) {
         natt += v[i].kind == EST_V_ATTENTION;
-        nreach += v[i].kind == EST_V_NOT_JUDGED && v[i].a && v[i].a->unjudged_level_gy > 0;
+        nreach += v[i].kind == EST_V_NOT_JUDGED && v[i].a &&
+                  (v[i].a->unjudged_level_gy > 0 || est_unjudged_unknown(v[i].a));
     }
     if (!b.len)
         sl_buf_printf(&b, "no organ reaches its action level at this screening");

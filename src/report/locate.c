@@ -25,8 +25,10 @@ static void text_num(FILE *fp, int width, int prec, double v)
         fprintf(fp, " %*s", width, "-");
 }
 
-static const char *organ_note(const sl_organ_place *p)
+static const char *organ_note(const sl_organ_place *p, size_t nsamples)
 {
+    if (nsamples == 0)
+        return "no samples (no closed contour and no point)";
     if (p->placed == 0)
         return "not placed (behind the source)";
     if (sl_organ_in_field(p))
@@ -86,7 +88,7 @@ static void text_report(FILE *fp, const sl_plan *plan, const sl_structure_set *s
             const sl_roi *r = loc->rois[o];
             const sl_organ_samples *s = &loc->samples[o];
             const sl_organ_place *p = &bp->organs[o];
-        char nm[160];
+            char nm[160];
             fprintf(fp, "  %-20s %-10s", sl_text_escape(r->name, nm, sizeof nm), orq(r->type));
             if (s->is_point)
                 fprintf(fp, " %9s", "point");
@@ -100,7 +102,7 @@ static void text_report(FILE *fp, const sl_plan *plan, const sl_structure_set *s
             text_num(fp, 9, 2, p->max_depth_cm);
             text_num(fp, 8, 1, 100 * p->in_field_fraction);
             text_num(fp, 9, 2, p->min_app_distance_cm);
-            fprintf(fp, "  %s\n", organ_note(p));
+            fprintf(fp, "  %s\n", organ_note(p, s->n));
         }
         for (size_t i = 0; i < bp->notes.count; i++)
             fprintf(fp, "  warning: %s\n", bp->notes.items[i]);

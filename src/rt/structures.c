@@ -232,12 +232,19 @@ sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch
             snprintf(why, sizeof why,
                      "%s: frame of reference %s differs from %s's frame of reference %s",
                      plan->source, plan->frame_uid, ss->source, ss_frame);
-        for (size_t i = 0; !why[0] && plan->frame_uid && i < ss->nrois; i++) {
+        /* every ROI in one frame: the plan's, or without it the structure
+         * set's own (coordinates of two frames cannot be combined without
+         * a registration, DICOM PS3.3 C.7.4.1; found by an independent
+         * review: a lens in another frame was placed when the plan gave
+         * none) */
+        const char *ref = plan->frame_uid ? plan->frame_uid : ss_frame;
+        for (size_t i = 0; !why[0] && ref && i < ss->nrois; i++) {
             const sl_roi *r = &ss->rois[i];
-            if (r->frame_uid && !same(r->frame_uid, plan->frame_uid))
+            if (r->frame_uid && !same(r->frame_uid, ref))
                 snprintf(why, sizeof why,
-                         "%s: ROI '%s' lies in frame of reference %s, not the plan's %s",
-                         ss->source, r->name, r->frame_uid, plan->frame_uid);
+                         "%s: ROI '%s' lies in frame of reference %s, not the %s %s",
+                         ss->source, r->name, r->frame_uid,
+                         plan->frame_uid ? "plan's" : "structure set's", ref);
         }
         if (!why[0] && (!plan->frame_uid || !ss_frame) &&
             sl_notes_add(&plan->notes,

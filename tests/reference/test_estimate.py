@@ -671,18 +671,22 @@ class UnknownsAreRefusedOrSaid(unittest.TestCase):
 
     def test_unjudged_organs_are_counted_and_a_fetus_is_flagged(self):
         """A lens and a fetus inside the field: the screening does not judge
-        them; the lens is counted in the headline, the fetus needs attention
-        (its dose must be documented: common practice)."""
+        them; the lens is counted in the headline and, in the field, gets
+        part of the treatment dose, far above its level, so it needs
+        attention too (exit 4; it exited 0 until an independent review); the
+        fetus needs attention (its dose must be documented: common
+        practice)."""
         with tempdir() as d:
             plan, ss = box_case(d, [("Lens_in", (0.0, 10.0, 0.0)), ("p", (90.0, 10.0, 0.0))],
                                 [{"number": 1, "energy_mev": 12.0}], self.ONE)
             rc, js, err = estimate(plan, ss, "--reference-dose", "1")
             self.assertEqual(organ(js, "Lens_in")["status"], "in_field")
             self.assertEqual(js["organs_not_judged"], 1)
-            self.assertFalse(js["any_flagged"])
-            self.assertEqual(rc, 0)
+            self.assertTrue(js["any_flagged"])
+            self.assertEqual(rc, 4)
             rc, text, err = run("estimate", plan, ss, "--model", MODEL, "--reference-dose", "1")
-            self.assertIn("RESULT: not judged: Lens_in", text)
+            self.assertIn("RESULT: not judged: Lens_in (in the field: the planning system's dose "
+                          "applies)", text)
             self.assertNotIn("no organ reaches its action level", text)
             plan, ss = box_case(d, [("Fetus", (0.0, 50.0, 0.0)), ("p", (90.0, 10.0, 0.0))],
                                 [{"number": 1, "energy_mev": 12.0}], self.ONE)
@@ -1194,6 +1198,101 @@ class ReviewFindings(unittest.TestCase):
             rc, out, err = run("estimate", os.path.join(base, "rtplan.dcm"), ss, "--model", MODEL)
             self.assertNotIn("no target volume lies in any field", out)
             self.assertNotIn("target in a field", out)
+
+    def test_a_lens_in_the_field_or_without_a_place_is_never_clear(self):
+        """A lens in the field receives part of the treatment dose, far above
+        its 50 cGy level (common practice), and one whose contour cannot be
+        read (its ROI Contour item without a Contour Sequence, which DICOM
+        PS3.3 C.8.8.6 allows) has an unknown dose: neither is judged, and
+        neither may leave the plan clear: exit 4, with the reason in the
+        result line. A lens beyond the model's range is not judged either,
+        but its extrapolated value is held high and shown: that one alone
+        does not flag the plan (found by an independent review: a lens in
+        the field exited 0 while the same lens just outside it exited 4)."""
+        import pydicom
+        beams = [{"number": 1, "energy_mev": 9.0}]
+        groups = [{"number": 1, "fractions": 10, "beams": [(1, 300.0)]}]
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_L", (10.0, 10.0, 0.0))], beams, groups)
+            rc, js, err = estimate(plan, ss)
+            self.assertEqual(rc, 4, err)
+            self.assertIn("Lens_L (in the field: the planning system's dose applies)",
+                          js["result"]["text"])
+            self.assertNotIn("no judged organ reaches", js["result"]["text"])
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_L", (3000.0, 10.0, 0.0))], beams, groups)
+            rc, js, err = estimate(plan, ss)
+            self.assertEqual(rc, 0, err)
+            self.assertIn("not judged: Lens_L", js["result"]["text"])
+            s = pydicom.dcmread(ss)
+            for item in s.ROIContourSequence:
+                if int(item.ReferencedROINumber) == 2:
+                    del item.ContourSequence
+            s.save_as(ss)
+            rc, js, err = estimate(plan, ss)
+            self.assertEqual(rc, 4, err)
+            self.assertIn("Lens_L (its place, and so its dose, unknown)", js["result"]["text"])
+            rc, out, err = run("locate", plan, ss, "--model", MODEL)
+            self.assertIn("no samples (no closed contour and no point)", out)
+
+    def test_a_plan_of_another_source_axis_distance_is_refused(self):
+        """SourceAxisDistance (300A,00B4) 80 cm against the model machine's
+        100 cm: another machine or a wrong export, and the cutout and the
+        applicator's opening would be scaled to the wrong isocentric plane
+        (DICOM PS3.3 C.8.8.14): refused with a one-line error naming the
+        element (found by an independent review)."""
+        groups = [{"number": 1, "fractions": 10, "beams": [(1, 300.0)]}]
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_L", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 9.0, "sad_mm": 800.0}], groups)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+        self.assertEqual(rc, 3, err)
+        self.assertIn("SourceAxisDistance (300A,00B4) is 80.0 cm", err)
+        self.assertEqual(len(err.strip().splitlines()), 1, err)
+
+    def test_a_static_beam_that_states_a_rotation_is_refused(self):
+        """Gantry Rotation Direction (300A,011F) CW at control point 0 of a
+        STATIC electron beam whose later control points do not repeat the
+        angle: a rotation the placement does not model, refused (DICOM
+        PS3.3 C.8.8.14.5; found by an independent review: placed as
+        static)."""
+        import pydicom
+        groups = [{"number": 1, "fractions": 10, "beams": [(1, 300.0)]}]
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_L", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 9.0}], groups)
+            p = pydicom.dcmread(plan)
+            p.BeamSequence[0].ControlPointSequence[0].GantryRotationDirection = "CW"
+            p.save_as(plan)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+        self.assertEqual(rc, 3, err)
+        self.assertIn("'CW': a gantry rotation during delivery is not modelled", err)
+
+    def test_rois_in_two_frames_are_refused_when_the_plan_names_none(self):
+        """The plan without a Frame of Reference UID (its module is optional
+        in the RT Plan IOD) and a lens whose Referenced Frame of Reference
+        UID (3006,0024) differs from the body's: coordinates of two frames
+        cannot be combined without a registration (DICOM PS3.3 C.7.4.1), so
+        the pair is refused as with a plan that names its frame (found by an
+        independent review)."""
+        import pydicom
+        from pydicom.uid import generate_uid
+        groups = [{"number": 1, "fractions": 10, "beams": [(1, 300.0)]}]
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_L", (90.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 9.0}], groups)
+            p = pydicom.dcmread(plan)
+            del p.FrameOfReferenceUID
+            p.save_as(plan)
+            s = pydicom.dcmread(ss)
+            for r in s.StructureSetROISequence:
+                if r.ROIName == "Lens_L":
+                    r.ReferencedFrameOfReferenceUID = generate_uid()
+            s.save_as(ss)
+            rc, out, err = run("estimate", plan, ss, "--model", MODEL)
+        self.assertEqual(rc, 3, err)
+        self.assertIn("ROI 'Lens_L' lies in frame of reference", err)
+        self.assertIn("not the structure set's", err)
 
     def test_a_point_under_a_shielding_block_inside_the_field_is_in_the_field(self):
         """A 4 x 4 cm SHIELDING block on the central axis of a 10 x 10 cm
