@@ -211,6 +211,8 @@ typedef struct sl_assessment {
     int band, band_upper;     /* risk band by the estimate and by the upper bound; -1: none */
     bool flagged;             /* needs attention: exit code 4 */
     bool unjudged;            /* has levels, and this screening could not judge it */
+    bool unjudged_unknown;    /* unjudged, in or touching the field or with no place:
+                                 its dose is the treatment's or unknown (flagged) */
     double unjudged_level_gy; /* unjudged, and the value shown or its upper bound reaches
                                  this level (its lowest that applies); 0 otherwise */
     bool shield_advised;

@@ -74,8 +74,9 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
         a->flagged = true;
         a->measurement_advised = true;
     }
-    if (a->status == SL_ST_IN_FIELD || (a->dose && !a->dose->in_field && !a->dose->placed))
-        a->flagged = true;
+    a->unjudged_unknown =
+        a->status == SL_ST_IN_FIELD || (a->dose && !a->dose->in_field && !a->dose->placed);
+    a->flagged |= a->unjudged_unknown;
     sl_notes_add(&a->advice, "not judged by this screening (%s): %s",
                  a->status == SL_ST_IN_FIELD ? "in or touching the field"
                                              : (a->not_assessed_why ? a->not_assessed_why
@@ -297,8 +298,8 @@ static void missed_targets(const sl_estimate *est, sl_assessments *as)
 {
     if (est->nbeams == 0)
         return;
-    char names[400] = "";
-    size_t len = 0, n = 0;
+    sl_buf names = {0};
+    size_t n = 0;
     for (size_t i = 0; i < as->n; i++) {
         /* typed a target, or named one type first as AAPM TG-263 names
          * targets (RT ROI Interpreted Type may be empty: found by an
@@ -310,26 +311,22 @@ static void missed_targets(const sl_estimate *est, sl_assessments *as)
             !(sl_dose_type_target(d->roi->type) ||
               (target_prefix(d->roi->name) && !a->kind_by_option)))
             continue;
-        if (d->in_field)
+        if (d->in_field) {
+            sl_buf_free(&names);
             return;
-        if (len < sizeof names) {
-            char nm[160];
-            int w = snprintf(names + len, sizeof names - len, "%s%s", n ? ", " : "",
-                             sl_text_escape(d->roi->name, nm, sizeof nm));
-            len = w < 0 ? sizeof names : len + (size_t)w;
         }
-        n++;
+        char nm[160];
+        sl_buf_printf(&names, "%s%s", n++ ? ", " : "",
+                      sl_text_escape(d->roi->name, nm, sizeof nm));
     }
-    if (n == 0)
-        return;
-    if (len >= sizeof names)
-        strcpy(names + sizeof names - 5, " ...");
-    sl_notes_add(&as->missing,
-                 "target in a field: no target volume lies in any field (%s): check that the "
-                 "plan and the structure set belong together; every distance holds only if "
-                 "they do",
-                 names);
-    as->any_flagged = true;
+    if (n)
+        sl_notes_add(&as->missing,
+                     "target in a field: no target volume lies in any field (%s): check that "
+                     "the plan and the structure set belong together; every distance holds "
+                     "only if they do",
+                     names.data && !names.failed ? names.data : "");
+    as->any_flagged |= n > 0;
+    sl_buf_free(&names);
 }
 
 sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_patient *pt_in,

@@ -349,7 +349,7 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
                 sl_buf_printf(&b, "%s%s%s", c++ ? ", " : "", v[i].organ,
                               v[i].a && v[i].a->unjudged_level_gy > 0
                                   ? " (its value shown reaches its level)"
-                              : est_unjudged_unknown(v[i].a)
+                              : v[i].a && v[i].a->unjudged_unknown
                                   ? (v[i].a->status == SL_ST_IN_FIELD
                                          ? " (in the field: the planning system's dose applies)"
                                          : " (its place, and so its dose, unknown)")
@@ -360,7 +360,7 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
     for (size_t i = 0; i < n; i++) {
         natt += v[i].kind == EST_V_ATTENTION;
         nreach += v[i].kind == EST_V_NOT_JUDGED && v[i].a &&
-                  (v[i].a->unjudged_level_gy > 0 || est_unjudged_unknown(v[i].a));
+                  (v[i].a->unjudged_level_gy > 0 || v[i].a->unjudged_unknown);
     }
     if (!b.len)
         sl_buf_printf(&b, "no organ reaches its action level at this screening");
@@ -545,7 +545,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
                 orq(d->excluded_why));
     }
     for (size_t i = 0; i < r->as->missing.count; i++)
-        fprintf(fp, "%s%s\n", i ? "  " : "\nnot found (asked for or expected):\n  ", r->as->missing.items[i]);
+        fprintf(fp, "%s%s\n", i ? "  " : "\nnot found (asked for or expected):\n  ",
+                r->as->missing.items[i]);
     fprintf(fp, "\nmarks: %s%s\n", est_marks_legend(),
             r->nwhatifs ? "; [what-if] a what-if option changed this number" : "");
 

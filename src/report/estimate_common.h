@@ -127,9 +127,6 @@ typedef struct est_ventry {
 } est_ventry;
 
 /* The verdict box's lines, attention first (caller frees *out). */
-/* An organ with levels not judged because it lies in the field or its
- * place is unknown: flagged (sl_assess), said so in the result line. */
-bool est_unjudged_unknown(const sl_assessment *a);
 size_t est_verdict(const sl_estimate_report *r, est_ventry **out);
 const char *est_vkind_text(est_vkind k);
 /* The shape cue of a verdict line (HTML and PDF): a triangle for exceeds, a

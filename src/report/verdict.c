@@ -69,12 +69,6 @@ const char *est_whatif_mark(const sl_estimate_report *r, const char *roi)
     return "";
 }
 
-bool est_unjudged_unknown(const sl_assessment *a)
-{
-    return a && a->unjudged &&
-           (a->status == SL_ST_IN_FIELD || (a->dose && !a->dose->in_field && !a->dose->placed));
-}
-
 static const sl_whatif *whatif_for(const sl_estimate_report *r, const char *roi)
 {
     for (size_t i = 0; i < r->nwhatifs; i++)
