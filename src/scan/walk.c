@@ -18,7 +18,6 @@
  */
 #include <dirent.h>
 #include <errno.h>
-#include <limits.h>
 #include <stdarg.h>
 #include <stdint.h>
 #include <stdio.h>
@@ -107,9 +106,7 @@ void sl_scan_files_free(sl_scan_files *f)
     free(f);
 }
 
-/* Whether the symbolic link p leads to a regular file, to be read as one;
- * otherwise it becomes a bad row with its reason (*st set on running out
- * of memory). */
+/* What a link to a folder is judged against. */
 typedef struct walk_root {
     const char *real;           /* the scanned folder, resolved (NULL if not) */
     const struct stat *skip;    /* our output folder, or NULL */
@@ -124,6 +121,9 @@ static bool path_within(const char *t, const char *root)
     return strncmp(t, root, n) == 0 && (t[n] == '\0' || t[n] == '/');
 }
 
+/* Whether the symbolic link p leads to a regular file, to be read as one;
+ * otherwise it becomes a bad row with its reason (*st set on running out
+ * of memory). */
 static bool link_to_file(const char *p, const walk_root *wr, strvec *bad, strvec *badwhy,
                          sl_scan_files *f, sl_status *st)
 {
