@@ -31,6 +31,7 @@
 #include <cmath>
 #include <cstdlib>
 #include <cstring>
+#include <strings.h>
 #include <mutex>
 #include <new>
 #include <string>
@@ -530,6 +531,12 @@ void read_beam(Reader &r, DcmItem *it, size_t index, sl_beam *b, sl_plan *plan)
     std::string delivery = r.str(it, DCM_TreatmentDeliveryType);
     b->delivery_type = r.cstr(delivery.empty() ? std::string("TREATMENT") : delivery);
     const bool electron = strcmp(b->radiation_type, "ELECTRON") == 0;
+    /* a code string is upper case (PS3.5 6.2, CS): "electron" would pass as
+     * another kind of beam, its organs incomplete and its listing wrong */
+    if (!electron && strcasecmp(b->radiation_type, "ELECTRON") == 0)
+        r.fail(SL_EINPUT, Reader::at(ctx, DCM_RadiationType),
+               "'" + std::string(b->radiation_type) +
+                   "' is not a Radiation Type: a code string is upper case (ELECTRON)");
     if (delivery.empty() && electron &&
         sl_notes_add(&plan->notes,
                      "%s: %s: Treatment Delivery Type (300A,00CE) absent: taken as TREATMENT",

@@ -336,6 +336,12 @@ def main():
               lambda d: setattr(beam(d), "PrimaryDosimeterUnit", "MINUTE"),
               "PrimaryDosimeterUnit (300A,00B3): 'MINUTE': strayline reads an electron beam's "
               "meterset as monitor units")
+    # a Radiation Type in lower case (PS3.5 6.2: a code string is upper
+    # case) was taken for another kind of beam and listed as one
+    plan_case("radiation_type_lowercase.dcm",
+              lambda d: setattr(beam(d), "RadiationType", "electron"),
+              "RadiationType (300A,00C6): 'electron' is not a Radiation Type: a code string "
+              "is upper case (ELECTRON)")
     # a treatment beam of 0 MU would read 0 cGy at every organ and pass
     # them all (found by an independent review): the MU are unknown
     plan_case("meterset_zero.dcm",
