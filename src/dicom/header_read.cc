@@ -24,6 +24,7 @@
 #include <cerrno>
 #include <cstdio>
 #include <cstring>
+#include <strings.h>
 #include <fcntl.h>
 #include <mutex>
 #include <new>
@@ -141,7 +142,10 @@ sl_status fill(const char *path, DcmFileFormat &ff, sl_dicom_head *out, sl_error
             for (DcmObject *o = beams->nextInContainer(nullptr); o;
                  o = beams->nextInContainer(o)) {
                 out->nbeams++;
-                if (get(static_cast<DcmItem *>(o), DCM_RadiationType) == "ELECTRON")
+                /* any case: a lower-case "electron" is refused when the
+                 * plan is read, a row of its own, not skipped as photons */
+                if (strcasecmp(get(static_cast<DcmItem *>(o), DCM_RadiationType).c_str(),
+                               "ELECTRON") == 0)
                     out->electron_beams++;
             }
         }

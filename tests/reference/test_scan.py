@@ -17,6 +17,7 @@ import shutil
 import sqlite3
 import subprocess
 import unittest
+import warnings
 
 import pydicom
 import yaml
@@ -529,6 +530,28 @@ class WhatCannotBeRead(unittest.TestCase):
             self.assertIn("a symbolic link that leads nowhere readable", why[0])
             self.assertIn("a symbolic link to a folder, not followed", why[1])
 
+
+    def test_a_lower_case_electron_beam_is_an_error_not_a_skip(self):
+        """A Radiation Type written 'electron' (not a code string: PS3.5
+        6.2, CS is upper case) is refused when the plan is read: the plan is
+        an `error` row, flagged, exit 4. Before, the header count took it
+        for a plan without electron beams, `skipped` as photons are."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            copy_pair("face-lens", os.path.join(src, "a"), "LOWER")
+            path = os.path.join(src, "a", "rtplan.dcm")
+            plan = pydicom.dcmread(path)
+            with warnings.catch_warnings():  # pydicom warns of the CS value, as it should
+                warnings.simplefilter("ignore")
+                plan.BeamSequence[0].RadiationType = "electron"
+            plan.save_as(path)
+            out = os.path.join(d, "out")
+            rc, stdout, err = scan(src, out)
+            self.assertEqual(rc, 4, err)
+            with open(os.path.join(out, "summary.csv"), newline="") as f:
+                rows = list(csv.DictReader(f))
+            self.assertEqual([(r["outcome"], r["flagged"]) for r in rows], [("error", "yes")])
+            self.assertIn("a code string is upper case", rows[0]["message"])
 
 class Pdf(unittest.TestCase):
     def test_pdf_reports(self):
