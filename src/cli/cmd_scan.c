@@ -107,7 +107,6 @@ static void screen_task(size_t i, void *ctx)
     pthread_mutex_unlock(&p->lock);
 }
 
-/* Is plan_uid among the stale plans of the log? */
 /* Whether the plan has a row in h (for this machine's model when machine
  * is given). */
 static bool in_history(const sl_history *h, const char *uid, const char *machine)
