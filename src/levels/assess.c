@@ -627,7 +627,8 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                      "fetus): give its position, or measure its dose");
         as->any_flagged = true;
     }
-    if (((pt->pacing_dependent && pt->pacing_stated) || pt->device_asked) && !device_found) {
+    /* pacing dependence stated either way says the patient has a device */
+    if ((pt->pacing_stated || pt->device_asked) && !device_found) {
         sl_notes_add(&as->missing,
                      "cardiac_device: not assessed: no device found (no ROI matches the device "
                      "patterns or --organ ROI=cardiac_device, and no --device-point, --point or "

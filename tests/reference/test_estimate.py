@@ -453,6 +453,19 @@ class LevelsAndStatuses(unittest.TestCase):
                 assumed = any("pacing dependence not stated" in c
                               for c in js["result"]["case_cautions"])
                 self.assertEqual(assumed, not extra)
+            # pacing dependence stated either way says there is a device: a
+            # device nobody found is NOT FOUND, exit 4, for
+            # --not-pacing-dependent too (found by an independent review: a
+            # device named 'Pacemkr' passed at 712 cGy with exit 0)
+            os.makedirs(os.path.join(d, "n"))
+            plan2, ss2 = box_case(os.path.join(d, "n"), [("Pacemkr", (250.0, 10.0, 0.0))],
+                                  [{"number": 1, "energy_mev": 12.0}],
+                                  [{"number": 1, "fractions": 1, "beams": [(1, 100.0)]}])
+            for opt in ("--pacing-dependent", "--not-pacing-dependent"):
+                rc, js, _ = estimate(plan2, ss2, opt)
+                self.assertEqual(rc, 4, opt)
+                self.assertTrue(any(m.startswith("cardiac_device: not assessed")
+                                    for m in js["organs_not_found"]), (opt, js["organs_not_found"]))
             rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--pacing-dependent",
                                "--not-pacing-dependent")
             self.assertEqual(rc, 2)
