@@ -54,6 +54,13 @@ extern "C" {
  * bias common to them, which can reach several per cent at the short
  * film's low end: hence a margin well above that. */
 #define SL_FILM_OVERLAP_REFUSE 0.25
+
+/* A film's own central-axis dose over its cax_reference_cgy: above
+ * SL_FILM_AXIS_MAX_REL, or below SL_FILM_AXIS_MIN_REL at a depth no deeper
+ * than 0.8 R50 (R50 = E / 2.33 cm, IAEA TRS-398), is refused: the
+ * calibration or the reference is in another unit or for other MU. */
+#define SL_FILM_AXIS_MAX_REL 1.2
+#define SL_FILM_AXIS_MIN_REL 0.4
 /* Largest scan read (pixels), so that a hostile header cannot exhaust memory. */
 #define SL_FILM_MAX_PIXELS ((size_t)1 << 25) /* 33.5 million: 25 x 20 cm at 600 dpi */
 

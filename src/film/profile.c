@@ -1190,6 +1190,29 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             free(above);
             goto done;
         }
+        /* the film's own axis dose against the reference it is given: above
+         * the maximum by far, or at a depth no deeper than about R50 far
+         * below half of it, one of the two is in another unit or for other
+         * MU, and every percent of the profile with it (found by an
+         * independent review: a calibration in Gy, or a reference ten times
+         * too high, gave a model 100 or 10 times low). R50 = E / 2.33 cm
+         * (IAEA TRS-398, E0 = 2.33 R50), with a margin: 0.8 R50. */
+        double axis_rel = saturated ? NAN : cax / fp->cax_ref;
+        bool shallow = fp->depth_cm <= 0.8 * fp->energy_mev / 2.33;
+        if (isfinite(axis_rel) &&
+            (axis_rel > SL_FILM_AXIS_MAX_REL || (shallow && axis_rel < SL_FILM_AXIS_MIN_REL))) {
+            free(pv);
+            free(above);
+            st = sl_error_set(err, SL_EINPUT,
+                              "%s: the film's own central-axis dose, %.4g cGy, is %.3g times its "
+                              "cax_reference_cgy (%g cGy) at depth %g cm for %g MeV (expected "
+                              "%s): the calibration's doses or the reference are in another "
+                              "unit, or for other monitor units",
+                              where, cax, axis_rel, fp->cax_ref, fp->depth_cm, fp->energy_mev,
+                              shallow ? "between 0.4 and 1.2 this shallow"
+                                      : "at most 1.2");
+            goto done;
+        }
         r->id = fp->id;
         r->scan_name = fp->scan;
         r->scan = s;

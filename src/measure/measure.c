@@ -753,13 +753,17 @@ static double dose_at(const sl_profile_data *p, double x)
     return NAN;
 }
 
-/* The profiles of one energy, applicator and insert at depths no deeper
- * than the maximum read alike far from the field, where head leakage and
- * scatter dominate and depth, direction, tilt and SSD change the dose by
- * a factor of two or so. One that reads SL_LEVELS_APART times lower or
- * higher than the median of the others at the same distance is in another
- * unit or against another reference dose (the checks at the axis and the
- * edge see only profiles that start there). */
+/* The profiles of one energy, applicator and insert read alike far from
+ * the field, where head leakage and scatter dominate and depth, direction,
+ * tilt and SSD change the dose by a factor of two or so. One that reads
+ * SL_LEVELS_APART times lower or higher than the median of the others at
+ * the same distance is in another unit or against another reference dose
+ * (the checks at the axis and the edge see only profiles no deeper than the
+ * maximum that start there). At every depth: a profile deeper than the
+ * maximum in fractions read 100 times low at every deep organ (found by an
+ * independent review). Two profiles alone (along one direction) are
+ * compared with each other, and neither is taken when they read that far
+ * apart. */
 static sl_status check_levels_agree(const sl_measurement_set *m, const char *name,
                                     sl_error *err)
 {
@@ -770,25 +774,29 @@ static sl_status check_levels_agree(const sl_measurement_set *m, const char *nam
     sl_status st = SL_OK;
     for (size_t i = 0; st == SL_OK && i < n; i++) {
         const sl_profile_data *p = &m->profiles[i];
-        const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
-        if (!o || p->depth_cm > o->dmax_cm || p->n < 2)
+        if (p->n < 2)
             continue;
         /* the farthest distance both reach, at most SL_LEVELS_AT_CM */
         size_t k = 0;
+        bool same_direction = true; /* of the others */
         for (size_t j = 0; j < n; j++) {
             const sl_profile_data *q = &m->profiles[j];
             if (j == i || q->n < 2 || q->entry == p->entry ||
                 fabs(q->energy_mev - p->energy_mev) > 0.01 ||
-                strcmp(q->applicator, p->applicator) != 0 || strcmp(q->insert, p->insert) != 0 ||
-                q->depth_cm > o->dmax_cm)
+                strcmp(q->applicator, p->applicator) != 0 || strcmp(q->insert, p->insert) != 0)
                 continue;
             double x = fmin(SL_LEVELS_AT_CM, fmin(p->distance_cm[p->n - 1],
                                                   q->distance_cm[q->n - 1]));
             double a = dose_at(p, x), b = dose_at(q, x);
-            if (isfinite(a) && isfinite(b) && a > 0 && b > 0)
+            if (isfinite(a) && isfinite(b) && a > 0 && b > 0) {
                 v[k++] = a / b;
+                same_direction = same_direction && p->direction && q->direction &&
+                                 strcmp(p->direction, q->direction) == 0;
+            }
         }
-        if (k < 2)
+        /* a pair alone only along one direction: a diagonal's distance from
+         * a square field's corner reads far lower than a side's nearby */
+        if (k == 0 || (k == 1 && !same_direction))
             continue;
         /* the median ratio to the others */
         for (size_t a = 1; a < k; a++)
@@ -800,11 +808,14 @@ static sl_status check_levels_agree(const sl_measurement_set *m, const char *nam
         double med = k % 2 ? v[k / 2] : sqrt(v[k / 2 - 1] * v[k / 2]);
         if (med < 1 / SL_LEVELS_APART || med > SL_LEVELS_APART)
             st = sl_error_set(err, SL_EINPUT,
-                              "%s: profile %zu (%s) reads %.3g times the other profiles of "
+                              "%s: profile %zu (%s) reads %.3g times the other profile%s of "
                               "%g MeV, applicator '%s', insert '%s' far from the field (median "
-                              "of %zu, at up to %g cm): another unit or another reference dose?",
-                              name, p->entry, p->path ? p->path : p->file, med, p->energy_mev,
-                              p->applicator, p->insert, k, SL_LEVELS_AT_CM);
+                              "of %zu, at up to %g cm): another unit or another reference "
+                              "dose?%s",
+                              name, p->entry, p->path ? p->path : p->file, med,
+                              k == 1 ? "" : "s", p->energy_mev, p->applicator, p->insert, k,
+                              SL_LEVELS_AT_CM,
+                              k == 1 ? " (of two profiles either may be the one)" : "");
     }
     free(v);
     return st;

@@ -505,6 +505,11 @@ static sl_status read_model(sl_yaml *y, sl_model *m, sl_error *err)
     m->format_version = version;
     if (st == SL_OK)
         st = sl_yaml_string(y, k[2].node, "model_version", &m->model_version, err);
+    /* every report and the log trace an estimate to this label */
+    if (st == SL_OK && !m->model_version[strspn(m->model_version, " \t")])
+        st = sl_yaml_error(y, k[2].node, err,
+                           "model_version: empty (every report and the log name the model by "
+                           "it: give it a label)");
     if (st == SL_OK && k[3].node)
         st = sl_yaml_string(y, k[3].node, "notice", &m->notice, err);
     if (st == SL_OK)

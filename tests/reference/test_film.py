@@ -878,8 +878,21 @@ class BadFilmInput(unittest.TestCase):
         def m(doc):
             for f in doc["films"]:
                 f["cax_reference_cgy"] *= 10
-        self.refused(self.films_variant("ref10", m), "the dose on the axis reads",
-                     "another reference dose")
+        self.refused(self.films_variant("ref10", m), "the film's own central-axis dose",
+                     "times its cax_reference_cgy", "another unit")
+
+    def test_a_reference_ten_times_too_high_deeper_than_the_maximum(self):
+        """The same at films labelled 2 cm deep (deeper than the maximum, 1.5
+        cm, where the profile's own axis rule does not apply, but shallower
+        than 0.8 R50 = 0.8 x 9 / 2.33 cm, IAEA TRS-398: the axis reads 50 %
+        and more there): each film's own axis dose against its reference is
+        refused (found by an independent review: a model ten times low)."""
+        def m(doc):
+            for f in doc["films"]:
+                f["cax_reference_cgy"] *= 10
+                f["depth_cm"] = 2.0
+        self.refused(self.films_variant("ref10deep", m), "the film's own central-axis dose",
+                     "at depth 2 cm")
 
     def test_one_exposure_with_a_wrong_reference_is_refused(self):
         """The longer exposure's reference ten times too high: where the two

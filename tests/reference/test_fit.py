@@ -392,6 +392,44 @@ class ProfilesInAnotherUnit(unittest.TestCase):
         self.refuse_fraction("e09_a10_open_d1.00.csv", False, start=0.5,
                              fragment="another unit or another reference dose")
 
+    def test_a_profile_deeper_than_the_maximum_as_a_fraction(self):
+        """6 MeV, A06, open at 2 cm, deeper than the maximum (1.36 cm), where
+        neither the axis nor the edge rule applies: far from the field it
+        reads a hundredth of the other depths' profiles and is refused (found
+        by an independent review: every deep organ read 100 times low)."""
+        self.refuse_fraction("e06_a06_open_d2.00.csv", False,
+                             fragment="another unit or another reference dose")
+
+    def test_two_profiles_alone_are_compared(self):
+        """An insert measured at two depths only, one of them a hundredth of
+        the other far out: with no third to take a median from, the two are
+        compared and refused, saying either may be the one (found by an
+        independent review: a pair was never compared)."""
+        with tempdir() as d:
+            dst = os.path.join(d, "set")
+            shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"),
+                            dst)
+            ms = os.path.join(dst, "measurements.yaml")
+            with open(ms) as f:
+                doc = yaml.safe_load(f)
+            # keep two of the 6 MeV A06 C4 insert's profiles: 0 and 2 cm
+            doc["profiles"] = [p for p in doc["profiles"]
+                               if not (p["energy_mev"] == 6 and p["applicator"] == "A06" and
+                                       p["insert"] == "C4" and p["depth_cm"] not in (0, 2))]
+            with open(ms, "w") as f:
+                yaml.safe_dump(doc, f)
+            path = os.path.join(dst, "profiles", "e06_a06_c4_d2.00.csv")
+            with open(path) as f:
+                rows = list(csv.reader(f))
+            with open(path, "w", newline="") as f:
+                w = csv.writer(f)
+                w.writerow(rows[0])
+                for r in rows[1:]:
+                    w.writerow([r[0], repr(float(r[1]) / 100)])
+            rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
+        self.assertEqual(rc, 3, err)
+        self.assertIn("either may be the one", err)
+
 
 class OneSideHotter(unittest.TestCase):
     """The demo set's through-field profile at 9 MeV, A10, 1 cm, inplane, with
