@@ -154,6 +154,12 @@ sl_status sl_screenlog_add_reading(sl_screenlog *log, const sl_invivo_result *r,
 sl_status sl_screenlog_readings(sl_screenlog *log, const char *machine, sl_log_readings **out,
                                 sl_error *err);
 void sl_log_readings_free(sl_log_readings *r);
+/* Keep only the readings that were compared with the model of this SHA-256:
+ * a reading's ratio measured/estimated holds for the model it was added
+ * against, not for another version. Returns how many were left out;
+ * *versions (when given) receives their model versions, ", " between them
+ * (allocated; NULL when none left out or out of memory). */
+size_t sl_log_readings_keep_model(sl_log_readings *rs, const char *sha256, char **versions);
 
 /* ------------------------------------------------------ statistics -- */
 
@@ -206,6 +212,12 @@ sl_status sl_report_invivo_pdf(const sl_invivo_report *r, const char *paper,
 
 /* Fewer readings than this in a band: the band keeps the model's value. */
 #define SL_INVIVO_MIN_BAND 5
+/* The least transfer band a proposal sets: readings that state a larger
+ * uncertainty than they scatter would cancel the band to 0, and the upper
+ * bounds with it (found by an independent review). The value at which
+ * `fit` warns of a band too small (SL_TRANSFER_WARN_BELOW, a strayline
+ * setting). */
+#define SL_INVIVO_BAND_FLOOR 0.1
 
 typedef struct sl_invivo_proposal {
     size_t nbands;
@@ -214,6 +226,7 @@ typedef struct sl_invivo_proposal {
     double *rms;                        /* root mean square log ratio in each band */
     double *u_other;                    /* RMS of the readings' own relative uncertainties */
     double *upper;                      /* 95 % upper bound of the spread (chi-square, n dof) */
+    bool *floored;                      /* new_rel raised to SL_INVIVO_BAND_FLOOR */
     size_t nreadings;
     char *first_date, *last_date;
 } sl_invivo_proposal;
@@ -240,13 +253,13 @@ void sl_invivo_proposal_free(sl_invivo_proposal *p);
  * rests on a stand-in, an extrapolation or the near-edge zone (where the
  * model errs high on purpose) are left out of the scale altogether (a
  * strayline setting). */
-#define SL_INVIVO_MIN_PLANS 3
+#define SL_INVIVO_MIN_PATIENTS 3
 #define SL_INVIVO_SCALE_EXCLUDED (SL_MF_OPEN_FOR_CUTOUT | SL_MF_EXTRAPOLATED | SL_MF_NEAR_EDGE)
 typedef struct sl_invivo_scale_choice {
     char *energy, *applicator;
     double energy_mev;                  /* NAN when the readings' energies differ */
     size_t n;                           /* readings used (the excluded ones aside) */
-    size_t nplans;                      /* distinct plans among them */
+    size_t npatients;                   /* distinct patients among them (Patient ID) */
     double mean_log_ratio, ci_lo, ci_hi, p_bias;
     char *first_date, *last_date;
     bool take;

@@ -214,6 +214,35 @@ typedef struct report_outputs {
     const char *output, *html, *pdf, *paper;
 } report_outputs;
 
+/* The readings compared with this very model (its SHA-256): a ratio
+ * measured/estimated says nothing of another version's estimate (found by
+ * an independent review: readings against a model whose output was twice
+ * this one's halved this one with a scale of 0.5). The others are named
+ * and left out; none left is an error. */
+static bool this_model_only(sl_log_readings *rs, const sl_model *model, const char *log_path,
+                            sl_error *err)
+{
+    size_t had = rs->n;
+    char *versions = NULL;
+    size_t dropped = sl_log_readings_keep_model(rs, model->sha256, &versions);
+    if (dropped)
+        fprintf(stderr,
+                "strayline invivo: warning: %zu of the %zu readings of machine %s in %s were "
+                "compared with another version of the model (%s), not with this one (%s, "
+                "SHA-256 %.16s...): left out; add them again (invivo add) against this model "
+                "to count them\n",
+                dropped, had, model->machine.name, log_path, versions ? versions : "?",
+                model->model_version, model->sha256);
+    free(versions);
+    if (dropped && rs->n == 0) {
+        sl_error_set(err, SL_EINPUT, "%s: no reading of machine %s was compared with this model "
+                                     "(version %s): nothing to propose from",
+                     log_path, model->machine.name, model->model_version);
+        return false;
+    }
+    return true;
+}
+
 static int cmd_report(const char *model_path, const char *log_path, sl_format fmt,
                       const report_outputs *o)
 {
@@ -231,6 +260,7 @@ static int cmd_report(const char *model_path, const char *log_path, sl_format fm
         (!model && sl_transfer_default(&defaults, &err) != SL_OK) ||
         sl_screenlog_open(log_path, false, &log, &err) != SL_OK ||
         sl_screenlog_readings(log, model ? model->machine.name : NULL, &rs, &err) != SL_OK ||
+        (model && !this_model_only(rs, model, log_path, &err)) ||
         sl_invivo_statistics(rs, model ? &model->machine.transfer : &defaults, &stats, &err) !=
             SL_OK) {
         rc = sl_cli_fail(&err);
@@ -362,6 +392,7 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
     if (sl_cli_read_model(model_path, &model, &err) != SL_OK ||
         sl_screenlog_open(log_path, false, &log, &err) != SL_OK ||
         sl_screenlog_readings(log, model->machine.name, &rs, &err) != SL_OK ||
+        !this_model_only(rs, model, log_path, &err) ||
         sl_invivo_propose(model, rs, &p, &err) != SL_OK ||
         (scale && sl_invivo_propose_scales(model, rs, &sc, &err) != SL_OK)) {
         rc = sl_cli_fail(&err);
@@ -379,8 +410,18 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
         goto done;
     }
     size_t changed = 0;
-    for (size_t b = 0; b < p->nbands; b++)
+    for (size_t b = 0; b < p->nbands; b++) {
         changed += p->n[b] >= SL_INVIVO_MIN_BAND;
+        if (p->n[b] >= SL_INVIVO_MIN_BAND && p->floored[b])
+            fprintf(stderr,
+                    "strayline invivo: warning: transfer band %zu: the readings' own stated "
+                    "uncertainty covers their spread, which would leave %.3f; it is set to %g, "
+                    "the least a proposal sets (check the readings' stated uncertainties)\n",
+                    b + 1, p->upper[b] > p->u_other[b]
+                               ? sqrt(p->upper[b] * p->upper[b] - p->u_other[b] * p->u_other[b])
+                               : 0.0,
+                    SL_INVIVO_BAND_FLOOR);
+    }
     /* the evidence, in the bands' source, so that model show and every
      * estimate report repeat where the transfer uncertainty came from */
     size_t cap = 4096 + 256 * p->nbands + strlen(log_path) + strlen(model_path) +
@@ -413,8 +454,9 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
         if (p->n[b] >= SL_INVIVO_MIN_BAND)
             k += snprintf(source + k, cap - (size_t)k,
                           "; %s: n = %zu, RMS log ratio %.3f, upper bound %.3f, readings' "
-                          "own %.3f, relative %.3f (was %.3f)",
+                          "own %.3f, relative %.3f%s (was %.3f)",
                           range, p->n[b], p->rms[b], p->upper[b], p->u_other[b], p->new_rel[b],
+                          p->floored[b] ? ", raised to the least a proposal sets" : "",
                           p->old_rel[b]);
         else
             k += snprintf(source + k, cap - (size_t)k, "; %s: n = %zu, kept %.3f", range,
@@ -456,10 +498,12 @@ static int cmd_propose(const char *model_path, const char *log_path, const char 
         rc = sl_cli_fail(&err);
         goto done;
     }
+    char scales[64] = "";
+    if (scale)
+        snprintf(scales, sizeof scales, ", %zu in-vivo scale%s", taken, taken == 1 ? "" : "s");
     fprintf(stderr, "strayline invivo: wrote %s, model_version %s: transfer uncertainty from %zu "
-                    "readings (%zu of %zu bands changed)%s%zu in-vivo scale%s; %s is unchanged\n",
-            output, newlabel, p->nreadings, changed, p->nbands, scale ? ", " : "", taken,
-            taken == 1 ? "" : "s", model_path);
+                    "readings (%zu of %zu bands changed)%s; %s is unchanged\n",
+            output, newlabel, p->nreadings, changed, p->nbands, scales, model_path);
 done:
     free(source);
     sl_invivo_scales_free(sc);

@@ -205,6 +205,7 @@ void sl_invivo_proposal_free(sl_invivo_proposal *p)
     free(p->rms);
     free(p->u_other);
     free(p->upper);
+    free(p->floored);
     free(p->first_date);
     free(p->last_date);
     free(p);
@@ -226,7 +227,9 @@ sl_status sl_invivo_propose(const sl_model *m, const sl_log_readings *rs,
     p->rms = calloc(nb, sizeof *p->rms);
     p->u_other = calloc(nb, sizeof *p->u_other);
     p->upper = calloc(nb, sizeof *p->upper);
-    if (!nb || !p->old_rel || !p->new_rel || !p->n || !p->rms || !p->u_other || !p->upper) {
+    p->floored = calloc(nb, sizeof *p->floored);
+    if (!nb || !p->old_rel || !p->new_rel || !p->n || !p->rms || !p->u_other || !p->upper ||
+        !p->floored) {
         sl_invivo_proposal_free(p);
         return sl_error_set(err, nb ? SL_ENOMEM : SL_EINTERNAL,
                             nb ? "out of memory" : "propose: the model has no transfer bands");
@@ -277,6 +280,9 @@ sl_status sl_invivo_propose(const sl_model *m, const sl_log_readings *rs,
         if (p->n[b] >= SL_INVIVO_MIN_BAND) {
             double v = p->upper[b] * p->upper[b] - p->u_other[b] * p->u_other[b];
             p->new_rel[b] = v > 0 ? sqrt(v) : 0;
+            p->floored[b] = !(p->new_rel[b] >= SL_INVIVO_BAND_FLOOR);
+            if (p->floored[b])
+                p->new_rel[b] = SL_INVIVO_BAND_FLOOR;
         }
     }
     free(sum2);
@@ -351,16 +357,20 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
         c->ci_lo = g->ci_lo;
         c->ci_hi = g->ci_hi;
         c->p_bias = g->p_bias;
-        size_t nplans = 0; /* distinct plans among the group's readings */
+        /* distinct patients among the group's readings: a patient's plan
+         * revisions are not independent evidence about the machine (found
+         * by an independent review: three revisions of one plan scaled a
+         * whole energy and applicator) */
+        size_t npatients = 0;
         for (size_t j = 0; j < g->n; j++) {
-            const char *pu = use.r[g->idx[j]].plan_uid;
+            const char *pu = use.r[g->idx[j]].patient_id;
             bool seen = false;
             for (size_t k = 0; k < j && !seen; k++)
-                seen = pu && use.r[g->idx[k]].plan_uid &&
-                       strcmp(pu, use.r[g->idx[k]].plan_uid) == 0;
-            nplans += !seen;
+                seen = pu && use.r[g->idx[k]].patient_id &&
+                       strcmp(pu, use.r[g->idx[k]].patient_id) == 0;
+            npatients += !seen;
         }
-        c->nplans = nplans;
+        c->npatients = npatients;
         for (size_t j = 0; j < g->n; j++) {
             const char *d = use.r[g->idx[j]].date;
             if (!c->first_date || strcmp(d, c->first_date) < 0) {
@@ -388,11 +398,11 @@ sl_status sl_invivo_propose_scales(const sl_model *m, const sl_log_readings *rs,
         else if (c->n < SL_INVIVO_MIN_BAND)
             snprintf(c->why, sizeof c->why, "%zu readings, fewer than %d", c->n,
                      SL_INVIVO_MIN_BAND);
-        else if (c->nplans < SL_INVIVO_MIN_PLANS)
+        else if (c->npatients < SL_INVIVO_MIN_PATIENTS)
             snprintf(c->why, sizeof c->why,
-                     "readings from %zu plan%s, fewer than %d: readings on one patient are not "
-                     "independent evidence about the machine",
-                     c->nplans, c->nplans == 1 ? "" : "s", SL_INVIVO_MIN_PLANS);
+                     "readings from %zu patient%s, fewer than %d: readings on one patient are "
+                     "not independent evidence about the machine",
+                     c->npatients, c->npatients == 1 ? "" : "s", SL_INVIVO_MIN_PATIENTS);
         else if (!(c->p_bias < SL_INVIVO_SCALE_P))
             snprintf(c->why, sizeof c->why,
                      "bias not significant (t test p = %.3g, not below %g)", c->p_bias,

@@ -198,20 +198,51 @@ done:
     return st;
 }
 
+static void reading_clear(sl_log_reading *r)
+{
+    char **f[] = {&r->added_at,   &r->reading_id, &r->readings_file, &r->date,
+                  &r->patient_id, &r->plan_uid,   &r->structure_set_uid, &r->plan_label,
+                  &r->position,   &r->detector,   &r->machine,       &r->energy,
+                  &r->applicator, &r->check,      &r->model_file,    &r->model_version,
+                  &r->model_sha256};
+    for (size_t j = 0; j < sizeof f / sizeof *f; j++)
+        free(*f[j]);
+}
+
+size_t sl_log_readings_keep_model(sl_log_readings *rs, const char *sha256, char **versions)
+{
+    if (versions)
+        *versions = NULL;
+    sl_buf v = {0};
+    size_t kept = 0, dropped = 0;
+    for (size_t i = 0; i < rs->n; i++) {
+        sl_log_reading *r = &rs->r[i];
+        if (r->model_sha256 && strcmp(r->model_sha256, sha256) == 0) {
+            rs->r[kept++] = *r;
+            continue;
+        }
+        /* each version named once (a substring of another is named
+         * anyway: a list to read, not to parse) */
+        const char *ver = r->model_version ? r->model_version : "(no version)";
+        if (!v.data || !strstr(v.data, ver))
+            sl_buf_printf(&v, "%s%s", v.len ? ", " : "", ver);
+        dropped++;
+        reading_clear(r);
+    }
+    rs->n = kept;
+    if (versions && dropped && v.data && !v.failed)
+        *versions = v.data;
+    else
+        sl_buf_free(&v);
+    return dropped;
+}
+
 void sl_log_readings_free(sl_log_readings *rs)
 {
     if (!rs)
         return;
-    for (size_t i = 0; i < rs->n; i++) {
-        sl_log_reading *r = &rs->r[i];
-        char **f[] = {&r->added_at,   &r->reading_id, &r->readings_file, &r->date,
-                      &r->patient_id, &r->plan_uid,   &r->structure_set_uid, &r->plan_label,
-                      &r->position,   &r->detector,   &r->machine,       &r->energy,
-                      &r->applicator, &r->check,      &r->model_file,    &r->model_version,
-                      &r->model_sha256};
-        for (size_t j = 0; j < sizeof f / sizeof *f; j++)
-            free(*f[j]);
-    }
+    for (size_t i = 0; i < rs->n; i++)
+        reading_clear(&rs->r[i]);
     free(rs->r);
     free(rs);
 }

@@ -347,7 +347,8 @@ class Statistics(unittest.TestCase):
             for i, r in enumerate(log_ratios):
                 row = dict(base)
                 del row["id"]
-                row.update(plan_uid="2.25.%d" % (900000 + (i % plans if plans else i)))
+                k = i % plans if plans else i
+                row.update(plan_uid="2.25.%d" % (900000 + k), patient_id="SYN-%d" % k)
                 if flags is not None:
                     row.update(model_flags=flags)
                 row.update(reading_id="S%d" % i, log_ratio=float(r), u_log_ratio=u,
@@ -409,6 +410,29 @@ class Statistics(unittest.TestCase):
         for hits in (hit_bias, hit_sd):
             p = stats.binomtest(hits, reps, 0.95).pvalue
             self.assertGreater(p, 0.01, "%d of %d intervals held the true value" % (hits, reps))
+
+    def test_a_proposed_band_is_never_below_the_floor(self):
+        """Six readings that scatter by about 6 % but state 50 % uncertainty
+        each: the band would be the chi-square upper bound less their own
+        uncertainty in quadrature, 0 here; it is set to 0.1, the least a
+        proposal sets (the value below which fit warns), with a warning
+        (found by an independent review: the 0 to 5 cm band went from 0.25
+        to 0.000, and the k = 2 upper bounds with it)."""
+        r = [0.05, -0.06, 0.04, -0.05, 0.07, -0.03]
+        log = self.synthetic_log("floor.sqlite", r, 0.5, distance=3.0)
+        con = sqlite3.connect(log)
+        try:
+            con.execute("UPDATE invivo_reading SET u_measured_cgy = 0.5 * measured_cgy")
+            con.commit()
+        finally:
+            con.close()
+        new = os.path.join(self.tmp.name, "floored.yaml")
+        rc, out, err = run("invivo", "propose", "--model", MODEL, "--log", log, "-o", new)
+        self.assertEqual(rc, 0, err)
+        self.assertIn("the least a proposal sets", err)
+        tr = run_json("model", "show", new, "-f", "json")["transfer_uncertainty"]
+        self.assertEqual(tr["bands"][0]["relative"], 0.1)
+        self.assertIn("raised to the least a proposal sets", tr["source"])
 
 
 class Propose(unittest.TestCase):
@@ -473,6 +497,55 @@ class Propose(unittest.TestCase):
             self.assertEqual(rc, 2)
             self.assertIn("a new model needs a new label", err)
             self.assertFalse(os.path.exists(new))
+
+    def test_propose_counts_only_readings_against_this_model(self):
+        """A reading's ratio measured/estimated holds for the model it was
+        added against: readings added against another version of the model
+        (another SHA-256, here the demo model with a new version label) are
+        named and left out, and with none left propose refuses (found by an
+        independent review: readings against a model with twice this one's
+        output halved it with a scale of 0.5, the source claiming they were
+        compared with this one)."""
+        with tempdir() as d:
+            other = os.path.join(d, "other.yaml")
+            with open(MODEL) as f:
+                text = f.read()
+            with open(other, "w") as f:
+                f.write(text.replace("model_version: 2026.12-demo",
+                                     "model_version: 2026.10-older", 1))
+            shutil.copy(LEVELS, d)  # read beside the model
+            log = os.path.join(d, "log.sqlite")
+            new = os.path.join(d, "new.yaml")
+            rc, out, err = run("invivo", "add", DEMO, "--model", other, "--log", log)
+            self.assertEqual(rc, 0, err)
+            n_other = len(rows(log))
+            rc, out, err = run("invivo", "propose", "--model", MODEL, "--log", log, "-o", new,
+                               "--scale")
+            self.assertEqual(rc, 3, err)
+            self.assertIn("%d of the %d readings" % (n_other, n_other), err)
+            self.assertIn("2026.10-older", err)
+            self.assertIn("no reading of machine", err)
+            self.assertFalse(os.path.exists(new))
+            # the same readings against this model too (under other ids, in a
+            # copy that finds the cases it names): only those count
+            for case in ("face-lens", "neck-device"):
+                shutil.copytree(os.path.join(SOURCE_ROOT, "examples", case),
+                                os.path.join(d, case))
+            os.makedirs(os.path.join(d, "invivo"))
+            again = os.path.join(d, "invivo", "again.yaml")
+            with open(DEMO) as f:
+                text = f.read().replace("  - id: ", "  - id: AGAIN-")
+            with open(again, "w") as f:
+                f.write(text)
+            rc, out, err = run("invivo", "add", again, "--model", MODEL, "--log", log)
+            self.assertEqual(rc, 0, err)
+            rc, out, err = run("invivo", "propose", "--model", MODEL, "--log", log, "-o", new)
+            self.assertEqual(rc, 0, err)
+            self.assertIn("left out", err)
+            tr = run_json("model", "show", new, "-f", "json")["transfer_uncertainty"]
+            self.assertIn("%d readings" % (len(rows(log)) - n_other), tr["source"])
+            rep = run_json("invivo", "report", "--log", log, "--model", MODEL, "-f", "json")
+            self.assertEqual(sum(g["n"] for g in rep["groups"]), len(rows(log)) - n_other)
 
 
 if __name__ == "__main__":
@@ -565,8 +638,22 @@ class Scale(unittest.TestCase):
             return run_json("model", "show", new, "-f", "json")["invivo_scales"]
         for plans in (1, 2):
             rc, err, log, new = self.scaled_model("plans%d" % plans, r, plans=plans)
-            self.assertIn("readings from %d plan" % plans, err)
+            self.assertIn("readings from %d patient" % plans, err)
             self.assertEqual(scales(new), [])
+        # three plans of one patient are one patient (found by an
+        # independent review: three revisions scaled every field)
+        rc, err, log, new = self.scaled_model("onepatient", r, plans=3)
+        con = sqlite3.connect(log)
+        try:
+            con.execute("UPDATE invivo_reading SET patient_id = 'SYN-ONE'")
+            con.commit()
+        finally:
+            con.close()
+        os.unlink(new) if os.path.exists(new) else None
+        rc, out, err = run("invivo", "propose", "--scale", "--model", MODEL, "--log", log,
+                           "-o", new)
+        self.assertIn("readings from 1 patient", err)
+        self.assertEqual(scales(new), [])
         rc, err, log, new = self.scaled_model("standin", -r, flags=8)
         self.assertEqual(scales(new), [])
         self.assertIn("0 in-vivo scales", err)
