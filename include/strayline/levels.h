@@ -210,16 +210,22 @@ typedef struct sl_assessment {
     sl_level_check *checks;   /* every applicable level */
     int band, band_upper;     /* risk band by the estimate and by the upper bound; -1: none */
     bool flagged;             /* needs attention: exit code 4 */
-    bool unjudged;            /* has levels, and this screening could not judge it */
+    bool unjudged;            /* has levels (or kind_unknown), and this screening could not
+                                 judge it */
     bool unjudged_unknown;    /* unjudged, in or touching the field or with no place:
                                  its dose is the treatment's or unknown (flagged) */
     double unjudged_level_gy; /* unjudged, and the value shown or its upper bound reaches
                                  this level (its lowest that applies); 0 otherwise */
+    bool kind_unknown;        /* no kind matches its name and its upper bound reaches the
+                                 table's lowest level: unjudged, flagged (an embryo or a
+                                 device in a spelling the table lacks) */
     bool shield_advised;
     double lead_mm, alloy_mm, shield_energy_mev;
     bool photon_dominated;
     bool measurement_advised;
     double lar_cases;         /* per 100,000, from the mean course dose; NAN when not given */
+    double lar_mean_cgy;      /* the mean course dose it is from: the estimate's mean plus
+                                 any --other-dose (taken as spread over the organ), cGy */
     const sl_lar_table *lar;
     sl_notes advice;          /* each line with its source */
     sl_notes statements;      /* the kind's statements that apply, with sources */
@@ -239,8 +245,9 @@ typedef struct sl_assessments {
     size_t n;
     sl_assessment *items;     /* one per organ of the estimate */
     bool any_flagged;
-    size_t n_unjudged;        /* organs with levels that were not judged: in the field,
-                                 beyond the model's range or not placed */
+    size_t n_unjudged;        /* organs with levels that were not judged (in the field,
+                                 beyond the model's range or not placed), and those of no
+                                 kind that reach the table's lowest level */
     size_t nother;
     sl_other_beam *other;     /* treatment beams not estimated by this tool */
     size_t n_incomplete;      /* organs with levels marked incomplete */

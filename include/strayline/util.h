@@ -33,6 +33,11 @@ bool sl_parse_double(const char *text, double *out);
 /* Parse a whole string as an int in [INT_MIN, INT_MAX]. */
 bool sl_parse_int(const char *text, int *out);
 
+/* The decimals to print v with (at least dec, at most 6) so that a value
+ * below level never reads as the level: 49.97 printed "%.1f" is 50.0,
+ * beside a status that says "below level 50.0". */
+int sl_decimals_below(double v, double level, int dec);
+
 /* strdup that accepts NULL (returns NULL) and reports allocation failure
  * through *ok (set to false, never set to true). */
 char *sl_strdup(const char *s, bool *ok);

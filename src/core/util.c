@@ -13,12 +13,26 @@
 #include <limits.h>
 #include <math.h>
 #include <stdarg.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
 #include <nettle/sha2.h>
+
+int sl_decimals_below(double v, double level, int dec)
+{
+    if (!(isfinite(v) && isfinite(level) && v < level))
+        return dec;
+    char b[400];
+    for (int d = dec; d < 6; d++) {
+        snprintf(b, sizeof b, "%.*f", d, v);
+        if (strtod(b, NULL) < level)
+            return d;
+    }
+    return 6;
+}
 
 bool sl_parse_double(const char *text, double *out)
 {

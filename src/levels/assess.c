@@ -89,6 +89,27 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
                                  : "measure it if its dose matters"));
 }
 
+/* An estimated organ whose name matches no kind of the table may be any
+ * of them: a clinic's own spelling, or a language the patterns lack
+ * ("Embrione" at 69 mGy passed with exit 0; found by an independent
+ * review). Once its upper bound reaches the table's lowest level it is not
+ * judged, and flagged, until its kind is given (other_organ for none). */
+static void kind_unknown(sl_assessments *as, sl_assessment *a, double lowest_gy)
+{
+    as->n_unjudged++;
+    a->unjudged = true;
+    a->kind_unknown = true;
+    a->flagged = true;
+    a->unjudged_level_gy = lowest_gy;
+    a->not_assessed_why = "no kind of the action-level table matches its name";
+    sl_notes_add(&a->advice,
+                 "not judged by this screening: no kind of the action-level table matches its "
+                 "name, and its upper bound reaches the table's lowest level (%.1f cGy); if it "
+                 "is a lens, thyroid, breast, gonad, bone marrow, fetus or cardiac device, say "
+                 "so with --organ ROI=KIND, and if none, with --organ ROI=other_organ",
+                 100 * lowest_gy);
+}
+
 static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
 {
     const sl_organ_dose *d = a->dose;
@@ -264,17 +285,20 @@ static void fetus_verdict(sl_assessment *a, double gy, double up)
         return;
     a->verdict = true;
     double lv = 1000 * base->dose_gy;
+    /* a value below the level never printed as the level */
+    int dg = sl_decimals_below(1000 * gy, lv, 1), du = sl_decimals_below(1000 * up, lv, 1);
     if (up < base->dose_gy)
         sl_notes_add(&a->statements,
-                     "verdict: the fetal dose, %.1f mGy (upper bound %.1f mGy), is below %.1f "
+                     "verdict: the fetal dose, %.*f mGy (upper bound %.*f mGy), is below %.1f "
                      "mGy: %s (%s; %s)",
-                     1000 * gy, 1000 * up, lv, base->name, base->source, base->mark);
+                     dg, 1000 * gy, du, 1000 * up, lv, base->name, base->source, base->mark);
     else
         sl_notes_add(&a->statements,
-                     "verdict: the fetal dose, %.1f mGy (upper bound %.1f mGy), %s %.1f mGy, the "
+                     "verdict: the fetal dose, %.*f mGy (upper bound %.*f mGy), %s %.1f mGy, the "
                      "level below which there is no significant increase in risk (%s; %s): see "
                      "the period's thresholds",
-                     1000 * gy, 1000 * up, gy >= base->dose_gy ? "reaches" : "may reach", lv,
+                     dg, 1000 * gy, du, 1000 * up,
+                     gy >= base->dose_gy ? "reaches" : "may reach", lv,
                      base->source, base->mark);
 }
 
@@ -376,6 +400,14 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         return sl_error_set(err, SL_ENOMEM, "out of memory");
     }
     bool lar_note = false, age_note = false, fetus_found = false, device_found = false;
+    /* the lowest level of the table, for an organ of no kind */
+    double table_lowest = INFINITY;
+    for (size_t k = 0; k < lv->nkinds; k++) {
+        for (size_t l = 0; l < lv->kinds[k].nlevels; l++)
+            table_lowest = fmin(table_lowest, lv->kinds[k].levels[l].dose_gy);
+        if (lv->kinds[k].nbands)
+            table_lowest = fmin(table_lowest, lv->kinds[k].bands[0].below_gy);
+    }
     for (size_t o = 0; o < e->norgans; o++) {
         sl_assessment *a = &as->items[o];
         const sl_organ_dose *d = &e->organs[o];
@@ -600,12 +632,15 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         } else {
             a->status = SL_ST_NO_LEVEL;
         }
+        if (!k && !excluded_type && up >= table_lowest)
+            kind_unknown(as, a, table_lowest);
         if (a->status != SL_ST_NOT_ASSESSED) /* no advice from a value not judged */
             advise(a, pt, level_gy);
         if (k && k->lar_table && a->status != SL_ST_NOT_ASSESSED) {
             a->lar = sl_levels_table(lv, k->lar_table);
+            a->lar_mean_cgy = d->course_mean.cgy + a->other_cgy;
             if (a->lar && !isnan(pt->age_years) && pt->sex)
-                a->lar_cases = sl_lar_cases(a->lar, pt->sex, pt->age_years, d->course_mean.cgy / 100);
+                a->lar_cases = sl_lar_cases(a->lar, pt->sex, pt->age_years, a->lar_mean_cgy / 100);
             else if (a->lar)
                 lar_note = true;
         }

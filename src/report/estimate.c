@@ -242,8 +242,9 @@ void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl
     } else {
         snprintf(c->fx, sizeof c->fx, "by group (JSON)");
     }
-    est_num(s * d->course_max.cgy, x, sizeof x);
-    est_num(s * d->course_max.upper_cgy, y, sizeof y);
+    double lv = a->governing ? s * 100 * a->governing->dose_gy : NAN;
+    est_num_below(s * d->course_max.cgy, lv, x, sizeof x);
+    est_num_below(s * d->course_max.upper_cgy, lv, y, sizeof y);
     snprintf(c->course, sizeof c->course, "%s (%s)", x, y);
     est_num(s * d->course_mean.cgy, c->mean, sizeof c->mean);
     if (a->governing)
@@ -268,15 +269,23 @@ void est_qualifiers(const sl_assessment *a, char *buf, size_t size)
                           "rate: ACTION");
     if (a->incomplete)
         sl_buf_printf(&b, "; incomplete: other beams not included");
-    if (a->other_cgy > 0)
+    if (a->other_cgy > 0 && a->dose->estimated)
+        sl_buf_printf(&b, "; judged on course %.1f cGy (upper bound %.1f cGy): this estimate "
+                          "plus %.1f cGy given by --other-dose",
+                      a->dose->course_max.cgy + a->other_cgy,
+                      a->dose->course_max.upper_cgy + a->other_cgy, a->other_cgy);
+    else if (a->other_cgy > 0)
         sl_buf_printf(&b, "; includes %.1f cGy given by --other-dose", a->other_cgy);
     if (a->dose->landmark)
         sl_buf_printf(&b, "; geometry measured on the patient");
     /* the pregnancy documents speak mGy */
-    if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->dose->estimated)
-        sl_buf_printf(&b, "; fetal dose %.1f mGy (upper bound %.1f mGy)",
-                      10 * (a->dose->course_max.cgy + a->other_cgy),
-                      10 * (a->dose->course_max.upper_cgy + a->other_cgy));
+    if (a->kind && strcmp(a->kind->kind, "fetus") == 0 && a->dose->estimated) {
+        double lv = a->governing ? 1000 * a->governing->dose_gy : NAN;
+        double g = 10 * (a->dose->course_max.cgy + a->other_cgy),
+               u = 10 * (a->dose->course_max.upper_cgy + a->other_cgy);
+        sl_buf_printf(&b, "; fetal dose %.*f mGy (upper bound %.*f mGy)",
+                      sl_decimals_below(g, lv, 1), g, sl_decimals_below(u, lv, 1), u);
+    }
     snprintf(buf, size, "%s", b.failed || !b.data ? "" : b.data);
     sl_buf_free(&b);
 }
@@ -320,7 +329,7 @@ void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size)
              b->neutron_producing ? " (may produce neutrons)" : "");
 }
 
-void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
+char *est_result_text(const sl_estimate_report *r)
 {
     const sl_assessments *as = r->as;
     est_ventry *v = NULL;
@@ -347,7 +356,10 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
                 sl_buf_printf(&b, "%s%s (%s)", c++ ? ", " : "", v[i].organ, v[i].status);
             else
                 sl_buf_printf(&b, "%s%s%s", c++ ? ", " : "", v[i].organ,
-                              v[i].a && v[i].a->unjudged_level_gy > 0
+                              v[i].a && v[i].a->kind_unknown
+                                  ? " (no kind matches its name; its value reaches the "
+                                    "table's lowest level)"
+                              : v[i].a && v[i].a->unjudged_level_gy > 0
                                   ? " (its value shown reaches its level)"
                               : v[i].a && v[i].a->unjudged_unknown
                                   ? (v[i].a->status == SL_ST_IN_FIELD
@@ -376,9 +388,12 @@ void est_result_text(const sl_estimate_report *r, char *buf, size_t size)
         sl_buf_printf(&b, "; WHAT-IF: %zu option%s change%s numbers away from the plan as "
                           "delivered",
                       r->nwhatifs, r->nwhatifs == 1 ? "" : "s", r->nwhatifs == 1 ? "s" : "");
-    snprintf(buf, size, "%s", b.failed || !b.data ? "see the organ statuses" : b.data);
-    sl_buf_free(&b);
     free(v);
+    if (b.failed || !b.data) {
+        sl_buf_free(&b);
+        return NULL;
+    }
+    return b.data;
 }
 
 static const char *orq(const char *s)
@@ -484,12 +499,17 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     fprintf(fp, "plan %s (%s), structure set %s (%s)\n", orq(p->label), p->source,
             orq(r->ss->label), r->ss->source);
     const sl_patient *pt = &r->as->patient;
+    /* weeks never rounded up into the next week: 7.99 weeks is in the 2 to 8
+     * weeks' period, and printed "8.0" it would read as out of it */
+    int dg = sl_decimals_below(pt->gestational_weeks, ceil(pt->gestational_weeks), 1),
+        dc = sl_decimals_below(pt->conception_weeks, ceil(pt->conception_weeks), 1);
     if (!isnan(pt->gestational_weeks))
-        fprintf(fp, "pregnant: gestational age %.1f weeks (since the last menstrual period), "
-                    "about %.1f weeks after conception (the ICRP Publication 84 count)\n",
-                pt->gestational_weeks, pt->conception_weeks);
+        fprintf(fp, "pregnant: gestational age %.*f weeks (since the last menstrual period), "
+                    "about %.*f weeks after conception (the ICRP Publication 84 count)\n",
+                dg, pt->gestational_weeks, dc, pt->conception_weeks);
     else if (!isnan(pt->conception_weeks))
-        fprintf(fp, "pregnant: %.1f weeks after conception (given)\n", pt->conception_weeks);
+        fprintf(fp, "pregnant: %.*f weeks after conception (given)\n", dc,
+                pt->conception_weeks);
     if (pt->pacing_dependent && pt->pacing_stated)
         fprintf(fp, "pacing-dependent patient\n");
     else if (est_pacing_assumed(r))
@@ -508,9 +528,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
         fprintf(fp, "*** WHAT-IF, NOT THE PLAN AS DELIVERED: %s\n", r->whatifs[i].text);
 
     /* the verdict first: every organ that needs attention, by name */
-    char res[1200];
-    est_result_text(r, res, sizeof res);
-    fprintf(fp, "\nRESULT: %s\n", res);
+    char *res = est_result_text(r);
+    fprintf(fp, "\nRESULT: %s\n", res ? res : EST_RESULT_FALLBACK);
     est_ventry *v = NULL;
     size_t nv = est_verdict(r, &v);
     for (size_t i = 0; i < nv; i++) {
@@ -605,7 +624,7 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
             fprintf(fp, "    - lifetime attributable risk of cancer incidence: about %.2f cases "
                         "per 100,000 patients for a mean course dose of %.1f cGy (%s; %s; a "
                         "population average, not an individual prediction)\n",
-                    a->lar_cases, a->dose->course_mean.cgy, a->lar->source, a->lar->mark);
+                    a->lar_cases, a->lar_mean_cgy, a->lar->source, a->lar->mark);
         if (a->status == SL_ST_BAND) {
             char shift[1200];
             est_pacing_text(r, a, shift, sizeof shift);
@@ -635,7 +654,8 @@ static void text_report(FILE *fp, const sl_estimate_report *r)
     for (size_t i = 0; i < w.count; i++)
         fprintf(fp, "  - %s\n", w.items[i]);
     sl_notes_free(&w);
-    fprintf(fp, "\nRESULT: %s\n", res);
+    fprintf(fp, "\nRESULT: %s\n", res ? res : EST_RESULT_FALLBACK);
+    free(res);
 }
 
 /* ------------------------------------------------------------- JSON -- */
@@ -674,9 +694,9 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
 
     /* the verdict first, as in every format: who needs attention, what-ifs */
     json_object *res = json_object_new_object();
-    char rtext[1200];
-    est_result_text(r, rtext, sizeof rtext);
-    jw_str(w, res, "text", rtext);
+    char *rtext = est_result_text(r);
+    jw_str(w, res, "text", rtext ? rtext : EST_RESULT_FALLBACK);
+    free(rtext);
     jw_bool(w, res, "needs_attention", r->as->any_flagged);
     json_object *vl = json_object_new_array();
     est_ventry *ve = NULL;
@@ -863,6 +883,12 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         jw_bool(w, x, "flagged", a->flagged);
         jw_bool(w, x, "incomplete", a->incomplete);
         jw_num_opt(w, x, "other_dose_cgy", a->other_cgy > 0 ? a->other_cgy : NAN);
+        /* what the status was judged on: the estimate plus any dose from
+         * elsewhere (the keys of the scan summary, the log and history) */
+        jw_num_opt(w, x, "judged_course_max_cgy",
+                   d->estimated ? d->course_max.cgy + a->other_cgy : NAN);
+        jw_num_opt(w, x, "judged_course_max_upper_cgy",
+                   d->estimated ? d->course_max.upper_cgy + a->other_cgy : NAN);
         jw_bool(w, x, "geometry_measured_on_patient", d->landmark);
         if (e->tps_used && d->estimated) { /* where its dose came from (--tps-dose) */
             jw_str(w, x, "dose_source", est_tps_source(d));
@@ -1129,9 +1155,9 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
 
     /* the report's cautions, warnings, what-ifs and limits, one cell */
     sl_buf cb = {0};
-    char res[1200];
-    est_result_text(r, res, sizeof res);
-    sl_buf_printf(&cb, "RESULT: %s", res);
+    char *res = est_result_text(r);
+    sl_buf_printf(&cb, "RESULT: %s", res ? res : EST_RESULT_FALLBACK);
+    free(res);
     for (size_t i = 0; i < r->nwhatifs; i++)
         sl_buf_printf(&cb, " | WHAT-IF: %s", r->whatifs[i].text);
     sl_notes cc = {0};

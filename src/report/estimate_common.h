@@ -43,8 +43,12 @@ void est_qualifiers(const sl_assessment *a, char *buf, size_t size);
 /* One line for a treatment beam this tool does not estimate. */
 void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size);
 
-/* The result line, shared by text and HTML. */
-void est_result_text(const sl_estimate_report *r, char *buf, size_t size);
+/* The result line, shared by every format: allocated (it names every organ
+ * that needs attention, however many), NULL when out of memory. */
+char *est_result_text(const sl_estimate_report *r);
+
+/* What a format prints when est_result_text() could not be had. */
+#define EST_RESULT_FALLBACK "see the organ statuses"
 
 /* With the planning system's dose (--tps-dose): where an organ's dose came
  * from ("model", "planning system", "planning system and model"); the
@@ -105,6 +109,9 @@ const char *est_unit(const sl_assessment *a);
 /* A dose already in its display unit: "%.1f", "<0.1" for a positive value
  * that rounds to zero, "-" when not finite. */
 void est_num(double v, char *buf, size_t size);
+/* As est_num, with more decimals where v is below level yet would print as
+ * it (level NAN: none), so that a number never contradicts its status. */
+void est_num_below(double v, double level, char *buf, size_t size);
 
 typedef enum est_vkind {
     EST_V_ATTENTION,  /* exceeds, may exceed, a device band, incomplete */
@@ -120,7 +127,7 @@ typedef struct est_ventry {
     const char *cue;          /* a text cue that does not rely on colour: "!!", "!", "M", "?" */
     char organ[160];          /* escaped ROI name, or what was not found */
     char status[160];
-    char dose[96];            /* "course 94.3 cGy (upper bound 172.0 cGy)" or "" */
+    char dose[160];           /* "course 94.3 cGy (upper bound 172.0 cGy)" or "" */
     char level[64];           /* "50.0 cGy" or "" */
     char advice[400];         /* one line */
     const sl_whatif *whatif;  /* a what-if that touches this organ, or NULL */

@@ -252,12 +252,13 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     }
 
     /* the verdict box */
-    char res[1200];
-    est_result_text(r, res, sizeof res);
+    char *res = est_result_text(r);
     xmlNodePtr vb = hel(&h, b, "div", NULL);
     hattr(&h, vb, "class", r->as->any_flagged ? "verdict attention" : "verdict");
     hattr(&h, vb, "id", "verdict");
-    helf(&h, vb, "h2", "Result: %s", res);
+    xmlNodePtr rh = hel(&h, vb, "h2", "Result: ");
+    htext(&h, rh, res ? res : EST_RESULT_FALLBACK);
+    free(res);
     est_ventry *ve = NULL;
     size_t nve = est_verdict(r, &ve);
     if (nve) {
@@ -314,13 +315,16 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
     if (e->tps_used)
         tps_section(&h, b, r);
     const sl_patient *pt = &r->as->patient;
+    /* weeks never rounded up into the next week (as the text report) */
+    int dg = sl_decimals_below(pt->gestational_weeks, ceil(pt->gestational_weeks), 1),
+        dc = sl_decimals_below(pt->conception_weeks, ceil(pt->conception_weeks), 1);
     if (!isnan(pt->gestational_weeks))
         helf(&h, b, "p",
-             "Pregnant patient: gestational age %.1f weeks (since the last menstrual period), "
-             "about %.1f weeks after conception (the ICRP Publication 84 count).",
-             pt->gestational_weeks, pt->conception_weeks);
+             "Pregnant patient: gestational age %.*f weeks (since the last menstrual period), "
+             "about %.*f weeks after conception (the ICRP Publication 84 count).",
+             dg, pt->gestational_weeks, dc, pt->conception_weeks);
     else if (!isnan(pt->conception_weeks))
-        helf(&h, b, "p", "Pregnant patient: %.1f weeks after conception (given).",
+        helf(&h, b, "p", "Pregnant patient: %.*f weeks after conception (given).", dc,
              pt->conception_weeks);
     if (pt->pacing_dependent && pt->pacing_stated)
         hel(&h, b, "p", "The patient is pacing-dependent.");
@@ -465,7 +469,7 @@ sl_status sl_report_estimate_html(FILE *fp, const sl_estimate_report *r, sl_erro
                  "%s: lifetime attributable risk of cancer incidence about %.2f per 100,000 for a "
                  "mean course dose of %.1f cGy (%s; %s; a population average, not an individual "
                  "prediction)",
-                 a->dose->roi->name, a->lar_cases, a->dose->course_mean.cgy,
+                 a->dose->roi->name, a->lar_cases, a->lar_mean_cgy,
                  a->lar->source, a->lar->mark);
         }
     }

@@ -64,13 +64,16 @@ static const double fill_att[3] = {0.97, 0.86, 0.86}, fill_meas[3] = {0.99, 0.94
 
 static void verdict(pdoc *d, const sl_estimate_report *r)
 {
-    char res[1200], line[1400];
-    est_result_text(r, res, sizeof res);
-    snprintf(line, sizeof line, "RESULT: %s", res);
+    char *res = est_result_text(r), line[1400];
+    sl_buf rl = {0};
+    sl_buf_printf(&rl, "RESULT: %s", res ? res : EST_RESULT_FALLBACK);
+    free(res);
+    const char *l = rl.data && !rl.failed ? rl.data : "RESULT: " EST_RESULT_FALLBACK;
     if (r->as->any_flagged)
-        pdoc_banner(d, line, 11, 2.5, 0.55, 0.1, 0.1, false);
+        pdoc_banner(d, l, 11, 2.5, 0.55, 0.1, 0.1, false);
     else
-        pdoc_banner(d, line, 11, 1.2, 0.2, 0.2, 0.2, false);
+        pdoc_banner(d, l, 11, 1.2, 0.2, 0.2, 0.2, false);
+    sl_buf_free(&rl);
     est_ventry *v = NULL;
     size_t n = est_verdict(r, &v);
     if (n) {
@@ -305,7 +308,7 @@ static void advice(pdoc *d, const sl_estimate_report *r)
                      "\u2022 lifetime attributable risk of cancer incidence: about %.2f cases per "
                      "100,000 patients for a mean course dose of %.1f cGy (%s; %s; a population "
                      "average, not an individual prediction)",
-                     a->lar_cases, a->dose->course_mean.cgy, a->lar->source, a->lar->mark);
+                     a->lar_cases, a->lar_mean_cgy, a->lar->source, a->lar->mark);
             pdoc_para(d, line, 8, false);
         }
     }

@@ -14,6 +14,12 @@
 #include "strayline/screenlog.h"
 #include "strayline/util.h"
 
+/* The log holds screening estimates: every listing says so. */
+static const char caution[] =
+    "Screening estimates only: each dose comes from a peripheral-dose model of limited range "
+    "(see each report for its model and limits). Confirm high values by measurement, follow "
+    "local protocols and consult a qualified medical physicist.";
+
 static const char *s_or(const char *s, const char *d)
 {
     return s ? s : d;
@@ -50,12 +56,12 @@ static sl_status text(FILE *fp, const sl_history *h)
             fputc('\n', fp);
         }
         if (r->organs_not_judged)
-            fprintf(fp, "    NOT JUDGED (organs with action levels): %s\n",
+            fprintf(fp, "    NOT JUDGED (organs with action levels, or of no known kind): %s\n",
                     sl_text_escape(r->organs_not_judged, a, sizeof a));
         if (r->outcome && strcmp(r->outcome, "screened") != 0 && r->message)
             fprintf(fp, "    %s\n", sl_text_escape(r->message, a, sizeof a));
     }
-    fprintf(fp, "%zu screening%s\n", h->n, h->n == 1 ? "" : "s");
+    fprintf(fp, "%zu screening%s\n%s\n", h->n, h->n == 1 ? "" : "s", caution);
     return ferror(fp) ? SL_EIO : SL_OK;
 }
 
@@ -80,8 +86,9 @@ static sl_status csv(FILE *fp, const sl_history *h)
         "id", "screened_at_utc", "command", "outcome", "flagged", "worst_status", "patient_id",
         "plan_label", "plan_uid", "structure_set_uid", "model_file", "model_version",
         "model_sha256", "levels_file", "levels_sha256", "tool_version", "options", "roi",
-        "organ_status", "course_max_cgy", "course_max_upper_cgy", "level", "level_gy",
-        "report_json", "report_html", "report_pdf", "message", "organs_not_judged"};
+        "organ_status", "judged_course_max_cgy", "judged_course_max_upper_cgy", "level",
+        "level_gy", "report_json", "report_html", "report_pdf", "message", "organs_not_judged",
+        "caution"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
@@ -107,7 +114,8 @@ static sl_status csv(FILE *fp, const sl_history *h)
             csv_field(fp, r->report_html, false);
             csv_field(fp, r->report_pdf, false);
             csv_field(fp, r->message, false);
-            csv_field(fp, r->organs_not_judged, true);
+            csv_field(fp, r->organs_not_judged, false);
+            csv_field(fp, caution, true);
         }
     }
     return ferror(fp) ? SL_EIO : SL_OK;
@@ -119,6 +127,7 @@ static sl_status json(FILE *fp, const sl_history *h, sl_error *err)
     json_object *root = json_object_new_object();
     if (!root)
         return sl_error_set(err, SL_ENOMEM, "out of memory writing JSON");
+    jw_str(&w, root, "caution", caution);
     json_object *arr = json_object_new_array();
     jw_put(&w, root, "screenings", arr);
     for (size_t i = 0; i < h->n && arr; i++) {
@@ -161,8 +170,8 @@ static sl_status json(FILE *fp, const sl_history *h, sl_error *err)
             jw_str(&w, x, "roi", g->roi);
             jw_str(&w, x, "kind", g->kind);
             jw_str(&w, x, "status", g->status);
-            jw_num_opt(&w, x, "course_max_cgy", g->course_cgy);
-            jw_num_opt(&w, x, "course_max_upper_cgy", g->upper_cgy);
+            jw_num_opt(&w, x, "judged_course_max_cgy", g->course_cgy);
+            jw_num_opt(&w, x, "judged_course_max_upper_cgy", g->upper_cgy);
             jw_str(&w, x, "level", g->level);
             jw_num_opt(&w, x, "level_gy", g->level_gy);
         }

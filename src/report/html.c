@@ -108,14 +108,25 @@ xmlNodePtr hel(hdoc *h, xmlNodePtr parent, const char *name, const char *text)
     return n;
 }
 
+/* The text is formatted at its full length: a paragraph naming many
+ * organs is never cut. */
 xmlNodePtr helf(hdoc *h, xmlNodePtr parent, const char *name, const char *fmt, ...)
 {
-    char buf[2048];
     va_list ap;
     va_start(ap, fmt);
-    vsnprintf(buf, sizeof buf, fmt, ap);
+    int n = vsnprintf(NULL, 0, fmt, ap);
     va_end(ap);
-    return hel(h, parent, name, buf);
+    char *buf = n >= 0 ? malloc((size_t)n + 1) : NULL;
+    if (!buf) {
+        h->failed = true;
+        return NULL;
+    }
+    va_start(ap, fmt);
+    vsnprintf(buf, (size_t)n + 1, fmt, ap);
+    va_end(ap);
+    xmlNodePtr el = hel(h, parent, name, buf);
+    free(buf);
+    return el;
 }
 
 void hattr(hdoc *h, xmlNodePtr n, const char *key, const char *value)

@@ -331,6 +331,11 @@ static const unsigned all_flags[] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSIDE,
                                      SL_MF_TILT_OUTSIDE,    SL_MF_SSD_OUTSIDE,
                                      SL_MF_INVIVO_SCALED};
 
+/* A value read from the model is a screening number too: said beside it. */
+static const char eval_caution[] =
+    "a screening model's value for one machine, not a measurement: confirm high values by "
+    "measurement; local protocols and a qualified medical physicist decide";
+
 sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, double energy_mev,
                                 const char *applicator, const char *insert, double depth_cm,
                                 double distance_cm, const sl_model_value *v, sl_error *err)
@@ -367,12 +372,17 @@ sl_status sl_report_model_value(FILE *fp, sl_format fmt, const sl_model *m, doub
             if (v->flags & all_flags[i])
                 fprintf(fp, "  flag: %s\n", sl_model_flag_text(all_flags[i]));
         }
+        if (m->machine.invented)
+            fprintf(fp, "  INVENTED DEMO DATA - NOT A REAL MACHINE - NOT FOR CLINICAL USE\n");
+        fprintf(fp, "  caution: %s\n", eval_caution);
         return ferror(fp) ? sl_error_set(err, SL_EIO, "cannot write the output") : SL_OK;
     }
     jw w = {err, SL_OK};
     json_object *o = json_object_new_object();
     jw_str(&w, o, "model_file", m->source);
     jw_str(&w, o, "model_sha256", m->sha256);
+    jw_bool(&w, o, "invented", m->machine.invented);
+    jw_str(&w, o, "caution", eval_caution);
     jw_num(&w, o, "energy_mev", energy_mev);
     jw_str(&w, o, "applicator", applicator);
     jw_str(&w, o, "insert", ins);

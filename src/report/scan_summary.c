@@ -3,7 +3,8 @@
  * summary.json (json-c) and index.html (libxml2), one row per plan or file,
  * attention first. Like every writer it computes nothing: the entries come
  * sorted and judged from the scan module. All three name the model and the
- * action levels and carry the screening caution, as every report does.
+ * action levels and carry the screening caution, as every report does (the
+ * CSV on every row, which is read on its own).
  */
 #include <csv.h>
 #include <math.h>
@@ -28,26 +29,29 @@ static const char *s_or(const char *s, const char *dflt)
     return s ? s : dflt;
 }
 
-static void organs_text(const sl_batch_entry *e, char *buf, size_t size)
+/* The flagged organs of a plan in one line, allocated (every organ,
+ * however many); NULL when out of memory. */
+static char *organs_text(const sl_batch_entry *e)
 {
-    size_t k = 0;
-    buf[0] = '\0';
-    for (size_t i = 0; i < e->nflagged && k + 1 < size; i++) {
+    sl_buf b = {0};
+    sl_buf_printf(&b, "%s", "");
+    for (size_t i = 0; i < e->nflagged; i++) {
         const sl_flagged_organ *o = &e->organs[i];
         /* fixed decimals, no exponent, as every report a person reads */
         char cv[32], uv[32];
         est_num(o->course_cgy, cv, sizeof cv);
         est_num(o->upper_cgy, uv, sizeof uv);
-        int n = isfinite(o->course_cgy)
-                    ? snprintf(buf + k, size - k, "%s%s: %s (course %s cGy, upper %s cGy)",
-                               i ? "; " : "", o->roi, o->status, cv, uv)
-                    : snprintf(buf + k, size - k, "%s%s: %s", i ? "; " : "", o->roi, o->status);
-        if (n < 0)
-            break;
-        k += (size_t)n;
+        if (isfinite(o->course_cgy))
+            sl_buf_printf(&b, "%s%s: %s (course %s cGy, upper %s cGy)", i ? "; " : "", o->roi,
+                          o->status, cv, uv);
+        else
+            sl_buf_printf(&b, "%s%s: %s", i ? "; " : "", o->roi, o->status);
     }
-    if (k >= size)
-        buf[size - 1] = '\0';
+    if (b.failed || !b.data) {
+        sl_buf_free(&b);
+        return NULL;
+    }
+    return b.data;
 }
 
 static void csv_field(FILE *fp, const char *s, bool last)
@@ -56,24 +60,35 @@ static void csv_field(FILE *fp, const char *s, bool last)
     fputc(last ? '\n' : ',', fp);
 }
 
-static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
+/* Every row of the CSV carries the model and the caution: a row is read
+ * on its own (a spreadsheet filtered to one plan). */
+static sl_status write_csv(FILE *fp, const sl_batch_config *cfg, const sl_batch_entry *e,
+                           size_t n)
 {
+    char why[600];
+    snprintf(why, sizeof why, "%s%s", caution,
+             cfg->model->machine.invented ? " The model is invented demo data, not for clinical "
+                                            "use."
+                                          : "");
     static const char *const head[] = {"outcome", "flagged", "worst_status", "patient_id",
                                        "plan_label", "plan_uid", "structure_set_uid",
                                        "electron_beams", "organs_flagged", "flagged_organs",
                                        "organs_not_judged", "report_json", "report_html", "report_pdf", "plan_file",
                                        "structure_set_file", "planning_system_dose",
-                                       "message"};
+                                       "message", "model_file", "model_version", "model_sha256",
+                                       "action_levels_file", "caution"};
     size_t nh = sizeof head / sizeof *head;
     for (size_t i = 0; i < nh; i++)
         csv_field(fp, head[i], i + 1 == nh);
-    char beams[32], nf[32], organs[4096];
+    char beams[32], nf[32];
     for (size_t i = 0; i < n; i++) {
         const sl_batch_entry *x = &e[i];
         bool screened = x->outcome == SL_OUT_SCREENED;
         snprintf(beams, sizeof beams, "%zu", x->nbeams);
         snprintf(nf, sizeof nf, "%zu", x->nflagged);
-        organs_text(x, organs, sizeof organs);
+        char *organs = organs_text(x);
+        if (!organs)
+            return SL_ENOMEM;
         csv_field(fp, sl_outcome_name(x->outcome), false);
         csv_field(fp, x->flagged ? "yes" : "no", false);
         csv_field(fp, x->worst_status, false);
@@ -84,6 +99,7 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
         csv_field(fp, screened ? beams : "", false);
         csv_field(fp, screened ? nf : "", false);
         csv_field(fp, organs, false);
+        free(organs);
         csv_field(fp, x->unjudged, false);
         csv_field(fp, x->report_json, false);
         csv_field(fp, x->report_html, false);
@@ -91,7 +107,12 @@ static sl_status write_csv(FILE *fp, const sl_batch_entry *e, size_t n)
         csv_field(fp, x->plan_path, false);
         csv_field(fp, x->ss_path, false);
         csv_field(fp, x->tps_note, false);
-        csv_field(fp, x->message, true);
+        csv_field(fp, x->message, false);
+        csv_field(fp, cfg->model_path, false);
+        csv_field(fp, cfg->model->model_version, false);
+        csv_field(fp, cfg->model->sha256, false);
+        csv_field(fp, cfg->levels_path, false);
+        csv_field(fp, why, true);
     }
     return ferror(fp) ? SL_EIO : SL_OK;
 }
@@ -160,8 +181,8 @@ static sl_status write_json(FILE *fp, const sl_batch_config *cfg, const sl_batch
             jw_str(&w, g, "roi", o->roi);
             jw_str(&w, g, "kind", o->kind);
             jw_str(&w, g, "status", o->status);
-            jw_num_opt(&w, g, "course_max_cgy", o->course_cgy);
-            jw_num_opt(&w, g, "course_max_upper_cgy", o->upper_cgy);
+            jw_num_opt(&w, g, "judged_course_max_cgy", o->course_cgy);
+            jw_num_opt(&w, g, "judged_course_max_upper_cgy", o->upper_cgy);
             jw_str(&w, g, "level", o->level);
             jw_num_opt(&w, g, "level_gy", o->level_gy);
         }
@@ -227,7 +248,7 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
     static const char *const head[] = {"verdict", "worst status", "patient ID", "plan",
                                        "electron beams", "flagged organs", "reports", "note"};
     hrow(&h, t, true, head, sizeof head / sizeof *head);
-    char organs[4096], beams[32];
+    char beams[32];
     for (size_t i = 0; i < n; i++) {
         const sl_batch_entry *x = &e[i];
         xmlNodePtr tr = hel(&h, t, "tr", NULL);
@@ -246,10 +267,14 @@ static sl_status write_html(FILE *fp, const sl_batch_config *cfg, const sl_batch
         hel(&h, tr, "td", s_or(x->plan_label, s_or(x->plan_path, "")));
         snprintf(beams, sizeof beams, "%zu", x->nbeams);
         hattr(&h, hel(&h, tr, "td", x->outcome == SL_OUT_SCREENED ? beams : ""), "class", "n");
-        organs_text(x, organs, sizeof organs);
-        if (!x->nflagged && x->unjudged)
-            snprintf(organs, sizeof organs, "not judged: %s", x->unjudged);
-        hel(&h, tr, "td", organs);
+        if (!x->nflagged && x->unjudged) {
+            xmlNodePtr td = hel(&h, tr, "td", "not judged: ");
+            htext(&h, td, x->unjudged);
+        } else {
+            char *organs = organs_text(x);
+            hel(&h, tr, "td", organs ? organs : "(out of memory listing the organs)");
+            free(organs);
+        }
         xmlNodePtr rc = hel(&h, tr, "td", NULL);
         if (x->report_html) {
             xmlNodePtr a = hel(&h, rc, "a", "HTML");
@@ -289,11 +314,13 @@ sl_status sl_batch_write_summary(const sl_batch_config *cfg, const sl_batch_entr
         sl_outfile out = {0};
         sl_status st = sl_outfile_open(&out, path, inputs, 2, err);
         if (st == SL_OK) {
-            st = k == 0   ? write_csv(out.fp, e, n)
+            st = k == 0   ? write_csv(out.fp, cfg, e, n)
                  : k == 1 ? write_json(out.fp, cfg, e, n, err)
                           : write_html(out.fp, cfg, e, n, err);
             if (st == SL_EIO && k == 0)
                 sl_error_set(err, SL_EIO, "%s: cannot write", path);
+            else if (st == SL_ENOMEM && k == 0)
+                sl_error_set(err, SL_ENOMEM, "%s: out of memory", path);
         }
         if (st == SL_OK)
             st = sl_outfile_commit(&out, err);

@@ -41,6 +41,14 @@ void est_num(double v, char *buf, size_t size)
         snprintf(buf, size, "%.1f", v);
 }
 
+void est_num_below(double v, double level, char *buf, size_t size)
+{
+    if (isfinite(v) && !(v > 0 && v < 0.05))
+        snprintf(buf, size, "%.*f", sl_decimals_below(v, level, 1), v);
+    else
+        est_num(v, buf, size);
+}
+
 const char *est_vshape(const est_ventry *v)
 {
     switch (v->kind) {
@@ -88,7 +96,12 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
 {
     sl_buf b = {0};
     const sl_organ_dose *d = a->dose;
-    if (k == EST_V_NOT_JUDGED) {
+    if (k == EST_V_NOT_JUDGED && a->kind_unknown) {
+        sl_buf_printf(&b, "no kind of the action-level table matches its name, and its upper "
+                          "bound (%.1f cGy) reaches the table's lowest level (%.1f cGy): give "
+                          "its kind with --organ ROI=KIND (other_organ if it has no level)",
+                      d->course_max.upper_cgy + a->other_cgy, 100 * a->unjudged_level_gy);
+    } else if (k == EST_V_NOT_JUDGED) {
         if (a->unjudged_level_gy > 0) {
             double s = est_unit_scale(a); /* cGy to the organ's unit */
             sl_buf_printf(&b, "the value shown (upper bound %.1f %s) reaches the level of %.1f "
@@ -170,10 +183,19 @@ static void fill_entry(const sl_estimate_report *r, const sl_assessment *a, est_
     double s = est_unit_scale(a);
     const char *u = est_unit(a);
     if (d->estimated && isfinite(d->course_max.cgy)) {
-        char x[32], y[32];
-        est_num(s * d->course_max.cgy, x, sizeof x);
-        est_num(s * d->course_max.upper_cgy, y, sizeof y);
-        snprintf(v->dose, sizeof v->dose, "course %s %s (upper bound %s %s)", x, u, y, u);
+        /* what was judged: the estimate plus any dose given from elsewhere */
+        char x[32], y[32], z[32];
+        double lv = a->governing ? s * 100 * a->governing->dose_gy : NAN;
+        est_num_below(s * (d->course_max.cgy + a->other_cgy), lv, x, sizeof x);
+        est_num_below(s * (d->course_max.upper_cgy + a->other_cgy), lv, y, sizeof y);
+        if (a->other_cgy > 0) {
+            est_num(s * a->other_cgy, z, sizeof z);
+            snprintf(v->dose, sizeof v->dose,
+                     "course %s %s (upper bound %s %s), of which %s %s given by --other-dose",
+                     x, u, y, u, z, u);
+        } else {
+            snprintf(v->dose, sizeof v->dose, "course %s %s (upper bound %s %s)", x, u, y, u);
+        }
     }
     if (a->governing) {
         char x[32];
@@ -208,7 +230,7 @@ size_t est_verdict(const sl_estimate_report *r, est_ventry **out)
             /* the organs the assessment counted as not judged, and only
              * they, so that the verdict and organs_not_judged agree (one
              * also incomplete says so in its status and advice) */
-            bool notj = has_levels(a) && a->unjudged;
+            bool notj = (has_levels(a) || a->kind_unknown) && a->unjudged;
             est_vkind k;
             if (a->flagged && !notj)
                 k = EST_V_ATTENTION;
@@ -268,37 +290,6 @@ static void bolus_cautions(const sl_location *loc, sl_notes *out)
     }
 }
 
-/* Estimated organs whose names match no kind of the action-level table
- * (a clinic's own spelling of a device or a lens would pass as "no action
- * level"), named when their upper bound reaches the table's lowest level. */
-static void nameless_caution(const sl_estimate_report *r, sl_notes *out)
-{
-    double lowest = INFINITY;
-    for (size_t k = 0; r->levels && k < r->levels->nkinds; k++)
-        for (size_t l = 0; l < r->levels->kinds[k].nlevels; l++)
-            lowest = fmin(lowest, r->levels->kinds[k].levels[l].dose_gy);
-    if (!isfinite(lowest))
-        return;
-    sl_buf b = {0};
-    size_t n = 0;
-    for (size_t i = 0; i < r->as->n; i++) {
-        const sl_assessment *a = &r->as->items[i];
-        const sl_organ_dose *d = a->dose;
-        if (a->kind || !d->estimated ||
-            !(d->course_max.upper_cgy + a->other_cgy >= 100 * lowest))
-            continue;
-        char nm[160];
-        sl_buf_printf(&b, "%s%s", n++ ? ", " : "", sl_text_escape(d->roi->name, nm, sizeof nm));
-    }
-    if (n && b.data && !b.failed)
-        sl_notes_add(out, "no action level for %s, whose upper bound reaches %.0f cGy, the "
-                          "lowest level of the table: no kind's name matches; if one is a "
-                          "lens, thyroid, breast, gonad, bone marrow, fetus or cardiac device, "
-                          "say so with --organ ROI=KIND",
-                     b.data, 100 * lowest);
-    sl_buf_free(&b);
-}
-
 void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
 {
     const sl_estimate *e = r->est;
@@ -355,7 +346,6 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
                          s->mean_log_ratio, s->ci_lo, s->ci_hi, s->p_value, s->source);
     }
     bolus_cautions(r->loc, out);
-    nameless_caution(r, out);
     if (est_pacing_assumed(r))
         sl_notes_add(out, "pacing dependence not stated: the cardiac device is judged as for a "
                           "pacing-dependent patient (the higher band); if the patient is not, "

@@ -160,7 +160,17 @@ class OtherBeams(unittest.TestCase):
         # the 0.5 Gy lens level (ICRP 118, as restated)
         self.assertAlmostEqual(lb["course_max_cgy"], la["course_max_cgy"], delta=1e-9)
         self.assertEqual(lb["status"], "exceeds")
-        self.assertIn("includes 60.0 cGy given by --other-dose", lb["status_text"])
+        # what was judged is shown beside the status, with its part (found
+        # by an independent review: the model's number alone stood there)
+        self.assertIn("judged on course %.1f cGy" % (la["course_max_cgy"] + 60),
+                      lb["status_text"])
+        self.assertIn("plus 60.0 cGy given by --other-dose", lb["status_text"])
+        self.assertAlmostEqual(lb["judged_course_max_cgy"], la["course_max_cgy"] + 60, places=6)
+        self.assertAlmostEqual(lb["judged_course_max_upper_cgy"],
+                               la["course_max_upper_cgy"] + 60, places=6)
+        entry = [o for o in b["result"]["organs"] if o["organ"] == "Lens_L"][0]
+        self.assertIn("of which 60.0 cGy given by --other-dose", entry["dose_text"])
+        self.assertIn("course %.1f cGy" % (la["course_max_cgy"] + 60), entry["dose_text"])
         self.assertEqual(rc, 4)
         with tempdir() as d:
             plan, ss = photon_case(d, [("Lens_L", (200.0, 10.0, 0.0))])

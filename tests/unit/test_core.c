@@ -46,6 +46,24 @@ START_TEST(parse_int_checks_range_and_garbage)
 }
 END_TEST
 
+/* A value below a level never prints as the level (a status "below 50.0"
+ * beside an upper bound printed "50.0"; found by an independent review). */
+START_TEST(decimals_below_never_print_a_value_as_its_level)
+{
+    char b[64];
+    int d = sl_decimals_below(49.9699, 50.0, 1);
+    snprintf(b, sizeof b, "%.*f", d, 49.9699);
+    ck_assert_str_eq(b, "49.97");
+    ck_assert_int_eq(sl_decimals_below(49.94, 50.0, 1), 1);  /* 49.9 already below */
+    ck_assert_int_eq(sl_decimals_below(50.0, 50.0, 1), 1);   /* at the level: as it is */
+    ck_assert_int_eq(sl_decimals_below(73.2, 50.0, 1), 1);   /* above: as it is */
+    ck_assert_int_eq(sl_decimals_below(NAN, 50.0, 1), 1);
+    ck_assert_int_eq(sl_decimals_below(4.0, NAN, 1), 1);
+    d = sl_decimals_below(4.9999999999, 5.0, 1);             /* at most 6 decimals */
+    ck_assert_int_eq(d, 6);
+}
+END_TEST
+
 START_TEST(notes_keep_one_copy_of_each_text)
 {
     sl_notes n = {0};
@@ -161,6 +179,7 @@ static Suite *core_suite(void)
     tcase_add_test(tc, parse_double_accepts_decimal_notation);
     tcase_add_test(tc, parse_double_refuses_what_is_not_a_finite_number);
     tcase_add_test(tc, parse_int_checks_range_and_garbage);
+    tcase_add_test(tc, decimals_below_never_print_a_value_as_its_level);
     tcase_add_test(tc, notes_keep_one_copy_of_each_text);
     tcase_add_test(tc, error_messages_are_bounded_and_prefixed);
     tcase_add_test(tc, sha256_matches_fips_180_2_example);

@@ -206,6 +206,15 @@ START_TEST(naming_conventions_table)
         {"Knochenmark", "bone_marrow"}, {"Moelle osseuse", "bone_marrow"},
         {"Medula_osea", "bone_marrow"}, {"Midollo_osseo", "bone_marrow"},
         {"Médula_óssea", "bone_marrow"}, {"Crystalline_L", "lens"},
+        /* Italian, Spanish, Portuguese and French embryo, foetus with its
+         * ligature, a French defibrillator with its accent, and the breast
+         * in French, Spanish and Italian (found by an independent review:
+         * 'Embrione' at 69 mGy passed) */
+        {"Embrione", "fetus"}, {"Embrión", "fetus"}, {"Embrião", "fetus"},
+        {"Embryon", "fetus"}, {"Fœtus", "fetus"}, {"FŒTUS", "fetus"},
+        {"Défibrillateur", "cardiac_device"}, {"DÉFIBRILLATEUR", "cardiac_device"},
+        {"Sein_G", "breast"}, {"Sein", "breast"}, {"Seno_D", "breast"},
+        {"Lentes_D", "lens"}, {"Seins", "breast"}, {"Senology", NULL},
         /* organs with no kind, or the last kind's exact standard names
          * (AAPM TG-263, no level): must not be caught by a wide pattern */
         {"Spacer", NULL}, {"Rectal_Spacer", NULL}, {"SpaceOAR", NULL}, {"Larynx", "other_organ"},

@@ -845,6 +845,10 @@ def yaml_cases():
                "form 'cubic' (smooth or peaked)")
     model_case("model_bad_sha.yaml", lambda d: d["profiles"][0].update(data_sha256="xyz"),
                "expected 64 lowercase hex digits")
+    # every report and the log name the model by its version (found by an
+    # independent review: an empty one was taken)
+    model_case("model_empty_version.yaml", lambda d: d.update(model_version=""),
+               "model_version: empty")
     # a text with a duplicate key (PyYAML would not write one)
     text = yaml.safe_dump(base, sort_keys=False).replace("sad_cm: 100.0",
                                                         "sad_cm: 100.0\n  sad_cm: 90.0", 1)
