@@ -134,7 +134,7 @@ typedef struct sl_plan {
     char *sop_instance_uid;
     char *label;             /* RT Plan Label */
     char *name;              /* RT Plan Name, may be NULL */
-    char *patient_id;        /* for report headers only */
+    char *patient_id;        /* for report headers and the pair check (sl_pair_check) */
     char *patient_name;
     char *patient_sex;       /* Patient's Sex (M, F, O), may be NULL */
     char *patient_birth_date;/* Patient's Birth Date (YYYYMMDD), may be NULL */

@@ -181,6 +181,13 @@ void sl_batch_prepare(void);
  * (the log cannot be written, memory); input errors go into e. */
 sl_status sl_batch_screen(const sl_batch_config *cfg, sl_batch_entry *e, sl_error *err);
 
+/* A plan not screened again (scan --rescreen-stale: its last screening
+ * used this model) keeps what that screening found: its outcome in the
+ * message, its flag, worst status, organs and reports, so that the
+ * summary and the exit code do not read a flagged plan as clear. e is
+ * made SL_OUT_SKIPPED. */
+sl_status sl_batch_carry_last(sl_batch_entry *e, const sl_history_row *last, sl_error *err);
+
 /* A name made of [A-Za-z0-9._-] only, from any text, at most max-1 bytes. */
 void sl_sanitise_name(const char *in, char *out, size_t max);
 
@@ -211,6 +218,10 @@ sl_status sl_node_received(sl_node *n, const char *path);
 sl_status sl_node_step(sl_node *n, double now_s,
                        void (*report)(const sl_batch_entry *e, void *ctx), void *ctx,
                        sl_error *err);
+/* What the last step could not do and went on without (the summary not
+ * written: a full disk), once, for the node's log; NULL when nothing. The
+ * text stays valid until the next call on this thread. */
+const char *sl_node_take_problem(sl_node *n);
 void sl_node_free(sl_node *n);
 
 /* At start-up, what an earlier run left in the store folder: every plan

@@ -44,6 +44,12 @@ typedef struct sl_scp_event {
 
 typedef void (*sl_scp_callback)(const sl_scp_event *ev, void *ctx);
 
+/* How long a peer that has connected may take to send its association
+ * request (s): DCMTK's pool reads it on the listening thread, so a silent
+ * connection holds every other sender for that long (a strayline
+ * setting). */
+#define SL_SCP_ACSE_TIMEOUT_S 5
+
 typedef struct sl_scp_config {
     int port;                      /* 1..65535 */
     const char *ae_title;          /* this node's AE title (1..16 characters) */
@@ -51,7 +57,8 @@ typedef struct sl_scp_config {
     size_t nallowed;
     const char *store_dir;         /* an existing folder */
     int max_associations;          /* at once; more are refused as a local limit */
-    int timeout_s;                 /* network timeout of a silent peer (s) */
+    int timeout_s;                 /* network timeout of a silent peer (s); the association
+                                      request itself waits at most SL_SCP_ACSE_TIMEOUT_S */
     sl_scp_callback callback;
     void *ctx;
 } sl_scp_config;

@@ -377,6 +377,9 @@ int sl_cmd_listen(int argc, char **argv)
             rc = sl_cli_exit_code(err.code);
             break;
         }
+        const char *problem = sl_node_take_problem(node);
+        if (problem)
+            logline("%s", problem);
         struct timespec nap = {0, 100 * 1000 * 1000};
         nanosleep(&nap, NULL);
     }

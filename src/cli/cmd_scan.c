@@ -107,16 +107,18 @@ static void screen_task(size_t i, void *ctx)
     pthread_mutex_unlock(&p->lock);
 }
 
-/* Whether the plan has a row in h (for this machine's model when machine
- * is given). */
-static bool in_history(const sl_history *h, const char *uid, const char *machine)
+/* The plan's latest row in h (for this machine's model when machine is
+ * given), or NULL. */
+static const sl_history_row *in_history(const sl_history *h, const char *uid,
+                                        const char *machine)
 {
+    const sl_history_row *last = NULL;
     for (size_t i = 0; uid && i < h->n; i++)
         if (h->rows[i].plan_uid && strcmp(h->rows[i].plan_uid, uid) == 0 &&
             (!machine ||
              (h->rows[i].model_machine && strcmp(h->rows[i].model_machine, machine) == 0)))
-            return true;
-    return false;
+            last = &h->rows[i]; /* oldest first */
+    return last;
 }
 
 int sl_cmd_scan(int argc, char **argv)
@@ -259,13 +261,19 @@ int sl_cmd_scan(int argc, char **argv)
     for (size_t i = 0; i < n; i++) {
         if (entries[i].outcome != SL_OUT_SCREENED)
             continue;
-        /* stale, or never screened with this machine's model: screened */
-        if (stale && !in_history(stale, entries[i].plan_uid, NULL) &&
-            in_history(known, entries[i].plan_uid, model->machine.name)) {
-            entries[i].outcome = SL_OUT_SKIPPED;
-            free(entries[i].message);
-            entries[i].message = strdup("--rescreen-stale: last screened with this version of "
-                                        "the model");
+        /* stale, or never screened with this machine's model: screened;
+         * the others keep what their last screening found (found by an
+         * independent review: a plan whose lens exceeded its level read
+         * "skipped, not flagged", exit 0) */
+        const sl_history_row *last =
+            stale && !in_history(stale, entries[i].plan_uid, NULL)
+                ? in_history(known, entries[i].plan_uid, model->machine.name)
+                : NULL;
+        if (last) {
+            if (sl_batch_carry_last(&entries[i], last, &err) != SL_OK) {
+                rc = sl_cli_fail(&err);
+                goto done;
+            }
             continue;
         }
         todo[ntodo++] = i;

@@ -276,15 +276,76 @@ int sl_dicom_uid_valid(const char *s)
     return !start;
 }
 
+namespace {
+
+struct same_job {
+    const char *a, *b;
+    int result;
+};
+
+void *same_thread(void *p)
+{
+    same_job *j = static_cast<same_job *>(p);
+    try {
+        DcmFileFormat fa, fb;
+        j->result = fa.loadFile(j->a).good() && fb.loadFile(j->b).good() &&
+                    fa.getDataset()->compare(*fb.getDataset()) == 0;
+    } catch (...) {
+        j->result = 0;
+    }
+    return nullptr;
+}
+
+/* The sequence items of a file (a bound on its nesting), or SIZE_MAX. */
+size_t file_items(const char *path)
+{
+    struct stat sb;
+    if (stat(path, &sb) != 0 || !S_ISREG(sb.st_mode) || sb.st_size == 0 ||
+        static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
+        return SIZE_MAX;
+    int fd = open(path, O_RDONLY | O_CLOEXEC);
+    if (fd < 0)
+        return SIZE_MAX;
+    size_t n = static_cast<size_t>(sb.st_size);
+    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE, fd, 0);
+    close(fd);
+    if (map == MAP_FAILED)
+        return SIZE_MAX;
+    size_t k = count_item_tags(static_cast<const unsigned char *>(map), n);
+    munmap(map, n);
+    return k;
+}
+
+} // namespace
+
 /* Element for element (DcmItem::compare: values, not bytes), so another
  * transfer syntax or another sender's file meta information is still the
- * same data set. Only called on files whose headers were read already. */
+ * same data set. Only called on files whose headers were read already.
+ * DCMTK reads and compares nested sequences recursively: as for the full
+ * reader, on a thread whose stack has room for every level the items
+ * allow, so that an object nested a hundred thousand deep and sent twice
+ * cannot overflow a network worker's stack (a suspicion of an independent
+ * review); one the reader would refuse is not the same. */
 int sl_dicom_same_data_set(const char *a, const char *b)
 {
-    DcmFileFormat fa, fb;
-    if (fa.loadFile(a).bad() || fb.loadFile(b).bad())
+    size_t ia = file_items(a), ib = file_items(b);
+    if (ia > SL_DICOM_MAX_ITEMS || ib > SL_DICOM_MAX_ITEMS)
         return 0;
-    return fa.getDataset()->compare(*fb.getDataset()) == 0;
+    size_t stack = (static_cast<size_t>(16) << 20) + (ia + ib) * SL_DICOM_STACK_PER_LEVEL;
+    same_job job = {a, b, 0};
+    pthread_attr_t attr;
+    pthread_t th;
+    int rc = pthread_attr_init(&attr);
+    if (rc == 0) {
+        rc = pthread_attr_setstacksize(&attr, stack);
+        if (rc == 0)
+            rc = pthread_create(&th, &attr, same_thread, &job);
+        pthread_attr_destroy(&attr);
+    }
+    if (rc != 0)
+        return 0; /* not compared: not taken as the same */
+    pthread_join(th, nullptr);
+    return job.result;
 }
 
 sl_status sl_dicom_read_head(const char *path, sl_dicom_head *out, sl_error *err)

@@ -406,7 +406,14 @@ sl_status sl_scp_start(const sl_scp_config *cfg, sl_scp **out, sl_error *err)
         c.setConnectionTimeout(1);
         c.setDIMSEBlockingMode(DIMSE_NONBLOCKING);
         c.setDIMSETimeout(static_cast<Uint32>(cfg->timeout_s > 0 ? cfg->timeout_s : 60));
-        c.setACSETimeout(static_cast<Uint32>(cfg->timeout_s > 0 ? cfg->timeout_s : 60));
+        /* the association request is read on the listening thread: a peer
+         * that connects and says nothing holds every other sender for this
+         * long (found by an independent review: 60 s), so it is short, and
+         * never longer than the DIMSE timeout */
+        int acse = cfg->timeout_s > 0 && cfg->timeout_s < SL_SCP_ACSE_TIMEOUT_S
+                       ? cfg->timeout_s
+                       : SL_SCP_ACSE_TIMEOUT_S;
+        c.setACSETimeout(static_cast<Uint32>(acse));
         c.setHostLookupEnabled(OFFalse);
         c.setProgressNotificationMode(OFFalse);
         OFList<OFString> ts;

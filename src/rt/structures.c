@@ -246,6 +246,13 @@ sl_status sl_pair_check(sl_plan *plan, sl_structure_set *ss, bool allow_mismatch
                          ss->source, r->name, r->frame_uid,
                          plan->frame_uid ? "plan's" : "structure set's", ref);
         }
+        /* one patient: a plan and a structure set of one frame but of two
+         * patients (a phantom frame reused, a merge gone wrong) are not a
+         * pair (found by an independent review) */
+        if (!why[0] && plan->patient_id && ss->patient_id && plan->patient_id[0] &&
+            ss->patient_id[0] && strcmp(plan->patient_id, ss->patient_id) != 0)
+            snprintf(why, sizeof why, "%s: Patient ID (0010,0020) '%s' differs from %s's '%s'",
+                     plan->source, plan->patient_id, ss->source, ss->patient_id);
         if (!why[0] && (!plan->frame_uid || !ss_frame) &&
             sl_notes_add(&plan->notes,
                          "the frames of reference were not compared: %s gives no "

@@ -46,6 +46,11 @@ struct sl_node {
     size_t nwait, capwait;
     sl_batch_entry *done;
     size_t ndone, capdone;
+    /* the summary could not be written (a full disk): tried again at each
+     * step, the node going on (found by an independent review: it stopped) */
+    bool summary_due;
+    double summary_tried_s;         /* when it was last tried (monotonic s) */
+    char problem[SL_ERROR_MSG_MAX]; /* to be logged once; "" when none */
 };
 
 sl_status sl_node_create(const sl_batch_config *cfg, const char *store_dir,
@@ -61,6 +66,16 @@ sl_status sl_node_create(const sl_batch_config *cfg, const char *store_dir,
     pthread_mutex_init(&n->lock, NULL);
     *out = n;
     return SL_OK;
+}
+
+const char *sl_node_take_problem(sl_node *n)
+{
+    static _Thread_local char taken[SL_ERROR_MSG_MAX];
+    if (!n->problem[0])
+        return NULL;
+    snprintf(taken, sizeof taken, "%s", n->problem);
+    n->problem[0] = '\0';
+    return taken;
 }
 
 void sl_node_free(sl_node *n)
@@ -361,7 +376,8 @@ sl_status sl_node_step(sl_node *n, double now_s,
         free(p->path);
         n->wait[i] = n->wait[--n->nwait];
     }
-    if (st == SL_OK && changed) {
+    if (st == SL_OK && (changed || (n->summary_due && now_s - n->summary_tried_s >= 1))) {
+        n->summary_tried_s = now_s;
         /* the summary lists this run's plans, attention first; sorting a
          * copy keeps the order of arrival in n->done */
         sl_batch_entry *copy = malloc((n->ndone ? n->ndone : 1) * sizeof *copy);
@@ -369,8 +385,17 @@ sl_status sl_node_step(sl_node *n, double now_s,
             return sl_error_set(err, SL_ENOMEM, "out of memory");
         memcpy(copy, n->done, n->ndone * sizeof *copy);
         sl_batch_sort(copy, n->ndone);
-        st = sl_batch_write_summary(n->cfg, copy, n->ndone, err);
+        sl_error werr = {0};
+        sl_status ws = sl_batch_write_summary(n->cfg, copy, n->ndone, &werr);
         free(copy);
+        if (ws == SL_ENOMEM)
+            return sl_error_set(err, SL_ENOMEM, "%s", werr.msg);
+        if (ws != SL_OK && !n->summary_due)
+            snprintf(n->problem, sizeof n->problem,
+                     "%s: the summary is tried again at the next change or second", werr.msg);
+        else if (ws == SL_OK && n->summary_due)
+            snprintf(n->problem, sizeof n->problem, "the summary is written again");
+        n->summary_due = ws != SL_OK;
     }
     return st;
 }

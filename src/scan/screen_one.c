@@ -12,10 +12,12 @@
  * checked against the UID grammar, so two plans never share a name and no
  * identifier from a file can reach outside the output folder.
  */
+#include <errno.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include <libxml/parser.h>
 
@@ -50,6 +52,8 @@ void sl_sanitise_name(const char *in, char *out, size_t max)
  * a plan's worst status names what a reader must look at. */
 static int organ_rank(const sl_assessment *a)
 {
+    if (!a->flagged && a->measurement_advised)
+        return 8; /* the plan is flagged for it: a measurement */
     if (!a->flagged) {
         if (a->unjudged)
             return 2;
@@ -92,11 +96,16 @@ static void status_of(const sl_assessment *a, char *buf, size_t size)
     else if (a->incomplete)
         snprintf(buf, size, "%s (incomplete: other beams not included)",
                  sl_status_text(a->status));
+    else if (a->kind_unknown)
+        snprintf(buf, size, "not judged: %s", a->not_assessed_why);
+    else if (a->measurement_advised && !a->flagged)
+        snprintf(buf, size, "%s, measurement advised", sl_status_text(a->status));
     else
         snprintf(buf, size, "%s", sl_status_text(a->status));
 }
 
-/* The flagged organs and the plan's worst status, for summary and log. */
+/* The flagged organs (those advised a measurement too: they flag the plan)
+ * and the plan's worst status, for summary and log. */
 static bool collect(const sl_assessments *as, sl_batch_entry *e)
 {
     bool ok = true;
@@ -127,7 +136,7 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
                 e->unjudged = u;
             }
         }
-        if (!a->flagged)
+        if (!a->flagged && !a->measurement_advised)
             continue;
         sl_flagged_organ *o = &e->organs[e->nflagged++];
         const sl_organ_dose *d = a->dose;
@@ -194,13 +203,14 @@ static sl_status write_report(const sl_batch_config *cfg, const char *name, int 
     snprintf(path, n, "%s/%s", cfg->outdir, name);
     const char *inputs[] = {plan_path, ss_path, cfg->model_path, cfg->levels_path};
     sl_outfile out = {0};
+    errno = 0;
     sl_status st = sl_outfile_open(&out, path, inputs, 4, err);
     if (st == SL_OK && kind == REP_PDF) {
         unsigned char *pdf = NULL;
         size_t len = 0;
         st = sl_report_estimate_pdf(rep, cfg->pdf_paper, &pdf, &len, err);
         if (st == SL_OK && fwrite(pdf, 1, len, out.fp) != len)
-            st = sl_error_set(err, SL_EIO, "%s: cannot write", path);
+            st = sl_error_set(err, SL_EIO, "cannot write");
         free(pdf);
     } else if (st == SL_OK) {
         st = kind == REP_HTML ? sl_report_estimate_html(out.fp, rep, err)
@@ -210,8 +220,36 @@ static sl_status write_report(const sl_batch_config *cfg, const char *name, int 
         st = sl_outfile_commit(&out, err);
     else
         sl_outfile_abort(&out);
+    /* a write that failed names the file and the system's reason (a full
+     * disk), not only that the report could not be written */
+    int why = errno;
+    if (st == SL_EIO && !strstr(err->msg, path)) {
+        char msg[sizeof err->msg];
+        snprintf(msg, sizeof msg, "%s%s%s", err->msg, why ? ": " : "", why ? strerror(why) : "");
+        sl_error_set(err, SL_EIO, "%s: %s", path, msg);
+    }
     free(path);
     return st;
+}
+
+/* A plan whose reports could not all be written keeps none: the log's row
+ * (an error) must not name a report that stands as if it were complete. */
+static void remove_reports(const sl_batch_config *cfg, sl_batch_entry *e)
+{
+    char **names[] = {&e->report_json, &e->report_html, &e->report_pdf};
+    for (size_t k = 0; k < 3; k++) {
+        if (!*names[k])
+            continue;
+        size_t n = strlen(cfg->outdir) + strlen(*names[k]) + 2;
+        char *path = malloc(n);
+        if (path) {
+            snprintf(path, n, "%s/%s", cfg->outdir, *names[k]);
+            (void)unlink(path);
+            free(path);
+        }
+        free(*names[k]);
+        *names[k] = NULL;
+    }
 }
 
 /* The facts used (and the planning system's doses), as one line for the log. */
@@ -352,8 +390,17 @@ static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structur
         sl_sanitise_name(e->plan_label ? e->plan_label : "plan", label, sizeof label);
         snprintf(name, sizeof name, "%s_%s_%s.json", pid[0] ? pid : "no-id",
                  label[0] ? label : "plan", e->plan_uid);
-        st = write_report(cfg, name, REP_JSON, &rep, plan_path, ss_path, err);
-        bool ok = true;
+        /* what the screening found first: a report that cannot be written
+         * (a full disk) leaves the plan an error, and the log still holds
+         * its flagged organs (found by an independent review: they were
+         * lost with the report) */
+        for (size_t b = 0; b < scr->plan->nbeams; b++)
+            e->nbeams += sl_beam_skip_reason(&scr->plan->beams[b]) == NULL;
+        bool ok = collect(scr->as, e);
+        if (!ok)
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        if (st == SL_OK)
+            st = write_report(cfg, name, REP_JSON, &rep, plan_path, ss_path, err);
         if (st == SL_OK) {
             e->report_json = xstrdup(name, &ok);
             memcpy(name + strlen(name) - 5, ".html", 6);
@@ -367,13 +414,10 @@ static sl_status pipeline(const sl_batch_config *cfg, sl_plan *plan, sl_structur
             if (st == SL_OK)
                 e->report_pdf = xstrdup(name, &ok);
         }
-        if (st == SL_OK) {
-            for (size_t b = 0; b < scr->plan->nbeams; b++)
-                e->nbeams += sl_beam_skip_reason(&scr->plan->beams[b]) == NULL;
-            ok = ok && collect(scr->as, e);
-            if (!ok)
-                st = sl_error_set(err, SL_ENOMEM, "out of memory");
-        }
+        if (st == SL_OK && !ok)
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+        if (st != SL_OK)
+            remove_reports(cfg, e);
     }
     sl_screen_free(scr);
     free(plan_path);
@@ -544,9 +588,53 @@ static int rank_of(const sl_batch_entry *e)
     case SL_OUT_ERROR: return RANK_ERROR;
     case SL_OUT_INCOMPLETE: return RANK_INCOMPLETE;
     case SL_OUT_BAD: return RANK_BAD;
-    case SL_OUT_SKIPPED: return RANK_SKIPPED;
+    /* one not screened again ranks by what its last screening found */
+    case SL_OUT_SKIPPED:
+        return e->flagged ? RANK_FLAGGED : e->unjudged ? RANK_NOT_JUDGED : RANK_SKIPPED;
     default: return RANK_OTHER;
     }
+}
+
+sl_status sl_batch_carry_last(sl_batch_entry *e, const sl_history_row *last, sl_error *err)
+{
+    bool ok = true, screened = last->outcome && strcmp(last->outcome, "screened") == 0;
+    e->outcome = SL_OUT_SKIPPED;
+    e->flagged = last->flagged || !screened;
+    free(e->message);
+    char buf[1024];
+    snprintf(buf, sizeof buf,
+             "--rescreen-stale: last screened with this version of the model (log id %lld, "
+             "%s): not screened again; then: %s%s%s%s",
+             last->id, last->screened_at ? last->screened_at : "?",
+             last->outcome ? last->outcome : "?", last->flagged ? ", flagged" : "",
+             last->message ? ": " : "", last->message ? last->message : "");
+    e->message = xstrdup(buf, &ok);
+    free(e->worst_status);
+    e->worst_status = xstrdup(last->worst_status, &ok);
+    free(e->unjudged);
+    e->unjudged = xstrdup(last->organs_not_judged, &ok);
+    char **reports[] = {&e->report_json, &e->report_html, &e->report_pdf};
+    const char *from[] = {last->report_json, last->report_html, last->report_pdf};
+    for (size_t k = 0; k < 3; k++) {
+        free(*reports[k]);
+        *reports[k] = xstrdup(from[k], &ok);
+    }
+    if (last->norgans && !e->organs) {
+        e->organs = calloc(last->norgans, sizeof *e->organs);
+        ok = ok && e->organs;
+        for (size_t k = 0; e->organs && k < last->norgans; k++) {
+            const sl_history_organ *g = &last->organs[k];
+            sl_flagged_organ *o = &e->organs[e->nflagged++];
+            o->roi = xstrdup(g->roi, &ok);
+            o->kind = xstrdup(g->kind, &ok);
+            o->status = xstrdup(g->status, &ok);
+            o->level = xstrdup(g->level, &ok);
+            o->course_cgy = g->course_cgy;
+            o->upper_cgy = g->upper_cgy;
+            o->level_gy = g->level_gy;
+        }
+    }
+    return ok ? SL_OK : sl_error_set(err, SL_ENOMEM, "out of memory");
 }
 
 static int cmp_opt(const char *a, const char *b)

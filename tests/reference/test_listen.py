@@ -162,6 +162,25 @@ class Listen(unittest.TestCase):
         self.assertEqual(os.stat(self.out).st_mode & 0o007, 0)
         self.assertEqual(os.stat(os.path.join(self.out, "received")).st_mode & 0o077, 0)
 
+    def test_a_summary_that_cannot_be_written_does_not_stop_the_node(self):
+        """summary.csv's name taken by a folder (as a full disk fails the
+        write): the node logs it and goes on answering and screening, and
+        writes the summary once it can (found by an independent review: a
+        full disk stopped the node, exit 1, every later export refused)."""
+        os.makedirs(os.path.join(self.out, "summary.csv", "taken"))
+        node = self.start()
+        face = os.path.join(EXAMPLES, "face-lens")
+        p = store(node.port, os.path.join(face, "rtplan.dcm"), os.path.join(face, "rtstruct.dcm"))
+        self.assertEqual(p.returncode, 0, p.stderr)
+        self.assertTrue(node.wait_for(lambda: "tried again" in node.log()), node.log())
+        self.assertIsNone(node.proc.poll(), node.log())
+        self.assertEqual(echo(node.port), 0)
+        shutil.rmtree(os.path.join(self.out, "summary.csv"))
+        self.assertTrue(node.wait_for(
+            lambda: os.path.isfile(os.path.join(self.out, "summary.csv"))), node.log())
+        self.assertTrue(node.wait_for(lambda: "written again" in node.log()), node.log())
+        self.assertEqual(node.stop(), 0, node.log())
+
     def test_port_in_use(self):
         node = self.start()
         p = subprocess.run([STRAYLINE, "listen", "--port", str(node.port), "--ae-title", AET,
@@ -338,6 +357,24 @@ class Listen(unittest.TestCase):
             with open(os.path.join(self.out, name)) as f:
                 json.load(f)  # whole
         self.assertEqual(len(report_names(self.out)), 10)
+
+    def test_a_silent_connection_holds_others_briefly(self):
+        """A peer that connects and sends nothing (a port scanner, a hung
+        sender): the association request is read on the listening thread,
+        so it holds every other sender, for at most the association timeout
+        (5 s), not the network timeout (60 s by default; found by an
+        independent review: a 25 s silent connection delayed a store by
+        25.6 s). echoscu must answer within 5 s + margin."""
+        node = self.start()
+        silent = socket.create_connection(("127.0.0.1", node.port), timeout=30)
+        try:
+            time.sleep(0.3)  # the node is now waiting on the silent peer
+            t0 = time.monotonic()
+            self.assertEqual(echo(node.port, timeout=30), 0, node.log())
+            self.assertLess(time.monotonic() - t0, 9.0)
+        finally:
+            silent.close()
+        self.assertEqual(echo(node.port), 0)
 
     def test_aborted_association_leaves_no_file(self):
         """storescu's connection cut after 64 KiB of an 800 KB structure set

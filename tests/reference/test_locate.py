@@ -585,6 +585,25 @@ class BadGeometry(unittest.TestCase):
             js = locate_json(plan, other, "--allow-mismatch")
         self.assertTrue(any("MISMATCH ALLOWED" in w for w in js["warnings"]))
 
+    def test_plan_and_structures_of_two_patients(self):
+        """A plan and the structure set it names, of one frame of reference
+        but of two patients (Patient ID (0010,0020), pydicom): refused as a
+        pair that does not belong together unless --allow-mismatch (found by
+        an independent review: screened without a word)."""
+        import pydicom
+        with tempdir() as d:
+            plan, ss = box_phantom(d, points=[("p", (0.0, 10.0, 0.0))])
+            s = pydicom.dcmread(ss)
+            s.PatientID = "SOMEONE-ELSE-9"
+            s.save_as(ss)
+            rc, out, err = run("locate", plan, ss)
+            self.assertEqual(rc, 3, err)
+            self.assertIn("Patient ID (0010,0020)", err)
+            self.assertIn("SOMEONE-ELSE-9", err)
+            js = locate_json(plan, ss, "--allow-mismatch")
+        self.assertTrue(any("MISMATCH ALLOWED" in w and "Patient ID" in w
+                            for w in js["warnings"]))
+
 
 class DemoCases(unittest.TestCase):
     def test_lens_case_summary_keys(self):

@@ -238,6 +238,21 @@ class MixedFolder(unittest.TestCase):
         rows = [r for r in log_rows(os.path.join(self.out, "screening.sqlite"))
                 if r["patient_id"] == "DEMO-FETUS-02"]
         self.assertIn("gestational_age_weeks=14", rows[0]["options"])
+        # the fetus is advised a measurement (it flags the plan): summary
+        # and log name it with its status, as they name it without an age
+        # (found by an independent review: flagged, with no organ listed)
+        self.assertTrue(fetus[0]["flagged"])
+        names = {o["roi"]: o["status"] for o in fetus[0]["flagged_organs"]}
+        self.assertIn("Fetus", names, fetus[0])
+        self.assertIn("measurement advised", names["Fetus"])
+        self.assertIn("measurement advised", fetus[0]["worst_status"])
+        con = sqlite3.connect(os.path.join(self.out, "screening.sqlite"))
+        try:
+            logged = [r[0] for r in con.execute(
+                "SELECT roi FROM flagged_organ WHERE screening_id = ?", (rows[0]["id"],))]
+        finally:
+            con.close()
+        self.assertIn("Fetus", logged)
 
 
 class MissingFact(unittest.TestCase):
@@ -378,11 +393,15 @@ class NotJudgedIsNotClear(unittest.TestCase):
         copy_pair("face-lens", dest, tag)
         plan_p, ss_p = os.path.join(dest, "rtplan.dcm"), os.path.join(dest, "rtstruct.dcm")
         ss = pydicom.dcmread(ss_p)
+        # the others by standard names (AAPM TG-263) the table knows without
+        # a level: a name no kind matches is not judged once it reaches 5 cGy
+        known = ["Brain", "Liver", "Spleen", "Stomach", "Trachea", "Larynx", "Pharynx",
+                 "Mandible", "Lips", "Skin", "Colon", "Rectum"]
         for k, r in enumerate(ss.StructureSetROISequence):
             if r.ROIName.startswith("PTV"):
                 continue
             r.ROIName = (near_name if near_lens and r.ROIName == "Parotid_L"
-                         else "Other_%d" % k)
+                         else known[k])
         ss.save_as(ss_p)
         plan = pydicom.dcmread(plan_p)
         # a low dose everywhere: the MU, and the plan's own statements of its
@@ -435,7 +454,8 @@ class NotJudgedIsNotClear(unittest.TestCase):
                 rc, o, e = run("history", "--log", log, "--format", "json", opt, check=0)
                 self.assertEqual([x["plan_uid"] for x in json.loads(o)["screenings"]], want)
             rc, o, e = run("history", "--log", log, "--attention", check=0)
-            self.assertIn("NOT JUDGED (organs with action levels): Lens_L_near", o)
+            self.assertIn("NOT JUDGED (organs with action levels, or of no known kind): "
+                          "Lens_L_near", o)
             rc, o, e = run("history", "--log", log, "--format", "csv", check=0)
             rows = {r["plan_uid"]: r for r in csv.DictReader(io.StringIO(o))}
             self.assertEqual(rows[nj]["organs_not_judged"], "Lens_L_near")
@@ -530,6 +550,35 @@ class WhatCannotBeRead(unittest.TestCase):
             self.assertIn("a symbolic link that leads nowhere readable", why[0])
             self.assertIn("a symbolic link to a folder, not followed", why[1])
 
+
+    def test_a_report_that_cannot_be_written(self):
+        """The HTML report's name taken by a folder (as a full disk would
+        fail the write): the plan is an error naming the file and why, the
+        JSON report written before it is removed (the row names no report
+        that stands as if complete), and the log keeps the flagged lens
+        (found by an independent review: the flagged organs were lost)."""
+        with tempdir() as d:
+            src = os.path.join(d, "in")
+            uid, _, pid = copy_pair("face-lens", os.path.join(src, "a"), "FULL")
+            out = os.path.join(d, "out")
+            os.makedirs(out)
+            label = pydicom.dcmread(os.path.join(src, "a", "rtplan.dcm")).RTPlanLabel
+            name = "%s_%s_%s" % (pid, label, uid)
+            os.makedirs(os.path.join(out, name + ".html", "taken"))
+            rc, stdout, err = scan(src, out)
+            self.assertEqual(rc, 4, err)
+            with open(os.path.join(out, "summary.csv"), newline="") as f:
+                rows = list(csv.DictReader(f))
+            self.assertEqual(rows[0]["outcome"], "error", rows)
+            self.assertIn(name + ".html", rows[0]["message"])
+            self.assertEqual(rows[0]["report_json"], "")
+            self.assertFalse(os.path.exists(os.path.join(out, name + ".json")))
+            con = sqlite3.connect(os.path.join(out, "screening.sqlite"))
+            try:
+                organs = [r[0] for r in con.execute("SELECT roi FROM flagged_organ")]
+            finally:
+                con.close()
+            self.assertIn("Lens_L", organs)
 
     def test_a_lower_case_electron_beam_is_an_error_not_a_skip(self):
         """A Radiation Type written 'electron' (not a code string: PS3.5
@@ -633,8 +682,8 @@ class History(unittest.TestCase):
             con.close()
         self.assertEqual(len(rows), n)  # one line per flagged organ
         for r in rows:
-            float(r["course_max_cgy"])
-            float(r["course_max_upper_cgy"])
+            float(r["judged_course_max_cgy"])
+            float(r["judged_course_max_upper_cgy"])
         rc, out, err = run("history", "--log", self.log, check=0)
         self.assertIn("DEMO-DEVICE-03", out)
         self.assertIn("2 screenings", out)
@@ -681,6 +730,19 @@ class History(unittest.TestCase):
         self.assertEqual(len(summary), 3)
         for r in summary:
             self.assertIn("last screened with this version of the model", "|".join(r.values()))
+        # each keeps what its last screening found: the flagged ones stay
+        # flagged, with their organs and reports, and the exit code is 4
+        # (found by an independent review: a lens above its level read
+        # "skipped, not flagged", exit 0)
+        self.assertEqual(rc, 4, err)
+        last = {r["plan_uid"]: r for r in rows[2:]}
+        for r in summary:
+            self.assertEqual(r["outcome"], "skipped")
+            was = last[r["plan_uid"]]
+            self.assertEqual(r["flagged"], "yes" if was["flagged"] else "no", r)
+            self.assertEqual(r["worst_status"], was["worst_status"] or "", r)
+            self.assertEqual(r["report_html"], was["report_html"] or "", r)
+        self.assertTrue(any(r["flagged"] == "yes" and r["flagged_organs"] for r in summary))
 
     def test_a_plan_that_failed_with_the_old_model_is_stale(self):
         """A model without the 12 MeV profiles refuses the chest-fetus plan
