@@ -148,6 +148,11 @@ sl_status sl_find_edges(const double *x, const double *d, size_t n, const char *
  * typed ten times high 10 times). */
 #define SL_LEVELS_AT_CM 10.0
 #define SL_LEVELS_APART 5.0
+/* ... and a pair with a profile deeper than the maximum, compared nearer
+ * than SL_LEVELS_AT_CM: beyond the electrons' range only photons remain, a
+ * few times below the scattered electrons there (a strayline setting that
+ * still finds a fraction given for a percent). */
+#define SL_LEVELS_APART_DEEP 20.0
 /* A profile whose first point lies farther than this from the edge (cm)
  * gets a note: the near-edge organs rest on the extrapolation. */
 #define SL_EDGE_FAR_START_CM 1.0

@@ -44,6 +44,10 @@ extern "C" {
 typedef enum sl_profile_form { SL_FORM_SMOOTH, SL_FORM_PEAKED } sl_profile_form;
 
 #define SL_PROFILE_MAX_PARAMS 7
+/* Every fitted parameter lies in this range (percent, cm) in a model file: a
+ * length beyond it is a profile that does not fall over its measured range. */
+#define SL_PROFILE_PARAM_MIN 1e-12
+#define SL_PROFILE_PARAM_MAX 1e4
 
 /* Parameter order: A (percent), l1 (cm), C (percent), l2 (cm), then for the
  * peaked form B (percent), mu (cm), s (cm). */

@@ -753,19 +753,34 @@ static double dose_at(const sl_profile_data *p, double x)
     return NAN;
 }
 
+/* Whether a profile lies deeper than the depth of maximum of its energy
+ * and applicator (unknown: taken as deeper, the wider tolerance). */
+static bool deeper_than_max(const sl_measurement_set *m, const sl_profile_data *p)
+{
+    const sl_output_spec *o = sl_machine_output(&m->machine, p->energy_mev, p->applicator);
+    return !o || p->depth_cm > o->dmax_cm;
+}
+
 /* The profiles of one energy, applicator and insert read alike far from
  * the field, where head leakage and scatter dominate and depth, direction,
  * tilt and SSD change the dose by a factor of two or so. One that reads
- * SL_LEVELS_APART times lower or higher than the median of the others at
- * the same distance is in another unit or against another reference dose
- * (the checks at the axis and the edge see only profiles no deeper than the
- * maximum that start there). At every depth: a profile deeper than the
- * maximum in fractions read 100 times low at every deep organ (found by an
- * independent review). Two profiles alone (along one direction) are
- * compared with each other, and neither is taken when they read that far
- * apart. */
-static sl_status check_levels_agree(const sl_measurement_set *m, const char *name,
-                                    sl_error *err)
+ * SL_LEVELS_APART times lower or higher than the median of the others is
+ * in another unit or against another reference dose (the checks at the
+ * axis and the edge see only profiles no deeper than the maximum that
+ * start there). Two profiles are compared at the farthest distance both
+ * reach, up to SL_LEVELS_AT_CM, and never before either's first point, so
+ * that a tail scanned alone from 12 cm is compared too. At every depth: a
+ * profile deeper than the maximum in fractions read 100 times low at every
+ * deep organ (found by an independent review). But beyond the electrons'
+ * range only the photons remain, a few times below the scattered
+ * electrons a few centimetres out: a pair with a profile deeper than the
+ * maximum compared nearer than SL_LEVELS_AT_CM is held to
+ * SL_LEVELS_APART_DEEP, which still finds a fraction for a percent. Two
+ * profiles alone (along one direction) are compared with each other, and
+ * the message says either may be the one; a profile compared with none,
+ * deeper than the maximum or starting beyond the edge rule, is a warning
+ * (nothing could check its unit). */
+static sl_status check_levels_agree(sl_measurement_set *m, const char *name, sl_error *err)
 {
     size_t n = m->nprofiles;
     double *v = malloc((n ? n : 1) * sizeof *v);
@@ -776,28 +791,41 @@ static sl_status check_levels_agree(const sl_measurement_set *m, const char *nam
         const sl_profile_data *p = &m->profiles[i];
         if (p->n < 2)
             continue;
-        /* the farthest distance both reach, at most SL_LEVELS_AT_CM */
         size_t k = 0;
-        bool same_direction = true; /* of the others */
+        bool same_direction = true, wide = false; /* of the others */
+        bool p_deep = deeper_than_max(m, p);
         for (size_t j = 0; j < n; j++) {
             const sl_profile_data *q = &m->profiles[j];
             if (j == i || q->n < 2 || q->entry == p->entry ||
                 fabs(q->energy_mev - p->energy_mev) > 0.01 ||
                 strcmp(q->applicator, p->applicator) != 0 || strcmp(q->insert, p->insert) != 0)
                 continue;
-            double x = fmin(SL_LEVELS_AT_CM, fmin(p->distance_cm[p->n - 1],
-                                                  q->distance_cm[q->n - 1]));
+            double reach = fmin(p->distance_cm[p->n - 1], q->distance_cm[q->n - 1]);
+            double x = fmax(fmin(SL_LEVELS_AT_CM, reach),
+                            fmax(p->distance_cm[0], q->distance_cm[0]));
+            if (x > reach)
+                continue; /* no distance in common */
             double a = dose_at(p, x), b = dose_at(q, x);
             if (isfinite(a) && isfinite(b) && a > 0 && b > 0) {
                 v[k++] = a / b;
                 same_direction = same_direction && p->direction && q->direction &&
                                  strcmp(p->direction, q->direction) == 0;
+                wide = wide || ((p_deep || deeper_than_max(m, q)) && x < SL_LEVELS_AT_CM);
             }
         }
         /* a pair alone only along one direction: a diagonal's distance from
          * a square field's corner reads far lower than a side's nearby */
-        if (k == 0 || (k == 1 && !same_direction))
+        if (k == 0 || (k == 1 && !same_direction)) {
+            if (p_deep || p->distance_cm[0] > SL_EDGE_START_CM)
+                sl_notes_add(&m->notes,
+                             "%s: profile %zu (%s) could not be compared with another profile "
+                             "of %g MeV, applicator '%s', insert '%s' at a distance both reach: "
+                             "nothing checked that it is in percent of the central-axis "
+                             "maximum; check its unit and reference",
+                             name, p->entry, p->path ? p->path : p->file, p->energy_mev,
+                             p->applicator, p->insert);
             continue;
+        }
         /* the median ratio to the others */
         for (size_t a = 1; a < k; a++)
             for (size_t b = a; b > 0 && v[b] < v[b - 1]; b--) {
@@ -806,15 +834,16 @@ static sl_status check_levels_agree(const sl_measurement_set *m, const char *nam
                 v[b - 1] = t;
             }
         double med = k % 2 ? v[k / 2] : sqrt(v[k / 2 - 1] * v[k / 2]);
-        if (med < 1 / SL_LEVELS_APART || med > SL_LEVELS_APART)
+        double apart = wide ? SL_LEVELS_APART_DEEP : SL_LEVELS_APART;
+        if (med < 1 / apart || med > apart)
             st = sl_error_set(err, SL_EINPUT,
                               "%s: profile %zu (%s) reads %.3g times the other profile%s of "
                               "%g MeV, applicator '%s', insert '%s' far from the field (median "
-                              "of %zu, at up to %g cm): another unit or another reference "
-                              "dose?%s",
+                              "of %zu, at up to %g cm; more than %g times apart): another unit "
+                              "or another reference dose?%s",
                               name, p->entry, p->path ? p->path : p->file, med,
                               k == 1 ? "" : "s", p->energy_mev, p->applicator, p->insert, k,
-                              SL_LEVELS_AT_CM,
+                              SL_LEVELS_AT_CM, apart,
                               k == 1 ? " (of two profiles either may be the one)" : "");
     }
     free(v);

@@ -106,7 +106,8 @@ static sl_status read_fit(sl_yaml *y, yaml_node_t *n, const char *what, sl_profi
         pk[i] = (sl_yaml_field){sl_profile_param_key(i), true, NULL};
     st = sl_yaml_fields(y, k[1].node, "parameters", pk, f->p, err);
     for (size_t i = 0; st == SL_OK && i < f->p; i++) {
-        st = sl_yaml_number_in(y, pk[i].node, pk[i].key, 1e-12, 1e4, &f->theta[i], err);
+        st = sl_yaml_number_in(y, pk[i].node, pk[i].key, SL_PROFILE_PARAM_MIN,
+                               SL_PROFILE_PARAM_MAX, &f->theta[i], err);
     }
     yaml_node_item_t *rows;
     size_t nrows;

@@ -430,6 +430,57 @@ class ProfilesInAnotherUnit(unittest.TestCase):
         self.assertEqual(rc, 3, err)
         self.assertIn("either may be the one", err)
 
+    def test_a_tail_scanned_alone_as_a_fraction(self):
+        """A profile whose points all lie 12 cm and more from the edge, as a
+        fraction: it shares no distance with the others up to 10 cm, so it
+        is compared where both reach, at its own first point, and refused
+        (found by an independent review: such a tail was compared with
+        nothing)."""
+        self.refuse_fraction("e06_a06_open_d0.00.csv", False, start=12,
+                             fragment="another unit or another reference dose")
+
+    def test_a_short_profile_beyond_the_range_is_accepted(self):
+        """6 MeV, A06, open at 4 cm, beyond the electrons' practical range
+        (about 3 cm at 6 MeV, from memory), scanned to 5 cm only: photons
+        alone, 0.62 % at the edge falling to 0.12 %, a few times below the
+        shallower profiles there (0.75 % at 2 cm). A plausible profile in
+        percent is taken (the wider tolerance of a deep pair compared near
+        the field, models/README.md), and one in fractions still refused.
+        One whose level stops falling (0.125 % flat beyond 3 cm) sends the
+        tail's length to infinity: refused naming the profile, not when
+        the model file is read back (found writing this test)."""
+        for tail, scale, rc_want in ((15.0, 1.0, 0), (15.0, 0.01, 3), (None, 1.0, 3)):
+            with tempdir() as d:
+                dst = os.path.join(d, "set")
+                shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning",
+                                             "demo-e1"), dst)
+                ms = os.path.join(dst, "measurements.yaml")
+                with open(ms) as f:
+                    doc = yaml.safe_load(f)
+                doc["profiles"].append({"energy_mev": 6, "applicator": "A06", "insert": "open",
+                                        "depth_cm": 4.0, "direction": "crossplane",
+                                        "file": "profiles/e06_a06_open_d4.00.csv",
+                                        "uncertainty": {"relative": 0.02,
+                                                        "floor_percent": 0.002}})
+                with open(ms, "w") as f:
+                    yaml.safe_dump(doc, f)
+                with open(os.path.join(dst, "profiles", "e06_a06_open_d4.00.csv"), "w",
+                          newline="") as f:
+                    w = csv.writer(f)
+                    w.writerow(["edge_distance_cm", "dose_percent"])
+                    for i in range(21):
+                        x = 0.25 * i
+                        v = (0.16 * math.exp(-x / tail) + 0.46 * math.exp(-x / 1.1)
+                             if tail else 0.125 + 0.495 * math.exp(-x / 1.1))
+                        w.writerow([x, repr(round(v * scale, 6))])
+                rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
+            self.assertEqual(rc, rc_want, err)
+            if rc_want:
+                self.assertEqual(len(err.strip().splitlines()), 1, err)
+                self.assertIn("e06_a06_open_d4.00.csv", err)
+                self.assertIn("another unit or another reference dose" if tail else
+                              "scan farther out", err)
+
 
 class OneSideHotter(unittest.TestCase):
     """The demo set's through-field profile at 9 MeV, A10, 1 cm, inplane, with
