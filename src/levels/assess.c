@@ -100,14 +100,41 @@ static void kind_unknown(sl_assessments *as, sl_assessment *a, double lowest_gy)
     a->unjudged = true;
     a->kind_unknown = true;
     a->flagged = true;
-    a->unjudged_level_gy = lowest_gy;
-    a->not_assessed_why = "no kind of the action-level table matches its name";
-    sl_notes_add(&a->advice,
-                 "not judged by this screening: no kind of the action-level table matches its "
-                 "name, and its upper bound reaches the table's lowest level (%.1f cGy); if it "
-                 "is a lens, thyroid, breast, gonad, bone marrow, fetus or cardiac device, say "
-                 "so with --organ ROI=KIND, and if none, with --organ ROI=other_organ",
-                 100 * lowest_gy);
+    /* estimated, its value reaches that level; else nobody knows its dose */
+    if (a->dose->estimated)
+        a->unjudged_level_gy = lowest_gy;
+    else
+        a->unjudged_unknown = true;
+    /* its value is shown, not judged: no advice is drawn from it */
+    if (a->status != SL_ST_IN_FIELD)
+        a->status = SL_ST_NOT_ASSESSED;
+    if (!a->not_assessed_why)
+        a->not_assessed_why = "no kind of the action-level table matches its name";
+    if (a->status == SL_ST_IN_FIELD || !a->dose->estimated)
+        sl_notes_add(&a->advice,
+                     "not judged by this screening: no kind of the action-level table matches "
+                     "its name, and its dose is not known here (%s); if it is a lens, thyroid, "
+                     "breast, gonad, bone marrow, fetus or cardiac device, say so with --organ "
+                     "ROI=KIND, and if none, with --organ ROI=other_organ",
+                     a->status == SL_ST_IN_FIELD ? "in or touching the field" : "not placed");
+    else
+        sl_notes_add(&a->advice,
+                     "not judged by this screening: no kind of the action-level table matches "
+                     "its name, and its upper bound reaches the table's lowest level (%.1f "
+                     "cGy); if it is a lens, thyroid, breast, gonad, bone marrow, fetus or "
+                     "cardiac device, say so with --organ ROI=KIND, and if none, with --organ "
+                     "ROI=other_organ",
+                     100 * lowest_gy);
+}
+
+/* The types an organ of any kind may carry: an ORGAN, an AVOIDANCE
+ * structure, or no type at all. A CONTROL or DOSE_REGION structure, a
+ * MARKER, a CAVITY or a target is a planning aid or the treated volume;
+ * its name matching no kind says nothing about an organ (--organ still
+ * gives any of them a kind). */
+static bool kind_unknown_eligible(const char *type)
+{
+    return !type || !*type || strcmp(type, "ORGAN") == 0 || strcmp(type, "AVOIDANCE") == 0;
 }
 
 static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
@@ -403,6 +430,9 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
     /* the lowest level of the table, for an organ of no kind */
     double table_lowest = INFINITY;
     for (size_t k = 0; k < lv->nkinds; k++) {
+        /* a man's organ is no fetus */
+        if (pt->sex == 'M' && strcmp(lv->kinds[k].kind, "fetus") == 0)
+            continue;
         for (size_t l = 0; l < lv->kinds[k].nlevels; l++)
             table_lowest = fmin(table_lowest, lv->kinds[k].levels[l].dose_gy);
         if (lv->kinds[k].nbands)
@@ -492,6 +522,12 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                 a->kind = NULL;
             else
                 unjudged(as, a);
+            /* a ROI of no kind in the field, or contoured but not placed,
+             * has a dose nobody knows here: it may be any kind (one with
+             * nothing contoured is a name alone, and has no dose) */
+            if (!a->kind && !named_target && kind_unknown_eligible(d->roi->type) &&
+                (d->in_field || (!d->placed && d->nsamples > 0)) && isfinite(table_lowest))
+                kind_unknown(as, a, table_lowest);
             if (a->unjudged && sl_dose_type_target(d->roi->type) && !e->opt.include_targets)
                 sl_notes_add(&a->advice,
                              "typed %s, a target volume, yet named as a %s: not estimated; if "
@@ -632,7 +668,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         } else {
             a->status = SL_ST_NO_LEVEL;
         }
-        if (!k && !excluded_type && up >= table_lowest)
+        if (!k && !excluded_type && kind_unknown_eligible(d->roi->type) && up >= table_lowest)
             kind_unknown(as, a, table_lowest);
         if (a->status != SL_ST_NOT_ASSESSED) /* no advice from a value not judged */
             advise(a, pt, level_gy);

@@ -209,23 +209,40 @@ static void reading_clear(sl_log_reading *r)
         free(*f[j]);
 }
 
+static bool keep_model(const sl_log_reading *r, const char *sha256)
+{
+    return r->model_sha256 && strcmp(r->model_sha256, sha256) == 0;
+}
+
+static const char *version_of(const sl_log_reading *r)
+{
+    return r->model_version ? r->model_version : "(no version)";
+}
+
 size_t sl_log_readings_keep_model(sl_log_readings *rs, const char *sha256, char **versions)
 {
     if (versions)
         *versions = NULL;
     sl_buf v = {0};
     size_t kept = 0, dropped = 0;
+    /* each version left out named once, in the order first met: the list
+     * is made before any reading moves */
+    for (size_t i = 0; i < rs->n; i++) {
+        if (keep_model(&rs->r[i], sha256))
+            continue;
+        bool seen = false;
+        for (size_t j = 0; j < i && !seen; j++)
+            seen = !keep_model(&rs->r[j], sha256) &&
+                   strcmp(version_of(&rs->r[j]), version_of(&rs->r[i])) == 0;
+        if (!seen)
+            sl_buf_printf(&v, "%s%s", v.len ? ", " : "", version_of(&rs->r[i]));
+    }
     for (size_t i = 0; i < rs->n; i++) {
         sl_log_reading *r = &rs->r[i];
-        if (r->model_sha256 && strcmp(r->model_sha256, sha256) == 0) {
+        if (keep_model(r, sha256)) {
             rs->r[kept++] = *r;
             continue;
         }
-        /* each version named once (a substring of another is named
-         * anyway: a list to read, not to parse) */
-        const char *ver = r->model_version ? r->model_version : "(no version)";
-        if (!v.data || !strstr(v.data, ver))
-            sl_buf_printf(&v, "%s%s", v.len ? ", " : "", ver);
         dropped++;
         reading_clear(r);
     }

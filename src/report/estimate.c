@@ -240,7 +240,23 @@ void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl
         est_num(s * d->fx_max[0].upper_cgy, y, sizeof y);
         snprintf(c->fx, sizeof c->fx, "%s (%s)", x, y);
     } else {
-        snprintf(c->fx, sizeof c->fx, "by group (JSON)");
+        /* each fraction group's maximum a fraction, "group N: x (y)"; the
+         * course maximum beside it is what is judged */
+        size_t len = 0;
+        c->fx[0] = '\0';
+        for (size_t g = 0; g < e->ngroups; g++) {
+            char one[80];
+            est_num(s * d->fx_max[g].cgy, x, sizeof x);
+            est_num(s * d->fx_max[g].upper_cgy, y, sizeof y);
+            int k = snprintf(one, sizeof one, "%sgroup %d: %s (%s)", g ? "; " : "",
+                             e->plan->groups[g].number, x, y);
+            if (k < 0 || len + (size_t)k >= sizeof c->fx) {
+                snprintf(c->fx, sizeof c->fx, "%zu groups: see the JSON", e->ngroups);
+                break;
+            }
+            memcpy(c->fx + len, one, (size_t)k + 1);
+            len += (size_t)k;
+        }
     }
     double lv = a->governing ? s * 100 * a->governing->dose_gy : NAN;
     est_num_below(s * d->course_max.cgy, lv, x, sizeof x);
@@ -305,7 +321,10 @@ void est_status_text(const sl_assessment *a, char *buf, size_t size)
             snprintf(buf, size, "%s risk band%s%s", b, action ? ": ACTION" : "", q);
         return;
     }
-    snprintf(buf, size, "%s%s", sl_status_text(a->status), q);
+    if (a->kind_unknown) /* its status beside the verdict's */
+        snprintf(buf, size, "NOT JUDGED: no kind matches its name%s", q);
+    else
+        snprintf(buf, size, "%s%s", sl_status_text(a->status), q);
 }
 
 void est_other_beam_text(const sl_other_beam *b, char *buf, size_t size)
@@ -357,8 +376,11 @@ char *est_result_text(const sl_estimate_report *r)
             else
                 sl_buf_printf(&b, "%s%s%s", c++ ? ", " : "", v[i].organ,
                               v[i].a && v[i].a->kind_unknown
-                                  ? " (no kind matches its name; its value reaches the "
-                                    "table's lowest level)"
+                                  ? (v[i].a->dose->estimated
+                                         ? " (no kind matches its name; its value reaches the "
+                                           "table's lowest level)"
+                                         : " (no kind matches its name; its dose is not known "
+                                           "here)")
                               : v[i].a && v[i].a->unjudged_level_gy > 0
                                   ? " (its value shown reaches its level)"
                               : v[i].a && v[i].a->unjudged_unknown

@@ -65,10 +65,11 @@ void est_tps_ratio_cells(const sl_tps_ratio *t, char cells[6][32]);
 
 /* An organ row's dose cells in the unit of its table (scale s: 1 for cGy,
  * 10 for mGy), as the text and PDF tables show them: the maximum a fraction
- * and the course maximum, each "estimate (upper bound)", the course mean,
+ * (by fraction group when there are several: "group 1: x (y); group 2:
+ * ...") and the course maximum, each "estimate (upper bound)", the course mean,
  * and the governing level ("bands" for risk bands, "-" without one). */
 typedef struct est_dose_cells {
-    char fx[48], course[48], mean[24], level[24];
+    char fx[240], course[48], mean[24], level[24];
 } est_dose_cells;
 void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl_assessment *a,
                           double s, est_dose_cells *c);

@@ -77,8 +77,11 @@ static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool
         if (e->ngroups == 1)
             snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, s * d->fx_max[0].cgy),
                      num(x2, sizeof x2, s * d->fx_max[0].upper_cgy));
-        else
-            snprintf(buf, sizeof buf, "per fraction group: see the JSON output");
+        else {
+            est_dose_cells dc;
+            est_organ_dose_cells(e, d, a, s, &dc);
+            snprintf(buf, sizeof buf, "%s", dc.fx);
+        }
         hattr(h, hel(h, tr, "td", buf), "class", "n");
         snprintf(buf, sizeof buf, "%s (%s)", num(x1, sizeof x1, s * d->course_max.cgy),
                  num(x2, sizeof x2, s * d->course_max.upper_cgy));

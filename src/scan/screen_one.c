@@ -91,13 +91,19 @@ static void status_of(const sl_assessment *a, char *buf, size_t size)
         else
             snprintf(buf, size, "%s risk band", a->kind->bands[a->band].name);
     }
+    else if (a->kind_unknown && a->not_assessed_why &&
+             strstr(a->not_assessed_why, "no kind") == a->not_assessed_why)
+        snprintf(buf, size, "not judged: %s", a->not_assessed_why);
+    else if (a->kind_unknown)
+        snprintf(buf, size, "not judged: no kind matches its name (%s)",
+                 a->status == SL_ST_IN_FIELD ? "in or touching the field"
+                 : a->not_assessed_why       ? a->not_assessed_why
+                                             : "not assessed");
     else if (a->status == SL_ST_NOT_ASSESSED && a->not_assessed_why)
         snprintf(buf, size, "%s: %s", sl_status_text(a->status), a->not_assessed_why);
     else if (a->incomplete)
         snprintf(buf, size, "%s (incomplete: other beams not included)",
                  sl_status_text(a->status));
-    else if (a->kind_unknown)
-        snprintf(buf, size, "not judged: %s", a->not_assessed_why);
     else if (a->measurement_advised && !a->flagged)
         snprintf(buf, size, "%s, measurement advised", sl_status_text(a->status));
     else
@@ -216,13 +222,17 @@ static sl_status write_report(const sl_batch_config *cfg, const char *name, int 
         st = kind == REP_HTML ? sl_report_estimate_html(out.fp, rep, err)
                               : sl_report_estimate(out.fp, SL_FORMAT_JSON, rep, err);
     }
-    if (st == SL_OK)
+    /* the system's reason, taken before removing the temporary file can
+     * set errno again */
+    int why = st == SL_OK ? 0 : errno;
+    if (st == SL_OK) {
         st = sl_outfile_commit(&out, err);
-    else
+        why = errno;
+    } else {
         sl_outfile_abort(&out);
+    }
     /* a write that failed names the file and the system's reason (a full
      * disk), not only that the report could not be written */
-    int why = errno;
     if (st == SL_EIO && !strstr(err->msg, path)) {
         char msg[sizeof err->msg];
         snprintf(msg, sizeof msg, "%s%s%s", err->msg, why ? ": " : "", why ? strerror(why) : "");

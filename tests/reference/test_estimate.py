@@ -21,6 +21,7 @@ import io
 import json
 import math
 import os
+import re
 import unittest
 
 import jsonschema
@@ -255,6 +256,24 @@ class BoxPhantomArithmetic(unittest.TestCase):
         with tempdir() as d:
             plan, ss = box_case(d, pts, beams, groups)
             rc, js, err = estimate(plan, ss)
+            # the terminal and HTML tables (and the PDF's, from the text's
+            # cells) show each group's maximum a fraction, not a pointer to
+            # the JSON (found reading the HTML)
+            _, text, _ = run("estimate", plan, ss, "--model", MODEL)
+            html_path = os.path.join(d, "r.html")
+            run("estimate", plan, ss, "--model", MODEL, "--html", html_path)
+            with open(html_path) as f:
+                page = f.read()
+        for shown in (text, page):
+            self.assertNotIn("see the JSON", shown)
+            for g in (0, 1):
+                m = re.search(r"group %d: ([0-9.]+) \(([0-9.]+)\)" % (g + 1), shown)
+                self.assertIsNotNone(m, shown[:2000])
+                want = js["organs"][0]["per_fraction"][g]
+                self.assertAlmostEqual(float(m.group(1)), want["max_cgy"],
+                                       delta=0.01 * want["max_cgy"] + 0.01)
+                self.assertAlmostEqual(float(m.group(2)), want["max_upper_cgy"],
+                                       delta=0.01 * want["max_upper_cgy"] + 0.01)
         dist, depth = point_geometry(x, z)
         v12, _ = model_percent(12, "A10", depth, dist)
         v16, _ = model_percent(16, "A10", depth, dist)
@@ -1223,6 +1242,38 @@ class ReviewFindings(unittest.TestCase):
             self.assertFalse([o for o in js["result"]["organs"] if "no kind" in o["advice"]],
                              js["result"])
             self.assertEqual(organ(js, "Heart_Device")["kind"], "cardiac_device")
+
+    def test_an_organ_of_no_kind_by_type_sex_and_place(self):
+        """Which ROIs of no kind are not judged (found by an independent
+        review): a CONTROL structure (a planning aid) at 34 cGy is not, an
+        ORGAN of no kind in the field is (its dose is not known here, and it
+        may be a lens), and for a man the fetus's 5 cGy is not the table's
+        lowest level: the testis's 15 cGy is (models/action-levels.yaml),
+        so 'Gadget' at an upper bound of 10.8 cGy is not judged for a woman
+        and left as no level for a man."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Gadget", (200.0, 10.0, 0.0)),
+                                    ("Ring_ctl", (90.0, 10.0, 10.0), "CONTROL"),
+                                    ("Gizmo", (0.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 5, "beams": [(1, 200.0)]}])
+            for sex in ("F", "M"):
+                rc, js, err = estimate(plan, ss, "--sex", sex)
+                self.assertEqual(rc, 4, err)
+                up = organ(js, "Gadget")["course_max_upper_cgy"]
+                self.assertTrue(5 <= up < 15, up)
+                self.assertGreaterEqual(organ(js, "Ring_ctl")["course_max_upper_cgy"], 15)
+                kindless = sorted(o["organ"] for o in js["result"]["organs"]
+                                  if o["verdict"] == "not_judged" and "no kind" in o["advice"])
+                self.assertEqual(kindless, ["Gadget", "Gizmo"] if sex == "F" else ["Gizmo"])
+                self.assertEqual(organ(js, "Gadget")["status"],
+                                 "not_assessed" if sex == "F" else "no_action_level")
+                self.assertEqual(organ(js, "Ring_ctl")["status"], "no_action_level")
+                self.assertEqual(organ(js, "Gizmo")["status"], "in_field")
+                self.assertIn("Gizmo (no kind matches its name; its dose is not known here)",
+                              js["result"]["text"])
+            rc, js, err = estimate(plan, ss, "--sex", "M", "--organ", "Gizmo=other_organ")
+            self.assertEqual(rc, 0, err)
 
     def test_a_plan_that_misses_the_body_is_refused_and_a_missed_target_said(self):
         """The invented chest-oblique case with its isocentre moved (pydicom):
