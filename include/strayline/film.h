@@ -61,6 +61,12 @@ extern "C" {
  * calibration or the reference is in another unit or for other MU. */
 #define SL_FILM_AXIS_MAX_REL 1.2
 #define SL_FILM_AXIS_MIN_REL 0.4
+/* ... half that lower limit for an insert whose profiles are relative to
+ * the open field's maximum (profiles_relative_to: open_cax, which carry its
+ * cutout factor), and beyond this tilt (deg), where oblique incidence draws
+ * the depth dose toward the surface (common practice), the lower limit only
+ * as deep as the depth of maximum. */
+#define SL_FILM_AXIS_TILT_DEG 30.0
 /* Largest scan read (pixels), so that a hostile header cannot exhaust memory. */
 #define SL_FILM_MAX_PIXELS ((size_t)1 << 25) /* 33.5 million: 25 x 20 cm at 600 dpi */
 

@@ -806,6 +806,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
     char *msbuf = NULL;
     size_t mslen = 0;
     float *pv3[3] = {NULL, NULL, NULL}; /* the triple-channel dose's pixel values of one film */
+    sl_machine mach = {0};              /* the measurement set's, for its inserts */
     sl_status st = sl_film_curve_load(opt->curve_path, &curve, err);
     if (st != SL_OK)
         return st;
@@ -845,7 +846,9 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
     sl_yaml_field mf[] = {{"machine", true, NULL},     {"measured", true, NULL},
                           {"reference", true, NULL},   {"applicators", true, NULL},
                           {"inserts", false, NULL},    {"outputs", true, NULL}};
-    if ((st = sl_yaml_fields(&y, f[8].node, "measurement_set", mf, 6, err)) != SL_OK)
+    if ((st = sl_yaml_fields(&y, f[8].node, "measurement_set", mf, 6, err)) != SL_OK ||
+        (st = sl_machine_read(&y, mf[0].node, mf[3].node, mf[4].node, mf[5].node, &mach, err)) !=
+            SL_OK)
         goto done;
     yaml_node_item_t *items;
     size_t n;
@@ -1196,11 +1199,22 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
          * MU, and every percent of the profile with it (found by an
          * independent review: a calibration in Gy, or a reference ten times
          * too high, gave a model 100 or 10 times low). R50 = E / 2.33 cm
-         * (IAEA TRS-398, E0 = 2.33 R50), with a margin: 0.8 R50. */
+         * (IAEA TRS-398, E0 = 2.33 R50), with a margin: 0.8 R50. An insert
+         * whose profiles are relative to the open field's maximum carries its
+         * cutout factor: half the lower limit, as the measurement set's own
+         * axis rule. A beam tilted more than SL_FILM_AXIS_TILT_DEG draws the
+         * depth dose toward the surface: the lower limit holds no deeper than
+         * the depth of maximum there (none when the output is not given). */
         double axis_rel = saturated ? NAN : cax / fp->cax_ref;
-        bool shallow = fp->depth_cm <= 0.8 * fp->energy_mev / 2.33;
+        const sl_insert_spec *ins = sl_machine_insert(&mach, fp->applicator, fp->insert);
+        const sl_output_spec *out = sl_machine_output(&mach, fp->energy_mev, fp->applicator);
+        double axis_min = SL_FILM_AXIS_MIN_REL *
+                          (ins && ins->relative_to == SL_REL_OPEN_CAX ? 0.5 : 1.0);
+        bool shallow = fabs(fp->tilt_deg) <= SL_FILM_AXIS_TILT_DEG
+                           ? fp->depth_cm <= 0.8 * fp->energy_mev / 2.33
+                           : out && fp->depth_cm <= out->dmax_cm;
         if (isfinite(axis_rel) &&
-            (axis_rel > SL_FILM_AXIS_MAX_REL || (shallow && axis_rel < SL_FILM_AXIS_MIN_REL))) {
+            (axis_rel > SL_FILM_AXIS_MAX_REL || (shallow && axis_rel < axis_min))) {
             free(pv);
             free(above);
             st = sl_error_set(err, SL_EINPUT,
@@ -1209,8 +1223,11 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
                               "%s): the calibration's doses or the reference are in another "
                               "unit, or for other monitor units",
                               where, cax, axis_rel, fp->cax_ref, fp->depth_cm, fp->energy_mev,
-                              shallow ? "between 0.4 and 1.2 this shallow"
-                                      : "at most 1.2");
+                              !shallow ? "at most 1.2"
+                              : axis_min < SL_FILM_AXIS_MIN_REL
+                                  ? "between 0.2 and 1.2 this shallow, for an insert relative "
+                                    "to the open field"
+                                  : "between 0.4 and 1.2 this shallow");
             goto done;
         }
         r->id = fp->id;
@@ -1824,6 +1841,7 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
     sum->measurement_set = ms_path;
     ms_path = NULL;
 done:
+    sl_machine_free(&mach);
     for (int c = 0; c < 3; c++)
         free(pv3[c]);
     free(msbuf);

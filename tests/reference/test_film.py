@@ -894,6 +894,45 @@ class BadFilmInput(unittest.TestCase):
         self.refused(self.films_variant("ref10deep", m), "the film's own central-axis dose",
                      "at depth 2 cm")
 
+    def test_an_insert_relative_to_the_open_field_reads_lower_on_its_axis(self):
+        """Films of an insert whose profiles are relative to the open field's
+        maximum (profiles_relative_to: open_cax) carry its cutout factor: a
+        small cutout's axis at 2.6 times less than its reference (0.37 and
+        0.31 at 1 and 2 cm) is taken, at half the lower limit (0.2), as the
+        measurement set's own axis rule; the same films of an insert relative
+        to its own maximum are refused (found by an independent review: a
+        small cutout's films could not be commissioned)."""
+        for rel, rc_want in (("open_cax", 0), ("insert_cax", 3)):
+            def m(doc):
+                doc["measurement_set"]["inserts"] = [
+                    {"id": "S6", "applicator": "A06", "shape": "square", "size_x_cm": 6.0,
+                     "size_y_cm": 6.0, "profiles_relative_to": rel}]
+                for f in doc["films"]:
+                    f["insert"] = "S6"
+                    f["cax_reference_cgy"] *= 2.6
+            rc, out, err = self.films_variant("cut-" + rel, m)
+            self.assertEqual(rc, rc_want, err)
+            if rc_want:
+                self.assertIn("between 0.4 and 1.2 this shallow", err)
+
+    def test_a_steep_tilt_is_held_to_the_lower_limit_down_to_the_maximum_only(self):
+        """A beam tilted 45 degrees draws the depth dose toward the surface
+        (common practice): the films at 2 cm (deeper than the maximum, 1.5
+        cm, shallower than 0.8 R50) reading 0.31 of their reference are
+        taken, where untilted they are refused; the lower limit still holds
+        at 1 cm, no deeper than the maximum."""
+        for tilt, deep_only, rc_want in ((45, True, 0), (0, True, 3), (45, False, 3)):
+            def m(doc):
+                for f in doc["films"]:
+                    f["tilt_deg"] = tilt
+                    if f["depth_cm"] == 2.0 or not deep_only:
+                        f["cax_reference_cgy"] *= 2.6
+            rc, out, err = self.films_variant("tilt%d%s" % (tilt, deep_only), m)
+            self.assertEqual(rc, rc_want, err)
+            if rc_want:
+                self.assertIn("between 0.4 and 1.2 this shallow", err)
+                self.assertIn("at depth %g cm" % (2 if deep_only else 1), err)
+
     def test_one_exposure_with_a_wrong_reference_is_refused(self):
         """The longer exposure's reference ten times too high: where the two
         films overlap they disagree tenfold; refused naming the fields to
