@@ -340,15 +340,10 @@ int sl_cmd_listen(int argc, char **argv)
         .callback = on_event,
         .ctx = node,
     };
-    sl_batch_prepare();
-    if (sl_scp_start(&scfg, &scp, &err) != SL_OK) {
-        rc = sl_cli_fail(&err);
-        goto done;
-    }
-    logline("listening on port %d as AE title '%s' (%zu allowed caller%s); store %s", port, ae,
-            nallowed, nallowed == 1 ? "" : "s", store);
     /* what an earlier run left in the store: screened now unless the log
-     * says it was screened before */
+     * says it was screened before. Before the node listens: a plan received
+     * while the store is listed would be queued twice, by the listing and
+     * by its arrival, and screened twice */
     sl_node_resume_counts rc0;
     if (sl_node_resume(node, &rc0, &err) != SL_OK) {
         logline("%s", err.msg);
@@ -366,6 +361,13 @@ int sl_cmd_listen(int argc, char **argv)
                 rc0.unreadable == 1 ? "" : "s");
     else
         logline("start-up: the store is empty, nothing from an earlier run");
+    sl_batch_prepare();
+    if (sl_scp_start(&scfg, &scp, &err) != SL_OK) {
+        rc = sl_cli_fail(&err);
+        goto done;
+    }
+    logline("listening on port %d as AE title '%s' (%zu allowed caller%s); store %s", port, ae,
+            nallowed, nallowed == 1 ? "" : "s", store);
     while (!stop_requested) {
         if (sl_scp_poll(scp, &err) != SL_OK) {
             logline("%s", err.msg);

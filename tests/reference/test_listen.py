@@ -465,7 +465,9 @@ class Listen(unittest.TestCase):
         whose structure set arrives only now, and a pair stored but never
         screened (as if the node had been killed first; written here with
         pydicom under the node's own names); a plan the screening log
-        (Python's sqlite3) already holds is not screened again."""
+        (Python's sqlite3) already holds is not screened again. The store is
+        listed before the node listens (found by an independent review: a
+        plan received during the listing could be screened twice)."""
         face = os.path.join(EXAMPLES, "face-lens")
         fetus = os.path.join(EXAMPLES, "chest-fetus")
         node = self.start("--incomplete-after", "600")
@@ -487,8 +489,14 @@ class Listen(unittest.TestCase):
         node = self.start("--incomplete-after", "600")
         fetus_uid = plan_uid(os.path.join(fetus, "rtplan.dcm"))
         self.assertTrue(node.wait_for(lambda: neck_uid in log_plan_uids(self.out)), node.log())
-        start = [l for l in node.log().splitlines() if "start-up:" in l]
+        lines = node.log().splitlines()
+        start = [l for l in lines if "start-up:" in l]
         self.assertEqual(len(start), 1, node.log())
+        # the store is listed before the node listens: a plan arriving
+        # meanwhile would be queued by both and screened twice
+        listening = [i for i, l in enumerate(lines) if "listening on port" in l]
+        self.assertEqual(len(listening), 1, node.log())
+        self.assertLess(lines.index(start[0]), listening[0], node.log())
         self.assertIn("3 plans and 2 structure sets", start[0])
         self.assertIn("1 plan already in the screening log", start[0])
         self.assertIn("2 to pair and screen now", start[0])
