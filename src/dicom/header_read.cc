@@ -16,6 +16,7 @@
 #include "strayline/dicomhead.h"
 
 #include "strayline/dicom.h"
+#include "raw_file.h"
 
 #include <dcmtk/config/osconfig.h>
 #include <dcmtk/dcmdata/dctk.h>
@@ -34,6 +35,8 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+using namespace sl_dicom_internal;
+
 namespace {
 
 const char *const UID_RTPLAN = "1.2.840.10008.5.1.4.1.1.481.5";
@@ -48,26 +51,6 @@ void quiet()
 {
     static std::once_flag once;
     std::call_once(once, [] { OFLog::configure(OFLogger::FATAL_LOG_LEVEL); });
-}
-
-bool looks_like_dicom(const unsigned char *p, size_t n)
-{
-    if (n >= 132 && memcmp(p + 128, "DICM", 4) == 0)
-        return true;
-    if (n < 8)
-        return false;
-    unsigned le = p[0] | (unsigned)p[1] << 8, be = (unsigned)p[0] << 8 | p[1];
-    return le == 0x0002 || le == 0x0008 || be == 0x0002 || be == 0x0008;
-}
-
-size_t count_item_tags(const unsigned char *p, size_t n)
-{
-    size_t k = 0;
-    for (size_t i = 0; i + 4 <= n; i++)
-        if ((p[i] == 0xFE && p[i + 1] == 0xFF && p[i + 2] == 0x00 && p[i + 3] == 0xE0) ||
-            (p[i] == 0xFF && p[i + 1] == 0xFE && p[i + 2] == 0xE0 && p[i + 3] == 0x00))
-            k++;
-    return k;
 }
 
 void copy_text(char *dst, size_t size, const char *src)
@@ -299,20 +282,12 @@ void *same_thread(void *p)
 /* The sequence items of a file (a bound on its nesting), or SIZE_MAX. */
 size_t file_items(const char *path)
 {
-    struct stat sb;
-    if (stat(path, &sb) != 0 || !S_ISREG(sb.st_mode) || sb.st_size == 0 ||
-        static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
+    raw_map m;
+    sl_error ignored = {};
+    if (raw_map_file(path, false, &m, &ignored) != SL_OK)
         return SIZE_MAX;
-    int fd = open(path, O_RDONLY | O_CLOEXEC);
-    if (fd < 0)
-        return SIZE_MAX;
-    size_t n = static_cast<size_t>(sb.st_size);
-    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE, fd, 0);
-    close(fd);
-    if (map == MAP_FAILED)
-        return SIZE_MAX;
-    size_t k = count_item_tags(static_cast<const unsigned char *>(map), n);
-    munmap(map, n);
+    size_t k = count_item_tags(m.data, m.size);
+    raw_unmap(&m);
     return k;
 }
 
@@ -331,20 +306,9 @@ int sl_dicom_same_data_set(const char *a, const char *b)
     size_t ia = file_items(a), ib = file_items(b);
     if (ia > SL_DICOM_MAX_ITEMS || ib > SL_DICOM_MAX_ITEMS)
         return 0;
-    size_t stack = (static_cast<size_t>(16) << 20) + (ia + ib) * SL_DICOM_STACK_PER_LEVEL;
     same_job job = {a, b, 0};
-    pthread_attr_t attr;
-    pthread_t th;
-    int rc = pthread_attr_init(&attr);
-    if (rc == 0) {
-        rc = pthread_attr_setstacksize(&attr, stack);
-        if (rc == 0)
-            rc = pthread_create(&th, &attr, same_thread, &job);
-        pthread_attr_destroy(&attr);
-    }
-    if (rc != 0)
+    if (run_on_stack(reader_stack(ia + ib), same_thread, &job) != 0)
         return 0; /* not compared: not taken as the same */
-    pthread_join(th, nullptr);
     return job.result;
 }
 
@@ -352,33 +316,15 @@ sl_status sl_dicom_read_head(const char *path, sl_dicom_head *out, sl_error *err
 {
     quiet();
     memset(out, 0, sizeof *out);
-    struct stat sb;
-    if (stat(path, &sb) != 0)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
-    if (!S_ISREG(sb.st_mode))
-        return sl_error_set(err, SL_EINPUT, "%s: not a regular file", path);
-    if (sb.st_size == 0)
-        return sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", path);
-    if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
-        return sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
-                            static_cast<long long>(sb.st_size));
-    int fd = open(path, O_RDONLY | O_CLOEXEC);
-    if (fd < 0)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
-    size_t n = static_cast<size_t>(sb.st_size);
-    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE, fd, 0);
-    close(fd);
-    if (map == MAP_FAILED)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));
-    const unsigned char *raw = static_cast<const unsigned char *>(map);
-    bool dicom = looks_like_dicom(raw, n);
-    size_t items = dicom ? count_item_tags(raw, n) : 0;
-    munmap(map, n);
+    raw_map m;
+    sl_status mst = raw_map_file(path, false, &m, err);
+    if (mst != SL_OK)
+        return mst;
+    bool dicom = looks_like_dicom(m.data, m.size);
+    size_t items = dicom ? count_item_tags(m.data, m.size) : 0;
+    raw_unmap(&m);
     if (!dicom)
-        return sl_error_set(err, SL_EINPUT,
-                            "%s: not a DICOM file (no DICM marker after the preamble, and it "
-                            "does not begin with a DICOM element)",
-                            path);
+        return sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
     if (items > SL_DICOM_MAX_ITEMS)
         return sl_error_set(err, SL_EINPUT,
                             "%s: more than %zu sequence items: larger than strayline accepts",
@@ -389,22 +335,13 @@ sl_status sl_dicom_read_head(const char *path, sl_dicom_head *out, sl_error *err
     } catch (...) {
         return sl_error_set(err, SL_EINTERNAL, "%s: unexpected failure in DCMTK", path);
     }
-    size_t stack = ((size_t)16 << 20) + items * (size_t)SL_DICOM_STACK_PER_LEVEL;
+    size_t stack = reader_stack(items);
     job j = {path, out, err, SL_OK, false};
-    pthread_attr_t attr;
-    pthread_t th;
-    int rc = pthread_attr_init(&attr);
-    if (rc == 0) {
-        rc = pthread_attr_setstacksize(&attr, stack);
-        if (rc == 0)
-            rc = pthread_create(&th, &attr, load_thread, &j);
-        pthread_attr_destroy(&attr);
-    }
+    int rc = run_on_stack(stack, load_thread, &j);
     if (rc != 0)
         return sl_error_set(err, rc == EAGAIN || rc == ENOMEM ? SL_ENOMEM : SL_EINTERNAL,
                             "%s: cannot start the reader with a %zu MB stack: %s", path,
                             stack >> 20, strerror(rc));
-    pthread_join(th, nullptr);
     return j.st;
 }
 

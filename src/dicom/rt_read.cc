@@ -12,6 +12,7 @@
 #include "strayline/dicom.h"
 #include "strayline/util.h"
 #include "contour_points.h"
+#include "raw_file.h"
 #include "ds_value.h"
 #include "strayline/parallel.h"
 
@@ -44,6 +45,8 @@
 #include <unistd.h>
 #include <vector>
 #include <zlib.h>
+
+using namespace sl_dicom_internal;
 
 namespace {
 
@@ -1114,47 +1117,6 @@ sl_status finish(Reader &r, DcmFileFormat &ff, OFCondition cond, sl_dicom_object
     return st;
 }
 
-/* A DICOM file has the "DICM" marker after its 128-byte preamble; a bare
- * data set (no file meta header) starts with an element of group 0002 or
- * 0008 in either byte order. Anything else is refused before DCMTK sees it:
- * read as a data set, text would give element lengths of gigabytes. */
-bool looks_like_dicom(const unsigned char *p, size_t n)
-{
-    if (n >= 132 && memcmp(p + 128, "DICM", 4) == 0)
-        return true;
-    if (n < 8)
-        return false;
-    unsigned le = p[0] | (unsigned)p[1] << 8, be = (unsigned)p[0] << 8 | p[1];
-    return le == 0x0002 || le == 0x0008 || be == 0x0002 || be == 0x0008;
-}
-
-const char *const NOT_DICOM =
-    "not a DICOM file (no DICM marker after the preamble, and it does not begin with a DICOM "
-    "element)";
-
-/* Item tags (FFFE,E000) in either byte order: every level of nesting needs
- * one, so their count bounds the depth DCMTK's recursive reader can reach.
- * Each form holds exactly one 0xFE byte (first in little endian, second in
- * big endian), so memchr jumps from one 0xFE to the next: Contour Data is
- * text and holds none, where a byte-by-byte test cost a pass over it. */
-size_t count_item_tags(const unsigned char *p, size_t n)
-{
-    size_t k = 0;
-    const unsigned char *end = p + n;
-    for (const unsigned char *q = p; q < end;) {
-        q = static_cast<const unsigned char *>(memchr(q, 0xFE, static_cast<size_t>(end - q)));
-        if (!q)
-            break;
-        size_t i = static_cast<size_t>(q - p);
-        if (i + 4 <= n && q[1] == 0xFF && q[2] == 0x00 && q[3] == 0xE0)
-            k++;
-        else if (i >= 1 && i + 3 <= n && q[-1] == 0xFF && q[1] == 0xE0 && q[2] == 0x00)
-            k++;
-        q++;
-    }
-    return k;
-}
-
 /* Is the data set deflated? With a well-formed file meta group (after the
  * preamble, (0002,0000) UL giving its length) the transfer syntax is looked
  * for in that group; without one, anywhere in the file, so that DCMTK is
@@ -1310,20 +1272,9 @@ sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
             return st;
         path = mpath;
     }
-    size_t stack = (size_t)16 << 20;
-    stack += items * (size_t)SL_DICOM_STACK_PER_LEVEL;
-    pthread_attr_t attr;
-    pthread_t th;
+    size_t stack = reader_stack(items);
     load_job job = {&r, path, dataset_only, out, err, SL_OK};
-    int rc = pthread_attr_init(&attr);
-    if (rc == 0) {
-        rc = pthread_attr_setstacksize(&attr, stack);
-        if (rc == 0)
-            rc = pthread_create(&th, &attr, load_thread, &job);
-        pthread_attr_destroy(&attr);
-    }
-    if (rc == 0)
-        pthread_join(th, nullptr);
+    int rc = run_on_stack(stack, load_thread, &job);
     if (fd >= 0)
         close(fd);
     if (rc != 0)
@@ -1342,29 +1293,14 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     quiet_dcmtk();
     memset(out, 0, sizeof *out);
     Reader r(path, err);
-    struct stat sb;
-    if (stat(path, &sb) != 0)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
-    if (!S_ISREG(sb.st_mode))
-        return sl_error_set(err, SL_EINPUT, "%s: not a regular file", path);
-    if (sb.st_size == 0)
-        return sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", path);
-    if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
-        return sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
-                            static_cast<long long>(sb.st_size));
-    int fd = open(path, O_RDONLY | O_CLOEXEC);
-    if (fd < 0)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
-    size_t n = static_cast<size_t>(sb.st_size);
-    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE | MAP_POPULATE, fd, 0);
-    close(fd);
-    if (map == MAP_FAILED)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));
-    const unsigned char *raw = static_cast<const unsigned char *>(map);
-    sl_status st = looks_like_dicom(raw, n)
-                       ? load(r, path, raw, n, out, err)
-                       : sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
-    munmap(map, n);
+    raw_map m;
+    sl_status st = raw_map_file(path, true, &m, err);
+    if (st != SL_OK)
+        return st;
+    st = looks_like_dicom(m.data, m.size)
+             ? load(r, path, m.data, m.size, out, err)
+             : sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
+    raw_unmap(&m);
     return st;
 }
 
