@@ -202,7 +202,6 @@ typedef struct sl_organ_dose {
     const char *excluded_why;     /* why not estimated (NULL when estimated) */
     bool in_field;
     bool placed;                  /* every sample placed for every beam */
-    size_t nsamples;              /* 0: no closed contour and no point */
     double volume_cc;
     bool is_point;
     double min_distance_cm;       /* over beams */

@@ -261,6 +261,10 @@ typedef struct sl_assessments {
 
 /* Give every estimated organ its kind, status and advice. Usage errors: a
  * mapping that names no ROI or no kind, a fetus without a gestational age. */
+/* The reason an estimated organ of no kind is not judged (its
+ * not_assessed_why when nothing else left it unjudged). */
+extern const char sl_kind_unknown_why[];
+
 sl_status sl_assess(const sl_levels *levels, const sl_estimate *est, const sl_patient *patient,
                     const sl_organ_map *map, size_t nmap, sl_assessments **out, sl_error *err);
 /* The same with doses from elsewhere added to organs (--other-dose). */

@@ -254,16 +254,19 @@ sl_status sl_outfile_commit(sl_outfile *out, sl_error *err)
 {
     if (!out->fp)
         return sl_error_set(err, SL_EINTERNAL, "output file committed twice");
-    int bad = ferror(out->fp);
-    if (fflush(out->fp) != 0)
-        bad = 1;
-    if (fsync(fileno(out->fp)) != 0)
-        bad = 1;
-    if (fclose(out->fp) != 0)
-        bad = 1;
+    /* the system's reason (a full disk) is kept from the first step that
+     * failed, before removing the temporary file can change errno */
+    int bad = ferror(out->fp), why = 0;
+    if (fflush(out->fp) != 0 && !why)
+        why = errno, bad = 1;
+    if (fsync(fileno(out->fp)) != 0 && !why)
+        why = errno, bad = 1;
+    if (fclose(out->fp) != 0 && !why)
+        why = errno, bad = 1;
     out->fp = NULL;
     if (bad) {
-        sl_error_set(err, SL_EIO, "%s: write failed", out->target);
+        sl_error_set(err, SL_EIO, "%s: write failed%s%s", out->target, why ? ": " : "",
+                     why ? strerror(why) : "");
         sl_outfile_abort(out);
         return SL_EIO;
     }

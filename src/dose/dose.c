@@ -714,7 +714,6 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     od->min_distance_cm = od->min_depth_cm = INFINITY;
     od->max_depth_cm = -INFINITY;
     od->placed = s->n > 0;
-    od->nsamples = s->n;
     for (size_t b = 0; b < e->nbeams; b++) {
         const sl_organ_place *p = &loc->beams[b].organs[o];
         if (p->placed != s->n)

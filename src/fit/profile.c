@@ -349,11 +349,13 @@ sl_status sl_profile_fit_form(const double *d, const double *y, const double *si
          * the profile's name, not when the model file is read back */
         if (!(out->theta[i] >= SL_PROFILE_PARAM_MIN && out->theta[i] <= SL_PROFILE_PARAM_MAX))
             return sl_error_set(err, SL_EINPUT, "%s: the %s form's %s came out %g, outside "
-                                                "%g to %g (a level that does not fall over the "
-                                                "measured %g to %g cm: scan farther out)",
+                                                "%g to %g (%s the measured %g to %g cm)",
                                 what, sl_profile_form_name(form), sl_profile_param_key(i),
-                                out->theta[i], SL_PROFILE_PARAM_MIN, SL_PROFILE_PARAM_MAX, d[0],
-                                d[n - 1]);
+                                out->theta[i], SL_PROFILE_PARAM_MIN, SL_PROFILE_PARAM_MAX,
+                                i == SL_P_L1 || i == SL_P_L2
+                                    ? "a level that does not fall: scan farther out than"
+                                    : "the points do not determine it: check them over",
+                                d[0], d[n - 1]);
     }
     double k = (double)p;
     out->aicc = out->chi2 + 2 * k + 2 * k * (k + 1) / ((double)n - k - 1);

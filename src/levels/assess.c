@@ -94,29 +94,35 @@ static void unjudged(sl_assessments *as, sl_assessment *a)
  * ("Embrione" at 69 mGy passed with exit 0; found by an independent
  * review). Once its upper bound reaches the table's lowest level it is not
  * judged, and flagged, until its kind is given (other_organ for none). */
-static void kind_unknown(sl_assessments *as, sl_assessment *a, double lowest_gy)
+const char sl_kind_unknown_why[] = "no kind of the action-level table matches its name";
+
+static void kind_unknown(sl_assessments *as, sl_assessment *a, double lowest_gy,
+                         const char *unknown_why)
 {
     as->n_unjudged++;
     a->unjudged = true;
     a->kind_unknown = true;
     a->flagged = true;
-    /* estimated, its value reaches that level; else nobody knows its dose */
-    if (a->dose->estimated)
-        a->unjudged_level_gy = lowest_gy;
-    else
+    /* its value reaches that level; or nobody knows its dose here (in a
+     * field, not placed, or other beams of the plan not estimated) */
+    if (unknown_why) {
         a->unjudged_unknown = true;
+        a->not_assessed_why = unknown_why;
+    } else {
+        a->unjudged_level_gy = lowest_gy;
+        if (!a->not_assessed_why)
+            a->not_assessed_why = sl_kind_unknown_why;
+    }
     /* its value is shown, not judged: no advice is drawn from it */
     if (a->status != SL_ST_IN_FIELD)
         a->status = SL_ST_NOT_ASSESSED;
-    if (!a->not_assessed_why)
-        a->not_assessed_why = "no kind of the action-level table matches its name";
-    if (a->status == SL_ST_IN_FIELD || !a->dose->estimated)
+    if (unknown_why)
         sl_notes_add(&a->advice,
                      "not judged by this screening: no kind of the action-level table matches "
                      "its name, and its dose is not known here (%s); if it is a lens, thyroid, "
                      "breast, gonad, bone marrow, fetus or cardiac device, say so with --organ "
                      "ROI=KIND, and if none, with --organ ROI=other_organ",
-                     a->status == SL_ST_IN_FIELD ? "in or touching the field" : "not placed");
+                     a->not_assessed_why);
     else
         sl_notes_add(&a->advice,
                      "not judged by this screening: no kind of the action-level table matches "
@@ -430,8 +436,10 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
     /* the lowest level of the table, for an organ of no kind */
     double table_lowest = INFINITY;
     for (size_t k = 0; k < lv->nkinds; k++) {
-        /* a man's organ is no fetus */
-        if (pt->sex == 'M' && strcmp(lv->kinds[k].kind, "fetus") == 0)
+        /* a man's organ is no fetus (unless a gestational age says the
+         * sex given is not the whole story) */
+        if (pt->sex == 'M' && isnan(pt->conception_weeks) &&
+            strcmp(lv->kinds[k].kind, "fetus") == 0)
             continue;
         for (size_t l = 0; l < lv->kinds[k].nlevels; l++)
             table_lowest = fmin(table_lowest, lv->kinds[k].levels[l].dose_gy);
@@ -522,12 +530,15 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                 a->kind = NULL;
             else
                 unjudged(as, a);
-            /* a ROI of no kind in the field, or contoured but not placed,
-             * has a dose nobody knows here: it may be any kind (one with
-             * nothing contoured is a name alone, and has no dose) */
+            /* a ROI of no kind in the field, or contoured but not placed
+             * (open contours only, or behind a source plane), has a dose
+             * nobody knows here: it may be any kind (one with no contour
+             * at all is a name alone, and has no dose) */
             if (!a->kind && !named_target && kind_unknown_eligible(d->roi->type) &&
-                (d->in_field || (!d->placed && d->nsamples > 0)) && isfinite(table_lowest))
-                kind_unknown(as, a, table_lowest);
+                (d->in_field || (!d->placed && d->roi->ncontours > 0)) &&
+                isfinite(table_lowest))
+                kind_unknown(as, a, table_lowest,
+                             d->excluded_why ? d->excluded_why : "not estimated");
             if (a->unjudged && sl_dose_type_target(d->roi->type) && !e->opt.include_targets)
                 sl_notes_add(&a->advice,
                              "typed %s, a target volume, yet named as a %s: not estimated; if "
@@ -669,7 +680,14 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
             a->status = SL_ST_NO_LEVEL;
         }
         if (!k && !excluded_type && kind_unknown_eligible(d->roi->type) && up >= table_lowest)
-            kind_unknown(as, a, table_lowest);
+            kind_unknown(as, a, table_lowest, NULL);
+        else if (!k && !excluded_type && kind_unknown_eligible(d->roi->type) && as->nother > 0 &&
+                 a->other_cgy == 0 && isfinite(table_lowest))
+            /* beams this tool does not estimate leave its dose unknown, as
+             * they leave an organ with levels incomplete */
+            kind_unknown(as, a, table_lowest,
+                         "the plan's other treatment beams are not estimated by this tool: "
+                         "add their dose with --other-dose");
         if (a->status != SL_ST_NOT_ASSESSED) /* no advice from a value not judged */
             advise(a, pt, level_gy);
         if (k && k->lar_table && a->status != SL_ST_NOT_ASSESSED) {

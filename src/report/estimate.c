@@ -376,11 +376,11 @@ char *est_result_text(const sl_estimate_report *r)
             else
                 sl_buf_printf(&b, "%s%s%s", c++ ? ", " : "", v[i].organ,
                               v[i].a && v[i].a->kind_unknown
-                                  ? (v[i].a->dose->estimated
-                                         ? " (no kind matches its name; its value reaches the "
-                                           "table's lowest level)"
-                                         : " (no kind matches its name; its dose is not known "
-                                           "here)")
+                                  ? (v[i].a->unjudged_unknown
+                                         ? " (no kind matches its name; its dose is not known "
+                                           "here)"
+                                         : " (no kind matches its name; its value reaches the "
+                                           "table's lowest level)")
                               : v[i].a && v[i].a->unjudged_level_gy > 0
                                   ? " (its value shown reaches its level)"
                               : v[i].a && v[i].a->unjudged_unknown
@@ -460,10 +460,15 @@ static void text_table(FILE *fp, const sl_estimate_report *r, bool fetus)
         est_marks(d, false, marks, sizeof marks);
         /* the name whole: two ROIs alike in their first characters must not
          * read as one (a longer name shifts its row, not its meaning) */
+        /* several fraction groups: their maxima on a line of their own, so
+         * that the columns stay in place */
+        bool by_group = e->ngroups > 1;
         fprintf(fp, "%-18s %-14.14s %8.2f %9s %19s %19s %9s %8s  %s%s%s\n",
                 sl_text_escape(d->roi->name, nm, sizeof nm), est_kind(a), d->min_distance_cm,
-                depth, c.fx, c.course, c.mean, c.level, status, marks,
-                est_whatif_mark(r, d->roi->name));
+                depth, by_group ? "by group, below" : c.fx, c.course, c.mean, c.level, status,
+                marks, est_whatif_mark(r, d->roi->name));
+        if (by_group)
+            fprintf(fp, "%-18s max a fraction, %s (upper, k=2): %s\n", "", u, c.fx);
     }
 }
 

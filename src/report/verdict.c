@@ -96,11 +96,11 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
 {
     sl_buf b = {0};
     const sl_organ_dose *d = a->dose;
-    if (k == EST_V_NOT_JUDGED && a->kind_unknown && !d->estimated) {
+    if (k == EST_V_NOT_JUDGED && a->kind_unknown && a->unjudged_unknown) {
         sl_buf_printf(&b, "no kind of the action-level table matches its name, and its dose is "
                           "not known here (%s): give its kind with --organ ROI=KIND (other_organ "
                           "if it has no level)",
-                      a->status == SL_ST_IN_FIELD ? "in or touching the field" : "not placed");
+                      a->not_assessed_why ? a->not_assessed_why : "not assessed");
     } else if (k == EST_V_NOT_JUDGED && a->kind_unknown) {
         sl_buf_printf(&b, "no kind of the action-level table matches its name, and its upper "
                           "bound (%.1f cGy) reaches the table's lowest level (%.1f cGy): give "

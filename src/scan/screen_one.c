@@ -91,8 +91,7 @@ static void status_of(const sl_assessment *a, char *buf, size_t size)
         else
             snprintf(buf, size, "%s risk band", a->kind->bands[a->band].name);
     }
-    else if (a->kind_unknown && a->not_assessed_why &&
-             strstr(a->not_assessed_why, "no kind") == a->not_assessed_why)
+    else if (a->kind_unknown && a->not_assessed_why == sl_kind_unknown_why)
         snprintf(buf, size, "not judged: %s", a->not_assessed_why);
     else if (a->kind_unknown)
         snprintf(buf, size, "not judged: no kind matches its name (%s)",
@@ -159,6 +158,11 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
         } else if (a->status == SL_ST_BAND && a->kind && a->band >= 0) {
             snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_source ? a->kind->bands_source : "");
             o->level = xstrdup(buf, &ok);
+        } else if (a->unjudged_level_gy > 0) {
+            /* not judged, its value reaching this level: the reports' */
+            o->level = xstrdup(a->kind_unknown ? "the table's lowest level" : "its lowest level",
+                               &ok);
+            o->level_gy = a->unjudged_level_gy;
         }
     }
     for (size_t i = 0; i < as->n && !e->message; i++) {
@@ -223,14 +227,12 @@ static sl_status write_report(const sl_batch_config *cfg, const char *name, int 
                               : sl_report_estimate(out.fp, SL_FORMAT_JSON, rep, err);
     }
     /* the system's reason, taken before removing the temporary file can
-     * set errno again */
+     * set errno again (a failed commit names its own) */
     int why = st == SL_OK ? 0 : errno;
-    if (st == SL_OK) {
+    if (st == SL_OK)
         st = sl_outfile_commit(&out, err);
-        why = errno;
-    } else {
+    else
         sl_outfile_abort(&out);
-    }
     /* a write that failed names the file and the system's reason (a full
      * disk), not only that the report could not be written */
     if (st == SL_EIO && !strstr(err->msg, path)) {

@@ -25,6 +25,7 @@ import re
 import unittest
 
 import jsonschema
+import numpy as np
 import yaml
 
 from common import SOURCE_ROOT, run, run_json, tempdir
@@ -1273,6 +1274,63 @@ class ReviewFindings(unittest.TestCase):
                 self.assertIn("Gizmo (no kind matches its name; its dose is not known here)",
                               js["result"]["text"])
             rc, js, err = estimate(plan, ss, "--sex", "M", "--organ", "Gizmo=other_organ")
+            self.assertEqual(rc, 0, err)
+            # a man with a gestational age given: the fetus's level counts
+            rc, js, err = estimate(plan, ss, "--sex", "M", "--gestational-age", "12",
+                                   "--organ", "Gizmo=other_organ")
+            self.assertEqual(rc, 4, err)
+            self.assertEqual(organ(js, "Gadget")["status"], "not_assessed")
+
+    def test_an_organ_of_no_kind_whose_dose_is_not_known_here(self):
+        """Found by an independent review, each passed with exit 0: an ORGAN of
+        no kind drawn with an open contour only (no samples: its place is
+        unknown), and one in a plan whose photon beam this tool does not
+        estimate, for a man (its electron dose, 6.7 cGy, is below his lowest
+        level, 15 cGy, but the photons' dose to it is not known). Each is not
+        judged, with the reason; a ROI with no contour at all stays a name
+        alone."""
+        with tempdir() as d:
+            rois = [{"number": 1, "name": "BODY", "type": "EXTERNAL",
+                     "contours": rb.box(-350.0, 350.0, 0.0, 300.0, -300.0, 300.0, 5.0)},
+                    {"number": 2, "name": "Gadget", "type": "ORGAN",
+                     "contours": [("OPEN_PLANAR", np.array([[200.0, 10.0, 0.0],
+                                                            [220.0, 10.0, 0.0],
+                                                            [240.0, 10.0, 0.0]]))]},
+                    {"number": 3, "name": "Nothing_drawn", "type": "ORGAN", "contours": []}]
+            frame = rb.uid("est", d, "frame")
+            ss = rb.structure_dataset(PATIENT, label="EST", rois=rois, frame_uid=frame,
+                                      seed="est-ss-" + d)
+            plan = rb.plan_dataset(PATIENT, label="EST", frame_uid=frame,
+                                   structure_set_uid=ss.SOPInstanceUID,
+                                   beams=[{"number": 1, "energy_mev": 12.0,
+                                           "iso_mm": [0.0, 0.0, 0.0], "ssd_mm": 1000.0,
+                                           "setup": 1, "applicator": {"id": "A10",
+                                                                      "type": "ELECTRON_SQUARE"}}],
+                                   fraction_groups=[{"number": 1, "fractions": 5,
+                                                     "beams": [(1, 200.0)]}],
+                                   seed="est-plan-" + d)
+            rb.save(ss, os.path.join(d, "ss.dcm"))
+            rb.save(plan, os.path.join(d, "plan.dcm"))
+            rc, js, err = estimate(os.path.join(d, "plan.dcm"), os.path.join(d, "ss.dcm"),
+                                   "--sex", "F")
+            self.assertEqual(rc, 4, err)
+            v = {o["organ"]: o for o in js["result"]["organs"]}
+            self.assertEqual(sorted(v), ["Gadget"])
+            self.assertEqual(v["Gadget"]["verdict"], "not_judged")
+            self.assertIn("its dose is not known here (no samples", v["Gadget"]["advice"])
+        with tempdir() as d:
+            beams = [{"number": 1, "energy_mev": 12.0},
+                     {"number": 2, "radiation_type": "PHOTON", "energy_mev": 6.0,
+                      "applicator": None}]
+            plan, ss = box_case(d, [("Gadget", (300.0, 10.0, 0.0))], beams,
+                                [{"number": 1, "fractions": 5,
+                                  "beams": [(1, 200.0), (2, 200.0)]}])
+            rc, js, err = estimate(plan, ss, "--sex", "M")
+            self.assertEqual(rc, 4, err)
+            self.assertTrue(5 <= organ(js, "Gadget")["course_max_upper_cgy"] < 15)
+            self.assertIn("other treatment beams are not estimated",
+                          js["result"]["organs"][0]["advice"])
+            rc, js, err = estimate(plan, ss, "--sex", "M", "--other-dose", "Gadget=1.0")
             self.assertEqual(rc, 0, err)
 
     def test_a_plan_that_misses_the_body_is_refused_and_a_missed_target_said(self):
