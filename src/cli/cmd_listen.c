@@ -362,6 +362,10 @@ int sl_cmd_listen(int argc, char **argv)
     else
         logline("start-up: the store is empty, nothing from an earlier run");
     sl_batch_prepare();
+    if (stop_requested) { /* a signal during the listing: never start listening */
+        logline("stopped before listening");
+        goto done;
+    }
     if (sl_scp_start(&scfg, &scp, &err) != SL_OK) {
         rc = sl_cli_fail(&err);
         goto done;

@@ -265,8 +265,8 @@ sl_status sl_outfile_commit(sl_outfile *out, sl_error *err)
         why = errno, bad = 1;
     out->fp = NULL;
     if (bad) {
-        sl_error_set(err, SL_EIO, "%s: write failed%s%s", out->target, why ? ": " : "",
-                     why ? strerror(why) : "");
+        sl_error_set(err, SL_EIO, "%s: write failed: %s", out->target,
+                     why ? strerror(why) : "an earlier write to it failed");
         sl_outfile_abort(out);
         return SL_EIO;
     }

@@ -484,7 +484,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                          "incomplete: other beams not included: the plan has %zu treatment "
                          "beam%s this tool does not estimate; take their dose to this organ from "
                          "the planning system or a measurement and add it with --other-dose "
-                         "'%s=CGY'",
+                         "'%s=CGY' (other_dose in a facts file for scan and listen)",
                          as->nother, as->nother == 1 ? "" : "s", d->roi->name);
         }
         if (a->other_cgy > 0)
@@ -687,7 +687,7 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
              * they leave an organ with levels incomplete */
             kind_unknown(as, a, table_lowest,
                          "the plan's other treatment beams are not estimated by this tool: "
-                         "add their dose with --other-dose");
+                         "add their dose with --other-dose, or other_dose in a facts file");
         if (a->status != SL_ST_NOT_ASSESSED) /* no advice from a value not judged */
             advise(a, pt, level_gy);
         if (k && k->lar_table && a->status != SL_ST_NOT_ASSESSED) {

@@ -788,7 +788,8 @@ static bool deeper_than_max(const sl_measurement_set *m, const sl_profile_data *
  * range only the photons remain, a few times below the scattered
  * electrons a few centimetres out: a pair with a profile deeper than the
  * maximum compared nearer than SL_LEVELS_AT_CM is held to
- * SL_LEVELS_APART_DEEP, which still finds a fraction for a percent. Two
+ * SL_LEVELS_APART_DEEP, which still finds a fraction for a percent, and
+ * counts only for a profile that has no other pair. Two
  * profiles alone (along one direction) are compared with each other, and
  * the message says either may be the one; a profile compared with none,
  * deeper than the maximum or starting beyond the edge rule, is a warning
@@ -796,8 +797,8 @@ static bool deeper_than_max(const sl_measurement_set *m, const sl_profile_data *
 static sl_status check_levels_agree(sl_measurement_set *m, const char *name, sl_error *err)
 {
     size_t n = m->nprofiles;
-    /* per pair: the ratio's logarithm, and that in units of the logarithm
-     * of the pair's tolerance (beyond 1 or -1: too far apart) */
+    /* per pair, the ratio's logarithm: pairs held to SL_LEVELS_APART in v,
+     * those held to SL_LEVELS_APART_DEEP in w */
     double *v = malloc((n ? n : 1) * sizeof *v), *w = malloc((n ? n : 1) * sizeof *w);
     if (!v || !w) {
         free(v);
@@ -809,8 +810,8 @@ static sl_status check_levels_agree(sl_measurement_set *m, const char *name, sl_
         const sl_profile_data *p = &m->profiles[i];
         if (p->n < 2)
             continue;
-        size_t k = 0;
-        bool same_direction = true, wide = false; /* of the others; any pair wide */
+        size_t k = 0, kv = 0, kw = 0;
+        bool same_direction = true; /* of the others */
         bool p_deep = deeper_than_max(m, p);
         for (size_t j = 0; j < n; j++) {
             const sl_profile_data *q = &m->profiles[j];
@@ -826,11 +827,13 @@ static sl_status check_levels_agree(sl_measurement_set *m, const char *name, sl_
             double a = dose_at(p, x), b = dose_at(q, x);
             if (isfinite(a) && isfinite(b) && a > 0 && b > 0) {
                 bool pair_wide = (p_deep || deeper_than_max(m, q)) && x < SL_LEVELS_AT_CM;
-                v[k] = log(a / b);
-                w[k++] = log(a / b) / log(pair_wide ? SL_LEVELS_APART_DEEP : SL_LEVELS_APART);
+                if (pair_wide)
+                    w[kw++] = log(a / b);
+                else
+                    v[kv++] = log(a / b);
+                k++;
                 same_direction = same_direction && p->direction && q->direction &&
                                  strcmp(p->direction, q->direction) == 0;
-                wide = wide || pair_wide;
             }
         }
         /* a pair alone only along one direction: a diagonal's distance from
@@ -846,23 +849,27 @@ static sl_status check_levels_agree(sl_measurement_set *m, const char *name, sl_
                              p->applicator, p->insert);
             continue;
         }
-        /* the median over the pairs, each against its own tolerance (one
-         * deep pair must not widen the others': found by an independent
-         * review, a profile ten times low passed beside a short deep one);
-         * the median ratio for the message */
-        double med = exp(median_sorted(v, k)), medw = median_sorted(w, k);
-        if (fabs(medw) > 1)
+        /* the median of the pairs held to the narrow tolerance, and of the
+         * wide ones only when there are no others: deep pairs must not widen
+         * the rest (found by independent reviews: a profile ten times low
+         * passed beside one short deep profile, and beside three once each
+         * pair had its own tolerance in one median) */
+        bool narrow = kv > 0;
+        double med = exp(narrow ? median_sorted(v, kv) : median_sorted(w, kw));
+        double apart = narrow ? SL_LEVELS_APART : SL_LEVELS_APART_DEEP;
+        size_t kk = narrow ? kv : kw;
+        if (med < 1 / apart || med > apart)
             st = sl_error_set(err, SL_EINPUT,
                               "%s: profile %zu (%s) reads %.3g times the other profile%s of "
                               "%g MeV, applicator '%s', insert '%s' far from the field (median "
                               "of %zu, at up to %g cm; more than %g times apart%s): another "
                               "unit or another reference dose?%s",
                               name, p->entry, p->path ? p->path : p->file, med,
-                              k == 1 ? "" : "s", p->energy_mev, p->applicator, p->insert, k,
-                              SL_LEVELS_AT_CM, SL_LEVELS_APART,
-                              wide ? ", or 20 for a pair with a profile deeper than the "
-                                     "maximum compared nearer than 10 cm"
-                                   : "",
+                              kk == 1 ? "" : "s", p->energy_mev, p->applicator, p->insert, kk,
+                              SL_LEVELS_AT_CM, apart,
+                              narrow ? ""
+                                     : ", for pairs with a profile deeper than the maximum "
+                                       "compared nearer than 10 cm",
                               k == 1 ? " (of two profiles either may be the one)" : "");
     }
     free(v);

@@ -430,6 +430,57 @@ class ProfilesInAnotherUnit(unittest.TestCase):
         self.assertEqual(rc, 3, err)
         self.assertIn("either may be the one", err)
 
+    def test_deep_short_profiles_do_not_outvote_the_others(self):
+        """6 MeV, A06, open measured at 0.5, 1 and 2 cm, and at 3, 3.5 and 4
+        cm to 5 cm only (photons alone beyond the range, 0.62 % at the edge
+        falling to 0.12 %). The three short deep profiles, each held to the
+        wider tolerance against the 2 cm profile, are accepted; with the 2 cm
+        profile ten times low they must not outvote its pairs with the
+        shallow profiles (found by an independent review: it was accepted,
+        every organ near 2 cm deep ten times low)."""
+        for scale, rc_want in ((1.0, 0), (0.1, 3)):
+            with tempdir() as d:
+                dst = os.path.join(d, "set")
+                shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning",
+                                             "demo-e1"), dst)
+                ms = os.path.join(dst, "measurements.yaml")
+                with open(ms) as f:
+                    doc = yaml.safe_load(f)
+                doc["profiles"] = [p for p in doc["profiles"]
+                                   if not (p["energy_mev"] == 6 and p["applicator"] == "A06" and
+                                           p["insert"] == "open" and
+                                           p["depth_cm"] not in (0.5, 1.0, 2.0))]
+                for depth in (3.0, 3.5, 4.0):
+                    name = "profiles/e06_a06_open_d%.2f.csv" % depth
+                    doc["profiles"].append({"energy_mev": 6, "applicator": "A06",
+                                            "insert": "open", "depth_cm": depth,
+                                            "direction": "crossplane", "file": name,
+                                            "uncertainty": {"relative": 0.02,
+                                                            "floor_percent": 0.002}})
+                    with open(os.path.join(dst, name), "w", newline="") as f:
+                        w = csv.writer(f)
+                        w.writerow(["edge_distance_cm", "dose_percent"])
+                        for i in range(21):
+                            x = 0.25 * i
+                            v = (0.16 * math.exp(-x / 15) + 0.46 * math.exp(-x / 1.1)) * (
+                                1 - 0.05 * (depth - 3))
+                            w.writerow([x, repr(round(v, 6))])
+                with open(ms, "w") as f:
+                    yaml.safe_dump(doc, f)
+                path = os.path.join(dst, "profiles", "e06_a06_open_d2.00.csv")
+                with open(path) as f:
+                    rows = list(csv.reader(f))
+                with open(path, "w", newline="") as f:
+                    w = csv.writer(f)
+                    w.writerow(rows[0])
+                    for r in rows[1:]:
+                        w.writerow([r[0], repr(float(r[1]) * scale)])
+                rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
+            self.assertEqual(rc, rc_want, err)
+            if rc_want:
+                self.assertIn("e06_a06_open_d2.00.csv", err)
+                self.assertIn("another unit or another reference dose", err)
+
     def test_a_tail_scanned_alone_as_a_fraction(self):
         """A profile whose points all lie 12 cm and more from the edge, as a
         fraction: it shares no distance with the others up to 10 cm, so it
