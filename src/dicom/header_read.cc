@@ -282,12 +282,12 @@ void *same_thread(void *p)
 /* The sequence items of a file (a bound on its nesting), or SIZE_MAX. */
 size_t file_items(const char *path)
 {
-    raw_map m;
+    raw_bytes m;
     sl_error ignored = {};
-    if (raw_map_file(path, false, &m, &ignored) != SL_OK)
+    if (raw_read_file(path, &m, &ignored) != SL_OK)
         return SIZE_MAX;
     size_t k = count_item_tags(m.data, m.size);
-    raw_unmap(&m);
+    raw_release(&m);
     return k;
 }
 
@@ -316,13 +316,13 @@ sl_status sl_dicom_read_head(const char *path, sl_dicom_head *out, sl_error *err
 {
     quiet();
     memset(out, 0, sizeof *out);
-    raw_map m;
-    sl_status mst = raw_map_file(path, false, &m, err);
+    raw_bytes m;
+    sl_status mst = raw_read_file(path, &m, err);
     if (mst != SL_OK)
         return mst;
     bool dicom = looks_like_dicom(m.data, m.size);
     size_t items = dicom ? count_item_tags(m.data, m.size) : 0;
-    raw_unmap(&m);
+    raw_release(&m);
     if (!dicom)
         return sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
     if (items > SL_DICOM_MAX_ITEMS)

@@ -8,10 +8,10 @@
 #include "strayline/dicom.h"
 
 #include <cerrno>
+#include <cstdlib>
 #include <cstring>
 #include <fcntl.h>
 #include <pthread.h>
-#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -55,37 +55,61 @@ size_t count_item_tags(const unsigned char *p, size_t n)
     return k;
 }
 
-sl_status raw_map_file(const char *path, bool populate, raw_map *m, sl_error *err)
+/* Read, not mapped: a file shortened while it is read (an export still
+ * being written into the folder a scan walks) would raise SIGBUS at a
+ * mapped page past its new end and end the whole batch (found by an
+ * independent review); read() returns what is there, and DCMTK, reading
+ * the file again, refuses a truncated one by name. */
+sl_status raw_read_file(const char *path, raw_bytes *m, sl_error *err)
 {
-    *m = raw_map{};
-    struct stat sb;
-    if (stat(path, &sb) != 0)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
-    if (!S_ISREG(sb.st_mode))
-        return sl_error_set(err, SL_EINPUT, "%s: not a regular file", path);
-    if (sb.st_size == 0)
-        return sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", path);
-    if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
-        return sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
-                            static_cast<long long>(sb.st_size));
-    int fd = open(path, O_RDONLY | O_CLOEXEC);
+    *m = raw_bytes{};
+    /* O_NONBLOCK: a FIFO in the folder opens at once (and is refused as
+     * not a regular file) instead of waiting for a writer */
+    int fd = open(path, O_RDONLY | O_CLOEXEC | O_NONBLOCK);
     if (fd < 0)
         return sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
-    size_t n = static_cast<size_t>(sb.st_size);
-    void *map = mmap(nullptr, n, PROT_READ, MAP_PRIVATE | (populate ? MAP_POPULATE : 0), fd, 0);
+    struct stat sb;
+    sl_status st = SL_OK;
+    if (fstat(fd, &sb) != 0)
+        st = sl_error_set(err, SL_EINPUT, "%s: cannot open: %s", path, strerror(errno));
+    else if (!S_ISREG(sb.st_mode))
+        st = sl_error_set(err, SL_EINPUT, "%s: not a regular file", path);
+    else if (sb.st_size == 0)
+        st = sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", path);
+    else if (static_cast<unsigned long long>(sb.st_size) > SL_DICOM_MAX_FILE_BYTES)
+        st = sl_error_set(err, SL_EINPUT, "%s: %lld bytes, larger than strayline accepts", path,
+                          static_cast<long long>(sb.st_size));
+    size_t want = st == SL_OK ? static_cast<size_t>(sb.st_size) : 0, got = 0;
+    unsigned char *buf = st == SL_OK ? static_cast<unsigned char *>(malloc(want)) : nullptr;
+    if (st == SL_OK && !buf)
+        st = sl_error_set(err, SL_ENOMEM, "%s: out of memory for %zu bytes", path, want);
+    while (st == SL_OK && got < want) {
+        ssize_t k = read(fd, buf + got, want - got);
+        if (k < 0 && errno == EINTR)
+            continue;
+        if (k < 0)
+            st = sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));
+        else if (k == 0)
+            break; /* shortened meanwhile: what is there */
+        else
+            got += static_cast<size_t>(k);
+    }
     close(fd);
-    if (map == MAP_FAILED)
-        return sl_error_set(err, SL_EINPUT, "%s: cannot read: %s", path, strerror(errno));
-    m->data = static_cast<const unsigned char *>(map);
-    m->size = n;
+    if (st == SL_OK && got == 0)
+        st = sl_error_set(err, SL_EINPUT, "%s: empty file, not DICOM", path);
+    if (st != SL_OK) {
+        free(buf);
+        return st;
+    }
+    m->data = buf;
+    m->size = got;
     return SL_OK;
 }
 
-void raw_unmap(raw_map *m)
+void raw_release(raw_bytes *m)
 {
-    if (m->data)
-        munmap(const_cast<unsigned char *>(m->data), m->size);
-    *m = raw_map{};
+    free(const_cast<unsigned char *>(m->data));
+    *m = raw_bytes{};
 }
 
 size_t reader_stack(size_t items)

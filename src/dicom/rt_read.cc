@@ -1293,14 +1293,14 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     quiet_dcmtk();
     memset(out, 0, sizeof *out);
     Reader r(path, err);
-    raw_map m;
-    sl_status st = raw_map_file(path, true, &m, err);
+    raw_bytes m;
+    sl_status st = raw_read_file(path, &m, err);
     if (st != SL_OK)
         return st;
     st = looks_like_dicom(m.data, m.size)
              ? load(r, path, m.data, m.size, out, err)
              : sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
-    raw_unmap(&m);
+    raw_release(&m);
     return st;
 }
 

@@ -448,6 +448,22 @@ class OutputsNeverOverInputs(unittest.TestCase):
         self.assertIn("is not a regular file", err)
 
 
+class NotAFile(unittest.TestCase):
+    def test_a_fifo_is_refused_at_once(self):
+        """A named pipe given as a plan or structure set is refused as not a
+        regular file without waiting for a writer (the reader opens before it
+        looks, since it reads the bytes it checked: a file shortened while a
+        mapping of it was read would have ended the process)."""
+        with tempdir() as d:
+            fifo = os.path.join(d, "plan.dcm")
+            os.mkfifo(fifo)
+            for args in (("inspect", fifo), ("estimate", fifo, SS, "--model", MODEL),
+                         ("estimate", PLAN, fifo, "--model", MODEL)):
+                rc, out, err = run(*args)
+                self.assertEqual(rc, 3, err)
+                self.assertIn(fifo + ": not a regular file", err)
+
+
 class SmallerOnes(unittest.TestCase):
     def test_csv_with_a_byte_order_mark_reads_like_one_without(self):
         src = os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1")
