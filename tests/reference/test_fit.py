@@ -347,6 +347,52 @@ class NearerTheEdgeThanMeasured(unittest.TestCase):
             self.assertNotIn("extrapolated", js["flags"])
 
 
+def demo_set_copy(d):
+    """The shipped demo measurement set copied into d/set: (folder, its
+    measurements.yaml, the document)."""
+    dst = os.path.join(d, "set")
+    shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"), dst)
+    ms = os.path.join(dst, "measurements.yaml")
+    return dst, ms, load(ms)
+
+
+def rewrite_profile(path, value):
+    """Each point (x cm, dose) of a profile CSV becomes value(x, dose), left
+    out where that is None; its header row."""
+    with open(path) as f:
+        rows = list(csv.reader(f))
+    with open(path, "w", newline="") as f:
+        w = csv.writer(f)
+        w.writerow(rows[0])
+        for r in rows[1:]:
+            v = float(r[1])
+            nv = value(float(r[0]), v)
+            if nv is not None:
+                w.writerow([r[0], r[1] if nv == v else repr(nv)])
+    return rows[0]
+
+
+def scale_profile(path, factor, start=None):
+    """Every dose of a profile CSV times factor, the points before start
+    (cm) left out; its header row."""
+    return rewrite_profile(path, lambda x, v: v * factor if start is None or x >= start
+                           else None)
+
+
+def add_short_profile(dst, doc, depth, dose_of):
+    """A profile of 6 MeV, A06, open at depth (cm), edge distances 0 to 5 cm
+    by 0.25, dose_of(x) percent; added to doc (written by the caller)."""
+    name = "profiles/e06_a06_open_d%.2f.csv" % depth
+    doc["profiles"].append({"energy_mev": 6, "applicator": "A06", "insert": "open",
+                            "depth_cm": depth, "direction": "crossplane", "file": name,
+                            "uncertainty": {"relative": 0.02, "floor_percent": 0.002}})
+    with open(os.path.join(dst, name), "w", newline="") as f:
+        w = csv.writer(f)
+        w.writerow(["edge_distance_cm", "dose_percent"])
+        for i in range(21):
+            w.writerow([0.25 * i, repr(round(dose_of(0.25 * i), 6))])
+
+
 class ProfilesInAnotherUnit(unittest.TestCase):
     """A profile is in percent of the central-axis maximum. At a depth no
     deeper than the maximum's, an electron beam's axis dose is 70 % of the
@@ -359,21 +405,10 @@ class ProfilesInAnotherUnit(unittest.TestCase):
     def refuse_fraction(self, name, through, start=None, fragment="a fraction, another unit or "
                         "another reference dose"):
         with tempdir() as d:
-            dst = os.path.join(d, "set")
-            shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"),
-                            dst)
-            path = os.path.join(dst, "profiles", name)
-            with open(path) as f:
-                rows = list(csv.reader(f))
-            self.assertEqual(rows[0][0], "off_axis_cm" if through else "edge_distance_cm")
-            with open(path, "w", newline="") as f:
-                w = csv.writer(f)
-                w.writerow(rows[0])
-                for r in rows[1:]:
-                    if start is None or float(r[0]) >= start:
-                        w.writerow([r[0], repr(float(r[1]) / 100)])
-            rc, out, err = run("fit", os.path.join(dst, "measurements.yaml"), "-q", "-o",
-                               os.path.join(d, "m.yaml"))
+            dst, ms, _ = demo_set_copy(d)
+            head = scale_profile(os.path.join(dst, "profiles", name), 0.01, start)
+            self.assertEqual(head[0], "off_axis_cm" if through else "edge_distance_cm")
+            rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
         self.assertEqual(rc, 3, err)
         self.assertEqual(len(err.strip().splitlines()), 1, err)
         self.assertIn(name, err)
@@ -406,26 +441,14 @@ class ProfilesInAnotherUnit(unittest.TestCase):
         compared and refused, saying either may be the one (found by an
         independent review: a pair was never compared)."""
         with tempdir() as d:
-            dst = os.path.join(d, "set")
-            shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"),
-                            dst)
-            ms = os.path.join(dst, "measurements.yaml")
-            with open(ms) as f:
-                doc = yaml.safe_load(f)
+            dst, ms, doc = demo_set_copy(d)
             # keep two of the 6 MeV A06 C4 insert's profiles: 0 and 2 cm
             doc["profiles"] = [p for p in doc["profiles"]
                                if not (p["energy_mev"] == 6 and p["applicator"] == "A06" and
                                        p["insert"] == "C4" and p["depth_cm"] not in (0, 2))]
             with open(ms, "w") as f:
                 yaml.safe_dump(doc, f)
-            path = os.path.join(dst, "profiles", "e06_a06_c4_d2.00.csv")
-            with open(path) as f:
-                rows = list(csv.reader(f))
-            with open(path, "w", newline="") as f:
-                w = csv.writer(f)
-                w.writerow(rows[0])
-                for r in rows[1:]:
-                    w.writerow([r[0], repr(float(r[1]) / 100)])
+            scale_profile(os.path.join(dst, "profiles", "e06_a06_c4_d2.00.csv"), 0.01)
             rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
         self.assertEqual(rc, 3, err)
         self.assertIn("either may be the one", err)
@@ -440,41 +463,17 @@ class ProfilesInAnotherUnit(unittest.TestCase):
         every organ near 2 cm deep ten times low)."""
         for scale, rc_want in ((1.0, 0), (0.1, 3)):
             with tempdir() as d:
-                dst = os.path.join(d, "set")
-                shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning",
-                                             "demo-e1"), dst)
-                ms = os.path.join(dst, "measurements.yaml")
-                with open(ms) as f:
-                    doc = yaml.safe_load(f)
+                dst, ms, doc = demo_set_copy(d)
                 doc["profiles"] = [p for p in doc["profiles"]
                                    if not (p["energy_mev"] == 6 and p["applicator"] == "A06" and
                                            p["insert"] == "open" and
                                            p["depth_cm"] not in (0.5, 1.0, 2.0))]
                 for depth in (3.0, 3.5, 4.0):
-                    name = "profiles/e06_a06_open_d%.2f.csv" % depth
-                    doc["profiles"].append({"energy_mev": 6, "applicator": "A06",
-                                            "insert": "open", "depth_cm": depth,
-                                            "direction": "crossplane", "file": name,
-                                            "uncertainty": {"relative": 0.02,
-                                                            "floor_percent": 0.002}})
-                    with open(os.path.join(dst, name), "w", newline="") as f:
-                        w = csv.writer(f)
-                        w.writerow(["edge_distance_cm", "dose_percent"])
-                        for i in range(21):
-                            x = 0.25 * i
-                            v = (0.16 * math.exp(-x / 15) + 0.46 * math.exp(-x / 1.1)) * (
-                                1 - 0.05 * (depth - 3))
-                            w.writerow([x, repr(round(v, 6))])
+                    add_short_profile(dst, doc, depth, lambda x, k=1 - 0.05 * (depth - 3): k * (
+                        0.16 * math.exp(-x / 15) + 0.46 * math.exp(-x / 1.1)))
                 with open(ms, "w") as f:
                     yaml.safe_dump(doc, f)
-                path = os.path.join(dst, "profiles", "e06_a06_open_d2.00.csv")
-                with open(path) as f:
-                    rows = list(csv.reader(f))
-                with open(path, "w", newline="") as f:
-                    w = csv.writer(f)
-                    w.writerow(rows[0])
-                    for r in rows[1:]:
-                        w.writerow([r[0], repr(float(r[1]) * scale)])
+                scale_profile(os.path.join(dst, "profiles", "e06_a06_open_d2.00.csv"), scale)
                 rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
             self.assertEqual(rc, rc_want, err)
             if rc_want:
@@ -503,42 +502,18 @@ class ProfilesInAnotherUnit(unittest.TestCase):
         for tail, scale, rc_want in ((15.0, 1.0, 0), (15.0, 0.01, 3), (None, 1.0, 3),
                                      (15.0, 1.0, "d0.50")):
             with tempdir() as d:
-                dst = os.path.join(d, "set")
-                shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning",
-                                             "demo-e1"), dst)
-                ms = os.path.join(dst, "measurements.yaml")
-                with open(ms) as f:
-                    doc = yaml.safe_load(f)
-                doc["profiles"].append({"energy_mev": 6, "applicator": "A06", "insert": "open",
-                                        "depth_cm": 4.0, "direction": "crossplane",
-                                        "file": "profiles/e06_a06_open_d4.00.csv",
-                                        "uncertainty": {"relative": 0.02,
-                                                        "floor_percent": 0.002}})
+                dst, ms, doc = demo_set_copy(d)
+                add_short_profile(dst, doc, 4.0, lambda x: scale * (
+                    0.16 * math.exp(-x / tail) + 0.46 * math.exp(-x / 1.1) if tail
+                    else 0.125 + 0.495 * math.exp(-x / 1.1)))
                 with open(ms, "w") as f:
                     yaml.safe_dump(doc, f)
-                with open(os.path.join(dst, "profiles", "e06_a06_open_d4.00.csv"), "w",
-                          newline="") as f:
-                    w = csv.writer(f)
-                    w.writerow(["edge_distance_cm", "dose_percent"])
-                    for i in range(21):
-                        x = 0.25 * i
-                        v = (0.16 * math.exp(-x / tail) + 0.46 * math.exp(-x / 1.1)
-                             if tail else 0.125 + 0.495 * math.exp(-x / 1.1))
-                        w.writerow([x, repr(round(v * scale, 6))])
                 if rc_want == "d0.50":
                     # beside it, the profile at 0.5 cm ten times low from 1 cm:
-                    # each pair is held to its own tolerance, so the deep
-                    # pair's wider one does not widen the others' (found by
-                    # an independent review: it was accepted)
-                    path = os.path.join(dst, "profiles", "e06_a06_open_d0.50.csv")
-                    with open(path) as f:
-                        rows = list(csv.reader(f))
-                    with open(path, "w", newline="") as f:
-                        w = csv.writer(f)
-                        w.writerow(rows[0])
-                        for r in rows[1:]:
-                            if float(r[0]) >= 1.0:
-                                w.writerow([r[0], repr(float(r[1]) / 10)])
+                    # the deep pair's wider tolerance does not widen the
+                    # others' (found by an independent review: it was accepted)
+                    scale_profile(os.path.join(dst, "profiles", "e06_a06_open_d0.50.csv"), 0.1,
+                                  start=1.0)
                 rc, out, err = run("fit", ms, "-q", "-o", os.path.join(d, "m.yaml"))
             if rc_want == "d0.50":
                 self.assertEqual(rc, 3, err)
@@ -570,16 +545,8 @@ class OneSideHotter(unittest.TestCase):
     def fit_set(self, d, hot, keep=lambda x: True, model=False):
         dst = os.path.join(d, "set%d" % hot)
         shutil.copytree(os.path.join(SOURCE_ROOT, "examples", "commissioning", "demo-e1"), dst)
-        path = os.path.join(dst, "profiles", "e09_a10_open_d1.00_inplane_through.csv")
-        with open(path) as f:
-            rows = list(csv.reader(f))
-        with open(path, "w", newline="") as f:
-            w = csv.writer(f)
-            w.writerow(rows[0])
-            for r in rows[1:]:
-                x, v = float(r[0]), float(r[1])
-                if keep(x):
-                    w.writerow([r[0], repr(v * 1.5) if hot and x > 7 else r[1]])
+        rewrite_profile(os.path.join(dst, "profiles", "e09_a10_open_d1.00_inplane_through.csv"),
+                        lambda x, v: (v * 1.5 if hot and x > 7 else v) if keep(x) else None)
         out = os.path.join(d, "m%d.yaml" % hot)
         rc, _, err = run("fit", os.path.join(dst, "measurements.yaml"), "-q", "-o", out)
         self.assertEqual(rc, 0, err)
