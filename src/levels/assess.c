@@ -116,21 +116,18 @@ static void kind_unknown(sl_assessments *as, sl_assessment *a, double lowest_gy,
     /* its value is shown, not judged: no advice is drawn from it */
     if (a->status != SL_ST_IN_FIELD)
         a->status = SL_ST_NOT_ASSESSED;
+    char why[512];
     if (unknown_why)
-        sl_notes_add(&a->advice,
-                     "not judged by this screening: no kind of the action-level table matches "
-                     "its name, and its dose is not known here (%s); if it is a lens, thyroid, "
-                     "breast, gonad, bone marrow, fetus or cardiac device, say so with --organ "
-                     "ROI=KIND, and if none, with --organ ROI=other_organ",
-                     a->not_assessed_why);
+        snprintf(why, sizeof why, "its dose is not known here (%s)", unknown_why);
     else
-        sl_notes_add(&a->advice,
-                     "not judged by this screening: no kind of the action-level table matches "
-                     "its name, and its upper bound reaches the table's lowest level (%.1f "
-                     "cGy); if it is a lens, thyroid, breast, gonad, bone marrow, fetus or "
-                     "cardiac device, say so with --organ ROI=KIND, and if none, with --organ "
-                     "ROI=other_organ",
-                     100 * lowest_gy);
+        snprintf(why, sizeof why, "its upper bound reaches the table's lowest level (%.1f cGy)",
+                 100 * lowest_gy);
+    sl_notes_add(&a->advice,
+                 "not judged by this screening: no kind of the action-level table matches its "
+                 "name, and %s; if it is a lens, thyroid, breast, gonad, bone marrow, fetus or "
+                 "cardiac device, say so with --organ ROI=KIND, and if none, with --organ "
+                 "ROI=other_organ",
+                 why);
 }
 
 /* The types an organ of any kind may carry: an ORGAN, an AVOIDANCE
@@ -679,10 +676,10 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         } else {
             a->status = SL_ST_NO_LEVEL;
         }
-        if (!k && !excluded_type && kind_unknown_eligible(d->roi->type) && up >= table_lowest)
+        bool kindless = !k && !excluded_type && kind_unknown_eligible(d->roi->type);
+        if (kindless && up >= table_lowest)
             kind_unknown(as, a, table_lowest, NULL);
-        else if (!k && !excluded_type && kind_unknown_eligible(d->roi->type) && as->nother > 0 &&
-                 a->other_cgy == 0 && isfinite(table_lowest))
+        else if (kindless && as->nother > 0 && a->other_cgy == 0 && isfinite(table_lowest))
             /* beams this tool does not estimate leave its dose unknown, as
              * they leave an organ with levels incomplete */
             kind_unknown(as, a, table_lowest,
