@@ -1240,9 +1240,14 @@ sl_status memfile(Reader &r, const unsigned char *data, size_t size, int *fd, ch
  * deflated file is inflated here first and DCMTK reads the inflated data
  * set from a file: from a compressed stream it would allocate whatever an
  * element declares (4 GB for a 5 KB file, found by fuzzing), from a file it
- * checks the length against the file's size. */
+ * checks the length against the file's size.
+ *
+ * own, when given, holds the bytes in memory and is released once the
+ * guards are done with them, before DCMTK reads the file: its pages are
+ * then reused for DCMTK's copy instead of new ones being faulted in, which
+ * on a large structure set is a fifth of the memory touched. */
 sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
-               sl_dicom_object *out, sl_error *err)
+               raw_bytes *own, sl_dicom_object *out, sl_error *err)
 {
     std::vector<unsigned char> inflated;
     bool too_big = false, dataset_only = false;
@@ -1260,6 +1265,9 @@ sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
         dataset_only = true;
     }
     size_t items = count_item_tags(raw, n);
+    if (own)
+        raw_release(own); /* raw is not read again (an inflated copy is kept) */
+    raw = nullptr;
     if (items > SL_DICOM_MAX_ITEMS)
         return sl_error_set(err, SL_EINPUT,
                             "%s: more than %zu sequence items: larger than strayline accepts",
@@ -1267,7 +1275,7 @@ sl_status load(Reader &r, const char *path, const unsigned char *raw, size_t n,
     int fd = -1;
     char mpath[64];
     if (dataset_only) {
-        sl_status st = memfile(r, raw, n, &fd, mpath, sizeof mpath, err);
+        sl_status st = memfile(r, inflated.data(), n, &fd, mpath, sizeof mpath, err);
         if (st != SL_OK)
             return st;
         path = mpath;
@@ -1298,7 +1306,7 @@ sl_status sl_dicom_read(const char *path, sl_dicom_object *out, sl_error *err)
     if (st != SL_OK)
         return st;
     st = looks_like_dicom(m.data, m.size)
-             ? load(r, path, m.data, m.size, out, err)
+             ? load(r, path, m.data, m.size, &m, out, err)
              : sl_error_set(err, SL_EINPUT, "%s: %s", path, NOT_DICOM);
     raw_release(&m);
     return st;
@@ -1325,7 +1333,7 @@ sl_status sl_dicom_read_buffer(const void *data, size_t size, const char *name,
     sl_status st = memfile(r, bytes, size, &fd, path, sizeof path, err);
     if (st != SL_OK)
         return st;
-    st = load(r, path, bytes, size, out, err);
+    st = load(r, path, bytes, size, nullptr, out, err);
     close(fd);
     return st;
 }
