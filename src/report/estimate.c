@@ -258,16 +258,23 @@ void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl
             len += (size_t)k;
         }
     }
-    double lv = a->governing ? s * 100 * a->governing->dose_gy : NAN;
+    /* an organ not judged whose value reaches a level shows that level, as
+     * the verdict box does: the table is read on its own too */
+    double lv = a->governing               ? s * 100 * a->governing->dose_gy
+                : a->unjudged_level_gy > 0 ? s * 100 * a->unjudged_level_gy
+                                           : NAN;
     est_num_below(s * d->course_max.cgy, lv, x, sizeof x);
     est_num_below(s * d->course_max.upper_cgy, lv, y, sizeof y);
     snprintf(c->course, sizeof c->course, "%s (%s)", x, y);
     est_num(s * d->course_mean.cgy, c->mean, sizeof c->mean);
-    if (a->governing)
-        est_num(s * 100 * a->governing->dose_gy, c->level, sizeof c->level);
+    if (isfinite(lv))
+        est_num(lv, c->level, sizeof c->level);
     else
         snprintf(c->level, sizeof c->level, a->status == SL_ST_BAND ? "bands" : "-");
 }
+
+const char est_unjudged_level_text[] =
+    "not judged: the lowest level that applies to it, which its value or upper bound reaches";
 
 const char *est_kind(const sl_assessment *a)
 {
@@ -991,6 +998,10 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
         } else {
             jw_put(w, x, "level", NULL);
         }
+        /* not judged, and its value or upper bound reaches this level (the
+         * lowest that applies to it): shown, never a verdict */
+        jw_num_opt(w, x, "unjudged_level_cgy",
+               a->unjudged_level_gy > 0 ? 100 * a->unjudged_level_gy : NAN);
         json_object *checks = json_object_new_array();
         for (size_t c = 0; c < a->nchecks; c++) {
             json_object *lv = json_object_new_object();
@@ -1297,10 +1308,15 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         csv_num(fp, est ? d->course_mean.upper_cgy : NAN, false);
         csv_num(fp, est ? d->course_nearmax.cgy : NAN, false);
         csv_num(fp, est ? d->course_nearest.cgy : NAN, false);
-        csv_num(fp, a->governing ? 100 * a->governing->dose_gy : NAN, false);
+        csv_num(fp, a->governing               ? 100 * a->governing->dose_gy
+                    : a->unjudged_level_gy > 0 ? 100 * a->unjudged_level_gy
+                                               : NAN,
+                false);
         char lsrc[600] = "";
         if (a->governing)
             snprintf(lsrc, sizeof lsrc, "%s (%s)", a->governing->source, a->governing->mark);
+        else if (a->unjudged_level_gy > 0)
+            snprintf(lsrc, sizeof lsrc, "%s", est_unjudged_level_text);
         csv_field(fp, lsrc, false);
         csv_field(fp, flags, false);
         csv_tps(fp, e, d, &tt);

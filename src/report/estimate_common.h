@@ -74,6 +74,10 @@ typedef struct est_dose_cells {
 void est_organ_dose_cells(const sl_estimate *e, const sl_organ_dose *d, const sl_assessment *a,
                           double s, est_dose_cells *c);
 
+/* The level source shown for an organ not judged whose value reaches a
+ * level (sl_assessment.unjudged_level_gy). */
+extern const char est_unjudged_level_text[];
+
 /* The kind's name or "-". */
 const char *est_kind(const sl_assessment *a);
 

@@ -91,6 +91,9 @@ static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool
         if (a->governing)
             snprintf(buf, sizeof buf, "%s (%s)",
                      num(x1, sizeof x1, s * 100 * a->governing->dose_gy), a->governing->mark);
+        else if (a->unjudged_level_gy > 0)
+            snprintf(buf, sizeof buf, "%s (not judged)",
+                     num(x1, sizeof x1, s * 100 * a->unjudged_level_gy));
         else if (a->status == SL_ST_BAND)
             snprintf(buf, sizeof buf, "risk bands (%s)", a->kind->bands_mark);
         else
@@ -98,6 +101,8 @@ static void organ_table(hdoc *h, xmlNodePtr b, const sl_estimate_report *r, bool
         xmlNodePtr lt = hel(h, tr, "td", buf);
         if (a->governing)
             hattr(h, lt, "title", a->governing->source);
+        else if (a->unjudged_level_gy > 0)
+            hattr(h, lt, "title", est_unjudged_level_text);
         char st[EST_STATUS_LEN + 160], marks[120];
         est_status_text(a, st, sizeof st);
         est_marks(d, false, marks, sizeof marks);

@@ -1534,7 +1534,22 @@ class ReviewFindings(unittest.TestCase):
             rc, js, err = estimate(plan, ss)
             # the verdict line says so, not only the details
             _, text, _ = run("estimate", plan, ss, "--model", MODEL)
+            _, table, _ = run("estimate", plan, ss, "--model", MODEL, "--format", "csv")
+            html = os.path.join(d, "r.html")
+            run("estimate", plan, ss, "--model", MODEL, "--html", html)
+            with open(html, encoding="utf-8") as f:
+                page = f.read()
         self.assertIn("NOT JUDGED, REACHES LEVEL", text)
+        # the organ table, the CSV and the JSON organ give the level it
+        # reaches, as the verdict box does (they gave none before)
+        row = next(l for l in text.splitlines() if l.startswith("Lens_near "))
+        self.assertEqual(row.split()[9], "50.0", row)  # the level column
+        csv_row = next(r for r in csv.DictReader(io.StringIO(table)) if r["roi"] == "Lens_near")
+        self.assertEqual(float(csv_row["level_cgy"]), 50.0)
+        self.assertIn("not judged: the lowest level that applies", csv_row["level_source"])
+        self.assertIsNone(organ(js, "Lens_near")["level"])  # judged against none
+        self.assertEqual(organ(js, "Lens_near")["unjudged_level_cgy"], 50.0)
+        self.assertIn("50.0 (not judged)", page)
         self.assertIn("RESULT: not judged: Lens_near (its value shown reaches its level)", text)
         self.assertNotIn("no judged organ reaches its action level", text)
         self.assertIn("reaches the level of 50.0 cGy: check this organ's dose", text)
