@@ -1176,7 +1176,8 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         "patient_id", "plan_label", "plan_uid", "structure_set_uid", "model_file",
         "model_version", "model_sha256", "roi", "kind", "verdict", "status", "flagged",
         "measurement_advised", "what_if", "min_distance_cm", "min_depth_cm", "max_depth_cm",
-        "volume_cc", "fraction_max_cgy", "fraction_max_upper_cgy", "course_max_cgy",
+        "volume_cc", "fraction_max_cgy", "fraction_max_upper_cgy",
+        "fraction_max_by_group_cgy", "course_max_cgy",
         "course_max_upper_cgy", "course_mean_cgy", "course_mean_upper_cgy",
         "course_nearmax_cgy", "course_nearest_cgy", "level_cgy", "level_source", "flags",
         "dose_source", "planning_system_volume_percent", "max_dose_source",
@@ -1257,8 +1258,12 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
             csv_field(fp, "yes", false);
             csv_field(fp, "yes", false);
             csv_field(fp, "no", false);
-            for (size_t c = 0; c < 12; c++)
-                csv_num(fp, NAN, false);
+            for (size_t c = 0; c < 13; c++) {
+                if (c == 6)
+                    csv_field(fp, "", false); /* by group */
+                else
+                    csv_num(fp, NAN, false);
+            }
             csv_field(fp, "", false);
             csv_field(fp, "", false);
             csv_tps(fp, e, NULL, &tt);
@@ -1302,6 +1307,14 @@ static sl_status csv_report(FILE *fp, const sl_estimate_report *r, sl_error *err
         csv_num(fp, d->volume_cc, false);
         csv_num(fp, est && e->ngroups == 1 ? d->fx_max[0].cgy : NAN, false);
         csv_num(fp, est && e->ngroups == 1 ? d->fx_max[0].upper_cgy : NAN, false);
+        /* with several fraction groups a fraction has no one dose: each
+         * group's maximum per fraction and its upper bound, in one cell */
+        sl_buf fg = {0};
+        for (size_t g = 0; est && g < e->ngroups; g++)
+            sl_buf_printf(&fg, "%sgroup %d: %.4f (%.4f)", g ? "; " : "",
+                          e->plan->groups[g].number, d->fx_max[g].cgy, d->fx_max[g].upper_cgy);
+        csv_field(fp, fg.data && !fg.failed ? fg.data : "", false);
+        sl_buf_free(&fg);
         csv_num(fp, est ? d->course_max.cgy : NAN, false);
         csv_num(fp, est ? d->course_max.upper_cgy : NAN, false);
         csv_num(fp, est ? d->course_mean.cgy : NAN, false);

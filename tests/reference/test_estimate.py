@@ -265,7 +265,11 @@ class BoxPhantomArithmetic(unittest.TestCase):
             run("estimate", plan, ss, "--model", MODEL, "--html", html_path)
             with open(html_path) as f:
                 page = f.read()
-        for shown in (text, page):
+            _, table, _ = run("estimate", plan, ss, "--model", MODEL, "--format", "csv")
+        # the CSV: no one dose a fraction, each group's in a cell of its own
+        row = next(csv.DictReader(io.StringIO(table)))
+        self.assertEqual(row["fraction_max_cgy"], "")
+        for shown in (text, page, row["fraction_max_by_group_cgy"]):
             self.assertNotIn("see the JSON", shown)
             for g in (0, 1):
                 m = re.search(r"group %d: ([0-9.]+) \(([0-9.]+)\)" % (g + 1), shown)
