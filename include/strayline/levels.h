@@ -216,6 +216,9 @@ typedef struct sl_assessment {
                                  its dose is the treatment's or unknown (flagged) */
     double unjudged_level_gy; /* unjudged, and the value shown or its upper bound reaches
                                  this level (its lowest that applies); 0 otherwise */
+    bool type_not_organ;      /* unjudged, typed as no organ (FIXATION, SUPPORT, ...) while its
+                                 name gives it a kind: a mask named "Device", or a device
+                                 mistyped */
     bool kind_unknown;        /* no kind matches its name and its upper bound reaches the
                                  table's lowest level: unjudged, flagged (an embryo or a
                                  device in a spelling the table lacks) */

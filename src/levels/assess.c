@@ -543,6 +543,19 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
                              "or give --include-targets",
                              d->roi->type, a->kind->description ? a->kind->description
                                                                 : a->kind->kind);
+            /* a name read as an organ on a ROI typed as a setup aid (a mask
+             * or a board named "Device"): flagged all the same, since a
+             * pacemaker typed SUPPORT passed once; the way out is said */
+            else if (a->unjudged && !a->kind_by_option && a->kind && d->roi->type &&
+                     !sl_dose_type_target(d->roi->type) &&
+                     sl_dose_type_excluded(d->roi->type, false, NULL)) {
+                a->type_not_organ = true;
+                sl_notes_add(&a->advice,
+                             "typed %s, not an organ, yet its name matches the kind %s: if "
+                             "it is one, correct its RT ROI Interpreted Type (3006,00A4); if "
+                             "it is not, say so with --organ \"%s=other_organ\"",
+                             d->roi->type, a->kind->kind, d->roi->name);
+            }
             as->any_flagged |= a->flagged;
             continue;
         }

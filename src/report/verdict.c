@@ -121,6 +121,9 @@ static void one_line_advice(const sl_assessment *a, est_vkind k, char *buf, size
         else
             sl_buf_printf(&b, "%s: measure, or use the planning system's dose",
                           a->not_assessed_why ? a->not_assessed_why : "not assessed");
+        if (a->type_not_organ)
+            sl_buf_printf(&b, "; typed %s: if it is no %s, give --organ \"%s=other_organ\"",
+                          d->roi->type, a->kind->kind, d->roi->name);
         if (a->incomplete)
             sl_buf_printf(&b, "; incomplete: other treatment beams not included (add their "
                               "dose with --other-dose)");

@@ -1528,6 +1528,32 @@ class ReviewFindings(unittest.TestCase):
         self.assertEqual(far["min_distance_cm"], far0["min_distance_cm"])
         self.assertEqual(far["course_max_cgy"], far0["course_max_cgy"])
 
+    def test_a_setup_aid_named_as_an_organ_is_flagged_with_the_way_out(self):
+        """A FIXATION ROI named "Device" (a mask, say) matches the cardiac
+        device's name pattern: it stays flagged, as a pacemaker typed
+        SUPPORT passed once, but the verdict says how to clear it, and
+        --organ Device=other_organ does (common practice: RT ROI Interpreted
+        Type, DICOM PS3.3 C.8.8.8, is often left at a default)."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Device", (150.0, 10.0, 0.0), "FIXATION"),
+                                    ("Lens_L", (250.0, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 5, "beams": [(1, 200.0)]}])
+            rc, js, err = estimate(plan, ss)
+            _, text, _ = run("estimate", plan, ss, "--model", MODEL)
+            rc2, js2, err2 = estimate(plan, ss, "--organ", "Device=other_organ")
+        dev = organ(js, "Device")
+        self.assertEqual(rc, 4, err)
+        self.assertTrue(dev["flagged"])
+        self.assertEqual(dev["kind"], "cardiac_device")
+        self.assertTrue(any("typed FIXATION, not an organ, yet its name matches the kind "
+                            "cardiac_device" in a for a in dev["advice"]), dev["advice"])
+        self.assertIn('typed FIXATION: if it is no cardiac_device, give --organ '
+                      '"Device=other_organ"', text)
+        self.assertEqual(rc2, 0, err2)
+        self.assertFalse(organ(js2, "Device")["flagged"])
+        self.assertFalse(any("typed FIXATION" in a for a in organ(js2, "Device")["advice"]))
+
     def test_an_unjudged_organ_whose_value_reaches_its_level_is_flagged(self):
         """A lens 0.5 cm from a 10 x 10 cm field edge (near edge: not
         judged) with a dose far above 0.5 Gy: flagged, exit 4."""
