@@ -1217,17 +1217,23 @@ sl_status sl_film_profiles(const char *films_path, const sl_film_profile_options
             (axis_rel > SL_FILM_AXIS_MAX_REL || (shallow && axis_rel < axis_min))) {
             free(pv);
             free(above);
+            /* the limits printed are the ones applied */
+            char expected[160];
+            if (!shallow)
+                snprintf(expected, sizeof expected, "at most %g", SL_FILM_AXIS_MAX_REL);
+            else
+                snprintf(expected, sizeof expected, "between %g and %g this shallow%s", axis_min,
+                         SL_FILM_AXIS_MAX_REL,
+                         axis_min < SL_FILM_AXIS_MIN_REL
+                             ? ", for an insert relative to the open field"
+                             : "");
             st = sl_error_set(err, SL_EINPUT,
                               "%s: the film's own central-axis dose, %.4g cGy, is %.3g times its "
                               "cax_reference_cgy (%g cGy) at depth %g cm for %g MeV (expected "
                               "%s): the calibration's doses or the reference are in another "
                               "unit, or for other monitor units",
                               where, cax, axis_rel, fp->cax_ref, fp->depth_cm, fp->energy_mev,
-                              !shallow ? "at most 1.2"
-                              : axis_min < SL_FILM_AXIS_MIN_REL
-                                  ? "between 0.2 and 1.2 this shallow, for an insert relative "
-                                    "to the open field"
-                                  : "between 0.4 and 1.2 this shallow");
+                              expected);
             goto done;
         }
         r->id = fp->id;
