@@ -73,6 +73,15 @@ extern "C" {
  * decimal string, not a tolerance (a plan that states a dose 2 % above the
  * MU's reads 2 % higher) */
 #define SL_BEAM_DOSE_RAISE_ABOVE 0.001
+/* A planning system's dose (--tps-dose) whose maximum is below this share
+ * of the course dose the plan gives at a beam's reference point (reference
+ * dose x fractions) is refused: a dose of one fraction, of another plan
+ * version, or scaled wrongly would lower every organ judged on it (common
+ * practice: an electron field's grid maximum lies within a few percent of
+ * its central-axis maximum; a plan of two fractions exported per fraction
+ * reads 0.5). Above SL_TPS_MAX_ABOVE times it, a warning. */
+#define SL_TPS_MAX_BELOW 0.7
+#define SL_TPS_MAX_ABOVE 2.0
 /* SSDs accepted around the model's nominal SSD, cm (common practice: the
  * applicator ends about 5 cm above the nominal surface; extended SSDs for
  * electrons rarely pass 120 cm) */

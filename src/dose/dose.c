@@ -1055,6 +1055,46 @@ static sl_status check_tps(sl_estimate *e, const sl_plan *plan, const sl_locatio
                                     num, plan->source, times);
         }
     }
+    /* each dose against the course dose the plan gives at its beams'
+     * reference points: the grid is used as it is in and near the fields,
+     * so a grid of one fraction (found by an independent review: a lens in
+     * the field passed at a fifth of its dose) or of another scaling is
+     * refused rather than judged on */
+    for (size_t f = 0; f < opt->ntps; f++) {
+        const sl_rtdose *d = opt->tps[f];
+        double want_gy = 0;
+        int want_beam = 0;
+        for (size_t b = 0; b < e->nbeams; b++) {
+            int num = e->beams[b].place->beam->number;
+            bool in = d->summation == SL_RTDOSE_PLAN;
+            for (size_t k = 0; !in && k < d->nbeams; k++)
+                in = d->beams[k] == num;
+            double gy = e->beams[b].ref_cgy[0] * e->fractions[0] / 100;
+            if (in && isfinite(gy) && gy > want_gy) {
+                want_gy = gy;
+                want_beam = num;
+            }
+        }
+        if (!(want_gy > 0))
+            continue;
+        double ratio = d->max_gy / want_gy;
+        if (!(ratio >= SL_TPS_MAX_BELOW))
+            return sl_error_set(err, SL_EINPUT,
+                                "%s: its dose peaks at %.4g Gy, %.2f times the course dose the "
+                                "plan gives at beam %d's reference point (%.4g Gy: its reference "
+                                "dose x %d fractions): a dose of one fraction, of another plan "
+                                "version or with a wrong Dose Grid Scaling (3004,000E) would "
+                                "lower the organs judged on it; give the plan's whole course "
+                                "dose",
+                                d->source, d->max_gy, ratio, want_beam, want_gy,
+                                e->fractions[0]);
+        if (ratio > SL_TPS_MAX_ABOVE)
+            sl_notes_add(&e->notes,
+                         "%s: its dose peaks at %.4g Gy, %.2f times the course dose the plan "
+                         "gives at beam %d's reference point (%.4g Gy): check its Dose Grid "
+                         "Scaling and that it is this plan's (organs judged on it read high)",
+                         d->source, d->max_gy, ratio, want_beam, want_gy);
+    }
     e->tps_used = true;
     e->tps_zone_cm = opt->tps_zone_cm;
     if (opt->tps[0]->summation == SL_RTDOSE_PLAN && plan->nbeams > loc->nbeams)

@@ -44,7 +44,7 @@ from test_estimate import (MODEL, SCHEMA, box_case, estimate, model_percent, org
 RT_DOSE = "1.2.840.10008.5.1.4.1.1.481.2"
 
 # the analytic dose (Gy over the course), x, y, z in mm; positive over the grid
-A, BX, BY, BZ = 2.0, 0.004, 0.005, -0.002
+A, BX, BY, BZ = 12.0, 0.004, 0.005, -0.002
 
 
 def analytic_gy(x, y, z):
@@ -52,7 +52,7 @@ def analytic_gy(x, y, z):
 
 
 def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN", beams=(),
-                 bits=32, zs=None, zero_beyond_mm=None):
+                 bits=32, zs=None, zero_beyond_mm=None, zero_x_mm=None, factor=1.0):
     """An axial RT Dose grid: x -150..150 mm, y -10..100 mm, z -50..50 mm,
     every 2.5 mm (or the frames zs), of the analytic dose, stored as
     integers times Dose Grid Scaling."""
@@ -64,7 +64,10 @@ def write_rtdose(path, plan_path, *, frame=None, plan_uid=None, summation="PLAN"
     gy = analytic_gy(xx, yy, zz)
     if zero_beyond_mm is not None:  # a grid cut at a threshold: 0 off the field
         gy = np.where(np.abs(xx) > zero_beyond_mm, 0.0, gy)
-    scale = 1e-6 if bits == 32 else 1e-4
+    if zero_x_mm is not None:  # 0 in a slab of x only
+        gy = np.where((xx >= zero_x_mm[0]) & (xx <= zero_x_mm[1]), 0.0, gy)
+    gy = gy * factor  # another scaling, or one fraction of the course
+    scale = 1e-6 if bits == 32 else 1e-3
     raw = np.rint(gy / scale).astype("<u4" if bits == 32 else "<u2")
     ds = Dataset()
     ds.file_meta = FileMetaDataset()
@@ -238,12 +241,42 @@ class FromTheGrid(unittest.TestCase):
         by an independent review: a lens under a shielding block, in the
         field, read 0 from such a grid)."""
         with tempdir() as d:
-            plan, ss, rtd = case(d, zero_beyond_mm=-1.0)
+            plan, ss, rtd = case(d, zero_x_mm=(10.0, 30.0))  # 'in' is at x = 20 mm
             rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
         inside = organ(js, "in")
         self.assertFalse(inside["estimated"])
         self.assertIn("the planning system's dose grid reads 0", inside["not_estimated_reason"])
         self.assertIsNone(inside.get("course_max_cgy"))
+
+    def test_a_grid_far_below_the_plan_is_refused(self):
+        """The grid's maximum against the course dose the plan gives at the
+        beam's reference point (MU x dose per MU x fractions, the model's
+        output arithmetic of models/README.md): an RT Dose of one fraction of
+        five (0.2), or a grid of 0 everywhere, would lower the organ in the
+        field, which is judged on the grid as it is (found by an independent
+        review: a lens in the field passed at a fifth of its dose); refused
+        by name. A grid four times high is used, with a warning (it errs
+        high)."""
+        ref_gy = MU * output(12, "A10")["dose_per_mu_cgy"] * N_FX / 100
+        peak = analytic_gy(150.0, 100.0, -50.0)  # the analytic grid's maximum
+        for factor in (1.0 / N_FX, 0.0):
+            with tempdir() as d:
+                plan, ss, rtd = case(d, factor=factor)
+                rc, out, err = run("estimate", plan, ss, "--model", MODEL, "--tps-dose", rtd)
+            self.assertEqual(rc, 3, err)
+            self.assertEqual(out, "")
+            self.assertIn("rtdose.dcm: its dose peaks at %.4g Gy, %.2f times the course dose "
+                          "the plan gives at beam 1's reference point (%.4g Gy"
+                          % (peak * factor, peak * factor / ref_gy, ref_gy), err)
+            self.assertIn("give the plan's whole course dose", err)
+        with tempdir() as d:
+            plan, ss, rtd = case(d, factor=4.0)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        self.assertIn(rc, (0, 4), err)
+        self.assertTrue(any("check its Dose Grid Scaling" in w for w in js["warnings"]),
+                        js["warnings"])
+        self.assertAlmostEqual(organ(js, "in")["course_max_cgy"],
+                               400 * analytic_gy(20.0, 10.0, 0.0), delta=1e-2)
 
     def test_uneven_frames_are_read_as_they_are(self):
         """Grid Frame Offset Vector with uneven, ordered offsets (legal: DICOM
@@ -270,8 +303,8 @@ class FromTheGrid(unittest.TestCase):
             rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
         self.assertIn(rc, (0, 4), err)
         want = 100 * analytic_gy(65.0, 10.0, 0.0)
-        # 16-bit storage: 1e-4 Gy steps
-        self.assertAlmostEqual(organ(js, "near")["course_max_cgy"], want, delta=0.02)
+        # 16-bit storage: 1e-3 Gy steps
+        self.assertAlmostEqual(organ(js, "near")["course_max_cgy"], want, delta=0.1)
         rows = js["planning_system_dose"]["model_to_planning_system"]
         every = {r["from_cm"]: r for r in rows if r["beam_number"] is None}
         beam1 = {r["from_cm"]: r for r in rows if r["beam_number"] == 1}

@@ -502,8 +502,10 @@ def base_dose(summation="PLAN", beams=(1,)):
     ys = np.arange(-100.0, 101.0, 20.0)
     zs = np.arange(-140.0, 141.0, 20.0)
     zz, yy, xx = np.meshgrid(zs, ys, xs, indexing="ij")
-    gy = 2.0 * np.exp(-(xx ** 2 + zz ** 2) / (2 * 60.0 ** 2))
-    scale = 1e-4
+    # the plan's course dose at the beam's reference point is 10 Gy: the
+    # grid peaks there (a grid far below it is refused)
+    gy = 10.0 * np.exp(-(xx ** 2 + zz ** 2) / (2 * 60.0 ** 2))
+    scale = 1e-3
     ds = Dataset()
     ds.file_meta = FileMetaDataset()
     ds.file_meta.MediaStorageSOPClassUID = RT_DOSE
