@@ -6,7 +6,8 @@
  * beam's bolus included: sl_location_depth) and
  * given the model's percent of each beam's reference dose, summed over the
  * fraction groups; the zone of the planning system's dose, when given, is
- * the estimate's (dose.c).
+ * the estimate's (dose.c), and outside the fields it holds the higher of
+ * the grid's dose and the model's, as an organ's dose does.
  */
 #include "strayline/dose.h"
 #include "strayline/parallel.h"
@@ -83,7 +84,11 @@ static void grid_slice(size_t k, void *ctx)
                 double sum = 0;
                 for (size_t f = 0; f < e->opt.ntps && !isnan(sum); f++)
                     sum += sl_rtdose_at(e->opt.tps[f], p.x * 10, p.y * 10, p.z * 10);
-                if (!isnan(sum)) {
+                /* outside the fields the higher of the two, as for an
+                 * organ (dose.c): a grid cropped or cut at a threshold
+                 * reads 0 there, and the file must not show less than the
+                 * report (found by an independent review) */
+                if (!isnan(sum) && (dmin < SL_IN_FIELD_MARGIN_CM || sum >= course / 100)) {
                     *out = (float)sum;
                     j->tps[k]++;
                     continue;

@@ -644,6 +644,35 @@ class EstimateAsRtDose(unittest.TestCase):
         want = organ(js, "p1")["course_max_cgy"] / 100
         self.assertAlmostEqual(self.voxel(ds, grid, 120.0, 10.0, 0.0), want, delta=scale * 1.0001)
 
+    def test_a_grid_below_the_model_in_the_zone_gives_the_model(self):
+        """A planning system's grid cut to 0 beyond 5.5 cm off axis: at
+        p3, 2 cm outside the field edge inside the 3 cm zone, the file holds
+        the model's dose the report gives (the higher of the two, as for an
+        organ), not the grid's 0 (found by an independent review: a viewer
+        showed the zone beside the field as unirradiated); in the field it
+        holds the grid's."""
+        with tempdir() as d:
+            pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
+            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
+            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan, zero_beyond_mm=55.0)
+            out = os.path.join(d, "estimate-dose.dcm")
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--rtdose-out", out,
+                                   "--rtdose-spacing", "1")
+            self.assertIn(rc, (0, 4), err)
+            ds = pydicom.dcmread(out)
+        scale = float(ds.DoseGridScaling)
+        grid = ds.pixel_array.astype(float) * scale
+        p3 = organ(js, "p3")
+        self.assertEqual(p3["dose_source"], "model")
+        want = p3["course_max_cgy"] / 100
+        self.assertGreater(want, 0)
+        got = self.voxel(ds, grid, 70.0, 10.0, 0.0)
+        self.assertGreaterEqual(got, want - 1e-9 * want)
+        self.assertLessEqual(got, want + scale * 1.0001)
+        self.assertAlmostEqual(self.voxel(ds, grid, 0.0, 10.0, 0.0), analytic_gy(0, 10, 0),
+                               delta=scale * 1.0001)
+
 
 class Refused(unittest.TestCase):
     def check(self, expect, **dose):
