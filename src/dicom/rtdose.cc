@@ -302,6 +302,14 @@ void read_dose(DoseReader &r, DcmDataset *ds, E_TransferSyntax xfer, sl_rtdose *
     DcmElement *px = nullptr;
     if (ds->findAndGetElement(DCM_PixelData, px).bad() || !px)
         r.fail(SL_EINPUT, DoseReader::name(DCM_PixelData), "missing");
+    /* compressed frames are not read: said so, not as a short element */
+    DcmXfer tx(xfer);
+    if (tx.isEncapsulated())
+        r.fail(SL_EINPUT, DoseReader::name(DCM_PixelData),
+               std::string("compressed (transfer syntax ") + tx.getXferName() + ", " +
+                   tx.getXferID() +
+                   "): strayline reads an RT Dose in an uncompressed transfer syntax; export "
+                   "it uncompressed");
     size_t n = d->nx * d->ny * d->nz;
     Uint16 *words = nullptr;
     if (px->getUint16Array(words).bad() || !words ||

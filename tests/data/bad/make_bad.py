@@ -638,6 +638,19 @@ def rtdose_cases():
               "BitsAllocated (0028,0100): 8 is outside 16..32")
     dose_case("rtdose_high_bit.dcm", lambda d: setattr(d, "HighBit", 14),
               "HighBit (0028,0102): must be Bits Stored - 1")
+    # compressed frames (PS3.5 A.4.2, RLE Lossless, pydicom's encoder): said
+    # so, not taken for a short element
+    from pydicom.uid import RLELossless
+    from pydicom.uid import ExplicitVRLittleEndian
+    rle = base_dose()
+    rle.file_meta.TransferSyntaxUID = ExplicitVRLittleEndian
+    rle.is_little_endian, rle.is_implicit_VR = True, False
+    rle.compress(RLELossless)
+    path = os.path.join(HERE, "rtdose_rle_compressed.dcm")
+    rle.save_as(path, write_like_original=False)
+    rows.append(("rtdose_rle_compressed.dcm", args, 3,
+                 "PixelData (7FE0,0010): compressed (transfer syntax RLE Lossless"))
+
     def huge(d):
         d.Rows = 65535
         d.Columns = 65535
