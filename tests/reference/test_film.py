@@ -920,8 +920,12 @@ class BadFilmInput(unittest.TestCase):
         (common practice): the films at 2 cm (deeper than the maximum, 1.5
         cm, shallower than 0.8 R50) reading 0.31 of their reference are
         taken, where untilted they are refused; the lower limit still holds
-        at 1 cm, no deeper than the maximum."""
-        for tilt, deep_only, rc_want in ((45, True, 0), (0, True, 3), (45, False, 3)):
+        at 1 cm, no deeper than the maximum. At the limit itself
+        (SL_FILM_AXIS_TILT_DEG, 30 degrees) the untilted rule holds; just
+        past it, or tilted the other way, the steep one."""
+        for tilt, deep_only, rc_want in ((45, True, 0), (0, True, 3), (45, False, 3),
+                                         (30, True, 3), (31, True, 0), (-45, True, 0),
+                                         (-45, False, 3)):
             def m(doc):
                 for f in doc["films"]:
                     f["tilt_deg"] = tilt
