@@ -240,6 +240,9 @@ typedef struct sl_organ_dose {
     size_t tps_below_model;       /* samples in the zone, outside the field, where the
                                      planning system's dose is below the model's: the
                                      model's dose, with its marks */
+    size_t tps_far_model;         /* samples whose planning-system dose was taken near one
+                                     field with the model's dose of the fields whose edges
+                                     lie beyond the zone added to it */
     double tps_volume_fraction;   /* of the volume (of the samples, for points) */
     bool max_from_tps, nearest_from_tps;
     double *tps_acc;              /* private: the organ's share of the ratio table */

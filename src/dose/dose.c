@@ -763,11 +763,20 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
     double *tv = e->tps_used ? malloc(n * sizeof *tv) : NULL;
     unsigned *mf = e->tps_used ? calloc(n, sizeof *mf) : NULL; /* model marks where TPS */
     unsigned char *use = calloc(n, 1);
+    /* a sample that takes the planning system's dose near one field gets
+     * the model's dose of each field whose edge lies beyond the zone added
+     * to it: far from a field the planning system underestimates, and a
+     * PLAN dose cannot be split by beam (its own share of those fields is
+     * then counted twice, which errs high; found by an independent review).
+     * Course, its u, the electron part, then per group dose and u; and the
+     * model's marks of those fields */
+    double *far = e->tps_used ? calloc(n * (3 + 2 * ng), sizeof *far) : NULL;
+    unsigned *ff = e->tps_used ? calloc(n, sizeof *ff) : NULL;
     if (e->tps_used)
         od->tps_acc = calloc(nrow * SL_TPS_BINS * 4, sizeof *od->tps_acc);
     if (!od->fx_max || !od->fx_mean || !od->fx_nearmax || !od->fx_nearest || !od->course_cgy ||
         !dg || !ug || !uc || !ec || !dmin || !up || !order || !use ||
-        (e->tps_used && (!tv || !mf || !od->tps_acc))) {
+        (e->tps_used && (!tv || !mf || !od->tps_acc || !far || !ff))) {
         st = SL_ENOMEM;
         goto done;
     }
@@ -838,8 +847,12 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                 own = d;
         }
         for (size_t i = 0; i < n; i++) {
-            /* inside a field only the planning system's dose exists */
-            if (use[i] && dmin[i] < 0)
+            /* this field's edge beyond the zone of a sample that takes the
+             * planning system's dose */
+            bool far_b = use[i] && p->distance_cm[i] >= e->tps_zone_cm;
+            /* inside a field only the planning system's dose exists (and
+             * the model's of the fields far from it) */
+            if (use[i] && dmin[i] < 0 && !far_b)
                 continue;
             sl_model_value v;
             double us;
@@ -849,6 +862,19 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
                 od->flags |= v.flags | bd->model_flags;
             else
                 mf[i] |= v.flags | bd->model_flags;
+            if (far_b) {
+                ff[i] |= v.flags | bd->model_flags;
+                for (size_t g = 0; g < ng; g++) {
+                    if (!isfinite(bd->ref_cgy[g]))
+                        continue;
+                    double c = e->fractions[g] * bd->ref_cgy[g] / 100;
+                    far[i] += c * pc;
+                    far[n + i] += c * u;
+                    far[2 * n + i] += c * pc * (pc > 0 ? v.electron_percent / pc : 0);
+                    far[(3 + g) * n + i] += bd->ref_cgy[g] * pc / 100;
+                    far[(3 + ng + g) * n + i] += bd->ref_cgy[g] * u / 100;
+                }
+            }
             if (i == nearest && !use[i]) {
                 od->nearest_flags |= v.flags | bd->model_flags;
                 if (p->distance_cm[i] == dmin[i])
@@ -894,7 +920,7 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
         }
         if (!use[i])
             continue;
-        if (dmin[i] >= 0 && od->course_cgy[i] > tv[i]) {
+        if (dmin[i] >= 0 && od->course_cgy[i] > tv[i] + far[i]) {
             /* outside the field the planning system's dose stands only
              * where it is at least the model's: a grid cropped or cut at a
              * threshold reads 0 there (found by an independent review: a
@@ -921,14 +947,25 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
          * 5 % and pass an organ the model flags (found by an independent
          * review) */
         double model_up = dmin[i] >= 0 ? od->course_cgy[i] + 2 * uc[i] : 0;
+        double tot = tv[i] + far[i];
         od->tps_samples++;
-        od->course_cgy[i] = tv[i];
-        uc[i] = fmax(SL_TPS_U_FRACTION * tv[i], (model_up - tv[i]) / 2);
-        ec[i] = tv[i]; /* an electron field's own dose near its edge: all electrons */
+        if (far[i] > 0) {
+            od->tps_far_model++;
+            od->flags |= ff[i];
+        }
+        od->course_cgy[i] = tot;
+        /* beams add linearly: the planning system's stated share and the
+         * far fields' own */
+        uc[i] = fmax(SL_TPS_U_FRACTION * tv[i] + far[n + i], (model_up - tot) / 2);
+        /* an electron field's own dose near its edge: all electrons */
+        ec[i] = tv[i] + far[2 * n + i];
         for (size_t g = 0; g < ng; g++) {
             double mg = dmin[i] >= 0 ? dg[g * n + i] + 2 * ug[g * n + i] : 0;
-            dg[g * n + i] = tv[i] / e->fractions[g]; /* one fraction group (checked) */
-            ug[g * n + i] = fmax(SL_TPS_U_FRACTION * dg[g * n + i], (mg - dg[g * n + i]) / 2);
+            /* one fraction group (checked) */
+            double tg = tv[i] / e->fractions[g];
+            dg[g * n + i] = tg + far[(3 + g) * n + i];
+            ug[g * n + i] = fmax(SL_TPS_U_FRACTION * tg + far[(3 + ng + g) * n + i],
+                                 (mg - dg[g * n + i]) / 2);
         }
     }
     /* statistics of one dose array */
@@ -1007,6 +1044,8 @@ done: /* the scratch arrays, on every path (an organ left out keeps excluded_why
     free(tv);
     free(mf);
     free(use);
+    free(far);
+    free(ff);
     return st;
 }
 
@@ -1276,11 +1315,21 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
     }
     if (st == SL_OK && e->tps_used) {
         st = gather_ratios(e, err);
-        size_t below = 0, norg = 0;
+        size_t below = 0, norg = 0, far = 0, nfar = 0;
         for (size_t o = 0; o < e->norgans; o++) {
             below += e->organs[o].tps_below_model;
             norg += e->organs[o].tps_below_model > 0;
+            far += e->organs[o].tps_far_model;
+            nfar += e->organs[o].tps_far_model > 0;
         }
+        if (far)
+            sl_notes_add(&e->notes,
+                         "planning system's dose: at %zu sample%s of %zu organ%s near one field "
+                         "it is taken with the model's dose added for the fields whose edges "
+                         "lie beyond the %.1f cm zone (far from a field the planning system "
+                         "underestimates; its own share of those fields is counted twice, "
+                         "which errs high)",
+                         far, far == 1 ? "" : "s", nfar, nfar == 1 ? "" : "s", e->tps_zone_cm);
         if (below)
             sl_notes_add(&e->notes,
                          "planning system's dose: at %zu sample%s of %zu organ%s outside the "

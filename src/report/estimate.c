@@ -931,6 +931,7 @@ static json_object *json_report(jw *w, const sl_estimate_report *r)
             jw_bool(w, x, "nearest_from_planning_system", d->nearest_from_tps);
             jw_int(w, x, "zone_samples_outside_planning_grid", (long long)d->tps_outside_grid);
             jw_int(w, x, "zone_samples_model_higher", (long long)d->tps_below_model);
+            jw_int(w, x, "zone_samples_far_fields_model_added", (long long)d->tps_far_model);
         }
         jw_num(w, x, "volume_cc", d->volume_cc);
         jw_bool(w, x, "point", d->is_point);

@@ -278,6 +278,39 @@ class FromTheGrid(unittest.TestCase):
         self.assertAlmostEqual(organ(js, "in")["course_max_cgy"],
                                400 * analytic_gy(20.0, 10.0, 0.0), delta=1e-2)
 
+    def test_a_far_field_adds_the_model_to_the_planning_system_dose(self):
+        """Two fields 25 cm apart in one fraction group, a PLAN dose: 'near',
+        1.5 cm beyond the first field's edge, takes the planning system's
+        dose there, and the second field, whose edge lies 13.5 cm away
+        (beyond the 3 cm zone, where a planning system underestimates), adds
+        the model's dose by hand (models/README.md arithmetic, as in
+        test_estimate); the organ in the first field likewise (found by an
+        independent review: the grid's value stood for both fields)."""
+        pts = [(n, (x * 10, z * 10, 0.0)) for n, x, z in POINTS]
+        with tempdir() as d:
+            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0},
+                                         {"number": 2, "energy_mev": 12.0,
+                                          "iso_mm": [250.0, 0.0, 0.0]}],
+                                [{"number": 1, "fractions": N_FX,
+                                  "beams": [(1, MU), (2, MU)]}])
+            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan)
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+        self.assertIn(rc, (0, 4), err)
+        ref = MU * output(12, "A10")["dose_per_mu_cgy"] * N_FX  # cGy over the course
+        for name, x, z in (("in", 2.0, 1.0), ("near", 6.5, 1.0)):
+            dist2, depth2 = point_geometry(abs(x - 25.0), z)
+            self.assertGreater(dist2, 3.0)
+            v2, _ = model_percent(12, "A10", depth2, dist2)
+            want = 100 * analytic_gy(x * 10, z * 10, 0.0) + ref * v2 / 100
+            o = organ(js, name)
+            self.assertEqual(o["dose_source"], "planning system", name)
+            self.assertAlmostEqual(o["course_max_cgy"], want, delta=1e-3, msg=name)
+            self.assertEqual(o["zone_samples_far_fields_model_added"], 1, name)
+        jsonschema.validate(js, json.load(open(SCHEMA)))
+        self.assertTrue(any("with the model's dose added for the fields whose edges lie "
+                            "beyond the 3.0 cm zone" in w for w in js["warnings"]),
+                        js["warnings"])
+
     def test_uneven_frames_are_read_as_they_are(self):
         """Grid Frame Offset Vector with uneven, ordered offsets (legal: DICOM
         PS3.3 C.8.8.3.2 asks only for one offset a frame): interpolation
