@@ -655,21 +655,27 @@ class EstimateAsRtDose(unittest.TestCase):
         self.assertEqual(errors, [], v.stdout + v.stderr)
         self.assertEqual(v.returncode, 0, v.stderr)
 
-    def test_with_the_planning_system_dose(self):
-        """In the field and within the zone the file holds the planning
-        system's (analytic) dose; beyond, the model's as before."""
+    def with_grid(self, **dose):
+        """estimate with the analytic planning-system grid (write_rtdose's
+        options) and --rtdose-out: the JSON report, the file read back, its
+        doses (Gy) and its Dose Grid Scaling."""
         with tempdir() as d:
             pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
             plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
                                 [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
-            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan)
+            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan, **dose)
             out = os.path.join(d, "estimate-dose.dcm")
             rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--rtdose-out", out,
                                    "--rtdose-spacing", "1")
             self.assertIn(rc, (0, 4), err)
             ds = pydicom.dcmread(out)
         scale = float(ds.DoseGridScaling)
-        grid = ds.pixel_array.astype(float) * scale
+        return js, ds, ds.pixel_array.astype(float) * scale, scale
+
+    def test_with_the_planning_system_dose(self):
+        """In the field and within the zone the file holds the planning
+        system's (analytic) dose; beyond, the model's as before."""
+        js, ds, grid, scale = self.with_grid()
         self.assertAlmostEqual(self.voxel(ds, grid, 0.0, 10.0, 0.0), analytic_gy(0, 10, 0),
                                delta=scale * 1.0001)
         self.assertAlmostEqual(self.voxel(ds, grid, 70.0, 10.0, 0.0), analytic_gy(70, 10, 0),
@@ -684,18 +690,7 @@ class EstimateAsRtDose(unittest.TestCase):
         organ), not the grid's 0 (found by an independent review: a viewer
         showed the zone beside the field as unirradiated); in the field it
         holds the grid's."""
-        with tempdir() as d:
-            pts = [(n, (x, y, 0.0)) for n, x, y in self.PTS]
-            plan, ss = box_case(d, pts, [{"number": 1, "energy_mev": 12.0}],
-                                [{"number": 1, "fractions": N_FX, "beams": [(1, MU)]}])
-            rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan, zero_beyond_mm=55.0)
-            out = os.path.join(d, "estimate-dose.dcm")
-            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--rtdose-out", out,
-                                   "--rtdose-spacing", "1")
-            self.assertIn(rc, (0, 4), err)
-            ds = pydicom.dcmread(out)
-        scale = float(ds.DoseGridScaling)
-        grid = ds.pixel_array.astype(float) * scale
+        js, ds, grid, scale = self.with_grid(zero_beyond_mm=55.0)
         p3 = organ(js, "p3")
         self.assertEqual(p3["dose_source"], "model")
         want = p3["course_max_cgy"] / 100
