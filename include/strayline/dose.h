@@ -93,6 +93,25 @@ typedef struct sl_shield {
     double transmission;  /* applied to the electron part of the model only */
 } sl_shield;
 
+/* An organ given as a point that stands for an organ of some size: how
+ * far (cm) the organ may reach from its point toward a field. Its upper
+ * bound then covers the model's value that much nearer each field, and a
+ * point nearer a field than that is not estimated (the organ may lie in
+ * it). */
+typedef struct sl_point_reach {
+    const char *roi;
+    double cm;
+} sl_point_reach;
+
+/* The reach of a cardiac device given as a point, cm: half a pulse
+ * generator's width and a little more (from memory: generators are about
+ * 4 to 5 cm across; leads are not counted). */
+#define SL_POINT_REACH_DEVICE_CM 3.0
+/* A fetus given as a point: half the fundal height, which in cm about
+ * equals the weeks of gestation from 20 weeks on (McDonald's rule, common
+ * obstetric practice), and at least this (the uterus within the pelvis). */
+#define SL_POINT_REACH_FETUS_MIN_CM 5.0
+
 typedef struct sl_estimate_options {
     const sl_model *model;
     sl_eval_mode mode;
@@ -107,6 +126,8 @@ typedef struct sl_estimate_options {
     const sl_rtdose *const *tps;  /* the planning system's doses (borrowed); NULL: none */
     size_t ntps;
     double tps_zone_cm;           /* the seam (default SL_TPS_ZONE_CM) */
+    const sl_point_reach *reach;  /* point organs' reach (borrowed); NULL: none */
+    size_t nreach;
 } sl_estimate_options;
 
 /* The planning system's dose is used within this distance of a field edge
@@ -213,6 +234,8 @@ typedef struct sl_organ_dose {
     bool placed;                  /* every sample placed for every beam */
     double volume_cc;
     bool is_point;
+    double point_reach_cm;        /* a point's reach toward the fields (sl_point_reach); 0:
+                                     none */
     double min_distance_cm;       /* over beams */
     double min_depth_cm, max_depth_cm;
     double nearmax_volume_cc;

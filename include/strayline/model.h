@@ -181,7 +181,9 @@ enum {
     SL_MF_NEAR_EDGE = 64,       /* (dose stage) closer to the field edge than SL_NEAR_EDGE_CM */
     SL_MF_TILT_OUTSIDE = 128,   /* tilt beyond the commissioned tilts: nearest used */
     SL_MF_SSD_OUTSIDE = 256,    /* SSD beyond the commissioned SSDs: nearest used */
-    SL_MF_INVIVO_SCALED = 512   /* the dose was scaled by an in-vivo scale factor */
+    SL_MF_INVIVO_SCALED = 512,  /* the dose was scaled by an in-vivo scale factor */
+    SL_MF_POINT_REACH = 1024    /* (dose stage) an organ given as a point: its upper bound
+                                   covers the organ reaching nearer the field from it */
 };
 
 /* A short text for each flag set, for reports. */

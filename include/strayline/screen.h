@@ -92,6 +92,7 @@ typedef struct sl_screen {
     char **names;
     size_t nnames;
     sl_roi *landmark_rois;
+    sl_point_reach *reach;
 } sl_screen;
 
 /* Screen one plan. Takes ownership of plan and ss (freed with the screen,

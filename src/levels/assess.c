@@ -559,6 +559,12 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
             as->any_flagged |= a->flagged;
             continue;
         }
+        if (d->point_reach_cm > 0)
+            sl_notes_add(&a->advice,
+                         "given as a point: its upper bound covers the organ reaching %.1f cm "
+                         "nearer the field from that point (point reach); give the organ's "
+                         "point nearest the field, or contour it, to narrow it",
+                         d->point_reach_cm);
         /* beyond the model's range, for the nearest beam */
         for (size_t b = 0; b < e->nbeams; b++) {
             /* a landmark is at its measured distance from every beam */

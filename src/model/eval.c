@@ -124,6 +124,9 @@ const char *sl_model_flag_text(unsigned flag)
     case SL_MF_SSD_OUTSIDE:
         return "SSD not commissioned: beyond the commissioned SSDs (nearest used, uncertainty "
                "widened; never below the nominal-SSD estimate at an extended SSD)";
+    case SL_MF_POINT_REACH:
+        return "given as a point: the upper bound covers an organ of its kind reaching nearer "
+               "the field from that point (point reach)";
     case SL_MF_INVIVO_SCALED:
         return "scaled by in-vivo evidence: the model's dose times the in-vivo scale factor of "
                "this energy and applicator (model file invivo_scales; upper bound never below "

@@ -19,7 +19,8 @@ const unsigned est_flags[EST_NFLAGS] = {SL_MF_IN_FIELD,        SL_MF_DEPTH_OUTSI
                                         SL_MF_EXTRAPOLATED,    SL_MF_OPEN_FOR_CUTOUT,
                                         SL_MF_POINTS_MODE,     SL_MF_POOR_FIT,
                                         SL_MF_NEAR_EDGE,       SL_MF_TILT_OUTSIDE,
-                                        SL_MF_SSD_OUTSIDE,     SL_MF_INVIVO_SCALED};
+                                        SL_MF_SSD_OUTSIDE,     SL_MF_INVIVO_SCALED,
+                                        SL_MF_POINT_REACH};
 const char *const est_flag_names[EST_NFLAGS] = {"in_field",
                                                 "depth_outside_commissioned_range",
                                                 "extrapolated",
@@ -29,13 +30,14 @@ const char *const est_flag_names[EST_NFLAGS] = {"in_field",
                                                 "near_field_edge",
                                                 "tilt_not_commissioned",
                                                 "ssd_not_commissioned",
-                                                "scaled_by_invivo_evidence"};
+                                                "scaled_by_invivo_evidence",
+                                                "point_reach"};
 
 /* short marks for the text table; the long ones are the model's flag texts */
 static const char *const mark_short[EST_NFLAGS] = {NULL,         "[depth]",     "[extrapolated]",
                                                    "[stand-in]", NULL,          "[poor fit]",
                                                    "[near edge]", "[tilt]",      "[SSD]",
-                                                   "[in-vivo scale]"};
+                                                   "[in-vivo scale]", "[point reach]"};
 
 void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size)
 {
@@ -61,7 +63,10 @@ const char *est_marks_legend(void)
            "widened); [SSD] SSD not commissioned (nearest used, uncertainty widened, the upper "
            "bound never below the nominal-SSD estimate); [in-vivo scale] the model's dose "
            "scaled by in-vivo evidence (the model file's in-vivo scale factor of that energy "
-           "and applicator; the upper bound never below the unscaled estimate)";
+           "and applicator; the upper bound never below the unscaled estimate); [point reach] "
+           "a device or fetus given as a point: its upper bound covers the organ reaching "
+           "nearer the field from that point (3 cm for a device, half the fundal height for a "
+           "fetus)";
 }
 
 const char *const est_budget_names[EST_NBUDGET] = {

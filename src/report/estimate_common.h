@@ -16,7 +16,7 @@ size_t est_cautions(const sl_estimate_report *r, char out[][EST_CAUTION_LEN], si
 /* The SL_MF_* flags, in a fixed order, with their JSON names. */
 extern const unsigned est_flags[];
 extern const char *const est_flag_names[];
-#define EST_NFLAGS 10
+#define EST_NFLAGS 11
 
 /* An organ's marks, " [extrapolated] [depth] ...", short or spelled out. */
 void est_marks(const sl_organ_dose *d, bool verbose, char *buf, size_t size);

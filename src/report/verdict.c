@@ -375,6 +375,9 @@ void est_case_cautions(const sl_estimate_report *r, sl_notes *out)
         {SL_MF_INVIVO_SCALED, "scaled by in-vivo evidence: the model's dose times the in-vivo "
                               "scale factor (the upper bound never below the unscaled "
                               "estimate)"},
+        {SL_MF_POINT_REACH, "given as a point: the upper bound covers the organ reaching nearer "
+                            "the field from that point (give its point nearest the field, or "
+                            "contour it)"},
     };
     for (size_t k = 0; k < sizeof kinds / sizeof kinds[0]; k++) {
         sl_buf b = {0};

@@ -40,7 +40,44 @@ void sl_screen_free(sl_screen *s)
     free(s->names);
     free(s->landmark_rois);
     free(s->whatifs);
+    free(s->reach);
     free(s);
+}
+
+/* The reach of each ROI of a kind that a point cannot stand for without
+ * one (sl_point_reach): a cardiac device, a fetus. The kind is the one the
+ * assessment will give: --organ's, else the name's. */
+static sl_status point_reaches(sl_screen *s, const sl_screen_request *req, sl_estimate_options *eo,
+                               sl_error *err)
+{
+    const sl_structure_set *ss = s->ss;
+    s->reach = calloc(ss->nrois ? ss->nrois : 1, sizeof *s->reach);
+    if (!s->reach)
+        return sl_error_set(err, SL_ENOMEM, "out of memory");
+    const sl_patient *pt = &req->patient;
+    double ga = isfinite(pt->gestational_weeks) ? pt->gestational_weeks
+                                                : pt->conception_weeks + 2;
+    size_t n = 0;
+    for (size_t i = 0; i < ss->nrois; i++) {
+        const char *name = ss->rois[i].name;
+        const sl_kind *k = NULL;
+        for (size_t m = 0; m < s->nmap && !k; m++)
+            if (strcmp(s->map[m].roi, name) == 0)
+                k = sl_levels_kind(req->levels, s->map[m].kind);
+        if (!k)
+            k = sl_levels_match(req->levels, name);
+        double cm = 0;
+        if (k && strcmp(k->kind, "cardiac_device") == 0)
+            cm = SL_POINT_REACH_DEVICE_CM;
+        else if (k && strcmp(k->kind, "fetus") == 0)
+            /* no age given: at term (a fundal height of 40 cm) */
+            cm = fmax(SL_POINT_REACH_FETUS_MIN_CM, isfinite(ga) ? ga / 2 : 20);
+        if (cm > 0)
+            s->reach[n++] = (sl_point_reach){name, cm};
+    }
+    eo->reach = s->reach;
+    eo->nreach = n;
+    return SL_OK;
 }
 
 static char *keep_name(sl_screen *s, const char *name)
@@ -272,6 +309,8 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
         goto fail;
     lopt.catalogue = s->catalogue;
     eopt.model = req->model;
+    if ((st = point_reaches(s, req, &eopt, err)) != SL_OK)
+        goto fail;
     if ((st = sl_locate(plan, ss, &lopt, &s->loc, err)) != SL_OK)
         goto fail;
     /* an electron field whose central axis misses the body treats no one

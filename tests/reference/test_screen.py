@@ -207,8 +207,9 @@ class Pregnancy(unittest.TestCase):
     more (obstetric convention: common practice)."""
 
     def fetus(self, *opts, ref="1"):
+        # 30 cm off axis: beyond a point fetus's reach at term (20 cm)
         with tempdir() as d:
-            plan, ss = box_case(d, [("Fetus", (200.0, 50.0, 0.0))], E12, ONE)
+            plan, ss = box_case(d, [("Fetus", (300.0, 50.0, 0.0))], E12, ONE)
             rc, js, err = estimate(plan, ss, "--reference-dose", ref, *opts)
         self.assertIsNotNone(js, err)
         return js, organ(js, "Fetus")
@@ -268,11 +269,11 @@ class Pregnancy(unittest.TestCase):
         self.assertIn("--weeks-after-conception", out)
 
     def test_fetus_rise_re_estimates_nearer_the_field(self):
-        """A fetus 20 cm below (inferior to) a field re-estimated 5 cm toward
+        """A fetus 28 cm below (inferior to) a field re-estimated 5 cm toward
         the head is nearer the field edge and gets more dose (the fetus rises
         toward the diaphragm: Med Phys 35:3054 (2008), published)."""
         with tempdir() as d:
-            plan, ss = box_case(d, [("Fetus", (0.0, 50.0, -200.0))], E12, ONE)
+            plan, ss = box_case(d, [("Fetus", (0.0, 50.0, -280.0))], E12, ONE)
             rc, js, err = estimate(plan, ss, "--reference-dose", "100", "--gestational-age", "20",
                                    "--fetus-rise", "5")
         self.assertIsNotNone(js, err)
@@ -288,7 +289,8 @@ class DeviceTables(unittest.TestCase):
     """Item 5: a device at 1, 3, 6 and 11 Gy, pacing-dependent or not."""
 
     def band(self, course_cgy, levels, *extra, photon=None):
-        x, z, nfx = 9.0, 1.0, 30
+        # 12 cm off axis: the point's reach (3 cm) stays clear of the edge
+        x, z, nfx = 12.0, 1.0, 30
         dist, depth = point_geometry(x, z)
         v, _ = model_percent(12, "A10", depth, dist)
         with tempdir() as d:
@@ -344,7 +346,7 @@ class DeviceTables(unittest.TestCase):
         """The Dutch table has no neutron rule: a device beside an 18 MV
         photon beam stays flagged even with the photon dose added (the
         cautious side; TG-203 rates such a treatment high, from memory)."""
-        x, z = 9.0, 1.0
+        x, z = 12.0, 1.0
         with tempdir() as d:
             beams = E12 + [{"number": 2, "radiation_type": "PHOTON", "energy_mev": 18.0,
                             "applicator": None}]
