@@ -276,12 +276,14 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
         return sl_error_set(err, SL_EINTERNAL, "screen: no model or action levels");
     }
     /* fetus copies: at most one per ROI of the scan */
-    size_t maxmap = req->nmap + req->npoints + req->nlandmarks + ss->nrois;
-    size_t maxwhat = req->estimate.nshields + 5 + ss->nrois;
+    /* and of each fetus landmark */
+    size_t maxmap = req->nmap + req->npoints + 2 * req->nlandmarks + ss->nrois;
+    size_t maxwhat = req->estimate.nshields + 5 + ss->nrois + req->nlandmarks;
     s->map = calloc(maxmap ? maxmap : 1, sizeof *s->map);
-    s->names = calloc(ss->nrois ? ss->nrois : 1, sizeof *s->names);
+    s->names = calloc(ss->nrois + req->nlandmarks + 1, sizeof *s->names);
     s->whatifs = calloc(maxwhat, sizeof *s->whatifs);
-    s->landmark_rois = calloc(req->nlandmarks ? req->nlandmarks : 1, sizeof *s->landmark_rois);
+    s->landmark_rois =
+        calloc(req->nlandmarks ? 2 * req->nlandmarks : 1, sizeof *s->landmark_rois);
     sl_status st = SL_OK;
     if (!s->map || !s->names || !s->whatifs || !s->landmark_rois) {
         st = sl_error_set(err, SL_ENOMEM, "out of memory");
@@ -333,9 +335,10 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
     record_no_bolus(s);
     if ((st = sl_estimate_doses(plan, ss, s->loc, &eopt, &s->est, err)) != SL_OK)
         goto fail;
+    size_t nlm = 0;
     for (size_t i = 0; i < req->nlandmarks; i++) {
         const sl_screen_landmark *l = &req->landmarks[i];
-        sl_roi *roi = &s->landmark_rois[i];
+        sl_roi *roi = &s->landmark_rois[nlm++];
         roi->number = -1;
         roi->name = (char *)l->name;
         roi->type = "MARKER";
@@ -343,6 +346,33 @@ sl_status sl_screen_run(sl_plan *plan, sl_structure_set *ss, const sl_screen_req
             SL_OK)
             goto fail;
         s->map[s->nmap++] = (sl_organ_map){l->name, l->kind};
+        /* a fetus measured on the patient risen toward the head: which way
+         * the head lies from the field a distance does not say, so the copy
+         * is taken that much nearer the field (found by an independent
+         * review: the option was silently left out for a landmark) */
+        double rise = req->patient.fetus_rise_cm;
+        if (!(rise > 0) || strcmp(l->kind, "fetus") != 0)
+            continue;
+        char buf[400];
+        snprintf(buf, sizeof buf, "%s (what-if: %g cm nearer the field)", l->name, rise);
+        sl_roi *copy = &s->landmark_rois[nlm++];
+        copy->number = -1;
+        copy->name = keep_name(s, buf);
+        copy->type = "MARKER";
+        if (!copy->name) {
+            st = sl_error_set(err, SL_ENOMEM, "out of memory");
+            goto fail;
+        }
+        if ((st = sl_estimate_add_landmark(s->est, copy, fmax(l->distance_cm - rise, 0),
+                                           l->depth_cm, err)) != SL_OK)
+            goto fail;
+        s->map[s->nmap++] = (sl_organ_map){copy->name, "fetus"};
+        sl_whatif *w = add_whatif(s, SL_WHATIF_FETUS_RISE, copy->name);
+        snprintf(w->text, sizeof w->text,
+                 "what-if fetus position: '%s' is a copy of the landmark '%s' taken %.1f cm "
+                 "nearer the field (a distance measured on the patient does not say where the "
+                 "head lies)",
+                 copy->name, l->name, rise);
     }
     sl_patient patient = req->patient;
     for (size_t i = 0; i < req->npoints; i++)

@@ -268,6 +268,30 @@ class Pregnancy(unittest.TestCase):
         self.assertIn("last menstrual period", out)
         self.assertIn("--weeks-after-conception", out)
 
+    def test_fetus_rise_applies_to_a_landmark_too(self):
+        """A fetus measured on the patient (--landmark, 30 cm from the
+        edge, 8 cm deep) with --fetus-rise 10: a what-if copy 10 cm nearer
+        the field (a distance does not say where the head lies), whose dose
+        is a landmark's at 20 cm, and the what-if banner (found by an
+        independent review: the option was silently left out)."""
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Lens_L", (300.0, 10.0, 0.0))], E12, ONE)
+            rc, js, err = estimate(plan, ss, "--gestational-age", "24", "--landmark",
+                                   "FetusLM=fetus:30:8", "--fetus-rise", "10")
+            rc2, js2, err2 = estimate(plan, ss, "--gestational-age", "24", "--landmark",
+                                      "FetusLM=fetus:20:8")
+        self.assertIsNotNone(js, err)
+        copy = organ(js, "FetusLM (what-if: 10 cm nearer the field)")
+        self.assertTrue(copy["what_if"])
+        self.assertEqual(copy["kind"], "fetus")
+        self.assertEqual(copy["min_distance_cm"], 20)
+        self.assertAlmostEqual(copy["course_max_cgy"], organ(js2, "FetusLM")["course_max_cgy"],
+                               delta=1e-9)
+        self.assertFalse(organ(js, "FetusLM")["what_if"])
+        self.assertFalse(js["result"]["plan_as_delivered"])
+        self.assertEqual([w["roi"] for w in js["result"]["what_ifs"]],
+                         ["FetusLM (what-if: 10 cm nearer the field)"])
+
     def test_fetus_rise_re_estimates_nearer_the_field(self):
         """A fetus 28 cm below (inferior to) a field re-estimated 5 cm toward
         the head is nearer the field edge and gets more dose (the fetus rises
