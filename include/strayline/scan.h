@@ -130,6 +130,12 @@ typedef struct sl_facts {
 
 sl_status sl_facts_load(const char *path, sl_facts **out, sl_error *err);
 void sl_facts_free(sl_facts *f);
+/* Every organ kind the facts name is a kind of the action-level table;
+ * else an input error naming the facts file, the entry and the kind (found
+ * by an independent review: a misspelt kind failed each plan later as if
+ * given by --organ). */
+sl_status sl_facts_check_kinds(const sl_facts *f, const sl_levels *levels,
+                               const char *levels_path, sl_error *err);
 /* The facts for a plan: by plan UID first, then by patient ID; NULL. */
 const sl_facts_entry *sl_facts_find(const sl_facts *f, const char *plan_uid,
                                     const char *patient_id);

@@ -301,6 +301,7 @@ int sl_cmd_listen(int argc, char **argv)
     if (sl_model_load(model_path, &model, &err) != SL_OK ||
         sl_levels_load(levels_path, &levels, &err) != SL_OK ||
         (facts_path && sl_facts_load(facts_path, &facts, &err) != SL_OK) ||
+        sl_facts_check_kinds(facts, levels, levels_path, &err) != SL_OK ||
         sl_screenlog_open(log_path, true, &log, &err) != SL_OK) {
         rc = sl_cli_fail(&err);
         goto done;

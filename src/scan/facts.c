@@ -202,6 +202,22 @@ static sl_status read_entry(sl_yaml *y, yaml_node_t *n, sl_facts_entry *e, sl_er
     return st;
 }
 
+sl_status sl_facts_check_kinds(const sl_facts *f, const sl_levels *levels,
+                               const char *levels_path, sl_error *err)
+{
+    for (size_t i = 0; f && i < f->n; i++) {
+        const sl_facts_entry *e = &f->items[i];
+        for (size_t m = 0; m < e->nmap; m++)
+            if (!sl_levels_kind(levels, e->map[m].kind))
+                return sl_error_set(err, SL_EINPUT,
+                                    "%s: entry '%s': organs: ROI '%s' is given kind '%s', which "
+                                    "is not a kind of %s",
+                                    f->source, e->key, e->map[m].roi, e->map[m].kind,
+                                    levels_path ? levels_path : "the action-level table");
+    }
+    return SL_OK;
+}
+
 sl_status sl_facts_load(const char *path, sl_facts **out, sl_error *err)
 {
     *out = NULL;

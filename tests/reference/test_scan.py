@@ -907,6 +907,23 @@ class BadInput(unittest.TestCase):
             self.assertEqual(rc, 3)
             self.assertIn("facts.yaml:4:", err)
 
+    def test_facts_kind_unknown_is_refused_at_once(self):
+        """An organ kind the action-level table lacks (a typo) refuses the
+        facts file before any plan, naming the file, the entry and the kind
+        (found by an independent review: each plan failed later, the
+        message naming a command-line --organ)."""
+        with tempdir() as d:
+            facts = os.path.join(d, "facts.yaml")
+            with open(facts, "w") as f:
+                f.write("format: strayline-patient-facts\npatients:\n  - key: A\n"
+                        "    organs:\n      - roi: Pacemaker\n        kind: cardiac_devise\n")
+            rc, out, err = scan(os.path.join(EXAMPLES, "face-lens"), os.path.join(d, "out"),
+                                "--facts", facts)
+            self.assertEqual(rc, 3)
+            self.assertIn("facts.yaml: entry 'A': organs: ROI 'Pacemaker' is given kind "
+                          "'cardiac_devise', which is not a kind of", err)
+            self.assertFalse(os.path.exists(os.path.join(d, "out", "summary.json")))
+
     def test_output_folder_inside_the_export_is_not_read(self):
         with tempdir() as d:
             src = os.path.join(d, "in")
