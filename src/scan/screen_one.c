@@ -178,6 +178,21 @@ static bool collect(const sl_assessments *as, sl_batch_entry *e)
             e->message = xstrdup(buf, &ok);
         }
     }
+    for (size_t i = 0; i < as->n && !e->message; i++) {
+        const sl_assessment *a = &as->items[i];
+        /* a device judged as for a pacing-dependent patient because nobody
+         * said: the fact to supply, as for a fetus's age (found by an
+         * independent review) */
+        if (a->pacing_assumed && a->flagged) {
+            snprintf(buf, sizeof buf,
+                     "ROI '%s' is a cardiac device and pacing dependence was not given: it is "
+                     "judged as for a pacing-dependent patient (the higher band); supply "
+                     "pacing_dependent for patient ID '%s' (or plan UID %s) in the facts file "
+                     "(--facts)",
+                     a->dose->roi->name, e->patient_id ? e->patient_id : "", e->plan_uid);
+            e->message = xstrdup(buf, &ok);
+        }
+    }
     if (as->any_flagged && e->nflagged == 0) {
         /* flagged for something asked for and absent (a fetus, a device) */
         free(e->worst_status);

@@ -378,9 +378,13 @@ class PacingDependenceInABatch(unittest.TestCase):
                 bands[name] = (dev["band"]["name"], rep["patient"]["pacing_dependence_stated"],
                                any("pacing dependence not stated" in c
                                    for c in rep["result"]["case_cautions"]),
-                               log_rows(os.path.join(out, "screening.sqlite"))[0]["options"])
+                               log_rows(os.path.join(out, "screening.sqlite"))[0]["options"],
+                               plan["message"] or "")
             self.assertEqual(bands["none"][:3], ("medium", False, True))
             self.assertEqual(bands["false"][:3], ("low", True, False))
+            # the summary says which fact to supply, as for a fetus's age
+            self.assertIn("supply pacing_dependent for patient ID '%s'" % pid, bands["none"][4])
+            self.assertNotIn("pacing_dependent", bands["false"][4])
             self.assertIn("not pacing_dependent", bands["false"][3])
 
 
