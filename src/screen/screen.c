@@ -166,6 +166,7 @@ static void point_sanity(sl_screen *s, size_t nscan, const sl_screen_request *re
     const sl_location *loc = s->loc;
     for (size_t i = 0; i < req->npoints; i++) {
         const sl_screen_point *p = &req->points[i];
+        bool inside_body = false;
         for (size_t o = 0; o < loc->norgans; o++) {
             if (strcmp(loc->rois[o]->name, p->name) != 0 || loc->nbeams == 0)
                 continue;
@@ -174,7 +175,15 @@ static void point_sanity(sl_screen *s, size_t nscan, const sl_screen_request *re
                              "point '%s' (%.1f, %.1f, %.1f mm) lies outside the body contour: "
                              "check its coordinates and unit",
                              p->name, p->mm.x, p->mm.y, p->mm.z);
+            else if (loc->external)
+                inside_body = true;
         }
+        /* inside the body the point is where a body is: far from every
+         * contour's vertices is no sign of a wrong unit there (found by an
+         * independent review: a point mid-abdomen drew the warning, which
+         * teaches users to ignore it) */
+        if (inside_body)
+            continue;
         double best = INFINITY;
         for (size_t r = 0; r < nscan; r++) {
             const sl_roi *roi = &s->ss->rois[r];
