@@ -73,13 +73,15 @@ extern "C" {
  * decimal string, not a tolerance (a plan that states a dose 2 % above the
  * MU's reads 2 % higher) */
 #define SL_BEAM_DOSE_RAISE_ABOVE 0.001
-/* A planning system's dose (--tps-dose) whose maximum is below this share
- * of the course dose the plan gives at a beam's reference point (reference
- * dose x fractions) is refused: a dose of one fraction, of another plan
- * version, or scaled wrongly would lower every organ judged on it (common
- * practice: an electron field's grid maximum lies within a few percent of
- * its central-axis maximum; a plan of two fractions exported per fraction
- * reads 0.5). Above SL_TPS_MAX_ABOVE times it, a warning. */
+/* A planning system's dose (--tps-dose) that reads below this share of the
+ * course dose the plan's beams give at a beam's reference point (on its
+ * central axis at the depth of maximum: the reference doses x fractions of
+ * every beam whose field holds the point) is not used in the fields, where
+ * it would stand alone, and the organs there are not judged: a dose of one
+ * fraction, of another plan version, or scaled wrongly (common practice: an
+ * electron field's dose at its reference point is its reference dose; a
+ * plan of two fractions exported per fraction reads 0.5). Above
+ * SL_TPS_MAX_ABOVE times it, a warning. */
 #define SL_TPS_MAX_BELOW 0.7
 #define SL_TPS_MAX_ABOVE 2.0
 /* SSDs accepted around the model's nominal SSD, cm (common practice: the
@@ -284,6 +286,8 @@ typedef struct sl_estimate {
     size_t norgans;
     sl_organ_dose *organs;        /* one per organ of the location */
     bool tps_used;                /* the planning system's dose was combined */
+    bool tps_low;                 /* it reads low at a beam's reference point: its doses in
+                                     the fields are not used (the organs there not judged) */
     double tps_zone_cm;
     size_t nratios;
     sl_tps_ratio *ratios;         /* rows with samples only */

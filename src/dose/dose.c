@@ -851,6 +851,11 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             for (size_t f = 0; f < e->opt.ntps && !isnan(sum); f++)
                 sum += sl_rtdose_at(e->opt.tps[f], q.x * 10, q.y * 10, q.z * 10);
             tv[i] = sum * 100; /* Gy over the course to cGy */
+            if (dmin[i] < 0 && e->tps_low) {
+                od->excluded_why = "in the field, where the planning system's dose reads below "
+                                   "the course dose the plan gives (see the warning): not judged";
+                goto done;
+            }
             if (dmin[i] < 0 && !(tv[i] > 0)) {
                 /* in the field (under a shielding block too) a grid that
                  * reads 0 was cut at a threshold or cropped: not a dose
@@ -1120,6 +1125,17 @@ static void organ_task(size_t o, void *ctx)
     j->status[o] = organ_task_run(j->e, o);
 }
 
+/* Does a planning-system dose hold this beam (a PLAN dose holds all)? */
+static bool tps_has_beam(const sl_rtdose *d, int number)
+{
+    if (d->summation == SL_RTDOSE_PLAN)
+        return true;
+    for (size_t k = 0; k < d->nbeams; k++)
+        if (d->beams[k] == number)
+            return true;
+    return false;
+}
+
 /* The planning system's doses must belong to the plan and cover each
  * placed beam exactly once (one PLAN dose, or BEAM doses), and the plan
  * have one fraction group, so that its course dose divides into fractions. */
@@ -1159,45 +1175,73 @@ static sl_status check_tps(sl_estimate *e, const sl_plan *plan, const sl_locatio
                                     num, plan->source, times);
         }
     }
-    /* each dose against the course dose the plan gives at its beams'
-     * reference points: the grid is used as it is in and near the fields,
-     * so a grid of one fraction (found by an independent review: a lens in
-     * the field passed at a fifth of its dose) or of another scaling is
-     * refused rather than judged on */
+    /* each dose at each of its beams' reference points (on the central
+     * axis at the depth of maximum) against the course dose there of every
+     * beam of that dose whose field holds the point: the grid is used as it
+     * is in the fields, so a grid of one fraction (found by independent
+     * reviews: a lens in the field passed at a fifth of its dose, and with
+     * three beams over one field a per-fraction grid read as one beam's
+     * course), of another plan version or scaled wrongly must not be judged
+     * on there. The reference doses err high by design (a stand-in cutout
+     * factor of 1, --reference-dose), so a grid reading low is not refused:
+     * its in-field doses are not used, and the organs there are not judged.
+     * Where a reference point lies off the grid, the grid's maximum against
+     * the largest single beam's course dose. */
     for (size_t f = 0; f < opt->ntps; f++) {
         const sl_rtdose *d = opt->tps[f];
-        double want_gy = 0;
-        int want_beam = 0;
         for (size_t b = 0; b < e->nbeams; b++) {
-            int num = e->beams[b].place->beam->number;
-            bool in = d->summation == SL_RTDOSE_PLAN;
-            for (size_t k = 0; !in && k < d->nbeams; k++)
-                in = d->beams[k] == num;
-            double gy = e->beams[b].ref_cgy[0] * e->fractions[0] / 100;
-            if (in && isfinite(gy) && gy > want_gy) {
-                want_gy = gy;
-                want_beam = num;
+            const sl_beam_dose *bd = &e->beams[b];
+            const sl_beam_place *bp = bd->place;
+            if (!tps_has_beam(d, bp->beam->number) || !bp->entry_found ||
+                !isfinite(bd->dmax_cm))
+                continue;
+            sl_vec3 dir = sl_frame_direction(&bp->frame);
+            sl_vec3 p = {bp->entry_cm.x + bd->dmax_cm * dir.x, bp->entry_cm.y + bd->dmax_cm * dir.y,
+                         bp->entry_cm.z + bd->dmax_cm * dir.z};
+            double want_gy = 0;
+            for (size_t c = 0; c < e->nbeams; c++) {
+                const sl_beam_dose *cd = &e->beams[c];
+                const sl_beam_place *cp = cd->place;
+                sl_vec2 uv;
+                double scale;
+                if (!tps_has_beam(d, cp->beam->number) || !isfinite(cd->ref_cgy[0]) ||
+                    !sl_frame_project(&cp->frame, sl_frame_to_bld(&cp->frame, p), &uv, &scale) ||
+                    !(scale * sl_field_distance(&cp->field, uv) < 0))
+                    continue;
+                want_gy += cd->ref_cgy[0] * e->fractions[0] / 100;
+            }
+            double got_gy = sl_rtdose_at(d, p.x * 10, p.y * 10, p.z * 10);
+            const char *where = "at its reference point";
+            if (isnan(got_gy)) {
+                /* off the grid: its maximum against this beam alone */
+                got_gy = d->max_gy;
+                want_gy = isfinite(bd->ref_cgy[0]) ? bd->ref_cgy[0] * e->fractions[0] / 100 : 0;
+                where = "at its maximum (the beam's reference point lies off the grid)";
+            }
+            if (!(want_gy > 0))
+                continue;
+            double ratio = got_gy / want_gy;
+            if (!(ratio >= SL_TPS_MAX_BELOW) && !e->tps_low) {
+                e->tps_low = true;
+                sl_notes_add(&e->notes,
+                             "%s: beam %d: the planning system's dose %s reads %.4g Gy, %.2f "
+                             "times the course dose the plan's beams give there by this "
+                             "estimate (%.4g Gy: reference doses x %d fractions): a dose of one "
+                             "fraction, of another plan version or with a wrong Dose Grid "
+                             "Scaling (3004,000E), or a reference dose here too high; its doses "
+                             "in the fields are not used, and organs there are not judged: check "
+                             "the RT Dose is the plan's whole course",
+                             d->source, bp->beam->number, where, got_gy, ratio, want_gy,
+                             e->fractions[0]);
+            } else if (ratio > SL_TPS_MAX_ABOVE) {
+                sl_notes_add(&e->notes,
+                             "%s: beam %d: the planning system's dose %s reads %.4g Gy, %.2f "
+                             "times the course dose the plan's beams give there by this "
+                             "estimate (%.4g Gy): check its Dose Grid Scaling and that it is "
+                             "this plan's (organs judged on it read high)",
+                             d->source, bp->beam->number, where, got_gy, ratio, want_gy);
             }
         }
-        if (!(want_gy > 0))
-            continue;
-        double ratio = d->max_gy / want_gy;
-        if (!(ratio >= SL_TPS_MAX_BELOW))
-            return sl_error_set(err, SL_EINPUT,
-                                "%s: its dose peaks at %.4g Gy, %.2f times the course dose the "
-                                "plan gives at beam %d's reference point (%.4g Gy: its reference "
-                                "dose x %d fractions): a dose of one fraction, of another plan "
-                                "version or with a wrong Dose Grid Scaling (3004,000E) would "
-                                "lower the organs judged on it; give the plan's whole course "
-                                "dose",
-                                d->source, d->max_gy, ratio, want_beam, want_gy,
-                                e->fractions[0]);
-        if (ratio > SL_TPS_MAX_ABOVE)
-            sl_notes_add(&e->notes,
-                         "%s: its dose peaks at %.4g Gy, %.2f times the course dose the plan "
-                         "gives at beam %d's reference point (%.4g Gy): check its Dose Grid "
-                         "Scaling and that it is this plan's (organs judged on it read high)",
-                         d->source, d->max_gy, ratio, want_beam, want_gy);
     }
     e->tps_used = true;
     e->tps_zone_cm = opt->tps_zone_cm;

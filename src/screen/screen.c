@@ -60,12 +60,13 @@ static sl_status point_reaches(sl_screen *s, const sl_screen_request *req, sl_es
     size_t n = 0;
     for (size_t i = 0; i < ss->nrois; i++) {
         const char *name = ss->rois[i].name;
-        const sl_kind *k = NULL;
-        for (size_t m = 0; m < s->nmap && !k; m++)
+        /* the last mapping of a ROI wins, as in the assessment (found by an
+         * independent review: the first was taken here, and a device mapped
+         * twice lost its reach) */
+        const sl_kind *k = sl_levels_match(req->levels, name);
+        for (size_t m = 0; m < s->nmap; m++)
             if (strcmp(s->map[m].roi, name) == 0)
                 k = sl_levels_kind(req->levels, s->map[m].kind);
-        if (!k)
-            k = sl_levels_match(req->levels, name);
         double cm = 0;
         if (k && strcmp(k->kind, "cardiac_device") == 0)
             cm = SL_POINT_REACH_DEVICE_CM;
