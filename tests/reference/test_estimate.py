@@ -1562,6 +1562,18 @@ class ReviewFindings(unittest.TestCase):
                                organ(js, "Lens_L")["course_max_cgy"]
                                + 2 * organ(js, "Lens_L")["course_max_u_cgy"], delta=1e-6)
         jsonschema.validate(js, json.load(open(SCHEMA)))
+        # a point mapped twice takes the last kind, as the assessment does
+        # (found by an independent review: the first was taken here)
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Gen1", (x * 10, z * 10, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 25, "beams": [(1, 140.0)]}])
+            rc, js, err = estimate(plan, ss, "--not-pacing-dependent", "--organ",
+                                   "Gen1=other_organ", "--organ", "Gen1=cardiac_device")
+        gen = organ(js, "Gen1")
+        self.assertEqual(gen["kind"], "cardiac_device")
+        self.assertIn("point_reach", gen["flags"])
+        self.assertGreaterEqual(gen["course_max_upper_cgy"], ref * v_reach / 100)
         with tempdir() as d:
             plan, ss = box_case(d, [("Pacemaker", (75.0, 10.0, 0.0))],
                                 [{"number": 1, "energy_mev": 12.0}],
