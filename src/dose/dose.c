@@ -1073,7 +1073,9 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             od->max_sample = imax;
             memset(&od->course_max_budget, 0, sizeof od->course_max_budget);
             od->course_max_budget.combined_cgy = uc[imax];
-            od->electron_fraction = 1;
+            /* all electrons near a field's edge, but the far fields' share
+             * added to it is their own (mostly photons) */
+            od->electron_fraction = dv[imax] > 0 ? fmin(ec[imax] / dv[imax], 1) : 1;
             od->max_from_tps = true;
         } else if (pass < 0) {
             od->max_sample = imax;

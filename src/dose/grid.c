@@ -47,7 +47,7 @@ static void grid_slice(size_t k, void *ctx)
             *out = 0;
             if (!sl_body_contains(j->body, p))
                 continue;
-            double dmin = INFINITY, course = 0;
+            double dmin = INFINITY, course = 0, far = 0;
             bool placed = true;
             for (size_t b = 0; b < e->nbeams && placed; b++) {
                 const sl_beam_dose *bd = &e->beams[b];
@@ -74,16 +74,26 @@ static void grid_slice(size_t k, void *ctx)
                 /* the grid holds doses only: the model's percent without its
                  * uncertainty components (sl_beam_eval's extra bound is one) */
                 double pc = sl_curves_eval_percent(bd->curves, &qq);
+                double cb = 0;
                 for (size_t gr = 0; gr < e->ngroups; gr++)
                     if (isfinite(bd->ref_cgy[gr]))
-                        course += e->fractions[gr] * bd->ref_cgy[gr] / 100 * pc;
+                        cb += e->fractions[gr] * bd->ref_cgy[gr] / 100 * pc;
+                course += cb;
+                /* a field whose edge lies beyond the zone: added to the
+                 * planning system's dose, as for an organ (dose.c) */
+                if (dist >= e->tps_zone_cm)
+                    far += cb;
             }
             if (!placed)
                 continue;
-            if (e->tps_used && dmin < e->tps_zone_cm) {
+            /* a grid reading low at a reference point is not used in the
+             * fields (dose.c, check_tps) */
+            if (e->tps_used && dmin < e->tps_zone_cm &&
+                !(e->tps_low && dmin < SL_IN_FIELD_MARGIN_CM)) {
                 double sum = 0;
                 for (size_t f = 0; f < e->opt.ntps && !isnan(sum); f++)
                     sum += sl_rtdose_at(e->opt.tps[f], p.x * 10, p.y * 10, p.z * 10);
+                sum += far / 100; /* cGy to Gy */
                 /* outside the fields the higher of the two, as for an
                  * organ (dose.c): a grid cropped or cut at a threshold
                  * reads 0 there, and the file must not show less than the

@@ -583,9 +583,13 @@ sl_status sl_assess_with(const sl_levels *lv, const sl_estimate *e, const sl_pat
         if (d->near_edge && a->status != SL_ST_NOT_ASSESSED && a->kind &&
             (a->kind->nlevels || a->kind->nbands)) {
             a->status = SL_ST_NOT_ASSESSED;
-            a->not_assessed_why = "near the field edge (closer than 1 cm): the planning system's "
-                                  "dose is the reference here; the model's value is shown, not "
-                                  "judged";
+            a->not_assessed_why =
+                d->point_reach_cm > 0 && d->min_distance_cm >= SL_NEAR_EDGE_CM
+                    ? "given as a point, and an organ of its kind around it may reach within 1 "
+                      "cm of the field edge (point reach): the planning system's dose is the "
+                      "reference there; the model's value is shown, not judged"
+                    : "near the field edge (closer than 1 cm): the planning system's dose is "
+                      "the reference here; the model's value is shown, not judged";
         }
         /* a dose from elsewhere adds to the estimate and to its upper bound */
         double gy = (d->course_max.cgy + a->other_cgy) / 100,

@@ -1572,6 +1572,18 @@ class ReviewFindings(unittest.TestCase):
                                    "Gen1=other_organ", "--organ", "Gen1=cardiac_device")
         gen = organ(js, "Gen1")
         self.assertEqual(gen["kind"], "cardiac_device")
+        # 3.5 cm from the edge: its reach comes within 1 cm, not judged, and
+        # the reason names the reach, not a distance it does not have
+        with tempdir() as d:
+            plan, ss = box_case(d, [("Pacemaker", (85.5, 10.0, 0.0))],
+                                [{"number": 1, "energy_mev": 12.0}],
+                                [{"number": 1, "fractions": 25, "beams": [(1, 140.0)]}])
+            rc2, js2, err2 = estimate(plan, ss, "--not-pacing-dependent")
+        near = organ(js2, "Pacemaker")
+        self.assertGreater(near["min_distance_cm"], 3)
+        self.assertEqual(near["status"], "not_assessed")
+        self.assertIn("may reach within 1 cm of the field edge (point reach)",
+                      near["not_estimated_reason"])
         self.assertIn("point_reach", gen["flags"])
         self.assertGreaterEqual(gen["course_max_upper_cgy"], ref * v_reach / 100)
         with tempdir() as d:

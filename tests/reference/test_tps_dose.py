@@ -329,9 +329,23 @@ class FromTheGrid(unittest.TestCase):
                                 [{"number": 1, "fractions": N_FX,
                                   "beams": [(1, MU), (2, MU)]}])
             rtd = write_rtdose(os.path.join(d, "rtdose.dcm"), plan)
-            rc, js, err = estimate(plan, ss, "--tps-dose", rtd)
+            out = os.path.join(d, "estimate-dose.dcm")
+            rc, js, err = estimate(plan, ss, "--tps-dose", rtd, "--rtdose-out", out,
+                                   "--rtdose-spacing", "1")
+            ds = pydicom.dcmread(out)
         self.assertIn(rc, (0, 4), err)
         ref = MU * output(12, "A10")["dose_per_mu_cgy"] * N_FX  # cGy over the course
+        # the exported grid holds the same sum (the voxel at 7 cm, 1 cm deep)
+        scale = float(ds.DoseGridScaling)
+        grid = ds.pixel_array.astype(float) * scale
+        dist2, depth2 = point_geometry(25.0 - 7.0, 1.0)
+        v2, _ = model_percent(12, "A10", depth2, dist2)
+        want = analytic_gy(70.0, 10.0, 0.0) + ref * v2 / 100 / 100
+        got = EstimateAsRtDose.voxel(self, ds, grid, 70.0, 10.0, 0.0)
+        self.assertGreaterEqual(got, want - 1e-9)
+        self.assertLessEqual(got, want + scale * 1.0001)
+        # the far field's share is its own, not all electrons
+        self.assertLess(organ(js, "in")["electron_fraction"], 1)
         for name, x, z in (("in", 2.0, 1.0), ("near", 6.5, 1.0)):
             dist2, depth2 = point_geometry(abs(x - 25.0), z)
             self.assertGreater(dist2, 3.0)
