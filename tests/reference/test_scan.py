@@ -900,14 +900,19 @@ class BadInput(unittest.TestCase):
             self.assertIn("absent", err)
             self.assertEqual(out, "")
 
+    @staticmethod
+    def scan_with_facts(d, entry):
+        """scan of the face-lens case with a facts file of one entry 'A'
+        (its lines after the key)."""
+        facts = os.path.join(d, "facts.yaml")
+        with open(facts, "w") as f:
+            f.write("format: strayline-patient-facts\npatients:\n  - key: A\n" + entry)
+        return scan(os.path.join(EXAMPLES, "face-lens"), os.path.join(d, "out"),
+                    "--facts", facts)
+
     def test_facts_file_errors_name_the_line(self):
         with tempdir() as d:
-            facts = os.path.join(d, "facts.yaml")
-            with open(facts, "w") as f:
-                f.write("format: strayline-patient-facts\npatients:\n  - key: A\n"
-                        "    gestational_age_weeks: 99\n")
-            rc, out, err = scan(os.path.join(EXAMPLES, "face-lens"), os.path.join(d, "out"),
-                                "--facts", facts)
+            rc, out, err = self.scan_with_facts(d, "    gestational_age_weeks: 99\n")
             self.assertEqual(rc, 3)
             self.assertIn("facts.yaml:4:", err)
 
@@ -917,12 +922,8 @@ class BadInput(unittest.TestCase):
         (found by an independent review: each plan failed later, the
         message naming a command-line --organ)."""
         with tempdir() as d:
-            facts = os.path.join(d, "facts.yaml")
-            with open(facts, "w") as f:
-                f.write("format: strayline-patient-facts\npatients:\n  - key: A\n"
-                        "    organs:\n      - roi: Pacemaker\n        kind: cardiac_devise\n")
-            rc, out, err = scan(os.path.join(EXAMPLES, "face-lens"), os.path.join(d, "out"),
-                                "--facts", facts)
+            rc, out, err = self.scan_with_facts(
+                d, "    organs:\n      - roi: Pacemaker\n        kind: cardiac_devise\n")
             self.assertEqual(rc, 3)
             self.assertIn("facts.yaml: entry 'A': organs: ROI 'Pacemaker' is given kind "
                           "'cardiac_devise', which is not a kind of", err)
