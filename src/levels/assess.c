@@ -149,17 +149,30 @@ static void advise(sl_assessment *a, const sl_patient *pt, double level_gy)
     bool over = a->status == SL_ST_EXCEEDS || a->status == SL_ST_MAY_EXCEED ||
                 (a->status == SL_ST_BAND && (a->band >= 1 || a->band_upper >= 1));
     if (over) {
-        if (d->electron_fraction > 0.5) {
+        /* a point's electron share is its own: its bound comes from nearer
+         * the field, where electrons weigh more, so a shield is not said to
+         * remove little */
+        bool reach = d->point_reach_cm > 0 && d->electron_fraction <= 0.5;
+        if (d->electron_fraction > 0.5 || reach) {
             a->shield_advised = true;
             a->shield_energy_mev = d->max_energy_mev;
             a->lead_mm = sl_lead_mm(d->max_energy_mev);
             a->alloy_mm = sl_alloy_mm(d->max_energy_mev);
+            char share[160];
+            if (reach)
+                snprintf(share, sizeof share,
+                         "given as a point, and nearer the field, where its bound comes from, "
+                         "electrons may dominate (%.0f %% at the point)",
+                         100 * d->electron_fraction);
+            else
+                snprintf(share, sizeof share, "most of this dose (%.0f %%) is from electrons",
+                         100 * d->electron_fraction);
             sl_notes_add(&a->advice,
-                         "shield: most of this dose (%.0f %%) is from electrons: at least %.1f mm "
-                         "of lead over the organ for %g MeV (E/2 mm, Radiother Oncol 80:391 "
-                         "(2006), plus a 1 mm margin, textbook rule), or about %.1f mm of "
-                         "low-melting-point alloy (1.2 x lead, from memory)",
-                         100 * d->electron_fraction, a->lead_mm, d->max_energy_mev, a->alloy_mm);
+                         "shield: %s: at least %.1f mm of lead over the organ for %g MeV (E/2 "
+                         "mm, Radiother Oncol 80:391 (2006), plus a 1 mm margin, textbook "
+                         "rule), or about %.1f mm of low-melting-point alloy (1.2 x lead, from "
+                         "memory)",
+                         share, a->lead_mm, d->max_energy_mev, a->alloy_mm);
             sl_notes_add(&a->advice,
                          "an internal shield needs a low-Z coating (a few mm of wax or acrylic): "
                          "electrons backscattered from lead raise the dose in front of it "

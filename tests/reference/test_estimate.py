@@ -1557,6 +1557,11 @@ class ReviewFindings(unittest.TestCase):
         self.assertTrue(any("given as a point: its upper bound covers the organ reaching 3.0 cm"
                             in a for a in dev["advice"]), dev["advice"])
         self.assertIn("[point reach]", text)
+        # the point's own share is mostly photons, but its bound comes from
+        # nearer the field: a shield is advised, not said to remove little
+        self.assertTrue(any(a.startswith("shield: given as a point") for a in dev["advice"]),
+                        dev["advice"])
+        self.assertFalse(any("removes little" in a for a in dev["advice"]), dev["advice"])
         self.assertNotIn("point_reach", organ(js, "Lens_L")["flags"])
         self.assertAlmostEqual(organ(js, "Lens_L")["course_max_upper_cgy"],
                                organ(js, "Lens_L")["course_max_cgy"]
