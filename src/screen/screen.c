@@ -44,6 +44,17 @@ void sl_screen_free(sl_screen *s)
     free(s);
 }
 
+/* The kind a ROI will be judged as: --organ's (the last given), else the
+ * name's, as the assessment does. */
+static const sl_kind *roi_kind(const sl_screen *s, const sl_levels *levels, const char *name)
+{
+    const sl_kind *k = sl_levels_match(levels, name);
+    for (size_t m = 0; m < s->nmap; m++)
+        if (strcmp(s->map[m].roi, name) == 0)
+            k = sl_levels_kind(levels, s->map[m].kind);
+    return k;
+}
+
 /* The reach of each ROI of a kind that a point cannot stand for without
  * one (sl_point_reach): a cardiac device, a fetus. The kind is the one the
  * assessment will give: --organ's, else the name's. */
@@ -60,13 +71,9 @@ static sl_status point_reaches(sl_screen *s, const sl_screen_request *req, sl_es
     size_t n = 0;
     for (size_t i = 0; i < ss->nrois; i++) {
         const char *name = ss->rois[i].name;
-        /* the last mapping of a ROI wins, as in the assessment (found by an
-         * independent review: the first was taken here, and a device mapped
-         * twice lost its reach) */
-        const sl_kind *k = sl_levels_match(req->levels, name);
-        for (size_t m = 0; m < s->nmap; m++)
-            if (strcmp(s->map[m].roi, name) == 0)
-                k = sl_levels_kind(req->levels, s->map[m].kind);
+        /* the last mapping wins (found by an independent review: the first
+         * was taken here, and a device mapped twice lost its reach) */
+        const sl_kind *k = roi_kind(s, req->levels, name);
         double cm = 0;
         if (k && strcmp(k->kind, "cardiac_device") == 0)
             cm = SL_POINT_REACH_DEVICE_CM;
@@ -243,10 +250,7 @@ static sl_status add_fetus_copies(sl_screen *s, const sl_screen_request *req, sl
     size_t n0 = s->ss->nrois;
     for (size_t r = 0; r < n0; r++) {
         const char *name = s->ss->rois[r].name;
-        const sl_kind *k = sl_levels_match(req->levels, name);
-        for (size_t m = 0; m < s->nmap; m++)
-            if (strcmp(s->map[m].roi, name) == 0)
-                k = sl_levels_kind(req->levels, s->map[m].kind);
+        const sl_kind *k = roi_kind(s, req->levels, name);
         const char *why;
         if (!k || strcmp(k->kind, "fetus") != 0 ||
             sl_dose_type_excluded(s->ss->rois[r].type, req->estimate.include_targets, &why))
