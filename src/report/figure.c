@@ -224,6 +224,51 @@ static bool text_line_take(PangoLayoutLine *line, const char *all, int base_pu, 
     return true;
 }
 
+/* The one line of a layout cut with an ellipsis, as the text Pango shows:
+ * each run's slice of the text in order, the ellipsis run as the
+ * character(s) it holds (one glyph: U+2026; otherwise three full stops).
+ * False, and nothing in out, for a line Pango would draw right to left
+ * (its runs are in visual order) or when out of memory; the caller then
+ * draws glyphs. The width is the line's own (an ellipsis leaves no
+ * trailing space). Drawing such a label as glyph outlines made its figure
+ * a quarter of a report's drawing time. */
+static bool text_line_ellipsized(PangoLayoutLine *line, const char *all, int base_pu,
+                                 const PangoRectangle *lr, text_line *out)
+{
+    size_t len = 0;
+    for (GSList *r = line->runs; r; r = r->next) {
+        const PangoGlyphItem *run = r->data;
+        if (run->item->analysis.level % 2)
+            return false;
+        len += run->item->analysis.flags & PANGO_ANALYSIS_FLAG_IS_ELLIPSIS
+                   ? 3
+                   : (size_t)run->item->length;
+    }
+    char *t = malloc(len + 1);
+    if (!t)
+        return false;
+    size_t k = 0;
+    for (GSList *r = line->runs; r; r = r->next) {
+        const PangoGlyphItem *run = r->data;
+        if (run->item->analysis.flags & PANGO_ANALYSIS_FLAG_IS_ELLIPSIS) {
+            const char *e = run->glyphs->num_glyphs == 1 ? "\u2026" : "...";
+            memcpy(t + k, e, strlen(e));
+            k += strlen(e);
+            continue;
+        }
+        for (int i = 0; i < run->item->length; i++) {
+            unsigned char c = (unsigned char)all[run->item->offset + i];
+            t[k++] = c < 0x20 || c == 0x7f ? ' ' : (char)c;
+        }
+    }
+    t[k] = '\0';
+    out->text = t;
+    out->x = (double)lr->x / PANGO_SCALE;
+    out->y = (double)base_pu / PANGO_SCALE;
+    out->w = (double)lr->width / PANGO_SCALE;
+    return true;
+}
+
 /* ------------------------------------------------------- text shapes -- */
 
 /* What Pango made of one text, as a figure for the HTML takes it: the
@@ -244,7 +289,7 @@ typedef struct text_shape {
     bool ellipsized;
     PangoRectangle ink, logical;
     int nchars;
-    size_t nlines; /* 0 when nothing would be seen or it is cut with an ellipsis */
+    size_t nlines; /* 0 when nothing would be seen, or its ellipsis cannot be text */
     text_line *lines;
     struct text_shape *next;
 } text_shape;
@@ -306,9 +351,29 @@ static bool shape_from_layout(PangoLayout *l, text_shape *s)
     s->nchars = pango_layout_get_character_count(l);
     s->nlines = 0;
     s->lines = NULL;
-    if (s->ellipsized || s->logical.width <= 0 || s->logical.height <= 0 || s->nchars == 0)
+    if (s->logical.width <= 0 || s->logical.height <= 0 || s->nchars == 0)
         return true;
     const char *all = pango_layout_get_text(l);
+    if (s->ellipsized) {
+        /* one line (an ellipsis cuts a single line) */
+        PangoLayoutIter *it = pango_layout_get_line_count(l) == 1 ? pango_layout_get_iter(l)
+                                                                  : NULL;
+        s->lines = it ? calloc(1, sizeof *s->lines) : NULL;
+        if (s->lines) {
+            PangoRectangle lr;
+            pango_layout_iter_get_line_extents(it, NULL, &lr);
+            if (text_line_ellipsized(pango_layout_iter_get_line_readonly(it), all,
+                                     pango_layout_iter_get_baseline(it), &lr, s->lines))
+                s->nlines = 1;
+        }
+        if (it)
+            pango_layout_iter_free(it);
+        if (!s->nlines) {
+            free(s->lines);
+            s->lines = NULL;
+        }
+        return true; /* no lines: drawn as glyphs */
+    }
     s->lines = calloc((size_t)pango_layout_get_line_count(l), sizeof *s->lines);
     PangoLayoutIter *iter = s->lines ? pango_layout_get_iter(l) : NULL;
     if (!iter) {
@@ -420,7 +485,7 @@ static text_sink *sink_of(cairo_t *cr)
 static bool text_to_sink(cairo_t *cr, text_sink *ts, text_shape *sh, double x0, double y0,
                          fig_font f)
 {
-    if (sh->ellipsized || ts->n >= TEXT_MAX_ITEMS)
+    if ((sh->ellipsized && !sh->nlines) || ts->n >= TEXT_MAX_ITEMS)
         return false;
     double rgba[4];
     if (cairo_pattern_get_rgba(cairo_get_source(cr), &rgba[0], &rgba[1], &rgba[2], &rgba[3]) !=

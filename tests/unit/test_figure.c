@@ -145,10 +145,18 @@ static void draw_text(cairo_t *cr, double w, double h, const void *ctx)
     cairo_stroke(cr);
     fig_text(cr, w / 2, h / 2, 0.5, 0.5, "Lens_L 0.01 cGy \u25B2", (fig_font){9, false, false},
              0);
-    /* cut with an ellipsis: drawn as cairo's glyphs, whose ids and
-     * references must be prefixed per figure */
+    /* cut with an ellipsis: SVG text of what Pango shows, the ellipsis
+     * included */
     fig_text(cr, 2, 2, 0, 0, "a label far too long for thirty points", (fig_font){9, false, false},
              -30);
+    /* a pattern source: drawn as cairo's glyphs, whose ids and references
+     * must be prefixed per figure */
+    cairo_pattern_t *g = cairo_pattern_create_linear(0, 0, w, 0);
+    cairo_pattern_add_color_stop_rgb(g, 0, 0, 0, 0);
+    cairo_pattern_add_color_stop_rgb(g, 1, 0, 0, 1);
+    cairo_set_source(cr, g);
+    fig_text(cr, 2, h - 12, 0, 0, "shaded", (fig_font){9, false, false}, 0);
+    cairo_pattern_destroy(g);
     fig_count(cr, "things", "%d", 3);
 }
 
@@ -167,7 +175,7 @@ START_TEST(svg_string_parses)
 }
 END_TEST
 
-/* Two figures in one page: cairo names their glyphs alike; after the
+/* Two figures in one page: cairo names its definitions alike; after the
  * import every id is distinct and every reference points into its own
  * figure. */
 START_TEST(two_figures_get_their_own_ids)
@@ -187,11 +195,22 @@ START_TEST(two_figures_get_their_own_ids)
     const char *s = (const char *)ma;
     ck_assert_ptr_nonnull(strstr(s, "id=\"fig1-"));
     ck_assert_ptr_nonnull(strstr(s, "id=\"fig2-"));
-    ck_assert_ptr_nonnull(strstr(s, "href=\"#fig1-"));
-    ck_assert_ptr_nonnull(strstr(s, "href=\"#fig2-"));
+    /* the shaded label's gradient: a definition of each figure's own */
+    ck_assert_ptr_nonnull(strstr(s, "id=\"fig1-linear"));
+    ck_assert_ptr_nonnull(strstr(s, "url(#fig1-linear"));
+    ck_assert_ptr_nonnull(strstr(s, "url(#fig2-linear"));
+    ck_assert_ptr_null(strstr(s, "url(#linear"));
     ck_assert_ptr_null(strstr(s, "href=\"#glyph"));
     /* the text that fits is SVG text, its symbol a character reference */
     ck_assert_ptr_nonnull(strstr(s, ">Lens_L 0.01 cGy &#9650;</text>"));
+    /* the text cut with an ellipsis too: its start, then the ellipsis */
+    const char *cut = strstr(s, ">a la");
+    ck_assert_ptr_nonnull(cut);
+    const char *cut_end = strstr(cut, "</text>");
+    ck_assert_ptr_nonnull(cut_end);
+    const char *ell = strstr(cut, "&#8230;");
+    ck_assert(ell && ell < cut_end);
+    ck_assert_ptr_null(strstr(s, "thirty points</text>"));
     ck_assert_ptr_null(strstr(s, "fill-opacity:0.0123"));
     xmlFree(ma);
     hdoc_free(&h);
