@@ -456,6 +456,48 @@ static void path_loop(cairo_t *cr, const view *v, const sl_vec2 *p, size_t n)
     cairo_close_path(cr);
 }
 
+/* Where a ring r cm from the outline crosses the ray from c along (dx, dy):
+ * the bracket [0, reach] of the distance less r is closed by the Illinois
+ * variant of false position, which keeps the bracket as bisection does but
+ * needs a fifth of its evaluations (forty bisections of every ring point
+ * were a tenth of drawing a beam's-eye view). It ends where the bracket is
+ * below 1e-9 cm or the distance within 1e-12 cm of r, far below a point of
+ * any picture. */
+static double ring_crossing(const sl_outline *o, sl_vec2 c, double dx, double dy, double r,
+                            double reach)
+{
+    double t0 = 0, t1 = reach;
+    double f0 = sl_outline_distance(o, c) - r;
+    double f1 = sl_outline_distance(o, (sl_vec2){c.x + t1 * dx, c.y + t1 * dy}) - r;
+    if (!(f0 < 0))
+        return 0;     /* the ring holds the middle */
+    if (f1 < 0)
+        return reach; /* not reached: the ray's end */
+    int side = 0;
+    for (int it = 0; it < 100 && t1 - t0 > 1e-9; it++) {
+        double t = (t0 * f1 - t1 * f0) / (f1 - f0);
+        if (!(t > t0 && t < t1))
+            t = 0.5 * (t0 + t1);
+        double ft = sl_outline_distance(o, (sl_vec2){c.x + t * dx, c.y + t * dy}) - r;
+        if (fabs(ft) < 1e-12)
+            return t;
+        if (ft < 0) {
+            t0 = t;
+            f0 = ft;
+            if (side == -1)
+                f1 *= 0.5;
+            side = -1;
+        } else {
+            t1 = t;
+            f1 = ft;
+            if (side == 1)
+                f0 *= 0.5;
+            side = 1;
+        }
+    }
+    return t0;
+}
+
 static void ring_points(const sl_outline *o, double r, sl_vec2 *p, size_t n)
 {
     sl_vec2 lo, hi;
@@ -464,15 +506,8 @@ static void ring_points(const sl_outline *o, double r, sl_vec2 *p, size_t n)
     double reach = hypot(hi.x - lo.x, hi.y - lo.y) + r + 1;
     for (size_t i = 0; i < n; i++) {
         double a = 2 * M_PI * (double)i / (double)n, dx = cos(a), dy = sin(a);
-        double t0 = 0, t1 = reach;
-        for (int it = 0; it < 40; it++) {
-            double tm = 0.5 * (t0 + t1);
-            if (sl_outline_distance(o, (sl_vec2){c.x + tm * dx, c.y + tm * dy}) < r)
-                t0 = tm;
-            else
-                t1 = tm;
-        }
-        p[i] = (sl_vec2){c.x + t0 * dx, c.y + t0 * dy};
+        double t = ring_crossing(o, c, dx, dy, r, reach);
+        p[i] = (sl_vec2){c.x + t * dx, c.y + t * dy};
     }
 }
 
