@@ -135,6 +135,8 @@ void fig_dv_sort_desc(fig_dv *a, fig_dv *tmp, uint64_t *key, uint64_t *ktmp, siz
  * the largest share of a report's drawing time. */
 #define FIG_THIN_TOLERANCE_PT 0.05
 void fig_path_thin(cairo_t *cr);
+/* The same to a tolerance of the caller's (points of the page). */
+void fig_path_thin_to(cairo_t *cr, double tol_pt);
 
 /* Record a count of drawn data items under a key ("curve", "points"). */
 void fig_count(cairo_t *cr, const char *key, const char *fmt, ...)
