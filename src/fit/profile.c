@@ -98,6 +98,43 @@ void sl_profile_value_two(sl_profile_form f, const double *t, const double d[2],
     }
 }
 
+void sl_profile_shift_factors(sl_profile_form f, const double *t, double h, double k2[2],
+                              double kh[2], double *gk)
+{
+    sl_profile_decay_factors(t, 2 * h, k2);
+    sl_profile_decay_factors(t, h, kh);
+    double c = f == SL_FORM_PEAKED ? h / t[SL_P_S] : 0;
+    *gk = exp(-c * c);
+}
+
+void sl_profile_value_three(sl_profile_form f, const double *t, const double d[3],
+                            const double k2[2], const double kh[2], double gk, double value[3],
+                            double electron[3], double photon[3])
+{
+    double e1 = exp(-d[0] / t[SL_P_L1]), e2 = exp(-d[0] / t[SL_P_L2]);
+    const double e1s[3] = {e1, e1 * k2[0], e1 * kh[0]}, e2s[3] = {e2, e2 * k2[1], e2 * kh[1]};
+    double g[3] = {0, 0, 0};
+    if (f == SL_FORM_PEAKED) {
+        double z0 = (d[0] - t[SL_P_MU]) / t[SL_P_S], z2 = (d[2] - t[SL_P_MU]) / t[SL_P_S];
+        g[0] = exp(-0.5 * z0 * z0);
+        g[2] = exp(-0.5 * z2 * z2);
+        if (g[0] > 1e-150 && g[2] > 1e-150) {
+            g[1] = g[2] / g[0] * g[2] * gk;
+        } else {
+            double z1 = (d[1] - t[SL_P_MU]) / t[SL_P_S];
+            g[1] = exp(-0.5 * z1 * z1);
+        }
+    }
+    for (int i = 0; i < 3; i++) {
+        double near = t[SL_P_A] * e1s[i], tail = t[SL_P_C] * e2s[i], peak = 0;
+        if (f == SL_FORM_PEAKED)
+            peak = t[SL_P_B] * g[i];
+        electron[i] = near + peak;
+        photon[i] = tail;
+        value[i] = near + tail + peak;
+    }
+}
+
 /* The model in the solver's variables. */
 typedef struct fit_ctx {
     sl_profile_form form;

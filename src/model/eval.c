@@ -54,6 +54,8 @@ typedef struct curve {
     double near_rise;      /* log rise per cm toward the edge from there: of the value
                               held (near_level) and of its extrapolation component */
     double shift_k[2];     /* decay factors over twice the prepared setup shift */
+    double shift_kh[2];    /* and over the shift */
+    double shift_gk;       /* the bump's factor over the shift (sl_profile_shift_factors) */
 } curve;
 
 typedef struct depth_group {
@@ -1100,12 +1102,23 @@ static dose_part curve_dose(const curve *cv, double d, sl_eval_mode mode)
 
 /* One profile at the n distances of a lean evaluation. linked: d[1] is d[0]
  * less twice the setup shift the set was prepared for, so the second
- * distance's exponentials come from the first's (sl_profile_value_two);
- * a third distance, when there is one, is evaluated on its own. */
+ * distance's exponentials come from the first's (sl_profile_value_two),
+ * and a third distance is the query's own, d[0] less the shift, whose
+ * exponentials come from d[0]'s too (sl_profile_value_three): that took
+ * a third of the exponentials of a stand-in's choice of candidate. */
 static void curve_doses(const curve *cv, const double *d, size_t n, sl_eval_mode mode,
                         bool linked, dose_part *out)
 {
     size_t i = 0;
+    if (linked && n == 3) {
+        const sl_profile_fit *f = &cv->prof->fit;
+        double v[3], el[3], ph[3];
+        sl_profile_value_three(f->form, f->theta, d, cv->shift_k, cv->shift_kh, cv->shift_gk, v,
+                               el, ph);
+        for (; i < 3; i++)
+            out[i] = curve_finish(cv, d[i], mode, v[i], el[i], ph[i]);
+        return;
+    }
     if (linked) {
         const sl_profile_fit *f = &cv->prof->fit;
         double v[2], el[2], ph[2];
@@ -1339,8 +1352,10 @@ void sl_curves_prepare_shift(sl_curve_set *c, double shift_cm)
     for (size_t g = 0; g < c->ngroups; g++)
         for (size_t k = 0; k < c->groups[g].ncurves; k++) {
             curve *cv = &c->groups[g].curves[k];
-            sl_profile_decay_factors(cv->prof->fit.theta, 2 * shift_cm, cv->shift_k);
-            finite = finite && isfinite(cv->shift_k[0]) && isfinite(cv->shift_k[1]);
+            sl_profile_shift_factors(cv->prof->fit.form, cv->prof->fit.theta, shift_cm,
+                                     cv->shift_k, cv->shift_kh, &cv->shift_gk);
+            finite = finite && isfinite(cv->shift_k[0]) && isfinite(cv->shift_k[1]) &&
+                     isfinite(cv->shift_kh[0]) && isfinite(cv->shift_kh[1]);
         }
     for (size_t l = 0; l < c->nlayers; l++) {
         sl_curves_prepare_shift(c->layers[l].set, shift_cm);
