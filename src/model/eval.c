@@ -26,6 +26,10 @@
  * the largest, the lean walk takes the query's own distance as well and
  * picks the candidate (sl_curves_eval_query_shift): only that one is
  * evaluated in full, and the others give their flags alone (set_flags).
+ * On a prepared set that third distance's exponentials come from the
+ * farther neighbour's too, so that the spread of the candidates (the
+ * stand-in's uncertainty) may move by rounding alone, within 1e-13 of the
+ * dose; the dose is the chosen candidate's full evaluation.
  * Beyond a profile's last measured distance the measured level holds, and
  * nearer the edge than its first the measured rise goes on from the first
  * level (curve_value, curve_finish).
