@@ -1543,36 +1543,49 @@ static uint64_t dv_key(double d)
 
 /* A least-significant-digit radix sort, stable by construction, in 8
  * passes of a byte, each skipped where every key has the same byte (the
- * exponent's high bits, mostly). */
+ * exponent's high bits, mostly). The eight bytes' counts come from one
+ * read of the keys, and the passes move the data back and forth between
+ * the two buffers, copying once at the end if it ends in the scratch. */
 void fig_dv_sort_desc(fig_dv *a, fig_dv *tmp, uint64_t *key, uint64_t *ktmp, size_t n)
 {
+    size_t cnt[8][257];
+    memset(cnt, 0, sizeof cnt);
     for (size_t i = 0; i < n; i++) {
         if (isnan(a[i].d)) {
             qsort(a, n, sizeof *a, cmp_dv_desc);
             return;
         }
-        key[i] = dv_key(a[i].d);
+        uint64_t k = dv_key(a[i].d);
+        key[i] = k;
+        for (int b = 0; b < 8; b++)
+            cnt[b][((k >> (8 * b)) & 0xff) + 1]++;
     }
+    fig_dv *src = a, *dst = tmp;
+    uint64_t *ksrc = key, *kdst = ktmp;
     for (int pass = 0; pass < 8; pass++) {
-        int shift = 8 * pass;
-        size_t count[257] = {0};
-        for (size_t i = 0; i < n; i++)
-            count[((key[i] >> shift) & 0xff) + 1]++;
+        size_t *count_b = cnt[pass];
         bool one = false;
         for (int b = 1; b <= 256; b++)
-            one = one || count[b] == n;
+            one = one || count_b[b] == n;
         if (one)
             continue;
         for (int b = 1; b <= 256; b++)
-            count[b] += count[b - 1];
+            count_b[b] += count_b[b - 1];
+        int shift = 8 * pass;
         for (size_t i = 0; i < n; i++) {
-            size_t at = count[(key[i] >> shift) & 0xff]++;
-            tmp[at] = a[i];
-            ktmp[at] = key[i];
+            size_t at = count_b[(ksrc[i] >> shift) & 0xff]++;
+            dst[at] = src[i];
+            kdst[at] = ksrc[i];
         }
-        memcpy(a, tmp, n * sizeof *a);
-        memcpy(key, ktmp, n * sizeof *key);
+        fig_dv *t = src;
+        src = dst;
+        dst = t;
+        uint64_t *kt = ksrc;
+        ksrc = kdst;
+        kdst = kt;
     }
+    if (src != a)
+        memcpy(a, src, n * sizeof *a);
 }
 
 /* ------------------------------------------------------- path thinning -- */
