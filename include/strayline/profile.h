@@ -150,6 +150,17 @@ double sl_profile_fit_eval(const sl_profile_fit *f, double d, double *u);
 double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, double *electron,
                                  double *photon);
 
+/* The covariance's pair sums of a fit for sl_profile_fit_eval_sym: sym[i p
+ * + j] = C_ij + C_ji for j > i, sym[i p + i] = C_ii (p x p, the rest
+ * unused). */
+void sl_profile_fit_sym(const sl_profile_fit *f, double sym[SL_PROFILE_MAX_PARAMS *
+                                                          SL_PROFILE_MAX_PARAMS]);
+
+/* sl_profile_fit_eval_parts with the pair sums computed beforehand
+ * (sl_profile_fit_sym): bitwise the same, a sum fewer for each pair. */
+double sl_profile_fit_eval_sym(const sl_profile_fit *f, const double *sym, double d, double *u,
+                               double *electron, double *photon);
+
 #ifdef __cplusplus
 }
 #endif

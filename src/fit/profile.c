@@ -448,6 +448,38 @@ double sl_profile_fit_eval(const sl_profile_fit *f, double d, double *u)
     return sl_profile_fit_eval_parts(f, d, u, NULL, NULL);
 }
 
+void sl_profile_fit_sym(const sl_profile_fit *f,
+                        double sym[SL_PROFILE_MAX_PARAMS * SL_PROFILE_MAX_PARAMS])
+{
+    const size_t p = f->p;
+    const double *c = f->covar;
+    for (size_t i = 0; i < p; i++) {
+        sym[i * p + i] = c[i * p + i];
+        for (size_t j = i + 1; j < p; j++)
+            sym[i * p + j] = c[i * p + j] + c[j * p + i];
+    }
+}
+
+double sl_profile_fit_eval_sym(const sl_profile_fit *f, const double *sym, double d, double *u,
+                               double *electron, double *photon)
+{
+    double g[SL_PROFILE_MAX_PARAMS];
+    double v = sl_profile_value(f->form, f->theta, d, u ? g : NULL, electron, photon);
+    if (u) {
+        /* sl_profile_fit_eval_parts' sum, term for term */
+        const size_t p = f->p;
+        double var = 0;
+        for (size_t i = 0; i < p; i++) {
+            double row = sym[i * p + i] * g[i];
+            for (size_t j = i + 1; j < p; j++)
+                row += sym[i * p + j] * g[j];
+            var += g[i] * row;
+        }
+        *u = sqrt(fmax(var, 0));
+    }
+    return v;
+}
+
 double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, double *electron,
                                  double *photon)
 {

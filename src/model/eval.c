@@ -60,6 +60,9 @@ typedef struct curve {
     double shift_k[2];     /* decay factors over twice the prepared setup shift */
     double shift_kh[2];    /* and over the shift */
     double shift_gk;       /* the bump's factor over the shift (sl_profile_shift_factors) */
+    /* the covariance's pair sums (sl_profile_fit_sym) for the full
+     * evaluation, last: the lean path does not read them */
+    double sym[SL_PROFILE_MAX_PARAMS * SL_PROFILE_MAX_PARAMS];
 } curve;
 
 typedef struct depth_group {
@@ -313,6 +316,7 @@ static sl_status build_flat(const sl_model *m, double e, const char *app, const 
         c->range_lo = fmin(c->range_lo, sel[i]->fit.range_lo_cm);
         c->range_hi = fmax(c->range_hi, sel[i]->fit.range_hi_cm);
         size_t np = sel[i]->n;
+        sl_profile_fit_sym(&sel[i]->fit, cv->sym);
         cv->fit_lo = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[0], &cv->u_lo);
         cv->fit_hi = sl_profile_fit_eval(&sel[i]->fit, sel[i]->distance_cm[np - 1], &cv->u_hi);
         cv->floor = measured_floor(sel[i], cv->fit_hi);
@@ -608,7 +612,7 @@ static point_value curve_value(const curve *cv, double d, eval_how how)
     const sl_model_profile *p = cv->prof;
     point_value r = {0};
     double ufit = 0, el, ph;
-    double fit = sl_profile_fit_eval_parts(&p->fit, d, &ufit, &el, &ph);
+    double fit = sl_profile_fit_eval_sym(&p->fit, cv->sym, d, &ufit, &el, &ph);
     r.e_frac = el + ph > 0 ? el / (el + ph) : 0;
     double lo = p->distance_cm[0], hi = p->distance_cm[p->n - 1];
     r.extrapolated = d > hi + 1e-9 || d < lo - 1e-9;
