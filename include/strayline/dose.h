@@ -299,6 +299,13 @@ sl_status sl_estimate_doses(const sl_plan *plan, const sl_structure_set *ss,
                             sl_estimate **out, sl_error *err);
 void sl_estimate_free(sl_estimate *e);
 
+/* The near-maximum's sample: the index at which the hottest of n samples
+ * (hotter first, then the earlier index), their volumes (cc) summed in that
+ * order, first hold `volume` cc; the coldest when they never do, the
+ * hottest when volume_cc is NULL (a point). scratch: room for 2 n doubles. */
+size_t sl_dose_nearmax_sample(const double *dose, const double *volume_cc, size_t n,
+                              double volume, double *scratch);
+
 /* An organ outside the scanned volume, measured on the patient: its
  * distance from the nearest field edge along the body surface and its depth
  * (cm). Every beam is evaluated at that distance and depth (the cautious

@@ -619,15 +619,24 @@ static bool iv_before(iv a, iv b)
     return a.v > b.v || (a.v == b.v && a.i < b.i);
 }
 
-static void iv_sift(iv *h, size_t n, size_t k)
+/* iv_before as a comparison, for qsort */
+static int cmp_iv_order(const void *a, const void *b)
+{
+    iv x = *(const iv *)a, y = *(const iv *)b;
+    return iv_before(x, y) ? -1 : iv_before(y, x) ? 1 : 0;
+}
+
+/* A heap of the hottest samples seen, the coldest of them (the last in
+ * iv_before's order) on top. */
+static void iv_sift_last(iv *h, size_t n, size_t k)
 {
     for (;;) {
         size_t c = 2 * k + 1;
         if (c >= n)
             return;
-        if (c + 1 < n && iv_before(h[c + 1], h[c]))
+        if (c + 1 < n && iv_before(h[c], h[c + 1]))
             c++;
-        if (!iv_before(h[c], h[k]))
+        if (!iv_before(h[k], h[c]))
             return;
         iv t = h[k];
         h[k] = h[c];
@@ -637,42 +646,74 @@ static void iv_sift(iv *h, size_t n, size_t k)
 }
 
 /* The sample at which the hottest samples first hold a volume (cc): the
- * near-maximum's sample. Only the hottest few are needed, so a heap hands
- * them out one by one instead of sorting every sample; a NaN has no place
- * in that order, and then the whole array is sorted as before. w is NULL
- * for a point organ (no volume: the hottest sample). order is scratch of n. */
+ * near-maximum's sample. Only the hottest few are needed: one pass keeps
+ * the hottest samples seen that hold the volume with a margin for rounding
+ * (a heap, its coldest on top, that a colder sample does not enter), and
+ * those few are sorted and summed hottest first, the sum and its rounding
+ * as a sort of every sample would give them (heaping and popping every
+ * sample was 2 % of a scan). A NaN has no place in that order, and then the
+ * whole array is sorted as before. w is NULL for a point organ (no volume:
+ * the hottest sample). order is scratch of n. */
 static size_t nearmax_sample(const double *dv, const double *w, size_t n, double volume,
                              iv *order)
 {
+    if (n == 0)
+        return 0;
     bool nan = false;
-    for (size_t i = 0; i < n; i++) {
-        order[i] = (iv){dv[i], i};
-        nan = nan || isnan(dv[i]);
-    }
-    double acc = 0;
-    if (nan) {
-        qsort(order, n, sizeof *order, cmp_iv);
-        size_t inm = order[0].i;
-        for (size_t k = 0; k < n; k++) {
-            acc += w ? w[order[k].i] : 0;
-            inm = order[k].i;
-            if (acc >= volume)
-                break;
+    for (size_t i = 0; i < n && !nan; i++)
+        nan = isnan(dv[i]);
+    size_t m = 0;
+    if (nan || !w) {
+        for (size_t i = 0; i < n; i++)
+            order[i] = (iv){dv[i], i};
+        m = n;
+    } else {
+        /* the kept samples' volume less the coldest's still holds the volume
+         * with this margin: the running sum's rounding stays far below it */
+        double margin = 1e-9 * volume + 1e-300, held = 0;
+        for (size_t i = 0; i < n; i++) {
+            iv x = {dv[i], i};
+            bool full = m > 0 && held - w[order[0].i] >= volume + margin;
+            if (full && !iv_before(x, order[0]))
+                continue;
+            /* in, at the bottom of the heap, sifted up */
+            size_t k = m++;
+            order[k] = x;
+            held += w[i];
+            while (k > 0) {
+                size_t up = (k - 1) / 2;
+                if (!iv_before(order[up], order[k]))
+                    break;
+                iv t = order[up];
+                order[up] = order[k];
+                order[k] = t;
+                k = up;
+            }
+            /* the coldest out while the rest hold the volume */
+            while (m > 1 && held - w[order[0].i] >= volume + margin) {
+                held -= w[order[0].i];
+                order[0] = order[--m];
+                iv_sift_last(order, m, 0);
+            }
         }
-        return inm;
     }
-    for (size_t k = n / 2; k-- > 0;)
-        iv_sift(order, n, k);
+    qsort(order, m, sizeof *order, nan ? cmp_iv : cmp_iv_order);
+    double acc = 0;
     size_t inm = order[0].i;
-    for (size_t m = n; m > 0;) {
-        inm = order[0].i;
-        acc += w ? w[inm] : 0;
+    for (size_t k = 0; k < m; k++) {
+        acc += w ? w[order[k].i] : 0;
+        inm = order[k].i;
         if (acc >= volume)
             break;
-        order[0] = order[--m];
-        iv_sift(order, m, 0);
     }
     return inm;
+}
+
+size_t sl_dose_nearmax_sample(const double *dose, const double *volume_cc, size_t n,
+                              double volume, double *scratch)
+{
+    _Static_assert(sizeof(iv) <= 2 * sizeof(double), "scratch of 2 n doubles holds n pairs");
+    return nearmax_sample(dose, volume_cc, n, volume, (iv *)(void *)scratch);
 }
 
 static void set_stat(sl_dose_stat *s, double v, double u)
