@@ -626,76 +626,50 @@ static int cmp_iv_order(const void *a, const void *b)
     return iv_before(x, y) ? -1 : iv_before(y, x) ? 1 : 0;
 }
 
-/* A heap of the hottest samples seen, the coldest of them (the last in
- * iv_before's order) on top. */
-static void iv_sift_last(iv *h, size_t n, size_t k)
-{
-    for (;;) {
-        size_t c = 2 * k + 1;
-        if (c >= n)
-            return;
-        if (c + 1 < n && iv_before(h[c], h[c + 1]))
-            c++;
-        if (!iv_before(h[k], h[c]))
-            return;
-        iv t = h[k];
-        h[k] = h[c];
-        h[c] = t;
-        k = c;
-    }
-}
+/* Bins of the doses' range for the near-maximum's first cut. */
+#define NEARMAX_BINS 256
 
 /* The sample at which the hottest samples first hold a volume (cc): the
- * near-maximum's sample. Only the hottest few are needed: one pass keeps
- * the hottest samples seen that hold the volume with a margin for rounding
- * (a heap, its coldest on top, that a colder sample does not enter), and
- * those few are sorted and summed hottest first, the sum and its rounding
- * as a sort of every sample would give them (heaping and popping every
- * sample was 2 % of a scan). A NaN has no place in that order, and then the
- * whole array is sorted as before. w is NULL for a point organ (no volume:
- * the hottest sample). order is scratch of n. */
+ * near-maximum's sample. Only the hottest few are needed: the samples'
+ * volumes are summed into bins of the doses' range, the hottest bins that
+ * hold the volume with a margin for rounding are kept whole, and only
+ * their samples are sorted and summed hottest first, the sum and its
+ * rounding as a sort of every sample would give them (heaping and popping
+ * every sample was 2 % of a scan). A bin's index never falls as the dose
+ * rises, so every sample hotter than one kept is kept. A NaN has no place
+ * in that order, and then the whole array is sorted as before. w is NULL
+ * for a point organ (no volume: the hottest sample). order is scratch of n. */
 static size_t nearmax_sample(const double *dv, const double *w, size_t n, double volume,
                              iv *order)
 {
     if (n == 0)
         return 0;
     bool nan = false;
-    for (size_t i = 0; i < n && !nan; i++)
-        nan = isnan(dv[i]);
+    double lo = INFINITY, hi = -INFINITY;
+    for (size_t i = 0; i < n; i++) {
+        nan = nan || isnan(dv[i]);
+        lo = dv[i] < lo ? dv[i] : lo;
+        hi = dv[i] > hi ? dv[i] : hi;
+    }
+    double scale = (NEARMAX_BINS - 1) / (hi - lo);
     size_t m = 0;
-    if (nan || !w) {
+    if (nan || !w || !(hi > lo) || !isfinite(scale) || !(scale > 0)) {
         for (size_t i = 0; i < n; i++)
             order[i] = (iv){dv[i], i};
         m = n;
     } else {
-        /* the kept samples' volume less the coldest's still holds the volume
-         * with this margin: the running sum's rounding stays far below it */
-        double margin = 1e-9 * volume + 1e-300, held = 0;
-        for (size_t i = 0; i < n; i++) {
-            iv x = {dv[i], i};
-            bool full = m > 0 && held - w[order[0].i] >= volume + margin;
-            if (full && !iv_before(x, order[0]))
-                continue;
-            /* in, at the bottom of the heap, sifted up */
-            size_t k = m++;
-            order[k] = x;
-            held += w[i];
-            while (k > 0) {
-                size_t up = (k - 1) / 2;
-                if (!iv_before(order[up], order[k]))
-                    break;
-                iv t = order[up];
-                order[up] = order[k];
-                order[k] = t;
-                k = up;
-            }
-            /* the coldest out while the rest hold the volume */
-            while (m > 1 && held - w[order[0].i] >= volume + margin) {
-                held -= w[order[0].i];
-                order[0] = order[--m];
-                iv_sift_last(order, m, 0);
-            }
-        }
+        double held[NEARMAX_BINS] = {0};
+        for (size_t i = 0; i < n; i++)
+            held[(size_t)((dv[i] - lo) * scale)] += w[i];
+        /* the hottest bins holding the volume, with a margin far above the
+         * sums' rounding */
+        double margin = 1e-9 * volume + 1e-300, acc = 0;
+        size_t first = NEARMAX_BINS;
+        while (first > 0 && acc < volume + margin)
+            acc += held[--first];
+        for (size_t i = 0; i < n; i++)
+            if ((size_t)((dv[i] - lo) * scale) >= first)
+                order[m++] = (iv){dv[i], i};
     }
     qsort(order, m, sizeof *order, nan ? cmp_iv : cmp_iv_order);
     double acc = 0;
