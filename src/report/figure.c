@@ -1655,11 +1655,6 @@ static void emit_run(cairo_t *cr, const cairo_path_data_t **run, size_t n, const
 
 void fig_path_thin(cairo_t *cr)
 {
-    fig_path_thin_to(cr, FIG_THIN_TOLERANCE_PT);
-}
-
-void fig_path_thin_to(cairo_t *cr, double tol_pt)
-{
     cairo_path_t *p = cairo_copy_path(cr);
     if (!p || p->status != CAIRO_STATUS_SUCCESS || p->num_data == 0) {
         cairo_path_destroy(p);
@@ -1673,7 +1668,7 @@ void fig_path_thin_to(cairo_t *cr, double tol_pt)
     double p2 = m.xx * m.xx + m.yx * m.yx + m.xy * m.xy + m.yy * m.yy,
            det = m.xx * m.yy - m.xy * m.yx;
     double smax2 = 0.5 * (p2 + sqrt(fmax(p2 * p2 - 4 * det * det, 0)));
-    double tol2 = tol_pt * tol_pt / smax2;
+    double tol2 = FIG_THIN_TOLERANCE_PT * FIG_THIN_TOLERANCE_PT / smax2;
     size_t n = (size_t)p->num_data;
     const cairo_path_data_t **run = malloc(n * sizeof *run);
     bool *keep = malloc(n * sizeof *keep);

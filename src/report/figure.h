@@ -132,11 +132,13 @@ void fig_dv_sort_desc(fig_dv *a, fig_dv *tmp, uint64_t *key, uint64_t *ktmp, siz
  * within that distance of it; curves, ends and closes stay. A contour of
  * hundreds of points projected into a few centimetres of page looks the
  * same, and its figure is a fraction of the size: writing coordinates was
- * the largest share of a report's drawing time. */
-#define FIG_THIN_TOLERANCE_PT 0.05
+ * the largest share of a report's drawing time (cairo's SVG writer formats
+ * each at about 2700 instructions). The tolerance is a tenth of the widest
+ * stroke the figures draw (an organ's outline, 2.4 pt) and a third of a
+ * pixel on a screen at 96 dpi; in headless Chromium at twice the size,
+ * 0.03 to 0.3 % of a figure's pixels differ from 0.05 pt's, along lines. */
+#define FIG_THIN_TOLERANCE_PT 0.25
 void fig_path_thin(cairo_t *cr);
-/* The same to a tolerance of the caller's (points of the page). */
-void fig_path_thin_to(cairo_t *cr, double tol_pt);
 
 /* Record a count of drawn data items under a key ("curve", "points"). */
 void fig_count(cairo_t *cr, const char *key, const char *fmt, ...)

@@ -29,13 +29,6 @@
 /* Most vertices a contour keeps in the picture: finer detail is below a
  * point at any size a report uses. */
 #define BEV_MAX_CONTOUR_VERTICES 64
-/* How far an organ's drawn outline may stray from its projected slabs
- * (points of the page): a tenth of the outline's stroke, of which the fill
- * hides half, and a third of a pixel on a screen at 96 dpi. The slabs'
- * outlines were half the coordinates of a beam's-eye view at the finer
- * tolerance of the other figures (FIG_THIN_TOLERANCE_PT), and writing
- * them the largest share of drawing it. */
-#define BEV_THIN_TOLERANCE_PT 0.25
 /* Labels already placed beyond which a label that finds no room beside its
  * organ is left out (and counted in the legend) rather than searched for. */
 #define BEV_MAX_SCANNED_LABELS 150
@@ -810,7 +803,7 @@ static void draw_bev(cairo_t *cr, double w, double h, const void *vctx)
                 path_loop(cr, &v, g->shape.p + g->shape.start[i],
                           g->shape.start[i + 1] - g->shape.start[i]);
             nfaces += g->shape.np;
-            fig_path_thin_to(cr, BEV_THIN_TOLERANCE_PT);
+            fig_path_thin(cr);
             cairo_set_fill_rule(cr, CAIRO_FILL_RULE_WINDING);
             cairo_set_line_join(cr, CAIRO_LINE_JOIN_ROUND);
             cairo_set_line_width(cr, g->status == SL_ST_EXCEEDS ? 3.6 : 2.4);
