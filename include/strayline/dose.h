@@ -200,6 +200,7 @@ typedef struct sl_beam_dose {
     double *ref_cgy;              /* reference dose per fraction, per group (NAN likewise) */
     double *plan_beam_dose_cgy;   /* Beam Dose of the plan, per group (NAN when absent) */
     sl_curve_set *curves;
+    bool uses_direction;          /* the curves tell directions apart (sl_curves_use_direction) */
 } sl_beam_dose;
 
 /* Organs closer than this to the field edge (cm) are estimated but marked

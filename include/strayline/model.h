@@ -250,6 +250,11 @@ void sl_curves_eval_query(const sl_curve_set *c, const sl_eval_query *q, sl_mode
  * profiles' exponentials, are not computed. Thread-safe. */
 double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q);
 
+/* Whether a query's direction (angle_deg) can change an evaluation of the
+ * set: some depth of it, of a tilt or SSD of it, or of a stand-in's
+ * inserts, has profiles in more than one direction. */
+bool sl_curves_use_direction(const sl_curve_set *c);
+
 /* Prepare a curve set for the setup shift (cm, > 0) that
  * sl_curves_eval_percent_shift will be asked for: each profile's decay
  * factors over twice the shift. Not thread-safe; call it before the

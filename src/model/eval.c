@@ -1352,6 +1352,20 @@ double sl_curves_eval_percent(const sl_curve_set *c, const sl_eval_query *q)
     return out;
 }
 
+bool sl_curves_use_direction(const sl_curve_set *c)
+{
+    for (size_t g = 0; g < c->ngroups; g++)
+        if (c->groups[g].ncurves > 1)
+            return true;
+    for (size_t l = 0; l < c->nlayers; l++)
+        if (sl_curves_use_direction(c->layers[l].set))
+            return true;
+    for (size_t k = 0; k < c->nmembers; k++)
+        if (sl_curves_use_direction(c->members[k].set))
+            return true;
+    return false;
+}
+
 void sl_curves_prepare_shift(sl_curve_set *c, double shift_cm)
 {
     if (!(shift_cm > 0 && isfinite(shift_cm)))

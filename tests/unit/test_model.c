@@ -549,6 +549,39 @@ START_TEST(three_distances_agree_with_single_evaluations)
 }
 END_TEST
 
+/* sl_curves_use_direction: the demo model's 9 MeV A10 open profiles have
+ * an inplane direction beside the crossplane ones (at tilt 0, SSD 100), its
+ * 9 MeV A06 ones are crossplane alone; where it says no, the direction
+ * changes no evaluation. */
+START_TEST(direction_used_only_where_profiles_differ_by_it)
+{
+    sl_model *m;
+    sl_error e = {0};
+    ck_assert_int_eq(sl_model_load(demo_model(), &m, &e), SL_OK);
+    sl_curve_set *both, *one;
+    unsigned fl;
+    ck_assert_int_eq(sl_model_select(m, 9, "A10", NULL, &both, &fl, &e), SL_OK);
+    ck_assert_int_eq(sl_model_select(m, 9, "A06", "CUSTOM", &one, &fl, &e), SL_OK);
+    ck_assert(sl_curves_use_direction(both));
+    ck_assert(!sl_curves_use_direction(one));
+    const double angles[] = {NAN, 0, 30, 90};
+    for (double d = 0.5; d < 30; d += 2.5) {
+        sl_eval_query q = {1.0, d, d - 1.0, 0, SL_EVAL_FIT, 1.0, 5.0, NAN};
+        sl_model_value v0;
+        sl_curves_eval_query(one, &q, &v0);
+        for (size_t a = 0; a < sizeof angles / sizeof *angles; a++) {
+            q.angle_deg = angles[a];
+            sl_model_value v;
+            sl_curves_eval_query(one, &q, &v);
+            ck_assert(same_value(&v, &v0));
+        }
+    }
+    sl_curve_set_free(both);
+    sl_curve_set_free(one);
+    sl_model_free(m);
+}
+END_TEST
+
 static Suite *model_suite(void)
 {
     Suite *s = suite_create("model");
@@ -563,6 +596,7 @@ static Suite *model_suite(void)
     tcase_add_test(tc, invivo_scale_applied_and_round_tripped);
     tcase_add_test(tc, dose_alone_equals_the_full_evaluation);
     tcase_add_test(tc, three_distances_agree_with_single_evaluations);
+    tcase_add_test(tc, direction_used_only_where_profiles_differ_by_it);
     suite_add_tcase(s, tc);
     return s;
 }
