@@ -18,6 +18,7 @@
 
 typedef struct edge {
     sl_vec2 a, b;
+    double dx, dy, len2; /* b - a and its squared length, for the nearest search */
     unsigned prev, next; /* neighbouring edges in the loop */
     bool convex_a;       /* the region's corner at a is convex */
 } edge;
@@ -213,6 +214,9 @@ sl_status sl_outline_create(const sl_outline_loop *loops, size_t nloops, const c
             edge *ed = &o->edges[e + i];
             ed->a = p[i];
             ed->b = p[(i + 1) % n];
+            ed->dx = ed->b.x - ed->a.x;
+            ed->dy = ed->b.y - ed->a.y;
+            ed->len2 = ed->dx * ed->dx + ed->dy * ed->dy;
             ed->prev = (unsigned)(e + (i + n - 1) % n);
             ed->next = (unsigned)(e + (i + 1) % n);
             ed->convex_a = sl_p2_cross(p[(i + n - 1) % n], p[i], p[(i + 1) % n]) > 0;
@@ -284,6 +288,21 @@ sl_status sl_outline_scaled(const sl_outline *o, double f, sl_outline **out, sl_
 }
 
 /* Distance to every edge; the nearest feature decides the sign. */
+/* sl_p2_seg_dist2 on an edge whose difference and squared length are
+ * kept: the same arithmetic, and no division where the nearest point is an
+ * end (the quotient would be clamped to it); bitwise the same distance. */
+static inline double edge_dist2(const edge *e, sl_vec2 q, double *t_out)
+{
+    double t = 0;
+    if (e->len2 > 0) {
+        double num = (q.x - e->a.x) * e->dx + (q.y - e->a.y) * e->dy;
+        t = num <= 0 ? 0 : num >= e->len2 ? 1 : num / e->len2;
+    }
+    double px = e->a.x + t * e->dx - q.x, py = e->a.y + t * e->dy - q.y;
+    *t_out = t;
+    return px * px + py * py;
+}
+
 static double nearest(const sl_outline *o, sl_vec2 q, const unsigned *cand, size_t ncand)
 {
     double best = DBL_MAX, best_t = 0;
@@ -291,7 +310,7 @@ static double nearest(const sl_outline *o, sl_vec2 q, const unsigned *cand, size
     for (size_t k = 0; k < ncand; k++) {
         unsigned i = cand ? cand[k] : (unsigned)k;
         double t;
-        double d2 = sl_p2_seg_dist2(q, o->edges[i].a, o->edges[i].b, &t);
+        double d2 = edge_dist2(&o->edges[i], q, &t);
         if (d2 < best) {
             best = d2;
             best_e = i;
