@@ -352,17 +352,23 @@ END_TEST
  * evaluation's, or on a prepared set within 1e-13 of the dose. A
  * consistency check of paths through the same code; the values themselves
  * are checked elsewhere. */
-/* Every field of two values bitwise (the struct's padding aside). */
+/* A value's numeric fields in one array (the struct's padding aside). */
+enum { NFIELDS = 15 };
+static void value_fields(const sl_model_value *v, double f[NFIELDS])
+{
+    const double x[NFIELDS] = {v->percent, v->u_percent, v->u_fit, v->u_meas, v->u_interp,
+                               v->u_extrap, v->u_standin, v->u_transfer, v->u_uncommissioned,
+                               v->scale, v->electron_percent, v->photon_percent,
+                               v->depth_used_cm, v->tilt_used_deg, v->ssd_used_cm};
+    memcpy(f, x, sizeof x);
+}
+
+/* Every field of two values bitwise. */
 static bool same_value(const sl_model_value *a, const sl_model_value *b)
 {
-    const double x[] = {a->percent, a->u_percent, a->u_fit, a->u_meas, a->u_interp,
-                        a->u_extrap, a->u_standin, a->u_transfer, a->u_uncommissioned,
-                        a->scale, a->electron_percent, a->photon_percent, a->depth_used_cm,
-                        a->tilt_used_deg, a->ssd_used_cm};
-    const double y[] = {b->percent, b->u_percent, b->u_fit, b->u_meas, b->u_interp,
-                        b->u_extrap, b->u_standin, b->u_transfer, b->u_uncommissioned,
-                        b->scale, b->electron_percent, b->photon_percent, b->depth_used_cm,
-                        b->tilt_used_deg, b->ssd_used_cm};
+    double x[NFIELDS], y[NFIELDS];
+    value_fields(a, x);
+    value_fields(b, y);
     return memcmp(x, y, sizeof x) == 0 && a->flags == b->flags;
 }
 
@@ -371,15 +377,10 @@ static bool same_value(const sl_model_value *a, const sl_model_value *b)
  * the flags bitwise. */
 static bool close_value(const sl_model_value *a, const sl_model_value *b, double rel)
 {
-    const double x[] = {a->percent, a->u_percent, a->u_fit, a->u_meas, a->u_interp,
-                        a->u_extrap, a->u_standin, a->u_transfer, a->u_uncommissioned,
-                        a->scale, a->electron_percent, a->photon_percent, a->depth_used_cm,
-                        a->tilt_used_deg, a->ssd_used_cm};
-    const double y[] = {b->percent, b->u_percent, b->u_fit, b->u_meas, b->u_interp,
-                        b->u_extrap, b->u_standin, b->u_transfer, b->u_uncommissioned,
-                        b->scale, b->electron_percent, b->photon_percent, b->depth_used_cm,
-                        b->tilt_used_deg, b->ssd_used_cm};
-    for (size_t i = 0; i < sizeof x / sizeof *x; i++) {
+    double x[NFIELDS], y[NFIELDS];
+    value_fields(a, x);
+    value_fields(b, y);
+    for (size_t i = 0; i < NFIELDS; i++) {
         if (memcmp(&x[i], &y[i], sizeof x[i]) == 0)
             continue;
         double scale = fmax(fmax(fabs(x[i]), fabs(y[i])), fabs(a->percent));
