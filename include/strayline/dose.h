@@ -302,8 +302,9 @@ void sl_estimate_free(sl_estimate *e);
 
 /* The near-maximum's sample: the index at which the hottest of n samples
  * (hotter first, then the earlier index), their volumes (cc) summed in that
- * order, first hold `volume` cc; the coldest when they never do, the
- * hottest when volume_cc is NULL (a point). scratch: room for 2 n doubles. */
+ * order, first hold `volume` cc; the coldest when they never do. With
+ * volume_cc NULL (a point) the sums are 0: the hottest for a volume of 0 or
+ * less. n == 0 gives 0. scratch: room for 2 n doubles. */
 size_t sl_dose_nearmax_sample(const double *dose, const double *volume_cc, size_t n,
                               double volume, double *scratch);
 

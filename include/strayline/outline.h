@@ -66,6 +66,8 @@ double sl_outline_distance(const sl_outline *o, sl_vec2 q);
 double sl_outline_area(const sl_outline *o);          /* cm^2, even-odd */
 void sl_outline_bounds(const sl_outline *o, sl_vec2 *lo, sl_vec2 *hi);
 size_t sl_outline_loop_count(const sl_outline *o);
+/* One loop, every corner convex: a convex region. */
+bool sl_outline_convex(const sl_outline *o);
 const sl_vec2 *sl_outline_loop_points(const sl_outline *o, size_t i, size_t *n);
 /* Nesting depth of loop i (0 outermost): even = an opening, odd = a hole. */
 int sl_outline_loop_depth(const sl_outline *o, size_t i);

@@ -225,15 +225,32 @@ int sl_cmd_scan(int argc, char **argv)
     const char **unmatched = NULL; /* facts keys that name no plan */
     int rc = SL_EXIT_OK;
     /* the folder is walked while the model and the rest load: the model
-     * file took a core on its own for a twentieth of a 100-plan scan */
+     * file took a core on its own for a twentieth of a 100-plan scan. The
+     * log is opened first, so that the walk sees it as it did when it was
+     * opened before the walk (a log inside the folder is one of its files);
+     * its error, if any, still comes after the loads' errors. Where one of
+     * those files cannot be read, nothing starts early: the error comes at
+     * once rather than after the walk of a large folder. */
     walk_job wj = {dir, threads, outdir, NULL, {0}, SL_OK};
     pthread_t walker;
-    bool walking = pthread_create(&walker, NULL, walk_thread, &wj) == 0;
+    bool walking = false, log_tried = false, log_ok = false;
+    sl_error log_err = {0};
+    if (access(model_path, R_OK) == 0 && access(levels_path, R_OK) == 0 &&
+        (!facts_path || access(facts_path, R_OK) == 0)) {
+        log_tried = true;
+        log_ok = sl_screenlog_open(log_path, true, &log, &log_err) == SL_OK;
+        walking = log_ok && pthread_create(&walker, NULL, walk_thread, &wj) == 0;
+    }
     bool loaded = sl_model_load(model_path, &model, &err) == SL_OK &&
                   sl_levels_load(levels_path, &levels, &err) == SL_OK &&
                   (!facts_path || sl_facts_load(facts_path, &facts, &err) == SL_OK) &&
-                  sl_facts_check_kinds(facts, levels, levels_path, &err) == SL_OK &&
-                  sl_screenlog_open(log_path, true, &log, &err) == SL_OK;
+                  sl_facts_check_kinds(facts, levels, levels_path, &err) == SL_OK;
+    if (loaded && !log_tried)
+        loaded = sl_screenlog_open(log_path, true, &log, &err) == SL_OK;
+    else if (loaded && !log_ok) {
+        err = log_err;
+        loaded = false;
+    }
     if (walking)
         pthread_join(walker, NULL);
     else if (loaded)

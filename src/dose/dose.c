@@ -641,23 +641,27 @@ static int cmp_iv_order(const void *a, const void *b)
  * rounding as a sort of every sample would give them (heaping and popping
  * every sample was 2 % of a scan). A bin's index never falls as the dose
  * rises, so every sample hotter than one kept is kept. A NaN has no place
- * in that order, and then the whole array is sorted as before. w is NULL
- * for a point organ (no volume: the hottest sample). order is scratch of n. */
+ * in that order, and then the whole array is sorted as before; so is it
+ * for a volume or a sample's volume that is not a number, or a volume
+ * below 0 (found by an independent review: no bin was kept, and the first
+ * of an empty selection was read). w is NULL for a point organ (no
+ * volume). order is scratch of n. */
 static size_t nearmax_sample(const double *dv, const double *w, size_t n, double volume,
                              iv *order)
 {
     if (n == 0)
         return 0;
-    bool nan = false;
+    bool nan = false, odd = !(volume >= 0); /* odd: sort every sample */
     double lo = INFINITY, hi = -INFINITY;
     for (size_t i = 0; i < n; i++) {
         nan = nan || isnan(dv[i]);
+        odd = odd || (w && isnan(w[i]));
         lo = dv[i] < lo ? dv[i] : lo;
         hi = dv[i] > hi ? dv[i] : hi;
     }
     double scale = (NEARMAX_BINS - 1) / (hi - lo);
     size_t m = 0;
-    if (nan || !w || !(hi > lo) || !isfinite(scale) || !(scale > 0)) {
+    if (nan || odd || !w || !(hi > lo) || !isfinite(scale) || !(scale > 0)) {
         for (size_t i = 0; i < n; i++)
             order[i] = (iv){dv[i], i};
         m = n;

@@ -563,6 +563,16 @@ void sl_outline_bounds(const sl_outline *o, sl_vec2 *lo, sl_vec2 *hi)
     *hi = o->hi;
 }
 
+bool sl_outline_convex(const sl_outline *o)
+{
+    if (o->nloops != 1)
+        return false;
+    for (size_t i = 0; i < o->nedges; i++)
+        if (!o->edges[i].convex_a)
+            return false;
+    return true;
+}
+
 size_t sl_outline_loop_count(const sl_outline *o)
 {
     return o->nloops;

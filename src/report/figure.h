@@ -109,6 +109,11 @@ const char *fig_status_symbol(sl_status_kind s);
 /* The patient directions (DICOM letters L R A P H F, most weighty first,
  * up to three) toward the right and the top of a beam's-eye view of a beam
  * frame. */
+/* n points of the ring r cm from an outline, one on each of n rays from
+ * the middle of its bounds, evenly spaced in angle (the beam's-eye view's
+ * distance rings; cm in the outline's plane). */
+void fig_bev_ring_points(const sl_outline *o, double r, sl_vec2 *p, size_t n);
+
 void fig_bev_directions(const sl_frame *f, char right[4], char left[4], char up[4],
                         char down[4]);
 

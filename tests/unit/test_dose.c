@@ -89,6 +89,17 @@ START_TEST(nearmax_sample_is_its_definition)
         /* a point: the hottest */
         ck_assert_uint_eq(sl_dose_nearmax_sample(d, NULL, n, 0, scratch),
                           by_sorting(d, NULL, n, 0));
+        /* volumes that are no volume: as the definition has them (the
+         * coldest for NaN, the hottest below 0), never a read of nothing */
+        const double odd[] = {NAN, -1};
+        for (size_t v = 0; v < 2; v++)
+            ck_assert_uint_eq(sl_dose_nearmax_sample(d, w, n, odd[v], scratch),
+                              by_sorting(d, w, n, odd[v]));
+        if (c % 50 == 0) { /* a sample's volume that is not a number */
+            w[n / 2] = NAN;
+            ck_assert_uint_eq(sl_dose_nearmax_sample(d, w, n, volumes[0], scratch),
+                              by_sorting(d, w, n, volumes[0]));
+        }
         free(d);
         free(w);
         free(scratch);

@@ -419,6 +419,8 @@ static int least_ring_vertices(double r)
 
 START_TEST(paths_thinned_within_tolerance)
 {
+    /* a tenth of the widest stroke the figures draw (2.4 pt) at most */
+    ck_assert(FIG_THIN_TOLERANCE_PT > 0 && FIG_THIN_TOLERANCE_PT <= 0.25);
     cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, 10, 10);
     cairo_t *cr = cairo_create(s);
     for (int scaled = 0; scaled < 2; scaled++) {
@@ -490,6 +492,71 @@ START_TEST(paths_thinned_within_tolerance)
     }
     cairo_destroy(cr);
     cairo_surface_destroy(s);
+}
+END_TEST
+
+/* The ring points as forty bisections of [0, reach] find them along each
+ * ray from the middle of the outline's bounds: the reference. */
+static void rings_by_bisection(const sl_outline *o, double r, sl_vec2 *p, size_t n)
+{
+    sl_vec2 lo, hi;
+    sl_outline_bounds(o, &lo, &hi);
+    sl_vec2 c = {(lo.x + hi.x) / 2, (lo.y + hi.y) / 2};
+    double reach = hypot(hi.x - lo.x, hi.y - lo.y) + r + 1;
+    for (size_t i = 0; i < n; i++) {
+        double a = 2 * M_PI * (double)i / (double)n, dx = cos(a), dy = sin(a);
+        double t0 = 0, t1 = reach;
+        for (int it = 0; it < 40; it++) {
+            double tm = 0.5 * (t0 + t1);
+            if (sl_outline_distance(o, (sl_vec2){c.x + tm * dx, c.y + tm * dy}) < r)
+                t0 = tm;
+            else
+                t1 = tm;
+        }
+        p[i] = (sl_vec2){c.x + t0 * dx, c.y + t0 * dy};
+    }
+}
+
+/* The beam's-eye view's distance rings against forty bisections: on a
+ * convex cutout (a 9-gon) every point on its ring and within 1e-8 cm of the
+ * bisections' (false position there); on an L, whose middle lies outside
+ * it, and on a square with a slot, whose rays cross the 1 cm ring up to
+ * three times, the bisections' points themselves (an independent review
+ * found the L's rings shrunk to their middle by the faster search). */
+START_TEST(distance_rings_lie_at_their_distance)
+{
+    sl_vec2 gon[9], ell[6] = {{0, 0}, {10, 0}, {10, 3}, {3, 3}, {3, 10}, {0, 10}};
+    sl_vec2 slot[8] = {{0, 0}, {20, 0}, {20, 13}, {2, 13}, {2, 16}, {20, 16}, {20, 20}, {0, 20}};
+    for (int i = 0; i < 9; i++)
+        gon[i] = (sl_vec2){1 + 3 * cos(2 * M_PI * i / 9), -2 + 2.5 * sin(2 * M_PI * i / 9)};
+    const struct {
+        sl_vec2 *p;
+        size_t n;
+    } shapes[] = {{gon, 9}, {ell, 6}, {slot, 8}};
+    sl_error e = {0};
+    for (size_t k = 0; k < sizeof shapes / sizeof *shapes; k++) {
+        sl_outline_loop l = {shapes[k].p, shapes[k].n};
+        sl_outline *o;
+        ck_assert_int_eq(sl_outline_create(&l, 1, "cutout", &o, &e), SL_OK);
+        ck_assert(sl_outline_convex(o) == (k == 0));
+        for (double r = 1; r <= 2; r += 1) {
+            enum { NR = 144 };
+            sl_vec2 p[NR], q[NR];
+            fig_bev_ring_points(o, r, p, NR);
+            rings_by_bisection(o, r, q, NR);
+            for (int i = 0; i < NR; i++) {
+                double gap = hypot(p[i].x - q[i].x, p[i].y - q[i].y);
+                if (k == 0) {
+                    ck_assert(fabs(sl_outline_distance(o, p[i]) - r) < 1e-8);
+                    ck_assert_msg(gap < 1e-8, "ring %g, point %d: %g cm apart", r, i, gap);
+                } else {
+                    ck_assert_msg(gap == 0, "shape %zu, ring %g, point %d: %g cm apart", k, r, i,
+                                  gap);
+                }
+            }
+        }
+        sl_outline_free(o);
+    }
 }
 END_TEST
 
@@ -637,6 +704,7 @@ static Suite *figure_suite(void)
     tcase_add_test(tc, paths_thinned_within_tolerance);
     tcase_add_test(tc, paths_thinned_within_tolerance_on_the_page);
     tcase_add_test(tc, doses_sorted_as_a_stable_comparison_sort);
+    tcase_add_test(tc, distance_rings_lie_at_their_distance);
     tcase_add_test(tc, caches_released);
     suite_add_tcase(s, tc);
     return s;

@@ -195,6 +195,41 @@ START_TEST(outline_index_equals_full_scan)
 }
 END_TEST
 
+/* sl_outline_convex: a square and a circle of 64 points (either way round)
+ * are convex; an L, a square with a point on a side (a straight corner),
+ * and the star with its hole are not. */
+START_TEST(outline_convexity)
+{
+    sl_vec2 sq[4] = {{0, 0}, {4, 0}, {4, 4}, {0, 4}}, sq_cw[4] = {{0, 0}, {0, 4}, {4, 4}, {4, 0}};
+    sl_vec2 ell[6] = {{0, 0}, {4, 0}, {4, 1}, {1, 1}, {1, 4}, {0, 4}};
+    sl_vec2 side[5] = {{0, 0}, {2, 0}, {4, 0}, {4, 4}, {0, 4}}, circ[64];
+    for (int i = 0; i < 64; i++)
+        circ[i] = (sl_vec2){3 * cos(2 * M_PI * i / 64), 3 * sin(2 * M_PI * i / 64)};
+    const struct {
+        sl_vec2 *p;
+        size_t n;
+        bool convex;
+    } c[] = {{sq, 4, true}, {sq_cw, 4, true}, {circ, 64, true}, {ell, 6, false},
+             {side, 5, false}};
+    sl_error e = {0};
+    for (size_t k = 0; k < sizeof c / sizeof *c; k++) {
+        sl_outline_loop l = {c[k].p, c[k].n};
+        sl_outline *o;
+        ck_assert_int_eq(sl_outline_create(&l, 1, "shape", &o, &e), SL_OK);
+        ck_assert_msg(sl_outline_convex(o) == c[k].convex, "shape %zu", k);
+        sl_outline_free(o);
+    }
+    sl_vec2 star[40], hole[4] = {{-0.5, -0.5}, {0.5, -0.5}, {0.5, 0.5}, {-0.5, 0.5}};
+    for (int i = 0; i < 40; i++)
+        star[i] = (sl_vec2){4 * cos(2 * M_PI * i / 40), 4 * sin(2 * M_PI * i / 40)};
+    sl_outline_loop loops[2] = {{star, 40}, {hole, 4}};
+    sl_outline *o;
+    ck_assert_int_eq(sl_outline_create(loops, 2, "ring", &o, &e), SL_OK);
+    ck_assert(!sl_outline_convex(o));
+    sl_outline_free(o);
+}
+END_TEST
+
 START_TEST(outline_refuses_bad_polygons)
 {
     sl_outline *o;
@@ -784,6 +819,7 @@ static Suite *geometry_suite(void)
     Suite *s = suite_create("geometry");
     TCase *tc = tcase_create("geometry");
     tcase_set_timeout(tc, 120);
+    tcase_add_test(tc, outline_convexity);
     tcase_add_test(tc, frame_hfs_gantry_0);
     tcase_add_test(tc, frame_hfs_gantry_90_and_270);
     tcase_add_test(tc, frame_hfp_and_ffs);
