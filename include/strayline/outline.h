@@ -66,6 +66,10 @@ double sl_outline_distance(const sl_outline *o, sl_vec2 q);
 double sl_outline_area(const sl_outline *o);          /* cm^2, even-odd */
 void sl_outline_bounds(const sl_outline *o, sl_vec2 *lo, sl_vec2 *hi);
 size_t sl_outline_loop_count(const sl_outline *o);
+/* Whether sl_outline_index would split the outline at all: one with few
+ * edges is one leaf however large its box, and its distances are the same
+ * without the box. */
+bool sl_outline_index_splits(const sl_outline *o);
 /* One loop, every corner convex: a convex region. */
 bool sl_outline_convex(const sl_outline *o);
 const sl_vec2 *sl_outline_loop_points(const sl_outline *o, size_t i, size_t *n);

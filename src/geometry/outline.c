@@ -563,6 +563,11 @@ void sl_outline_bounds(const sl_outline *o, sl_vec2 *lo, sl_vec2 *hi)
     *hi = o->hi;
 }
 
+bool sl_outline_index_splits(const sl_outline *o)
+{
+    return o->nedges > LEAF_EDGES;
+}
+
 bool sl_outline_convex(const sl_outline *o)
 {
     if (o->nloops != 1)
