@@ -225,6 +225,11 @@ static sl_status not_commissioned(const sl_model *m, double e, const char *app, 
         for (size_t k = 0; k < m->nprofiles && !has; k++)
             has = fabs(m->profiles[k].energy_mev - o->energy_mev) < 0.01 &&
                   strcmp(m->profiles[k].applicator, o->applicator) == 0;
+        /* one entry for each energy and applicator, whatever outputs (one
+         * for each SSD) the machine lists for it */
+        for (size_t j = 0; j < i && has; j++)
+            has = !(fabs(m->machine.outputs[j].energy_mev - o->energy_mev) < 0.01 &&
+                    strcmp(m->machine.outputs[j].applicator, o->applicator) == 0);
         if (!has)
             continue;
         char item[64];
