@@ -464,9 +464,14 @@ double sl_profile_fit_eval_sym(const sl_profile_fit *f, const double *sym, doubl
                                double *electron, double *photon)
 {
     double g[SL_PROFILE_MAX_PARAMS];
+    /* the gradient serves the uncertainty only */
     double v = sl_profile_value(f->form, f->theta, d, u ? g : NULL, electron, photon);
     if (u) {
-        /* sl_profile_fit_eval_parts' sum, term for term */
+        /* g' C g by rows of the upper triangle, each pair (i, j) once with
+         * C_ij + C_ji (the same sum for any C): half the products of the
+         * full double sum, and rows the processor can add side by side
+         * instead of one chain of p * p additions, which was the costliest
+         * step of evaluating a model (6 % of a scan's processor time) */
         const size_t p = f->p;
         double var = 0;
         for (size_t i = 0; i < p; i++) {
@@ -483,25 +488,10 @@ double sl_profile_fit_eval_sym(const sl_profile_fit *f, const double *sym, doubl
 double sl_profile_fit_eval_parts(const sl_profile_fit *f, double d, double *u, double *electron,
                                  double *photon)
 {
-    double g[SL_PROFILE_MAX_PARAMS];
-    /* the gradient serves the uncertainty only */
-    double v = sl_profile_value(f->form, f->theta, d, u ? g : NULL, electron, photon);
-    if (u) {
-        /* g' C g by rows of the upper triangle, each pair (i, j) once with
-         * C_ij + C_ji (the same sum for any C): half the products of the
-         * full double sum, and rows the processor can add side by side
-         * instead of one chain of p * p additions, which was the costliest
-         * step of evaluating a model (6 % of a scan's processor time) */
-        const size_t p = f->p;
-        const double *c = f->covar;
-        double var = 0;
-        for (size_t i = 0; i < p; i++) {
-            double row = c[i * p + i] * g[i];
-            for (size_t j = i + 1; j < p; j++)
-                row += (c[i * p + j] + c[j * p + i]) * g[j];
-            var += g[i] * row;
-        }
-        *u = sqrt(fmax(var, 0));
-    }
-    return v;
+    /* the pair sums of this call's covariance; a curve of the model keeps
+     * them (sl_profile_fit_sym) and calls sl_profile_fit_eval_sym itself */
+    double sym[SL_PROFILE_MAX_PARAMS * SL_PROFILE_MAX_PARAMS];
+    if (u)
+        sl_profile_fit_sym(f, sym);
+    return sl_profile_fit_eval_sym(f, u ? sym : NULL, d, u, electron, photon);
 }
