@@ -603,13 +603,8 @@ static sl_status place_beam(sl_location *loc, const sl_plan *plan, const sl_beam
                  (bp->field.applicator && sl_outline_index_splits(bp->field.applicator));
     if (split)
         sl_parallel_for(ntasks, sl_parallel_threads(opt->threads), bounds_task, &bj);
-    else
-        for (t = 0; t < ntasks; t++) {
-            bj.lo[t] = (sl_vec2){DBL_MAX, DBL_MAX};
-            bj.hi[t] = (sl_vec2){-DBL_MAX, -DBL_MAX};
-        }
     sl_vec2 lo = {DBL_MAX, DBL_MAX}, hi = {-DBL_MAX, -DBL_MAX};
-    for (t = 0; t < ntasks; t++) {
+    for (t = 0; split && t < ntasks; t++) {
         lo.x = bj.lo[t].x < lo.x ? bj.lo[t].x : lo.x;
         lo.y = bj.lo[t].y < lo.y ? bj.lo[t].y : lo.y;
         hi.x = bj.hi[t].x > hi.x ? bj.hi[t].x : hi.x;
