@@ -196,6 +196,16 @@ static void text_sink_free(void *p)
     free(ts);
 }
 
+/* n bytes of a layout's text as XML takes them: control characters as
+ * spaces (they are not allowed in XML). */
+static void copy_visible(char *dst, const char *src, size_t n)
+{
+    for (size_t i = 0; i < n; i++) {
+        unsigned char c = (unsigned char)src[i];
+        dst[i] = c < 0x20 || c == 0x7f ? ' ' : (char)c;
+    }
+}
+
 /* One line of a layout as plain text: its bytes without the trailing white
  * space (its width then ends where that space begins), control characters
  * as spaces (they are not allowed in XML). */
@@ -209,10 +219,7 @@ static bool text_line_take(PangoLayoutLine *line, const char *all, int base_pu, 
     out->text = malloc((size_t)len + 1);
     if (!out->text)
         return false;
-    for (int i = 0; i < len; i++) {
-        unsigned char c = (unsigned char)all[start + i];
-        out->text[i] = c < 0x20 || c == 0x7f ? ' ' : (char)c;
-    }
+    copy_visible(out->text, all + start, (size_t)len);
     out->text[len] = '\0';
     int end_x = 0;
     pango_layout_line_index_to_x(line, start + len, 0, &end_x);
@@ -256,10 +263,8 @@ static bool text_line_ellipsized(PangoLayoutLine *line, const char *all, int bas
             k += strlen(e);
             continue;
         }
-        for (int i = 0; i < run->item->length; i++) {
-            unsigned char c = (unsigned char)all[run->item->offset + i];
-            t[k++] = c < 0x20 || c == 0x7f ? ' ' : (char)c;
-        }
+        copy_visible(t + k, all + run->item->offset, (size_t)run->item->length);
+        k += (size_t)run->item->length;
     }
     t[k] = '\0';
     out->text = t;
