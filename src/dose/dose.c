@@ -733,8 +733,29 @@ static double reach_of(const sl_estimate *e, const sl_organ_dose *od)
  * a sample, raises the point's upper bounds (found by an independent
  * review: a pacemaker given by its centre, 4.5 cm from the edge, passed in
  * the low band at a fifth of the dose its contour gets). */
-static void reach_bound(sl_estimate *e, size_t o, sl_organ_dose *od, double reach, double t)
+static sl_status reach_bound(sl_estimate *e, size_t o, sl_organ_dose *od, double reach, double t)
 {
+    /* each beam's percent and its uncertainty there, once for all groups */
+    double *pc = malloc(2 * (e->nbeams ? e->nbeams : 1) * sizeof *pc), *pu = pc + e->nbeams;
+    if (!pc)
+        return SL_ENOMEM;
+    for (size_t b = 0; b < e->nbeams; b++) {
+        const sl_beam_dose *bd = &e->beams[b];
+        bool in_a_group = false;
+        for (size_t g = 0; g < e->ngroups; g++)
+            in_a_group = in_a_group || isfinite(bd->ref_cgy[g]);
+        if (!in_a_group)
+            continue;
+        sl_eval_query q = sample_query(e, b, o, 0);
+        q.distance_cm -= reach;
+        if (isfinite(q.app_distance_cm))
+            q.app_distance_cm -= reach;
+        sl_model_value v;
+        double us;
+        pu[b] = eval_shifted(bd, q, e->opt.setup_shift_cm, t, &v, &us);
+        pc[b] = v.percent;
+        od->flags |= v.flags | bd->model_flags;
+    }
     double course = 0, u_course = 0;
     for (size_t g = 0; g < e->ngroups; g++) {
         double fx = 0, u_fx = 0;
@@ -742,16 +763,8 @@ static void reach_bound(sl_estimate *e, size_t o, sl_organ_dose *od, double reac
             const sl_beam_dose *bd = &e->beams[b];
             if (!isfinite(bd->ref_cgy[g]))
                 continue;
-            sl_eval_query q = sample_query(e, b, o, 0);
-            q.distance_cm -= reach;
-            if (isfinite(q.app_distance_cm))
-                q.app_distance_cm -= reach;
-            sl_model_value v;
-            double us;
-            double u = eval_shifted(bd, q, e->opt.setup_shift_cm, t, &v, &us);
-            od->flags |= v.flags | bd->model_flags;
-            fx += bd->ref_cgy[g] * v.percent / 100;
-            u_fx += bd->ref_cgy[g] * u / 100;
+            fx += bd->ref_cgy[g] * pc[b] / 100;
+            u_fx += bd->ref_cgy[g] * pu[b] / 100;
         }
         raise_bound(&od->fx_max[g], fx + 2 * u_fx);
         raise_bound(&od->fx_nearmax[g], fx + 2 * u_fx);
@@ -764,6 +777,8 @@ static void reach_bound(sl_estimate *e, size_t o, sl_organ_dose *od, double reac
     raise_bound(&od->course_max, up);
     raise_bound(&od->course_nearmax, up);
     od->flags |= SL_MF_POINT_REACH;
+    free(pc);
+    return SL_OK;
 }
 
 static sl_status organ_task_run(sl_estimate *e, size_t o)
@@ -1114,7 +1129,8 @@ static sl_status organ_task_run(sl_estimate *e, size_t o)
             od->electron_fraction = dv[imax] > 0 ? ec[imax] / dv[imax] : 0;
     }
     if (reach > 0) {
-        reach_bound(e, o, od, reach, t);
+        if ((st = reach_bound(e, o, od, reach, t)) != SL_OK)
+            goto done;
         if (reach_dmin < SL_NEAR_EDGE_CM) {
             od->near_edge = true;
             od->flags |= SL_MF_NEAR_EDGE;
